@@ -1,0 +1,28 @@
+"""Check functions, one per catalogue rule. Each module registers its checks with ``@check``."""
+
+from __future__ import annotations
+
+import importlib
+from typing import Callable
+
+CHECKS: dict[str, Callable] = {}
+
+# The modules that hold checks; listed once so the engine loads them all.
+MODULES = ("loader", "adapter", "learning_rate", "chat_format", "precision", "batch")
+
+
+def check(rule_id: str) -> Callable[[Callable], Callable]:
+    def register(fn: Callable) -> Callable:
+        if rule_id in CHECKS:
+            raise RuntimeError(f"two checks for rule {rule_id}")
+        CHECKS[rule_id] = fn
+        fn.rule_id = rule_id  # type: ignore[attr-defined]
+        return fn
+
+    return register
+
+
+def all_checks() -> dict[str, Callable]:
+    for name in MODULES:
+        importlib.import_module(f"{__name__}.{name}")
+    return CHECKS

@@ -1,0 +1,84 @@
+"""Batch arithmetic: declared global batch, and intervals against the length of the run."""
+
+from __future__ import annotations
+
+from ..findings import Edit, Fix
+from ..schedule import derive, resolve_interval
+from . import check
+
+
+@check("global-batch-mismatch")
+def global_batch_mismatch(ctx) -> None:
+    view = ctx.view
+    declared_f = view.get("batch.global")
+    pd_f = view.get("batch.per_device")
+    if declared_f is None or pd_f is None:
+        return
+    declared, pd = declared_f.value, pd_f.value
+    if not isinstance(declared, int) or not isinstance(pd, int) or declared <= 0 or pd <= 0:
+        return
+    ga_f = view.get("batch.accumulation")
+    ga = ga_f.value if ga_f is not None else None
+    if ga_f is not None and not isinstance(ga, int):
+        return  # "auto" or missing: filled in at launch
+    gpus, gpus_f = ctx.num_gpus
+    product = pd * (ga or 1)
+    if gpus:
+        expected = product * gpus
+        if declared == expected:
+            return
+        fix = Fix(tier="changes-training",
+                  summary=f"{declared_f.key}: {declared} -> {expected}",
+                  edits=(Edit(path=declared_f.path, old=declared_f.written, new=expected),))
+        ctx.report(declared_f, fix=fix, key=declared_f.leaf, declared=declared, per_device=pd,
+                   accumulation=ga or 1, gpus=gpus, expected=expected,
+                   gpus_from="--gpus" if gpus_f is None else gpus_f.key)
+        return
+    if declared % product != 0:
+        ctx.report(declared_f, "no-gpu-count", key=declared_f.leaf, declared=declared,
+                   per_device=pd, accumulation=ga or 1, product=product,
+                   lower=declared // product * product or product,
+                   upper=(declared // product + 1) * product)
+
+
+_INTERVALS = (
+    ("cadence.eval_steps", "cadence.eval_strategy", "evaluation"),
+    ("cadence.save_steps", "cadence.save_strategy", "checkpoint"),
+    ("cadence.logging_steps", None, "logging"),
+)
+
+
+@check("cadence-longer-than-run")
+def cadence_longer_than_run(ctx) -> None:
+    view = ctx.view
+    intervals = [(view.get(n), s, what) for n, s, what in _INTERVALS if view.get(n) is not None]
+    intervals = [(f, s, w) for f, s, w in intervals if isinstance(f.value, (int, float))
+                 and not isinstance(f.value, bool) and f.value >= 1]
+    if not intervals:
+        return
+    trainer = view.layout is not None and view.layout.name == "trainer"
+    gpus, _ = ctx.num_gpus
+    rows = ctx.options.rows or view.value("data.rows")
+    values = {name: view.value(name) for name in
+              ("batch.per_device", "batch.accumulation", "optim.epochs", "optim.max_steps")}
+    sched = derive(values, gpus=gpus, rows=rows, use_trainer_defaults=trainer)
+    if sched.total_steps is None:
+        ctx.cannot_judge("the number of training rows is unknown (--rows N) and max_steps is not set")
+        return
+    total = sched.total_steps
+    for f, strategy_name, what in intervals:
+        if strategy_name:
+            strategy = view.value(strategy_name)
+            if isinstance(strategy, str) and strategy.lower() in ("no", "epoch", "best"):
+                continue
+            if strategy is None and what == "evaluation":
+                continue  # the trainer's default eval strategy is "no"
+        every = resolve_interval(float(f.value), total)
+        if every <= total:
+            continue
+        how = (f"max_steps {total}" if sched.max_steps_override else
+               f"{rows:,} rows / ({sched.per_device} per device × {sched.accumulation} accumulation"
+               f" × {sched.gpus} GPU{'s' if sched.gpus != 1 else ''}) = {sched.steps_per_epoch}"
+               f" steps per epoch × {sched.epochs:g} epochs")
+        ctx.report(f, key=f.leaf, every=every, total=total, what=what, how=how,
+                   suggestion=max(1, total // 4))

@@ -1,0 +1,58 @@
+"""A chat format added to an adapter run whose embeddings and output head stay frozen."""
+
+from __future__ import annotations
+
+import re
+
+from . import check
+
+EMBEDDING_NAMES = {"embed_tokens", "wte", "tok_embeddings", "word_embeddings", "embeddings",
+                   "embed_in", "tok_embed"}
+HEAD_NAMES = {"lm_head", "output", "embed_out", "head"}
+# names of models already tuned on a chat format: their template's tokens are trained
+_TUNED = re.compile(r"(instruct|chat|-it\b|-it-|sft|dpo|zephyr|hermes|assistant)", re.I)
+
+
+def _names(value) -> set[str]:
+    if isinstance(value, str):
+        return {value}
+    if isinstance(value, list):
+        return {str(v) for v in value}
+    return set()
+
+
+def _leaves(names: set[str]) -> set[str]:
+    return {n.rsplit(".", 1)[-1] for n in names}
+
+
+@check("chat-format-untrained-embeddings")
+def chat_format(ctx) -> None:
+    view = ctx.view
+    if not view.is_adapter:
+        return
+    template = view.get("data.chat_template")
+    tokens = view.get("data.new_tokens")
+    new_tokens = sorted(_names(tokens.value)) if tokens is not None else []
+    if (template is None or not template.value) and not new_tokens:
+        return
+    trained = _leaves(_names(view.value("adapter.save_modules")) | _names(view.value("adapter.targets")))
+    arch = ctx.model()
+    tied = bool(arch and arch.tie_word_embeddings)
+    has_embed = bool(trained & EMBEDDING_NAMES)
+    has_head = bool(trained & HEAD_NAMES) or (tied and has_embed)
+    if has_embed and has_head:
+        return
+    missing = [n for n, ok in (("embed_tokens", has_embed), ("lm_head", has_head)) if not ok]
+    if tied:
+        missing = [m for m in missing if m != "lm_head"] or missing
+    key = view.get("adapter.save_modules").key if view.get("adapter.save_modules") else "modules_to_save"
+    if new_tokens:
+        ctx.report(tokens, "new-tokens", count=len(new_tokens),
+                   tokens=", ".join(new_tokens[:4]) + (" ..." if len(new_tokens) > 4 else ""),
+                   missing=" and ".join(missing), save_key=key)
+        return
+    ref = view.value("model.ref")
+    if isinstance(ref, str) and _TUNED.search(ref.rsplit("/", 1)[-1]):
+        return  # the model already speaks a chat format: its template's tokens are trained
+    ctx.report(template, missing=" and ".join(missing), save_key=key,
+               model=ref if isinstance(ref, str) else "the base model")

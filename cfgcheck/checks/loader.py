@@ -1,0 +1,110 @@
+"""Checks on how the file was written: duplicate keys, YAML-version-dependent scalars, value types."""
+
+from __future__ import annotations
+
+import re
+
+from ..findings import Edit, Fix
+from ..load import dotted
+from . import check
+
+
+@check("duplicate-key")
+def duplicate_key(ctx) -> None:
+    for dup in ctx.doc.duplicates:
+        ctx.report(
+            dup.path,
+            on="key",
+            key=dotted(dup.path),
+            first_line=dup.first.line,
+            second_line=dup.second.line,
+            first_value=_short(dup.first_value),
+            second_value=_short(dup.second_value),
+        )
+
+
+def _short(value) -> str:
+    text = repr(value)
+    return text if len(text) <= 40 else text[:37] + "..."
+
+
+_EXP = re.compile(r"^([-+]?)([0-9][0-9_]*)(\.[0-9_]*)?[eE]([-+]?)([0-9]+)$")
+
+
+def dotted_exponent(raw: str) -> str:
+    """``1e-4`` -> ``1.0e-4``, ``1e4`` -> ``1.0e+4``: read as a float by YAML 1.1 and 1.2 alike."""
+    m = _EXP.match(raw)
+    sign, whole, frac, esign, digits = m.groups()
+    frac = frac if frac and frac != "." else ".0"
+    return f"{sign}{whole}{frac}e{esign or '+'}{digits}"
+
+
+@check("yaml-version-dependent-value")
+def yaml_version_dependent(ctx) -> None:
+    if ctx.doc.format != "yaml":
+        return
+    for amb in ctx.doc.ambiguities:
+        key = dotted(amb.path)
+        if amb.kind == "exponent-without-dot":
+            new = dotted_exponent(amb.raw)
+            fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
+                      edits=(Edit(path=amb.path, old=amb.yaml11, new=float(amb.yaml12)),))
+            ctx.report(amb.path, "exponent-without-dot", fix=fix, key=key, raw=amb.raw,
+                       number=amb.yaml12, replacement=new)
+        elif amb.kind == "word-boolean":
+            new = "true" if amb.yaml11 else "false"
+            fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
+                      edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.yaml11),))
+            ctx.report(amb.path, "word-boolean", fix=fix, key=key, raw=amb.raw,
+                       replacement=new)
+        elif amb.kind == "leading-zero-octal":
+            ctx.report(amb.path, "leading-zero-octal", key=key, raw=amb.raw,
+                       yaml11=amb.yaml11, yaml12=amb.yaml12)
+        else:
+            ctx.report(amb.path, "base-60", key=key, raw=amb.raw, yaml11=amb.yaml11)
+
+
+_EXPECTED = {
+    "int": "a whole number",
+    "number": "a number",
+    "bool": "true or false",
+    "str": "a single text value",
+    "names": "a module name or a list of names",
+}
+_EXAMPLE = {
+    "optim.lr": "2.0e-5",
+    "adapter.rank": "16",
+    "adapter.alpha": "32",
+    "batch.per_device": "4",
+    "batch.accumulation": "8",
+}
+
+
+def _kind(value) -> str:
+    if isinstance(value, bool):
+        return "a boolean"
+    if isinstance(value, (int, float)):
+        return "a number"
+    if isinstance(value, str):
+        return "text"
+    if isinstance(value, list):
+        return "a list"
+    if isinstance(value, dict):
+        return "a mapping"
+    return type(value).__name__
+
+
+@check("value-type-mismatch")
+def value_type_mismatch(ctx) -> None:
+    for problem in ctx.view.type_problems:
+        f = problem.field
+        expected = _EXPECTED.get(problem.expected, problem.expected)
+        example = _EXAMPLE.get(f.name)
+        ctx.report(
+            f,
+            key=f.key,
+            written=_short(f.written),
+            got=_kind(f.written),
+            expected=expected,
+            example=f" (for example {f.leaf}: {example})" if example else "",
+        )

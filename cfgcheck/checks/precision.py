@@ -1,0 +1,88 @@
+"""Precision settings against what the GPU can run."""
+
+from __future__ import annotations
+
+from ..findings import Edit, Fix
+from ..knowledge.hardware import FEATURE_MIN_CAPABILITY
+from . import check
+
+_BF16_WORDS = {"bfloat16", "bf16"}
+
+
+def _wanted(view):
+    """(feature, field) pairs for every precision feature the config turns on."""
+    out = []
+    for name in ("precision.bf16",):
+        f = view.get(name)
+        if f is not None and f.value is True:
+            out.append(("bf16", f))
+    for name in ("model.dtype", "quant.compute_dtype"):
+        f = view.get(name)
+        if f is not None and isinstance(f.value, str) and f.value.strip().lower() in _BF16_WORDS:
+            out.append(("bf16", f))
+    f = view.get("precision.mixed")
+    if f is not None and isinstance(f.value, str):
+        word = f.value.strip().lower()
+        if word in _BF16_WORDS:
+            out.append(("bf16", f))
+        elif word == "fp8":
+            out.append(("fp8", f))
+    f = view.get("precision.tf32")
+    if f is not None and f.value is True:
+        out.append(("tf32", f))
+    f = view.get("model.attention")
+    if f is not None and isinstance(f.value, str) and f.value.strip().lower() == "flash_attention_2":
+        out.append(("flash_attention_2", f))
+    return out
+
+
+_REPLACEMENT = {"bf16": "fp16", "tf32": "false", "fp8": "bf16", "flash_attention_2": "sdpa"}
+
+
+def _fix_for(feature, f, gpu):
+    if feature == "tf32":
+        return Fix(tier="changes-training", summary=f"{f.key}: true -> false (no TF32 below 8.0)",
+                   edits=(Edit(path=f.path, old=f.written, new=False),))
+    if feature == "bf16" and f.name == "precision.bf16":
+        return Fix(tier="changes-training", summary=f"{f.key}: true -> false (use fp16 on {gpu.name})",
+                   edits=(Edit(path=f.path, old=f.written, new=False),))
+    if feature == "bf16" and isinstance(f.written, str):
+        new = "float16" if f.written.strip().lower() == "bfloat16" else "fp16"
+        return Fix(tier="changes-training", summary=f"{f.key}: {f.written} -> {new}",
+                   edits=(Edit(path=f.path, old=f.written, new=new),))
+    return None
+
+
+@check("precision-unsupported-on-gpu")
+def precision_vs_gpu(ctx) -> None:
+    wanted = _wanted(ctx.view)
+    if not wanted:
+        return
+    gpu = ctx.gpu
+    if gpu is None:
+        ctx.cannot_judge("no GPU named (--gpu NAME); "
+                         + ", ".join(sorted({w for w, _ in wanted})) + " support not checked")
+        return
+    for feature, f in wanted:
+        if gpu.supports(feature):
+            continue
+        need, source = FEATURE_MIN_CAPABILITY[feature]
+        if feature == "fp8":
+            suits = "bf16" if gpu.supports("bf16") else "fp16"
+        elif feature == "bf16":
+            suits = "fp16 (with loss scaling)"
+        elif feature == "tf32":
+            suits = "plain fp32 matmuls (tf32: false)"
+        else:
+            suits = "attn_implementation: sdpa"
+        ctx.report(f, feature, fix=_fix_for(feature, f, gpu), key=f.key, feature=feature,
+                   gpu=gpu.label, capability=gpu.capability_text,
+                   needed=f"{need[0]}.{need[1]}", suits=suits, source=source)
+
+
+@check("bf16-and-fp16-both-on")
+def bf16_and_fp16(ctx) -> None:
+    bf, fp = ctx.view.get("precision.bf16"), ctx.view.get("precision.fp16")
+    if bf is None or fp is None or bf.value is not True or fp.value is not True:
+        return
+    ctx.report(fp, bf16_key=bf.key, fp16_key=fp.key)

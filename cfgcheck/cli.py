@@ -1,0 +1,142 @@
+"""Command line: the only module that reads argv, writes to the terminal or exits."""
+
+from __future__ import annotations
+
+import sys
+from enum import Enum
+from pathlib import Path
+from typing import List, Optional
+
+import typer
+
+from . import __version__
+
+app = typer.Typer(
+    add_completion=True,
+    no_args_is_help=True,
+    help="cfgcheck: finds the mistakes in fine-tuning configs (LoRA, QLoRA, full, DeepSpeed) before the GPU run.",
+    context_settings={"help_option_names": ["-h", "--help"]},
+)
+
+
+class Format(str, Enum):
+    text = "text"
+    json = "json"
+
+
+class Level(str, Enum):
+    info = "info"
+    warning = "warning"
+    error = "error"
+
+
+def _version(value: bool) -> None:
+    if value:
+        typer.echo(f"cfgcheck {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def main_options(
+    version: bool = typer.Option(False, "--version", callback=_version, is_eager=True,
+                                 help="Print the version and exit."),
+) -> None:
+    pass
+
+
+@app.command()
+def lint(
+    paths: List[Path] = typer.Argument(..., help="Config files or folders (YAML and JSON inside are checked)."),
+    gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
+    gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
+    rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    fmt: Format = typer.Option(Format.text, "--format", help="Output format."),
+    show: Level = typer.Option(Level.warning, "--show", help="Lowest severity printed in text output."),
+    debug: bool = typer.Option(False, "--debug", help="Re-raise an error inside a rule instead of reporting it."),
+) -> None:
+    """Check training configs and report what would waste the run."""
+    from . import api
+    from .findings import Severity
+    from .knowledge.hardware import UnknownGpu
+    from .render import render
+
+    try:
+        options = api.make_options(gpu=gpu, gpus=gpus, rows=rows, debug=debug)
+    except UnknownGpu as exc:
+        typer.echo(f"cfgcheck: {exc}", err=True)
+        raise typer.Exit(api.EXIT_INPUT)
+    from . import engine
+
+    report = engine.lint_paths(paths, options)
+    level = Severity.parse(show.value)
+    if fmt is Format.json:
+        out = render("json", report, report.findings)
+    else:
+        shown = api.visible(report.findings, level)
+        hidden = sum(1 for f in report.findings if f.severity == Severity.INFO and f.severity < level)
+        out = render("text", report, shown, hidden_info=hidden)
+    sys.stdout.write(out)
+    raise typer.Exit(api.exit_code(report))
+
+
+@app.command("rules")
+def list_rules() -> None:
+    """List every rule in the catalogue with its default severity."""
+    from .catalogue import load_catalogue
+
+    rules = load_catalogue()
+    width = max(len(r) for r in rules)
+    for rule in rules.values():
+        typer.echo(f"{rule.id:<{width}}  {rule.severity.word:<7}  {rule.summary}")
+
+
+@app.command()
+def explain(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck rules`.")) -> None:
+    """Show one rule's catalogue entry: why, thresholds, sources, examples."""
+    import difflib
+
+    from .catalogue import load_catalogue
+
+    rules = load_catalogue()
+    rule = rules.get(rule_id)
+    if rule is None:
+        near = difflib.get_close_matches(rule_id, list(rules), n=3, cutoff=0.3)
+        typer.echo(f"cfgcheck: no rule {rule_id!r}" + (f"; did you mean {', '.join(near)}?" if near else ""), err=True)
+        raise typer.Exit(2)
+    typer.echo(f"{rule.id} ({rule.severity.word})\n  {rule.summary}\n")
+    typer.echo("Why:\n  " + rule.rationale.replace("\n", "\n  ") + "\n")
+    if rule.thresholds:
+        typer.echo("Thresholds:")
+        for name, t in rule.thresholds.items():
+            value = t.get("value") if isinstance(t, dict) else t
+            source = t.get("source") if isinstance(t, dict) else None
+            typer.echo(f"  {name}: {value}" + (f"\n    source: {source}" if source else ""))
+        typer.echo("")
+    typer.echo("Sources:")
+    for s in rule.sources:
+        typer.echo(f"  - {s}")
+    if rule.fix:
+        typer.echo(f"\nFix ({rule.fix.get('tier')}): {rule.fix.get('summary')}")
+    for kind in ("bad", "good"):
+        for ex in rule.examples.get(kind, []):
+            typer.echo(f"\nExample ({kind}):")
+            typer.echo("  " + ex["text"].rstrip("\n").replace("\n", "\n  "))
+
+
+@app.command()
+def gpus() -> None:
+    """List the GPU names --gpu accepts, with compute capability and memory."""
+    from .knowledge.hardware import ALIASES, GPUS
+
+    for g in GPUS.values():
+        aliases = sorted(a for a, t in ALIASES.items() if t == g.name)
+        extra = f"  (also: {', '.join(aliases)})" if aliases else ""
+        typer.echo(f"{g.name:<10} {g.label:<18} cc {g.capability_text:<5} {g.memory_gb:>4.0f} GB{extra}")
+
+
+def main() -> None:
+    app()
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,288 @@
+"""Runs the checks of the catalogue over typed views and turns what they report into findings.
+
+Severity is decided here, once: the catalogue's default, a message variant's own level, and the
+user's overrides. Locations come from the document, never from a check.
+"""
+
+from __future__ import annotations
+
+import os
+import traceback
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Iterable
+
+from . import load as loadmod
+from .catalogue import Rule, load_catalogue
+from .checks import all_checks
+from .findings import Finding, Fix, InputProblem, InternalError, Severity
+from .knowledge.hardware import Gpu
+from .load import Document, LoadError, dotted
+from .view import Field, RunView, build_view
+
+CONFIG_SUFFIXES = (".yaml", ".yml", ".json")
+
+
+@dataclass
+class Options:
+    gpu: Gpu | None = None
+    gpus: int | None = None  # GPUs in the whole job
+    rows: int | None = None  # training rows
+    select: frozenset[str] | None = None  # only these rules
+    ignore: frozenset[str] = frozenset()
+    severity: dict[str, Severity] = field(default_factory=dict)  # per-rule overrides
+    thresholds: dict[str, dict[str, Any]] = field(default_factory=dict)  # per-rule overrides
+    cwd: Path | None = None
+    debug: bool = False  # re-raise a failing rule instead of reporting it
+
+
+@dataclass
+class FileReport:
+    file: str
+    findings: list[Finding] = field(default_factory=list)
+    problem: InputProblem | None = None
+    skipped: str | None = None
+    layout: str | None = None
+    internal: list[InternalError] = field(default_factory=list)
+    views: list[RunView] = field(default_factory=list)
+
+
+@dataclass
+class Report:
+    files: list[FileReport] = field(default_factory=list)
+
+    @property
+    def findings(self) -> list[Finding]:
+        return [f for fr in self.files for f in fr.findings]
+
+    @property
+    def problems(self) -> list[InputProblem]:
+        return [fr.problem for fr in self.files if fr.problem]
+
+    @property
+    def internal(self) -> list[InternalError]:
+        return [e for fr in self.files for e in fr.internal]
+
+    @property
+    def linted(self) -> int:
+        return sum(1 for fr in self.files if not fr.problem and not fr.skipped)
+
+    @property
+    def skipped(self) -> int:
+        return sum(1 for fr in self.files if fr.skipped and not fr.problem)
+
+    def count(self, severity: Severity) -> int:
+        return sum(1 for f in self.findings if f.severity == severity)
+
+
+# --------------------------------------------------------------------------- the check context
+
+class Context:
+    """What a check sees: the view, the knowledge, the options, and ``report``."""
+
+    def __init__(self, view: RunView, rule: Rule, options: Options, sink: list[Finding],
+                 file: str):
+        self.view = view
+        self.doc: Document = view.doc
+        self.rule = rule
+        self.options = options
+        self._sink = sink
+        self.file = file
+        overrides = options.thresholds.get(rule.id, {})
+        self.thresholds = {
+            name: overrides.get(name, rule.threshold(name)) for name in rule.thresholds
+        }
+        self._judged_once: set[str] = set()
+
+    # knowledge --------------------------------------------------------------
+    @property
+    def gpu(self) -> Gpu | None:
+        return self.options.gpu
+
+    @property
+    def num_gpus(self) -> tuple[int | None, Field | None]:
+        """GPUs in the job: the command line wins, then the config itself."""
+        if self.options.gpus:
+            return self.options.gpus, None
+        f = self.view.get("hardware.num_gpus")
+        if f is not None and isinstance(f.value, int) and f.value > 0:
+            machines = self.view.value("hardware.num_machines", 1)
+            return f.value * (machines if isinstance(machines, int) and machines > 0 else 1), f
+        return None, None
+
+    @property
+    def config_dir(self) -> Path | None:
+        p = Path(self.file)
+        return p.parent if p.name else None
+
+    def model(self):
+        """The base model's architecture when it can be known offline, else None."""
+        cache = self.view.cache
+        if "model" in cache:
+            return cache["model"]
+        from .knowledge.models import resolve_model  # only rules that need a model pay for it
+
+        ref = self.view.value("model.ref")
+        arch = None
+        if isinstance(ref, str) and ref.strip():
+            arch = resolve_model(ref.strip(), config_dir=self.config_dir,
+                                 cwd=self.options.cwd or Path(os.getcwd()))
+        cache["model"] = arch
+        return arch
+
+    # reporting --------------------------------------------------------------
+    def report(self, at: Field | tuple | None = None, variant: str = "default", *,
+               on: str = "value", fix: Fix | None = None, **data: Any) -> None:
+        path = at.path if isinstance(at, Field) else tuple(at or ())
+        self._sink.append(
+            make_finding(self.rule, self.options, self.doc, self.file, path, variant, on, data,
+                         fix)
+        )
+
+    def cannot_judge(self, what: str, **data: Any) -> None:
+        """Say once, at info level, that the rule had too little to go on."""
+        if what in self._judged_once:
+            return
+        self._judged_once.add(what)
+        msg = self.rule.messages.get("cannot-judge")
+        text = (msg.message if msg else "{rule}: not checked: {reason}")
+        self._sink.append(
+            _finding(
+                rule=self.rule.id, severity=Severity.INFO, doc=self.doc, file=self.file, path=(),
+                on="value", message=_fill(text, dict(data, rule=self.rule.id, reason=what)),
+                hint=_fill(msg.hint if msg else "{reason}", dict(data, reason=what)),
+                data=dict(data, reason=what, judged=False),
+            )
+        )
+
+
+def _fill(template: str, data: dict[str, Any]) -> str:
+    try:
+        return template.format(**data)
+    except (KeyError, IndexError, ValueError) as exc:  # a catalogue bug, never user input
+        raise RuntimeError(f"message template {template!r} cannot be filled: {exc}") from None
+
+
+def _location(doc: Document, path: tuple, on: str) -> tuple[int, int]:
+    probe = tuple(path)
+    while True:
+        entry = doc.entries.get(probe)
+        if entry is not None:
+            span = entry.key if (on == "key" and entry.key is not None) else entry.value
+            return span.line, span.column
+        if not probe:
+            return 1, 1
+        probe = probe[:-1]
+
+
+def _finding(*, rule: str, severity: Severity, doc: Document, file: str, path: tuple, on: str,
+             message: str, hint: str, data: dict[str, Any], fix: Fix | None = None) -> Finding:
+    line, column = _location(doc, path, on)
+    return Finding(rule=rule, severity=severity, file=file, line=line, column=column,
+                   key=dotted(path), message=message, hint=hint, data=data, path=tuple(path),
+                   document=doc.index, fix=fix)
+
+
+def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: tuple,
+                 variant: str, on: str, data: dict[str, Any], fix: Fix | None) -> Finding:
+    """The one place findings are made."""
+    msg = rule.messages[variant]
+    severity = options.severity.get(rule.id) or msg.severity or rule.severity
+    return _finding(rule=rule.id, severity=severity, doc=doc, file=file, path=path, on=on,
+                    message=_fill(msg.message, data), hint=_fill(msg.hint, data),
+                    data=dict(data, variant=variant) if variant != "default" else dict(data),
+                    fix=fix)
+
+
+# --------------------------------------------------------------------------- running
+
+def active_rules(options: Options) -> list[tuple[Rule, Any]]:
+    catalogue = load_catalogue()
+    checks = all_checks()
+    out = []
+    for rule_id, rule in catalogue.items():
+        if options.select is not None and rule_id not in options.select:
+            continue
+        if rule_id in options.ignore:
+            continue
+        out.append((rule, checks[rule_id]))
+    return out
+
+
+def lint_view(view: RunView, options: Options, file: str, report: FileReport) -> None:
+    for rule, fn in active_rules(options):
+        sink: list[Finding] = []
+        ctx = Context(view, rule, options, sink, file)
+        try:
+            fn(ctx)
+        except Exception as exc:  # a bug in a rule: report it and go on with the others
+            if options.debug:
+                raise
+            tb = traceback.extract_tb(exc.__traceback__)[-1]
+            report.internal.append(
+                InternalError(file=file, rule=rule.id,
+                              error=f"{type(exc).__name__}: {exc} ({Path(tb.filename).name}:{tb.lineno})")
+            )
+            continue
+        report.findings.extend(sink)
+
+
+def lint_documents(docs: list[Document], file: str, options: Options,
+                   layout: str | None = None) -> FileReport:
+    report = FileReport(file=file)
+    reasons = []
+    for doc in docs:
+        view = build_view(doc, layout)
+        report.views.append(view)
+        if view.skipped:
+            reasons.append(view.skipped)
+            continue
+        report.layout = report.layout or view.layout.name
+        lint_view(view, options, file, report)
+    if not report.layout:
+        report.skipped = reasons[0] if reasons else "empty file"
+    report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
+    return report
+
+
+def lint_text(text: str, name: str = "<text>", options: Options | None = None,
+              fmt: str | None = None, layout: str | None = None) -> FileReport:
+    options = options or Options()
+    try:
+        docs = loadmod.load_text(text, name, fmt)
+    except LoadError as exc:
+        return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
+                                                          column=exc.column, reason=exc.reason))
+    return lint_documents(docs, name, options, layout)
+
+
+def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
+    options = options or Options()
+    name = str(path)
+    try:
+        src = loadmod.read_source(path)
+    except LoadError as exc:
+        return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
+                                                          column=exc.column, reason=exc.reason))
+    return lint_text(src.text, name, options)
+
+
+def expand_paths(paths: Iterable[str | Path]) -> list[str]:
+    """Files as given; folders walked for .yaml/.yml/.json files, sorted, hidden folders skipped."""
+    out: list[str] = []
+    for p in paths:
+        p = Path(p)
+        if p.is_dir():
+            for root, dirs, files in os.walk(p):
+                dirs[:] = sorted(d for d in dirs if not d.startswith("."))
+                for f in sorted(files):
+                    if f.lower().endswith(CONFIG_SUFFIXES):
+                        out.append(str(Path(root) / f))
+        else:
+            out.append(str(p))
+    return out
+
+
+def lint_paths(paths: Iterable[str | Path], options: Options | None = None) -> Report:
+    options = options or Options()
+    return Report(files=[lint_file(p, options) for p in expand_paths(paths)])

@@ -1,0 +1,547 @@
+"""Bytes to documents: plain values plus, for every key and value, where it stands in the text.
+
+YAML goes through PyYAML's composer (the C one when libyaml is present) so that every node keeps
+its marks; we build the values ourselves, which lets us
+
+* never construct an object from a tag (a tag is recorded and ignored),
+* see duplicate keys, which PyYAML's own constructor silently drops,
+* see plain scalars whose type depends on the YAML version (``1e-4``, ``yes``, ``0777``),
+* bound alias expansion and nesting depth.
+
+JSON goes through the standard library's parser (strict: no NaN, no duplicate keys lost) and a
+small scanner that records positions once the text is known to be valid.
+"""
+
+from __future__ import annotations
+
+import codecs
+import json
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import yaml
+
+try:  # the C composer is several times faster; the pure one gives the same nodes
+    from yaml import CSafeLoader as _YamlLoader
+except ImportError:  # pragma: no cover - depends on how PyYAML was built
+    from yaml import SafeLoader as _YamlLoader  # type: ignore[assignment]
+
+# Limits for hostile input, documented in the README.
+MAX_FILE_BYTES = 2 * 1024 * 1024
+MAX_NODES = 200_000  # values built, aliases counted every time they are expanded
+MAX_DEPTH = 64
+
+Path_ = tuple  # a key path: a tuple of str keys and int list indices
+
+
+class LoadError(Exception):
+    """The input cannot be read as YAML or JSON. Carries a 1-based position."""
+
+    def __init__(self, reason: str, line: int = 1, column: int = 1):
+        super().__init__(reason)
+        self.reason = reason
+        self.line = line
+        self.column = column
+
+
+@dataclass(frozen=True, slots=True)
+class Span:
+    """A stretch of the text: 1-based line and column, 0-based character offsets."""
+
+    line: int
+    column: int
+    start: int
+    end: int
+
+
+@dataclass(slots=True)
+class Entry:
+    """Where one value of the document was written."""
+
+    value: Span
+    key: Span | None = None  # None for list items and the root
+    raw: str = ""  # the scalar's source text (plain or quoted), "" for collections
+    style: str | None = None  # None = plain scalar; "'", '"', "|", ">" as in YAML; "json" for JSON
+    tag: str | None = None  # an explicit tag the author wrote (recorded, never acted on)
+    kind: str = "scalar"  # "scalar" | "map" | "seq"
+    flow: bool = False  # a collection written in flow style ({...} / [...])
+
+
+@dataclass(slots=True)
+class Ambiguity:
+    """A plain scalar that YAML 1.1 and YAML 1.2 readers take differently."""
+
+    path: Path_
+    kind: str  # "exponent-without-dot" | "word-boolean" | "leading-zero-octal" | "base-60"
+    raw: str
+    yaml11: Any  # what PyYAML (YAML 1.1) gives
+    yaml12: Any  # what a YAML 1.2 core-schema reader gives
+
+
+@dataclass(slots=True)
+class Duplicate:
+    path: Path_  # path of the key that appears twice
+    first: Span
+    second: Span
+    first_value: Any
+    second_value: Any
+
+
+@dataclass(slots=True)
+class Document:
+    """One YAML document (or the JSON file): values and where each was written."""
+
+    name: str
+    format: str  # "yaml" | "json"
+    data: Any
+    entries: dict[Path_, Entry] = field(default_factory=dict)
+    duplicates: list[Duplicate] = field(default_factory=list)
+    ambiguities: list[Ambiguity] = field(default_factory=list)
+    tags: list[tuple[Path_, str]] = field(default_factory=list)
+    index: int = 0  # position of this document in a multi-document stream
+
+    def entry(self, path: Path_) -> Entry | None:
+        return self.entries.get(tuple(path))
+
+    def get(self, path: Path_, default: Any = None) -> Any:
+        cur = self.data
+        for part in path:
+            if isinstance(cur, dict) and part in cur:
+                cur = cur[part]
+            elif isinstance(cur, list) and isinstance(part, int) and 0 <= part < len(cur):
+                cur = cur[part]
+            else:
+                return default
+        return cur
+
+
+@dataclass(slots=True)
+class Source:
+    """A file's text as decoded, with what is needed to write it back the same way."""
+
+    name: str
+    text: str
+    encoding: str = "utf-8"
+    bom: bool = False
+    newline: str = "\n"
+
+
+def dotted(path: Path_) -> str:
+    """``("training", "lr")`` -> ``training.lr``; list items as ``[0]``."""
+    out = ""
+    for part in path:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        else:
+            out += ("." if out else "") + str(part)
+    return out
+
+
+# --------------------------------------------------------------------------- bytes -> text
+
+_BOMS = (
+    (codecs.BOM_UTF32_LE, "utf-32-le"),
+    (codecs.BOM_UTF32_BE, "utf-32-be"),
+    (codecs.BOM_UTF8, "utf-8"),
+    (codecs.BOM_UTF16_LE, "utf-16-le"),
+    (codecs.BOM_UTF16_BE, "utf-16-be"),
+)
+
+
+def decode(raw: bytes, name: str) -> Source:
+    """Decode a file's bytes; UTF-8 by default, UTF-16/32 when a BOM says so."""
+    if len(raw) > MAX_FILE_BYTES:
+        raise LoadError(
+            f"file is {len(raw):,} bytes, over the {MAX_FILE_BYTES:,}-byte limit for a config file"
+        )
+    encoding, bom = "utf-8", False
+    for mark, enc in _BOMS:
+        if raw.startswith(mark):
+            encoding, bom = enc, True
+            raw = raw[len(mark):]
+            break
+    if b"\x00" in raw and not bom:
+        # NUL bytes without a BOM: UTF-16 without a mark, or a binary file.
+        raise LoadError("file holds NUL bytes: binary, or UTF-16 without a byte-order mark")
+    try:
+        text = raw.decode(encoding)
+    except UnicodeDecodeError as exc:
+        before = raw[: exc.start].decode(encoding, errors="replace")
+        line = before.count("\n") + 1
+        column = len(before) - (before.rfind("\n") + 1) + 1
+        raise LoadError(
+            f"not valid {encoding.upper()}: byte 0x{raw[exc.start]:02x} at offset {exc.start}",
+            line,
+            column,
+        ) from None
+    newline = "\r\n" if "\r\n" in text else "\n"
+    return Source(name=name, text=text, encoding=encoding, bom=bom, newline=newline)
+
+
+def read_source(path: str | Path) -> Source:
+    p = Path(path)
+    try:
+        size = p.stat().st_size
+        if size > MAX_FILE_BYTES:
+            raise LoadError(
+                f"file is {size:,} bytes, over the {MAX_FILE_BYTES:,}-byte limit for a config file"
+            )
+        raw = p.read_bytes()
+    except LoadError:
+        raise
+    except IsADirectoryError:
+        raise LoadError("is a folder, not a file") from None
+    except FileNotFoundError:
+        raise LoadError("no such file (or a broken symbolic link)") from None
+    except PermissionError:
+        raise LoadError("permission denied") from None
+    except OSError as exc:
+        raise LoadError(f"cannot read: {exc.strerror or exc}") from None
+    return decode(raw, str(path))
+
+
+# --------------------------------------------------------------------------- format choice
+
+def guess_format(name: str, text: str) -> str:
+    suffix = Path(name).suffix.lower()
+    if suffix in (".json", ".jsonc"):
+        return "json"
+    if suffix in (".yaml", ".yml"):
+        return "yaml"
+    stripped = text.lstrip()
+    if stripped[:1] in ("{", "["):
+        return "json"
+    return "yaml"
+
+
+def load_text(text: str, name: str = "<text>", fmt: str | None = None) -> list[Document]:
+    """Parse text into documents. Raises LoadError for input that is not valid."""
+    fmt = fmt or guess_format(name, text)
+    if fmt == "json":
+        return [_load_json(text, name)]
+    return _load_yaml(text, name)
+
+
+def load_path(path: str | Path) -> tuple[Source, list[Document]]:
+    src = read_source(path)
+    return src, load_text(src.text, src.name)
+
+
+# --------------------------------------------------------------------------- YAML
+
+# Plain scalars whose reading differs between YAML 1.1 (PyYAML) and the YAML 1.2 core schema.
+_EXP_NO_DOT = re.compile(r"^[-+]?(?:[0-9][0-9_]*)(?:\.[0-9_]*)?[eE][-+]?[0-9]+$")
+_CORE_FLOAT = re.compile(r"^[-+]?(?:\.[0-9]+|[0-9]+(?:\.[0-9]*)?)(?:[eE][-+]?[0-9]+)?$")
+_CORE_INT = re.compile(r"^[-+]?[0-9]+$")
+_WORD_BOOL = {"yes": True, "no": False, "on": True, "off": False}
+_STD_TAGS = {
+    "tag:yaml.org,2002:str",
+    "tag:yaml.org,2002:int",
+    "tag:yaml.org,2002:float",
+    "tag:yaml.org,2002:bool",
+    "tag:yaml.org,2002:null",
+    "tag:yaml.org,2002:map",
+    "tag:yaml.org,2002:seq",
+    "tag:yaml.org,2002:timestamp",
+    "tag:yaml.org,2002:binary",
+    "tag:yaml.org,2002:merge",
+    "tag:yaml.org,2002:value",
+    "tag:yaml.org,2002:omap",
+    "tag:yaml.org,2002:pairs",
+    "tag:yaml.org,2002:set",
+}
+_MERGE = "tag:yaml.org,2002:merge"
+
+_constructor = yaml.constructor.SafeConstructor()
+
+
+def _mark_span(node: yaml.Node) -> Span:
+    sm, em = node.start_mark, node.end_mark
+    return Span(line=sm.line + 1, column=sm.column + 1, start=sm.index, end=em.index)
+
+
+def _problem_position(exc: yaml.YAMLError) -> tuple[int, int, str]:
+    mark = getattr(exc, "problem_mark", None) or getattr(exc, "context_mark", None)
+    problem = getattr(exc, "problem", None) or str(exc)
+    context = getattr(exc, "context", None)
+    reason = f"{context}: {problem}" if context and problem else (problem or context or "invalid YAML")
+    if mark is None:
+        return 1, 1, reason
+    return mark.line + 1, mark.column + 1, reason
+
+
+def _load_yaml(text: str, name: str) -> list[Document]:
+    loader = _YamlLoader(text)
+    docs: list[Document] = []
+    try:
+        index = 0
+        while loader.check_node():
+            node = loader.get_node()
+            doc = Document(name=name, format="yaml", data=None, index=index)
+            if node is not None:
+                builder = _YamlBuilder(doc, text)
+                doc.data = builder.build(node, (), None, 0)
+            docs.append(doc)
+            index += 1
+    except yaml.YAMLError as exc:
+        line, column, reason = _problem_position(exc)
+        raise LoadError(f"invalid YAML: {reason}", line, column) from None
+    except RecursionError:
+        raise LoadError(f"nesting deeper than the parser can follow (limit {MAX_DEPTH})") from None
+    finally:
+        loader.dispose()
+    if not docs:
+        docs.append(Document(name=name, format="yaml", data=None))
+    return docs
+
+
+class _YamlBuilder:
+    def __init__(self, doc: Document, text: str):
+        self.doc = doc
+        self.text = text
+        self.count = 0
+        self.seen_alias: dict[int, Any] = {}
+
+    def _tick(self, node: yaml.Node) -> None:
+        self.count += 1
+        if self.count > MAX_NODES:
+            m = node.start_mark
+            raise LoadError(
+                f"document expands to more than {MAX_NODES:,} values (aliases multiply them); refused",
+                m.line + 1,
+                m.column + 1,
+            )
+
+    def build(self, node: yaml.Node, path: Path_, key_span: Span | None, depth: int) -> Any:
+        if depth > MAX_DEPTH:
+            m = node.start_mark
+            raise LoadError(f"nested more than {MAX_DEPTH} levels deep", m.line + 1, m.column + 1)
+        self._tick(node)
+        span = _mark_span(node)
+        tag = node.tag
+        explicit = None
+        if tag not in _STD_TAGS:
+            explicit = tag
+            self.doc.tags.append((path, tag))
+        if isinstance(node, yaml.ScalarNode):
+            raw = self.text[span.start:span.end]
+            value = self._scalar(node, path, raw)
+            self.doc.entries[path] = Entry(
+                value=span, key=key_span, raw=raw, style=node.style or None, tag=explicit, kind="scalar"
+            )
+            return value
+        if isinstance(node, yaml.SequenceNode):
+            self.doc.entries[path] = Entry(
+                value=span, key=key_span, tag=explicit, kind="seq", flow=bool(node.flow_style)
+            )
+            out = []
+            for i, item in enumerate(node.value):
+                out.append(self.build(item, path + (i,), None, depth + 1))
+            return out
+        # mapping
+        self.doc.entries[path] = Entry(
+            value=span, key=key_span, tag=explicit, kind="map", flow=bool(node.flow_style)
+        )
+        out: dict[Any, Any] = {}
+        key_spans: dict[Any, Span] = {}
+        merged: dict[Any, Any] = {}
+        for knode, vnode in node.value:
+            if knode.tag == _MERGE:
+                self._merge(vnode, path, merged, depth)
+                continue
+            if isinstance(knode, yaml.ScalarNode):
+                key = self._scalar(knode, None, knode.value)
+                if isinstance(key, (list, dict)):
+                    key = knode.value
+            else:
+                # complex keys are not used by any training config; keep their source text
+                ks = _mark_span(knode)
+                key = self.text[ks.start:ks.end]
+            if not isinstance(key, (str, int, float, bool)) and key is not None:
+                key = str(key)
+            kspan = _mark_span(knode)
+            value = self.build(vnode, path + (key,), kspan, depth + 1)
+            if key in out:
+                self.doc.duplicates.append(
+                    Duplicate(path + (key,), key_spans[key], kspan, out[key], value)
+                )
+            out[key] = value
+            key_spans[key] = kspan
+        for k, v in merged.items():  # explicit keys win over merged ones (YAML merge-key rules)
+            out.setdefault(k, v)
+        return out
+
+    def _merge(self, vnode: yaml.Node, path: Path_, merged: dict, depth: int) -> None:
+        sources = vnode.value if isinstance(vnode, yaml.SequenceNode) else [vnode]
+        for src in sources:
+            if not isinstance(src, yaml.MappingNode):
+                m = src.start_mark
+                raise LoadError("a merge key (<<) needs a mapping or a list of mappings",
+                                m.line + 1, m.column + 1)
+            # merged values are written elsewhere: their positions stay those of the anchor
+            sub = _YamlBuilder(Document(name=self.doc.name, format="yaml", data=None), self.text)
+            sub.count = self.count
+            value = sub.build(src, path, None, depth + 1)
+            self.count = sub.count
+            for k, v in value.items():
+                merged.setdefault(k, v)
+
+    def _scalar(self, node: yaml.ScalarNode, path: Path_ | None, raw: str) -> Any:
+        tag = node.tag
+        text = node.value
+        if tag == "tag:yaml.org,2002:str" or tag not in _STD_TAGS:
+            if path is not None and not node.style and tag == "tag:yaml.org,2002:str":
+                if _EXP_NO_DOT.match(text) and _CORE_FLOAT.match(text):
+                    self.doc.ambiguities.append(
+                        Ambiguity(path, "exponent-without-dot", text, text, float(text))
+                    )
+            return text
+        if tag == "tag:yaml.org,2002:null":
+            return None
+        if tag == "tag:yaml.org,2002:bool":
+            value = _constructor.construct_yaml_bool(node)
+            if path is not None and not node.style and text.lower() in _WORD_BOOL:
+                self.doc.ambiguities.append(Ambiguity(path, "word-boolean", text, value, text))
+            return value
+        if tag == "tag:yaml.org,2002:int":
+            value = _constructor.construct_yaml_int(node)
+            if path is not None and not node.style:
+                plain = text.replace("_", "")
+                digits = plain.lstrip("+-")
+                if ":" in plain:
+                    self.doc.ambiguities.append(Ambiguity(path, "base-60", text, value, text))
+                elif len(digits) > 1 and digits.startswith("0") and digits.isdigit():
+                    self.doc.ambiguities.append(
+                        Ambiguity(path, "leading-zero-octal", text, value, int(plain, 10))
+                    )
+            return value
+        if tag == "tag:yaml.org,2002:float":
+            value = _constructor.construct_yaml_float(node)
+            if path is not None and not node.style and ":" in text:
+                self.doc.ambiguities.append(Ambiguity(path, "base-60", text, value, text))
+            return value
+        # timestamps, binary and the like: keep the text, construct nothing
+        return text
+
+
+# --------------------------------------------------------------------------- JSON
+
+def _reject_constant(name: str) -> Any:
+    raise ValueError(f"{name} is not valid JSON")
+
+
+def _load_json(text: str, name: str) -> Document:
+    duplicates_seen: list[str] = []
+
+    def pairs(items: list[tuple[str, Any]]) -> dict:
+        out: dict[str, Any] = {}
+        for k, v in items:
+            if k in out:
+                duplicates_seen.append(k)
+            out[k] = v
+        return out
+
+    body = text[1:] if text.startswith("\ufeff") else text
+    try:
+        data = json.loads(body, object_pairs_hook=pairs, parse_constant=_reject_constant)
+    except json.JSONDecodeError as exc:
+        raise LoadError(f"invalid JSON: {exc.msg}", exc.lineno, exc.colno) from None
+    except ValueError as exc:
+        raise LoadError(f"invalid JSON: {exc}") from None
+    except RecursionError:
+        raise LoadError(f"nested deeper than the parser can follow (limit {MAX_DEPTH})") from None
+    doc = Document(name=name, format="json", data=data)
+    scanner = _JsonScanner(text, doc)
+    scanner.run()
+    return doc
+
+
+class _JsonScanner:
+    """Records the position of every key and value of text already known to be valid JSON."""
+
+    _ws = re.compile(r"[ \t\r\n]*")
+    _string = re.compile(r'"(?:[^"\\]|\\.)*"', re.S)
+    _number = re.compile(r"-?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?(?:[eE][-+]?[0-9]+)?")
+
+    def __init__(self, text: str, doc: Document):
+        self.text = text
+        self.doc = doc
+        self.pos = 1 if text.startswith("\ufeff") else 0
+        # line starts, for offset -> line/column
+        self.starts = [0] + [m.end() for m in re.finditer("\n", text)]
+
+    def span(self, start: int, end: int) -> Span:
+        import bisect
+
+        line = bisect.bisect_right(self.starts, start)
+        return Span(line=line, column=start - self.starts[line - 1] + 1, start=start, end=end)
+
+    def skip(self) -> None:
+        self.pos = self._ws.match(self.text, self.pos).end()
+
+    def run(self) -> None:
+        self.skip()
+        self.value((), None, 0)
+
+    def value(self, path: Path_, key_span: Span | None, depth: int) -> None:
+        if depth > MAX_DEPTH:
+            sp = self.span(self.pos, self.pos)
+            raise LoadError(f"nested more than {MAX_DEPTH} levels deep", sp.line, sp.column)
+        t = self.text
+        start = self.pos
+        ch = t[start]
+        if ch == "{":
+            self.pos += 1
+            self.skip()
+            dups: dict[str, Span] = {}
+            while t[self.pos] != "}":
+                m = self._string.match(t, self.pos)
+                kspan = self.span(m.start(), m.end())
+                key = json.loads(m.group())
+                self.pos = m.end()
+                self.skip()
+                self.pos += 1  # ':'
+                self.skip()
+                child = path + (key,)
+                if key in dups:
+                    self.doc.duplicates.append(
+                        Duplicate(child, dups[key], kspan, None, self.doc.get(child))
+                    )
+                dups[key] = kspan
+                self.value(child, kspan, depth + 1)
+                self.skip()
+                if t[self.pos] == ",":
+                    self.pos += 1
+                    self.skip()
+            self.pos += 1
+            self.doc.entries[path] = Entry(
+                value=self.span(start, self.pos), key=key_span, kind="map", style="json"
+            )
+        elif ch == "[":
+            self.pos += 1
+            self.skip()
+            i = 0
+            while t[self.pos] != "]":
+                self.value(path + (i,), None, depth + 1)
+                i += 1
+                self.skip()
+                if t[self.pos] == ",":
+                    self.pos += 1
+                    self.skip()
+            self.pos += 1
+            self.doc.entries[path] = Entry(
+                value=self.span(start, self.pos), key=key_span, kind="seq", style="json"
+            )
+        else:
+            if ch == '"':
+                m = self._string.match(t, start)
+            elif ch in "-0123456789":
+                m = self._number.match(t, start)
+            else:
+                m = re.compile(r"true|false|null").match(t, start)
+            self.pos = m.end()
+            self.doc.entries[path] = Entry(
+                value=self.span(start, self.pos), key=key_span, raw=m.group(), style="json"
+            )

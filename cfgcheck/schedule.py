@@ -1,0 +1,80 @@
+"""Step arithmetic of a run: effective batch, optimizer steps, warm-up and cadence in steps.
+
+The rounding is the one of the transformers Trainer (4.46 and later, and 5.x):
+``len_dataloader = ceil(rows_per_process / per_device)`` (``dataloader_drop_last`` False),
+``steps_per_epoch = max(ceil(len_dataloader / accumulation), 1)``,
+``total = ceil(epochs * steps_per_epoch)`` unless ``max_steps > 0``, which overrides epochs;
+fractional logging/eval/save steps (below 1) resolve to ``ceil(total * fraction)``.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+# transformers TrainingArguments defaults (identical in 4.57 and 5.x)
+TRAINER_DEFAULTS = {
+    "batch.per_device": 8,
+    "batch.accumulation": 1,
+    "optim.epochs": 3.0,
+    "optim.max_steps": -1,
+    "cadence.logging_steps": 500,
+    "cadence.save_steps": 500,
+}
+
+
+@dataclass
+class Schedule:
+    per_device: int | None
+    accumulation: int | None
+    gpus: int
+    effective_batch: int | None
+    rows: int | None = None
+    steps_per_epoch: int | None = None
+    total_steps: int | None = None
+    epochs: float | None = None
+    max_steps_override: bool = False
+    defaults_used: list[str] = field(default_factory=list)
+
+
+def steps_per_epoch(rows: int, per_device: int, accumulation: int, gpus: int = 1) -> int:
+    rows_per_process = math.ceil(rows / gpus)
+    batches = math.ceil(rows_per_process / per_device)
+    return max(math.ceil(batches / accumulation), 1)
+
+
+def resolve_interval(value: float, total: int) -> int:
+    """An interval as steps: values below 1 are a fraction of the run."""
+    if 0 < value < 1:
+        return math.ceil(total * value)
+    return int(value)
+
+
+def derive(values: dict, *, gpus: int | None, rows: int | None, use_trainer_defaults: bool) -> Schedule:
+    """``values``: our field names -> values (None when unset)."""
+    used: list[str] = []
+
+    def get(name):
+        v = values.get(name)
+        if v is None and use_trainer_defaults and name in TRAINER_DEFAULTS:
+            used.append(name)
+            return TRAINER_DEFAULTS[name]
+        return v
+
+    pd = get("batch.per_device")
+    ga = get("batch.accumulation")
+    n = gpus or 1
+    eff = pd * ga * n if isinstance(pd, int) and isinstance(ga, int) else None
+    sched = Schedule(per_device=pd, accumulation=ga, gpus=n, effective_batch=eff, rows=rows,
+                     defaults_used=used)
+    max_steps = get("optim.max_steps")
+    epochs = get("optim.epochs")
+    if isinstance(max_steps, int) and max_steps > 0:
+        sched.total_steps = max_steps
+        sched.max_steps_override = True
+    if rows and isinstance(pd, int) and pd > 0 and isinstance(ga, int) and ga > 0:
+        sched.steps_per_epoch = steps_per_epoch(rows, pd, ga, n)
+        if sched.total_steps is None and isinstance(epochs, (int, float)) and epochs > 0:
+            sched.total_steps = math.ceil(epochs * sched.steps_per_epoch)
+            sched.epochs = float(epochs)
+    return sched

@@ -1,0 +1,61 @@
+"""The catalogue and the checks match one to one, and every catalogue example behaves as it says."""
+
+from __future__ import annotations
+
+import string
+
+import pytest
+
+from cfgcheck.catalogue import load_catalogue
+from cfgcheck.checks import all_checks
+from cfgcheck.findings import Severity
+
+from .helpers import lint
+
+CATALOGUE = load_catalogue()
+
+
+def test_every_rule_has_a_check_and_every_check_a_rule():
+    assert set(CATALOGUE) == set(all_checks())
+
+
+@pytest.mark.parametrize("rule_id", sorted(CATALOGUE))
+def test_record_is_complete(rule_id):
+    rule = CATALOGUE[rule_id]
+    assert rule.summary and rule.rationale and rule.sources
+    assert rule.examples.get("bad") and rule.examples.get("good"), "a bad and a good example"
+    for name, t in rule.thresholds.items():
+        assert isinstance(t, dict) and "value" in t and t.get("source"), f"threshold {name} needs a value and a source"
+    assert rule_id == rule_id.lower() and all(c in string.ascii_lowercase + string.digits + "-" for c in rule_id)
+
+
+def _examples(kind):
+    for rule_id, rule in sorted(CATALOGUE.items()):
+        for i, ex in enumerate(rule.examples.get(kind, [])):
+            yield pytest.param(rule_id, ex, id=f"{rule_id}-{kind}-{i}")
+
+
+def _run(ex):
+    fmt = ex.get("format")
+    name = "example.json" if fmt == "json" else "example.yaml"
+    report = lint(ex["text"], name, fmt, **(ex.get("options") or {}))
+    assert report.problem is None, report.problem
+    assert not report.internal, report.internal
+    return report
+
+
+@pytest.mark.parametrize("rule_id,ex", list(_examples("bad")))
+def test_bad_example_fires_at_its_key(rule_id, ex):
+    report = _run(ex)
+    hits = [f for f in report.findings if f.rule == rule_id and f.severity >= Severity.WARNING]
+    assert hits, f"{rule_id} did not fire on its bad example"
+    assert ex["at"] in {f.key for f in hits}
+    for f in hits:
+        assert f.line >= 1 and f.column >= 1
+        assert f.message and f.hint
+
+
+@pytest.mark.parametrize("rule_id,ex", list(_examples("good")))
+def test_good_example_is_silent(rule_id, ex):
+    report = _run(ex)
+    assert [f for f in report.findings if f.rule == rule_id and f.severity >= Severity.WARNING] == []
