@@ -79,6 +79,6 @@ def cadence_longer_than_run(ctx) -> None:
         how = (f"max_steps {total}" if sched.max_steps_override else
                f"{rows:,} rows / ({sched.per_device} per device × {sched.accumulation} accumulation"
                f" × {sched.gpus} GPU{'s' if sched.gpus != 1 else ''}) = {sched.steps_per_epoch}"
-               f" steps per epoch × {sched.epochs:g} epochs")
+               f" steps per epoch × {sched.epochs:g} epoch{'' if sched.epochs == 1 else 's'}")
         ctx.report(f, key=f.leaf, every=every, total=total, what=what, how=how,
                    suggestion=max(1, total // 4))

@@ -45,7 +45,12 @@ def chat_format(ctx) -> None:
     missing = [n for n, ok in (("embed_tokens", has_embed), ("lm_head", has_head)) if not ok]
     if tied:
         missing = [m for m in missing if m != "lm_head"] or missing
-    key = view.get("adapter.save_modules").key if view.get("adapter.save_modules") else "modules_to_save"
+    save = view.get("adapter.save_modules")
+    if save is not None:
+        key = save.key
+    else:
+        rank = view.get("adapter.rank")
+        key = "lora_modules_to_save" if rank is not None and rank.leaf == "lora_r" else "modules_to_save"
     if new_tokens:
         ctx.report(tokens, "new-tokens", count=len(new_tokens),
                    tokens=", ".join(new_tokens[:4]) + (" ..." if len(new_tokens) > 4 else ""),
