@@ -1,0 +1,158 @@
+"""The loader against PyYAML and ruamel.yaml themselves, and the JSON loader against the json module."""
+
+from __future__ import annotations
+
+import io
+import json
+
+import pytest
+import yaml
+from ruamel.yaml import YAML
+
+from cfgcheck.load import LoadError, decode, load_text
+
+
+def _doc(text, name="t.yaml"):
+    docs = load_text(text, name)
+    assert len(docs) == 1
+    return docs[0]
+
+
+# Scalars whose PyYAML 6 reading is recorded in REFERENCES.md sec. 11 (observed with PyYAML 6.0.3);
+# here the installed PyYAML is the reference: our values must equal yaml.safe_load's.
+PYYAML_CASES = ["1e-4", "1e4", "5e-5", "1.0e4", "1.0e+4", "1.0E-4", "2.0e-5", "1.", ".5", "1_0.5",
+                "1_000", "0777", "0o17", "0x1F", "0b11", "1:20", "yes", "on", "ON", "True", "off",
+                "NO", "y", "Y", "n", "~", "null", "Null", "NULL", "-.inf", "2024-01-02", "'quoted'"]
+
+
+@pytest.mark.parametrize("raw", PYYAML_CASES)
+def test_values_equal_pyyaml(raw):
+    text = f"v: {raw}\n"
+    ours = _doc(text).data["v"]
+    ref = yaml.safe_load(text)["v"]  # reference: PyYAML itself
+    if hasattr(ref, "isoformat"):
+        ref = raw  # timestamps: we keep the text, never build objects
+    assert ours == ref and type(ours) is type(ref)
+
+
+# Plain scalars that YAML 1.1 (PyYAML) and YAML 1.2 (ruamel.yaml) read differently: the loader
+# must flag each, and its "YAML 1.2" value must be ruamel.yaml's.
+AMBIGUOUS = {"1e-4": "exponent-without-dot", "5e-5": "exponent-without-dot", "1e4": "exponent-without-dot",
+             "yes": "word-boolean", "off": "word-boolean", "On": "word-boolean",
+             "0777": "leading-zero-octal", "1:20": "base-60"}
+
+
+@pytest.mark.parametrize("raw,kind", sorted(AMBIGUOUS.items()))
+def test_version_dependent_scalars_match_both_parsers(raw, kind):
+    text = f"v: {raw}\n"
+    doc = _doc(text)
+    (amb,) = doc.ambiguities
+    assert amb.kind == kind and amb.path == ("v",)
+    assert amb.yaml11 == yaml.safe_load(text)["v"]  # PyYAML: YAML 1.1
+    ruamel_value = YAML(typ="safe", pure=True).load(io.StringIO(text))["v"]  # ruamel.yaml: YAML 1.2
+    assert amb.yaml12 == ruamel_value
+
+
+@pytest.mark.parametrize("raw", ["1.0e-4", "2.0e-5", "true", "false", "0.0002", "'1e-4'", '"yes"', "17", "0o17"])
+def test_portable_scalars_are_not_flagged(raw):
+    assert _doc(f"v: {raw}\n").ambiguities == []
+
+
+def test_duplicate_keys_are_seen_where_pyyaml_is_silent():
+    text = "lr: 1.0e-4\nepochs: 2\nlr: 2.0e-5\n"
+    assert yaml.safe_load(text) == {"lr": 2.0e-5, "epochs": 2}  # PyYAML keeps the last, silently
+    from ruamel.yaml.constructor import DuplicateKeyError
+
+    with pytest.raises(DuplicateKeyError):  # ruamel.yaml (YAML 1.2) refuses the same text
+        YAML(typ="safe", pure=True).load(io.StringIO(text))
+    doc = _doc(text)
+    assert doc.data == {"lr": 2.0e-5, "epochs": 2}
+    (dup,) = doc.duplicates
+    assert (dup.first.line, dup.second.line) == (1, 3)
+    assert (dup.first_value, dup.second_value) == (1.0e-4, 2.0e-5)
+
+
+def test_merge_keys_are_not_duplicates():
+    text = "base: &b {lr: 1.0e-4, epochs: 1}\nrun:\n  <<: *b\n  epochs: 3\n"
+    doc = _doc(text)
+    assert doc.duplicates == []
+    assert doc.data["run"] == yaml.safe_load(text)["run"] == {"lr": 1.0e-4, "epochs": 3}
+
+
+def test_positions_are_one_based_line_and_column():
+    text = "# comment\ntraining:\n  learning_rate: 2.0e-5\n  lora: {r: 16}\n"
+    doc = _doc(text)
+    e = doc.entries[("training", "learning_rate")]
+    assert (e.key.line, e.key.column) == (3, 3)
+    assert (e.value.line, e.value.column) == (3, 18)
+    assert text[e.value.start:e.value.end] == "2.0e-5" == e.raw
+    r = doc.entries[("training", "lora", "r")]
+    assert (r.value.line, r.value.column) == (4, 13)
+
+
+def test_positions_count_characters_not_bytes():
+    text = 'note: "données — ünïcode"\nlr: 1e-4\n'
+    doc = _doc(text)
+    e = doc.entries[("lr",)]
+    assert (e.value.line, e.value.column) == (2, 5) and text[e.value.start:e.value.end] == "1e-4"
+
+
+def test_tags_never_construct(tmp_path):
+    target = tmp_path / "created-by-tag"
+    text = f"x: !!python/object/apply:os.system ['touch {target}']\ny: !custom 3\n"
+    doc = _doc(text)
+    assert not target.exists()
+    assert doc.data == {"x": [f"touch {target}"], "y": "3"}
+    assert {t for _, t in doc.tags} == {"tag:yaml.org,2002:python/object/apply:os.system", "!custom"}
+
+
+def test_malformed_yaml_has_a_position():
+    with pytest.raises(LoadError) as err:
+        load_text("a: 1\nb: [1, 2\nc: 3\n", "bad.yaml")
+    assert err.value.line >= 2 and err.value.column >= 1
+    assert err.value.reason.startswith("invalid YAML")
+
+
+def test_json_values_equal_the_json_module_and_keep_positions():
+    text = '{\n  "train_batch_size": 64,\n  "bf16": {"enabled": true},\n  "optimizer": {"params": {"lr": 3e-5}}\n}\n'
+    doc = _doc(text, "ds.json")
+    assert doc.data == json.loads(text)  # reference: the standard library parser
+    e = doc.entries[("bf16", "enabled")]
+    assert (e.value.line, e.value.column) == (3, 23) and e.raw == "true"
+    assert doc.entries[("optimizer", "params", "lr")].raw == "3e-5"
+    assert doc.ambiguities == []  # JSON has one reading of 3e-5
+
+
+def test_json_errors_and_duplicates():
+    with pytest.raises(LoadError) as err:
+        load_text('{"a": 1,\n "b": }', "x.json")
+    assert (err.value.line, err.value.column) == (2, 7)
+    with pytest.raises(LoadError):
+        load_text('{"a": NaN}', "x.json")  # RFC 8259 has no NaN; json.loads would accept it
+    doc = _doc('{"a": 1, "a": 2}', "x.json")
+    assert doc.data == {"a": 2} and len(doc.duplicates) == 1
+
+
+def test_decode_boms_and_bad_bytes():
+    assert decode("lr: 1\n".encode("utf-8-sig"), "f").bom is True
+    src = decode("lr: 1\r\n".encode("utf-16"), "f")
+    assert src.text == "lr: 1\r\n" and src.encoding.startswith("utf-16") and src.newline == "\r\n"
+    with pytest.raises(LoadError) as err:
+        decode(b"lr: 1\nname: \xff\xfe\n", "f")
+    assert err.value.line == 2
+    with pytest.raises(LoadError):
+        decode(b"\x00\x01\x02binary", "f")
+
+
+def test_multi_document_stream():
+    docs = load_text("a: 1\n---\nb: 2\n", "m.yaml")
+    assert [d.data for d in docs] == [{"a": 1}, {"b": 2}] and [d.index for d in docs] == [0, 1]
+
+
+def test_alias_expansion_is_bounded():
+    lines = ['a0: &a0 ["x","x","x","x","x","x","x","x","x","x"]']
+    for i in range(1, 9):
+        lines.append(f"a{i}: &a{i} [" + ",".join([f"*a{i-1}"] * 10) + "]")
+    with pytest.raises(LoadError) as err:
+        load_text("\n".join(lines) + "\n", "bomb.yaml")
+    assert "aliases" in err.value.reason
