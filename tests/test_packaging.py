@@ -1,0 +1,51 @@
+"""The wheel carries the rule catalogue, and an installed copy lints the demo fixtures."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import zipfile
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture(scope="module")
+def wheel(tmp_path_factory):
+    pytest.importorskip("hatchling", reason="hatchling (test extra) builds the wheel")
+    out = tmp_path_factory.mktemp("wheel")
+    p = subprocess.run([sys.executable, "-m", "pip", "wheel", "--no-deps", "--no-build-isolation", "-q",
+                        "-w", str(out), str(ROOT)], capture_output=True, text=True)
+    assert p.returncode == 0, p.stderr
+    (whl,) = out.glob("cfgcheck-*.whl")
+    return whl
+
+
+def test_wheel_contains_the_catalogue(wheel):
+    names = zipfile.ZipFile(wheel).namelist()
+    rules = sorted(Path(n).name for n in names if n.startswith("cfgcheck/_catalogue/"))
+    assert rules == sorted(p.name for p in (ROOT / "rules").glob("*.yaml"))
+    assert "cfgcheck/cli.py" in names
+    meta = next(n for n in names if n.endswith("METADATA"))
+    text = zipfile.ZipFile(wheel).read(meta).decode()
+    requires = sorted(l.split()[1].split(">")[0].split("=")[0].lower() for l in text.splitlines()
+                      if l.startswith("Requires-Dist:") and "extra ==" not in l)
+    assert requires == ["jsonschema", "pyyaml", "ruamel-yaml", "typer"] or requires == ["jsonschema", "pyyaml", "ruamel.yaml", "typer"]
+
+
+def test_installed_wheel_lints_outside_the_checkout(wheel, tmp_path):
+    target = tmp_path / "site"
+    p = subprocess.run([sys.executable, "-m", "pip", "install", "-q", "--no-deps", "--no-index",
+                        "--target", str(target), str(wheel)], capture_output=True, text=True)
+    assert p.returncode == 0, p.stderr
+    env = dict(os.environ, PYTHONPATH=str(target), NO_COLOR="1")
+    where = subprocess.run([sys.executable, "-c", "import cfgcheck.catalogue as c; print(c.catalogue_dir())"],
+                           capture_output=True, text=True, env=env, cwd=tmp_path)
+    assert where.stdout.strip() == str(target / "cfgcheck" / "_catalogue")
+    run = subprocess.run([sys.executable, "-m", "cfgcheck", "lint", str(ROOT / "fixtures" / "demo"),
+                          "--gpu", "t4", "--rows", "1000"], capture_output=True, text=True, env=env, cwd=tmp_path)
+    assert run.returncode == 1, run.stderr
+    assert "lora-scale-below-one" in run.stdout and "Traceback" not in run.stderr
