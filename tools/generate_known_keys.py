@@ -381,6 +381,31 @@ def scan_trl(pkg: Package) -> Found:
         for name, (owner_cls, _m, _a, _v) in all_fields(pkg, mod, cls).items():
             # Fields inherited from transformers are recorded under transformers itself.
             add(found, name, f"trl.{cls.name}")
+    # Keys the TRL CLI's YAML loader handles itself before the dataclasses see the file
+    # (`env`: environment variables), read as `"key" in config` / `config.pop("key")`.
+    for mod, cls in pkg.all_classes():
+        if not cls.name.endswith("Parser"):
+            continue
+        for node in ast.walk(cls):
+            key = None
+            if isinstance(node, ast.Compare) and isinstance(node.ops[0], ast.In):
+                right = node.comparators[0]
+                if isinstance(right, ast.Name) and right.id == "config":
+                    if isinstance(node.left, ast.Constant) and isinstance(node.left.value, str):
+                        key = node.left.value
+            elif (
+                isinstance(node, ast.Call)
+                and isinstance(node.func, ast.Attribute)
+                and node.func.attr == "pop"
+                and isinstance(node.func.value, ast.Name)
+                and node.func.value.id == "config"
+                and node.args
+                and isinstance(node.args[0], ast.Constant)
+                and isinstance(node.args[0].value, str)
+            ):
+                key = node.args[0].value
+            if key:
+                add(found, key, f"trl.{cls.name}")
     if not any("trl.SFTConfig" in o for o in found.values()):
         raise SystemExit("no SFTConfig found in the trl archive")
     return found
