@@ -706,13 +706,25 @@ def scan_accelerate(pkg: Package) -> Found:
     # Sub-keys written by `accelerate config` (cluster.py): NAME_config["key"] / NAME_config[prefix + "key"].
     cluster = pkg.module("accelerate.commands.config.cluster")
     for fn in [n for n in ast.walk(cluster.tree) if isinstance(n, ast.FunctionDef)] if cluster else []:
-        prefixes = {
-            t.id: n.value.value
+        # `prefix` is reassigned within one function ("dynamo_", then "megatron_lm_" ...): use the
+        # assignment that precedes each subscript.
+        assigned = sorted(
+            (n.lineno, t.id, n.value.value)
             for n in ast.walk(fn)
             if isinstance(n, ast.Assign) and isinstance(n.value, ast.Constant) and isinstance(n.value.value, str)
             for t in n.targets
             if isinstance(t, ast.Name)
-        }
+        )
+
+        def prefix_at(name: str, line: int) -> str | None:
+            value = None
+            for lineno, var, text in assigned:
+                if lineno > line:
+                    break
+                if var == name:
+                    value = text
+            return value
+
         for node in ast.walk(fn):
             if not (isinstance(node, ast.Subscript) and isinstance(node.value, ast.Name)):
                 continue
@@ -724,8 +736,9 @@ def scan_accelerate(pkg: Package) -> Found:
             if isinstance(s, ast.Constant) and isinstance(s.value, str):
                 key = s.value
             elif isinstance(s, ast.BinOp) and isinstance(s.op, ast.Add) and isinstance(s.right, ast.Constant):
-                if isinstance(s.left, ast.Name) and s.left.id in prefixes:
-                    key = prefixes[s.left.id] + s.right.value
+                if isinstance(s.left, ast.Name):
+                    pre = prefix_at(s.left.id, node.lineno)
+                    key = pre + s.right.value if pre is not None else None
             if key:
                 add(found, f"{dname}.{key}", "accelerate config (cluster.py)")
     # Sub-keys the launcher copies onto `accelerate launch` options of the matching group.

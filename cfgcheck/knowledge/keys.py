@@ -10,6 +10,14 @@ The data comes from two files next to this module:
 Layouts: ``trainer`` (TrainingArguments / TRL configs, top-level keys),
 ``peft-adapter`` (``adapter_config.json``), ``deepspeed`` and ``accelerate``.
 Nested keys are dotted: ``zero_optimization.stage``, ``fsdp_config.fsdp_version``.
+Only nested keys the libraries name are listed; free-form mappings such as
+DeepSpeed's ``optimizer.params`` / ``scheduler.params`` / ``autotuning.arg_mappings``
+or the trainer's ``fsdp_config`` / ``model_init_kwargs`` have no sub-key list, so
+callers should not report their sub-keys as unknown.
+
+A key's version range counts only the scanned releases (see ``scanned`` in the
+JSON): "transformers 4.36–4.50 (removed in 4.51)" means present in every scanned
+release from 4.36 to 4.50 and missing from the next scanned one, 4.51.
 
 >>> lookup("lora_alpha").current
 True
