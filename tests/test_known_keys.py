@@ -113,6 +113,14 @@ def test_known_keys_never_get_a_suggestion():
     assert suggest("evaluation_strategy") is None
 
 
+def test_non_string_yaml_keys_are_unknown_without_error():
+    # PyYAML reads a bare `on:` key as True (REFERENCES.md §11, YAML 1.1 bool type and PyYAML resolver) [V];
+    # `1:` is an int and `~:` is null (YAML integer/null types, from memory).
+    for key in (True, 1, None, (1, 2)):
+        assert lookup(key) is None
+        assert suggest(key) is None
+
+
 def test_nothing_close_means_no_suggestion():
     assert suggest("fjordline_support_bot_flavour") is None
     assert suggest("") is None

@@ -150,7 +150,10 @@ def _table(layout: str) -> dict[str, KeyInfo]:
 
 def lookup(key: str, layout: str = "trainer") -> KeyInfo | None:
     """The KeyInfo of KEY exactly as written (no case folding, no trimming), or None."""
-    return _table(layout).get(key)
+    table = _table(layout)
+    if not isinstance(key, str):  # YAML allows int, bool or null keys; none of them is a known key
+        return None
+    return table.get(key)
 
 
 def _normalise(key: str) -> str:
@@ -197,7 +200,7 @@ def suggest(key: str, layout: str = "trainer") -> str | None:
     similarity and then alphabetically.
     """
     table = _table(layout)
-    if key in table:
+    if not isinstance(key, str) or key in table:
         return None
     data = _data()
     norm = _normalise(key)
