@@ -379,8 +379,9 @@ def scan_trl(pkg: Package) -> Found:
         if not wanted or not (is_dataclass(cls) or "TrainingArguments" in anc):
             continue
         for name, (owner_cls, _m, _a, _v) in all_fields(pkg, mod, cls).items():
-            # Fields inherited from transformers are recorded under transformers itself.
-            add(found, name, f"trl.{cls.name}")
+            # The owner is the TRL class that declares the field (subclasses inherit it);
+            # fields inherited from transformers are recorded under transformers itself.
+            add(found, name, f"trl.{owner_cls.name}")
     # Keys the TRL CLI's YAML loader handles itself before the dataclasses see the file
     # (`env`: environment variables), read as `"key" in config` / `config.pop("key")`.
     for mod, cls in pkg.all_classes():
@@ -416,9 +417,8 @@ def scan_peft(pkg: Package) -> Found:
     for mod, cls in pkg.all_classes():
         if cls.name != "PeftConfigMixin" and "PeftConfigMixin" not in ancestry(pkg, mod, cls):
             continue
-        owner = f"peft.{cls.name}"
-        for name, (_o, fmod, ann, _v) in all_fields(pkg, mod, cls).items():
-            add(found, name, owner)
+        for name, (declaring, fmod, ann, _v) in all_fields(pkg, mod, cls).items():
+            add(found, name, f"peft.{declaring.name}")  # the declaring class; subclasses inherit
             for nmod, ncls in annotation_classes(pkg, fmod, ann):
                 if is_dataclass(ncls) and "PeftConfigMixin" not in ancestry(pkg, nmod, ncls):
                     for sub in all_fields(pkg, nmod, ncls):
