@@ -30,6 +30,11 @@ class Layout:
     # what a "method" value means in this layout
     method_values: dict[str, str] = field(default_factory=dict)
 
+    @property
+    def has_bare_names(self) -> bool:
+        """Whether any key spec is a bare name (searched in sections) rather than a root path."""
+        return any(not s.startswith("=") for specs in self.fields.values() for s in specs)
+
 
 # The field types the view knows; the type rule checks values against them.
 FIELD_TYPES: dict[str, str] = {

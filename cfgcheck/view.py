@@ -195,8 +195,7 @@ def _add(view: RunView, name: str, path: tuple, written: Any) -> None:
 
 def fill(view: RunView, layout: Layout, data: dict) -> None:
     """Fill the view's fields from one layout's table."""
-    index = _index(layout, data) if layout.sections or any(
-        not s.startswith("=") for specs in layout.fields.values() for s in specs) else {}
+    index = _index(layout, data) if layout.has_bare_names else {}
     for name, specs in layout.fields.items():
         for spec in specs:
             if spec.startswith("="):
