@@ -555,22 +555,110 @@ def _matched(arch: Architecture, targets, modules_to_save) -> list[Module]:
     return [r for r in rows if _matches(norm, r[0]) and not _excluded_by_modules_to_save(r[0], modules_to_save)]
 
 
+# PEFT 0.21 utils/transformers_weight_conversion.py: with transformers >= 5, mixtral targets written for the
+# 4.x layout are rewritten before injection: "gate" -> the router parameter "gate.weight", "w1" + "w3" -> the fused
+# expert parameter "gate_up_proj" (rank and alpha doubled; naming only one of them is an error), "w2" -> "down_proj".
+# A string target ("all-linear" or a regex) is first turned into a set of leaf names.
+_MOE_MAPPING = {"gate": "gate.weight", "w1": "gate_up_proj", "w3": "gate_up_proj", "w2": "down_proj"}
+_MOE_FUSED = {"gate_up_proj": ("w1", "w3")}
+
+
+def _moe_convert(arch: Architecture, targets, modules_to_save):
+    """(module targets, {parameter target: rank multiplier}) after PEFT's mixtral conversion."""
+    rows = module_table(arch)
+    if isinstance(targets, str):
+        if _is_all_linear(targets):
+            resolved = {r[0].rsplit(".", 1)[-1] for r in rows if r[1] == "linear" and r[0] != "lm_head"}
+            resolved |= set(_MOE_MAPPING)
+        else:
+            keys = [r[0] for r in rows] + [f"{r[0]}.{p}" for r in rows for p in r[2]]
+            resolved = {
+                k.rsplit(".", 1)[-1]
+                for k in keys
+                if _matches(targets, k) and not _excluded_by_modules_to_save(k, modules_to_save)
+            }
+            containers: dict[str, list[str]] = {}
+            for r in rows:
+                for p in r[2]:
+                    containers.setdefault(p, []).append(r[0])
+            for old, new in _MOE_MAPPING.items():
+                if old in resolved:
+                    continue
+                if any(_matches(targets, f"{c}.{old}") for c in containers.get(new, ())):
+                    resolved.add(old)
+        if not resolved:
+            return targets, {}
+        targets = sorted(resolved)
+    if targets is None:
+        # PEFT 0.21 with transformers >= 5 turns an unset target_modules into an empty set here, so the
+        # family default (q_proj, v_proj) is never applied and injection fails.
+        raise NoDefaultTargets(
+            "target_modules is unset: for mixtral, PEFT's conversion to the transformers 5 layout leaves no "
+            "targets and get_peft_model raises; set target_modules"
+        )
+    params: dict[str, int] = {}
+    remaining: list[str] = []
+    present: dict[str, set[str]] = {}
+    for t in targets:
+        hit = next((old for old in _MOE_MAPPING if t == old or t.endswith(f".{old}")), None)
+        if hit is None:
+            remaining.append(t)
+            continue
+        params.setdefault(_MOE_MAPPING[hit], 1)
+        present.setdefault(_MOE_MAPPING[hit], set()).add(hit)
+    for new, olds in _MOE_FUSED.items():
+        got = present.get(new, set())
+        if 0 < len(got) < len(olds):
+            missing = ", ".join(sorted(set(olds) - got))
+            raise ValueError(
+                f"Cannot convert PEFT target(s) {', '.join(sorted(got))} without also targeting {missing} "
+                f"because they are fused into {new}."
+            )
+        if len(got) == len(olds):
+            params[new] = len(olds)
+    return remaining, params
+
+
+def _plan(arch: Architecture, targets, modules_to_save):
+    """(wrapped module rows, [(parameter full name, shape, rank multiplier)]) as PEFT would inject them."""
+    if arch.family != "mixtral":
+        return [r for r in _matched(arch, targets, modules_to_save)], []
+    module_targets, param_targets = _moe_convert(arch, targets, modules_to_save)
+    if isinstance(module_targets, list) and not module_targets:
+        matched: list[Module] = []
+    else:
+        matched = _matched(arch, module_targets, modules_to_save)
+    params = []
+    for name, _kind, shapes in module_table(arch):
+        for pname, shape in shapes.items():
+            key = f"{name}.{pname}"
+            mult = next((m for t, m in param_targets.items() if key == t or key.endswith(f".{t}")), None)
+            if mult is not None:
+                params.append((key, shape, mult))
+    return matched, params
+
+
 def resolve_targets(arch: Architecture, targets, modules_to_save=None) -> list[str]:
-    """Full names of the modules PEFT would wrap with LoRA, in model order.
+    """Full names of the modules (and, for mixtral, parameters) PEFT would adapt with LoRA, in model order.
 
     ``"all-linear"`` (any case): every nn.Linear except ``lm_head``; ``None``: PEFT's default for
     the family (raises :class:`NoDefaultTargets` where PEFT has none); a list: exact full name or
     ``.suffix`` match; any other string: ``re.fullmatch`` on full module names. Modules matched
     by ``modules_to_save`` are left out, as PEFT does. Matches that LoRA cannot wrap (norms, the
-    mixtral router and experts, containers) are left out; see :func:`unsupported_target_matches`.
+    mixtral router module and experts module, containers) are left out; see
+    :func:`unsupported_target_matches`. For mixtral the 4.x names ``gate``, ``w1``+``w3`` and
+    ``w2`` (and ``"all-linear"``) become the parameters ``...mlp.gate.weight``,
+    ``...mlp.experts.gate_up_proj`` and ``...mlp.experts.down_proj`` as PEFT rewrites them.
     An empty result means PEFT would raise "Target modules ... not found".
     """
-    return [r[0] for r in _matched(arch, targets, modules_to_save) if r[1] in _LORA_KINDS]
+    mods, params = _plan(arch, targets, modules_to_save)
+    return [r[0] for r in mods if r[1] in _LORA_KINDS] + [p[0] for p in params]
 
 
 def unsupported_target_matches(arch: Architecture, targets, modules_to_save=None) -> list[str]:
     """Matched modules that LoRA cannot wrap (PEFT raises "Target module ... is not supported")."""
-    return [r[0] for r in _matched(arch, targets, modules_to_save) if r[1] not in _LORA_KINDS]
+    mods, _params = _plan(arch, targets, modules_to_save)
+    return [r[0] for r in mods if r[1] not in _LORA_KINDS]
 
 
 def target_leaf_names(arch: Architecture, targets, modules_to_save=None) -> list[str]:
@@ -615,7 +703,14 @@ def lora_trainable_parameters(
     saved = modules_to_save_matches(arch, modules_to_save)
     saved_set = set(saved)
     total = 0
-    wrapped = resolve_targets(arch, targets, modules_to_save)
+    mods, param_targets = _plan(arch, targets, modules_to_save)
+    wrapped = [r[0] for r in mods if r[1] in _LORA_KINDS]
+    if param_targets and use_dora:
+        raise ValueError("lora.ParamWrapper does not work with LoRA variants like DoRA.")
+    for _key, shape, mult in param_targets:
+        # PEFT lora.ParamWrapper: 3-D (experts, out, in) -> lora_A in -> r*E, lora_B r*E -> out; 2-D: E = 1
+        experts, fout, fin = shape if len(shape) == 3 else (1, shape[0], shape[1])
+        total += rank * mult * experts * (fin + fout)
     for name in wrapped:
         _, kind, params = rows[name]
         rows_out, cols_in = params["weight"]

@@ -1,0 +1,161 @@
+"""LoRA trainable counts, target resolution and scale against PEFT on tiny random models (CPU)."""
+
+import math
+import warnings
+
+import peft
+import pytest
+import torch
+import transformers
+
+from cfgcheck.knowledge.models import (
+    Architecture,
+    NoDefaultTargets,
+    lora_scale,
+    lora_trainable_parameters,
+    module_table,
+    resolve_targets,
+    total_parameters,
+    unsupported_target_matches,
+)
+
+from .conftest import hf_config
+
+FAMILIES = ["llama", "mistral", "qwen2", "qwen3", "gemma", "gemma2", "phi3", "mixtral"]
+
+
+def tiny(family: str, tied: bool) -> Architecture:
+    return Architecture(
+        family=family, hidden_size=32, intermediate_size=48, num_layers=2, num_heads=4, num_kv_heads=2,
+        head_dim=8, vocab_size=64, max_position_embeddings=128, tie_word_embeddings=tied, torch_dtype=None,
+        num_experts=4 if family == "mixtral" else 0, experts_per_token=2 if family == "mixtral" else 0,
+    )
+
+
+_MODELS = {}
+
+
+def build(arch: Architecture):
+    torch.manual_seed(0)
+    return transformers.AutoModelForCausalLM.from_config(hf_config(arch))
+
+
+def mlp_targets(family):
+    return ["gate_up_proj", "down_proj"] if family == "phi3" else ["gate_proj", "up_proj", "down_proj"]
+
+
+TARGET_SETS = {
+    "q_v": lambda fam: ["q_proj", "v_proj"],
+    "all_linear": lambda fam: "all-linear",
+    "regex_attn_o": lambda fam: r".*\.self_attn\.(q_proj|o_proj|qkv_proj)",
+    "mlp_only": mlp_targets,
+    "default": lambda fam: None,
+}
+SAVE_SETS = {"none": None, "lm_head": ["lm_head"], "embed_and_head": ["embed_tokens", "lm_head"]}
+
+CASES = []
+for fam in FAMILIES:
+    for tied in (False, True):
+        for tname in TARGET_SETS:
+            for sname in SAVE_SETS:
+                rank = 4 if (len(CASES) % 2) else 8
+                CASES.append((fam, tied, tname, sname, rank))
+
+
+def peft_count(arch, targets, rank, modules_to_save, use_dora=False, bias="none"):
+    model = build(arch)
+    cfg = peft.LoraConfig(
+        r=rank, lora_alpha=2 * rank, target_modules=targets, modules_to_save=modules_to_save,
+        use_dora=use_dora, bias=bias, task_type="CAUSAL_LM",
+    )
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        pm = peft.get_peft_model(model, cfg)
+    trainable, _all = pm.get_nb_trainable_parameters()
+    return pm, trainable
+
+
+@pytest.mark.parametrize("fam,tied,tname,sname,rank", CASES, ids=["-".join(map(str, c)) for c in CASES])
+def test_lora_trainable_equals_peft(fam, tied, tname, sname, rank):
+    # reference: PEFT get_peft_model(...).get_nb_trainable_parameters(), what print_trainable_parameters prints
+    arch = tiny(fam, tied)
+    targets = TARGET_SETS[tname](fam)
+    mts = SAVE_SETS[sname]
+    try:
+        ours = lora_trainable_parameters(arch, rank=rank, targets=targets, modules_to_save=mts)
+        wrapped = resolve_targets(arch, targets, mts)
+        bad = unsupported_target_matches(arch, targets, mts)
+    except NoDefaultTargets:
+        with pytest.raises(ValueError):  # PEFT: no default target_modules for this model type
+            peft_count(arch, targets, rank, mts)
+        return
+    if not wrapped or bad:
+        with pytest.raises(ValueError):  # PEFT: "Target modules ... not found" / "... is not supported"
+            peft_count(arch, targets, rank, mts)
+        return
+    pm, theirs = peft_count(arch, targets, rank, mts)
+    assert ours == theirs
+    lora_names = sorted(
+        n[len("base_model.model."):]
+        for n, m in pm.named_modules()
+        if isinstance(m, peft.tuners.lora.LoraLayer) and not isinstance(m, peft.tuners.lora.ParamWrapper)
+    )
+    module_names = {row[0] for row in module_table(arch)}
+    assert sorted(w for w in wrapped if w in module_names) == lora_names
+
+
+@pytest.mark.parametrize("fam", ["llama", "qwen2", "phi3", "gemma"])
+def test_dora_and_bias_counts_equal_peft(fam):
+    # reference: PEFT LoraConfig(use_dora=True) adds lora_magnitude_vector; bias="all"/"lora_only" unfreezes biases
+    arch = tiny(fam, tied=fam == "gemma")
+    for kwargs in ({"use_dora": True}, {"bias": "all"}, {"bias": "lora_only"}):
+        _pm, theirs = peft_count(arch, "all-linear", 4, None, **kwargs)
+        assert lora_trainable_parameters(arch, rank=4, targets="all-linear", **kwargs) == theirs, kwargs
+
+
+def test_untied_qwen2_bias_variant_with_attention_bias_llama():
+    # reference: transformers LlamaConfig(attention_bias=True) puts biases on q/k/v/o; counted by num_parameters()
+    arch = Architecture(**{**tiny("llama", False).__dict__, "attention_bias": True, "mlp_bias": True})
+    assert total_parameters(arch) == build(arch).num_parameters()
+    _pm, theirs = peft_count(arch, ["q_proj", "down_proj"], 4, None, bias="lora_only")
+    assert lora_trainable_parameters(arch, rank=4, targets=["q_proj", "down_proj"], bias="lora_only") == theirs
+
+
+@pytest.mark.parametrize("rank,alpha", [(8, 16), (16, 8), (64, 16)])
+@pytest.mark.parametrize("rslora", [False, True])
+def test_scale_equals_peft_scaling(rank, alpha, rslora):
+    # reference: PEFT lora/layer.py update_layer: alpha/sqrt(r) with use_rslora else alpha/r
+    model = build(tiny("llama", False))
+    cfg = peft.LoraConfig(r=rank, lora_alpha=alpha, use_rslora=rslora, target_modules=["q_proj"])
+    pm = peft.get_peft_model(model, cfg)
+    layer = pm.base_model.model.model.layers[0].self_attn.q_proj
+    assert math.isclose(layer.scaling["default"], lora_scale(alpha, rank, rslora), rel_tol=1e-12)
+
+
+@pytest.mark.parametrize(
+    "targets",
+    [["w1", "w2", "w3"], ["gate", "q_proj"], ["w1"], r".*\.(w1|w3)", r".*\.(q_proj|gate)", ["experts"]],
+    ids=["w123", "router-q", "w1-alone", "regex-w13", "regex-q-router", "experts-module"],
+)
+def test_mixtral_layout_conversion_equals_peft(targets):
+    # reference: PEFT 0.21 rewrites transformers-4 mixtral names for the fused transformers-5 experts
+    arch = tiny("mixtral", False)
+    try:
+        ours = lora_trainable_parameters(arch, rank=4, targets=targets)
+        ok = bool(resolve_targets(arch, targets)) and not unsupported_target_matches(arch, targets)
+    except ValueError:
+        ours, ok = None, False
+    if not ok:
+        with pytest.raises(ValueError):
+            peft_count(arch, targets, 4, None)
+        return
+    _pm, theirs = peft_count(arch, targets, 4, None)
+    assert ours == theirs
+
+
+@pytest.mark.parametrize("mts", [["norm"], ["mlp"], ["embed_tokens"]])
+def test_modules_to_save_suffix_semantics_equal_peft(mts):
+    # reference: PEFT other._set_trainable matches modules_to_save with a plain key.endswith(name)
+    arch = tiny("llama", False)
+    _pm, theirs = peft_count(arch, ["q_proj", "down_proj"], 4, mts)
+    assert lora_trainable_parameters(arch, rank=4, targets=["q_proj", "down_proj"], modules_to_save=mts) == theirs
