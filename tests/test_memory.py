@@ -234,3 +234,17 @@ def test_nothing_fits_gives_empty_list():
 def test_total_parameters_used_in_estimate():
     est = estimate_memory(MemoryInputs(arch=LLAMA7, method="full"))
     assert est.total_parameters == total_parameters(LLAMA7) == N7
+
+
+def test_modules_to_save_copies_train_in_base_dtype():
+    # PEFT keeps the trainable copy in the base dtype (bf16; checked in tests/reference), so each copied
+    # parameter costs 2 B weight + 2 B gradient + 2 x 2 B AdamW states, plus the frozen original's 2 B
+    a = CAT["meta-llama/Meta-Llama-3-8B"]
+    inp = MemoryInputs(arch=a, method="lora", lora_targets="all-linear", lora_rank=16)
+    plain = estimate_memory(inp)
+    saved = estimate_memory(replace(inp, modules_to_save=("lm_head",)))
+    copy = a.vocab_size * a.hidden_size  # 525,336,576 parameters
+    assert saved.trainable_parameters - plain.trainable_parameters == copy
+    assert saved.weights_bytes - plain.weights_bytes == 2 * copy
+    assert saved.gradients_bytes - plain.gradients_bytes == 2 * copy
+    assert saved.optimizer_bytes - plain.optimizer_bytes == 4 * copy

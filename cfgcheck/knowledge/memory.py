@@ -433,28 +433,46 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
             copies += sum(math.prod(s) for k, r in rows.items() if k == name or k.startswith(name + ".") for s in r[2].values())
         if copies:
             notes.append(f"modules_to_save: {copies:,} parameters held twice (frozen original + trainable copy, PEFT)")
-        # PEFT get_peft_model(autocast_adapter_dtype=True) upcasts 16-bit adapter weights to fp32.
-        w_b, g_b, master_b, state_b = 4, 4, 0, 4
+        # PEFT get_peft_model(autocast_adapter_dtype=True) upcasts 16-bit adapter weights to fp32;
+        # modules_to_save copies keep the base dtype (observed with PEFT 0.21, tests/reference).
+        adapters = trainable - copies
+        copy_b = 4 if storage == "fp32" else 2
         notes.append("LoRA adapters in fp32 (PEFT autocast_adapter_dtype): 4 B weights + 4 B gradients per parameter")
-        if not mp and storage in ("bf16", "fp16"):
-            notes.append("adapters train in fp32 even without autocast")
+        if copies:
+            notes.append(
+                f"modules_to_save copies train in {'fp32' if copy_b == 4 else '16-bit'}: {copy_b} B weights, "
+                f"{copy_b} B gradients and {copy_b}-byte optimizer states per parameter, no master copy"
+            )
         adapter_shapes = []
-        for name in resolve_targets(arch, targets, list(inp.modules_to_save) or None):
-            if name in rows:
-                fout, fin = rows[name][2]["weight"]
+        for tname in resolve_targets(arch, targets, list(inp.modules_to_save) or None):
+            if tname in rows:
+                fout, fin = rows[tname][2]["weight"]
                 adapter_shapes += [(inp.lora_rank, fin), (fout, inp.lora_rank)]
-        weights_bytes = base_bytes + trainable * w_b
+        weights_bytes = base_bytes + adapters * 4 + copies * copy_b
+        w_b, g_b, master_b, state_b = 4, 4, 0, 4
 
-    gradients_bytes = trainable * g_b
-    master_bytes = trainable * master_b
     name = (inp.optimizer or "adamw_torch").lower()
-    if name.startswith("adafactor"):
-        optimizer_bytes = _adafactor_state_bytes(adapter_shapes) + (4 * copies if copies else 0)
-        notes.append("adafactor: factored second moment (rows + columns per matrix, fp32), no first moment (from memory)")
+    if inp.method == "full":
+        gradients_bytes = trainable * g_b
+        master_bytes = trainable * master_b
+        if name.startswith("adafactor"):
+            optimizer_bytes = _adafactor_state_bytes(adapter_shapes)
+        else:
+            per_param, note = optimizer_state_bytes_per_param(name, state_bytes=state_b, sgd_momentum=inp.sgd_momentum)
+            optimizer_bytes = trainable * per_param
+            notes.append(note)
     else:
-        per_param, note = optimizer_state_bytes_per_param(name, state_bytes=state_b, sgd_momentum=inp.sgd_momentum)
-        optimizer_bytes = trainable * per_param
-        notes.append(note)
+        gradients_bytes = adapters * 4 + copies * copy_b
+        master_bytes = 0
+        if name.startswith("adafactor"):
+            optimizer_bytes = _adafactor_state_bytes(adapter_shapes) + 4 * copies  # copies: upper bound
+        else:
+            per_param, note = optimizer_state_bytes_per_param(name, state_bytes=4, sgd_momentum=inp.sgd_momentum)
+            copy_per_param, _ = optimizer_state_bytes_per_param(name, state_bytes=copy_b, sgd_momentum=inp.sgd_momentum)
+            optimizer_bytes = adapters * per_param + copies * copy_per_param
+            notes.append(note)
+    if name.startswith("adafactor"):
+        notes.append("adafactor: factored second moment (rows + columns per matrix, fp32), no first moment (from memory)")
     if name.startswith("paged_"):
         notes.append(f"{name}: states can page to CPU memory under pressure; counted as resident on the GPU")
 

@@ -159,3 +159,14 @@ def test_modules_to_save_suffix_semantics_equal_peft(mts):
     arch = tiny("llama", False)
     _pm, theirs = peft_count(arch, ["q_proj", "down_proj"], 4, mts)
     assert lora_trainable_parameters(arch, rank=4, targets=["q_proj", "down_proj"], modules_to_save=mts) == theirs
+
+
+def test_adapter_and_copy_dtypes_on_a_bf16_base():
+    # reference: PEFT get_peft_model(autocast_adapter_dtype=True) upcasts LoRA weights to fp32, while the
+    # ModulesToSaveWrapper copy keeps the base dtype; the memory estimate relies on both
+    model = build(tiny("llama", False)).to(torch.bfloat16)
+    pm = peft.get_peft_model(model, peft.LoraConfig(r=4, target_modules=["q_proj"], modules_to_save=["lm_head"]))
+    trainable = {n: p.dtype for n, p in pm.named_parameters() if p.requires_grad}
+    assert {d for n, d in trainable.items() if ".lora_" in n} == {torch.float32}
+    assert {d for n, d in trainable.items() if ".modules_to_save." in n} == {torch.bfloat16}
+    assert all(".lora_" in n or ".modules_to_save." in n for n in trainable)
