@@ -370,3 +370,16 @@ def test_config_defaults_and_text_config_nesting():
     assert nested is not None and nested.family == "llama" and nested.torch_dtype == "bfloat16"
     assert architecture_from_config({**base, "num_key_value_heads": 3}, "test") is None  # 8 heads not divisible
     assert architecture_from_config({**base, "hidden_size": "512"}, "test") is None
+
+
+def test_adapter_folder_resolves_to_its_base(tmp_path):
+    # PEFT adapter folders carry adapter_config.json with base_model_name_or_path (PEFT PeftConfig)
+    run = tmp_path / "runs" / "faq-adapter"
+    run.mkdir(parents=True)
+    (run / "adapter_config.json").write_text(json.dumps({"peft_type": "LORA", "base_model_name_or_path": "Qwen/Qwen2.5-0.5B"}))
+    a = resolve_model("runs/faq-adapter", cwd=tmp_path, hub_cache=tmp_path / "nohub")
+    assert a is not None and total_parameters(a) == 494_032_768  # REFERENCES sec. 13
+    assert "base of the adapter" in a.source
+    # a local folder without any config is not looked up anywhere else
+    (tmp_path / "Llama-2-7b-hf").mkdir()
+    assert resolve_model("Llama-2-7b-hf", cwd=tmp_path, hub_cache=tmp_path / "nohub") is None

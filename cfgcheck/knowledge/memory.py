@@ -535,6 +535,9 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
     tokens = inp.seq_len * inp.micro_batch
     logit_b = 2 if act_b == 2 else 4
     logits_bytes = tokens * arch.vocab_size * (logit_b + 4 + (4 if logit_b == 2 else 0))
+    if arch.family == "gemma2":  # final_logit_softcapping keeps a tanh output of the logits' size
+        logits_bytes += tokens * arch.vocab_size * logit_b
+        notes.append("gemma2 final logit soft-capping keeps one more b*s*V tensor (own derivation)")
     notes.append(
         "logits: b*s*V in the compute dtype, an fp32 copy for the loss and the fp32 log-softmax "
         "(transformers ForCausalLMLoss upcasts logits; own derivation)"
@@ -580,6 +583,12 @@ def _single_changes(inp: MemoryInputs) -> list[tuple[str, dict]]:
             "to keep the effective batch",
             {"micro_batch": half},
         ))
+    if inp.micro_batch > 2:
+        out.append((
+            f"reduce the micro-batch {inp.micro_batch} -> 1 and multiply gradient accumulation by "
+            f"{inp.micro_batch} to keep the effective batch",
+            {"micro_batch": 1},
+        ))
     opt = (inp.optimizer or "adamw_torch").lower()
     if opt in _ADAM_32:
         target = _EIGHT_BIT.get(opt, "adamw_8bit")
@@ -615,9 +624,9 @@ def changes_that_fit(inp: MemoryInputs, capacity_bytes: int) -> list[tuple[str, 
     def attempt(idx: tuple[int, ...]):
         changes: dict = {}
         for i in idx:
+            if set(singles[i][1]) & set(changes):
+                return None  # two changes of the same setting (e.g. two micro-batch sizes)
             changes.update(singles[i][1])
-        if "method" in changes and changes["method"] == "lora" and "base_storage" in changes:
-            changes["method"] = "qlora"
         new = replace(inp, **changes)
         try:
             est = estimate_memory(new)

@@ -32,7 +32,7 @@ import json
 import math
 import os
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import lru_cache
 from pathlib import Path
 from typing import Iterable
@@ -352,9 +352,24 @@ def resolve_model(
     first, then against ``config_dir``, the folder of the file being linted); then the local hub
     cache (``hub_cache``, else HF_HUB_CACHE, HF_HOME/hub or ~/.cache/huggingface/hub, layout
     ``models--ORG--NAME/snapshots/<rev>/config.json``, preferring ``refs/main``); then the bundled
-    catalogue (case-insensitive, also by the name without the organisation). A local folder whose
+    catalogue (case-insensitive, also by the name without the organisation). A local PEFT adapter
+    folder (adapter_config.json) resolves to its ``base_model_name_or_path``. A local folder whose
     config.json is unreadable or not a model config gives None.
     """
+    return _resolve(ref, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=0)
+
+
+def _adapter_base(folder: Path) -> str | None:
+    """base_model_name_or_path of a PEFT adapter folder (adapter_config.json), if any."""
+    try:
+        data = json.loads((folder / "adapter_config.json").read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, ValueError):
+        return None
+    base = data.get("base_model_name_or_path") if isinstance(data, dict) else None
+    return base if isinstance(base, str) and base.strip() else None
+
+
+def _resolve(ref, *, config_dir, cwd, hub_cache, depth) -> Architecture | None:
     if not isinstance(ref, str) or not ref.strip():
         return None
     ref = ref.strip()
@@ -364,13 +379,21 @@ def resolve_model(
             bases = [given]
         else:
             bases = [(Path(b) / given) for b in (cwd if cwd is not None else Path.cwd(), config_dir) if b is not None]
+        local_dir = False
         for base in bases:
             if base.is_file() and base.suffix == ".json":
                 return _read_config(base)
             if (base / "config.json").is_file():
                 return _read_config(base / "config.json")
             if base.is_dir():
-                return None  # a local folder without config.json: not a hub id either
+                local_dir = True
+                adapter_base = _adapter_base(base) if depth == 0 else None
+                if adapter_base is not None:
+                    arch = _resolve(adapter_base, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=1)
+                    if arch is not None:
+                        return replace(arch, source=f"{arch.source} (base of the adapter at {base})")
+        if local_dir:
+            return None  # a local folder that holds no model config is not a hub id either
     except (OSError, ValueError):
         return None
     if not _HUB_ID_RE.match(ref):
@@ -475,10 +498,6 @@ def module_table(arch: Architecture) -> list[Module]:
 
 def _numel(shape: Iterable[int]) -> int:
     return math.prod(shape)
-
-
-def _module_params(row: Module, arch: Architecture) -> int:
-    return sum(_numel(s) for s in row[2].values())
 
 
 def total_parameters(arch: Architecture) -> int:
