@@ -403,16 +403,16 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
     if inp.method == "full":
         trainable = n_total
         if storage == "fp32":
-            w_b, g_b, master_b, state_b = 0, 4, 0, 4  # weights already counted in base_bytes
+            g_b, master_b, state_b = 4, 0, 4
             notes.append("fp32 weights: 4 B weights + 4 B gradients per parameter")
         elif mp:
-            w_b, g_b, master_b, state_b = 0, 2, 4, 4
+            g_b, master_b, state_b = 2, 4, 4
             notes.append(
                 "mixed precision: 16-bit weights and gradients, fp32 master copy "
                 "(ZeRO paper sec. 3.1: 2 + 2 + 12 = 16 bytes/param with Adam)"
             )
         else:
-            w_b, g_b, master_b, state_b = 0, 2, 0, 2
+            g_b, master_b, state_b = 2, 0, 2
             notes.append("pure 16-bit training: gradients and optimizer states in the weights' 16-bit dtype")
         adapter_shapes = _trainable_shapes_full(arch)
         weights_bytes = base_bytes
@@ -449,7 +449,6 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
                 fout, fin = rows[tname][2]["weight"]
                 adapter_shapes += [(inp.lora_rank, fin), (fout, inp.lora_rank)]
         weights_bytes = base_bytes + adapters * 4 + copies * copy_b
-        w_b, g_b, master_b, state_b = 4, 4, 0, 4
 
     name = (inp.optimizer or "adamw_torch").lower()
     if inp.method == "full":

@@ -32,9 +32,6 @@ def tiny(family: str, tied: bool) -> Architecture:
     )
 
 
-_MODELS = {}
-
-
 def build(arch: Architecture):
     torch.manual_seed(0)
     return transformers.AutoModelForCausalLM.from_config(hf_config(arch))
@@ -113,7 +110,7 @@ def test_dora_and_bias_counts_equal_peft(fam):
         assert lora_trainable_parameters(arch, rank=4, targets="all-linear", **kwargs) == theirs, kwargs
 
 
-def test_untied_qwen2_bias_variant_with_attention_bias_llama():
+def test_llama_attention_and_mlp_bias_counts_equal_transformers_and_peft():
     # reference: transformers LlamaConfig(attention_bias=True) puts biases on q/k/v/o; counted by num_parameters()
     arch = Architecture(**{**tiny("llama", False).__dict__, "attention_bias": True, "mlp_bias": True})
     assert total_parameters(arch) == build(arch).num_parameters()
