@@ -129,7 +129,8 @@ def size_from_name(ref: str) -> float | None:
 
     "meta-llama/Llama-2-7b-hf" -> 7.0, "TinyLlama-1.1B-Chat" -> 1.1, "SmolLM-360M" -> 0.36.
     Versions ("Llama-3.1-8B" -> 8.0), "v0.1", context suffixes ("4k") and active-parameter
-    suffixes ("Qwen3-30B-A3B" -> 30.0) are not read as sizes. Mixture-of-experts names of the
+    suffixes ("Qwen3-30B-A3B" -> 30.0) are not read as sizes; an M-suffixed number beside a
+    B-suffixed one is a context length ("Qwen2.5-7B-Instruct-1M" -> 7.0). Mixture-of-experts names of the
     form "8x7B" give None: the total is not 8 x 7 because attention and embeddings are shared
     (Mixtral-8x7B has 46.7e9 parameters); use the catalogue for those. Two different sizes in one
     name component give None. Path components are read from the last to the first, so
@@ -141,7 +142,7 @@ def size_from_name(ref: str) -> float | None:
     for part in reversed(parts):
         if re.search(r"\d+x\d+(?:\.\d+)?[bB](?![A-Za-z0-9])", part):
             return None
-        sizes = set()
+        billions, millions = set(), set()
         for m in _SIZE_RE.finditer(part):
             start = m.start()
             # "1_6b": an underscore between digits may be a decimal mark; refuse to guess.
@@ -149,8 +150,11 @@ def size_from_name(ref: str) -> float | None:
                 return None
             value = float(m.group(1))
             if m.group(2) in "mM":
-                value = value / 1000.0
-            sizes.add(round(value, 6))
+                millions.add(round(value / 1000.0, 6))
+            else:
+                billions.add(round(value, 6))
+        # "Qwen2.5-7B-Instruct-1M": an M beside a B size is a context length, not a size
+        sizes = billions or millions
         if len(sizes) == 1:
             return sizes.pop()
         if len(sizes) > 1:
