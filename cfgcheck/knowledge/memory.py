@@ -72,6 +72,23 @@ _SHARDED = {
 
 @dataclass(frozen=True)
 class MemoryInputs:
+    """What the estimate needs to know about a run.
+
+    ``mixed_precision`` set means the ZeRO-paper recipe: 16-bit compute with fp32 master weights
+    and fp32 optimizer states. How common setups map onto the fields:
+
+    * transformers Trainer, model loaded in fp32 (no torch_dtype), ``bf16: true``: base_storage
+      "fp32", mixed_precision "bf16" -> 4 + 4 + 8 = 16 B/param with AdamW, 16-bit activations;
+    * transformers Trainer, model loaded in bf16 (``torch_dtype: bfloat16``), ``bf16: true``: the
+      weights stay bf16 and torch's AdamW keeps bf16 states, no master copy: base_storage "bf16",
+      mixed_precision None -> 2 + 2 + 4 = 8 B/param (measured against torch in tests/reference);
+    * DeepSpeed with ``bf16``/``fp16`` enabled (fp32 master copy): base_storage "bf16"/"fp16",
+      mixed_precision "bf16"/"fp16" -> 2 + 2 + 12 = 16 B/param (ZeRO paper sec. 3.1);
+    * LoRA/QLoRA: the base storage as loaded; adapters are fp32 either way (PEFT).
+
+    ``fused_attention``: transformers' default sdpa, or flash-attention; False for "eager".
+    """
+
     arch: Architecture
     method: str  # "full" | "lora" | "qlora"
     base_storage: str = "bf16"  # "fp32" | "bf16" | "fp16" | "int8" | "nf4" | "fp4"
