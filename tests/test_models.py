@@ -386,3 +386,15 @@ def test_adapter_folder_resolves_to_its_base(tmp_path):
     # a local folder without any config is not looked up anywhere else
     (tmp_path / "Llama-2-7b-hf").mkdir()
     assert resolve_model("Llama-2-7b-hf", cwd=tmp_path, hub_cache=tmp_path / "nohub") is None
+
+
+def test_hub_cache_snapshot_files_are_symlinks_to_blobs(tmp_path):
+    # huggingface_hub cache layout: snapshots/<rev>/config.json links to ../../blobs/<hash>
+    repo = tmp_path / "hub" / "models--fjordline--ticket-router"
+    (repo / "blobs").mkdir(parents=True)
+    (repo / "blobs" / "0a1b2c").write_text(json.dumps(TINYLLAMA_CONFIG))
+    snap = repo / "snapshots" / "r9"
+    snap.mkdir(parents=True)
+    (snap / "config.json").symlink_to(Path("../../blobs/0a1b2c"))
+    a = resolve_model("fjordline/ticket-router", cwd=tmp_path, hub_cache=tmp_path / "hub")
+    assert a is not None and a.vocab_size == 32000
