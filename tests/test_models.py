@@ -314,7 +314,8 @@ def test_local_folder_relative_to_config_dir(tmp_path):
 
 
 def test_garbage_config_gives_none(tmp_path):
-    for i, text in enumerate(["{not json", "[1, 2]", json.dumps({"model_type": "llama"}), "\xff\xfe"]):
+    garbage = ["{not json", "[1, 2]", json.dumps({"model_type": "llama"}), "\xff\xfe", "[" * 100_000 + "]" * 100_000]
+    for i, text in enumerate(garbage):
         write_model(tmp_path / f"m{i}", text)
         assert resolve_model(str(tmp_path / f"m{i}")) is None
     (tmp_path / "bin").mkdir()

@@ -242,7 +242,7 @@ def _read_config(path: Path) -> Architecture | None:
     try:
         text = path.read_text(encoding="utf-8")
         data = json.loads(text)
-    except (OSError, UnicodeDecodeError, ValueError):
+    except (OSError, UnicodeDecodeError, ValueError, RecursionError):
         return None
     if not isinstance(data, dict):
         return None
@@ -367,7 +367,7 @@ def _adapter_base(folder: Path) -> str | None:
     """base_model_name_or_path of a PEFT adapter folder (adapter_config.json), if any."""
     try:
         data = json.loads((folder / "adapter_config.json").read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, ValueError):
+    except (OSError, UnicodeDecodeError, ValueError, RecursionError):
         return None
     base = data.get("base_model_name_or_path") if isinstance(data, dict) else None
     return base if isinstance(base, str) and base.strip() else None
