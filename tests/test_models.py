@@ -399,3 +399,22 @@ def test_hub_cache_snapshot_files_are_symlinks_to_blobs(tmp_path):
     (snap / "config.json").symlink_to(Path("../../blobs/0a1b2c"))
     a = resolve_model("fjordline/ticket-router", cwd=tmp_path, hub_cache=tmp_path / "hub")
     assert a is not None and a.vocab_size == 32000
+
+
+_json_values = st.recursive(
+    st.none() | st.booleans() | st.integers(-10, 10**6) | st.floats(allow_nan=False) | st.text(max_size=8),
+    lambda children: st.lists(children, max_size=3) | st.dictionaries(st.text(max_size=8), children, max_size=3),
+    max_leaves=8,
+)
+_config_keys = st.sampled_from([
+    "model_type", "hidden_size", "intermediate_size", "num_hidden_layers", "num_attention_heads",
+    "num_key_value_heads", "head_dim", "vocab_size", "max_position_embeddings", "tie_word_embeddings",
+    "torch_dtype", "dtype", "num_local_experts", "num_experts_per_tok", "text_config", "attention_bias",
+])
+
+
+@settings(max_examples=100, deadline=None, derandomize=True)
+@given(st.dictionaries(_config_keys, _json_values | st.sampled_from(["llama", "qwen2", "mixtral", 0, 8, 64])))
+def test_architecture_from_config_never_raises(data):
+    a = architecture_from_config(data, "property test")
+    assert a is None or (a.hidden_size > 0 and a.num_heads % a.num_kv_heads == 0)
