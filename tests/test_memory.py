@@ -248,3 +248,12 @@ def test_modules_to_save_copies_train_in_base_dtype():
     assert saved.weights_bytes - plain.weights_bytes == 2 * copy
     assert saved.gradients_bytes - plain.gradients_bytes == 2 * copy
     assert saved.optimizer_bytes - plain.optimizer_bytes == 4 * copy
+
+
+def test_optimizer_offload_leaves_weights_and_gradients_on_the_gpu():
+    # DeepSpeed ZeRO-Offload keeps optimizer states and the fp32 master copy in CPU memory (from memory)
+    inp = MemoryInputs(arch=LLAMA7, method="full", num_gpus=2, sharding="zero2")
+    on_gpu = estimate_memory(inp)
+    off = estimate_memory(replace(inp, offload_optimizer=True))
+    assert off.optimizer_bytes == off.master_weights_bytes == 0
+    assert (off.weights_bytes, off.gradients_bytes) == (on_gpu.weights_bytes, on_gpu.gradients_bytes)

@@ -106,6 +106,7 @@ class MemoryInputs:
     num_gpus: int = 1
     sharding: str = "none"  # "none" | "zero1" | "zero2" | "zero3" | "fsdp_full" | "fsdp_grad_op"
     overhead_bytes: int = DEFAULT_OVERHEAD_BYTES
+    offload_optimizer: bool = False  # DeepSpeed zero_optimization.offload_optimizer: states and master in CPU RAM
 
 
 @dataclass(frozen=True)
@@ -508,6 +509,10 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
         notes.append(
             f"{inp.sharding} across {n} GPUs partitions {', '.join(sharded)} (ZeRO paper Fig. 1 formulas)"
         )
+    if inp.offload_optimizer:
+        optimizer_bytes = 0
+        master_bytes = 0
+        notes.append("optimizer states and fp32 master weights offloaded to CPU memory (DeepSpeed ZeRO-Offload, from memory)")
 
     # --- activations and logits -----------------------------------------------------------------
     act_b = 2 if (mp or storage != "fp32") else 4
