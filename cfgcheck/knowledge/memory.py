@@ -1,0 +1,671 @@
+"""Per-GPU memory estimate for a fine-tuning run, from the model's shapes and the run's settings.
+
+Pure arithmetic, no torch. Every coefficient carries its basis, and the notes of a
+:class:`MemoryBreakdown` repeat the ones used, so a message can quote them:
+
+* model states (weights, gradients, optimizer, fp32 master weights): ZeRO paper
+  (Rajbhandari et al., SC20) sec. 3.1, mixed-precision Adam = 2 + 2 + 12 = 16 bytes/param,
+  and its Fig. 1 per-stage partitioning formulas;
+* quantised weights: QLoRA paper (Dettmers et al. 2023) sec. 3, NF4/FP4 at 4 bits plus 32-bit
+  block constants per 64 weights (0.5 bit/param) or, with double quantisation, 8/64 + 32/(64*256)
+  = 0.127 bit/param;
+* activations: the per-layer formula sbh(34 + 5as/h) of Korthikanti et al. 2022 (Eq. 1, Table 2)
+  for GPT-style layers; for the gated-MLP, RMSNorm, grouped-query layers modelled here our own
+  derivation (see :func:`layer_activation_bytes`), checked against the tensors torch 2.13 saves
+  for backward in transformers 5.x models (tests/reference);
+* logits: our own derivation from transformers' ForCausalLMLoss, which upcasts the logits to
+  fp32 before cross_entropy.
+
+GB below means 1e9 bytes (the ZeRO paper's arithmetic); GiB means 2**30.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field, replace
+
+from .models import (
+    Architecture,
+    NoDefaultTargets,
+    lora_trainable_parameters,
+    linear_modules,
+    module_table,
+    modules_to_save_matches,
+    resolve_targets,
+    total_parameters,
+)
+
+__all__ = [
+    "MemoryInputs",
+    "MemoryBreakdown",
+    "DEFAULT_OVERHEAD_BYTES",
+    "estimate_memory",
+    "changes_that_fit",
+    "zero_model_states_bytes",
+    "korthikanti_layer_bytes",
+    "full_recompute_layer_bytes",
+    "layer_activation_bytes",
+    "quantised_bits_per_param",
+    "optimizer_state_bytes_per_param",
+]
+
+# CUDA context, cuBLAS/cuDNN workspaces and allocator slack. Common practice, no source: a CUDA
+# context alone is typically several hundred MiB; 1 GiB is a round allowance.
+DEFAULT_OVERHEAD_BYTES = 1 << 30
+
+_BYTES = {"fp32": 4, "bf16": 2, "fp16": 2}
+_QUANT = ("int8", "nf4", "fp4")
+_STORAGES = ("fp32", "bf16", "fp16", "int8", "nf4", "fp4")
+_SHARDINGS = ("none", "zero1", "zero2", "zero3", "fsdp_full", "fsdp_grad_op")
+# which model states each scheme partitions across the data-parallel GPUs (ZeRO paper sec. 5, Fig. 1;
+# FSDP FULL_SHARD partitions like ZeRO-3 and SHARD_GRAD_OP like ZeRO-2, from memory)
+_SHARDED = {
+    "none": (),
+    "zero1": ("optimizer",),
+    "zero2": ("optimizer", "gradients"),
+    "fsdp_grad_op": ("optimizer", "gradients"),
+    "zero3": ("optimizer", "gradients", "weights"),
+    "fsdp_full": ("optimizer", "gradients", "weights"),
+}
+
+
+@dataclass(frozen=True)
+class MemoryInputs:
+    """What the estimate needs to know about a run.
+
+    ``mixed_precision`` set means the ZeRO-paper recipe: 16-bit compute with fp32 master weights
+    and fp32 optimizer states. How common setups map onto the fields:
+
+    * transformers Trainer, model loaded in fp32 (no torch_dtype), ``bf16: true``: base_storage
+      "fp32", mixed_precision "bf16" -> 4 + 4 + 8 = 16 B/param with AdamW, 16-bit activations;
+    * transformers Trainer, model loaded in bf16 (``torch_dtype: bfloat16``), ``bf16: true``: the
+      weights stay bf16 and torch's AdamW keeps bf16 states, no master copy: base_storage "bf16",
+      mixed_precision None -> 2 + 2 + 4 = 8 B/param (measured against torch in tests/reference);
+    * DeepSpeed with ``bf16``/``fp16`` enabled (fp32 master copy): base_storage "bf16"/"fp16",
+      mixed_precision "bf16"/"fp16" -> 2 + 2 + 12 = 16 B/param (ZeRO paper sec. 3.1);
+    * LoRA/QLoRA: the base storage as loaded; adapters are fp32 either way (PEFT).
+
+    ``fused_attention``: transformers' default sdpa, or flash-attention; False for "eager".
+    """
+
+    arch: Architecture
+    method: str  # "full" | "lora" | "qlora"
+    base_storage: str = "bf16"  # "fp32" | "bf16" | "fp16" | "int8" | "nf4" | "fp4"
+    double_quant: bool = False
+    optimizer: str = "adamw_torch"  # transformers `optim` names
+    sgd_momentum: float = 0.0
+    mixed_precision: str | None = "bf16"  # "bf16" | "fp16" | None (no autocast; states in the weights' dtype)
+    micro_batch: int = 1
+    seq_len: int = 2048
+    gradient_checkpointing: bool = False
+    fused_attention: bool = True  # flash / sdpa: no s^2 attention-score term
+    lora_rank: int = 8
+    lora_targets: object = None
+    modules_to_save: tuple[str, ...] = ()
+    num_gpus: int = 1
+    sharding: str = "none"  # "none" | "zero1" | "zero2" | "zero3" | "fsdp_full" | "fsdp_grad_op"
+    overhead_bytes: int = DEFAULT_OVERHEAD_BYTES
+    offload_optimizer: bool = False  # DeepSpeed zero_optimization.offload_optimizer: states and master in CPU RAM
+
+
+@dataclass(frozen=True)
+class MemoryBreakdown:
+    weights_bytes: int
+    gradients_bytes: int
+    optimizer_bytes: int
+    master_weights_bytes: int
+    activations_bytes: int
+    logits_bytes: int
+    overhead_bytes: int
+    total_bytes: int
+    notes: tuple[str, ...] = field(default=())
+    trainable_parameters: int = 0
+    total_parameters: int = 0
+
+    def components(self) -> list[tuple[str, int]]:
+        return [
+            ("weights", self.weights_bytes),
+            ("gradients", self.gradients_bytes),
+            ("optimizer states", self.optimizer_bytes),
+            ("fp32 master weights", self.master_weights_bytes),
+            ("activations", self.activations_bytes),
+            ("logits and loss", self.logits_bytes),
+            ("runtime overhead", self.overhead_bytes),
+        ]
+
+
+# ---------------------------------------------------------------------------------------------
+# Published formulas, exposed for tests and messages
+# ---------------------------------------------------------------------------------------------
+
+
+def zero_model_states_bytes(psi: float, *, stage: int, num_gpus: int, optimizer_k: float = 12) -> float:
+    """Per-device model-state bytes of mixed-precision training, ZeRO paper Fig. 1.
+
+    stage 0: (2 + 2 + K)psi; 1 (P_os): 2psi + 2psi + K psi/N; 2 (P_os+g): 2psi + (2 + K)psi/N;
+    3 (P_os+g+p): (2 + 2 + K)psi/N. K = 12 for mixed-precision Adam (sec. 3.1).
+    """
+    n = max(int(num_gpus), 1)
+    if stage == 0:
+        return (2 + 2 + optimizer_k) * psi
+    if stage == 1:
+        return 2 * psi + 2 * psi + optimizer_k * psi / n
+    if stage == 2:
+        return 2 * psi + (2 + optimizer_k) * psi / n
+    if stage == 3:
+        return (2 + 2 + optimizer_k) * psi / n
+    raise ValueError(f"ZeRO stage must be 0, 1, 2 or 3, got {stage}")
+
+
+def korthikanti_layer_bytes(s: int, b: int, h: int, a: int) -> int:
+    """Activation bytes of one GPT-style layer without recompute: sbh(34 + 5as/h) (Korthikanti et al. Eq. 1)."""
+    return 34 * s * b * h + 5 * a * s * s * b
+
+
+def full_recompute_layer_bytes(s: int, b: int, h: int) -> int:
+    """Bytes kept per layer with full activation recomputation: 2sbh (Korthikanti et al. Table 2)."""
+    return 2 * s * b * h
+
+
+def quantised_bits_per_param(storage: str, double_quant: bool = False) -> float:
+    """Bits per quantised weight, block constants included (QLoRA paper sec. 3).
+
+    nf4/fp4: 4 + 32/64 = 4.5 without double quantisation, 4 + 8/64 + 32/(64*256) = 4.127 with it.
+    int8 (LLM.int8()): 8 bits; its per-row fp32 scales are added per layer in :func:`estimate_memory`.
+    """
+    if storage in ("nf4", "fp4"):
+        return 4 + (8 / 64 + 32 / (64 * 256) if double_quant else 32 / 64)
+    if storage == "int8":
+        return 8.0
+    if storage in _BYTES:
+        return 8.0 * _BYTES[storage]
+    raise ValueError(f"unknown weight storage {storage!r}; expected one of {', '.join(_STORAGES)}")
+
+
+_ADAM_32 = {
+    "adamw_torch", "adamw_torch_fused", "adamw_hf", "adamw", "adam", "adamw_apex_fused", "adamw_anyprecision",
+    "adamw_torch_xla", "adamw_torch_npu_fused", "paged_adamw_32bit", "paged_adam_32bit", "adamw_32bit",
+}
+_ADAM_8 = {"adamw_8bit", "adamw_bnb_8bit", "paged_adamw_8bit", "adam_8bit", "paged_adam_8bit", "adamw_torch_8bit"}
+_ONE_STATE_32 = {"lion_32bit", "paged_lion_32bit", "adagrad", "rmsprop", "rmsprop_bnb_32bit"}
+_ONE_STATE_8 = {"lion_8bit", "paged_lion_8bit", "rmsprop_bnb_8bit", "rmsprop_8bit"}
+
+
+def optimizer_state_bytes_per_param(optimizer: str, *, state_bytes: int = 4, sgd_momentum: float = 0.0):
+    """(bytes per trainable parameter, note) for the optimizer's own state, master weights excluded.
+
+    AdamW keeps two states (exp_avg, exp_avg_sq): 2 x 4 B in fp32 (ZeRO paper sec. 3.1, K = 12 less
+    the 4 B master copy). bitsandbytes 8-bit variants keep them in 1 byte each plus one fp32 scale per
+    2048-value block (from memory). Lion/Adagrad/RMSprop keep one state; SGD one momentum buffer if
+    momentum > 0, else none. Adafactor is handled per tensor in :func:`estimate_memory`.
+    ``state_bytes`` is the dtype of 32-bit states: 4, or 2 when training purely in 16-bit (torch
+    allocates states like the parameter, from memory).
+    """
+    name = (optimizer or "adamw_torch").lower()
+    if name in _ADAM_32:
+        return 2 * state_bytes, f"{name}: two {state_bytes}-byte states per parameter (ZeRO paper sec. 3.1)"
+    if name in _ADAM_8:
+        return 2 + 8 / 2048, f"{name}: two 1-byte states per parameter plus block scales (bitsandbytes, from memory)"
+    if name in _ONE_STATE_32:
+        return state_bytes, f"{name}: one {state_bytes}-byte state per parameter (from memory)"
+    if name in _ONE_STATE_8:
+        return 1 + 4 / 2048, f"{name}: one 1-byte state per parameter plus block scales (from memory)"
+    if name.startswith("sgd"):
+        if sgd_momentum and sgd_momentum > 0:
+            return state_bytes, f"sgd with momentum {sgd_momentum}: one momentum buffer per parameter"
+        return 0, "sgd without momentum: no optimizer state"
+    if name.startswith("adafactor"):
+        return 0, "adafactor: factored second moment, counted per tensor"
+    return 2 * state_bytes, f"optimizer {name!r} not modelled: counted as AdamW (two states per parameter)"
+
+
+# ---------------------------------------------------------------------------------------------
+# Activations (own derivation, checked against torch's saved tensors in tests/reference)
+# ---------------------------------------------------------------------------------------------
+
+
+def layer_activation_bytes(
+    arch: Architecture,
+    *,
+    micro_batch: int,
+    seq_len: int,
+    fused_attention: bool = True,
+    act_bytes: int = 2,
+    frozen: bool = False,
+    lora_leaves: frozenset[str] = frozenset(),
+    lora_rank: int = 8,
+    adapter_act_bytes: int = 2,
+) -> int:
+    """Bytes one decoder layer keeps for backward, without recomputation.
+
+    Our own derivation for the transformers 5.x layers modelled here, counting what each op
+    saves (s = seq_len, b = micro_batch, q = heads x head_dim, k = kv_heads x head_dim, I =
+    intermediate size, A = act_bytes, 2 for 16-bit activations):
+
+    * each RMSNorm (transformers upcasts to fp32): the fp32 input 4sbh, plus the normalised
+      tensor when the norm weight trains (A*sbh; 4sbh for gemma's fp32 (1 + weight) product);
+    * attention: the projection input A*sbh, Q A*sbq, K and V A*sbk each, output A*sbq; eager
+      attention repeats K and V to all heads (A*sbq each) and keeps the fp32 softmax output
+      4*a*s^2*b and its 16-bit copy 2*a*s^2*b. (Korthikanti et al. count 5as^2b for GPT layers
+      with a dropout mask; fused attention keeps only Q, K, V, output and a log-sum-exp);
+    * gated MLP (SwiGLU/GeGLU, phi3's fused gate_up_proj alike): the projection input A*sbh and
+      4 tensors of width I (gate output, activation output, up output, their product) 4*A*sbI;
+    * mixtral: router input and logits, then per routed expert (experts_per_token) a gathered
+      copy of the token states, the 4 width-I tensors and the expert output (for the routing
+      weights' gradient);
+    * phi3 with fused attention: V is a view that keeps the whole qkv output alive, and the
+      attention output is copied before o_proj; gemma2's eager soft-capping keeps its tanh output;
+    * gemma2's extra norms and qwen3's q/k norms are counted like the others.
+
+    With ``frozen`` (adapters on a frozen base), inputs of frozen linear layers are not saved
+    (torch saves a matmul input only for the weight's gradient). Each adapted layer
+    (``lora_leaves``: leaf names) keeps its own copy of its input cast to the adapter dtype
+    (PEFT casts the input to the fp32 adapter weights; under autocast the matmul recasts it to
+    16-bit: ``adapter_act_bytes`` 4 or 2) and the lora_A output of width ``lora_rank``.
+    """
+    s, b, h = seq_len, micro_batch, arch.hidden_size
+    sb = s * b
+    A = act_bytes
+    q = arch.num_heads * arch.head_dim
+    k = arch.num_kv_heads * arch.head_dim
+    inter = arch.intermediate_size
+    fam = arch.family
+
+    def saved_input(*leaves: str) -> bool:  # a base linear layer's input, kept for its weight gradient
+        return not frozen
+
+    # adapted layers: their own input copy in the adapter dtype plus the rank-wide lora_A output
+    adapters = 0
+    if frozen:
+        widths = {leaf: fin for leaf, (fin, _fout) in linear_modules(arch).items()}
+        adapters = sum(adapter_act_bytes * sb * (widths[leaf] + lora_rank) for leaf in lora_leaves if leaf in widths)
+
+    gemma_like = fam in ("gemma", "gemma2")  # GemmaRMSNorm multiplies by (1 + weight) in fp32
+    norm_bytes = 4 * sb * h + (0 if frozen else (4 if gemma_like else A) * sb * h)
+    n_norms = 4 if fam == "gemma2" else 2
+    total = n_norms * norm_bytes + adapters
+    # attention
+    if saved_input("q_proj", "k_proj", "v_proj", "qkv_proj"):
+        total += A * sb * h
+    if fam == "qwen3":  # q_norm / k_norm on per-head vectors
+        total += 4 * sb * (q + k) + (0 if frozen else A * sb * (q + k))
+    if fused_attention:
+        total += A * sb * q + 2 * A * sb * k + A * sb * q + 4 * sb * arch.num_heads  # Q, K, V, out, lse
+        if fam == "phi3":
+            # V is a view of the fused qkv output, which stays alive whole; the output is copied
+            # before o_proj
+            total += A * sb * (q + k) + A * sb * q
+    else:
+        total += A * sb * q + 2 * A * sb * q + A * sb * q  # Q, K and V repeated to all heads, out
+        total += (4 + 2) * arch.num_heads * s * s * b  # fp32 softmax output + 16-bit probabilities
+        if fam == "gemma2":  # attention logit soft-capping keeps the tanh output
+            total += A * arch.num_heads * s * s * b
+    # MLP
+    if fam == "mixtral":
+        E, kk = max(arch.num_experts, 1), max(arch.experts_per_token, 1)
+        total += A * sb * h + A * sb * E  # router input (shared with experts' input) and logits
+        # per routed copy: gathered input, gate/up output, activation output, product, and the
+        # expert output kept for the routing weights' gradient
+        total += kk * (A * sb * h + 4 * A * sb * inter + A * sb * h)
+    else:
+        if saved_input("gate_proj", "up_proj", "gate_up_proj"):
+            total += A * sb * h
+        total += 3 * A * sb * inter  # gate output, activation output, up output
+        if saved_input("down_proj"):
+            total += A * sb * inter  # product = down_proj input
+    return total
+
+
+# ---------------------------------------------------------------------------------------------
+# The estimate
+# ---------------------------------------------------------------------------------------------
+
+
+def _validate(inp: MemoryInputs) -> None:
+    if inp.method not in ("full", "lora", "qlora"):
+        raise ValueError(f"method must be 'full', 'lora' or 'qlora', got {inp.method!r}")
+    if inp.base_storage not in _STORAGES:
+        raise ValueError(f"base_storage must be one of {', '.join(_STORAGES)}, got {inp.base_storage!r}")
+    if inp.method == "full" and inp.base_storage in _QUANT:
+        raise ValueError(f"full fine-tuning cannot train {inp.base_storage} weights; use adapters or 16/32-bit weights")
+    if inp.sharding not in _SHARDINGS:
+        raise ValueError(f"sharding must be one of {', '.join(_SHARDINGS)}, got {inp.sharding!r}")
+    if inp.mixed_precision not in (None, "bf16", "fp16"):
+        raise ValueError(f"mixed_precision must be 'bf16', 'fp16' or None, got {inp.mixed_precision!r}")
+    for name in ("micro_batch", "seq_len", "num_gpus", "lora_rank"):
+        value = getattr(inp, name)
+        if isinstance(value, bool) or not isinstance(value, int) or value <= 0:
+            raise ValueError(f"{name} must be a positive integer, got {value!r}")
+
+
+def _quantised_rows(arch: Architecture) -> tuple[int, int, int]:
+    """(weights bitsandbytes quantises, output rows of those layers, everything else) in parameters.
+
+    Quantised: the weight matrices of the decoder's nn.Linear layers (not lm_head: transformers keeps
+    the output embedding in 16-bit) and, assumed, mixtral's expert tensors. Kept in 16-bit:
+    embeddings, lm_head, norms, biases, the router.
+    """
+    quant = rows = 0
+    for name, kind, params in module_table(arch):
+        if kind == "linear" and name != "lm_head":
+            fout, fin = params["weight"]
+            quant += fout * fin
+            rows += fout
+        elif kind == "experts":
+            for shape in params.values():
+                quant += math.prod(shape)
+                rows += shape[0] * shape[1]
+    return quant, rows, total_parameters(arch) - quant
+
+
+def _adafactor_state_bytes(shapes: list[tuple[int, ...]]) -> int:
+    # transformers Adafactor (from memory): factored second moment, rows + cols fp32 values per matrix,
+    # a full fp32 tensor for vectors; no first moment with the default beta1=None.
+    total = 0
+    for shape in shapes:
+        if len(shape) >= 2:
+            total += 4 * (math.prod(shape[:-1]) + math.prod(shape[:-2] + shape[-1:]))
+        else:
+            total += 4 * math.prod(shape)
+    return total
+
+
+def _trainable_shapes_full(arch: Architecture) -> list[tuple[int, ...]]:
+    out = []
+    for name, _kind, params in module_table(arch):
+        if name == "lm_head" and arch.tie_word_embeddings:
+            continue
+        out.extend(tuple(s) for s in params.values())
+    return out
+
+
+def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
+    """Peak memory per GPU: model states, activations, logits and a fixed runtime overhead.
+
+    Raises ValueError for settings outside the model (unknown method, storage or sharding, full
+    fine-tuning of quantised weights, non-positive sizes).
+    """
+    _validate(inp)
+    arch = inp.arch
+    notes: list[str] = []
+    n_total = total_parameters(arch)
+    mp = inp.mixed_precision is not None
+    storage = inp.base_storage
+    if inp.method == "qlora" and storage not in _QUANT:
+        notes.append(f"qlora with base_storage {storage}: counted as nf4 (QLoRA paper: NF4 base weights)")
+        storage = "nf4"
+
+    # --- weights of the base model -------------------------------------------------------------
+    if storage in _QUANT:
+        quant, rows, rest = _quantised_rows(arch)
+        bits = quantised_bits_per_param(storage, inp.double_quant)
+        base_bytes = quant * bits / 8 + rest * 2
+        if storage == "int8":
+            base_bytes += rows * 4
+            notes.append("int8 weights: 1 byte/param plus one fp32 scale per output row (LLM.int8(), from memory)")
+        else:
+            dq = "with" if inp.double_quant else "without"
+            notes.append(
+                f"{storage} weights {dq} double quantisation: {bits:.3f} bits/param "
+                "(QLoRA paper sec. 3: 0.5 bit/param block constants, 0.127 with double quantisation)"
+            )
+        notes.append("embeddings, lm_head, norms and biases stay 16-bit under bitsandbytes quantisation")
+        if arch.is_moe:
+            notes.append("mixtral expert tensors counted as quantised (unverified for the transformers 5 fused layout)")
+    else:
+        base_bytes = n_total * _BYTES[storage]
+
+    # --- trainable parameters and their states ---------------------------------------------------
+    copies = 0
+    if inp.method == "full":
+        trainable = n_total
+        if storage == "fp32":
+            g_b, master_b, state_b = 4, 0, 4
+            notes.append("fp32 weights: 4 B weights + 4 B gradients per parameter")
+        elif mp:
+            g_b, master_b, state_b = 2, 4, 4
+            notes.append(
+                "mixed precision: 16-bit weights and gradients, fp32 master copy "
+                "(ZeRO paper sec. 3.1: 2 + 2 + 12 = 16 bytes/param with Adam)"
+            )
+        else:
+            g_b, master_b, state_b = 2, 0, 2
+            notes.append("pure 16-bit training: gradients and optimizer states in the weights' 16-bit dtype")
+        adapter_shapes = _trainable_shapes_full(arch)
+        weights_bytes = base_bytes
+    else:
+        targets = inp.lora_targets
+        try:
+            trainable = lora_trainable_parameters(
+                arch, rank=inp.lora_rank, targets=targets, modules_to_save=list(inp.modules_to_save) or None
+            )
+        except NoDefaultTargets:
+            targets = "all-linear"
+            notes.append("target_modules unset and PEFT has no default for this family: estimated with all-linear")
+            trainable = lora_trainable_parameters(
+                arch, rank=inp.lora_rank, targets=targets, modules_to_save=list(inp.modules_to_save) or None
+            )
+        rows = {r[0]: r for r in module_table(arch)}
+        for name in modules_to_save_matches(arch, list(inp.modules_to_save)):
+            copies += sum(math.prod(s) for k, r in rows.items() if k == name or k.startswith(name + ".") for s in r[2].values())
+        if copies:
+            notes.append(f"modules_to_save: {copies:,} parameters held twice (frozen original + trainable copy, PEFT)")
+        # PEFT get_peft_model(autocast_adapter_dtype=True) upcasts 16-bit adapter weights to fp32;
+        # modules_to_save copies keep the base dtype (observed with PEFT 0.21, tests/reference).
+        adapters = trainable - copies
+        copy_b = 4 if storage == "fp32" else 2
+        notes.append("LoRA adapters in fp32 (PEFT autocast_adapter_dtype): 4 B weights + 4 B gradients per parameter")
+        if copies:
+            notes.append(
+                f"modules_to_save copies train in {'fp32' if copy_b == 4 else '16-bit'}: {copy_b} B weights, "
+                f"{copy_b} B gradients and {copy_b}-byte optimizer states per parameter, no master copy"
+            )
+        adapter_shapes = []
+        for tname in resolve_targets(arch, targets, list(inp.modules_to_save) or None):
+            if tname in rows:
+                fout, fin = rows[tname][2]["weight"]
+                adapter_shapes += [(inp.lora_rank, fin), (fout, inp.lora_rank)]
+        weights_bytes = base_bytes + adapters * 4 + copies * copy_b
+
+    name = (inp.optimizer or "adamw_torch").lower()
+    if inp.method == "full":
+        gradients_bytes = trainable * g_b
+        master_bytes = trainable * master_b
+        if name.startswith("adafactor"):
+            optimizer_bytes = _adafactor_state_bytes(adapter_shapes)
+        else:
+            per_param, note = optimizer_state_bytes_per_param(name, state_bytes=state_b, sgd_momentum=inp.sgd_momentum)
+            optimizer_bytes = trainable * per_param
+            notes.append(note)
+    else:
+        gradients_bytes = adapters * 4 + copies * copy_b
+        master_bytes = 0
+        if name.startswith("adafactor"):
+            optimizer_bytes = _adafactor_state_bytes(adapter_shapes) + 4 * copies  # copies: upper bound
+        else:
+            per_param, note = optimizer_state_bytes_per_param(name, state_bytes=4, sgd_momentum=inp.sgd_momentum)
+            copy_per_param, _ = optimizer_state_bytes_per_param(name, state_bytes=copy_b, sgd_momentum=inp.sgd_momentum)
+            optimizer_bytes = adapters * per_param + copies * copy_per_param
+            notes.append(note)
+    if name.startswith("adafactor"):
+        notes.append("adafactor: factored second moment (rows + columns per matrix, fp32), no first moment (from memory)")
+    if name.startswith("paged_"):
+        notes.append(f"{name}: states can page to CPU memory under pressure; counted as resident on the GPU")
+
+    # --- sharding -------------------------------------------------------------------------------
+    n = inp.num_gpus
+    sharded = _SHARDED[inp.sharding] if n > 1 else ()
+    if inp.sharding != "none" and n == 1:
+        notes.append(f"{inp.sharding} on one GPU partitions nothing")
+    if "optimizer" in sharded:
+        optimizer_bytes /= n
+        master_bytes /= n
+    if "gradients" in sharded:
+        gradients_bytes /= n
+    if "weights" in sharded:
+        weights_bytes /= n
+    if sharded:
+        notes.append(
+            f"{inp.sharding} across {n} GPUs partitions {', '.join(sharded)} (ZeRO paper Fig. 1 formulas)"
+        )
+    if inp.offload_optimizer:
+        optimizer_bytes = 0
+        master_bytes = 0
+        notes.append("optimizer states and fp32 master weights offloaded to CPU memory (DeepSpeed ZeRO-Offload, from memory)")
+
+    # --- activations and logits -----------------------------------------------------------------
+    act_b = 2 if (mp or storage != "fp32") else 4
+    frozen = inp.method != "full"
+    leaves = frozenset()
+    if frozen:
+        try:
+            leaves = frozenset(
+                t.rsplit(".", 1)[-1] for t in resolve_targets(arch, inp.lora_targets, list(inp.modules_to_save) or None)
+            )
+        except NoDefaultTargets:
+            leaves = frozenset(t.rsplit(".", 1)[-1] for t in resolve_targets(arch, "all-linear"))
+    per_layer = layer_activation_bytes(
+        arch,
+        micro_batch=inp.micro_batch,
+        seq_len=inp.seq_len,
+        fused_attention=inp.fused_attention,
+        act_bytes=act_b,
+        frozen=frozen,
+        lora_leaves=leaves,
+        lora_rank=inp.lora_rank,
+        adapter_act_bytes=2 if mp else 4,
+    )
+    sbh = inp.seq_len * inp.micro_batch * arch.hidden_size
+    if inp.gradient_checkpointing:
+        activations = arch.num_layers * full_recompute_layer_bytes(inp.seq_len, inp.micro_batch, arch.hidden_size)
+        activations += per_layer  # one layer recomputed at a time during backward
+        notes.append(
+            "activation checkpointing: 2sbh per layer kept (Korthikanti et al. Table 2) "
+            "plus one layer's activations while it is recomputed"
+        )
+    else:
+        activations = arch.num_layers * per_layer
+        notes.append(
+            f"activations: {per_layer / sbh:.1f} sbh bytes per layer (own derivation for this layer type; "
+            "Korthikanti et al. Eq. 1 gives 34 + 5as/h for GPT layers)"
+        )
+    if not inp.fused_attention:
+        notes.append("eager attention keeps the a*s*s score matrices (fp32 softmax output + 16-bit copy)")
+    activations += (4 + act_b) * sbh  # final norm input (fp32) and lm_head input
+    tokens = inp.seq_len * inp.micro_batch
+    logit_b = 2 if act_b == 2 else 4
+    logits_bytes = tokens * arch.vocab_size * (logit_b + 4 + (4 if logit_b == 2 else 0))
+    if arch.family == "gemma2":  # final_logit_softcapping keeps a tanh output of the logits' size
+        logits_bytes += tokens * arch.vocab_size * logit_b
+        notes.append("gemma2 final logit soft-capping keeps one more b*s*V tensor (own derivation)")
+    notes.append(
+        "logits: b*s*V in the compute dtype, an fp32 copy for the loss and the fp32 log-softmax "
+        "(transformers ForCausalLMLoss upcasts logits; own derivation)"
+        if logit_b == 2
+        else "logits: b*s*V fp32 and the fp32 log-softmax kept by cross_entropy (own derivation)"
+    )
+    notes.append(f"runtime overhead {inp.overhead_bytes / 2**30:.2f} GiB (CUDA context etc.; common practice, no source)")
+
+    parts = [weights_bytes, gradients_bytes, optimizer_bytes, master_bytes, activations, logits_bytes]
+    ints = [int(math.ceil(x)) for x in parts]
+    total = sum(ints) + inp.overhead_bytes
+    return MemoryBreakdown(
+        weights_bytes=ints[0],
+        gradients_bytes=ints[1],
+        optimizer_bytes=ints[2],
+        master_weights_bytes=ints[3],
+        activations_bytes=ints[4],
+        logits_bytes=ints[5],
+        overhead_bytes=inp.overhead_bytes,
+        total_bytes=total,
+        notes=tuple(notes),
+        trainable_parameters=trainable,
+        total_parameters=n_total,
+    )
+
+
+# ---------------------------------------------------------------------------------------------
+# What would make it fit
+# ---------------------------------------------------------------------------------------------
+
+_EIGHT_BIT = {"paged_adamw_32bit": "paged_adamw_8bit", "paged_adam_32bit": "paged_adam_8bit"}
+
+
+def _single_changes(inp: MemoryInputs) -> list[tuple[str, dict]]:
+    """Candidate changes, cheapest first (least effect on the result and speed of the run)."""
+    out: list[tuple[str, dict]] = []
+    if not inp.gradient_checkpointing:
+        out.append(("turn on activation checkpointing (gradient_checkpointing: true)", {"gradient_checkpointing": True}))
+    if inp.micro_batch > 1:
+        half = inp.micro_batch // 2
+        out.append((
+            f"halve the micro-batch {inp.micro_batch} -> {half} and double gradient accumulation "
+            "to keep the effective batch",
+            {"micro_batch": half},
+        ))
+    if inp.micro_batch > 2:
+        out.append((
+            f"reduce the micro-batch {inp.micro_batch} -> 1 and multiply gradient accumulation by "
+            f"{inp.micro_batch} to keep the effective batch",
+            {"micro_batch": 1},
+        ))
+    opt = (inp.optimizer or "adamw_torch").lower()
+    if opt in _ADAM_32:
+        target = _EIGHT_BIT.get(opt, "adamw_8bit")
+        out.append((f"use an 8-bit optimizer (optim: {target})", {"optimizer": target}))
+    if inp.num_gpus > 1 and inp.sharding not in ("zero3", "fsdp_full"):
+        out.append((f"shard weights, gradients and optimizer states across the {inp.num_gpus} GPUs (ZeRO-3 / FSDP full shard)", {"sharding": "zero3"}))
+    if inp.method == "full":
+        out.append((
+            f"train LoRA adapters (r={inp.lora_rank}, all linear layers) instead of all weights",
+            {"method": "lora", "lora_targets": inp.lora_targets or "all-linear"},
+        ))
+    if inp.method != "qlora" and inp.base_storage not in ("nf4", "fp4"):
+        out.append((
+            "load the base in 4-bit NF4 with double quantisation and train adapters (QLoRA)",
+            {"method": "qlora", "base_storage": "nf4", "double_quant": True,
+             "lora_targets": inp.lora_targets or "all-linear"},
+        ))
+    elif inp.base_storage in ("nf4", "fp4") and not inp.double_quant:
+        out.append(("turn on double quantisation (bnb_4bit_use_double_quant: true)", {"double_quant": True}))
+    return out
+
+
+def changes_that_fit(inp: MemoryInputs, capacity_bytes: int) -> list[tuple[str, MemoryInputs, MemoryBreakdown]]:
+    """Changes (single, then combined) after which the estimate fits ``capacity_bytes``, cheapest first.
+
+    Each entry is (description, changed inputs, new estimate). Combinations are tried only when no
+    single change fits, and a combination is left out when one of its parts already fits. Empty
+    when nothing fits.
+    """
+    singles = _single_changes(inp)
+    fits: list[tuple[tuple[int, ...], str, MemoryInputs, MemoryBreakdown]] = []
+
+    def attempt(idx: tuple[int, ...]):
+        changes: dict = {}
+        for i in idx:
+            if set(singles[i][1]) & set(changes):
+                return None  # two changes of the same setting (e.g. two micro-batch sizes)
+            changes.update(singles[i][1])
+        new = replace(inp, **changes)
+        try:
+            est = estimate_memory(new)
+        except ValueError:
+            return None
+        if est.total_bytes <= capacity_bytes:
+            return new, est
+        return None
+
+    for size in range(1, len(singles) + 1):
+        for idx in itertools.combinations(range(len(singles)), size):
+            if any(set(prev).issubset(idx) for prev, *_ in fits):
+                continue
+            got = attempt(idx)
+            if got:
+                label = "; ".join(singles[i][0] for i in idx)
+                fits.append((idx, label, got[0], got[1]))
+        if fits:
+            break
+    fits.sort(key=lambda f: (len(f[0]), f[0]))
+    return [(label, new, est) for _idx, label, new, est in fits]

@@ -1,0 +1,420 @@
+"""Model shapes, parameter counts, name parsing and offline resolution (no torch needed)."""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import replace
+from pathlib import Path
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from cfgcheck.knowledge.models import (
+    PEFT_DEFAULT_TARGETS,
+    Architecture,
+    NoDefaultTargets,
+    UnsupportedFamily,
+    architecture_from_config,
+    catalogue,
+    linear_modules,
+    lora_scale,
+    lora_trainable_parameters,
+    resolve_model,
+    resolve_targets,
+    size_from_name,
+    target_leaf_names,
+    total_parameters,
+    trainable_fraction,
+    unsupported_target_matches,
+)
+
+CAT = catalogue()
+
+
+def arch(family="llama", h=64, inter=96, layers=2, heads=4, kv=2, vocab=100, tied=False, **kw):
+    return Architecture(
+        family=family, hidden_size=h, intermediate_size=inter, num_layers=layers, num_heads=heads,
+        num_kv_heads=kv, head_dim=kw.pop("head_dim", h // heads), vocab_size=vocab, max_position_embeddings=128,
+        tie_word_embeddings=tied, torch_dtype="bfloat16", **kw,
+    )
+
+
+# ---------------------------------------------------------------------------------------------
+# Parameter totals
+# ---------------------------------------------------------------------------------------------
+
+# Published totals, model.num_parameters() (shared REFERENCES sec. 13, [V2] values, formula [C]).
+PUBLISHED_TOTALS = [
+    ("meta-llama/Llama-2-7b-hf", 6_738_415_616),  # REFERENCES sec. 13 [V2]
+    ("mistralai/Mistral-7B-v0.1", 7_241_732_096),  # REFERENCES sec. 13 [V2], GGUF parameter_count
+    ("TinyLlama/TinyLlama-1.1B-Chat-v1.0", 1_100_048_384),  # REFERENCES sec. 13 [C]+[V2]
+    ("meta-llama/Meta-Llama-3-8B", 8_030_261_248),  # REFERENCES sec. 13 [V2]
+    ("Qwen/Qwen2.5-0.5B", 494_032_768),  # REFERENCES sec. 13 [V2]
+    ("Qwen/Qwen2.5-1.5B", 1_543_714_304),  # REFERENCES sec. 13 [V2]
+    ("Qwen/Qwen2.5-7B", 7_615_616_512),  # REFERENCES sec. 13 [V2]
+    ("meta-llama/Llama-2-13b-hf", 13_015_864_320),  # REFERENCES sec. 13 [V2], num_parameters()
+    ("meta-llama/Llama-3.1-8B", 8_030_261_248),  # REFERENCES sec. 13 [V2], same total as Llama-3-8B (HF API)
+]
+
+# Totals we remember but have not verified (from memory).
+REMEMBERED_TOTALS = [
+    ("mistralai/Mixtral-8x7B-v0.1", 46_702_792_704),  # from memory
+    ("google/gemma-7b", 8_537_680_896),  # from memory
+    ("google/gemma-2b", 2_506_172_416),  # from memory
+    ("microsoft/Phi-3-mini-4k-instruct", 3_821_079_552),  # from memory
+    ("meta-llama/Llama-3.2-1B", 1_235_814_400),  # from memory
+    ("HuggingFaceTB/SmolLM2-1.7B", 1_711_376_384),  # from memory
+]
+
+
+@pytest.mark.parametrize("ref,expected", PUBLISHED_TOTALS, ids=[r for r, _ in PUBLISHED_TOTALS])
+def test_published_totals_exact(ref, expected):
+    assert total_parameters(CAT[ref]) == expected
+
+
+@pytest.mark.parametrize("ref,expected", REMEMBERED_TOTALS, ids=[r for r, _ in REMEMBERED_TOTALS])
+def test_remembered_totals(ref, expected):
+    assert total_parameters(CAT[ref]) == expected
+
+
+def test_sec13_table_rows_reproduce_totals_from_shapes_alone():
+    # REFERENCES sec. 13 table: V, h, I, L, heads, KV, tied -> total (built here, not from the catalogue)
+    rows = [
+        ("llama", 32000, 4096, 11008, 32, 32, 32, False, 6_738_415_616),
+        ("mistral", 32000, 4096, 14336, 32, 32, 8, False, 7_241_732_096),
+        ("llama", 32000, 2048, 5632, 22, 32, 4, False, 1_100_048_384),
+        ("llama", 128256, 4096, 14336, 32, 32, 8, False, 8_030_261_248),
+        ("qwen2", 151936, 896, 4864, 24, 14, 2, True, 494_032_768),
+        ("qwen2", 151936, 1536, 8960, 28, 12, 2, True, 1_543_714_304),
+        ("qwen2", 152064, 3584, 18944, 28, 28, 4, False, 7_615_616_512),
+    ]
+    for fam, V, h, inter, L, H, KV, tied, expected in rows:
+        a = arch(fam, h=h, inter=inter, layers=L, heads=H, kv=KV, vocab=V, tied=tied)
+        assert total_parameters(a) == expected, (fam, h)
+
+
+def test_llama3_table3_shapes_in_catalogue():
+    # Llama Team 2024, Table 3: 8B has 32 layers, dim 4096, FFN 14,336, 32 heads, 8 KV heads
+    a = CAT["meta-llama/Meta-Llama-3-8B"]
+    assert (a.num_layers, a.hidden_size, a.intermediate_size, a.num_heads, a.num_kv_heads) == (32, 4096, 14336, 32, 8)
+
+
+def test_gemma_embedding_is_tied_and_head_dim_256():
+    # gemma-7b: head_dim 256 with 16 heads, so q_proj is 3072 -> 4096, not square (from memory)
+    a = CAT["google/gemma-7b"]
+    assert a.tie_word_embeddings and a.head_dim == 256
+    assert linear_modules(a)["q_proj"] == (3072, 4096)
+    # tied: lm_head shares the embedding, counted once
+    assert total_parameters(a) == total_parameters(replace(a, tie_word_embeddings=False)) - a.vocab_size * a.hidden_size
+
+
+def test_phi3_fused_projections():
+    # Phi-3: qkv_proj out = (heads + 2 kv) * head_dim, gate_up_proj out = 2 * intermediate (transformers Phi3 layout)
+    mods = linear_modules(CAT["microsoft/Phi-3-mini-4k-instruct"])
+    assert mods == {"o_proj": (3072, 3072), "qkv_proj": (3072, 9216), "gate_up_proj": (3072, 16384), "down_proj": (8192, 3072)}
+
+
+def test_unsupported_family_raises_clearly():
+    with pytest.raises(UnsupportedFamily, match="gpt2"):
+        total_parameters(replace(arch(), family="gpt2"))
+
+
+@settings(max_examples=60, deadline=None, derandomize=True)
+@given(
+    fam=st.sampled_from(["llama", "mistral", "qwen2"]),
+    heads=st.sampled_from([1, 2, 4, 8]),
+    kv_div=st.sampled_from([1, 2, 4]),
+    d=st.integers(1, 16),
+    inter=st.integers(1, 300),
+    layers=st.integers(1, 6),
+    vocab=st.integers(1, 5000),
+    tied=st.booleans(),
+)
+def test_total_matches_sec13_closed_formula(fam, heads, kv_div, d, inter, layers, vocab, tied):
+    # REFERENCES sec. 13 [C] parameter formula for Llama, Mistral and Qwen2-style models
+    kv = max(heads // kv_div, 1)
+    h = heads * d
+    a = arch(fam, h=h, inter=inter, layers=layers, heads=heads, kv=kv, vocab=vocab, tied=tied)
+    bias = (heads * d + 2 * kv * d) if fam == "qwen2" else 0
+    per_layer = h * (heads * d) + 2 * h * (kv * d) + (heads * d) * h + bias + 3 * h * inter + 2 * h
+    expected = vocab * h * (1 if tied else 2) + layers * per_layer + h
+    assert total_parameters(a) == expected
+
+
+# ---------------------------------------------------------------------------------------------
+# LoRA counts, targets and scale
+# ---------------------------------------------------------------------------------------------
+
+
+def test_lora_paper_count_for_square_q_v():
+    # LoRA paper sec. 5.1: |Theta| = 2 * L_lora * d_model * r for d_model x d_model matrices
+    a = CAT["meta-llama/Llama-2-7b-hf"]
+    n = lora_trainable_parameters(a, rank=8, targets=["q_proj", "v_proj"])
+    assert n == 2 * (32 * 2) * 4096 * 8 == 4_194_304
+    # PEFT's "all params" adds the adapters to num_parameters() (PEFT get_nb_trainable_parameters)
+    assert trainable_fraction(a, rank=8, targets=["q_proj", "v_proj"]) == pytest.approx(4_194_304 / 6_742_609_920)
+
+
+def test_default_targets_are_peft_q_v():
+    # PEFT TRANSFORMERS_MODELS_TO_LORA_TARGET_MODULES_MAPPING: llama, mistral, qwen2 -> q_proj, v_proj (REFERENCES sec. 5)
+    for fam in ("llama", "mistral", "qwen2"):
+        assert PEFT_DEFAULT_TARGETS[fam] == ("q_proj", "v_proj")
+        assert target_leaf_names(arch(fam), None) == ["q_proj", "v_proj"]
+
+
+def test_phi3_has_no_peft_default():
+    # PEFT mapping has "phi" but not "phi3": get_peft_model raises without target_modules
+    with pytest.raises(NoDefaultTargets):
+        resolve_targets(arch("phi3"), None)
+
+
+def test_all_linear_excludes_output_head():
+    # PEFT docs: all linear modules, "the output layer excluded"
+    names = resolve_targets(arch("llama", layers=1), "ALL-LINEAR")  # PEFT lower-cases the shorthand
+    assert "lm_head" not in names
+    assert [n.rsplit(".", 1)[-1] for n in names] == ["q_proj", "k_proj", "v_proj", "o_proj", "gate_proj", "up_proj", "down_proj"]
+
+
+def test_string_target_is_a_fullmatch_regex():
+    # PEFT: a string target_modules is matched with re.fullmatch on the full module name
+    a = arch(layers=3)
+    assert resolve_targets(a, "q_proj") == []
+    assert resolve_targets(a, r".*\.1\.self_attn\.q_proj") == ["model.layers.1.self_attn.q_proj"]
+
+
+def test_list_target_is_suffix_match_and_unsupported_matches_are_reported():
+    # PEFT: list entries match the full name or a ".suffix"; a norm cannot take LoRA ("not supported")
+    a = arch(layers=1)
+    assert resolve_targets(a, ["self_attn.q_proj"]) == ["model.layers.0.self_attn.q_proj"]
+    assert unsupported_target_matches(a, ["input_layernorm"]) == ["model.layers.0.input_layernorm"]
+
+
+def test_modules_to_save_copy_counts_full_module():
+    # PEFT ModulesToSaveWrapper trains a deep copy: lm_head adds V*h; a tied lm_head's copy is untied
+    a = arch(tied=True)
+    base = lora_trainable_parameters(a, rank=4, targets=["q_proj"])
+    with_head = lora_trainable_parameters(a, rank=4, targets=["q_proj"], modules_to_save=["lm_head"])
+    assert with_head - base == a.vocab_size * a.hidden_size
+
+
+def test_qwen2_attention_projections_have_bias_but_lora_ignores_it_by_default():
+    # Qwen2Attention: q/k/v bias=True; PEFT LoraConfig bias="none" by default
+    a = arch("qwen2", layers=1)
+    assert lora_trainable_parameters(a, rank=2, targets=["q_proj"]) == 2 * (64 + 64)
+    assert lora_trainable_parameters(a, rank=2, targets=["q_proj"], bias="lora_only") == 2 * (64 + 64) + 64
+
+
+def test_mixtral_v4_expert_names_and_fused_rank():
+    # PEFT transformers_weight_conversion: w1+w3 -> gate_up_proj with doubled rank; w1 alone is an error
+    a = CAT["mistralai/Mixtral-8x7B-v0.1"]
+    E, h, inter = 8, 4096, 14336
+    n = lora_trainable_parameters(a, rank=8, targets=["w1", "w3"])
+    assert n == 32 * (2 * 8) * E * (h + 2 * inter)
+    with pytest.raises(ValueError, match="w3"):
+        lora_trainable_parameters(a, rank=8, targets=["w1"])
+
+
+def test_rank_must_be_positive():
+    # PEFT update_layer: "`r` should be a positive integer value"
+    with pytest.raises(ValueError, match="positive integer"):
+        lora_trainable_parameters(arch(), rank=0, targets=["q_proj"])
+
+
+@pytest.mark.parametrize(
+    "alpha,rank,rslora,expected",
+    [
+        (16, 64, False, 0.25),  # REFERENCES sec. 2 [C]: r=64, alpha=16 -> LoRA 0.25
+        (16, 64, True, 2.0),  # REFERENCES sec. 2 [C]: rsLoRA 2.0
+        (8, 8, False, 1.0),  # PEFT default r=8, lora_alpha=8 -> scaling 1.0 (REFERENCES sec. 5)
+        (8, 8, True, 8 / math.sqrt(8)),  # REFERENCES sec. 2 [C]: about 2.83
+    ],
+)
+def test_lora_scale(alpha, rank, rslora, expected):
+    assert lora_scale(alpha, rank, rslora) == pytest.approx(expected)
+
+
+# ---------------------------------------------------------------------------------------------
+# Names
+# ---------------------------------------------------------------------------------------------
+
+# Expected sizes are what the names say (common practice, no source); None where the name does not say.
+SIZE_CASES = [
+    ("meta-llama/Llama-2-7b-hf", 7.0),
+    ("TinyLlama-1.1B-Chat", 1.1),
+    ("TinyLlama/TinyLlama-1.1B-Chat-v1.0", 1.1),
+    ("HuggingFaceTB/SmolLM-360M", 0.36),
+    ("Qwen2.5-0.5B", 0.5),
+    ("Qwen/Qwen2.5-7B-Instruct", 7.0),
+    ("meta-llama/Llama-3.1-8B", 8.0),
+    ("meta-llama/Meta-Llama-3-70B-Instruct", 70.0),
+    ("mistralai/Mistral-7B-v0.1", 7.0),
+    ("google/gemma-2-9b-it", 9.0),
+    ("Qwen/Qwen3-30B-A3B", 30.0),
+    ("Qwen/Qwen1.5-MoE-A2.7B", None),
+    ("mistralai/Mixtral-8x7B-v0.1", None),
+    ("microsoft/Phi-3-mini-4k-instruct", None),
+    ("microsoft/Phi-3-mini-128k-instruct", None),
+    ("gpt2", None),
+    ("mistralai/Mistral-Nemo-Instruct-2407", None),
+    ("/data/ckpt/Llama-2-13b-hf/checkpoint-500", 13.0),
+    ("bigscience/bloom-560m", 0.56),
+    ("Qwen/Qwen2.5-7B-Instruct-1M", 7.0),
+    ("EleutherAI/pythia-1.4b-deduped", 1.4),
+    ("allenai/OLMo-7B-0724-hf", 7.0),
+    ("llama_2_7b", None),
+    ("model-7B-distilled-from-70B", None),
+    ("", None),
+]
+
+
+@pytest.mark.parametrize("ref,expected", SIZE_CASES, ids=[c[0] or "empty" for c in SIZE_CASES])
+def test_size_from_name(ref, expected):
+    got = size_from_name(ref)
+    if expected is None:
+        assert got is None
+    else:
+        assert got == pytest.approx(expected)
+
+
+# ---------------------------------------------------------------------------------------------
+# Resolution
+# ---------------------------------------------------------------------------------------------
+
+# A copy of TinyLlama-1.1B-Chat-v1.0's config.json fields (REFERENCES sec. 13 [V2]).
+TINYLLAMA_CONFIG = {
+    "architectures": ["LlamaForCausalLM"], "model_type": "llama", "hidden_size": 2048,
+    "intermediate_size": 5632, "num_hidden_layers": 22, "num_attention_heads": 32,
+    "num_key_value_heads": 4, "vocab_size": 32000, "max_position_embeddings": 2048,
+    "tie_word_embeddings": False, "torch_dtype": "bfloat16", "rms_norm_eps": 1e-05, "rope_theta": 10000.0,
+}
+
+
+def write_model(folder: Path, data) -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "config.json").write_text(data if isinstance(data, str) else json.dumps(data), encoding="utf-8")
+    return folder
+
+
+def test_local_folder_relative_to_cwd_first(tmp_path):
+    cwd, cfg_dir = tmp_path / "work", tmp_path / "configs"
+    write_model(cwd / "models" / "tiny", TINYLLAMA_CONFIG)
+    write_model(cfg_dir / "models" / "tiny", {**TINYLLAMA_CONFIG, "num_hidden_layers": 2})
+    a = resolve_model("models/tiny", cwd=cwd, config_dir=cfg_dir, hub_cache=tmp_path / "nohub")
+    assert a is not None and a.num_layers == 22 and str(cwd) in a.source
+    assert total_parameters(a) == 1_100_048_384  # REFERENCES sec. 13
+
+
+def test_local_folder_relative_to_config_dir(tmp_path):
+    cfg_dir = tmp_path / "configs"
+    write_model(cfg_dir / "base", TINYLLAMA_CONFIG)
+    a = resolve_model("./base", cwd=tmp_path / "elsewhere", config_dir=cfg_dir, hub_cache=tmp_path / "nohub")
+    assert a is not None and a.head_dim == 64 and a.source.startswith("config.json at")
+
+
+def test_garbage_config_gives_none(tmp_path):
+    garbage = ["{not json", "[1, 2]", json.dumps({"model_type": "llama"}), "\xff\xfe", "[" * 100_000 + "]" * 100_000]
+    for i, text in enumerate(garbage):
+        write_model(tmp_path / f"m{i}", text)
+        assert resolve_model(str(tmp_path / f"m{i}")) is None
+    (tmp_path / "bin").mkdir()
+    (tmp_path / "bin" / "config.json").write_bytes(b"\xff\xfe\x00garbage")
+    assert resolve_model(str(tmp_path / "bin")) is None
+
+
+def test_hub_cache_layout(tmp_path):
+    hub = tmp_path / "hub"
+    repo = hub / "models--fjordline--support-7b"
+    write_model(repo / "snapshots" / "abc123", {**TINYLLAMA_CONFIG, "num_hidden_layers": 3})
+    write_model(repo / "snapshots" / "def456", {**TINYLLAMA_CONFIG, "num_hidden_layers": 5})
+    (repo / "refs").mkdir()
+    (repo / "refs" / "main").write_text("abc123\n")
+    a = resolve_model("fjordline/support-7b", cwd=tmp_path, hub_cache=hub)
+    assert a is not None and a.num_layers == 3 and "abc123" in a.source
+
+
+def test_hub_cache_from_environment(tmp_path, monkeypatch):
+    hub = tmp_path / "envhub"
+    write_model(hub / "models--fjordline--faq-bot" / "snapshots" / "r1", TINYLLAMA_CONFIG)
+    monkeypatch.setenv("HF_HUB_CACHE", str(hub))
+    a = resolve_model("fjordline/faq-bot", cwd=tmp_path)
+    assert a is not None and a.num_kv_heads == 4
+
+
+def test_catalogue_lookup_case_insensitive_and_without_org(tmp_path):
+    empty = tmp_path / "hub"
+    a = resolve_model("META-LLAMA/llama-2-7b-HF", cwd=tmp_path, hub_cache=empty)
+    b = resolve_model("Llama-2-7b-hf", cwd=tmp_path, hub_cache=empty)
+    c = resolve_model("some-mirror/Qwen2.5-0.5B-Instruct", cwd=tmp_path, hub_cache=empty)
+    assert a == b == CAT["meta-llama/Llama-2-7b-hf"]
+    assert c is not None and c.family == "qwen2" and c.source.startswith("bundled catalogue:")
+    assert resolve_model("fjordline/unknown-model", cwd=tmp_path, hub_cache=empty) is None
+    assert resolve_model(None) is None
+    assert resolve_model("   ") is None
+
+
+def test_every_catalogue_entry_cites_a_source():
+    for ref, a in CAT.items():
+        assert a.source.startswith("bundled catalogue: ") and len(a.source) > len("bundled catalogue: "), ref
+        assert a.family in {"llama", "mistral", "qwen2", "qwen3", "gemma", "gemma2", "phi3", "mixtral"}
+        assert a.num_heads % a.num_kv_heads == 0
+
+
+def test_config_defaults_and_text_config_nesting():
+    # transformers config classes: head_dim = hidden // heads when absent (LlamaConfig), GemmaConfig
+    # head_dim 256 and tie_word_embeddings True, num_key_value_heads defaults to the head count
+    base = {"model_type": "llama", "hidden_size": 512, "intermediate_size": 1024, "num_hidden_layers": 2,
+            "num_attention_heads": 8, "vocab_size": 1000}
+    a = architecture_from_config(base, "test")
+    assert (a.head_dim, a.num_kv_heads, a.tie_word_embeddings) == (64, 8, False)
+    g = architecture_from_config({**base, "model_type": "gemma"}, "test")
+    assert (g.head_dim, g.tie_word_embeddings) == (256, True)
+    nested = architecture_from_config({"model_type": "llava", "text_config": base, "dtype": "bfloat16"}, "test")
+    assert nested is not None and nested.family == "llama" and nested.torch_dtype == "bfloat16"
+    assert architecture_from_config({**base, "num_key_value_heads": 3}, "test") is None  # 8 heads not divisible
+    assert architecture_from_config({**base, "hidden_size": "512"}, "test") is None
+
+
+def test_adapter_folder_resolves_to_its_base(tmp_path):
+    # PEFT adapter folders carry adapter_config.json with base_model_name_or_path (PEFT PeftConfig)
+    run = tmp_path / "runs" / "faq-adapter"
+    run.mkdir(parents=True)
+    (run / "adapter_config.json").write_text(json.dumps({"peft_type": "LORA", "base_model_name_or_path": "Qwen/Qwen2.5-0.5B"}))
+    a = resolve_model("runs/faq-adapter", cwd=tmp_path, hub_cache=tmp_path / "nohub")
+    assert a is not None and total_parameters(a) == 494_032_768  # REFERENCES sec. 13
+    assert "base of the adapter" in a.source
+    # a local folder without any config is not looked up anywhere else
+    (tmp_path / "Llama-2-7b-hf").mkdir()
+    assert resolve_model("Llama-2-7b-hf", cwd=tmp_path, hub_cache=tmp_path / "nohub") is None
+
+
+def test_hub_cache_snapshot_files_are_symlinks_to_blobs(tmp_path):
+    # huggingface_hub cache layout: snapshots/<rev>/config.json links to ../../blobs/<hash>
+    repo = tmp_path / "hub" / "models--fjordline--ticket-router"
+    (repo / "blobs").mkdir(parents=True)
+    (repo / "blobs" / "0a1b2c").write_text(json.dumps(TINYLLAMA_CONFIG))
+    snap = repo / "snapshots" / "r9"
+    snap.mkdir(parents=True)
+    (snap / "config.json").symlink_to(Path("../../blobs/0a1b2c"))
+    a = resolve_model("fjordline/ticket-router", cwd=tmp_path, hub_cache=tmp_path / "hub")
+    assert a is not None and a.vocab_size == 32000
+
+
+_json_values = st.recursive(
+    st.none() | st.booleans() | st.integers(-10, 10**6) | st.floats(allow_nan=False) | st.text(max_size=8),
+    lambda children: st.lists(children, max_size=3) | st.dictionaries(st.text(max_size=8), children, max_size=3),
+    max_leaves=8,
+)
+_config_keys = st.sampled_from([
+    "model_type", "hidden_size", "intermediate_size", "num_hidden_layers", "num_attention_heads",
+    "num_key_value_heads", "head_dim", "vocab_size", "max_position_embeddings", "tie_word_embeddings",
+    "torch_dtype", "dtype", "num_local_experts", "num_experts_per_tok", "text_config", "attention_bias",
+])
+
+
+@settings(max_examples=100, deadline=None, derandomize=True)
+@given(st.dictionaries(_config_keys, _json_values | st.sampled_from(["llama", "qwen2", "mixtral", 0, 8, 64])))
+def test_architecture_from_config_never_raises(data):
+    a = architecture_from_config(data, "property test")
+    assert a is None or (a.hidden_size > 0 and a.num_heads % a.num_kv_heads == 0)
