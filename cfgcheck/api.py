@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable
 
@@ -59,3 +60,33 @@ def exit_code(report: Report, fail_on: Severity = Severity.WARNING) -> int:
 
 def visible(findings: Iterable[Finding], show: Severity) -> list[Finding]:
     return [f for f in findings if f.severity >= show]
+
+
+@dataclass
+class PlanResult:
+    plans: list = field(default_factory=list)  # (file, Plan)
+    problems: list = field(default_factory=list)
+
+
+def plan(paths: Iterable[str | Path], **options: Any) -> PlanResult:
+    """The derived run of each training config (skipped files are left out)."""
+    from .load import LoadError, load_path
+    from .findings import InputProblem
+    from .plan import derive_plan, model_of
+    from .view import build_view
+
+    opts = make_options(**options)
+    out = PlanResult()
+    for file in engine.expand_paths(paths):
+        try:
+            _src, docs = load_path(file)
+        except LoadError as exc:
+            out.problems.append(InputProblem(file=file, line=exc.line, column=exc.column, reason=exc.reason))
+            continue
+        for doc in docs:
+            view = build_view(doc)
+            if view.skipped:
+                continue
+            arch = model_of(view, file, opts.cwd)
+            out.plans.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=opts.gpus, rows=opts.rows)))
+    return out

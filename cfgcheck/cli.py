@@ -79,6 +79,38 @@ def lint(
     raise typer.Exit(api.exit_code(report))
 
 
+@app.command()
+def plan(
+    paths: List[Path] = typer.Argument(..., help="Config files or folders."),
+    gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use (see: cfgcheck gpus)."),
+    gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
+    rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows."),
+    fmt: Format = typer.Option(Format.text, "--format", help="Output format."),
+) -> None:
+    """Show the derived run: parameters, batch, steps and the memory estimate per GPU."""
+    import json as _json
+
+    from . import api
+    from .knowledge.hardware import UnknownGpu
+
+    try:
+        result = api.plan(paths, gpu=gpu, gpus=gpus, rows=rows)
+    except UnknownGpu as exc:
+        typer.echo(f"cfgcheck: {exc}", err=True)
+        raise typer.Exit(api.EXIT_INPUT)
+    if fmt is Format.json:
+        sys.stdout.write(_json.dumps({"plans": [dict(p.as_dict(), file=f) for f, p in result.plans],
+                                      "input_errors": [e.as_dict() for e in result.problems]},
+                                     indent=2) + "\n")
+    else:
+        from .render.plan import render_plan
+
+        for e in result.problems:
+            sys.stdout.write(f"{e.file}:{e.line}:{e.column}: input error: {e.reason}\n")
+        sys.stdout.write("\n".join(render_plan(f, p) for f, p in result.plans))
+    raise typer.Exit(api.EXIT_INPUT if result.problems else api.EXIT_CLEAN)
+
+
 @app.command("rules")
 def list_rules() -> None:
     """List every rule in the catalogue with its default severity."""

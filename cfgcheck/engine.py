@@ -110,25 +110,11 @@ class Context:
             return f.value * (machines if isinstance(machines, int) and machines > 0 else 1), f
         return None, None
 
-    @property
-    def config_dir(self) -> Path | None:
-        p = Path(self.file)
-        return p.parent if p.name else None
-
     def model(self):
         """The base model's architecture when it can be known offline, else None."""
-        cache = self.view.cache
-        if "model" in cache:
-            return cache["model"]
-        from .knowledge.models import resolve_model  # only rules that need a model pay for it
+        from .plan import model_of  # only rules that need a model pay for it
 
-        ref = self.view.value("model.ref")
-        arch = None
-        if isinstance(ref, str) and ref.strip():
-            arch = resolve_model(ref.strip(), config_dir=self.config_dir,
-                                 cwd=self.options.cwd or Path(os.getcwd()))
-        cache["model"] = arch
-        return arch
+        return model_of(self.view, self.file, self.options.cwd)
 
     # reporting --------------------------------------------------------------
     def report(self, at: Field | tuple | None = None, variant: str = "default", *,

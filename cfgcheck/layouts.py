@@ -89,6 +89,7 @@ FIELD_TYPES: dict[str, str] = {
     "runtime.use_cache": "bool",
     "runtime.deepspeed": "any",
     "runtime.zero_stage": "int",
+    "runtime.fsdp": "any",
     "hardware.num_gpus": "int",
     "hardware.num_machines": "int",
 }
@@ -182,6 +183,7 @@ TRAINER = Layout(
         "runtime.gradient_checkpointing": ("gradient_checkpointing",),
         "runtime.use_cache": ("use_cache",),
         "runtime.deepspeed": ("deepspeed",),
+        "runtime.fsdp": ("fsdp",),
         "hardware.num_gpus": ("num_gpus", "world_size", "nproc_per_node"),
         "hardware.num_machines": ("num_nodes", "nnodes"),
     },

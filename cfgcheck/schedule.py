@@ -57,7 +57,8 @@ def derive(values: dict, *, gpus: int | None, rows: int | None, use_trainer_defa
     def get(name):
         v = values.get(name)
         if v is None and use_trainer_defaults and name in TRAINER_DEFAULTS:
-            used.append(name)
+            if name != "optim.max_steps":  # -1 = "no override", not an assumption worth stating
+                used.append(name)
             return TRAINER_DEFAULTS[name]
         return v
 

@@ -8,9 +8,7 @@ from ..findings import Edit, Fix
 from . import check
 
 
-def adapter_scale(alpha: float, rank: int, rslora: bool) -> float:
-    """LoRA scales the update by alpha/r; rank-stabilised LoRA by alpha/sqrt(r)."""
-    return alpha / math.sqrt(rank) if rslora else alpha / rank
+from ..knowledge.models import lora_scale as adapter_scale  # alpha/r, or alpha/sqrt(r) under rsLoRA
 
 
 def target_alpha(rank: int, rslora: bool, target_scale: float) -> int:

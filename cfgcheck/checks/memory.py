@@ -1,0 +1,55 @@
+"""Does the run fit the GPU's memory? The estimate comes from cfgcheck.plan (weights, gradients,
+optimizer states, master weights, activations, logits, overhead; sharded across GPUs)."""
+
+from __future__ import annotations
+
+from ..plan import derive_plan, fitting_changes
+from . import check
+
+GB = 1e9
+
+
+def _gb(n: int) -> str:
+    return f"{n / GB:.1f} GB"
+
+
+@check("memory-exceeds-gpu")
+def memory_exceeds_gpu(ctx) -> None:
+    view = ctx.view
+    if view.method not in ("full", "lora", "qlora"):
+        return
+    gpus, _ = ctx.num_gpus
+    plan = derive_plan(view, ctx.model(), gpu=ctx.gpu, gpus=gpus, rows=ctx.options.rows)
+    if plan.memory is None:
+        ctx.cannot_judge(plan.memory_problem or "no estimate")
+        return
+    if ctx.gpu is None:
+        ctx.cannot_judge(f"no GPU named (--gpu NAME); the estimate is {_gb(plan.memory.total_bytes)} per GPU")
+        return
+    total, capacity = plan.memory.total_bytes, ctx.gpu.memory_bytes
+    share = total / capacity
+    if share <= ctx.thresholds["warn_fraction"]:
+        return
+    parts = ", ".join(f"{name} {_gb(b)}" for name, b in plan.memory.components() if b)
+    changes = fitting_changes(plan) if share > 1 else []
+    if changes:
+        fixes = "; ".join(f"({i}) " + " + ".join(label.split("; ")) + f" -> {_gb(est.total_bytes)}"
+                          for i, (label, est) in enumerate(changes[:4], 1))
+    elif share > 1:
+        fixes = "none of the single or combined changes cfgcheck knows fits this card; use more GPUs or a larger card"
+    else:
+        fixes = ""
+    at = view.get("batch.per_device") or view.get("model.ref")
+    ctx.report(
+        at,
+        "too-big" if share > 1 else "tight",
+        total=_gb(total),
+        capacity=_gb(capacity),
+        gpu=ctx.gpu.label,
+        percent=round(share * 100),
+        breakdown=parts,
+        changes=fixes,
+        gpus=plan.memory_inputs.num_gpus,
+        total_bytes=total,
+        capacity_bytes=capacity,
+    )

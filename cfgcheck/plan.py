@@ -1,0 +1,247 @@
+"""The derived run: parameters, adapter scale, batch and steps, and the memory estimate per GPU.
+
+One function, ``derive_plan``, turns a typed view (plus the command-line knowledge: GPU, GPU
+count, rows) into numbers. The memory rule and ``cfgcheck plan`` both use it, so what the rule
+says and what the plan shows cannot drift apart.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .knowledge.hardware import Gpu
+from .knowledge.memory import MemoryBreakdown, MemoryInputs, changes_that_fit, estimate_memory
+from .knowledge.models import Architecture, UnsupportedFamily, lora_scale, resolve_model, total_parameters
+from .schedule import Schedule, derive, resolve_interval
+from .view import RunView
+
+DEFAULT_SEQ_LEN = 2048  # assumed when the config sets none (common practice, no source)
+
+_DTYPES = {"bfloat16": "bf16", "bf16": "bf16", "float16": "fp16", "fp16": "fp16", "half": "fp16",
+           "float32": "fp32", "fp32": "fp32", "float": "fp32"}
+
+
+@dataclass
+class Plan:
+    method: str | None
+    method_stated: bool
+    model_ref: str | None
+    arch: Architecture | None
+    total_parameters: int | None = None
+    trainable_parameters: int | None = None
+    adapter_scale: float | None = None
+    effective_lr: float | None = None
+    learning_rate: float | None = None
+    schedule: Schedule | None = None
+    tokens_per_step: int | None = None
+    seq_len: int | None = None
+    seq_len_assumed: bool = False
+    warmup_steps: int | None = None
+    cadence: dict[str, int | None] = field(default_factory=dict)
+    memory_inputs: MemoryInputs | None = None
+    memory: MemoryBreakdown | None = None
+    memory_problem: str | None = None  # why there is no estimate
+    gpu: Gpu | None = None
+    assumptions: list[str] = field(default_factory=list)
+
+    @property
+    def rslora_alpha(self) -> int | None:
+        """alpha ~ sqrt(hidden_size) under rank-stabilised scaling (a rule of thumb, no source)."""
+        return math.isqrt(self.arch.hidden_size) if self.arch is not None else None
+
+    @property
+    def capacity_bytes(self) -> int | None:
+        return self.gpu.memory_bytes if self.gpu else None
+
+    def as_dict(self) -> dict[str, Any]:
+        s = self.schedule
+        mem = None
+        if self.memory is not None:
+            m = self.memory
+            mem = {"weights_bytes": m.weights_bytes, "gradients_bytes": m.gradients_bytes,
+                   "optimizer_bytes": m.optimizer_bytes, "master_weights_bytes": m.master_weights_bytes,
+                   "activations_bytes": m.activations_bytes, "logits_bytes": m.logits_bytes,
+                   "overhead_bytes": m.overhead_bytes, "total_bytes": m.total_bytes,
+                   "capacity_bytes": self.capacity_bytes, "notes": list(m.notes)}
+        return {
+            "method": self.method,
+            "model": self.model_ref,
+            "model_source": self.arch.source if self.arch else None,
+            "total_parameters": self.total_parameters,
+            "trainable_parameters": self.trainable_parameters,
+            "trainable_fraction": (self.trainable_parameters / self.total_parameters
+                                   if self.trainable_parameters and self.total_parameters else None),
+            "adapter_scale": self.adapter_scale,
+            "rslora_alpha_suggestion": self.rslora_alpha,
+            "learning_rate": self.learning_rate,
+            "effective_adapter_learning_rate": self.effective_lr,
+            "effective_batch_size": s.effective_batch if s else None,
+            "tokens_per_step": self.tokens_per_step,
+            "sequence_length": self.seq_len,
+            "steps_per_epoch": s.steps_per_epoch if s else None,
+            "total_steps": s.total_steps if s else None,
+            "warmup_steps": self.warmup_steps,
+            "eval_every_steps": self.cadence.get("eval"),
+            "save_every_steps": self.cadence.get("save"),
+            "logging_every_steps": self.cadence.get("logging"),
+            "gpu": self.gpu.name if self.gpu else None,
+            "memory": mem,
+            "memory_problem": self.memory_problem,
+            "assumptions": list(self.assumptions),
+        }
+
+
+def _storage(view: RunView, arch: Architecture | None, method: str, plan: Plan) -> str:
+    if method == "qlora" or view.is_on("quant.load_4bit"):
+        qtype = view.value("quant.type_4bit")
+        if qtype is None:
+            plan.assumptions.append("bnb_4bit_quant_type not set: bitsandbytes' default fp4")
+        return "nf4" if str(qtype or "fp4").lower() == "nf4" else "fp4"
+    if view.is_on("quant.load_8bit"):
+        return "int8"
+    dtype = view.value("model.dtype")
+    if isinstance(dtype, str):
+        word = dtype.strip().lower()
+        if word == "auto" and arch is not None and arch.torch_dtype:
+            word = arch.torch_dtype.lower()
+        if word in _DTYPES:
+            return _DTYPES[word]
+    if dtype is None and method != "full":
+        return "bf16" if (view.is_on("precision.bf16") or not view.is_on("precision.fp16")) else "fp16"
+    plan.assumptions.append("no torch_dtype: weights loaded in fp32 (the transformers default)")
+    return "fp32"
+
+
+def _sharding(view: RunView) -> str:
+    stage = view.value("runtime.zero_stage")
+    for attached in view.attached:
+        stage = stage if stage is not None else attached.value("runtime.zero_stage")
+    if isinstance(stage, int) and stage in (1, 2, 3):
+        return f"zero{stage}"
+    fsdp = view.value("runtime.fsdp")
+    if isinstance(fsdp, str):
+        if "full_shard" in fsdp or "hybrid_shard" in fsdp:
+            return "fsdp_full"
+        if "shard_grad_op" in fsdp:
+            return "fsdp_grad_op"
+    return "none"
+
+
+def _mixed(view: RunView, storage: str, sharding: str) -> str | None:
+    wants = "bf16" if view.is_on("precision.bf16") else "fp16" if view.is_on("precision.fp16") else None
+    mixed = view.value("precision.mixed")
+    if isinstance(mixed, str) and mixed.lower() in ("bf16", "fp16"):
+        wants = mixed.lower()
+    if wants is None:
+        return None
+    if storage == "fp32" or sharding.startswith("zero"):
+        return wants  # fp32 master weights (autocast from fp32, or DeepSpeed's master copy)
+    return None  # 16-bit weights trained directly: no master copy (measured, see knowledge.memory)
+
+
+def model_of(view: RunView, file: str, cwd: Path | None) -> Architecture | None:
+    """The base model's architecture when it can be known offline (cached on the view)."""
+    if "model" in view.cache:
+        return view.cache["model"]
+    ref = view.value("model.ref")
+    arch = None
+    if isinstance(ref, str) and ref.strip():
+        parent = Path(file).parent if file and not file.startswith("<") else None
+        arch = resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(os.getcwd()))
+    view.cache["model"] = arch
+    return arch
+
+
+def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gpus: int | None,
+                rows: int | None) -> Plan:
+    ref = view.value("model.ref")
+    plan = Plan(method=view.method, method_stated=view.method_stated,
+                model_ref=ref if isinstance(ref, str) else None, arch=arch, gpu=gpu)
+    trainer = view.layout is not None and view.layout.name == "trainer"
+    values = {n: view.value(n) for n in ("batch.per_device", "batch.accumulation", "optim.epochs",
+                                         "optim.max_steps")}
+    sched = derive(values, gpus=gpus, rows=rows or view.value("data.rows"), use_trainer_defaults=trainer)
+    plan.schedule = sched
+    for name in sched.defaults_used:
+        plan.assumptions.append(f"{name} not set: the trainer default")
+    seq = view.value("data.seq_len")
+    if not isinstance(seq, int) or seq <= 0:
+        seq, plan.seq_len_assumed = DEFAULT_SEQ_LEN, True
+        plan.assumptions.append(f"no sequence length set: {DEFAULT_SEQ_LEN} assumed")
+    plan.seq_len = seq
+    if sched.effective_batch:
+        plan.tokens_per_step = sched.effective_batch * seq
+    lr = view.value("optim.lr")
+    plan.learning_rate = float(lr) if isinstance(lr, (int, float)) and not isinstance(lr, bool) else None
+    rank, alpha = view.value("adapter.rank"), view.value("adapter.alpha")
+    if view.is_adapter and isinstance(rank, int) and rank > 0 and isinstance(alpha, (int, float)):
+        plan.adapter_scale = lora_scale(alpha, rank, view.is_on("adapter.rslora"))
+        if plan.learning_rate is not None:
+            plan.effective_lr = plan.learning_rate * plan.adapter_scale
+    total = sched.total_steps
+    if total:
+        ws, wr = view.value("optim.warmup_steps"), view.value("optim.warmup_ratio")
+        if isinstance(ws, (int, float)) and ws > 0:
+            plan.warmup_steps = resolve_interval(float(ws), total)
+        elif isinstance(wr, (int, float)) and wr > 0:
+            plan.warmup_steps = math.ceil(total * wr)  # transformers get_warmup_steps (4.x)
+        for what, name in (("eval", "cadence.eval_steps"), ("save", "cadence.save_steps"),
+                           ("logging", "cadence.logging_steps")):
+            v = view.value(name)
+            if isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0:
+                plan.cadence[what] = resolve_interval(float(v), total)
+    if arch is None:
+        plan.memory_problem = ("model not known offline" + (f" ({ref!r})" if isinstance(ref, str) else
+                                                           " (no model named)"))
+        return plan
+    if view.method not in ("full", "lora", "qlora"):
+        plan.memory_problem = "the training method is not known from this file"
+        return plan
+    try:
+        plan.total_parameters = total_parameters(arch)
+        inputs = memory_inputs(view, arch, plan, gpus=sched.gpus)
+        plan.memory_inputs = inputs
+        plan.memory = estimate_memory(inputs)
+        plan.trainable_parameters = plan.memory.trainable_parameters
+        plan.total_parameters = plan.memory.total_parameters or plan.total_parameters
+    except (UnsupportedFamily, ValueError) as exc:
+        plan.memory_problem = str(exc)
+    return plan
+
+
+def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int) -> MemoryInputs:
+    method = view.method
+    storage = _storage(view, arch, method, plan)
+    sharding = _sharding(view)
+    targets = view.value("adapter.targets")
+    save = view.value("adapter.save_modules")
+    pd = plan.schedule.per_device if plan.schedule and plan.schedule.per_device else 1
+    attention = view.value("model.attention")
+    return MemoryInputs(
+        arch=arch,
+        method=method,
+        base_storage=storage,
+        double_quant=view.is_on("quant.double"),
+        optimizer=str(view.value("optim.name") or "adamw_torch"),
+        mixed_precision=_mixed(view, storage, sharding),
+        micro_batch=int(pd),
+        seq_len=int(plan.seq_len or DEFAULT_SEQ_LEN),
+        gradient_checkpointing=view.is_on("runtime.gradient_checkpointing"),
+        fused_attention=not (isinstance(attention, str) and attention.lower() == "eager"),
+        lora_rank=int(view.value("adapter.rank") or 8),
+        lora_targets=targets if targets is not None else None,
+        modules_to_save=tuple([save] if isinstance(save, str) else (save or ())),
+        num_gpus=max(1, gpus or 1),
+        sharding=sharding,
+    )
+
+
+def fitting_changes(plan: Plan) -> list[tuple[str, MemoryBreakdown]]:
+    if plan.memory_inputs is None or plan.capacity_bytes is None:
+        return []
+    return [(label, est) for label, _inp, est in changes_that_fit(plan.memory_inputs, plan.capacity_bytes)]
+

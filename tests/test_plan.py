@@ -1,0 +1,95 @@
+"""The run plan and the memory rule, end to end through the view."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+from typer.testing import CliRunner
+
+from cfgcheck import api
+from cfgcheck.cli import app
+from cfgcheck.findings import Severity
+
+ROOT = Path(__file__).resolve().parents[1]
+runner = CliRunner()
+
+FULL_7B = ("model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 2.0e-5\n"
+           "per_device_train_batch_size: 1\ngradient_accumulation_steps: 16\nmax_seq_length: 2048\nbf16: true\n")
+
+
+def test_full_7b_on_one_24gb_card_is_over_100gb_and_an_error(tmp_path):
+    cfg = tmp_path / "full7b.yaml"
+    cfg.write_text(FULL_7B)
+    result = api.plan([cfg], gpu="rtx-4090")
+    ((_, plan),) = result.plans
+    # model states alone: 16 bytes/param x 6,738,415,616 params = 107.8 GB (ZeRO paper sec. 3.1;
+    # Llama-2-7b count from REFERENCES.md sec. 13); activations and logits come on top
+    assert plan.total_parameters == 6_738_415_616
+    states = plan.memory.weights_bytes + plan.memory.gradients_bytes + plan.memory.optimizer_bytes + plan.memory.master_weights_bytes
+    assert states == 16 * 6_738_415_616
+    assert plan.memory.total_bytes > 100e9
+    rep = api.lint([cfg], gpu="rtx-4090")
+    (f,) = [f for f in rep.findings if f.rule == "memory-exceeds-gpu"]
+    assert f.severity == Severity.ERROR and "does not fit" in f.message and "GeForce RTX 4090" in f.message
+    assert "changes that fit" in f.hint and "->" in f.hint
+    assert f.data["total_bytes"] == plan.memory.total_bytes
+
+
+def test_plan_json_has_the_documented_numbers(tmp_path):
+    cfg = tmp_path / "full7b.yaml"
+    cfg.write_text(FULL_7B)
+    r = runner.invoke(app, ["plan", str(cfg), "--gpu", "a100-80gb", "--rows", "1000", "--format", "json"])
+    assert r.exit_code == 0, r.output
+    (p,) = json.loads(r.output)["plans"]
+    assert p["total_parameters"] == 6_738_415_616 == p["trainable_parameters"]
+    # 1,000 rows, per-device 1, accumulation 16, 1 GPU -> effective batch 16, ceil(1000/16) = 63 steps
+    # per epoch (transformers Trainer rounding), 3 epochs (trainer default) -> 189 steps
+    assert p["effective_batch_size"] == 16 and p["steps_per_epoch"] == 63 and p["total_steps"] == 189
+    m = p["memory"]
+    assert set(m) >= {"weights_bytes", "gradients_bytes", "optimizer_bytes", "activations_bytes", "total_bytes", "capacity_bytes"}
+    assert m["capacity_bytes"] == 80 * 10**9 and m["total_bytes"] > 100e9
+
+
+def test_plan_text_shows_bars_and_verdict():
+    r = runner.invoke(app, ["plan", str(ROOT / "fixtures" / "demo" / "fjordline-full-7b.yaml"), "--gpu", "t4", "--rows", "1000"])
+    assert r.exit_code == 0
+    assert "DOES NOT FIT" in r.output and "#" in r.output and "config.json" in r.output
+
+
+def test_qlora_7b_fits_a_24gb_card():
+    text = ("model_name_or_path: meta-llama/Llama-2-7b-hf\nuse_peft: true\nload_in_4bit: true\nbnb_4bit_quant_type: nf4\n"
+            "bnb_4bit_use_double_quant: true\nlora_r: 16\nlora_alpha: 32\nper_device_train_batch_size: 1\n"
+            "gradient_checkpointing: true\nmax_seq_length: 1024\nbf16: true\n")
+    rep = api.lint_text(text, "q.yaml", gpu="rtx-4090")
+    assert [f for f in rep.findings if f.rule == "memory-exceeds-gpu"] == []
+
+
+def test_unknown_model_memory_is_not_judged():
+    rep = api.lint_text("model_name_or_path: acme/mystery\nlearning_rate: 2.0e-5\n", "u.yaml", gpu="t4")
+    (f,) = [f for f in rep.findings if f.rule == "memory-exceeds-gpu"]
+    assert f.severity == Severity.INFO and "not known offline" in f.message
+
+
+def test_local_model_folder_gives_the_size(tmp_path):
+    folder = tmp_path / "models" / "m"
+    folder.mkdir(parents=True)
+    # Llama-2-7b shapes (REFERENCES.md sec. 13): 6,738,415,616 parameters
+    folder.joinpath("config.json").write_text(json.dumps({
+        "model_type": "llama", "hidden_size": 4096, "intermediate_size": 11008, "num_hidden_layers": 32,
+        "num_attention_heads": 32, "num_key_value_heads": 32, "vocab_size": 32000, "tie_word_embeddings": False}))
+    runs = tmp_path / "runs"
+    runs.mkdir()
+    cfg = runs / "full.yaml"
+    cfg.write_text("model_name_or_path: ../models/m\nlearning_rate: 1.0e-4\n")  # relative to the config's folder
+    rep = api.lint([cfg])
+    (f,) = [f for f in rep.findings if f.rule == "full-finetune-lr-too-high"]
+    assert f.severity == Severity.WARNING and f.data["size"] == "6.74" and "config.json" in f.data["how"]
+
+
+def test_rslora_hint_uses_model_width():
+    # alpha ~ sqrt(hidden_size) under rsLoRA: a rule of thumb (common practice, no source); Llama-2-7b h=4096 -> 64
+    text = "model_name_or_path: meta-llama/Llama-2-7b-hf\nuse_peft: true\nlora_r: 256\nlora_alpha: 8\nuse_rslora: true\n"
+    rep = api.lint_text(text, "r.yaml")
+    (f,) = [f for f in rep.findings if f.rule == "lora-scale-below-one"]
+    assert "√hidden_size = 64" in f.hint
