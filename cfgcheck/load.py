@@ -481,6 +481,17 @@ class _JsonScanner:
     def skip(self) -> None:
         self.pos = self._ws.match(self.text, self.pos).end()
 
+    def after_item(self) -> None:
+        self.skip()
+        if self.text[self.pos] == ",":
+            self.pos += 1
+            self.skip()
+
+    def close(self, path: Path_, start: int, key_span: Span | None, kind: str) -> None:
+        self.pos += 1  # the closing bracket
+        self.doc.entries[path] = Entry(value=self.span(start, self.pos), key=key_span, kind=kind,
+                                       style="json")
+
     def run(self) -> None:
         self.skip()
         self.value((), None, 0)
@@ -511,14 +522,8 @@ class _JsonScanner:
                     )
                 dups[key] = kspan
                 self.value(child, kspan, depth + 1)
-                self.skip()
-                if t[self.pos] == ",":
-                    self.pos += 1
-                    self.skip()
-            self.pos += 1
-            self.doc.entries[path] = Entry(
-                value=self.span(start, self.pos), key=key_span, kind="map", style="json"
-            )
+                self.after_item()
+            self.close(path, start, key_span, "map")
         elif ch == "[":
             self.pos += 1
             self.skip()
@@ -526,14 +531,8 @@ class _JsonScanner:
             while t[self.pos] != "]":
                 self.value(path + (i,), None, depth + 1)
                 i += 1
-                self.skip()
-                if t[self.pos] == ",":
-                    self.pos += 1
-                    self.skip()
-            self.pos += 1
-            self.doc.entries[path] = Entry(
-                value=self.span(start, self.pos), key=key_span, kind="seq", style="json"
-            )
+                self.after_item()
+            self.close(path, start, key_span, "seq")
         else:
             if ch == '"':
                 m = self._string.match(t, start)
