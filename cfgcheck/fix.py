@@ -491,9 +491,49 @@ def _insert_flow(text: str, idx: _DocIndex, parent: tuple, key: Any, value: Any,
     if colon.strip() != ":":
         colon = ": "
     akey_raw = text[aentry.key.start:aentry.key.end]
-    member = "," + gap + _render_key(key, fmt, akey_raw) + colon + _render(value, fmt)
+    rendered = _render(value, fmt)
+    if isinstance(value, dict) and value and aentry.kind == "map":
+        rendered = _object_like(text, idx, anchor, value, fmt) or rendered
+    if isinstance(value, list) and value:
+        rendered = _list_like(text, idx, parent, anchor, value, fmt) or rendered
+    member = "," + gap + _render_key(key, fmt, akey_raw) + colon + rendered
     end = idx.end(anchor)
     return [_TextEdit(end, end, member, rule)]
+
+
+def _object_like(text: str, idx: _DocIndex, sibling: tuple, value: dict, fmt: str) -> str | None:
+    """A new mapping laid out like its sibling mapping (one member per line, same indents)."""
+    kids = [k for k in idx.kids(sibling) if idx.doc.entries[k].key is not None]
+    entry = idx.doc.entries[sibling]
+    if not kids or "\n" not in text[entry.value.start:entry.value.end]:
+        return None
+    first, last = idx.doc.entries[kids[0]], kids[-1]
+    opening = text[entry.value.start + 1:first.key.start]
+    closing = text[idx.end(last):entry.value.end - 1]
+    colon = text[first.key.end:first.value.start]
+    if opening.strip() or closing.strip() or colon.strip() != ":":
+        return None  # comments or something unusual in between: keep the one-line form
+    members = [_render_key(k, fmt) + colon + _render(v, fmt) for k, v in value.items()]
+    return "{" + opening + ("," + opening).join(members) + closing + "}"
+
+
+def _list_like(text: str, idx: _DocIndex, parent: tuple, anchor: tuple, value: list,
+               fmt: str) -> str | None:
+    """A new list laid out like a sibling list written one item per line (the anchor first)."""
+    siblings = [anchor] + [k for k in idx.kids(parent) if k != anchor]
+    for k in siblings:
+        entry = idx.doc.entries[k]
+        items = idx.kids(k)
+        if entry.kind != "seq" or not items:
+            continue
+        if "\n" not in text[entry.value.start:entry.value.end]:
+            return None
+        opening = text[entry.value.start + 1:idx.doc.entries[items[0]].value.start]
+        closing = text[idx.end(items[-1]):entry.value.end - 1]
+        if opening.strip() or closing.strip():
+            return None
+        return "[" + opening + ("," + opening).join(_render(v, fmt) for v in value) + closing + "]"
+    return None
 
 
 def _edits_for(text: str, doc: Document, idx: _DocIndex, plan: _Planned,
