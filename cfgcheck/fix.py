@@ -61,9 +61,11 @@ class Applied:
     key: str
     summary: str
     tier: str
+    paths: tuple[str, ...] = ()  # the dotted key paths the fix sets or inserts
 
-    def as_dict(self) -> dict[str, str]:
-        return {"rule": self.rule, "key": self.key, "summary": self.summary, "tier": self.tier}
+    def as_dict(self) -> dict[str, Any]:
+        return {"rule": self.rule, "key": self.key, "summary": self.summary, "tier": self.tier,
+                "paths": list(self.paths)}
 
 
 @dataclass
@@ -180,7 +182,8 @@ def _plan(report, *, training: bool,
         if f.fix.tier == KEEPS_MEANING or (f.fix.tier == CHANGES_TRAINING and training):
             planned.append(item)
         else:
-            withheld.append(Applied(f.rule, f.key, f.fix.summary, f.fix.tier))
+            withheld.append(Applied(f.rule, f.key, f.fix.summary, f.fix.tier,
+                                    tuple(dotted(e.path) for e in f.fix.edits)))
     notes = []
     if halve_batch:
         for view in report.views:
@@ -771,7 +774,7 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
                 owner = taken[clash[0]][1]
                 result.applied.append(Applied(plan.rule, plan.key,
                                               f"{plan.summary} (covered by the {owner} fix)",
-                                              plan.tier))
+                                              plan.tier, ()))
                 accepted.append(_Planned(plan.rule, plan.key, plan.summary, plan.tier, (),
                                          plan.document, plan.finding))
                 continue
@@ -805,7 +808,8 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
         edits.extend(mine)
         for k, e in zip(keys, plan.edits):
             taken[k] = (e.new, plan.rule)
-        result.applied.append(Applied(plan.rule, plan.key, plan.summary, plan.tier))
+        result.applied.append(Applied(plan.rule, plan.key, plan.summary, plan.tier,
+                                      tuple(dotted(e.path) for e in plan.edits)))
     if not edits:
         return result
     try:
