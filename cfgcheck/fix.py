@@ -236,9 +236,16 @@ def _yaml_str(value: str, quote: str | None) -> str:
                 return value
         except yaml.YAMLError:
             pass
-    if quote == "'" and "\n" not in value:
+    if quote == "'" and not _NOT_SINGLE.search(value):
         return "'" + value.replace("'", "''") + "'"
-    return json.dumps(value, ensure_ascii=False)
+    # JSON's escapes are YAML's too; YAML also breaks lines at NEL, LS, PS and refuses the rest
+    return _NOT_DOUBLE.sub(lambda m: f"\\u{ord(m.group()):04x}", json.dumps(value, ensure_ascii=False))
+
+
+# what a single-quoted YAML scalar cannot hold as is: line breaks and non-printable characters
+_NOT_SINGLE = re.compile("[^\t\x20-\x7e\xa0-\ud7ff\ue000-\ufefe\uff00-\ufffd\U00010000-\U0010ffff]")
+# what a double-quoted one must escape beyond JSON's escapes (json.dumps handles < 0x20)
+_NOT_DOUBLE = re.compile("[\x7f-\x9f\u2028\u2029\ufeff\ufffe\uffff]")
 
 
 def _render(value: Any, fmt: str, like: Entry | None = None, raw: str = "") -> str:
@@ -311,15 +318,25 @@ class _DocIndex:
         return max((self.end(k) for k in kids), default=e.value.end)
 
 
-def _scalar_start(text: str, entry: Entry) -> int:
-    """Skip an anchor (``&name``) or tag (``!!str``) written before the scalar itself."""
-    pos = entry.value.start
+def _scalar_start(text: str, entry: Entry) -> tuple[int, str]:
+    """Where the scalar's own text starts, after an anchor (``&name``), and what to write first.
+
+    An anchor is kept; a tag (``!!str``) goes with the old value, since it would force the new
+    one back to the old type.
+    """
+    pos, anchors, tagged = entry.value.start, [], False
     while pos < entry.value.end and text[pos] in "&!":
         m = _PROPS.match(text, pos)
-        if m is None:
+        if m is None or m.end() > entry.value.end:
             break
+        if text[pos] == "&":
+            anchors.append(m.group().strip())
+        else:
+            tagged = True
         pos = m.end()
-    return pos
+    if tagged:
+        return entry.value.start, "".join(a + " " for a in anchors)
+    return pos, ""
 
 
 def _line_after(text: str, pos: int) -> tuple[int, str]:
@@ -344,13 +361,15 @@ def _replace_value(text: str, idx: _DocIndex, path: tuple, edit: Edit, rule: str
     entry = idx.doc.entries[path]
     new = edit.new
     if entry.kind == "scalar":
-        start = _scalar_start(text, entry)
+        start, lead = _scalar_start(text, entry)
         raw = text[start:entry.value.end]
         if isinstance(new, (list, dict)) or entry.style in ("|", ">"):
             like = None
         else:
             like = entry
-        rendered = _render(new, fmt, like, raw)
+        rendered = lead + _render(new, fmt, like, raw)
+        if start == entry.value.end and start > 0 and text[start - 1] not in " \t\r\n[{,":
+            rendered = " " + rendered  # an empty value ("fp16:") gets the space a value needs
         end = entry.value.end
         pad = _COMMENT_PAD.match(text, end) if fmt == "yaml" and "\n" not in raw else None
         if pad is not None:  # keep an end-of-line comment in its column when the padding allows
@@ -362,8 +381,8 @@ def _replace_value(text: str, idx: _DocIndex, path: tuple, edit: Edit, rule: str
             and len(new) > len(old) and new[:len(old)] == old:
         return _append_items(text, idx, path, new[len(old):], rule, fmt)
     if idx.flowish(entry):
-        start = _scalar_start(text, entry) if text[entry.value.start] in "&!" else entry.value.start
-        return [_TextEdit(start, entry.value.end, _render(new, fmt), rule)]
+        start, lead = _scalar_start(text, entry)
+        return [_TextEdit(start, entry.value.end, lead + _render(new, fmt), rule)]
     raise _Unplaceable(f"{dotted(path)} is a block collection; rewriting it whole is not done")
 
 
@@ -787,6 +806,10 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
             result.notes.append(f"{plan.rule} at {plan.key}: not applied, {dotted(stale[0].path)} "
                                 "no longer holds the value the rule saw")
             continue
+        if plan.tier == KEEPS_MEANING and _tagged(text, doc, plan):
+            result.notes.append(f"{plan.rule} at {plan.key}: not applied, the value carries an "
+                                "explicit tag (!!...); its author chose the type")
+            continue
         if plan.tier == CHANGES_TRAINING and _shared(doc, plan):
             result.notes.append(f"{plan.rule} at {plan.key}: not applied, the value is shared "
                                 "through a YAML anchor; change it where the anchor is written")
@@ -842,6 +865,15 @@ def _culprits(text, name, fmt, docs, accepted, edits, before, options) -> tuple[
         except ProofFailed:
             bad.append(plan.rule)
     return tuple(dict.fromkeys(bad))
+
+
+def _tagged(text: str, doc: Document, plan: _Planned) -> bool:
+    for e in plan.edits:
+        entry = doc.entries.get(tuple(e.path))
+        if entry is not None and entry.kind == "scalar" and re.match(
+                r"(?:&[^\s]*\s+)*!", text[entry.value.start:entry.value.end]):
+            return True
+    return False
 
 
 def _shared(doc: Document, plan: _Planned) -> bool:
