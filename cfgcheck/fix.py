@@ -800,6 +800,12 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
             result.notes.append(f"{plan.rule} at {plan.key}: not applied, another fix already "
                                 f"changes {dotted(clash[0][1])}")
             continue
+        twice = {tuple(d.path) for d in doc.duplicates}
+        dup = next((e for e in plan.edits if any(tuple(e.path)[:len(t)] == t for t in twice)), None)
+        if dup is not None:
+            result.notes.append(f"{plan.rule} at {plan.key}: not applied, {dotted(dup.path)} is "
+                                "written twice (duplicate-key); keep one, then fix again")
+            continue
         stale = [e for e in plan.edits if not e.insert and
                  _diff_paths(doc.get(tuple(e.path), _MISSING), e.old)]
         if stale:

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import difflib
 import io
+import json
 
 import pytest
 import yaml
@@ -191,3 +192,71 @@ def test_halving_keeps_the_effective_batch(config):
 
     assert product(new) == product(old)  # per-device × accumulation (× GPUs, unchanged)
     assert "batch-split" in {a.rule for a in result.applied}
+
+
+@st.composite
+def json_configs(draw):
+    """A JSON config (trainer arguments or DeepSpeed) with odd spacing, CRLF and unicode."""
+    deepspeed = draw(st.booleans())
+    if deepspeed:
+        pd = draw(st.sampled_from([2, 4, 8]))
+        members = [("train_micro_batch_size_per_gpu", pd),
+                   ("train_batch_size", draw(st.sampled_from([16, 48, 64]))),
+                   ("bf16", {"enabled": draw(st.booleans())}),
+                   ("zero_optimization", {"stage": draw(st.sampled_from([1, 2, 3]))})]
+        if draw(st.booleans()):
+            members.append(("gradient_accumulation_steps", draw(st.sampled_from([1, 2, 4]))))
+        if draw(st.booleans()):
+            members.append(("fp16", {"enabled": draw(st.booleans())}))
+    else:
+        members = [("model_name_or_path", draw(st.sampled_from(["acme/base-7b", "acme/base-1b"]))),
+                   ("learning_rate", draw(st.sampled_from([0.0003, 2e-05, 1e-4]))),
+                   ("per_device_train_batch_size", draw(st.sampled_from([2, 4, 8]))),
+                   ("bf16", draw(st.booleans())),
+                   ("run_name", draw(WORDS))]
+        if draw(st.booleans()):
+            members += [("use_peft", True), ("lora_r", 16), ("lora_alpha", draw(st.sampled_from([4, 32]))),
+                        ("lora_target_modules", ["q_proj", "v_proj"]),
+                        ("chat_template", "<|turn|>" + draw(WORDS))]
+    order = draw(st.permutations(list(range(len(members)))))
+    members = [members[i] for i in order]
+    nl = draw(st.sampled_from(["\n", "\r\n"]))
+    ind = " " * draw(st.sampled_from([0, 1, 2, 4]))
+    colon = draw(st.sampled_from([":", ": ", " : "]))
+
+    def value(v):
+        if isinstance(v, dict):
+            inner = ", ".join(f'"{k}"{colon}{json.dumps(x)}' for k, x in v.items())
+            return "{" + inner + "}"
+        return json.dumps(v, ensure_ascii=draw(st.booleans()))
+
+    body = ("," + nl).join(f'{ind}"{k}"{colon}{value(v)}' for k, v in members)
+    text = "{" + nl + body + nl + "}" + (nl if draw(st.booleans()) else "")
+    return text
+
+
+@settings(suppress_health_check=[HealthCheck.too_slow], max_examples=60)
+@given(json_configs(), st.booleans())
+def test_json_fixes_change_only_their_values(text, halve):
+    result = fix.fix_text(text, "gen.json", OPTIONS, training=True, halve_batch=halve)
+    assert result.error is None and result.problem is None, result.error
+    paths = {p for a in result.applied for p in a.paths}
+    before, after = _flat(json.loads(text)), _flat(json.loads(result.new_text))
+    changed = {k for k in before.keys() | after.keys()
+               if k not in before or k not in after or type(before[k]) is not type(after[k])
+               or before[k] != after[k]}
+    assert all(any(k == p or k.startswith(p + ".") for p in paths) for k in changed), (changed, paths)
+    leaf_keys = {p.split(".")[0] for p in paths} | {p.rsplit(".", 1)[-1] for p in paths}
+    a, b = text.splitlines(keepends=True), result.new_text.splitlines(keepends=True)
+    for tag, i1, i2, j1, j2 in difflib.SequenceMatcher(None, a, b, autojunk=False).get_opcodes():
+        for line in (a[i1:i2] + b[j1:j2]) if tag != "equal" else []:
+            key = line.strip().split(":", 1)[0].strip().strip('"')
+            if key not in leaf_keys:  # only a member that a new one follows: it gains a comma
+                bare = line.rstrip("\r\n")
+                olds = [x.rstrip("\r\n") for x in a[i1:i2]]
+                assert (bare in olds and bare + "," in result.new_text) or \
+                    (bare.endswith(",") and bare[:-1] in olds), line
+    assert (result.new_text.count("\r\n") == result.new_text.count("\n")) == ("\r\n" in text)
+    assert result.new_text.endswith("\n") == text.endswith("\n")
+    again = fix.fix_text(result.new_text, "gen.json", OPTIONS, training=True)
+    assert again.error is None and not again.changed
