@@ -37,7 +37,7 @@ import yaml
 from . import engine
 from . import load as loadmod
 from .engine import Options
-from .findings import Edit, Finding, Fix, InputProblem, InternalError
+from .findings import Edit, Finding, InputProblem, InternalError
 from .load import Document, Entry, LoadError, Source, dotted
 
 KEEPS_MEANING = "keeps-meaning"
@@ -399,10 +399,8 @@ def _append_items(text: str, idx: _DocIndex, path: tuple, extra: list, rule: str
     entry = idx.doc.entries[path]
     items = idx.kids(path)
     like = _item_like(idx, items)
-    rendered = [_render(v, fmt, like if isinstance(v, str) and like and like.style != "json"
-                        else None) for v in extra]
-    if fmt == "json":
-        rendered = [_render(v, fmt) for v in extra]
+    rendered = [_render(v, fmt, like if isinstance(v, str) and fmt == "yaml" else None)
+                for v in extra]  # a new name quoted the way the list's last name is
     if idx.flowish(entry):
         if not items:
             open_at = text.index("[", entry.value.start)
