@@ -116,3 +116,17 @@ def test_case_inputs_keep_their_byte_features():
     assert not (CASES_DIR / "words-bom.out.yaml").read_bytes().endswith(b"\n")
     out = (CASES_DIR / "exponent-crlf.out.yaml").read_bytes()
     assert out.count(b"\r\n") == out.count(b"\n")
+
+
+@pytest.mark.parametrize("model,added", [
+    # Qwen2.5-0.5B ties its input embeddings and output head (shared REFERENCES sec. 13, config copy)
+    ("Qwen/Qwen2.5-0.5B", ["embed_tokens"]),
+    # Llama-2-7b does not tie them (shared REFERENCES sec. 13, config copy)
+    ("meta-llama/Llama-2-7b-hf", ["embed_tokens", "lm_head"]),
+])
+def test_trainable_modules_fix_follows_the_bundled_model_knowledge(model, added):
+    text = (f"model_name_or_path: {model}\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
+            "lora_target_modules: [q_proj, v_proj]\nchat_template: \"<|turn|>\"\n")
+    result = fix.fix_text(text, "run.yaml", api.make_options(), training=True)
+    assert result.error is None and [a.rule for a in result.applied] == ["chat-format-untrained-embeddings"]
+    assert yaml.safe_load(result.new_text)["lora_modules_to_save"] == added
