@@ -20,6 +20,7 @@ Nothing here reads argv or prints; ``cli.fix`` formats the :class:`FixReport`.
 
 from __future__ import annotations
 
+import bisect
 import codecs
 import difflib
 import json
@@ -651,8 +652,6 @@ def _diff_paths(a: Any, b: Any, path: tuple = ()) -> list[tuple]:
 
 
 def _line_of(starts: list[int], offset: int) -> int:
-    import bisect
-
     return bisect.bisect_right(starts, offset) - 1
 
 
