@@ -48,6 +48,25 @@ def lint_mapping(data: dict, name: str = "<mapping>", **options: Any) -> FileRep
     return engine.lint_text(text, name, make_options(**options), fmt="json")
 
 
+def fix(paths: Iterable[str | Path], *, training: bool = False, halve_batch: bool = False,
+        write: bool = True, **options: Any):
+    """Fix files and folders; returns a ``fix.FixReport`` (see docs/fixing.md)."""
+    from . import fix as fixmod
+
+    return fixmod.fix_paths(paths, make_options(**options), training=training,
+                            halve_batch=halve_batch, write=write)
+
+
+def fix_exit_code(report, *, no_write: bool = False) -> int:
+    if report.problems or report.refused:
+        return EXIT_INPUT
+    if report.errors:
+        return EXIT_INTERNAL
+    if no_write and report.changed:
+        return EXIT_FINDINGS
+    return EXIT_CLEAN
+
+
 def exit_code(report: Report, fail_on: Severity = Severity.WARNING) -> int:
     if report.problems:
         return EXIT_INPUT

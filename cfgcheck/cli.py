@@ -111,6 +111,36 @@ def plan(
     raise typer.Exit(api.EXIT_INPUT if result.problems else api.EXIT_CLEAN)
 
 
+@app.command()
+def fix(
+    paths: List[Path] = typer.Argument(..., help="Config files or folders to fix in place."),
+    diff: bool = typer.Option(False, "--diff", help="Print a unified diff of the fixes; write nothing."),
+    no_write: bool = typer.Option(False, "--no-write", help="Write nothing; exit 1 when a fix would change a file (for CI and pre-commit)."),
+    training: bool = typer.Option(False, "--allow-training-changes", help="Also apply fixes that change the training outcome (alpha, learning rate, precision, trainable modules, batch)."),
+    halve_batch: bool = typer.Option(False, "--halve-batch", help="Halve the per-device batch and double gradient accumulation (same effective batch)."),
+    gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
+    gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
+    rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+) -> None:
+    """Rewrite the values rules can fix, in place, keeping every other byte; each rewrite is proven first."""
+    from . import api
+    from . import fix as fixmod
+    from .knowledge.hardware import UnknownGpu
+
+    try:
+        options = api.make_options(gpu=gpu, gpus=gpus, rows=rows)
+    except UnknownGpu as exc:
+        typer.echo(f"cfgcheck: {exc}", err=True)
+        raise typer.Exit(api.EXIT_INPUT)
+    report = fixmod.fix_paths(paths, options, training=training, halve_batch=halve_batch,
+                              write=not (diff or no_write))
+    if diff:
+        sys.stdout.write("".join(f.diff() for f in report.files))
+    summary = fixmod.summary_text(report, dry=diff or no_write)
+    (sys.stderr if diff else sys.stdout).write(summary)
+    raise typer.Exit(api.fix_exit_code(report, no_write=no_write))
+
+
 @app.command("rules")
 def list_rules() -> None:
     """List every rule in the catalogue with its default severity."""

@@ -37,6 +37,7 @@ class Edit:
     old: Any
     new: Any
     insert: bool = False  # True when the key does not exist yet
+    after: tuple | None = None  # for an insertion: the sibling key path to place it after
 
 
 @dataclass(frozen=True, kw_only=True)

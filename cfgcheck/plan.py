@@ -15,7 +15,8 @@ from typing import Any
 
 from .knowledge.hardware import Gpu
 from .knowledge.memory import MemoryBreakdown, MemoryInputs, changes_that_fit, estimate_memory
-from .knowledge.models import Architecture, UnsupportedFamily, lora_scale, resolve_model, total_parameters
+from .knowledge import models as _models
+from .knowledge.models import Architecture, UnsupportedFamily, lora_scale, total_parameters
 from .schedule import Schedule, derive, resolve_interval
 from .view import RunView
 
@@ -151,7 +152,7 @@ def model_of(view: RunView, file: str, cwd: Path | None) -> Architecture | None:
     arch = None
     if isinstance(ref, str) and ref.strip():
         parent = Path(file).parent if file and not file.startswith("<") else None
-        arch = resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(os.getcwd()))
+        arch = _models.resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(os.getcwd()))
     view.cache["model"] = arch
     return arch
 

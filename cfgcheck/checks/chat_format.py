@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import re
 
+from ..findings import Edit, Fix
+from ..load import dotted
 from . import check
 
 EMBEDDING_NAMES = {"embed_tokens", "wte", "tok_embeddings", "word_embeddings", "embeddings",
@@ -51,13 +53,42 @@ def chat_format(ctx) -> None:
     else:
         rank = view.get("adapter.rank")
         key = "lora_modules_to_save" if rank is not None and rank.leaf == "lora_r" else "modules_to_save"
+    fix = _fix(view, save, key, missing, tied)
     if new_tokens:
-        ctx.report(tokens, "new-tokens", count=len(new_tokens),
+        ctx.report(tokens, "new-tokens", fix=fix, count=len(new_tokens),
                    tokens=", ".join(new_tokens[:4]) + (" ..." if len(new_tokens) > 4 else ""),
                    missing=" and ".join(missing), save_key=key)
         return
     ref = view.value("model.ref")
     if isinstance(ref, str) and _TUNED.search(ref.rsplit("/", 1)[-1]):
         return  # the model already speaks a chat format: its template's tokens are trained
-    ctx.report(template, missing=" and ".join(missing), save_key=key,
+    ctx.report(template, fix=fix, missing=" and ".join(missing), save_key=key,
                model=ref if isinstance(ref, str) else "the base model")
+
+
+def _fix(view, save, key: str, missing: list[str], tied: bool) -> Fix | None:
+    """Add the missing module names to the trainable list, or insert the list beside the adapter keys."""
+    why = " (tied embeddings: one shared matrix)" if tied else ""
+    if save is not None:
+        written = save.written
+        if written is None:
+            new = list(missing)
+        elif isinstance(written, str):
+            new = [written] + [m for m in missing if m != written]
+        elif isinstance(written, list) and all(isinstance(x, str) for x in written):
+            new = list(written) + [m for m in missing if m not in written]
+        else:
+            return None
+        edit = Edit(path=save.path, old=written, new=new)
+        return Fix(tier="changes-training", summary=f"{save.key}: add {', '.join(missing)}{why}",
+                   edits=(edit,))
+    anchor = next((f for f in (view.get("adapter.targets"), view.get("adapter.rank"),
+                               view.get("adapter.alpha")) if f is not None), None)
+    parent = anchor.path[:-1] if anchor is not None else ()
+    if view.doc.get(parent + (key,)) is not None:
+        return None
+    edit = Edit(path=parent + (key,), old=None, new=list(missing), insert=True,
+                after=anchor.path if anchor is not None else None)
+    where = dotted(parent + (key,))
+    return Fix(tier="changes-training", summary=f"{where}: added as [{', '.join(missing)}]{why}",
+               edits=(edit,))

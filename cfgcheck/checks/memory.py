@@ -24,7 +24,8 @@ def memory_exceeds_gpu(ctx) -> None:
         ctx.cannot_judge(plan.memory_problem or "no estimate")
         return
     if ctx.gpu is None:
-        ctx.cannot_judge(f"no GPU named (--gpu NAME); the estimate is {_gb(plan.memory.total_bytes)} per GPU")
+        ctx.cannot_judge("no GPU named (--gpu NAME) to compare the estimate with",
+                         total=_gb(plan.memory.total_bytes))
         return
     total, capacity = plan.memory.total_bytes, ctx.gpu.memory_bytes
     share = total / capacity

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from ..findings import Edit, Fix
 from ..knowledge.hardware import FEATURE_MIN_CAPABILITY
+from ..load import dotted
 from . import check
 
 _BF16_WORDS = {"bfloat16", "bf16"}
@@ -39,13 +40,32 @@ def _wanted(view):
 _REPLACEMENT = {"bf16": "fp16", "tf32": "false", "fp8": "bf16", "flash_attention_2": "sdpa"}
 
 
-def _fix_for(feature, f, gpu):
+def _fp16_edit(view, bf16):
+    """Switching bf16 off leaves fp32: turn fp16 on beside it (inserting the key if absent)."""
+    fp = view.get("precision.fp16")
+    if fp is not None:
+        return () if fp.value is True else (Edit(path=fp.path, old=fp.written, new=True),)
+    if bf16.path[-1] == "enabled" and len(bf16.path) >= 2:  # DeepSpeed: {"bf16": {"enabled": true}}
+        section = bf16.path[:-2] + ("fp16",)
+        if view.doc.get(section) is None:
+            return (Edit(path=section, old=None, new={"enabled": True}, insert=True,
+                         after=bf16.path[:-1]),)
+        return (Edit(path=section + ("enabled",), old=None, new=True, insert=True),)
+    return (Edit(path=bf16.path[:-1] + ("fp16",), old=None, new=True, insert=True,
+                 after=bf16.path),)
+
+
+def _fix_for(feature, f, gpu, view):
     if feature == "tf32":
         return Fix(tier="changes-training", summary=f"{f.key}: true -> false (no TF32 below 8.0)",
                    edits=(Edit(path=f.path, old=f.written, new=False),))
     if feature == "bf16" and f.name == "precision.bf16":
-        return Fix(tier="changes-training", summary=f"{f.key}: true -> false (use fp16 on {gpu.name})",
-                   edits=(Edit(path=f.path, old=f.written, new=False),))
+        extra = _fp16_edit(view, f)
+        also = "".join(f", {dotted(e.path)}: " + ("added as " if e.insert else "-> ")
+                       + ("true" if e.new is True else "{enabled: true}") for e in extra)
+        return Fix(tier="changes-training",
+                   summary=f"{f.key}: true -> false{also} (use fp16 on {gpu.name})",
+                   edits=(Edit(path=f.path, old=f.written, new=False),) + extra)
     if feature == "bf16" and isinstance(f.written, str):
         new = "float16" if f.written.strip().lower() == "bfloat16" else "fp16"
         return Fix(tier="changes-training", summary=f"{f.key}: {f.written} -> {new}",
@@ -75,7 +95,7 @@ def precision_vs_gpu(ctx) -> None:
             suits = "plain fp32 matmuls (tf32: false)"
         else:
             suits = "attn_implementation: sdpa"
-        ctx.report(f, feature, fix=_fix_for(feature, f, gpu), key=f.key, feature=feature,
+        ctx.report(f, feature, fix=_fix_for(feature, f, gpu, ctx.view), key=f.key, feature=feature,
                    gpu=gpu.label, capability=gpu.capability_text,
                    needed=f"{need[0]}.{need[1]}", suits=suits, source=source)
 

@@ -1,0 +1,143 @@
+"""The safety proof refuses a wrong rewrite (naming the rule, saving nothing); the CLI wiring."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+import yaml
+from typer.testing import CliRunner
+
+from cfgcheck import api, fix
+from cfgcheck.cli import app
+
+ROOT = Path(__file__).resolve().parents[1]
+TEXT = ("# Harborlight Logistics\nmodel_name_or_path: harborlight/base-7b\nuse_peft: true\n"
+        "lora_r: 16\nlora_alpha: 8   # low\nlearning_rate: 2e-4  # a text under YAML 1.1\n"
+        "packing: yes\nbf16: true\n")
+
+
+def _broken_render(replacement):
+    real = fix._render
+
+    def render(value, fmt, like=None, raw=""):
+        out = real(value, fmt, like, raw)
+        return replacement(out) if isinstance(value, float) else out
+
+    return render
+
+
+@pytest.mark.parametrize("breakage,reason", [
+    (lambda s: "2.0e-3", "reads back as"),  # the wrong number
+    (lambda s: s + "  # sneaky", "comments"),  # a comment appears
+    (lambda s: s + "\nextra_key: 1", "changed but no fix meant"),  # a key appears
+    (lambda s: "'" + s + "'", "reads back as"),  # quoted: the value is a string again
+])
+def test_a_wrong_rewrite_is_refused_and_names_the_rule(tmp_path, monkeypatch, breakage, reason):
+    p = tmp_path / "run.yaml"
+    p.write_text(TEXT)
+    monkeypatch.setattr(fix, "_render", _broken_render(breakage))
+    result = fix.fix_file(p, api.make_options())
+    assert result.error is not None and result.problem is None
+    assert result.error.rule == "yaml-version-dependent-value"
+    assert reason in result.error.error and "nothing saved" in result.error.error
+    assert not result.written and p.read_text() == TEXT
+    assert api.fix_exit_code(fix.FixReport([result])) == api.EXIT_INTERNAL
+
+
+def test_a_rewrite_that_touches_another_line_is_refused(monkeypatch):
+    real = fix._apply
+
+    def sloppy(text, edits):  # also "tidies" the first comment
+        return real(text, edits).replace("# Harborlight Logistics", "#Harborlight Logistics", 1)
+
+    monkeypatch.setattr(fix, "_apply", sloppy)
+    result = fix.fix_text(TEXT, "run.yaml", api.make_options())
+    assert result.error is not None
+    assert "comments" in result.error.error or "no edit touches" in result.error.error
+
+
+def test_a_fix_that_leaves_its_finding_is_refused(monkeypatch):
+    """A fix whose value does not cure the finding: the re-lint catches it."""
+    from cfgcheck.checks import adapter
+
+    monkeypatch.setattr(adapter, "target_alpha", lambda rank, rslora, scale: 9)
+    result = fix.fix_text(TEXT, "run.yaml", api.make_options(), training=True)
+    assert result.error is not None and "lora-scale-below-one" in result.error.rule
+    assert "still there" in result.error.error
+
+
+def test_the_lines_check_on_its_own():
+    old = "a: 1\nb: 2\nc: 3\n"
+    edit = fix._TextEdit(start=8, end=9, text="5", rule="r")
+    assert fix._outside_lines_identical(old, "a: 1\nb: 5\nc: 3\n", [edit]) is None
+    assert "line 1" in fix._outside_lines_identical(old, "a: 0\nb: 5\nc: 3\n", [edit])
+    assert fix._outside_lines_identical(old, "a: 1\nb: 5\nc: 3", [edit]) is not None  # lost newline
+
+
+def test_comments_are_read_outside_scalars_only():
+    text = "a: 'x # not'  # one\nb: |\n  # not either\n  y\n# two\nc: \"#no\" #three\n"
+    assert fix.yaml_comments(text) == ["# one", "# two", "#three"]
+
+
+def _cli(*args):
+    return CliRunner().invoke(app, list(map(str, args)))
+
+
+def test_cli_diff_writes_nothing_and_no_write_exits_one(tmp_path):
+    p = tmp_path / "run.yaml"
+    p.write_text(TEXT)
+    out = _cli("fix", "--diff", p)
+    assert out.exit_code == 0, out.output
+    assert "-learning_rate: 2e-4  # a text under YAML 1.1" in out.output
+    assert "+learning_rate: 2.0e-4 # a text under YAML 1.1" in out.output
+    assert "+packing: true" in out.output and "lora_alpha: 32" not in out.output
+    assert p.read_text() == TEXT
+    assert _cli("fix", "--no-write", p).exit_code == 1
+    assert p.read_text() == TEXT
+    done = _cli("fix", p)
+    assert done.exit_code == 0 and "2 fixes, written" in done.output
+    assert "[yaml-version-dependent-value]" in done.output
+    assert "left as is (changes training, --allow-training-changes)" in done.output
+    assert _cli("fix", "--no-write", p).exit_code == 0  # nothing left in the default tier
+
+
+def test_cli_training_tier_and_halving(tmp_path):
+    p = tmp_path / "run.yaml"
+    p.write_text(TEXT + "chat_template: \"<|turn|>\"\nper_device_train_batch_size: 8\n"
+                 "gradient_accumulation_steps: 2\n")
+    out = _cli("fix", "--allow-training-changes", "--halve-batch", "--gpu", "t4", p)
+    assert out.exit_code == 0, out.output
+    data = yaml.safe_load(p.read_text())
+    assert data["lora_alpha"] == 32  # 2 x r (PEFT LoRA scaling alpha/r; our target scale 2)
+    assert data["bf16"] is False and data["fp16"] is True
+    assert data["lora_modules_to_save"] == ["embed_tokens", "lm_head"]  # PEFT troubleshooting guide
+    assert (data["per_device_train_batch_size"], data["gradient_accumulation_steps"]) == (4, 4)
+    assert "[batch-split]" in out.output
+
+
+def test_cli_input_error_and_unknown_gpu(tmp_path):
+    p = tmp_path / "bad.json"
+    p.write_text('{"learning_rate": 1e-4,}')
+    out = _cli("fix", p)
+    assert out.exit_code == 2 and "input error" in out.output and "not fixing" in out.output
+    assert _cli("fix", "--gpu", "no-such-card", p).exit_code == 2
+
+
+def test_pre_commit_hook_for_the_fixer_applies_only_the_default_tier():
+    hooks = yaml.safe_load((ROOT / ".pre-commit-hooks.yaml").read_text())
+    by_id = {h["id"]: h for h in hooks}
+    hook = by_id["cfgcheck-fix"]
+    assert hook["entry"].split()[:2] == ["cfgcheck", "fix"]
+    assert "--allow-training-changes" not in hook["entry"] and "--halve-batch" not in hook["entry"]
+    assert set(hook["types_or"]) == {"yaml", "json"}
+    assert "cfgcheck-lint" in by_id
+
+
+def test_lint_does_not_load_the_fixer_or_ruamel():
+    code = ("import sys; from cfgcheck import api; api.lint_text('learning_rate: 1e-4\\n', 'a.yaml');"
+            "print('cfgcheck.fix' in sys.modules, any(m.startswith('ruamel') for m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT)
+    assert out.stdout.split() == ["False", "False"], out.stderr
