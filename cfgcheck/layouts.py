@@ -124,6 +124,7 @@ FIELD_TYPES: dict[str, str] = {
     "runtime.distributed": "str",
     "runtime.fsdp": "any",
     "launch.num_machines": "int",
+    "adapter.tie": "bool",
 }
 
 _TRAINER_SECTIONS: dict[str, tuple[str, ...]] = {
@@ -181,6 +182,8 @@ TRAINER = Layout(
         "adapter.init": ("init_lora_weights",),
         "adapter.dora": ("use_dora",),
         "adapter.bias": ("lora_bias",),
+        "adapter.tie": ("ensure_weight_tying",),
+        "adapter.loftq": ("loftq_config",),
         "quant.load_4bit": ("load_in_4bit",),
         "quant.load_8bit": ("load_in_8bit",),
         "quant.type_4bit": ("bnb_4bit_quant_type",),
@@ -272,6 +275,8 @@ PEFT_ADAPTER = Layout(
         "adapter.init": ("=init_lora_weights",),
         "adapter.dora": ("=use_dora",),
         "adapter.bias": ("=bias",),
+        "adapter.tie": ("=ensure_weight_tying",),
+        "adapter.loftq": ("=loftq_config",),
     },
     signature={"peft_type": 4, "base_model_name_or_path": 1, "task_type": 1, "r": 1,
                "lora_alpha": 1, "target_modules": 1, "fan_in_fan_out": 2, "inference_mode": 2},
@@ -291,7 +296,7 @@ AXOLOTL = Layout(
     coerces_numbers=True,
     number_reader="axolotl validates the file with a pydantic model that converts this text to a float",
     default_method="full",
-    eval_data_known=True,
+    # axolotl turns evaluation off itself when there is no eval data (core/builders/base.py)
     sections={"peft": ("lora_",), "loftq_config": ("loftq_",), "bnb_config_kwargs": ()},
     fields={
         "method": ("adapter",),
