@@ -223,7 +223,8 @@ def resolve_interpolation(data: Any, written: Any, depth: int = 0) -> tuple[bool
         return True, value2 if ok else value
 
     if whole:
-        return target(whole.group(1))
+        ok, value = target(whole.group(1))
+        return (True, value) if ok else (False, written)
     parts, pos, out = list(_INTERP.finditer(written)), 0, ""
     for m in parts:
         ok, value = target(m.group(1))
