@@ -156,6 +156,22 @@ def explain(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck ru
 
 
 @app.command()
+def schema(
+    layout: Optional[str] = typer.Option(None, "--layout", help="A schema for config files of this layout (trainer, axolotl, llama-factory, torchtune, accelerate, deepspeed, peft-adapter, ...) instead of the typed view."),
+) -> None:
+    """Print the JSON Schema of the typed view (or of one layout's config files) for editors."""
+    from . import schema as schemamod
+
+    if layout is None:
+        sys.stdout.write(schemamod.dumps(schemamod.view_schema()))
+        return
+    if layout not in schemamod.layout_names():
+        typer.echo(f"cfgcheck: no layout {layout!r}; known: {', '.join(schemamod.layout_names())}", err=True)
+        raise typer.Exit(2)
+    sys.stdout.write(schemamod.dumps(schemamod.layout_schema(layout)))
+
+
+@app.command()
 def gpus() -> None:
     """List the GPU names --gpu accepts, with compute capability and memory."""
     from .knowledge.hardware import ALIASES, GPUS
