@@ -113,13 +113,16 @@ def plan(
 
 @app.command("rules")
 def list_rules() -> None:
-    """List every rule in the catalogue with its default severity."""
+    """List every rule in the catalogue with its default severity, summary and first source."""
     from .catalogue import load_catalogue
 
     rules = load_catalogue()
     width = max(len(r) for r in rules)
     for rule in rules.values():
         typer.echo(f"{rule.id:<{width}}  {rule.severity.word:<7}  {rule.summary}")
+        typer.echo(f"{'':<{width}}  source: {rule.sources[0]}"
+                   + (f" (+{len(rule.sources) - 1} more: cfgcheck explain {rule.id})"
+                      if len(rule.sources) > 1 else ""))
 
 
 @app.command()

@@ -231,3 +231,27 @@ def test_torchtune_interpolation_resolves_inside_the_file():
     assert resolve_interpolation(data, data["batch_size_val"]) == (True, 2)
     assert resolve_interpolation(data, data["metric_logger"]["log_dir"]) == (
         True, "/tmp/torchtune/llama3_1_8B/lora/logs")
+
+
+@needs_corpus
+def test_no_unknown_key_warnings_on_the_corpus():
+    """Keys the reference libraries accept are never called unknown; recipe runners are not judged."""
+    report = api.lint([str(CORPUS)])
+    hits = [(f.file, f.key) for f in report.findings if f.rule == "unknown-key" and f.severity.word != "info"]
+    assert hits == []
+    assert not report.internal
+
+
+def test_rules_command_lists_every_rule_with_severity_and_source():
+    from typer.testing import CliRunner
+
+    from cfgcheck.catalogue import load_catalogue
+    from cfgcheck.cli import app
+
+    out = CliRunner().invoke(app, ["rules"])
+    assert out.exit_code == 0
+    lines = out.stdout.splitlines()
+    for rule in load_catalogue().values():
+        row = next(i for i, line in enumerate(lines) if line.startswith(rule.id + " "))
+        assert rule.severity.word in lines[row]
+        assert lines[row + 1].strip().startswith("source: " + rule.sources[0][:20])
