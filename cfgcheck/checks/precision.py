@@ -103,6 +103,9 @@ def fp16_on_bf16_model(ctx) -> None:
     f = _fp16_on(ctx.view)
     if f is None:
         return
+    layout = ctx.view.layout
+    if layout is None or "model.ref" not in layout.fields:
+        return  # a DeepSpeed or launcher file never names the model: nothing to look up
     arch = ctx.model()
     if arch is None:
         ctx.cannot_judge("the base model's stored dtype is not known offline")
