@@ -402,7 +402,7 @@ LLAMA_FACTORY = Layout(
         "data.seq_len": ("cutoff_len",),
         "data.packing": ("packing",),
         "data.eval": ("eval_dataset", "val_size"),
-        "data.rows": ("max_samples",),
+        # max_samples caps each dataset, not the total: not a row count
         "cadence.eval_strategy": ("eval_strategy",),
         "cadence.eval_steps": ("eval_steps",),
         "cadence.save_strategy": ("save_strategy",),
