@@ -12,8 +12,9 @@ _WORDS = {"below": "below the minimum", "not-above": "not above", "at-or-above":
 def value_outside_schema(ctx) -> None:
     view = ctx.view
     layout = view.layout.name if view.layout is not None else None
+    ambiguous = {a.path for a in ctx.doc.ambiguities}  # yaml-version-dependent-value says it
     for name, f in view.fields.items():
-        if f.value is None or f.auto:
+        if f.value is None or f.auto or f.path in ambiguous:
             continue
         for v in violations(name, f.value, layout):
             if v.problem == "not-one-of":

@@ -12,6 +12,9 @@ _ATTENTION = {"q_proj", "k_proj", "v_proj", "o_proj", "qkv_proj", "query_key_val
               "out_proj", "query", "key", "value", "wq", "wk", "wv", "wo", "wqkv", "output_proj"}
 _EMBEDDINGS = {"embed_tokens", "lm_head", "wte", "embed_out", "word_embeddings", "tok_embeddings",
                "output", "embeddings"}
+# names other libraries give the Llama-family projections (torchtune / Meta reference code)
+_OTHER_LIBRARY_NAMES = {"output_proj": "o_proj", "w1": "gate_proj", "w3": "up_proj", "w2": "down_proj",
+                        "wq": "q_proj", "wk": "k_proj", "wv": "v_proj", "wo": "o_proj"}
 _REGEX_CHARS = re.compile(r"[\\^$*+?()\[\]{}|]")
 
 
@@ -78,7 +81,12 @@ def target_not_in_model(ctx) -> None:
     variant = "none-match" if len(missing) == len(names) else "some-missing"
     import difflib
 
-    near = {m: difflib.get_close_matches(m, sorted(known), n=1, cutoff=0.5) for m in missing}
+    if layout is not None and layout.module_names is not None:
+        renames = {hf: own for own, hf in layout.module_names.items()}
+    else:
+        renames = dict(_OTHER_LIBRARY_NAMES)
+    near = {m: ([renames[m]] if renames.get(m) in known else
+                difflib.get_close_matches(m, sorted(known), n=1, cutoff=0.5)) for m in missing}
     suggestion = ", ".join(f"{m} -> {n[0]}" for m, n in near.items() if n) or "none close"
     ctx.report(f, variant, key=f.leaf, missing=", ".join(missing), where=where,
                known=", ".join(sorted(known)), suggestion=suggestion,
