@@ -143,13 +143,16 @@ def fix(
 
 @app.command("rules")
 def list_rules() -> None:
-    """List every rule in the catalogue with its default severity."""
+    """List every rule in the catalogue with its default severity, summary and first source."""
     from .catalogue import load_catalogue
 
     rules = load_catalogue()
     width = max(len(r) for r in rules)
     for rule in rules.values():
         typer.echo(f"{rule.id:<{width}}  {rule.severity.word:<7}  {rule.summary}")
+        typer.echo(f"{'':<{width}}  source: {rule.sources[0]}"
+                   + (f" (+{len(rule.sources) - 1} more: cfgcheck explain {rule.id})"
+                      if len(rule.sources) > 1 else ""))
 
 
 @app.command()
@@ -183,6 +186,22 @@ def explain(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck ru
         for ex in rule.examples.get(kind, []):
             typer.echo(f"\nExample ({kind}):")
             typer.echo("  " + ex["text"].rstrip("\n").replace("\n", "\n  "))
+
+
+@app.command()
+def schema(
+    layout: Optional[str] = typer.Option(None, "--layout", help="A schema for config files of this layout (trainer, axolotl, llama-factory, torchtune, accelerate, deepspeed, peft-adapter, ...) instead of the typed view."),
+) -> None:
+    """Print the JSON Schema of the typed view (or of one layout's config files) for editors."""
+    from . import schema as schemamod
+
+    if layout is None:
+        sys.stdout.write(schemamod.dumps(schemamod.view_schema()))
+        return
+    if layout not in schemamod.layout_names():
+        typer.echo(f"cfgcheck: no layout {layout!r}; known: {', '.join(schemamod.layout_names())}", err=True)
+        raise typer.Exit(2)
+    sys.stdout.write(schemamod.dumps(schemamod.layout_schema(layout)))
 
 
 @app.command()

@@ -224,6 +224,9 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             reasons.append(view.skipped)
             continue
         report.layout = report.layout or view.layout.name
+        from .links import attach_linked  # the linked DeepSpeed / accelerate files
+
+        attach_linked(view, file, options.cwd)
         lint_view(view, options, file, report)
     if not report.layout:
         report.skipped = reasons[0] if reasons else "empty file"

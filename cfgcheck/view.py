@@ -185,12 +185,54 @@ def _coerce(name: str, written: Any) -> tuple[Any, bool, bool, bool]:
 def _add(view: RunView, name: str, path: tuple, written: Any) -> None:
     if name in view.fields:
         return
-    value, ok, auto, from_text = _coerce(name, written)
+    source = written
+    if view.layout is not None and view.layout.interpolates:
+        resolved, value = resolve_interpolation(view.doc.data, written)
+        if resolved:
+            source = value
+    value, ok, auto, from_text = _coerce(name, source)
     f = Field(name=name, value=value if ok else None, path=path, written=written,
               auto=auto, from_text=from_text)
     view.fields[name] = f
     if not ok:
         view.type_problems.append(TypeProblem(f, FIELD_TYPES.get(name, "any")))
+
+
+_INTERP = re.compile(r"\$\{([^${}]+)\}")
+
+
+def resolve_interpolation(data: Any, written: Any, depth: int = 0) -> tuple[bool, Any]:
+    """``${a.b}`` -> the value at a.b in the same file (OmegaConf's node interpolation).
+
+    A value that is one interpolation takes the type of its target; interpolations inside a
+    longer text are replaced by the target's text. Resolvers (``${oc.env:X}``), relative paths
+    (``${.x}``) and targets outside the file stay as written. -> (resolved, value).
+    """
+    if not isinstance(written, str) or "${" not in written or depth > 8:
+        return False, written
+    whole = _INTERP.fullmatch(written.strip())
+
+    def target(expr: str) -> tuple[bool, Any]:
+        expr = expr.strip()
+        if ":" in expr or expr.startswith("."):
+            return False, None
+        found, value = _walk(data, tuple(expr.split(".")))
+        if not found or isinstance(value, (dict, list)):
+            return False, None
+        ok, value2 = resolve_interpolation(data, value, depth + 1)
+        return True, value2 if ok else value
+
+    if whole:
+        ok, value = target(whole.group(1))
+        return (True, value) if ok else (False, written)
+    parts, pos, out = list(_INTERP.finditer(written)), 0, ""
+    for m in parts:
+        ok, value = target(m.group(1))
+        if not ok:
+            return False, written
+        out += written[pos:m.start()] + str(value)
+        pos = m.end()
+    return True, out + written[pos:]
 
 
 def fill(view: RunView, layout: Layout, data: dict) -> None:
@@ -214,12 +256,25 @@ def fill(view: RunView, layout: Layout, data: dict) -> None:
 
 
 def _infer_method(view: RunView) -> None:
+    layout = view.layout
     stated = view.get("method") or view.get("adapter.kind")
     if stated is not None and isinstance(stated.value, str):
         word = stated.value.strip().lower()
         mapped = {"lora": "lora", "qlora": "qlora", "full": "full", "freeze": None}.get(word)
         if mapped:
             view.method, view.method_stated, view.method_field = mapped, True, stated
+        elif word == "freeze":
+            view.method_stated, view.method_field = True, stated
+            return  # some layers train fully, the others stay frozen: neither full nor adapter
+    builder = view.get("model.builder")
+    if view.method is None and layout is not None and layout.method_patterns and builder is not None \
+            and isinstance(builder.value, str):
+        for pattern, method in layout.method_patterns:
+            if re.search(pattern, builder.value):
+                view.method, view.method_stated, view.method_field = method, True, builder
+                break
+        else:
+            view.method, view.method_stated, view.method_field = "full", True, builder
     if view.method is None:
         enabled = view.get("adapter.enabled")
         adapter_keys = any(
@@ -232,11 +287,15 @@ def _infer_method(view: RunView) -> None:
             view.method = "lora"
             view.method_stated = enabled is not None
             view.method_field = enabled
-        elif view.layout is not None and view.layout.name == "peft-adapter":
+        elif layout is not None and layout.name == "peft-adapter":
             view.method = "lora"
-        elif view.layout is not None and view.layout.name == "trainer":
+        elif layout is not None and layout.name == "trainer":
             view.method = "full"  # no adapter anywhere: every weight trains
-    if view.method == "lora" and (view.is_on("quant.load_4bit") or view.is_on("quant.load_8bit")):
+        elif layout is not None and layout.default_method and stated is None:
+            view.method = layout.default_method
+    bits = view.value("quant.bits")
+    quantised = view.is_on("quant.load_4bit") or view.is_on("quant.load_8bit") or bits in (2, 3, 4, 5, 6, 8)
+    if view.method == "lora" and quantised:
         view.method = "qlora"
 
 

@@ -106,3 +106,32 @@ def bf16_and_fp16(ctx) -> None:
     if bf is None or fp is None or bf.value is not True or fp.value is not True:
         return
     ctx.report(fp, bf16_key=bf.key, fp16_key=fp.key)
+
+
+def _fp16_on(view):
+    f = view.get("precision.fp16")
+    if f is not None and f.value is True:
+        return f
+    f = view.get("precision.mixed")
+    if f is not None and isinstance(f.value, str) and f.value.strip().lower() == "fp16":
+        return f
+    return None
+
+
+@check("fp16-training-of-bf16-model")
+def fp16_on_bf16_model(ctx) -> None:
+    f = _fp16_on(ctx.view)
+    if f is None:
+        return
+    layout = ctx.view.layout
+    if layout is None or "model.ref" not in layout.fields:
+        return  # a DeepSpeed or launcher file never names the model: nothing to look up
+    arch = ctx.model()
+    if arch is None:
+        ctx.cannot_judge("the base model's stored dtype is not known offline")
+        return
+    stored = (arch.torch_dtype or "").lower()
+    if stored not in _BF16_WORDS:
+        return
+    ctx.report(f, key=f.key, family=arch.family, stored=arch.torch_dtype,
+               source=arch.source or "model config")

@@ -1,0 +1,105 @@
+"""Checks on quantised training: bitsandbytes settings, LoftQ, merging adapters for export."""
+
+from __future__ import annotations
+
+from ..findings import Edit, Fix
+from . import check
+
+# sections whose keys are BitsAndBytesConfig arguments, so its defaults apply to what is missing
+_BNB_SECTIONS = ("quantization_config", "bnb", "quantization", "bnb_config_kwargs")
+
+
+def _quantised(view):
+    """The field that loads the base quantised (4-bit, 8-bit or a bit width), or None."""
+    for name in ("quant.load_4bit", "quant.load_8bit"):
+        f = view.get(name)
+        if f is not None and f.value is True:
+            return f
+    f = view.get("quant.bits")
+    if f is not None and isinstance(f.value, int) and f.value in (2, 3, 4, 5, 6, 8):
+        return f
+    return None
+
+
+def _bnb_defaults_apply(view) -> bool:
+    f = view.get("quant.load_4bit")
+    return f is not None and f.value is True and len(f.path) > 1 and f.path[0] in _BNB_SECTIONS
+
+
+def _loftq(view):
+    f = view.get("adapter.init")
+    if f is not None and isinstance(f.value, str) and f.value.strip().lower() == "loftq":
+        return f
+    f = view.get("adapter.loftq")
+    if f is not None and f.value not in (None, False, {}, 0):
+        return f
+    return None
+
+
+@check("loftq-with-quantised-base")
+def loftq_with_quantised_base(ctx) -> None:
+    view = ctx.view
+    lq, q = _loftq(view), _quantised(view)
+    if lq is None or q is None:
+        return
+    fix = None
+    if q.name in ("quant.load_4bit", "quant.load_8bit"):
+        fix = Fix(tier="changes-training", summary=f"{q.key}: true -> false (LoftQ quantises itself)",
+                  edits=(Edit(path=q.path, old=q.written, new=False),))
+    ctx.report(q, fix=fix, key=q.key, loftq_key=lq.key)
+
+
+@check("quant-4bit-and-8bit-both-on")
+def both_bits(ctx) -> None:
+    view = ctx.view
+    a, b = view.get("quant.load_4bit"), view.get("quant.load_8bit")
+    if a is None or b is None or a.value is not True or b.value is not True:
+        return
+    ctx.report(b, key4=a.key, key8=b.key)
+
+
+@check("quant-fp4-where-nf4-is-better")
+def fp4(ctx) -> None:
+    view = ctx.view
+    if _quantised(view) is None:
+        return
+    f = view.get("quant.type_4bit")
+    if f is not None and isinstance(f.value, str) and f.value.strip().lower() == "fp4":
+        fix = Fix(tier="changes-training", summary=f"{f.key}: {f.value} -> nf4",
+                  edits=(Edit(path=f.path, old=f.written, new="nf4"),))
+        ctx.report(f, "written", fix=fix, key=f.key)
+    elif f is None and _bnb_defaults_apply(view):
+        q = view.get("quant.load_4bit")
+        ctx.report(q, "default", key=q.key, section=q.path[0])
+
+
+_FP32 = {"float32", "fp32", "torch.float32", "float"}
+
+
+@check("quant-compute-dtype-fp32")
+def compute_fp32(ctx) -> None:
+    view = ctx.view
+    q = view.get("quant.load_4bit")
+    if q is None or q.value is not True:
+        return
+    f = view.get("quant.compute_dtype")
+    if f is not None and isinstance(f.value, str) and f.value.strip().lower() in _FP32:
+        fix = Fix(tier="changes-training", summary=f"{f.key}: {f.value} -> bfloat16",
+                  edits=(Edit(path=f.path, old=f.written, new="bfloat16"),))
+        ctx.report(f, "written", fix=fix, key=f.key, value=f.value)
+    elif f is None and _bnb_defaults_apply(view):
+        ctx.report(q, "default", key=q.key, section=q.path[0])
+
+
+@check("merge-into-quantised-base")
+def merge_into_quantised(ctx) -> None:
+    view = ctx.view
+    m = view.get("export.merge")
+    if m is None or m.value in (None, False, "", 0):
+        return
+    if isinstance(m.value, str) and m.value.strip().lower() in ("false", "no", "none"):
+        return
+    q = _quantised(view)
+    if q is None or not view.is_adapter:
+        return
+    ctx.report(m, key=m.key, quant_key=q.key)

@@ -1,0 +1,103 @@
+"""Configs that point to other configs: a trainer's ``deepspeed: ds.json``, accelerate's
+``deepspeed_config.deepspeed_config_file``. The file named is read and attached to the view
+(``RunView.attached``) so rules can check the two together.
+
+What is followed: a relative path (against the folder of the config, then the working folder,
+as the launchers themselves resolve it from where they are started) or an absolute path the
+config names, when it is a local ``.json``/``.yaml``/``.yml`` file. Never a URL. An inline
+mapping (the trainer accepts a DeepSpeed dict in place of a path) is attached too. What could not
+be followed is recorded in ``view.cache["links"]`` for the rules to mention once.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from . import load as loadmod
+from .load import Document, LoadError
+from .view import RunView, build_view
+
+LINK_FIELDS = ("runtime.deepspeed",)
+_SUFFIXES = (".json", ".yaml", ".yml")
+
+
+@dataclass(frozen=True)
+class Link:
+    field: str  # our field name, e.g. "runtime.deepspeed"
+    target: str  # what the config wrote, or "(inline)"
+    path: str | None = None  # the file read
+    problem: str | None = None  # why it was not attached
+
+
+def _inline(doc: Document, prefix: tuple, data: dict) -> Document:
+    n = len(prefix)
+    entries = {p[n:]: e for p, e in doc.entries.items() if p[:n] == prefix}
+    return Document(name=doc.name, format=doc.format, data=data, entries=entries, index=doc.index)
+
+
+def _candidates(ref: str, file: str, cwd: Path | None) -> list[Path]:
+    given = Path(ref).expanduser()
+    if given.is_absolute():
+        return [given]
+    out = []
+    if file and not file.startswith("<"):
+        out.append(Path(file).parent / given)
+    out.append((cwd or Path.cwd()) / given)
+    seen, uniq = set(), []
+    for p in out:
+        key = str(p.resolve()) if p.exists() else str(p)
+        if key not in seen:
+            seen.add(key)
+            uniq.append(p)
+    return uniq
+
+
+def attach_linked(view: RunView, file: str, cwd: Path | None = None) -> None:
+    """Read the configs this view points to and attach their views."""
+    links: list[Link] = []
+    view.cache["links"] = links
+    for name in LINK_FIELDS:
+        f = view.get(name)
+        if f is None and name == "runtime.deepspeed" and isinstance(view.doc.data, dict) \
+                and isinstance(view.doc.data.get("deepspeed"), dict):
+            # the view keeps no mapping under a bare name; the trainer takes a DeepSpeed dict here
+            inline = view.doc.data["deepspeed"]
+            sub = build_view(_inline(view.doc, ("deepspeed",), inline), "deepspeed")
+            view.attached.append(sub)
+            links.append(Link(name, "(inline)"))
+            continue
+        if f is None or f.value is None:
+            continue
+        if isinstance(f.value, dict):
+            sub = build_view(_inline(view.doc, f.path, f.value), "deepspeed")
+            view.attached.append(sub)
+            links.append(Link(name, "(inline)"))
+            continue
+        if not isinstance(f.value, str) or not f.value.strip():
+            continue
+        ref = f.value.strip()
+        if "://" in ref:
+            links.append(Link(name, ref, problem="a URL; only local files are read"))
+            continue
+        if not ref.lower().endswith(_SUFFIXES):
+            continue  # a preset name or a flag, not a file
+        found = next((p for p in _candidates(ref, file, cwd) if p.is_file()), None)
+        if found is None:
+            where = ", ".join(str(p.parent) for p in _candidates(ref, file, cwd))
+            links.append(Link(name, ref, problem=f"{ref} was not found (looked in {where})"))
+            continue
+        try:
+            src = loadmod.read_source(found)
+            docs = loadmod.load_text(src.text, str(found))
+        except LoadError as exc:
+            links.append(Link(name, ref, str(found),
+                              problem=f"{found}:{exc.line}:{exc.column}: {exc.reason}"))
+            continue
+        sub = build_view(docs[0]) if docs else None
+        if sub is None or sub.layout is None:
+            links.append(Link(name, ref, str(found), problem=f"{found} is not a config cfgcheck reads"
+                              + (f" ({sub.skipped})" if sub is not None and sub.skipped else "")))
+            continue
+        view.attached.append(sub)
+        links.append(Link(name, ref, str(found)))

@@ -1,0 +1,237 @@
+"""JSON Schema of the typed view, and the same constraints as small hand checks for ``lint``.
+
+One table (``CONSTRAINTS``) says, per field of the view, its type and range or its accepted
+words; ``view_schema()`` turns it into a JSON Schema (draft 2020-12) and ``layout_schema()`` into a
+schema for config files of one layout (the keys people write), which editors can use while
+typing. ``lint`` never imports jsonschema: ``violations()`` checks the same table by hand, and a
+test proves the two agree (``tests/test_schema.py``). ``validate_with_jsonschema()`` is what
+``cfgcheck schema --check`` uses.
+"""
+
+from __future__ import annotations
+
+import functools
+import json
+from dataclasses import dataclass
+from typing import Any
+
+from .layouts import BY_NAME, FIELD_TYPES, LAYOUTS, Layout
+
+SCHEMA_ID = "https://cfgcheck.invalid/schema/run-view.json"
+
+# transformers 5.24 trainer_utils.SchedulerType
+HF_SCHEDULERS = ("linear", "cosine", "cosine_with_restarts", "polynomial", "constant",
+                 "constant_with_warmup", "inverse_sqrt", "reduce_lr_on_plateau", "cosine_with_min_lr",
+                 "cosine_warmup_with_min_lr", "warmup_stable_decay", "greedy")
+# transformers 5.24 training_args.OptimizerNames, plus adamw_hf / adamw_apex_fused of 4.x (from memory)
+HF_OPTIMIZERS = ("adamw_torch", "adamw_torch_fused", "adamw_torch_xla", "adamw_torch_npu_fused",
+                 "adafactor", "adamw_anyprecision", "adamw_torch_4bit", "adamw_torch_8bit", "ademamix",
+                 "sgd", "adagrad", "adamw_bnb_8bit", "adamw_8bit", "ademamix_8bit", "lion_8bit",
+                 "lion_32bit", "paged_adamw_32bit", "paged_adamw_8bit", "paged_ademamix_32bit",
+                 "paged_ademamix_8bit", "paged_lion_32bit", "paged_lion_8bit", "rmsprop", "rmsprop_bnb",
+                 "rmsprop_bnb_8bit", "rmsprop_bnb_32bit", "galore_adamw", "galore_adamw_8bit",
+                 "galore_adafactor", "galore_adamw_layerwise", "galore_adamw_8bit_layerwise",
+                 "galore_adafactor_layerwise", "lomo", "adalomo", "grokadamw", "schedule_free_radam",
+                 "schedule_free_adamw", "schedule_free_sgd", "apollo_adamw", "apollo_adamw_layerwise",
+                 "stable_adamw", "adamw_hf", "adamw_apex_fused")
+# transformers IntervalStrategy / SaveStrategy (5.24)
+EVAL_STRATEGIES = ("no", "steps", "epoch")
+SAVE_STRATEGIES = ("no", "steps", "epoch", "best")
+# accelerate utils.DistributedType and mixed_precision choices
+ACCELERATE_DISTRIBUTED = ("NO", "MULTI_CPU", "MULTI_GPU", "MULTI_NPU", "MULTI_MLU", "MULTI_SDAA",
+                          "MULTI_MUSA", "MULTI_XPU", "DEEPSPEED", "FSDP", "XLA", "MEGATRON_LM",
+                          "MULTI_HPU", "MULTI_NEURON")
+ACCELERATE_PRECISION = ("no", "fp16", "bf16", "fp8")
+# DeepSpeed runtime/lr_schedules.py VALID_LR_SCHEDULES
+DEEPSPEED_SCHEDULERS = ("LRRangeTest", "OneCycle", "WarmupLR", "WarmupDecayLR", "WarmupCosineLR")
+
+_HF_ARGS = ("trainer", "llama-factory")  # values parsed into TrainingArguments as they are
+
+
+@dataclass(frozen=True)
+class Constraint:
+    minimum: float | None = None
+    exclusive_minimum: float | None = None
+    exclusive_maximum: float | None = None
+    enum: tuple | None = None
+    layouts: tuple[str, ...] | None = None  # only for these layouts (None: all)
+    source: str = ""
+
+
+CONSTRAINTS: dict[str, tuple[Constraint, ...]] = {
+    "adapter.rank": (Constraint(minimum=1, source="PEFT LoraConfig: r must be a positive integer"),),
+    "adapter.alpha": (Constraint(exclusive_minimum=0, source="LoRA: the update is scaled by alpha/r"),),
+    "adapter.dropout": (Constraint(minimum=0, exclusive_maximum=1, source="torch.nn.Dropout: p in [0, 1)"),),
+    "adapter.bias": (Constraint(enum=("none", "all", "lora_only"), layouts=("trainer", "peft-adapter"),
+                                source="PEFT LoraConfig.bias"),),
+    "quant.type_4bit": (Constraint(enum=("nf4", "fp4"), source="transformers BitsAndBytesConfig"),),
+    "quant.bits": (Constraint(enum=(2, 3, 4, 5, 6, 8), source="LLaMA-Factory quantization_bit"),),
+    "optim.lr": (Constraint(exclusive_minimum=0, source="a learning rate is positive"),),
+    "optim.warmup_ratio": (Constraint(minimum=0, exclusive_maximum=1,
+                                      source="transformers 4.57: warmup_ratio must lie in range [0,1]"),),
+    "optim.warmup_steps": (Constraint(minimum=0, source="transformers: warmup_steps >= 0"),),
+    "optim.epochs": (Constraint(exclusive_minimum=0, source="a positive number of epochs"),),
+    "optim.max_steps": (Constraint(minimum=-1, source="transformers TrainingArguments: -1 = by epochs"),),
+    "optim.weight_decay": (Constraint(minimum=0, source="decoupled weight decay is not negative"),),
+    "optim.grad_clip": (Constraint(minimum=0, source="a clipping norm is not negative"),),
+    "optim.scheduler": (
+        Constraint(enum=HF_SCHEDULERS, layouts=_HF_ARGS, source="transformers SchedulerType"),
+        Constraint(enum=DEEPSPEED_SCHEDULERS, layouts=("deepspeed",), source="DeepSpeed lr_schedules"),
+    ),
+    "optim.name": (Constraint(enum=HF_OPTIMIZERS, layouts=_HF_ARGS, source="transformers OptimizerNames"),),
+    "batch.per_device": (Constraint(minimum=1, source="a batch holds at least one sample"),),
+    "batch.accumulation": (Constraint(minimum=1, source="at least one micro-batch per step"),),
+    "batch.global": (Constraint(minimum=1, source="DeepSpeed: train_batch_size > 0"),),
+    "data.seq_len": (Constraint(minimum=1, source="a sequence holds at least one token"),),
+    "cadence.eval_strategy": (Constraint(enum=EVAL_STRATEGIES, layouts=_HF_ARGS + ("axolotl",),
+                                         source="transformers IntervalStrategy"),),
+    "cadence.save_strategy": (Constraint(enum=SAVE_STRATEGIES, layouts=_HF_ARGS + ("axolotl",),
+                                         source="transformers SaveStrategy"),),
+    "cadence.eval_steps": (Constraint(exclusive_minimum=0, source="transformers: a step count or a ratio in (0, 1)"),),
+    "cadence.save_steps": (Constraint(exclusive_minimum=0, source="transformers: a step count or a ratio in (0, 1)"),),
+    "cadence.logging_steps": (Constraint(exclusive_minimum=0, source="transformers: a step count or a ratio in (0, 1)"),),
+    "cadence.evals_per_epoch": (Constraint(minimum=1, source="a positive count"),),
+    "cadence.saves_per_epoch": (Constraint(minimum=1, source="a positive count"),),
+    "runtime.zero_stage": (Constraint(enum=(0, 1, 2, 3), source="DeepSpeed zero_optimization.stage"),),
+    "runtime.distributed": (Constraint(enum=ACCELERATE_DISTRIBUTED, layouts=("accelerate",),
+                                       source="accelerate DistributedType"),),
+    "precision.mixed": (Constraint(enum=ACCELERATE_PRECISION, layouts=("accelerate",),
+                                   source="accelerate mixed_precision choices"),),
+    "hardware.num_gpus": (Constraint(minimum=1, source="a positive count"),),
+    "hardware.num_machines": (Constraint(minimum=1, source="a positive count"),),
+    "launch.num_machines": (Constraint(minimum=1, source="a positive count"),),
+}
+
+_TYPES = {
+    "int": {"type": "integer"},
+    "number": {"type": "number"},
+    "bool": {"type": "boolean"},
+    "str": {"type": "string"},
+    "names": {"anyOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}}]},
+    "any": {},
+}
+
+
+def _applies(c: Constraint, layout: str | None) -> bool:
+    return c.layouts is None or (layout is not None and layout in c.layouts)
+
+
+def field_schema(name: str, layout: str | None = None) -> dict[str, Any]:
+    """The JSON Schema of one view field (for one layout, or the union over layouts)."""
+    out = dict(_TYPES[FIELD_TYPES.get(name, "any")])
+    constraints = [c for c in CONSTRAINTS.get(name, ()) if layout is None or _applies(c, layout)]
+    enums = [c for c in constraints if c.enum is not None]
+    if layout is None and any(c.layouts for c in enums):
+        enums = []  # layout-specific word lists: only in a layout's own schema
+    for c in constraints:
+        if c.enum is not None:
+            continue
+        if c.minimum is not None:
+            out["minimum"] = c.minimum
+        if c.exclusive_minimum is not None:
+            out["exclusiveMinimum"] = c.exclusive_minimum
+        if c.exclusive_maximum is not None:
+            out["exclusiveMaximum"] = c.exclusive_maximum
+    if enums:
+        out["enum"] = list(dict.fromkeys(v for c in enums for v in c.enum))
+        out.pop("type", None)
+    if not out:
+        return {"description": name}
+    # an empty value (null) means "not set"; "auto" is filled in at launch
+    extra = [{"type": "null"}]
+    if FIELD_TYPES.get(name) in ("int", "number", "bool"):
+        extra.append({"const": "auto"})
+    return {"anyOf": [out] + extra, "description": name}
+
+
+def view_schema() -> dict[str, Any]:
+    """The typed view: our field names (dotted) and their types, ranges and words."""
+    return {
+        "$schema": "https://json-schema.org/draft/2020-12/schema",
+        "$id": SCHEMA_ID,
+        "title": "cfgcheck run view",
+        "type": "object",
+        "properties": {name: field_schema(name) for name in FIELD_TYPES},
+        "additionalProperties": False,
+    }
+
+
+def layout_schema(layout: Layout | str) -> dict[str, Any]:
+    """A schema for config files of one layout: the keys people write, nested as written."""
+    lay = BY_NAME[layout] if isinstance(layout, str) else layout
+    props: dict[str, Any] = {}
+    for name, specs in lay.fields.items():
+        sch = field_schema(name, lay.name)
+        for spec in specs:
+            parts = spec[1:].split(".") if spec.startswith("=") else [spec]
+            node = props
+            for part in parts[:-1]:
+                parent = node.setdefault(part, {"type": "object", "properties": {}})
+                node = parent.setdefault("properties", {})  # a mapping field: its keys inside
+            node.setdefault(parts[-1], sch)
+    return {
+        "$schema": "https://json-schema.org/draft/2020-12/schema",
+        "$id": f"https://cfgcheck.invalid/schema/{lay.name}.json",
+        "title": f"cfgcheck: {lay.title}",
+        "type": "object",
+        "properties": props,
+        "additionalProperties": True,
+    }
+
+
+def layout_names() -> list[str]:
+    return [lay.name for lay in LAYOUTS]
+
+
+# --------------------------------------------------------------------------- hand checks
+
+@dataclass(frozen=True)
+class Violation:
+    field: str
+    value: Any
+    problem: str  # "below" | "at-or-above" | "not-above" | "not-one-of"
+    bound: Any
+    source: str
+
+
+def violations(name: str, value: Any, layout: str | None) -> list[Violation]:
+    """What the schema would reject in one typed value (the value already has the right type)."""
+    out: list[Violation] = []
+    for c in CONSTRAINTS.get(name, ()):
+        if not _applies(c, layout):
+            continue
+        if c.enum is not None:
+            probe = value.strip() if isinstance(value, str) else value
+            if probe not in c.enum:
+                out.append(Violation(name, value, "not-one-of", c.enum, c.source))
+            continue
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            continue
+        if c.minimum is not None and value < c.minimum:
+            out.append(Violation(name, value, "below", c.minimum, c.source))
+        if c.exclusive_minimum is not None and value <= c.exclusive_minimum:
+            out.append(Violation(name, value, "not-above", c.exclusive_minimum, c.source))
+        if c.exclusive_maximum is not None and value >= c.exclusive_maximum:
+            out.append(Violation(name, value, "at-or-above", c.exclusive_maximum, c.source))
+    return out
+
+
+@functools.lru_cache(maxsize=None)
+def _validator(layout: str | None):
+    import jsonschema  # only `cfgcheck schema` and the tests pay for it
+
+    schema = view_schema()
+    if layout is not None:
+        schema["properties"] = {n: field_schema(n, layout) for n in FIELD_TYPES}
+    return jsonschema.Draft202012Validator(schema)
+
+
+def validate_with_jsonschema(values: dict[str, Any], layout: str | None = None) -> list[str]:
+    """Validate {field: value} with jsonschema (imported here only). -> error messages."""
+    validator = _validator(layout)
+    return sorted(f"{'.'.join(map(str, e.path)) or '(root)'}: {e.message}"
+                  for e in validator.iter_errors(values))
+
+
+def dumps(schema: dict[str, Any]) -> str:
+    return json.dumps(schema, indent=2, sort_keys=False) + "\n"
