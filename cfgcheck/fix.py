@@ -38,7 +38,7 @@ import yaml
 from . import engine
 from . import load as loadmod
 from .engine import Options
-from .findings import Edit, Finding, InputProblem, InternalError
+from .findings import Edit, Finding, InputProblem, InternalError, Severity
 from .load import Document, Entry, LoadError, Source, dotted
 
 KEEPS_MEANING = "keeps-meaning"
@@ -737,7 +737,8 @@ def _prove(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Doc
             raise ProofFailed(f"the finding at {p.key or 'the top level'} is still there after the fix",
                               [p.rule])
     for k, f in after_keys.items():
-        if k not in before_keys:
+        # info findings are notes (what a rule could not judge), not defects a fix could bring
+        if k not in before_keys and f.severity >= Severity.WARNING:
             raise NewFinding(f"the fix brings a new finding: {f.rule} at {f.key}: {f.message}", rules)
     return notes
 

@@ -26,9 +26,10 @@ def test_demo_fixes(tmp_path, training):
     assert not fixed & {(x.rule, x.file, x.key) for x in after.findings}
     tiers = {"keeps-meaning", "changes-training"} if training else {"keeps-meaning"}
     assert not [x for x in after.findings if x.fix is not None and x.fix.tier in tiers]
-    # no finding appears that was not there before (same rule and key)
-    assert {(x.rule, x.file, x.key) for x in after.findings} <= {(x.rule, x.file, x.key)
-                                                                 for x in before.findings}
+    # no warning or error appears that was not there before (same rule and key); info findings
+    # are notes about what a rule could not judge, not defects
+    assert {(x.rule, x.file, x.key) for x in after.findings if x.severity.word != "info"} <= {
+        (x.rule, x.file, x.key) for x in before.findings}
     for src in DEMO.iterdir():
         old = src.read_text(encoding="utf-8")
         new = (folder / src.name).read_text(encoding="utf-8")

@@ -133,5 +133,12 @@ def fp16_on_bf16_model(ctx) -> None:
     stored = (arch.torch_dtype or "").lower()
     if stored not in _BF16_WORDS:
         return
+    gpu = ctx.gpu
+    if gpu is not None and not gpu.supports("bf16"):
+        # fp16 is the only half precision this card has: say so, do not warn against the only choice
+        ctx.report(f, "no-bf16-card", key=f.key, family=arch.family, stored=arch.torch_dtype,
+                   source=arch.source or "model config", gpu=gpu.label,
+                   capability=gpu.capability_text)
+        return
     ctx.report(f, key=f.key, family=arch.family, stored=arch.torch_dtype,
                source=arch.source or "model config")
