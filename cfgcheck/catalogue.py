@@ -43,6 +43,7 @@ class Rule:
     fix: dict[str, Any] | None = None
     needs: tuple[str, ...] = ()  # "gpu", "model", "rows": what the rule cannot judge without
     path: str = ""
+    stage: str = "normal"  # "last": runs after the other rules and sees their findings
 
     def threshold(self, name: str) -> Any:
         t = self.thresholds[name]
@@ -82,6 +83,7 @@ def _parse(path: Path) -> Rule:
         fix=data.get("fix"),
         needs=tuple(data.get("needs") or ()),
         path=str(path),
+        stage=str(data.get("stage") or "normal"),
     )
 
 

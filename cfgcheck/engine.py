@@ -10,7 +10,7 @@ import os
 import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any, Callable, Iterable
 
 from . import load as loadmod
 from .catalogue import Rule, load_catalogue
@@ -19,6 +19,7 @@ from .findings import Finding, Fix, InputProblem, InternalError, Severity
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted
 from .view import Field, RunView, build_view
+from . import waivers as waivermod
 
 CONFIG_SUFFIXES = (".yaml", ".yml", ".json")
 
@@ -34,6 +35,7 @@ class Options:
     thresholds: dict[str, dict[str, Any]] = field(default_factory=dict)  # per-rule overrides
     cwd: Path | None = None
     debug: bool = False  # re-raise a failing rule instead of reporting it
+    waivers: tuple[waivermod.ProjectWaiver, ...] = ()  # from the project configuration
 
 
 @dataclass
@@ -45,6 +47,8 @@ class FileReport:
     layout: str | None = None
     internal: list[InternalError] = field(default_factory=list)
     views: list[RunView] = field(default_factory=list)
+    waived: list[tuple[Finding, str]] = field(default_factory=list)  # (finding, reason)
+    baselined: int = 0  # findings hidden because the baseline holds them
 
 
 @dataclass
@@ -74,6 +78,14 @@ class Report:
     def count(self, severity: Severity) -> int:
         return sum(1 for f in self.findings if f.severity == severity)
 
+    @property
+    def waived(self) -> int:
+        return sum(len(fr.waived) for fr in self.files)
+
+    @property
+    def baselined(self) -> int:
+        return sum(fr.baselined for fr in self.files)
+
 
 # --------------------------------------------------------------------------- the check context
 
@@ -81,8 +93,12 @@ class Context:
     """What a check sees: the view, the knowledge, the options, and ``report``."""
 
     def __init__(self, view: RunView, rule: Rule, options: Options, sink: list[Finding],
-                 file: str):
+                 file: str, waivers: list | None = None, earlier: list[Finding] | None = None,
+                 active: frozenset[str] = frozenset()):
         self.view = view
+        self.waivers = waivers or []  # waiver comments of this document
+        self.earlier = earlier or []  # findings of the rules that ran before (stage: last)
+        self.active = active  # ids of the rules that run
         self.doc: Document = view.doc
         self.rule = rule
         self.options = options
@@ -119,10 +135,16 @@ class Context:
     # reporting --------------------------------------------------------------
     def report(self, at: Field | tuple | None = None, variant: str = "default", *,
                on: str = "value", fix: Fix | None = None, **data: Any) -> None:
-        path = at.path if isinstance(at, Field) else tuple(at or ())
+        span = None
+        if isinstance(at, waivermod.Waiver):  # a comment: located where it is written
+            span = at.span
+            paths = waivermod.target_paths(self.doc, at.target) if at.target else []
+            path = min(paths, key=len) if paths else ()
+        else:
+            path = at.path if isinstance(at, Field) else tuple(at or ())
         self._sink.append(
             make_finding(self.rule, self.options, self.doc, self.file, path, variant, on, data,
-                         fix)
+                         fix, span)
         )
 
     def cannot_judge(self, what: str, **data: Any) -> None:
@@ -162,22 +184,24 @@ def _location(doc: Document, path: tuple, on: str) -> tuple[int, int]:
 
 
 def _finding(*, rule: str, severity: Severity, doc: Document, file: str, path: tuple, on: str,
-             message: str, hint: str, data: dict[str, Any], fix: Fix | None = None) -> Finding:
-    line, column = _location(doc, path, on)
+             message: str, hint: str, data: dict[str, Any], fix: Fix | None = None,
+             span=None) -> Finding:
+    line, column = (span.line, span.column) if span is not None else _location(doc, path, on)
     return Finding(rule=rule, severity=severity, file=file, line=line, column=column,
                    key=dotted(path), message=message, hint=hint, data=data, path=tuple(path),
                    document=doc.index, fix=fix)
 
 
 def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: tuple,
-                 variant: str, on: str, data: dict[str, Any], fix: Fix | None) -> Finding:
+                 variant: str, on: str, data: dict[str, Any], fix: Fix | None,
+                 span=None) -> Finding:
     """The one place findings are made."""
     msg = rule.messages[variant]
     severity = options.severity.get(rule.id) or msg.severity or rule.severity
     return _finding(rule=rule.id, severity=severity, doc=doc, file=file, path=path, on=on,
                     message=_fill(msg.message, data), hint=_fill(msg.hint, data),
                     data=dict(data, variant=variant) if variant != "default" else dict(data),
-                    fix=fix)
+                    fix=fix, span=span)
 
 
 # --------------------------------------------------------------------------- running
@@ -192,13 +216,20 @@ def active_rules(options: Options) -> list[tuple[Rule, Any]]:
         if rule_id in options.ignore:
             continue
         out.append((rule, checks[rule_id]))
+    out.sort(key=lambda rc: rc[0].stage == "last")  # stable: catalogue order otherwise
     return out
 
 
-def lint_view(view: RunView, options: Options, file: str, report: FileReport) -> None:
-    for rule, fn in active_rules(options):
+def lint_view(view: RunView, options: Options, file: str, report: FileReport,
+              waivers: list | None = None) -> None:
+    rules = active_rules(options)
+    active = frozenset(rule.id for rule, _ in rules)
+    start = len(report.findings)
+    for rule, fn in rules:
         sink: list[Finding] = []
-        ctx = Context(view, rule, options, sink, file)
+        ctx = Context(view, rule, options, sink, file, waivers=waivers,
+                      earlier=report.findings[start:] if rule.stage == "last" else None,
+                      active=active)
         try:
             fn(ctx)
         except Exception as exc:  # a bug in a rule: report it and go on with the others
@@ -211,12 +242,43 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport) ->
             )
             continue
         report.findings.extend(sink)
+    _apply_waivers(view.doc, waivers or [], options, report, start)
+
+
+def _apply_waivers(doc: Document, waivers: list, options: Options, report: FileReport,
+                   start: int) -> None:
+    """Move the findings a waiver comment or a project waiver covers to ``report.waived``."""
+    if not waivers and not options.waivers:
+        return
+    targets = {w.target: waivermod.target_paths(doc, w.target) for w in waivers if w.target}
+    kept = []
+    for f in report.findings[start:]:
+        reason = None
+        if f.rule != WAIVER_RULE:
+            for w in waivers:
+                if waivermod.covers(w, f, targets.get(w.target, ())):
+                    reason = w.reason or ""
+                    break
+            else:
+                for pw in options.waivers:
+                    if waivermod.project_covers(pw, f):
+                        reason = pw.reason
+                        break
+        if reason is None:
+            kept.append(f)
+        else:
+            report.waived.append((f, reason))
+    report.findings[start:] = kept
+
+
+WAIVER_RULE = "waiver-comment-problem"
 
 
 def lint_documents(docs: list[Document], file: str, options: Options,
-                   layout: str | None = None) -> FileReport:
+                   layout: str | None = None, text: str | None = None) -> FileReport:
     report = FileReport(file=file)
     reasons = []
+    waivers = waivermod.scan(text) if text and docs and docs[0].format == "yaml" else []
     for doc in docs:
         view = build_view(doc, layout)
         report.views.append(view)
@@ -227,7 +289,8 @@ def lint_documents(docs: list[Document], file: str, options: Options,
         from .links import attach_linked  # the linked DeepSpeed / accelerate files
 
         attach_linked(view, file, options.cwd)
-        lint_view(view, options, file, report)
+        mine = [w for w in waivers if waivermod.in_document(doc, w)] if len(docs) > 1 else waivers
+        lint_view(view, options, file, report, mine)
     if not report.layout:
         report.skipped = reasons[0] if reasons else "empty file"
     report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
@@ -242,7 +305,7 @@ def lint_text(text: str, name: str = "<text>", options: Options | None = None,
     except LoadError as exc:
         return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
                                                           column=exc.column, reason=exc.reason))
-    return lint_documents(docs, name, options, layout)
+    return lint_documents(docs, name, options, layout, text)
 
 
 def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
@@ -272,6 +335,9 @@ def expand_paths(paths: Iterable[str | Path]) -> list[str]:
     return out
 
 
-def lint_paths(paths: Iterable[str | Path], options: Options | None = None) -> Report:
+def lint_paths(paths: Iterable[str | Path], options: Options | None = None, *,
+               options_for: Callable[[str], Options] | None = None) -> Report:
+    """Lint files and folders; ``options_for(file)`` gives per-file options when they differ."""
     options = options or Options()
-    return Report(files=[lint_file(p, options) for p in expand_paths(paths)])
+    return Report(files=[lint_file(p, options_for(p) if options_for else options)
+                         for p in expand_paths(paths)])
