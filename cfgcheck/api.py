@@ -1,11 +1,17 @@
-"""The Python API: what the CLI calls, and what launch scripts and sweep generators can call."""
+"""The Python API: what the CLI calls, and what launch scripts and sweep generators can call.
+
+``lint`` (files and folders), ``lint_text`` and ``lint_mapping`` return reports whose findings
+are plain frozen records; ``guard`` lints and raises ``ConfigRejected`` listing every finding at
+or above the gate, for a launch script that must not start a bad run.
+"""
 
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any, Callable, Iterable
 
 from . import engine
 from .engine import FileReport, Options, Report
@@ -18,34 +24,105 @@ EXIT_INPUT = 2
 EXIT_INTERNAL = 3
 
 
-def make_options(*, gpu: str | None = None, gpus: int | None = None, rows: int | None = None,
-                 select: Iterable[str] | None = None, ignore: Iterable[str] = (),
-                 debug: bool = False, cwd: Path | None = None) -> Options:
-    """Options from plain values; raises ValueError (UnknownGpu) for a GPU name we do not know."""
-    return Options(
-        gpu=find_gpu(gpu) if gpu else None,
-        gpus=gpus,
-        rows=rows,
-        select=frozenset(select) if select is not None else None,
-        ignore=frozenset(ignore),
-        debug=debug,
-        cwd=cwd,
-    )
+def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int | None = None,
+                  select: Iterable[str] | None = None, ignore: Iterable[str] | None = None,
+                  severity: Mapping[str, str | Severity] | None = None,
+                  thresholds: Mapping[str, Mapping[str, Any]] | None = None,
+                  debug: bool | None = None, cwd: Path | None = None) -> dict[str, Any]:
+    """The options a caller set explicitly, as engine values (None = not set).
+    Raises ValueError (UnknownGpu) for a GPU name we do not know, ValueError for a bad severity."""
+    return {
+        "gpu": find_gpu(gpu) if gpu else None,
+        "gpus": gpus,
+        "rows": rows,
+        "select": frozenset(select) if select is not None else None,
+        "ignore": frozenset(ignore) if ignore is not None else None,
+        "severity": ({r: s if isinstance(s, Severity) else Severity.parse(s) for r, s in severity.items()}
+                     if severity else None),
+        "thresholds": {r: dict(t) for r, t in thresholds.items()} if thresholds else None,
+        "debug": debug,
+        "cwd": cwd,
+    }
 
 
-def lint(paths: Iterable[str | Path], **options: Any) -> Report:
-    """Lint files and folders."""
-    return engine.lint_paths(paths, make_options(**options))
+def make_options(**options: Any) -> Options:
+    """Options from plain values (see ``given_options``), with no project configuration."""
+    return Options(**{k: v for k, v in given_options(**options).items() if v is not None})
 
 
-def lint_text(text: str, name: str = "<text>", *, fmt: str | None = None, **options: Any) -> FileReport:
-    return engine.lint_text(text, name, make_options(**options), fmt=fmt)
+def _project(project: Any, paths: list):
+    """None, or the project for ``project`` = "auto" (search), a path, or a Project."""
+    if project is None or project is False:
+        return None
+    from . import project as projectmod
+
+    if project == "auto":
+        return projectmod.discover(paths)
+    if isinstance(project, projectmod.Project):
+        return project
+    return projectmod.load(project)
 
 
-def lint_mapping(data: dict, name: str = "<mapping>", **options: Any) -> FileReport:
+def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
+         baseline: str | Path | None = None,
+         progress: Callable[[int, int], None] | None = None, **options: Any) -> Report:
+    """Lint files and folders.
+
+    ``project``: "auto" (default) finds cfgcheck.yaml / [tool.cfgcheck] by walking up from the
+    first path; a path reads that file; None ignores project files. Explicit ``options``
+    (gpu, gpus, rows, select, ignore, severity, thresholds) override the project's values.
+    ``baseline``: a baseline file; findings it holds are left out (counted in ``baselined``).
+    Raises ``project.ProjectError`` / ``baseline.BaselineError`` for a bad project or baseline
+    file, ``ValueError`` for a bad option value.
+    """
+    paths = list(paths)
+    given = given_options(**options)
+    proj = _project(project, paths)
+    if proj is None:
+        opts = Options(**{k: v for k, v in given.items() if v is not None})
+        files = [(f, None) for f in engine.expand_paths(paths)]
+
+        def options_for(file: str) -> Options:
+            return opts
+    else:
+        files = proj.expand(paths or [proj.root])
+
+        def options_for(file: str) -> Options:
+            return proj.options_for(file, given)
+        if baseline is None and proj.baseline is not None and proj.baseline.is_file():
+            baseline = proj.baseline
+    report = Report()
+    for i, (file, skip) in enumerate(files, start=1):
+        if skip:
+            report.files.append(FileReport(file=file, skipped=skip))
+        else:
+            report.files.append(engine.lint_file(file, options_for(file)))
+        if progress is not None:
+            progress(i, len(files))
+    if baseline is not None:
+        from . import baseline as baselinemod
+
+        baselinemod.load(baseline).filter(report)
+    return report
+
+
+def lint_text(text: str, name: str = "<text>", *, fmt: str | None = None, project: Any = None,
+              **options: Any) -> FileReport:
+    """Lint a config held in a string. ``name`` is used in findings (and, with a project, to
+    pick the hardware profile)."""
+    proj = _project(project, [name] if not name.startswith("<") else [])
+    given = given_options(**options)
+    if proj is not None:
+        opts = proj.options_for(name, given)
+    else:
+        opts = Options(**{k: v for k, v in given.items() if v is not None})
+    return engine.lint_text(text, name, opts, fmt=fmt)
+
+
+def lint_mapping(data: Mapping, name: str = "<mapping>", **options: Any) -> FileReport:
     """Lint an in-memory config (e.g. one point of a generated sweep)."""
     text = json.dumps(data, indent=2, default=str)
-    return engine.lint_text(text, name, make_options(**options), fmt="json")
+    return lint_text(text, name, fmt="json", **options)
 
 
 def fix(paths: Iterable[str | Path], *, training: bool = False, halve_batch: bool = False,
@@ -68,6 +145,7 @@ def fix_exit_code(report, *, no_write: bool = False) -> int:
 
 
 def exit_code(report: Report, fail_on: Severity = Severity.WARNING) -> int:
+    """0 clean, 1 a finding at or above ``fail_on``, 2 an unreadable file, 3 a rule failed."""
     if report.problems:
         return EXIT_INPUT
     if report.internal:
@@ -109,3 +187,47 @@ def plan(paths: Iterable[str | Path], **options: Any) -> PlanResult:
             arch = model_of(view, file, opts.cwd)
             out.plans.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=opts.gpus, rows=opts.rows)))
     return out
+
+
+# --------------------------------------------------------------------------- the guard
+
+class ConfigRejected(Exception):
+    """A config a launch script must not start: carries the findings and input problems."""
+
+    def __init__(self, findings: list[Finding], problems: list, internal: list, gate: Severity):
+        self.findings = findings
+        self.problems = problems
+        self.internal = internal
+        self.gate = gate
+        lines = []
+        for p in problems:
+            lines.append(f"  {p.file}:{p.line}:{p.column}: input error: {p.reason}")
+        for e in internal:
+            lines.append(f"  {e.file}: internal error in rule {e.rule}: {e.error}")
+        for f in findings:
+            lines.append(f"  {f.file}:{f.line}:{f.column}: {f.severity.word}: {f.message} [{f.rule}]")
+            if f.hint:
+                lines.append(f"      hint: {f.hint}")
+        n = len(findings) + len(problems) + len(internal)
+        head = f"cfgcheck rejected the config: {n} problem{'s' if n != 1 else ''} at {gate.word} or above"
+        super().__init__(head + "\n" + "\n".join(lines))
+
+
+def guard(target: Any, *, gate: str | Severity = Severity.ERROR, name: str | None = None,
+          **options: Any) -> list[Finding]:
+    """Lint ``target`` and raise ``ConfigRejected`` if anything at or above ``gate`` is found.
+
+    ``target``: a mapping (one config of a sweep), or a path / list of paths. Unreadable files
+    and failing rules always reject. Returns the findings below the gate (for logging).
+    """
+    level = gate if isinstance(gate, Severity) else Severity.parse(gate)
+    if isinstance(target, Mapping):
+        fr = lint_mapping(target, name or "<mapping>", **options)
+        report = Report(files=[fr])
+    else:
+        paths = [target] if isinstance(target, (str, Path)) else list(target)
+        report = lint(paths, **options)
+    blocking = [f for f in report.findings if f.severity >= level]
+    if blocking or report.problems or report.internal:
+        raise ConfigRejected(blocking, report.problems, report.internal, level)
+    return [f for f in report.findings if f.severity < level]

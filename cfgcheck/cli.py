@@ -22,6 +22,8 @@ app = typer.Typer(
 class Format(str, Enum):
     text = "text"
     json = "json"
+    sarif = "sarif"
+    github = "github"
 
 
 class Level(str, Enum):
@@ -30,10 +32,25 @@ class Level(str, Enum):
     error = "error"
 
 
+PROGRESS_MIN_FILES = 10  # fewer files than this finish before a progress line would help
+
+
 def _version(value: bool) -> None:
     if value:
         typer.echo(f"cfgcheck {__version__}")
         raise typer.Exit()
+
+
+def _complete_gpu(incomplete: str) -> list[str]:
+    from .knowledge.hardware import ALIASES, GPUS
+
+    return [n for n in sorted(GPUS) + sorted(ALIASES) if n.startswith(incomplete.lower())]
+
+
+def _complete_rule(incomplete: str) -> list[str]:
+    from .catalogue import load_catalogue
+
+    return [r for r in sorted(load_catalogue()) if r.startswith(incomplete)]
 
 
 @app.callback()
@@ -44,39 +61,187 @@ def main_options(
     pass
 
 
+def color_wanted(stream) -> bool:
+    """Colour only on a terminal, and never when NO_COLOR is set to anything non-empty."""
+    import os
+
+    if os.environ.get("NO_COLOR"):
+        return False
+    if os.environ.get("TERM") == "dumb":
+        return False
+    isatty = getattr(stream, "isatty", None)
+    return bool(isatty and isatty())
+
+
+class _Progress:
+    """'cfgcheck: 12/40 files' on stderr, rewritten in place, erased at the end."""
+
+    def __init__(self, stream):
+        self.stream = stream
+        self.shown = False
+        self.last = 0.0
+
+    def __call__(self, done: int, total: int) -> None:
+        import time
+
+        if total < PROGRESS_MIN_FILES:
+            return
+        now = time.monotonic()
+        if done < total and now - self.last < 0.1:
+            return
+        self.last = now
+        self.stream.write(f"\rcfgcheck: {done}/{total} files")
+        self.stream.flush()
+        self.shown = True
+
+    def close(self) -> None:
+        if self.shown:
+            self.stream.write("\r\x1b[K")
+            self.stream.flush()
+
+
+def _fail(message: str, code: int) -> None:
+    typer.echo(message, err=True)
+    raise typer.Exit(code)
+
+
+def _severity_pairs(pairs: list[str]) -> dict[str, str]:
+    out = {}
+    for item in pairs:
+        rule, sep, level = item.partition("=")
+        if not sep or not rule.strip() or not level.strip():
+            _fail(f"cfgcheck: --severity expects RULE=LEVEL (e.g. lora-scale-below-one=error), got {item!r}", 2)
+        out[rule.strip()] = level.strip()
+    return out
+
+
+def _unknown_rules(names) -> None:
+    import difflib
+
+    from .catalogue import load_catalogue
+
+    rules = load_catalogue()
+    for name in names:
+        if name not in rules:
+            near = difflib.get_close_matches(name, list(rules), n=1, cutoff=0.6)
+            _fail(f"cfgcheck: no rule {name!r}" + (f"; did you mean {near[0]}?" if near else " (see: cfgcheck rules)"), 2)
+
+
+def _frames(report, shown) -> dict[str, list[str]]:
+    """Each file that has a finding shown, read once, as lines."""
+    from .load import LoadError, read_source
+
+    out: dict[str, list[str]] = {}
+    for f in shown:
+        if f.file in out or f.file.startswith("<"):
+            continue
+        try:
+            out[f.file] = read_source(f.file).text.splitlines()
+        except LoadError:
+            out[f.file] = []
+    return out
+
+
 @app.command()
 def lint(
-    paths: List[Path] = typer.Argument(..., help="Config files or folders (YAML and JSON inside are checked)."),
-    gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
+    paths: Optional[List[Path]] = typer.Argument(
+        None, help="Config files or folders (YAML and JSON inside are checked). "
+                   "Default: the configs globs of the project file."),
+    gpu: Optional[str] = typer.Option(None, "--gpu", autocompletion=_complete_gpu,
+                                      help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
-    fmt: Format = typer.Option(Format.text, "--format", help="Output format."),
-    show: Level = typer.Option(Level.warning, "--show", help="Lowest severity printed in text output."),
+    rule: Optional[List[str]] = typer.Option(None, "--rule", autocompletion=_complete_rule,
+                                             help="Run only this rule (repeat for several)."),
+    skip_rule: Optional[List[str]] = typer.Option(None, "--skip-rule", autocompletion=_complete_rule,
+                                                  help="Do not run this rule (repeat for several)."),
+    severity: Optional[List[str]] = typer.Option(None, "--severity", metavar="RULE=LEVEL",
+                                                 help="Report a rule at another severity, e.g. lora-scale-below-one=error."),
+    fmt: Format = typer.Option(Format.text, "--format", help="Output format: text, json, sarif (SARIF 2.1.0) or github (workflow-command annotations)."),
+    show: Optional[Level] = typer.Option(None, "--show", help="Lowest severity printed in text and github output [default: warning]."),
+    gate: Optional[Level] = typer.Option(None, "--gate", help="Lowest severity that makes the exit status 1 [default: warning]."),
+    project: Optional[Path] = typer.Option(None, "--project", help="Project file to use instead of searching for cfgcheck.yaml / pyproject.toml."),
+    no_project: bool = typer.Option(False, "--no-project", help="Ignore project files."),
+    baseline: Optional[Path] = typer.Option(None, "--baseline", help="Leave out the findings recorded in this baseline file."),
+    save_baseline: Optional[Path] = typer.Option(None, "--save-baseline", help="Record the current findings in this file and exit 0."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="Text output: only the finding lines, nothing when clean."),
+    summary: bool = typer.Option(False, "--summary", help="Text output: only the summary line."),
+    source: Optional[bool] = typer.Option(None, "--source/--no-source", help="Text output: print the offending line with a caret [default: on a terminal]."),
     debug: bool = typer.Option(False, "--debug", help="Re-raise an error inside a rule instead of reporting it."),
 ) -> None:
     """Check training configs and report what would waste the run."""
     from . import api
+    from .baseline import BaselineError
     from .findings import Severity
     from .knowledge.hardware import UnknownGpu
+    from .project import ProjectError
     from .render import render
 
+    if quiet and summary:
+        _fail("cfgcheck: --quiet and --summary exclude each other", 2)
+    if (quiet or summary) and fmt is not Format.text:
+        _fail("cfgcheck: --quiet and --summary apply to text output only", 2)
+    if project is not None and no_project:
+        _fail("cfgcheck: --project and --no-project exclude each other", 2)
+    if baseline is not None and save_baseline is not None:
+        _fail("cfgcheck: --baseline and --save-baseline exclude each other", 2)
+    _unknown_rules(list(rule or []) + list(skip_rule or []))
+    levels = _severity_pairs(severity or [])
+    _unknown_rules(levels)
+    chosen = {
+        "gpu": gpu, "gpus": gpus, "rows": rows, "debug": debug or None,
+        "select": rule or None, "ignore": skip_rule or None, "severity": levels or None,
+    }
+    progress = None
+    if not (quiet or summary) and sys.stderr.isatty():
+        progress = _Progress(sys.stderr)
     try:
-        options = api.make_options(gpu=gpu, gpus=gpus, rows=rows, debug=debug)
-    except UnknownGpu as exc:
-        typer.echo(f"cfgcheck: {exc}", err=True)
-        raise typer.Exit(api.EXIT_INPUT)
-    from . import engine
+        proj = None
+        if not no_project:
+            from . import project as projectmod
 
-    report = engine.lint_paths(paths, options)
-    level = Severity.parse(show.value)
-    if fmt is Format.json:
-        out = render("json", report, report.findings)
+            proj = projectmod.load(project) if project else projectmod.discover(paths or [])
+        if not paths and proj is None:
+            _fail("cfgcheck: give config files or folders to check (or a cfgcheck.yaml with configs globs)", 2)
+        report = api.lint(paths or [], project=proj, progress=progress,
+                          baseline=None if save_baseline else baseline, **chosen)
+    except UnknownGpu as exc:
+        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
+    except ValueError as exc:
+        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
+    except (ProjectError, BaselineError) as exc:
+        _fail(str(exc), api.EXIT_INPUT)
+    finally:
+        if progress is not None:
+            progress.close()
+
+    if save_baseline is not None:
+        from .baseline import save
+
+        n = save(report, save_baseline)
+        typer.echo(f"cfgcheck: recorded {n} finding{'s' if n != 1 else ''} in {save_baseline}", err=True)
+        for p in report.problems:
+            typer.echo(f"{p.file}:{p.line}:{p.column}: input error: {p.reason}", err=True)
+        raise typer.Exit(api.EXIT_INPUT if report.problems else api.EXIT_CLEAN)
+
+    level = Severity.parse((show.value if show else None) or (proj.show.word if proj and proj.show else "warning"))
+    fail_on = Severity.parse((gate.value if gate else None) or (proj.gate.word if proj and proj.gate else "warning"))
+    if fmt in (Format.json, Format.sarif):
+        out = render(fmt.value, report, report.findings)
     else:
         shown = api.visible(report.findings, level)
         hidden = sum(1 for f in report.findings if f.severity == Severity.INFO and f.severity < level)
-        out = render("text", report, shown, hidden_info=hidden)
+        if fmt is Format.github:
+            out = render("github", report, shown, hidden_info=hidden)
+        else:
+            tty_color = color_wanted(sys.stdout)
+            want_source = source if source is not None else bool(sys.stdout.isatty())
+            frames = _frames(report, shown) if want_source and not (quiet or summary) else None
+            mode = "quiet" if quiet else "summary" if summary else "full"
+            out = render("text", report, shown, hidden_info=hidden, color=tty_color, frames=frames,
+                         mode=mode)
     sys.stdout.write(out)
-    raise typer.Exit(api.exit_code(report))
+    raise typer.Exit(api.exit_code(report, fail_on))
 
 
 @app.command()

@@ -47,7 +47,7 @@ class FileReport:
     layout: str | None = None
     internal: list[InternalError] = field(default_factory=list)
     views: list[RunView] = field(default_factory=list)
-    waived: list[tuple[Finding, str]] = field(default_factory=list)  # (finding, reason)
+    waived: list[tuple[Finding, str, str]] = field(default_factory=list)  # (finding, reason, "comment" | "project")
     baselined: int = 0  # findings hidden because the baseline holds them
 
 
@@ -253,21 +253,21 @@ def _apply_waivers(doc: Document, waivers: list, options: Options, report: FileR
     targets = {w.target: waivermod.target_paths(doc, w.target) for w in waivers if w.target}
     kept = []
     for f in report.findings[start:]:
-        reason = None
+        reason, kind = None, None
         if f.rule != WAIVER_RULE:
             for w in waivers:
                 if waivermod.covers(w, f, targets.get(w.target, ())):
-                    reason = w.reason or ""
+                    reason, kind = w.reason or "", "comment"
                     break
             else:
                 for pw in options.waivers:
                     if waivermod.project_covers(pw, f):
-                        reason = pw.reason
+                        reason, kind = pw.reason, "project"
                         break
         if reason is None:
             kept.append(f)
         else:
-            report.waived.append((f, reason))
+            report.waived.append((f, reason, kind))
     report.findings[start:] = kept
 
 

@@ -34,4 +34,4 @@ def waiver_comment_problem(ctx) -> None:
                 continue  # a rule that did not run cannot be judged stale
             one = type(w)(**{**w.__dict__, "rules": (rule,)})
             if not any(covers(one, f, paths) for f in ctx.earlier):
-                ctx.report(w, rule=rule, target=w.target)
+                ctx.report(w, rule=rule)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import importlib
 
-FORMATS = ("text", "json")
+FORMATS = ("text", "json", "sarif", "github")
 
 
 def render(fmt: str, report, visible, **kw) -> str:

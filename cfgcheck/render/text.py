@@ -1,12 +1,25 @@
-"""Plain text: one GNU-style ``file:line:column: severity: message [rule]`` line per finding."""
+"""Plain text: one GNU-style ``file:line:column: severity: message [rule]`` line per finding.
+
+Options (all off by default, so piped output stays plain): ``color`` (ANSI SGR colours),
+``frames`` (file -> its lines: print the offending line with a caret under the column),
+``mode`` ("full", "quiet": finding lines only, "summary": the summary line only).
+"""
 
 from __future__ import annotations
 
 from ..findings import Severity
 
+_SGR = {"error": "1;31", "warning": "1;33", "info": "1;36", "where": "1", "rule": "2",
+        "hint": "32", "caret": "1;32", "summary": "1"}
+MAX_FRAME = 120  # characters of a source line shown around the column
+
 
 def _plural(n: int, word: str) -> str:
     return f"{n} {word}{'' if n == 1 else 's'}"
+
+
+def _paint(text: str, what: str, color: bool) -> str:
+    return f"\x1b[{_SGR[what]}m{text}\x1b[0m" if color and text else text
 
 
 def summary_line(report, hidden_info: int = 0) -> str:
@@ -20,21 +33,62 @@ def summary_line(report, hidden_info: int = 0) -> str:
         parts.append(f"{len(report.problems)} unreadable")
     counts = f"{_plural(errors, 'error')}, {_plural(warnings, 'warning')}, {infos} info"
     line = "cfgcheck: " + ", ".join(parts) + f"; {counts}"
+    extra = []
+    if getattr(report, "waived", 0):
+        extra.append(f"{report.waived} waived")
+    if getattr(report, "baselined", 0):
+        extra.append(f"{report.baselined} in the baseline")
+    if extra:
+        line += "; " + ", ".join(extra) + " (not counted)"
     if hidden_info:
         line += f" ({hidden_info} info not shown: --show info)"
     return line
 
 
-def render(report, visible, *, hidden_info: int = 0, color: bool = False, **_) -> str:
+def _printable(text: str) -> str:
+    return "".join(c if c == "\t" or c.isprintable() else "?" for c in text)
+
+
+def frame(lines: list[str], line: int, column: int, color: bool = False) -> list[str]:
+    """The source line with a caret under ``column``; [] when the line is not there."""
+    if not 1 <= line <= len(lines):
+        return []
+    src = _printable(lines[line - 1].rstrip("\r\n"))
+    col = max(1, min(column, len(src) + 1))
+    start = 0
+    if len(src) > MAX_FRAME:
+        start = max(0, min(col - 1 - MAX_FRAME // 2, len(src) - MAX_FRAME))
+        shown = src[start:start + MAX_FRAME]
+        prefix, suffix = ("..." if start else ""), ("..." if start + MAX_FRAME < len(src) else "")
+        src, lead = prefix + shown + suffix, len(prefix)
+    else:
+        lead = 0
+    under = "".join("\t" if c == "\t" else " " for c in src[:lead + col - 1 - start])
+    number = f"{line:>5}"
+    return [f"{number} | {src}", f"{' ' * len(number)} | {under}{_paint('^', 'caret', color)}"]
+
+
+def render(report, visible, *, hidden_info: int = 0, color: bool = False,
+           frames: dict[str, list[str]] | None = None, mode: str = "full", **_) -> str:
+    if mode == "summary":
+        return summary_line(report, hidden_info) + "\n"
     lines: list[str] = []
     for p in report.problems:
-        lines.append(f"{p.file}:{p.line}:{p.column}: input error: {p.reason}")
+        lines.append(f"{_paint(f'{p.file}:{p.line}:{p.column}:', 'where', color)} "
+                     f"{_paint('input error', 'error', color)}: {p.reason}")
     for f in visible:
-        lines.append(f"{f.file}:{f.line}:{f.column}: {f.severity.word}: {f.message} [{f.rule}]")
+        word = f.severity.word
+        lines.append(f"{_paint(f'{f.file}:{f.line}:{f.column}:', 'where', color)} "
+                     f"{_paint(word, word, color)}: {f.message} {_paint(f'[{f.rule}]', 'rule', color)}")
+        if mode == "quiet":
+            continue
+        if frames is not None and f.file in frames:
+            lines.extend(frame(frames[f.file], f.line, f.column, color))
         if f.hint:
-            lines.append(f"    hint: {f.hint}")
+            lines.append(f"    {_paint('hint', 'hint', color)}: {f.hint}")
     for e in report.internal:
         lines.append(f"{e.file}: internal error in rule {e.rule}: {e.error} (a bug in cfgcheck; "
                      "the other rules ran)")
-    lines.append(summary_line(report, hidden_info))
-    return "\n".join(lines) + "\n"
+    if mode != "quiet":
+        lines.append(_paint(summary_line(report, hidden_info), "summary", color))
+    return "\n".join(lines) + "\n" if lines else ""

@@ -1,0 +1,510 @@
+"""Project configuration: ``cfgcheck.yaml`` or ``[tool.cfgcheck]`` in ``pyproject.toml``.
+
+Found by walking up from the first linted path (or the working folder) to the repository root
+(the folder holding ``.git``). Validated with a JSON Schema; every error carries
+``file:line:column``. jsonschema is imported only when a project file is actually found.
+
+What it holds: which files are training configs (``configs``/``exclude`` globs), rule selection,
+severity and threshold overrides, hardware profiles per path glob, waivers (the way to waive a
+finding in a JSON file), the gate, and a baseline file. ``options_for(file, given)`` turns it
+into the engine's per-file ``Options``; values given on the command line (``given``) win.
+
+``pyproject.toml`` is read with ``tomllib`` (Python 3.11+). On Python 3.10 a ``[tool.cfgcheck]``
+table is refused with an error that says to use ``cfgcheck.yaml``: we do not ship a TOML parser.
+"""
+
+from __future__ import annotations
+
+import difflib
+import os
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Iterable
+
+from .engine import CONFIG_SUFFIXES, Options
+from .findings import Severity
+from .waivers import ProjectWaiver
+
+YAML_NAME = "cfgcheck.yaml"
+TOML_NAME = "pyproject.toml"
+TABLE = ("tool", "cfgcheck")
+
+_LEVEL = {"enum": ["error", "warning", "info"]}
+_GLOBS = {"type": "array", "items": {"type": "string", "minLength": 1}}
+_GLOB_OR_GLOBS = {"anyOf": [{"type": "string", "minLength": 1}, _GLOBS]}
+_RULE_ID = {"type": "string", "pattern": "^[a-z0-9][a-z0-9-]*$"}
+
+SCHEMA: dict[str, Any] = {
+    "$schema": "https://json-schema.org/draft/2020-12/schema",
+    "title": "cfgcheck project configuration",
+    "type": "object",
+    "additionalProperties": False,
+    "properties": {
+        "configs": _GLOBS,
+        "exclude": _GLOBS,
+        "rules": {
+            "type": "object",
+            "additionalProperties": False,
+            "properties": {
+                "only": {"type": "array", "items": _RULE_ID},
+                "skip": {"type": "array", "items": _RULE_ID},
+            },
+        },
+        "severity": {"type": "object", "propertyNames": _RULE_ID, "additionalProperties": _LEVEL},
+        "thresholds": {
+            "type": "object",
+            "propertyNames": _RULE_ID,
+            "additionalProperties": {
+                "type": "object",
+                "additionalProperties": {"type": "number"},
+            },
+        },
+        "profiles": {
+            "type": "array",
+            "items": {
+                "type": "object",
+                "additionalProperties": False,
+                "required": ["paths"],
+                "properties": {
+                    "paths": _GLOB_OR_GLOBS,
+                    "gpu": {"type": "string", "minLength": 1},
+                    "gpus": {"type": "integer", "minimum": 1},
+                    "rows": {"type": "integer", "minimum": 1},
+                },
+            },
+        },
+        "waive": {
+            "type": "array",
+            "items": {
+                "type": "object",
+                "additionalProperties": False,
+                "required": ["rule", "files", "reason"],
+                "properties": {
+                    "rule": _RULE_ID,
+                    "files": _GLOB_OR_GLOBS,
+                    "key": {"type": "string", "minLength": 1},
+                    "reason": {"type": "string", "pattern": r"\S"},
+                },
+            },
+        },
+        "gate": _LEVEL,
+        "show": _LEVEL,
+        "baseline": {"type": "string", "minLength": 1},
+    },
+}
+
+
+class ProjectError(Exception):
+    """The project configuration is wrong: one or more (file, line, column, reason)."""
+
+    def __init__(self, problems: list[tuple[str, int, int, str]]):
+        self.problems = sorted(problems, key=lambda p: (p[1], p[2]))
+        super().__init__("\n".join(f"{f}:{line}:{col}: project config: {r}"
+                                   for f, line, col, r in self.problems))
+
+
+# --------------------------------------------------------------------------- globs
+
+def glob_regex(pattern: str) -> re.Pattern:
+    """A path glob: ``*`` and ``?`` stay inside one folder, ``**`` spans folders, ``[..]`` sets."""
+    pat = pattern.strip().replace("\\", "/")
+    if pat.startswith("./"):
+        pat = pat[2:]
+    out, i = "", 0
+    while i < len(pat):
+        c = pat[i]
+        if pat.startswith("**/", i):
+            out += "(?:.*/)?"
+            i += 3
+        elif pat.startswith("**", i):
+            out += ".*"
+            i += 2
+        elif c == "*":
+            out += "[^/]*"
+            i += 1
+        elif c == "?":
+            out += "[^/]"
+            i += 1
+        elif c == "[":
+            j = pat.find("]", i + 1)
+            if j == -1:
+                out += re.escape(c)
+                i += 1
+            else:
+                body = pat[i + 1:j]
+                if body.startswith("!"):
+                    body = "^" + body[1:]
+                out += "[" + body.replace("\\", "\\\\") + "]"
+                i = j + 1
+        else:
+            out += re.escape(c)
+            i += 1
+    if pat.endswith("/"):
+        out += ".*"
+    return re.compile(out + r"\Z")
+
+
+def _globs(value: Any) -> tuple[str, ...]:
+    if value is None:
+        return ()
+    return (value,) if isinstance(value, str) else tuple(value)
+
+
+def matches(rel: str, globs: Iterable[re.Pattern]) -> bool:
+    return any(g.match(rel) for g in globs)
+
+
+# --------------------------------------------------------------------------- the project
+
+@dataclass
+class Profile:
+    globs: tuple[re.Pattern, ...]
+    gpu: Any = None  # a knowledge.hardware.Gpu
+    gpus: int | None = None
+    rows: int | None = None
+
+
+@dataclass
+class Project:
+    source: Path  # the file it was read from
+    root: Path  # the folder holding it; globs are relative to it
+    data: dict[str, Any]
+    configs: tuple[re.Pattern, ...] = ()
+    exclude: tuple[re.Pattern, ...] = ()
+    only: frozenset[str] | None = None
+    skip: frozenset[str] = frozenset()
+    severity: dict[str, Severity] = field(default_factory=dict)
+    thresholds: dict[str, dict[str, Any]] = field(default_factory=dict)
+    profiles: list[Profile] = field(default_factory=list)
+    waivers: list[tuple[tuple[re.Pattern, ...], ProjectWaiver]] = field(default_factory=list)
+    gate: Severity | None = None
+    show: Severity | None = None
+    baseline: Path | None = None
+
+    def relative(self, file: str | Path) -> str | None:
+        """The file's path relative to the project root, '/'-separated; None when outside it."""
+        try:
+            rel = Path(os.path.abspath(file)).relative_to(self.root)
+        except ValueError:
+            return None
+        return rel.as_posix()
+
+    def excluded(self, file: str | Path) -> str | None:
+        """Why the project says this file is not a training config, or None."""
+        rel = self.relative(file)
+        if rel is None:
+            return None
+        if self.exclude and matches(rel, self.exclude):
+            return f"excluded by {self.source.name}"
+        if self.configs and not matches(rel, self.configs):
+            return f"not matched by the configs globs of {self.source.name}"
+        return None
+
+    def expand(self, paths: Iterable[str | Path]) -> list[tuple[str, str | None]]:
+        """Files to lint as (file, skip reason). Folders are walked for the project's configs
+        (unlisted files are left out silently); files named explicitly are always listed."""
+        out: list[tuple[str, str | None]] = []
+        for p in paths:
+            p = Path(p)
+            if p.is_dir():
+                for root, dirs, files in os.walk(p):
+                    dirs[:] = sorted(d for d in dirs if not d.startswith("."))
+                    for f in sorted(files):
+                        if f.lower().endswith(CONFIG_SUFFIXES):
+                            full = str(Path(root) / f)
+                            if self.excluded(full) is None:
+                                out.append((full, None))
+            else:
+                out.append((str(p), self.excluded(p)))
+        return out
+
+    def options_for(self, file: str | Path, given: dict[str, Any]) -> Options:
+        """Options for one file: project values, then matching profiles in order, then ``given``
+        (what the command line or the caller set explicitly, which always wins)."""
+        values: dict[str, Any] = {
+            "select": self.only,
+            "ignore": self.skip,
+            "severity": dict(self.severity),
+            "thresholds": {k: dict(v) for k, v in self.thresholds.items()},
+        }
+        rel = self.relative(file)
+        if rel is not None:
+            for prof in self.profiles:
+                if matches(rel, prof.globs):
+                    for name in ("gpu", "gpus", "rows"):
+                        if getattr(prof, name) is not None:
+                            values[name] = getattr(prof, name)
+            values["waivers"] = tuple(w for globs, w in self.waivers if matches(rel, globs))
+        for name, value in given.items():
+            if value is None:
+                continue
+            if name in ("severity", "thresholds"):
+                values[name] = {**values[name], **value}
+            elif name == "ignore":
+                values[name] = frozenset(values["ignore"]) | frozenset(value)
+            else:
+                values[name] = value
+        return Options(**values)
+
+
+# --------------------------------------------------------------------------- finding the file
+
+def find_file(start: str | Path | None = None) -> Path | None:
+    """The nearest cfgcheck.yaml, or pyproject.toml with a [tool.cfgcheck] table, walking up from
+    ``start`` to the repository root (a folder holding .git) or the filesystem root."""
+    here = Path(os.path.abspath(start or os.getcwd()))
+    if not here.is_dir():
+        here = here.parent
+    for folder in (here, *here.parents):
+        yaml_file = folder / YAML_NAME
+        toml_file = folder / TOML_NAME
+        has_table = toml_file.is_file() and _mentions_table(toml_file)
+        if yaml_file.is_file():
+            if has_table:
+                raise ProjectError([(str(toml_file), 1, 1,
+                                     f"both {YAML_NAME} and [tool.cfgcheck] in {TOML_NAME} are "
+                                     f"in {folder}; keep one")])
+            return yaml_file
+        if has_table:
+            return toml_file
+        if (folder / ".git").exists():
+            return None
+    return None
+
+
+_TABLE_LINE = re.compile(r"^\s*\[\[?\s*tool\s*\.\s*cfgcheck\s*[\].]", re.M)
+
+
+def _mentions_table(path: Path) -> bool:
+    try:
+        text = path.read_text(encoding="utf-8", errors="replace")
+    except OSError:
+        return False
+    return bool(_TABLE_LINE.search(text)) or bool(
+        re.search(r"^\s*\[\s*tool\s*\]\s*$(?:(?!^\s*\[).)*^\s*cfgcheck\s*[.=]", text, re.M | re.S))
+
+
+def discover(paths: Iterable[str | Path] = ()) -> Project | None:
+    paths = list(paths)
+    path = find_file(paths[0] if paths else None)
+    return load(path) if path else None
+
+
+# --------------------------------------------------------------------------- reading
+
+def load(path: str | Path) -> Project:
+    """Read, validate and resolve a project file; raises ProjectError with positions."""
+    path = Path(os.path.abspath(path))
+    name = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ProjectError([(name, 1, 1, f"cannot read: {exc}")]) from None
+    if path.suffix == ".toml":
+        data, locate = _read_toml(text, name)
+    else:
+        data, locate = _read_yaml(text, name)
+    _validate(data, name, locate)
+    return _resolve(data, path, locate)
+
+
+def _read_yaml(text: str, name: str):
+    from .load import LoadError, load_text
+
+    try:
+        docs = load_text(text, name, "yaml")
+    except LoadError as exc:
+        raise ProjectError([(name, exc.line, exc.column, exc.reason)]) from None
+    doc = docs[0]
+    if len(docs) > 1:
+        raise ProjectError([(name, 1, 1, "holds more than one YAML document")])
+    if doc.duplicates:
+        d = doc.duplicates[0]
+        raise ProjectError([(name, d.second.line, d.second.column,
+                             f"key {'.'.join(map(str, d.path))} appears twice")])
+    data = doc.data if doc.data is not None else {}
+
+    def locate(path: tuple, on_key: bool = False) -> tuple[int, int]:
+        probe = tuple(path)
+        while probe:
+            entry = doc.entries.get(probe)
+            if entry is not None:
+                span = entry.key if on_key and entry.key is not None else entry.value
+                return span.line, span.column
+            probe = probe[:-1]
+        return 1, 1
+
+    return data, locate
+
+
+def _read_toml(text: str, name: str):
+    try:
+        import tomllib
+    except ImportError:  # Python 3.10
+        raise ProjectError([(name, _toml_header_line(text), 1,
+                             "[tool.cfgcheck] in pyproject.toml needs Python 3.11 or later "
+                             "(tomllib); on Python 3.10 put the same settings in cfgcheck.yaml")]) from None
+    try:
+        whole = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        m = re.search(r"\(at line (\d+), column (\d+)\)", str(exc))
+        line, col = (int(m.group(1)), int(m.group(2))) if m else (1, 1)
+        raise ProjectError([(name, line, col, f"invalid TOML: {str(exc).split(' (at line')[0]}")]) from None
+    data = whole.get("tool", {}).get("cfgcheck", {})
+    if not isinstance(data, dict):
+        raise ProjectError([(name, _toml_header_line(text), 1, "tool.cfgcheck must be a table")])
+    places = _toml_places(text)
+
+    def locate(path: tuple, on_key: bool = False) -> tuple[int, int]:
+        probe = tuple(path)
+        while probe:
+            if probe in places:
+                return places[probe]
+            probe = probe[:-1]
+        return _toml_header_line(text), 1
+
+    return data, locate
+
+
+def _toml_header_line(text: str) -> int:
+    m = _TABLE_LINE.search(text)
+    return text[:m.start()].count("\n") + 1 if m else 1
+
+
+_TOML_HEADER = re.compile(r"^\s*(\[\[?)\s*([^\]]+?)\s*\]\]?\s*(?:#.*)?$")
+_TOML_KEY = re.compile(r"^(\s*)((?:[A-Za-z0-9_-]+|\"[^\"]*\"|'[^']*')(?:\s*\.\s*(?:[A-Za-z0-9_-]+|\"[^\"]*\"|'[^']*'))*)\s*=")
+
+
+def _toml_parts(dotted_key: str) -> tuple[str, ...]:
+    parts = re.findall(r"\"([^\"]*)\"|'([^']*)'|([A-Za-z0-9_-]+)", dotted_key)
+    return tuple(a or b or c for a, b, c in parts)
+
+
+def _toml_places(text: str) -> dict[tuple, tuple[int, int]]:
+    """Key paths inside [tool.cfgcheck] -> (line, column), from table headers and ``key =`` lines.
+    Positions only: the values come from tomllib."""
+    places: dict[tuple, tuple[int, int]] = {}
+    current: tuple | None = None
+    arrays: dict[tuple, int] = {}
+    depth = 0  # open brackets of a multi-line value: its lines hold no keys of the table
+    for lineno, line in enumerate(text.splitlines(), start=1):
+        if depth > 0:
+            depth += line.count("[") + line.count("{") - line.count("]") - line.count("}")
+            continue
+        h = _TOML_HEADER.match(line)
+        if h:
+            parts = _toml_parts(h.group(2))
+            if parts[:2] != TABLE:
+                current = None
+                continue
+            rel = parts[2:]
+            if h.group(1) == "[[":
+                idx = arrays.get(rel, -1) + 1
+                arrays[rel] = idx
+                rel = rel + (idx,)
+            current = rel
+            if rel:
+                places.setdefault(rel, (lineno, line.index("[") + 1))
+            continue
+        k = _TOML_KEY.match(line)
+        if k and current is not None:
+            path = current + _toml_parts(k.group(2))
+            places.setdefault(path, (lineno, len(k.group(1)) + 1))
+            rest = line[k.end():]
+            depth = max(0, rest.count("[") + rest.count("{") - rest.count("]") - rest.count("}"))
+    return places
+
+
+# --------------------------------------------------------------------------- validation
+
+def _validate(data: Any, name: str, locate) -> None:
+    import jsonschema  # only when a project file exists
+
+    validator = jsonschema.Draft202012Validator(SCHEMA)
+    problems = []
+    for err in validator.iter_errors(data):
+        path = tuple(err.absolute_path)
+        where = ".".join(str(p) for p in path) or "(top level)"
+        if err.validator == "additionalProperties" and isinstance(err.instance, dict):
+            allowed = set(err.schema.get("properties", {}))
+            for extra in sorted(k for k in err.instance if k not in allowed):
+                near = difflib.get_close_matches(str(extra), sorted(allowed), n=1)
+                hint = f"; did you mean {near[0]}?" if near else f"; known: {', '.join(sorted(allowed))}"
+                line, col = locate(path + (extra,), True)
+                problems.append((name, line, col, f"{where}: unknown key {extra!r}{hint}"))
+            continue
+        if err.validator == "propertyNames":
+            line, col = locate(path + (err.instance,), True)
+            problems.append((name, line, col, f"{where}: {err.instance!r} is not a rule id (lowercase words joined by '-')"))
+            continue
+        line, col = locate(path)
+        problems.append((name, line, col, f"{where}: {err.message}"))
+    if problems:
+        raise ProjectError(problems)
+
+
+def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
+    from .catalogue import load_catalogue
+    from .knowledge.hardware import UnknownGpu, find_gpu
+
+    name = str(path)
+    rules = load_catalogue()
+    problems = []
+
+    def rule_known(rule: str, at: tuple, on_key: bool = False) -> bool:
+        if rule in rules:
+            return True
+        near = difflib.get_close_matches(rule, list(rules), n=1, cutoff=0.6)
+        line, col = locate(at, on_key)
+        problems.append((name, line, col, f"no rule {rule!r}" + (f"; did you mean {near[0]}?" if near else
+                                                                   " (see: cfgcheck rules)")))
+        return False
+
+    rules_sec = data.get("rules") or {}
+    only = None
+    if "only" in rules_sec:
+        only = frozenset(r for i, r in enumerate(rules_sec["only"]) if rule_known(r, ("rules", "only", i)))
+    skip = frozenset(r for i, r in enumerate(rules_sec.get("skip", [])) if rule_known(r, ("rules", "skip", i)))
+    severity = {r: Severity.parse(v) for r, v in (data.get("severity") or {}).items()
+                if rule_known(r, ("severity", r), True)}
+    thresholds: dict[str, dict[str, Any]] = {}
+    for r, values in (data.get("thresholds") or {}).items():
+        if not rule_known(r, ("thresholds", r), True):
+            continue
+        for tname, value in values.items():
+            if tname not in rules[r].thresholds:
+                known = ", ".join(sorted(rules[r].thresholds)) or "none"
+                line, col = locate(("thresholds", r, tname), True)
+                problems.append((name, line, col, f"rule {r} has no threshold {tname!r} (its thresholds: {known})"))
+                continue
+            thresholds.setdefault(r, {})[tname] = value
+    profiles = []
+    for i, prof in enumerate(data.get("profiles") or []):
+        gpu = None
+        if "gpu" in prof:
+            try:
+                gpu = find_gpu(prof["gpu"])
+            except UnknownGpu as exc:
+                line, col = locate(("profiles", i, "gpu"))
+                problems.append((name, line, col, str(exc)))
+        profiles.append(Profile(globs=tuple(glob_regex(g) for g in _globs(prof["paths"])), gpu=gpu,
+                                gpus=prof.get("gpus"), rows=prof.get("rows")))
+    waivers = []
+    for i, w in enumerate(data.get("waive") or []):
+        if rule_known(w["rule"], ("waive", i, "rule")):
+            waivers.append((tuple(glob_regex(g) for g in _globs(w["files"])),
+                            ProjectWaiver(rule=w["rule"], reason=w["reason"].strip(), key=w.get("key"))))
+    if problems:
+        raise ProjectError(problems)
+    root = path.parent
+    return Project(
+        source=path, root=root, data=data,
+        configs=tuple(glob_regex(g) for g in data.get("configs") or ()),
+        exclude=tuple(glob_regex(g) for g in data.get("exclude") or ()),
+        only=only, skip=skip, severity=severity, thresholds=thresholds, profiles=profiles,
+        waivers=waivers,
+        gate=Severity.parse(data["gate"]) if "gate" in data else None,
+        show=Severity.parse(data["show"]) if "show" in data else None,
+        baseline=(root / data["baseline"]) if "baseline" in data else None,
+    )

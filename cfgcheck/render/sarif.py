@@ -1,0 +1,113 @@
+"""SARIF 2.1.0 (OASIS): one run, the whole catalogue as rule metadata, one result per finding.
+
+Fingerprints are stable: a SHA-256 of the finding's identity (rule, file, key path, values),
+never of its line, under ``partialFingerprints["cfgcheck/identity/v1"]``. Waived findings are
+included with a ``suppressions`` entry carrying the reason, as SARIF provides for.
+Columns count Unicode code points (``columnKind``), as cfgcheck's columns do.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from urllib.parse import quote
+
+from .. import __version__
+from ..catalogue import load_catalogue
+from ..findings import Severity
+
+SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
+FINGERPRINT = "cfgcheck/identity/v1"
+LEVEL = {Severity.ERROR: "error", Severity.WARNING: "warning", Severity.INFO: "note"}
+
+
+def uri(file: str) -> str:
+    """A relative (or absolute-path) URI reference for a file name as cfgcheck reports it."""
+    return quote(file.replace("\\", "/"), safe="/:@!$&'()*+,;=-._~")
+
+
+def fingerprint(finding) -> str:
+    rule, file, key, values = finding.identity()
+    text = "\x1f".join((rule, file.replace("\\", "/"), key, values))
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _rule(rule) -> dict:
+    sources = "\n".join(f"- {s}" for s in rule.sources)
+    help_text = f"{rule.rationale}\n\nSources:\n{sources}\n\nMore: cfgcheck explain {rule.id}"
+    out = {
+        "id": rule.id,
+        "name": rule.id,
+        "shortDescription": {"text": rule.summary},
+        "fullDescription": {"text": rule.rationale},
+        "help": {"text": help_text},
+        "defaultConfiguration": {"level": LEVEL[rule.severity]},
+        "properties": {"sources": list(rule.sources)},
+    }
+    if rule.thresholds:
+        out["properties"]["thresholds"] = {
+            name: (t.get("value") if isinstance(t, dict) else t) for name, t in rule.thresholds.items()
+        }
+    return out
+
+
+def _result(f, index: dict[str, int], suppression: dict | None = None) -> dict:
+    text = f.message + (f"\nhint: {f.hint}" if f.hint else "")
+    location = {
+        "physicalLocation": {
+            "artifactLocation": {"uri": uri(f.file)},
+            "region": {"startLine": f.line, "startColumn": f.column},
+        }
+    }
+    if f.key:
+        location["logicalLocations"] = [{"fullyQualifiedName": f.key, "kind": "member"}]
+    out = {
+        "ruleId": f.rule,
+        "level": LEVEL[f.severity],
+        "message": {"text": text},
+        "locations": [location],
+        "partialFingerprints": {FINGERPRINT: fingerprint(f)},
+        "properties": {"key": f.key, "hint": f.hint, "data": f.as_dict()["data"]},
+    }
+    if f.rule in index:
+        out["ruleIndex"] = index[f.rule]
+    if suppression is not None:
+        out["suppressions"] = [suppression]
+    return out
+
+
+def render(report, visible, **_) -> str:
+    rules = [load_catalogue()[r] for r in sorted(load_catalogue())]
+    index = {r.id: i for i, r in enumerate(rules)}
+    results = [_result(f, index) for f in visible]
+    for fr in report.files:
+        for f, reason, kind in fr.waived:
+            results.append(_result(f, index, {
+                "kind": "inSource" if kind == "comment" else "external",
+                "status": "accepted",
+                "justification": reason or "(no reason given)",
+            }))
+    notifications = []
+    for p in report.problems:
+        notifications.append({
+            "level": "error",
+            "message": {"text": f"input error: {p.reason}"},
+            "locations": [{"physicalLocation": {"artifactLocation": {"uri": uri(p.file)},
+                                                "region": {"startLine": p.line, "startColumn": p.column}}}],
+        })
+    for e in report.internal:
+        notifications.append({
+            "level": "error",
+            "message": {"text": f"internal error in rule {e.rule}: {e.error}"},
+            "locations": [{"physicalLocation": {"artifactLocation": {"uri": uri(e.file)}}}],
+        })
+    run = {
+        "tool": {"driver": {"name": "cfgcheck", "version": __version__,
+                            "semanticVersion": __version__, "rules": [_rule(r) for r in rules]}},
+        "columnKind": "unicodeCodePoints",
+        "invocations": [{"executionSuccessful": not report.internal,
+                         "toolExecutionNotifications": notifications}],
+        "results": results,
+    }
+    doc = {"$schema": SCHEMA_URI, "version": "2.1.0", "runs": [run]}
+    return json.dumps(doc, indent=2, ensure_ascii=False) + "\n"
