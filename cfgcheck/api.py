@@ -8,6 +8,7 @@ or above the gate, for a launch script that must not start a bad run.
 from __future__ import annotations
 
 import json
+import os
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -85,7 +86,7 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
         def options_for(file: str) -> Options:
             return opts
     else:
-        files = proj.expand(paths or [proj.root])
+        files = proj.expand(paths or [os.path.relpath(proj.root)])
 
         def options_for(file: str) -> Options:
             return proj.options_for(file, given)

@@ -212,7 +212,7 @@ class Project:
                     dirs[:] = sorted(d for d in dirs if not d.startswith("."))
                     for f in sorted(files):
                         if f.lower().endswith(CONFIG_SUFFIXES):
-                            full = str(Path(root) / f)
+                            full = os.path.normpath(Path(root) / f)
                             if self.excluded(full) is None:
                                 out.append((full, None))
             else:

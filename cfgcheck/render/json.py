@@ -27,6 +27,10 @@ def render(report, visible, **_) -> str:
             "errors": report.count(Severity.ERROR),
             "warnings": report.count(Severity.WARNING),
             "info": report.count(Severity.INFO),
+            "waived": report.waived,
+            "baselined": report.baselined,
         },
+        "waived": [dict(f.as_dict(), reason=reason, waived_by=kind)
+                   for fr in report.files for f, reason, kind in fr.waived],
     }
     return json.dumps(doc, indent=2, ensure_ascii=False) + "\n"

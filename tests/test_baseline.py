@@ -1,0 +1,97 @@
+"""Baselines: recorded findings stay hidden when lines move; a new finding still shows."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+from typer.testing import CliRunner
+
+from cfgcheck import api
+from cfgcheck import baseline as baselinemod
+from cfgcheck.baseline import BaselineError
+from cfgcheck.cli import app
+
+runner = CliRunner()
+
+# Two findings today: alpha 8 < r 16 (LoRA paper sec. 4.1, scale alpha/r = 0.5) and "2e-4",
+# which PyYAML (YAML 1.1) reads as text (PyYAML resolver: a float needs a dot).
+TODAY = "use_peft: true\nlora_r: 16\nlora_alpha: 8\nlearning_rate: 2e-4\nnum_train_epochs: 2\n"
+
+
+def test_baseline_hides_old_findings_after_lines_move_and_shows_a_new_one(tmp_path):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(TODAY)
+    base = tmp_path / "cfgcheck-baseline.json"
+    before = api.lint([cfg], project=None)
+    assert {f.rule for f in before.findings} >= {"lora-scale-below-one", "yaml-version-dependent-value"}
+    assert baselinemod.save(before, base) == len(before.findings)
+
+    # edits elsewhere: a comment block on top moves every line down by three
+    cfg.write_text("# Tidewater Freight: route-planner adapter\n# owner: ml-platform\n\n" + TODAY)
+    after = api.lint([cfg], project=None, baseline=base)
+    assert after.findings == [] and after.baselined == len(before.findings)
+
+    # a new mistake: "yes" is a boolean in YAML 1.1 and text in YAML 1.2 (YAML 1.2.2 spec, 10.3.2)
+    cfg.write_text("# moved\n" + TODAY + "packing: yes\n")
+    new = api.lint([cfg], project=None, baseline=base)
+    assert [(f.rule, f.key) for f in new.findings if f.severity.word != "info"] == [
+        ("yaml-version-dependent-value", "packing")]
+
+
+def test_a_changed_value_is_a_new_finding(tmp_path):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(TODAY)
+    base = tmp_path / "b.json"
+    baselinemod.save(api.lint([cfg], project=None), base)
+    cfg.write_text(TODAY.replace("lora_alpha: 8", "lora_alpha: 4"))  # same rule and key, new values
+    report = api.lint([cfg], project=None, baseline=base)
+    assert [f.rule for f in report.findings] == ["lora-scale-below-one"]
+
+
+def test_counts_matter_and_paths_are_relative_to_the_baseline(tmp_path, monkeypatch):
+    (tmp_path / "cfg").mkdir()
+    for n in ("a", "b"):
+        (tmp_path / "cfg" / f"{n}.yaml").write_text(TODAY)
+    monkeypatch.chdir(tmp_path)
+    base = tmp_path / "b.json"
+    baselinemod.save(api.lint(["cfg/a.yaml"], project=None), base)
+    doc = json.loads(base.read_text())
+    assert doc["kind"] == "cfgcheck-baseline" and {r["file"] for r in doc["findings"]} == {"cfg/a.yaml"}
+    monkeypatch.chdir(tmp_path / "cfg")  # another working folder, same files
+    report = api.lint(["a.yaml", "b.yaml"], project=None, baseline=base)
+    assert {Path(f.file).name for f in report.findings} == {"b.yaml"}
+
+
+def test_bad_baseline_files(tmp_path):
+    with pytest.raises(BaselineError, match="no such file"):
+        baselinemod.load(tmp_path / "none.json")
+    (tmp_path / "x.json").write_text("{\"kind\": \"other\"}")
+    with pytest.raises(BaselineError, match="not a cfgcheck baseline"):
+        baselinemod.load(tmp_path / "x.json")
+    (tmp_path / "y.json").write_text("{")
+    with pytest.raises(BaselineError, match="line 1, column 2"):
+        baselinemod.load(tmp_path / "y.json")
+
+
+def test_cli_save_then_compare(tmp_path):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(TODAY)
+    base = tmp_path / "known.json"
+    r = runner.invoke(app, ["lint", str(cfg), "--no-project", "--save-baseline", str(base)])
+    assert r.exit_code == 0 and base.is_file() and "recorded" in r.output
+    r = runner.invoke(app, ["lint", str(cfg), "--no-project", "--baseline", str(base)])
+    assert r.exit_code == 0 and "in the baseline" in r.output
+    r = runner.invoke(app, ["lint", str(cfg), "--no-project", "--baseline", str(tmp_path / "nope.json")])
+    assert r.exit_code == 2 and "nope.json:1:1: baseline: no such file" in r.output
+
+
+def test_project_names_the_baseline(tmp_path):
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "cfgcheck.yaml").write_text("baseline: .cfgcheck-baseline.json\n")
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(TODAY)
+    baselinemod.save(api.lint([cfg]), tmp_path / ".cfgcheck-baseline.json")
+    assert api.lint([cfg]).findings == []
+    assert api.lint([cfg], project=None).findings != []
