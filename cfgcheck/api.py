@@ -206,7 +206,9 @@ class ConfigRejected(Exception):
         for e in internal:
             lines.append(f"  {e.file}: internal error in rule {e.rule}: {e.error}")
         for f in findings:
-            lines.append(f"  {f.file}:{f.line}:{f.column}: {f.severity.word}: {f.message} [{f.rule}]")
+            where = (f"{f.file} at {f.key or '(top level)'}" if f.file.startswith("<")
+                     else f"{f.file}:{f.line}:{f.column}")  # an in-memory mapping has no lines
+            lines.append(f"  {where}: {f.severity.word}: {f.message} [{f.rule}]")
             if f.hint:
                 lines.append(f"      hint: {f.hint}")
         n = len(findings) + len(problems) + len(internal)

@@ -158,15 +158,15 @@ def lint(
     severity: Optional[List[str]] = typer.Option(None, "--severity", metavar="RULE=LEVEL",
                                                  help="Report a rule at another severity, e.g. lora-scale-below-one=error."),
     fmt: Format = typer.Option(Format.text, "--format", help="Output format: text, json, sarif (SARIF 2.1.0) or github (workflow-command annotations)."),
-    show: Optional[Level] = typer.Option(None, "--show", help="Lowest severity printed in text and github output [default: warning]."),
-    gate: Optional[Level] = typer.Option(None, "--gate", help="Lowest severity that makes the exit status 1 [default: warning]."),
+    show: Optional[Level] = typer.Option(None, "--show", help="Lowest severity printed in text and github output (default: warning)."),
+    gate: Optional[Level] = typer.Option(None, "--gate", help="Lowest severity that makes the exit status 1 (default: warning)."),
     project: Optional[Path] = typer.Option(None, "--project", help="Project file to use instead of searching for cfgcheck.yaml / pyproject.toml."),
     no_project: bool = typer.Option(False, "--no-project", help="Ignore project files."),
     baseline: Optional[Path] = typer.Option(None, "--baseline", help="Leave out the findings recorded in this baseline file."),
     save_baseline: Optional[Path] = typer.Option(None, "--save-baseline", help="Record the current findings in this file and exit 0."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Text output: only the finding lines, nothing when clean."),
     summary: bool = typer.Option(False, "--summary", help="Text output: only the summary line."),
-    source: Optional[bool] = typer.Option(None, "--source/--no-source", help="Text output: print the offending line with a caret [default: on a terminal]."),
+    frame: Optional[bool] = typer.Option(None, "--frame/--no-frame", help="Text output: print the offending line with a caret (default: on a terminal)."),
     debug: bool = typer.Option(False, "--debug", help="Re-raise an error inside a rule instead of reporting it."),
 ) -> None:
     """Check training configs and report what would waste the run."""
@@ -235,8 +235,8 @@ def lint(
             out = render("github", report, shown, hidden_info=hidden)
         else:
             tty_color = color_wanted(sys.stdout)
-            want_source = source if source is not None else bool(sys.stdout.isatty())
-            frames = _frames(report, shown) if want_source and not (quiet or summary) else None
+            want_frame = frame if frame is not None else bool(sys.stdout.isatty())
+            frames = _frames(report, shown) if want_frame and not (quiet or summary) else None
             mode = "quiet" if quiet else "summary" if summary else "full"
             out = render("text", report, shown, hidden_info=hidden, color=tty_color, frames=frames,
                          mode=mode)

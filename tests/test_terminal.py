@@ -50,8 +50,8 @@ def test_piped_output_has_no_colour_and_no_frame():
     assert "\x1b[" not in r.stdout and " | " not in r.stdout
 
 
-def test_source_frame_on_request():
-    r = run("lint", LORA, "--source")
+def test_code_frame_on_request():
+    r = run("lint", LORA, "--frame")
     lines = r.stdout.splitlines()
     i = next(i for i, l in enumerate(lines) if "[lora-scale-below-one]" in l)
     assert lines[i + 1] == "    5 | lora_alpha: 8              # half the rank: the adapter scale is 0.5"
