@@ -94,9 +94,11 @@ class Context:
 
     def __init__(self, view: RunView, rule: Rule, options: Options, sink: list[Finding],
                  file: str, waivers: list | None = None, earlier: list[Finding] | None = None,
-                 active: frozenset[str] = frozenset()):
+                 active: frozenset[str] = frozenset(),
+                 waiver_paths: dict[int, list[tuple]] | None = None):
         self.view = view
         self.waivers = waivers or []  # waiver comments of this document
+        self.waiver_paths = waiver_paths or {}  # target line -> key paths written on it
         self.earlier = earlier or []  # findings of the rules that ran before (stage: last)
         self.active = active  # ids of the rules that run
         self.doc: Document = view.doc
@@ -138,7 +140,7 @@ class Context:
         span = None
         if isinstance(at, waivermod.Waiver):  # a comment: located where it is written
             span = at.span
-            paths = waivermod.target_paths(self.doc, at.target) if at.target else []
+            paths = self.waiver_paths.get(at.target, []) if at.target else []
             path = min(paths, key=len) if paths else ()
         else:
             path = at.path if isinstance(at, Field) else tuple(at or ())
@@ -225,11 +227,12 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport,
     rules = active_rules(options)
     active = frozenset(rule.id for rule, _ in rules)
     start = len(report.findings)
+    paths = waivermod.target_paths(view.doc, {w.target for w in waivers or () if w.target})
     for rule, fn in rules:
         sink: list[Finding] = []
         ctx = Context(view, rule, options, sink, file, waivers=waivers,
                       earlier=report.findings[start:] if rule.stage == "last" else None,
-                      active=active)
+                      active=active, waiver_paths=paths)
         try:
             fn(ctx)
         except Exception as exc:  # a bug in a rule: report it and go on with the others
@@ -242,15 +245,14 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport,
             )
             continue
         report.findings.extend(sink)
-    _apply_waivers(view.doc, waivers or [], options, report, start)
+    _apply_waivers(waivers or [], paths, options, report, start)
 
 
-def _apply_waivers(doc: Document, waivers: list, options: Options, report: FileReport,
-                   start: int) -> None:
+def _apply_waivers(waivers: list, targets: dict[int, list[tuple]], options: Options,
+                   report: FileReport, start: int) -> None:
     """Move the findings a waiver comment or a project waiver covers to ``report.waived``."""
     if not waivers and not options.waivers:
         return
-    targets = {w.target: waivermod.target_paths(doc, w.target) for w in waivers if w.target}
     kept = []
     for f in report.findings[start:]:
         reason, kind = None, None
@@ -279,6 +281,13 @@ def lint_documents(docs: list[Document], file: str, options: Options,
     report = FileReport(file=file)
     reasons = []
     waivers = waivermod.scan(text) if text and docs and docs[0].format == "yaml" else []
+    owners: dict[int, list] = {}  # several documents: each waiver belongs to the one it is in
+    if waivers and len(docs) > 1:
+        ends = [(r[1], d.index) for d in docs if (r := waivermod.line_range(d))]
+        for w in waivers:
+            line = w.target or w.line
+            owner = next((i for end, i in ends if line <= end), ends[-1][1] if ends else None)
+            owners.setdefault(owner, []).append(w)
     for doc in docs:
         view = build_view(doc, layout)
         report.views.append(view)
@@ -289,7 +298,7 @@ def lint_documents(docs: list[Document], file: str, options: Options,
         from .links import attach_linked  # the linked DeepSpeed / accelerate files
 
         attach_linked(view, file, options.cwd)
-        mine = [w for w in waivers if waivermod.in_document(doc, w)] if len(docs) > 1 else waivers
+        mine = owners.get(doc.index, []) if len(docs) > 1 else waivers
         lint_view(view, options, file, report, mine)
     if not report.layout:
         report.skipped = reasons[0] if reasons else "empty file"

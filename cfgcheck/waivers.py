@@ -27,7 +27,7 @@ _VERB = re.compile(r"^cfgcheck:\s*(?P<verb>[A-Za-z-]*)\s*(?P<rest>.*)$")
 _RULES_AND_REASON = re.compile(
     r"^(?P<rules>[a-z0-9][a-z0-9-]*(?:\s*,\s*[a-z0-9][a-z0-9-]*)*)\s*(?:because\b\s*(?P<reason>.*))?$"
 )
-_BLOCK_START = re.compile(r"(?:^|:\s|-\s|^-|^:)\s*(?:[&!][^\s]*\s+)*[|>][1-9+-]{0,2}$")
+_BLOCK_START = re.compile(r"(?:^|[:?-]\s)\s*(?:[&!][^\s]*\s+)*[|>][1-9+-]{0,2}$")
 
 
 @dataclass(frozen=True)
@@ -67,6 +67,7 @@ def comments(text: str) -> list[tuple[int, int, int, str, bool]]:
     quote: str | None = None  # an open multi-line quoted scalar: "'" or '"'
     block_indent: int | None = None  # inside a block scalar: content is indented more than this
     content_indent: int | None = None  # ... and at least this, once its first line is seen
+    flow = 0  # depth of open flow collections ([...] / {...}), which may span lines
     offset = 0
     for lineno, line in enumerate(text.splitlines(keepends=True), start=1):
         start_offset = offset
@@ -83,7 +84,7 @@ def comments(text: str) -> list[tuple[int, int, int, str, bool]]:
                 continue
             block_indent = content_indent = None
         i, n = 0, len(body)
-        prev = ""  # previous non-space character on this line, outside strings
+        plain = False  # inside a plain scalar (it ends at ": ", " #", or a flow indicator)
         comment_at = None
         while i < n:
             ch = body[i]
@@ -96,25 +97,48 @@ def comments(text: str) -> list[tuple[int, int, int, str, bool]]:
                         i += 2
                         continue
                     quote = None
-                    prev = ch
                 i += 1
                 continue
             if ch == "#" and (i == 0 or body[i - 1] in " \t"):
                 comment_at = i
                 break
-            if ch in "'\"" and (prev in ("", ":", "-", "[", "{", ",", "?")):
-                quote = ch
+            after = body[i + 1] if i + 1 < n else " "
+            if plain:
+                if ch == ":" and (after in " \t" or (flow and after in ",[]{}")):
+                    plain = False
+                elif flow and ch in ",[]{}":
+                    plain = False
+                    flow += 1 if ch in "[{" else -1 if ch in "]}" else 0
                 i += 1
                 continue
-            if ch not in " \t":
-                prev = ch
+            if ch in " \t":
+                pass
+            elif ch in "[{":
+                flow += 1
+            elif ch in "]}":
+                flow = max(0, flow - 1)
+            elif ch == "," and flow:
+                pass
+            elif ch in "'\"":
+                quote = ch
+            elif ch in "-?:" and (after in " \t" or (flow and ch == ":")):
+                pass  # an indicator
+            elif ch in "&!*|>":  # anchor, tag, alias, block indicator: one token
+                while i + 1 < n and body[i + 1] not in " \t":
+                    i += 1
+            else:
+                plain = True
             i += 1
         code = body[:comment_at] if comment_at is not None else body
         if comment_at is not None:
             out.append((lineno, comment_at + 1, start_offset + comment_at, body[comment_at + 1:],
                         not code.strip()))
-        if quote is None and _BLOCK_START.search(code.rstrip()):
+        m = _BLOCK_START.search(code.rstrip()) if quote is None and not flow else None
+        if m:
             block_indent = _owner_indent(code)
+            digits = [c for c in m.group(0)[-2:] if c.isdigit()]
+            # an explicit indentation indicator fixes the content indentation at once
+            content_indent = block_indent + int(digits[0]) if digits else None
     return out
 
 
@@ -122,7 +146,7 @@ def _owner_indent(code: str) -> int:
     """The indentation a block scalar's content must exceed (its key's or its dash's column)."""
     indent = len(code) - len(code.lstrip(" "))
     rest = code[indent:]
-    while rest.startswith("- "):
+    while rest.startswith(("- ", "? ")):
         after = rest[2:].lstrip(" ")
         if after[:1] in ("|", ">"):
             return indent
@@ -181,27 +205,28 @@ def _parse(line: int, column: int, offset: int, text: str) -> Waiver:
 # --------------------------------------------------------------------------- matching
 
 
-def target_paths(doc: Document, line: int) -> list[tuple]:
-    """Key paths written on ``line``: keys whose key starts there, list items that start there."""
-    out = []
+def target_paths(doc: Document, lines: Iterable[int]) -> dict[int, list[tuple]]:
+    """For each line: the key paths written on it (keys whose key starts there, list items that
+    start there). One pass over the document, however many lines are asked for."""
+    wanted = set(lines)
+    out: dict[int, list[tuple]] = {line: [] for line in wanted}
+    if not wanted:
+        return out
     for path, entry in doc.entries.items():
         if not path:
             continue
-        if entry.key is not None:
-            if entry.key.line == line:
-                out.append(path)
-        elif entry.value.line == line:
-            out.append(path)
+        line = entry.key.line if entry.key is not None else entry.value.line
+        if line in wanted:
+            out[line].append(path)
     return out
 
 
-def in_document(doc: Document, waiver: Waiver) -> bool:
-    root = doc.entries.get(())
-    if root is None or waiver.target is None:
-        return False
-    first = root.value.line
-    last = max((e.value.line for e in doc.entries.values()), default=first)
-    return first <= waiver.target <= last
+def line_range(doc: Document) -> tuple[int, int] | None:
+    """First and last line on which the document has a value; None for an empty document."""
+    if () not in doc.entries:
+        return None
+    lines = [e.value.line for e in doc.entries.values()]
+    return min(lines), max(lines)
 
 
 def covers(waiver: Waiver, finding: Finding, paths: Iterable[tuple]) -> bool:

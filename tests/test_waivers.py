@@ -3,6 +3,7 @@ waiver syntax, what a waiver covers, and the reports about stale or unexplained 
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 import pytest
@@ -193,3 +194,45 @@ def test_waiver_comment_in_json_is_not_possible_but_project_waivers_are(tmp_path
     assert [(f.rule, kind) for fr in report.files for f, _, kind in fr.waived] == [("bf16-and-fp16-both-on", "project")]
     plain = api.lint([ds / "zero2.json"], project=None)
     assert "bf16-and-fp16-both-on" in {f.rule for f in plain.findings}
+
+
+def test_stale_waiver_after_the_last_document_is_still_reported():
+    text = ("use_peft: true\nlora_r: 16\nlora_alpha: 32\n---\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\n"
+            "# cfgcheck: waive lora-scale-below-one because left over\n")
+    r = api.lint_text(text, "w.yaml")
+    assert [(f.rule, f.data.get("variant"), f.line) for f in r.findings] == [
+        ("waiver-comment-problem", "no-target", 8)]
+
+
+try:
+    from hypothesis import given
+    from hypothesis import strategies as st
+except ImportError:  # pragma: no cover
+    given = None
+
+if given is not None:
+    _text = st.text(alphabet=st.sampled_from(list("ab #'\":-|>{}[],\n\t\\")), max_size=30)
+    _values = st.recursive(st.one_of(_text, st.integers(), st.booleans()),
+                           lambda inner: st.one_of(st.lists(inner, max_size=3),
+                                                   st.dictionaries(_text, inner, max_size=3)),
+                           max_leaves=12)
+
+    @given(data=st.dictionaries(_text, _values, min_size=1, max_size=4),
+           style=st.sampled_from([None, '"', "'", "|", ">"]), flow=st.booleans())
+    def test_text_dumped_by_pyyaml_has_no_comments(data, style, flow):
+        """PyYAML's emitter writes no comments, whatever the strings hold: every '#' it writes is
+        inside a scalar, so the scanner must find none."""
+        text = yaml.safe_dump(data, default_style=style, default_flow_style=flow, allow_unicode=True)
+        assert comments(text) == []
+
+    @given(data=st.dictionaries(st.text(alphabet="abc_", min_size=1, max_size=8), _values,
+                                min_size=1, max_size=4))
+    def test_comment_appended_to_block_keys_is_found(data):
+        """A comment after a plain top-level key line (``key:`` opening a nested block) is found."""
+        text = yaml.safe_dump(data, default_flow_style=False)
+        lines = text.splitlines()
+        marked = [i for i, l in enumerate(lines) if re.fullmatch(r"[abc_]+:", l)]
+        for i in marked:
+            lines[i] += "  # cfgcheck: waive duplicate-key because checked"
+        found = [c[0] for c in comments("\n".join(lines) + "\n")]
+        assert found == [i + 1 for i in marked]

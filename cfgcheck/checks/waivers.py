@@ -5,7 +5,7 @@ from __future__ import annotations
 import difflib
 
 from ..catalogue import load_catalogue
-from ..waivers import covers, target_paths
+from ..waivers import covers
 from . import check
 
 
@@ -23,7 +23,7 @@ def waiver_comment_problem(ctx) -> None:
         if w.target is None:
             ctx.report(w, "no-target", rules=label)
             continue
-        paths = target_paths(ctx.doc, w.target)
+        paths = ctx.waiver_paths.get(w.target, [])
         for rule in w.rules:
             if rule not in known:
                 near = difflib.get_close_matches(rule, list(known), n=1, cutoff=0.6)
