@@ -27,6 +27,7 @@ _VERB = re.compile(r"^cfgcheck:\s*(?P<verb>[A-Za-z-]*)\s*(?P<rest>.*)$")
 _RULES_AND_REASON = re.compile(
     r"^(?P<rules>[a-z0-9][a-z0-9-]*(?:\s*,\s*[a-z0-9][a-z0-9-]*)*)\s*(?:because\b\s*(?P<reason>.*))?$"
 )
+_SPECIAL = re.compile(r"[#'\"\[{|>]")
 _BLOCK_START = re.compile(r"(?:^|[:?-]\s)\s*(?:[&!][^\s]*\s+)*[|>][1-9+-]{0,2}$")
 
 
@@ -83,6 +84,8 @@ def comments(text: str) -> list[tuple[int, int, int, str, bool]]:
             if content_indent is not None and indent >= content_indent:
                 continue
             block_indent = content_indent = None
+        if quote is None and not flow and not _SPECIAL.search(body):
+            continue  # nothing on this line can open a string, a collection, a block or a comment
         i, n = 0, len(body)
         plain = False  # inside a plain scalar (it ends at ": ", " #", or a flow indicator)
         comment_at = None
