@@ -251,3 +251,17 @@ def test_no_paths_lints_the_project_configs_from_the_working_folder(tmp_path, mo
     monkeypatch.chdir(tmp_path.parent)
     r = runner.invoke(app, ["lint", "--no-project"])
     assert r.exit_code == 2 and "give config files or folders" in r.output
+
+
+def test_engine_takes_per_file_options(tmp_path):
+    from cfgcheck import engine
+
+    for card in ("t4", "a100"):
+        (tmp_path / card).mkdir()
+        (tmp_path / card / "run.yaml").write_text(BF16_RUN)
+    t4 = api.make_options(gpu="t4")
+    a100 = api.make_options(gpu="a100-80gb")
+    report = engine.lint_paths([tmp_path], options_for=lambda f: t4 if "/t4/" in f else a100)
+    hits = {Path(fr.file).parent.name: "precision-unsupported-on-gpu" in {f.rule for f in fr.findings}
+            for fr in report.files}
+    assert hits == {"a100": False, "t4": True}  # bf16 needs compute capability 8.0; T4 has 7.5
