@@ -63,8 +63,10 @@ class Finding:
     fix: Fix | None = None
 
     def identity(self) -> tuple[str, str, str, str]:
-        """Stable across line shifts: rule, file, key path and the values reported."""
-        values = json.dumps(dict(self.data), sort_keys=True, default=str)
+        """Stable across line shifts: rule, file, key path and the values reported (data items
+        that are line numbers, ``line`` or ``*_line``, are left out)."""
+        values = json.dumps({k: v for k, v in self.data.items() if not _is_line(k)},
+                            sort_keys=True, default=str)
         return (self.rule, self.file, self.key, values)
 
     def as_dict(self) -> dict[str, Any]:
@@ -80,6 +82,10 @@ class Finding:
             "data": {k: _plain(v) for k, v in self.data.items()},
             "fixable": self.fix.tier if self.fix else None,
         }
+
+
+def _is_line(name: str) -> bool:
+    return name == "line" or name.endswith("_line")
 
 
 def _plain(value: Any) -> Any:

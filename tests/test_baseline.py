@@ -95,3 +95,17 @@ def test_project_names_the_baseline(tmp_path):
     baselinemod.save(api.lint([cfg]), tmp_path / ".cfgcheck-baseline.json")
     assert api.lint([cfg]).findings == []
     assert api.lint([cfg], project=None).findings != []
+
+
+def test_line_numbers_in_finding_data_do_not_enter_the_identity(tmp_path):
+    # duplicate-key reports the two line numbers in its data; a shift must not make it new
+    cfg = tmp_path / "run.yaml"
+    body = "learning_rate: 2.0e-5\nnum_train_epochs: 3\nlearning_rate: 1.0e-4\n"
+    cfg.write_text(body)
+    base = tmp_path / "b.json"
+    first = api.lint([cfg], project=None)
+    assert "duplicate-key" in [f.rule for f in first.findings]
+    baselinemod.save(first, base)
+    cfg.write_text("# header\n" + body)
+    shifted = api.lint([cfg], project=None, baseline=base)
+    assert shifted.findings == [] and shifted.baselined == len(first.findings)
