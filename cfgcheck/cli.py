@@ -146,7 +146,7 @@ def _frames(report, shown) -> dict[str, list[str]]:
 def lint(
     paths: Optional[List[Path]] = typer.Argument(
         None, help="Config files or folders (YAML and JSON inside are checked). "
-                   "Default: the configs globs of the project file."),
+                   "Default: the project's configs (from the project root), else the working folder."),
     gpu: Optional[str] = typer.Option(None, "--gpu", autocompletion=_complete_gpu,
                                       help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
@@ -202,7 +202,7 @@ def lint(
 
             proj = projectmod.load(project) if project else projectmod.discover(paths or [])
         if not paths and proj is None:
-            _fail("cfgcheck: give config files or folders to check (or a cfgcheck.yaml with configs globs)", 2)
+            paths = [Path(".")]  # no project file: the working folder
         report = api.lint(paths or [], project=proj, progress=progress,
                           baseline=None if save_baseline else baseline, **chosen)
     except UnknownGpu as exc:
