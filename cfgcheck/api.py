@@ -65,7 +65,7 @@ def _project(project: Any, paths: list):
 
 
 def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
-         baseline: str | Path | None = None,
+         baseline: str | Path | bool | None = None,
          progress: Callable[[int, int], None] | None = None, **options: Any) -> Report:
     """Lint files and folders.
 
@@ -73,6 +73,7 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
     first path; a path reads that file; None ignores project files. Explicit ``options``
     (gpu, gpus, rows, select, ignore, severity, thresholds) override the project's values.
     ``baseline``: a baseline file; findings it holds are left out (counted in ``baselined``).
+    None uses the project's ``baseline`` when that file exists; False uses none.
     Raises ``project.ProjectError`` / ``baseline.BaselineError`` for a bad project or baseline
     file, ``ValueError`` for a bad option value.
     """
@@ -91,7 +92,7 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
         def options_for(file: str) -> Options:
             return proj.options_for(file, given)
         if baseline is None and proj.baseline is not None and proj.baseline.is_file():
-            baseline = proj.baseline
+            baseline = proj.baseline  # the project's baseline, unless the caller chose
     report = Report()
     for i, (file, skip) in enumerate(files, start=1):
         if skip:
@@ -100,7 +101,7 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
             report.files.append(engine.lint_file(file, options_for(file)))
         if progress is not None:
             progress(i, len(files))
-    if baseline is not None:
+    if baseline is not None and baseline is not False:
         from . import baseline as baselinemod
 
         baselinemod.load(baseline).filter(report)

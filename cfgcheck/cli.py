@@ -204,7 +204,7 @@ def lint(
         if not paths and proj is None:
             paths = [Path(".")]  # no project file: the working folder
         report = api.lint(paths or [], project=proj, progress=progress,
-                          baseline=None if save_baseline else baseline, **chosen)
+                          baseline=False if save_baseline else baseline, **chosen)
     except UnknownGpu as exc:
         _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
     except ValueError as exc:

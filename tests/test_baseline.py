@@ -109,3 +109,17 @@ def test_line_numbers_in_finding_data_do_not_enter_the_identity(tmp_path):
     cfg.write_text("# header\n" + body)
     shifted = api.lint([cfg], project=None, baseline=base)
     assert shifted.findings == [] and shifted.baselined == len(first.findings)
+
+
+def test_saving_again_records_everything_even_with_a_project_baseline(tmp_path):
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "cfgcheck.yaml").write_text("baseline: known.json\n")
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(TODAY)
+    known = tmp_path / "known.json"
+    r = runner.invoke(app, ["lint", str(cfg), "--save-baseline", str(known)])
+    first = json.loads(known.read_text())["findings"]
+    assert r.exit_code == 0 and first
+    r = runner.invoke(app, ["lint", str(cfg), "--save-baseline", str(known)])  # the baseline is in use now
+    assert json.loads(known.read_text())["findings"] == first
+    assert runner.invoke(app, ["lint", str(cfg)]).exit_code == 0
