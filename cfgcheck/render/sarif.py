@@ -76,8 +76,10 @@ def _result(f, index: dict[str, int], suppression: dict | None = None) -> dict:
     return out
 
 
-def render(report, visible, **_) -> str:
-    rules = [load_catalogue()[r] for r in sorted(load_catalogue())]
+def render(report, visible, *, rules=None, **_) -> str:
+    """``rules``: the catalogue to describe (default: the whole catalogue, sorted by id)."""
+    catalogue = rules if rules is not None else load_catalogue()
+    rules = [catalogue[r] for r in sorted(catalogue)]
     index = {r.id: i for i, r in enumerate(rules)}
     results = [_result(f, index) for f in visible]
     for fr in report.files:
