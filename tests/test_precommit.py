@@ -19,8 +19,9 @@ ROOT = Path(__file__).resolve().parents[1]
 
 pytestmark = pytest.mark.slow
 
-# alpha 8 < r 16: adapter scale 0.5 (LoRA paper sec. 4.1, scale alpha/r) -> a warning, exit 1
-BAD = "use_peft: true\nlora_r: 16\nlora_alpha: 8\nlearning_rate: 2.0e-4\n"
+# alpha 8 < r 16: adapter scale 0.5 (LoRA paper sec. 4.1, scale alpha/r) -> a warning, exit 1;
+# 2e-4 is text to PyYAML (YAML 1.1 resolver: a float needs a dot) -> the fix hook writes 2.0e-4
+BAD = "use_peft: true\nlora_r: 16\nlora_alpha: 8\nlearning_rate: 2e-4\n"
 GOOD = "use_peft: true\nlora_r: 16\nlora_alpha: 32\nlearning_rate: 2.0e-4\n"
 
 
@@ -71,7 +72,8 @@ def test_hook_blocks_a_bad_config_and_passes_a_good_one(tmp_path):
     _git(repo, "config", "user.email", "ci@tidewater.invalid", env=env)
     _git(repo, "config", "commit.gpgsign", "false", env=env)
     (repo / ".pre-commit-config.yaml").write_text(
-        f"repos:\n  - repo: {hooks.as_posix()}\n    rev: {rev}\n    hooks:\n      - id: cfgcheck-lint\n")
+        f"repos:\n  - repo: {hooks.as_posix()}\n    rev: {rev}\n    hooks:\n      - id: cfgcheck-fix\n"
+        "      - id: cfgcheck-lint\n")
     inst = subprocess.run([sys.executable, "-m", "pre_commit", "install"], cwd=repo, env=env,
                           capture_output=True, text=True)
     assert inst.returncode == 0, inst.stdout + inst.stderr
@@ -86,6 +88,8 @@ def test_hook_blocks_a_bad_config_and_passes_a_good_one(tmp_path):
     out = blocked.stdout + blocked.stderr
     assert blocked.returncode != 0, out
     assert "runs/route-planner-lora.yaml:3:13: warning:" in out and "[lora-scale-below-one]" in out
+    assert "files were modified by this hook" in out  # pre-commit's own report of the fix hook
+    assert cfg.read_text() == BAD.replace("2e-4", "2.0e-4")  # the fix that keeps the meaning
     assert _git(repo, "rev-list", "--count", "HEAD", env=env).stdout.strip() == "1"  # nothing committed
 
     cfg.write_text(GOOD)
