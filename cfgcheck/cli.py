@@ -26,6 +26,11 @@ class Format(str, Enum):
     github = "github"
 
 
+class PlanFormat(str, Enum):
+    text = "text"
+    json = "json"
+
+
 class Level(str, Enum):
     info = "info"
     warning = "warning"
@@ -250,7 +255,7 @@ def plan(
     gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows."),
-    fmt: Format = typer.Option(Format.text, "--format", help="Output format."),
+    fmt: PlanFormat = typer.Option(PlanFormat.text, "--format", help="Output format."),
 ) -> None:
     """Show the derived run: parameters, batch, steps and the memory estimate per GPU."""
     import json as _json
@@ -263,7 +268,7 @@ def plan(
     except UnknownGpu as exc:
         typer.echo(f"cfgcheck: {exc}", err=True)
         raise typer.Exit(api.EXIT_INPUT)
-    if fmt is Format.json:
+    if fmt is PlanFormat.json:
         sys.stdout.write(_json.dumps({"plans": [dict(p.as_dict(), file=f) for f, p in result.plans],
                                       "input_errors": [e.as_dict() for e in result.problems]},
                                      indent=2) + "\n")
