@@ -321,12 +321,12 @@ def list_rules() -> None:
     for rule in rules.values():
         typer.echo(f"{rule.id:<{width}}  {rule.severity.word:<7}  {rule.summary}")
         typer.echo(f"{'':<{width}}  source: {rule.sources[0]}"
-                   + (f" (+{len(rule.sources) - 1} more: cfgcheck explain {rule.id})"
+                   + (f" (+{len(rule.sources) - 1} more: cfgcheck describe {rule.id})"
                       if len(rule.sources) > 1 else ""))
 
 
 @app.command()
-def explain(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck rules`.")) -> None:
+def describe(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck rules`.")) -> None:
     """Show one rule's catalogue entry: why, thresholds, sources, examples."""
     import difflib
 

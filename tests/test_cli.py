@@ -88,12 +88,12 @@ def test_info_is_hidden_by_default_and_shown_on_request(tmp_path):
     assert r.exit_code == 0 and ": info:" in r.output and "--gpu" in r.output
 
 
-def test_rules_and_explain():
+def test_rules_and_describe():
     r = run("rules")
     assert r.exit_code == 0 and "lora-scale-below-one" in r.output
-    r = run("explain", "lora-scale-below-one")
+    r = run("describe", "lora-scale-below-one")
     assert r.exit_code == 0 and "rsLoRA" in r.output and "Example (bad)" in r.output
-    r = run("explain", "lora-scale-below-on")
+    r = run("describe", "lora-scale-below-on")
     assert r.exit_code == 2 and "lora-scale-below-one" in r.output
 
 

@@ -34,7 +34,7 @@ def fingerprint(finding) -> str:
 
 def _rule(rule) -> dict:
     sources = "\n".join(f"- {s}" for s in rule.sources)
-    help_text = f"{rule.rationale}\n\nSources:\n{sources}\n\nMore: cfgcheck explain {rule.id}"
+    help_text = f"{rule.rationale}\n\nSources:\n{sources}\n\nMore: cfgcheck describe {rule.id}"
     out = {
         "id": rule.id,
         "name": rule.id,
