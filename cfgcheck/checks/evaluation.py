@@ -37,6 +37,11 @@ def best_model_cadence(ctx) -> None:
         if sv_f is not None and ev in ("steps", "epoch"):
             fix = Fix(tier="changes-training", summary=f"{sv_f.key}: {sv} -> {ev}",
                       edits=(Edit(path=sv_f.path, old=sv_f.written, new=ev),))
+        elif sv_f is None and ev_f is not None and ev in ("steps", "epoch"):
+            # the default save strategy differs: write one that matches, beside eval_strategy
+            fix = Fix(tier="changes-training", summary=f"save_strategy: added as {ev}",
+                      edits=(Edit(path=ev_f.path[:-1] + ("save_strategy",), old=None, new=ev,
+                                  insert=True, after=ev_f.path),))
         ctx.report(at, "strategies", fix=fix, key=best.leaf, eval=ev, save=sv,
                    eval_from="written" if ev_f else "the default", save_from="written" if sv_f else "the default")
         return

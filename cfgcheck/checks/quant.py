@@ -44,8 +44,18 @@ def loftq_with_quantised_base(ctx) -> None:
         return
     fix = None
     if q.name in ("quant.load_4bit", "quant.load_8bit"):
-        fix = Fix(tier="changes-training", summary=f"{q.key}: true -> false (LoftQ quantises itself)",
-                  edits=(Edit(path=q.path, old=q.written, new=False),))
+        edits = [Edit(path=q.path, old=q.written, new=False)]
+        also = ""
+        m = view.method_field
+        # axolotl refuses `adapter: qlora` without load_in_4bit: the run becomes a plain LoRA
+        if view.layout is not None and view.layout.name == "axolotl" and m is not None \
+                and m.name == "method" and isinstance(m.written, str) \
+                and m.written.strip().lower() == "qlora":
+            edits.append(Edit(path=m.path, old=m.written, new="lora"))
+            also = f", {m.key}: {m.written} -> lora"
+        fix = Fix(tier="changes-training",
+                  summary=f"{q.key}: true -> false{also} (LoftQ quantises itself)",
+                  edits=tuple(edits))
     ctx.report(q, fix=fix, key=q.key, loftq_key=lq.key)
 
 
@@ -61,7 +71,8 @@ def both_bits(ctx) -> None:
 @check("quant-fp4-where-nf4-is-better")
 def fp4(ctx) -> None:
     view = ctx.view
-    if _quantised(view) is None:
+    # the 4-bit quant type is read only when the base loads in 4 bits (8-bit ignores it)
+    if not (view.is_on("quant.load_4bit") or view.value("quant.bits") == 4):
         return
     f = view.get("quant.type_4bit")
     if f is not None and isinstance(f.value, str) and f.value.strip().lower() == "fp4":
@@ -76,6 +87,28 @@ def fp4(ctx) -> None:
 _FP32 = {"float32", "fp32", "torch.float32", "float"}
 
 
+def _half_dtype(ctx, written: str) -> tuple[str, str]:
+    """The 16-bit compute dtype to write, spelled like ``written``, and why when not bfloat16.
+
+    bfloat16 (QLoRA's choice) unless the named GPU has no bf16 (compute capability below 8.0)
+    or the config trains in fp16 without bf16 (a run set up for such a card): then float16.
+    """
+    gpu = ctx.gpu
+    view = ctx.view
+    why = ""
+    if gpu is not None and not gpu.supports("bf16"):
+        why = f" (no bf16 on {gpu.name})"
+    elif view.is_on("precision.fp16") and not view.is_on("precision.bf16"):
+        why = " (the run trains in fp16)"
+    half = "float16" if why else "bfloat16"
+    low = written.lower()
+    if low.startswith("torch."):
+        return "torch." + half, why
+    if low == "fp32":
+        return ("fp16" if why else "bf16"), why
+    return half, why
+
+
 @check("quant-compute-dtype-fp32")
 def compute_fp32(ctx) -> None:
     view = ctx.view
@@ -84,8 +117,9 @@ def compute_fp32(ctx) -> None:
         return
     f = view.get("quant.compute_dtype")
     if f is not None and isinstance(f.value, str) and f.value.strip().lower() in _FP32:
-        fix = Fix(tier="changes-training", summary=f"{f.key}: {f.value} -> bfloat16",
-                  edits=(Edit(path=f.path, old=f.written, new="bfloat16"),))
+        new, why = _half_dtype(ctx, f.value.strip())
+        fix = Fix(tier="changes-training", summary=f"{f.key}: {f.value} -> {new}{why}",
+                  edits=(Edit(path=f.path, old=f.written, new=new),))
         ctx.report(f, "written", fix=fix, key=f.key, value=f.value)
     elif f is None and _bnb_defaults_apply(view):
         ctx.report(q, "default", key=q.key, section=q.path[0])

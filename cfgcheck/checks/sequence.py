@@ -6,10 +6,26 @@ from ..findings import Edit, Fix
 from . import check
 
 
+def _rope_scaling(data, depth: int = 0) -> bool:
+    """Whether the file sets up RoPE scaling (``rope_scaling`` at the top or in a section)."""
+    if not isinstance(data, dict) or depth > 2:
+        return False
+    for key, value in data.items():
+        if key == "rope_scaling" and value not in (None, False, "", {}, "none", "null"):
+            return True
+        if isinstance(value, dict) and _rope_scaling(value, depth + 1):
+            return True
+    return False
+
+
 @check("seq-len-above-context-window")
 def seq_len_above_context(ctx) -> None:
     f = ctx.view.get("data.seq_len")
     if f is None or not isinstance(f.value, int) or isinstance(f.value, bool) or f.value <= 0:
+        return
+    # a longer context with RoPE scaling set up is on purpose (LLaMA-Factory's rope_scaling
+    # derives the factor from cutoff_len; transformers' config.rope_scaling extends positions)
+    if _rope_scaling(ctx.view.doc.data):
         return
     arch = ctx.model()
     if arch is None:
