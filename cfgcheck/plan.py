@@ -17,7 +17,7 @@ from .knowledge.hardware import Gpu
 from .knowledge.memory import MemoryBreakdown, MemoryInputs, changes_that_fit, estimate_memory
 from .knowledge import models as _models
 from .knowledge.models import Architecture, UnsupportedFamily, lora_scale, total_parameters
-from .schedule import Schedule, derive, resolve_interval
+from .schedule import Schedule, derive_for, resolve_interval
 from .view import RunView
 
 DEFAULT_SEQ_LEN = 2048  # assumed when the config sets none (common practice, no source)
@@ -162,10 +162,7 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     ref = view.value("model.ref")
     plan = Plan(method=view.method, method_stated=view.method_stated,
                 model_ref=ref if isinstance(ref, str) else None, arch=arch, gpu=gpu)
-    trainer = view.layout is not None and view.layout.name == "trainer"
-    values = {n: view.value(n) for n in ("batch.per_device", "batch.accumulation", "optim.epochs",
-                                         "optim.max_steps")}
-    sched = derive(values, gpus=gpus, rows=rows or view.value("data.rows"), use_trainer_defaults=trainer)
+    sched = derive_for(view, gpus=gpus, rows=rows)
     plan.schedule = sched
     for name in sched.defaults_used:
         plan.assumptions.append(f"{name} not set: the trainer default")

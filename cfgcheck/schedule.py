@@ -79,3 +79,25 @@ def derive(values: dict, *, gpus: int | None, rows: int | None, use_trainer_defa
             sched.total_steps = math.ceil(epochs * sched.steps_per_epoch)
             sched.epochs = float(epochs)
     return sched
+
+
+# layouts whose trainer is the transformers Trainer, so its defaults apply to unset values
+TRAINER_LAYOUTS = ("trainer", "llama-factory")
+_FIELDS = ("batch.per_device", "batch.accumulation", "optim.epochs", "optim.max_steps")
+
+
+def derive_for(view, *, gpus: int | None, rows: int | None) -> Schedule:
+    """The schedule of a typed view (rows from the command line win over the config's own)."""
+    trainer = view.layout is not None and view.layout.name in TRAINER_LAYOUTS
+    values = {name: view.value(name) for name in _FIELDS}
+    return derive(values, gpus=gpus, rows=rows or view.value("data.rows"), use_trainer_defaults=trainer)
+
+
+def how_text(sched: Schedule) -> str:
+    """How the number of steps follows, in words, for messages."""
+    if sched.max_steps_override:
+        return f"max_steps {sched.total_steps}"
+    gpus = f"{sched.gpus} GPU{'s' if sched.gpus != 1 else ''}"
+    epochs = f"{sched.epochs:g} epoch{'' if sched.epochs == 1 else 's'}"
+    return (f"{sched.rows:,} rows / ({sched.per_device} per device x {sched.accumulation} accumulation"
+            f" x {gpus}) = {sched.steps_per_epoch} steps per epoch x {epochs}")

@@ -3,8 +3,9 @@
 from __future__ import annotations
 
 from ..findings import Edit, Fix
-from ..schedule import derive, resolve_interval
+from ..schedule import resolve_interval
 from . import check
+from .warmup import run_steps
 
 
 @check("global-batch-mismatch")
@@ -56,16 +57,10 @@ def cadence_longer_than_run(ctx) -> None:
                  and not isinstance(f.value, bool) and f.value >= 1]
     if not intervals:
         return
-    trainer = view.layout is not None and view.layout.name == "trainer"
-    gpus, _ = ctx.num_gpus
-    rows = ctx.options.rows or view.value("data.rows")
-    values = {name: view.value(name) for name in
-              ("batch.per_device", "batch.accumulation", "optim.epochs", "optim.max_steps")}
-    sched = derive(values, gpus=gpus, rows=rows, use_trainer_defaults=trainer)
-    if sched.total_steps is None:
+    total, sched, how = run_steps(ctx)
+    if total is None:
         ctx.cannot_judge("the number of training rows is unknown (--rows N) and max_steps is not set")
         return
-    total = sched.total_steps
     for f, strategy_name, what in intervals:
         if strategy_name:
             strategy = view.value(strategy_name)
@@ -76,9 +71,5 @@ def cadence_longer_than_run(ctx) -> None:
         every = resolve_interval(float(f.value), total)
         if every <= total:
             continue
-        how = (f"max_steps {total}" if sched.max_steps_override else
-               f"{rows:,} rows / ({sched.per_device} per device × {sched.accumulation} accumulation"
-               f" × {sched.gpus} GPU{'s' if sched.gpus != 1 else ''}) = {sched.steps_per_epoch}"
-               f" steps per epoch × {sched.epochs:g} epoch{'' if sched.epochs == 1 else 's'}")
         ctx.report(f, key=f.leaf, every=every, total=total, what=what, how=how,
                    suggestion=max(1, total // 4))

@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 
 from ..findings import Edit, Fix
-from ..schedule import derive
+from ..schedule import derive_for, how_text
 from . import check
 
 # transformers' argument-parser layouts read the schedule keys with the Trainer's meaning
@@ -20,22 +20,11 @@ def _num(f):
 
 def run_steps(ctx):
     """(total optimizer steps or None, schedule, how the number was found)."""
-    view = ctx.view
-    trainer = view.layout is not None and view.layout.name in ("trainer", "llama-factory")
     gpus, _ = ctx.num_gpus
-    rows = ctx.options.rows or view.value("data.rows")
-    values = {name: view.value(name) for name in
-              ("batch.per_device", "batch.accumulation", "optim.epochs", "optim.max_steps")}
-    sched = derive(values, gpus=gpus, rows=rows, use_trainer_defaults=trainer)
+    sched = derive_for(ctx.view, gpus=gpus, rows=ctx.options.rows)
     if sched.total_steps is None:
         return None, sched, ""
-    if sched.max_steps_override:
-        how = f"max_steps {sched.total_steps}"
-    else:
-        how = (f"{rows:,} rows / ({sched.per_device} per device x {sched.accumulation} accumulation"
-               f" x {sched.gpus} GPU{'s' if sched.gpus != 1 else ''}) = {sched.steps_per_epoch}"
-               f" steps per epoch x {sched.epochs:g} epoch{'' if sched.epochs == 1 else 's'}")
-    return sched.total_steps, sched, how
+    return sched.total_steps, sched, how_text(sched)
 
 
 @check("warmup-longer-than-run")
