@@ -66,13 +66,16 @@ def _project(project: Any, paths: list):
 
 def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
          baseline: str | Path | bool | None = None,
-         progress: Callable[[int, int], None] | None = None, **options: Any) -> Report:
+         progress: Callable[[int, int], None] | None = None, jobs: int = 1,
+         keep_views: bool = True, **options: Any) -> Report:
     """Lint files and folders.
 
     ``project``: "auto" (default) finds cfgcheck.yaml / [tool.cfgcheck] by walking up from the
     first path; a path reads that file; None ignores project files. Explicit ``options``
     (gpu, gpus, rows, select, ignore, severity, thresholds) override the project's values.
     ``baseline``: a baseline file; findings it holds are left out (counted in ``baselined``).
+    ``jobs``: lint over that many processes (same reports, same order). ``keep_views=False``:
+    drop each file's parsed documents once its rules have run (memory stays flat).
     None uses the project's ``baseline`` when that file exists; False uses none.
     Raises ``project.ProjectError`` / ``baseline.BaselineError`` for a bad project or baseline
     file, ``ValueError`` for a bad option value.
@@ -94,11 +97,14 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
         if baseline is None and proj.baseline is not None and proj.baseline.is_file():
             baseline = proj.baseline  # the project's baseline, unless the caller chose
     report = Report()
+    # jobs > 1: the files are linted over processes, reports still in this order
+    linted = engine.lint_files([(f, options_for(f)) for f, skip in files if not skip],
+                               jobs=jobs, keep_views=keep_views)
     for i, (file, skip) in enumerate(files, start=1):
         if skip:
             report.files.append(FileReport(file=file, skipped=skip))
         else:
-            report.files.append(engine.lint_file(file, options_for(file)))
+            report.files.append(next(linted))
         if progress is not None:
             progress(i, len(files))
     if baseline is not None and baseline is not False:
@@ -123,6 +129,8 @@ def lint_text(text: str, name: str = "<text>", *, fmt: str | None = None, projec
 
 def lint_mapping(data: Mapping, name: str = "<mapping>", **options: Any) -> FileReport:
     """Lint an in-memory config (e.g. one point of a generated sweep)."""
+    import json
+
     text = json.dumps(data, indent=2, default=str)
     return lint_text(text, name, fmt="json", **options)
 

@@ -3,6 +3,9 @@
 from __future__ import annotations
 
 import functools
+import marshal
+import os
+import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -58,8 +61,13 @@ def catalogue_dir() -> Path:
     return here.parent / "rules"
 
 
-def _parse(path: Path) -> Rule:
-    data = yaml.load(path.read_text(encoding="utf-8"), Loader=_Loader)
+def _read(path: Path) -> Any:
+    return yaml.load(path.read_text(encoding="utf-8"), Loader=_Loader)
+
+
+def _parse(path: Path, data: Any = None) -> Rule:
+    if data is None:
+        data = _read(path)
     if not isinstance(data, dict):
         raise CatalogueError(f"{path}: not a mapping")
     missing = [k for k in REQUIRED if k not in data]
@@ -87,12 +95,52 @@ def _parse(path: Path) -> Rule:
     )
 
 
+# The records as parsed, kept beside them like Python keeps bytecode (and written only when Python
+# writes bytecode), so a cold start does not parse every record: each entry is reused only while
+# its file has the same size and modification time. marshal holds plain data only.
+_CACHE_NAME = f"catalogue.{sys.implementation.cache_tag}.marshal"
+_CACHE_FORMAT = 1
+
+
+def _cached_records(root: Path, paths: list[Path]) -> list[tuple[Path, Any]]:
+    cache_file = root / "__pycache__" / _CACHE_NAME
+    try:
+        cached = marshal.loads(cache_file.read_bytes())
+        if not (isinstance(cached, dict) and cached.get("format") == _CACHE_FORMAT):
+            cached = {}
+    except (OSError, ValueError, EOFError, TypeError):
+        cached = {}
+    old = cached.get("records", {})
+    fresh: dict[str, tuple[int, int, Any]] = {}
+    out = []
+    for path in paths:
+        st = path.stat()
+        hit = old.get(path.name)
+        if hit is not None and hit[0] == st.st_size and hit[1] == st.st_mtime_ns:
+            data = hit[2]
+        else:
+            data = _read(path)
+        fresh[path.name] = (st.st_size, st.st_mtime_ns, data)
+        out.append((path, data))
+    if fresh != old and not sys.dont_write_bytecode:
+        try:
+            blob = marshal.dumps({"format": _CACHE_FORMAT, "records": fresh})
+            cache_file.parent.mkdir(exist_ok=True)
+            tmp = cache_file.with_suffix(f".{os.getpid()}.tmp")
+            tmp.write_bytes(blob)
+            os.replace(tmp, cache_file)
+        except (OSError, ValueError):  # a read-only install, or data marshal cannot hold
+            pass
+    return out
+
+
 @functools.cache
 def load_catalogue(folder: str | None = None) -> dict[str, Rule]:
     root = Path(folder) if folder else catalogue_dir()
     rules = {}
-    for path in sorted(root.glob("*.yaml")):
-        rule = _parse(path)
+    paths = sorted(root.glob("*.yaml"))
+    for path, data in _cached_records(root, paths):
+        rule = _parse(path, data)
         rules[rule.id] = rule
     if not rules:
         raise CatalogueError(f"no rules found in {root}")

@@ -173,6 +173,7 @@ def lint(
     summary: bool = typer.Option(False, "--summary", help="Text output: only the summary line."),
     frame: Optional[bool] = typer.Option(None, "--frame/--no-frame", help="Text output: print the offending line with a caret (default: on a terminal)."),
     debug: bool = typer.Option(False, "--debug", help="Re-raise an error inside a rule instead of reporting it."),
+    jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Lint files in N processes (output order stays the same)."),
 ) -> None:
     """Check training configs and report what would waste the run."""
     from . import api
@@ -208,7 +209,7 @@ def lint(
             proj = projectmod.load(project) if project else projectmod.discover(paths or [])
         if not paths and proj is None:
             paths = [Path(".")]  # no project file: the working folder
-        report = api.lint(paths or [], project=proj, progress=progress,
+        report = api.lint(paths or [], project=proj, progress=progress, jobs=jobs, keep_views=False,
                           baseline=False if save_baseline else baseline, **chosen)
     except UnknownGpu as exc:
         _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
@@ -245,7 +246,7 @@ def lint(
             mode = "quiet" if quiet else "summary" if summary else "full"
             out = render("text", report, shown, hidden_info=hidden, color=tty_color, frames=frames,
                          mode=mode)
-    sys.stdout.write(out)
+    _write(out)
     raise typer.Exit(api.exit_code(report, fail_on))
 
 
@@ -309,6 +310,17 @@ def fix(
     summary = fixmod.summary_text(report, dry=diff or no_write)
     (sys.stderr if diff else sys.stdout).write(summary)
     raise typer.Exit(api.fix_exit_code(report, no_write=no_write))
+
+
+def _write(out: str) -> None:
+    """Print, escaping what the terminal's encoding cannot show (odd file names, lone surrogates)."""
+    try:
+        sys.stdout.write(out)
+    except UnicodeEncodeError:
+        enc = sys.stdout.encoding or "utf-8"
+        sys.stdout.flush()
+        sys.stdout.buffer.write(out.encode(enc, errors="backslashreplace"))
+    sys.stdout.flush()
 
 
 @app.command("rules")
@@ -386,6 +398,15 @@ def gpus() -> None:
 
 
 def main() -> None:
+    from .fastcli import direct_arguments
+
+    kwargs = direct_arguments(sys.argv[1:], "lint", lint)  # plain `lint` lines skip typer's set-up
+    if kwargs is not None:
+        try:
+            lint(**kwargs)
+        except typer.Exit as exc:
+            sys.exit(exc.exit_code)
+        sys.exit(0)
     app()
 
 

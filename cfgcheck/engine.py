@@ -10,7 +10,7 @@ import os
 import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Any, Callable, Iterable, Iterator
 
 from . import load as loadmod
 from .catalogue import Rule, load_catalogue
@@ -208,18 +208,20 @@ def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: t
 
 # --------------------------------------------------------------------------- running
 
+_SELECTED: dict[tuple, list[Rule]] = {}  # (select, ignore) -> rules, worked out once per run
+
+
 def active_rules(options: Options) -> list[tuple[Rule, Any]]:
-    catalogue = load_catalogue()
-    checks = all_checks()
-    out = []
-    for rule_id, rule in catalogue.items():
-        if options.select is not None and rule_id not in options.select:
-            continue
-        if rule_id in options.ignore:
-            continue
-        out.append((rule, checks[rule_id]))
-    out.sort(key=lambda rc: rc[0].stage == "last")  # stable: catalogue order otherwise
-    return out
+    key = (options.select, options.ignore)
+    rules = _SELECTED.get(key)
+    if rules is None:
+        rules = [rule for rule_id, rule in load_catalogue().items()
+                 if (options.select is None or rule_id in options.select)
+                 and rule_id not in options.ignore]
+        rules.sort(key=lambda r: r.stage == "last")  # stable: catalogue order otherwise
+        _SELECTED[key] = rules
+    checks = all_checks()  # looked up each time: a check may be replaced (tests do)
+    return [(rule, checks[rule.id]) for rule in rules]
 
 
 def lint_view(view: RunView, options: Options, file: str, report: FileReport,
@@ -321,6 +323,8 @@ def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
     options = options or Options()
     name = str(path)
     try:
+        if os.path.isdir(path):
+            _listable(path)
         src = loadmod.read_source(path)
     except LoadError as exc:
         return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
@@ -329,12 +333,20 @@ def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
 
 
 def expand_paths(paths: Iterable[str | Path]) -> list[str]:
-    """Files as given; folders walked for .yaml/.yml/.json files, sorted, hidden folders skipped."""
+    """Files as given; folders walked for .yaml/.yml/.json files, sorted, hidden folders skipped.
+
+    A folder that cannot be listed is kept in the list, so that linting it reports why.
+    """
     out: list[str] = []
+
+    def unlistable(exc: OSError) -> None:
+        if exc.filename is not None:
+            out.append(str(exc.filename))
+
     for p in paths:
         p = Path(p)
         if p.is_dir():
-            for root, dirs, files in os.walk(p):
+            for root, dirs, files in os.walk(p, onerror=unlistable):
                 dirs[:] = sorted(d for d in dirs if not d.startswith("."))
                 for f in sorted(files):
                     if f.lower().endswith(CONFIG_SUFFIXES):
@@ -344,9 +356,39 @@ def expand_paths(paths: Iterable[str | Path]) -> list[str]:
     return out
 
 
+def _listable(path: str | Path) -> None:
+    try:
+        with os.scandir(path):
+            pass
+    except OSError as exc:
+        raise LoadError(f"folder cannot be listed: {exc.strerror or exc}") from None
+
+
 def lint_paths(paths: Iterable[str | Path], options: Options | None = None, *,
-               options_for: Callable[[str], Options] | None = None) -> Report:
-    """Lint files and folders; ``options_for(file)`` gives per-file options when they differ."""
+               options_for: Callable[[str], Options] | None = None, jobs: int = 1,
+               keep_views: bool = True) -> Report:
+    """Lint files and folders; ``options_for(file)`` gives per-file options when they differ.
+
+    ``jobs`` > 1 spreads the files over processes, reports in the same order. ``keep_views=False``
+    drops each file's views (and with them its parsed documents) once its rules have run, so
+    memory stays flat however many files there are; a process pool never sends them back.
+    """
     options = options or Options()
-    return Report(files=[lint_file(p, options_for(p) if options_for else options)
-                         for p in expand_paths(paths)])
+    pick = options_for or (lambda _file: options)
+    pairs = [(p, pick(p)) for p in expand_paths(paths)]
+    return Report(files=list(lint_files(pairs, jobs=jobs, keep_views=keep_views)))
+
+
+def lint_files(pairs: list[tuple[str, Options]], *, jobs: int = 1,
+               keep_views: bool = True) -> Iterator[FileReport]:
+    """(file, options) pairs -> their reports, in order, each as soon as it is ready."""
+    if jobs > 1 and len(pairs) > 1:
+        from .parallel import lint_files_parallel
+
+        yield from lint_files_parallel(pairs, jobs)
+        return
+    for path, opts in pairs:
+        report = lint_file(path, opts)
+        if not keep_views:
+            report.views = []
+        yield report

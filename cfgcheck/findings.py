@@ -6,7 +6,6 @@ Both are frozen, keyword-only records. Findings are created in one place only,
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass, field
 from enum import IntEnum
 from typing import Any, Mapping
@@ -65,6 +64,8 @@ class Finding:
     def identity(self) -> tuple[str, str, str, str]:
         """Stable across line shifts: rule, file, key path and the values reported (data items
         that are line numbers, ``line`` or ``*_line``, are left out)."""
+        import json  # only baselines ask; a lint run does not pay for the import
+
         values = json.dumps({k: v for k, v in self.data.items() if not _is_line(k)},
                             sort_keys=True, default=str)
         return (self.rule, self.file, self.key, values)

@@ -652,11 +652,16 @@ def _diff_paths(a: Any, b: Any, path: tuple = ()) -> list[tuple]:
         for i, (x, y) in enumerate(zip(a, b)):
             out.extend(_diff_paths(x, y, path + (i,)))
         return out
+    if isinstance(a, float) and a != a and b != b:  # .nan is unchanged though nan != nan
+        return []
     return [] if a == b else [path]
 
 
 def _line_of(starts: list[int], offset: int) -> int:
     return bisect.bisect_right(starts, offset) - 1
+
+
+_LINE = re.compile(r"[^\n]*\n|[^\n]+\Z")
 
 
 def _outside_lines_identical(old: str, new: str, edits: list[_TextEdit]) -> str | None:
@@ -669,7 +674,9 @@ def _outside_lines_identical(old: str, new: str, edits: list[_TextEdit]) -> str 
         touched.update(range(first, last + 1))
         if e.start == e.end:
             touched.add(first - 1)  # an insertion at a line start sits after the line before
-    a, b = old.splitlines(keepends=True), new.splitlines(keepends=True)
+    # lines end at "\n" only, as ``starts`` counts them (str.splitlines also breaks at \x85,
+    # \u2028, \x0c..., which would shift every line number after one inside a quoted value)
+    a, b = _LINE.findall(old), _LINE.findall(new)
     for tag, i1, i2, j1, j2 in difflib.SequenceMatcher(None, a, b, autojunk=False).get_opcodes():
         if tag == "equal":
             continue

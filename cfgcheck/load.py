@@ -14,24 +14,38 @@ small scanner that records positions once the text is known to be valid.
 
 from __future__ import annotations
 
+import bisect
 import codecs
-import json
+import os
 import re
+import stat
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import yaml
 
-try:  # the C composer is several times faster; the pure one gives the same nodes
+
+def _libyaml_nests_safely() -> bool:
+    """libyaml 0.2.5 and later refuse nesting past 1,000 levels; older ones recurse in C."""
+    try:
+        from yaml import _yaml  # type: ignore[attr-defined]
+
+        return tuple(_yaml.get_version()) >= (0, 2, 5)
+    except (ImportError, AttributeError):  # pragma: no cover - depends on how PyYAML was built
+        return False
+
+
+if _libyaml_nests_safely():  # the C composer is several times faster; the pure one gives the same nodes
     from yaml import CSafeLoader as _YamlLoader
-except ImportError:  # pragma: no cover - depends on how PyYAML was built
+else:  # pragma: no cover - the pure composer recurses in Python, which RecursionError bounds
     from yaml import SafeLoader as _YamlLoader  # type: ignore[assignment]
 
 # Limits for hostile input, documented in the README.
 MAX_FILE_BYTES = 2 * 1024 * 1024
 MAX_NODES = 200_000  # values built, aliases counted every time they are expanded
 MAX_DEPTH = 64
+MAX_DOCUMENTS = 1_000  # documents in one YAML stream
 
 Path_ = tuple  # a key path: a tuple of str keys and int list indices
 
@@ -181,20 +195,28 @@ def decode(raw: bytes, name: str) -> Source:
 
 
 def read_source(path: str | Path) -> Source:
+    """Read a regular file, never more than the size limit (a FIFO or /dev/zero cannot hang us)."""
     p = Path(path)
     try:
-        size = p.stat().st_size
-        if size > MAX_FILE_BYTES:
+        st = p.stat()
+        if stat.S_ISDIR(st.st_mode):
+            raise LoadError("is a folder, not a file")
+        if not stat.S_ISREG(st.st_mode):
+            raise LoadError("not a regular file (a device, pipe or socket); not read")
+        if st.st_size > MAX_FILE_BYTES:
             raise LoadError(
-                f"file is {size:,} bytes, over the {MAX_FILE_BYTES:,}-byte limit for a config file"
+                f"file is {st.st_size:,} bytes, over the {MAX_FILE_BYTES:,}-byte limit for a config file"
             )
-        raw = p.read_bytes()
+        with open(p, "rb") as fh:
+            raw = fh.read(MAX_FILE_BYTES + 1)  # the file may grow after stat
     except LoadError:
         raise
     except IsADirectoryError:
         raise LoadError("is a folder, not a file") from None
     except FileNotFoundError:
-        raise LoadError("no such file (or a broken symbolic link)") from None
+        if os.path.islink(p):
+            raise LoadError("broken symbolic link: its target does not exist") from None
+        raise LoadError("no such file") from None
     except PermissionError:
         raise LoadError("permission denied") from None
     except OSError as exc:
@@ -205,7 +227,7 @@ def read_source(path: str | Path) -> Source:
 # --------------------------------------------------------------------------- format choice
 
 def guess_format(name: str, text: str) -> str:
-    suffix = Path(name).suffix.lower()
+    suffix = os.path.splitext(name)[1].lower()
     if suffix in (".json", ".jsonc"):
         return "json"
     if suffix in (".yaml", ".yml"):
@@ -262,31 +284,55 @@ def _mark_span(node: yaml.Node) -> Span:
     return Span(line=sm.line + 1, column=sm.column + 1, start=sm.index, end=em.index)
 
 
-def _problem_position(exc: yaml.YAMLError) -> tuple[int, int, str]:
+def _line_column(text: str, offset: int) -> tuple[int, int]:
+    offset = max(0, min(offset, len(text)))
+    line_start = text.rfind("\n", 0, offset) + 1
+    return text.count("\n", 0, offset) + 1, offset - line_start + 1
+
+
+def _one_line(reason: str) -> str:
+    return " ".join(str(reason).split())
+
+
+def _problem_position(exc: yaml.YAMLError, text: str) -> tuple[int, int, str]:
+    if isinstance(exc, yaml.reader.ReaderError):  # a character YAML does not allow
+        line, column = _line_column(text, exc.position)
+        char = exc.character
+        code = ord(char) if isinstance(char, str) else char
+        return line, column, f"character #x{code:04x} is not allowed in YAML ({exc.reason})"
     mark = getattr(exc, "problem_mark", None) or getattr(exc, "context_mark", None)
     problem = getattr(exc, "problem", None) or str(exc)
     context = getattr(exc, "context", None)
     reason = f"{context}: {problem}" if context and problem else (problem or context or "invalid YAML")
+    if "maximum nesting depth" in reason:  # libyaml's own guard, past our limit anyway
+        reason = f"nested more than {MAX_DEPTH} levels deep"
     if mark is None:
-        return 1, 1, reason
-    return mark.line + 1, mark.column + 1, reason
+        return 1, 1, _one_line(reason)
+    return mark.line + 1, mark.column + 1, _one_line(reason)
 
 
 def _load_yaml(text: str, name: str) -> list[Document]:
     loader = _YamlLoader(text)
     docs: list[Document] = []
+    count = 0  # values built in the whole stream: the alias bound holds across documents
     try:
         index = 0
         while loader.check_node():
+            if index >= MAX_DOCUMENTS:
+                m = loader.peek_event().start_mark
+                raise LoadError(f"more than {MAX_DOCUMENTS:,} documents in one stream; refused",
+                                m.line + 1, m.column + 1)
             node = loader.get_node()
             doc = Document(name=name, format="yaml", data=None, index=index)
             if node is not None:
                 builder = _YamlBuilder(doc, text)
+                builder.count = count
                 doc.data = builder.build(node, (), None, 0)
+                count = builder.count
             docs.append(doc)
             index += 1
     except yaml.YAMLError as exc:
-        line, column, reason = _problem_position(exc)
+        line, column, reason = _problem_position(exc, text)
         raise LoadError(f"invalid YAML: {reason}", line, column) from None
     except RecursionError:
         raise LoadError(f"nesting deeper than the parser can follow (limit {MAX_DEPTH})") from None
@@ -303,6 +349,7 @@ class _YamlBuilder:
         self.text = text
         self.count = 0
         self.seen_alias: dict[int, Any] = {}
+        self.open: set[int] = set()  # collection nodes being built: an alias back to one is a cycle
 
     def _tick(self, node: yaml.Node) -> None:
         self.count += 1
@@ -332,6 +379,18 @@ class _YamlBuilder:
                 value=span, key=key_span, raw=raw, style=node.style or None, tag=explicit, kind="scalar"
             )
             return value
+        if id(node) in self.open:
+            m = node.start_mark
+            raise LoadError("an alias refers to a collection that contains it (a cycle); refused",
+                            m.line + 1, m.column + 1)
+        self.open.add(id(node))
+        try:
+            return self._collection(node, path, key_span, depth, span, explicit)
+        finally:
+            self.open.discard(id(node))
+
+    def _collection(self, node: yaml.Node, path: Path_, key_span: Span | None, depth: int,
+                    span: Span, explicit: str | None) -> Any:
         if isinstance(node, yaml.SequenceNode):
             self.doc.entries[path] = Entry(
                 value=span, key=key_span, tag=explicit, kind="seq", flow=bool(node.flow_style)
@@ -383,12 +442,21 @@ class _YamlBuilder:
             # merged values are written elsewhere: their positions stay those of the anchor
             sub = _YamlBuilder(Document(name=self.doc.name, format="yaml", data=None), self.text)
             sub.count = self.count
+            sub.open = self.open
             value = sub.build(src, path, None, depth + 1)
             self.count = sub.count
             for k, v in value.items():
                 merged.setdefault(k, v)
 
     def _scalar(self, node: yaml.ScalarNode, path: Path_ | None, raw: str) -> Any:
+        try:
+            return self._scalar_value(node, path, raw)
+        except (ValueError, OverflowError) as exc:  # e.g. an integer with more digits than Python reads
+            m = node.start_mark
+            why = _one_line(exc).split(";")[0]
+            raise LoadError(f"value cannot be read: {why}", m.line + 1, m.column + 1) from None
+
+    def _scalar_value(self, node: yaml.ScalarNode, path: Path_ | None, raw: str) -> Any:
         tag = node.tag
         text = node.value
         if tag == "tag:yaml.org,2002:str" or tag not in _STD_TAGS:
@@ -428,11 +496,26 @@ class _YamlBuilder:
 
 # --------------------------------------------------------------------------- JSON
 
+# strings first, so that a word inside a string is never taken for the token
+_JSON_CONSTANT = re.compile(r'"(?:[^"\\]|\\.)*"|(-?Infinity|NaN)')
+_JSON_LONG_INT = re.compile(r'"(?:[^"\\]|\\.)*"|(-?[0-9]{4000,})')
+
+
+def _json_token_offset(text: str, why: str) -> int:
+    """Where the token a ValueError speaks of stands (the json module does not say)."""
+    pattern = _JSON_CONSTANT if "not valid JSON" in why else _JSON_LONG_INT
+    for m in pattern.finditer(text):
+        if m.group(1):
+            return m.start(1)
+    return 0
+
+
 def _reject_constant(name: str) -> Any:
     raise ValueError(f"{name} is not valid JSON")
 
 
 def _load_json(text: str, name: str) -> Document:
+    import json  # YAML-only runs do not pay for it
     duplicates_seen: list[str] = []
 
     def pairs(items: list[tuple[str, Any]]) -> dict:
@@ -448,14 +531,23 @@ def _load_json(text: str, name: str) -> Document:
         data = json.loads(body, object_pairs_hook=pairs, parse_constant=_reject_constant)
     except json.JSONDecodeError as exc:
         raise LoadError(f"invalid JSON: {exc.msg}", exc.lineno, exc.colno) from None
-    except ValueError as exc:
-        raise LoadError(f"invalid JSON: {exc}") from None
+    except ValueError as exc:  # NaN/Infinity, or an integer longer than Python reads
+        line, column = _line_column(text, _json_token_offset(text, str(exc)))
+        raise LoadError(f"invalid JSON: {_one_line(exc).split(';')[0]}", line, column) from None
     except RecursionError:
-        raise LoadError(f"nested deeper than the parser can follow (limit {MAX_DEPTH})") from None
+        raise LoadError(f"nested more than {MAX_DEPTH} levels deep") from None
     doc = Document(name=name, format="json", data=data)
     scanner = _JsonScanner(text, doc)
     scanner.run()
     return doc
+
+
+def _json_string(literal: str) -> str:
+    if "\\" not in literal:  # no escapes: the text between the quotes is the string
+        return literal[1:-1]
+    import json
+
+    return json.loads(literal)
 
 
 class _JsonScanner:
@@ -464,6 +556,7 @@ class _JsonScanner:
     _ws = re.compile(r"[ \t\r\n]*")
     _string = re.compile(r'"(?:[^"\\]|\\.)*"', re.S)
     _number = re.compile(r"-?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?(?:[eE][-+]?[0-9]+)?")
+    _word = re.compile(r"true|false|null")
 
     def __init__(self, text: str, doc: Document):
         self.text = text
@@ -473,8 +566,6 @@ class _JsonScanner:
         self.starts = [0] + [m.end() for m in re.finditer("\n", text)]
 
     def span(self, start: int, end: int) -> Span:
-        import bisect
-
         line = bisect.bisect_right(self.starts, start)
         return Span(line=line, column=start - self.starts[line - 1] + 1, start=start, end=end)
 
@@ -510,7 +601,7 @@ class _JsonScanner:
             while t[self.pos] != "}":
                 m = self._string.match(t, self.pos)
                 kspan = self.span(m.start(), m.end())
-                key = json.loads(m.group())
+                key = _json_string(m.group())
                 self.pos = m.end()
                 self.skip()
                 self.pos += 1  # ':'
@@ -539,7 +630,7 @@ class _JsonScanner:
             elif ch in "-0123456789":
                 m = self._number.match(t, start)
             else:
-                m = re.compile(r"true|false|null").match(t, start)
+                m = self._word.match(t, start)
             self.pos = m.end()
             self.doc.entries[path] = Entry(
                 value=self.span(start, self.pos), key=key_span, raw=m.group(), style="json"

@@ -183,14 +183,14 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     total = sched.total_steps
     if total:
         ws, wr = view.value("optim.warmup_steps"), view.value("optim.warmup_ratio")
-        if isinstance(ws, (int, float)) and ws > 0:
+        if isinstance(ws, (int, float)) and ws > 0 and math.isfinite(ws):
             plan.warmup_steps = resolve_interval(float(ws), total)
-        elif isinstance(wr, (int, float)) and wr > 0:
+        elif isinstance(wr, (int, float)) and wr > 0 and math.isfinite(wr):
             plan.warmup_steps = math.ceil(total * wr)  # transformers get_warmup_steps (4.x)
         for what, name in (("eval", "cadence.eval_steps"), ("save", "cadence.save_steps"),
                            ("logging", "cadence.logging_steps")):
             v = view.value(name)
-            if isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0:
+            if isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0 and math.isfinite(v):
                 plan.cadence[what] = resolve_interval(float(v), total)
     if arch is None:
         plan.memory_problem = ("model not known offline" + (f" ({ref!r})" if isinstance(ref, str) else

@@ -75,7 +75,8 @@ def derive(values: dict, *, gpus: int | None, rows: int | None, use_trainer_defa
         sched.max_steps_override = True
     if rows and isinstance(pd, int) and pd > 0 and isinstance(ga, int) and ga > 0:
         sched.steps_per_epoch = steps_per_epoch(rows, pd, ga, n)
-        if sched.total_steps is None and isinstance(epochs, (int, float)) and epochs > 0:
+        if (sched.total_steps is None and isinstance(epochs, (int, float)) and epochs > 0
+                and math.isfinite(epochs)):
             sched.total_steps = math.ceil(epochs * sched.steps_per_epoch)
             sched.epochs = float(epochs)
     return sched

@@ -24,7 +24,13 @@ def check(rule_id: str) -> Callable[[Callable], Callable]:
     return register
 
 
+_loaded = False
+
+
 def all_checks() -> dict[str, Callable]:
-    for name in MODULES:
-        importlib.import_module(f"{__name__}.{name}")
+    global _loaded
+    if not _loaded:
+        for name in MODULES:
+            importlib.import_module(f"{__name__}.{name}")
+        _loaded = True
     return CHECKS

@@ -30,6 +30,8 @@ def lora_scale_below_one(ctx) -> None:
         if isinstance(rank, int) and alpha_f is None:
             ctx.cannot_judge("lora_alpha is not set, and its default differs between libraries")
         return
+    if isinstance(alpha, float) and not math.isfinite(alpha):
+        return  # .nan / .inf: no scale to speak of; the value itself is the problem
     rslora = view.is_on("adapter.rslora")
     scale = adapter_scale(alpha, rank, rslora)
     if scale >= ctx.thresholds["min_scale"]:
@@ -46,6 +48,11 @@ def lora_scale_below_one(ctx) -> None:
         summary=f"{alpha_f.key}: {alpha:g} -> {new_alpha} (adapter scale {scale:.3g} -> {new_scale:.3g})",
         edits=(Edit(path=alpha_f.path, old=alpha_f.written, new=new_alpha),),
     )
+    if alpha <= 0:  # scale 0 (or negative): "Nx smaller" has no N
+        ctx.report(alpha_f, "not-positive", fix=fix, alpha_key=alpha_f.leaf, alpha=alpha,
+                   rank=rank, scale=round(scale, 4), new_alpha=new_alpha,
+                   new_scale=round(new_scale, 4))
+        return
     ctx.report(
         alpha_f,
         "rslora" if rslora else "default",

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from ..findings import Edit, Fix
 from ..schedule import resolve_interval
 from . import check
@@ -54,7 +56,7 @@ def cadence_longer_than_run(ctx) -> None:
     view = ctx.view
     intervals = [(view.get(n), s, what) for n, s, what in _INTERVALS if view.get(n) is not None]
     intervals = [(f, s, w) for f, s, w in intervals if isinstance(f.value, (int, float))
-                 and not isinstance(f.value, bool) and f.value >= 1]
+                 and not isinstance(f.value, bool) and f.value >= 1 and math.isfinite(f.value)]
     if not intervals:
         return
     total, sched, how = run_steps(ctx)

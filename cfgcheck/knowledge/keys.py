@@ -190,6 +190,7 @@ def _allowed_edits(length: int) -> int:
     return 3
 
 
+@cache  # the tables are fixed for the process; a corpus repeats its unknown keys
 def suggest(key: str, layout: str = "trainer") -> str | None:
     """The nearest known key for a mistyped KEY, or None.
 

@@ -485,6 +485,17 @@ def module_table(arch: Architecture) -> list[Module]:
     Each row is (full name, kind, {parameter name: shape}). A tied ``lm_head`` lists its weight
     too; :func:`total_parameters` counts it once, as transformers does.
     """
+    return list(_module_rows(arch))
+
+
+# A lint run asks the same few models again and again (one corpus, many configs): the tables
+# depend on the architecture alone, so they are built once per architecture.
+@lru_cache(maxsize=64)
+def _module_rows(arch: Architecture) -> tuple[Module, ...]:
+    return tuple(_build_module_table(arch))
+
+
+def _build_module_table(arch: Architecture) -> list[Module]:
     _require_supported(arch)
     h, V = arch.hidden_size, arch.vocab_size
     mods: list[Module] = [
@@ -504,6 +515,7 @@ def _numel(shape: Iterable[int]) -> int:
     return math.prod(shape)
 
 
+@lru_cache(maxsize=64)
 def total_parameters(arch: Architecture) -> int:
     """Exactly what transformers' ``model.num_parameters()`` reports (tied weights counted once)."""
     total = 0
@@ -565,8 +577,36 @@ def _normalise_targets(arch: Architecture, targets):
     return [str(t) for t in targets]
 
 
+def _frozen(value):
+    if isinstance(value, (list, tuple)):
+        return ("seq", tuple(_frozen(v) for v in value))
+    if isinstance(value, (set, frozenset)):
+        return ("set", frozenset(_frozen(v) for v in value))
+    if isinstance(value, dict):
+        return ("map", tuple((_frozen(k), _frozen(v)) for k, v in value.items()))
+    return (type(value).__name__, value)
+
+
+_MATCHED: dict = {}
+
+
 def _matched(arch: Architecture, targets, modules_to_save) -> list[Module]:
-    rows = module_table(arch)
+    """Memoised per (architecture, targets, modules_to_save): the same few occur across a corpus."""
+    try:
+        key = (arch, _frozen(targets), _frozen(modules_to_save))
+        hit = _MATCHED.get(key)
+    except TypeError:  # something unhashable inside: work it out each time
+        return _match_rows(arch, targets, modules_to_save)
+    if hit is None:
+        hit = tuple(_match_rows(arch, targets, modules_to_save))
+        if len(_MATCHED) >= 4096:
+            _MATCHED.clear()
+        _MATCHED[key] = hit
+    return list(hit)
+
+
+def _match_rows(arch: Architecture, targets, modules_to_save) -> list[Module]:
+    rows = _module_rows(arch)
     if _is_all_linear(targets):
         # all nn.Linear except the output embedding (PEFT _maybe_include_all_linear_layers)
         return [

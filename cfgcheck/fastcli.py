@@ -1,0 +1,146 @@
+"""A direct path from argv to the ``lint`` command for the common invocations.
+
+Typer builds a validation adapter for every parameter of a command the first time it runs, which
+costs more than the whole lint of a small file. For ``cfgcheck lint`` with options this module
+understands, we read argv ourselves, from the same parameter declarations the typer command
+carries (names, defaults, ``min``/``max``, enum choices), and call the same command function.
+Anything else (``--help``, another command, an option or a value we do not read exactly as typer
+would, a parameter kind we do not know) returns ``None`` and typer handles the whole command line,
+so the errors and help texts stay typer's own.
+
+Part of the command-line layer: only ``cli.main`` calls it, and runs the command.
+"""
+
+from __future__ import annotations
+
+import enum
+import inspect
+import typing
+from pathlib import Path
+from typing import Any, Callable
+
+_REFUSE = ("callback", "envvar", "prompt", "default_factory", "parser", "count", "exists",
+           "confirmation_prompt", "is_eager")
+
+
+class _Decline(Exception):
+    """This command line is typer's to read."""
+
+
+def _base(annotation: Any) -> tuple[Any, bool]:
+    """(type, is_list) for the annotations we read: T, Optional[T], List[T]."""
+    origin = typing.get_origin(annotation)
+    args = [a for a in typing.get_args(annotation) if a is not type(None)]
+    if origin is typing.Union and len(args) == 1:
+        return _base(args[0])
+    if origin is list and len(args) == 1:
+        return args[0], True
+    return annotation, False
+
+
+def _spec(fn: Callable) -> tuple[dict[str, tuple[str, Any, Any]], tuple[str, Any, Any] | None]:
+    from typer.models import ArgumentInfo, OptionInfo
+
+    hints = typing.get_type_hints(fn)
+    options: dict[str, tuple[str, Any, Any]] = {}
+    argument = None
+    for name, param in inspect.signature(fn).parameters.items():
+        info = param.default
+        kind, is_list = _base(hints.get(name))
+        if kind not in (bool, int, str, Path) and not (isinstance(kind, type) and issubclass(kind, enum.Enum)):
+            raise _Decline
+        if any(getattr(info, attr, None) for attr in _REFUSE):
+            raise _Decline
+        if isinstance(info, ArgumentInfo):
+            if argument is not None or not is_list:
+                raise _Decline
+            argument = (name, kind, info)
+        elif isinstance(info, OptionInfo):
+            if is_list:
+                raise _Decline
+            for decl in info.param_decls or ():
+                if "/" in decl or not decl.startswith("-"):
+                    raise _Decline  # --x/--no-x switches: typer's
+                options[decl] = (name, kind, info)
+        else:
+            raise _Decline
+    return options, argument
+
+
+def _convert(kind: Any, info: Any, text: str) -> Any:
+    if kind is int:
+        if not text.lstrip("-").isdigit():
+            raise _Decline
+        value = int(text)
+        if (info.min is not None and value < info.min) or (info.max is not None and value > info.max):
+            raise _Decline
+        return value
+    if kind is Path:
+        return Path(text)
+    if kind is str:
+        return text
+    try:  # an Enum of choices, matched exactly as typer does by default
+        return kind(text)
+    except ValueError:
+        raise _Decline from None
+
+
+def parse(argv: list[str], fn: Callable) -> dict[str, Any]:
+    """Keyword arguments for ``fn`` from argv (without the command word); raises _Decline."""
+    options, argument = _spec(fn)
+    values: dict[str, Any] = {}
+    positional: list[str] = []
+    i = 0
+    while i < len(argv):
+        tok = argv[i]
+        i += 1
+        if tok == "--":
+            positional.extend(argv[i:])
+            break
+        if tok.startswith("-") and tok != "-":
+            name_part, eq, inline = tok.partition("=")
+            if name_part not in options:
+                raise _Decline
+            name, kind, info = options[name_part]
+            if name in values:
+                raise _Decline  # repeated options: let typer decide
+            if kind is bool:
+                if eq:
+                    raise _Decline
+                values[name] = True
+                continue
+            if not eq:
+                if i >= len(argv):
+                    raise _Decline
+                inline = argv[i]
+                i += 1
+            values[name] = _convert(kind, info, inline)
+        else:
+            positional.append(tok)
+    if argument is None:
+        if positional:
+            raise _Decline
+    else:
+        name, kind, info = argument
+        if not positional:
+            raise _Decline  # typer prints the usage error
+        values[name] = [_convert(kind, info, p) for p in positional]
+    for decl, (name, kind, info) in options.items():
+        if name not in values:
+            default = info.default
+            if default is ... or (default is not None and kind is not bool
+                                  and not isinstance(default, (int, str, enum.Enum))):
+                raise _Decline
+            values[name] = default
+    return values
+
+
+def direct_arguments(argv: list[str], command: str, fn: Callable) -> dict[str, Any] | None:
+    """Keyword arguments for ``fn`` when argv is ``command`` plus options read exactly as typer
+    would read them; None when typer must read the command line."""
+    if not argv or argv[0] != command:
+        return None
+    try:
+        return parse(argv[1:], fn)
+    except _Decline:
+        return None

@@ -1,0 +1,150 @@
+"""A rule that raises is an internal error apart from the findings; --jobs gives the serial output;
+the direct start path reads a command line exactly as typer does or leaves it to typer."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from cfgcheck import api, cli, engine, fastcli
+from cfgcheck.checks import all_checks
+from cfgcheck.engine import Options
+from cfgcheck.findings import Severity
+from cfgcheck.render import FORMATS, render
+
+ROOT = Path(__file__).resolve().parents[1]
+ENV = dict(os.environ, PYTHONPATH=str(ROOT))
+LORA = "model_name_or_path: tidewater/support-7b\nlora_r: 16\nlora_alpha: 8\nlearning_rate: 2.0e-4\n"
+
+
+@pytest.fixture
+def broken_rule(monkeypatch):
+    checks = all_checks()
+
+    def explode(ctx):
+        raise ZeroDivisionError("boom")
+
+    monkeypatch.setitem(checks, "global-batch-mismatch", explode)
+    return "global-batch-mismatch"
+
+
+def test_a_failing_rule_is_one_internal_error_and_the_others_run(broken_rule, tmp_path):
+    (tmp_path / "run.yaml").write_text(LORA)
+    report = engine.lint_paths([tmp_path], Options())
+    assert [(e.rule, Path(e.file).name) for e in report.internal] == [(broken_rule, "run.yaml")]
+    assert "ZeroDivisionError: boom" in report.internal[0].error
+    warned = [f.rule for f in report.findings if f.severity >= Severity.WARNING]
+    assert warned == ["lora-scale-below-one"]  # alpha 8 < r 16
+    assert report.problems == []
+    assert api.exit_code(report) == api.EXIT_INTERNAL
+    text = render("text", report, report.findings)
+    assert f"internal error in rule {broken_rule}" in text and "Traceback" not in text
+
+
+def test_debug_re_raises(broken_rule, tmp_path):
+    (tmp_path / "run.yaml").write_text(LORA)
+    with pytest.raises(ZeroDivisionError):
+        engine.lint_paths([tmp_path], Options(debug=True))
+
+
+def test_cli_exit_3_for_internal_error(broken_rule, tmp_path, monkeypatch, capsys):
+    (tmp_path / "run.yaml").write_text(LORA)
+    monkeypatch.setattr(sys, "argv", ["cfgcheck", "lint", str(tmp_path)])
+    with pytest.raises(SystemExit) as info:
+        cli.main()
+    assert info.value.code == 3
+    assert f"internal error in rule {broken_rule}" in capsys.readouterr().out
+
+
+def _corpus(folder: Path) -> None:
+    for i in range(40):
+        if i % 7 == 3:
+            (folder / f"c{i:02d}.yaml").write_text("learning_rate: [2.0e-4\n")  # broken
+        elif i % 5 == 0:
+            (folder / f"c{i:02d}.json").write_text(
+                '{"train_batch_size": 64, "train_micro_batch_size_per_gpu": 4, '
+                '"gradient_accumulation_steps": %d, "zero_optimization": {"stage": 2}}\n' % (i % 3 + 1))
+        else:
+            (folder / f"c{i:02d}.yaml").write_text(LORA.replace("8", str(4 + i)))
+
+
+@pytest.mark.parametrize("fmt", FORMATS)
+def test_jobs_output_is_identical_to_serial(tmp_path, fmt):
+    _corpus(tmp_path)
+    opts = api.make_options(gpus=8)
+    serial = engine.lint_paths([tmp_path], opts)
+    parallel = engine.lint_paths([tmp_path], opts, jobs=2)
+    assert render(fmt, parallel, parallel.findings) == render(fmt, serial, serial.findings)
+    assert len(serial.problems) == 6 and serial.findings  # the corpus holds both kinds
+
+
+def test_cli_jobs_same_bytes_and_exit(tmp_path):
+    _corpus(tmp_path)
+    runs = [subprocess.run([sys.executable, "-m", "cfgcheck", "lint", str(tmp_path), *extra],
+                           capture_output=True, text=True, cwd=ROOT, env=ENV, timeout=120)
+            for extra in ([], ["--jobs", "2"], ["-j", "3"])]
+    assert {r.stdout for r in runs} == {runs[0].stdout}
+    assert {r.returncode for r in runs} == {2}
+
+
+# --------------------------------------------------------------------------- the direct start path
+
+def test_direct_path_reads_options_like_typer():
+    kw = fastcli.parse(["a.yaml", "--gpu", "t4", "--rows=1000", "-j", "2", "b.yaml", "--debug"], cli.lint)
+    assert kw["paths"] == [Path("a.yaml"), Path("b.yaml")]
+    assert (kw["gpu"], kw["rows"], kw["jobs"], kw["debug"]) == ("t4", 1000, 2, True)
+    assert kw["fmt"] is cli.Format.text and kw["show"] is cli.Level.warning and kw["gpus"] is None
+
+
+@pytest.mark.parametrize("argv", [
+    ["--help"], ["a.yaml", "-h"], ["a.yaml", "--gpus", "0"], ["a.yaml", "--format", "xml"],
+    ["a.yaml", "--no-such-option"], [], ["a.yaml", "--rows"], ["a.yaml", "--rows", "many"],
+    ["a.yaml", "--debug=yes"], ["a.yaml", "--gpu", "t4", "--gpu", "a100"],
+])
+def test_direct_path_leaves_the_rest_to_typer(argv):
+    with pytest.raises(fastcli._Decline):
+        fastcli.parse(argv, cli.lint)
+    assert fastcli.direct_arguments(["lint", *argv], "lint", cli.lint) is None
+
+
+def test_other_commands_go_to_typer():
+    assert fastcli.direct_arguments(["rules"], "lint", cli.lint) is None
+    assert fastcli.direct_arguments(["plan", "a.yaml"], "lint", cli.lint) is None
+    assert fastcli.direct_arguments([], "lint", cli.lint) is None
+
+
+@pytest.mark.parametrize("args", [
+    ["fixtures/demo"],
+    ["fixtures/demo", "--format", "json", "--gpu", "t4", "--rows", "1000"],
+    ["fixtures/demo", "--show", "info", "--gpus", "8"],
+    ["fixtures/clean", "fixtures/hostile/malformed.yaml"],
+])
+def test_direct_path_prints_what_typer_prints(args):
+    direct = subprocess.run([sys.executable, "-m", "cfgcheck", "lint", *args], capture_output=True,
+                            text=True, cwd=ROOT, env=ENV, timeout=120)
+    via_typer = subprocess.run([sys.executable, "-c", "from cfgcheck.cli import app; app()", "lint",
+                                *args], capture_output=True, text=True, cwd=ROOT, env=ENV, timeout=120)
+    assert (direct.returncode, direct.stdout, direct.stderr) == (
+        via_typer.returncode, via_typer.stdout, via_typer.stderr)
+
+
+def test_dropping_views_keeps_every_finding(tmp_path):
+    _corpus(tmp_path)
+    kept = engine.lint_paths([tmp_path], Options())
+    dropped = engine.lint_paths([tmp_path], Options(), keep_views=False)
+    assert all(fr.views == [] for fr in dropped.files) and any(fr.views for fr in kept.files)
+    assert render("json", dropped, dropped.findings) == render("json", kept, kept.findings)
+
+
+def test_lint_never_imports_the_fixer_the_schema_engine_or_typers_adapters():
+    code = ("import sys\nsys.argv = ['cfgcheck', 'lint', 'fixtures/demo', 'fixtures/clean']\n"
+            "from cfgcheck.cli import main\ntry:\n    main()\nexcept SystemExit:\n    pass\n"
+            "heavy = sorted(m for m in sys.modules if m.split('.')[0] in ('jsonschema', 'ruamel', 'pydantic')"
+            " or m == 'cfgcheck.fix')\nsys.stderr.write(repr(heavy))\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT,
+                         env=ENV, timeout=120)
+    assert out.stderr.strip().splitlines()[-1] == "[]", out.stderr
