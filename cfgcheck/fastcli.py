@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import enum
 import inspect
+import os
 import typing
 from pathlib import Path
 from typing import Any, Callable
@@ -38,11 +39,13 @@ def _base(annotation: Any) -> tuple[Any, bool]:
     return annotation, False
 
 
-def _spec(fn: Callable) -> tuple[dict[str, tuple[str, Any, Any]], tuple[str, Any, Any] | None]:
+def _spec(fn: Callable) -> tuple[dict[str, tuple[str, Any, Any, str]], tuple[str, Any, Any] | None]:
+    """Option spellings -> (parameter, type, declaration, how: "value" | "list" | "flag" | "on" |
+    "off"), and the positional argument (parameter, type, declaration)."""
     from typer.models import ArgumentInfo, OptionInfo
 
     hints = typing.get_type_hints(fn)
-    options: dict[str, tuple[str, Any, Any]] = {}
+    options: dict[str, tuple[str, Any, Any, str]] = {}
     argument = None
     for name, param in inspect.signature(fn).parameters.items():
         info = param.default
@@ -56,12 +59,18 @@ def _spec(fn: Callable) -> tuple[dict[str, tuple[str, Any, Any]], tuple[str, Any
                 raise _Decline
             argument = (name, kind, info)
         elif isinstance(info, OptionInfo):
-            if is_list:
-                raise _Decline
             for decl in info.param_decls or ():
-                if "/" in decl or not decl.startswith("-"):
-                    raise _Decline  # --x/--no-x switches: typer's
-                options[decl] = (name, kind, info)
+                if not decl.startswith("-"):
+                    raise _Decline
+                if "/" in decl:  # --x/--no-x
+                    on, off = (d.strip() for d in decl.split("/", 1))
+                    if kind is not bool or is_list:
+                        raise _Decline
+                    options[on] = (name, kind, info, "on")
+                    options[off] = (name, kind, info, "off")
+                else:
+                    how = "list" if is_list else ("flag" if kind is bool else "value")
+                    options[decl] = (name, kind, info, how)
         else:
             raise _Decline
     return options, argument
@@ -101,20 +110,24 @@ def parse(argv: list[str], fn: Callable) -> dict[str, Any]:
             name_part, eq, inline = tok.partition("=")
             if name_part not in options:
                 raise _Decline
-            name, kind, info = options[name_part]
-            if name in values:
+            name, kind, info, how = options[name_part]
+            if how != "list" and name in values:
                 raise _Decline  # repeated options: let typer decide
-            if kind is bool:
+            if how in ("flag", "on", "off"):
                 if eq:
                     raise _Decline
-                values[name] = True
+                values[name] = how != "off"
                 continue
             if not eq:
                 if i >= len(argv):
                     raise _Decline
                 inline = argv[i]
                 i += 1
-            values[name] = _convert(kind, info, inline)
+            value = _convert(kind, info, inline)
+            if how == "list":
+                values.setdefault(name, []).append(value)
+            else:
+                values[name] = value
         else:
             positional.append(tok)
     if argument is None:
@@ -122,10 +135,13 @@ def parse(argv: list[str], fn: Callable) -> dict[str, Any]:
             raise _Decline
     else:
         name, kind, info = argument
-        if not positional:
-            raise _Decline  # typer prints the usage error
-        values[name] = [_convert(kind, info, p) for p in positional]
-    for decl, (name, kind, info) in options.items():
+        if positional:
+            values[name] = [_convert(kind, info, p) for p in positional]
+        elif info.default is None:
+            values[name] = None  # typer passes None for an optional list left out
+        else:
+            raise _Decline  # a required argument is missing: typer prints the usage error
+    for decl, (name, kind, info, how) in options.items():
         if name not in values:
             default = info.default
             if default is ... or (default is not None and kind is not bool
@@ -140,6 +156,9 @@ def direct_arguments(argv: list[str], command: str, fn: Callable) -> dict[str, A
     would read them; None when typer must read the command line."""
     if not argv or argv[0] != command:
         return None
+    if any(k.startswith("_") and k.endswith("_COMPLETE") for k in os.environ):
+        return None  # shell completion is typer's
+
     try:
         return parse(argv[1:], fn)
     except _Decline:

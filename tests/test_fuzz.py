@@ -147,6 +147,8 @@ def test_regression_non_positive_or_non_finite_alpha(text):
     "model:\n  model_name_or_path: tidewater/support-7b\ntraining:\n  learning_rate: 1.0\n"
     "  per_device_train_batch_size: auto\n  warmup_ratio: 0.0\n  save_steps: 1\n  num_train_epochs: .inf\n",
     "learning_rate: 1.0e-5\nper_device_train_batch_size: 4\nsave_steps: .inf\nmax_steps: 100\n",
+    # eval_steps .inf with a steps strategy: int(inf) in the run-too-short-for-cadence rule
+    "learning_rate: 1.0e-5\neval_strategy: steps\neval_steps: .inf\nmax_steps: 100\n",
 ])
 def test_regression_infinite_epochs_or_interval(text):
     reports = pipeline("adapter.yaml", text.encode())

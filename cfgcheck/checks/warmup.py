@@ -15,6 +15,8 @@ _HF_ARGS = ("trainer", "llama-factory", "llama-factory-v1", "axolotl")
 def _num(f):
     if f is None or f.auto or isinstance(f.value, bool) or not isinstance(f.value, (int, float)):
         return None
+    if isinstance(f.value, float) and not math.isfinite(f.value):
+        return None  # .inf / .nan: no step count to reason about (found by fuzzing)
     return f.value
 
 
