@@ -31,7 +31,7 @@ import difflib
 import json
 from dataclasses import dataclass, field
 from functools import cache
-from importlib import resources
+from pathlib import Path
 
 __all__ = ["KeyInfo", "lookup", "suggest", "layouts"]
 
@@ -89,6 +89,11 @@ def _ordered_libraries(accepted: dict) -> list[str]:
 
 
 def _read_json(name: str) -> dict:
+    here = Path(__file__).with_name(name)
+    if here.is_file():  # an ordinary install: importlib.resources (zipfile, tempfile...) not needed
+        return json.loads(here.read_text(encoding="utf-8"))
+    from importlib import resources  # a zipped package
+
     return json.loads(resources.files(__package__).joinpath(name).read_text(encoding="utf-8"))
 
 
