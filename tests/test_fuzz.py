@@ -151,8 +151,17 @@ def test_regression_non_positive_or_non_finite_alpha(text):
     "learning_rate: 1.0e-5\neval_strategy: steps\neval_steps: .inf\nmax_steps: 100\n",
 ])
 def test_regression_infinite_epochs_or_interval(text):
+    reports = pipeline("train.yaml", text.encode())
+    assert all(r.problem is None for r in reports)
+
+
+def test_regression_modules_to_save_that_is_not_a_pattern():
+    # found by fuzzing: ")" in modules_to_save raised re.error inside the memory rule
+    text = ("peft_type: LORA\nr: auto\nlora_alpha: auto\ntarget_modules: null\nmodules_to_save:\n- )\n"
+            "base_model_name_or_path: meta-llama/Llama-2-7b-hf\n")
     reports = pipeline("adapter.yaml", text.encode())
     assert all(r.problem is None for r in reports)
+
 
 
 def test_regression_fixer_proof_sees_nan_unchanged():

@@ -552,7 +552,10 @@ def _excluded_by_modules_to_save(key: str, modules_to_save) -> bool:
     # PEFT: adapters never match modules_to_save modules: re.match(rf"(^|.*\.){m}($|\..*)", key)
     if not modules_to_save:
         return False
-    return any(re.match(rf"(^|.*\.){m}($|\..*)", key) for m in modules_to_save)
+    try:
+        return any(re.match(rf"(^|.*\.){m}($|\..*)", key) for m in modules_to_save)
+    except re.error:  # a name that is not a valid pattern (PEFT would fail on it too): no match
+        return False
 
 
 def _matches(targets, key: str) -> bool:
