@@ -64,6 +64,16 @@ def _project(project: Any, paths: list):
     return projectmod.load(project)
 
 
+def _targets(paths: list, project: Any, given: dict[str, Any]):
+    """(files as (file, skip reason), options for a file, the project or None)."""
+    proj = _project(project, paths)
+    if proj is None:
+        opts = Options(**{k: v for k, v in given.items() if v is not None})
+        return [(f, None) for f in engine.expand_paths(paths)], (lambda file: opts), None
+    files = proj.expand(paths or [os.path.relpath(proj.root)])
+    return files, (lambda file: proj.options_for(file, given)), proj
+
+
 def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
          baseline: str | Path | bool | None = None,
          progress: Callable[[int, int], None] | None = None, jobs: int = 1,
@@ -81,21 +91,9 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
     file, ``ValueError`` for a bad option value.
     """
     paths = list(paths)
-    given = given_options(**options)
-    proj = _project(project, paths)
-    if proj is None:
-        opts = Options(**{k: v for k, v in given.items() if v is not None})
-        files = [(f, None) for f in engine.expand_paths(paths)]
-
-        def options_for(file: str) -> Options:
-            return opts
-    else:
-        files = proj.expand(paths or [os.path.relpath(proj.root)])
-
-        def options_for(file: str) -> Options:
-            return proj.options_for(file, given)
-        if baseline is None and proj.baseline is not None and proj.baseline.is_file():
-            baseline = proj.baseline  # the project's baseline, unless the caller chose
+    files, options_for, proj = _targets(paths, project, given_options(**options))
+    if proj is not None and baseline is None and proj.baseline is not None and proj.baseline.is_file():
+        baseline = proj.baseline  # the project's baseline, unless the caller chose
     report = Report()
     # jobs > 1: the files are linted over processes, reports still in this order
     linted = engine.lint_files([(f, options_for(f)) for f, skip in files if not skip],
@@ -136,12 +134,14 @@ def lint_mapping(data: Mapping, name: str = "<mapping>", **options: Any) -> File
 
 
 def fix(paths: Iterable[str | Path], *, training: bool = False, halve_batch: bool = False,
-        write: bool = True, **options: Any):
-    """Fix files and folders; returns a ``fix.FixReport`` (see docs/fixing.md)."""
+        write: bool = True, project: Any = "auto", **options: Any):
+    """Fix files and folders; returns a ``fix.FixReport`` (see docs/fixing.md). The project file's
+    hardware profiles, rule selection and waivers apply as they do for ``lint``."""
     from . import fix as fixmod
 
-    return fixmod.fix_paths(paths, make_options(**options), training=training,
-                            halve_batch=halve_batch, write=write)
+    files, options_for, _proj = _targets(list(paths), project, given_options(**options))
+    return fixmod.fix_files([(f, options_for(f)) for f, skip in files if not skip],
+                            training=training, halve_batch=halve_batch, write=write)
 
 
 def fix_exit_code(report, *, no_write: bool = False) -> int:
@@ -175,16 +175,20 @@ class PlanResult:
     problems: list = field(default_factory=list)
 
 
-def plan(paths: Iterable[str | Path], **options: Any) -> PlanResult:
-    """The derived run of each training config (skipped files are left out)."""
-    from .load import LoadError, load_path
+def plan(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) -> PlanResult:
+    """The derived run of each training config (skipped files are left out); the project
+    file's hardware profiles apply as they do for ``lint``."""
     from .findings import InputProblem
+    from .load import LoadError, load_path
     from .plan import derive_plan, model_of
     from .view import build_view
 
-    opts = make_options(**options)
+    files, options_for, _proj = _targets(list(paths), project, given_options(**options))
     out = PlanResult()
-    for file in engine.expand_paths(paths):
+    for file, skip in files:
+        if skip:
+            continue
+        opts = options_for(file)
         try:
             _src, docs = load_path(file)
         except LoadError as exc:

@@ -257,18 +257,20 @@ def plan(
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows."),
     fmt: PlanFormat = typer.Option(PlanFormat.text, "--format", help="Output format."),
+    no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (their hardware profiles)."),
 ) -> None:
     """Show the derived run: parameters, batch, steps and the memory estimate per GPU."""
     import json as _json
 
     from . import api
-    from .knowledge.hardware import UnknownGpu
+    from .project import ProjectError
 
     try:
-        result = api.plan(paths, gpu=gpu, gpus=gpus, rows=rows)
-    except UnknownGpu as exc:
-        typer.echo(f"cfgcheck: {exc}", err=True)
-        raise typer.Exit(api.EXIT_INPUT)
+        result = api.plan(paths, gpu=gpu, gpus=gpus, rows=rows, project=None if no_project else "auto")
+    except ValueError as exc:  # an unknown GPU name
+        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
+    except ProjectError as exc:
+        _fail(str(exc), api.EXIT_INPUT)
     if fmt is PlanFormat.json:
         sys.stdout.write(_json.dumps({"plans": [dict(p.as_dict(), file=f) for f, p in result.plans],
                                       "input_errors": [e.as_dict() for e in result.problems]},
@@ -292,19 +294,21 @@ def fix(
     gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (hardware profiles, rule selection, waivers)."),
 ) -> None:
     """Rewrite the values rules can fix, in place, keeping every other byte; each rewrite is proven first."""
     from . import api
     from . import fix as fixmod
-    from .knowledge.hardware import UnknownGpu
+    from .project import ProjectError
 
     try:
-        options = api.make_options(gpu=gpu, gpus=gpus, rows=rows)
-    except UnknownGpu as exc:
-        typer.echo(f"cfgcheck: {exc}", err=True)
-        raise typer.Exit(api.EXIT_INPUT)
-    report = fixmod.fix_paths(paths, options, training=training, halve_batch=halve_batch,
-                              write=not (diff or no_write))
+        report = api.fix(paths, training=training, halve_batch=halve_batch,
+                         write=not (diff or no_write), project=None if no_project else "auto",
+                         gpu=gpu, gpus=gpus, rows=rows)
+    except ValueError as exc:  # an unknown GPU name
+        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
+    except ProjectError as exc:
+        _fail(str(exc), api.EXIT_INPUT)
     if diff:
         sys.stdout.write("".join(f.diff() for f in report.files))
     summary = fixmod.summary_text(report, dry=diff or no_write)

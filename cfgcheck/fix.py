@@ -1017,10 +1017,17 @@ def fix_file(path: str | Path, options: Options | None = None, *, training: bool
 
 def fix_paths(paths: Iterable[str | Path], options: Options | None = None, *,
               training: bool = False, halve_batch: bool = False, write: bool = True) -> FixReport:
-    """Fix files and folders (folders walked as lint walks them)."""
+    """Fix files and folders (folders walked as lint walks them), all with the same options."""
     options = options or Options()
-    return FixReport(files=[fix_file(p, options, training=training, halve_batch=halve_batch,
-                                     write=write) for p in engine.expand_paths(paths)])
+    return fix_files([(p, options) for p in engine.expand_paths(paths)], training=training,
+                     halve_batch=halve_batch, write=write)
+
+
+def fix_files(files: Iterable[tuple[str, Options]], *, training: bool = False,
+              halve_batch: bool = False, write: bool = True) -> FixReport:
+    """Fix each file with its own options (a project's hardware profiles differ per folder)."""
+    return FixReport(files=[fix_file(p, o, training=training, halve_batch=halve_batch,
+                                     write=write) for p, o in files])
 
 
 # --------------------------------------------------------------------------- the summary

@@ -264,3 +264,25 @@ def test_engine_takes_per_file_options(tmp_path):
     hits = {Path(fr.file).parent.name: "precision-unsupported-on-gpu" in {f.rule for f in fr.findings}
             for fr in report.files}
     assert hits == {"a100": False, "t4": True}  # bf16 needs compute capability 8.0; T4 has 7.5
+
+
+def test_fix_and_plan_follow_the_hardware_profile(tmp_path):
+    repo = make_repo(tmp_path, """\
+        profiles:
+          - paths: runs/t4/**
+            gpu: t4
+        """)
+    (repo / "runs" / "t4").mkdir(parents=True)
+    cfg = repo / "runs" / "t4" / "train.yaml"
+    cfg.write_text(BF16_RUN)
+    # the profile's T4 (compute capability 7.5 < 8.0 for bf16, NVIDIA table) makes the precision
+    # fix apply with no --gpu flag
+    report = api.fix([cfg], training=True, write=False)
+    (ff,) = report.files
+    assert [a.rule for a in ff.applied] == ["precision-unsupported-on-gpu"]
+    assert "bf16: false" in ff.new_text and "fp16: true" in ff.new_text
+    assert api.fix([cfg], training=True, write=False, project=None).files[0].applied == []
+    ((_, plan),) = api.plan([cfg]).plans
+    assert plan.gpu is not None and plan.gpu.name == "t4"
+    r = runner.invoke(app, ["fix", "--diff", "--allow-training-changes", str(cfg)])
+    assert r.exit_code == 0 and "+bf16: false" in r.output
