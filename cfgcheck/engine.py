@@ -332,16 +332,15 @@ def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
     return lint_text(src.text, name, options)
 
 
-def expand_paths(paths: Iterable[str | Path]) -> list[str]:
-    """Files as given; folders walked for .yaml/.yml/.json files, sorted, hidden folders skipped.
-
-    A folder that cannot be listed is kept in the list, so that linting it reports why.
-    """
-    out: list[str] = []
+def walk_paths(paths: Iterable[str | Path]) -> list[tuple[str, bool]]:
+    """(file, named) pairs: files as given (named True); folders walked for .yaml/.yml/.json
+    files, sorted, hidden folders skipped (named False). A folder that cannot be listed is kept
+    (named True), so that linting it reports why."""
+    out: list[tuple[str, bool]] = []
 
     def unlistable(exc: OSError) -> None:
         if exc.filename is not None:
-            out.append(str(exc.filename))
+            out.append((str(exc.filename), True))
 
     for p in paths:
         p = Path(p)
@@ -350,10 +349,15 @@ def expand_paths(paths: Iterable[str | Path]) -> list[str]:
                 dirs[:] = sorted(d for d in dirs if not d.startswith("."))
                 for f in sorted(files):
                     if f.lower().endswith(CONFIG_SUFFIXES):
-                        out.append(str(Path(root) / f))
+                        out.append((str(Path(root) / f), False))
         else:
-            out.append(str(p))
+            out.append((str(p), True))
     return out
+
+
+def expand_paths(paths: Iterable[str | Path]) -> list[str]:
+    """The files ``walk_paths`` finds."""
+    return [f for f, _named in walk_paths(paths)]
 
 
 def _listable(path: str | Path) -> None:

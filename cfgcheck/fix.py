@@ -570,25 +570,13 @@ def _edits_for(text: str, doc: Document, idx: _DocIndex, plan: _Planned,
         if entry is not None:
             out.extend(_replace_value(text, idx, path, edit, plan.rule, fmt))
         elif edit.insert:
-            if _exists(doc.data, path):
+            if doc.get(path, _MISSING) is not _MISSING:
                 raise _Unplaceable(f"{dotted(path)} comes from a merge key (<<); edit it where it is written")
             out.extend(_insert_key(text, idx, edit, plan.rule, fmt))
         else:
             raise _Unplaceable(f"{dotted(path)} is not written in this file as such "
                                "(merged with <<, or gone)")
     return out
-
-
-def _exists(data: Any, path: tuple) -> bool:
-    cur = data
-    for part in path:
-        if isinstance(cur, dict) and part in cur:
-            cur = cur[part]
-        elif isinstance(cur, list) and isinstance(part, int) and 0 <= part < len(cur):
-            cur = cur[part]
-        else:
-            return False
-    return True
 
 
 def _apply(text: str, edits: list[_TextEdit]) -> str:

@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable
 
-from .engine import CONFIG_SUFFIXES, Options
+from .engine import Options, walk_paths
 from .findings import Severity
 from .waivers import ProjectWaiver
 
@@ -205,18 +205,13 @@ class Project:
         """Files to lint as (file, skip reason). Folders are walked for the project's configs
         (unlisted files are left out silently); files named explicitly are always listed."""
         out: list[tuple[str, str | None]] = []
-        for p in paths:
-            p = Path(p)
-            if p.is_dir():
-                for root, dirs, files in os.walk(p):
-                    dirs[:] = sorted(d for d in dirs if not d.startswith("."))
-                    for f in sorted(files):
-                        if f.lower().endswith(CONFIG_SUFFIXES):
-                            full = os.path.normpath(Path(root) / f)
-                            if self.excluded(full) is None:
-                                out.append((full, None))
+        for file, named in walk_paths(paths):
+            if named:
+                out.append((file, self.excluded(file)))
             else:
-                out.append((str(p), self.excluded(p)))
+                full = os.path.normpath(file)
+                if self.excluded(full) is None:
+                    out.append((full, None))
         return out
 
     def options_for(self, file: str | Path, given: dict[str, Any]) -> Options:
