@@ -18,6 +18,14 @@ _OTHER_LIBRARY_NAMES = {"output_proj": "o_proj", "w1": "gate_proj", "w3": "up_pr
 _REGEX_CHARS = re.compile(r"[\\^$*+?()\[\]{}|]")
 
 
+def listed_targets(view) -> tuple[list[str] | None, object]:
+    """(names, field) when an adapter run lists its target modules by name, else (None, None)."""
+    if not view.is_adapter:
+        return None, None
+    names, how, f = target_names(view)
+    return (names, f) if how == "list" and names else (None, None)
+
+
 def target_names(view) -> tuple[list[str] | None, str, object]:
     """(leaf names the config targets, how: "list" | "all" | "regex" | "none", field)."""
     f = view.get("adapter.targets")
@@ -59,10 +67,8 @@ def _arch_or_judge(ctx):
 @check("lora-target-not-in-model")
 def target_not_in_model(ctx) -> None:
     view = ctx.view
-    if not view.is_adapter:
-        return
-    names, how, f = target_names(view)
-    if how != "list" or not names:
+    names, f = listed_targets(view)
+    if not names:
         return
     layout = view.layout
     if layout is not None and layout.module_names is not None:
@@ -129,10 +135,8 @@ def rank_above_dim(ctx) -> None:
 @check("lora-attention-only-targets")
 def attention_only(ctx) -> None:
     view = ctx.view
-    if not view.is_adapter:
-        return
-    names, how, f = target_names(view)
-    if how != "list" or not names:
+    names, f = listed_targets(view)
+    if not names:
         return
     if view.is_on("adapter.mlp"):
         return
