@@ -28,6 +28,12 @@ class Field:
     written: Any  # the value exactly as loaded
     auto: bool = False  # "auto": filled in at launch
     from_text: bool = False  # a number or boolean that was loaded as text
+    # where the value came from: "written" (in this file), "linked" (a file this one names),
+    # "launch" (a launch file or script the run is started with), "default" (the runner's own
+    # default, with its source in ``note``), "flag" (the command line or the project file), or
+    # "assumed" (a guess; ``note`` says it in words). Only "assumed" values can never make an error.
+    origin: str = "written"
+    note: str = ""  # in words: which file, which default and its source, or what was assumed
 
     @property
     def key(self) -> str:
