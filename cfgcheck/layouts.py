@@ -297,7 +297,9 @@ AXOLOTL = Layout(
     number_reader="axolotl validates the file with a pydantic model that converts this text to a float",
     default_method="full",
     # axolotl turns evaluation off itself when there is no eval data (core/builders/base.py)
-    sections={"peft": ("lora_",), "loftq_config": ("loftq_",), "bnb_config_kwargs": ()},
+    # fsdp_config: axolotl drops the `fsdp_` prefix of its keys (0.19.0 utils/schemas/validation.py)
+    sections={"peft": ("lora_",), "loftq_config": ("loftq_",), "bnb_config_kwargs": (),
+              "fsdp_config": ("fsdp_",)},
     fields={
         "method": ("adapter",),
         "model.ref": ("base_model",),
