@@ -42,6 +42,21 @@ class Layout:
     eval_data_known: bool = False
     # why this layout's loader reads ``2e-5`` as a number (shown in the YAML-version finding)
     number_reader: str = ""
+    # section-local names: inside a section of that name, a key means the layout's bare name
+    # (``model: {name_or_path: ...}`` is ``model_name_or_path``, ``scheduler: {type: ...}`` is
+    # ``lr_scheduler_type``)
+    section_names: dict[str, dict[str, str]] = field(default_factory=dict)
+    # sections whose keys describe another part of the run (evaluation, a reference or teacher
+    # model, generation): only their section-local names are read (``eval: {steps: 50}`` is
+    # ``eval_steps``), never a bare training name (``eval: {batch_size: 8}`` is not the train batch)
+    restricted_sections: frozenset[str] = frozenset()
+    # mappings never searched (another tool's inline config, free-form keyword arguments)
+    foreign_sections: frozenset[str] = frozenset()
+    # every other nested mapping is searched for bare names too (a section named as the author likes)
+    search_all_sections: bool = False
+    # what cfgcheck reads of this layout and what it does not (the layouts table in the docs)
+    reads: str = ""
+    not_read: str = ""
 
     @property
     def has_bare_names(self) -> bool:
@@ -153,6 +168,9 @@ _TRAINER_SECTIONS: dict[str, tuple[str, ...]] = {
     "quantization": ("bnb_4bit_",),
     "quantization_config": ("bnb_4bit_",),
     "bnb": ("bnb_4bit_",),
+    "quant": ("bnb_4bit_",),
+    "bitsandbytes": ("bnb_4bit_",),
+    "lora_config": ("lora_",),
     "evaluation": (),
     "eval": (),
     "logging": (),
@@ -162,14 +180,87 @@ _TRAINER_SECTIONS: dict[str, tuple[str, ...]] = {
     "distributed": (),
 }
 
+def _same(names: str, target: str) -> dict[str, str]:
+    return {n: target for n in names.split()}
+
+
+# Section-local names of trainer-style files, by what a section holds. The section words and the
+# local names are common practice in training repositories (no source); a local name is mapped
+# only where it cannot mean another setting in that kind of section.
+_MODEL_NAMES = {**_same("name_or_path name path id model_id repo_id pretrained checkpoint hub_id", "model_name_or_path"),
+                **_same("dtype torch_dtype", "torch_dtype"),
+                **_same("attn_implementation attention attn", "attn_implementation"),
+                **_same("max_seq_length max_seq_len max_length context_length", "max_seq_length")}
+_SCHEDULE_NAMES = {**_same("type name kind scheduler lr_scheduler_type", "lr_scheduler_type"),
+                   **_same("warmup_steps num_warmup_steps", "warmup_steps"),
+                   **_same("warmup_ratio warmup_fraction", "warmup_ratio")}
+_OPTIM_NAMES = {**_same("name type kind optimizer", "optim"), **_same("lr learning_rate", "learning_rate"),
+                **_same("weight_decay wd", "weight_decay"),
+                **_same("max_grad_norm grad_clip clip_grad_norm gradient_clipping", "max_grad_norm")}
+_ADAPTER_NAMES = {**_same("r rank", "lora_r"), "alpha": "lora_alpha", "dropout": "lora_dropout",
+                  **_same("target_modules targets target modules", "lora_target_modules"),
+                  **_same("enabled enable use", "use_peft"), "rslora": "use_rslora", "dora": "use_dora"}
+_QUANT_NAMES = {**_same("quant_type type", "bnb_4bit_quant_type"),
+                **_same("double_quant use_double_quant nested", "bnb_4bit_use_double_quant"),
+                "compute_dtype": "bnb_4bit_compute_dtype", "4bit": "load_in_4bit", "8bit": "load_in_8bit"}
+_TRAIN_NAMES = {**_same("batch_size micro_batch_size per_device_batch_size batch_size_per_device "
+                        "train_micro_batch_size", "per_device_train_batch_size"),
+                **_same("epochs num_epochs", "num_train_epochs"), "lr": "learning_rate",
+                **_same("grad_accum gradient_accumulation accumulation_steps grad_accumulation_steps "
+                        "grad_accumulation", "gradient_accumulation_steps"),
+                **_same("grad_clip clip_grad_norm", "max_grad_norm")}
+_DATA_NAMES = {**_same("max_length max_seq_len seq_len sequence_length sequence_len context_length "
+                       "block_size cutoff_len", "max_seq_length"), "pack": "packing"}
+_EVAL_NAMES = {**_same("steps every_n_steps interval eval_steps", "eval_steps"),
+               **_same("strategy eval_strategy", "eval_strategy")}
+_LOG_NAMES = _same("steps every_n_steps interval logging_steps", "logging_steps")
+_SAVE_NAMES = {**_same("steps every_n_steps interval save_steps", "save_steps"),
+               **_same("strategy save_strategy", "save_strategy")}
+_HARDWARE_NAMES = {**_same("gpus num_gpus gpus_per_node", "num_gpus"), **_same("nodes num_nodes", "num_nodes")}
+
+
+def _kinds(**groups: tuple[str, dict[str, str]]) -> dict[str, dict[str, str]]:
+    out: dict[str, dict[str, str]] = {}
+    for words, names in groups.values():
+        for w in words.split():
+            out[w] = names
+    return out
+
+
+_TRAINER_SECTION_NAMES = _kinds(
+    model=("model model_args model_arguments model_config base_model llm backbone", _MODEL_NAMES),
+    schedule=("schedule scheduler lr_schedule lr_scheduler learning_rate_schedule sched", _SCHEDULE_NAMES),
+    optim=("optim optimizer optimiser optimization optimisation", _OPTIM_NAMES),
+    adapter=("lora peft peft_config adapter adapters lora_config lora_args peft_args", _ADAPTER_NAMES),
+    quant=("quantization quantization_config quant bnb bitsandbytes", _QUANT_NAMES),
+    train=("training train trainer training_args training_arguments args hyperparameters hparams run", _TRAIN_NAMES),
+    data=("data data_args data_arguments dataset tokenizer", _DATA_NAMES),
+    eval=("eval evaluation validation val", _EVAL_NAMES),
+    log=("logging log", _LOG_NAMES),
+    save=("checkpointing checkpoint checkpoints save saving", _SAVE_NAMES),
+    hardware=("hardware distributed compute resources", _HARDWARE_NAMES),
+)
+
 TRAINER = Layout(
     name="trainer",
     title="trainer-style arguments (transformers / PEFT / TRL names, flat or in sections)",
-    sections=_TRAINER_SECTIONS,
+    sections={**_TRAINER_SECTIONS, **{w: _TRAINER_SECTIONS.get(w, ()) for w in _TRAINER_SECTION_NAMES}},
+    section_names=_TRAINER_SECTION_NAMES,
+    restricted_sections=frozenset("eval evaluation validation val test logging log checkpointing checkpoint "
+                                  "checkpoints save saving".split()),
+    foreign_sections=frozenset("teacher teacher_model ref_model reference_model ref reward_model critic "
+                               "value_model draft_model judge vllm generation generation_config gen_kwargs "
+                               "generation_kwargs inference deepspeed fsdp_config accelerate".split()),
+    search_all_sections=True,
+    reads="top-level transformers / PEFT / TRL argument names; the same names inside any section, "
+          "with section-local names by what the section holds (model: name_or_path, scheduler: type, "
+          "optim: lr, lora: r, quantization: quant_type, training: batch_size, eval: steps)",
+    not_read="keys of evaluation, reference/teacher-model and generation sections as training settings; "
+             "inline DeepSpeed and FSDP mappings (read as linked configs)",
     fields={
         "method": ("finetuning_method", "tuning_method"),
         "model.ref": ("model_name_or_path", "base_model_name_or_path", "pretrained_model_name_or_path",
-                      "base_model", "model_id"),
+                      "base_model", "model_id", "model"),
         "model.dtype": ("torch_dtype", "model_dtype", "dtype"),
         "model.attention": ("attn_implementation",),
         "adapter.enabled": ("use_peft", "use_lora"),

@@ -91,9 +91,12 @@ def _score(layout: Layout, data: dict) -> int:
     for section, prefixes in layout.sections.items():
         sub = data.get(section)
         if isinstance(sub, dict):
+            local = layout.section_names.get(section, {})
             for key in sub:
                 names.add(key)
                 names.update(p + str(key) for p in prefixes)
+                if key in local and section not in layout.restricted_sections:
+                    names.add(local[key])
     return sum(layout.signature.get(k, 0) for k in names if isinstance(k, str))
 
 
@@ -119,21 +122,52 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
 
 # --------------------------------------------------------------------------- building
 
-def _index(layout: Layout, data: dict) -> dict[str, tuple]:
-    """Bare names -> first key path that spells them, top level first."""
-    index: dict[str, tuple] = {}
-    queue: list[tuple[tuple, dict, tuple[str, ...]]] = [((), data, ())]
+_MAX_SECTION_DEPTH = 4
+
+
+def _index(layout: Layout, data: dict) -> dict[str, list[tuple]]:
+    """Bare names -> the key paths that spell them, the preferred one first.
+
+    The top level comes first, then sections breadth-first in file order. Inside a section the
+    layout knows, the section's prefixes may be dropped (``lora: {alpha: 32}``) and its
+    section-local names count (``model: {name_or_path: ...}``). A restricted section (``eval:``)
+    gives only its local names; a foreign one (``ref_model:``, an inline DeepSpeed mapping) and
+    everything below it is never searched. With ``search_all_sections`` a mapping under any other
+    name is searched for bare names as written.
+    """
+    index: dict[str, list[tuple]] = {}
+    queue: list[tuple[tuple, dict, tuple[str, ...], dict[str, str], bool]] = [((), data, (), {}, False)]
+
+    def put(name: str, path: tuple) -> None:
+        paths = index.setdefault(name, [])
+        if path not in paths:
+            paths.append(path)
+
     while queue:
-        base, mapping, prefixes = queue.pop(0)
+        base, mapping, prefixes, local, restricted = queue.pop(0)
         for key, value in mapping.items():
             if not isinstance(key, str):
                 continue
             path = base + (key,)
-            index.setdefault(key, path)
-            for pre in prefixes:
-                index.setdefault(pre + key, path)
-            if isinstance(value, dict) and key in layout.sections and len(base) < 3:
-                queue.append((path, value, prefixes + layout.sections[key]))
+            if key in local:
+                put(local[key], path)
+            if not restricted:
+                put(key, path)
+                for pre in prefixes:
+                    put(pre + key, path)
+            elif key.startswith(("eval_", "per_device_eval", "logging_", "save_")):
+                put(key, path)  # a full name is that setting wherever it is written
+            if not isinstance(value, dict) or len(base) >= _MAX_SECTION_DEPTH - 1:
+                continue
+            lowered = key.lower()
+            if lowered in layout.foreign_sections:
+                continue
+            named = key in layout.sections or lowered in layout.section_names
+            if not named and not layout.search_all_sections:
+                continue
+            sub_local = layout.section_names.get(lowered, {})
+            sub_restricted = restricted or lowered in layout.restricted_sections
+            queue.append((path, value, prefixes + layout.sections.get(key, ()), sub_local, sub_restricted))
     return index
 
 
@@ -188,7 +222,17 @@ def _coerce(name: str, written: Any) -> tuple[Any, bool, bool, bool]:
     return written, True, False, False
 
 
-def _add(view: RunView, name: str, path: tuple, written: Any) -> None:
+def _also(data: dict, paths: list[tuple]) -> str:
+    """A note when the same setting is written in more than one place with different values."""
+    first = _walk(data, paths[0])[1]
+    others = [p for p in paths[1:] if _walk(data, p)[1] != first]
+    if not others:
+        return ""
+    where = ", ".join(f"{dotted(p)}: {_walk(data, p)[1]!r}" for p in others[:3])
+    return f"{dotted(paths[0])} is used (the top level first, then the first section); also written: {where}"
+
+
+def _add(view: RunView, name: str, path: tuple, written: Any, note: str = "") -> None:
     if name in view.fields:
         return
     source = written
@@ -198,7 +242,7 @@ def _add(view: RunView, name: str, path: tuple, written: Any) -> None:
             source = value
     value, ok, auto, from_text = _coerce(name, source)
     f = Field(name=name, value=value if ok else None, path=path, written=written,
-              auto=auto, from_text=from_text)
+              auto=auto, from_text=from_text, note=note)
     view.fields[name] = f
     if not ok:
         view.type_problems.append(TypeProblem(f, FIELD_TYPES.get(name, "any")))
@@ -252,12 +296,10 @@ def fill(view: RunView, layout: Layout, data: dict) -> None:
                     _add(view, name, tuple(spec[1:].split(".")), written)
                     break
             else:
-                path = index.get(spec)
-                if path is not None:
-                    found, written = _walk(data, path)
-                    if isinstance(written, dict):
-                        continue  # a section that shares the name, not a value
-                    _add(view, name, path, written)
+                paths = [p for p in index.get(spec, ()) if not isinstance(_walk(data, p)[1], dict)]
+                if paths:  # (a mapping is a section that shares the name, not a value)
+                    _found, written = _walk(data, paths[0])
+                    _add(view, name, paths[0], written, _also(data, paths))
                     break
 
 

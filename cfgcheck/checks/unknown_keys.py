@@ -203,6 +203,19 @@ def _section_key(ctx, judge: _Judge, path: tuple, sections: dict) -> None:
         return
     if judge.declared_by_repo(leaf) is not None:
         return
+    local = ctx.view.layout.section_names.get(str(path[-2]).lower(), {}) if len(path) >= 2 else {}
+    if leaf in local:
+        return
+    if local and judge.asked < judge.limit:
+        # a near miss of the section's own local names (training: {num_epoch} -> num_epochs)
+        judge.asked += 1
+        buckets: dict[int, list[str]] = {}
+        for name in sorted(local):
+            buckets.setdefault(len(name), []).append(name)
+        near = keys._nearest(leaf.lower(), buckets, keys._allowed_edits(len(leaf)))
+        if near is not None and slip_of_keyboard(leaf, near) and near not in ("r",):
+            ctx.report(path, "typo", on="key", key=".".join(path), suggestion=near)
+            return
     for spelling in spellings:
         near = judge.suggestion(spelling)
         if near is None:
