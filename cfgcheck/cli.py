@@ -341,13 +341,30 @@ def list_rules() -> None:
                       if len(rule.sources) > 1 else ""))
 
 
+def _describe_layouts(names: list[str]) -> None:
+    from .layouts import BY_NAME, UNREAD_FORMATS, layout_summary
+
+    for name in names:
+        s = layout_summary(BY_NAME[name])
+        typer.echo(f"{s['name']}: {s['title']}\n  recognised by: {s['recognised']}\n"
+                   f"  sections: {s['sections']}\n  reads: {s['reads']}\n  does not read: {s['not_read']}\n")
+    if len(names) > 1:
+        typer.echo("Recognised but not read (not a format cfgcheck reads (yet)):")
+        for fmt in UNREAD_FORMATS:
+            typer.echo(f"  {fmt.name}: {fmt.title}")
+
+
 @app.command()
-def describe(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck rules`.")) -> None:
-    """Show one rule's catalogue entry: why, thresholds, sources, examples."""
+def describe(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck rules`, a layout name, or `layouts` for every layout.")) -> None:
+    """Show one rule's catalogue entry (why, thresholds, sources, examples), or what a layout reads."""
     import difflib
 
     from .catalogue import load_catalogue
+    from .layouts import BY_NAME, LAYOUTS
 
+    if rule_id == "layouts" or rule_id in BY_NAME:
+        _describe_layouts([lay.name for lay in LAYOUTS] if rule_id == "layouts" else [rule_id])
+        return
     rules = load_catalogue()
     rule = rules.get(rule_id)
     if rule is None:

@@ -649,3 +649,114 @@ NOT_TRAINING = {
     "pre-commit": {"repos"},
     "kubernetes": {"apiVersion", "kind", "metadata", "spec"},
 }
+
+
+# ---------------------------------------------------------------------------------------------
+# Formats cfgcheck recognises but does not read: named in the summary, never read as a layout.
+
+@dataclass(frozen=True)
+class UnreadFormat:
+    name: str
+    title: str
+    # top-level keys that mark it (``-`` and ``_`` are the same), how many must be present, and
+    # keys of which at least one must be there (empty: none required)
+    marks: frozenset[str] = frozenset()
+    min_hits: int = 2
+    required: frozenset[str] = frozenset()
+    # keys of a top-level section that mark it ("trainer" -> Lightning's trainer arguments)
+    section: str = ""
+    # a special shape: "composed" (a defaults: list or _target_ nodes), "tuning-space" (lists of
+    # candidate values where DeepSpeed takes one value)
+    shape: str = ""
+
+
+UNREAD_FORMATS: tuple[UnreadFormat, ...] = (
+    UnreadFormat(
+        name="gpt-neox", title="a GPT-NeoX model and training config",
+        # GPT-NeoX configs/*.yml (neox_arguments): hyphenated or underscored names
+        marks=frozenset("pipe_parallel_size model_parallel_size num_layers hidden_size num_attention_heads "
+                        "seq_length max_position_embeddings pos_emb norm train_iters lr_decay_style "
+                        "lr_decay_iters vocab_file merge_file data_path checkpoint_activations "
+                        "partition_activations synchronize_each_layer gpt_j_residual "
+                        "scaled_upper_triang_masked_softmax_fusion bias_gelu_fusion output_layer_parallelism "
+                        "attention_config init_method output_layer_init_method".split()),
+        min_hits=3,
+        required=frozenset("pipe_parallel_size model_parallel_size pos_emb train_iters lr_decay_style "
+                           "gpt_j_residual attention_config output_layer_parallelism".split()),
+    ),
+    UnreadFormat(
+        name="deepspeed-autotuning", title="a DeepSpeed autotuning tuning space (lists of candidate values)",
+        shape="tuning-space",
+    ),
+    UnreadFormat(
+        name="composed", title="a config composed from other files (a defaults: list or _target_ nodes)",
+        shape="composed",
+    ),
+    UnreadFormat(
+        name="lightning", title="a PyTorch Lightning / NeMo-style config (trainer: accelerator, devices, max_epochs)",
+        marks=frozenset("accelerator devices max_epochs accumulate_grad_batches strategy num_nodes "
+                        "gradient_clip_val val_check_interval check_val_every_n_epoch limit_val_batches "
+                        "enable_checkpointing".split()),
+        min_hits=3, section="trainer",
+    ),
+    UnreadFormat(
+        name="llm-foundry", title="an llm-foundry / Composer-style config (global_train_batch_size, max_duration)",
+        marks=frozenset("global_train_batch_size device_train_microbatch_size max_duration eval_interval "
+                        "device_eval_batch_size eval_first save_interval".split()),
+        min_hits=2,
+    ),
+    UnreadFormat(
+        name="ludwig", title="a Ludwig config (input_features, output_features)",
+        marks=frozenset("input_features output_features model_type".split()), min_hits=2,
+        required=frozenset({"input_features"}),
+    ),
+)
+
+
+# ---------------------------------------------------------------------------------------------
+# The layouts table (docs/layouts-and-rules.md and ``cfgcheck describe LAYOUT``), generated from
+# the tables above so it cannot drift from what is read.
+
+def _grouped(names) -> str:
+    groups: dict[str, list[str]] = {}
+    for n in sorted(names):
+        head, _, tail = n.partition(".")
+        groups.setdefault(head, []).append(tail or head)
+    return "; ".join(f"{h}: {', '.join(t)}" if t != [h] else h for h, t in groups.items())
+
+
+def layout_summary(layout: Layout) -> dict[str, str]:
+    """What a layout reads and does not read, in words (generated from its table)."""
+    read = set(layout.fields)
+    not_read = set(FIELD_TYPES) - read
+    top = sorted(layout.signature, key=lambda k: (-layout.signature[k], k))[:6]
+    where = "bare names at the top level and in its sections" if layout.has_bare_names else "exact key paths"
+    if layout.search_all_sections:
+        where = "bare names at the top level and in any section"
+    return {
+        "name": layout.name,
+        "title": layout.title,
+        "recognised": ", ".join(f"`{k}`" for k in top),
+        "reads": _grouped(read) + f" ({where})" + (f"; {layout.reads}" if layout.reads else ""),
+        "not_read": _grouped(not_read) + (f"; {layout.not_read}" if layout.not_read else ""),
+        "sections": ", ".join(f"`{s}`" for s in sorted(layout.sections)) or "none",
+    }
+
+
+def layouts_markdown() -> str:
+    """The docs' layouts table: one row per layout, then the formats recognised but not read."""
+    lines = ["| layout | recognised by | view fields read | view fields not read |",
+             "| --- | --- | --- | --- |"]
+    for lay in LAYOUTS:
+        s = layout_summary(lay)
+        cells = [f"`{s['name']}`: {s['title']}", s["recognised"], s["reads"], s["not_read"]]
+        lines.append("| " + " | ".join(c.replace("|", "\\|") for c in cells) + " |")
+    lines += ["", "Recognised but not read (named in the summary as \"not a format cfgcheck reads (yet)\"):", ""]
+    for fmt in UNREAD_FORMATS:
+        marks = ", ".join(f"`{m}`" for m in sorted(fmt.required or fmt.marks)[:6])
+        how = {"composed": "a top-level `defaults:` list, or `_target_` nodes",
+               "tuning-space": "a list where DeepSpeed takes one value (`zero_optimization.stage`, "
+                               "`train_micro_batch_size_per_gpu`)"}.get(fmt.shape, marks)
+        where = f" in `{fmt.section}:`" if fmt.section else ""
+        lines.append(f"* `{fmt.name}`: {fmt.title}; recognised by {how}{where}")
+    return "\n".join(lines) + "\n"

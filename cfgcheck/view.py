@@ -10,7 +10,7 @@ import re
 from dataclasses import dataclass, field
 from typing import Any
 
-from .layouts import BY_NAME, FIELD_TYPES, LAYOUTS, NOT_TRAINING, Layout
+from .layouts import BY_NAME, FIELD_TYPES, LAYOUTS, NOT_TRAINING, UNREAD_FORMATS, Layout, UnreadFormat
 from .load import Document, dotted
 
 _NUMBER = re.compile(r"^[-+]?(?:\.[0-9]+|[0-9][0-9_]*(?:\.[0-9_]*)?)(?:[eE][-+]?[0-9]+)?$")
@@ -100,6 +100,44 @@ def _score(layout: Layout, data: dict) -> int:
     return sum(layout.signature.get(k, 0) for k in names if isinstance(k, str))
 
 
+NOT_READ_YET = "not a format cfgcheck reads (yet)"
+_TUNED = ("train_micro_batch_size_per_gpu", "gradient_accumulation_steps", "train_batch_size")
+
+
+def _has_target(data: Any, depth: int = 0) -> bool:
+    if not isinstance(data, dict) or depth > 3:
+        return False
+    return "_target_" in data or any(_has_target(v, depth + 1) for v in data.values())
+
+
+def _matches(fmt: UnreadFormat, data: dict) -> bool:
+    if fmt.shape == "composed":
+        defaults = data.get("defaults")
+        listed = isinstance(defaults, list) and defaults and all(
+            isinstance(x, (str, dict)) for x in defaults)
+        return bool(listed) or _has_target(data)
+    if fmt.shape == "tuning-space":
+        zero = data.get("zero_optimization")
+        stage_list = isinstance(zero, dict) and isinstance(zero.get("stage"), list)
+        return stage_list or any(isinstance(data.get(k), list) for k in _TUNED)
+    where = data.get(fmt.section) if fmt.section else data
+    if not isinstance(where, dict):
+        return False
+    names = {k.replace("-", "_") for k in where if isinstance(k, str)}
+    hits = names & fmt.marks
+    return len(hits) >= fmt.min_hits and (not fmt.required or bool(names & fmt.required))
+
+
+def unread_format(data: Any) -> UnreadFormat | None:
+    """The format cfgcheck recognises but does not read that DATA is in, or None."""
+    if not isinstance(data, dict):
+        return None
+    for fmt in UNREAD_FORMATS:
+        if _matches(fmt, data):
+            return fmt
+    return None
+
+
 def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
     """The layout of a document, or why it is not a training config."""
     if not isinstance(data, dict):
@@ -110,6 +148,9 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
     for what, marks in NOT_TRAINING.items():
         if len(top & marks) >= 2 or (what == "github-workflow" and True in data and "jobs" in top):
             return None, f"looks like a {what} file"
+    unread = unread_format(data)
+    if unread is not None:
+        return None, f"{unread.title} ({unread.name}): {NOT_READ_YET}"
     best, best_score = None, 0
     for layout in LAYOUTS:
         s = _score(layout, data)
