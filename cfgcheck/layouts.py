@@ -54,6 +54,11 @@ class Layout:
     foreign_sections: frozenset[str] = frozenset()
     # every other nested mapping is searched for bare names too (a section named as the author likes)
     search_all_sections: bool = False
+    # the model a builder builds: (regex on the builder's last name, hub id the model resolver
+    # knows), tried in order after a (q)lora_ prefix is dropped
+    builder_models: tuple[tuple[str, str], ...] = ()
+    # a dotted path whose value is the model's folder (its config.json), used when no builder maps
+    model_dir: str = ""
     # what cfgcheck reads of this layout and what it does not (the layouts table in the docs)
     reads: str = ""
     not_read: str = ""
@@ -433,6 +438,10 @@ AXOLOTL = Layout(
         "precision.tf32": ("tf32",),
         "data.seq_len": ("sequence_len",),
         "data.packing": ("sample_packing",),
+        # axolotl 0.19.0 utils/schemas/config.py: `tokens` are added to the vocabulary (new rows
+        # of the embedding). `chat_template: chatml` alone adds none: its markers are tokenised
+        # into pieces the model has, unless `tokens:` adds them.
+        "data.new_tokens": ("tokens",),
         "data.eval": ("val_set_size", "test_datasets"),
         "cadence.eval_strategy": ("eval_strategy",),
         "cadence.eval_steps": ("eval_steps",),
@@ -550,6 +559,32 @@ TORCHTUNE = Layout(
     interpolates=True,
     default_method="full",
     method_patterns=((r"(^|\.)qlora_", "qlora"), (r"(^|\.)lora_", "lora")),
+    # torchtune 0.6.1 models/*/_model_builders.py: each builder's shapes are those of this model
+    # (llama2_7b: 32 layers, 4096 wide, max_seq_len 4096; qwen2_5_*_instruct: max_seq_len 32768)
+    builder_models=(
+        (r"llama2_7b$", "meta-llama/Llama-2-7b-hf"), (r"llama2_13b$", "meta-llama/Llama-2-13b-hf"),
+        (r"llama2_70b$", "meta-llama/Llama-2-70b-hf"),
+        (r"llama3_8b$", "meta-llama/Meta-Llama-3-8B"), (r"llama3_70b$", "meta-llama/Meta-Llama-3-70B"),
+        (r"llama3_1_8b$", "meta-llama/Llama-3.1-8B"), (r"llama3_1_70b$", "meta-llama/Llama-3.1-70B"),
+        (r"llama3_1_405b$", "meta-llama/Llama-3.1-405B"),
+        (r"llama3_2_1b$", "meta-llama/Llama-3.2-1B"), (r"llama3_2_3b$", "meta-llama/Llama-3.2-3B"),
+        (r"llama3_3_70b$", "meta-llama/Llama-3.3-70B-Instruct"),
+        (r"mistral_7b$", "mistralai/Mistral-7B-v0.1"),
+        (r"gemma_2b$", "google/gemma-2b"), (r"gemma_7b$", "google/gemma-7b"),
+        (r"gemma2_2b$", "google/gemma-2-2b"), (r"gemma2_9b$", "google/gemma-2-9b"),
+        (r"gemma2_27b$", "google/gemma-2-27b"),
+        (r"phi3_mini$", "microsoft/Phi-3-mini-4k-instruct"), (r"phi4_14b$", "microsoft/phi-4"),
+        (r"qwen2_5_0_5b$", "Qwen/Qwen2.5-0.5B"),
+        (r"qwen2_5_1_5b_base$", "Qwen/Qwen2.5-1.5B"), (r"qwen2_5_1_5b_instruct$", "Qwen/Qwen2.5-1.5B-Instruct"),
+        (r"qwen2_5_3b$", "Qwen/Qwen2.5-3B"),
+        (r"qwen2_5_7b_base$", "Qwen/Qwen2.5-7B"), (r"qwen2_5_7b_instruct$", "Qwen/Qwen2.5-7B-Instruct"),
+        (r"qwen2_5_14b_base$", "Qwen/Qwen2.5-14B"), (r"qwen2_5_14b_instruct$", "Qwen/Qwen2.5-14B-Instruct"),
+        (r"qwen2_5_32b_base$", "Qwen/Qwen2.5-32B"), (r"qwen2_5_32b_instruct$", "Qwen/Qwen2.5-32B-Instruct"),
+        (r"qwen2_5_72b_base$", "Qwen/Qwen2.5-72B"), (r"qwen2_5_72b_instruct$", "Qwen/Qwen2.5-72B-Instruct"),
+        (r"qwen2_0_5b$", "Qwen/Qwen2-0.5B"), (r"qwen2_1_5b$", "Qwen/Qwen2-1.5B"), (r"qwen2_7b$", "Qwen/Qwen2-7B"),
+        (r"qwen3_0_6b_(base|instruct)$", "Qwen/Qwen3-0.6B"),
+    ),
+    model_dir="checkpointer.checkpoint_dir",
     module_names={"q_proj": "q_proj", "k_proj": "k_proj", "v_proj": "v_proj",
                   "output_proj": "o_proj"},
     fields={
@@ -728,6 +763,10 @@ def _grouped(names) -> str:
 def layout_summary(layout: Layout) -> dict[str, str]:
     """What a layout reads and does not read, in words (generated from its table)."""
     read = set(layout.fields)
+    extra = ""
+    if layout.builder_models or layout.model_dir:
+        read.add("model.ref")
+        extra = f"; model.ref from the builder's name, else `{layout.model_dir}` (its config.json)"
     not_read = set(FIELD_TYPES) - read
     top = sorted(layout.signature, key=lambda k: (-layout.signature[k], k))[:6]
     where = "bare names at the top level and in its sections" if layout.has_bare_names else "exact key paths"
@@ -737,7 +776,7 @@ def layout_summary(layout: Layout) -> dict[str, str]:
         "name": layout.name,
         "title": layout.title,
         "recognised": ", ".join(f"`{k}`" for k in top),
-        "reads": _grouped(read) + f" ({where})" + (f"; {layout.reads}" if layout.reads else ""),
+        "reads": _grouped(read) + f" ({where})" + extra + (f"; {layout.reads}" if layout.reads else ""),
         "not_read": _grouped(not_read) + (f"; {layout.not_read}" if layout.not_read else ""),
         "sections": ", ".join(f"`{s}`" for s in sorted(layout.sections)) or "none",
     }

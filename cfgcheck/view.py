@@ -344,6 +344,28 @@ def fill(view: RunView, layout: Layout, data: dict) -> None:
                     break
 
 
+def _model_from_builder(view: RunView, layout: Layout, data: dict) -> None:
+    """The model of a component recipe: the one its builder builds, else its checkpoint folder."""
+    if view.has("model.ref") or (not layout.builder_models and not layout.model_dir):
+        return
+    builder = view.get("model.builder")
+    if builder is not None and isinstance(builder.value, str):
+        last = builder.value.rsplit(".", 1)[-1]
+        base = re.sub(r"^q?lora_", "", last)
+        for pattern, ref in layout.builder_models:
+            if re.search(pattern, base):
+                view.fields["model.ref"] = Field(
+                    name="model.ref", value=ref, path=builder.path, written=builder.written,
+                    note=f"{ref}: the model the builder {last} builds")
+                return
+    if layout.model_dir:
+        path = tuple(layout.model_dir.split("."))
+        found, written = _walk(data, path)
+        if found and isinstance(written, str) and written.strip():
+            view.fields["model.ref"] = Field(name="model.ref", value=written.strip(), path=path,
+                                             written=written, note="the checkpoint folder (its config.json)")
+
+
 def _infer_method(view: RunView) -> None:
     layout = view.layout
     stated = view.get("method") or view.get("adapter.kind")
@@ -399,5 +421,6 @@ def build_view(doc: Document, layout_name: str | None = None) -> RunView:
     if layout is None:
         return view
     fill(view, layout, doc.data)
+    _model_from_builder(view, layout, doc.data)
     _infer_method(view)
     return view
