@@ -29,7 +29,8 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
                   select: Iterable[str] | None = None, ignore: Iterable[str] | None = None,
                   severity: Mapping[str, str | Severity] | None = None,
                   thresholds: Mapping[str, Mapping[str, Any]] | None = None,
-                  debug: bool | None = None, cwd: Path | None = None) -> dict[str, Any]:
+                  debug: bool | None = None, cwd: Path | None = None,
+                  overrides: Iterable[str] | None = None) -> dict[str, Any]:
     """The options a caller set explicitly, as engine values (None = not set).
     Raises ValueError (UnknownGpu) for a GPU name we do not know, ValueError for a bad severity."""
     return {
@@ -43,6 +44,7 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
         "thresholds": {r: dict(t) for r, t in thresholds.items()} if thresholds else None,
         "debug": debug,
         "cwd": cwd,
+        "overrides": tuple(overrides) if overrides else None,
     }
 
 

@@ -174,6 +174,8 @@ def lint(
     frame: Optional[bool] = typer.Option(None, "--frame/--no-frame", help="Text output: print the offending line with a caret (default: on a terminal)."),
     debug: bool = typer.Option(False, "--debug", help="Re-raise an error inside a rule instead of reporting it."),
     jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Lint files in N processes (output order stays the same)."),
+    override: Optional[List[str]] = typer.Option(None, "--override", metavar="KEY=VALUE",
+                                                 help="A key=value override the launch passes to the config's loader (repeatable), applied over the composed config."),
 ) -> None:
     """Check training configs and report what would waste the run."""
     from . import api
@@ -197,6 +199,7 @@ def lint(
     chosen = {
         "gpu": gpu, "gpus": gpus, "rows": rows, "debug": debug or None,
         "select": rule or None, "ignore": skip_rule or None, "severity": levels or None,
+        "overrides": override or None,
     }
     progress = None
     if not (quiet or summary) and sys.stderr.isatty():

@@ -36,6 +36,7 @@ class Options:
     cwd: Path | None = None
     debug: bool = False  # re-raise a failing rule instead of reporting it
     waivers: tuple[waivermod.ProjectWaiver, ...] = ()  # from the project configuration
+    overrides: tuple[str, ...] = ()  # key=value overrides the launch passes (compose.py)
 
 
 @dataclass
@@ -49,6 +50,7 @@ class FileReport:
     views: list[RunView] = field(default_factory=list)
     waived: list[tuple[Finding, str, str]] = field(default_factory=list)  # (finding, reason, "comment" | "project")
     baselined: int = 0  # findings hidden because the baseline holds them
+    compose_problem: str | None = None  # why a composed config could not be put together
 
 
 @dataclass
@@ -189,9 +191,28 @@ def _finding(*, rule: str, severity: Severity, doc: Document, file: str, path: t
              message: str, hint: str, data: dict[str, Any], fix: Fix | None = None,
              span=None) -> Finding:
     line, column = (span.line, span.column) if span is not None else _location(doc, path, on)
+    if doc.origins and span is None:
+        # a composed config: the finding belongs to the file that set the value
+        origin = _origin_of(doc, tuple(path))
+        if origin is not None and origin != file:
+            file, fix = origin, None  # never edit one file for a value another file sets
+        from .compose import overridden_note
+
+        note = overridden_note(doc, tuple(path))
+        if note:
+            data = dict(data, overrides=note)
     return Finding(rule=rule, severity=severity, file=file, line=line, column=column,
                    key=dotted(path), message=message, hint=hint, data=data, path=tuple(path),
                    document=doc.index, fix=fix)
+
+
+def _origin_of(doc: Document, path: tuple) -> str | None:
+    while True:
+        if path in doc.origins:
+            return doc.origins[path]
+        if not path:
+            return None
+        path = path[:-1]
 
 
 def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: tuple,
@@ -291,6 +312,7 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             owner = next((i for end, i in ends if line <= end), ends[-1][1] if ends else None)
             owners.setdefault(owner, []).append(w)
     for doc in docs:
+        doc = _composed(doc, file, options, report)
         view = build_view(doc, layout)
         report.views.append(view)
         if view.skipped:
@@ -306,6 +328,20 @@ def lint_documents(docs: list[Document], file: str, options: Options,
         report.skipped = reasons[0] if reasons else "empty file"
     report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
     return report
+
+
+def _composed(doc: Document, file: str, options: Options, report: FileReport) -> Document:
+    """DOC composed with the files it names and the launch's overrides (compose.py); as written
+    when there is nothing to compose or a named file cannot be read (the reason is kept)."""
+    from . import compose
+
+    if not (options.overrides or compose.composes(doc.data)) or file.startswith("<"):
+        return doc
+    try:
+        return compose.compose(doc, file, options.overrides)
+    except compose.ComposeError as exc:
+        report.compose_problem = str(exc)
+        return doc
 
 
 def lint_text(text: str, name: str = "<text>", options: Options | None = None,

@@ -12,7 +12,7 @@ LAYERS = {
     "findings": 0, "load": 0, "knowledge": 0,
     "layouts": 1, "schedule": 1, "waivers": 1,
     "view": 2, "catalogue": 2,
-    "checks": 3, "plan": 3, "links": 3,
+    "checks": 3, "plan": 3, "links": 3, "compose": 3,
     "engine": 4, "parallel": 4,
     "render": 5, "fix": 5, "project": 5, "baseline": 5, "schema": 3,
     "api": 6,

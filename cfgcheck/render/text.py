@@ -97,6 +97,8 @@ def render(report, visible, *, hidden_info: int = 0, color: bool = False,
             lines.extend(frame(frames[f.file], f.line, f.column, color))
         if f.hint:
             lines.append(f"    {_paint('hint', 'hint', color)}: {f.hint}")
+        if isinstance(f.data.get("overrides"), str):  # a composed config: which file won
+            lines.append(f"    composed: {_printable(f.data['overrides'])}")
     for e in report.internal:
         lines.append(f"{e.file}: internal error in rule {e.rule}: {e.error} (a bug in cfgcheck; "
                      "the other rules ran)")
