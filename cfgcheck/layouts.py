@@ -251,8 +251,7 @@ TRAINER = Layout(
     title="trainer-style arguments (transformers / PEFT / TRL names, flat or in sections)",
     sections={**_TRAINER_SECTIONS, **{w: _TRAINER_SECTIONS.get(w, ()) for w in _TRAINER_SECTION_NAMES}},
     section_names=_TRAINER_SECTION_NAMES,
-    restricted_sections=frozenset("eval evaluation validation val test logging log checkpointing checkpoint "
-                                  "checkpoints save saving".split()),
+    restricted_sections=frozenset("eval evaluation validation val test".split()),
     foreign_sections=frozenset("teacher teacher_model ref_model reference_model ref reward_model critic "
                                "value_model draft_model judge vllm generation generation_config gen_kwargs "
                                "generation_kwargs inference deepspeed fsdp_config accelerate".split()),

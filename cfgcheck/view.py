@@ -196,8 +196,9 @@ def _index(layout: Layout, data: dict) -> dict[str, list[tuple]]:
                 put(key, path)
                 for pre in prefixes:
                     put(pre + key, path)
-            elif key.startswith(("eval_", "per_device_eval", "logging_", "save_")):
-                put(key, path)  # a full name is that setting wherever it is written
+            elif key.startswith(("eval_", "per_device_eval", "evaluation_", "logging_", "save_",
+                                 "load_best", "metric_for_best", "greater_is_better")):
+                put(key, path)  # a full name of an evaluation or checkpoint setting is that setting
             if not isinstance(value, dict) or len(base) >= _MAX_SECTION_DEPTH - 1:
                 continue
             lowered = key.lower()
