@@ -25,6 +25,7 @@ that cannot be found or read leaves the document as written, with the reason
 from __future__ import annotations
 
 import os
+import re
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -237,9 +238,24 @@ def _nest(layer: _Layer, prefix: tuple) -> _Layer:
     return out
 
 
-def _apply_overrides(merged: _Layer, overrides: list[str], label: str) -> None:
+_FLOAT = re.compile(r"^[-+]?(?:[0-9][0-9_]*(?:\.[0-9_]*)?|\.[0-9]+)(?:[eE][-+]?[0-9]+)?$")
+
+
+def override_value(raw: str) -> Any:
+    """An override's value as the command-line loaders read it: a YAML scalar, and a number for
+    any text that spells one (``1e-4`` too: Hydra's override grammar reads it as a float)."""
     import yaml
 
+    try:
+        value = yaml.safe_load(raw) if raw.strip() else None
+    except yaml.YAMLError:
+        return raw
+    if isinstance(value, str) and _FLOAT.match(value.strip()):
+        return float(value.strip().replace("_", ""))
+    return value
+
+
+def _apply_overrides(merged: _Layer, overrides: list[str], label: str) -> None:
     for item in overrides:
         text = item.strip()
         if text.startswith("~"):
@@ -250,11 +266,7 @@ def _apply_overrides(merged: _Layer, overrides: list[str], label: str) -> None:
             raise ComposeError(f"override {item!r} is not key=value")
         key, _, raw = text.partition("=")
         key = key.lstrip("+").strip()
-        try:
-            value = yaml.safe_load(raw) if raw.strip() else None
-        except yaml.YAMLError:
-            value = raw
-        _set(merged, tuple(key.split(".")), value, label)
+        _set(merged, tuple(key.split(".")), override_value(raw), label)
 
 
 def _set(merged: _Layer, path: tuple, value: Any, label: str, remove: bool = False) -> None:

@@ -312,6 +312,22 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             owner = next((i for end, i in ends if line <= end), ends[-1][1] if ends else None)
             owners.setdefault(owner, []).append(w)
     for doc in docs:
+        from . import sweep
+
+        if sweep.is_sweep(doc.data):  # a sweep file: lint its runs
+            sweep.lint_sweep(doc, file, options, report, layout)
+            continue
+        fixed, varying = sweep.split_overrides(options.overrides)
+        if varying and not file.startswith("<"):  # list-valued overrides: one run per combination
+            try:
+                from . import compose
+
+                base = compose.compose(doc, file, fixed)
+            except compose.ComposeError as exc:
+                report.compose_problem = str(exc)
+            else:
+                sweep.lint_override_sweep(base, file, varying, options, report, layout)
+                continue
         doc = _composed(doc, file, options, report)
         view = build_view(doc, layout)
         report.views.append(view)

@@ -13,7 +13,7 @@ LAYERS = {
     "layouts": 1, "schedule": 1, "waivers": 1,
     "view": 2, "catalogue": 2,
     "checks": 3, "plan": 3, "links": 3, "compose": 3,
-    "engine": 4, "parallel": 4,
+    "engine": 4, "parallel": 4, "sweep": 4,
     "render": 5, "fix": 5, "project": 5, "baseline": 5, "schema": 3,
     "api": 6,
     "cli": 7, "fastcli": 7, "__main__": 8, "__init__": 9,

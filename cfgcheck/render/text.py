@@ -99,6 +99,8 @@ def render(report, visible, *, hidden_info: int = 0, color: bool = False,
             lines.append(f"    {_paint('hint', 'hint', color)}: {f.hint}")
         if isinstance(f.data.get("overrides"), str):  # a composed config: which file won
             lines.append(f"    composed: {_printable(f.data['overrides'])}")
+        if isinstance(f.data.get("sweep"), str):  # a sweep: which of its runs
+            lines.append(f"    sweep: {_printable(f.data['sweep'])}")
     for e in report.internal:
         lines.append(f"{e.file}: internal error in rule {e.rule}: {e.error} (a bug in cfgcheck; "
                      "the other rules ran)")
