@@ -160,3 +160,29 @@ def test_suggestion_search_is_bounded_and_gives_the_same_suggestions():
     assert sum(1 for f in searched if f.data.get("suggestion")) > limit // 2
     past = [f for f in hits if f.data.get("limit") == limit]
     assert len(past) == 100 and all(f.severity.word == "info" for f in past)
+
+
+def _repo(tmp_path, script: str):
+    (tmp_path / "setup.py").write_text("from setuptools import setup\nsetup(name='fjord')\n")
+    (tmp_path / "train.py").write_text(script)
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text("model_name_or_path: acme/tiny-1b\nlearning_rate: 2e-5\nper_device_train_batch_size: 4\n")
+    report = engine.lint_file(cfg)
+    return [f for f in report.findings if f.rule == "yaml-version-dependent-value"]
+
+
+def test_a_repository_that_loads_configs_with_omegaconf_makes_the_exponent_harmless(tmp_path):
+    hits = _repo(tmp_path, "from omegaconf import OmegaConf\ncfg = OmegaConf.load('run.yaml')\n")
+    assert hits and hits[0].severity.word == "info" and "OmegaConf" in hits[0].message
+
+
+def test_a_repository_that_passes_values_as_command_line_text_makes_the_exponent_harmless(tmp_path):
+    script = ("import yaml, subprocess\ncfg = yaml.safe_load(open('run.yaml'))\nargs = []\n"
+              "for k, v in cfg.items():\n    args += [f'--{k}', str(v)]\nsubprocess.run(['python', 'sft.py', *args])\n")
+    hits = _repo(tmp_path, script)
+    assert hits and hits[0].severity.word == "info" and "command-line" in hits[0].message
+
+
+def test_a_repository_that_reads_yaml_types_keeps_the_warning(tmp_path):
+    hits = _repo(tmp_path, "import yaml\ncfg = yaml.safe_load(open('run.yaml'))\nlr = cfg['learning_rate'] * 2\n")
+    assert hits and hits[0].severity.word == "warning"

@@ -37,6 +37,9 @@ class RepoKeys:
     keys: frozenset[str]
     sources: dict  # key -> "path/of/file.py ClassName" or "path/of/file.py --option"
     files: int  # Python files parsed
+    # why 2e-5 reaches the script as a number whatever YAML version reads it, when the scripts
+    # show it: they load configs with OmegaConf only, or turn every value into command-line text
+    number_reader: str = ""
 
 
 def repository_root(config: str | os.PathLike) -> Path | None:
@@ -92,6 +95,53 @@ def _is_dataclass(cls: ast.ClassDef) -> bool:
     return False
 
 
+def _call_name(node: ast.Call) -> str:
+    f = node.func
+    if isinstance(f, ast.Attribute):
+        base = f.value.id if isinstance(f.value, ast.Name) else getattr(f.value, "attr", "")
+        return f"{base}.{f.attr}"
+    return f.id if isinstance(f, ast.Name) else ""
+
+
+def readers_of_source(text: str) -> set[str]:
+    """How one Python source reads YAML configs: {"yaml"} (PyYAML or transformers' parser,
+    values as YAML 1.1 types), {"omegaconf"}, {"cli-text"} (each value formatted into a
+    ``--key value`` argument, so the script's own parser converts the text)."""
+    try:
+        tree = ast.parse(text)
+    except (SyntaxError, ValueError, RecursionError, MemoryError):
+        return set()
+    kinds: set[str] = set()
+    loads_yaml = False
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Call):
+            name = _call_name(node)
+            if name in ("yaml.safe_load", "yaml.load", "yaml.full_load") or name.endswith(".parse_yaml_file"):
+                loads_yaml = True
+            elif name in ("OmegaConf.load", "OmegaConf.create", "hydra.main", "compose") or name.endswith(".instantiate"):
+                kinds.add("omegaconf")
+        elif isinstance(node, ast.FunctionDef):
+            for d in node.decorator_list:
+                if isinstance(d, ast.Call) and _call_name(d) == "hydra.main":
+                    kinds.add("omegaconf")
+    cli_text = False
+    for node in ast.walk(tree):
+        if isinstance(node, ast.For) and isinstance(node.iter, ast.Call) and _call_name(node.iter).endswith(".items"):
+            for inner in ast.walk(node):
+                if isinstance(inner, ast.JoinedStr) and inner.values and isinstance(inner.values[0], ast.Constant) \
+                        and str(inner.values[0].value).startswith("--"):
+                    cli_text = True
+    if loads_yaml:
+        kinds.add("cli-text" if cli_text else "yaml")
+    return kinds
+
+
+_READER_WORDS = {
+    "omegaconf": "the repository's scripts load their configs with OmegaConf, whose YAML reader takes it as a float",
+    "cli-text": "the repository's script turns each value into a command-line argument, whose parser converts the text to a float",
+}
+
+
 def keys_of_source(text: str, label: str = "") -> dict[str, str]:
     """Setting names declared in one Python source: key -> where (file and class or option)."""
     try:
@@ -126,6 +176,7 @@ def keys_of_source(text: str, label: str = "") -> dict[str, str]:
 @lru_cache(maxsize=64)
 def _scan(root: str) -> RepoKeys:
     keys: dict[str, str] = {}
+    readers: set[str] = set()
     files = _python_files(Path(root))
     parsed = 0
     for path in files:
@@ -139,7 +190,11 @@ def _scan(root: str) -> RepoKeys:
         rel = os.path.relpath(path, root)
         for key, where in keys_of_source(text, rel).items():
             keys.setdefault(key, where)
-    return RepoKeys(root=root, keys=frozenset(keys), sources=keys, files=parsed)
+        readers |= readers_of_source(text)
+    # one way of reading only: a repository that also reads YAML as PyYAML types says nothing
+    only = readers - {"yaml"} if "yaml" not in readers else set()
+    reader = _READER_WORDS[sorted(only)[0]] if len(only) == 1 else ""
+    return RepoKeys(root=root, keys=frozenset(keys), sources=keys, files=parsed, number_reader=reader)
 
 
 def repo_keys(config: str | os.PathLike) -> RepoKeys | None:
