@@ -1,7 +1,7 @@
 """The derived run: parameters, adapter scale, batch and steps, and the memory estimate per GPU.
 
 One function, ``derive_plan``, turns a typed view (plus the command-line knowledge: GPU, GPU
-count, rows) into numbers. The memory rule and ``cfgcheck plan`` both use it, so what the rule
+count, rows) into numbers. The memory rule and ``cfgcheck derive`` both use it, so what the rule
 says and what the plan shows cannot drift apart.
 """
 
