@@ -389,7 +389,7 @@ def lint_files(pairs: list[tuple[str, Options]], *, jobs: int = 1,
     if jobs > 1 and len(pairs) > 1:
         from .parallel import lint_files_parallel
 
-        yield from lint_files_parallel(pairs, jobs)
+        yield from lint_files_parallel(pairs, jobs, lint_file=lint_file, prepare=active_rules)
         return
     for path, opts in pairs:
         report = lint_file(path, opts)
