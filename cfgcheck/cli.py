@@ -258,6 +258,7 @@ def derive(
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows."),
     fmt: PlanFormat = typer.Option(PlanFormat.text, "--format", help="Output format."),
     no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (their hardware profiles)."),
+    pictures: bool = typer.Option(True, "--pictures/--no-pictures", help="Text output: draw the learning rate over the steps (with evaluation, checkpoint and logging marks) and the memory per GPU as a bar."),
 ) -> None:
     """Show the derived run: parameters, batch, steps and the memory estimate per GPU."""
     import json as _json
@@ -280,7 +281,12 @@ def derive(
 
         for e in result.problems:
             sys.stdout.write(f"{e.file}:{e.line}:{e.column}: input error: {e.reason}\n")
-        sys.stdout.write("\n".join(render_plan(f, p) for f, p in result.runs))
+        if pictures:
+            from .render.pictures import pictures as draw
+
+            sys.stdout.write("\n".join(render_plan(f, p) + "\n" + draw(p) for f, p in result.runs))
+        else:
+            sys.stdout.write("\n".join(render_plan(f, p) for f, p in result.runs))
     raise typer.Exit(api.EXIT_INPUT if result.problems else api.EXIT_CLEAN)
 
 
