@@ -333,6 +333,61 @@ def _write(out: str) -> None:
     sys.stdout.flush()
 
 
+@app.command("report")
+def report_html(
+    paths: List[Path] = typer.Argument(..., help="Config files or folders."),
+    out: Path = typer.Option(Path("cfgcheck-report.html"), "--out", "-o", help="The HTML file to write."),
+    gpu: Optional[str] = typer.Option(None, "--gpu", autocompletion=_complete_gpu, help="The GPU the run will use (see: cfgcheck gpus)."),
+    gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
+    rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    no_project: bool = typer.Option(False, "--no-project", help="Ignore project files."),
+) -> None:
+    """Write one self-contained HTML file: each config's findings, its derived run and two pictures."""
+    import os
+    import tempfile
+
+    from . import api
+    from .baseline import BaselineError
+    from .project import ProjectError
+    from .render.html import render_report
+
+    project = None if no_project else "auto"
+    try:
+        report = api.lint(paths, project=project, gpu=gpu, gpus=gpus, rows=rows)
+        runs = api.derive(paths, project=project, gpu=gpu, gpus=gpus, rows=rows).runs
+    except ValueError as exc:  # an unknown GPU name
+        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
+    except (ProjectError, BaselineError) as exc:
+        _fail(str(exc), api.EXIT_INPUT)
+    page = render_report(report, runs)
+    target = out.resolve()
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=".cfgcheck-report-", suffix=".tmp", dir=str(target.parent))
+        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
+            fh.write(page)
+        mask = os.umask(0)
+        os.umask(mask)
+        os.chmod(tmp, 0o666 & ~mask)  # as a plain new file would be (mkstemp makes it 0600)
+        os.replace(tmp, target)
+    except OSError as exc:
+        _fail(f"cfgcheck: cannot write {out}: {exc.strerror or exc}", api.EXIT_INPUT)
+    typer.echo(f"cfgcheck: wrote {out} ({report.linted} configs, {len(report.findings)} findings)", err=True)
+    raise typer.Exit(api.EXIT_INPUT if report.problems else api.EXIT_CLEAN)
+
+
+@app.command("editor-server")
+def editor_server() -> None:
+    """Run the language server for editors over stdio (findings as you type, fixes, hover, completion)."""
+    try:
+        import lsprotocol  # noqa: F401
+        import pygls  # noqa: F401
+    except ImportError:
+        _fail("cfgcheck: the editor server needs pygls: pip install 'cfgcheck[editor]'", 2)
+    from .editor import serve
+
+    serve()
+
+
 @app.command("rules")
 def list_rules() -> None:
     """List every rule in the catalogue with its default severity, summary and first source."""

@@ -15,7 +15,7 @@ LAYERS = {
     "checks": 3, "plan": 3, "links": 3, "parallel": 3,
     "engine": 4,
     "render": 5, "fix": 5, "project": 5, "baseline": 5, "schema": 3,
-    "api": 6,
+    "api": 6, "editor": 6, "lrcurve": 1,
     "cli": 7, "fastcli": 7, "__main__": 8, "__init__": 9,
 }
 
