@@ -130,8 +130,8 @@ def split_overrides(overrides) -> tuple[list[str], list[tuple[str, list]]]:
     return fixed, varying
 
 
-def lint_sweep(doc: Document, file: str, options, report, layout: str | None = None) -> None:
-    """Lint the runs of the sweep file DOC into REPORT (engine.FileReport)."""
+def lint_sweep(doc: Document, file: str, run, report, layout: str | None = None) -> None:
+    """Lint the runs of the sweep file DOC into REPORT (an engine FileReport)."""
     params = doc.data["parameters"]
     names = [str(k) for k in params]
     cands = []
@@ -150,19 +150,20 @@ def lint_sweep(doc: Document, file: str, options, report, layout: str | None = N
             base_doc = compose.compose(base_doc, base_file)
         except (loadmod.LoadError, compose.ComposeError, IndexError):
             base_doc = None
-    lint_runs(base_doc, base_file, names, cands, doc, file, options, report, layout)
+    lint_runs(base_doc, base_file, names, cands, doc, file, run, report, layout)
 
 
-def lint_override_sweep(base_doc: Document, file: str, varying: list[tuple[str, list]], options,
+def lint_override_sweep(base_doc: Document, file: str, varying: list[tuple[str, list]], run,
                         report, layout: str | None = None) -> None:
     """Lint the runs of list-valued overrides (``lr=1e-5,1e-4``) over the config BASE_DOC."""
     names = [k for k, _v in varying]
     cands = [[(v, None) for v in values] for _k, values in varying]
-    lint_runs(base_doc, file, names, cands, base_doc, file, options, report, layout)
+    lint_runs(base_doc, file, names, cands, base_doc, file, run, report, layout)
 
 
-def lint_runs(base_doc, base_file, names, cands, doc, file, options, report, layout) -> None:
-    from . import engine
+def lint_runs(base_doc, base_file, names, cands, doc, file, run, report, layout) -> None:
+    """RUN(view) -> (findings, internal errors): the engine's rules over one run's view (the
+    engine hands it over, so this module needs nothing above it)."""
     from .view import build_view, detect_layout
 
     picks = _sample([len(c) for c in cands])
@@ -195,12 +196,11 @@ def lint_runs(base_doc, base_file, names, cands, doc, file, options, report, lay
             found, _why = detect_layout(data)
             chosen = found.name if found is not None else "trainer"
         view = build_view(run_doc, chosen)
-        sub = engine.FileReport(file=file)
-        engine.lint_view(view, options, file, sub)
-        runs.append((_label(names, values), sub.findings))
+        findings, internal = run(view)
+        runs.append((_label(names, values), findings))
         report.views.append(view)
         report.layout = report.layout or chosen
-        report.internal.extend(sub.internal)
+        report.internal.extend(internal)
     seen: dict[tuple, list] = {}
     for label, findings in runs:
         for f in findings:
