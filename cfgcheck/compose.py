@@ -31,11 +31,12 @@ from pathlib import Path
 from typing import Any
 
 from . import load as loadmod
+from .layouts import BASE_FILE_KEYS
 from .load import Document, LoadError
 
 MAX_FILES = 32
 MAX_DEPTH = 6
-BASE_KEYS = ("_base_", "base_config", "extends", "inherit_from", "base")
+BASE_KEYS = BASE_FILE_KEYS
 _SUFFIXES = (".yaml", ".yml", ".json")
 # the loader that composes these files reads 2e-5 as a number (OmegaConf's YAML reader)
 OMEGACONF_READER = "the file is composed by an OmegaConf-based loader, whose YAML reader takes it as a float"
@@ -147,7 +148,7 @@ def _find(name: str, folders: list[Path]) -> Path:
         try:
             if c.is_file():
                 return c
-        except OSError:
+        except (OSError, ValueError):  # a name too long, a NUL byte: not a file we can read
             continue
     raise ComposeError(f"{text} was not found (looked in {', '.join(sorted({str(f) for f in folders}))})")
 

@@ -706,6 +706,9 @@ class UnreadFormat:
     shape: str = ""
 
 
+# keys that name a base file the config is composed over (compose.py reads them)
+BASE_FILE_KEYS = ("_base_", "base_config", "extends", "inherit_from", "base")
+
 UNREAD_FORMATS: tuple[UnreadFormat, ...] = (
     UnreadFormat(
         name="gpt-neox", title="a GPT-NeoX model and training config",
@@ -725,7 +728,8 @@ UNREAD_FORMATS: tuple[UnreadFormat, ...] = (
         shape="tuning-space",
     ),
     UnreadFormat(
-        name="composed", title="a config composed from other files (a defaults: list or _target_ nodes)",
+        name="composed", title="a config composed from other files that cannot be put together "
+                               "(a defaults: list or base file not found, or _target_ nodes)",
         shape="composed",
     ),
     UnreadFormat(

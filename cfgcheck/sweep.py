@@ -107,8 +107,11 @@ def _base_config(doc: Document, file: str) -> str | None:
                 word = word.split("=", 1)[-1]
                 if word.lower().endswith((".yaml", ".yml", ".json")):
                     path = Path(file).parent / word
-                    if path.is_file():
-                        return str(path)
+                    try:
+                        if path.is_file():
+                            return str(path)
+                    except (OSError, ValueError):
+                        continue
     return None
 
 

@@ -10,7 +10,8 @@ import re
 from dataclasses import dataclass, field
 from typing import Any
 
-from .layouts import BY_NAME, FIELD_TYPES, LAYOUTS, NOT_TRAINING, UNREAD_FORMATS, Layout, UnreadFormat
+from .layouts import (BASE_FILE_KEYS, BY_NAME, FIELD_TYPES, LAYOUTS, NOT_TRAINING, UNREAD_FORMATS, Layout,
+                      UnreadFormat)
 from .load import Document, dotted
 
 _NUMBER = re.compile(r"^[-+]?(?:\.[0-9]+|[0-9][0-9_]*(?:\.[0-9_]*)?)(?:[eE][-+]?[0-9]+)?$")
@@ -115,7 +116,9 @@ def _matches(fmt: UnreadFormat, data: dict) -> bool:
         defaults = data.get("defaults")
         listed = isinstance(defaults, list) and defaults and all(
             isinstance(x, (str, dict)) for x in defaults)
-        return bool(listed) or _has_target(data)
+        named = any(isinstance(data.get(k), str) and data[k].strip().lower().endswith((".yaml", ".yml", ".json"))
+                    for k in BASE_FILE_KEYS)  # still there: the base file could not be read
+        return bool(listed) or named or _has_target(data)
     if fmt.shape == "tuning-space":
         zero = data.get("zero_optimization")
         stage_list = isinstance(zero, dict) and isinstance(zero.get("stage"), list)

@@ -122,3 +122,21 @@ def test_json_output_carries_the_override_note(tmp_path):
     data = json.loads(render("json", report, report.findings))
     notes = [f["data"].get("overrides") for f in data["findings"] if f["rule"] == "full-finetune-lr-too-high"]
     assert "run.yaml overrides base.yaml" in notes
+
+
+def test_a_base_file_that_cannot_be_read_leaves_the_config_unread(tmp_path):
+    for name in ["nowhere.yaml", "x" * 300 + ".yaml", "a\x00b.yaml"]:
+        run = _write(tmp_path, "run.yaml", f"base_config: {json.dumps(name)}\nlearning_rate: 1.0e-4\n")
+        report = _findings(run)
+        assert report.layout is None and report.findings == [], name
+        assert report.skipped.endswith("(composed): not a format cfgcheck reads (yet)")
+
+
+def test_a_malformed_override_is_an_input_error(tmp_path):
+    import pytest
+
+    run = _write(tmp_path, "run.yaml", "learning_rate: 2.0e-5\n")
+    with pytest.raises(ValueError, match="not KEY=VALUE"):
+        api.lint([run], project=None, overrides=["learning_rate"])
+    report = api.lint([run], project=None, overrides=["~learning_rate", "+a.b=1"])
+    assert not report.problems and not report.internal
