@@ -205,10 +205,12 @@ _OPTIM_NAMES = {**_same("name type kind optimizer", "optim"), **_same("lr learni
                 **_same("max_grad_norm grad_clip clip_grad_norm gradient_clipping", "max_grad_norm")}
 _ADAPTER_NAMES = {**_same("r rank", "lora_r"), "alpha": "lora_alpha", "dropout": "lora_dropout",
                   **_same("target_modules targets target modules", "lora_target_modules"),
-                  **_same("enabled enable use", "use_peft"), "rslora": "use_rslora", "dora": "use_dora"}
+                  **_same("enabled enable use", "use_peft"), "rslora": "use_rslora", "dora": "use_dora",
+                  **_same("type method kind peft_type", "finetuning_method")}
 _QUANT_NAMES = {**_same("quant_type type", "bnb_4bit_quant_type"),
                 **_same("double_quant use_double_quant nested", "bnb_4bit_use_double_quant"),
-                "compute_dtype": "bnb_4bit_compute_dtype", "4bit": "load_in_4bit", "8bit": "load_in_8bit"}
+                "compute_dtype": "bnb_4bit_compute_dtype", "4bit": "load_in_4bit", "8bit": "load_in_8bit",
+                **_same("bits quant_bits", "quantization_bits")}
 _TRAIN_NAMES = {**_same("batch_size micro_batch_size per_device_batch_size batch_size_per_device "
                         "train_micro_batch_size", "per_device_train_batch_size"),
                 **_same("epochs num_epochs", "num_train_epochs"), "lr": "learning_rate",
@@ -285,6 +287,7 @@ TRAINER = Layout(
         "quant.type_4bit": ("bnb_4bit_quant_type",),
         "quant.double": ("bnb_4bit_use_double_quant", "use_bnb_nested_quant"),
         "quant.compute_dtype": ("bnb_4bit_compute_dtype",),
+        "quant.bits": ("quantization_bits", "quantization_bit"),
         "optim.lr": ("learning_rate", "lr"),
         "optim.name": ("optim",),
         "optim.scheduler": ("lr_scheduler_type",),

@@ -153,3 +153,11 @@ def test_quantisation_sections_by_their_local_names():
     assert view.value("quant.type_4bit") == "fp4"
     assert view.value("quant.compute_dtype") == "bfloat16"
     assert view.method == "qlora"
+
+
+def test_adapter_and_quantisation_sections_say_the_method():
+    text = ("model:\n  name_or_path: acme/tiny-1b\nadapter:\n  type: lora\n  rank: 16\n  alpha: 32\n"
+            "quantization:\n  bits: 4\n  quant_type: nf4\n")
+    view = build_view(load_text(text, "run.yaml")[0])
+    assert view.method == "qlora" and view.method_stated
+    assert view.value("quant.bits") == 4
