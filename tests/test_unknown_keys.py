@@ -186,3 +186,23 @@ def test_a_repository_that_passes_values_as_command_line_text_makes_the_exponent
 def test_a_repository_that_reads_yaml_types_keeps_the_warning(tmp_path):
     hits = _repo(tmp_path, "import yaml\ncfg = yaml.safe_load(open('run.yaml'))\nlr = cfg['learning_rate'] * 2\n")
     assert hits and hits[0].severity.word == "warning"
+
+
+def test_the_repository_scan_is_bounded(tmp_path, monkeypatch):
+    from cfgcheck.knowledge import repo_keys
+
+    (tmp_path / ".git").mkdir()
+    for i in range(5):
+        (tmp_path / f"m{i}.py").write_text(f"import argparse\nargparse.ArgumentParser().add_argument('--opt-{i}')\n")
+    (tmp_path / "run.yaml").write_text("learning_rate: 2.0e-5\n")
+    monkeypatch.setattr(repo_keys, "MAX_FILES", 2)
+    repo_keys._scan.cache_clear()
+    found = repo_keys.repo_keys(tmp_path / "run.yaml")
+    assert found.files == 2 and found.keys == {"opt_0", "opt_1"}
+    repo_keys._scan.cache_clear()
+    # no repository marker above a config: nothing is scanned
+    lone = tmp_path.parent / f"{tmp_path.name}-lone"
+    lone.mkdir()
+    (lone / "run.yaml").write_text("learning_rate: 2.0e-5\n")
+    assert repo_keys.repository_root(lone / "run.yaml") is None
+    assert repo_keys.repo_keys(lone / "run.yaml") is None

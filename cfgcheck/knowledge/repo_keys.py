@@ -13,7 +13,8 @@ holds a config are parsed with :mod:`ast` — never imported or run — for
 The repository is the nearest folder above the config that holds ``.git``, ``pyproject.toml``,
 ``setup.py`` or ``setup.cfg`` (at most six levels up); without one nothing is scanned.
 The work is bounded: at most ``MAX_FILES`` Python files, each at most ``MAX_BYTES``, hidden
-folders, virtual environments and ``site-packages`` skipped.
+folders, virtual environments and ``site-packages`` skipped, at most ``MAX_ENTRIES`` folder
+entries looked at.
 """
 
 from __future__ import annotations
@@ -26,6 +27,7 @@ from pathlib import Path
 
 MAX_FILES = 400
 MAX_BYTES = 512 * 1024
+MAX_ENTRIES = 20_000  # folder entries looked at (a data folder of millions of files stays cheap)
 MAX_UP = 6
 _MARKERS = (".git", "pyproject.toml", "setup.py", "setup.cfg")
 _SKIP_DIRS = {"node_modules", "site-packages", "venv", ".venv", "env", "build", "dist", "__pycache__"}
@@ -63,8 +65,12 @@ def repository_root(config: str | os.PathLike) -> Path | None:
 
 def _python_files(root: Path) -> list[Path]:
     out: list[Path] = []
+    seen = 0
     try:
         for here, dirs, files in os.walk(root, followlinks=False):
+            seen += len(dirs) + len(files)
+            if seen > MAX_ENTRIES:
+                return out
             dirs[:] = sorted(d for d in dirs if not d.startswith(".") and d not in _SKIP_DIRS)
             for name in sorted(files):
                 if name.endswith(".py"):
