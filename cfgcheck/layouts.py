@@ -775,6 +775,11 @@ def layout_summary(layout: Layout) -> dict[str, str]:
     if layout.builder_models or layout.model_dir:
         read.add("model.ref")
         extra = f"; model.ref from the builder's name, else `{layout.model_dir}` (its config.json)"
+    if layout.method_patterns:
+        read.add("method")
+        extra += "; the method from the builder's name"
+    if layout.default_method:
+        extra += f"; no method written means {layout.default_method}"
     not_read = set(FIELD_TYPES) - read
     top = sorted(layout.signature, key=lambda k: (-layout.signature[k], k))[:6]
     where = "bare names at the top level and in its sections" if layout.has_bare_names else "exact key paths"
