@@ -110,6 +110,60 @@ def _fail(message: str, code: int) -> None:
     raise typer.Exit(code)
 
 
+INPUT_ERRORS: tuple = ()  # filled on first use: the exceptions that are the user's input
+
+
+def _input_errors() -> tuple:
+    """The exceptions that mean "your input is wrong" (exit 2); anything else is our bug."""
+    global INPUT_ERRORS
+    if not INPUT_ERRORS:
+        from .baseline import BaselineError
+        from .findings import OptionError
+        from .knowledge.hardware import UnknownGpu
+        from .project import ProjectError
+
+        INPUT_ERRORS = (UnknownGpu, OptionError, ProjectError, BaselineError)
+    return INPUT_ERRORS
+
+
+def _input_message(exc: Exception) -> str:
+    """A project or baseline error is already its own file:line:column: lines."""
+    from .baseline import BaselineError
+    from .findings import printable
+    from .project import ProjectError
+
+    if isinstance(exc, (ProjectError, BaselineError)):
+        return str(exc)
+    return f"cfgcheck: {printable(str(exc))}"
+
+
+def _crash_boundary(command):
+    """Around a command: a bug anywhere outside a rule (or a file's own boundary in the engine)
+    ends as an internal error, exit 3, one line, never a traceback unless --debug asks."""
+    import functools
+
+    @functools.wraps(command)
+    def guarded(*args, **kwargs):
+        import click
+
+        try:
+            return command(*args, **kwargs)
+        except (typer.Exit, click.exceptions.Exit, click.ClickException, click.Abort):
+            raise
+        except Exception as exc:
+            if kwargs.get("debug"):
+                raise
+            from .engine import internal_error
+            from .findings import printable
+
+            e = internal_error("", None, exc)
+            _write_err(f"cfgcheck: internal error: {printable(e.error)} (a bug in cfgcheck; "
+                       "run again with --debug where the command has it, for the traceback)\n")
+            raise typer.Exit(3) from None
+
+    return guarded
+
+
 def _severity_pairs(pairs: list[str]) -> dict[str, str]:
     out = {}
     for item in pairs:
@@ -148,6 +202,7 @@ def _frames(report, shown) -> dict[str, list[str]]:
 
 
 @app.command()
+@_crash_boundary
 def lint(
     paths: Optional[List[Path]] = typer.Argument(
         None, help="Config files or folders (YAML and JSON inside are checked). "
@@ -178,7 +233,7 @@ def lint(
     """Check training configs and report what would waste the run."""
     from . import api
     from .baseline import BaselineError
-    from .findings import Severity
+    from .findings import OptionError, Severity, printable
     from .knowledge.hardware import UnknownGpu
     from .project import ProjectError
     from .render import render
@@ -211,10 +266,8 @@ def lint(
             paths = [Path(".")]  # no project file: the working folder
         report = api.lint(paths or [], project=proj, progress=progress, jobs=jobs, keep_views=False,
                           baseline=False if save_baseline else baseline, **chosen)
-    except UnknownGpu as exc:
-        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
-    except ValueError as exc:
-        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
+    except (UnknownGpu, OptionError) as exc:
+        _fail(f"cfgcheck: {printable(str(exc))}", api.EXIT_INPUT)
     except (ProjectError, BaselineError) as exc:
         _fail(str(exc), api.EXIT_INPUT)
     finally:
@@ -224,11 +277,19 @@ def lint(
     if save_baseline is not None:
         from .baseline import save
 
-        n = save(report, save_baseline)
-        typer.echo(f"cfgcheck: recorded {n} finding{'s' if n != 1 else ''} in {save_baseline}", err=True)
+        try:
+            n = save(report, save_baseline)
+        except BaselineError as exc:
+            _fail(str(exc), api.EXIT_INPUT)
+        _write_err(f"cfgcheck: recorded {n} finding{'s' if n != 1 else ''} in "
+                   f"{printable(str(save_baseline))}\n")
         for p in report.problems:
-            typer.echo(f"{p.file}:{p.line}:{p.column}: input error: {p.reason}", err=True)
-        raise typer.Exit(api.EXIT_INPUT if report.problems else api.EXIT_CLEAN)
+            _write_err(f"{printable(p.file)}:{p.line}:{p.column}: input error: {printable(p.reason)}\n")
+        for e in report.internal:
+            _write_err(f"{printable(e.file)}: internal error in {e.where}: {printable(e.error)} "
+                       "(a bug in cfgcheck)\n")
+        raise typer.Exit(api.EXIT_INPUT if report.problems else
+                         api.EXIT_INTERNAL if report.internal else api.EXIT_CLEAN)
 
     level = Severity.parse((show.value if show else None) or (proj.show.word if proj and proj.show else "warning"))
     fail_on = Severity.parse((gate.value if gate else None) or (proj.gate.word if proj and proj.gate else "warning"))
@@ -251,6 +312,7 @@ def lint(
 
 
 @app.command()
+@_crash_boundary
 def plan(
     paths: List[Path] = typer.Argument(..., help="Config files or folders."),
     gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use (see: cfgcheck gpus)."),
@@ -260,31 +322,31 @@ def plan(
     no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (their hardware profiles)."),
 ) -> None:
     """Show the derived run: parameters, batch, steps and the memory estimate per GPU."""
-    import json as _json
-
     from . import api
-    from .project import ProjectError
+    from .findings import json_text, printable
 
     try:
         result = api.plan(paths, gpu=gpu, gpus=gpus, rows=rows, project=None if no_project else "auto")
-    except ValueError as exc:  # an unknown GPU name
-        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
-    except ProjectError as exc:
-        _fail(str(exc), api.EXIT_INPUT)
+    except _input_errors() as exc:  # an unknown GPU name, a bad project file
+        _fail(_input_message(exc), api.EXIT_INPUT)
     if fmt is PlanFormat.json:
-        sys.stdout.write(_json.dumps({"plans": [dict(p.as_dict(), file=f) for f, p in result.plans],
-                                      "input_errors": [e.as_dict() for e in result.problems]},
-                                     indent=2) + "\n")
+        _write(json_text({"plans": [dict(p.as_dict(), file=f) for f, p in result.plans],
+                          "input_errors": [e.as_dict() for e in result.problems],
+                          "internal_errors": [e.as_dict() for e in result.internal]}) + "\n")
     else:
         from .render.plan import render_plan
 
-        for e in result.problems:
-            sys.stdout.write(f"{e.file}:{e.line}:{e.column}: input error: {e.reason}\n")
-        sys.stdout.write("\n".join(render_plan(f, p) for f, p in result.plans))
-    raise typer.Exit(api.EXIT_INPUT if result.problems else api.EXIT_CLEAN)
+        out = [f"{printable(e.file)}:{e.line}:{e.column}: input error: {printable(e.reason)}\n"
+               for e in result.problems]
+        out += [f"{printable(e.file)}: internal error in {e.where}: {printable(e.error)} "
+                "(a bug in cfgcheck; the other files were planned)\n" for e in result.internal]
+        _write("".join(out) + "\n".join(render_plan(f, p) for f, p in result.plans))
+    raise typer.Exit(api.EXIT_INPUT if result.problems else
+                     api.EXIT_INTERNAL if result.internal else api.EXIT_CLEAN)
 
 
 @app.command()
+@_crash_boundary
 def fix(
     paths: List[Path] = typer.Argument(..., help="Config files or folders to fix in place."),
     diff: bool = typer.Option(False, "--diff", help="Print a unified diff of the fixes; write nothing."),
@@ -299,21 +361,29 @@ def fix(
     """Rewrite the values rules can fix, in place, keeping every other byte; each rewrite is proven first."""
     from . import api
     from . import fix as fixmod
-    from .project import ProjectError
+    from .findings import printable
 
     try:
         report = api.fix(paths, training=training, halve_batch=halve_batch,
                          write=not (diff or no_write), project=None if no_project else "auto",
                          gpu=gpu, gpus=gpus, rows=rows)
-    except ValueError as exc:  # an unknown GPU name
-        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
-    except ProjectError as exc:
-        _fail(str(exc), api.EXIT_INPUT)
+    except _input_errors() as exc:  # an unknown GPU name, a bad project file
+        _fail(_input_message(exc), api.EXIT_INPUT)
     if diff:
         sys.stdout.write("".join(f.diff() for f in report.files))
     summary = fixmod.summary_text(report, dry=diff or no_write)
     (sys.stderr if diff else sys.stdout).write(summary)
     raise typer.Exit(api.fix_exit_code(report, no_write=no_write))
+
+
+def _write_err(out: str) -> None:
+    """Like _write, on stderr."""
+    try:
+        sys.stderr.write(out)
+    except UnicodeEncodeError:
+        sys.stderr.flush()
+        sys.stderr.buffer.write(out.encode(sys.stderr.encoding or "utf-8", errors="backslashreplace"))
+    sys.stderr.flush()
 
 
 def _write(out: str) -> None:

@@ -6,9 +6,14 @@ Both are frozen, keyword-only records. Findings are created in one place only,
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from enum import IntEnum
 from typing import Any, Mapping
+
+
+class OptionError(ValueError):
+    """An option value given by the caller that cfgcheck cannot use (an input error, exit 2)."""
 
 
 class Severity(IntEnum):
@@ -25,7 +30,45 @@ class Severity(IntEnum):
         try:
             return cls[str(text).strip().upper()]
         except KeyError:
-            raise ValueError(f"unknown severity {text!r}: use error, warning or info") from None
+            raise OptionError(f"unknown severity {text!r}: use error, warning or info") from None
+
+
+# --------------------------------------------------------------------------- shown text
+
+_NAMED = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
+
+
+def printable(text: str) -> str:
+    """Text for a line-based output (text, GitHub annotations, plan): every character that is not
+    printable (line breaks, escape codes, bidirectional controls, the lone surrogates of a file
+    name that is not UTF-8) as a backslash escape, so a key or a file name can never start a
+    line of its own or move the cursor. Printable text, non-ASCII letters and backslashes
+    included, is kept as it is."""
+    if text.isprintable():
+        return text
+    out = []
+    for c in text:
+        if c.isprintable():
+            out.append(c)
+        elif c in _NAMED:
+            out.append(_NAMED[c])
+        else:
+            n = ord(c)
+            out.append(f"\\x{n:02x}" if n < 0x100 else f"\\u{n:04x}" if n < 0x10000 else f"\\U{n:08x}")
+    return "".join(out)
+
+
+_SURROGATE = re.compile("[\ud800-\udfff]")
+
+
+def json_text(doc: Any, indent: int | None = 2) -> str:
+    """JSON that any UTF-8 writer can write: non-ASCII text kept readable, but a lone surrogate
+    (a file name that is not UTF-8, a JSON key written as "\\ud800") as its \\uXXXX escape, which
+    reads back as the same string. Used by every JSON output and by baselines."""
+    import json
+
+    text = json.dumps(doc, indent=indent, ensure_ascii=False)
+    return _SURROGATE.sub(lambda m: f"\\u{ord(m.group()):04x}", text)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -114,11 +157,17 @@ class InputProblem:
 
 @dataclass(frozen=True, kw_only=True)
 class InternalError:
-    """A rule raised: a bug in cfgcheck, reported apart from the findings."""
+    """A rule raised, or cfgcheck itself failed on a file outside any rule (``rule`` None):
+    a bug in cfgcheck, reported apart from the findings."""
 
     file: str
-    rule: str
+    rule: str | None
     error: str
+
+    @property
+    def where(self) -> str:
+        """``rule X`` or ``cfgcheck`` (outside the rules), for messages."""
+        return f"rule {self.rule}" if self.rule else "cfgcheck outside the rules"
 
     def as_dict(self) -> dict[str, Any]:
         return {"file": self.file, "rule": self.rule, "error": self.error}
