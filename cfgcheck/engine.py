@@ -15,7 +15,7 @@ from typing import Any, Callable, Iterable, Iterator
 from . import load as loadmod
 from .catalogue import Rule, load_catalogue
 from .checks import all_checks
-from .findings import Finding, Fix, InputProblem, InternalError, Severity
+from .findings import Finding, Fix, InputProblem, InternalError, Severity, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted
 from .view import Field, RunView, build_view
@@ -154,6 +154,7 @@ class Context:
         if what in self._judged_once:
             return
         self._judged_once.add(what)
+        data = shown_data(data)
         msg = self.rule.messages.get("cannot-judge")
         text = (msg.message if msg else "{rule}: not checked: {reason}")
         self._sink.append(
@@ -198,6 +199,7 @@ def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: t
                  variant: str, on: str, data: dict[str, Any], fix: Fix | None,
                  span=None) -> Finding:
     """The one place findings are made."""
+    data = shown_data(data)  # a huge number as its short text, in the message and in the data
     msg = rule.messages[variant]
     severity = options.severity.get(rule.id) or msg.severity or rule.severity
     return _finding(rule=rule.id, severity=severity, doc=doc, file=file, path=path, on=on,

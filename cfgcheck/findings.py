@@ -33,6 +33,53 @@ class Severity(IntEnum):
             raise OptionError(f"unknown severity {text!r}: use error, warning or info") from None
 
 
+# --------------------------------------------------------------------------- huge numbers
+
+# The largest magnitude a setting may have and still be used: 2**53, beyond which a float (IEEE 754
+# binary64, what Python and the libraries compute with) no longer holds every integer exactly.
+# No count, size, rate or step of a training run comes near it. The view sets a value beyond it
+# aside (reported once by value-outside-schema), so no rule does arithmetic on it.
+MAX_MAGNITUDE = 2 ** 53
+
+
+def too_large(value: Any) -> bool:
+    """A finite number (not a boolean) beyond MAX_MAGNITUDE."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return False
+    if isinstance(value, float) and (value != value or value in (float("inf"), float("-inf"))):
+        return False  # NaN and infinities are values of their own, judged by the rules
+    return abs(value) > MAX_MAGNITUDE
+
+
+def number_text(value: Any) -> str:
+    """A number for a message, short whatever its size: a 5,000-digit integer (which Python
+    refuses to print past 4,300 digits) as "a 5,000-digit number"."""
+    if isinstance(value, int) and not isinstance(value, bool) and abs(value) >= 10 ** 30:
+        v = abs(value)
+        digits = max(1, int((v.bit_length() - 1) * 0.30102999566398120))  # log10(2), a lower bound
+        while v >= 10 ** digits:
+            digits += 1
+        return f"{'-' if value < 0 else ''}a {digits:,}-digit number"
+    return repr(value) if isinstance(value, float) else str(value)
+
+
+def _shown_data(value: Any) -> Any:
+    """Finding data with every huge number replaced by its short text (JSON and templates cannot
+    print a 5,000-digit integer, and nobody should read one)."""
+    if too_large(value):
+        return number_text(value)
+    if isinstance(value, (list, tuple)):
+        return type(value)(_shown_data(v) for v in value) if isinstance(value, list) else \
+            tuple(_shown_data(v) for v in value)
+    if isinstance(value, dict):
+        return {k: _shown_data(v) for k, v in value.items()}
+    return value
+
+
+def shown_data(data: Mapping[str, Any]) -> dict[str, Any]:
+    return {k: _shown_data(v) for k, v in data.items()}
+
+
 # --------------------------------------------------------------------------- shown text
 
 _NAMED = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
