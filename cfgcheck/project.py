@@ -421,9 +421,11 @@ _TABLE_LINE = re.compile(r"^\s*\[\[?\s*tool\s*\.\s*cfgcheck\s*[\].]", re.M)
 
 
 def _mentions_table(path: Path) -> bool:
+    from .load import LoadError, read_source
+
     try:
-        text = path.read_text(encoding="utf-8", errors="replace")
-    except OSError:
+        text = read_source(path).text  # guarded: never a FIFO, a device or an endless file
+    except LoadError:
         return False
     return bool(_TABLE_LINE.search(text)) or bool(
         re.search(r"^\s*\[\s*tool\s*\]\s*$(?:(?!^\s*\[).)*^\s*cfgcheck\s*[.=]", text, re.M | re.S))
@@ -441,10 +443,12 @@ def load(path: str | Path) -> Project:
     """Read, validate and resolve a project file; raises ProjectError with positions."""
     path = Path(os.path.abspath(path))
     name = str(path)
+    from .load import LoadError, read_source
+
     try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ProjectError([(name, 1, 1, f"cannot read: {exc}")]) from None
+        text = read_source(path).text  # guarded: never a FIFO, a device or an endless file
+    except LoadError as exc:
+        raise ProjectError([(name, exc.line, exc.column, f"cannot read: {exc.reason}")]) from None
     if path.suffix == ".toml":
         data, locate = _read_toml(text, name)
     else:
