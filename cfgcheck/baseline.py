@@ -72,13 +72,28 @@ MAX_BYTES = 32 * 1024 * 1024  # a baseline file; about 150,000 recorded findings
 MAX_DEPTH = 16  # nesting of a baseline: the file's own levels and each finding's values
 
 
-class _TooDeep(Exception):
-    pass
+_TOO_DEEP = object()
+
+
+def _deeper_than(doc, limit: int) -> bool:
+    """Whether parsed JSON nests more than ``limit`` levels (no recursion; scalars not visited)."""
+    stack = [(doc, 1)] if isinstance(doc, (dict, list)) else []
+    while stack:
+        value, depth = stack.pop()
+        if depth > limit:
+            return True
+        for v in (value.values() if isinstance(value, dict) else value):
+            if isinstance(v, (dict, list)):
+                stack.append((v, depth + 1))
+    return False
+
+
+_VALUES = json.JSONEncoder(sort_keys=True, default=str)  # as Finding.identity() writes values
 
 
 def _depth_within(text: str, limit: int) -> int | None:
     """The offset of the first bracket nested deeper than ``limit`` (strings skipped), else None.
-    One pass, no recursion: the json module would recurse once per level."""
+    One pass, no recursion; used only to place the error once the file is known to be too deep."""
     depth = 0
     for m in _TOKENS.finditer(text):
         c = m.group()
@@ -91,7 +106,7 @@ def _depth_within(text: str, limit: int) -> int | None:
     return None
 
 
-_TOKENS = re.compile(r'"(?:[^"\\]|\\.)*"|[\[\]{}]')
+_TOKENS = re.compile(r'"[^"\\]*(?:\\.[^"\\]*)*"|[\[\]{}]')
 
 
 def save(report: Report, path: str | Path) -> int:
@@ -134,17 +149,19 @@ def load(path: str | Path) -> Baseline:
         if exc.reason == "no such file":
             raise BaselineError(name, "no such file (write one with --save-baseline)") from None
         raise BaselineError(name, exc.reason, exc.line, exc.column) from None
-    deep = _depth_within(text, MAX_DEPTH)
-    if deep is not None:
-        line = text.count("\n", 0, deep) + 1
-        raise BaselineError(name, f"nested more than {MAX_DEPTH} levels deep; not a cfgcheck baseline",
-                            line, deep - (text.rfind("\n", 0, deep) + 1) + 1)
     try:
         doc = json.loads(text)
     except json.JSONDecodeError as exc:
         raise BaselineError(name, f"invalid JSON: {exc.msg}", exc.lineno, exc.colno) from None
-    except (ValueError, RecursionError) as exc:  # an integer too long to read, say
+    except RecursionError:  # the json module recurses per level and stops at the recursion limit
+        doc = _TOO_DEEP
+    except ValueError as exc:  # an integer too long to read, say
         raise BaselineError(name, f"invalid JSON: {str(exc).split(';')[0]}") from None
+    if doc is _TOO_DEEP or _deeper_than(doc, MAX_DEPTH):
+        deep = _depth_within(text, MAX_DEPTH) or 0  # only now: where it goes too deep
+        line = text.count("\n", 0, deep) + 1
+        raise BaselineError(name, f"nested more than {MAX_DEPTH} levels deep; not a cfgcheck baseline",
+                            line, deep - (text.rfind("\n", 0, deep) + 1) + 1)
     if not isinstance(doc, dict) or doc.get("kind") != KIND:
         raise BaselineError(name, f"not a cfgcheck baseline (no \"kind\": \"{KIND}\")")
     if doc.get("version") != VERSION:
@@ -160,7 +177,7 @@ def load(path: str | Path) -> Baseline:
                 or "values" not in row:
             raise BaselineError(name, f"finding {i} lacks rule, file, key (texts) or values")
         try:
-            values = json.dumps(row["values"], sort_keys=True, default=str)
+            values = _VALUES.encode(row["values"])
         except (TypeError, ValueError):
             raise BaselineError(name, f"finding {i}: its values cannot be compared") from None
         known[(row["rule"], row["file"], row["key"], values)] += 1

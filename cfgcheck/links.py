@@ -88,6 +88,8 @@ def _find(candidates: list[Path]) -> tuple[Path | None, list[str]]:
         try:
             if p.is_file():
                 return p, why
+            if p.exists():  # a folder, a FIFO, a device: never opened
+                why.append(f"{p}: not a regular file; not read")
         except OSError as exc:  # a name too long, a folder that may not be searched
             why.append(f"{p}: {exc.strerror or exc}")
         except ValueError as exc:

@@ -140,6 +140,8 @@ _POSIX_CLASSES = {
     "xdigit": lambda c: c in "0123456789abcdefABCDEF",
 }
 
+_STEP_CACHE = 4096  # memoised steps per glob (position set, character); cleared when full
+
 # token kinds of a compiled glob
 _LIT, _ONE, _SET, _STAR, _ANY, _DIRS, _IN_DIRS = range(7)
 
@@ -233,6 +235,7 @@ class Glob:
             tokens.append((_ANY, None))
         self._tokens = tokens
         self._start = self._closure({0})
+        self._steps: dict[tuple[frozenset[int], str], frozenset[int]] = {}
 
     def _closure(self, states: set[int]) -> frozenset[int]:
         """Add the positions reachable without reading a character."""
@@ -254,36 +257,47 @@ class Glob:
         return frozenset(out)
 
     def match(self, path: str) -> bool:
-        tokens, end = self._tokens, len(self._tokens)
+        end = len(self._tokens)
         states = self._start
+        cache = self._steps
         for c in path:
-            step: set[int] = set()
-            for s in states:
-                if s >= end:
-                    continue
-                kind, arg = tokens[s]
-                if kind == _LIT:
-                    if c == arg:
-                        step.add(s + 1)
-                elif kind == _ONE:
-                    if c != "/":
-                        step.add(s + 1)
-                elif kind == _SET:
-                    if _in_set(arg, c):
-                        step.add(s + 1)
-                elif kind == _STAR:
-                    if c != "/":
-                        step.add(s)
-                elif kind == _ANY:
-                    step.add(s)
-                elif kind == _IN_DIRS:  # inside the folders: a '/' may end them
-                    step.add(s)
-                    if c == "/":
-                        step.add(s + 1)
-            if not step:
+            nxt = cache.get((states, c))
+            if nxt is None:
+                if len(cache) >= _STEP_CACHE:
+                    cache.clear()
+                nxt = cache[(states, c)] = self._step(states, c)
+            if not nxt:
                 return False
-            states = self._closure(step)
+            states = nxt
         return end in states
+
+    def _step(self, states: frozenset[int], c: str) -> frozenset[int]:
+        """The positions after reading ``c`` (memoised by ``match``: a path mostly repeats them)."""
+        tokens, end = self._tokens, len(self._tokens)
+        step: set[int] = set()
+        for s in states:
+            if s >= end:
+                continue
+            kind, arg = tokens[s]
+            if kind == _LIT:
+                if c == arg:
+                    step.add(s + 1)
+            elif kind == _ONE:
+                if c != "/":
+                    step.add(s + 1)
+            elif kind == _SET:
+                if _in_set(arg, c):
+                    step.add(s + 1)
+            elif kind == _STAR:
+                if c != "/":
+                    step.add(s)
+            elif kind == _ANY:
+                step.add(s)
+            elif kind == _IN_DIRS:  # inside the folders: a '/' may end them
+                step.add(s)
+                if c == "/":
+                    step.add(s + 1)
+        return self._closure(step) if step else frozenset()
 
     def __repr__(self) -> str:
         return f"Glob({self.pattern!r})"

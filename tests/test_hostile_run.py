@@ -170,6 +170,14 @@ def _reported(report: engine.Report, file: Path, words: str) -> None:
     assert "lora-scale-below-one" in others  # the other file's finding stays (alpha 8 < r 16)
 
 
+def test_deepspeed_path_to_a_fifo_or_a_device_is_not_opened(tmp_path):
+    os.mkfifo(tmp_path / "pipe.json")  # opening it would block until a writer comes
+    (tmp_path / "zero.json").symlink_to("/dev/zero")  # endless bytes
+    for target in ("pipe.json", "zero.json"):
+        good, bad = _pair(tmp_path, f"deepspeed: {target}\n")
+        _reported(engine.lint_paths([good, bad], Options()), bad, "not a regular file")
+
+
 @pytest.mark.parametrize("case", sorted(HOSTILE_LINKS))
 @pytest.mark.parametrize("jobs", [1, 2])
 def test_hostile_deepspeed_path_is_reported_for_its_file(tmp_path, case, jobs):
