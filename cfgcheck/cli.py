@@ -144,11 +144,9 @@ def _crash_boundary(command):
 
     @functools.wraps(command)
     def guarded(*args, **kwargs):
-        import click
-
         try:
             return command(*args, **kwargs)
-        except (typer.Exit, click.exceptions.Exit, click.ClickException, click.Abort):
+        except (typer.Exit, typer.Abort):  # the command's own way out
             raise
         except Exception as exc:
             if kwargs.get("debug"):
