@@ -22,6 +22,7 @@ from hypothesis import strategies as st
 from cfgcheck import api, baseline as baselinemod, engine, project as projectmod
 from cfgcheck.engine import Options
 from cfgcheck.findings import MAX_MAGNITUDE, printable
+from cfgcheck.knowledge.hardware import find_gpu
 from cfgcheck.load import load_text
 from cfgcheck.project import ProjectError, compile_glob
 from cfgcheck.view import build_view
@@ -384,8 +385,7 @@ BASE60 = LORA.replace("learning_rate: 2.0e-4", "learning_rate: 2.0e-4\nper_devic
 
 @pytest.mark.parametrize("text,key", [(HUGE_RANK, "lora_r"), (BASE60, "per_device_train_batch_size")])
 def test_huge_number_is_out_of_range_and_no_rule_fails(text, key):
-    report = engine.lint_text(text, "run.yaml", Options(gpu=__import__("cfgcheck").knowledge.hardware.find_gpu("a100-80gb"),
-                                                         rows=1000))
+    report = engine.lint_text(text, "run.yaml", Options(gpu=find_gpu("a100-80gb"), rows=1000))
     assert report.internal == []
     hits = [f for f in report.findings if f.rule == "value-outside-schema" and f.key == key]
     assert len(hits) == 1 and "-digit number" in hits[0].message
