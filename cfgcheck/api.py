@@ -16,7 +16,7 @@ from typing import Any, Callable, Iterable
 
 from . import engine
 from .engine import FileReport, Options, Report
-from .findings import Finding, Severity
+from .findings import MAX_MAGNITUDE, Finding, OptionError, Severity, number_text
 from .knowledge.hardware import find_gpu
 
 EXIT_CLEAN = 0
@@ -33,6 +33,11 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
     """The options a caller set explicitly, as engine values (None = not set).
     Raises UnknownGpu for a GPU name we do not know, OptionError for a bad severity (both are
     ValueErrors)."""
+    for name, value in (("gpus", gpus), ("rows", rows)):
+        if value is not None and (isinstance(value, bool) or not isinstance(value, int)
+                                  or not 1 <= value <= MAX_MAGNITUDE):
+            raise OptionError(f"{name} must be a whole number from 1 to {MAX_MAGNITUDE:,} (2**53), "
+                              f"not {number_text(value) if isinstance(value, int) else repr(value)[:40]}")
     return {
         "gpu": find_gpu(gpu) if gpu else None,
         "gpus": gpus,

@@ -24,7 +24,7 @@ from typing import Any, Iterable
 
 from .engine import Options, walk_paths
 from .load import dotted
-from .findings import Severity, printable
+from .findings import MAX_MAGNITUDE, Severity, printable
 from .waivers import ProjectWaiver
 
 YAML_NAME = "cfgcheck.yaml"
@@ -70,8 +70,8 @@ SCHEMA: dict[str, Any] = {
                 "properties": {
                     "paths": _GLOB_OR_GLOBS,
                     "gpu": {"type": "string", "minLength": 1},
-                    "gpus": {"type": "integer", "minimum": 1},
-                    "rows": {"type": "integer", "minimum": 1},
+                    "gpus": {"type": "integer", "minimum": 1, "maximum": MAX_MAGNITUDE},
+                    "rows": {"type": "integer", "minimum": 1, "maximum": MAX_MAGNITUDE},
                 },
             },
         },

@@ -534,3 +534,29 @@ def test_bad_option_values_stay_input_errors(tmp_path, args, words):
     result = cli("lint", "--no-project", *args, "a.yaml", cwd=tmp_path)
     no_traceback(result)
     assert result.returncode == 2 and words in result.stderr
+
+
+@pytest.mark.parametrize("flag,value", [("--gpus", str(10 ** 400)), ("--rows", str(2 ** 54))])
+def test_flag_numbers_past_the_range_are_input_errors(tmp_path, flag, value):
+    (tmp_path / "a.yaml").write_text(LORA)
+    for command in ("lint", "plan"):
+        result = cli(command, "--no-project", "--gpu", "t4", flag, value, "a.yaml", cwd=tmp_path)
+        no_traceback(result)
+        assert result.returncode == 2 and b"must be a whole number from 1 to" in result.stderr
+
+
+def test_flag_numbers_at_the_end_of_the_range_make_no_rule_fail():
+    text = "\n".join(f"{k}: {MAX_MAGNITUDE}" for k in (
+        "lora_r", "lora_alpha", "per_device_train_batch_size", "gradient_accumulation_steps",
+        "max_seq_length", "num_train_epochs", "warmup_steps", "save_steps", "eval_steps"))
+    text = "model_name_or_path: meta-llama/Llama-2-7b-hf\nuse_peft: true\nlearning_rate: 2.0e-4\n" + text + "\n"
+    report = api.lint_text(text, "run.yaml", gpu="t4", gpus=MAX_MAGNITUDE, rows=MAX_MAGNITUDE)
+    assert report.internal == []
+
+
+def test_project_profile_numbers_past_the_range_are_refused(tmp_path):
+    path = tmp_path / "cfgcheck.yaml"
+    path.write_text("profiles:\n  - paths: '**'\n    gpus: " + "9" * 30 + "\n")
+    with pytest.raises(ProjectError) as info:
+        projectmod.load(path)
+    assert [(p[1], p[2]) for p in info.value.problems] == [(3, 11)] and "maximum" in info.value.problems[0][3]
