@@ -423,6 +423,9 @@ def test_plan_of_a_huge_rank(tmp_path):
     out = cli("plan", "--no-project", str(tmp_path / "run.yaml"))
     no_traceback(out)
     assert out.returncode == 0
+    (tmp_path / "b60.yaml").write_text(BASE60)
+    plan = api.plan([tmp_path / "b60.yaml"], project=None).plans[0][1]
+    assert "batch.per_device out of range, set aside: the trainer default" in plan.assumptions
 
 
 # --------------------------------------------------------------------------- hints
