@@ -333,10 +333,10 @@ def test_save_baseline_with_odd_names_round_trips(tmp_path):
     assert again.returncode == 0 and summary["baselined"] > 0 and summary["warnings"] == 0
 
 
-def test_plan_with_odd_names(tmp_path):
+def test_derived_run_with_odd_names(tmp_path):
     folder = _odd_folder(tmp_path)
     for fmt in ("text", "json"):
-        result = cli("plan", "--no-project", "--format", fmt, str(folder))
+        result = cli("derive", "--no-project", "--format", fmt, str(folder))
         no_traceback(result)
         assert result.returncode == 0
         assert "caf\\udce9.yaml" in result.stdout.decode("utf-8")
@@ -361,7 +361,7 @@ def test_a_key_cannot_forge_a_finding_line(tmp_path, fmt):
     assert _forged_lines(out) == [] and "\x1b" not in out  # ... on the line of its own finding
 
 
-@pytest.mark.parametrize("command", [("lint",), ("lint", "--format", "github"), ("plan",)])
+@pytest.mark.parametrize("command", [("lint",), ("lint", "--format", "github"), ("derive",)])
 def test_a_file_name_cannot_forge_a_finding_line(tmp_path, command):
     name = f"a\n{FORGED}\n::error file=x.yaml,line=1::forged\x1b[2K.yaml"
     (tmp_path / name).write_text(LORA)
@@ -416,15 +416,15 @@ def test_the_range_ends_at_two_to_the_53():
         assert (f in view.out_of_range) is not usable
 
 
-def test_plan_of_a_huge_rank(tmp_path):
+def test_derived_run_of_a_huge_rank(tmp_path):
     (tmp_path / "run.yaml").write_text(HUGE_RANK)
-    result = api.plan([tmp_path / "run.yaml"], project=None, gpu="a100-80gb", rows=1000)
-    assert result.internal == [] and len(result.plans) == 1
-    out = cli("plan", "--no-project", str(tmp_path / "run.yaml"))
+    result = api.derive([tmp_path / "run.yaml"], project=None, gpu="a100-80gb", rows=1000)
+    assert result.internal == [] and len(result.runs) == 1
+    out = cli("derive", "--no-project", str(tmp_path / "run.yaml"))
     no_traceback(out)
     assert out.returncode == 0
     (tmp_path / "b60.yaml").write_text(BASE60)
-    plan = api.plan([tmp_path / "b60.yaml"], project=None).plans[0][1]
+    plan = api.derive([tmp_path / "b60.yaml"], project=None).runs[0][1]
     assert "batch.per_device out of range, set aside: the trainer default" in plan.assumptions
 
 
@@ -510,10 +510,10 @@ def test_a_bug_outside_the_rules_is_in_json_with_no_rule(tmp_path):
     assert [(e["file"], e["rule"]) for e in errors] == [("a.yaml", None)]
 
 
-@pytest.mark.parametrize("command", ["lint", "plan", "fix"])
+@pytest.mark.parametrize("command", ["lint", "derive", "fix"])
 def test_a_bug_in_the_command_itself_is_exit_3(tmp_path, command):
     (tmp_path / "a.yaml").write_text(LORA)
-    target = {"lint": "cfgcheck.render.render", "plan": "cfgcheck.api.plan", "fix": "cfgcheck.api.fix"}[command]
+    target = {"lint": "cfgcheck.render.render", "derive": "cfgcheck.api.derive", "fix": "cfgcheck.api.fix"}[command]
     code = (f"import cfgcheck.render, cfgcheck.api\nimport {target.rsplit('.', 1)[0]} as m\n"
             f"def boom(*a, **k): raise ValueError('injected')\nm.{target.rsplit('.', 1)[1]} = boom\n")
     result = cli(command, "--no-project", "a.yaml", cwd=tmp_path, code=code)
@@ -542,7 +542,7 @@ def test_bad_option_values_stay_input_errors(tmp_path, args, words):
 @pytest.mark.parametrize("flag,value", [("--gpus", str(10 ** 400)), ("--rows", str(2 ** 54))])
 def test_flag_numbers_past_the_range_are_input_errors(tmp_path, flag, value):
     (tmp_path / "a.yaml").write_text(LORA)
-    for command in ("lint", "plan"):
+    for command in ("lint", "derive"):
         result = cli(command, "--no-project", "--gpu", "t4", flag, value, "a.yaml", cwd=tmp_path)
         no_traceback(result)
         assert result.returncode == 2 and b"must be a whole number from 1 to" in result.stderr
