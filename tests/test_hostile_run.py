@@ -441,8 +441,7 @@ def test_hint_for_a_text_setting_says_to_quote_the_word(text, key, word):
            if f.rule == "yaml-version-dependent-value" and f.key == key]
     assert len(hit) == 1
     assert f'"{word}"' in hit[0].hint and "false" not in hit[0].hint and "true" not in hit[0].hint
-    assert hit[0].fix is None or hit[0].fix.tier == "changes-training"
-    assert all(e.new == word for e in (hit[0].fix.edits if hit[0].fix else ()))
+    assert hit[0].fix is None  # quoting changes what PyYAML readers get: not a meaning-keeping fix
 
 
 def test_hint_for_a_boolean_setting_says_the_boolean():

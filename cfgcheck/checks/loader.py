@@ -67,11 +67,9 @@ def yaml_version_dependent(ctx) -> None:
                 ctx.report(amb.path, "word-boolean", fix=fix, key=key, raw=amb.raw,
                            replacement=new)
             elif kind == "text":
-                # a text setting: the bare word is the boolean for PyYAML, so the quotes are
-                # the fix (it changes what PyYAML readers get: the text they were meant to get)
-                fix = Fix(tier="changes-training", summary=f"{key}: {amb.raw} -> \"{amb.raw}\"",
-                          edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.raw),))
-                ctx.report(amb.path, "word-boolean-text", fix=fix, key=key, raw=amb.raw, boolean=new)
+                # a text setting: PyYAML readers get the boolean, YAML 1.2 readers the text; no
+                # rewrite keeps both readings, so no fix: the hint says to quote it
+                ctx.report(amb.path, "word-boolean-text", key=key, raw=amb.raw, boolean=new)
             else:  # a setting cfgcheck does not type: say both, change nothing
                 ctx.report(amb.path, "word-boolean-unknown", key=key, raw=amb.raw,
                            replacement=new)
