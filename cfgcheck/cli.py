@@ -110,20 +110,14 @@ def _fail(message: str, code: int) -> None:
     raise typer.Exit(code)
 
 
-INPUT_ERRORS: tuple = ()  # filled on first use: the exceptions that are the user's input
-
-
 def _input_errors() -> tuple:
-    """The exceptions that mean "your input is wrong" (exit 2); anything else is our bug."""
-    global INPUT_ERRORS
-    if not INPUT_ERRORS:
-        from .baseline import BaselineError
-        from .findings import OptionError
-        from .knowledge.hardware import UnknownGpu
-        from .project import ProjectError
+    """The exceptions that mean "your input is wrong" (exit 2); anything else is our bug (exit 3)."""
+    from .baseline import BaselineError
+    from .findings import OptionError
+    from .knowledge.hardware import UnknownGpu
+    from .project import ProjectError
 
-        INPUT_ERRORS = (UnknownGpu, OptionError, ProjectError, BaselineError)
-    return INPUT_ERRORS
+    return (UnknownGpu, OptionError, ProjectError, BaselineError)
 
 
 def _input_message(exc: Exception) -> str:
@@ -155,8 +149,8 @@ def _crash_boundary(command):
             from .findings import printable
 
             e = internal_error("", None, exc)
-            _write_err(f"cfgcheck: internal error: {printable(e.error)} (a bug in cfgcheck; "
-                       "run again with --debug where the command has it, for the traceback)\n")
+            hint = "run again with --debug for the traceback" if "debug" in kwargs else "please report it"
+            _write_err(f"cfgcheck: internal error: {printable(e.error)} (a bug in cfgcheck; {hint})\n")
             raise typer.Exit(3) from None
 
     return guarded

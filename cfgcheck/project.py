@@ -140,7 +140,7 @@ _POSIX_CLASSES = {
     "xdigit": lambda c: c in "0123456789abcdefABCDEF",
 }
 
-_STEP_CACHE = 4096  # memoised steps per glob (position set, character); cleared when full
+_STEP_CACHE = 200_000  # positions held by one glob's memo of steps (a few MiB); cleared past it
 
 # token kinds of a compiled glob
 _LIT, _ONE, _SET, _STAR, _ANY, _DIRS, _IN_DIRS = range(7)
@@ -236,6 +236,7 @@ class Glob:
         self._tokens = tokens
         self._start = self._closure({0})
         self._steps: dict[tuple[frozenset[int], str], frozenset[int]] = {}
+        self._cached = 0
 
     def _closure(self, states: set[int]) -> frozenset[int]:
         """Add the positions reachable without reading a character."""
@@ -263,9 +264,12 @@ class Glob:
         for c in path:
             nxt = cache.get((states, c))
             if nxt is None:
-                if len(cache) >= _STEP_CACHE:
+                nxt = self._step(states, c)
+                self._cached += len(states) + len(nxt)
+                if self._cached > _STEP_CACHE:  # bounded memory: start the memo afresh
                     cache.clear()
-                nxt = cache[(states, c)] = self._step(states, c)
+                    self._cached = 0
+                cache[(states, c)] = nxt
             if not nxt:
                 return False
             states = nxt
