@@ -140,7 +140,7 @@ def measure(arch: Architecture, setup: Setup, *, batch: int, seq: int, checkpoin
             model = peft.get_peft_model(model, peft.LoraConfig(
                 r=4, lora_alpha=8, target_modules="all-linear", modules_to_save=list(setup.save) or None))
     if checkpointing:
-        model.gradient_checkpointing_enable(gradient_checkpointing_kwargs={"use_reentrant": True})
+        model.activation_checkpointing_enable(activation_checkpointing_kwargs={"use_reentrant": True})
     model.train()
     inner = model.base_model.model if setup.method == "lora" else model
     layers = list(inner.model.layers)
