@@ -160,3 +160,15 @@ def test_zero_stages_of_the_papers_example_through_plan(tmp_path):
         ((_, plan),) = api.plan([_zero_run(tmp_path, stage)], gpu="t4", gpus=64).plans
         got.append(round(_states(plan.memory) / 1e9, 1))
     assert got == [e for _s, e in ZERO_FIG1]
+
+
+def test_unmodelled_optimizer_is_not_estimated_rather_than_an_error(tmp_path):
+    # GaLore keeps low-rank projected states (transformers OptimizerNames "galore_adamw"): AdamW's
+    # arithmetic would be a made-up figure, so the memory rule says it did not judge
+    cfg = tmp_path / "galore.yaml"
+    cfg.write_text(FULL_7B + "optim: galore_adamw\n")
+    ((_, plan),) = api.plan([cfg], gpu="rtx-4090").plans
+    assert plan.memory is None and "not modelled" in plan.memory_problem
+    rep = api.lint([cfg], gpu="rtx-4090")
+    hits = [f for f in rep.findings if f.rule == "memory-exceeds-gpu"]
+    assert hits and all(f.severity == Severity.INFO for f in hits) and "not modelled" in hits[0].message

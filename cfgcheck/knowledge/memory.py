@@ -11,10 +11,16 @@ Pure arithmetic, no torch. Every coefficient carries its basis, and the notes of
   = 0.127 bit/param;
 * activations: the per-layer formula sbh(34 + 5as/h) of Korthikanti et al. 2022 (Eq. 1, Table 2)
   for GPT-style layers; for the gated-MLP, RMSNorm, grouped-query layers modelled here our own
-  derivation (see :func:`layer_activation_bytes`), checked against the tensors torch 2.13 saves
-  for backward in transformers 5.x models (tests/reference);
-* logits: our own derivation from transformers' ForCausalLMLoss, which upcasts the logits to
-  fp32 before cross_entropy.
+  derivation (see :func:`layer_activation_bytes`), per dtype regime (fp32, 16-bit, autocast over
+  fp32 weights) and with checkpointing, measured with saved-tensor hooks on torch 2.13 (CPU) in
+  transformers 5.x models (tests/reference/test_memory_measured.py, bench/MEMORY.md);
+* autocast's 16-bit weight copies: the casts its matmuls save for backward (measured, same test);
+* logits: the transient peak of vocabulary-wide tensors, at the start of backward (logits, the
+  fp32 log-softmax that cross_entropy saves after transformers' ForCausalLMLoss upcast, and two
+  fp32 gradients; measured, same test).
+
+Optimizers whose states are not a fixed number of bytes per parameter raise
+:class:`NotEstimated`: no figure rather than AdamW's.
 
 GB below means 1e9 bytes (the ZeRO paper's arithmetic); GiB means 2**30.
 """
