@@ -112,8 +112,12 @@ def _storage(view: RunView, arch: Architecture | None, method: str, plan: Plan) 
             word = arch.torch_dtype.lower()
         if word in _DTYPES:
             return _DTYPES[word]
-    if dtype is None and method != "full":
+    if dtype is None and method != "full" and not (arch is not None and arch.torch_dtype):
         return "bf16" if (view.is_on("precision.bf16") or not view.is_on("precision.fp16")) else "fp16"
+    if dtype is not None:
+        plan.load_note = f"torch_dtype {dtype!r} not understood: weights loaded in fp32 assumed"
+        plan.assumptions.append(plan.load_note)
+        return "fp32"
     return _default_load_storage(arch, plan)
 
 
