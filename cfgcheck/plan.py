@@ -114,7 +114,7 @@ def _storage(view: RunView, arch: Architecture | None, method: str, plan: Plan) 
             return _DTYPES[word]
     if dtype is None and method != "full" and not (arch is not None and arch.torch_dtype):
         return "bf16" if (view.is_on("precision.bf16") or not view.is_on("precision.fp16")) else "fp16"
-    if dtype is not None:
+    if dtype is not None and str(dtype).strip().lower() != "auto":
         plan.load_note = f"torch_dtype {dtype!r} not understood: weights loaded in fp32 assumed"
         plan.assumptions.append(plan.load_note)
         return "fp32"
