@@ -23,8 +23,8 @@ FULL_7B = ("model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 2.0e-5\
 def test_full_7b_on_one_24gb_card_is_an_error(tmp_path):
     cfg = tmp_path / "full7b.yaml"
     cfg.write_text(FULL_7B)
-    result = api.plan([cfg], gpu="rtx-4090")
-    ((_, plan),) = result.plans
+    result = api.derive([cfg], gpu="rtx-4090")
+    ((_, plan),) = result.runs
     # no torch_dtype: transformers 5 loads the checkpoint's dtype (from_pretrained dtype=None -> "auto";
     # Llama-2-7b-hf's config.json says float16), and torch's AdamW keeps its states in that dtype:
     # 2 + 2 + 2 x 2 = 8 bytes/param x 6,738,415,616 params = 53.9 GB (Llama-2-7b count from
@@ -44,9 +44,9 @@ def test_full_7b_on_one_24gb_card_is_an_error(tmp_path):
 def test_plan_json_has_the_documented_numbers(tmp_path):
     cfg = tmp_path / "full7b.yaml"
     cfg.write_text(FULL_7B)
-    r = runner.invoke(app, ["plan", str(cfg), "--gpu", "a100-80gb", "--rows", "1000", "--format", "json"])
+    r = runner.invoke(app, ["derive", str(cfg), "--gpu", "a100-80gb", "--rows", "1000", "--format", "json"])
     assert r.exit_code == 0, r.output
-    (p,) = json.loads(r.output)["plans"]
+    (p,) = json.loads(r.output)["runs"]
     assert p["total_parameters"] == 6_738_415_616 == p["trainable_parameters"]
     # 1,000 rows, per-device 1, accumulation 16, 1 GPU -> effective batch 16, ceil(1000/16) = 63 steps
     # per epoch (transformers Trainer rounding), 3 epochs (trainer default) -> 189 steps
@@ -61,14 +61,14 @@ def test_full_7b_loaded_in_fp32_is_16_bytes_per_parameter(tmp_path):
     # 107.8 GB of model states (ZeRO paper sec. 3.1) before activations
     cfg = tmp_path / "full7b32.yaml"
     cfg.write_text(FULL_7B + "torch_dtype: float32\n")
-    ((_, plan),) = api.plan([cfg], gpu="a100-80gb").plans
+    ((_, plan),) = api.derive([cfg], gpu="a100-80gb").runs
     m = plan.memory
     assert m.weights_bytes + m.gradients_bytes + m.optimizer_bytes + m.master_weights_bytes == 16 * 6_738_415_616
     assert m.weight_copies_bytes > 0 and m.total_bytes > 100e9
 
 
 def test_plan_text_shows_bars_and_verdict():
-    r = runner.invoke(app, ["plan", str(ROOT / "fixtures" / "demo" / "fjordline-full-7b.yaml"), "--gpu", "t4", "--rows", "1000"])
+    r = runner.invoke(app, ["derive", str(ROOT / "fixtures" / "demo" / "fjordline-full-7b.yaml"), "--gpu", "t4", "--rows", "1000"])
     assert r.exit_code == 0
     assert "DOES NOT FIT" in r.output and "#" in r.output and "config.json" in r.output
 
@@ -153,11 +153,11 @@ def test_zero_stages_of_the_papers_example_through_lint(tmp_path):
             assert not hits, stage
 
 
-@pytest.mark.xfail(strict=True, reason="cfgcheck plan does not attach the linked DeepSpeed file yet")
-def test_zero_stages_of_the_papers_example_through_plan(tmp_path):
+@pytest.mark.xfail(strict=True, reason="cfgcheck derive does not attach the linked DeepSpeed file yet")
+def test_zero_stages_of_the_papers_example_through_derive(tmp_path):
     got = []
     for stage, _expected in ZERO_FIG1:
-        ((_, plan),) = api.plan([_zero_run(tmp_path, stage)], gpu="t4", gpus=64).plans
+        ((_, plan),) = api.derive([_zero_run(tmp_path, stage)], gpu="t4", gpus=64).runs
         got.append(round(_states(plan.memory) / 1e9, 1))
     assert got == [e for _s, e in ZERO_FIG1]
 
@@ -167,7 +167,7 @@ def test_unmodelled_optimizer_is_not_estimated_rather_than_an_error(tmp_path):
     # arithmetic would be a made-up figure, so the memory rule says it did not judge
     cfg = tmp_path / "galore.yaml"
     cfg.write_text(FULL_7B + "optim: galore_adamw\n")
-    ((_, plan),) = api.plan([cfg], gpu="rtx-4090").plans
+    ((_, plan),) = api.derive([cfg], gpu="rtx-4090").runs
     assert plan.memory is None and "not modelled" in plan.memory_problem
     rep = api.lint([cfg], gpu="rtx-4090")
     hits = [f for f in rep.findings if f.rule == "memory-exceeds-gpu"]
