@@ -420,3 +420,16 @@ def test_optimizer_class_paths_map_onto_the_modelled_names():
     base = MemoryInputs(arch=LLAMA7, method="full")
     assert estimate_memory(replace(base, optimizer="bitsandbytes.optim.PagedAdamW8bit")).optimizer_bytes == \
         estimate_memory(replace(base, optimizer="paged_adamw_8bit")).optimizer_bytes
+
+
+def test_lora_under_deepspeed_keeps_16bit_adapters_with_fp32_masters():
+    # DeepSpeed's bf16 engine casts the adapters with the module and keeps an fp32 master copy and fp32
+    # Adam states for what trains: 2 + 2 + 4 + 8 = 16 bytes per adapter parameter (ZeRO paper sec. 3.1),
+    # the same 16 as PEFT's fp32 adapters outside DeepSpeed (4 + 4 + 8), split differently
+    inp = MemoryInputs(arch=LLAMA7, method="lora", lora_targets=["q_proj", "v_proj"], lora_rank=8,
+                       base_storage="bf16", mixed_precision="bf16", num_gpus=1, sharding="zero0")
+    ds = estimate_memory(inp)
+    plain = estimate_memory(replace(inp, sharding="none"))
+    t = 4_194_304  # LoRA paper sec. 5.1: 2 x 64 x 4096 x 8
+    assert ds.master_weights_bytes == 4 * t and ds.gradients_bytes == 2 * t
+    assert model_states(ds) == model_states(plain) == 2 * N7 + 16 * t

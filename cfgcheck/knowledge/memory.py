@@ -86,7 +86,8 @@ class MemoryInputs:
     ``mixed_precision`` set means the ZeRO-paper recipe: 16-bit compute with fp32 master weights
     and fp32 optimizer states. How common setups map onto the fields:
 
-    * transformers Trainer, model loaded in fp32 (no torch_dtype), ``bf16: true``: base_storage
+    * transformers Trainer, model loaded in fp32 (``torch_dtype: float32``, or no torch_dtype under
+      transformers 4; transformers 5 loads the checkpoint's dtype), ``bf16: true``: base_storage
       "fp32", mixed_precision "bf16" -> 4 + 4 + 8 = 16 B/param with AdamW, 16-bit activations;
     * transformers Trainer, model loaded in bf16 (``torch_dtype: bfloat16``), ``bf16: true``: the
       weights stay bf16 and torch's AdamW keeps bf16 states, no master copy: base_storage "bf16",
