@@ -72,3 +72,79 @@ def test_only_the_cli_exits_or_touches_argv():
             if word in text:
                 offenders.append(f"{path.name}: {word}")
     assert offenders == []
+
+
+# --------------------------------------------------------------------------- layouts carry their meaning
+
+def _is_layout_name(node: ast.AST, aliases: set[str]) -> bool:
+    """``x.layout.name``, ``layout.name``, ``lay.name`` or a variable assigned from one."""
+    if isinstance(node, ast.Name):
+        return node.id in aliases
+    if isinstance(node, ast.Attribute) and node.attr == "name":
+        owner = node.value
+        if isinstance(owner, ast.Name):
+            return owner.id in ("layout", "lay") or owner.id.endswith("_layout")
+        if isinstance(owner, ast.Attribute):
+            return owner.attr == "layout"
+    if isinstance(node, ast.IfExp):
+        return _is_layout_name(node.body, aliases) or _is_layout_name(node.orelse, aliases)
+    return False
+
+
+def _names_a_layout(node: ast.AST, names: set[str]) -> bool:
+    """A string constant that is some layout's name, or a tuple/list/set of only such names."""
+    if isinstance(node, ast.Constant):
+        return isinstance(node.value, str) and node.value in names
+    if isinstance(node, (ast.Tuple, ast.List, ast.Set)):
+        return bool(node.elts) and all(_names_a_layout(e, names) for e in node.elts)
+    return False
+
+
+def layout_name_tests(source: str, layout_names: set[str]) -> list[int]:
+    """Lines where code decides something by a layout's name instead of its attributes."""
+    tree = ast.parse(source)
+    found: list[int] = []
+    for fn in [tree] + [n for n in ast.walk(tree) if isinstance(n, (ast.FunctionDef, ast.AsyncFunctionDef))]:
+        aliases: set[str] = set()
+        for node in ast.walk(fn):
+            if isinstance(node, ast.Assign) and _is_layout_name(node.value, set()):
+                aliases.update(t.id for t in node.targets if isinstance(t, ast.Name))
+        consts: set[str] = set()  # module constants holding layout names: _X = ("trainer", ...)
+        for node in ast.walk(fn):
+            if isinstance(node, ast.Assign) and _names_a_layout(node.value, layout_names):
+                consts.update(t.id for t in node.targets if isinstance(t, ast.Name))
+        for node in ast.walk(fn):
+            if not isinstance(node, ast.Compare):
+                continue
+            operands = [node.left, *node.comparators]
+            if any(_is_layout_name(o, aliases) for o in operands) or \
+                    any(_names_a_layout(o, layout_names) or
+                        (isinstance(o, ast.Name) and o.id in consts) for o in operands):
+                found.append(node.lineno)
+    return sorted(set(found))
+
+
+def test_no_rule_or_module_tests_a_layout_by_its_name():
+    from cfgcheck.layouts import LAYOUTS
+
+    names = {lay.name for lay in LAYOUTS}
+    offenders = []
+    for path in sorted(PKG.rglob("*.py")):
+        if path.name == "layouts.py":
+            continue  # the layout definitions themselves
+        for line in layout_name_tests(path.read_text(), names):
+            offenders.append(f"{path.relative_to(PKG)}:{line}")
+    assert offenders == [], "decide by a Layout attribute, not its name: " + ", ".join(offenders)
+
+
+def test_the_layout_name_test_finder_finds_each_spelling():
+    names = {"trainer", "axolotl", "llama-factory"}
+    src = (
+        "_HF = ('trainer', 'llama-factory')\n"
+        "def a(view):\n    return view.layout.name == 'axolotl'\n"
+        "def b(view):\n    layout = view.layout.name if view.layout else ''\n    return layout in _HF\n"
+        "def c(lay):\n    return lay.name != 'trainer'\n"
+        "def d(view):\n    return view.layout.trainer_defaults\n"
+        "def e(view):\n    return f'{view.layout.name} names'\n"
+    )
+    assert layout_name_tests(src, names) == [3, 6, 8]

@@ -11,7 +11,7 @@ _WORDS = {"below": "below the minimum", "not-above": "not above", "at-or-above":
 @check("value-outside-schema")
 def value_outside_schema(ctx) -> None:
     view = ctx.view
-    layout = view.layout.name if view.layout is not None else None
+    layout = view.layout  # its word lists decide which accepted-word checks apply
     ambiguous = {a.path for a in ctx.doc.ambiguities}  # yaml-version-dependent-value says it
     for name, f in view.fields.items():
         if f.value is None or f.auto or f.path in ambiguous:

@@ -22,8 +22,8 @@ def unknown_key(ctx) -> None:
     if view.layout is None:
         return
     keys = _keys_module()
-    layout = view.layout.name
-    if layout not in keys.layouts():
+    layout = view.layout.key_table  # the key table of the layout's libraries
+    if layout is None or layout not in keys.layouts():
         return
     groups = keys._data()["by_parent"][layout]
     sections = view.layout.sections
