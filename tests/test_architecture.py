@@ -148,3 +148,43 @@ def test_the_layout_name_test_finder_finds_each_spelling():
         "def e(view):\n    return f'{view.layout.name} names'\n"
     )
     assert layout_name_tests(src, names) == [3, 6, 8]
+
+
+def _findings_under(layout, text: str, fmt: str = "yaml", **opts):
+    from cfgcheck import view as viewmod
+    from cfgcheck.engine import FileReport, Options, lint_view
+    from cfgcheck.knowledge.hardware import find_gpu
+    from cfgcheck.load import load_text
+
+    doc = load_text(text, "case." + fmt, fmt)[0]
+    v = viewmod.RunView(doc=doc, layout=layout)
+    viewmod.fill(v, layout, doc.data)
+    viewmod._infer_method(v)
+    options = Options(gpu=find_gpu(opts["gpu"]) if "gpu" in opts else None, rows=opts.get("rows"))
+    report = FileReport(file="case." + fmt)
+    lint_view(v, options, "case." + fmt, report)
+    return sorted((f.rule, f.key, f.data.get("variant")) for f in report.findings)
+
+
+def test_a_renamed_layout_lints_like_the_original():
+    """A layout is its attributes: the same table under another name gives the same findings."""
+    import dataclasses
+
+    from cfgcheck.layouts import AXOLOTL, LLAMA_FACTORY, TORCHTUNE, TRAINER
+
+    cases = [
+        (TRAINER, "learning_rate: 2.0e-5\nlr_scheduler_type: constant\nwarmup_ratio: 0.1\n"
+                  "load_best_model_at_end: true\neval_strategy: steps\nbf16: true\n"
+                  "per_device_train_batch_size: 4\nnum_train_epochs: 1\nmax_steps: 10\n", {"gpu": "t4"}),
+        (LLAMA_FACTORY, "finetuning_type: lora\nlora_target: q_proj,v_proj\nlora_rank: 8\n"
+                        "lr_scheduler_type: constant\nwarmup_steps: 10\ncutoff_len: 1024\n", {}),
+        (AXOLOTL, "adapter: qlora\nlora_r: 8\nlora_alpha: 16\nload_in_4bit: true\n"
+                  "peft_init_lora_weights: loftq\nsample_packing: true\nmicro_batch_size: 2\n", {}),
+        (TORCHTUNE, "model:\n  _component_: torchtune.models.llama2.lora_llama2_7b\n  lora_rank: 8\n"
+                    "  lora_alpha: 16\ndataset:\n  packed: true\ndtype: bf16\nbatch_size: 2\n", {"gpu": "t4"}),
+    ]
+    for layout, text, opts in cases:
+        renamed = dataclasses.replace(layout, name="acme-runner")
+        original = _findings_under(layout, text, **opts)
+        assert original, layout.name  # each case says something, so the comparison means something
+        assert _findings_under(renamed, text, **opts) == original, layout.name
