@@ -34,8 +34,8 @@ def test_alpha_below_rank_message_states_the_scale():
     (f,) = findings("use_peft: true\nlora_r: 16\nlora_alpha: 8\n", "lora-scale-below-one")
     assert f.severity == Severity.WARNING and f.key == "lora_alpha" and (f.line, f.column) == (3, 13)
     assert "lora_alpha 8 < r 16" in f.message and "scale 0.5" in f.message
-    assert f.data["scale"] == 0.5 and f.data["new_alpha"] == 32  # target alpha = 2r (common practice, no source)
-    assert "32" in f.hint
+    assert f.data["scale"] == 0.5 and f.data["new_alpha"] == 16  # alpha = r: scale 1 (LoRA paper App. D)
+    assert "16" in f.hint and "no learning rate is written" in f.message
 
 
 def test_guanaco_recipe_scale_is_flagged_with_its_numbers():
