@@ -25,7 +25,12 @@ def _written_lr(view):
 
 
 def _g(x: float) -> str:
-    return f"{x:.3g}"
+    """3 significant digits, exponents without a leading zero (2e-05 -> 2e-5)."""
+    text = f"{x:.3g}"
+    if "e" in text:
+        mant, exp = text.split("e")
+        text = f"{mant}e{int(exp)}"
+    return text
 
 
 @check("lora-scale-below-one")
@@ -65,18 +70,18 @@ def lora_scale_below_one(ctx) -> None:
     if step is not None and step >= floor:
         # a tuned recipe: the learning rate makes up for the small scale. Moving alpha alone would
         # multiply every step by 1/scale; the paired change keeps lr x scale.
-        new_lr = float(f"{step / new_scale:.6g}")
+        new_lr = float(f"{step / new_scale:.6g}")  # lr x scale kept: new_lr x new_scale = step
         fix = None
         if lr_f is not None and lr_f.origin == "written" and lr_f.path[:1] and \
                 view.doc.get(lr_f.path) is not None:
             fix = Fix(tier="changes-training",
-                      summary=(f"{alpha_f.key}: {alpha:g} -> {new_alpha} and {lr_f.key}: {lr:g} -> "
-                               f"{new_lr:g} (adapter scale {scale:.3g} -> {new_scale:.3g}; "
+                      summary=(f"{alpha_f.key}: {alpha:g} -> {new_alpha} and {lr_f.key}: {_g(lr)} -> "
+                               f"{_g(new_lr)} (adapter scale {scale:.3g} -> {new_scale:.3g}; "
                                f"the paired learning rate keeps lr x scale at {_g(step)})"),
                       edits=(Edit(path=alpha_f.path, old=alpha_f.written, new=new_alpha),
                              Edit(path=lr_f.path, old=lr_f.written, new=new_lr)))
         ctx.report(alpha_f, "compensated", fix=fix, lr_key=lr_f.leaf, lr=_g(lr), step=_g(step),
-                   floor=_g(floor), new_lr=f"{new_lr:g}", **common)
+                   floor=_g(floor), new_lr=_g(new_lr), **common)
         return
     hidden = None
     arch = ctx.model() if rslora else None

@@ -84,6 +84,8 @@ def render(report, visible, *, hidden_info: int = 0, color: bool = False,
             continue
         if frames is not None and f.file in frames:
             lines.extend(frame(frames[f.file], f.line, f.column, color))
+        for r in getattr(f, "related", ()):
+            lines.append(f"    also: {_paint(f'{f.file}:{r.line}:{r.column}:', 'where', color)} {r.key}")
         if f.hint:
             lines.append(f"    {_paint('hint', 'hint', color)}: {f.hint}")
     for e in report.internal:
