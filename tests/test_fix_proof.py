@@ -106,7 +106,7 @@ def test_cli_diff_writes_nothing_and_no_write_exits_one(tmp_path):
 
 def test_cli_training_tier_and_halving(tmp_path):
     p = tmp_path / "run.yaml"
-    p.write_text(TEXT + "chat_template: \"<|turn|>\"\nper_device_train_batch_size: 8\n"
+    p.write_text(TEXT + "added_tokens: [\"<|turn|>\"]\nper_device_train_batch_size: 8\n"
                  "gradient_accumulation_steps: 2\n")
     out = _cli("fix", "--allow-training-changes", "--halve-batch", "--gpu", "t4", p)
     assert out.exit_code == 0, out.output
