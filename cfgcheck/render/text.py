@@ -92,5 +92,8 @@ def render(report, visible, *, hidden_info: int = 0, color: bool = False,
         lines.append(f"{e.file}: internal error in rule {e.rule}: {e.error} (a bug in cfgcheck; "
                      "the other rules ran)")
     if mode != "quiet":
+        from .notes import lines as note_lines  # "not checked" notes, counted per run
+
+        lines.extend(f"cfgcheck: {line}" for line in note_lines(report.findings))
         lines.append(_paint(summary_line(report, hidden_info), "summary", color))
     return "\n".join(lines) + "\n" if lines else ""
