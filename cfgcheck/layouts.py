@@ -76,8 +76,6 @@ class Layout:
     # "loads-weights" (the fp16 flag also loads the weights as float16, so a full fine-tune
     # cannot use it), "refused" (the runner refuses fp16 training: bf16 or fp32 only)
     fp16_mode: str = "autocast"
-    # the words the layout's precision/dtype setting uses for fp16 and fp32 ("" : not settable)
-    dtype_words: tuple[str, str] = ("float16", "float32")
 
     @property
     def has_bare_names(self) -> bool:
@@ -522,9 +520,8 @@ TORCHTUNE = Layout(
     # torchtune builds a block-causal mask for packed samples (datasets/_packed.py)
     packing_masks_boundaries=True,
     # its recipes raise "full fp16 training is not supported with this recipe. Please use bf16
-    # or fp32 instead." (recipes/full_finetune_*.py, lora_finetune_*.py); dtype words bf16 | fp32
+    # or fp32 instead." (recipes/full_finetune_*.py, lora_finetune_*.py)
     fp16_mode="refused",
-    dtype_words=("fp16", "fp32"),
     method_patterns=((r"(^|\.)qlora_", "qlora"), (r"(^|\.)lora_", "lora")),
     module_names={"q_proj": "q_proj", "k_proj": "k_proj", "v_proj": "v_proj",
                   "output_proj": "o_proj"},

@@ -188,3 +188,19 @@ def test_a_renamed_layout_lints_like_the_original():
         original = _findings_under(layout, text, **opts)
         assert original, layout.name  # each case says something, so the comparison means something
         assert _findings_under(renamed, text, **opts) == original, layout.name
+
+
+def test_layout_attributes_hold_known_words():
+    from cfgcheck.knowledge import keys
+    from cfgcheck.layouts import LAYOUTS
+    from cfgcheck.schema import CONSTRAINTS
+
+    lists = {c.word_list for cs in CONSTRAINTS.values() for c in cs if c.word_list}
+    for lay in LAYOUTS:
+        assert lay.role in ("run", "engine", "launch", "adapter"), lay.name
+        assert lay.fp16_mode in ("autocast", "loads-weights", "refused"), lay.name
+        assert lay.targets_text in ("regex", "comma-list", "comma-list-or-regex"), lay.name
+        assert lay.word_lists <= lists, lay.name
+        assert lay.key_table is None or lay.key_table in keys.layouts(), lay.name
+        assert set(lay.method_values.values()) <= {"full", "lora", "qlora", "partial"}, lay.name
+        assert lay.default_method in (None, "full", "lora", "qlora"), lay.name
