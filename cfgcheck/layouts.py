@@ -429,6 +429,8 @@ LLAMA_FACTORY = Layout(
     trainer_schedule=True,
     word_lists=frozenset({"transformers-arguments", "transformers-strategies"}),
     targets_text="comma-list",  # lora_target: "q_proj,v_proj" is split on commas
+    # fp16_mode stays "autocast": model/adapter.py _setup_full_tuning casts the trainable
+    # parameters to fp32 (cast_trainable_params_to_fp32, off only with pure_bf16)
     fields={
         "method": ("finetuning_type",),
         "model.ref": ("model_name_or_path",),
