@@ -119,3 +119,10 @@ def test_fixed_trainer_file_is_accepted_by_training_arguments(tmp_path):
     data.pop("torch_dtype")  # a model argument, not a TrainingArguments field
     args = transformers.TrainingArguments(output_dir=str(tmp_path), **data)
     assert args.fp16 is True and args.bf16 is False
+
+
+def test_adapter_that_trains_whole_modules_gets_fp32_weights():
+    # modules_to_save copies train in the base's dtype: fp16 copies cannot be unscaled
+    data = _fixed("torch_dtype: bfloat16\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
+                  "lora_modules_to_save: [embed_tokens, lm_head]\nlearning_rate: 2.0e-4\nbf16: true\n")
+    assert (data["torch_dtype"], data["bf16"], data["fp16"]) == ("float32", False, True)

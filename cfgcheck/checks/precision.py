@@ -84,10 +84,18 @@ def _trains_weights(view) -> bool:
     return not view.is_adapter and view.layout is not None and view.layout.role == "run"
 
 
+def _trains_full_modules(view) -> bool:
+    """An adapter run that also trains whole modules (modules_to_save): PEFT copies them in the
+    base's dtype, so with fp16 weights their gradients are fp16 and cannot be unscaled (axolotl
+    issue 1031: the crash appeared once lora_modules_to_save listed embed_tokens and lm_head)."""
+    f = view.get("adapter.save_modules")
+    return view.is_adapter and f is not None and bool(f.value)
+
+
 def _bf16_fix(view, fields, gpu):
     """One fix for every place that asks for bf16: a config the runner then trains."""
     plan, _why = _half_plan(view)
-    full = _trains_weights(view)
+    full = _trains_weights(view) or _trains_full_modules(view)
     edits: list[Edit] = []
     words: list[str] = []
     turned_fp16 = False
@@ -171,7 +179,7 @@ def precision_vs_gpu(ctx) -> None:
                 how = (f"{dt.key}: {_dtype_word(dt.written, 32)}" if dt is not None
                        and isinstance(dt.written, str) else "bf16 off, fp16 left off")
                 suits = f"train in fp32 ({how}): {why}"
-            elif not _trains_weights(view):
+            elif not (_trains_weights(view) or _trains_full_modules(view)):
                 suits = "use fp16 mixed precision (with loss scaling) on this card"
             else:
                 suits = ("use fp16 mixed precision with the weights in fp32 on this card "
