@@ -100,7 +100,14 @@ def _names_a_layout(node: ast.AST, names: set[str]) -> bool:
     return False
 
 
-def layout_name_tests(source: str, layout_names: set[str]) -> list[int]:
+def _is_layout_object(node: ast.AST, objects: set[str]) -> bool:
+    """``TRAINER`` or ``layouts.TRAINER``: a layout compared by identity is a name test too."""
+    if isinstance(node, ast.Name):
+        return node.id in objects
+    return isinstance(node, ast.Attribute) and node.attr in objects
+
+
+def layout_name_tests(source: str, layout_names: set[str], objects: set[str] = frozenset()) -> list[int]:
     """Lines where code decides something by a layout's name instead of its attributes."""
     tree = ast.parse(source)
     found: list[int] = []
@@ -117,7 +124,7 @@ def layout_name_tests(source: str, layout_names: set[str]) -> list[int]:
             if not isinstance(node, ast.Compare):
                 continue
             operands = [node.left, *node.comparators]
-            if any(_is_layout_name(o, aliases) for o in operands) or \
+            if any(_is_layout_name(o, aliases) or _is_layout_object(o, objects) for o in operands) or \
                     any(_names_a_layout(o, layout_names) or
                         (isinstance(o, ast.Name) and o.id in consts) for o in operands):
                 found.append(node.lineno)
@@ -125,14 +132,15 @@ def layout_name_tests(source: str, layout_names: set[str]) -> list[int]:
 
 
 def test_no_rule_or_module_tests_a_layout_by_its_name():
-    from cfgcheck.layouts import LAYOUTS
+    from cfgcheck import layouts
 
-    names = {lay.name for lay in LAYOUTS}
+    names = {lay.name for lay in layouts.LAYOUTS}
+    objects = {k for k, v in vars(layouts).items() if isinstance(v, layouts.Layout)}
     offenders = []
     for path in sorted(PKG.rglob("*.py")):
         if path.name == "layouts.py":
             continue  # the layout definitions themselves
-        for line in layout_name_tests(path.read_text(), names):
+        for line in layout_name_tests(path.read_text(), names, objects):
             offenders.append(f"{path.relative_to(PKG)}:{line}")
     assert offenders == [], "decide by a Layout attribute, not its name: " + ", ".join(offenders)
 
@@ -146,8 +154,9 @@ def test_the_layout_name_test_finder_finds_each_spelling():
         "def c(lay):\n    return lay.name != 'trainer'\n"
         "def d(view):\n    return view.layout.trainer_defaults\n"
         "def e(view):\n    return f'{view.layout.name} names'\n"
+        "def f(view):\n    return view.layout is TRAINER\n"
     )
-    assert layout_name_tests(src, names) == [3, 6, 8]
+    assert layout_name_tests(src, names, {"TRAINER"}) == [3, 6, 8, 14]
 
 
 def _findings_under(layout, text: str, fmt: str = "yaml", **opts):

@@ -220,3 +220,12 @@ def test_exponent_rewrite_is_a_float_in_both_yaml_versions(raw, fixed):
 
 def test_version_dependent_value_not_reported_in_json():
     assert found('{"learning_rate": 1e-4, "per_device_train_batch_size": 4}', "a.json") == []
+
+
+def test_added_tokens_the_base_already_holds_need_no_new_rows():
+    # Qwen2.5's tokenizer already holds <|im_start|> and <|im_end|> (added_tokens 151644/151645)
+    text = ("model_name_or_path: Qwen/Qwen2.5-7B\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
+            "additional_special_tokens: ['<|im_start|>', '<|im_end|>']\n")
+    assert findings(text, "chat-format-untrained-embeddings") == []
+    (f,) = findings(text.replace("'<|im_end|>'", "'<|tool|>'"), "chat-format-untrained-embeddings")
+    assert f.data["count"] == 1 and f.data["tokens"] == "<|tool|>"
