@@ -122,7 +122,8 @@ def _bf16_fix(view, fields, gpu):
         elif isinstance(f.written, str):
             # the weights: fp32 where a full fine-tune trains them (fp16 master weights cannot be
             # unscaled), or where the runner refuses fp16; fp16 for frozen adapter bases
-            bits = 32 if plan == "fp32" or (f.name == "model.dtype" and full) else 16
+            # (the 4-bit compute dtype stays 16-bit: fp32 compute is what quant-compute-dtype-fp32 flags)
+            bits = 32 if f.name == "model.dtype" and (plan == "fp32" or full) else 16
             new = _dtype_word(f.written, bits)
             edits.append(Edit(path=f.path, old=f.written, new=new))
             words.append(f"{f.key}: {f.written} -> {new}")
