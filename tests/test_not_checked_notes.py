@@ -87,3 +87,17 @@ def test_a_finding_about_a_value_is_never_a_note():
     report = api.lint_text("use_peft: true\nlora_r: 16\nlora_alpha: 8\n", "x.yaml")
     assert [f.rule for f in report.findings if not notes.is_note(f) and f.severity.word == "warning"] == \
         ["lora-scale-below-one"]
+
+
+def test_a_linked_file_reason_groups_across_file_names():
+    from types import SimpleNamespace as NS
+
+    def note(file, linked):
+        return NS(rule="deepspeed-file-contradicts-config", file=file,
+                  data={"judged": False, "linked": linked,
+                        "reason": f"the DeepSpeed file {linked} was not found (looked in /srv/{file})"})
+
+    found = [note("a.yaml", "ds/z3.json"), note("b.yaml", "ds/z2.json"), note("c.yaml", "ds/z3.json")]
+    (g,) = notes.summarise(found)
+    assert g.reason == "the DeepSpeed file was not found" and len(g.files) == 3
+    assert g.names == {"ds/z3.json", "ds/z2.json"}

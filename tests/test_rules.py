@@ -229,3 +229,16 @@ def test_added_tokens_the_base_already_holds_need_no_new_rows():
     assert findings(text, "chat-format-untrained-embeddings") == []
     (f,) = findings(text.replace("'<|im_end|>'", "'<|tool|>'"), "chat-format-untrained-embeddings")
     assert f.data["count"] == 1 and f.data["tokens"] == "<|tool|>"
+
+
+def test_public_zephyr_qlora_recipe_brings_no_new_tokens():
+    from pathlib import Path
+
+    path = (Path(__file__).resolve().parents[2] / "shared" / "corpus" / "public"
+            / "alignment-handbook__recipes__zephyr-7b-beta__sft__config_qlora.yaml")
+    if not path.is_file():
+        pytest.skip("../shared/corpus/public is not present")
+    # the zephyr format writes <|user|>, <|system|>, <|assistant|> as text and ends turns with the
+    # Mistral EOS </s>: nothing for the frozen embeddings to learn
+    rep = lint(path.read_text(), path.name)
+    assert [f for f in rep.findings if f.rule == "chat-format-untrained-embeddings"] == []
