@@ -126,3 +126,15 @@ def test_adapter_that_trains_whole_modules_gets_fp32_weights():
     data = _fixed("torch_dtype: bfloat16\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
                   "lora_modules_to_save: [embed_tokens, lm_head]\nlearning_rate: 2.0e-4\nbf16: true\n")
     assert (data["torch_dtype"], data["bf16"], data["fp16"]) == ("float32", False, True)
+
+
+def test_leaving_bf16_for_fp16_brings_no_new_finding_and_carries_the_overflow_caveat():
+    # Mistral-7B-v0.1 is stored in bfloat16 (bundled catalogue); a T4 has no bf16
+    text = ("model_name_or_path: mistralai/Mistral-7B-v0.1\nuse_peft: true\nload_in_4bit: true\n"
+            "bnb_4bit_quant_type: nf4\nlora_r: 16\nlora_alpha: 16\nlearning_rate: 2.0e-4\nbf16: true\n")
+    (f,) = [f for f in lint(text, "run.yaml", gpu=GPU).findings if f.rule == RULE]
+    assert "stored in bfloat16" in f.hint and "65504" in f.hint  # IEEE 754 binary16 largest finite value
+    before = {(x.rule, x.key) for x in lint(text, "run.yaml", gpu=GPU).findings}
+    result = fix.fix_text(text, "run.yaml", api.make_options(gpu=GPU), training=True)
+    after = {(x.rule, x.key) for x in lint(result.new_text, "run.yaml", gpu=GPU).findings}
+    assert after - before == set()  # fp16 on a card without bf16 is not reported as a new problem

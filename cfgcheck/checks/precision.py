@@ -185,6 +185,11 @@ def precision_vs_gpu(ctx) -> None:
             else:
                 suits = ("use fp16 mixed precision with the weights in fp32 on this card "
                          "(fp16 weights cannot be trained with loss scaling)")
+            arch = ctx.model() if plan == "fp16" else None
+            if arch is not None and (arch.torch_dtype or "").lower() in _BF16_WORDS:
+                suits += (f"; the {arch.family} weights are stored in {arch.torch_dtype}, so keep "
+                          "dynamic loss scaling on and watch the loss for inf/NaN (fp16 overflows "
+                          "above 65504)")
             fix = _bf16_fix(view, bf16, gpu)
             extra = dict(also="".join(f" and {o.key}" for o in others),
                          also_keys=[o.key for o in others])
@@ -235,10 +240,8 @@ def fp16_on_bf16_model(ctx) -> None:
         return
     gpu = ctx.gpu
     if gpu is not None and not gpu.supports("bf16"):
-        # fp16 is the only half precision this card has: say so, do not warn against the only choice
-        ctx.report(f, "no-bf16-card", key=f.key, family=arch.family, stored=arch.torch_dtype,
-                   source=arch.source or "model config", gpu=gpu.label,
-                   capability=gpu.capability_text)
+        # fp16 is the only half precision this card has: nothing to change here (the overflow
+        # caveat travels with the bf16 finding and its fix, precision-unsupported-on-gpu)
         return
     ctx.report(f, key=f.key, family=arch.family, stored=arch.torch_dtype,
                source=arch.source or "model config")
