@@ -351,7 +351,7 @@ AXOLOTL = Layout(
     qlora_word_needs_4bit=True,
     # resolve_dtype (axolotl utils/config/__init__.py): fp16 -> cfg.torch_dtype = torch.float16,
     # so the weights load in fp16 and a full fine-tune stops at "Attempting to unscale FP16
-    # gradients" (axolotl issue 1031); bf16 off and fp16 unset loads float32
+    # gradients" (axolotl bug report #1031); bf16 off and fp16 unset loads float32
     fp16_mode="loads-weights",
     # axolotl turns evaluation off itself when there is no eval data (core/builders/base.py)
     sections={"peft": ("lora_",), "loftq_config": ("loftq_",), "bnb_config_kwargs": ()},

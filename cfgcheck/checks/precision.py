@@ -87,7 +87,7 @@ def _trains_weights(view) -> bool:
 def _trains_full_modules(view) -> bool:
     """An adapter run that also trains whole modules (modules_to_save): PEFT copies them in the
     base's dtype, so with fp16 weights their gradients are fp16 and cannot be unscaled (axolotl
-    issue 1031: the crash appeared once lora_modules_to_save listed embed_tokens and lm_head)."""
+    bug report #1031: the crash appeared once lora_modules_to_save listed embed_tokens and lm_head)."""
     f = view.get("adapter.save_modules")
     return view.is_adapter and f is not None and bool(f.value)
 
