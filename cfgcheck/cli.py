@@ -223,6 +223,8 @@ def lint(
     jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Lint files in N processes (output order stays the same)."),
     override: Optional[List[str]] = typer.Option(None, "--override", metavar="KEY=VALUE",
                                                  help="A key=value override the launch passes to the config's loader (repeatable), applied over the composed config."),
+    sarif_not_checked: bool = typer.Option(False, "--sarif-not-checked",
+                                           help="SARIF output: also carry the 'not checked' notes (rules that lacked the GPU, model or row count); left out by default."),
 ) -> None:
     """Check training configs and report what would waste the run."""
     from . import api
@@ -288,7 +290,11 @@ def lint(
 
     level = Severity.parse((show.value if show else None) or (proj.show.word if proj and proj.show else "warning"))
     fail_on = Severity.parse((gate.value if gate else None) or (proj.gate.word if proj and proj.gate else "warning"))
-    if fmt in (Format.json, Format.sarif):
+    if fmt is Format.sarif:
+        from .render.notes import is_note  # code-scanning views list every result: notes only when asked
+
+        out = render("sarif", report, [f for f in report.findings if sarif_not_checked or not is_note(f)])
+    elif fmt is Format.json:
         out = render(fmt.value, report, report.findings)
     else:
         shown = api.visible(report.findings, level)

@@ -15,7 +15,7 @@ from typing import Any, Callable, Iterable, Iterator
 from . import load as loadmod
 from .catalogue import Rule, load_catalogue
 from .checks import all_checks
-from .findings import Finding, Fix, InputProblem, InternalError, Severity, shown_data
+from .findings import Finding, Fix, InputProblem, InternalError, Related, Severity, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted
 from .view import Field, RunView, build_view
@@ -138,7 +138,10 @@ class Context:
 
     # reporting --------------------------------------------------------------
     def report(self, at: Field | tuple | None = None, variant: str = "default", *,
-               on: str = "value", fix: Fix | None = None, **data: Any) -> None:
+               on: str = "value", fix: Fix | None = None, related: Iterable = (),
+               **data: Any) -> None:
+        """``related``: other Fields (or key paths) where the same cause is written; the engine
+        locates them and the finding lists them beside its own location."""
         span = None
         if isinstance(at, waivermod.Waiver):  # a comment: located where it is written
             span = at.span
@@ -146,9 +149,10 @@ class Context:
             path = min(paths, key=len) if paths else ()
         else:
             path = at.path if isinstance(at, Field) else tuple(at or ())
+        others = tuple(r.path if isinstance(r, Field) else tuple(r) for r in related)
         self._sink.append(
             make_finding(self.rule, self.options, self.doc, self.file, path, variant, on, data,
-                         fix, span)
+                         fix, span, others)
         )
 
     def cannot_judge(self, what: str, **data: Any) -> None:
@@ -190,8 +194,10 @@ def _location(doc: Document, path: tuple, on: str) -> tuple[int, int]:
 
 def _finding(*, rule: str, severity: Severity, doc: Document, file: str, path: tuple, on: str,
              message: str, hint: str, data: dict[str, Any], fix: Fix | None = None,
-             span=None) -> Finding:
+             span=None, related: tuple = ()) -> Finding:
     line, column = (span.line, span.column) if span is not None else _location(doc, path, on)
+    others = tuple(Related(key=dotted(p), line=loc[0], column=loc[1])
+                   for p in related for loc in (_location(doc, p, on),))
     if doc.origins and span is None:
         # a composed config: the finding belongs to the file that set the value
         origin = _origin_of(doc, tuple(path))
@@ -204,7 +210,7 @@ def _finding(*, rule: str, severity: Severity, doc: Document, file: str, path: t
             data = dict(data, overrides=note)
     return Finding(rule=rule, severity=severity, file=file, line=line, column=column,
                    key=dotted(path), message=message, hint=hint, data=data, path=tuple(path),
-                   document=doc.index, fix=fix)
+                   document=doc.index, fix=fix, related=others)
 
 
 def _origin_of(doc: Document, path: tuple) -> str | None:
@@ -218,7 +224,7 @@ def _origin_of(doc: Document, path: tuple) -> str | None:
 
 def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: tuple,
                  variant: str, on: str, data: dict[str, Any], fix: Fix | None,
-                 span=None) -> Finding:
+                 span=None, related: tuple = ()) -> Finding:
     """The one place findings are made."""
     data = shown_data(data)  # a huge number as its short text, in the message and in the data
     msg = rule.messages[variant]
@@ -226,7 +232,7 @@ def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: t
     return _finding(rule=rule.id, severity=severity, doc=doc, file=file, path=path, on=on,
                     message=_fill(msg.message, data), hint=_fill(msg.hint, data),
                     data=dict(data, variant=variant) if variant != "default" else dict(data),
-                    fix=fix, span=span)
+                    fix=fix, span=span, related=related)
 
 
 # --------------------------------------------------------------------------- running

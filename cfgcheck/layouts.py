@@ -15,6 +15,11 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 
+# method words most layouts share (PEFT / TRL scripts, axolotl's adapter, LLaMA-Factory's
+# finetuning_type: lora | freeze | full)
+METHOD_WORDS: dict[str, str] = {"lora": "lora", "qlora": "qlora", "full": "full", "freeze": "partial"}
+
+
 @dataclass(frozen=True)
 class Layout:
     name: str
@@ -27,8 +32,9 @@ class Layout:
     sections: dict[str, tuple[str, ...]] = field(default_factory=dict)
     # fields a layout's own loader reads as numbers even when YAML 1.1 gives text
     coerces_numbers: bool = False
-    # what a "method" value means in this layout
-    method_values: dict[str, str] = field(default_factory=dict)
+    # what a "method" value means in this layout: word -> "full" | "lora" | "qlora" | "partial"
+    # (some layers train fully, the others stay frozen); a word not listed says nothing
+    method_values: dict[str, str] = field(default_factory=lambda: dict(METHOD_WORDS))
     # the method when nothing in the file states one (None: unknown)
     default_method: str | None = None
     # (regex, method) matched against the model builder name (component-style recipes)
@@ -62,6 +68,34 @@ class Layout:
     # what cfgcheck reads of this layout and what it does not (the layouts table in the docs)
     reads: str = ""
     not_read: str = ""
+
+    # --- what the layout's runner does with the values: rules read these, never the name ---
+    # what the file describes: "run" (a training recipe), "engine" (a DeepSpeed engine
+    # config), "launch" (a launcher config: processes, machines, mixed precision), "adapter"
+    # (a saved adapter's config)
+    role: str = "run"
+    # unset values take the transformers TrainingArguments defaults (batch 8, 3 epochs, eval
+    # "no", save every 500 steps), because the file goes to TrainingArguments as it is
+    trainer_defaults: bool = False
+    # scheduler, warm-up and max_steps/epochs keys reach the transformers Trainer with its meaning
+    trainer_schedule: bool = False
+    # word lists (schema.CONSTRAINTS ``word_list``) the layout's values are checked against
+    word_lists: frozenset[str] = frozenset()
+    # the generated key table unknown-key checks keys against (None: keys are not judged)
+    key_table: str | None = None
+    # how a text value of the target-module setting is read: "regex" (PEFT matches it against
+    # full module names), "comma-list" (split on commas), "comma-list-or-regex" (a list when it
+    # has a comma, else PEFT's regex)
+    targets_text: str = "regex"
+    # the runner's packing builds a block-causal mask itself, so packed samples never attend
+    # across their boundaries whatever the attention kernel
+    packing_masks_boundaries: bool = False
+    # the runner refuses the "qlora" method word unless the base loads in 4 bits
+    qlora_word_needs_4bit: bool = False
+    # what fp16 means to the runner: "autocast" (mixed precision over the weights as loaded),
+    # "loads-weights" (the fp16 flag also loads the weights as float16, so a full fine-tune
+    # cannot use it), "refused" (the runner refuses fp16 training: bf16 or fp32 only)
+    fp16_mode: str = "autocast"
 
     @property
     def has_bare_names(self) -> bool:
@@ -264,6 +298,11 @@ TRAINER = Layout(
           "optim: lr, lora: r, quantization: quant_type, training: batch_size, eval: steps)",
     not_read="keys of evaluation, reference/teacher-model and generation sections as training settings; "
              "inline DeepSpeed and FSDP mappings (read as linked configs)",
+    default_method="full",  # no adapter anywhere: every weight trains
+    trainer_defaults=True,
+    trainer_schedule=True,
+    word_lists=frozenset({"transformers-arguments", "transformers-strategies", "peft-lora"}),
+    key_table="trainer",
     fields={
         "method": ("finetuning_method", "tuning_method"),
         "model.ref": ("model_name_or_path", "base_model_name_or_path", "pretrained_model_name_or_path",
@@ -337,6 +376,9 @@ TRAINER = Layout(
 DEEPSPEED = Layout(
     name="deepspeed",
     title="DeepSpeed configuration JSON",
+    role="engine",
+    word_lists=frozenset({"deepspeed"}),
+    key_table="deepspeed",
     fields={
         "batch.per_device": ("=train_micro_batch_size_per_gpu",),
         "batch.accumulation": ("=gradient_accumulation_steps",),
@@ -364,6 +406,10 @@ DEEPSPEED = Layout(
 PEFT_ADAPTER = Layout(
     name="peft-adapter",
     title="PEFT adapter_config.json",
+    role="adapter",
+    default_method="lora",  # a saved adapter's config: the run that made it trained an adapter
+    word_lists=frozenset({"peft-lora"}),
+    key_table="peft-adapter",
     fields={
         "model.ref": ("=base_model_name_or_path",),
         "adapter.rank": ("=r",),
@@ -396,6 +442,15 @@ AXOLOTL = Layout(
     coerces_numbers=True,
     number_reader="axolotl validates the file with a pydantic model that converts this text to a float",
     default_method="full",
+    trainer_schedule=True,  # its scheduler and warm-up keys become TrainingArguments
+    word_lists=frozenset({"transformers-strategies"}),
+    targets_text="comma-list-or-regex",
+    # validation: "Require cfg.load_in_4bit to be True for qlora" (axolotl utils/schemas/config.py)
+    qlora_word_needs_4bit=True,
+    # resolve_dtype (axolotl utils/config/__init__.py): fp16 -> cfg.torch_dtype = torch.float16,
+    # so the weights load in fp16 and a full fine-tune stops at "Attempting to unscale FP16
+    # gradients" (axolotl bug report #1031); bf16 off and fp16 unset loads float32
+    fp16_mode="loads-weights",
     # axolotl turns evaluation off itself when there is no eval data (core/builders/base.py)
     # fsdp_config: axolotl drops the `fsdp_` prefix of its keys (0.19.0 utils/schemas/validation.py)
     sections={"peft": ("lora_",), "loftq_config": ("loftq_",), "bnb_config_kwargs": (),
@@ -476,6 +531,12 @@ LLAMA_FACTORY = Layout(
     # the file goes to transformers' HfArgumentParser.parse_dict after yaml.safe_load: text stays text
     default_method="lora",  # FinetuningArguments.finetuning_type defaults to "lora"
     eval_data_known=True,
+    trainer_defaults=True,  # the file is parsed into (a subclass of) TrainingArguments
+    trainer_schedule=True,
+    word_lists=frozenset({"transformers-arguments", "transformers-strategies"}),
+    targets_text="comma-list",  # lora_target: "q_proj,v_proj" is split on commas
+    # fp16_mode stays "autocast": model/adapter.py _setup_full_tuning casts the trainable
+    # parameters to fp32 (cast_trainable_params_to_fp32, off only with pure_bf16)
     fields={
         "method": ("finetuning_type",),
         "model.ref": ("model_name_or_path",),
@@ -531,6 +592,8 @@ LLAMA_FACTORY_V1 = Layout(
     name="llama-factory-v1",
     title="LLaMA-Factory v1 arguments (model, peft_config block, micro_batch_size, cutoff_len)",
     default_method="full",  # no peft_config block: every weight trains
+    trainer_schedule=True,
+    targets_text="comma-list",
     fields={
         "method": ("=peft_config.name",),
         "model.ref": ("=model",),
@@ -562,6 +625,11 @@ TORCHTUNE = Layout(
     number_reader="the recipe is loaded by OmegaConf, whose YAML reader takes it as a float",
     interpolates=True,
     default_method="full",
+    # torchtune builds a block-causal mask for packed samples (datasets/_packed.py)
+    packing_masks_boundaries=True,
+    # its recipes raise "full fp16 training is not supported with this recipe. Please use bf16
+    # or fp32 instead." (recipes/full_finetune_*.py, lora_finetune_*.py)
+    fp16_mode="refused",
     method_patterns=((r"(^|\.)qlora_", "qlora"), (r"(^|\.)lora_", "lora")),
     # torchtune 0.6.1 models/*/_model_builders.py: each builder's shapes are those of this model
     # (llama2_7b: 32 layers, 4096 wide, max_seq_len 4096; qwen2_5_*_instruct: max_seq_len 32768)
@@ -628,6 +696,9 @@ TORCHTUNE = Layout(
 ACCELERATE = Layout(
     name="accelerate",
     title="accelerate launch config (distributed_type, num_processes, mixed_precision)",
+    role="launch",
+    word_lists=frozenset({"accelerate"}),
+    key_table="accelerate",
     fields={
         "runtime.distributed": ("=distributed_type",),
         # accelerate's num_processes counts processes over all machines

@@ -11,8 +11,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from .findings import too_large
-from .layouts import (BASE_FILE_KEYS, BY_NAME, FIELD_TYPES, LAYOUTS, NOT_TRAINING, UNREAD_FORMATS, Layout,
-                      UnreadFormat)
+from .layouts import (BASE_FILE_KEYS, BY_NAME, FIELD_TYPES, LAYOUTS, METHOD_WORDS, NOT_TRAINING,
+                      UNREAD_FORMATS, Layout, UnreadFormat)
 from .load import Document, dotted
 
 _NUMBER = re.compile(r"^[-+]?(?:\.[0-9]+|[0-9][0-9_]*(?:\.[0-9_]*)?)(?:[eE][-+]?[0-9]+)?$")
@@ -381,12 +381,13 @@ def _infer_method(view: RunView) -> None:
     stated = view.get("method") or view.get("adapter.kind")
     if stated is not None and isinstance(stated.value, str):
         word = stated.value.strip().lower()
-        mapped = {"lora": "lora", "qlora": "qlora", "full": "full", "freeze": None}.get(word)
-        if mapped:
-            view.method, view.method_stated, view.method_field = mapped, True, stated
-        elif word == "freeze":
+        words = layout.method_values if layout is not None else METHOD_WORDS
+        mapped = words.get(word)
+        if mapped == "partial":
             view.method_stated, view.method_field = True, stated
             return  # some layers train fully, the others stay frozen: neither full nor adapter
+        if mapped:
+            view.method, view.method_stated, view.method_field = mapped, True, stated
     builder = view.get("model.builder")
     if view.method is None and layout is not None and layout.method_patterns and builder is not None \
             and isinstance(builder.value, str):
@@ -408,10 +409,6 @@ def _infer_method(view: RunView) -> None:
             view.method = "lora"
             view.method_stated = enabled is not None
             view.method_field = enabled
-        elif layout is not None and layout.name == "peft-adapter":
-            view.method = "lora"
-        elif layout is not None and layout.name == "trainer":
-            view.method = "full"  # no adapter anywhere: every weight trains
         elif layout is not None and layout.default_method and stated is None:
             view.method = layout.default_method
     bits = view.value("quant.bits")

@@ -156,8 +156,8 @@ def unknown_key(ctx) -> None:
     if view.layout is None:
         return
     keys = _keys_module()
-    layout = view.layout.name
-    if layout not in keys.layouts():
+    layout = view.layout.key_table  # the key table of the layout's libraries
+    if layout is None or layout not in keys.layouts():
         return
     judge = _Judge(ctx, layout)
     groups = keys._data()["by_parent"][layout]

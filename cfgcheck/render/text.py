@@ -129,6 +129,8 @@ def render(report, visible, *, hidden_info: int = 0, color: bool = False,
             continue
         if frames is not None and f.file in frames:
             lines.extend(frame(frames[f.file], f.line, f.column, color))
+        for r in getattr(f, "related", ()):
+            lines.append(f"    also: {_paint(f'{f.file}:{r.line}:{r.column}:', 'where', color)} {r.key}")
         if f.hint:
             lines.append(f"    {_paint('hint', 'hint', color)}: {printable(f.hint)}")
         if isinstance(f.data.get("overrides"), str):  # a composed config: which file won
@@ -140,5 +142,8 @@ def render(report, visible, *, hidden_info: int = 0, color: bool = False,
         lines.append(f"{printable(e.file)}: internal error in {e.where}: {printable(e.error)} "
                      f"(a bug in cfgcheck; {rest})")
     if mode != "quiet":
+        from .notes import lines as note_lines  # "not checked" notes, counted per run
+
+        lines.extend(f"cfgcheck: {line}" for line in note_lines(report.findings))
         lines.append(_paint(summary_line(report, hidden_info), "summary", color))
     return "\n".join(lines) + "\n" if lines else ""
