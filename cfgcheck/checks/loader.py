@@ -28,15 +28,42 @@ def _short(value) -> str:
     return text if len(text) <= 40 else text[:37] + "..."
 
 
-_EXP = re.compile(r"^([-+]?)([0-9][0-9_]*)(\.[0-9_]*)?[eE]([-+]?)([0-9]+)$")
+_EXP = re.compile(r"^([-+]?)([0-9][0-9_]*)(\.[0-9_]*)?([eE])([-+]?)([0-9]+)$")
 
 
 def dotted_exponent(raw: str) -> str:
-    """``1e-4`` -> ``1.0e-4``, ``1e4`` -> ``1.0e+4``: read as a float by YAML 1.1 and 1.2 alike."""
+    """``1e-4`` -> ``1.0e-4``, ``1E4`` -> ``1.0E+4``: read as a float by YAML 1.1 and 1.2 alike.
+
+    Only a dot and a sign are added: the author's digits and letter case stay, so what the
+    summary says is what the fixer writes.
+    """
     m = _EXP.match(raw)
-    sign, whole, frac, esign, digits = m.groups()
+    sign, whole, frac, letter, esign, digits = m.groups()
     frac = frac if frac and frac != "." else ".0"
-    return f"{sign}{whole}{frac}e{esign or '+'}{digits}"
+    return f"{sign}{whole}{frac}{letter}{esign or '+'}{digits}"
+
+
+# what the view's field types mean for the value's type
+_FIELD_KIND = {"int": "number", "number": "number", "bool": "bool", "str": "text", "names": "text"}
+
+
+def _setting_type(ctx, path: tuple) -> str | None:
+    """"number", "bool", "text", "mixed" or None (unknown): what the setting at ``path`` takes."""
+    from ..knowledge.setting_types import setting_type
+    from ..layouts import FIELD_TYPES
+
+    for f in ctx.view.fields.values():
+        if tuple(f.path) == tuple(path) or (path and isinstance(path[-1], int)
+                                            and tuple(f.path) == tuple(path[:-1])):
+            kind = _FIELD_KIND.get(FIELD_TYPES.get(f.name, "any"))
+            if kind is not None:
+                return kind
+    layout = ctx.view.layout.name if ctx.view.layout is not None else None
+    return setting_type(layout, tuple(path))
+
+
+def _quoted(raw: str) -> str:
+    return '"' + raw + '"'  # the raw texts concerned are digits, signs, dots, letters: no escapes
 
 
 @check("yaml-version-dependent-value")
@@ -46,7 +73,19 @@ def yaml_version_dependent(ctx) -> None:
     for amb in ctx.doc.ambiguities:
         key = dotted(amb.path)
         if amb.kind == "exponent-without-dot":
+            kind = _setting_type(ctx, amb.path)
             new = dotted_exponent(amb.raw)
+            if kind == "text":
+                q = _quoted(amb.raw)
+                fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {q}",
+                          edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.raw),))
+                ctx.report(amb.path, "exponent-in-text-setting", fix=fix, key=key, raw=amb.raw,
+                           number=amb.yaml12, replacement=q)
+                continue
+            if kind != "number":
+                ctx.report(amb.path, "exponent-type-unknown", key=key, raw=amb.raw,
+                           number=amb.yaml12, number_text=new)
+                continue
             fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
                       edits=(Edit(path=amb.path, old=amb.yaml11, new=float(amb.yaml12)),))
             layout = ctx.view.layout
@@ -59,11 +98,25 @@ def yaml_version_dependent(ctx) -> None:
             ctx.report(amb.path, "exponent-without-dot", fix=fix, key=key, raw=amb.raw,
                        number=amb.yaml12, replacement=new)
         elif amb.kind == "word-boolean":
-            new = "true" if amb.yaml11 else "false"
-            fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
+            kind = _setting_type(ctx, amb.path)
+            word = "true" if amb.yaml11 else "false"
+            if kind == "text":
+                q = _quoted(amb.raw)
+                # PyYAML gives the boolean today, so quoting changes what a PyYAML reader gets
+                fix = Fix(tier="changes-training",
+                          summary=f"{key}: {amb.raw} -> {q} (PyYAML read the boolean {word})",
+                          edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.raw),))
+                ctx.report(amb.path, "word-boolean-in-text-setting", fix=fix, key=key,
+                           raw=amb.raw, replacement=q)
+                continue
+            if kind != "bool":
+                ctx.report(amb.path, "word-boolean-type-unknown", key=key, raw=amb.raw,
+                           bool_text=word)
+                continue
+            fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {word}",
                       edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.yaml11),))
             ctx.report(amb.path, "word-boolean", fix=fix, key=key, raw=amb.raw,
-                       replacement=new)
+                       replacement=word)
         elif amb.kind == "leading-zero-octal":
             ctx.report(amb.path, "leading-zero-octal", key=key, raw=amb.raw,
                        yaml11=amb.yaml11, yaml12=amb.yaml12)
