@@ -218,6 +218,7 @@ def _plan(report, *, training: bool,
 
 # --------------------------------------------------------------------------- rendering values
 
+_EXP_NO_DOT = re.compile(r"([-+]?)([0-9]+)(\.[0-9]*)?([eE])([-+]?)([0-9]+)")
 _PLAIN_STR = re.compile(r"[A-Za-z_][A-Za-z0-9_.\-/]*")
 _COMMENT_PAD = re.compile(r"( {2,})#")
 _PROPS = re.compile(r"[&!][^\s,\[\]{}]*\s+")
@@ -231,6 +232,10 @@ def _float_text(value: float, like: str = "") -> str:
     """
     if value != value or value in (float("inf"), float("-inf")):
         raise _Unplaceable("not a finite number")
+    m = _EXP_NO_DOT.fullmatch(like)
+    if m is not None and float(like) == value:  # "12e-5" -> "12.0e-5": the author's digits stay
+        sign, whole, frac, letter, esign, digits = m.groups()
+        return f"{sign}{whole}{frac if frac and frac != '.' else '.0'}{letter}{esign or '+'}{digits}"
     d = Decimal(repr(float(value)))
     sign, digits, exp = d.as_tuple()
     low = like.lower()
@@ -1273,7 +1278,7 @@ def check_writable(path: str | Path) -> None:
     if st.st_nlink > 1:
         raise WriteRefused(f"the file has {st.st_nlink} hard links; replacing it would split "
                            "them, so it is not written (fix a copy, or remove the other links)")
-    if not os.access(target, os.W_OK):
+    if not os.access(target, os.W_OK) or not st.st_mode & 0o222:  # read-only: even for root
         raise WriteRefused(f"the file is not writable by you (mode {stat.S_IMODE(st.st_mode):04o}); "
                            "not written")
     if st.st_uid != os.geteuid() and os.geteuid() != 0:
