@@ -23,10 +23,13 @@ from __future__ import annotations
 import bisect
 import codecs
 import difflib
+import errno
+import functools
 import json
 import os
 import re
 import stat
+import sys
 import tempfile
 from dataclasses import dataclass, field
 from decimal import Decimal
@@ -1111,6 +1114,8 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
             result.applied = [applied[id(p)] for p in accepted if id(p) in applied]
             return result
     result.notes.extend(notes)
+    if new_text != text:
+        _say_as_written(new_text, name, fmt, accepted, applied)
     result.applied = [applied[id(p)] for p in accepted if id(p) in applied]
     if new_text == text:
         return result
@@ -1126,6 +1131,52 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
                            accepted, edits, docs, name, fmt, check="stability")
     result.new_text = new_text
     return result
+
+
+def _say_as_written(new_text: str, name: str, fmt: str, accepted: list[_Planned],
+                    applied: dict[int, Applied]) -> None:
+    """Make each summary's "KEY: OLD -> NEW" / "KEY: added as NEW" show NEW exactly as written.
+
+    A rule words its summary before the fixer renders the value; where the two differ (the
+    number style, JSON quotes), the summary takes the text that is in the file now.
+    """
+    try:
+        docs = {d.index: d for d in loadmod.load_text(new_text, name, fmt)}
+    except LoadError:
+        return
+    for plan in accepted:
+        a = applied.get(id(plan))
+        doc = docs.get(plan.document)
+        if a is None or doc is None or not plan.edits:
+            continue
+        summary = a.summary
+        keys = [dotted(e.path) for e in plan.edits]
+        for e, key in zip(plan.edits, keys):
+            entry = doc.entries.get(tuple(e.path))
+            if entry is None:
+                continue
+            written = _PROPS_LEAD.sub("", new_text[entry.value.start:entry.value.end])
+            m = re.search(r"(?:^|, )" + re.escape(key) + r": (?:added as |(?:[^,]*?) -> )", summary)
+            if m is None:
+                continue
+            start = m.end()
+            stops = [len(summary)]
+            for other in keys:
+                if other != key:
+                    i = summary.find(f", {other}: ", start)
+                    if i >= 0:
+                        stops.append(i)
+            i = summary.find(" (", start)
+            if i >= 0:
+                stops.append(i)
+            end = min(stops)
+            if summary[start:end] != written:
+                summary = summary[:start] + written + summary[end:]
+        if summary != a.summary:
+            applied[id(plan)] = Applied(a.rule, a.key, summary, a.tier, a.paths)
+
+
+_PROPS_LEAD = re.compile(r"^(?:[&!][^\s,\[\]{}]*\s+)+")
 
 
 def _overlaps(starts: list[tuple[int, int]], m: _TextEdit) -> bool:
@@ -1242,9 +1293,67 @@ class WriteRefused(Exception):
     """The file may not be replaced as it is (not writable, other hard links, owner, xattrs)."""
 
 
-def _rename(tmp: str, target: str) -> None:
-    """The one step that makes the new file visible (replaced in tests to simulate a crash)."""
+_AT_FDCWD, _RENAME_EXCHANGE = -100, 2
+
+
+def _exchange(tmp: str, target: str) -> bool:
+    """Swap ``tmp`` and ``target`` in one step (Linux renameat2 RENAME_EXCHANGE); False where the
+    system or file system cannot."""
+    fn = _renameat2()
+    if fn is None:
+        return False
+    import ctypes
+
+    if fn(_AT_FDCWD, os.fsencode(tmp), _AT_FDCWD, os.fsencode(target), _RENAME_EXCHANGE) == 0:
+        return True
+    err = ctypes.get_errno()
+    if err in (errno.EINVAL, errno.ENOSYS, errno.EOPNOTSUPP, errno.EXDEV):
+        return False
+    raise OSError(err, os.strerror(err), target)
+
+
+@functools.cache
+def _renameat2():
+    if not sys.platform.startswith("linux"):
+        return None
+    try:
+        import ctypes
+
+        fn = ctypes.CDLL(None, use_errno=True).renameat2
+    except (OSError, AttributeError):
+        return None
+    fn.argtypes = [ctypes.c_int, ctypes.c_char_p, ctypes.c_int, ctypes.c_char_p, ctypes.c_uint]
+    return fn
+
+
+def _exchange_supported(folder: str) -> bool:
+    """Whether ``folder`` allows the atomic exchange (for the documentation and tests)."""
+    a = tempfile.NamedTemporaryFile(dir=folder, delete=False)
+    b = tempfile.NamedTemporaryFile(dir=folder, delete=False)
+    a.close()
+    b.close()
+    try:
+        return _exchange(a.name, b.name)
+    except OSError:
+        return False
+    finally:
+        for n in (a.name, b.name):
+            try:
+                os.unlink(n)
+            except OSError:
+                pass
+
+
+def _rename(tmp: str, target: str) -> bool:
+    """The one step that makes the new file visible (replaced in tests to simulate a crash).
+
+    True when the files were swapped (the old one is now at ``tmp``), False when ``tmp``
+    replaced ``target``.
+    """
+    if _exchange(tmp, target):
+        return True
     os.replace(tmp, target)
+    return False
 
 
 def _before_rename(target: str) -> None:
@@ -1345,14 +1454,22 @@ def atomic_write(path: str | Path, data: bytes, expected: bytes) -> None:
                 if (st1.st_ino, st1.st_dev) != (st.st_ino, st.st_dev) or _read_bounded(fd1) != expected:
                     raise ChangedOnDisk("the file changed on disk while the fix was written; "
                                         "not writing")
-                _rename(tmp, target)
-                after = os.fstat(fd1)  # the old file, now unlinked: written to in the window?
+                swapped = _rename(tmp, target) is True
+                if swapped:  # the file we displaced is now at tmp: was it still the one we checked?
+                    shown = os.lstat(tmp)
+                    if (shown.st_ino, shown.st_dev) != (st1.st_ino, st1.st_dev):
+                        _exchange(tmp, target)  # another program replaced it meanwhile: theirs back
+                        raise ChangedOnDisk("another program replaced the file while the fix was "
+                                            "written; its version stays and nothing was fixed")
+                after = os.fstat(fd1)  # the old file, now displaced: written to in the window?
                 if (after.st_size, after.st_mtime_ns) != (st1.st_size, st1.st_mtime_ns):
                     os.lseek(fd1, 0, os.SEEK_SET)
                     theirs = _read_bounded(fd1)
                     _put_back(target, theirs, st)
                     raise ChangedOnDisk("another program wrote to the file while it was being "
                                         "replaced; its version was put back and nothing was fixed")
+                if swapped:
+                    os.unlink(tmp)
             finally:
                 os.close(fd1)
         except BaseException:

@@ -364,3 +364,31 @@ def test_failed_proof_saves_its_evidence_for_a_bug_report(tmp_path, monkeypatch)
     body = open(where, encoding="utf-8").read()
     assert "line 9 changed (injected)" in body and TEXT in body and "2.0e-5" in body
     os.unlink(where)
+
+
+def test_file_replaced_by_another_program_during_the_rename_keeps_their_version(tmp_path, monkeypatch):
+    p = tmp_path / "run.yaml"
+    p.write_text(TEXT)
+    theirs = TEXT + "num_train_epochs: 3\n"
+    real = fix._rename
+
+    def racing(tmp, target):
+        other = tmp_path / "editor-save.tmp"
+        other.write_text(theirs)
+        os.replace(other, target)  # an editor saves by renaming its own temp file over ours
+        return real(tmp, target)
+
+    monkeypatch.setattr(fix, "_rename", racing)
+    result = fix.fix_file(p, api.make_options())
+    if not fix._exchange_supported(str(tmp_path)):
+        pytest.skip("no atomic exchange on this system: documented as the remaining window")
+    assert result.refused and p.read_text() == theirs
+    assert [x.name for x in tmp_path.iterdir()] == ["run.yaml"]
+
+
+def test_summary_of_an_inserted_json_section_is_the_json_written(tmp_path):
+    ds = tmp_path / "ds.json"
+    ds.write_text(DS)
+    result = fix.fix_file(ds, api.make_options(gpu="t4"), training=True, write=False)
+    (summary,) = [a.summary for a in result.applied]
+    assert 'fp16: added as {"enabled": true}' in summary and '"fp16": {"enabled": true}' in result.new_text
