@@ -89,7 +89,7 @@ class FileFix:
     skipped: str | None = None  # not a training config
     written: bool = False
     links: tuple[str, ...] = ()  # real paths of the files this one links (DeepSpeed, accelerate)
-    needs: tuple[str, ...] = ()  # fixes that would need a flag (--gpu, --rows) to be judged
+    needs: tuple[tuple[str, str], ...] = ()  # (rule, flag): fixes that need a flag to be judged
     evidence: dict | None = None  # a failed proof: before, after, which check (for a bug report)
     evidence_file: str | None = None  # where the evidence was saved
 
@@ -857,7 +857,7 @@ def _lint_after(new_text: str, name: str, options: Options, fmt: str, linked: di
 
 def _prove(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Document],
            plans: list[_Planned], edits: list[_TextEdit], before, options: Options,
-           linked: dict | None = None) -> tuple[list[str], dict[tuple, Finding]]:
+           linked: dict | None = None) -> tuple[list[str], dict[tuple, Finding], Any]:
     """The whole proof: the text (see _prove_text), then a re-lint. Returns notes and the
     findings the fixed text has that the old one had not (any severity): the caller decides,
     per finding, which fix brought it."""
@@ -877,7 +877,7 @@ def _prove(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Doc
         if f.data.get("judged") is False:  # a "not checked" note flags no value
             continue
         new[k] = f  # any severity, info included: no fix may write a value a rule flags
-    return notes, new
+    return notes, new, after
 
 
 _MISSING = object()
@@ -985,14 +985,17 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
 
 def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None, training: bool,
               halve_batch: int, linked_before: dict | None, linked_after: dict | None,
-              check_stable: bool) -> FileFix:
+              check_stable: bool, linted=None) -> FileFix:
     options = options or Options()
     fmt = fmt or loadmod.guess_format(name, text)
     linked_before = linked_before or {}
     linked_after = linked_after if linked_after is not None else linked_before
     result = FileFix(file=name, old_text=text, new_text=text)
-    with links.linked_texts(linked_before):
-        before = engine.lint_text(text, name, options, fmt)
+    if linted is not None:  # the stability pass: the proof's re-lint of this very text
+        before = linted
+    else:
+        with links.linked_texts(linked_before):
+            before = engine.lint_text(text, name, options, fmt)
     if before.problem is not None:
         result.problem = before.problem
         return result
@@ -1082,7 +1085,7 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
     while True:
         new_text = _apply(text, edits)
         try:
-            notes, new = _prove(text, new_text, name, fmt, docs, accepted, edits, before, options,
+            notes, new, after = _prove(text, new_text, name, fmt, docs, accepted, edits, before, options,
                                 linked_after)
         except _Shared as exc:
             bad = {id(p) for p in exc.plans}
@@ -1123,7 +1126,7 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
         # a formatter's safe mode: fixing the fixed text again must change nothing
         again = _fix_body(new_text, name, options, fmt=fmt, training=training, halve_batch=0,
                           linked_before=linked_after, linked_after=linked_after,
-                          check_stable=False)
+                          check_stable=False, linted=after)
         if again.error is not None or again.new_text != new_text:
             why = again.error.error if again.error is not None else \
                 "fixing the fixed text changes it again: " + "; ".join(a.summary for a in again.applied)
@@ -1226,25 +1229,25 @@ def _linked_paths(report) -> tuple[str, ...]:
     return tuple(dict.fromkeys(out))
 
 
-_FLAGS = {"gpu": "--gpu", "rows": "--rows", "gpus": "--gpus"}
+_FLAG = re.compile(r"--(gpus|gpu|rows)\b")
+_FLAG_ARG = {"--gpu": "--gpu NAME (see: cfgcheck gpus)", "--gpus": "--gpus N", "--rows": "--rows N"}
 
 
-def _needed_flags(report, options: Options) -> tuple[str, ...]:
-    """Rules that propose fixes but could not judge this file without a flag: which flags."""
+def _needed_flags(report, options: Options) -> tuple[tuple[str, str], ...]:
+    """(rule, flag) for each rule that proposes fixes but could not judge this file without a
+    flag its "not checked" note names."""
     from .catalogue import load_catalogue
 
-    out = []
     catalogue = load_catalogue()
+    out = []
     for f in report.findings:
         if f.data.get("judged") is not False:
             continue
         rule = catalogue.get(f.rule)
         if rule is None or not rule.fix:
             continue
-        for need in rule.needs:
-            flag = _FLAGS.get(need)
-            if flag:
-                out.append(f"{f.rule} needs {flag} to judge (and fix) this file")
+        for flag in _FLAG.findall(str(f.data.get("reason", ""))):
+            out.append((f.rule, "--" + flag))
     return tuple(dict.fromkeys(out))
 
 
@@ -1732,8 +1735,6 @@ def summary_text(report: FixReport, *, dry: bool) -> str:
         withheld += len(f.withheld)
         for n in f.notes:
             body.append(f"    note: {n}")
-        for n in f.needs:
-            body.append(f"    note: {n}")
         if f.refused:
             body.append(f"    not written: {f.refused}")
         if not body:
@@ -1753,6 +1754,13 @@ def summary_text(report: FixReport, *, dry: bool) -> str:
             head += ", written"
         lines.append(head)
         lines.extend(body)
+    needs: dict[tuple[str, str], int] = {}
+    for f in report.files:
+        for k in f.needs:
+            needs[k] = needs.get(k, 0) + 1
+    for (rule, flag), n in needs.items():
+        lines.append(f"note: {rule} could not judge {n} file{'s' if n != 1 else ''} without "
+                     f"{flag}, so it proposed no fix there; pass {_FLAG_ARG.get(flag, flag)}")
     changed = len(report.changed)
     tail = (f"cfgcheck fix: {len(report.files)} file{'s' if len(report.files) != 1 else ''} read; "
             f"{changed} {'would change' if dry else 'changed'} ({fixes} fix{'es' if fixes != 1 else ''})")
