@@ -101,13 +101,10 @@ def yaml_version_dependent(ctx) -> None:
             kind = _setting_type(ctx, amb.path)
             word = "true" if amb.yaml11 else "false"
             if kind == "text":
-                q = _quoted(amb.raw)
-                # PyYAML gives the boolean today, so quoting changes what a PyYAML reader gets
-                fix = Fix(tier="changes-training",
-                          summary=f"{key}: {amb.raw} -> {q} (PyYAML read the boolean {word})",
-                          edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.raw),))
-                ctx.report(amb.path, "word-boolean-in-text-setting", fix=fix, key=key,
-                           raw=amb.raw, replacement=q)
+                # no fix: PyYAML gives the boolean today, so quoting would change what a
+                # PyYAML reader gets (not a meaning-keeping rewrite); the hint says to quote
+                ctx.report(amb.path, "word-boolean-in-text-setting", key=key, raw=amb.raw,
+                           replacement=_quoted(amb.raw), bool_text=word)
                 continue
             if kind != "bool":
                 ctx.report(amb.path, "word-boolean-type-unknown", key=key, raw=amb.raw,
