@@ -268,7 +268,7 @@ def test_appending_to_a_multiline_flow_list_keeps_the_last_comment_on_its_item()
     text = ("model_name_or_path: copperleaf/base-3b\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\n"
             "lora_modules_to_save: [\n  lm_head  # the head already trains\n]\n"
             "chat_template: \"<|role|>\"\nlearning_rate: 2.0e-4\n")
-    result = fix.fix_text(text, "a.yaml", api.make_options(ignore=["full-modules-at-adapter-lr"]),
+    result = fix.fix_text(text, "a.yaml", api.make_options(skip=["full-modules-at-adapter-lr"]),
                           training=True)
     assert result.error is None
     assert "  lm_head,  # the head already trains\n  embed_tokens\n]" in result.new_text
