@@ -1386,19 +1386,18 @@ def check_writable(path: str | Path) -> None:
     except OSError as exc:
         raise WriteRefused(f"cannot write: {exc.strerror or exc}; the file is unchanged") from None
     if not stat.S_ISREG(st.st_mode):
-        raise WriteRefused("not a regular file; not written")
+        raise WriteRefused("not a regular file")
     if st.st_nlink > 1:
         raise WriteRefused(f"the file has {st.st_nlink} hard links; replacing it would split "
-                           "them, so it is not written (fix a copy, or remove the other links)")
+                           "them (fix a copy, or remove the other links)")
     if not os.access(target, os.W_OK) or not st.st_mode & 0o222:  # read-only: even for root
-        raise WriteRefused(f"the file is not writable by you (mode {stat.S_IMODE(st.st_mode):04o}); "
-                           "not written")
+        raise WriteRefused(f"the file is read-only or not writable by you "
+                           f"(mode {stat.S_IMODE(st.st_mode):04o})")
     if st.st_uid != os.geteuid() and os.geteuid() != 0:
         raise WriteRefused(f"the file belongs to another user (uid {st.st_uid}); replacing it "
-                           "would change its owner, so it is not written")
+                           "would change its owner")
     if not os.access(os.path.dirname(target) or ".", os.W_OK | os.X_OK):
-        raise WriteRefused("its folder is not writable, so it cannot be replaced atomically; "
-                           "not written")
+        raise WriteRefused("its folder is not writable, so it cannot be replaced atomically")
 
 
 def _copy_metadata(src_fd: int, st: os.stat_result, tmp: str) -> None:
@@ -1409,7 +1408,7 @@ def _copy_metadata(src_fd: int, st: os.stat_result, tmp: str) -> None:
         try:
             os.chown(tmp, st.st_uid if os.geteuid() == 0 else -1, st.st_gid)
         except OSError:
-            raise WriteRefused(f"cannot keep the file's group (gid {st.st_gid}); not written") from None
+            raise WriteRefused(f"cannot keep the file's group (gid {st.st_gid})") from None
         os.chmod(tmp, stat.S_IMODE(st.st_mode))  # chown may clear set-id bits
     if hasattr(os, "listxattr"):
         try:
@@ -1421,7 +1420,7 @@ def _copy_metadata(src_fd: int, st: os.stat_result, tmp: str) -> None:
                 os.setxattr(tmp, n, os.getxattr(src_fd, n))
             except OSError as exc:
                 raise WriteRefused(f"cannot keep the extended attribute {n} "
-                                   f"({exc.strerror or exc}); not written") from None
+                                   f"({exc.strerror or exc})") from None
 
 
 def atomic_write(path: str | Path, data: bytes, expected: bytes) -> None:
@@ -1637,8 +1636,8 @@ def _write_group(group: list[_Item]) -> None:
     broken = [i for i in group if i.result.error is not None or i.result.problem is not None]
     if broken and len(group) > 1:
         for i in todo:
-            i.result.refused = (f"not written: the linked file {broken[0].path} could not be "
-                                "fixed, and linked files are fixed together or not at all")
+            i.result.refused = (f"the linked file {broken[0].path} could not be fixed, and "
+                                "linked files are fixed together or not at all")
         return
     data = {}
     for i in todo:
@@ -1651,8 +1650,8 @@ def _write_group(group: list[_Item]) -> None:
     if refused:
         for i in todo:
             if not i.result.refused:
-                i.result.refused = (f"not written: the linked file {refused[0].path} cannot be "
-                                    "written, and linked files are fixed together or not at all")
+                i.result.refused = (f"the linked file {refused[0].path} cannot be written, and "
+                                    "linked files are fixed together or not at all")
         return
     written: list[_Item] = []
     for i in todo:
@@ -1677,8 +1676,7 @@ def _write_group(group: list[_Item]) -> None:
                                           "one was, and could not be put back")
             for j in todo:
                 if j is not i and not j.result.written and not j.result.refused:
-                    j.result.refused = (f"not written: the linked file {i.path} could not be "
-                                        "written")
+                    j.result.refused = f"the linked file {i.path} could not be written"
             return
         i.result.written = True
         written.append(i)
