@@ -3,7 +3,7 @@
     python bench/fix_scaling.py [--checkout DIR]
 
 Runs `cfgcheck fix --diff` (writes nothing) in a fresh subprocess on two generated files and
-prints wall time and peak memory (VmHWM of the child):
+prints wall time and peak memory (VmHWM of the child), beside `cfgcheck lint` on the same file:
 
   * 20,000 comment lines after a two-key config (one fix);
   * 999 small documents in one stream (one fix each, 89 KB).
@@ -35,9 +35,10 @@ def _files(folder: Path) -> dict[str, Path]:
     return {"20,000 comment lines": comments, "999 documents": docs}
 
 
-def _run(checkout: Path, path: Path, timeout: float) -> tuple[str, str]:
+def _run(checkout: Path, path: Path, timeout: float, command: str = "fix") -> tuple[str, str]:
     env = dict(os.environ, PYTHONPATH=str(checkout))
-    code = ("import resource, sys, runpy; sys.argv = ['cfgcheck', 'fix', '--diff', sys.argv[1]];\n"
+    args = "'fix', '--diff'" if command == "fix" else "'lint'"
+    code = (f"import resource, sys, runpy; sys.argv = ['cfgcheck', {args}, sys.argv[1]];\n"
             "try:\n    runpy.run_module('cfgcheck', run_name='__main__')\n"
             "except SystemExit:\n    pass\n"
             "print('HWM', open('/proc/self/status').read().split('VmHWM:')[1].split()[0], file=sys.stderr)")
@@ -61,7 +62,8 @@ def main() -> int:
     with tempfile.TemporaryDirectory() as tmp:
         for label, path in _files(Path(tmp)).items():
             wall, mem = _run(args.checkout, path, args.timeout)
-            print(f"{label:24} {wall:>22}  peak {mem}")
+            lwall, lmem = _run(args.checkout, path, args.timeout, "lint")
+            print(f"{label:24} fix {wall:>20}  peak {mem:>10}   (lint: {lwall}, peak {lmem})")
     print(f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
     return 0
 
