@@ -1159,6 +1159,8 @@ def _say_as_written(new_text: str, name: str, fmt: str, accepted: list[_Planned]
             if entry is None:
                 continue
             written = _PROPS_LEAD.sub("", new_text[entry.value.start:entry.value.end])
+            if "\n" in written or "\r" in written:
+                continue  # a collection written over several lines: the rule's words stay
             m = re.search(r"(?:^|, )" + re.escape(key) + r": (?:added as |(?:[^,]*?) -> )", summary)
             if m is None:
                 continue

@@ -393,3 +393,14 @@ def test_summary_of_an_inserted_json_section_is_the_json_written(tmp_path):
     result = fix.fix_file(ds, api.make_options(gpu="t4"), training=True, write=False)
     (summary,) = [a.summary for a in result.applied]
     assert 'fp16: added as {"enabled": true}' in summary and '"fp16": {"enabled": true}' in result.new_text
+
+
+@pytest.mark.parametrize("case", ["chat-block.yaml", "chat-args.json"])
+def test_summary_of_a_list_written_over_several_lines_stays_one_line(case):
+    from pathlib import Path
+
+    src = Path(__file__).resolve().parents[1] / "fixtures" / "fix" / case.replace(".", ".in.", 1)
+    result = fix.fix_text(src.read_text(), case, api.make_options(skip=["full-modules-at-adapter-lr"]),
+                          training=True)
+    (summary,) = [a.summary for a in result.applied]
+    assert "\n" not in summary and "embed_tokens, lm_head" in summary
