@@ -1621,11 +1621,39 @@ def _fix_group(group: list[_Item], *, training: bool, halve_batch: int) -> None:
             proposed[i.real] = res.new_text
             i.result = res
         if not moved:
+            break
+    else:
+        _undo_group(members, "its fixes and those of the files it is linked with ({names}) do "
+                             "not settle; fix them one at a time")
+        return
+    # a member left unchanged is proven against the others' fixed text here: together, the
+    # group must bring no finding that none of them had
+    for i in members:
+        if proposed[i.real] != old[i.real]:
+            continue  # its own proof ran against the others' fixed text
+        others_new = {k: v for k, v in proposed.items() if k != i.real}
+        if others_new == {k: v for k, v in old.items() if k != i.real}:
+            continue
+        with links.linked_texts({k: v for k, v in old.items() if k != i.real}):
+            before = engine.lint_text(old[i.real], i.path, i.options)
+        with links.linked_texts(others_new):
+            after = engine.lint_text(old[i.real], i.path, i.options)
+        was = _finding_keys(before)
+        new = [f for k, f in _finding_keys(after).items()
+               if k not in was and f.data.get("judged") is not False]
+        if new:
+            f = new[0]
+            _undo_group(members, "together with the files it is linked with ({names}) it would "
+                                 f"bring a new finding in {i.path}: {f.rule} at {f.key or 'the top level'}: "
+                                 f"{f.message}")
             return
-    for i in members:  # no agreement: fix none of them
+
+
+def _undo_group(members: list[_Item], why: str) -> None:
+    """Fix none of the linked files, and say why in each."""
+    for i in members:
         names = ", ".join(j.path for j in members if j is not i)
-        i.result.notes.append(f"not fixed: its fixes and those of the files it is linked with "
-                              f"({names}) do not settle; fix them one at a time")
+        i.result.notes.append("not fixed: " + why.replace("{names}", names))
         i.result.new_text = i.result.old_text
         i.result.applied = []
 

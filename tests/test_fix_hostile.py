@@ -404,3 +404,16 @@ def test_summary_of_a_list_written_over_several_lines_stays_one_line(case):
                           training=True)
     (summary,) = [a.summary for a in result.applied]
     assert "\n" not in summary and "embed_tokens, lm_head" in summary
+
+
+def test_linked_file_is_not_fixed_alone_when_its_partner_cannot_follow(tmp_path):
+    trainer, ds = tmp_path / "train.yaml", tmp_path / "ds.json"
+    # bf16 comes through an alias, so the trainer's precision fix is withheld; the DeepSpeed
+    # file's own fix would then contradict the trainer (transformers' DeepSpeed integration
+    # refuses a bf16 mismatch): neither is written
+    text = TRAINER.format(ds="ds.json").replace("bf16: true\n", "precision: &p true\nbf16: *p\n")
+    trainer.write_text(text)
+    ds.write_text(DS)
+    report = api.fix([tmp_path], training=True, gpu="t4")
+    assert trainer.read_text() == text and ds.read_text() == DS and not report.changed
+    assert all(any("deepspeed-file-contradicts-config" in n for n in f.notes) for f in report.files)
