@@ -979,7 +979,9 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
     elif lead:
         result.old_text, result.new_text = text, lead + result.new_text
     if result.evidence is not None:
-        result.evidence = dict(result.evidence, before=text)
+        after = result.evidence["after"]
+        result.evidence = dict(result.evidence, before=text,
+                               after=lead + (after.replace("\n", "\r") if cr_only else after))
     return result
 
 
@@ -1419,7 +1421,13 @@ def _copy_metadata(src_fd: int, st: os.stat_result, tmp: str) -> None:
             names = []
         for n in names:
             try:
-                os.setxattr(tmp, n, os.getxattr(src_fd, n))
+                value = os.getxattr(src_fd, n)
+                try:
+                    if os.getxattr(tmp, n) == value:
+                        continue  # already there (a security label the folder gives every file)
+                except OSError:
+                    pass
+                os.setxattr(tmp, n, value)
             except OSError as exc:
                 raise WriteRefused(f"cannot keep the extended attribute {n} "
                                    f"({exc.strerror or exc})") from None
