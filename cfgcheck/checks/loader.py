@@ -99,21 +99,19 @@ def yaml_version_dependent(ctx) -> None:
                        number=amb.yaml12, replacement=new)
         elif amb.kind == "word-boolean":
             kind = _setting_type(ctx, amb.path)
-            word = "true" if amb.yaml11 else "false"
-            if kind == "text":
-                # no fix: PyYAML gives the boolean today, so quoting would change what a
-                # PyYAML reader gets (not a meaning-keeping rewrite); the hint says to quote
-                ctx.report(amb.path, "word-boolean-in-text-setting", key=key, raw=amb.raw,
-                           replacement=_quoted(amb.raw), bool_text=word)
-                continue
-            if kind != "bool":
-                ctx.report(amb.path, "word-boolean-type-unknown", key=key, raw=amb.raw,
-                           bool_text=word)
-                continue
-            fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {word}",
-                      edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.yaml11),))
-            ctx.report(amb.path, "word-boolean", fix=fix, key=key, raw=amb.raw,
-                       replacement=word)
+            new = "true" if amb.yaml11 else "false"
+            if kind == "bool":
+                fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
+                          edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.yaml11),))
+                ctx.report(amb.path, "word-boolean", fix=fix, key=key, raw=amb.raw,
+                           replacement=new)
+            elif kind == "text":
+                # a text setting: PyYAML readers get the boolean, YAML 1.2 readers the text; no
+                # rewrite keeps both readings, so no fix: the hint says to quote it
+                ctx.report(amb.path, "word-boolean-text", key=key, raw=amb.raw, boolean=new)
+            else:  # a setting cfgcheck does not type (or of mixed type): say both, change nothing
+                ctx.report(amb.path, "word-boolean-unknown", key=key, raw=amb.raw,
+                           replacement=new)
         elif amb.kind == "leading-zero-octal":
             ctx.report(amb.path, "leading-zero-octal", key=key, raw=amb.raw,
                        yaml11=amb.yaml11, yaml12=amb.yaml12)
