@@ -1749,43 +1749,45 @@ TRAINING_OPTION = "--allow-training-changes"
 
 def summary_text(report: FixReport, *, dry: bool) -> str:
     """Per file and rule: what was (or, when ``dry``, would be) fixed, withheld or refused."""
+    from .findings import printable as P  # a key or file name never starts a line of its own
+
     verb = "would fix" if dry else "fixed"
     lines: list[str] = []
     fixes = withheld = 0
     for f in report.files:
         if f.problem is not None:
             p = f.problem
-            lines.append(f"{p.file}:{p.line}:{p.column}: input error: {p.reason} (not fixing)")
+            lines.append(f"{P(p.file)}:{p.line}:{p.column}: input error: {P(p.reason)} (not fixing)")
             continue
         if f.error is not None:
-            lines.append(f"{f.file}: internal error in the fix for {f.error.rule}: {f.error.error}"
+            lines.append(f"{P(f.file)}: internal error in the fix for {f.error.rule}: {P(f.error.error)}"
                          " (a bug in cfgcheck)")
             continue
         body = []
         if f.changed:
             for a in f.applied:
-                body.append(f"    {verb}: {a.summary} [{a.rule}]")
+                body.append(f"    {verb}: {P(a.summary)} [{a.rule}]")
             fixes += len(f.applied)
         for a in f.withheld:
-            body.append(f"    left as is (changes training, {TRAINING_OPTION}): {a.summary} [{a.rule}]")
+            body.append(f"    left as is (changes training, {TRAINING_OPTION}): {P(a.summary)} [{a.rule}]")
         withheld += len(f.withheld)
         for n in f.notes:
-            body.append(f"    note: {n}")
+            body.append(f"    note: {P(n)}")
         if f.refused:
-            body.append(f"    not written: {f.refused}")
+            body.append(f"    not written: {P(f.refused)}")
         if not body:
             continue
         if f.changed:
-            head = f"{f.file}: {len(f.applied)} fix{'es' if len(f.applied) != 1 else ''}"
+            head = f"{P(f.file)}: {len(f.applied)} fix{'es' if len(f.applied) != 1 else ''}"
         elif f.refused:
-            head = f"{f.file}: {len(f.applied)} fix{'es' if len(f.applied) != 1 else ''} not written"
+            head = f"{P(f.file)}: {len(f.applied)} fix{'es' if len(f.applied) != 1 else ''} not written"
         elif f.withheld:
-            head = (f"{f.file}: no fix applied; {len(f.withheld)} left that change training "
+            head = (f"{P(f.file)}: no fix applied; {len(f.withheld)} left that change training "
                     f"({TRAINING_OPTION})")
         elif any(a.rule for a in f.applied) or f.notes:
-            head = f"{f.file}: no fix applied"
+            head = f"{P(f.file)}: no fix applied"
         else:
-            head = f"{f.file}: nothing to fix"
+            head = f"{P(f.file)}: nothing to fix"
         if f.written:
             head += ", written"
         lines.append(head)

@@ -417,3 +417,11 @@ def test_linked_file_is_not_fixed_alone_when_its_partner_cannot_follow(tmp_path)
     report = api.fix([tmp_path], training=True, gpu="t4")
     assert trainer.read_text() == text and ds.read_text() == DS and not report.changed
     assert all(any("deepspeed-file-contradicts-config" in n for n in f.notes) for f in report.files)
+
+
+def test_fix_summary_escapes_keys_and_file_names(tmp_path):
+    p = tmp_path / "run\nx.yaml:1:1: error: forged.yaml"
+    p.write_text(HEAD.replace("2.0e-5", "2e-5") + '"odd\\nkey": on\n')
+    out = fix.summary_text(api.fix([p]), dry=True)
+    assert all(not line.startswith(("x.yaml", "key")) for line in out.splitlines())
+    assert "run\\nx.yaml" in out
