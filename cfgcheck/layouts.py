@@ -133,7 +133,6 @@ FIELD_TYPES: dict[str, str] = {
     "runtime.ddp_find_unused": "bool",
     "runtime.gc_reentrant": "bool",
     "runtime.fsdp_checkpointing": "bool",
-    "runtime.fsdp_orig_params": "bool",
     "runtime.fsdp_wrap": "names",
     "runtime.fsdp_version": "int",
     "runtime.fsdp_sharding": "any",
@@ -162,7 +161,6 @@ _RULE_FIELDS_TRAINER: dict[str, tuple[str, ...]] = {
                              "=activation_checkpointing_kwargs.use_reentrant"),
     "runtime.fsdp_checkpointing": ("=fsdp_config.activation_checkpointing",
                                    "=fsdp_config.fsdp_activation_checkpointing"),
-    "runtime.fsdp_orig_params": ("=fsdp_config.use_orig_params", "=fsdp_config.fsdp_use_orig_params"),
     "runtime.fsdp_wrap": ("=fsdp_config.transformer_layer_cls_to_wrap",
                           "=fsdp_config.fsdp_transformer_layer_cls_to_wrap"),
     "runtime.fsdp_version": ("=fsdp_config.fsdp_version", "=fsdp_config.version"),
@@ -190,7 +188,6 @@ _RULE_FIELDS_DEEPSPEED: dict[str, tuple[str, ...]] = {
 _RULE_FIELDS_ACCELERATE: dict[str, tuple[str, ...]] = {
     "runtime.zero3_save_16bit": ("=deepspeed_config.zero3_save_16bit_model",),
     "runtime.zero3_init": ("=deepspeed_config.zero3_init_flag",),
-    "runtime.fsdp_orig_params": ("=fsdp_config.fsdp_use_orig_params",),
     "runtime.fsdp_wrap": ("=fsdp_config.fsdp_transformer_layer_cls_to_wrap",),
     "runtime.fsdp_version": ("=fsdp_config.fsdp_version",),
 }
@@ -200,7 +197,6 @@ _RULE_FIELDS_AXOLOTL: dict[str, tuple[str, ...]] = {
     "quant.storage": ("bnb_4bit_quant_storage",),
     "runtime.ddp_find_unused": ("ddp_find_unused_parameters",),
     "runtime.gc_reentrant": ("=gradient_checkpointing_kwargs.use_reentrant",),
-    "runtime.fsdp_orig_params": ("=fsdp_config.fsdp_use_orig_params", "=fsdp_config.use_orig_params"),
     "runtime.fsdp_wrap": ("=fsdp_config.fsdp_transformer_layer_cls_to_wrap",
                           "=fsdp_config.transformer_layer_cls_to_wrap"),
     "runtime.fsdp_version": ("=fsdp_config.fsdp_version", "=fsdp_version"),

@@ -192,8 +192,7 @@ def checkpointing_ddp(ctx) -> None:
         return  # one process: no DistributedDataParallel wrapper
     reentrant = view.get("runtime.gc_reentrant")
     if reentrant is not None and reentrant.value is False:
-        ctx.report(unused, "non-reentrant", key=unused.key, gc_key=gc.key)
-        return
+        return  # non-reentrant checkpointing works with the search (it only costs a graph walk)
     if reentrant is not None and reentrant.value is True:
         ctx.report(unused, "reentrant", key=unused.key, gc_key=gc.key, reentrant_key=reentrant.key,
                    adapter=" with adapters" if view.is_adapter else "")
@@ -203,19 +202,6 @@ def checkpointing_ddp(ctx) -> None:
 
 
 # --------------------------------------------------------------------------- FSDP with adapters / quantisation
-
-@check("fsdp-adapter-without-orig-params")
-def fsdp_orig_params(ctx) -> None:
-    view = ctx.view
-    if not view.is_adapter or fsdp_on(view) is None or fsdp_version(view) == 2:
-        return
-    f = view.get("runtime.fsdp_orig_params")
-    if f is None or f.value is not False:
-        return
-    fix = Fix(tier="keeps-meaning", summary=f"{f.key}: false -> true",
-              edits=(Edit(path=f.path, old=f.written, new=True),))
-    ctx.report(f, fix=fix, key=f.key, method=view.method)
-
 
 _DTYPE_WORDS = {"bfloat16": "bfloat16", "bf16": "bfloat16", "float16": "float16", "fp16": "float16",
                 "half": "float16", "float32": "float32", "fp32": "float32", "float": "float32",
@@ -246,11 +232,13 @@ def quant_storage(ctx) -> None:
         model_dtype = None  # the weights' dtype is not written: bf16 mixed precision keeps fp32 or not
     storage = view.get("quant.storage")
     store = _dtype(storage.value) if storage is not None else None
-    if storage is None:
+    if storage is None and trainer_defaults_apply(view):
+        # the file is parsed into the trainer's arguments, so the bitsandbytes default applies
+        # (recipe runners may set the storage themselves)
         ctx.report(q, "missing", key=q.key, sharding=by,
                    dtype=model_dtype or "the model dtype")
         return
-    if store is None or model_dtype is None or store == model_dtype:
+    if storage is None or store is None or model_dtype is None or store == model_dtype:
         return
     new = dtype_f.written if isinstance(dtype_f.written, str) else model_dtype
     fix = Fix(tier="keeps-meaning", summary=f"{storage.key}: {storage.written} -> {new}",
@@ -279,6 +267,14 @@ DECODER_LAYER = {
 }
 
 
+def _other_family(name: str, own: str) -> bool:
+    """Whether NAME is the class of another family's model (it starts with that family's prefix
+    and not with this one's, or with a longer prefix such as Qwen2Moe for Qwen2)."""
+    others = [cls[: -len("DecoderLayer")] for cls in DECODER_LAYER.values()]
+    prefixes = [p for p in others if name.startswith(p)]
+    return bool(prefixes) and max(prefixes, key=len) != own
+
+
 @check("fsdp-wrap-class-not-in-model")
 def fsdp_wrap_class(ctx) -> None:
     view = ctx.view
@@ -297,7 +293,12 @@ def fsdp_wrap_class(ctx) -> None:
         ctx.cannot_judge("the decoder layer class of this model family is not in cfgcheck's table",
                          family=arch.family)
         return
-    if want in names:
+    own = want[: -len("DecoderLayer")]
+    # another class of the same model (a mixture-of-experts block) is a valid choice too:
+    # only names that belong to none of this family's classes are reported
+    if any(n == want or (n.startswith(own) and not _other_family(n, own)) for n in names):
+        return
+    if not all(_other_family(n, own) for n in names):
         return
     fix = None
     if isinstance(f.written, str) and len(names) == 1:
