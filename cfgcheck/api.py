@@ -29,7 +29,8 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
                   select: Iterable[str] | None = None, ignore: Iterable[str] | None = None,
                   severity: Mapping[str, str | Severity] | None = None,
                   thresholds: Mapping[str, Mapping[str, Any]] | None = None,
-                  debug: bool | None = None, cwd: Path | None = None) -> dict[str, Any]:
+                  debug: bool | None = None, cwd: Path | None = None,
+                  installed: Iterable[str] | Mapping[str, str] | None = None) -> dict[str, Any]:
     """The options a caller set explicitly, as engine values (None = not set).
     Raises ValueError (UnknownGpu) for a GPU name we do not know, ValueError for a bad severity."""
     return {
@@ -43,7 +44,17 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
         "thresholds": {r: dict(t) for r, t in thresholds.items()} if thresholds else None,
         "debug": debug,
         "cwd": cwd,
+        "versions": _installed(installed),
     }
+
+
+def _installed(items) -> dict[str, str] | None:
+    """``installed=["trl==0.12.2"]`` (or a mapping) -> {library: version}; None when not given."""
+    if not items:
+        return None
+    from .knowledge.pins import parse_installed
+
+    return parse_installed(items)
 
 
 def make_options(**options: Any) -> Options:

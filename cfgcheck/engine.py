@@ -36,6 +36,7 @@ class Options:
     cwd: Path | None = None
     debug: bool = False  # re-raise a failing rule instead of reporting it
     waivers: tuple[waivermod.ProjectWaiver, ...] = ()  # from the project configuration
+    versions: dict[str, str] = field(default_factory=dict)  # library -> release the run uses (--installed)
 
 
 @dataclass

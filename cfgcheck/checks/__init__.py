@@ -11,7 +11,7 @@ CHECKS: dict[str, Callable] = {}
 MODULES = ("loader", "adapter", "learning_rate", "chat_format", "precision", "batch", "memory",
            "warmup", "evaluation", "targets", "quant", "sequence", "runtime", "ranges",
            "unknown_keys", "waivers", "distributed", "preference",
-           "trainability")
+           "trainability", "releases")
 
 
 def check(rule_id: str) -> Callable[[Callable], Callable]:

@@ -38,7 +38,9 @@ def unknown_key(ctx) -> None:
         name = f"{parent}.{path[-1]}" if parent else path[-1]
         info = keys.lookup(name, layout)
         if info is not None:
-            if not info.current:
+            # key-not-in-release judges known keys against the release in use; this note stays
+            # for runs that leave that rule out
+            if not info.current and "key-not-in-release" not in ctx.active:
                 ctx.report(path, "not-current", on="key", key=name, versions=info.versions_text())
             continue
         near = keys.suggest(name, layout)
