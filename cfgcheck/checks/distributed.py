@@ -241,7 +241,7 @@ def quant_storage(ctx) -> None:
     if storage is None or store is None or model_dtype is None or store == model_dtype:
         return
     new = dtype_f.written if isinstance(dtype_f.written, str) else model_dtype
-    fix = Fix(tier="keeps-meaning", summary=f"{storage.key}: {storage.written} -> {new}",
+    fix = Fix(tier="changes-training", summary=f"{storage.key}: {storage.written} -> {new}",
               edits=(Edit(path=storage.path, old=storage.written, new=new),))
     ctx.report(storage, "differs", fix=fix, key=storage.key, storage=storage.value,
                dtype_key=dtype_f.key, dtype=dtype_f.value, sharding=by)
@@ -253,7 +253,7 @@ def fsdp_double_checkpointing(ctx) -> None:
     gc, ac = view.get("runtime.gradient_checkpointing"), view.get("runtime.fsdp_checkpointing")
     if gc is None or ac is None or gc.value is not True or ac.value is not True or gc.path == ac.path:
         return
-    fix = Fix(tier="keeps-meaning", summary=f"{gc.key}: true -> false (FSDP checkpoints the layers)",
+    fix = Fix(tier="changes-training", summary=f"{gc.key}: true -> false (FSDP checkpoints the layers)",
               edits=(Edit(path=gc.path, old=gc.written, new=False),))
     ctx.report(gc, fix=fix, key=gc.key, fsdp_key=ac.key)
 
@@ -302,7 +302,7 @@ def fsdp_wrap_class(ctx) -> None:
         return
     fix = None
     if isinstance(f.written, str) and len(names) == 1:
-        fix = Fix(tier="keeps-meaning", summary=f"{f.key}: {f.written} -> {want}",
+        fix = Fix(tier="changes-training", summary=f"{f.key}: {f.written} -> {want}",
                   edits=(Edit(path=f.path, old=f.written, new=want),))
     ctx.report(f, fix=fix, key=f.key, written=", ".join(names), family=arch.family, layer=want)
 
