@@ -68,6 +68,10 @@ def _fix_for(feature, f, gpu, view):
                    edits=(Edit(path=f.path, old=f.written, new=False),) + extra)
     if feature == "bf16" and isinstance(f.written, str):
         new = "float16" if f.written.strip().lower() == "bfloat16" else "fp16"
+        if f.name == "model.dtype" and view.method == "full":
+            # every weight trains: fp16 loss scaling needs fp32 master weights, and the scaler
+            # refuses fp16 ones (PyTorch GradScaler: "Attempting to unscale FP16 gradients.")
+            new = "float32" if new == "float16" else "fp32"
         return Fix(tier="changes-training", summary=f"{f.key}: {f.written} -> {new}",
                    edits=(Edit(path=f.path, old=f.written, new=new),))
     return None
