@@ -44,6 +44,9 @@ class Layout:
     number_reader: str = ""
     # keys left out take the transformers TrainingArguments defaults (the file is parsed into them)
     takes_trainer_defaults: bool = False
+    # the runner's validator refuses to merge an adapter into a quantised base ("" = it merges);
+    # the text it stops with, {bits} for 4 or 8
+    refuses_quantised_merge: str = ""
 
     @property
     def has_bare_names(self) -> bool:
@@ -381,6 +384,8 @@ AXOLOTL = Layout(
     # coerced by pydantic's lax mode.
     coerces_numbers=True,
     number_reader="axolotl validates the file with a pydantic model that converts this text to a float",
+    # axolotl utils/schemas/config.py check_qlora: adapter qlora + merge_lora + load_in_4bit/8bit raises
+    refuses_quantised_merge="Can't merge qlora if loaded in {bits}bit",
     default_method="full",
     # axolotl turns evaluation off itself when there is no eval data (core/builders/base.py)
     sections={"peft": ("lora_",), "loftq_config": ("loftq_",), "bnb_config_kwargs": ()},
@@ -644,3 +649,9 @@ NOT_TRAINING = {
     "pre-commit": {"repos"},
     "kubernetes": {"apiVersion", "kind", "metadata", "spec"},
 }
+
+
+def keys_read(layout: Layout) -> frozenset[str]:
+    """The keys this layout's field specs read: bare names, and dotted root paths ("a.b")."""
+    return frozenset(spec[1:] if spec.startswith("=") else spec
+                     for specs in layout.fields.values() for spec in specs)

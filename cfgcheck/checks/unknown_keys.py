@@ -7,6 +7,7 @@ there is never called a typo.
 
 from __future__ import annotations
 
+from ..layouts import keys_read
 from . import check
 
 
@@ -26,6 +27,7 @@ def unknown_key(ctx) -> None:
     if layout not in keys.layouts():
         return
     groups = keys._data()["by_parent"][layout]
+    read = keys_read(view.layout)
     sections = view.layout.sections
     for path, entry in ctx.doc.entries.items():
         if not path or entry.key is None or not all(isinstance(p, str) for p in path):
@@ -43,6 +45,8 @@ def unknown_key(ctx) -> None:
             if not info.current and "key-not-in-release" not in ctx.active:
                 ctx.report(path, "not-current", on="key", key=name, versions=info.versions_text())
             continue
+        if name in read:
+            continue  # a key cfgcheck reads for this layout (recipe scripts pass it on): not unknown
         near = keys.suggest(name, layout)
         if near is not None and near.lower() == name.strip().lower().replace(" ", "_"):
             ctx.report(path, "spelling", on="key", key=name, shown=repr(path[-1]), suggestion=near)
