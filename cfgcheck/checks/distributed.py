@@ -38,13 +38,18 @@ def main_path(view, ds, f):
     return tuple(prefix) + tuple(f.path)
 
 
+def link_path(view, ds) -> tuple:
+    """The key that brings a DeepSpeed config in: the inline block, or the key naming the file."""
+    link = view.get("runtime.deepspeed")
+    if link is not None:
+        return tuple(link.path)
+    return ("deepspeed",) if ds.doc is view.doc or ds.doc.name == view.doc.name else ()
+
+
 def _at(view, ds, f):
     """Where to report a DeepSpeed field: itself (inline), else the key naming the file."""
     path = main_path(view, ds, f)
-    if path is not None:
-        return path
-    link = view.get("runtime.deepspeed")
-    return link.path if link is not None else (f.path if f is not None else ())
+    return path if path is not None else link_path(view, ds)
 
 
 def zero_stage(view):
@@ -146,7 +151,6 @@ def deepspeed_replaces(ctx) -> None:
     view = ctx.view
     defaults = trainer_defaults_apply(view)
     for ds, label in deepspeed_views(view):
-        at = view.get("runtime.deepspeed")
         clip_ds = ds.get("optim.grad_clip")
         clip = view.get("optim.grad_clip")
         if clip_ds is None and "gradient_clipping" not in (ds.doc.data or {}):
@@ -156,7 +160,7 @@ def deepspeed_replaces(ctx) -> None:
             elif clip is None and defaults:
                 value, where = HF_DEFAULTS["optim.grad_clip"], "the transformers default"
             if value is not None and value > 0:
-                ctx.report(clip if clip is not None else (at.path if at else ()), "no-clipping",
+                ctx.report(clip if clip is not None else link_path(view, ds), "no-clipping",
                            key=clip.leaf if clip is not None else "max_grad_norm", value=value,
                            where=where, ds_file=label)
         sched_ds, sched = ds.get("optim.scheduler"), view.get("optim.scheduler")

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from ..schedule import TRAINER_DEFAULTS
 from . import check
-from .distributed import HF_DEFAULTS, main_path, trainer_defaults_apply
+from .distributed import HF_DEFAULTS, link_path, main_path, trainer_defaults_apply
 
 
 @check("checkpointing-with-kv-cache")
@@ -58,7 +58,7 @@ def deepspeed_contradicts(ctx) -> None:
                 continue
             if f is None and d.value is True and trainer_defaults_apply(view):
                 # the flag left out is False (TrainingArguments), and the integration compares it too
-                ctx.report(main_path(view, ds, d) or view.get("runtime.deepspeed"), "precision-default",
+                ctx.report(main_path(view, ds, d) or link_path(view, ds), "precision-default",
                            key=ours.rpartition(".")[2], ds_file=name, ds_key=d.key, ds_value=d.value)
                 continue
             if f is None or f.auto or not isinstance(f.value, bool) or f.value == d.value:
@@ -82,7 +82,7 @@ def deepspeed_contradicts(ctx) -> None:
                 continue
             if float(value) == float(d.value):
                 continue
-            ctx.report(f if f is not None else (main_path(view, ds, d) or view.get("runtime.deepspeed")),
+            ctx.report(f if f is not None else (main_path(view, ds, d) or link_path(view, ds)),
                        "default", key=hf_key, value=value, where=where, ds_file=name, ds_key=d.key,
                        ds_value=d.value)
 
