@@ -129,8 +129,9 @@ def zero3_save(ctx) -> None:
             fix = None
             path = main_path(view, ds, g)
             if path is not None:
-                fix = Fix(tier="keeps-meaning",
-                          summary=f"{'.'.join(map(str, path))}: false -> true (save a loadable model)",
+                fix = Fix(tier="changes-training",
+                          summary=f"{'.'.join(map(str, path))}: false -> true (save a loadable model; "
+                                  "the weights are gathered at each save)",
                           edits=(Edit(path=path, old=g.written, new=True),))
             ctx.report(_at(view, ds, g), "written", fix=fix, ds_file=label, ds_key=g.key,
                        method=method)
