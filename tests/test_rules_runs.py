@@ -212,3 +212,17 @@ def test_qlora_merge_is_an_error_only_where_the_runner_refuses_it():
     hits = _hits(lint(axolotl), "merge-into-quantised-base")
     assert [(f.severity, f.data["variant"]) for f in hits] == [(Severity.ERROR, "refused")]
     assert "Can't merge qlora if loaded in 4bit" in hits[0].message
+
+
+def test_accelerate_bf16_launch_with_an_fp16_deepspeed_file_is_refused(tmp_path):
+    # accelerate DeepSpeedPlugin.set_mixed_precision: "--mixed_precision arg cannot be set to
+    # bf16 when fp16 is set in the DeepSpeed config file"
+    (tmp_path / "ds.json").write_text(json.dumps({"fp16": {"enabled": True}, "zero_optimization": {"stage": 2}}))
+    launch = tmp_path / "launch.yaml"
+    launch.write_text("compute_environment: LOCAL_MACHINE\ndistributed_type: DEEPSPEED\nmixed_precision: bf16\n"
+                      "num_processes: 8\nmachine_rank: 0\ndeepspeed_config:\n  deepspeed_config_file: ds.json\n")
+    hits = [f for f in _lint_file(launch) if f.rule == "deepspeed-file-contradicts-config"]
+    assert [(f.key, f.severity, f.data["variant"]) for f in hits] == \
+        [("mixed_precision", Severity.ERROR, "launcher-precision")]
+    (tmp_path / "ds.json").write_text(json.dumps({"fp16": {"enabled": "auto"}, "zero_optimization": {"stage": 2}}))
+    assert [f for f in _lint_file(launch) if f.rule == "deepspeed-file-contradicts-config"] == []

@@ -65,6 +65,15 @@ def deepspeed_contradicts(ctx) -> None:
                 continue
             ctx.report(f, "precision", key=f.leaf, value=f.value, ds_file=name, ds_key=d.key,
                        ds_value=d.value)
+        mixed = view.get("precision.mixed")
+        if mixed is not None and isinstance(mixed.value, str):
+            # accelerate DeepSpeedPlugin.set_mixed_precision refuses the other half precision
+            word = mixed.value.strip().lower()
+            other = {"fp16": "precision.bf16", "bf16": "precision.fp16", "fp8": "precision.fp16"}.get(word)
+            d = ds.get(other) if other else None
+            if d is not None and d.value is True and not d.auto:
+                ctx.report(mixed, "launcher-precision", key=mixed.key, value=mixed.value, ds_file=name,
+                           ds_key=d.key)
         if not trainer_defaults_apply(view):
             continue
         # numbers the integration also compares: the DeepSpeed optimizer's lr and weight decay,
