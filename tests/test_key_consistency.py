@@ -48,7 +48,7 @@ def test_a_key_a_field_spec_reads_is_not_reported_unknown(layout, key):
     doc = load_text(json.dumps(_doc_with(key)), "case.json", "json")[0]
     view = build_view(doc, layout)
     out = engine.FileReport(file="case.json")
-    engine.lint_view(view, engine.Options(select=frozenset({"unknown-key"})), "case.json", out)
+    engine.lint_view(view, engine.Options(only=frozenset({"unknown-key"})), "case.json", out)
     assert [f.message for f in out.findings if f.key == key and _unknown(f)] == []
 
 
@@ -57,7 +57,7 @@ def test_adapter_and_tokenizer_keys_of_trainer_recipes_are_known(key):
     # keys that PEFT's LoraConfig, BitsAndBytesConfig and tokenizer setup take, which trainer-style
     # recipes write beside the training arguments
     text = f"model_name_or_path: acme/tiny-7b\nlearning_rate: 2.0e-5\nuse_peft: true\n{key}: x\n"
-    report = lint(text, select=["unknown-key"])
+    report = lint(text, only=["unknown-key"])
     assert [f for f in report.findings if f.key == key and _unknown(f)] == []
 
 
@@ -65,7 +65,7 @@ def test_a_misspelt_read_key_is_still_reported():
     # the exemption is for the exact keys read; a typo of one is still a typo (PEFT LoraConfig
     # spells init_lora_weights)
     report = lint("model_name_or_path: acme/tiny-7b\nlearning_rate: 2.0e-5\ninit_lora_weigths: true\n",
-                  select=["unknown-key"])
+                  only=["unknown-key"])
     assert "init_lora_weigths" in {f.key for f in report.findings}
 
 
