@@ -117,6 +117,14 @@ def zero3_save(ctx) -> None:
         if own.value is False:
             ctx.report(own, "launcher", key=own.key, stage_key=stage.key)
         return
+    launcher = view.get("runtime.distributed")
+    if stage is not None and stage.value == 3 and own is None and view.get("runtime.deepspeed") is None \
+            and launcher is not None and isinstance(launcher.value, str) \
+            and launcher.value.strip().upper() == "DEEPSPEED":
+        # accelerate builds the DeepSpeed config from its own fields: zero3_save_16bit_model
+        # defaults to false (accelerate DeepSpeedPlugin)
+        ctx.report(stage, "launcher-missing", stage_key=stage.key)
+        return
     for ds, label in deepspeed_views(view):
         st = ds.get("runtime.zero_stage")
         if st is None or st.value != 3:
