@@ -226,3 +226,14 @@ def test_accelerate_bf16_launch_with_an_fp16_deepspeed_file_is_refused(tmp_path)
         [("mixed_precision", Severity.ERROR, "launcher-precision")]
     (tmp_path / "ds.json").write_text(json.dumps({"fp16": {"enabled": "auto"}, "zero_optimization": {"stage": 2}}))
     assert [f for f in _lint_file(launch) if f.rule == "deepspeed-file-contradicts-config"] == []
+
+
+def test_a_launcher_linking_a_zero3_file_is_a_warning_that_says_the_assumption(tmp_path):
+    # the launch file does not name the trainer or the method: saving a full model is assumed
+    (tmp_path / "z3.json").write_text(json.dumps({"zero_optimization": {"stage": 3}}))
+    launch = tmp_path / "launch.yaml"
+    launch.write_text("compute_environment: LOCAL_MACHINE\ndistributed_type: DEEPSPEED\nnum_processes: 8\n"
+                      "machine_rank: 0\ndeepspeed_config:\n  deepspeed_config_file: z3.json\n")
+    hits = [f for f in _lint_file(launch) if f.rule == "zero3-save-without-gathered-weights"]
+    assert [(f.key, f.severity) for f in hits] == [("deepspeed_config.deepspeed_config_file", Severity.WARNING)]
+    assert "assumed" in hits[0].message

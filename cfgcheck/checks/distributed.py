@@ -132,6 +132,14 @@ def zero3_save(ctx) -> None:
         g = ds.get("runtime.zero3_save_16bit")
         if g is not None and (g.auto or g.value is not False):
             continue
+        if view.method is None:
+            # a launcher's DeepSpeed file: whether a full model is saved is not known here
+            if g is not None:
+                ctx.report(_at(view, ds, g), "launcher", key=f"{g.key} in {label}",
+                           stage_key=st.key)
+            else:
+                ctx.report(_at(view, ds, st), "launcher-missing", stage_key=f"{st.key} in {label}")
+            continue
         method = "full fine-tune" if view.method == "full" else "run"
         if g is not None:
             fix = None
@@ -210,6 +218,19 @@ def checkpointing_ddp(ctx) -> None:
         ctx.report(unused, "reentrant", key=unused.key, gc_key=gc.key, reentrant_key=reentrant.key,
                    adapter=" with adapters" if view.is_adapter else "")
         return
+    from ..knowledge.pins import version_key
+    from .releases import installed
+
+    pinned = installed(ctx).get("transformers")
+    if pinned is not None:
+        release = version_key(pinned[0])[:2]
+        if release >= (5, 0):
+            return  # 5.x checkpoints without reentrancy by default (modeling_utils.py)
+        if (4, 35) <= release:
+            ctx.report(unused, "reentrant-default", key=unused.key, gc_key=gc.key,
+                       version=pinned[0], where=pinned[1],
+                       adapter=" with adapters" if view.is_adapter else "")
+            return
     ctx.report(unused, "default", key=unused.key, gc_key=gc.key,
                adapter=" with adapters" if view.is_adapter else "")
 
