@@ -201,23 +201,11 @@ def deepspeed_replaces(ctx) -> None:
 
 # --------------------------------------------------------------------------- checkpointing under DDP
 
-@check("checkpointing-with-ddp-unused-parameters")
-def checkpointing_ddp(ctx) -> None:
-    view = ctx.view
-    gc = view.get("runtime.gradient_checkpointing")
-    unused = view.get("runtime.ddp_find_unused")
-    if gc is None or gc.value is not True or unused is None or unused.value is not True:
-        return
-    gpus, _ = ctx.num_gpus
-    if gpus == 1:
-        return  # one process: no DistributedDataParallel wrapper
-    reentrant = view.get("runtime.gc_reentrant")
-    if reentrant is not None and reentrant.value is False:
-        return  # non-reentrant checkpointing works with the search (it only costs a graph walk)
-    if reentrant is not None and reentrant.value is True:
-        ctx.report(unused, "reentrant", key=unused.key, gc_key=gc.key, reentrant_key=reentrant.key,
-                   adapter=" with adapters" if view.is_adapter else "")
-        return
+def _reentrant(ctx, view):
+    """(True | False | None, field or pin): whether checkpointing is reentrant, and what says so."""
+    written = view.get("runtime.gc_reentrant")
+    if written is not None and isinstance(written.value, bool):
+        return written.value, written
     from ..knowledge.pins import version_key
     from .releases import installed
 
@@ -225,14 +213,46 @@ def checkpointing_ddp(ctx) -> None:
     if pinned is not None:
         release = version_key(pinned[0])[:2]
         if release >= (5, 0):
-            return  # 5.x checkpoints without reentrancy by default (modeling_utils.py)
-        if (4, 35) <= release:
-            ctx.report(unused, "reentrant-default", key=unused.key, gc_key=gc.key,
-                       version=pinned[0], where=pinned[1],
-                       adapter=" with adapters" if view.is_adapter else "")
+            return False, pinned  # 5.x checkpoints without reentrancy by default (modeling_utils.py)
+        if release >= (4, 35):
+            return True, pinned
+    return None, None
+
+
+@check("checkpointing-with-ddp-unused-parameters")
+def checkpointing_ddp(ctx) -> None:
+    view = ctx.view
+    gc = view.get("runtime.gradient_checkpointing")
+    if gc is None or gc.value is not True:
+        return
+    unused = view.get("runtime.ddp_find_unused")
+    gpus, _ = ctx.num_gpus
+    if unused is None:
+        # the Trainer turns the search off with checkpointing only for a PreTrainedModel; an
+        # adapter-wrapped model (PeftModel) keeps find_unused_parameters=True
+        if not view.is_adapter or not trainer_defaults_apply(view) or gpus is None or gpus < 2:
             return
-    ctx.report(unused, "default", key=unused.key, gc_key=gc.key,
-               adapter=" with adapters" if view.is_adapter else "")
+        at, adapter, key = gc, "", "ddp_find_unused_parameters"
+        search = ("ddp_find_unused_parameters is not set, so the adapter-wrapped model keeps DDP's "
+                  "unused-parameter search on")
+    elif unused.value is True:
+        if gpus == 1:
+            return  # one process: no DistributedDataParallel wrapper
+        at, adapter, key = unused, " with adapters" if view.is_adapter else "", unused.key
+        search = f"{unused.key} is true"
+    else:
+        return
+    reentrant, why = _reentrant(ctx, view)
+    if reentrant is False:
+        return  # non-reentrant checkpointing works with the search (it only costs a graph walk)
+    if reentrant is True and not isinstance(why, tuple):
+        ctx.report(at, "reentrant", key=key, search=search, gc_key=gc.key, reentrant_key=why.key,
+                   adapter=adapter)
+    elif reentrant is True:
+        ctx.report(at, "reentrant-default", key=key, search=search, gc_key=gc.key, version=why[0],
+                   where=why[1], adapter=adapter)
+    else:
+        ctx.report(at, "default", key=key, search=search, gc_key=gc.key, adapter=adapter)
 
 
 # --------------------------------------------------------------------------- FSDP with adapters / quantisation

@@ -50,7 +50,7 @@ def installed(ctx) -> dict:
 
         out = {lib: (pin.version, pin.source) for lib, pin in pins_near(ctx.file, ctx.options.cwd).items()}
         for lib, version in (getattr(ctx.options, "versions", None) or {}).items():
-            out[lib] = (version, "--installed")
+            out[lib] = (version, "the --installed option")
         view.cache["installed"] = out
     return view.cache["installed"]
 
