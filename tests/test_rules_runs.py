@@ -237,3 +237,27 @@ def test_a_launcher_linking_a_zero3_file_is_a_warning_that_says_the_assumption(t
     hits = [f for f in _lint_file(launch) if f.rule == "zero3-save-without-gathered-weights"]
     assert [(f.key, f.severity) for f in hits] == [("deepspeed_config.deepspeed_config_file", Severity.WARNING)]
     assert "assumed" in hits[0].message
+
+
+def test_project_file_states_the_installed_release(tmp_path):
+    from cfgcheck import project as projectmod
+
+    (tmp_path / "cfgcheck.yaml").write_text("installed:\n  transformers: \"4.57.1\"\n")
+    cfg = tmp_path / "train.yaml"
+    cfg.write_text("model_name_or_path: acme/tiny-7b\nevaluation_strategy: steps\neval_steps: 10\n")
+    proj = projectmod.load(tmp_path / "cfgcheck.yaml")
+    report = api.lint([str(cfg)], project=proj)
+    hits = [f for f in report.findings if f.rule == "key-not-in-release"]
+    assert [(f.severity, f.data["version"]) for f in hits] == [(Severity.ERROR, "4.57.1")]
+    # the command line wins over the project file
+    report = api.lint([str(cfg)], project=proj, installed=["transformers==4.44.2"])
+    assert [f for f in report.findings if f.rule == "key-not-in-release"] == []
+
+
+def test_project_file_rejects_an_unknown_library(tmp_path):
+    from cfgcheck import project as projectmod
+
+    (tmp_path / "cfgcheck.yaml").write_text("installed:\n  numpy: \"1.26.0\"\n")
+    with pytest.raises(projectmod.ProjectError) as err:
+        projectmod.load(tmp_path / "cfgcheck.yaml")
+    assert "cfgcheck.yaml:2:" in str(err.value) and "numpy" in str(err.value) and "trl" in str(err.value)
