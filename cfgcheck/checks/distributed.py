@@ -383,4 +383,4 @@ def device_map_distributed(ctx) -> None:
         return
     q, bits = quantised_field(view)
     ctx.report(dm, "ddp-quantised" if q is not None else "ddp", key=dm.key, value=dm.written,
-               gpus=gpus, bits=bits or "")
+               gpus=gpus, bits=bits or "", base=f"an {bits}-bit" if bits == 8 else f"a {bits}-bit")

@@ -54,8 +54,8 @@ def generation_batch(ctx) -> None:
         return
     k = steps.value if steps is not None else (acc.value if acc is not None else 1)
     k_name = steps.key if steps is not None else (acc.key if acc is not None else
-                                                   "gradient_accumulation_steps (default 1)")
-    per_name = per.key if per is not None else "per_device_train_batch_size (default 8)"
+                                                   "gradient_accumulation_steps (default)")
+    per_name = per.key if per is not None else "per_device_train_batch_size (default)"
     local = per_v * k
     if gpus:
         total = local * gpus

@@ -48,9 +48,10 @@ def installed(ctx) -> dict:
     if "installed" not in view.cache:
         from ..knowledge.pins import pins_near
 
-        out = {lib: (pin.version, pin.source) for lib, pin in pins_near(ctx.file, ctx.options.cwd).items()}
+        out = {lib: (pin.version, f"pinned in {pin.source}")
+               for lib, pin in pins_near(ctx.file, ctx.options.cwd).items()}
         for lib, version in (getattr(ctx.options, "versions", None) or {}).items():
-            out[lib] = (version, "the --installed option")
+            out[lib] = (version, "stated with --installed or the project file")
         view.cache["installed"] = out
     return view.cache["installed"]
 
@@ -70,6 +71,7 @@ def key_not_in_release(ctx) -> None:
     newest = {lib: v[-1] for lib, v in scanned.items() if v}
     sections = view.layout.sections
     pins = None
+    reported: list[tuple] = []
     for path, entry in ctx.doc.entries.items():
         if not path or entry.key is None or not all(isinstance(p, str) for p in path):
             continue
@@ -79,6 +81,8 @@ def key_not_in_release(ctx) -> None:
         if parent not in groups:
             continue
         name = f"{parent}.{path[-1]}" if parent else path[-1]
+        if any(path[:len(p)] == p for p in reported):
+            continue  # inside a section already reported: the section says it
         info = keys.lookup(name, table)
         if info is None or not info.accepted:
             continue
@@ -97,11 +101,14 @@ def key_not_in_release(ctx) -> None:
             variant = "refused" if _REFUSES.get(table) else "ignored"
             ctx.report(path, variant, on="key", key=name, library=lib, version=pins[lib][0],
                        where=pins[lib][1], versions=versions)
+            reported.append(tuple(path))
         elif verdicts and not unpinned:
             lib = sorted(verdicts)[0]
             ctx.report(path, "between", on="key", key=name, library=lib, version=pins[lib][0],
                        where=pins[lib][1], versions=versions)
+            reported.append(tuple(path))
         elif not info.current:
             libs = sorted(info.accepted)
             ctx.report(path, "no-version", on="key", key=name, versions=versions,
                        newest=", ".join(f"{lib} {newest[lib]}" for lib in libs if lib in newest))
+            reported.append(tuple(path))
