@@ -261,3 +261,16 @@ def test_project_file_rejects_an_unknown_library(tmp_path):
     with pytest.raises(projectmod.ProjectError) as err:
         projectmod.load(tmp_path / "cfgcheck.yaml")
     assert "cfgcheck.yaml:2:" in str(err.value) and "numpy" in str(err.value) and "trl" in str(err.value)
+
+
+def test_broken_pin_files_are_passed_over(tmp_path):
+    # not the config: garbage, deep nesting, binary bytes and a folder named like a pin file
+    (tmp_path / "pyproject.toml").write_text("[project\n" + "a = [" * 5000 + "\n")
+    (tmp_path / "uv.lock").write_bytes(b"\xff\xfe\x00garbage\x00")
+    (tmp_path / "requirements-dev.txt").mkdir()
+    (tmp_path / "requirements.txt").write_text("trl==0.12.2\n\x00\x01 nonsense ==\n")
+    cfg = tmp_path / "sft.yaml"
+    cfg.write_text("learning_rate: 1.0e-5\n")
+    pins._folder_pins.cache_clear()
+    assert {lib: p.version for lib, p in pins.pins_near(str(cfg)).items()} == {"trl": "0.12.2"}
+    assert _lint_file(cfg) is not None

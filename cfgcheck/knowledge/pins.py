@@ -81,8 +81,8 @@ def _toml(text: str):
 
     try:
         return tomllib.loads(text)
-    except (tomllib.TOMLDecodeError, ValueError):
-        return None
+    except (tomllib.TOMLDecodeError, ValueError, RecursionError, MemoryError):
+        return None  # not the config: a pin file that cannot be parsed is passed over
 
 
 def _from_lock(text: str) -> dict[str, str]:
