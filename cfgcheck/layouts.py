@@ -154,6 +154,7 @@ FIELD_TYPES: dict[str, str] = {
     "data.max_completion": "int",
     "data.padding_free": "bool",
     "data.completion_only": "bool",
+    "data.assistant_only": "bool",
     "tokenizer.pad_token": "str",
     "tokenizer.eos_token": "str",
 }
@@ -182,6 +183,7 @@ _RULE_FIELDS_TRAINER: dict[str, tuple[str, ...]] = {
     "data.max_completion": ("max_completion_length",),
     "data.padding_free": ("padding_free",),
     "data.completion_only": ("completion_only_loss",),
+    "data.assistant_only": ("assistant_only_loss",),
     "tokenizer.pad_token": ("pad_token",),
     "tokenizer.eos_token": ("eos_token",),
 }

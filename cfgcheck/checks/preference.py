@@ -157,3 +157,43 @@ def key_of_another_trainer(ctx) -> None:
     for key, owners in g.strangers:
         ctx.report((key,), on="key", key=key, owners=", ".join(owners), family=g.family,
                    evidence=", ".join(g.evidence))
+
+
+def _trl_release(ctx):
+    """(version tuple, version text, where) of the TRL release in use, or None."""
+    from ..knowledge.pins import version_key
+    from .releases import installed
+
+    pinned = installed(ctx).get("trl")
+    if pinned is None:
+        return None
+    return version_key(pinned[0])[:2], pinned[0], pinned[1]
+
+
+@check("sft-batching-unsupported-by-release")
+def sft_batching(ctx) -> None:
+    view = ctx.view
+    if not _trl_trainer_file(view):
+        return
+    g = _guess(ctx)
+    if g.family not in (None, "SFT"):
+        return
+    packing = view.is_on("data.packing")
+    release = _trl_release(ctx)
+    pf = view.get("data.padding_free")
+    if pf is not None and pf.value is True and not packing:
+        ml = view.get("data.max_length")
+        if ml is None or ml.written is not None:
+            limit = ml.value if ml is not None else ctx.thresholds["default_max_length"]
+            where = f"{ml.key} {limit}" if ml is not None else f"max_length (default {limit})"
+            if release is None:
+                ctx.report(pf, "padding-free-unpinned", key=pf.key, length=where)
+            elif release[0] >= (1, 0):
+                ctx.report(pf, "padding-free", key=pf.key, length=where, version=release[1],
+                           where=release[2])
+    if packing and release is not None and release[0] == (0, 19):
+        for name in ("data.completion_only", "data.assistant_only"):
+            f = view.get(name)
+            if f is not None and f.value is True:
+                ctx.report(f, "masked-packing", key=f.key, packing_key=view.get("data.packing").key,
+                           version=release[1], where=release[2])
