@@ -176,8 +176,8 @@ def sft_batching(ctx) -> None:
     if not _trl_trainer_file(view):
         return
     g = _guess(ctx)
-    if g.family not in (None, "SFT"):
-        return
+    if g.family != "SFT":
+        return  # the guard and the packing mask belong to the SFT trainer (DPO has its own)
     packing = view.is_on("data.packing")
     release = _trl_release(ctx)
     pf = view.get("data.padding_free")
