@@ -22,6 +22,8 @@ from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
 
+from ..findings import OptionError
+
 LIBRARIES = ("transformers", "trl", "peft", "deepspeed", "accelerate")
 _MAX_BYTES = 4 * 1024 * 1024
 _MAX_UP = 8
@@ -170,7 +172,7 @@ def pins_near(file: str | None, cwd: Path | None = None) -> dict[str, Pin]:
 
 def parse_installed(items) -> dict[str, str]:
     """``["trl==0.12.2", "transformers=4.44"]`` or a mapping -> {library: version}.
-    Raises ValueError naming the item that is not ``LIBRARY==VERSION`` of a known library."""
+    Raises OptionError (a ValueError) naming the item that is not ``LIBRARY==VERSION`` of a known library."""
     if isinstance(items, dict):
         pairs = list(items.items())
     else:
@@ -178,14 +180,14 @@ def parse_installed(items) -> dict[str, str]:
         for item in items:
             m = re.fullmatch(r"\s*([A-Za-z0-9._-]+)\s*==?\s*([0-9][0-9A-Za-z.+-]*)\s*", str(item))
             if not m:
-                raise ValueError(f"--installed {item!r}: expected LIBRARY==VERSION, e.g. trl==0.12.2")
+                raise OptionError(f"--installed {item!r}: expected LIBRARY==VERSION, e.g. trl==0.12.2")
             pairs.append((m.group(1), m.group(2)))
     out = {}
     for name, version in pairs:
         lib = _norm(str(name))
         if lib not in LIBRARIES:
-            raise ValueError(f"--installed {name!r}: expected one of {', '.join(LIBRARIES)}")
+            raise OptionError(f"--installed {name!r}: expected one of {', '.join(LIBRARIES)}")
         if not version_key(str(version)):
-            raise ValueError(f"--installed {name}=={version}: not a release number")
+            raise OptionError(f"--installed {name}=={version}: not a release number")
         out[lib] = str(version)
     return out
