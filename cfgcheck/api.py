@@ -30,7 +30,8 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
                   severity: Mapping[str, str | Severity] | None = None,
                   thresholds: Mapping[str, Mapping[str, Any]] | None = None,
                   debug: bool | None = None, cwd: Path | None = None,
-                  overrides: Iterable[str] | None = None) -> dict[str, Any]:
+                  overrides: Iterable[str] | None = None,
+                  installed: Iterable[str] | Mapping[str, str] | None = None) -> dict[str, Any]:
     """The options a caller set explicitly, as engine values (None = not set).
     Raises UnknownGpu for a GPU name we do not know, OptionError for a bad severity (both are
     ValueErrors)."""
@@ -51,6 +52,7 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
         "debug": debug,
         "cwd": cwd,
         "overrides": _checked_overrides(overrides),
+        "versions": _installed(installed),
     }
 
 
@@ -65,6 +67,15 @@ def _checked_overrides(overrides: Iterable[str] | None) -> tuple[str, ...] | Non
         if (not text.startswith("~") and "=" not in text) or not key.lstrip("+").strip():
             raise ValueError(f"override {item!r} is not KEY=VALUE (or ~KEY to remove a key)")
     return out
+
+
+def _installed(items) -> dict[str, str] | None:
+    """``installed=["trl==0.12.2"]`` (or a mapping) -> {library: version}; None when not given."""
+    if not items:
+        return None
+    from .knowledge.pins import parse_installed
+
+    return parse_installed(items)
 
 
 def make_options(**options: Any) -> Options:

@@ -203,6 +203,8 @@ def lint(
                                       help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    installed: Optional[List[str]] = typer.Option(None, "--installed", metavar="LIBRARY==VERSION",
+                                                  help="A library release the run uses, e.g. trl==0.12.2 (repeat for several; wins over the pins found beside the config)."),
     only: Optional[List[str]] = typer.Option(None, "--only", autocompletion=_complete_rule,
                                              help="Run only this rule (repeat for several)."),
     skip: Optional[List[str]] = typer.Option(None, "--skip", autocompletion=_complete_rule,
@@ -249,6 +251,7 @@ def lint(
         "gpu": gpu, "gpus": gpus, "rows": rows, "debug": debug or None,
         "only": only or None, "skip": skip or None, "severity": levels or None,
         "overrides": override or None,
+        "installed": installed or None,
     }
     progress = None
     if not (quiet or summary) and sys.stderr.isatty():

@@ -37,6 +37,7 @@ class Options:
     debug: bool = False  # re-raise a failing rule instead of reporting it
     waivers: tuple[waivermod.ProjectWaiver, ...] = ()  # from the project configuration
     overrides: tuple[str, ...] = ()  # key=value overrides the launch passes (compose.py)
+    versions: dict[str, str] = field(default_factory=dict)  # library -> release the run uses (--installed)
 
 
 @dataclass

@@ -96,6 +96,9 @@ class Layout:
     # "loads-weights" (the fp16 flag also loads the weights as float16, so a full fine-tune
     # cannot use it), "refused" (the runner refuses fp16 training: bf16 or fp32 only)
     fp16_mode: str = "autocast"
+    # the runner's validator refuses to merge an adapter into a quantised base ("" = it merges);
+    # the text it stops with, {bits} for 4 or 8
+    refuses_quantised_merge: str = ""
 
     @property
     def has_bare_names(self) -> bool:
@@ -180,6 +183,89 @@ FIELD_TYPES: dict[str, str] = {
     "runtime.fsdp": "any",
     "launch.num_machines": "int",
     "adapter.tie": "bool",
+    # read by the distributed, preference/RL and trainability rules
+    "runtime.zero3_save_16bit": "bool",
+    "runtime.zero3_init": "bool",
+    "runtime.ddp_find_unused": "bool",
+    "runtime.gc_reentrant": "bool",
+    "runtime.fsdp_checkpointing": "bool",
+    "runtime.fsdp_wrap": "names",
+    "runtime.fsdp_version": "int",
+    "runtime.fsdp_sharding": "any",
+    "model.device_map": "any",
+    "model.low_cpu_mem": "bool",
+    "quant.storage": "str",
+    "rl.num_generations": "int",
+    "rl.generation_batch": "int",
+    "rl.steps_per_generation": "int",
+    "rl.max_new_tokens": "int",
+    "rl.engine_max_len": "int",
+    "rl.use_vllm": "bool",
+    "data.max_length": "int",
+    "data.max_prompt": "int",
+    "data.max_completion": "int",
+    "data.padding_free": "bool",
+    "data.completion_only": "bool",
+    "data.assistant_only": "bool",
+    "tokenizer.pad_token": "str",
+    "tokenizer.eos_token": "str",
+}
+
+# Field specs of the same rules, one block per layout (kept together so the tables stay readable)
+_RULE_FIELDS_TRAINER: dict[str, tuple[str, ...]] = {
+    "runtime.ddp_find_unused": ("ddp_find_unused_parameters",),
+    "runtime.gc_reentrant": ("=gradient_checkpointing_kwargs.use_reentrant",
+                             "=activation_checkpointing_kwargs.use_reentrant"),
+    "runtime.fsdp_checkpointing": ("=fsdp_config.activation_checkpointing",
+                                   "=fsdp_config.fsdp_activation_checkpointing"),
+    "runtime.fsdp_wrap": ("=fsdp_config.transformer_layer_cls_to_wrap",
+                          "=fsdp_config.fsdp_transformer_layer_cls_to_wrap"),
+    "runtime.fsdp_version": ("=fsdp_config.fsdp_version", "=fsdp_config.version"),
+    "model.device_map": ("device_map", "=model_init_kwargs.device_map"),
+    "model.low_cpu_mem": ("low_cpu_mem_usage", "=model_init_kwargs.low_cpu_mem_usage"),
+    "quant.storage": ("bnb_4bit_quant_storage",),
+    "rl.num_generations": ("num_generations",),
+    "rl.generation_batch": ("generation_batch_size",),
+    "rl.steps_per_generation": ("steps_per_generation",),
+    "rl.max_new_tokens": ("max_new_tokens",),
+    "rl.engine_max_len": ("vllm_max_model_length", "vllm_max_model_len"),
+    "rl.use_vllm": ("use_vllm",),
+    "data.max_length": ("max_length",),
+    "data.max_prompt": ("max_prompt_length",),
+    "data.max_completion": ("max_completion_length",),
+    "data.padding_free": ("padding_free",),
+    "data.completion_only": ("completion_only_loss",),
+    "data.assistant_only": ("assistant_only_loss",),
+    "tokenizer.pad_token": ("pad_token",),
+    "tokenizer.eos_token": ("eos_token",),
+}
+_RULE_FIELDS_DEEPSPEED: dict[str, tuple[str, ...]] = {
+    "runtime.zero3_save_16bit": ("=zero_optimization.stage3_gather_16bit_weights_on_model_save",
+                                 "=zero_optimization.stage3_gather_fp16_weights_on_model_save"),
+}
+_RULE_FIELDS_ACCELERATE: dict[str, tuple[str, ...]] = {
+    "runtime.zero3_save_16bit": ("=deepspeed_config.zero3_save_16bit_model",),
+    "runtime.zero3_init": ("=deepspeed_config.zero3_init_flag",),
+    "runtime.fsdp_wrap": ("=fsdp_config.fsdp_transformer_layer_cls_to_wrap",),
+    "runtime.fsdp_version": ("=fsdp_config.fsdp_version",),
+}
+_RULE_FIELDS_AXOLOTL: dict[str, tuple[str, ...]] = {
+    "model.device_map": ("device_map",),
+    "model.low_cpu_mem": ("low_cpu_mem_usage",),
+    "quant.storage": ("bnb_4bit_quant_storage",),
+    "runtime.ddp_find_unused": ("ddp_find_unused_parameters",),
+    "runtime.gc_reentrant": ("=gradient_checkpointing_kwargs.use_reentrant",),
+    "runtime.fsdp_wrap": ("=fsdp_config.fsdp_transformer_layer_cls_to_wrap",
+                          "=fsdp_config.transformer_layer_cls_to_wrap"),
+    "runtime.fsdp_version": ("=fsdp_config.fsdp_version", "=fsdp_version"),
+    "runtime.fsdp_sharding": ("fsdp",),
+    "runtime.fsdp_checkpointing": ("=fsdp_config.fsdp_activation_checkpointing",
+                                   "=fsdp_config.activation_checkpointing"),
+    "rl.num_generations": ("=trl.num_generations",),
+    "rl.max_new_tokens": ("=trl.max_new_tokens",),
+    "data.max_completion": ("=trl.max_completion_length",),
+    "tokenizer.pad_token": ("=special_tokens.pad_token",),
+    "tokenizer.eos_token": ("=special_tokens.eos_token",),
 }
 
 _TRAINER_SECTIONS: dict[str, tuple[str, ...]] = {
@@ -360,6 +446,7 @@ TRAINER = Layout(
         "runtime.fsdp": ("fsdp",),
         "hardware.num_gpus": ("num_gpus", "world_size", "nproc_per_node"),
         "hardware.num_machines": ("num_nodes", "nnodes"),
+        **_RULE_FIELDS_TRAINER,
     },
     signature={
         "learning_rate": 2, "per_device_train_batch_size": 3, "gradient_accumulation_steps": 2,
@@ -392,6 +479,7 @@ DEEPSPEED = Layout(
         "optim.weight_decay": ("=optimizer.params.weight_decay",),
         "optim.grad_clip": ("=gradient_clipping",),
         "runtime.zero_stage": ("=zero_optimization.stage",),
+        **_RULE_FIELDS_DEEPSPEED,
     },
     signature={
         "train_batch_size": 3, "train_micro_batch_size_per_gpu": 3, "zero_optimization": 3,
@@ -442,6 +530,8 @@ AXOLOTL = Layout(
     # coerced by pydantic's lax mode.
     coerces_numbers=True,
     number_reader="axolotl validates the file with a pydantic model that converts this text to a float",
+    # axolotl utils/schemas/config.py check_qlora: adapter qlora + merge_lora + load_in_4bit/8bit raises
+    refuses_quantised_merge="Can't merge qlora if loaded in {bits}bit",
     default_method="full",
     trainer_schedule=True,  # its scheduler and warm-up keys become TrainingArguments
     word_lists=frozenset({"transformers-strategies"}),
@@ -515,6 +605,7 @@ AXOLOTL = Layout(
         "runtime.deepspeed": ("deepspeed",),
         "runtime.fsdp": ("fsdp_config",),
         "export.merge": ("merge_lora",),
+        **_RULE_FIELDS_AXOLOTL,
     },
     signature={
         "base_model": 2, "adapter": 2, "micro_batch_size": 3, "num_epochs": 2, "sequence_len": 3,
@@ -714,6 +805,7 @@ ACCELERATE = Layout(
         "optim.grad_clip": ("=deepspeed_config.gradient_clipping",),
         "runtime.fsdp": ("=fsdp_config",),
         "runtime.gradient_checkpointing": ("=fsdp_config.fsdp_activation_checkpointing",),
+        **_RULE_FIELDS_ACCELERATE,
     },
     signature={
         "compute_environment": 3, "distributed_type": 3, "num_processes": 2, "num_machines": 2,
@@ -886,3 +978,9 @@ def layouts_markdown() -> str:
         where = f" in `{fmt.section}:`" if fmt.section else ""
         lines.append(f"* `{fmt.name}`: {fmt.title}; recognised by {how}{where}")
     return "\n".join(lines) + "\n"
+
+
+def keys_read(layout: Layout) -> frozenset[str]:
+    """The keys this layout's field specs read: bare names, and dotted root paths ("a.b")."""
+    return frozenset(spec[1:] if spec.startswith("=") else spec
+                     for specs in layout.fields.values() for spec in specs)

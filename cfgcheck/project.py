@@ -92,6 +92,12 @@ SCHEMA: dict[str, Any] = {
         "gate": _LEVEL,
         "show": _LEVEL,
         "baseline": {"type": "string", "minLength": 1},
+        # library -> the release the runs use (what --installed states), for key-not-in-release
+        "installed": {
+            "type": "object",
+            "propertyNames": {"enum": ["transformers", "trl", "peft", "deepspeed", "accelerate"]},
+            "additionalProperties": {"type": "string", "pattern": r"^[0-9]"},
+        },
     },
 }
 
@@ -348,6 +354,7 @@ class Project:
     gate: Severity | None = None
     show: Severity | None = None
     baseline: Path | None = None
+    installed: dict[str, str] = field(default_factory=dict)  # library -> release (``installed:``)
 
     def relative(self, file: str | Path) -> str | None:
         """The file's path relative to the project root, '/'-separated; None when outside it."""
@@ -390,6 +397,8 @@ class Project:
             "severity": dict(self.severity),
             "thresholds": {k: dict(v) for k, v in self.thresholds.items()},
         }
+        if self.installed:
+            values["versions"] = dict(self.installed)
         rel = self.relative(file)
         if rel is not None:
             for prof in self.profiles:
@@ -403,6 +412,8 @@ class Project:
                 continue
             if name in ("severity", "thresholds"):
                 values[name] = {**values[name], **value}
+            elif name == "versions":
+                values[name] = {**values.get("versions", {}), **value}
             elif name == "skip":
                 values[name] = frozenset(values["skip"]) | frozenset(value)
             else:
@@ -690,4 +701,5 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
         gate=Severity.parse(data["gate"]) if "gate" in data else None,
         show=Severity.parse(data["show"]) if "show" in data else None,
         baseline=(root / data["baseline"]) if "baseline" in data else None,
+        installed={str(k): str(v) for k, v in (data.get("installed") or {}).items()},
     )

@@ -58,8 +58,8 @@ def _setting_type(ctx, path: tuple) -> str | None:
             kind = _FIELD_KIND.get(FIELD_TYPES.get(f.name, "any"))
             if kind is not None:
                 return kind
-    layout = ctx.view.layout.name if ctx.view.layout is not None else None
-    return setting_type(layout, tuple(path))
+    table = ctx.view.layout.key_table if ctx.view.layout is not None else None
+    return setting_type(table, tuple(path))
 
 
 def _quoted(raw: str) -> str:

@@ -139,4 +139,12 @@ def merge_into_quantised(ctx) -> None:
     q = _quantised(view)
     if q is None or not view.is_adapter:
         return
+    refusal = view.layout.refuses_quantised_merge if view.layout is not None else ""
+    stated = view.method_field
+    if refusal and stated is not None and stated.name == "method" and isinstance(stated.written, str) \
+            and stated.written.strip().lower() == "qlora":
+        # the runner's own validator stops on this pair before anything is merged
+        ctx.report(m, "refused", key=m.key, quant_key=q.key, method_key=stated.key,
+                   method=stated.written, refusal=refusal.format(bits=4 if q.name != "quant.load_8bit" else 8))
+        return
     ctx.report(m, key=m.key, quant_key=q.key)

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from ..schedule import TRAINER_DEFAULTS
 from . import check
+from .distributed import HF_DEFAULTS, link_path, main_path, trainer_defaults_apply
 
 
 @check("checkpointing-with-kv-cache")
@@ -56,7 +57,45 @@ def deepspeed_contradicts(ctx) -> None:
             d, f = ds.get(theirs), view.get(ours)
             if d is None or d.auto or not isinstance(d.value, bool):
                 continue
+            if f is None and d.value is True and trainer_defaults_apply(view):
+                # the flag left out is False (TrainingArguments), and the integration compares it too
+                ctx.report(main_path(view, ds, d) or link_path(view, ds), "precision-default",
+                           key=ours.rpartition(".")[2], ds_file=name, ds_key=d.key, ds_value=d.value)
+                continue
             if f is None or f.auto or not isinstance(f.value, bool) or f.value == d.value:
                 continue
             ctx.report(f, "precision", key=f.leaf, value=f.value, ds_file=name, ds_key=d.key,
                        ds_value=d.value)
+        mixed = view.get("precision.mixed")
+        if mixed is not None and isinstance(mixed.value, str):
+            # accelerate DeepSpeedPlugin.set_mixed_precision refuses the other half precision
+            word = mixed.value.strip().lower()
+            other = {"fp16": "precision.bf16", "bf16": "precision.fp16", "fp8": "precision.fp16"}.get(word)
+            d = ds.get(other) if other else None
+            if d is not None and d.value is True and not d.auto:
+                ctx.report(mixed, "launcher-precision", key=mixed.key, value=mixed.value, ds_file=name,
+                           ds_key=d.key)
+        if not trainer_defaults_apply(view):
+            continue
+        # numbers the integration also compares: the DeepSpeed optimizer's lr and weight decay,
+        # and gradient_clipping, against the arguments (written or their defaults)
+        for ours, hf_key in (("optim.lr", "learning_rate"), ("optim.weight_decay", "weight_decay"),
+                             ("optim.grad_clip", "max_grad_norm")):
+            d, f = ds.get(ours), view.get(ours)
+            if d is None or d.auto or not _number(d.value):
+                continue
+            if f is not None and _number(f.value) and not f.auto:
+                value, where = f.value, "written"
+            elif f is None:
+                value, where = HF_DEFAULTS[ours], "the default"
+            else:
+                continue
+            if float(value) == float(d.value):
+                continue
+            ctx.report(f if f is not None else (main_path(view, ds, d) or link_path(view, ds)),
+                       "default", key=hf_key, value=value, where=where, ds_file=name, ds_key=d.key,
+                       ds_value=d.value)
+
+
+def _number(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)

@@ -1,0 +1,115 @@
+"""Keys that the release a project runs rejects or ignores: renamed and removed keys, judged
+against the versions pinned beside the config (or given with --installed)."""
+
+from __future__ import annotations
+
+from . import check
+
+# Whether the library that reads a key table refuses a key it does not declare (an error) or
+# passes over it (a warning): transformers' HfArgumentParser raises "Some keys are not used by the
+# HfArgumentParser"; accelerate's config loader raises on unknown keys ("The config file at ... had
+# unknown keys"); DeepSpeed and PEFT adapter configs are read more loosely (from memory).
+_REFUSES = {"trainer": True, "accelerate": True, "deepspeed": False, "peft-adapter": False}
+
+
+def _keys():
+    from ..knowledge import keys
+
+    return keys
+
+
+def _minor(v: str) -> tuple[int, ...]:
+    from ..knowledge.pins import version_key
+
+    return version_key(v)[:2]
+
+
+def _status(lib: str, first: str, last: str, pinned: str, scanned: list[str]) -> tuple[str, str]:
+    """'yes' | 'no' | 'unsure', and the scanned release that decides it."""
+    p = _minor(pinned)
+    lo, hi = _minor(first), _minor(last)
+    if lo <= p <= hi:
+        return "yes", last
+    minors = [_minor(v) for v in scanned]
+    if p > hi:
+        later = [v for v, m in zip(scanned, minors) if m > hi]
+        if later and p >= _minor(later[0]):
+            return "no", later[0]
+        return "unsure", later[0] if later else last
+    earlier = [v for v, m in zip(scanned, minors) if m < lo]
+    if earlier and p <= _minor(earlier[-1]):
+        return "no", earlier[-1]
+    return "unsure", first
+
+
+def installed(ctx) -> dict:
+    """{library: (version, where)}: --installed first, then the pins beside the config."""
+    view = ctx.view
+    if "installed" not in view.cache:
+        from ..knowledge.pins import pins_near
+
+        out = {lib: (pin.version, f"pinned in {pin.source}")
+               for lib, pin in pins_near(ctx.file, ctx.options.cwd).items()}
+        for lib, version in (getattr(ctx.options, "versions", None) or {}).items():
+            out[lib] = (version, "stated with --installed or the project file")
+        view.cache["installed"] = out
+    return view.cache["installed"]
+
+
+@check("key-not-in-release")
+def key_not_in_release(ctx) -> None:
+    view = ctx.view
+    if view.layout is None:
+        return
+    keys = _keys()
+    table = view.layout.key_table  # the key table of the libraries that read this kind of file
+    if table not in keys.layouts():
+        return
+    data = keys._data()
+    groups = data["by_parent"][table]
+    scanned = data["scanned"]
+    newest = {lib: v[-1] for lib, v in scanned.items() if v}
+    sections = view.layout.sections
+    pins = None
+    reported: list[tuple] = []
+    # parents before their keys, so a section reported once covers what is inside it
+    for path, entry in sorted(ctx.doc.entries.items(), key=lambda kv: len(kv[0])):
+        if not path or entry.key is None or not all(isinstance(p, str) for p in path):
+            continue
+        if path[0] in sections and isinstance(ctx.doc.get(path[:1]), dict):
+            continue
+        parent = ".".join(path[:-1])
+        if parent not in groups:
+            continue
+        name = f"{parent}.{path[-1]}" if parent else path[-1]
+        if any(path[:len(p)] == p for p in reported):
+            continue  # inside a section already reported: the section says it
+        info = keys.lookup(name, table)
+        if info is None or not info.accepted:
+            continue
+        if pins is None:
+            pins = installed(ctx)
+        verdicts = {}
+        for lib, (first, last) in info.accepted.items():
+            if lib in pins:
+                verdicts[lib] = _status(lib, first, last, pins[lib][0], scanned.get(lib, []))
+        if any(s == "yes" for s, _ in verdicts.values()):
+            continue
+        unpinned = [lib for lib in info.accepted if lib not in pins]
+        versions = info.versions_text()
+        if verdicts and not unpinned and all(s == "no" for s, _ in verdicts.values()):
+            lib = sorted(verdicts)[0]
+            variant = "refused" if _REFUSES.get(table) else "ignored"
+            ctx.report(path, variant, on="key", key=name, library=lib, version=pins[lib][0],
+                       where=pins[lib][1], versions=versions)
+            reported.append(tuple(path))
+        elif verdicts and not unpinned:
+            lib = sorted(verdicts)[0]
+            ctx.report(path, "between", on="key", key=name, library=lib, version=pins[lib][0],
+                       where=pins[lib][1], versions=versions)
+            reported.append(tuple(path))
+        elif not info.current:
+            libs = sorted(info.accepted)
+            ctx.report(path, "no-version", on="key", key=name, versions=versions,
+                       newest=", ".join(f"{lib} {newest[lib]}" for lib in libs if lib in newest))
+            reported.append(tuple(path))

@@ -1,0 +1,193 @@
+"""The releases of the training libraries a project pins, read from the files beside a config.
+
+Looked for in the config's folder and its parents (up to the folder that holds ``.git`` or a
+``pyproject.toml``, at most eight levels): ``requirements*.txt`` / ``constraints*.txt`` (exact
+``name==X`` pins only; ranges say nothing about the release that runs), ``pyproject.toml``
+(``[project]`` dependencies and optional dependencies, Poetry dependencies written as an exact
+version), and the lock files ``uv.lock``, ``poetry.lock`` and ``pdm.lock`` (``[[package]]`` name and
+version). The nearest folder wins; within a folder a lock file wins over a requirements file,
+which wins over ``pyproject.toml``. Files that cannot be read or parsed are passed over: they are
+not the config, so they are never an input problem. Each file is read once (at most 4 MB).
+
+>>> parse_requirement("transformers==4.44.2 ; python_version > '3.8'")
+('transformers', '4.44.2')
+>>> parse_requirement("trl>=0.12") is None
+True
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from functools import lru_cache
+from pathlib import Path
+
+from ..findings import OptionError
+
+LIBRARIES = ("transformers", "trl", "peft", "deepspeed", "accelerate")
+_MAX_BYTES = 4 * 1024 * 1024
+_MAX_UP = 8
+_REQ = re.compile(r"^\s*([A-Za-z0-9][A-Za-z0-9._-]*)\s*(?:\[[^\]]*\])?\s*===?\s*([0-9][0-9A-Za-z.+!-]*)\s*(?:[;#].*)?$")
+
+
+@dataclass(frozen=True)
+class Pin:
+    library: str
+    version: str
+    source: str  # the file that pins it, or "--installed" for the command line
+
+
+def _norm(name: str) -> str:
+    return re.sub(r"[-_.]+", "-", name).lower()
+
+
+def parse_requirement(line: str) -> tuple[str, str] | None:
+    """(name, version) of an exact pin ``name==X``, else None."""
+    m = _REQ.match(line)
+    if not m:
+        return None
+    return _norm(m.group(1)), m.group(2)
+
+
+def version_key(text: str) -> tuple[int, ...]:
+    """'4.44.2' -> (4, 44, 2); pre-release and local parts are dropped."""
+    out = []
+    for part in re.split(r"[.+!-]", text):
+        m = re.match(r"\d+", part)
+        if not m:
+            break
+        out.append(int(m.group()))
+    return tuple(out)
+
+
+def _read(path: Path) -> str | None:
+    try:
+        if not path.is_file() or path.stat().st_size > _MAX_BYTES:
+            return None
+        return path.read_text(encoding="utf-8", errors="replace")
+    except OSError:
+        return None
+
+
+def _from_requirements(text: str) -> dict[str, str]:
+    out = {}
+    for line in text.splitlines():
+        got = parse_requirement(line)
+        if got and got[0] in LIBRARIES:
+            out.setdefault(got[0], got[1])
+    return out
+
+
+def _toml(text: str):
+    import tomllib
+
+    try:
+        return tomllib.loads(text)
+    except (tomllib.TOMLDecodeError, ValueError, RecursionError, MemoryError):
+        return None  # not the config: a pin file that cannot be parsed is passed over
+
+
+def _from_lock(text: str) -> dict[str, str]:
+    data = _toml(text)
+    out = {}
+    if isinstance(data, dict):
+        for pkg in data.get("package", []) or []:
+            if isinstance(pkg, dict) and isinstance(pkg.get("name"), str) and isinstance(pkg.get("version"), str):
+                name = _norm(pkg["name"])
+                if name in LIBRARIES:
+                    out.setdefault(name, pkg["version"])
+    return out
+
+
+def _from_pyproject(text: str) -> dict[str, str]:
+    data = _toml(text)
+    out: dict[str, str] = {}
+    if not isinstance(data, dict):
+        return out
+    project = data.get("project") if isinstance(data.get("project"), dict) else {}
+    lines = list(project.get("dependencies") or [])
+    for extra in (project.get("optional-dependencies") or {}).values():
+        if isinstance(extra, list):
+            lines.extend(extra)
+    for line in lines:
+        got = parse_requirement(line) if isinstance(line, str) else None
+        if got and got[0] in LIBRARIES:
+            out.setdefault(got[0], got[1])
+    poetry = ((data.get("tool") or {}).get("poetry") or {}) if isinstance(data.get("tool"), dict) else {}
+    deps = poetry.get("dependencies") if isinstance(poetry, dict) else None
+    if isinstance(deps, dict):
+        for name, spec in deps.items():
+            version = spec.get("version") if isinstance(spec, dict) else spec
+            if isinstance(version, str) and re.fullmatch(r"=?=?\s*[0-9][0-9A-Za-z.+-]*", version.strip()):
+                if _norm(name) in LIBRARIES:
+                    out.setdefault(_norm(name), version.strip().lstrip("= "))
+    return out
+
+
+@lru_cache(maxsize=256)
+def _folder_pins(folder: str) -> tuple[tuple[Pin, ...], bool]:
+    """The pins found in one folder, and whether the search stops here (a project root)."""
+    path = Path(folder)
+    found: dict[str, Pin] = {}
+    try:
+        names = sorted(p.name for p in path.iterdir())
+    except OSError:
+        return (), False
+    locks = [n for n in names if n in ("uv.lock", "poetry.lock", "pdm.lock")]
+    reqs = [n for n in names if re.fullmatch(r"(requirements|constraints)[\w.-]*\.txt", n)]
+    for name in locks:
+        for lib, ver in _from_lock(_read(path / name) or "").items():
+            found.setdefault(lib, Pin(lib, ver, str(path / name)))
+    for name in reqs:
+        for lib, ver in _from_requirements(_read(path / name) or "").items():
+            found.setdefault(lib, Pin(lib, ver, str(path / name)))
+    if "pyproject.toml" in names:
+        for lib, ver in _from_pyproject(_read(path / "pyproject.toml") or "").items():
+            found.setdefault(lib, Pin(lib, ver, str(path / "pyproject.toml")))
+    root = ".git" in names or "pyproject.toml" in names
+    return tuple(found.values()), root
+
+
+def pins_near(file: str | None, cwd: Path | None = None) -> dict[str, Pin]:
+    """The pins that apply to a config file: the nearest folder's pin of each library wins."""
+    if not file or file.startswith("<"):
+        return {}
+    try:
+        path = Path(file) if Path(file).is_absolute() else (cwd or Path.cwd()) / file
+        if not path.is_file():
+            return {}  # text given without a file (lint_text): nothing lies beside it
+        folder = path.resolve().parent
+    except (OSError, RuntimeError):
+        return {}
+    out: dict[str, Pin] = {}
+    for _ in range(_MAX_UP):
+        pins, root = _folder_pins(str(folder))
+        for pin in pins:
+            out.setdefault(pin.library, pin)
+        if root or folder.parent == folder:
+            break
+        folder = folder.parent
+    return out
+
+
+def parse_installed(items) -> dict[str, str]:
+    """``["trl==0.12.2", "transformers=4.44"]`` or a mapping -> {library: version}.
+    Raises OptionError (a ValueError) naming the item that is not ``LIBRARY==VERSION`` of a known library."""
+    if isinstance(items, dict):
+        pairs = list(items.items())
+    else:
+        pairs = []
+        for item in items:
+            m = re.fullmatch(r"\s*([A-Za-z0-9._-]+)\s*==?\s*([0-9][0-9A-Za-z.+-]*)\s*", str(item))
+            if not m:
+                raise OptionError(f"--installed {item!r}: expected LIBRARY==VERSION, e.g. trl==0.12.2")
+            pairs.append((m.group(1), m.group(2)))
+    out = {}
+    for name, version in pairs:
+        lib = _norm(str(name))
+        if lib not in LIBRARIES:
+            raise OptionError(f"--installed {name!r}: expected one of {', '.join(LIBRARIES)}")
+        if not version_key(str(version)):
+            raise OptionError(f"--installed {name}=={version}: not a release number")
+        out[lib] = str(version)
+    return out

@@ -1,0 +1,78 @@
+"""Which TRL trainer a trainer-style file is written for, guessed from the keys only some
+trainers accept.
+
+The key lists (``known_keys.json``) name the class that declares each key, not the classes that
+inherit it, so configs are grouped into families of trainers that share their keys by
+inheritance or by design (TRL sources: NashMDConfig and XPOConfig extend OnlineDPOConfig,
+GKDConfig extends SFTConfig, the GRPO variants extend GRPOConfig; RLOOConfig was an on-policy
+PPO-style config before TRL 0.19 and a GRPO-style one after). A key is evidence for a family
+when every class that declares it belongs to that family.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+FAMILIES: dict[str, frozenset[str]] = {
+    "SFT": frozenset({"SFTConfig", "IterativeSFTConfig", "GKDConfig"}),
+    "offline preference (DPO, KTO, ORPO, CPO, BCO)": frozenset(
+        {"DPOConfig", "CPOConfig", "ORPOConfig", "KTOConfig", "BCOConfig", "TPOConfig", "A2POConfig"}),
+    "online preference (OnlineDPO, XPO, NashMD, GKD)": frozenset(
+        {"OnlineDPOConfig", "NashMDConfig", "XPOConfig", "GKDConfig"}),
+    "GRPO-style (GRPO, RLOO and their variants)": frozenset(
+        {"GRPOConfig", "RLOOConfig", "AsyncGRPOConfig", "GFPOConfig", "GRPOWithReplayBufferConfig",
+         "GMPOConfig", "PAPOConfig", "DPPOConfig", "MiniLLMConfig", "GOLDConfig", "DistillationConfig",
+         "AsyncDistillationConfig", "ServerDistillationConfig", "IWOPDConfig", "SDFTConfig",
+         "SDPOConfig", "SSDConfig", "SelfDistillationConfig", "ExampleSDFTConfig", "ExampleSDPOConfig"}),
+    "PPO": frozenset({"PPOConfig", "PPOv2Config", "OnPolicyConfig", "OnpolicyRuntimeConfig", "RLOOConfig"}),
+    "reward modelling": frozenset({"RewardConfig", "PRMConfig"}),
+}
+
+
+def _families_of(owners) -> frozenset[str]:
+    names = {o.split(".", 1)[1] for o in owners if o.startswith("trl.")}
+    return frozenset(f for f, members in FAMILIES.items() if names & members)
+
+
+def _trainer_classes(owners) -> list[str]:
+    return sorted(o.split(".", 1)[1] for o in owners
+                  if o.startswith("trl.") and any(o.split(".", 1)[1] in m for m in FAMILIES.values()))
+
+
+@dataclass(frozen=True)
+class Guess:
+    family: str | None  # the family the keys point to, None when they do not agree
+    evidence: tuple[str, ...]  # the keys that point to it
+    # keys no class of that family declares: (key, the classes that do)
+    strangers: tuple[tuple[str, tuple[str, ...]], ...]
+
+
+def guess(keys) -> Guess:
+    """The trainer family of a file from its top-level keys."""
+    from .keys import lookup
+
+    per_key: dict[str, frozenset[str]] = {}
+    owners_of: dict[str, tuple] = {}
+    for key in keys:
+        if not isinstance(key, str):
+            continue
+        info = lookup(key)
+        if info is None or any(not o.startswith("trl.") for o in info.owners):
+            continue  # unknown, or a TrainingArguments key every TRL config inherits
+        fams = _families_of(info.owners)
+        if not fams or len(_trainer_classes(info.owners)) < len([o for o in info.owners if o.startswith("trl.")]):
+            continue  # also declared by a script or model argument class: parsed beside the trainer
+        per_key[key] = fams
+        owners_of[key] = tuple(_trainer_classes(info.owners))
+    counts: dict[str, list[str]] = {}
+    for key, fams in per_key.items():
+        if len(fams) == 1:
+            counts.setdefault(next(iter(fams)), []).append(key)
+    if not counts:
+        return Guess(None, (), ())
+    ranked = sorted(counts.items(), key=lambda kv: (-len(kv[1]), kv[0]))
+    if len(ranked) > 1 and len(ranked[0][1]) == len(ranked[1][1]):
+        return Guess(None, (), ())
+    family, evidence = ranked[0]
+    strangers = tuple((k, owners_of[k]) for k, fams in per_key.items() if family not in fams)
+    return Guess(family, tuple(sorted(evidence)), strangers)
