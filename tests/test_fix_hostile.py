@@ -268,9 +268,11 @@ def test_commented_last_member_of_a_multiline_flow_mapping_keeps_its_comment():
 
 
 def test_appending_to_a_multiline_flow_list_keeps_the_last_comment_on_its_item():
-    text = ("model_name_or_path: copperleaf/base-3b\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\n"
+    # ChatML's markers are special tokens a Llama 2 base lacks, so the chat-format rule appends
+    # embed_tokens to the trainable modules (the head is listed already)
+    text = ("model_name_or_path: meta-llama/Llama-2-7b-hf\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\n"
             "lora_modules_to_save: [\n  lm_head  # the head already trains\n]\n"
-            "chat_template: \"<|role|>\"\nlearning_rate: 2.0e-4\n")
+            "chat_template: \"<|im_start|>user\"\nlearning_rate: 2.0e-4\n")
     result = fix.fix_text(text, "a.yaml", api.make_options(skip=["full-modules-at-adapter-lr"]),
                           training=True)
     assert result.error is None
@@ -280,8 +282,8 @@ def test_appending_to_a_multiline_flow_list_keeps_the_last_comment_on_its_item()
 
 # --------------------------------------------------------------------------- messages
 
-CHAT = ("model_name_or_path: copperleaf/base-3b\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\n"
-        "lora_target_modules: [q_proj, v_proj]\nchat_template: \"<|role|>\"\nlearning_rate: 2e-4\n")
+CHAT = ("model_name_or_path: meta-llama/Llama-2-7b-hf\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\n"
+        "lora_target_modules: [q_proj, v_proj]\nchat_template: \"<|im_start|>user\"\nlearning_rate: 2e-4\n")
 
 
 def test_new_finding_withholds_only_the_fix_that_brings_it_and_names_it():
