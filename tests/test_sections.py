@@ -67,8 +67,8 @@ def _signature(text: str) -> list[tuple]:
     assert report.problem is None and not report.internal
     out = []
     for f in report.findings:
-        if f.rule == "unknown-key":
-            continue  # about the spelling of keys, not about the run
+        if f.rule in ("unknown-key", "key-not-in-release"):
+            continue  # about the spelling of keys (and which releases accept it), not about the run
         numbers = tuple(sorted((k, v) for k, v in f.data.items()
                                if isinstance(v, (int, float)) and not isinstance(v, bool)))
         out.append((f.rule, f.severity.word, numbers))
