@@ -29,7 +29,8 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
                   select: Iterable[str] | None = None, ignore: Iterable[str] | None = None,
                   severity: Mapping[str, str | Severity] | None = None,
                   thresholds: Mapping[str, Mapping[str, Any]] | None = None,
-                  debug: bool | None = None, cwd: Path | None = None) -> dict[str, Any]:
+                  debug: bool | None = None, cwd: Path | None = None,
+                  launch: Iterable[str | Path] | None = None) -> dict[str, Any]:
     """The options a caller set explicitly, as engine values (None = not set).
     Raises ValueError (UnknownGpu) for a GPU name we do not know, ValueError for a bad severity."""
     return {
@@ -43,6 +44,7 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
         "thresholds": {r: dict(t) for r, t in thresholds.items()} if thresholds else None,
         "debug": debug,
         "cwd": cwd,
+        "launch": tuple(str(p) for p in launch) if launch else None,
     }
 
 
@@ -176,12 +178,13 @@ class PlanResult:
 
 
 def plan(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) -> PlanResult:
-    """The derived run of each training config (skipped files are left out); the project
-    file's hardware profiles apply as they do for ``lint``."""
+    """The derived run of each training config (skipped files are left out). Runs are opened
+    the way ``lint`` opens them (``cfgcheck.run``): linked files, launch context, runner
+    defaults, the project file's hardware profiles and launch files."""
     from .findings import InputProblem
-    from .load import LoadError, load_path
+    from .load import LoadError
     from .plan import derive_plan, model_of
-    from .view import build_view
+    from .run import open_path
 
     files, options_for, _proj = _targets(list(paths), project, given_options(**options))
     out = PlanResult()
@@ -190,16 +193,16 @@ def plan(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) 
             continue
         opts = options_for(file)
         try:
-            _src, docs = load_path(file)
+            runs = open_path(file, opts)
         except LoadError as exc:
             out.problems.append(InputProblem(file=file, line=exc.line, column=exc.column, reason=exc.reason))
             continue
-        for doc in docs:
-            view = build_view(doc)
+        for run in runs:
+            view = run.view
             if view.skipped:
                 continue
             arch = model_of(view, file, opts.cwd)
-            out.plans.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=opts.gpus, rows=opts.rows)))
+            out.plans.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=run.gpus, rows=opts.rows)))
     return out
 
 

@@ -156,6 +156,7 @@ def lint(
                                       help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
     rule: Optional[List[str]] = typer.Option(None, "--rule", autocompletion=_complete_rule,
                                              help="Run only this rule (repeat for several)."),
     skip_rule: Optional[List[str]] = typer.Option(None, "--skip-rule", autocompletion=_complete_rule,
@@ -195,7 +196,7 @@ def lint(
     levels = _severity_pairs(severity or [])
     _unknown_rules(levels)
     chosen = {
-        "gpu": gpu, "gpus": gpus, "rows": rows, "debug": debug or None,
+        "gpu": gpu, "gpus": gpus, "rows": rows, "debug": debug or None, "launch": launch or None,
         "select": rule or None, "ignore": skip_rule or None, "severity": levels or None,
     }
     progress = None
@@ -256,6 +257,7 @@ def plan(
     gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows."),
+    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
     fmt: PlanFormat = typer.Option(PlanFormat.text, "--format", help="Output format."),
     no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (their hardware profiles)."),
 ) -> None:
@@ -266,7 +268,8 @@ def plan(
     from .project import ProjectError
 
     try:
-        result = api.plan(paths, gpu=gpu, gpus=gpus, rows=rows, project=None if no_project else "auto")
+        result = api.plan(paths, gpu=gpu, gpus=gpus, rows=rows, launch=launch or None,
+                          project=None if no_project else "auto")
     except ValueError as exc:  # an unknown GPU name
         _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
     except ProjectError as exc:
@@ -294,6 +297,7 @@ def fix(
     gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
     no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (hardware profiles, rule selection, waivers)."),
 ) -> None:
     """Rewrite the values rules can fix, in place, keeping every other byte; each rewrite is proven first."""
@@ -304,7 +308,7 @@ def fix(
     try:
         report = api.fix(paths, training=training, halve_batch=halve_batch,
                          write=not (diff or no_write), project=None if no_project else "auto",
-                         gpu=gpu, gpus=gpus, rows=rows)
+                         gpu=gpu, gpus=gpus, rows=rows, launch=launch or None)
     except ValueError as exc:  # an unknown GPU name
         _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
     except ProjectError as exc:

@@ -36,6 +36,9 @@ class Options:
     cwd: Path | None = None
     debug: bool = False  # re-raise a failing rule instead of reporting it
     waivers: tuple[waivermod.ProjectWaiver, ...] = ()  # from the project configuration
+    launch: tuple[str, ...] = ()  # launch files the run is started with (--launch, project file)
+    gpus_from: str = ""  # where ``gpus`` came from, in words ("--gpus", "cfgcheck.yaml profile")
+    script: Any = None  # scripts.ScriptLaunch: a launch script in the tree that names this config
 
 
 @dataclass
@@ -97,6 +100,7 @@ class Context:
                  active: frozenset[str] = frozenset(),
                  waiver_paths: dict[int, list[tuple]] | None = None):
         self.view = view
+        self.run = view.run  # the opened run (cfgcheck.run.OpenedRun): launch context, GPUs
         self.waivers = waivers or []  # waiver comments of this document
         self.waiver_paths = waiver_paths or {}  # target line -> key paths written on it
         self.earlier = earlier or []  # findings of the rules that ran before (stage: last)
@@ -119,14 +123,14 @@ class Context:
 
     @property
     def num_gpus(self) -> tuple[int | None, Field | None]:
-        """GPUs in the job: the command line wins, then the config itself."""
-        if self.options.gpus:
-            return self.options.gpus, None
-        f = self.view.get("hardware.num_gpus")
-        if f is not None and isinstance(f.value, int) and f.value > 0:
-            machines = self.view.value("hardware.num_machines", 1)
-            return f.value * (machines if isinstance(machines, int) and machines > 0 else 1), f
-        return None, None
+        """GPUs in the job, as the opened run resolved them: the command line or project profile,
+        then the launch context, then the config itself. (None, None) when nothing says it."""
+        run = self.run
+        if run is None:
+            from .run import open_view
+
+            run = self.run = open_view(self.view, self.file, self.options)
+        return run.gpus, run.gpus_field
 
     def model(self):
         """The base model's architecture when it can be known offline, else None."""
@@ -136,8 +140,19 @@ class Context:
 
     # reporting --------------------------------------------------------------
     def report(self, at: Field | tuple | None = None, variant: str = "default", *,
-               on: str = "value", fix: Fix | None = None, **data: Any) -> None:
+               on: str = "value", fix: Fix | None = None, assumed: Iterable[Field | str] = (),
+               **data: Any) -> None:
+        """Report a finding on ``at``. ``assumed``: the values (or words) the verdict rests on
+        that nothing written, linked, launched, flagged or defaulted says; with any, the finding
+        is at most a warning and its message names the assumptions."""
         span = None
+        notes = []
+        for a in list(assumed) + ([at] if isinstance(at, Field) else []):
+            if isinstance(a, Field):
+                if a.origin == "assumed":
+                    notes.append(a.note or f"{a.name} assumed")
+            elif a:
+                notes.append(str(a))
         if isinstance(at, waivermod.Waiver):  # a comment: located where it is written
             span = at.span
             paths = self.waiver_paths.get(at.target, []) if at.target else []
@@ -146,7 +161,7 @@ class Context:
             path = at.path if isinstance(at, Field) else tuple(at or ())
         self._sink.append(
             make_finding(self.rule, self.options, self.doc, self.file, path, variant, on, data,
-                         fix, span)
+                         fix, span, assumptions=tuple(dict.fromkeys(notes)))
         )
 
     def cannot_judge(self, what: str, **data: Any) -> None:
@@ -196,12 +211,19 @@ def _finding(*, rule: str, severity: Severity, doc: Document, file: str, path: t
 
 def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: tuple,
                  variant: str, on: str, data: dict[str, Any], fix: Fix | None,
-                 span=None) -> Finding:
-    """The one place findings are made."""
+                 span=None, assumptions: tuple[str, ...] = ()) -> Finding:
+    """The one place findings are made. A verdict that rests on an assumption is at most a
+    warning, whatever the rule, its variant or an override says, and says what it assumed."""
     msg = rule.messages[variant]
     severity = options.severity.get(rule.id) or msg.severity or rule.severity
+    message = _fill(msg.message, data)
+    if assumptions:
+        data = dict(data, assumptions=list(assumptions))
+        message += " (" + "; ".join(f"assuming {a}" for a in assumptions) + ")"
+        if severity > Severity.WARNING:
+            severity = Severity.WARNING
     return _finding(rule=rule.id, severity=severity, doc=doc, file=file, path=path, on=on,
-                    message=_fill(msg.message, data), hint=_fill(msg.hint, data),
+                    message=message, hint=_fill(msg.hint, data),
                     data=dict(data, variant=variant) if variant != "default" else dict(data),
                     fix=fix, span=span)
 
@@ -290,16 +312,15 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             line = w.target or w.line
             owner = next((i for end, i in ends if line <= end), ends[-1][1] if ends else None)
             owners.setdefault(owner, []).append(w)
-    for doc in docs:
-        view = build_view(doc, layout)
+    from .run import open_documents  # the one open path: links, launch context, defaults
+
+    for run in open_documents(docs, file, options, layout):
+        view, doc = run.view, run.view.doc
         report.views.append(view)
         if view.skipped:
             reasons.append(view.skipped)
             continue
         report.layout = report.layout or view.layout.name
-        from .links import attach_linked  # the linked DeepSpeed / accelerate files
-
-        attach_linked(view, file, options.cwd)
         mine = owners.get(doc.index, []) if len(docs) > 1 else waivers
         lint_view(view, options, file, report, mine)
     if not report.layout:

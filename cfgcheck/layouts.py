@@ -125,6 +125,10 @@ FIELD_TYPES: dict[str, str] = {
     "runtime.fsdp": "any",
     "launch.num_machines": "int",
     "adapter.tie": "bool",
+    # online RL trainers (TRL GRPO): completions per prompt, and the two halves of a sequence
+    "rl.generations": "int",
+    "data.prompt_len": "int",
+    "data.completion_len": "int",
 }
 
 _TRAINER_SECTIONS: dict[str, tuple[str, ...]] = {
@@ -221,6 +225,9 @@ TRAINER = Layout(
         "runtime.fsdp": ("fsdp",),
         "hardware.num_gpus": ("num_gpus", "world_size", "nproc_per_node"),
         "hardware.num_machines": ("num_nodes", "nnodes"),
+        "rl.generations": ("num_generations",),
+        "data.prompt_len": ("max_prompt_length",),
+        "data.completion_len": ("max_completion_length",),
     },
     signature={
         "learning_rate": 2, "per_device_train_batch_size": 3, "gradient_accumulation_steps": 2,

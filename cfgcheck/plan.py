@@ -18,6 +18,7 @@ from .knowledge.memory import MemoryBreakdown, MemoryInputs, changes_that_fit, e
 from .knowledge import models as _models
 from .knowledge.models import Architecture, UnsupportedFamily, lora_scale, total_parameters
 from .schedule import Schedule, derive_for, resolve_interval
+from .defaults import ALL_LINEAR_WORDS
 from .view import RunView
 
 DEFAULT_SEQ_LEN = 2048  # assumed when the config sets none (common practice, no source)
@@ -47,7 +48,10 @@ class Plan:
     memory: MemoryBreakdown | None = None
     memory_problem: str | None = None  # why there is no estimate
     gpu: Gpu | None = None
-    assumptions: list[str] = field(default_factory=list)
+    assumptions: list[str] = field(default_factory=list)  # guesses: nothing says these (words)
+    defaults: list[str] = field(default_factory=list)  # runner defaults and launch values used (words)
+    context: str = ""  # the launch context the plan used, in words
+    gpus_assumed: bool = False  # the GPU count matters (sharded) and nothing names it
 
     @property
     def rslora_alpha(self) -> int | None:
@@ -93,18 +97,23 @@ class Plan:
             "memory": mem,
             "memory_problem": self.memory_problem,
             "assumptions": list(self.assumptions),
+            "defaults": list(self.defaults),
+            "launch_context": self.context,
+            "sharding": self.memory_inputs.sharding if self.memory_inputs else None,
+            "num_gpus": self.schedule.gpus if self.schedule else None,
         }
 
 
 def _storage(view: RunView, arch: Architecture | None, method: str, plan: Plan) -> str:
-    if method == "qlora" or view.is_on("quant.load_4bit"):
-        qtype = view.value("quant.type_4bit")
+    if method == "qlora" or view.effective_on("quant.load_4bit"):
+        qf = view.effective("quant.type_4bit")
+        qtype = qf.value if qf is not None else None
         if qtype is None:
-            plan.assumptions.append("bnb_4bit_quant_type not set: bitsandbytes' default fp4")
+            plan.defaults.append("bnb_4bit_quant_type not set: bitsandbytes' own default fp4")
         return "nf4" if str(qtype or "fp4").lower() == "nf4" else "fp4"
-    if view.is_on("quant.load_8bit"):
+    if view.effective_on("quant.load_8bit") or view.effective_value("quant.bits") == 8:
         return "int8"
-    dtype = view.value("model.dtype")
+    dtype = view.effective_value("model.dtype")
     if isinstance(dtype, str):
         word = dtype.strip().lower()
         if word == "auto" and arch is not None and arch.torch_dtype:
@@ -112,30 +121,15 @@ def _storage(view: RunView, arch: Architecture | None, method: str, plan: Plan) 
         if word in _DTYPES:
             return _DTYPES[word]
     if dtype is None and method != "full":
-        return "bf16" if (view.is_on("precision.bf16") or not view.is_on("precision.fp16")) else "fp16"
-    plan.assumptions.append("no torch_dtype: weights loaded in fp32 (the transformers default)")
+        return "bf16" if (view.effective_on("precision.bf16") or not view.effective_on("precision.fp16")) else "fp16"
+    plan.defaults.append("no torch_dtype: weights loaded in fp32 (the transformers default)")
     return "fp32"
 
 
-def _sharding(view: RunView) -> str:
-    stage = view.value("runtime.zero_stage")
-    for attached in view.attached:
-        stage = stage if stage is not None else attached.value("runtime.zero_stage")
-    if isinstance(stage, int) and stage in (1, 2, 3):
-        return f"zero{stage}"
-    fsdp = view.value("runtime.fsdp")
-    if isinstance(fsdp, str):
-        if "full_shard" in fsdp or "hybrid_shard" in fsdp:
-            return "fsdp_full"
-        if "shard_grad_op" in fsdp:
-            return "fsdp_grad_op"
-    return "none"
-
-
 def _mixed(view: RunView, storage: str, sharding: str) -> str | None:
-    wants = "bf16" if view.is_on("precision.bf16") else "fp16" if view.is_on("precision.fp16") else None
-    mixed = view.value("precision.mixed")
-    if isinstance(mixed, str) and mixed.lower() in ("bf16", "fp16"):
+    wants = "bf16" if view.effective_on("precision.bf16") else "fp16" if view.effective_on("precision.fp16") else None
+    mixed = view.effective_value("precision.mixed")
+    if wants is None and isinstance(mixed, str) and mixed.lower() in ("bf16", "fp16"):
         wants = mixed.lower()
     if wants is None:
         return None
@@ -144,38 +138,53 @@ def _mixed(view: RunView, storage: str, sharding: str) -> str | None:
     return None  # 16-bit weights trained directly: no master copy (measured, see knowledge.memory)
 
 
+def _words(f) -> str:
+    return f.note or f"{f.name} = {f.value}"
+
+
 def model_of(view: RunView, file: str, cwd: Path | None) -> Architecture | None:
     """The base model's architecture when it can be known offline (cached on the view)."""
-    if "model" in view.cache:
-        return view.cache["model"]
+    if view.model_found is not None:
+        return view.model_found[0]
     ref = view.value("model.ref")
     arch = None
     if isinstance(ref, str) and ref.strip():
         parent = Path(file).parent if file and not file.startswith("<") else None
         arch = _models.resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(os.getcwd()))
-    view.cache["model"] = arch
+    view.model_found = (arch,)
     return arch
 
 
 def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gpus: int | None,
                 rows: int | None) -> Plan:
+    """The derived run of an opened view (``cfgcheck.run.open_view``): launch context, linked
+    files and runner defaults are read through ``view.effective``; ``gpus`` as the run resolved."""
+    run = view.run
     ref = view.value("model.ref")
     plan = Plan(method=view.method, method_stated=view.method_stated,
                 model_ref=ref if isinstance(ref, str) else None, arch=arch, gpu=gpu)
+    if run is not None:
+        plan.context = run.context_words()
     sched = derive_for(view, gpus=gpus, rows=rows)
     plan.schedule = sched
     for name in sched.defaults_used:
-        plan.assumptions.append(f"{name} not set: the trainer default")
-    seq = view.value("data.seq_len")
+        plan.defaults.append(f"{name} not set: the trainer default")
+    for name in sorted(view.supplied):
+        f = view.supplied[name]
+        if f.origin in ("default", "launch", "linked") and f.note:
+            plan.defaults.append(f.note)
+    seq_f = view.effective("data.seq_len")
+    seq = seq_f.value if seq_f is not None else None
     if not isinstance(seq, int) or seq <= 0:
         seq, plan.seq_len_assumed = DEFAULT_SEQ_LEN, True
-        plan.assumptions.append(f"no sequence length set: {DEFAULT_SEQ_LEN} assumed")
+        plan.assumptions.append(f"sequence length {DEFAULT_SEQ_LEN} because the file names none "
+                                f"(set max_length, or the runner's own sequence-length key)")
     plan.seq_len = seq
     if sched.effective_batch:
         plan.tokens_per_step = sched.effective_batch * seq
     lr = view.value("optim.lr")
     plan.learning_rate = float(lr) if isinstance(lr, (int, float)) and not isinstance(lr, bool) else None
-    rank, alpha = view.value("adapter.rank"), view.value("adapter.alpha")
+    rank, alpha = view.effective_value("adapter.rank"), view.effective_value("adapter.alpha")
     if view.is_adapter and isinstance(rank, int) and rank > 0 and isinstance(alpha, (int, float)):
         plan.adapter_scale = lora_scale(alpha, rank, view.is_on("adapter.rslora"))
         if plan.learning_rate is not None:
@@ -202,6 +211,10 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     try:
         plan.total_parameters = total_parameters(arch)
         inputs = memory_inputs(view, arch, plan, gpus=sched.gpus)
+        if inputs.sharding != "none" and (run is None or run.gpus is None):
+            plan.gpus_assumed = True
+            plan.assumptions.append(f"1 GPU because nothing names the GPU count, so {inputs.sharding} "
+                                    f"shards nothing (pass --gpus N or --launch FILE)")
         plan.memory_inputs = inputs
         plan.memory = estimate_memory(inputs)
         plan.trainable_parameters = plan.memory.trainable_parameters
@@ -211,31 +224,72 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     return plan
 
 
+def _targets(view: RunView):
+    targets = view.effective_value("adapter.targets")
+    if isinstance(targets, str):
+        if targets.strip().lower() in ALL_LINEAR_WORDS:
+            return "all-linear"
+        if "," in targets:  # a comma-separated list (LLaMA-Factory's lora_target)
+            return [t.strip() for t in targets.split(",") if t.strip()]
+    if isinstance(targets, list) and len(targets) == 1 and str(targets[0]).strip().lower() in ALL_LINEAR_WORDS:
+        return "all-linear"
+    return targets
+
+
 def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int) -> MemoryInputs:
     method = view.method
     storage = _storage(view, arch, method, plan)
-    sharding = _sharding(view)
-    targets = view.value("adapter.targets")
+    run = view.run
+    sharding = run.sharding if run is not None else _sharding_of(view)
+    targets = _targets(view)
     save = view.value("adapter.save_modules")
     pd = plan.schedule.per_device if plan.schedule and plan.schedule.per_device else 1
     attention = view.value("model.attention")
+    offload = bool(run is not None and run.launch.offload_optimizer) or _offload_linked(view)
     return MemoryInputs(
         arch=arch,
         method=method,
         base_storage=storage,
-        double_quant=view.is_on("quant.double"),
+        double_quant=view.effective_on("quant.double"),
         optimizer=str(view.value("optim.name") or "adamw_torch"),
         mixed_precision=_mixed(view, storage, sharding),
         micro_batch=int(pd),
         seq_len=int(plan.seq_len or DEFAULT_SEQ_LEN),
-        gradient_checkpointing=view.is_on("runtime.gradient_checkpointing"),
+        gradient_checkpointing=view.effective_on("runtime.gradient_checkpointing"),
         fused_attention=not (isinstance(attention, str) and attention.lower() == "eager"),
-        lora_rank=int(view.value("adapter.rank") or 8),
+        lora_rank=int(view.effective_value("adapter.rank") or 8),
         lora_targets=targets if targets is not None else None,
         modules_to_save=tuple([save] if isinstance(save, str) else (save or ())),
         num_gpus=max(1, gpus or 1),
         sharding=sharding,
+        offload_optimizer=offload,
     )
+
+
+def _offload_linked(view: RunView) -> bool:
+    for sub in view.attached:
+        data = sub.doc.data if isinstance(sub.doc.data, dict) else {}
+        zo = data.get("zero_optimization") if isinstance(data.get("zero_optimization"), dict) else {}
+        off = zo.get("offload_optimizer")
+        if isinstance(off, dict) and str(off.get("device", "")).lower() in ("cpu", "nvme"):
+            return True
+    return False
+
+
+def _sharding_of(view: RunView) -> str:
+    """Sharding of a view that was not opened (``cfgcheck.run`` does it for opened runs)."""
+    stage = view.effective_value("runtime.zero_stage")
+    for attached in view.attached:
+        stage = stage if stage is not None else attached.value("runtime.zero_stage")
+    if isinstance(stage, int) and stage in (1, 2, 3):
+        return f"zero{stage}"
+    fsdp = view.value("runtime.fsdp")
+    if isinstance(fsdp, str):
+        if "full_shard" in fsdp or "hybrid_shard" in fsdp:
+            return "fsdp_full"
+        if "shard_grad_op" in fsdp:
+            return "fsdp_grad_op"
+    return "none"
 
 
 def fitting_changes(plan: Plan) -> list[tuple[str, MemoryBreakdown]]:

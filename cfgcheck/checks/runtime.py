@@ -26,7 +26,7 @@ _HF_TRAINER = ("trainer", "llama-factory", "axolotl")
 @check("deepspeed-file-contradicts-config")
 def deepspeed_contradicts(ctx) -> None:
     view = ctx.view
-    for link in view.cache.get("links", []):
+    for link in view.links:
         if link.problem and link.field == "runtime.deepspeed":
             ctx.cannot_judge(f"the DeepSpeed file {link.problem}", linked=link.target)
     layout = view.layout.name if view.layout is not None else ""
