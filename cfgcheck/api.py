@@ -32,7 +32,11 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
                   debug: bool | None = None, cwd: Path | None = None,
                   launch: Iterable[str | Path] | None = None) -> dict[str, Any]:
     """The options a caller set explicitly, as engine values (None = not set).
-    Raises ValueError (UnknownGpu) for a GPU name we do not know, ValueError for a bad severity."""
+    Raises ValueError (UnknownGpu) for a GPU name we do not know, ValueError for a bad severity
+    or a launch file that does not exist."""
+    for f in launch or ():
+        if not Path(f).is_file():
+            raise ValueError(f"launch file {f} not found (--launch takes an accelerate config or a DeepSpeed JSON)")
     return {
         "gpu": find_gpu(gpu) if gpu else None,
         "gpus": gpus,

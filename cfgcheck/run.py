@@ -185,8 +185,6 @@ def read_launch(files: tuple[str, ...] | list[str], cwd: Path | None = None, scr
         else:
             attach_linked(view, str(path), cwd)
             _take_accelerate(ctx, view, str(name))
-    if ctx.machines and ctx.processes is None:
-        pass
     return ctx
 
 
@@ -228,7 +226,7 @@ class OpenedRun:
         g = self.gpus or 1
         gpus = f"{g} GPU{'s' if g != 1 else ''}"
         if self.gpus is None:
-            gpus += " (assumed: no GPU count given; pass --gpus or --launch)"
+            gpus += " (no GPU count given: --gpus N or --launch FILE)"
         elif self.gpus_from:
             gpus += f" (from {self.gpus_from})"
         sharding = {"none": "no sharding", "zero1": "ZeRO-1", "zero2": "ZeRO-2", "zero3": "ZeRO-3",
@@ -307,9 +305,13 @@ def _resolve_gpus(run: OpenedRun, options) -> None:
         run.gpus_from = getattr(options, "gpus_from", "") or "--gpus"
         if launch.processes is not None and launch.processes != flagged:
             run.disagreements.append(("gpus", flagged, launch.processes, launch.processes_from))
+        elif launch.processes is None and own_n is not None and own_n != flagged:
+            run.disagreements.append(("gpus", flagged, own_n, ""))
         return
     if launch.processes is not None:
         run.gpus, run.gpus_origin, run.gpus_from = launch.processes, "launch", launch.processes_from
+        if own_n is not None and own_n != launch.processes:
+            run.disagreements.append(("gpus", launch.processes, own_n, ""))
         return
     if own_n is not None:
         run.gpus, run.gpus_origin, run.gpus_field = own_n, "written", own

@@ -10,7 +10,7 @@ CHECKS: dict[str, Callable] = {}
 # The modules that hold checks; listed once so the engine loads them all.
 MODULES = ("loader", "adapter", "learning_rate", "chat_format", "precision", "batch", "memory",
            "warmup", "evaluation", "targets", "quant", "sequence", "runtime", "ranges",
-           "unknown_keys", "waivers")
+           "unknown_keys", "launch", "waivers")
 
 
 def check(rule_id: str) -> Callable[[Callable], Callable]:

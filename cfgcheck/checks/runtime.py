@@ -51,6 +51,7 @@ def deepspeed_contradicts(ctx) -> None:
             ctx.report(at, "accelerate" if layout == "accelerate" else "default",
                        key=f.leaf if f is not None else hf_key, value=value, where=where,
                        ds_file=name, ds_key=d.key, ds_value=d.value)
+        _global_batch(ctx, view, ds, name, layout)
         for ours, theirs in (("precision.bf16", "precision.bf16"), ("precision.fp16", "precision.fp16")):
             d, f = ds.get(theirs), view.get(ours)
             if d is None or d.auto or not isinstance(d.value, bool):
@@ -59,3 +60,36 @@ def deepspeed_contradicts(ctx) -> None:
                 continue
             ctx.report(f, "precision", key=f.leaf, value=f.value, ds_file=name, ds_key=d.key,
                        ds_value=d.value)
+
+
+def _global_batch(ctx, view, ds, name: str, layout: str) -> None:
+    """The DeepSpeed file's train_batch_size against the config's micro-batch x accumulation x
+    GPUs: the integration fills "auto" from that product and DeepSpeed asserts they are equal."""
+    d = ds.get("batch.global")
+    if d is None or d.auto or not isinstance(d.value, int) or isinstance(d.value, bool) or d.value <= 0:
+        return
+    values = []
+    for ours in ("batch.per_device", "batch.accumulation"):
+        f = view.get(ours)
+        if f is not None and isinstance(f.value, int) and not f.auto and f.value > 0:
+            values.append(f.value)
+        elif f is None and layout == "trainer" and ours in TRAINER_DEFAULTS:
+            values.append(TRAINER_DEFAULTS[ours])
+        else:
+            return
+    pd, ga = values
+    gpus, gpus_f = ctx.num_gpus
+    at = view.get("runtime.deepspeed") or view.get("batch.per_device")
+    if ds.doc.name == view.doc.name and isinstance(view.doc.data, dict) \
+            and isinstance(view.doc.data.get("deepspeed"), dict):
+        at = ("deepspeed",) + tuple(d.path)  # an inline block: its own key
+    if gpus:
+        expected = pd * ga * gpus
+        if expected != d.value:
+            run = ctx.run
+            ctx.report(at, "global-batch", ds_file=name, ds_key=d.key, ds_value=d.value, per_device=pd,
+                       accumulation=ga, gpus=gpus, expected=expected,
+                       gpus_from=gpus_f.key if gpus_f is not None else (run.gpus_from if run else "--gpus"))
+    elif d.value % (pd * ga) != 0:
+        ctx.report(at, "global-batch-no-gpus", ds_file=name, ds_key=d.key, ds_value=d.value,
+                   per_device=pd, accumulation=ga, product=pd * ga)

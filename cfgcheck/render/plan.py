@@ -40,6 +40,8 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
         rows.append(("adapter scale", f"{plan.adapter_scale:.3g}{eff}"))
         if plan.rslora_alpha:
             rows.append(("rsLoRA alpha", f"~ sqrt(hidden_size) = {plan.rslora_alpha} (rule of thumb)"))
+    if plan.context:
+        rows.append(("launch", plan.context))
     if plan.learning_rate is not None:
         rows.append(("learning rate", f"{plan.learning_rate:g}"))
     s = plan.schedule
@@ -79,6 +81,8 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
             out.append(f"    {name:<20} {b / GB:7.1f} GB  {bar}")
         if cap:
             out.append(f"    {'capacity':<20} {cap / GB:7.1f} GB  " + "|" * round(_BAR * cap / scale))
+    for d in plan.defaults:
+        out.append(f"  default: {d}")
     for a in plan.assumptions:
         out.append(f"  assumed: {a}")
     return "\n".join(out) + "\n"
