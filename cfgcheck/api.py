@@ -70,14 +70,43 @@ def _project(project: Any, paths: list):
     return projectmod.load(project)
 
 
-def _targets(paths: list, project: Any, given: dict[str, Any]):
-    """(files as (file, skip reason), options for a file, the project or None)."""
+def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = False):
+    """(files as (file, skip reason), options for a file, the project or None).
+
+    Launch scripts (``.sh``) under the paths pair the configs they start with their launch
+    context (``Options.script``); with ``scripts`` the scripts themselves are listed too."""
+    import dataclasses
+
+    from .scripts import find_scripts, pairings
+
     proj = _project(project, paths)
     if proj is None:
         opts = Options(**{k: v for k, v in given.items() if v is not None})
-        return [(f, None) for f in engine.expand_paths(paths)], (lambda file: opts), None
-    files = proj.expand(paths or [os.path.relpath(proj.root)])
-    return files, (lambda file: proj.options_for(file, given)), proj
+        files = [(f, None) for f in engine.expand_paths(paths)]
+        base = lambda file: opts  # noqa: E731
+        roots = paths
+    else:
+        roots = paths or [os.path.relpath(proj.root)]
+        files = proj.expand(roots)
+        base = lambda file: proj.options_for(file, given)  # noqa: E731
+    found = find_scripts(roots)
+    paired = pairings(found) if found else {}
+
+    def options_for(file: str) -> Options:
+        opts = base(file)
+        sl = paired.get(os.path.normpath(os.path.abspath(file)))
+        if sl is not None and opts.script is None:
+            opts = dataclasses.replace(opts, script=sl)
+        return opts
+
+    if scripts:
+        listed = {os.path.normpath(f) for f, _ in files}
+        files = files + [(s, None) for s in found if os.path.normpath(s) not in listed]
+    else:
+        from .scripts import SCRIPT_SUFFIXES
+
+        files = [(f, skip) for f, skip in files if not f.lower().endswith(SCRIPT_SUFFIXES)]
+    return files, options_for, proj
 
 
 def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
@@ -97,7 +126,7 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
     file, ``ValueError`` for a bad option value.
     """
     paths = list(paths)
-    files, options_for, proj = _targets(paths, project, given_options(**options))
+    files, options_for, proj = _targets(paths, project, given_options(**options), scripts=True)
     if proj is not None and baseline is None and proj.baseline is not None and proj.baseline.is_file():
         baseline = proj.baseline  # the project's baseline, unless the caller chose
     report = Report()

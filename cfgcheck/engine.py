@@ -340,9 +340,45 @@ def lint_text(text: str, name: str = "<text>", options: Options | None = None,
     return lint_documents(docs, name, options, layout, text)
 
 
+def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
+    """A launch script: each training command's ``--key value`` arguments are linted like a flat
+    trainer config located at the script's lines, with the launch context the command gives."""
+    import dataclasses
+
+    from .run import open_view
+    from .scripts import read_script, script_document
+
+    options = options or Options()
+    name = str(path)
+    try:
+        launches = read_script(path)
+    except LoadError as exc:
+        return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
+                                                          column=exc.column, reason=exc.reason))
+    report = FileReport(file=name)
+    for i, sl in enumerate(launches):
+        doc = script_document(sl, i)
+        if doc is None:
+            continue
+        view = build_view(doc, "trainer")
+        report.views.append(view)
+        report.layout = report.layout or "launch script"
+        open_view(view, name, dataclasses.replace(options, script=sl))
+        lint_view(view, options, name, report)
+    if not report.layout:
+        report.skipped = ("a shell script that starts no training" if not launches
+                          else "a launch script with no trainer arguments of its own")
+    report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
+    return report
+
+
 def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
     options = options or Options()
     name = str(path)
+    from .scripts import SCRIPT_SUFFIXES
+
+    if name.lower().endswith(SCRIPT_SUFFIXES) and not os.path.isdir(path):
+        return lint_script(path, options)
     try:
         if os.path.isdir(path):
             _listable(path)
