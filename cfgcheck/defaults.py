@@ -102,6 +102,10 @@ DEFAULTS: dict[str, tuple[Default, ...]] = {
                 f"({_AXOLOTL_SRC})"),
     ),
     "llama-factory": (
+        Default("model.dtype", lambda v: "bfloat16" if isinstance(v.doc.data, dict)
+                and v.doc.data.get("pure_bf16") is True else None,
+                f"pure_bf16: true trains the bf16 weights directly, without mixed precision "
+                f"(LLaMA-Factory hparams/finetuning_args.py FinetuningArguments)"),
         Default("adapter.rank", lambda v: 8 if v.is_adapter else None,
                 f"lora_rank defaults to 8 ({_LF_FT})"),
         Default("adapter.alpha", _lf_alpha,

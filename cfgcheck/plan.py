@@ -208,6 +208,10 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     if view.method not in ("full", "lora", "qlora"):
         plan.memory_problem = "the training method is not known from this file"
         return plan
+    unmodelled = unmodelled_optimizer(view)
+    if unmodelled:
+        plan.memory_problem = f"the optimizer is not one the estimate models ({unmodelled})"
+        return plan
     try:
         plan.total_parameters = total_parameters(arch)
         inputs = memory_inputs(view, arch, plan, gpus=sched.gpus)
@@ -215,6 +219,9 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
             plan.gpus_assumed = True
             plan.assumptions.append(f"1 GPU because nothing names the GPU count, so {inputs.sharding} "
                                     f"shards nothing (pass --gpus N or --launch FILE)")
+        elif inputs.sharding == "none" and not _sharding_known(view):
+            plan.assumptions.append("no ZeRO/FSDP sharding because no launch context names it "
+                                    "(pass --launch FILE, or --gpus 1 for a single-GPU run)")
         plan.memory_inputs = inputs
         plan.memory = estimate_memory(inputs)
         plan.trainable_parameters = plan.memory.trainable_parameters
@@ -222,6 +229,35 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     except (UnsupportedFamily, ValueError) as exc:
         plan.memory_problem = str(exc)
     return plan
+
+
+# switches of optimizers whose states the estimate does not model (GaLore projects gradients to
+# a low rank, layer-wise variants update one layer at a time, BAdam trains one block at a time):
+# an AdamW-based number would be wrong, so there is no estimate (LLaMA-Factory FinetuningArguments)
+_UNMODELLED_SWITCHES = ("use_galore", "use_apollo", "use_badam", "use_adam_mini", "use_muon")
+_UNMODELLED_NAMES = ("galore", "apollo", "lomo", "badam", "muon", "adam_mini", "schedule_free")
+
+
+def unmodelled_optimizer(view: RunView) -> str | None:
+    data = view.doc.data if isinstance(view.doc.data, dict) else {}
+    for key in _UNMODELLED_SWITCHES:
+        if data.get(key) is True:
+            return f"{key}: true"
+    name = view.value("optim.name")
+    if isinstance(name, str) and any(w in name.lower() for w in _UNMODELLED_NAMES):
+        return f"optimizer {name}"
+    return None
+
+
+def _sharding_known(view: RunView) -> bool:
+    """Whether anything says how the run shards: a launch context, the config's own DeepSpeed or
+    FSDP settings, or a single GPU (nothing to shard across). Without one, an accelerate launch
+    may still take ZeRO/FSDP from the machine's default accelerate config."""
+    run = view.run
+    if run is not None and (run.launch.known or (run.gpus == 1 and run.gpus_origin != "assumed")):
+        return True
+    return any(view.get(n) is not None for n in ("runtime.deepspeed", "runtime.fsdp", "runtime.zero_stage",
+                                                   "runtime.distributed")) or bool(view.attached)
 
 
 def _targets(view: RunView):

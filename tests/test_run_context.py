@@ -135,9 +135,18 @@ def test_memory_resting_on_an_assumed_sequence_length_is_a_warning_that_says_so(
     (f,) = [f for f in fr.findings if f.rule == "memory-exceeds-gpu"]
     assert f.severity == Severity.WARNING
     assert "assuming sequence length 2048 because the file names none" in f.message
-    written = api.lint_text(text + "max_length: 2048\n", "larkspur.yaml", gpu="rtx-4090")
+    written = api.lint_text(text + "max_length: 2048\n", "larkspur.yaml", gpu="rtx-4090", gpus=1)
     (g,) = [f for f in written.findings if f.rule == "memory-exceeds-gpu"]
     assert g.severity == Severity.ERROR and "assuming" not in g.message
+
+
+def test_memory_without_any_launch_context_assumes_no_sharding_and_stays_a_warning():
+    text = ("model_name_or_path: meta-llama/Meta-Llama-3-8B\nlearning_rate: 1.0e-5\n"
+            "per_device_train_batch_size: 8\nbf16: true\nmax_length: 2048\n")
+    fr = api.lint_text(text, "larkspur.yaml", gpu="rtx-4090", gpus=8)
+    (f,) = [f for f in fr.findings if f.rule == "memory-exceeds-gpu"]
+    assert f.severity == Severity.WARNING
+    assert "assuming no ZeRO/FSDP sharding because no launch context names it" in f.message
 
 
 def test_sharded_run_without_a_gpu_count_is_at_most_a_warning():
