@@ -29,7 +29,7 @@ def test_full_7b_on_one_24gb_card_is_over_100gb_and_an_error(tmp_path):
     states = plan.memory.weights_bytes + plan.memory.gradients_bytes + plan.memory.optimizer_bytes + plan.memory.master_weights_bytes
     assert states == 16 * 6_738_415_616
     assert plan.memory.total_bytes > 100e9
-    rep = api.lint([cfg], gpu="rtx-4090")
+    rep = api.lint([cfg], gpu="rtx-4090", gpus=1)  # one card: nothing to shard across
     (f,) = [f for f in rep.findings if f.rule == "memory-exceeds-gpu"]
     assert f.severity == Severity.ERROR and "does not fit" in f.message and "GeForce RTX 4090" in f.message
     assert "changes that fit" in f.hint and "->" in f.hint

@@ -360,3 +360,27 @@ def test_unparsable_script_is_an_input_problem(tmp_path):
     (tmp_path / "bad.sh").write_text("accelerate launch train.py $(\n")
     report = api.lint([str(tmp_path / "bad.sh")], project=None)
     assert report.problems and report.problems[0].file.endswith("bad.sh")
+
+
+def test_deepspeed_launch_file_is_checked_against_the_config(tmp_path):
+    ds = tmp_path / "ds.json"
+    ds.write_text(json.dumps({"train_micro_batch_size_per_gpu": 4, "gradient_accumulation_steps": "auto",
+                              "zero_optimization": {"stage": 2}}))
+    report = api.lint([str(HERE / "full_8b.yaml")], project=None, launch=[str(ds)])
+    (f,) = [f for f in report.findings if f.rule == "deepspeed-file-contradicts-config"]
+    assert f.key == "per_device_train_batch_size" and f.data["ds_value"] == 4  # the config says 2
+    (run,) = open_path(HERE / "full_8b.yaml", api.make_options(launch=[str(ds)]))
+    assert run.sharding == "zero2"
+    assert run.view.effective("runtime.zero_stage").origin == "launch"
+
+
+def test_zero3_shards_the_frozen_base_of_an_adapter_run_too():
+    # ZeRO-3 partitions every parameter, trainable or not (ZeRO paper, Fig. 1, stage 3)
+    text = ("model_name_or_path: meta-llama/Meta-Llama-3-8B\ntorch_dtype: bfloat16\nuse_peft: true\n"
+            "lora_r: 16\nlora_alpha: 32\nper_device_train_batch_size: 1\nmax_length: 2048\nbf16: true\n")
+    alone = api.lint_text(text, "x.yaml", gpus=1).views[0]
+    sharded = api.lint_text(text, "x.yaml", launch=[str(HERE / "zero3_8gpu.yaml")]).views[0]
+    p1 = derive_plan(alone, model_of(alone, "x.yaml", None), gpu=None, gpus=1, rows=None)
+    p8 = derive_plan(sharded, model_of(sharded, "x.yaml", None), gpu=None, gpus=sharded.run.gpus, rows=None)
+    assert p8.memory_inputs.sharding == "zero3" and p8.memory_inputs.num_gpus == 8
+    assert p8.memory.weights_bytes == pytest.approx(p1.memory.weights_bytes / 8)
