@@ -63,6 +63,9 @@ _AXOLOTL_SRC = "axolotl (0.4 to 0.19, from memory)"
 _LF_MODEL = "LLaMA-Factory hparams/model_args.py ModelArguments"
 _LF_FT = "LLaMA-Factory hparams/finetuning_args.py LoraArguments"
 
+_TRL_SFT = ("trl/trainer/sft_config.py of TRL 0.24, SFTConfig defaults that override "
+            "TrainingArguments; releases before 0.20 kept the TrainingArguments defaults, from memory")
+
 # SFTConfig fields that no plain TrainingArguments file has: the file is read by TRL's SFT trainer
 SFT_ONLY_KEYS = frozenset({"packing", "dataset_text_field", "completion_only_loss",
                            "assistant_only_loss", "padding_free", "dataset_num_proc", "eos_token"})
@@ -131,6 +134,10 @@ DEFAULTS: dict[str, tuple[Default, ...]] = {
         Default("data.seq_len", lambda v: 1024 if _sft(v) else None,
                 "TRL's SFTConfig truncates to max_length 1024 by default (TRL 0.12 to 0.2x; "
                 "max_seq_length before 0.20)"),
+        Default("runtime.gradient_checkpointing", lambda v: True if _sft(v) else None,
+                f"TRL's SFTConfig turns gradient checkpointing on by default ({_TRL_SFT})"),
+        Default("precision.bf16", lambda v: True if _sft(v) and not v.is_on("precision.fp16") else None,
+                f"TRL's SFTConfig turns bf16 on unless fp16 is set ({_TRL_SFT})"),
     ),
     "deepspeed": (
         # value None + auto: filled in at launch, as train_batch_size / (micro-batch x GPUs)

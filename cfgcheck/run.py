@@ -351,6 +351,10 @@ def open_view(view: RunView, file: str, options: Any = None) -> OpenedRun:
     _apply_linked(view)
     _apply_defaults(view)
     _resolve_gpus(run, options)
+    if run.gpus is not None and run.gpus_origin in ("flag", "launch"):
+        view.supplied["hardware.num_gpus"] = Field(
+            name="hardware.num_gpus", value=run.gpus, path=(), written=run.gpus,
+            origin=run.gpus_origin, note=f"{run.gpus} GPUs from {run.gpus_from}")
     _precision_disagreements(run)
     return run
 

@@ -384,3 +384,14 @@ def test_zero3_shards_the_frozen_base_of_an_adapter_run_too():
     p8 = derive_plan(sharded, model_of(sharded, "x.yaml", None), gpu=None, gpus=sharded.run.gpus, rows=None)
     assert p8.memory_inputs.sharding == "zero3" and p8.memory_inputs.num_gpus == 8
     assert p8.memory.weights_bytes == pytest.approx(p1.memory.weights_bytes / 8)
+
+
+def test_every_supplied_value_says_where_it_came_from():
+    (run,) = open_path(HERE / "full_8b.yaml", api.make_options(gpus=8, launch=[str(HERE / "zero3_8gpu.yaml")]))
+    supplied = run.view.supplied
+    assert supplied["hardware.num_gpus"].origin == "flag" and "--gpus" in supplied["hardware.num_gpus"].note
+    assert supplied["runtime.zero_stage"].origin == "launch"
+    assert "zero3_8gpu.yaml" in supplied["runtime.zero_stage"].note
+    assert all(f.origin in ("linked", "launch", "default", "flag", "assumed") and f.note for f in supplied.values())
+    (linked,) = open_path(HERE / "full_8b_ds3.yaml", api.make_options())
+    assert linked.view.supplied["runtime.zero_stage"].origin == "linked"
