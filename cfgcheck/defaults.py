@@ -76,8 +76,15 @@ def _sft(view: RunView) -> bool:
     return bool(SFT_ONLY_KEYS & set(k for k in data if isinstance(k, str))) and not _grpo(view)
 
 
+# GRPOConfig fields that preference trainers (DPO, ORPO, KTO share max_prompt_length and
+# max_completion_length) do not have
+GRPO_ONLY_KEYS = frozenset({"reward_funcs", "reward_weights", "num_iterations", "epsilon_high",
+                            "scale_rewards", "mask_truncated_completions"})
+
+
 def _grpo(view: RunView) -> bool:
-    return any(view.has(n) for n in ("rl.generations", "data.prompt_len", "data.completion_len"))
+    data = view.doc.data if isinstance(view.doc.data, dict) else {}
+    return view.has("rl.generations") or bool(GRPO_ONLY_KEYS & set(k for k in data if isinstance(k, str)))
 
 
 def _grpo_seq(view: RunView):

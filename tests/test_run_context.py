@@ -395,3 +395,14 @@ def test_every_supplied_value_says_where_it_came_from():
     assert all(f.origin in ("linked", "launch", "default", "flag", "assumed") and f.note for f in supplied.values())
     (linked,) = open_path(HERE / "full_8b_ds3.yaml", api.make_options())
     assert linked.view.supplied["runtime.zero_stage"].origin == "linked"
+
+
+def test_preference_trainer_prompt_length_is_not_taken_for_grpo():
+    # DPOConfig also has max_prompt_length / max_completion_length, but samples no generations
+    text = ("model_name_or_path: meta-llama/Meta-Llama-3-8B\nlearning_rate: 5.0e-7\nbeta: 0.1\n"
+            "max_length: 1024\nmax_prompt_length: 512\nper_device_train_batch_size: 2\n"
+            "gradient_accumulation_steps: 8\nnum_train_epochs: 1\n")
+    view = api.lint_text(text, "x.yaml").views[0]
+    plan = derive_plan(view, None, gpu=None, gpus=8, rows=5000)
+    assert plan.schedule.steps_per_epoch == 40 and plan.schedule.generations == 1  # ceil(5000/8/2/8)
+    assert plan.seq_len == 1024
