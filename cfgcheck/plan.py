@@ -49,7 +49,8 @@ class Plan:
     memory_problem: str | None = None  # why there is no estimate
     gpu: Gpu | None = None
     assumptions: list[str] = field(default_factory=list)  # guesses: nothing says these (words)
-    defaults: list[str] = field(default_factory=list)  # runner defaults and launch values used (words)
+    defaults: list[str] = field(default_factory=list)  # runner and trainer defaults used (words)
+    supplied: list[tuple[str, str]] = field(default_factory=list)  # (origin, words): linked, launch, flag
     context: str = ""  # the launch context the plan used, in words
     gpus_assumed: bool = False  # the GPU count matters (sharded) and nothing names it
 
@@ -98,6 +99,7 @@ class Plan:
             "memory_problem": self.memory_problem,
             "assumptions": list(self.assumptions),
             "defaults": list(self.defaults),
+            "supplied": [{"origin": o, "note": n} for o, n in self.supplied],
             "launch_context": self.context,
             "sharding": self.memory_inputs.sharding if self.memory_inputs else None,
             "num_gpus": self.schedule.gpus if self.schedule else None,
@@ -171,8 +173,10 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
         plan.defaults.append(f"{name} not set: the trainer default")
     for name in sorted(view.supplied):
         f = view.supplied[name]
-        if f.origin in ("default", "launch", "linked") and f.note:
+        if f.origin == "default" and f.note:
             plan.defaults.append(f.note)
+        elif f.note:
+            plan.supplied.append((f.origin, f.note))
     seq_f = view.effective("data.seq_len")
     seq = seq_f.value if seq_f is not None else None
     if not isinstance(seq, int) or seq <= 0:

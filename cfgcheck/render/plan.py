@@ -81,6 +81,8 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
             out.append(f"    {name:<20} {b / GB:7.1f} GB  {bar}")
         if cap:
             out.append(f"    {'capacity':<20} {cap / GB:7.1f} GB  " + "|" * round(_BAR * cap / scale))
+    for origin, note in plan.supplied:
+        out.append(f"  {origin}: {note}")
     for d in plan.defaults:
         out.append(f"  default: {d}")
     for a in plan.assumptions:
