@@ -346,12 +346,14 @@ def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
     import dataclasses
 
     from .run import open_view
-    from .scripts import read_script, script_document
+    from .scripts import ScriptTooLarge, read_script, script_document
 
     options = options or Options()
     name = str(path)
     try:
         launches = read_script(path)
+    except ScriptTooLarge as exc:
+        return FileReport(file=name, skipped=exc.reason)
     except LoadError as exc:
         return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
                                                           column=exc.column, reason=exc.reason))

@@ -21,6 +21,8 @@ from typing import Any, Iterable
 from .load import Document, Entry, LoadError, Span
 
 SCRIPT_SUFFIXES = (".sh", ".bash")
+# the shell parser is pure Python (about 30 ms per KiB): bigger scripts are not launch scripts we read
+MAX_SCRIPT_BYTES = 64 * 1024
 _CONFIG_SUFFIXES = (".yaml", ".yml", ".json")
 _VAR = re.compile(r"\$(?:\{([A-Za-z_][A-Za-z0-9_]*)(?::?-([^}]*))?\}|([A-Za-z_][A-Za-z0-9_]*))")
 
@@ -329,7 +331,13 @@ def read_script(path: str | Path) -> list[ScriptLaunch]:
     from .load import read_source
 
     src = read_source(path)
+    if len(src.text) > MAX_SCRIPT_BYTES:
+        raise ScriptTooLarge(f"a shell script over {MAX_SCRIPT_BYTES // 1024} KiB is not read as a launch script")
     return [finish(s) for s in parse_script(src.text, str(path))]
+
+
+class ScriptTooLarge(LoadError):
+    """Not an input error: the script is left out (skipped), not reported as unreadable."""
 
 
 def script_document(sl: ScriptLaunch, index: int = 0) -> Document | None:

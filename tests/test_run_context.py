@@ -406,3 +406,19 @@ def test_preference_trainer_prompt_length_is_not_taken_for_grpo():
     plan = derive_plan(view, None, gpu=None, gpus=8, rows=5000)
     assert plan.schedule.steps_per_epoch == 40 and plan.schedule.generations == 1  # ceil(5000/8/2/8)
     assert plan.seq_len == 1024
+
+
+def test_a_huge_shell_script_is_skipped_not_parsed(tmp_path):
+    from cfgcheck.scripts import MAX_SCRIPT_BYTES
+
+    big = tmp_path / "big.sh"
+    big.write_text("echo padding\n" * (MAX_SCRIPT_BYTES // 13 + 10))
+    report = api.lint([str(tmp_path)], project=None)
+    (fr,) = report.files
+    assert fr.skipped and "KiB" in fr.skipped and fr.problem is None
+
+
+def test_a_script_that_starts_no_training_is_skipped(tmp_path):
+    (tmp_path / "tidy.sh").write_text("rm -rf out/\necho done\n")
+    (fr,) = api.lint([str(tmp_path)], project=None).files
+    assert fr.skipped == "a shell script that starts no training"
