@@ -26,7 +26,7 @@ EXIT_INTERNAL = 3
 
 
 def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int | None = None,
-                  select: Iterable[str] | None = None, ignore: Iterable[str] | None = None,
+                  only: Iterable[str] | None = None, skip: Iterable[str] | None = None,
                   severity: Mapping[str, str | Severity] | None = None,
                   thresholds: Mapping[str, Mapping[str, Any]] | None = None,
                   debug: bool | None = None, cwd: Path | None = None,
@@ -41,8 +41,8 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
         "gpu": find_gpu(gpu) if gpu else None,
         "gpus": gpus,
         "rows": rows,
-        "select": frozenset(select) if select is not None else None,
-        "ignore": frozenset(ignore) if ignore is not None else None,
+        "only": frozenset(only) if only is not None else None,
+        "skip": frozenset(skip) if skip is not None else None,
         "severity": ({r: s if isinstance(s, Severity) else Severity.parse(s) for r, s in severity.items()}
                      if severity else None),
         "thresholds": {r: dict(t) for r, t in thresholds.items()} if thresholds else None,
@@ -117,7 +117,7 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
 
     ``project``: "auto" (default) finds cfgcheck.yaml / [tool.cfgcheck] by walking up from the
     first path; a path reads that file; None ignores project files. Explicit ``options``
-    (gpu, gpus, rows, select, ignore, severity, thresholds) override the project's values.
+    (gpu, gpus, rows, only, skip, severity, thresholds) override the project's values.
     ``baseline``: a baseline file; findings it holds are left out (counted in ``baselined``).
     ``jobs``: lint over that many processes (same reports, same order). ``keep_views=False``:
     drop each file's parsed documents once its rules have run (memory stays flat).
@@ -205,12 +205,12 @@ def visible(findings: Iterable[Finding], show: Severity) -> list[Finding]:
 
 
 @dataclass
-class PlanResult:
-    plans: list = field(default_factory=list)  # (file, Plan)
+class DeriveResult:
+    runs: list = field(default_factory=list)  # (file, Plan)
     problems: list = field(default_factory=list)
 
 
-def plan(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) -> PlanResult:
+def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) -> DeriveResult:
     """The derived run of each training config (skipped files are left out). Runs are opened
     the way ``lint`` opens them (``cfgcheck.run``): linked files, launch context, runner
     defaults, the project file's hardware profiles and launch files."""
@@ -220,7 +220,7 @@ def plan(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) 
     from .run import open_path
 
     files, options_for, _proj = _targets(list(paths), project, given_options(**options))
-    out = PlanResult()
+    out = DeriveResult()
     for file, skip in files:
         if skip:
             continue
@@ -235,7 +235,7 @@ def plan(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) 
             if view.skipped:
                 continue
             arch = model_of(view, file, opts.cwd)
-            out.plans.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=run.gpus, rows=opts.rows)))
+            out.runs.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=run.gpus, rows=opts.rows)))
     return out
 
 

@@ -4,7 +4,7 @@
 links (a trainer's ``deepspeed: ds.json``), the launch context (``--launch FILE``, the project
 file's ``launch`` per glob, a launch script that names the config), the runner's defaults
 (``cfgcheck.defaults``), the GPU count from the command line or the project profile, and what
-is assumed because nothing says it. ``lint`` (the engine), ``plan`` and ``fix`` (which lints
+is assumed because nothing says it. ``lint`` (the engine), ``derive`` and ``fix`` (which lints
 through the engine) all open runs here, so they judge the same run.
 
 Every value that does not come from the file itself is a ``Field`` in ``view.supplied`` with its

@@ -21,9 +21,9 @@ HERE = Path(__file__).resolve().parents[1] / "fixtures" / "launch"
 
 
 def _plan(path, **options):
-    res = api.plan([str(path)], project=None, **options)
+    res = api.derive([str(path)], project=None, **options)
     assert not res.problems, res.problems
-    return res.plans[0][1]
+    return res.runs[0][1]
 
 
 def _memory(report):
@@ -113,8 +113,8 @@ def test_project_profile_pairs_configs_with_launch_files(tmp_path):
         (tmp_path / name).write_text((HERE / name).read_text())
     (tmp_path / "cfgcheck.yaml").write_text(
         "profiles:\n  - paths: 'full_*.yaml'\n    gpu: a100-80gb\n    launch: zero3_8gpu.yaml\n")
-    res = api.plan([str(tmp_path / "full_8b.yaml")], project="auto")
-    plan = res.plans[0][1]
+    res = api.derive([str(tmp_path / "full_8b.yaml")], project="auto")
+    plan = res.runs[0][1]
     assert plan.schedule.gpus == 8 and plan.memory_inputs.sharding == "zero3"
 
 

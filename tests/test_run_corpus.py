@@ -27,9 +27,9 @@ def test_lint_and_plan_agree_on_every_corpus_file(shared_dir, context):
         context = {"launch": [str(root / f) for f in context["launch"]]}
     lint = api.lint(files, project=None, gpu="t4", rows=ROWS,
                     thresholds={"memory-exceeds-gpu": {"warn_fraction": 0.0}}, **context)
-    plans = api.plan(files, project=None, gpu="t4", rows=ROWS, **context)
+    plans = api.derive(files, project=None, gpu="t4", rows=ROWS, **context)
     by_file: dict[str, list] = {}
-    for file, plan in plans.plans:
+    for file, plan in plans.runs:
         by_file.setdefault(file, []).append(plan)
     memory_compared = steps_compared = 0
     for fr in lint.files:
