@@ -134,10 +134,11 @@ DEFAULTS: dict[str, tuple[Default, ...]] = {
     ),
     "trainer": (
         Default("data.seq_len", _grpo_seq,
-                "a GRPO sequence is the prompt plus the completion: max_prompt_length (default 512) + "
-                "max_completion_length (default 256) (TRL GRPOConfig 0.14 and later)"),
+                "a GRPO sequence is the prompt plus the completion: max_prompt_length + "
+                "max_completion_length, 512 and 256 where not written (TRL GRPOConfig 0.14 and later)"),
         Default("rl.generations", lambda v: 8 if _grpo(v) and not v.has("rl.generations") else None,
-                "num_generations defaults to 8 completions per prompt (TRL GRPOConfig 0.14 and later)"),
+                "num_generations defaults to 8 completions per prompt, and each prompt is sampled that "
+                "often per epoch (TRL GRPOConfig and RepeatSampler, 0.14 and later)"),
         Default("data.seq_len", lambda v: 1024 if _sft(v) else None,
                 "TRL's SFTConfig truncates to max_length 1024 by default (TRL 0.12 to 0.2x; "
                 "max_seq_length before 0.20)"),

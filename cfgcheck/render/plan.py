@@ -53,7 +53,8 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
                                         f"{', assumed' if plan.seq_len_assumed else ''})"))
     if s is not None:
         if s.steps_per_epoch:
-            rows.append(("steps per epoch", _n(s.steps_per_epoch) + f" ({s.rows:,} rows)"))
+            rows.append(("steps per epoch", _n(s.steps_per_epoch) + f" ({s.rows:,} rows"
+                         + (f" x {s.generations} generations" if s.generations > 1 else "") + ")"))
         rows.append(("total steps", _n(s.total_steps) + (" (max_steps)" if s.max_steps_override else
                                                           "" if s.total_steps else " (rows unknown: --rows N)")))
     if plan.warmup_steps is not None:
