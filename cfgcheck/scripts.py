@@ -176,11 +176,21 @@ def parse_script(text: str, name: str) -> list[ScriptLaunch]:
 
 
 def _resolve(ref: str, folder: Path) -> str:
+    """A path the script names: absolute as written; else the first that exists of the script's
+    folder and the folders above it up to the repository root (scripts are often run from the
+    root: ``bash scripts/train.sh``), then the working folder; else against the script's folder."""
     p = Path(ref).expanduser()
-    if not p.is_absolute():
-        here = folder / p
-        p = here if here.exists() or not Path(ref).exists() else Path(ref)
-    return os.path.normpath(str(p.absolute()))
+    if p.is_absolute():
+        return os.path.normpath(str(p))
+    start = folder.absolute()
+    for base in (start, *start.parents):
+        if (base / p).exists():
+            return os.path.normpath(str(base / p))
+        if (base / ".git").exists():
+            break
+    if p.exists():
+        return os.path.normpath(str(p.absolute()))
+    return os.path.normpath(str(start / p))
 
 
 def _launch_of(text: str, name: str, folder: Path, plain: list, words: _Words) -> ScriptLaunch | None:

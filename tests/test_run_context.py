@@ -422,3 +422,16 @@ def test_a_script_that_starts_no_training_is_skipped(tmp_path):
     (tmp_path / "tidy.sh").write_text("rm -rf out/\necho done\n")
     (fr,) = api.lint([str(tmp_path)], project=None).files
     assert fr.skipped == "a shell script that starts no training"
+
+
+def test_script_paths_resolve_from_the_repository_root_too(tmp_path):
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "configs").mkdir()
+    (tmp_path / "scripts").mkdir()
+    for name in ("full_8b.yaml", "zero3_8gpu.yaml"):
+        (tmp_path / "configs" / name).write_text((HERE / name).read_text())
+    (tmp_path / "scripts" / "train.sh").write_text(
+        "accelerate launch --config_file configs/zero3_8gpu.yaml train.py configs/full_8b.yaml\n")
+    (sl,) = parse_script((tmp_path / "scripts" / "train.sh").read_text(), str(tmp_path / "scripts" / "train.sh"))
+    assert sl.configs == (str(tmp_path / "configs" / "full_8b.yaml"),)
+    assert sl.launch_files == (str(tmp_path / "configs" / "zero3_8gpu.yaml"),)
