@@ -271,8 +271,10 @@ def _sharding_known(view: RunView) -> bool:
     run = view.run
     if run is not None and (run.launch.known or (run.gpus == 1 and run.gpus_origin != "assumed")):
         return True
+    data = view.doc.data if isinstance(view.doc.data, dict) else {}
     return any(view.get(n) is not None for n in ("runtime.deepspeed", "runtime.fsdp", "runtime.zero_stage",
-                                                   "runtime.distributed")) or bool(view.attached)
+                                                   "runtime.distributed")) or bool(view.attached) \
+        or "fsdp" in data or "dist_config" in data
 
 
 def _targets(view: RunView):
@@ -296,7 +298,7 @@ def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int) -
     save = view.value("adapter.save_modules")
     pd = plan.schedule.per_device if plan.schedule and plan.schedule.per_device else 1
     attention = view.value("model.attention")
-    offload = bool(run is not None and run.launch.offload_optimizer) or _offload_linked(view)
+    offload = bool(run is not None and run.offload_optimizer) or _offload_linked(view)
     return MemoryInputs(
         arch=arch,
         method=method,

@@ -204,6 +204,12 @@ class OpenedRun:
     disagreements: list[tuple[str, Any, Any, str]] = field(default_factory=list)
 
     @property
+    def offload_optimizer(self) -> bool:
+        """Optimizer states (and master weights) live in CPU memory: ZeRO-Offload, or FSDP's CPU
+        offload, which moves the optimizer step to the CPU."""
+        return self.launch.offload_optimizer or self.launch.fsdp_offload or own_fsdp(self.view)[1]
+
+    @property
     def sharding(self) -> str:
         """"none" | "zero1" | "zero2" | "zero3" | "fsdp_full" | "fsdp_grad_op" for the estimate."""
         stage = self.view.effective_value("runtime.zero_stage")
@@ -211,8 +217,7 @@ class OpenedRun:
             return f"zero{stage}"
         fsdp = self.launch.fsdp
         if fsdp is None:
-            written = self.view.value("runtime.fsdp")
-            fsdp = written if isinstance(written, str) else None
+            fsdp = own_fsdp(self.view)[0]
         if isinstance(fsdp, str):
             f = fsdp.lower()
             if "full_shard" in f or "hybrid_shard" in f:
@@ -239,6 +244,27 @@ class OpenedRun:
         else:
             where = "; no launch context given (--launch FILE)"
         return f"{gpus}, {sharding}{where}"
+
+
+def own_fsdp(view: RunView) -> tuple[str | None, bool]:
+    """FSDP the config asks for itself: the trainer's ``fsdp: "full_shard auto_wrap"`` (or a list,
+    as axolotl writes it) and its ``fsdp_config`` (FSDP2: ``fsdp_version: 2`` with
+    ``reshard_after_forward``). -> (strategy words or None, CPU offload)."""
+    data = view.doc.data if isinstance(view.doc.data, dict) else {}
+    words = data.get("fsdp")
+    cfg = data.get("fsdp_config") if isinstance(data.get("fsdp_config"), dict) else {}
+    plain = {str(k).removeprefix("fsdp_"): v for k, v in cfg.items()}
+    offload = plain.get("offload_params") is True
+    if isinstance(words, list):
+        words = " ".join(str(w) for w in words)
+    if isinstance(words, str) and words.strip():
+        return words.strip().lower(), offload
+    if cfg and (data.get("fsdp_version") == 2 or "reshard_after_forward" in plain or "sharding_strategy" in plain):
+        return _fsdp_strategy({"fsdp_" + k: v for k, v in plain.items()}), offload
+    dist = data.get("dist_config")  # LLaMA-Factory v1: dist_config: {name: fsdp2} shards fully
+    if isinstance(dist, dict) and isinstance(dist.get("name"), str) and "fsdp" in dist["name"].lower():
+        return "full_shard", False
+    return None, False
 
 
 def _supply(view: RunView, name: str, value: Any, origin: str, note: str, *, auto: bool = False) -> None:

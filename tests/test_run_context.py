@@ -435,3 +435,17 @@ def test_script_paths_resolve_from_the_repository_root_too(tmp_path):
     (sl,) = parse_script((tmp_path / "scripts" / "train.sh").read_text(), str(tmp_path / "scripts" / "train.sh"))
     assert sl.configs == (str(tmp_path / "configs" / "full_8b.yaml"),)
     assert sl.launch_files == (str(tmp_path / "configs" / "zero3_8gpu.yaml"),)
+
+
+@pytest.mark.parametrize("text", [
+    "fsdp:\n  - full_shard\n  - auto_wrap\nfsdp_config:\n  fsdp_offload_params: false\n",  # axolotl
+    "fsdp: full_shard auto_wrap\n",  # transformers TrainingArguments
+    "fsdp_version: 2\nfsdp_config:\n  reshard_after_forward: true\n",  # FSDP2 as axolotl writes it
+])
+def test_the_config_s_own_fsdp_settings_shard_the_estimate(text):
+    base = ("model_name_or_path: meta-llama/Meta-Llama-3-8B\nlearning_rate: 1.0e-5\ntorch_dtype: bfloat16\n"
+            "per_device_train_batch_size: 1\nmax_length: 2048\nbf16: true\n")
+    view = api.lint_text(base + text, "x.yaml", gpus=8).views[0]
+    assert view.run.sharding == "fsdp_full"
+    plan = derive_plan(view, model_of(view, "x.yaml", None), gpu=None, gpus=8, rows=None)
+    assert plan.memory_inputs.sharding == "fsdp_full" and not any("ZeRO/FSDP" in a for a in plan.assumptions)
