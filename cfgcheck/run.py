@@ -45,6 +45,7 @@ class LaunchContext:
     activation_checkpointing: bool | None = None
     mixed_precision: str | None = None  # "bf16" | "fp16" | "fp8" | "no"
     mixed_precision_from: str = ""
+    mixed_precision_deepspeed: bool = False  # from a DeepSpeed file (checked by its own rule)
     script: Any = None  # scripts.ScriptLaunch when a launch script names the config
 
     @property
@@ -112,6 +113,7 @@ def _take_deepspeed(ctx: LaunchContext, view: RunView, name: str) -> None:
             f = view.get(f"precision.{word}")
             if f is not None and f.value is True:
                 ctx.mixed_precision, ctx.mixed_precision_from = word, f"{name} {f.key}"
+                ctx.mixed_precision_deepspeed = True
     ctx.distributed = ctx.distributed or "DEEPSPEED"
 
 
@@ -349,6 +351,8 @@ def _precision_disagreements(run: OpenedRun) -> None:
     mp = launch.mixed_precision
     if mp not in ("bf16", "fp16", "no") or not launch.files and launch.script is None:
         return
+    if launch.mixed_precision_deepspeed:
+        return  # a DeepSpeed file's bf16/fp16: deepspeed-file-contradicts-config judges it
     for word in ("bf16", "fp16"):
         f = view.get(f"precision.{word}")
         if f is None or f.auto or not isinstance(f.value, bool):

@@ -449,3 +449,12 @@ def test_the_config_s_own_fsdp_settings_shard_the_estimate(text):
     assert view.run.sharding == "fsdp_full"
     plan = derive_plan(view, model_of(view, "x.yaml", None), gpu=None, gpus=8, rows=None)
     assert plan.memory_inputs.sharding == "fsdp_full" and not any("ZeRO/FSDP" in a for a in plan.assumptions)
+
+
+def test_a_deepspeed_precision_contradiction_is_one_finding(tmp_path):
+    ds = tmp_path / "ds.json"
+    ds.write_text(json.dumps({"fp16": {"enabled": True}, "zero_optimization": {"stage": 2}}))
+    report = api.lint([str(HERE / "full_8b.yaml")], project=None, launch=[str(ds)])
+    # fp16.enabled true against the trainer's fp16 (unset: False, the TrainingArguments default)
+    found = [(f.rule, f.data.get("key")) for f in report.findings if f.severity >= Severity.WARNING]
+    assert found == [("deepspeed-file-contradicts-config", "fp16")]

@@ -56,9 +56,19 @@ def deepspeed_contradicts(ctx) -> None:
             d, f = ds.get(theirs), view.get(ours)
             if d is None or d.auto or not isinstance(d.value, bool):
                 continue
-            if f is None or f.auto or not isinstance(f.value, bool) or f.value == d.value:
+            value, key, at = None, ours.split(".")[1], f
+            if f is not None and not f.auto and isinstance(f.value, bool):
+                value, key = f.value, f.leaf
+            elif f is None and layout == "trainer":
+                # unset: the trainer's own default (TrainingArguments False; TRL SFTConfig's bf16
+                # default comes through the opened run), which the integration compares too
+                eff = view.effective(ours)
+                value = eff.value if eff is not None and isinstance(eff.value, bool) else False
+                at = (view.get("runtime.deepspeed") or view.get("precision.bf16" if key == "fp16" else "precision.fp16")
+                      or view.get("model.ref"))
+            if value is None or value == d.value:
                 continue
-            ctx.report(f, "precision", key=f.leaf, value=f.value, ds_file=name, ds_key=d.key,
+            ctx.report(at, "precision", key=key, value=value, ds_file=name, ds_key=d.key,
                        ds_value=d.value)
 
 
