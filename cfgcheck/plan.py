@@ -234,7 +234,10 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
             plan.gpus_assumed = True
             plan.assumptions.append(f"1 GPU because nothing names the GPU count, so {inputs.sharding} "
                                     f"shards nothing (pass --gpus N or --launch FILE)")
-        elif inputs.sharding == "none" and not _sharding_known(view):
+        if _offload_params(view):
+            plan.assumptions.append("the weights on the GPU, though the launch offloads parameters to CPU "
+                                    "memory (not modelled: the estimate is an upper bound)")
+        if inputs.sharding == "none" and not _sharding_known(view):
             plan.assumptions.append("no ZeRO/FSDP sharding because no launch context names it "
                                     "(pass --launch FILE, or --gpus 1 for a single-GPU run)")
         plan.memory_inputs = inputs
@@ -317,6 +320,24 @@ def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int) -
         sharding=sharding,
         offload_optimizer=offload,
     )
+
+
+def _offload_params(view: RunView) -> bool:
+    """ZeRO-3 parameter offload (offload_param.device cpu/nvme) or FSDP CPU offload of parameters."""
+    run = view.run
+    if run is not None and (run.launch.offload_params or run.launch.fsdp_offload):
+        return True
+    from .run import own_fsdp
+
+    if own_fsdp(view)[1]:
+        return True
+    for sub in view.attached:
+        data = sub.doc.data if isinstance(sub.doc.data, dict) else {}
+        zo = data.get("zero_optimization") if isinstance(data.get("zero_optimization"), dict) else {}
+        off = zo.get("offload_param")
+        if isinstance(off, dict) and str(off.get("device", "")).lower() in ("cpu", "nvme"):
+            return True
+    return False
 
 
 def _offload_linked(view: RunView) -> bool:

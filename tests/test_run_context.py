@@ -458,3 +458,17 @@ def test_a_deepspeed_precision_contradiction_is_one_finding(tmp_path):
     # fp16.enabled true against the trainer's fp16 (unset: False, the TrainingArguments default)
     found = [(f.rule, f.data.get("key")) for f in report.findings if f.severity >= Severity.WARNING]
     assert found == [("deepspeed-file-contradicts-config", "fp16")]
+
+
+def test_parameter_offload_makes_the_estimate_an_upper_bound_and_at_most_a_warning(tmp_path):
+    ds = tmp_path / "ds.json"
+    ds.write_text(json.dumps({"zero_optimization": {"stage": 3, "offload_param": {"device": "cpu"},
+                                                    "offload_optimizer": {"device": "cpu"}}}))
+    text = ("model_name_or_path: meta-llama/Meta-Llama-3-8B\ntorch_dtype: bfloat16\nbf16: true\n"
+            "learning_rate: 1.0e-5\nper_device_train_batch_size: 8\nmax_length: 4096\n")
+    fr = api.lint_text(text, "x.yaml", gpu="rtx-4090", gpus=2, launch=[str(ds)])
+    (f,) = [f for f in fr.findings if f.rule == "memory-exceeds-gpu"]
+    assert f.severity == Severity.WARNING and "offloads parameters to CPU" in f.message
+    view = fr.views[0]
+    plan = derive_plan(view, model_of(view, "x.yaml", None), gpu=None, gpus=2, rows=None)
+    assert plan.memory_inputs.offload_optimizer and plan.memory.optimizer_bytes == 0
