@@ -344,6 +344,7 @@ def report_html(
     gpu: Optional[str] = typer.Option(None, "--gpu", autocompletion=_complete_gpu, help="The GPU the run will use (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several)."),
     no_project: bool = typer.Option(False, "--no-project", help="Ignore project files."),
 ) -> None:
     """Write one self-contained HTML file: each config's findings, its derived run and two pictures."""
@@ -357,8 +358,8 @@ def report_html(
 
     project = None if no_project else "auto"
     try:
-        report = api.lint(paths, project=project, gpu=gpu, gpus=gpus, rows=rows)
-        runs = api.derive(paths, project=project, gpu=gpu, gpus=gpus, rows=rows).runs
+        report = api.lint(paths, project=project, gpu=gpu, gpus=gpus, rows=rows, launch=launch or None)
+        runs = api.derive(paths, project=project, gpu=gpu, gpus=gpus, rows=rows, launch=launch or None).runs
     except ValueError as exc:  # an unknown GPU name
         _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
     except (ProjectError, BaselineError) as exc:
