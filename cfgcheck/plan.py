@@ -174,8 +174,12 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
         plan.context = run.context_words()
     sched = derive_for(view, gpus=gpus, rows=rows)
     plan.schedule = sched
+    aside = {f.name for f in view.out_of_range}  # written, but past any run's range
     for name in sched.defaults_used:
-        plan.defaults.append(f"{name} not set: the trainer default")
+        if name in aside:  # written past any run's range: the default stands in, a guess
+            plan.assumptions.append(f"{name} out of range, set aside: the trainer default")
+        else:
+            plan.defaults.append(f"{name} not set: the trainer default")
     for name in sorted(view.supplied):
         f = view.supplied[name]
         if f.origin == "default" and f.note:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from ..findings import printable
 from ..plan import Plan
 
 GB = 1e9
@@ -62,11 +63,12 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
     if plan.cadence:
         rows.append(("cadence", ", ".join(f"{k} every {v} steps" for k, v in plan.cadence.items())))
     width = max(len(k) for k, _ in rows)
-    out = [file]
-    out += [f"  {k:<{width}}  {v}" for k, v in rows]
+    # names and values come from the file: printable, so none can start a line of its own
+    out = [printable(file)]
+    out += [f"  {k:<{width}}  {printable(v)}" for k, v in rows]
     m = plan.memory
     if m is None:
-        out.append(f"  {'memory':<{width}}  not estimated: {plan.memory_problem}")
+        out.append(f"  {'memory':<{width}}  not estimated: {printable(str(plan.memory_problem))}")
     else:
         cap = plan.capacity_bytes
         head = f"{m.total_bytes / GB:.1f} GB per GPU"
@@ -87,5 +89,5 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
     for d in plan.defaults:
         out.append(f"  default: {d}")
     for a in plan.assumptions:
-        out.append(f"  assumed: {a}")
+        out.append(f"  assumed: {printable(a)}")
     return "\n".join(out) + "\n"
