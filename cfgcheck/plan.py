@@ -53,6 +53,7 @@ class Plan:
     supplied: list[tuple[str, str]] = field(default_factory=list)  # (origin, words): linked, launch, flag
     context: str = ""  # the launch context the plan used, in words
     gpus_assumed: bool = False  # the GPU count matters (sharded) and nothing names it
+    load_note: str | None = None  # which load-dtype default the estimate used, in words
     # the learning-rate schedule as written (None: not written), its kwargs, and the strategy
     # words of evaluation, saving and logging (None: not written) -- what the pictures draw
     scheduler: str | None = None
@@ -75,6 +76,7 @@ class Plan:
             m = self.memory
             mem = {"weights_bytes": m.weights_bytes, "gradients_bytes": m.gradients_bytes,
                    "optimizer_bytes": m.optimizer_bytes, "master_weights_bytes": m.master_weights_bytes,
+                   "weight_copies_bytes": m.weight_copies_bytes,
                    "activations_bytes": m.activations_bytes, "logits_bytes": m.logits_bytes,
                    "overhead_bytes": m.overhead_bytes, "total_bytes": m.total_bytes,
                    "capacity_bytes": self.capacity_bytes, "notes": list(m.notes)}
@@ -127,10 +129,49 @@ def _storage(view: RunView, arch: Architecture | None, method: str, plan: Plan) 
             word = arch.torch_dtype.lower()
         if word in _DTYPES:
             return _DTYPES[word]
-    if dtype is None and method != "full":
+    if dtype is None and method != "full" and not (arch is not None and arch.torch_dtype):
         return "bf16" if (view.effective_on("precision.bf16") or not view.effective_on("precision.fp16")) else "fp16"
-    plan.defaults.append("no torch_dtype: weights loaded in fp32 (the transformers default)")
+    if dtype is not None and str(dtype).strip().lower() != "auto":
+        plan.load_note = f"torch_dtype {dtype!r} not understood: weights loaded in fp32 assumed"
+        plan.assumptions.append(plan.load_note)
+        return "fp32"
+    return _default_load_storage(arch, plan)
+
+
+# --- the load dtype when the config names none (memory estimate input) --------------------------
+# transformers 5.x from_pretrained turns dtype=None into "auto": the checkpoint's dtype from its
+# config.json (transformers 5.24 modeling_utils.from_pretrained); 4.x loaded fp32
+# (torch.get_default_dtype()). The references are pinned at 5.x, so the 5.x default applies.
+LOAD_DEFAULT_VERSION = "transformers 5"
+
+
+def _default_load_storage(arch: Architecture | None, plan: Plan) -> str:
+    stored = _DTYPES.get(str(arch.torch_dtype).lower()) if arch is not None and arch.torch_dtype else None
+    if stored is not None:
+        plan.load_note = (f"no torch_dtype: weights loaded in the checkpoint's dtype {stored} "
+                          f"({LOAD_DEFAULT_VERSION} default dtype='auto'; transformers 4 loaded fp32)")
+        plan.defaults.append(plan.load_note)  # a defined default of the pinned release, not a guess
+        return stored
+    plan.load_note = ("no torch_dtype and the checkpoint's dtype unknown: weights loaded in fp32 assumed "
+                      "(the torch default dtype)")
+    plan.assumptions.append(plan.load_note)
     return "fp32"
+
+
+def _sharding(view: RunView) -> str:
+    """Sharding of a view that was not opened (``cfgcheck.run`` says it for opened runs)."""
+    stage = view.effective_value("runtime.zero_stage")
+    for attached in view.attached:
+        stage = stage if stage is not None else attached.value("runtime.zero_stage")
+    if isinstance(stage, int) and not isinstance(stage, bool) and stage in (0, 1, 2, 3):
+        return f"zero{stage}"  # zero0: DeepSpeed without partitioning (still fp32 master weights)
+    fsdp = view.value("runtime.fsdp")
+    if isinstance(fsdp, str):
+        if "full_shard" in fsdp or "hybrid_shard" in fsdp:
+            return "fsdp_full"
+        if "shard_grad_op" in fsdp:
+            return "fsdp_grad_op"
+    return "none"
 
 
 def _mixed(view: RunView, storage: str, sharding: str) -> str | None:
@@ -229,7 +270,7 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
         return plan
     unmodelled = unmodelled_optimizer(view)
     if unmodelled:
-        plan.memory_problem = f"the optimizer is not one the estimate models ({unmodelled})"
+        plan.memory_problem = f"optimizer not modelled by the estimate ({unmodelled})"
         return plan
     try:
         plan.total_parameters = total_parameters(arch)
@@ -253,11 +294,11 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     return plan
 
 
-# switches of optimizers whose states the estimate does not model (GaLore projects gradients to
-# a low rank, layer-wise variants update one layer at a time, BAdam trains one block at a time):
-# an AdamW-based number would be wrong, so there is no estimate (LLaMA-Factory FinetuningArguments)
+# recipe-runner switches for optimizers whose states the estimate does not model (GaLore projects
+# gradients to a low rank, layer-wise variants update one layer at a time, BAdam trains one block
+# at a time): an AdamW-based number would be wrong, so there is no estimate (LLaMA-Factory
+# FinetuningArguments use_galore / use_apollo / use_badam ...)
 _UNMODELLED_SWITCHES = ("use_galore", "use_apollo", "use_badam", "use_adam_mini", "use_muon")
-_UNMODELLED_NAMES = ("galore", "apollo", "lomo", "badam", "muon", "adam_mini", "schedule_free")
 
 
 def unmodelled_optimizer(view: RunView) -> str | None:
@@ -265,10 +306,7 @@ def unmodelled_optimizer(view: RunView) -> str | None:
     for key in _UNMODELLED_SWITCHES:
         if data.get(key) is True:
             return f"{key}: true"
-    name = view.value("optim.name")
-    if isinstance(name, str) and any(w in name.lower() for w in _UNMODELLED_NAMES):
-        return f"optimizer {name}"
-    return None
+    return None  # optimizer names (optim: galore_adamw, ...): knowledge.memory says which it models
 
 
 def _sharding_known(view: RunView) -> bool:
@@ -300,7 +338,7 @@ def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int) -
     method = view.method
     storage = _storage(view, arch, method, plan)
     run = view.run
-    sharding = run.sharding if run is not None else _sharding_of(view)
+    sharding = run.sharding if run is not None else _sharding(view)
     targets = _targets(view)
     save = view.value("adapter.save_modules")
     pd = plan.schedule.per_device if plan.schedule and plan.schedule.per_device else 1
@@ -323,6 +361,9 @@ def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int) -
         num_gpus=max(1, gpus or 1),
         sharding=sharding,
         offload_optimizer=offload,
+        # the forward runs under torch.autocast when the trainer's 16-bit flag is on (outside DeepSpeed)
+        autocast=_wants_16bit(view) is not None,
+        storage_note=plan.load_note,
     )
 
 
@@ -354,20 +395,12 @@ def _offload_linked(view: RunView) -> bool:
     return False
 
 
-def _sharding_of(view: RunView) -> str:
-    """Sharding of a view that was not opened (``cfgcheck.run`` does it for opened runs)."""
-    stage = view.effective_value("runtime.zero_stage")
-    for attached in view.attached:
-        stage = stage if stage is not None else attached.value("runtime.zero_stage")
-    if isinstance(stage, int) and stage in (1, 2, 3):
-        return f"zero{stage}"
-    fsdp = view.value("runtime.fsdp")
-    if isinstance(fsdp, str):
-        if "full_shard" in fsdp or "hybrid_shard" in fsdp:
-            return "fsdp_full"
-        if "shard_grad_op" in fsdp:
-            return "fsdp_grad_op"
-    return "none"
+def _wants_16bit(view: RunView) -> str | None:
+    wants = "bf16" if view.effective_on("precision.bf16") else "fp16" if view.effective_on("precision.fp16") else None
+    mixed = view.effective_value("precision.mixed")
+    if wants is None and isinstance(mixed, str) and mixed.lower() in ("bf16", "fp16"):
+        return mixed.lower()
+    return wants
 
 
 def fitting_changes(plan: Plan) -> list[tuple[str, MemoryBreakdown]]:

@@ -215,8 +215,8 @@ class OpenedRun:
     def sharding(self) -> str:
         """"none" | "zero1" | "zero2" | "zero3" | "fsdp_full" | "fsdp_grad_op" for the estimate."""
         stage = self.view.effective_value("runtime.zero_stage")
-        if isinstance(stage, int) and stage in (1, 2, 3):
-            return f"zero{stage}"
+        if isinstance(stage, int) and not isinstance(stage, bool) and stage in (0, 1, 2, 3):
+            return f"zero{stage}"  # zero0: DeepSpeed without partitioning
         fsdp = self.launch.fsdp
         if fsdp is None:
             fsdp = own_fsdp(self.view)[0]
@@ -236,7 +236,7 @@ class OpenedRun:
             gpus += " (no GPU count given: --gpus N or --launch FILE)"
         elif self.gpus_from:
             gpus += f" (from {self.gpus_from})"
-        sharding = {"none": "no sharding", "zero1": "ZeRO-1", "zero2": "ZeRO-2", "zero3": "ZeRO-3",
+        sharding = {"none": "no sharding", "zero0": "DeepSpeed stage 0 (no partitioning)", "zero1": "ZeRO-1", "zero2": "ZeRO-2", "zero3": "ZeRO-3",
                     "fsdp_full": "FSDP full shard", "fsdp_grad_op": "FSDP shard_grad_op"}[self.sharding]
         where = ""
         if self.launch.known:

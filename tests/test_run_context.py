@@ -383,7 +383,9 @@ def test_zero3_shards_the_frozen_base_of_an_adapter_run_too():
     p1 = derive_plan(alone, model_of(alone, "x.yaml", None), gpu=None, gpus=1, rows=None)
     p8 = derive_plan(sharded, model_of(sharded, "x.yaml", None), gpu=None, gpus=sharded.run.gpus, rows=None)
     assert p8.memory_inputs.sharding == "zero3" and p8.memory_inputs.num_gpus == 8
-    assert p8.memory.weights_bytes == pytest.approx(p1.memory.weights_bytes / 8)
+    # the frozen 16-bit base (16 GB) is split 8 ways; only the adapters' own storage (about 0.5 % of
+    # it: 16-bit with fp32 masters under DeepSpeed, fp32 without) differs between the two runs
+    assert p8.memory.weights_bytes == pytest.approx(p1.memory.weights_bytes / 8, rel=0.01)
 
 
 def test_every_supplied_value_says_where_it_came_from():
