@@ -30,6 +30,7 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
                   severity: Mapping[str, str | Severity] | None = None,
                   thresholds: Mapping[str, Mapping[str, Any]] | None = None,
                   debug: bool | None = None, cwd: Path | None = None,
+                  overrides: Iterable[str] | None = None,
                   launch: Iterable[str | Path] | None = None) -> dict[str, Any]:
     """The options a caller set explicitly, as engine values (None = not set).
     Raises UnknownGpu for a GPU name we do not know, OptionError for a bad severity (both are
@@ -53,8 +54,22 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
         "thresholds": {r: dict(t) for r, t in thresholds.items()} if thresholds else None,
         "debug": debug,
         "cwd": cwd,
+        "overrides": _checked_overrides(overrides),
         "launch": tuple(str(p) for p in launch) if launch else None,
     }
+
+
+def _checked_overrides(overrides: Iterable[str] | None) -> tuple[str, ...] | None:
+    """key=value overrides as given; ValueError for one that is neither key=value nor ~key."""
+    if not overrides:
+        return None
+    out = tuple(overrides)
+    for item in out:
+        text = item.strip()
+        key = text[1:] if text.startswith("~") else text.partition("=")[0]
+        if (not text.startswith("~") and "=" not in text) or not key.lstrip("+").strip():
+            raise ValueError(f"override {item!r} is not KEY=VALUE (or ~KEY to remove a key)")
+    return out
 
 
 def make_options(**options: Any) -> Options:

@@ -15,7 +15,7 @@ from typing import Any, Callable, Iterable, Iterator
 from . import load as loadmod
 from .catalogue import Rule, load_catalogue
 from .checks import all_checks
-from .findings import Finding, Fix, InputProblem, InternalError, Severity, shown_data
+from .findings import Finding, Fix, InputProblem, InternalError, Related, Severity, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted
 from .view import Field, RunView, build_view
@@ -39,6 +39,7 @@ class Options:
     launch: tuple[str, ...] = ()  # launch files the run is started with (--launch, project file)
     gpus_from: str = ""  # where ``gpus`` came from, in words ("--gpus", "cfgcheck.yaml profile")
     script: Any = None  # scripts.ScriptLaunch: a launch script in the tree that names this config
+    overrides: tuple[str, ...] = ()  # key=value overrides the launch passes (compose.py)
 
 
 @dataclass
@@ -52,6 +53,7 @@ class FileReport:
     views: list[RunView] = field(default_factory=list)
     waived: list[tuple[Finding, str, str]] = field(default_factory=list)  # (finding, reason, "comment" | "project")
     baselined: int = 0  # findings hidden because the baseline holds them
+    compose_problem: str | None = None  # why a composed config could not be put together
 
 
 @dataclass
@@ -140,11 +142,12 @@ class Context:
 
     # reporting --------------------------------------------------------------
     def report(self, at: Field | tuple | None = None, variant: str = "default", *,
-               on: str = "value", fix: Fix | None = None, assumed: Iterable[Field | str] = (),
-               **data: Any) -> None:
-        """Report a finding on ``at``. ``assumed``: the values (or words) the verdict rests on
-        that nothing written, linked, launched, flagged or defaulted says; with any, the finding
-        is at most a warning and its message names the assumptions."""
+               on: str = "value", fix: Fix | None = None, related: Iterable = (),
+               assumed: Iterable[Field | str] = (), **data: Any) -> None:
+        """``related``: other Fields (or key paths) where the same cause is written; the engine
+        locates them and the finding lists them beside its own location. ``assumed``: the values
+        (or words) the verdict rests on that nothing written, linked, launched, flagged or
+        defaulted says; with any, the finding is at most a warning and its message names them."""
         span = None
         notes = []
         for a in list(assumed) + ([at] if isinstance(at, Field) else []):
@@ -159,9 +162,10 @@ class Context:
             path = min(paths, key=len) if paths else ()
         else:
             path = at.path if isinstance(at, Field) else tuple(at or ())
+        others = tuple(r.path if isinstance(r, Field) else tuple(r) for r in related)
         self._sink.append(
             make_finding(self.rule, self.options, self.doc, self.file, path, variant, on, data,
-                         fix, span, assumptions=tuple(dict.fromkeys(notes)))
+                         fix, span, others, assumptions=tuple(dict.fromkeys(notes)))
         )
 
     def cannot_judge(self, what: str, **data: Any) -> None:
@@ -203,16 +207,37 @@ def _location(doc: Document, path: tuple, on: str) -> tuple[int, int]:
 
 def _finding(*, rule: str, severity: Severity, doc: Document, file: str, path: tuple, on: str,
              message: str, hint: str, data: dict[str, Any], fix: Fix | None = None,
-             span=None) -> Finding:
+             span=None, related: tuple = ()) -> Finding:
     line, column = (span.line, span.column) if span is not None else _location(doc, path, on)
+    others = tuple(Related(key=dotted(p), line=loc[0], column=loc[1])
+                   for p in related for loc in (_location(doc, p, on),))
+    if doc.origins and span is None:
+        # a composed config: the finding belongs to the file that set the value
+        origin = _origin_of(doc, tuple(path))
+        if origin is not None and origin != file:
+            file, fix = origin, None  # never edit one file for a value another file sets
+        from .compose import overridden_note
+
+        note = overridden_note(doc, tuple(path))
+        if note:
+            data = dict(data, overrides=note)
     return Finding(rule=rule, severity=severity, file=file, line=line, column=column,
                    key=dotted(path), message=message, hint=hint, data=data, path=tuple(path),
-                   document=doc.index, fix=fix)
+                   document=doc.index, fix=fix, related=others)
+
+
+def _origin_of(doc: Document, path: tuple) -> str | None:
+    while True:
+        if path in doc.origins:
+            return doc.origins[path]
+        if not path:
+            return None
+        path = path[:-1]
 
 
 def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: tuple,
                  variant: str, on: str, data: dict[str, Any], fix: Fix | None,
-                 span=None, assumptions: tuple[str, ...] = ()) -> Finding:
+                 span=None, related: tuple = (), assumptions: tuple[str, ...] = ()) -> Finding:
     """The one place findings are made. A verdict that rests on an assumption is at most a
     warning, whatever the rule, its variant or an override says, and says what it assumed."""
     data = shown_data(data)  # a huge number as its short text, in the message and in the data
@@ -227,7 +252,7 @@ def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: t
     return _finding(rule=rule.id, severity=severity, doc=doc, file=file, path=path, on=on,
                     message=message, hint=_fill(msg.hint, data),
                     data=dict(data, variant=variant) if variant != "default" else dict(data),
-                    fix=fix, span=span)
+                    fix=fix, span=span, related=related)
 
 
 # --------------------------------------------------------------------------- running
@@ -323,12 +348,37 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             line = w.target or w.line
             owner = next((i for end, i in ends if line <= end), ends[-1][1] if ends else None)
             owners.setdefault(owner, []).append(w)
-    from .run import open_documents  # the one open path: links, launch context, defaults
+    from .run import open_view  # the one open path: links, launch context, defaults
 
     for doc in docs:
         try:  # the crash boundary of one document: a bug here spares the other documents
-            (run,) = open_documents([doc], file, options, layout)
-            view = run.view
+            from . import sweep
+
+            def run(view: RunView) -> tuple[list[Finding], list[InternalError]]:
+                sub = FileReport(file=file)
+                if not view.skipped:
+                    open_view(view, file, options)  # the one open path, for each run of a sweep too
+                lint_view(view, options, file, sub)
+                return sub.findings, sub.internal
+
+            if sweep.is_sweep(doc.data):  # a sweep file: lint its runs
+                sweep.lint_sweep(doc, file, run, report, layout)
+                continue
+            fixed, varying = sweep.split_overrides(options.overrides)
+            if varying and not file.startswith("<"):  # list-valued overrides: one run per combination
+                from . import compose
+
+                try:
+                    base = compose.compose(doc, file, fixed)
+                except compose.ComposeError as exc:
+                    report.compose_problem = str(exc)
+                else:
+                    sweep.lint_override_sweep(base, file, varying, run, report, layout)
+                    continue
+            doc = _composed(doc, file, options, report)
+            view = build_view(doc, layout)
+            if not view.skipped:
+                open_view(view, file, options)  # links, launch context, runner defaults, GPUs
             report.views.append(view)
             if view.skipped:
                 reasons.append(view.skipped)
@@ -344,6 +394,20 @@ def lint_documents(docs: list[Document], file: str, options: Options,
         report.skipped = reasons[0] if reasons else "empty file"
     report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
     return report
+
+
+def _composed(doc: Document, file: str, options: Options, report: FileReport) -> Document:
+    """DOC composed with the files it names and the launch's overrides (compose.py); as written
+    when there is nothing to compose or a named file cannot be read (the reason is kept)."""
+    from . import compose
+
+    if not (options.overrides or compose.composes(doc.data)) or file.startswith("<"):
+        return doc
+    try:
+        return compose.compose(doc, file, options.overrides)
+    except compose.ComposeError as exc:
+        report.compose_problem = str(exc)
+        return doc
 
 
 def lint_text(text: str, name: str = "<text>", options: Options | None = None,

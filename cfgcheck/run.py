@@ -147,7 +147,7 @@ def _take_accelerate(ctx: LaunchContext, view: RunView, name: str) -> None:
         if isinstance(ac, bool):
             ctx.activation_checkpointing = ac
     for sub in view.attached:  # its deepspeed_config_file
-        if sub.layout is not None and sub.layout.name == "deepspeed":
+        if sub.layout is not None and sub.layout.role == "engine":
             ctx.views.append(sub)
             _take_deepspeed(ctx, sub, sub.doc.name)
 
@@ -177,12 +177,12 @@ def read_launch(files: tuple[str, ...] | list[str], cwd: Path | None = None, scr
             ctx.problems.append((str(name), f"{name}:{exc.line}:{exc.column}: {exc.reason}"))
             continue
         view = build_view(docs[0]) if docs else None
-        if view is None or view.layout is None or view.layout.name not in ("accelerate", "deepspeed"):
+        if view is None or view.layout is None or view.layout.role not in ("launch", "engine"):
             ctx.problems.append((str(name), f"{name} is not an accelerate config or a DeepSpeed file"))
             continue
         ctx.files.append(str(name))
         ctx.views.append(view)
-        if view.layout.name == "deepspeed":
+        if view.layout.role == "engine":  # a DeepSpeed file
             _take_deepspeed(ctx, view, str(name))
         else:
             attach_linked(view, str(path), cwd)
@@ -295,7 +295,7 @@ def _apply_defaults(view: RunView) -> None:
 
 def _apply_linked(view: RunView) -> None:
     for sub in view.attached:
-        if sub.layout is None or sub.layout.name != "deepspeed":
+        if sub.layout is None or sub.layout.role != "engine":
             continue
         stage = sub.get("runtime.zero_stage")
         if stage is not None and isinstance(stage.value, int) and not view.has("runtime.zero_stage"):
@@ -315,7 +315,7 @@ def _apply_launch(view: RunView, launch: LaunchContext) -> None:
     if launch.offload_optimizer:
         _supply(view, "runtime.offload_optimizer", True, "launch", f"optimizer offload in {where}")
     for sub in launch.views:  # a DeepSpeed file the run is started with is checked like a linked one
-        if sub.layout is not None and sub.layout.name == "deepspeed" and sub not in view.attached \
+        if sub.layout is not None and sub.layout.role == "engine" and sub not in view.attached \
                 and all(a.doc.name != sub.doc.name for a in view.attached):
             view.attached.append(sub)
 

@@ -83,8 +83,6 @@ def derive(values: dict, *, gpus: int | None, rows: int | None, use_trainer_defa
     return sched
 
 
-# layouts whose trainer is the transformers Trainer, so its defaults apply to unset values
-TRAINER_LAYOUTS = ("trainer", "llama-factory")
 _FIELDS = ("batch.per_device", "batch.accumulation", "optim.epochs", "optim.max_steps")
 
 
@@ -96,7 +94,8 @@ def derive_for(view, *, gpus: int | None, rows: int | None) -> Schedule:
     (TRL GRPO: each prompt repeated num_generations times by its sampler, and the per-device batch
     counts completions) steps through rows x generations samples per epoch.
     """
-    trainer = view.layout is not None and view.layout.name in TRAINER_LAYOUTS
+    # layouts whose file goes to TrainingArguments as it is: its defaults fill unset values
+    trainer = view.layout is not None and view.layout.trainer_defaults
     effective = getattr(view, "effective_value", view.value)
     values = {name: effective(name) for name in _FIELDS}
     rows = rows or view.value("data.rows")
@@ -112,11 +111,12 @@ def derive_for(view, *, gpus: int | None, rows: int | None) -> Schedule:
 
 
 def max_rows(view) -> int | None:
-    """The most rows the run reads when the file caps them: LLaMA-Factory's ``max_samples``
-    truncates each dataset it lists (comma-separated ``dataset``) to that many rows
-    (LLaMA-Factory data/loader.py, from memory)."""
+    """The most rows the run reads when the file caps them (``Layout.rows_cap_key``: LLaMA-Factory's
+    ``max_samples`` truncates each dataset it lists, comma-separated ``dataset``, to that many
+    rows; LLaMA-Factory data/loader.py, from memory)."""
     data = view.doc.data if isinstance(view.doc.data, dict) else {}
-    cap = data.get("max_samples") if view.layout is not None and view.layout.name in ("llama-factory",) else None
+    key = view.layout.rows_cap_key if view.layout is not None else None
+    cap = data.get(key) if key else None
     if not isinstance(cap, int) or isinstance(cap, bool) or cap <= 0:
         return None
     names = data.get("dataset")

@@ -41,7 +41,7 @@ class ScriptArg:
 class ScriptLaunch:
     file: str
     line: int
-    launcher: str  # "accelerate launch" | "torchrun" | "deepspeed" | "python"
+    launcher: str  # "accelerate launch" | "torchrun" | "deepspeed launcher" | "python" | a runner CLI
     program: str | None = None
     processes: int | None = None
     processes_option: str = ""
@@ -197,12 +197,10 @@ def _launch_of(text: str, name: str, folder: Path, plain: list, words: _Words) -
     w = [words.expand(p.word)[0] for p in plain]
     head = os.path.basename(w[0])
     i, launcher, valued = 1, None, set()
-    if head == "accelerate" and len(w) > 1 and w[1] == "launch":
-        launcher, valued, i = "accelerate launch", _ACCELERATE_VALUED, 2
-    elif head == "torchrun":
-        launcher, valued = "torchrun", _TORCHRUN_VALUED
-    elif head == "deepspeed":
-        launcher, valued = "deepspeed", _DEEPSPEED_VALUED
+    known = _LAUNCHERS.get(" ".join([head] + w[1:2])) or _LAUNCHERS.get(head)
+    if known is not None:
+        launcher, valued = known
+        i = len(launcher.split()) if launcher.startswith("accelerate") else 1
     elif head in _RUNNER_CLIS and len(w) > 1:  # llamafactory-cli train cfg.yaml, axolotl train ...
         launcher, i = head, 2
     elif _PYTHONS.match(head):
@@ -267,7 +265,7 @@ def _launch_of(text: str, name: str, folder: Path, plain: list, words: _Words) -
             if key in ("config", "config_file", "config_path", "cfg") and raw_val.lower().endswith(_CONFIG_SUFFIXES):
                 configs.append(_resolve(raw_val, folder))
                 continue
-            if key == "deepspeed" and raw_val.lower().endswith(".json"):
+            if opt in ("--deepspeed",) and raw_val.lower().endswith(".json"):  # the trainer's own
                 files.append(_resolve(raw_val, folder))
             sl.args.append(ScriptArg(key=key, value=_typed(raw_val), text=raw_val,
                                      key_span=_span(text, key_start, key_start + len(opt)),
@@ -284,6 +282,10 @@ def _launch_of(text: str, name: str, folder: Path, plain: list, words: _Words) -
 
 
 _RUNNER_CLIS = ("llamafactory-cli", "axolotl", "tune", "trl")
+# the launchers by their first word(s) -> (our label, the options that take a value)
+_LAUNCHERS = {"accelerate launch": ("accelerate launch", _ACCELERATE_VALUED),
+              "torchrun": ("torchrun", _TORCHRUN_VALUED),
+              "deepspeed": ("deepspeed launcher", _DEEPSPEED_VALUED)}
 
 _FLAGS = {"multi_gpu", "use_deepspeed", "use_fsdp", "use_megatron_lm", "cpu", "tpu", "no_python",
           "module", "m", "quiet", "q", "standalone", "debug", "no_local_rank", "enable_each_rank_log",
@@ -322,7 +324,7 @@ def _launcher_option(sl: ScriptLaunch, launcher: str, key: str, val: str, folder
             sl.processes, sl.processes_option = _int(val), "--nproc_per_node"
         elif key == "nnodes" and _int(val):
             sl.machines = _int(val)
-    elif launcher == "deepspeed":
+    elif launcher == "deepspeed launcher":
         if key == "num_gpus" and _int(val):
             sl.processes, sl.processes_option = _int(val), "--num_gpus"
         elif key == "num_nodes" and _int(val):
@@ -331,7 +333,7 @@ def _launcher_option(sl: ScriptLaunch, launcher: str, key: str, val: str, folder
 
 def finish(sl: ScriptLaunch) -> ScriptLaunch:
     """GPUs in the whole job: torchrun and deepspeed count per machine, accelerate over all."""
-    if sl.launcher in ("torchrun", "deepspeed") and sl.processes and sl.machines and sl.machines > 1:
+    if sl.launcher in ("torchrun", "deepspeed launcher") and sl.processes and sl.machines and sl.machines > 1:
         sl.processes *= sl.machines
         sl.processes_option += f" x {sl.machines} machines"
     return sl

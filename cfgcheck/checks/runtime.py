@@ -29,9 +29,10 @@ def deepspeed_contradicts(ctx) -> None:
     for link in view.links:
         if link.problem and link.field == "runtime.deepspeed":
             ctx.cannot_judge(f"the DeepSpeed file {link.problem}", linked=link.target)
-    layout = view.layout.name if view.layout is not None else ""
+    defaults = view.layout is not None and view.layout.trainer_defaults
+    launcher = view.layout is not None and view.layout.role == "launch"
     for ds in view.attached:
-        if ds.layout is None or ds.layout.name != "deepspeed":
+        if ds.layout is None or ds.layout.role != "engine":
             continue
         name = "the inline deepspeed block" if ds.doc is view.doc or ds.doc.name == view.doc.name \
             else ds.doc.name
@@ -43,15 +44,15 @@ def deepspeed_contradicts(ctx) -> None:
             value, where = None, None
             if f is not None and isinstance(f.value, int) and not f.auto:
                 value, where = f.value, "written"
-            elif f is None and layout == "trainer" and ours in TRAINER_DEFAULTS:
+            elif f is None and defaults and ours in TRAINER_DEFAULTS:
                 value, where = TRAINER_DEFAULTS[ours], "the default"
             if value is None or value == d.value:
                 continue
             at = f if f is not None else view.get("runtime.deepspeed")
-            ctx.report(at, "accelerate" if layout == "accelerate" else "default",
+            ctx.report(at, "accelerate" if launcher else "default",
                        key=f.leaf if f is not None else hf_key, value=value, where=where,
                        ds_file=name, ds_key=d.key, ds_value=d.value)
-        _global_batch(ctx, view, ds, name, layout)
+        _global_batch(ctx, view, ds, name, defaults)
         for ours, theirs in (("precision.bf16", "precision.bf16"), ("precision.fp16", "precision.fp16")):
             d, f = ds.get(theirs), view.get(ours)
             if d is None or d.auto or not isinstance(d.value, bool):
@@ -59,7 +60,7 @@ def deepspeed_contradicts(ctx) -> None:
             value, key, at = None, ours.split(".")[1], f
             if f is not None and not f.auto and isinstance(f.value, bool):
                 value, key = f.value, f.leaf
-            elif f is None and layout == "trainer":
+            elif f is None and defaults:
                 # unset: the trainer's own default (TrainingArguments False; TRL SFTConfig's bf16
                 # default comes through the opened run), which the integration compares too
                 eff = view.effective(ours)
@@ -72,7 +73,7 @@ def deepspeed_contradicts(ctx) -> None:
                        ds_value=d.value)
 
 
-def _global_batch(ctx, view, ds, name: str, layout: str) -> None:
+def _global_batch(ctx, view, ds, name: str, defaults: bool) -> None:
     """The DeepSpeed file's train_batch_size against the config's micro-batch x accumulation x
     GPUs: the integration fills "auto" from that product and DeepSpeed asserts they are equal."""
     d = ds.get("batch.global")
@@ -83,7 +84,7 @@ def _global_batch(ctx, view, ds, name: str, layout: str) -> None:
         f = view.get(ours)
         if f is not None and isinstance(f.value, int) and not f.auto and f.value > 0:
             values.append(f.value)
-        elif f is None and layout == "trainer" and ours in TRAINER_DEFAULTS:
+        elif f is None and defaults and ours in TRAINER_DEFAULTS:
             values.append(TRAINER_DEFAULTS[ours])
         else:
             return
