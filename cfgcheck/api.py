@@ -31,10 +31,14 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
                   thresholds: Mapping[str, Mapping[str, Any]] | None = None,
                   debug: bool | None = None, cwd: Path | None = None,
                   overrides: Iterable[str] | None = None,
-                  installed: Iterable[str] | Mapping[str, str] | None = None) -> dict[str, Any]:
+                  installed: Iterable[str] | Mapping[str, str] | None = None,
+                  launch: Iterable[str | Path] | None = None) -> dict[str, Any]:
     """The options a caller set explicitly, as engine values (None = not set).
     Raises UnknownGpu for a GPU name we do not know, OptionError for a bad severity (both are
-    ValueErrors)."""
+    ValueErrors), ValueError for a launch file that does not exist."""
+    for f in launch or ():
+        if not Path(f).is_file():
+            raise ValueError(f"launch file {f} not found (--launch takes an accelerate config or a DeepSpeed JSON)")
     for name, value in (("gpus", gpus), ("rows", rows)):
         if value is not None and (isinstance(value, bool) or not isinstance(value, int)
                                   or not 1 <= value <= MAX_MAGNITUDE):
@@ -53,6 +57,7 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
         "cwd": cwd,
         "overrides": _checked_overrides(overrides),
         "versions": _installed(installed),
+        "launch": tuple(str(p) for p in launch) if launch else None,
     }
 
 
@@ -96,14 +101,43 @@ def _project(project: Any, paths: list):
     return projectmod.load(project)
 
 
-def _targets(paths: list, project: Any, given: dict[str, Any]):
-    """(files as (file, skip reason), options for a file, the project or None)."""
+def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = False):
+    """(files as (file, skip reason), options for a file, the project or None).
+
+    Launch scripts (``.sh``) under the paths pair the configs they start with their launch
+    context (``Options.script``); with ``scripts`` the scripts themselves are listed too."""
+    import dataclasses
+
+    from .scripts import find_scripts, pairings
+
     proj = _project(project, paths)
     if proj is None:
         opts = Options(**{k: v for k, v in given.items() if v is not None})
-        return [(f, None) for f in engine.expand_paths(paths)], (lambda file: opts), None
-    files = proj.expand(paths or [os.path.relpath(proj.root)])
-    return files, (lambda file: proj.options_for(file, given)), proj
+        files = [(f, None) for f in engine.expand_paths(paths)]
+        base = lambda file: opts  # noqa: E731
+        roots = paths
+    else:
+        roots = paths or [os.path.relpath(proj.root)]
+        files = proj.expand(roots)
+        base = lambda file: proj.options_for(file, given)  # noqa: E731
+    found = find_scripts(roots)
+    paired = pairings(found) if found else {}
+
+    def options_for(file: str) -> Options:
+        opts = base(file)
+        sl = paired.get(os.path.normpath(os.path.abspath(file)))
+        if sl is not None and opts.script is None:
+            opts = dataclasses.replace(opts, script=sl)
+        return opts
+
+    if scripts:
+        listed = {os.path.normpath(f) for f, _ in files}
+        files = files + [(s, None) for s in found if os.path.normpath(s) not in listed]
+    else:
+        from .scripts import SCRIPT_SUFFIXES
+
+        files = [(f, skip) for f, skip in files if not f.lower().endswith(SCRIPT_SUFFIXES)]
+    return files, options_for, proj
 
 
 def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
@@ -123,7 +157,7 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
     file, ``ValueError`` for a bad option value.
     """
     paths = list(paths)
-    files, options_for, proj = _targets(paths, project, given_options(**options))
+    files, options_for, proj = _targets(paths, project, given_options(**options), scripts=True)
     if proj is not None and baseline is None and proj.baseline is not None and proj.baseline.is_file():
         baseline = proj.baseline  # the project's baseline, unless the caller chose
     report = Report()
@@ -210,12 +244,13 @@ class DeriveResult:
 
 
 def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) -> DeriveResult:
-    """The derived run of each training config (skipped files are left out); the project
-    file's hardware profiles apply as they do for ``lint``."""
+    """The derived run of each training config (skipped files are left out). Runs are opened
+    the way ``lint`` opens them (``cfgcheck.run``): linked files, launch context, runner
+    defaults, the project file's hardware profiles and launch files."""
     from .findings import InputProblem
-    from .load import LoadError, load_path
+    from .load import LoadError
     from .plan import derive_plan, model_of
-    from .view import build_view
+    from .run import open_path
 
     files, options_for, _proj = _targets(list(paths), project, given_options(**options))
     out = DeriveResult()
@@ -225,17 +260,17 @@ def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any
         opts = options_for(file)
         try:  # the crash boundary of one file: the other files are still derived
             try:
-                _src, docs = load_path(file)
+                runs = open_path(file, opts)
             except LoadError as exc:
                 out.problems.append(InputProblem(file=file, line=exc.line, column=exc.column,
                                                  reason=exc.reason))
                 continue
-            for doc in docs:
-                view = build_view(doc)
+            for run in runs:
+                view = run.view
                 if view.skipped:
                     continue
                 arch = model_of(view, file, opts.cwd)
-                out.runs.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=opts.gpus, rows=opts.rows)))
+                out.runs.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=run.gpus, rows=opts.rows)))
         except Exception as exc:
             if opts.debug:
                 raise

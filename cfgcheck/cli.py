@@ -205,6 +205,7 @@ def lint(
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
     installed: Optional[List[str]] = typer.Option(None, "--installed", metavar="LIBRARY==VERSION",
                                                   help="A library release the run uses, e.g. trl==0.12.2 (repeat for several; wins over the pins found beside the config)."),
+    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
     only: Optional[List[str]] = typer.Option(None, "--only", autocompletion=_complete_rule,
                                              help="Run only this rule (repeat for several)."),
     skip: Optional[List[str]] = typer.Option(None, "--skip", autocompletion=_complete_rule,
@@ -248,7 +249,7 @@ def lint(
     levels = _severity_pairs(severity or [])
     _unknown_rules(levels)
     chosen = {
-        "gpu": gpu, "gpus": gpus, "rows": rows, "debug": debug or None,
+        "gpu": gpu, "gpus": gpus, "rows": rows, "debug": debug or None, "launch": launch or None,
         "only": only or None, "skip": skip or None, "severity": levels or None,
         "overrides": override or None,
         "installed": installed or None,
@@ -322,6 +323,7 @@ def derive(
     gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows."),
+    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
     fmt: PlanFormat = typer.Option(PlanFormat.text, "--format", help="Output format."),
     no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (their hardware profiles)."),
     pictures: bool = typer.Option(True, "--pictures/--no-pictures", help="Text output: draw the learning rate over the steps (with evaluation, checkpoint and logging marks) and the memory per GPU as a bar."),
@@ -331,7 +333,8 @@ def derive(
     from .findings import json_text, printable
 
     try:
-        result = api.derive(paths, gpu=gpu, gpus=gpus, rows=rows, project=None if no_project else "auto")
+        result = api.derive(paths, gpu=gpu, gpus=gpus, rows=rows, launch=launch or None,
+                            project=None if no_project else "auto")
     except _input_errors() as exc:  # an unknown GPU name, a bad project file
         _fail(_input_message(exc), api.EXIT_INPUT)
     if fmt is PlanFormat.json:
@@ -367,6 +370,7 @@ def fix(
     gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
     no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (hardware profiles, rule selection, waivers)."),
 ) -> None:
     """Rewrite the values rules can fix, in place, keeping every other byte; each rewrite is proven first."""
@@ -377,7 +381,7 @@ def fix(
     try:
         report = api.fix(paths, training=training, halve_batch=halve_batch,
                          write=not (diff or no_write), project=None if no_project else "auto",
-                         gpu=gpu, gpus=gpus, rows=rows)
+                         gpu=gpu, gpus=gpus, rows=rows, launch=launch or None)
     except _input_errors() as exc:  # an unknown GPU name, a bad project file
         _fail(_input_message(exc), api.EXIT_INPUT)
     if diff:
@@ -416,6 +420,7 @@ def report_html(
     gpu: Optional[str] = typer.Option(None, "--gpu", autocompletion=_complete_gpu, help="The GPU the run will use (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several)."),
     no_project: bool = typer.Option(False, "--no-project", help="Ignore project files."),
 ) -> None:
     """Write one self-contained HTML file: each config's findings, its derived run and two pictures."""
@@ -427,8 +432,8 @@ def report_html(
 
     project = None if no_project else "auto"
     try:
-        report = api.lint(paths, project=project, gpu=gpu, gpus=gpus, rows=rows)
-        runs = api.derive(paths, project=project, gpu=gpu, gpus=gpus, rows=rows).runs
+        report = api.lint(paths, project=project, gpu=gpu, gpus=gpus, rows=rows, launch=launch or None)
+        runs = api.derive(paths, project=project, gpu=gpu, gpus=gpus, rows=rows, launch=launch or None).runs
     except _input_errors() as exc:  # an unknown GPU name, a bad project or baseline file
         _fail(_input_message(exc), api.EXIT_INPUT)
     page = render_report(report, runs)

@@ -215,7 +215,8 @@ class Workspace:
             return None
         name = names[0]
         opts = self.options(path)
-        plan = derive_plan(view, model_of(view, path, opts.cwd), gpu=opts.gpu, gpus=opts.gpus, rows=opts.rows)
+        gpus = view.run.gpus if view.run is not None else opts.gpus  # as the opened run resolved them
+        plan = derive_plan(view, model_of(view, path, opts.cwd), gpu=opts.gpu, gpus=gpus, rows=opts.rows)
         s = plan.schedule
         if name in ("adapter.alpha", "adapter.rank", "adapter.rslora", "optim.lr"):
             if plan.adapter_scale is None:

@@ -36,6 +36,9 @@ class Options:
     cwd: Path | None = None
     debug: bool = False  # re-raise a failing rule instead of reporting it
     waivers: tuple[waivermod.ProjectWaiver, ...] = ()  # from the project configuration
+    launch: tuple[str, ...] = ()  # launch files the run is started with (--launch, project file)
+    gpus_from: str = ""  # where ``gpus`` came from, in words ("--gpus", "cfgcheck.yaml profile")
+    script: Any = None  # scripts.ScriptLaunch: a launch script in the tree that names this config
     overrides: tuple[str, ...] = ()  # key=value overrides the launch passes (compose.py)
     versions: dict[str, str] = field(default_factory=dict)  # library -> release the run uses (--installed)
 
@@ -100,6 +103,7 @@ class Context:
                  active: frozenset[str] = frozenset(),
                  waiver_paths: dict[int, list[tuple]] | None = None):
         self.view = view
+        self.run = view.run  # the opened run (cfgcheck.run.OpenedRun): launch context, GPUs
         self.waivers = waivers or []  # waiver comments of this document
         self.waiver_paths = waiver_paths or {}  # target line -> key paths written on it
         self.earlier = earlier or []  # findings of the rules that ran before (stage: last)
@@ -122,14 +126,14 @@ class Context:
 
     @property
     def num_gpus(self) -> tuple[int | None, Field | None]:
-        """GPUs in the job: the command line wins, then the config itself."""
-        if self.options.gpus:
-            return self.options.gpus, None
-        f = self.view.get("hardware.num_gpus")
-        if f is not None and isinstance(f.value, int) and f.value > 0:
-            machines = self.view.value("hardware.num_machines", 1)
-            return f.value * (machines if isinstance(machines, int) and machines > 0 else 1), f
-        return None, None
+        """GPUs in the job, as the opened run resolved them: the command line or project profile,
+        then the launch context, then the config itself. (None, None) when nothing says it."""
+        run = self.run
+        if run is None:
+            from .run import open_view
+
+            run = self.run = open_view(self.view, self.file, self.options)
+        return run.gpus, run.gpus_field
 
     def model(self):
         """The base model's architecture when it can be known offline, else None."""
@@ -140,10 +144,19 @@ class Context:
     # reporting --------------------------------------------------------------
     def report(self, at: Field | tuple | None = None, variant: str = "default", *,
                on: str = "value", fix: Fix | None = None, related: Iterable = (),
-               **data: Any) -> None:
+               assumed: Iterable[Field | str] = (), **data: Any) -> None:
         """``related``: other Fields (or key paths) where the same cause is written; the engine
-        locates them and the finding lists them beside its own location."""
+        locates them and the finding lists them beside its own location. ``assumed``: the values
+        (or words) the verdict rests on that nothing written, linked, launched, flagged or
+        defaulted says; with any, the finding is at most a warning and its message names them."""
         span = None
+        notes = []
+        for a in list(assumed) + ([at] if isinstance(at, Field) else []):
+            if isinstance(a, Field):
+                if a.origin == "assumed":
+                    notes.append(a.note or f"{a.name} assumed")
+            elif a:
+                notes.append(str(a))
         if isinstance(at, waivermod.Waiver):  # a comment: located where it is written
             span = at.span
             paths = self.waiver_paths.get(at.target, []) if at.target else []
@@ -153,7 +166,7 @@ class Context:
         others = tuple(r.path if isinstance(r, Field) else tuple(r) for r in related)
         self._sink.append(
             make_finding(self.rule, self.options, self.doc, self.file, path, variant, on, data,
-                         fix, span, others)
+                         fix, span, others, assumptions=tuple(dict.fromkeys(notes)))
         )
 
     def cannot_judge(self, what: str, **data: Any) -> None:
@@ -225,13 +238,20 @@ def _origin_of(doc: Document, path: tuple) -> str | None:
 
 def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: tuple,
                  variant: str, on: str, data: dict[str, Any], fix: Fix | None,
-                 span=None, related: tuple = ()) -> Finding:
-    """The one place findings are made."""
+                 span=None, related: tuple = (), assumptions: tuple[str, ...] = ()) -> Finding:
+    """The one place findings are made. A verdict that rests on an assumption is at most a
+    warning, whatever the rule, its variant or an override says, and says what it assumed."""
     data = shown_data(data)  # a huge number as its short text, in the message and in the data
     msg = rule.messages[variant]
     severity = options.severity.get(rule.id) or msg.severity or rule.severity
+    message = _fill(msg.message, data)
+    if assumptions:
+        data = dict(data, assumptions=list(assumptions))
+        message += " (" + "; ".join(f"assuming {a}" for a in assumptions) + ")"
+        if severity > Severity.WARNING:
+            severity = Severity.WARNING
     return _finding(rule=rule.id, severity=severity, doc=doc, file=file, path=path, on=on,
-                    message=_fill(msg.message, data), hint=_fill(msg.hint, data),
+                    message=message, hint=_fill(msg.hint, data),
                     data=dict(data, variant=variant) if variant != "default" else dict(data),
                     fix=fix, span=span, related=related)
 
@@ -329,12 +349,16 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             line = w.target or w.line
             owner = next((i for end, i in ends if line <= end), ends[-1][1] if ends else None)
             owners.setdefault(owner, []).append(w)
+    from .run import open_view  # the one open path: links, launch context, defaults
+
     for doc in docs:
         try:  # the crash boundary of one document: a bug here spares the other documents
             from . import sweep
 
             def run(view: RunView) -> tuple[list[Finding], list[InternalError]]:
                 sub = FileReport(file=file)
+                if not view.skipped:
+                    open_view(view, file, options)  # the one open path, for each run of a sweep too
                 lint_view(view, options, file, sub)
                 return sub.findings, sub.internal
 
@@ -354,14 +378,13 @@ def lint_documents(docs: list[Document], file: str, options: Options,
                     continue
             doc = _composed(doc, file, options, report)
             view = build_view(doc, layout)
+            if not view.skipped:
+                open_view(view, file, options)  # links, launch context, runner defaults, GPUs
             report.views.append(view)
             if view.skipped:
                 reasons.append(view.skipped)
                 continue
             report.layout = report.layout or view.layout.name
-            from .links import attach_linked  # the linked DeepSpeed / accelerate files
-
-            attach_linked(view, file, options.cwd)
             mine = owners.get(doc.index, []) if len(docs) > 1 else waivers
             lint_view(view, options, file, report, mine)
         except Exception as exc:
@@ -404,9 +427,52 @@ def lint_text(text: str, name: str = "<text>", options: Options | None = None,
         return FileReport(file=name, internal=[internal_error(name, None, exc)])
 
 
+def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
+    """A launch script: each training command's ``--key value`` arguments are linted like a flat
+    trainer config located at the script's lines, with the launch context the command gives."""
+    import dataclasses
+
+    from .run import open_view
+    from .scripts import ScriptTooLarge, read_script, script_document
+
+    options = options or Options()
+    name = str(path)
+    try:
+        launches = read_script(path)
+    except ScriptTooLarge as exc:
+        return FileReport(file=name, skipped=exc.reason)
+    except LoadError as exc:
+        return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
+                                                          column=exc.column, reason=exc.reason))
+    report = FileReport(file=name)
+    for i, sl in enumerate(launches):
+        try:  # the crash boundary of one launch: a bug here spares the others
+            doc = script_document(sl, i)
+            if doc is None:
+                continue
+            view = build_view(doc, "trainer")
+            report.views.append(view)
+            report.layout = report.layout or "launch script"
+            open_view(view, name, dataclasses.replace(options, script=sl))
+            lint_view(view, options, name, report)
+        except Exception as exc:
+            if options.debug:
+                raise
+            report.internal.append(internal_error(name, None, exc))
+    if not report.layout and not report.internal:
+        report.skipped = ("a shell script that starts no training" if not launches
+                          else "a launch script with no trainer arguments of its own")
+    report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
+    return report
+
+
 def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
     options = options or Options()
     name = str(path)
+    from .scripts import SCRIPT_SUFFIXES
+
+    if name.lower().endswith(SCRIPT_SUFFIXES) and not os.path.isdir(path):
+        return lint_script(path, options)
     try:
         try:
             if os.path.isdir(path):

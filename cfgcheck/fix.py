@@ -1227,7 +1227,7 @@ def _culprits(text, name, fmt, docs, accepted, edits) -> tuple[str, ...]:
 def _linked_paths(report) -> tuple[str, ...]:
     out = []
     for view in report.views:
-        for link in view.cache.get("links", ()):
+        for link in view.links:  # the typed record of what the config links (cfgcheck.run)
             if link.path and link.problem is None:
                 out.append(os.path.realpath(link.path))
     return tuple(dict.fromkeys(out))

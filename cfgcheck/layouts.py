@@ -90,6 +90,8 @@ class Layout:
     # the runner's packing builds a block-causal mask itself, so packed samples never attend
     # across their boundaries whatever the attention kernel
     packing_masks_boundaries: bool = False
+    # the key that caps the rows the runner reads from each dataset it lists (None: no such key)
+    rows_cap_key: str | None = None
     # the runner refuses the "qlora" method word unless the base loads in 4 bits
     qlora_word_needs_4bit: bool = False
     # what fp16 means to the runner: "autocast" (mixed precision over the weights as loaded),
@@ -624,6 +626,8 @@ LLAMA_FACTORY = Layout(
     # the file goes to transformers' HfArgumentParser.parse_dict after yaml.safe_load: text stays text
     default_method="lora",  # FinetuningArguments.finetuning_type defaults to "lora"
     eval_data_known=True,
+    # max_samples truncates each listed dataset to that many rows (LLaMA-Factory data/loader.py)
+    rows_cap_key="max_samples",
     trainer_defaults=True,  # the file is parsed into (a subclass of) TrainingArguments
     trainer_schedule=True,
     word_lists=frozenset({"transformers-arguments", "transformers-strategies"}),

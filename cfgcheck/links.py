@@ -6,7 +6,8 @@ What is followed: a relative path (against the folder of the config, then the wo
 as the launchers themselves resolve it from where they are started) or an absolute path the
 config names, when it is a local ``.json``/``.yaml``/``.yml`` file. Never a URL. An inline
 mapping (the trainer accepts a DeepSpeed dict in place of a path) is attached too. What could not
-be followed is recorded in ``view.cache["links"]`` for the rules to mention once.
+be followed is recorded in ``view.links`` for the rules to mention once. Each value read from an
+attached file is a ``Field`` with ``origin="linked"`` and the file in ``note``.
 """
 
 from __future__ import annotations
@@ -115,8 +116,7 @@ def _find(candidates: list[Path]) -> tuple[Path | None, list[str]]:
 
 def attach_linked(view: RunView, file: str, cwd: Path | None = None) -> None:
     """Read the configs this view points to and attach their views."""
-    links: list[Link] = []
-    view.cache["links"] = links
+    links: list[Link] = view.links
     for name in LINK_FIELDS:
         f = view.get(name)
         if f is None and name == "runtime.deepspeed" and isinstance(view.doc.data, dict) \

@@ -18,6 +18,7 @@ from .knowledge.memory import MemoryBreakdown, MemoryInputs, changes_that_fit, e
 from .knowledge import models as _models
 from .knowledge.models import Architecture, UnsupportedFamily, lora_scale, total_parameters
 from .schedule import Schedule, derive_for, resolve_interval
+from .defaults import ALL_LINEAR_WORDS
 from .view import RunView
 
 DEFAULT_SEQ_LEN = 2048  # assumed when the config sets none (common practice, no source)
@@ -47,7 +48,11 @@ class Plan:
     memory: MemoryBreakdown | None = None
     memory_problem: str | None = None  # why there is no estimate
     gpu: Gpu | None = None
-    assumptions: list[str] = field(default_factory=list)
+    assumptions: list[str] = field(default_factory=list)  # guesses: nothing says these (words)
+    defaults: list[str] = field(default_factory=list)  # runner and trainer defaults used (words)
+    supplied: list[tuple[str, str]] = field(default_factory=list)  # (origin, words): linked, launch, flag
+    context: str = ""  # the launch context the plan used, in words
+    gpus_assumed: bool = False  # the GPU count matters (sharded) and nothing names it
     load_note: str | None = None  # which load-dtype default the estimate used, in words
     # the learning-rate schedule as written (None: not written), its kwargs, and the strategy
     # words of evaluation, saving and logging (None: not written) -- what the pictures draw
@@ -100,18 +105,24 @@ class Plan:
             "memory": mem,
             "memory_problem": self.memory_problem,
             "assumptions": list(self.assumptions),
+            "defaults": list(self.defaults),
+            "supplied": [{"origin": o, "note": n} for o, n in self.supplied],
+            "launch_context": self.context,
+            "sharding": self.memory_inputs.sharding if self.memory_inputs else None,
+            "num_gpus": self.schedule.gpus if self.schedule else None,
         }
 
 
 def _storage(view: RunView, arch: Architecture | None, method: str, plan: Plan) -> str:
-    if method == "qlora" or view.is_on("quant.load_4bit"):
-        qtype = view.value("quant.type_4bit")
+    if method == "qlora" or view.effective_on("quant.load_4bit"):
+        qf = view.effective("quant.type_4bit")
+        qtype = qf.value if qf is not None else None
         if qtype is None:
-            plan.assumptions.append("bnb_4bit_quant_type not set: bitsandbytes' default fp4")
+            plan.defaults.append("bnb_4bit_quant_type not set: bitsandbytes' own default fp4")
         return "nf4" if str(qtype or "fp4").lower() == "nf4" else "fp4"
-    if view.is_on("quant.load_8bit"):
+    if view.effective_on("quant.load_8bit") or view.effective_value("quant.bits") == 8:
         return "int8"
-    dtype = view.value("model.dtype")
+    dtype = view.effective_value("model.dtype")
     if isinstance(dtype, str):
         word = dtype.strip().lower()
         if word == "auto" and arch is not None and arch.torch_dtype:
@@ -119,7 +130,7 @@ def _storage(view: RunView, arch: Architecture | None, method: str, plan: Plan) 
         if word in _DTYPES:
             return _DTYPES[word]
     if dtype is None and method != "full" and not (arch is not None and arch.torch_dtype):
-        return "bf16" if (view.is_on("precision.bf16") or not view.is_on("precision.fp16")) else "fp16"
+        return "bf16" if (view.effective_on("precision.bf16") or not view.effective_on("precision.fp16")) else "fp16"
     if dtype is not None and str(dtype).strip().lower() != "auto":
         plan.load_note = f"torch_dtype {dtype!r} not understood: weights loaded in fp32 assumed"
         plan.assumptions.append(plan.load_note)
@@ -139,7 +150,7 @@ def _default_load_storage(arch: Architecture | None, plan: Plan) -> str:
     if stored is not None:
         plan.load_note = (f"no torch_dtype: weights loaded in the checkpoint's dtype {stored} "
                           f"({LOAD_DEFAULT_VERSION} default dtype='auto'; transformers 4 loaded fp32)")
-        plan.assumptions.append(plan.load_note)
+        plan.defaults.append(plan.load_note)  # a defined default of the pinned release, not a guess
         return stored
     plan.load_note = ("no torch_dtype and the checkpoint's dtype unknown: weights loaded in fp32 assumed "
                       "(the torch default dtype)")
@@ -148,7 +159,8 @@ def _default_load_storage(arch: Architecture | None, plan: Plan) -> str:
 
 
 def _sharding(view: RunView) -> str:
-    stage = view.value("runtime.zero_stage")
+    """Sharding of a view that was not opened (``cfgcheck.run`` says it for opened runs)."""
+    stage = view.effective_value("runtime.zero_stage")
     for attached in view.attached:
         stage = stage if stage is not None else attached.value("runtime.zero_stage")
     if isinstance(stage, int) and not isinstance(stage, bool) and stage in (0, 1, 2, 3):
@@ -163,9 +175,9 @@ def _sharding(view: RunView) -> str:
 
 
 def _mixed(view: RunView, storage: str, sharding: str) -> str | None:
-    wants = "bf16" if view.is_on("precision.bf16") else "fp16" if view.is_on("precision.fp16") else None
-    mixed = view.value("precision.mixed")
-    if isinstance(mixed, str) and mixed.lower() in ("bf16", "fp16"):
+    wants = "bf16" if view.effective_on("precision.bf16") else "fp16" if view.effective_on("precision.fp16") else None
+    mixed = view.effective_value("precision.mixed")
+    if wants is None and isinstance(mixed, str) and mixed.lower() in ("bf16", "fp16"):
         wants = mixed.lower()
     if wants is None:
         return None
@@ -174,34 +186,53 @@ def _mixed(view: RunView, storage: str, sharding: str) -> str | None:
     return None  # 16-bit weights trained directly: no master copy (measured, see knowledge.memory)
 
 
+def _words(f) -> str:
+    return f.note or f"{f.name} = {f.value}"
+
+
 def model_of(view: RunView, file: str, cwd: Path | None) -> Architecture | None:
     """The base model's architecture when it can be known offline (cached on the view)."""
-    if "model" in view.cache:
-        return view.cache["model"]
+    if view.model_found is not None:
+        return view.model_found[0]
     ref = view.value("model.ref")
     arch = None
     if isinstance(ref, str) and ref.strip():
         parent = Path(file).parent if file and not file.startswith("<") else None
         arch = _models.resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(os.getcwd()))
-    view.cache["model"] = arch
+    view.model_found = (arch,)
     return arch
 
 
 def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gpus: int | None,
                 rows: int | None) -> Plan:
+    """The derived run of an opened view (``cfgcheck.run.open_view``): launch context, linked
+    files and runner defaults are read through ``view.effective``; ``gpus`` as the run resolved."""
+    run = view.run
     ref = view.value("model.ref")
     plan = Plan(method=view.method, method_stated=view.method_stated,
                 model_ref=ref if isinstance(ref, str) else None, arch=arch, gpu=gpu)
+    if run is not None:
+        plan.context = run.context_words()
     sched = derive_for(view, gpus=gpus, rows=rows)
     plan.schedule = sched
     aside = {f.name for f in view.out_of_range}  # written, but past any run's range
     for name in sched.defaults_used:
-        plan.assumptions.append(f"{name} {'out of range, set aside' if name in aside else 'not set'}: "
-                                "the trainer default")
-    seq = view.value("data.seq_len")
+        if name in aside:  # written past any run's range: the default stands in, a guess
+            plan.assumptions.append(f"{name} out of range, set aside: the trainer default")
+        else:
+            plan.defaults.append(f"{name} not set: the trainer default")
+    for name in sorted(view.supplied):
+        f = view.supplied[name]
+        if f.origin == "default" and f.note:
+            plan.defaults.append(f.note)
+        elif f.note:
+            plan.supplied.append((f.origin, f.note))
+    seq_f = view.effective("data.seq_len")
+    seq = seq_f.value if seq_f is not None else None
     if not isinstance(seq, int) or seq <= 0:
         seq, plan.seq_len_assumed = DEFAULT_SEQ_LEN, True
-        plan.assumptions.append(f"no sequence length set: {DEFAULT_SEQ_LEN} assumed")
+        plan.assumptions.append(f"sequence length {DEFAULT_SEQ_LEN} because the file names none "
+                                f"(set max_length, or the runner's own sequence-length key)")
     plan.seq_len = seq
     if sched.effective_batch:
         plan.tokens_per_step = sched.effective_batch * seq
@@ -213,7 +244,7 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     for what in ("eval", "save", "logging"):
         word = view.value(f"cadence.{what}_strategy")
         plan.strategies[what] = str(word).strip().lower() if isinstance(word, (str, bool)) else None
-    rank, alpha = view.value("adapter.rank"), view.value("adapter.alpha")
+    rank, alpha = view.effective_value("adapter.rank"), view.effective_value("adapter.alpha")
     if view.is_adapter and isinstance(rank, int) and rank > 0 and isinstance(alpha, (int, float)):
         plan.adapter_scale = lora_scale(alpha, rank, view.is_on("adapter.rslora"))
         if plan.learning_rate is not None:
@@ -237,9 +268,23 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     if view.method not in ("full", "lora", "qlora"):
         plan.memory_problem = "the training method is not known from this file"
         return plan
+    unmodelled = unmodelled_optimizer(view)
+    if unmodelled:
+        plan.memory_problem = f"optimizer not modelled by the estimate ({unmodelled})"
+        return plan
     try:
         plan.total_parameters = total_parameters(arch)
         inputs = memory_inputs(view, arch, plan, gpus=sched.gpus)
+        if inputs.sharding != "none" and (run is None or run.gpus is None):
+            plan.gpus_assumed = True
+            plan.assumptions.append(f"1 GPU because nothing names the GPU count, so {inputs.sharding} "
+                                    f"shards nothing (pass --gpus N or --launch FILE)")
+        if _offload_params(view):
+            plan.assumptions.append("the weights on the GPU, though the launch offloads parameters to CPU "
+                                    "memory (not modelled: the estimate is an upper bound)")
+        if inputs.sharding == "none" and not _sharding_known(view):
+            plan.assumptions.append("no ZeRO/FSDP sharding because no launch context names it "
+                                    "(pass --launch FILE, or --gpus 1 for a single-GPU run)")
         plan.memory_inputs = inputs
         plan.memory = estimate_memory(inputs)
         plan.trainable_parameters = plan.memory.trainable_parameters
@@ -249,41 +294,113 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     return plan
 
 
+# recipe-runner switches for optimizers whose states the estimate does not model (GaLore projects
+# gradients to a low rank, layer-wise variants update one layer at a time, BAdam trains one block
+# at a time): an AdamW-based number would be wrong, so there is no estimate (LLaMA-Factory
+# FinetuningArguments use_galore / use_apollo / use_badam ...)
+_UNMODELLED_SWITCHES = ("use_galore", "use_apollo", "use_badam", "use_adam_mini", "use_muon")
+
+
+def unmodelled_optimizer(view: RunView) -> str | None:
+    data = view.doc.data if isinstance(view.doc.data, dict) else {}
+    for key in _UNMODELLED_SWITCHES:
+        if data.get(key) is True:
+            return f"{key}: true"
+    return None  # optimizer names (optim: galore_adamw, ...): knowledge.memory says which it models
+
+
+def _sharding_known(view: RunView) -> bool:
+    """Whether anything says how the run shards: a launch context, the config's own DeepSpeed or
+    FSDP settings, or a single GPU (nothing to shard across). Without one, an accelerate launch
+    may still take ZeRO/FSDP from the machine's default accelerate config."""
+    run = view.run
+    if run is not None and (run.launch.known or (run.gpus == 1 and run.gpus_origin != "assumed")):
+        return True
+    data = view.doc.data if isinstance(view.doc.data, dict) else {}
+    return any(view.get(n) is not None for n in ("runtime.deepspeed", "runtime.fsdp", "runtime.zero_stage",
+                                                   "runtime.distributed")) or bool(view.attached) \
+        or "fsdp" in data or "dist_config" in data
+
+
+def _targets(view: RunView):
+    targets = view.effective_value("adapter.targets")
+    if isinstance(targets, str):
+        if targets.strip().lower() in ALL_LINEAR_WORDS:
+            return "all-linear"
+        if "," in targets:  # a comma-separated list (LLaMA-Factory's lora_target)
+            return [t.strip() for t in targets.split(",") if t.strip()]
+    if isinstance(targets, list) and len(targets) == 1 and str(targets[0]).strip().lower() in ALL_LINEAR_WORDS:
+        return "all-linear"
+    return targets
+
+
 def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int) -> MemoryInputs:
     method = view.method
     storage = _storage(view, arch, method, plan)
-    sharding = _sharding(view)
-    targets = view.value("adapter.targets")
+    run = view.run
+    sharding = run.sharding if run is not None else _sharding(view)
+    targets = _targets(view)
     save = view.value("adapter.save_modules")
     pd = plan.schedule.per_device if plan.schedule and plan.schedule.per_device else 1
     attention = view.value("model.attention")
+    offload = bool(run is not None and run.offload_optimizer) or _offload_linked(view)
     return MemoryInputs(
         arch=arch,
         method=method,
         base_storage=storage,
-        double_quant=view.is_on("quant.double"),
+        double_quant=view.effective_on("quant.double"),
         optimizer=str(view.value("optim.name") or "adamw_torch"),
         mixed_precision=_mixed(view, storage, sharding),
         micro_batch=int(pd),
         seq_len=int(plan.seq_len or DEFAULT_SEQ_LEN),
-        gradient_checkpointing=view.is_on("runtime.gradient_checkpointing"),
+        gradient_checkpointing=view.effective_on("runtime.gradient_checkpointing"),
         fused_attention=not (isinstance(attention, str) and attention.lower() == "eager"),
-        lora_rank=int(view.value("adapter.rank") or 8),
+        lora_rank=int(view.effective_value("adapter.rank") or 8),
         lora_targets=targets if targets is not None else None,
         modules_to_save=tuple([save] if isinstance(save, str) else (save or ())),
         num_gpus=max(1, gpus or 1),
         sharding=sharding,
+        offload_optimizer=offload,
         # the forward runs under torch.autocast when the trainer's 16-bit flag is on (outside DeepSpeed)
         autocast=_wants_16bit(view) is not None,
         storage_note=plan.load_note,
     )
 
 
+def _offload_params(view: RunView) -> bool:
+    """ZeRO-3 parameter offload (offload_param.device cpu/nvme) or FSDP CPU offload of parameters."""
+    run = view.run
+    if run is not None and (run.launch.offload_params or run.launch.fsdp_offload):
+        return True
+    from .run import own_fsdp
+
+    if own_fsdp(view)[1]:
+        return True
+    for sub in view.attached:
+        data = sub.doc.data if isinstance(sub.doc.data, dict) else {}
+        zo = data.get("zero_optimization") if isinstance(data.get("zero_optimization"), dict) else {}
+        off = zo.get("offload_param")
+        if isinstance(off, dict) and str(off.get("device", "")).lower() in ("cpu", "nvme"):
+            return True
+    return False
+
+
+def _offload_linked(view: RunView) -> bool:
+    for sub in view.attached:
+        data = sub.doc.data if isinstance(sub.doc.data, dict) else {}
+        zo = data.get("zero_optimization") if isinstance(data.get("zero_optimization"), dict) else {}
+        off = zo.get("offload_optimizer")
+        if isinstance(off, dict) and str(off.get("device", "")).lower() in ("cpu", "nvme"):
+            return True
+    return False
+
+
 def _wants_16bit(view: RunView) -> str | None:
-    mixed = view.value("precision.mixed")
-    if isinstance(mixed, str) and mixed.lower() in ("bf16", "fp16"):
+    wants = "bf16" if view.effective_on("precision.bf16") else "fp16" if view.effective_on("precision.fp16") else None
+    mixed = view.effective_value("precision.mixed")
+    if wants is None and isinstance(mixed, str) and mixed.lower() in ("bf16", "fp16"):
         return mixed.lower()
-    return "bf16" if view.is_on("precision.bf16") else "fp16" if view.is_on("precision.fp16") else None
+    return wants
 
 
 def fitting_changes(plan: Plan) -> list[tuple[str, MemoryBreakdown]]:

@@ -72,6 +72,8 @@ SCHEMA: dict[str, Any] = {
                     "gpu": {"type": "string", "minLength": 1},
                     "gpus": {"type": "integer", "minimum": 1, "maximum": MAX_MAGNITUDE},
                     "rows": {"type": "integer", "minimum": 1, "maximum": MAX_MAGNITUDE},
+                    # accelerate configs / DeepSpeed files the matching configs are started with
+                    "launch": _GLOB_OR_GLOBS,
                 },
             },
         },
@@ -336,6 +338,7 @@ class Profile:
     gpu: Any = None  # a knowledge.hardware.Gpu
     gpus: int | None = None
     rows: int | None = None
+    launch: tuple[str, ...] = ()  # launch files, absolute
 
 
 @dataclass
@@ -406,6 +409,10 @@ class Project:
                     for name in ("gpu", "gpus", "rows"):
                         if getattr(prof, name) is not None:
                             values[name] = getattr(prof, name)
+                    if prof.gpus is not None:
+                        values["gpus_from"] = f"the {self.source.name} profile for {rel}"
+                    if prof.launch:
+                        values["launch"] = prof.launch
             values["waivers"] = tuple(w for globs, w in self.waivers if matches(rel, globs))
         for name, value in given.items():
             if value is None:
@@ -416,6 +423,8 @@ class Project:
                 values[name] = {**values.get("versions", {}), **value}
             elif name == "skip":
                 values[name] = frozenset(values["skip"]) | frozenset(value)
+            elif name == "gpus":
+                values[name], values["gpus_from"] = value, "--gpus"
             else:
                 values[name] = value
         return Options(**values)
@@ -682,8 +691,15 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
             except UnknownGpu as exc:
                 line, col = locate(("profiles", i, "gpu"))
                 problems.append((name, line, col, str(exc)))
+        launch = tuple(str(path.parent / f) for f in _globs(prof.get("launch")))
+        for j, f in enumerate(launch):
+            if not Path(f).is_file():
+                at = ("profiles", i, "launch") + ((j,) if isinstance(prof.get("launch"), list) else ())
+                line, col = locate(at)
+                problems.append((name, line, col, f"launch file {_globs(prof.get('launch'))[j]} not found "
+                                                  f"(relative to {path.parent})"))
         profiles.append(Profile(globs=globs(prof["paths"], ("profiles", i, "paths")), gpu=gpu,
-                                gpus=prof.get("gpus"), rows=prof.get("rows")))
+                                gpus=prof.get("gpus"), rows=prof.get("rows"), launch=launch))
     waivers = []
     for i, w in enumerate(data.get("waive") or []):
         if rule_known(w["rule"], ("waive", i, "rule")):

@@ -34,6 +34,7 @@ class Schedule:
     total_steps: int | None = None
     epochs: float | None = None
     max_steps_override: bool = False
+    generations: int = 1  # completions sampled per prompt (online RL): each row counts that often
     defaults_used: list[str] = field(default_factory=list)
 
 
@@ -86,11 +87,48 @@ _FIELDS = ("batch.per_device", "batch.accumulation", "optim.epochs", "optim.max_
 
 
 def derive_for(view, *, gpus: int | None, rows: int | None) -> Schedule:
-    """The schedule of a typed view (rows from the command line win over the config's own)."""
+    """The schedule of a typed view (rows from the command line win over the config's own).
+
+    Values the file leaves out come from the opened run (``view.effective``: runner defaults,
+    launch context). An online RL trainer that samples ``rl.num_generations`` completions per prompt
+    (TRL GRPO: each prompt repeated num_generations times by its sampler, and the per-device batch
+    counts completions) steps through rows x generations samples per epoch.
+    """
     # layouts whose file goes to TrainingArguments as it is: its defaults fill unset values
     trainer = view.layout is not None and view.layout.trainer_defaults
-    values = {name: view.value(name) for name in _FIELDS}
-    return derive(values, gpus=gpus, rows=rows or view.value("data.rows"), use_trainer_defaults=trainer)
+    effective = getattr(view, "effective_value", view.value)
+    values = {name: effective(name) for name in _FIELDS}
+    rows = rows or view.value("data.rows")
+    cap = max_rows(view)
+    if rows is not None and cap is not None and rows > cap:
+        rows = cap
+    sched = derive(values, gpus=gpus, rows=None if rows is None else rows * _generations(view),
+                   use_trainer_defaults=trainer)
+    if rows is not None and _generations(view) > 1:
+        sched.rows = rows
+        sched.generations = _generations(view)
+    return sched
+
+
+def max_rows(view) -> int | None:
+    """The most rows the run reads when the file caps them (``Layout.rows_cap_key``: LLaMA-Factory's
+    ``max_samples`` truncates each dataset it lists, comma-separated ``dataset``, to that many
+    rows; LLaMA-Factory data/loader.py, from memory)."""
+    data = view.doc.data if isinstance(view.doc.data, dict) else {}
+    key = view.layout.rows_cap_key if view.layout is not None else None
+    cap = data.get(key) if key else None
+    if not isinstance(cap, int) or isinstance(cap, bool) or cap <= 0:
+        return None
+    names = data.get("dataset")
+    n = len([x for x in names.split(",") if x.strip()]) if isinstance(names, str) else \
+        len(names) if isinstance(names, list) else 1
+    return cap * max(1, n)
+
+
+def _generations(view) -> int:
+    effective = getattr(view, "effective_value", view.value)
+    g = effective("rl.num_generations")
+    return g if isinstance(g, int) and not isinstance(g, bool) and g > 1 else 1
 
 
 def how_text(sched: Schedule) -> str:
@@ -99,5 +137,7 @@ def how_text(sched: Schedule) -> str:
         return f"max_steps {sched.total_steps}"
     gpus = f"{sched.gpus} GPU{'s' if sched.gpus != 1 else ''}"
     epochs = f"{sched.epochs:g} epoch{'' if sched.epochs == 1 else 's'}"
-    return (f"{sched.rows:,} rows / ({sched.per_device} per device x {sched.accumulation} accumulation"
+    rows = (f"{sched.rows:,} rows x {sched.generations} generations" if sched.generations > 1
+            else f"{sched.rows:,} rows")
+    return (f"{rows} / ({sched.per_device} per device x {sched.accumulation} accumulation"
             f" x {gpus}) = {sched.steps_per_epoch} steps per epoch x {epochs}")

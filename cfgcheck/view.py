@@ -65,7 +65,29 @@ class RunView:
     out_of_range: list[Field] = field(default_factory=list)
     skipped: str | None = None  # why this document is not a training config
     attached: list["RunView"] = field(default_factory=list)  # configs this one points to
-    cache: dict = field(default_factory=dict)  # knowledge looked up once per view (the model)
+    # what the config names and what could not be followed (links.Link records)
+    links: list = field(default_factory=list)
+    # values the file does not write but the run has: from a linked file, the launch context,
+    # the runner's defaults, or an assumption (each Field says which in ``origin`` and ``note``)
+    supplied: dict[str, Field] = field(default_factory=dict)
+    model_found: tuple | None = None  # (Architecture or None,) once the model was looked up
+    run: Any = None  # the opened run (cfgcheck.run.OpenedRun) this view belongs to
+
+    def effective(self, name: str) -> Field | None:
+        """The written value when there is one, else what the run supplies (default, launch...)."""
+        f = self.fields.get(name)
+        if f is not None and (f.value is not None or f.auto and name not in self.supplied):
+            return f
+        return self.supplied.get(name, f)
+
+    def effective_value(self, name: str, default: Any = None) -> Any:
+        f = self.effective(name)
+        if f is None or f.value is None:
+            return default
+        return f.value
+
+    def effective_on(self, name: str) -> bool:
+        return self.effective_value(name) is True
 
     def get(self, name: str) -> Field | None:
         return self.fields.get(name)

@@ -11,8 +11,8 @@ PKG = Path(__file__).resolve().parents[1] / "cfgcheck"
 LAYERS = {
     "findings": 0, "load": 0, "knowledge": 0,
     "layouts": 1, "schedule": 1, "waivers": 1,
-    "view": 2, "catalogue": 2,
-    "checks": 3, "plan": 3, "links": 3, "parallel": 3, "compose": 3, "sweep": 3,
+    "view": 2, "catalogue": 2, "defaults": 2, "scripts": 0,
+    "checks": 3, "plan": 3, "links": 3, "parallel": 3, "compose": 3, "sweep": 3, "run": 3,
     "engine": 4,
     "render": 5, "fix": 5, "project": 5, "baseline": 5, "schema": 3,
     "api": 6, "editor": 6, "lrcurve": 1,

@@ -47,7 +47,10 @@ def _run(ex, folder=None):
         for other, text in ex["files"].items():
             (folder / other).write_text(text, encoding="utf-8")
         name = str(folder / name)
-    report = lint(ex["text"], name, fmt, **(ex.get("options") or {}))
+    options = dict(ex.get("options") or {})
+    if "launch" in options:  # launch files are among the files written beside the example
+        options["launch"] = [str(folder / f) for f in options["launch"]]
+    report = lint(ex["text"], name, fmt, **options)
     assert report.problem is None, report.problem
     assert not report.internal, report.internal
     return report

@@ -1,5 +1,10 @@
 """Does the run fit the GPU's memory? The estimate comes from cfgcheck.plan (weights, gradients,
-optimizer states, master weights, activations, logits, overhead; sharded across GPUs)."""
+optimizer states, master weights, activations, logits, overhead; sharded across GPUs as the opened
+run's launch context says).
+
+Above the card with every input known: an error. Above the warning fraction: a warning. An
+estimate that rests on an assumption (a guessed sequence length, a sharded run whose GPU count
+nothing names) is at most a warning, and the message names the assumption."""
 
 from __future__ import annotations
 
@@ -20,6 +25,7 @@ def memory_exceeds_gpu(ctx) -> None:
         return
     gpus, _ = ctx.num_gpus
     plan = derive_plan(view, ctx.model(), gpu=ctx.gpu, gpus=gpus, rows=ctx.options.rows)
+    context = plan.context or "1 GPU, no sharding"
     if plan.memory is None:
         ctx.cannot_judge(plan.memory_problem or "no estimate")
         return
@@ -51,6 +57,9 @@ def memory_exceeds_gpu(ctx) -> None:
         breakdown=parts,
         changes=fixes,
         gpus=plan.memory_inputs.num_gpus,
+        sharding=plan.memory_inputs.sharding,
+        context=context,
         total_bytes=total,
         capacity_bytes=capacity,
+        assumed=plan.assumptions,
     )

@@ -16,13 +16,10 @@ def _int(view, name):
 
 
 def _guess(ctx):
-    view = ctx.view
-    if "trainer_guess" not in view.cache:
-        from ..knowledge.trainers import guess
+    from ..knowledge.trainers import guess
 
-        data = view.doc.data if isinstance(view.doc.data, dict) else {}
-        view.cache["trainer_guess"] = guess(list(data))
-    return view.cache["trainer_guess"]
+    data = ctx.view.doc.data if isinstance(ctx.view.doc.data, dict) else {}
+    return guess(list(data))
 
 
 def _trl_trainer_file(view) -> bool:

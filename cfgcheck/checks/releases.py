@@ -44,16 +44,13 @@ def _status(lib: str, first: str, last: str, pinned: str, scanned: list[str]) ->
 
 def installed(ctx) -> dict:
     """{library: (version, where)}: --installed first, then the pins beside the config."""
-    view = ctx.view
-    if "installed" not in view.cache:
-        from ..knowledge.pins import pins_near
+    from ..knowledge.pins import pins_near
 
-        out = {lib: (pin.version, f"pinned in {pin.source}")
-               for lib, pin in pins_near(ctx.file, ctx.options.cwd).items()}
-        for lib, version in (getattr(ctx.options, "versions", None) or {}).items():
-            out[lib] = (version, "stated with --installed or the project file")
-        view.cache["installed"] = out
-    return view.cache["installed"]
+    out = {lib: (pin.version, f"pinned in {pin.source}")
+           for lib, pin in pins_near(ctx.file, ctx.options.cwd).items()}
+    for lib, version in (getattr(ctx.options, "versions", None) or {}).items():
+        out[lib] = (version, "stated with --installed or the project file")
+    return out
 
 
 @check("key-not-in-release")

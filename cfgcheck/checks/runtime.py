@@ -27,7 +27,7 @@ _HF_TRAINER = ("trainer", "llama-factory", "axolotl")
 @check("deepspeed-file-contradicts-config")
 def deepspeed_contradicts(ctx) -> None:
     view = ctx.view
-    for link in view.cache.get("links", []):
+    for link in view.links:
         if link.problem and link.field == "runtime.deepspeed":
             ctx.cannot_judge(f"the DeepSpeed file {link.problem}", linked=link.target)
     defaults = view.layout is not None and view.layout.trainer_defaults
@@ -53,18 +53,26 @@ def deepspeed_contradicts(ctx) -> None:
             ctx.report(at, "accelerate" if launcher else "default",
                        key=f.leaf if f is not None else hf_key, value=value, where=where,
                        ds_file=name, ds_key=d.key, ds_value=d.value)
+        _global_batch(ctx, view, ds, name, defaults)
         for ours, theirs in (("precision.bf16", "precision.bf16"), ("precision.fp16", "precision.fp16")):
             d, f = ds.get(theirs), view.get(ours)
             if d is None or d.auto or not isinstance(d.value, bool):
                 continue
-            if f is None and d.value is True and trainer_defaults_apply(view):
-                # the flag left out is False (TrainingArguments), and the integration compares it too
-                ctx.report(main_path(view, ds, d) or link_path(view, ds), "precision-default",
-                           key=ours.rpartition(".")[2], ds_file=name, ds_key=d.key, ds_value=d.value)
+            value, key, at = None, ours.split(".")[1], f
+            if f is not None and not f.auto and isinstance(f.value, bool):
+                value, key = f.value, f.leaf
+            elif f is None and defaults:
+                # unset: the trainer's own default (TrainingArguments False; TRL SFTConfig's bf16
+                # default comes through the opened run), which the integration compares too
+                eff = view.effective(ours)
+                value = eff.value if eff is not None and isinstance(eff.value, bool) else False
+                # no key of its own here: the DeepSpeed key (inline block) or the key naming the file
+                at = main_path(view, ds, d) or link_path(view, ds) or view.get("model.ref")
+            if value is None or value == d.value:
                 continue
-            if f is None or f.auto or not isinstance(f.value, bool) or f.value == d.value:
-                continue
-            ctx.report(f, "precision", key=f.leaf, value=f.value, ds_file=name, ds_key=d.key,
+            # a flag left out at its default false gets its own wording
+            variant = "precision-default" if f is None and value is False else "precision"
+            ctx.report(at, variant, key=key, value=value, ds_file=name, ds_key=d.key,
                        ds_value=d.value)
         mixed = view.get("precision.mixed")
         if mixed is not None and isinstance(mixed.value, str):
@@ -99,3 +107,36 @@ def deepspeed_contradicts(ctx) -> None:
 
 def _number(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _global_batch(ctx, view, ds, name: str, defaults: bool) -> None:
+    """The DeepSpeed file's train_batch_size against the config's micro-batch x accumulation x
+    GPUs: the integration fills "auto" from that product and DeepSpeed asserts they are equal."""
+    d = ds.get("batch.global")
+    if d is None or d.auto or not isinstance(d.value, int) or isinstance(d.value, bool) or d.value <= 0:
+        return
+    values = []
+    for ours in ("batch.per_device", "batch.accumulation"):
+        f = view.get(ours)
+        if f is not None and isinstance(f.value, int) and not f.auto and f.value > 0:
+            values.append(f.value)
+        elif f is None and defaults and ours in TRAINER_DEFAULTS:
+            values.append(TRAINER_DEFAULTS[ours])
+        else:
+            return
+    pd, ga = values
+    gpus, gpus_f = ctx.num_gpus
+    at = view.get("runtime.deepspeed") or view.get("batch.per_device")
+    if ds.doc.name == view.doc.name and isinstance(view.doc.data, dict) \
+            and isinstance(view.doc.data.get("deepspeed"), dict):
+        at = ("deepspeed",) + tuple(d.path)  # an inline block: its own key
+    if gpus:
+        expected = pd * ga * gpus
+        if expected != d.value:
+            run = ctx.run
+            ctx.report(at, "global-batch", ds_file=name, ds_key=d.key, ds_value=d.value, per_device=pd,
+                       accumulation=ga, gpus=gpus, expected=expected,
+                       gpus_from=gpus_f.key if gpus_f is not None else (run.gpus_from if run else "--gpus"))
+    elif d.value % (pd * ga) != 0:
+        ctx.report(at, "global-batch-no-gpus", ds_file=name, ds_key=d.key, ds_value=d.value,
+                   per_device=pd, accumulation=ga, product=pd * ga)

@@ -41,6 +41,8 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
         rows.append(("adapter scale", f"{plan.adapter_scale:.3g}{eff}"))
         if plan.rslora_alpha:
             rows.append(("rsLoRA alpha", f"~ sqrt(hidden_size) = {plan.rslora_alpha} (rule of thumb)"))
+    if plan.context:
+        rows.append(("launch", plan.context))
     if plan.learning_rate is not None:
         rows.append(("learning rate", f"{plan.learning_rate:g}"))
     s = plan.schedule
@@ -52,7 +54,8 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
                                         f"{', assumed' if plan.seq_len_assumed else ''})"))
     if s is not None:
         if s.steps_per_epoch:
-            rows.append(("steps per epoch", _n(s.steps_per_epoch) + f" ({s.rows:,} rows)"))
+            rows.append(("steps per epoch", _n(s.steps_per_epoch) + f" ({s.rows:,} rows"
+                         + (f" x {s.generations} generations" if s.generations > 1 else "") + ")"))
         rows.append(("total steps", _n(s.total_steps) + (" (max_steps)" if s.max_steps_override else
                                                           "" if s.total_steps else " (rows unknown: --rows N)")))
     if plan.warmup_steps is not None:
@@ -81,6 +84,10 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
             out.append(f"    {name:<20} {b / GB:7.1f} GB  {bar}")
         if cap:
             out.append(f"    {'capacity':<20} {cap / GB:7.1f} GB  " + "|" * round(_BAR * cap / scale))
+    for origin, note in plan.supplied:
+        out.append(f"  {origin}: {note}")
+    for d in plan.defaults:
+        out.append(f"  default: {d}")
     for a in plan.assumptions:
         out.append(f"  assumed: {printable(a)}")
     return "\n".join(out) + "\n"
