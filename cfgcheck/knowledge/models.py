@@ -48,6 +48,12 @@ __all__ = [
     "catalogue",
     "module_table",
     "total_parameters",
+    "active_parameters",
+    "expert_parameters",
+    "match_catalogue",
+    "catalogue_entries",
+    "CatalogueEntry",
+    "FUSED_QKV",
     "linear_modules",
     "resolve_targets",
     "target_leaf_names",
@@ -446,25 +452,38 @@ _DTYPE_EXPORT = {"float16", "bfloat16", "float32"}
 _NEUTRAL_TOKENS = {"meta", "hf", "base", "pt", "model", "checkpoints", "checkpoint", "final", "latest", "main"}
 
 
-def _strip_name(name: str) -> tuple[str, list[str], str | None]:
-    """(the name without variant and export suffixes, the suffixes dropped, what a quantised export stores)."""
+def _strip_exports(name: str) -> tuple[str, list[str], str | None]:
+    """(the name without export suffixes, the suffixes dropped, what a quantised export stores)."""
     name = re.sub(r"\.gguf$", "", name.strip(), flags=re.I)
     dropped: list[str] = []
     stored = None
-    for _ in range(8):
+    for _ in range(6):
         for pattern, what in _QUANT_SUFFIXES:
             m = pattern.search(name)
-            if m:
+            if m and m.start() > 0:
                 stored = stored or what.format(*(g.upper() if not g.isdigit() else g for g in m.groups()))
                 dropped.append(name[m.start():])
                 name = name[: m.start()]
                 break
         else:
-            m = _VARIANT_SUFFIX.search(name)
-            if not m or m.start() == 0:
+            break
+    return name, dropped, stored
+
+
+def _strip_name(name: str) -> tuple[str, list[str], str | None]:
+    """(the name without variant and export suffixes, the suffixes dropped, what a quantised export stores)."""
+    name, dropped, stored = _strip_exports(name)
+    for _ in range(8):
+        m = _VARIANT_SUFFIX.search(name)
+        if not m or m.start() == 0:
+            more, extra, what = _strip_exports(name)  # an export tag before a variant tag
+            if not extra:
                 break
-            dropped.append(name[m.start():])
-            name = name[: m.start()]
+            name, stored = more, stored or what
+            dropped.extend(extra)
+            continue
+        dropped.append(name[m.start():])
+        name = name[: m.start()]
     return name.lower(), dropped, stored
 
 
@@ -528,6 +547,11 @@ def match_catalogue(ref: str) -> Architecture | None:
         return _catalogue_match(e, "mirror", f"{ref} -> the {e.id} shape, matched by name (same name, other organisation)", True)
     stripped, dropped, stored = _strip_name(name)
     export = f"; a {stored} export" if stored and stored not in _DTYPE_EXPORT else (f"; stored as {stored}" if stored else "")
+    plain, export_tags, _what = _strip_exports(name)
+    e = by_name.get(plain.lower()) if export_tags else None
+    if e is not None:  # the export of a listed id: only the export suffixes differ
+        suffixes = ", ".join(reversed(export_tags))
+        return _catalogue_match(e, "variant", f"{ref} -> the {e.id} shape, matched by name without {suffixes}{export}", True, stored)
     e = by_stripped.get(stripped)
     if e is not None and dropped:
         suffixes = ", ".join(reversed(dropped))
@@ -982,6 +1006,26 @@ def total_parameters(arch: Architecture) -> int:
             continue
         total += sum(_numel(s) for s in params.values())
     return total
+
+
+def expert_parameters(arch: Architecture) -> int:
+    """Parameters of the routed experts over all layers (0 for a dense model); router and shared experts excluded."""
+    return sum(
+        _numel(shape) for _name, kind, params in module_table(arch) if kind == "experts" for shape in params.values()
+    )
+
+
+def active_parameters(arch: Architecture) -> int:
+    """Parameters one token passes through: the total less the routed experts it is not sent to.
+
+    Every expert stays resident in memory (weights, and gradients and optimizer states when trained), so the
+    memory estimate uses :func:`total_parameters`; only compute per token scales with this figure. The router,
+    the shared experts and attention are always active. Equals the total for a dense model.
+    """
+    if not arch.is_moe:
+        return total_parameters(arch)
+    idle = arch.num_experts - min(arch.experts_per_token, arch.num_experts)
+    return total_parameters(arch) - expert_parameters(arch) * idle // arch.num_experts
 
 
 def linear_modules(arch: Architecture) -> dict[str, tuple[int, int]]:

@@ -24,14 +24,32 @@ from cfgcheck.knowledge.models import (
 from .conftest import hf_config
 
 FAMILIES = ["llama", "mistral", "qwen2", "qwen3", "gemma", "gemma2", "phi3", "mixtral"]
+# Families added later, including the fused-attention ones (GPT-2 c_attn, GPT-NeoX / Falcon query_key_value)
+# and the mixture-of-experts layouts with shared experts, a router bias or dense leading layers.
+MORE_FAMILIES = ["gemma3_text", "granite", "smollm3", "olmo", "olmo2", "starcoder2", "phi", "gpt2", "gpt_neox",
+                 "falcon", "falcon_new", "qwen2_moe", "qwen3_moe", "deepseek_v2", "gpt_oss"]
+
+_MOE = dict(num_experts=4, experts_per_token=2, expert_intermediate_size=16)
+_SHAPES = {
+    "phi": dict(num_kv_heads=4), "gpt2": dict(num_kv_heads=4), "gpt_neox": dict(num_kv_heads=4),
+    "falcon": dict(num_kv_heads=1, parallel_norms=1), "falcon_new": dict(num_kv_heads=2, parallel_norms=2),
+    "mixtral": dict(num_experts=4, experts_per_token=2),
+    "gpt_oss": dict(num_experts=4, experts_per_token=2, attention_bias=True),
+    "qwen2_moe": dict(_MOE, shared_expert_intermediate_size=40), "qwen3_moe": dict(_MOE),
+    "deepseek_v2": dict(_MOE, num_layers=3, num_kv_heads=4, head_dim=12, qk_rope_head_dim=4, v_head_dim=8,
+                        kv_lora_rank=16, shared_expert_intermediate_size=32, first_dense_layers=1),
+}
 
 
 def tiny(family: str, tied: bool) -> Architecture:
-    return Architecture(
+    base = dict(
         family=family, hidden_size=32, intermediate_size=48, num_layers=2, num_heads=4, num_kv_heads=2,
         head_dim=8, vocab_size=64, max_position_embeddings=128, tie_word_embeddings=tied, torch_dtype=None,
-        num_experts=4 if family == "mixtral" else 0, experts_per_token=2 if family == "mixtral" else 0,
     )
+    base.update(_SHAPES.get(family, {}))
+    if family == "falcon_new":
+        base["family"] = "falcon"
+    return Architecture(**base)
 
 
 def build(arch: Architecture):
@@ -39,14 +57,20 @@ def build(arch: Architecture):
     return transformers.AutoModelForCausalLM.from_config(hf_config(arch))
 
 
+_MLP = {"phi3": ["gate_up_proj", "down_proj"], "gpt2": ["c_fc", "c_proj"], "starcoder2": ["c_fc", "c_proj"],
+        "phi": ["fc1", "fc2"], "gpt_neox": ["dense_h_to_4h", "dense_4h_to_h"],
+        "falcon": ["dense_h_to_4h", "dense_4h_to_h"], "falcon_new": ["dense_h_to_4h", "dense_4h_to_h"],
+        "gpt_oss": ["experts"]}
+
+
 def mlp_targets(family):
-    return ["gate_up_proj", "down_proj"] if family == "phi3" else ["gate_proj", "up_proj", "down_proj"]
+    return _MLP.get(family, ["gate_proj", "up_proj", "down_proj"])
 
 
 TARGET_SETS = {
     "q_v": lambda fam: ["q_proj", "v_proj"],
     "all_linear": lambda fam: "all-linear",
-    "regex_attn_o": lambda fam: r".*\.self_attn\.(q_proj|o_proj|qkv_proj)",
+    "regex_attn_o": lambda fam: r".*\.(self_attn|attn|attention|self_attention)\.(q_proj|o_proj|qkv_proj|c_attn|query_key_value|dense)",
     "mlp_only": mlp_targets,
     "default": lambda fam: None,
 }
@@ -59,6 +83,11 @@ for fam in FAMILIES:
             for sname in SAVE_SETS:
                 rank = 4 if (len(CASES) % 2) else 8
                 CASES.append((fam, tied, tname, sname, rank))
+for fam in MORE_FAMILIES:
+    for tname in TARGET_SETS:
+        for sname in ("none", "lm_head"):
+            rank = 4 if (len(CASES) % 2) else 8
+            CASES.append((fam, fam in ("gpt2", "smollm3"), tname, sname, rank))
 
 
 def peft_count(arch, targets, rank, modules_to_save, use_dora=False, bias="none"):
@@ -80,6 +109,8 @@ def test_lora_trainable_equals_peft(fam, tied, tname, sname, rank):
     arch = tiny(fam, tied)
     targets = TARGET_SETS[tname](fam)
     mts = SAVE_SETS[sname]
+    if fam == "gpt2" and mts:
+        mts = [m.replace("embed_tokens", "wte") for m in mts]
     try:
         ours = lora_trainable_parameters(arch, rank=rank, targets=targets, modules_to_save=mts)
         wrapped = resolve_targets(arch, targets, mts)
