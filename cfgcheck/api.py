@@ -198,7 +198,7 @@ def plan(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) 
             view = build_view(doc)
             if view.skipped:
                 continue
-            arch = model_of(view, file, opts.cwd)
+            arch = model_of(view, file, opts.cwd, declared=opts.models)
             out.plans.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=opts.gpus, rows=opts.rows)))
     return out
 

@@ -36,6 +36,7 @@ class Options:
     cwd: Path | None = None
     debug: bool = False  # re-raise a failing rule instead of reporting it
     waivers: tuple[waivermod.ProjectWaiver, ...] = ()  # from the project configuration
+    models: tuple = ()  # (id, Architecture) pairs the project configuration declares
 
 
 @dataclass
@@ -132,7 +133,7 @@ class Context:
         """The base model's architecture when it can be known offline, else None."""
         from .plan import model_of  # only rules that need a model pay for it
 
-        return model_of(self.view, self.file, self.options.cwd)
+        return model_of(self.view, self.file, self.options.cwd, declared=self.options.models)
 
     # reporting --------------------------------------------------------------
     def report(self, at: Field | tuple | None = None, variant: str = "default", *,

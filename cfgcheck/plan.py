@@ -72,6 +72,9 @@ class Plan:
             "method": self.method,
             "model": self.model_ref,
             "model_source": self.arch.source if self.arch else None,
+            "model_entry": (self.arch.entry or None) if self.arch else None,
+            "model_match": (self.arch.how or None) if self.arch else None,
+            "model_assumed": self.arch.assumed if self.arch else None,
             "total_parameters": self.total_parameters,
             "trainable_parameters": self.trainable_parameters,
             "trainable_fraction": (self.trainable_parameters / self.total_parameters
@@ -144,7 +147,7 @@ def _mixed(view: RunView, storage: str, sharding: str) -> str | None:
     return None  # 16-bit weights trained directly: no master copy (measured, see knowledge.memory)
 
 
-def model_of(view: RunView, file: str, cwd: Path | None) -> Architecture | None:
+def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Architecture | None:
     """The base model's architecture when it can be known offline (cached on the view)."""
     if "model" in view.cache:
         return view.cache["model"]
@@ -152,7 +155,7 @@ def model_of(view: RunView, file: str, cwd: Path | None) -> Architecture | None:
     arch = None
     if isinstance(ref, str) and ref.strip():
         parent = Path(file).parent if file and not file.startswith("<") else None
-        arch = _models.resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(os.getcwd()))
+        arch = _models.resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(os.getcwd()), declared=declared)
     view.cache["model"] = arch
     return arch
 

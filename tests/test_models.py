@@ -615,3 +615,82 @@ def test_public_corpus_model_ids_resolve_offline(shared_dir, tmp_path, monkeypat
     share = 1 - len(unresolved) / len(refs)
     print(f"corpus model ids resolved offline: {len(refs) - len(unresolved)}/{len(refs)} ({share:.0%})")
     assert share >= 0.95, unresolved
+
+
+# ---------------------------------------------------------------------------------------------
+# Models and GPUs declared in the project file
+# ---------------------------------------------------------------------------------------------
+
+
+def _repo(tmp_path, text):
+    import textwrap
+
+    (tmp_path / ".git").mkdir()
+    (tmp_path / "cfgcheck.yaml").write_text(textwrap.dedent(text))
+    (tmp_path / "runs").mkdir()
+    return tmp_path
+
+
+def test_project_declares_a_model_by_shape_and_by_config_path(tmp_path):
+    from cfgcheck import api
+
+    write_model(tmp_path / "models" / "tiny", TINYLLAMA_CONFIG)
+    repo = _repo(tmp_path, """\
+        models:
+          - id: fjordline/support-1b
+            config: models/tiny
+          - id: fjordline/router-small
+            family: qwen2
+            hidden_size: 896
+            intermediate_size: 4864
+            num_layers: 24
+            num_attention_heads: 14
+            num_key_value_heads: 2
+            vocab_size: 151936
+            tie_word_embeddings: true
+            max_position_embeddings: 32768
+        gpu_types:
+          - name: lab-card
+            label: Lab card 24GB
+            memory_gb: 24
+            capability: "8.6"
+        profiles:
+          - paths: runs/**
+            gpu: lab-card
+        """)
+    (repo / "runs" / "a.yaml").write_text("model_name_or_path: fjordline/support-1b\nlearning_rate: 2.0e-5\n")
+    (repo / "runs" / "b.yaml").write_text("model_name_or_path: fjordline/router-small\nlearning_rate: 2.0e-5\n")
+    result = api.plan([repo / "runs" / "a.yaml", repo / "runs" / "b.yaml"])
+    plans = {Path(f).name: p for f, p in result.plans}
+    a, b = plans["a.yaml"].arch, plans["b.yaml"].arch
+    # REFERENCES sec. 13: TinyLlama 1,100,048,384 and Qwen2.5-0.5B 494,032,768 parameters
+    assert total_parameters(a) == 1_100_048_384 and a.match == "declared" and not a.assumed
+    assert total_parameters(b) == 494_032_768 and "cfgcheck.yaml" in b.source
+    assert plans["a.yaml"].gpu.name == "lab-card" and plans["a.yaml"].gpu.capability == (8, 6)
+
+
+def test_bad_model_declaration_is_reported_at_its_line(tmp_path):
+    from cfgcheck import api
+    from cfgcheck.project import ProjectError
+
+    repo = _repo(tmp_path, "models:\n  - id: fjordline/x\n    family: llama\n    hidden_size: 64\n")
+    (repo / "runs" / "a.yaml").write_text("learning_rate: 2.0e-5\n")
+    with pytest.raises(ProjectError) as err:
+        api.lint([repo / "runs"])
+    (_f, line, col, reason), = err.value.problems
+    assert (line, col) == (2, 5) and "not a model shape" in reason
+
+
+def test_models_and_gpus_listings_show_sources(tmp_path, monkeypatch):
+    from typer.testing import CliRunner
+
+    from cfgcheck.cli import app
+
+    repo = _repo(tmp_path, "gpu_types:\n  - {name: lab-card, memory_gb: 24, capability: '8.6'}\n")
+    monkeypatch.chdir(repo)
+    out = CliRunner().invoke(app, ["models", "--family", "gpt_oss"])
+    assert out.exit_code == 0
+    lines = out.output.strip().splitlines()
+    assert len(lines) == 2 and all("shapes:" in line and "published" in line for line in lines)
+    gpus = CliRunner().invoke(app, ["gpus"])
+    assert gpus.exit_code == 0 and "declared in" in gpus.output.splitlines()[0]

@@ -372,7 +372,8 @@ def _read_config(path: Path) -> Architecture | None:
         return None
     if not isinstance(data, dict):
         return None
-    return architecture_from_config(data, f"config.json at {path}")
+    arch = architecture_from_config(data, f"config.json at {path}")
+    return replace(arch, how=f"config.json at {path}", match="config") if arch is not None else None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -517,6 +518,8 @@ def _name_index():
 def _catalogue_match(entry: CatalogueEntry, kind: str, how: str, assumed: bool, stored: str | None = None) -> Architecture:
     arch = entry.arch
     changes = {"how": how, "assumed": assumed, "match": kind}
+    if assumed:  # messages quote the source: a name-only match says so there
+        changes["source"] = f"{arch.source}; assumed from the name: {how}"
     if stored in _DTYPE_EXPORT:
         changes["torch_dtype"] = stored
     elif stored:
@@ -630,12 +633,44 @@ def _from_hub_cache(ref: str, cache: Path) -> Architecture | None:
     return None
 
 
+def declared_model(ref: str, data: dict, project_dir: Path, project_file: str) -> Architecture | str:
+    """A model the project file declares: ``config`` (a config.json path, relative to the project file)
+    or the shape itself in config.json key names (``model_type`` or ``family``, ``hidden_size``, ...).
+    Returns the Architecture, or a sentence saying what is wrong."""
+    if "config" in data:
+        path = Path(str(data["config"])).expanduser()
+        if not path.is_absolute():
+            path = project_dir / path
+        if path.is_dir():
+            path = path / "config.json"
+        try:
+            raw = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, ValueError, RecursionError) as exc:
+            return f"cannot read {path}: {exc.__class__.__name__}"
+        where = f"config.json at {path}, declared in {project_file}"
+    else:
+        raw = {k: v for k, v in data.items() if k != "id"}
+        if "family" in raw and "model_type" not in raw:
+            raw["model_type"] = raw.pop("family")
+        if "num_layers" in raw and "num_hidden_layers" not in raw:
+            raw["num_hidden_layers"] = raw.pop("num_layers")
+        where = f"declared in {project_file}"
+    arch = architecture_from_config(raw, where) if isinstance(raw, dict) else None
+    if arch is None:
+        return ("not a model shape: needs model_type, hidden_size, intermediate_size, num_hidden_layers, "
+                "num_attention_heads and vocab_size")
+    if arch.family not in SUPPORTED_FAMILIES:
+        return f"model family {arch.family!r} has no module layout here (supported: {', '.join(sorted(SUPPORTED_FAMILIES))})"
+    return replace(arch, entry=ref, how=f"{ref}: {where}", match="declared", assumed=False)
+
+
 def resolve_model(
     ref: str | None,
     *,
     config_dir: Path | None = None,
     cwd: Path | None = None,
     hub_cache: Path | None = None,
+    declared=None,
 ) -> Architecture | None:
     """Find the architecture behind a model reference, offline. Never raises on user input.
 
@@ -643,10 +678,16 @@ def resolve_model(
     first, then against ``config_dir``, the folder of the file being linted); then the local hub
     cache (``hub_cache``, else HF_HUB_CACHE, HF_HOME/hub or ~/.cache/huggingface/hub, layout
     ``models--ORG--NAME/snapshots/<rev>/config.json``, preferring ``refs/main``); then the bundled
-    catalogue (case-insensitive, also by the name without the organisation). A local PEFT adapter
+    catalogue (:func:`match_catalogue`: exact ids, mirrors, variants and exports, fine-tunes, name
+    tokens; every match sets ``how``, ``match`` and ``assumed``). Models the project file declares
+    (``declared``: pairs of id and Architecture) come before everything else. A local PEFT adapter
     folder (adapter_config.json) resolves to its ``base_model_name_or_path``. A local folder whose
     config.json is unreadable or not a model config gives None.
     """
+    if declared and isinstance(ref, str):
+        hit = dict((k.lower(), v) for k, v in declared).get(ref.strip().lower())
+        if hit is not None:
+            return hit
     return _resolve(ref, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=0)
 
 

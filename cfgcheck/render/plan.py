@@ -30,6 +30,8 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
     if plan.arch is not None:
         model += f"  [{plan.arch.family}, {plan.arch.source}]"
     rows.append(("model", model))
+    if plan.arch is not None and plan.arch.how:
+        rows.append(("model match", plan.arch.how + (" (assumed from the name)" if plan.arch.assumed else "")))
     if plan.total_parameters:
         frac = (f" ({100 * plan.trainable_parameters / plan.total_parameters:.3g}%)"
                 if plan.trainable_parameters else "")
