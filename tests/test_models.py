@@ -348,7 +348,9 @@ def test_catalogue_lookup_case_insensitive_and_without_org(tmp_path):
     a = resolve_model("META-LLAMA/llama-2-7b-HF", cwd=tmp_path, hub_cache=empty)
     b = resolve_model("Llama-2-7b-hf", cwd=tmp_path, hub_cache=empty)
     c = resolve_model("some-mirror/Qwen2.5-0.5B-Instruct", cwd=tmp_path, hub_cache=empty)
-    assert a == b == CAT["meta-llama/Llama-2-7b-hf"]
+    assert a == CAT["meta-llama/Llama-2-7b-hf"] and not a.assumed
+    # the name without its organisation: the same shapes, matched by name alone (an assumption, said in the source)
+    assert replace(b, source=a.source) == a and b.assumed and "assumed from the name" in b.source
     assert c is not None and c.family == "qwen2" and c.source.startswith("bundled catalogue:")
     assert resolve_model("fjordline/unknown-model", cwd=tmp_path, hub_cache=empty) is None
     assert resolve_model(None) is None
