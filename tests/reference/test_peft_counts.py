@@ -270,3 +270,32 @@ def test_lora_states_on_bf16_base_equal_torch(mts, opt):
     est = estimate_memory(MemoryInputs(arch=STATE_ARCH, method="lora", lora_rank=4, lora_targets="all-linear",
                                        modules_to_save=tuple(mts or ()), optimizer=opt, sgd_momentum=0.9))
     assert (est.weights_bytes, est.gradients_bytes, est.optimizer_bytes) == (w, g, s)
+
+
+@pytest.mark.parametrize(
+    "fam,targets",
+    [("qwen2_moe", ["gate"]), ("qwen2_moe", ["shared_expert_gate", "q_proj"]), ("qwen2_moe", ["experts"]),
+     ("qwen2_moe", ["gate_proj", "up_proj", "down_proj"]),
+     ("qwen3_moe", ["gate"]), ("qwen3_moe", ["gate_proj"]), ("qwen3_moe", ["gate_proj", "up_proj"]),
+     ("qwen3_moe", ["down_proj", "o_proj"]), ("qwen3_moe", r".*\.mlp\.(gate_proj|up_proj)"),
+     ("deepseek_v2", ["gate_proj", "up_proj", "down_proj"]), ("deepseek_v2", ["gate", "kv_b_proj"]),
+     ("deepseek_v2", "all-linear"), ("gpt_oss", ["router"]), ("gpt_oss", ["q_proj", "o_proj"]),
+     ("gpt_oss", "all-linear")],
+    ids=lambda v: v if isinstance(v, str) else "+".join(v),
+)
+def test_router_shared_and_expert_targets_equal_peft(fam, targets):
+    # reference: PEFT 0.21 on transformers 5.24 MoE layouts: routers are not nn.Linear (unsupported as modules,
+    # the router weight becomes a target parameter where PEFT rewrites the names), shared experts are plain
+    # Linear layers, fused experts are 3-D parameters
+    arch = tiny(fam, False)
+    try:
+        ours = lora_trainable_parameters(arch, rank=4, targets=targets)
+        ok = bool(resolve_targets(arch, targets)) and not unsupported_target_matches(arch, targets)
+    except ValueError:
+        ours, ok = None, False
+    if not ok:
+        with pytest.raises(ValueError):
+            peft_count(arch, targets, 4, None)
+        return
+    _pm, theirs = peft_count(arch, targets, 4, None)
+    assert ours == theirs
