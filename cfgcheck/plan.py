@@ -75,6 +75,7 @@ class Plan:
             "model_entry": (self.arch.entry or None) if self.arch else None,
             "model_match": (self.arch.how or None) if self.arch else None,
             "model_assumed": self.arch.assumed if self.arch else None,
+            "active_parameters": _models.active_parameters(self.arch) if self.arch and self.arch.is_moe else None,
             "total_parameters": self.total_parameters,
             "trainable_parameters": self.trainable_parameters,
             "trainable_fraction": (self.trainable_parameters / self.total_parameters

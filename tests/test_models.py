@@ -696,3 +696,13 @@ def test_models_and_gpus_listings_show_sources(tmp_path, monkeypatch):
     assert len(lines) == 2 and all("shapes:" in line and "published" in line for line in lines)
     gpus = CliRunner().invoke(app, ["gpus"])
     assert gpus.exit_code == 0 and "declared in" in gpus.output.splitlines()[0]
+
+
+def test_adapter_in_the_hub_cache_resolves_to_its_base(tmp_path):
+    # PEFT adapter repositories hold adapter_config.json (base_model_name_or_path) and no config.json
+    snap = tmp_path / "hub" / "models--fjordline--faq-lora" / "snapshots" / "r1"
+    snap.mkdir(parents=True)
+    (snap / "adapter_config.json").write_text(json.dumps({"peft_type": "LORA", "base_model_name_or_path": "Qwen/Qwen2.5-0.5B"}))
+    a = resolve_model("fjordline/faq-lora", cwd=tmp_path, hub_cache=tmp_path / "hub")
+    assert a is not None and total_parameters(a) == 494_032_768  # REFERENCES sec. 13
+    assert "base_model_name_or_path is Qwen/Qwen2.5-0.5B" in a.how and not a.assumed

@@ -633,6 +633,23 @@ def _from_hub_cache(ref: str, cache: Path) -> Architecture | None:
     return None
 
 
+def _hub_cache_adapter_base(ref: str, cache: Path) -> str | None:
+    """base_model_name_or_path of an adapter repository in the hub cache (adapter_config.json, no config.json)."""
+    folder_name = ("models--" + ref.replace("/", "--")).lower()
+    try:
+        if not cache.is_dir():
+            return None
+        repos = [p for p in cache.iterdir() if p.is_dir() and p.name.lower() == folder_name]
+        snapshots = [s for r in repos if (r / "snapshots").is_dir() for s in (r / "snapshots").iterdir()]
+    except OSError:
+        return None
+    for snap in snapshots:
+        base = _adapter_base(snap)
+        if base is not None:
+            return base
+    return None
+
+
 def declared_model(ref: str, data: dict, project_dir: Path, project_file: str) -> Architecture | str:
     """A model the project file declares: ``config`` (a config.json path, relative to the project file)
     or the shape itself in config.json key names (``model_type`` or ``family``, ``hidden_size``, ...).
@@ -734,6 +751,12 @@ def _resolve(ref, *, config_dir, cwd, hub_cache, depth) -> Architecture | None:
     arch = _from_hub_cache(ref, cache)
     if arch is not None:
         return arch
+    base = _hub_cache_adapter_base(ref, cache) if depth == 0 else None
+    if base is not None and base.strip().lower() != ref.lower():
+        arch = _resolve(base, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=1)
+        if arch is not None:
+            how = f"{ref}: an adapter in the hub cache whose base_model_name_or_path is {base}; {arch.how or arch.source}"
+            return replace(arch, source=f"{arch.source} (base of the adapter {ref})", how=how)
     return match_catalogue(ref)
 
 
