@@ -111,10 +111,10 @@ add("Qwen/Qwen2-57B-A14B", "qwen2_moe", 28, 3584, 18944, 28, 4, 128, 151936, Fal
 # ---- Qwen 2.5
 add("Qwen/Qwen2.5-0.5B", "qwen2", 24, 896, 4864, 14, 2, 64, 151936, True, 32768, "bfloat16", 494032768, R13,
     R13 + ": hidden, layers, vocab, context; intermediate, heads, KV heads and tying from memory but reproduce the exact total",
-    aliases=["Qwen/Qwen2.5-0.5B-Instruct"])
+    aliases=["Qwen/Qwen2.5-0.5B-Instruct", "Qwen/Qwen2.5-Coder-0.5B", "Qwen/Qwen2.5-Coder-0.5B-Instruct"])
 add("Qwen/Qwen2.5-1.5B", "qwen2", 28, 1536, 8960, 12, 2, 128, 151936, True, 131072, "bfloat16", 1543714304, R13, R13 + ": 1536/8960/28/12/2/151936, tied; base max_position_embeddings 131072 from memory")
 add("Qwen/Qwen2.5-1.5B-Instruct", "qwen2", 28, 1536, 8960, 12, 2, 128, 151936, True, 32768, "bfloat16", 1543714304, R13, R13 + ": shapes as Qwen2.5-1.5B, max_position_embeddings 32768 in Instruct config copies")
-add("Qwen/Qwen2.5-3B", "qwen2", 36, 2048, 11008, 16, 2, 128, 151936, True, 32768, "bfloat16", 3_090_000_000, QC + " (3.09B)", aliases=["Qwen/Qwen2.5-3B-Instruct"])
+add("Qwen/Qwen2.5-3B", "qwen2", 36, 2048, 11008, 16, 2, 128, 151936, True, 32768, "bfloat16", 3_090_000_000, QC + " (3.09B)", aliases=["Qwen/Qwen2.5-3B-Instruct", "Qwen/Qwen2.5-Coder-3B", "Qwen/Qwen2.5-Coder-3B-Instruct"])
 add("Qwen/Qwen2.5-7B", "qwen2", 28, 3584, 18944, 28, 4, 128, 152064, False, 131072, "bfloat16", 7615616512, R13, R13 + ": 3584/18944/28/28/4/152064, untied; base-model log shows max_position_embeddings 131072")
 add("Qwen/Qwen2.5-7B-Instruct", "qwen2", 28, 3584, 18944, 28, 4, 128, 152064, False, 32768, "bfloat16", 7615616512, R13, R13 + ": Instruct config (transformers 4.43.3) with max_position_embeddings 32768")
 add("Qwen/Qwen2.5-14B", "qwen2", 48, 5120, 13824, 40, 8, 128, 152064, False, 131072, "bfloat16", 14_700_000_000, QC + " (14.7B)", aliases=["Qwen/Qwen2.5-14B-Instruct"])
@@ -141,8 +141,8 @@ add("Qwen/Qwen3-30B-A3B-Instruct-2507", "qwen3_moe", 48, 2048, 6144, 32, 4, 128,
 add("Qwen/Qwen3-235B-A22B", "qwen3_moe", 94, 4096, 12288, 64, 4, 128, 151936, False, 40960, "bfloat16", 235_000_000_000, QC + " (235B total, 22B activated)",
     num_experts=128, experts_per_token=8, expert_intermediate_size=1536)
 # ---- Gemma
-add("google/gemma-2b", "gemma", 18, 2048, 16384, 8, 1, 256, 256000, True, 8192, "bfloat16", 2_506_172_416, "from memory (num_parameters())", aliases=["google/gemma-2b-it", "google/gemma-1.1-2b-it"])
-add("google/gemma-7b", "gemma", 28, 3072, 24576, 16, 16, 256, 256000, True, 8192, "bfloat16", 8_537_680_896, "from memory (num_parameters())", aliases=["google/gemma-7b-it", "google/gemma-1.1-7b-it"])
+add("google/gemma-2b", "gemma", 18, 2048, 16384, 8, 1, 256, 256000, True, 8192, "bfloat16", 2_506_172_416, "from memory (num_parameters())", aliases=["google/gemma-2b-it", "google/gemma-1.1-2b-it", "google/codegemma-2b"])
+add("google/gemma-7b", "gemma", 28, 3072, 24576, 16, 16, 256, 256000, True, 8192, "bfloat16", 8_537_680_896, "from memory (num_parameters())", aliases=["google/gemma-7b-it", "google/gemma-1.1-7b-it", "google/codegemma-7b", "google/codegemma-7b-it"])
 add("google/gemma-2-2b", "gemma2", 26, 2304, 9216, 8, 4, 256, 256000, True, 8192, "float32", 2_610_000_000, HUB + " (2.61B)", aliases=["google/gemma-2-2b-it"], sliding_window=4096)
 add("google/gemma-2-9b", "gemma2", 42, 3584, 14336, 16, 8, 256, 256000, True, 8192, "float32", 9_240_000_000, HUB + " (9.24B)", aliases=["google/gemma-2-9b-it"], sliding_window=4096)
 add("google/gemma-2-27b", "gemma2", 46, 4608, 36864, 32, 16, 128, 256000, True, 8192, "float32", 27_200_000_000, HUB + " (27.2B)", aliases=["google/gemma-2-27b-it"], sliding_window=4096)
@@ -302,6 +302,41 @@ for r in rows:
         r["published_source"] = (KH.format("llama3/llama3", n) + f", which counts the tied output layer again; "
                                  f"less 128256 x {h} = {n - 128256 * h:,}")
         r["source"] = "from memory; the published exact total confirms the shapes"
+# Exact totals that appear in third-party copies of published metadata, found by code search: Hugging Face API
+# `safetensors.total` values (a table fetched 2026-10-01), GGUF `general.parameter_count` values and Hub listings.
+HFAPI = "Hugging Face API safetensors.total {0:,} (a third-party table of API values fetched 2026-10-01, via code search)"
+GGUF = "GGUF general.parameter_count / Hub total {0:,} (third-party copies of the metadata, via code search)"
+EXACT = {
+    "meta-llama/Llama-3.1-70B": (70553706496, HFAPI), "meta-llama/Llama-3.1-405B": (405853388800, HFAPI),
+    "meta-llama/Llama-3.3-70B-Instruct": (70553706496, GGUF),
+    "deepseek-ai/DeepSeek-R1-Distill-Llama-70B": (70553706496, GGUF),
+    "HuggingFaceTB/SmolLM3-3B": (3075098624, HFAPI + " for SmolLM3-3B-Base"),
+    "allenai/OLMo-2-1124-7B": (7298617344, HFAPI), "allenai/OLMo-2-1124-13B": (13716198400, HFAPI),
+    "mistralai/Mixtral-8x22B-v0.1": (140620634112, GGUF), "mistralai/Mistral-7B-v0.3": (7248023552, GGUF),
+    "mistralai/Mistral-Nemo-Base-2407": (12247782400, GGUF), "mistralai/Mistral-Small-24B-Base-2501": (23572403200, GGUF),
+    "microsoft/phi-4": (14659507200, GGUF), "microsoft/Phi-4-mini-instruct": (3836021760, GGUF),
+    "microsoft/phi-2": (2779683840, GGUF), "microsoft/Phi-3-medium-4k-instruct": (13960238080, GGUF),
+    "deepseek-ai/DeepSeek-V2-Lite": (15706484224, GGUF), "deepseek-ai/DeepSeek-R1-Distill-Qwen-1.5B": (1777088000, GGUF),
+    "deepseek-ai/DeepSeek-R1-Distill-Qwen-14B": (14770033664, GGUF), "Qwen/Qwen2.5-14B": (14770033664, GGUF),
+    "openai/gpt-oss-20b": (20914757184, GGUF), "openai/gpt-oss-120b": (116829156672, GGUF),
+}
+# Published counts of stored tensors that hold more than num_parameters(): (extra parameters, why)
+STORED_EXTRA = {
+    "meta-llama/Llama-2-70b-hf": (80 * 64, "the legacy checkpoint stores 80 x 64 rotary inv_freq entries"),
+    "tiiuae/falcon-180B": (65024 * 14848, "the checkpoint stores lm_head.weight; transformers ties it to the embedding"),
+}
+VALUES = {"meta-llama/Llama-2-70b-hf": 68976653312, "tiiuae/falcon-180B": 179522565120}
+for r in rows:
+    if r["id"] in EXACT:
+        n, where = EXACT[r["id"]]
+        r["published_total"], r["published_source"] = n, where.format(n)
+        if r["source"] == M:
+            r["source"] = "from memory; the published exact total confirms the shapes"
+    if r["id"] in STORED_EXTRA:
+        extra, why = STORED_EXTRA[r["id"]]
+        r["published_total"] = VALUES[r["id"]]
+        r["published_extra"] = extra
+        r["published_source"] = HFAPI.format(VALUES[r["id"]]) + f"; includes {extra:,} parameters more: {why}"
 for r in rows:
     if r["id"] == "openai/gpt-oss-20b":
         r["source"] = GO + "; shapes from memory, matched by third-party copies of its config.json (EchoCog/gpt-oss-20b docs/gpt-oss-20b-architecture.md, via code search)"

@@ -394,6 +394,7 @@ class CatalogueEntry:
     source: str  # where the shapes come from ("from memory" = unverified)
     published_total: int | None  # the published total parameter count, None where none is comparable
     published_source: str | None
+    published_extra: int = 0  # parameters the published count holds beyond num_parameters() (stored extras)
 
     @property
     def ids(self) -> tuple[str, ...]:
@@ -415,6 +416,7 @@ def catalogue_entries() -> tuple[CatalogueEntry, ...]:
         out.append(CatalogueEntry(
             id=item["id"], aliases=tuple(item.get("aliases", ())), arch=arch, source=item["source"],
             published_total=item.get("published_total"), published_source=item.get("published_source"),
+            published_extra=item.get("published_extra", 0),
         ))
     return tuple(out)
 
@@ -450,6 +452,7 @@ _QUANT_SUFFIXES = (
 )
 _DTYPE_EXPORT = {"float16", "bfloat16", "float32"}
 # Tokens that say nothing about the shape (an organisation-like prefix, file or checkpoint words)
+_VERSION_TOKEN = re.compile(r"v\d+(?:\.\d+)*")
 _NEUTRAL_TOKENS = {"meta", "hf", "base", "pt", "model", "checkpoints", "checkpoint", "final", "latest", "main"}
 
 
@@ -508,7 +511,8 @@ def _name_index():
             by_name.setdefault(name.lower(), e)
             stripped = _strip_name(name)[0]
             by_stripped.setdefault(stripped, e)
-            token_rows.append((_tokens(stripped) - _NEUTRAL_TOKENS, e))
+            # release tags (v0.1, v1.0) are not required: a fine-tune's name rarely repeats them
+            token_rows.append((frozenset(t for t in _tokens(stripped) - _NEUTRAL_TOKENS if not _VERSION_TOKEN.fullmatch(t)), e))
     derived = json.loads(_CATALOGUE_FILE.read_text(encoding="utf-8")).get("derived", [])
     ids = {e.id: e for e in catalogue_entries()}
     derived_rows = [(frozenset(d["tokens"]), ids[d["base"]], d["source"]) for d in derived if d["base"] in ids]
