@@ -26,7 +26,7 @@ EXIT_INTERNAL = 3
 
 
 def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int | None = None,
-                  select: Iterable[str] | None = None, ignore: Iterable[str] | None = None,
+                  only: Iterable[str] | None = None, skip: Iterable[str] | None = None,
                   severity: Mapping[str, str | Severity] | None = None,
                   thresholds: Mapping[str, Mapping[str, Any]] | None = None,
                   debug: bool | None = None, cwd: Path | None = None) -> dict[str, Any]:
@@ -36,8 +36,8 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
         "gpu": find_gpu(gpu) if gpu else None,
         "gpus": gpus,
         "rows": rows,
-        "select": frozenset(select) if select is not None else None,
-        "ignore": frozenset(ignore) if ignore is not None else None,
+        "only": frozenset(only) if only is not None else None,
+        "skip": frozenset(skip) if skip is not None else None,
         "severity": ({r: s if isinstance(s, Severity) else Severity.parse(s) for r, s in severity.items()}
                      if severity else None),
         "thresholds": {r: dict(t) for r, t in thresholds.items()} if thresholds else None,
@@ -82,7 +82,7 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
 
     ``project``: "auto" (default) finds cfgcheck.yaml / [tool.cfgcheck] by walking up from the
     first path; a path reads that file; None ignores project files. Explicit ``options``
-    (gpu, gpus, rows, select, ignore, severity, thresholds) override the project's values.
+    (gpu, gpus, rows, only, skip, severity, thresholds) override the project's values.
     ``baseline``: a baseline file; findings it holds are left out (counted in ``baselined``).
     ``jobs``: lint over that many processes (same reports, same order). ``keep_views=False``:
     drop each file's parsed documents once its rules have run (memory stays flat).
@@ -170,12 +170,12 @@ def visible(findings: Iterable[Finding], show: Severity) -> list[Finding]:
 
 
 @dataclass
-class PlanResult:
-    plans: list = field(default_factory=list)  # (file, Plan)
+class DeriveResult:
+    runs: list = field(default_factory=list)  # (file, Plan)
     problems: list = field(default_factory=list)
 
 
-def plan(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) -> PlanResult:
+def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) -> DeriveResult:
     """The derived run of each training config (skipped files are left out); the project
     file's hardware profiles apply as they do for ``lint``."""
     from .findings import InputProblem
@@ -184,7 +184,7 @@ def plan(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) 
     from .view import build_view
 
     files, options_for, _proj = _targets(list(paths), project, given_options(**options))
-    out = PlanResult()
+    out = DeriveResult()
     for file, skip in files:
         if skip:
             continue
@@ -199,7 +199,7 @@ def plan(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) 
             if view.skipped:
                 continue
             arch = model_of(view, file, opts.cwd, declared=opts.models)
-            out.plans.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=opts.gpus, rows=opts.rows)))
+            out.runs.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=opts.gpus, rows=opts.rows)))
     return out
 
 

@@ -156,9 +156,9 @@ def lint(
                                       help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
-    rule: Optional[List[str]] = typer.Option(None, "--rule", autocompletion=_complete_rule,
+    only: Optional[List[str]] = typer.Option(None, "--only", autocompletion=_complete_rule,
                                              help="Run only this rule (repeat for several)."),
-    skip_rule: Optional[List[str]] = typer.Option(None, "--skip-rule", autocompletion=_complete_rule,
+    skip: Optional[List[str]] = typer.Option(None, "--skip", autocompletion=_complete_rule,
                                                   help="Do not run this rule (repeat for several)."),
     severity: Optional[List[str]] = typer.Option(None, "--severity", metavar="RULE=LEVEL",
                                                  help="Report a rule at another severity, e.g. lora-scale-below-one=error."),
@@ -171,7 +171,7 @@ def lint(
     save_baseline: Optional[Path] = typer.Option(None, "--save-baseline", help="Record the current findings in this file and exit 0."),
     quiet: bool = typer.Option(False, "--quiet", "-q", help="Text output: only the finding lines, nothing when clean."),
     summary: bool = typer.Option(False, "--summary", help="Text output: only the summary line."),
-    frame: Optional[bool] = typer.Option(None, "--frame/--no-frame", help="Text output: print the offending line with a caret (default: on a terminal)."),
+    frame: Optional[bool] = typer.Option(None, "--frame/--no-frame", help="Text output: print the offending line with its value set off by >> << (default: on a terminal)."),
     debug: bool = typer.Option(False, "--debug", help="Re-raise an error inside a rule instead of reporting it."),
     jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Lint files in N processes (output order stays the same)."),
 ) -> None:
@@ -191,12 +191,12 @@ def lint(
         _fail("cfgcheck: --project and --no-project exclude each other", 2)
     if baseline is not None and save_baseline is not None:
         _fail("cfgcheck: --baseline and --save-baseline exclude each other", 2)
-    _unknown_rules(list(rule or []) + list(skip_rule or []))
+    _unknown_rules(list(only or []) + list(skip or []))
     levels = _severity_pairs(severity or [])
     _unknown_rules(levels)
     chosen = {
         "gpu": gpu, "gpus": gpus, "rows": rows, "debug": debug or None,
-        "select": rule or None, "ignore": skip_rule or None, "severity": levels or None,
+        "only": only or None, "skip": skip or None, "severity": levels or None,
     }
     progress = None
     if not (quiet or summary) and sys.stderr.isatty():
@@ -250,14 +250,15 @@ def lint(
     raise typer.Exit(api.exit_code(report, fail_on))
 
 
-@app.command()
-def plan(
+@app.command("derive")
+def derive(
     paths: List[Path] = typer.Argument(..., help="Config files or folders."),
     gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows."),
     fmt: PlanFormat = typer.Option(PlanFormat.text, "--format", help="Output format."),
     no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (their hardware profiles)."),
+    pictures: bool = typer.Option(True, "--pictures/--no-pictures", help="Text output: draw the learning rate over the steps (with evaluation, checkpoint and logging marks) and the memory per GPU as a bar."),
 ) -> None:
     """Show the derived run: parameters, batch, steps and the memory estimate per GPU."""
     import json as _json
@@ -266,13 +267,13 @@ def plan(
     from .project import ProjectError
 
     try:
-        result = api.plan(paths, gpu=gpu, gpus=gpus, rows=rows, project=None if no_project else "auto")
+        result = api.derive(paths, gpu=gpu, gpus=gpus, rows=rows, project=None if no_project else "auto")
     except ValueError as exc:  # an unknown GPU name
         _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
     except ProjectError as exc:
         _fail(str(exc), api.EXIT_INPUT)
     if fmt is PlanFormat.json:
-        sys.stdout.write(_json.dumps({"plans": [dict(p.as_dict(), file=f) for f, p in result.plans],
+        sys.stdout.write(_json.dumps({"runs": [dict(p.as_dict(), file=f) for f, p in result.runs],
                                       "input_errors": [e.as_dict() for e in result.problems]},
                                      indent=2) + "\n")
     else:
@@ -280,7 +281,12 @@ def plan(
 
         for e in result.problems:
             sys.stdout.write(f"{e.file}:{e.line}:{e.column}: input error: {e.reason}\n")
-        sys.stdout.write("\n".join(render_plan(f, p) for f, p in result.plans))
+        if pictures:
+            from .render.pictures import pictures as draw
+
+            sys.stdout.write("\n".join(render_plan(f, p) + "\n" + draw(p) for f, p in result.runs))
+        else:
+            sys.stdout.write("\n".join(render_plan(f, p) for f, p in result.runs))
     raise typer.Exit(api.EXIT_INPUT if result.problems else api.EXIT_CLEAN)
 
 
@@ -325,6 +331,61 @@ def _write(out: str) -> None:
         sys.stdout.flush()
         sys.stdout.buffer.write(out.encode(enc, errors="backslashreplace"))
     sys.stdout.flush()
+
+
+@app.command("report")
+def report_html(
+    paths: List[Path] = typer.Argument(..., help="Config files or folders."),
+    out: Path = typer.Option(Path("cfgcheck-report.html"), "--out", "-o", help="The HTML file to write."),
+    gpu: Optional[str] = typer.Option(None, "--gpu", autocompletion=_complete_gpu, help="The GPU the run will use (see: cfgcheck gpus)."),
+    gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
+    rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    no_project: bool = typer.Option(False, "--no-project", help="Ignore project files."),
+) -> None:
+    """Write one self-contained HTML file: each config's findings, its derived run and two pictures."""
+    import os
+    import tempfile
+
+    from . import api
+    from .baseline import BaselineError
+    from .project import ProjectError
+    from .render.html import render_report
+
+    project = None if no_project else "auto"
+    try:
+        report = api.lint(paths, project=project, gpu=gpu, gpus=gpus, rows=rows)
+        runs = api.derive(paths, project=project, gpu=gpu, gpus=gpus, rows=rows).runs
+    except ValueError as exc:  # an unknown GPU name
+        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
+    except (ProjectError, BaselineError) as exc:
+        _fail(str(exc), api.EXIT_INPUT)
+    page = render_report(report, runs)
+    target = out.resolve()
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=".cfgcheck-report-", suffix=".tmp", dir=str(target.parent))
+        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
+            fh.write(page)
+        mask = os.umask(0)
+        os.umask(mask)
+        os.chmod(tmp, 0o666 & ~mask)  # as a plain new file would be (mkstemp makes it 0600)
+        os.replace(tmp, target)
+    except OSError as exc:
+        _fail(f"cfgcheck: cannot write {out}: {exc.strerror or exc}", api.EXIT_INPUT)
+    typer.echo(f"cfgcheck: wrote {out} ({report.linted} configs, {len(report.findings)} findings)", err=True)
+    raise typer.Exit(api.EXIT_INPUT if report.problems else api.EXIT_CLEAN)
+
+
+@app.command("editor-server")
+def editor_server() -> None:
+    """Run the language server for editors over stdio (findings as you type, fixes, hover, completion)."""
+    try:
+        import lsprotocol  # noqa: F401
+        import pygls  # noqa: F401
+    except ImportError:
+        _fail("cfgcheck: the editor server needs pygls: pip install 'cfgcheck[editor]'", 2)
+    from .editor import serve
+
+    serve()
 
 
 @app.command("rules")

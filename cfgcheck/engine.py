@@ -29,8 +29,8 @@ class Options:
     gpu: Gpu | None = None
     gpus: int | None = None  # GPUs in the whole job
     rows: int | None = None  # training rows
-    select: frozenset[str] | None = None  # only these rules
-    ignore: frozenset[str] = frozenset()
+    only: frozenset[str] | None = None  # only these rules
+    skip: frozenset[str] = frozenset()  # not these rules
     severity: dict[str, Severity] = field(default_factory=dict)  # per-rule overrides
     thresholds: dict[str, dict[str, Any]] = field(default_factory=dict)  # per-rule overrides
     cwd: Path | None = None
@@ -213,12 +213,12 @@ _SELECTED: dict[tuple, list[Rule]] = {}  # (select, ignore) -> rules, worked out
 
 
 def active_rules(options: Options) -> list[tuple[Rule, Any]]:
-    key = (options.select, options.ignore)
+    key = (options.only, options.skip)
     rules = _SELECTED.get(key)
     if rules is None:
         rules = [rule for rule_id, rule in load_catalogue().items()
-                 if (options.select is None or rule_id in options.select)
-                 and rule_id not in options.ignore]
+                 if (options.only is None or rule_id in options.only)
+                 and rule_id not in options.skip]
         rules.sort(key=lambda r: r.stage == "last")  # stable: catalogue order otherwise
         _SELECTED[key] = rules
     checks = all_checks()  # looked up each time: a check may be replaced (tests do)
@@ -390,7 +390,7 @@ def lint_files(pairs: list[tuple[str, Options]], *, jobs: int = 1,
     if jobs > 1 and len(pairs) > 1:
         from .parallel import lint_files_parallel
 
-        yield from lint_files_parallel(pairs, jobs)
+        yield from lint_files_parallel(pairs, jobs, lint_file=lint_file, prepare=active_rules)
         return
     for path, opts in pairs:
         report = lint_file(path, opts)

@@ -1,7 +1,7 @@
 """The derived run: parameters, adapter scale, batch and steps, and the memory estimate per GPU.
 
 One function, ``derive_plan``, turns a typed view (plus the command-line knowledge: GPU, GPU
-count, rows) into numbers. The memory rule and ``cfgcheck plan`` both use it, so what the rule
+count, rows) into numbers. The memory rule and ``cfgcheck derive`` both use it, so what the rule
 says and what the plan shows cannot drift apart.
 """
 
@@ -48,6 +48,11 @@ class Plan:
     memory_problem: str | None = None  # why there is no estimate
     gpu: Gpu | None = None
     assumptions: list[str] = field(default_factory=list)
+    # the learning-rate schedule as written (None: not written), its kwargs, and the strategy
+    # words of evaluation, saving and logging (None: not written) -- what the pictures draw
+    scheduler: str | None = None
+    scheduler_kwargs: dict = field(default_factory=dict)
+    strategies: dict[str, str | None] = field(default_factory=dict)
 
     @property
     def rslora_alpha(self) -> int | None:
@@ -179,6 +184,12 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
         plan.tokens_per_step = sched.effective_batch * seq
     lr = view.value("optim.lr")
     plan.learning_rate = float(lr) if isinstance(lr, (int, float)) and not isinstance(lr, bool) else None
+    sch, kw = view.value("optim.scheduler"), view.value("optim.scheduler_kwargs")
+    plan.scheduler = sch.strip() if isinstance(sch, str) and sch.strip() else None
+    plan.scheduler_kwargs = dict(kw) if isinstance(kw, dict) else {}
+    for what in ("eval", "save", "logging"):
+        word = view.value(f"cadence.{what}_strategy")
+        plan.strategies[what] = str(word).strip().lower() if isinstance(word, (str, bool)) else None
     rank, alpha = view.value("adapter.rank"), view.value("adapter.alpha")
     if view.is_adapter and isinstance(rank, int) and rank > 0 and isinstance(alpha, (int, float)):
         plan.adapter_scale = lora_scale(alpha, rank, view.is_on("adapter.rslora"))

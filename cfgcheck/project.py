@@ -245,8 +245,8 @@ class Project:
         """Options for one file: project values, then matching profiles in order, then ``given``
         (what the command line or the caller set explicitly, which always wins)."""
         values: dict[str, Any] = {
-            "select": self.only,
-            "ignore": self.skip,
+            "only": self.only,
+            "skip": self.skip,
             "severity": dict(self.severity),
             "thresholds": {k: dict(v) for k, v in self.thresholds.items()},
         }
@@ -265,8 +265,8 @@ class Project:
                 continue
             if name in ("severity", "thresholds"):
                 values[name] = {**values[name], **value}
-            elif name == "ignore":
-                values[name] = frozenset(values["ignore"]) | frozenset(value)
+            elif name == "skip":
+                values[name] = frozenset(values["skip"]) | frozenset(value)
             else:
                 values[name] = value
         return Options(**values)

@@ -1,7 +1,16 @@
 import os
+import tempfile
 from pathlib import Path
 
 import pytest
+
+# Which model a config resolves to may depend on a local model hub cache. Pin that input: every
+# test (and every process a test starts) sees an empty cache, so results do not depend on the
+# machine; tests that exercise the cache build their own and pass it explicitly.
+_EMPTY_HUB = tempfile.mkdtemp(prefix="cfgcheck-empty-hub-")
+os.environ["HF_HOME"] = _EMPTY_HUB
+os.environ["HF_HUB_CACHE"] = os.path.join(_EMPTY_HUB, "hub")
+os.environ["HF_HUB_OFFLINE"] = "1"
 
 try:
     from hypothesis import settings

@@ -35,9 +35,18 @@ def _examples(kind):
             yield pytest.param(rule_id, ex, id=f"{rule_id}-{kind}-{i}")
 
 
-def _run(ex):
+def _run(ex, folder=None):
+    """Lint an example: its text, with the files it names (``files:``) written beside it."""
     fmt = ex.get("format")
     name = "example.json" if fmt == "json" else "example.yaml"
+    if ex.get("files"):
+        import tempfile
+        from pathlib import Path
+
+        folder = Path(folder or tempfile.mkdtemp(prefix="cfgcheck-example-"))
+        for other, text in ex["files"].items():
+            (folder / other).write_text(text, encoding="utf-8")
+        name = str(folder / name)
     report = lint(ex["text"], name, fmt, **(ex.get("options") or {}))
     assert report.problem is None, report.problem
     assert not report.internal, report.internal
@@ -67,3 +76,56 @@ def test_good_example_is_silent(rule_id, ex):
     # (a "could not judge" note is not a finding about the example)
     if CATALOGUE[rule_id].severity == Severity.INFO:
         assert [f for f in report.findings if f.rule == rule_id and f.data.get("judged") is not False] == []
+
+
+@pytest.mark.parametrize("rule_id,ex", list(_examples("unjudged")))
+def test_unjudged_example_says_it_could_not_judge(rule_id, ex):
+    report = _run(ex)
+    notes = [f for f in report.findings if f.rule == rule_id and f.data.get("judged") is False]
+    assert notes, f"{rule_id} gave no 'not checked' note on its unjudged example"
+    assert all(f.severity == Severity.INFO for f in notes)
+
+
+def _variants_and_tiers(rule_id):
+    """The message variants and fix tiers a rule's examples produce."""
+    variants, tiers = set(), set()
+    for kind in ("bad", "good", "unjudged"):
+        for ex in CATALOGUE[rule_id].examples.get(kind, []):
+            for f in _run(ex).findings:
+                if f.rule != rule_id:
+                    continue
+                variants.add("cannot-judge" if f.data.get("judged") is False
+                             else f.data.get("variant", "default"))
+                if f.fix is not None:
+                    tiers.add(f.fix.tier)
+    return variants, tiers
+
+
+@pytest.mark.parametrize("rule_id", sorted(CATALOGUE))
+def test_every_message_variant_is_shown_by_an_example(rule_id):
+    variants, _ = _variants_and_tiers(rule_id)
+    assert set(CATALOGUE[rule_id].messages) - variants == set(), \
+        "add a bad (or unjudged) example that produces each of these messages"
+
+
+@pytest.mark.parametrize("rule_id", sorted(CATALOGUE))
+def test_fix_in_the_record_matches_the_fixes_the_check_proposes(rule_id):
+    """A record has ``fix:`` exactly when its check proposes fixes, and of the tier it names."""
+    _, tiers = _variants_and_tiers(rule_id)
+    record = CATALOGUE[rule_id].fix
+    if record is None:
+        assert tiers == set(), f"{rule_id} proposes {tiers} fixes but its record has no fix:"
+    else:
+        assert record.get("tier") in ("keeps-meaning", "changes-training") and record.get("summary")
+        assert tiers == {record["tier"]}, f"the record says {record['tier']}, the examples give {tiers or 'none'}"
+
+
+def test_generated_docs_tables_are_current():
+    import importlib.util
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[1] / "tools" / "docs_tables.py"
+    spec = importlib.util.spec_from_file_location("docs_tables", path)
+    tool = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(tool)
+    assert tool.main(["--check"]) == 0, "run: python tools/docs_tables.py"

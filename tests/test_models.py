@@ -673,8 +673,8 @@ def test_project_declares_a_model_by_shape_and_by_config_path(tmp_path):
         """)
     (repo / "runs" / "a.yaml").write_text("model_name_or_path: fjordline/support-1b\nlearning_rate: 2.0e-5\n")
     (repo / "runs" / "b.yaml").write_text("model_name_or_path: fjordline/router-small\nlearning_rate: 2.0e-5\n")
-    result = api.plan([repo / "runs" / "a.yaml", repo / "runs" / "b.yaml"])
-    plans = {Path(f).name: p for f, p in result.plans}
+    result = api.derive([repo / "runs" / "a.yaml", repo / "runs" / "b.yaml"])
+    plans = {Path(f).name: p for f, p in result.runs}
     a, b = plans["a.yaml"].arch, plans["b.yaml"].arch
     # REFERENCES sec. 13: TinyLlama 1,100,048,384 and Qwen2.5-0.5B 494,032,768 parameters
     assert total_parameters(a) == 1_100_048_384 and a.match == "declared" and not a.assumed

@@ -21,8 +21,8 @@ FULL_7B = ("model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 2.0e-5\
 def test_full_7b_on_one_24gb_card_is_over_100gb_and_an_error(tmp_path):
     cfg = tmp_path / "full7b.yaml"
     cfg.write_text(FULL_7B)
-    result = api.plan([cfg], gpu="rtx-4090")
-    ((_, plan),) = result.plans
+    result = api.derive([cfg], gpu="rtx-4090")
+    ((_, plan),) = result.runs
     # model states alone: 16 bytes/param x 6,738,415,616 params = 107.8 GB (ZeRO paper sec. 3.1;
     # Llama-2-7b count from REFERENCES.md sec. 13); activations and logits come on top
     assert plan.total_parameters == 6_738_415_616
@@ -39,9 +39,9 @@ def test_full_7b_on_one_24gb_card_is_over_100gb_and_an_error(tmp_path):
 def test_plan_json_has_the_documented_numbers(tmp_path):
     cfg = tmp_path / "full7b.yaml"
     cfg.write_text(FULL_7B)
-    r = runner.invoke(app, ["plan", str(cfg), "--gpu", "a100-80gb", "--rows", "1000", "--format", "json"])
+    r = runner.invoke(app, ["derive", str(cfg), "--gpu", "a100-80gb", "--rows", "1000", "--format", "json"])
     assert r.exit_code == 0, r.output
-    (p,) = json.loads(r.output)["plans"]
+    (p,) = json.loads(r.output)["runs"]
     assert p["total_parameters"] == 6_738_415_616 == p["trainable_parameters"]
     # 1,000 rows, per-device 1, accumulation 16, 1 GPU -> effective batch 16, ceil(1000/16) = 63 steps
     # per epoch (transformers Trainer rounding), 3 epochs (trainer default) -> 189 steps
@@ -52,7 +52,7 @@ def test_plan_json_has_the_documented_numbers(tmp_path):
 
 
 def test_plan_text_shows_bars_and_verdict():
-    r = runner.invoke(app, ["plan", str(ROOT / "fixtures" / "demo" / "fjordline-full-7b.yaml"), "--gpu", "t4", "--rows", "1000"])
+    r = runner.invoke(app, ["derive", str(ROOT / "fixtures" / "demo" / "fjordline-full-7b.yaml"), "--gpu", "t4", "--rows", "1000"])
     assert r.exit_code == 0
     assert "DOES NOT FIT" in r.output and "#" in r.output and "config.json" in r.output
 

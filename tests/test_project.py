@@ -282,7 +282,7 @@ def test_fix_and_plan_follow_the_hardware_profile(tmp_path):
     assert [a.rule for a in ff.applied] == ["precision-unsupported-on-gpu"]
     assert "bf16: false" in ff.new_text and "fp16: true" in ff.new_text
     assert api.fix([cfg], training=True, write=False, project=None).files[0].applied == []
-    ((_, plan),) = api.plan([cfg]).plans
+    ((_, plan),) = api.derive([cfg]).runs
     assert plan.gpu is not None and plan.gpu.name == "t4"
     r = runner.invoke(app, ["fix", "--diff", "--allow-training-changes", str(cfg)])
     assert r.exit_code == 0 and "+bf16: false" in r.output

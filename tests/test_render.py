@@ -45,7 +45,7 @@ RULES = ("duplicate-key", "global-batch-mismatch", "lora-scale-below-one",
 
 
 def fixed_report() -> engine.Report:
-    opts = make_options(gpu="t4", select=RULES)
+    opts = make_options(gpu="t4", only=RULES)
     return engine.Report(files=[
         engine.lint_text(LORA, "configs/tidewater-lora.yaml", opts),
         engine.lint_text(DS, "configs/ds, zero2: test.json", opts),
@@ -92,15 +92,19 @@ def test_plain_text_has_no_escape_codes():
     assert "\x1b[1;31merror\x1b[0m" in render("text", report, report.findings, color=True)
 
 
-def test_frame_puts_the_caret_under_the_column():
+def test_frame_marks_the_written_value_in_its_line():
     lines = ["lora:", "\talpha: 8   # tab-indented"]
-    first, second = frame(lines, 2, 9)
-    assert first == "    2 | \talpha: 8   # tab-indented"
-    assert second == "      | \t       ^"  # the tab is kept so the caret lines up on any tab width
+    assert frame(lines, 2, 9) == ["    in line 2: \talpha: >>8<<   # tab-indented"]
     assert frame(lines, 9, 1) == []
+    # a quoted value is marked up to its closing quote, a flow/JSON value up to its separator
+    assert frame(['x: "a # b"  # c'], 1, 4) == ['    in line 1: x: >>"a # b"<<  # c']
+    assert frame(['{"train_batch_size": 60, "micro": 4}'], 1, 22) == [
+        '    in line 1: {"train_batch_size": >>60<<, "micro": 4}']
+    # a key with no value on its line: an empty mark where the value would be
+    assert frame(["lora:"], 1, 6) == ["    in line 1: lora:>><<"]
     long = ["x: " + "a" * 300 + "Z" + "b" * 300]
-    first, second = frame(long, 1, 304)
-    assert first.index("Z") == second.index("^") and first.endswith("...") and "| ..." in first
+    (out,) = frame(long, 1, 304)
+    assert ">>Z" in out and out.endswith("...<<") and "in line 1: ..." in out and len(out) < 200
 
 
 # --------------------------------------------------------------------------- SARIF

@@ -98,8 +98,8 @@ def test_direct_path_reads_options_like_typer():
     assert kw["paths"] == [Path("a.yaml"), Path("b.yaml")]
     assert (kw["gpu"], kw["rows"], kw["jobs"], kw["debug"]) == ("t4", 1000, 2, True)
     assert kw["fmt"] is cli.Format.text and kw["show"] is None and kw["gpus"] is None
-    kw = fastcli.parse(["--rule", "a", "--rule", "b", "--no-frame", "-q"], cli.lint)
-    assert (kw["rule"], kw["frame"], kw["quiet"], kw["paths"], kw["skip_rule"]) == (["a", "b"], False, True, None, None)
+    kw = fastcli.parse(["--only", "a", "--only", "b", "--no-frame", "-q"], cli.lint)
+    assert (kw["only"], kw["frame"], kw["quiet"], kw["paths"], kw["skip"]) == (["a", "b"], False, True, None, None)
 
 
 def test_plain_lint_command_lines_take_the_direct_path():
@@ -122,7 +122,7 @@ def test_direct_path_leaves_the_rest_to_typer(argv):
 
 def test_other_commands_go_to_typer():
     assert fastcli.direct_arguments(["rules"], "lint", cli.lint) is None
-    assert fastcli.direct_arguments(["plan", "a.yaml"], "lint", cli.lint) is None
+    assert fastcli.direct_arguments(["derive", "a.yaml"], "lint", cli.lint) is None
     assert fastcli.direct_arguments([], "lint", cli.lint) is None
 
 
@@ -131,8 +131,8 @@ def test_other_commands_go_to_typer():
     ["fixtures/demo", "--format", "json", "--gpu", "t4", "--rows", "1000"],
     ["fixtures/demo", "--show", "info", "--gpus", "8"],
     ["fixtures/clean", "fixtures/hostile/malformed.yaml"],
-    ["fixtures/demo", "--rule", "lora-scale-below-one", "--rule", "bf16-and-fp16-both-on", "--no-project"],
-    ["fixtures/demo", "--no-frame", "-q", "--skip-rule", "memory-exceeds-gpu"],
+    ["fixtures/demo", "--only", "lora-scale-below-one", "--only", "bf16-and-fp16-both-on", "--no-project"],
+    ["fixtures/demo", "--no-frame", "-q", "--skip", "memory-exceeds-gpu"],
     ["fixtures/demo", "--format", "github", "--gate", "error", "-j", "2"],
 ])
 def test_direct_path_prints_what_typer_prints(args):

@@ -54,8 +54,8 @@ def test_code_frame_on_request():
     r = run("lint", LORA, "--frame")
     lines = r.stdout.splitlines()
     i = next(i for i, l in enumerate(lines) if "[lora-scale-below-one]" in l)
-    assert lines[i + 1] == "    5 | lora_alpha: 8              # half the rank: the adapter scale is 0.5"
-    assert lines[i + 2] == "      |             ^"  # column 13, as in the finding line
+    # the value at column 13, as in the finding line, is set off; the comment stays outside
+    assert lines[i + 1] == "    in line 5: lora_alpha: >>8<<              # half the rank: the adapter scale is 0.5"
     assert lines[i].split(":")[1:3] == ["5", "13"]
 
 
@@ -86,17 +86,17 @@ def test_quiet_and_summary():
 
 
 def test_gate():
-    assert run("lint", LORA, "--gate", "error", "--rule", "lora-scale-below-one").exit_code == 0
-    assert run("lint", LORA, "--gate", "warning", "--rule", "lora-scale-below-one").exit_code == 1
+    assert run("lint", LORA, "--gate", "error", "--only", "lora-scale-below-one").exit_code == 0
+    assert run("lint", LORA, "--gate", "warning", "--only", "lora-scale-below-one").exit_code == 1
     assert run("lint", LORA, "--gate", "error", "--severity", "lora-scale-below-one=error").exit_code == 1
 
 
 def test_rule_selection_flags():
-    r = run("lint", LORA, "--rule", "lora-scale-below-one", "--format", "json")
+    r = run("lint", LORA, "--only", "lora-scale-below-one", "--format", "json")
     assert {f["rule"] for f in json.loads(r.stdout)["findings"]} == {"lora-scale-below-one"}
-    r = run("lint", LORA, "--skip-rule", "lora-scale-below-one", "--format", "json")
+    r = run("lint", LORA, "--skip", "lora-scale-below-one", "--format", "json")
     assert "lora-scale-below-one" not in {f["rule"] for f in json.loads(r.stdout)["findings"]}
-    r = run("lint", LORA, "--rule", "lora-scale-below-on")
+    r = run("lint", LORA, "--only", "lora-scale-below-on")
     assert r.exit_code == 2 and "did you mean lora-scale-below-one" in r.output
     r = run("lint", LORA, "--severity", "lora-scale-below-one")
     assert r.exit_code == 2 and "RULE=LEVEL" in r.output
@@ -120,7 +120,7 @@ def test_shell_completion_from_typer(tmp_path):
     p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, cwd=tmp_path)
     assert p.returncode == 0, p.stderr
     assert p.stdout.split() == ["a100-40gb", "a100-40g"]
-    env.update(COMP_WORDS="cfgcheck lint --rule duplicate", COMP_CWORD="3")
+    env.update(COMP_WORDS="cfgcheck lint --only duplicate", COMP_CWORD="3")
     p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, cwd=tmp_path)
     assert p.stdout.split() == ["duplicate-key"]
     show = subprocess.run([sys.executable, "-c", code, "--show-completion", "bash"], capture_output=True,

@@ -170,7 +170,7 @@ def test_unknown_rule_gets_a_suggestion():
 
 def test_waiver_of_a_rule_that_did_not_run_is_not_called_stale():
     text = LORA.format(tail="  # cfgcheck: waive duplicate-key because kept for a later edit")
-    r = api.lint_text(text, "w.yaml", ignore=["duplicate-key"])
+    r = api.lint_text(text, "w.yaml", skip=["duplicate-key"])
     assert [f.rule for f in loud(r)] == ["lora-scale-below-one"]
 
 

@@ -1,7 +1,7 @@
 """Plain text: one GNU-style ``file:line:column: severity: message [rule]`` line per finding.
 
 Options (all off by default, so piped output stays plain): ``color`` (ANSI SGR colours),
-``frames`` (file -> its lines: print the offending line with a caret under the column),
+``frames`` (file -> its lines: print the offending line, the value set off by ``>>`` ``<<``),
 ``mode`` ("full", "quiet": finding lines only, "summary": the summary line only).
 """
 
@@ -10,7 +10,7 @@ from __future__ import annotations
 from ..findings import Severity
 
 _SGR = {"error": "1;31", "warning": "1;33", "info": "1;36", "where": "1", "rule": "2",
-        "hint": "32", "caret": "1;32", "summary": "1"}
+        "hint": "32", "mark": "1;4", "summary": "1"}
 MAX_FRAME = 120  # characters of a source line shown around the column
 
 
@@ -49,23 +49,54 @@ def _printable(text: str) -> str:
     return "".join(c if c == "\t" or c.isprintable() else "?" for c in text)
 
 
+def _value_end(src: str, start: int) -> int:
+    """Where the written value that starts at ``start`` ends: a quoted scalar at its closing
+    quote; in a flow mapping or list (or JSON) at the next separator; else before a comment."""
+    if start >= len(src):
+        return start
+    q = src[start]
+    if q in "\"'":
+        i = start + 1
+        while i < len(src):
+            if src[i] == "\\" and q == '"':
+                i += 2
+                continue
+            if src[i] == q:
+                if q == "'" and src[i + 1:i + 2] == "'":  # '' inside a single-quoted scalar
+                    i += 2
+                    continue
+                return i + 1
+            i += 1
+        return len(src)
+    flow = "{" in src[:start] or "[" in src[:start]
+    end = len(src)
+    for stop in ((" #", ",", "}", "]") if flow else (" #",)):
+        k = src.find(stop, start)
+        if k != -1:
+            end = min(end, k)
+    while end > start and src[end - 1] in " \t":
+        end -= 1
+    return end
+
+
 def frame(lines: list[str], line: int, column: int, color: bool = False) -> list[str]:
-    """The source line with a caret under ``column``; [] when the line is not there."""
+    """The source line, the value at ``column`` set off between ``>>`` and ``<<``; [] when the
+    line is not there. A long line is cut to about MAX_FRAME characters around the value."""
     if not 1 <= line <= len(lines):
         return []
     src = _printable(lines[line - 1].rstrip("\r\n"))
-    col = max(1, min(column, len(src) + 1))
-    start = 0
-    if len(src) > MAX_FRAME:
-        start = max(0, min(col - 1 - MAX_FRAME // 2, len(src) - MAX_FRAME))
-        shown = src[start:start + MAX_FRAME]
-        prefix, suffix = ("..." if start else ""), ("..." if start + MAX_FRAME < len(src) else "")
-        src, lead = prefix + shown + suffix, len(prefix)
-    else:
-        lead = 0
-    under = "".join("\t" if c == "\t" else " " for c in src[:lead + col - 1 - start])
-    number = f"{line:>5}"
-    return [f"{number} | {src}", f"{' ' * len(number)} | {under}{_paint('^', 'caret', color)}"]
+    col = max(1, min(column, len(src) + 1)) - 1
+    end = max(_value_end(src, col), col)
+    head, value, tail = src[:col], src[col:end], src[end:]
+    room = max(0, MAX_FRAME - len(value)) // 2
+    if len(head) > room:
+        head = "..." + head[len(head) - room:]
+    if len(tail) > room:
+        tail = tail[:room] + "..."
+    if len(value) > MAX_FRAME:
+        value = value[:MAX_FRAME] + "..."
+    marked = _paint(f">>{value}<<", "mark", color)
+    return [f"    in line {line}: {head}{marked}{tail}"]
 
 
 def render(report, visible, *, hidden_info: int = 0, color: bool = False,

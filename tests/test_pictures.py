@@ -1,0 +1,103 @@
+"""The pictures of a derived run: learning-rate curve with cadence marks, memory bar."""
+
+from __future__ import annotations
+
+from typer.testing import CliRunner
+
+from cfgcheck import api
+from cfgcheck.cli import app
+from cfgcheck.lrcurve import curve
+from cfgcheck.render.pictures import WIDTH, memory_picture, schedule_picture, schedule_series
+
+LORA = """\
+model_name_or_path: meta-llama/Llama-2-7b-hf
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+lr_scheduler_type: {sched}
+{warmup}
+per_device_train_batch_size: 4
+gradient_accumulation_steps: 4
+num_train_epochs: 2
+eval_strategy: steps
+eval_steps: 100
+save_steps: 250
+logging_steps: 10
+bf16: true
+gradient_checkpointing: true
+max_seq_length: 1024
+"""
+
+
+def _plan(tmp_path, sched="cosine", warmup="warmup_steps: 125", **opts):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LORA.format(sched=sched, warmup=warmup))
+    ((_, plan),) = api.derive([cfg], project=None, **opts).runs
+    return plan
+
+
+def test_curve_follows_the_schedule_and_the_marks_follow_the_cadence(tmp_path):
+    # 20,000 rows / (4 x 4 x 1 GPU) = 1,250 steps per epoch x 2 epochs = 2,500 steps (Trainer ceil rounding)
+    plan = _plan(tmp_path, rows=20000)
+    series, why = schedule_series(plan)
+    assert why is None and series.curve.total_steps == 2500 and series.curve.warmup_steps == 125
+    assert series.marks["eval"] == list(range(100, 2501, 100))  # eval_steps 100 -> 25 evaluations
+    assert series.marks["save"] == list(range(250, 2501, 250))  # the last step (2,500) is a multiple
+    assert len(series.marks["log"]) == 250
+    # the drawn values are the curve's own: the peak at the end of warm-up, zero at the end
+    c = curve("cosine", total_steps=2500, warmup_steps=125, base_lr=2e-4)
+    assert max(c.values) == 1.0 and c.values[125] == 1.0 and c.values[-1] < 1e-5
+    lines = schedule_picture(plan)
+    assert "2,500 optimizer steps" in lines[0] and "cosine (written)" in lines[0] and "peak 0.0002" in lines[0]
+    eval_row = next(l for l in lines if l.strip().startswith("eval |"))
+    assert eval_row.count("|") - 1 == len({min(WIDTH - 1, -(-s * WIDTH // 2500) - 1) for s in series.marks["eval"]})
+    top_row = lines[1].split("|", 1)[1]
+    # the top row (at least 7/8 of the peak) holds only the first quarter of the run: cosine with
+    # 125 warm-up steps is above 0.875 up to about step 125 + 0.23 x 2,375 = 671 of 2,500
+    assert "█" in top_row[:15] and top_row[20:].strip() == ""
+
+
+def test_a_constant_schedule_shows_the_warmup_it_ignores(tmp_path):
+    plan = _plan(tmp_path, sched="constant", warmup="warmup_steps: 100", rows=2000)
+    lines = schedule_picture(plan)
+    assert any("100 warm-up steps written, ignored" in l for l in lines)
+    assert any(l.startswith("note: constant does not read the warm-up") for l in lines)
+    body = [l for l in lines[1:9]]
+    assert all(set(l.split("|", 1)[1]) == {"█"} for l in body)  # flat at the peak from step 1
+
+
+def test_an_unwritten_schedule_is_the_trainer_default_and_says_so(tmp_path):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text("model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 1.0e-5\nmax_steps: 300\nwarmup_steps: 30\n")
+    ((_, plan),) = api.derive([cfg], project=None).runs
+    head = schedule_picture(plan)[0]
+    assert "linear (not written: the transformers default, assumed)" in head  # TrainingArguments lr_scheduler_type="linear"
+
+
+def test_no_steps_no_curve(tmp_path):
+    plan = _plan(tmp_path)  # no rows: the step count is unknown
+    assert schedule_picture(plan) == ["learning rate: not drawn: the number of optimizer steps is unknown (pass --rows, or set max_steps)"]
+
+
+def test_memory_bar_marks_the_card_and_overflow(tmp_path):
+    cfg = tmp_path / "full.yaml"
+    cfg.write_text("model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 1.0e-5\nbf16: true\nper_device_train_batch_size: 1\n")
+    ((_, plan),) = api.derive([cfg], project=None, gpu="t4").runs
+    head, bar, legend = memory_picture(plan)
+    assert "does not fit" in head and "Tesla T4" in head
+    inside = bar.strip()[1:-1]
+    # the card's 16 GB mark sits at capacity / total of the bar's width
+    at = round(plan.capacity_bytes / plan.memory.total_bytes * WIDTH)
+    assert inside[at] == "|"
+    assert "weights" in legend and "optimizer states" in legend
+
+
+def test_derive_command_draws_unless_asked_not_to(tmp_path):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LORA.format(sched="linear", warmup="warmup_steps: 50"))
+    runner = CliRunner()
+    out = runner.invoke(app, ["derive", str(cfg), "--rows", "4000", "--gpu", "a100-40gb", "--no-project"]).output
+    assert "learning rate over 500 optimizer steps" in out and "memory per GPU:" in out
+    plain = runner.invoke(app, ["derive", str(cfg), "--rows", "4000", "--no-pictures", "--no-project"]).output
+    assert "learning rate over" not in plain and "memory per GPU:" not in plain
