@@ -481,9 +481,10 @@ def gpus() -> None:
 def models(
     family: Optional[str] = typer.Option(None, "--family", help="Only this model family (transformers model_type)."),
     ids: bool = typer.Option(False, "--ids", help="Also list every other id that names the same shape."),
+    modules: bool = typer.Option(False, "--modules", help="Also list the module names LoRA can target, per layer."),
 ) -> None:
     """List the models known offline: the project's own, then the bundled catalogue, with their sources."""
-    from .knowledge.models import catalogue_entries, total_parameters
+    from .knowledge.models import catalogue_entries, linear_modules, total_parameters
 
     def size(n: int) -> str:
         return f"{n / 1e9:.2f}B" if n >= 1e9 else f"{n / 1e6:.0f}M"
@@ -505,6 +506,8 @@ def models(
                    f"{moe}  {a.torch_dtype}  [shapes: {e.source}{published}]")
         if ids and e.aliases:
             typer.echo(f"{'':<4}also: {', '.join(e.aliases)}")
+        if modules:
+            typer.echo(f"{'':<4}modules: {', '.join(linear_modules(a))}")
 
 
 def main() -> None:

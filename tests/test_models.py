@@ -705,6 +705,8 @@ def test_models_and_gpus_listings_show_sources(tmp_path, monkeypatch):
     assert out.exit_code == 0
     lines = out.output.strip().splitlines()
     assert len(lines) == 2 and all("shapes:" in line and "published" in line for line in lines)
+    mods = CliRunner().invoke(app, ["models", "--family", "gpt2", "--modules"])
+    assert mods.exit_code == 0 and "modules: c_attn, c_proj, c_fc" in mods.output  # transformers GPT2 module names
     gpus = CliRunner().invoke(app, ["gpus"])
     assert gpus.exit_code == 0 and "declared in" in gpus.output.splitlines()[0]
 
@@ -717,3 +719,16 @@ def test_adapter_in_the_hub_cache_resolves_to_its_base(tmp_path):
     a = resolve_model("fjordline/faq-lora", cwd=tmp_path, hub_cache=tmp_path / "hub")
     assert a is not None and total_parameters(a) == 494_032_768  # REFERENCES sec. 13
     assert "base_model_name_or_path is Qwen/Qwen2.5-0.5B" in a.how and not a.assumed
+
+
+def test_target_names_follow_each_layout():
+    # transformers 5 module names: GPT-2 wte/c_attn, GPT-NeoX embed_in/query_key_value, Falcon word_embeddings;
+    # PEFT 0.21 rewrites mixtral w1/w2/w3 and qwen3_moe gate_proj/up_proj/down_proj onto the fused experts
+    from cfgcheck.knowledge.models import target_names
+
+    assert {"wte", "c_attn", "c_proj", "c_fc", "lm_head"} <= target_names(CAT["openai-community/gpt2"])
+    assert {"embed_in", "query_key_value", "dense", "dense_4h_to_h"} <= target_names(CAT["EleutherAI/pythia-1b"])
+    assert "word_embeddings" in target_names(CAT["tiiuae/falcon-7b"])
+    assert {"w1", "w2", "w3", "gate"} <= target_names(CAT["mistralai/Mixtral-8x7B-v0.1"])
+    assert {"gate_proj", "up_proj", "down_proj"} <= target_names(CAT["Qwen/Qwen3-30B-A3B"])
+    assert "router" not in target_names(CAT["openai/gpt-oss-20b"])  # a router module LoRA cannot wrap

@@ -55,6 +55,7 @@ __all__ = [
     "CatalogueEntry",
     "FUSED_QKV",
     "linear_modules",
+    "target_names",
     "resolve_targets",
     "target_leaf_names",
     "unsupported_target_matches",
@@ -1110,6 +1111,20 @@ def linear_modules(arch: Architecture) -> dict[str, tuple[int, int]]:
                 fin, fout = _in_out(kind, params["weight"])
                 out.setdefault(name.rsplit(".", 1)[-1], (fin, fout))
     return out
+
+
+def target_names(arch: Architecture) -> frozenset[str]:
+    """Last name components a LoRA ``target_modules`` list may name for this model and PEFT accept.
+
+    Every Linear, Conv1D and embedding (``embed_tokens``, GPT-2 ``wte``, GPT-NeoX ``embed_in``,
+    Falcon ``word_embeddings``, ``lm_head``), plus the transformers 4.x expert and router names that
+    PEFT rewrites for the fused transformers 5 layout (mixtral ``w1``/``w2``/``w3``/``gate``; qwen3_moe
+    and deepseek_v2 ``gate_proj``/``up_proj``/``down_proj``/``gate``).
+    """
+    names = {r[0].rsplit(".", 1)[-1] for r in module_table(arch) if r[1] in _LORA_KINDS}
+    if arch.family in _MOE_PATTERN:
+        names |= set(_MOE_CONVERSIONS[_MOE_PATTERN[arch.family]][0])
+    return frozenset(names)
 
 
 def _in_out(kind: str, weight: tuple[int, ...]) -> tuple[int, int]:
