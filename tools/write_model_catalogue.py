@@ -319,6 +319,9 @@ EXACT = {
     "deepseek-ai/DeepSeek-V2-Lite": (15706484224, GGUF), "deepseek-ai/DeepSeek-R1-Distill-Qwen-1.5B": (1777088000, GGUF),
     "deepseek-ai/DeepSeek-R1-Distill-Qwen-14B": (14770033664, GGUF), "Qwen/Qwen2.5-14B": (14770033664, GGUF),
     "openai/gpt-oss-20b": (20914757184, GGUF), "openai/gpt-oss-120b": (116829156672, GGUF),
+    "Qwen/Qwen1.5-7B": (7721324544, GGUF), "Qwen/Qwen2-57B-A14B": (57408658944, HFAPI.replace("a third-party table of API values fetched 2026-10-01", "a third-party copy of the API answer")),
+    "codellama/CodeLlama-7b-hf": (6738546688, GGUF), "allenai/OLMo-1B-hf": (1176764416, GGUF),
+    "HuggingFaceTB/SmolLM2-135M": (134515008, GGUF),
 }
 # Published counts of stored tensors that hold more than num_parameters(): (extra parameters, why)
 STORED_EXTRA = {
