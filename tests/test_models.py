@@ -732,3 +732,35 @@ def test_target_names_follow_each_layout():
     assert {"w1", "w2", "w3", "gate"} <= target_names(CAT["mistralai/Mixtral-8x7B-v0.1"])
     assert {"gate_proj", "up_proj", "down_proj"} <= target_names(CAT["Qwen/Qwen3-30B-A3B"])
     assert "router" not in target_names(CAT["openai/gpt-oss-20b"])  # a router module LoRA cannot wrap
+
+
+# config.json as the hub holds them (key names of each family's config class; values from memory, checked by
+# reproducing the catalogue's published totals)
+HUB_CONFIGS = [
+    ({"model_type": "gpt2", "n_embd": 768, "n_head": 12, "n_layer": 12, "n_positions": 1024, "n_ctx": 1024,
+      "n_inner": None, "vocab_size": 50257}, "openai-community/gpt2"),
+    ({"model_type": "RefinedWebModel", "hidden_size": 4544, "n_head": 71, "n_layer": 32, "multi_query": True,
+      "parallel_attn": True, "bias": False, "vocab_size": 65024}, "tiiuae/falcon-7b"),
+    ({"model_type": "falcon", "hidden_size": 8192, "num_attention_heads": 128, "num_hidden_layers": 60,
+      "num_kv_heads": 8, "new_decoder_architecture": True, "parallel_attn": True, "bias": False,
+      "vocab_size": 65024}, "tiiuae/falcon-40b"),
+    ({"model_type": "qwen3_moe", "hidden_size": 2048, "intermediate_size": 6144, "num_hidden_layers": 48,
+      "num_attention_heads": 32, "num_key_value_heads": 4, "head_dim": 128, "num_experts": 128,
+      "num_experts_per_tok": 8, "moe_intermediate_size": 768, "decoder_sparse_step": 1, "mlp_only_layers": [],
+      "vocab_size": 151936, "tie_word_embeddings": False}, "Qwen/Qwen3-30B-A3B"),
+    ({"model_type": "deepseek_v2", "hidden_size": 2048, "intermediate_size": 10944, "num_hidden_layers": 27,
+      "num_attention_heads": 16, "num_key_value_heads": 16, "n_routed_experts": 64, "n_shared_experts": 2,
+      "num_experts_per_tok": 6, "moe_intermediate_size": 1408, "first_k_dense_replace": 1, "moe_layer_freq": 1,
+      "kv_lora_rank": 512, "q_lora_rank": None, "qk_rope_head_dim": 64, "qk_nope_head_dim": 128, "v_head_dim": 128,
+      "vocab_size": 102400}, "deepseek-ai/DeepSeek-V2-Lite"),
+    ({"model_type": "gpt_oss", "hidden_size": 2880, "intermediate_size": 2880, "num_hidden_layers": 24,
+      "num_attention_heads": 64, "num_key_value_heads": 8, "head_dim": 64, "num_local_experts": 32,
+      "num_experts_per_tok": 4, "vocab_size": 201088, "sliding_window": 128, "attention_bias": True,
+      "tie_word_embeddings": False}, "openai/gpt-oss-20b"),
+]
+
+
+@pytest.mark.parametrize("data,ref", HUB_CONFIGS, ids=[r for _d, r in HUB_CONFIGS])
+def test_hub_config_files_of_other_families_read_to_the_catalogue_shape(data, ref):
+    a = architecture_from_config(data, "test")
+    assert a is not None and total_parameters(a) == total_parameters(CAT[ref])

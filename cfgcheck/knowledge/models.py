@@ -227,6 +227,7 @@ def _nonneg_int(value, default: int = 0) -> int | None:
 _KEY_ALIASES = {
     "gpt2": {"hidden_size": "n_embd", "num_hidden_layers": "n_layer", "num_attention_heads": "n_head",
              "intermediate_size": "n_inner", "max_position_embeddings": "n_positions"},
+    "falcon": {"num_hidden_layers": "n_layer", "num_attention_heads": "n_head"},  # FalconConfig.attribute_map
 }
 _FAMILY_ALIASES = {"RefinedWeb": "falcon", "RefinedWebModel": "falcon"}  # falcon's original model_type names
 
@@ -309,12 +310,14 @@ def architecture_from_config(data: dict, source: str) -> Architecture | None:
     max_pos = get("max_position_embeddings")
     max_pos = _pos_int(max_pos) if max_pos is not None else None
     tie = data.get("tie_word_embeddings", _DEFAULT_TIE.get(family, False))
-    dtype = data.get("dtype", data.get("torch_dtype"))
+    dtype = data.get("dtype") or data.get("torch_dtype")
     experts = per_tok = expert_inter = shared = first_dense = 0
     if family in ("mixtral", "gpt_oss"):
         experts, per_tok = data.get("num_local_experts", 0), data.get("num_experts_per_tok", 0)
     elif family in ("qwen2_moe", "qwen3_moe"):
-        experts, per_tok = data.get("num_experts", 0), data.get("num_experts_per_tok", 0)
+        # hub config.json files say num_experts; transformers 5 writes it back as num_local_experts
+        experts = data.get("num_experts", data.get("num_local_experts", 0))
+        per_tok = data.get("num_experts_per_tok", 0)
         expert_inter = data.get("moe_intermediate_size", 0)
         shared = data.get("shared_expert_intermediate_size", 0) if family == "qwen2_moe" else 0
         if data.get("decoder_sparse_step", 1) != 1 or data.get("mlp_only_layers"):
@@ -351,7 +354,8 @@ def architecture_from_config(data: dict, source: str) -> Architecture | None:
         num_experts=experts,
         experts_per_token=per_tok,
         source=source,
-        attention_bias=bias_default or (family not in ("gpt_neox", "gpt_oss") and bool(data.get("attention_bias", False))),
+        # gpt_neox: the bias of query_key_value is part of the layout, whatever attention_bias says
+        attention_bias=bias_default or (family != "gpt_neox" and bool(data.get("attention_bias", family == "gpt_oss"))),
         mlp_bias=bool(data.get("mlp_bias", False)),
         sliding_window=window,
         expert_intermediate_size=expert_inter,
