@@ -764,3 +764,15 @@ HUB_CONFIGS = [
 def test_hub_config_files_of_other_families_read_to_the_catalogue_shape(data, ref):
     a = architecture_from_config(data, "test")
     assert a is not None and total_parameters(a) == total_parameters(CAT[ref])
+
+
+@pytest.mark.parametrize("ref,entry,stored,dtype", [
+    ("hugging-quants/Meta-Llama-3.1-8B-Instruct-AWQ-INT4", "meta-llama/Llama-3.1-8B", "AWQ INT4", "bfloat16"),
+    ("unsloth/gpt-oss-20b-BF16", "openai/gpt-oss-20b", "", "bfloat16"),
+    ("llama-2-7b-chat.F16.gguf", "meta-llama/Llama-2-7b-hf", "GGUF float16", "float16"),
+    ("Qwen/Qwen3-30B-A3B-GPTQ-Int4", "Qwen/Qwen3-30B-A3B", "GPTQ", "bfloat16"),
+])
+def test_exports_name_their_format_and_bits(ref, entry, stored, dtype):
+    # common practice, no source: how exporters name quantised and re-typed copies
+    a = match_catalogue(ref)
+    assert (a.entry, a.quantised, a.torch_dtype, a.assumed) == (entry, stored, dtype, True)

@@ -444,16 +444,16 @@ _VARIANT_SUFFIX = re.compile(
 # Quantised or re-typed exports: (pattern, what is stored)
 _QUANT_SUFFIXES = (
     (re.compile(r"[-_.]gguf$", re.I), "GGUF"),
-    (re.compile(r"[-_.](i?q\d(?:_[a-z0-9]+)*|f16|f32|bf16)$", re.I), "GGUF {0}"),
+    (re.compile(r"[-_.](fp16|f16|float16)$", re.I), "float16"),
+    (re.compile(r"[-_.](bf16|bfloat16)$", re.I), "bfloat16"),
+    (re.compile(r"[-_.](fp32|f32|float32)$", re.I), "float32"),
+    (re.compile(r"[-_.](i?q\d(?:_[a-z0-9]+)*)$", re.I), "GGUF {0}"),
     (re.compile(r"[-_.]gptq(?:[-_.]int[48])?$", re.I), "GPTQ"),
     (re.compile(r"[-_.]awq$", re.I), "AWQ"),
     (re.compile(r"[-_.]bnb[-_.]?([48])bit$", re.I), "bitsandbytes {0}-bit"),
     (re.compile(r"[-_.](?:unsloth[-_.])?bnb$", re.I), "bitsandbytes"),
     (re.compile(r"[-_.]([48])[-_.]?bits?$", re.I), "{0}-bit"),
     (re.compile(r"[-_.](int[48]|fp8|nf4|exl2|mlx|mxfp4)$", re.I), "{0}"),
-    (re.compile(r"[-_.](fp16|float16)$", re.I), "float16"),
-    (re.compile(r"[-_.](bf16|bfloat16)$", re.I), "bfloat16"),
-    (re.compile(r"[-_.](fp32|float32)$", re.I), "float32"),
 )
 _DTYPE_EXPORT = {"float16", "bfloat16", "float32"}
 # Tokens that say nothing about the shape (an organisation-like prefix, file or checkpoint words)
@@ -463,20 +463,27 @@ _NEUTRAL_TOKENS = {"meta", "hf", "base", "pt", "model", "checkpoints", "checkpoi
 
 def _strip_exports(name: str) -> tuple[str, list[str], str | None]:
     """(the name without export suffixes, the suffixes dropped, what a quantised export stores)."""
+    gguf = name.strip().lower().endswith(".gguf")
     name = re.sub(r"\.gguf$", "", name.strip(), flags=re.I)
     dropped: list[str] = []
-    stored = None
+    stored: list[str] = []  # outermost suffix first
     for _ in range(6):
         for pattern, what in _QUANT_SUFFIXES:
             m = pattern.search(name)
             if m and m.start() > 0:
-                stored = stored or what.format(*(g.upper() if not g.isdigit() else g for g in m.groups()))
+                stored.append(what.format(*(g.upper() if not g.isdigit() else g for g in m.groups())))
                 dropped.append(name[m.start():])
                 name = name[: m.start()]
                 break
         else:
             break
-    return name, dropped, stored
+    if gguf and not any(s.startswith("GGUF") for s in stored):
+        stored.append("GGUF")
+    dtypes = [s for s in stored if s in _DTYPE_EXPORT]
+    formats = [s for s in stored if s not in _DTYPE_EXPORT]
+    if formats:  # a quantised export: name its format and bits in reading order ("AWQ INT4", "GGUF Q4_K_M")
+        return name, dropped, " ".join(reversed(formats)) + (f" {dtypes[0]}" if dtypes else "")
+    return name, dropped, dtypes[0] if dtypes else None
 
 
 def _strip_name(name: str) -> tuple[str, list[str], str | None]:
