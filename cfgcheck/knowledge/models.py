@@ -407,13 +407,18 @@ class CatalogueEntry:
 
 
 @lru_cache(maxsize=1)
+def _catalogue_raw() -> dict:
+    return json.loads(_CATALOGUE_FILE.read_text(encoding="utf-8"))
+
+
+@lru_cache(maxsize=1)
 def catalogue_entries() -> tuple[CatalogueEntry, ...]:
     """The bundled catalogue, read once on the first lookup (lint start-up never reads it)."""
     global _ARCH_FIELDS
     if _ARCH_FIELDS is None:
         _ARCH_FIELDS = {f for f in Architecture.__dataclass_fields__
                         if f not in ("source", "entry", "how", "assumed", "match", "quantised")}
-    raw = json.loads(_CATALOGUE_FILE.read_text(encoding="utf-8"))
+    raw = _catalogue_raw()
     out = []
     for item in raw["models"]:
         fields = {k: v for k, v in item.items() if k in _ARCH_FIELDS}
@@ -455,6 +460,7 @@ _QUANT_SUFFIXES = (
     (re.compile(r"[-_.]([48])[-_.]?bits?$", re.I), "{0}-bit"),
     (re.compile(r"[-_.](int[48]|fp8|nf4|exl2|mlx|mxfp4)$", re.I), "{0}"),
 )
+_ANY_EXPORT = re.compile("|".join(f"(?:{p.pattern})" for p, _ in _QUANT_SUFFIXES), re.I)
 _DTYPE_EXPORT = {"float16", "bfloat16", "float32"}
 # Tokens that say nothing about the shape (an organisation-like prefix, file or checkpoint words)
 _VERSION_TOKEN = re.compile(r"v\d+(?:\.\d+)*")
@@ -468,6 +474,8 @@ def _strip_exports(name: str) -> tuple[str, list[str], str | None]:
     dropped: list[str] = []
     stored: list[str] = []  # outermost suffix first
     for _ in range(6):
+        if not _ANY_EXPORT.search(name):
+            break
         for pattern, what in _QUANT_SUFFIXES:
             m = pattern.search(name)
             if m and m.start() > 0:
@@ -525,7 +533,7 @@ def _name_index():
             by_stripped.setdefault(stripped, e)
             # release tags (v0.1, v1.0) are not required: a fine-tune's name rarely repeats them
             token_rows.append((frozenset(t for t in _tokens(stripped) - _NEUTRAL_TOKENS if not _VERSION_TOKEN.fullmatch(t)), e))
-    derived = json.loads(_CATALOGUE_FILE.read_text(encoding="utf-8")).get("derived", [])
+    derived = _catalogue_raw().get("derived", [])
     ids = {e.id: e for e in catalogue_entries()}
     derived_rows = [(frozenset(d["tokens"]), ids[d["base"]], d["source"]) for d in derived if d["base"] in ids]
     return by_id, by_name, by_stripped, token_rows, derived_rows
