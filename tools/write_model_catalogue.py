@@ -321,7 +321,9 @@ EXACT = {
     "openai/gpt-oss-20b": (20914757184, GGUF), "openai/gpt-oss-120b": (116829156672, GGUF),
     "Qwen/Qwen1.5-7B": (7721324544, GGUF), "Qwen/Qwen2-57B-A14B": (57408658944, HFAPI.replace("a third-party table of API values fetched 2026-10-01", "a third-party copy of the API answer")),
     "codellama/CodeLlama-7b-hf": (6738546688, GGUF), "allenai/OLMo-1B-hf": (1176764416, GGUF),
-    "HuggingFaceTB/SmolLM2-135M": (134515008, GGUF),
+    "HuggingFaceTB/SmolLM2-135M": (134515008, GGUF), "microsoft/phi-1_5": (1418270720, GGUF),
+    "deepseek-ai/deepseek-coder-6.7b-base": (6740512768, GGUF), "allenai/OLMo-7B-hf": (6888095744, GGUF),
+    "mistralai/Ministral-8B-Instruct-2410": (8019808256, GGUF), "ibm-granite/granite-3.1-2b-base": (2533531648, GGUF),
 }
 # Published counts of stored tensors that hold more than num_parameters(): (extra parameters, why)
 STORED_EXTRA = {
