@@ -225,6 +225,29 @@ for name, L, h, H, V, pub in [("70m", 6, 512, 8, 50304, 70426624), ("160m", 12, 
                               ("6.9b", 32, 4096, 32, 50432, 6857302016), ("12b", 36, 5120, 40, 50688, 11846072320)]:
     add(f"EleutherAI/pythia-{name}", "gpt_neox", L, h, 4 * h, H, H, h // H, V, False, 2048, "float16", pub, PY,
         "Biderman et al. 2023 Table 1 (layers, model dim, heads), from memory; vocab padding from memory", aliases=[f"EleutherAI/pythia-{name}-deduped"])
+# ---- more dense shapes people fine-tune (Code Llama 70B, Mistral Large, Yi, DeepSeek Coder / LLM, SOLAR, ...)
+add("codellama/CodeLlama-70b-hf", "llama", 80, 8192, 28672, 64, 8, 128, 32016, False, 16384, "bfloat16",
+    69_000_000_000, HUB + " (69B)", aliases=["codellama/CodeLlama-70b-Instruct-hf", "codellama/CodeLlama-70b-Python-hf"])
+add("mistralai/Mistral-Large-Instruct-2407", "mistral", 88, 12288, 28672, 96, 8, 128, 32768, False, 131072, "bfloat16")
+add("Qwen/Qwen1.5-110B", "qwen2", 80, 8192, 49152, 64, 8, 128, 152064, False, 32768, "bfloat16", 111_000_000_000,
+    HUB + " (111B)", aliases=["Qwen/Qwen1.5-110B-Chat"])
+add("Qwen/CodeQwen1.5-7B", "qwen2", 32, 4096, 13440, 32, 4, 128, 92416, False, 65536, "bfloat16", aliases=["Qwen/CodeQwen1.5-7B-Chat"])
+add("01-ai/Yi-6B", "llama", 32, 4096, 11008, 32, 4, 128, 64000, False, 4096, "bfloat16", aliases=["01-ai/Yi-6B-Chat", "01-ai/Yi-1.5-6B", "01-ai/Yi-1.5-6B-Chat"])
+add("01-ai/Yi-1.5-9B", "llama", 48, 4096, 11008, 32, 4, 128, 64000, False, 4096, "bfloat16", aliases=["01-ai/Yi-1.5-9B-Chat", "01-ai/Yi-9B"])
+add("01-ai/Yi-34B", "llama", 60, 7168, 20480, 56, 8, 128, 64000, False, 4096, "bfloat16", aliases=["01-ai/Yi-34B-Chat", "01-ai/Yi-1.5-34B", "01-ai/Yi-1.5-34B-Chat"])
+add("deepseek-ai/deepseek-coder-1.3b-base", "llama", 24, 2048, 5504, 16, 16, 128, 32256, False, 16384, "bfloat16", aliases=["deepseek-ai/deepseek-coder-1.3b-instruct"])
+add("deepseek-ai/deepseek-coder-33b-base", "llama", 62, 7168, 19200, 56, 8, 128, 32256, False, 16384, "bfloat16", 33_300_000_000, HUB + " (33.3B)", aliases=["deepseek-ai/deepseek-coder-33b-instruct"])
+add("deepseek-ai/deepseek-llm-67b-base", "llama", 95, 8192, 22016, 64, 8, 128, 102400, False, 4096, "bfloat16", 67_400_000_000, HUB + " (67.4B)", aliases=["deepseek-ai/deepseek-llm-67b-chat"])
+add("allenai/OLMo-2-0325-32B", "olmo2", 64, 5120, 27648, 40, 8, 128, 100352, False, 4096, "bfloat16", aliases=["allenai/OLMo-2-0325-32B-Instruct"])
+add("EleutherAI/gpt-neox-20b", "gpt_neox", 44, 6144, 24576, 64, 64, 96, 50432, False, 2048, "float16", src="Black et al. 2022 (GPT-NeoX-20B) Table 1 (44 layers, d_model 6144, 64 heads), from memory")
+add("distilbert/distilgpt2", "gpt2", 6, 768, 3072, 12, 12, 64, 50257, True, 1024, "float32", aliases=["distilgpt2"])
+add("upstage/SOLAR-10.7B-v1.0", "llama", 48, 4096, 14336, 32, 8, 128, 32000, False, 4096, "float16", aliases=["upstage/SOLAR-10.7B-Instruct-v1.0"])
+add("nvidia/Mistral-NeMo-Minitron-8B-Base", "mistral", 40, 4096, 11520, 32, 8, 128, 131072, False, 8192, "bfloat16",
+    8_410_000_000, HUB + " (8.41B)", aliases=["nvidia/Mistral-NeMo-Minitron-8B-Instruct"])
+add("openlm-research/open_llama_3b", "llama", 26, 3200, 8640, 32, 32, 100, 32000, False, 2048, "float16", aliases=["openlm-research/open_llama_3b_v2"])
+for name, h, inter, heads in [("14m", 128, 512, 4), ("31m", 256, 1024, 8)]:
+    add(f"EleutherAI/pythia-{name}", "gpt_neox", 6, h, inter, heads, heads, h // heads, 50304, False, 2048, "float16")
+
 # ---- GPT-2 (Radford et al. 2019 Table 2 gives layers and widths; totals are num_parameters())
 for name, L, h, H, pub in [("gpt2", 12, 768, 12, 124439808), ("gpt2-medium", 24, 1024, 16, 354823168),
                            ("gpt2-large", 36, 1280, 20, 774030080), ("gpt2-xl", 48, 1600, 25, 1557611200)]:
@@ -324,6 +347,13 @@ EXACT = {
     "HuggingFaceTB/SmolLM2-135M": (134515008, GGUF), "microsoft/phi-1_5": (1418270720, GGUF),
     "deepseek-ai/deepseek-coder-6.7b-base": (6740512768, GGUF), "allenai/OLMo-7B-hf": (6888095744, GGUF),
     "mistralai/Ministral-8B-Instruct-2410": (8019808256, GGUF), "ibm-granite/granite-3.1-2b-base": (2533531648, GGUF),
+    "mistralai/Mistral-Large-Instruct-2407": (122610069504, GGUF), "Qwen/CodeQwen1.5-7B": (7250284544, GGUF),
+    "01-ai/Yi-6B": (6061035520, GGUF), "01-ai/Yi-1.5-9B": (8829407232, GGUF), "01-ai/Yi-34B": (34388917248, GGUF),
+    "deepseek-ai/deepseek-coder-1.3b-base": (1346471936, GGUF), "allenai/OLMo-2-0325-32B": (32234279936, GGUF),
+    "EleutherAI/gpt-neox-20b": (20554567680, "GPT-NeoX-20B model description table, n_parameters {0:,} (third-party copy, via code search)"),
+    "distilbert/distilgpt2": (81912576, GGUF), "upstage/SOLAR-10.7B-v1.0": (10731524096, GGUF),
+    "openlm-research/open_llama_3b": (3426473600, "dense parameter count {0:,} in a third-party upcycling script for the 3B OpenLLaMA (via code search)"),
+    "EleutherAI/pythia-14m": (14067712, GGUF), "EleutherAI/pythia-31m": (30494720, GGUF),
 }
 # Published counts of stored tensors that hold more than num_parameters(): (extra parameters, why)
 STORED_EXTRA = {
