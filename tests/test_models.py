@@ -777,3 +777,19 @@ def test_exports_name_their_format_and_bits(ref, entry, stored, dtype):
     # common practice, no source: how exporters name quantised and re-typed copies
     a = match_catalogue(ref)
     assert (a.entry, a.quantised, a.torch_dtype, a.assumed) == (entry, stored, dtype, True)
+
+
+def test_derived_run_and_findings_say_which_entry_and_match(tmp_path):
+    # the derived run names the entry and the match; a finding built on the model quotes it, assumption included
+    from cfgcheck import api
+
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text("model_name_or_path: NousResearch/Llama-2-7b-hf\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
+                   "lora_target_modules: [c_attn]\nlearning_rate: 2.0e-4\n")
+    (file, run), = api.derive([cfg], project=None).runs
+    d = run.as_dict()
+    assert d["model_entry"] == "meta-llama/Llama-2-7b-hf" and d["model_assumed"] is True
+    assert "matched by name" in d["model_match"] and "NousResearch/Llama-2-7b-hf" in d["model_match"]
+    report = api.lint([cfg], project=None)
+    msgs = [f.message for f in report.findings if f.rule == "lora-target-not-in-model"]
+    assert msgs and "meta-llama/Llama-2-7b-hf" in msgs[0] and "assumed from the name" in msgs[0]
