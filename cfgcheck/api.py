@@ -16,7 +16,7 @@ from typing import Any, Callable, Iterable
 
 from . import engine
 from .engine import FileReport, Options, Report
-from .findings import Finding, Severity
+from .findings import MAX_MAGNITUDE, Finding, OptionError, Severity, number_text
 from .knowledge.hardware import find_gpu
 
 EXIT_CLEAN = 0
@@ -31,7 +31,13 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
                   thresholds: Mapping[str, Mapping[str, Any]] | None = None,
                   debug: bool | None = None, cwd: Path | None = None) -> dict[str, Any]:
     """The options a caller set explicitly, as engine values (None = not set).
-    Raises ValueError (UnknownGpu) for a GPU name we do not know, ValueError for a bad severity."""
+    Raises UnknownGpu for a GPU name we do not know, OptionError for a bad severity (both are
+    ValueErrors)."""
+    for name, value in (("gpus", gpus), ("rows", rows)):
+        if value is not None and (isinstance(value, bool) or not isinstance(value, int)
+                                  or not 1 <= value <= MAX_MAGNITUDE):
+            raise OptionError(f"{name} must be a whole number from 1 to {MAX_MAGNITUDE:,} (2**53), "
+                              f"not {number_text(value) if isinstance(value, int) else repr(value)[:40]}")
     return {
         "gpu": find_gpu(gpu) if gpu else None,
         "gpus": gpus,
@@ -173,6 +179,7 @@ def visible(findings: Iterable[Finding], show: Severity) -> list[Finding]:
 class DeriveResult:
     runs: list = field(default_factory=list)  # (file, Plan)
     problems: list = field(default_factory=list)
+    internal: list = field(default_factory=list)  # a bug in cfgcheck on one file (exit 3)
 
 
 def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) -> DeriveResult:
@@ -189,17 +196,23 @@ def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any
         if skip:
             continue
         opts = options_for(file)
-        try:
-            _src, docs = load_path(file)
-        except LoadError as exc:
-            out.problems.append(InputProblem(file=file, line=exc.line, column=exc.column, reason=exc.reason))
-            continue
-        for doc in docs:
-            view = build_view(doc)
-            if view.skipped:
+        try:  # the crash boundary of one file: the other files are still derived
+            try:
+                _src, docs = load_path(file)
+            except LoadError as exc:
+                out.problems.append(InputProblem(file=file, line=exc.line, column=exc.column,
+                                                 reason=exc.reason))
                 continue
-            arch = model_of(view, file, opts.cwd, declared=opts.models)
-            out.runs.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=opts.gpus, rows=opts.rows)))
+            for doc in docs:
+                view = build_view(doc)
+                if view.skipped:
+                    continue
+                arch = model_of(view, file, opts.cwd, declared=opts.models)
+                out.runs.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=opts.gpus, rows=opts.rows)))
+        except Exception as exc:
+            if opts.debug:
+                raise
+            out.internal.append(engine.internal_error(file, None, exc))
     return out
 
 
@@ -217,7 +230,7 @@ class ConfigRejected(Exception):
         for p in problems:
             lines.append(f"  {p.file}:{p.line}:{p.column}: input error: {p.reason}")
         for e in internal:
-            lines.append(f"  {e.file}: internal error in rule {e.rule}: {e.error}")
+            lines.append(f"  {e.file}: internal error in {e.where}: {e.error}")
         for f in findings:
             where = (f"{f.file} at {f.key or '(top level)'}" if f.file.startswith("<")
                      else f"{f.file}:{f.line}:{f.column}")  # an in-memory mapping has no lines

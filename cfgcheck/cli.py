@@ -110,6 +110,52 @@ def _fail(message: str, code: int) -> None:
     raise typer.Exit(code)
 
 
+def _input_errors() -> tuple:
+    """The exceptions that mean "your input is wrong" (exit 2); anything else is our bug (exit 3)."""
+    from .baseline import BaselineError
+    from .findings import OptionError
+    from .knowledge.hardware import UnknownGpu
+    from .project import ProjectError
+
+    return (UnknownGpu, OptionError, ProjectError, BaselineError)
+
+
+def _input_message(exc: Exception) -> str:
+    """A project or baseline error is already its own file:line:column: lines."""
+    from .baseline import BaselineError
+    from .findings import printable
+    from .project import ProjectError
+
+    if isinstance(exc, (ProjectError, BaselineError)):
+        return str(exc)
+    return f"cfgcheck: {printable(str(exc))}"
+
+
+def _crash_boundary(command):
+    """Around a command: a bug anywhere outside a rule (or a file's own boundary in the engine)
+    ends as an internal error, exit 3, one line, never a traceback unless --debug asks."""
+    import functools
+
+    @functools.wraps(command)
+    def guarded(*args, **kwargs):
+        try:
+            return command(*args, **kwargs)
+        except (typer.Exit, typer.Abort):  # the command's own way out
+            raise
+        except Exception as exc:
+            if kwargs.get("debug"):
+                raise
+            from .engine import internal_error
+            from .findings import printable
+
+            e = internal_error("", None, exc)
+            hint = "run again with --debug for the traceback" if "debug" in kwargs else "please report it"
+            _write_err(f"cfgcheck: internal error: {printable(e.error)} (a bug in cfgcheck; {hint})\n")
+            raise typer.Exit(3) from None
+
+    return guarded
+
+
 def _severity_pairs(pairs: list[str]) -> dict[str, str]:
     out = {}
     for item in pairs:
@@ -148,6 +194,7 @@ def _frames(report, shown) -> dict[str, list[str]]:
 
 
 @app.command()
+@_crash_boundary
 def lint(
     paths: Optional[List[Path]] = typer.Argument(
         None, help="Config files or folders (YAML and JSON inside are checked). "
@@ -178,7 +225,7 @@ def lint(
     """Check training configs and report what would waste the run."""
     from . import api
     from .baseline import BaselineError
-    from .findings import Severity
+    from .findings import OptionError, Severity, printable
     from .knowledge.hardware import UnknownGpu
     from .project import ProjectError
     from .render import render
@@ -211,10 +258,8 @@ def lint(
             paths = [Path(".")]  # no project file: the working folder
         report = api.lint(paths or [], project=proj, progress=progress, jobs=jobs, keep_views=False,
                           baseline=False if save_baseline else baseline, **chosen)
-    except UnknownGpu as exc:
-        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
-    except ValueError as exc:
-        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
+    except (UnknownGpu, OptionError) as exc:
+        _fail(f"cfgcheck: {printable(str(exc))}", api.EXIT_INPUT)
     except (ProjectError, BaselineError) as exc:
         _fail(str(exc), api.EXIT_INPUT)
     finally:
@@ -224,11 +269,19 @@ def lint(
     if save_baseline is not None:
         from .baseline import save
 
-        n = save(report, save_baseline)
-        typer.echo(f"cfgcheck: recorded {n} finding{'s' if n != 1 else ''} in {save_baseline}", err=True)
+        try:
+            n = save(report, save_baseline)
+        except BaselineError as exc:
+            _fail(str(exc), api.EXIT_INPUT)
+        _write_err(f"cfgcheck: recorded {n} finding{'s' if n != 1 else ''} in "
+                   f"{printable(str(save_baseline))}\n")
         for p in report.problems:
-            typer.echo(f"{p.file}:{p.line}:{p.column}: input error: {p.reason}", err=True)
-        raise typer.Exit(api.EXIT_INPUT if report.problems else api.EXIT_CLEAN)
+            _write_err(f"{printable(p.file)}:{p.line}:{p.column}: input error: {printable(p.reason)}\n")
+        for e in report.internal:
+            _write_err(f"{printable(e.file)}: internal error in {e.where}: {printable(e.error)} "
+                       "(a bug in cfgcheck)\n")
+        raise typer.Exit(api.EXIT_INPUT if report.problems else
+                         api.EXIT_INTERNAL if report.internal else api.EXIT_CLEAN)
 
     level = Severity.parse((show.value if show else None) or (proj.show.word if proj and proj.show else "warning"))
     fail_on = Severity.parse((gate.value if gate else None) or (proj.gate.word if proj and proj.gate else "warning"))
@@ -251,6 +304,7 @@ def lint(
 
 
 @app.command("derive")
+@_crash_boundary
 def derive(
     paths: List[Path] = typer.Argument(..., help="Config files or folders."),
     gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use (see: cfgcheck gpus)."),
@@ -261,36 +315,37 @@ def derive(
     pictures: bool = typer.Option(True, "--pictures/--no-pictures", help="Text output: draw the learning rate over the steps (with evaluation, checkpoint and logging marks) and the memory per GPU as a bar."),
 ) -> None:
     """Show the derived run: parameters, batch, steps and the memory estimate per GPU."""
-    import json as _json
-
     from . import api
-    from .project import ProjectError
+    from .findings import json_text, printable
 
     try:
         result = api.derive(paths, gpu=gpu, gpus=gpus, rows=rows, project=None if no_project else "auto")
-    except ValueError as exc:  # an unknown GPU name
-        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
-    except ProjectError as exc:
-        _fail(str(exc), api.EXIT_INPUT)
+    except _input_errors() as exc:  # an unknown GPU name, a bad project file
+        _fail(_input_message(exc), api.EXIT_INPUT)
     if fmt is PlanFormat.json:
-        sys.stdout.write(_json.dumps({"runs": [dict(p.as_dict(), file=f) for f, p in result.runs],
-                                      "input_errors": [e.as_dict() for e in result.problems]},
-                                     indent=2) + "\n")
+        _write(json_text({"runs": [dict(p.as_dict(), file=f) for f, p in result.runs],
+                          "input_errors": [e.as_dict() for e in result.problems],
+                          "internal_errors": [e.as_dict() for e in result.internal]}) + "\n")
     else:
         from .render.plan import render_plan
 
-        for e in result.problems:
-            sys.stdout.write(f"{e.file}:{e.line}:{e.column}: input error: {e.reason}\n")
+        out = [f"{printable(e.file)}:{e.line}:{e.column}: input error: {printable(e.reason)}\n"
+               for e in result.problems]
+        out += [f"{printable(e.file)}: internal error in {e.where}: {printable(e.error)} "
+                "(a bug in cfgcheck; the other files were derived)\n" for e in result.internal]
         if pictures:
             from .render.pictures import pictures as draw
 
-            sys.stdout.write("\n".join(render_plan(f, p) + "\n" + draw(p) for f, p in result.runs))
+            out.append("\n".join(render_plan(f, p) + "\n" + draw(p) for f, p in result.runs))
         else:
-            sys.stdout.write("\n".join(render_plan(f, p) for f, p in result.runs))
-    raise typer.Exit(api.EXIT_INPUT if result.problems else api.EXIT_CLEAN)
+            out.append("\n".join(render_plan(f, p) for f, p in result.runs))
+        _write("".join(out))
+    raise typer.Exit(api.EXIT_INPUT if result.problems else
+                     api.EXIT_INTERNAL if result.internal else api.EXIT_CLEAN)
 
 
 @app.command()
+@_crash_boundary
 def fix(
     paths: List[Path] = typer.Argument(..., help="Config files or folders to fix in place."),
     diff: bool = typer.Option(False, "--diff", help="Print a unified diff of the fixes; write nothing."),
@@ -305,21 +360,29 @@ def fix(
     """Rewrite the values rules can fix, in place, keeping every other byte; each rewrite is proven first."""
     from . import api
     from . import fix as fixmod
-    from .project import ProjectError
+    from .findings import printable
 
     try:
         report = api.fix(paths, training=training, halve_batch=halve_batch,
                          write=not (diff or no_write), project=None if no_project else "auto",
                          gpu=gpu, gpus=gpus, rows=rows)
-    except ValueError as exc:  # an unknown GPU name
-        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
-    except ProjectError as exc:
-        _fail(str(exc), api.EXIT_INPUT)
+    except _input_errors() as exc:  # an unknown GPU name, a bad project file
+        _fail(_input_message(exc), api.EXIT_INPUT)
     if diff:
         sys.stdout.write("".join(f.diff() for f in report.files))
     summary = fixmod.summary_text(report, dry=diff or no_write)
     (sys.stderr if diff else sys.stdout).write(summary)
     raise typer.Exit(api.fix_exit_code(report, no_write=no_write))
+
+
+def _write_err(out: str) -> None:
+    """Like _write, on stderr."""
+    try:
+        sys.stderr.write(out)
+    except UnicodeEncodeError:
+        sys.stderr.flush()
+        sys.stderr.buffer.write(out.encode(sys.stderr.encoding or "utf-8", errors="backslashreplace"))
+    sys.stderr.flush()
 
 
 def _write(out: str) -> None:
@@ -334,6 +397,7 @@ def _write(out: str) -> None:
 
 
 @app.command("report")
+@_crash_boundary
 def report_html(
     paths: List[Path] = typer.Argument(..., help="Config files or folders."),
     out: Path = typer.Option(Path("cfgcheck-report.html"), "--out", "-o", help="The HTML file to write."),
@@ -347,18 +411,14 @@ def report_html(
     import tempfile
 
     from . import api
-    from .baseline import BaselineError
-    from .project import ProjectError
     from .render.html import render_report
 
     project = None if no_project else "auto"
     try:
         report = api.lint(paths, project=project, gpu=gpu, gpus=gpus, rows=rows)
         runs = api.derive(paths, project=project, gpu=gpu, gpus=gpus, rows=rows).runs
-    except ValueError as exc:  # an unknown GPU name
-        _fail(f"cfgcheck: {exc}", api.EXIT_INPUT)
-    except (ProjectError, BaselineError) as exc:
-        _fail(str(exc), api.EXIT_INPUT)
+    except _input_errors() as exc:  # an unknown GPU name, a bad project or baseline file
+        _fail(_input_message(exc), api.EXIT_INPUT)
     page = render_report(report, runs)
     target = out.resolve()
     try:
@@ -372,7 +432,8 @@ def report_html(
     except OSError as exc:
         _fail(f"cfgcheck: cannot write {out}: {exc.strerror or exc}", api.EXIT_INPUT)
     typer.echo(f"cfgcheck: wrote {out} ({report.linted} configs, {len(report.findings)} findings)", err=True)
-    raise typer.Exit(api.EXIT_INPUT if report.problems else api.EXIT_CLEAN)
+    raise typer.Exit(api.EXIT_INPUT if report.problems else
+                     api.EXIT_INTERNAL if report.internal else api.EXIT_CLEAN)
 
 
 @app.command("editor-server")

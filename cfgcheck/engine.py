@@ -15,7 +15,7 @@ from typing import Any, Callable, Iterable, Iterator
 from . import load as loadmod
 from .catalogue import Rule, load_catalogue
 from .checks import all_checks
-from .findings import Finding, Fix, InputProblem, InternalError, Severity
+from .findings import Finding, Fix, InputProblem, InternalError, Severity, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted
 from .view import Field, RunView, build_view
@@ -155,6 +155,7 @@ class Context:
         if what in self._judged_once:
             return
         self._judged_once.add(what)
+        data = shown_data(data)
         msg = self.rule.messages.get("cannot-judge")
         text = (msg.message if msg else "{rule}: not checked: {reason}")
         self._sink.append(
@@ -199,6 +200,7 @@ def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: t
                  variant: str, on: str, data: dict[str, Any], fix: Fix | None,
                  span=None) -> Finding:
     """The one place findings are made."""
+    data = shown_data(data)  # a huge number as its short text, in the message and in the data
     msg = rule.messages[variant]
     severity = options.severity.get(rule.id) or msg.severity or rule.severity
     return _finding(rule=rule.id, severity=severity, doc=doc, file=file, path=path, on=on,
@@ -241,14 +243,23 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport,
         except Exception as exc:  # a bug in a rule: report it and go on with the others
             if options.debug:
                 raise
-            tb = traceback.extract_tb(exc.__traceback__)[-1]
-            report.internal.append(
-                InternalError(file=file, rule=rule.id,
-                              error=f"{type(exc).__name__}: {exc} ({Path(tb.filename).name}:{tb.lineno})")
-            )
+            report.internal.append(internal_error(file, rule.id, exc))
             continue
         report.findings.extend(sink)
     _apply_waivers(waivers or [], paths, options, report, start)
+
+
+def internal_error(file: str, rule: str | None, exc: BaseException) -> InternalError:
+    """A bug in cfgcheck as a record: the exception, its message and where it was raised."""
+    frames = traceback.extract_tb(exc.__traceback__)
+    at = f" ({Path(frames[-1].filename).name}:{frames[-1].lineno})" if frames else ""
+    try:
+        text = str(exc)
+    except Exception:  # noqa: BLE001 - an exception that cannot even say what it is
+        text = "(no message)"
+    if len(text) > 500:
+        text = text[:497] + "..."
+    return InternalError(file=file, rule=rule, error=f"{type(exc).__name__}: {text}{at}")
 
 
 def _apply_waivers(waivers: list, targets: dict[int, list[tuple]], options: Options,
@@ -292,18 +303,23 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             owner = next((i for end, i in ends if line <= end), ends[-1][1] if ends else None)
             owners.setdefault(owner, []).append(w)
     for doc in docs:
-        view = build_view(doc, layout)
-        report.views.append(view)
-        if view.skipped:
-            reasons.append(view.skipped)
-            continue
-        report.layout = report.layout or view.layout.name
-        from .links import attach_linked  # the linked DeepSpeed / accelerate files
+        try:  # the crash boundary of one document: a bug here spares the other documents
+            view = build_view(doc, layout)
+            report.views.append(view)
+            if view.skipped:
+                reasons.append(view.skipped)
+                continue
+            report.layout = report.layout or view.layout.name
+            from .links import attach_linked  # the linked DeepSpeed / accelerate files
 
-        attach_linked(view, file, options.cwd)
-        mine = owners.get(doc.index, []) if len(docs) > 1 else waivers
-        lint_view(view, options, file, report, mine)
-    if not report.layout:
+            attach_linked(view, file, options.cwd)
+            mine = owners.get(doc.index, []) if len(docs) > 1 else waivers
+            lint_view(view, options, file, report, mine)
+        except Exception as exc:
+            if options.debug:
+                raise
+            report.internal.append(internal_error(file, None, exc))
+    if not report.layout and not report.internal:
         report.skipped = reasons[0] if reasons else "empty file"
     report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
     return report
@@ -313,24 +329,34 @@ def lint_text(text: str, name: str = "<text>", options: Options | None = None,
               fmt: str | None = None, layout: str | None = None) -> FileReport:
     options = options or Options()
     try:
-        docs = loadmod.load_text(text, name, fmt)
-    except LoadError as exc:
-        return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
-                                                          column=exc.column, reason=exc.reason))
-    return lint_documents(docs, name, options, layout, text)
+        try:
+            docs = loadmod.load_text(text, name, fmt)
+        except LoadError as exc:
+            return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
+                                                              column=exc.column, reason=exc.reason))
+        return lint_documents(docs, name, options, layout, text)
+    except Exception as exc:  # the crash boundary of one file: a bug in cfgcheck, exit 3
+        if options.debug:
+            raise
+        return FileReport(file=name, internal=[internal_error(name, None, exc)])
 
 
 def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
     options = options or Options()
     name = str(path)
     try:
-        if os.path.isdir(path):
-            _listable(path)
-        src = loadmod.read_source(path)
-    except LoadError as exc:
-        return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
-                                                          column=exc.column, reason=exc.reason))
-    return lint_text(src.text, name, options)
+        try:
+            if os.path.isdir(path):
+                _listable(path)
+            src = loadmod.read_source(path)
+        except LoadError as exc:
+            return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
+                                                              column=exc.column, reason=exc.reason))
+        return lint_text(src.text, name, options)
+    except Exception as exc:  # the crash boundary of one file (reading it, here)
+        if options.debug:
+            raise
+        return FileReport(file=name, internal=[internal_error(name, None, exc)])
 
 
 def walk_paths(paths: Iterable[str | Path]) -> list[tuple[str, bool]]:

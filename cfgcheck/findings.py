@@ -6,9 +6,14 @@ Both are frozen, keyword-only records. Findings are created in one place only,
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from enum import IntEnum
 from typing import Any, Mapping
+
+
+class OptionError(ValueError):
+    """An option value given by the caller that cfgcheck cannot use (an input error, exit 2)."""
 
 
 class Severity(IntEnum):
@@ -25,7 +30,92 @@ class Severity(IntEnum):
         try:
             return cls[str(text).strip().upper()]
         except KeyError:
-            raise ValueError(f"unknown severity {text!r}: use error, warning or info") from None
+            raise OptionError(f"unknown severity {text!r}: use error, warning or info") from None
+
+
+# --------------------------------------------------------------------------- huge numbers
+
+# The largest magnitude a setting may have and still be used: 2**53, beyond which a float (IEEE 754
+# binary64, what Python and the libraries compute with) no longer holds every integer exactly.
+# No count, size, rate or step of a training run comes near it. The view sets a value beyond it
+# aside (reported once by value-outside-schema), so no rule does arithmetic on it.
+MAX_MAGNITUDE = 2 ** 53
+
+
+def too_large(value: Any) -> bool:
+    """A finite number (not a boolean) beyond MAX_MAGNITUDE."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return False
+    if isinstance(value, float) and (value != value or value in (float("inf"), float("-inf"))):
+        return False  # NaN and infinities are values of their own, judged by the rules
+    return abs(value) > MAX_MAGNITUDE
+
+
+def number_text(value: Any) -> str:
+    """A number for a message, short whatever its size: a 5,000-digit integer (which Python
+    refuses to print past 4,300 digits) as "a 5,000-digit number"."""
+    if isinstance(value, int) and not isinstance(value, bool) and abs(value) >= 10 ** 30:
+        v = abs(value)
+        digits = max(1, int((v.bit_length() - 1) * 0.30102999566398120))  # log10(2), a lower bound
+        while v >= 10 ** digits:
+            digits += 1
+        return f"{'-' if value < 0 else ''}a {digits:,}-digit number"
+    return repr(value) if isinstance(value, float) else str(value)
+
+
+def _shown_data(value: Any) -> Any:
+    """Finding data with every huge number replaced by its short text (JSON and templates cannot
+    print a 5,000-digit integer, and nobody should read one)."""
+    if too_large(value):
+        return number_text(value)
+    if isinstance(value, (list, tuple)):
+        return type(value)(_shown_data(v) for v in value) if isinstance(value, list) else \
+            tuple(_shown_data(v) for v in value)
+    if isinstance(value, dict):
+        return {k: _shown_data(v) for k, v in value.items()}
+    return value
+
+
+def shown_data(data: Mapping[str, Any]) -> dict[str, Any]:
+    return {k: _shown_data(v) for k, v in data.items()}
+
+
+# --------------------------------------------------------------------------- shown text
+
+_NAMED = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
+
+
+def printable(text: str) -> str:
+    """Text for a line-based output (text, GitHub annotations, plan): every character that is not
+    printable (line breaks, escape codes, bidirectional controls, the lone surrogates of a file
+    name that is not UTF-8) as a backslash escape, so a key or a file name can never start a
+    line of its own or move the cursor. Printable text, non-ASCII letters and backslashes
+    included, is kept as it is."""
+    if text.isprintable():
+        return text
+    out = []
+    for c in text:
+        if c.isprintable():
+            out.append(c)
+        elif c in _NAMED:
+            out.append(_NAMED[c])
+        else:
+            n = ord(c)
+            out.append(f"\\x{n:02x}" if n < 0x100 else f"\\u{n:04x}" if n < 0x10000 else f"\\U{n:08x}")
+    return "".join(out)
+
+
+_SURROGATE = re.compile("[\ud800-\udfff]")
+
+
+def json_text(doc: Any, indent: int | None = 2) -> str:
+    """JSON that any UTF-8 writer can write: non-ASCII text kept readable, but a lone surrogate
+    (a file name that is not UTF-8, a JSON key written as "\\ud800") as its \\uXXXX escape, which
+    reads back as the same string. Used by every JSON output and by baselines."""
+    import json
+
+    text = json.dumps(doc, indent=indent, ensure_ascii=False)
+    return _SURROGATE.sub(lambda m: f"\\u{ord(m.group()):04x}", text)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -114,11 +204,17 @@ class InputProblem:
 
 @dataclass(frozen=True, kw_only=True)
 class InternalError:
-    """A rule raised: a bug in cfgcheck, reported apart from the findings."""
+    """A rule raised, or cfgcheck itself failed on a file outside any rule (``rule`` None):
+    a bug in cfgcheck, reported apart from the findings."""
 
     file: str
-    rule: str
+    rule: str | None
     error: str
+
+    @property
+    def where(self) -> str:
+        """``rule X`` or ``cfgcheck`` (outside the rules), for messages."""
+        return f"rule {self.rule}" if self.rule else "cfgcheck outside the rules"
 
     def as_dict(self) -> dict[str, Any]:
         return {"file": self.file, "rule": self.rule, "error": self.error}

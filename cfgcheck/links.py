@@ -36,8 +36,33 @@ def _inline(doc: Document, prefix: tuple, data: dict) -> Document:
     return Document(name=doc.name, format=doc.format, data=data, entries=entries, index=doc.index)
 
 
+class _Unusable(Exception):
+    """A link path that names no file this machine can look at: why, in words."""
+
+
+def _expand(ref: str) -> Path:
+    if ref.startswith("~"):
+        try:
+            return Path(ref).expanduser()
+        except RuntimeError:  # ~user with no such user, or no home folder at all
+            user = ref[1:].split("/", 1)[0]
+            raise _Unusable(f"{ref} cannot be found: " + (f"there is no user {user!r} (~{user})"
+                                                           if user else "the home folder (~) is not known")
+                            ) from None
+    return Path(ref)
+
+
+def _exists(p: Path) -> bool:
+    try:
+        return p.exists()
+    except (OSError, ValueError):
+        return False
+
+
 def _candidates(ref: str, file: str, cwd: Path | None) -> list[Path]:
-    given = Path(ref).expanduser()
+    if "\x00" in ref:
+        raise _Unusable(f"{ref!r} holds a NUL character; no file can have that name")
+    given = _expand(ref)
     if given.is_absolute():
         return [given]
     out = []
@@ -46,11 +71,30 @@ def _candidates(ref: str, file: str, cwd: Path | None) -> list[Path]:
     out.append((cwd or Path.cwd()) / given)
     seen, uniq = set(), []
     for p in out:
-        key = str(p.resolve()) if p.exists() else str(p)
+        try:
+            key = str(p.resolve()) if _exists(p) else str(p)
+        except (OSError, RuntimeError):  # a link loop, a name too long
+            key = str(p)
         if key not in seen:
             seen.add(key)
             uniq.append(p)
     return uniq
+
+
+def _find(candidates: list[Path]) -> tuple[Path | None, list[str]]:
+    """The first candidate that is a file, and why the others could not be looked at."""
+    why = []
+    for p in candidates:
+        try:
+            if p.is_file():
+                return p, why
+            if p.exists():  # a folder, a FIFO, a device: never opened
+                why.append(f"{p}: not a regular file; not read")
+        except OSError as exc:  # a name too long, a folder that may not be searched
+            why.append(f"{p}: {exc.strerror or exc}")
+        except ValueError as exc:
+            why.append(f"{p}: {exc}")
+    return None, why
 
 
 def attach_linked(view: RunView, file: str, cwd: Path | None = None) -> None:
@@ -82,9 +126,17 @@ def attach_linked(view: RunView, file: str, cwd: Path | None = None) -> None:
             continue
         if not ref.lower().endswith(_SUFFIXES):
             continue  # a preset name or a flag, not a file
-        found = next((p for p in _candidates(ref, file, cwd) if p.is_file()), None)
+        try:
+            candidates = _candidates(ref, file, cwd)
+        except _Unusable as exc:
+            links.append(Link(name, ref, problem=str(exc)))
+            continue
+        found, why = _find(candidates)
         if found is None:
-            where = ", ".join(str(p.parent) for p in _candidates(ref, file, cwd))
+            if why:
+                links.append(Link(name, ref, problem=f"{ref} cannot be looked up ({'; '.join(why)})"))
+                continue
+            where = ", ".join(str(p.parent) for p in candidates)
             links.append(Link(name, ref, problem=f"{ref} was not found (looked in {where})"))
             continue
         try:

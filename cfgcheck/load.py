@@ -164,12 +164,10 @@ _BOMS = (
 )
 
 
-def decode(raw: bytes, name: str) -> Source:
+def decode(raw: bytes, name: str, limit: int = MAX_FILE_BYTES, what: str = "a config file") -> Source:
     """Decode a file's bytes; UTF-8 by default, UTF-16/32 when a BOM says so."""
-    if len(raw) > MAX_FILE_BYTES:
-        raise LoadError(
-            f"file is {len(raw):,} bytes, over the {MAX_FILE_BYTES:,}-byte limit for a config file"
-        )
+    if len(raw) > limit:
+        raise LoadError(f"file is {len(raw):,} bytes, over the {limit:,}-byte limit for {what}")
     encoding, bom = "utf-8", False
     for mark, enc in _BOMS:
         if raw.startswith(mark):
@@ -194,7 +192,7 @@ def decode(raw: bytes, name: str) -> Source:
     return Source(name=name, text=text, encoding=encoding, bom=bom, newline=newline)
 
 
-def read_source(path: str | Path) -> Source:
+def read_source(path: str | Path, limit: int = MAX_FILE_BYTES, what: str = "a config file") -> Source:
     """Read a regular file, never more than the size limit (a FIFO or /dev/zero cannot hang us)."""
     p = Path(path)
     try:
@@ -203,12 +201,10 @@ def read_source(path: str | Path) -> Source:
             raise LoadError("is a folder, not a file")
         if not stat.S_ISREG(st.st_mode):
             raise LoadError("not a regular file (a device, pipe or socket); not read")
-        if st.st_size > MAX_FILE_BYTES:
-            raise LoadError(
-                f"file is {st.st_size:,} bytes, over the {MAX_FILE_BYTES:,}-byte limit for a config file"
-            )
+        if st.st_size > limit:
+            raise LoadError(f"file is {st.st_size:,} bytes, over the {limit:,}-byte limit for {what}")
         with open(p, "rb") as fh:
-            raw = fh.read(MAX_FILE_BYTES + 1)  # the file may grow after stat
+            raw = fh.read(limit + 1)  # the file may grow after stat
     except LoadError:
         raise
     except IsADirectoryError:
@@ -221,7 +217,7 @@ def read_source(path: str | Path) -> Source:
         raise LoadError("permission denied") from None
     except OSError as exc:
         raise LoadError(f"cannot read: {exc.strerror or exc}") from None
-    return decode(raw, str(path))
+    return decode(raw, str(path), limit, what)
 
 
 # --------------------------------------------------------------------------- format choice

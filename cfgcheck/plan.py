@@ -173,8 +173,10 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
                 model_ref=ref if isinstance(ref, str) else None, arch=arch, gpu=gpu)
     sched = derive_for(view, gpus=gpus, rows=rows)
     plan.schedule = sched
+    aside = {f.name for f in view.out_of_range}  # written, but past any run's range
     for name in sched.defaults_used:
-        plan.assumptions.append(f"{name} not set: the trainer default")
+        plan.assumptions.append(f"{name} {'out of range, set aside' if name in aside else 'not set'}: "
+                                "the trainer default")
     seq = view.value("data.seq_len")
     if not isinstance(seq, int) or seq <= 0:
         seq, plan.seq_len_assumed = DEFAULT_SEQ_LEN, True

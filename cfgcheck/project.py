@@ -23,7 +23,8 @@ from pathlib import Path
 from typing import Any, Iterable
 
 from .engine import Options, walk_paths
-from .findings import Severity
+from .load import dotted
+from .findings import MAX_MAGNITUDE, Severity, printable
 from .waivers import ProjectWaiver
 
 YAML_NAME = "cfgcheck.yaml"
@@ -69,8 +70,8 @@ SCHEMA: dict[str, Any] = {
                 "properties": {
                     "paths": _GLOB_OR_GLOBS,
                     "gpu": {"type": "string", "minLength": 1},
-                    "gpus": {"type": "integer", "minimum": 1},
-                    "rows": {"type": "integer", "minimum": 1},
+                    "gpus": {"type": "integer", "minimum": 1, "maximum": MAX_MAGNITUDE},
+                    "rows": {"type": "integer", "minimum": 1, "maximum": MAX_MAGNITUDE},
                 },
             },
         },
@@ -120,54 +121,220 @@ SCHEMA: dict[str, Any] = {
 }
 
 
+MAX_GLOB = 1_000  # characters in one glob of the project file
+
+
+def _show(value: Any) -> str:
+    """A value of the project file, quoted, short, on one line, whatever it holds."""
+    try:
+        text = repr(value)
+    except ValueError:  # an integer too long to print
+        text = f"a {type(value).__name__}"
+    return text if len(text) <= 80 else text[:77] + "..."
+
+
 class ProjectError(Exception):
     """The project configuration is wrong: one or more (file, line, column, reason)."""
 
     def __init__(self, problems: list[tuple[str, int, int, str]]):
-        self.problems = sorted(problems, key=lambda p: (p[1], p[2]))
-        super().__init__("\n".join(f"{f}:{line}:{col}: project config: {r}"
+        self.problems = sorted(((f, line, col, _short(r)) for f, line, col, r in problems),
+                               key=lambda p: (p[1], p[2]))
+        super().__init__("\n".join(f"{printable(f)}:{line}:{col}: project config: {printable(r)}"
                                    for f, line, col, r in self.problems))
+
+
+def _short(reason: str, limit: int = 300) -> str:
+    return reason if len(reason) <= limit else reason[:limit - 3] + "..."
 
 
 # --------------------------------------------------------------------------- globs
 
-def glob_regex(pattern: str) -> re.Pattern:
-    """A path glob: ``*`` and ``?`` stay inside one folder, ``**`` spans folders, ``[..]`` sets."""
-    pat = pattern.strip().replace("\\", "/")
-    if pat.startswith("./"):
-        pat = pat[2:]
-    out, i = "", 0
-    while i < len(pat):
-        c = pat[i]
-        if pat.startswith("**/", i):
-            out += "(?:.*/)?"
-            i += 3
-        elif pat.startswith("**", i):
-            out += ".*"
-            i += 2
-        elif c == "*":
-            out += "[^/]*"
-            i += 1
-        elif c == "?":
-            out += "[^/]"
-            i += 1
-        elif c == "[":
-            j = pat.find("]", i + 1)
-            if j == -1:
-                out += re.escape(c)
+class GlobError(ValueError):
+    """A glob that cannot be read; ``reason`` in words, ``offset`` the character it points at."""
+
+    def __init__(self, reason: str, offset: int = 0):
+        self.reason, self.offset = reason, offset
+        super().__init__(reason)
+
+
+# the character classes of POSIX bracket expressions that a glob may use inside [...]
+_POSIX_CLASSES = {
+    "alpha": str.isalpha, "digit": str.isdigit, "alnum": str.isalnum, "upper": str.isupper,
+    "lower": str.islower, "space": str.isspace,
+    "punct": lambda c: c.isascii() and not c.isalnum() and c.isprintable() and not c.isspace(),
+    "xdigit": lambda c: c in "0123456789abcdefABCDEF",
+}
+
+_STEP_CACHE = 200_000  # positions held by one glob's memo of steps (a few MiB); cleared past it
+
+# token kinds of a compiled glob
+_LIT, _ONE, _SET, _STAR, _ANY, _DIRS, _IN_DIRS = range(7)
+
+
+def _parse_set(pat: str, i: int) -> tuple[tuple, int]:
+    """``[...]`` starting at ``pat[i] == "["`` -> ((negated, chars, ranges, classes), end)."""
+    j = i + 1
+    negated = j < len(pat) and pat[j] in "!^"
+    if negated:
+        j += 1
+    chars: set[str] = set()
+    ranges: list[tuple[str, str]] = []
+    classes: list = []
+    first = True
+    while True:
+        if j >= len(pat):
+            raise GlobError("a '[' set is not closed by ']'", i)
+        c = pat[j]
+        if c == "]" and not first:
+            break
+        first = False
+        if pat.startswith("[:", j):
+            end = pat.find(":]", j + 2)
+            if end == -1:
+                raise GlobError("a '[:' class is not closed by ':]'", j)
+            name = pat[j + 2:end]
+            if name not in _POSIX_CLASSES:
+                raise GlobError(f"unknown character class [:{name}:] (known: "
+                                + ", ".join(sorted(_POSIX_CLASSES)) + ")", j)
+            classes.append(_POSIX_CLASSES[name])
+            j = end + 2
+            continue
+        if j + 2 < len(pat) and pat[j + 1] == "-" and pat[j + 2] != "]":
+            lo, hi = c, pat[j + 2]
+            if lo > hi:
+                raise GlobError(f"the range {lo}-{hi} in a '[' set runs backwards", j)
+            ranges.append((lo, hi))
+            j += 3
+            continue
+        chars.add(c)
+        j += 1
+    return (negated, frozenset(chars), tuple(ranges), tuple(classes)), j + 1
+
+
+def _in_set(spec: tuple, c: str) -> bool:
+    negated, chars, ranges, classes = spec
+    hit = c in chars or any(lo <= c <= hi for lo, hi in ranges) or any(f(c) for f in classes)
+    return hit != negated
+
+
+class Glob:
+    """A path glob: ``*`` and ``?`` stay inside one folder, ``**`` spans folders, ``**/`` is any
+    number of whole folders (none included), ``[..]`` a set (``[!..]`` or ``[^..]`` its
+    complement, ranges ``a-z``, classes ``[:alpha:]``), a trailing ``/`` everything below.
+
+    Matching runs the pattern as a set of positions over the path, one step per character, so
+    its time is at most (path length) x (pattern length) whatever the pattern: no backtracking.
+    """
+
+    def __init__(self, pattern: str):
+        self.pattern = pattern
+        pat = pattern.strip().replace("\\", "/")
+        if pat.startswith("./"):
+            pat = pat[2:]
+        tokens: list[tuple[int, Any]] = []
+        i = 0
+        while i < len(pat):
+            c = pat[i]
+            if pat.startswith("**/", i):
+                if not (tokens and tokens[-1][0] == _IN_DIRS):  # **/**/ is one **/
+                    tokens += [(_DIRS, None), (_IN_DIRS, None)]
+                i += 3
+            elif pat.startswith("**", i):
+                if not (tokens and tokens[-1][0] == _ANY):
+                    tokens.append((_ANY, None))
+                i += 2
+            elif c == "*":
+                if not (tokens and tokens[-1][0] in (_STAR, _ANY)):
+                    tokens.append((_STAR, None))
                 i += 1
+            elif c == "?":
+                tokens.append((_ONE, None))
+                i += 1
+            elif c == "[":
+                spec, i = _parse_set(pat, i)
+                tokens.append((_SET, spec))
             else:
-                body = pat[i + 1:j]
-                if body.startswith("!"):
-                    body = "^" + body[1:]
-                out += "[" + body.replace("\\", "\\\\") + "]"
-                i = j + 1
-        else:
-            out += re.escape(c)
-            i += 1
-    if pat.endswith("/"):
-        out += ".*"
-    return re.compile(out + r"\Z")
+                tokens.append((_LIT, c))
+                i += 1
+        if pat.endswith("/"):
+            tokens.append((_ANY, None))
+        self._tokens = tokens
+        self._start = self._closure({0})
+        self._steps: dict[tuple[frozenset[int], str], frozenset[int]] = {}
+        self._cached = 0
+
+    def _closure(self, states: set[int]) -> frozenset[int]:
+        """Add the positions reachable without reading a character."""
+        tokens, todo, out = self._tokens, list(states), set(states)
+        while todo:
+            s = todo.pop()
+            if s >= len(tokens):
+                continue
+            kind = tokens[s][0]
+            nxt = ()
+            if kind in (_STAR, _ANY):
+                nxt = (s + 1,)
+            elif kind == _DIRS:  # skip the folders, or start reading them
+                nxt = (s + 1, s + 2)
+            for n in nxt:
+                if n not in out:
+                    out.add(n)
+                    todo.append(n)
+        return frozenset(out)
+
+    def match(self, path: str) -> bool:
+        end = len(self._tokens)
+        states = self._start
+        cache = self._steps
+        for c in path:
+            nxt = cache.get((states, c))
+            if nxt is None:
+                nxt = self._step(states, c)
+                self._cached += len(states) + len(nxt)
+                if self._cached > _STEP_CACHE:  # bounded memory: start the memo afresh
+                    cache.clear()
+                    self._cached = 0
+                cache[(states, c)] = nxt
+            if not nxt:
+                return False
+            states = nxt
+        return end in states
+
+    def _step(self, states: frozenset[int], c: str) -> frozenset[int]:
+        """The positions after reading ``c`` (memoised by ``match``: a path mostly repeats them)."""
+        tokens, end = self._tokens, len(self._tokens)
+        step: set[int] = set()
+        for s in states:
+            if s >= end:
+                continue
+            kind, arg = tokens[s]
+            if kind == _LIT:
+                if c == arg:
+                    step.add(s + 1)
+            elif kind == _ONE:
+                if c != "/":
+                    step.add(s + 1)
+            elif kind == _SET:
+                if _in_set(arg, c):
+                    step.add(s + 1)
+            elif kind == _STAR:
+                if c != "/":
+                    step.add(s)
+            elif kind == _ANY:
+                step.add(s)
+            elif kind == _IN_DIRS:  # inside the folders: a '/' may end them
+                step.add(s)
+                if c == "/":
+                    step.add(s + 1)
+        return self._closure(step) if step else frozenset()
+
+    def __repr__(self) -> str:
+        return f"Glob({self.pattern!r})"
+
+
+def compile_glob(pattern: str) -> Glob:
+    """Raises GlobError (with the offset in the pattern) for a set or class that cannot be read."""
+    return Glob(pattern)
 
 
 def _globs(value: Any) -> tuple[str, ...]:
@@ -176,7 +343,7 @@ def _globs(value: Any) -> tuple[str, ...]:
     return (value,) if isinstance(value, str) else tuple(value)
 
 
-def matches(rel: str, globs: Iterable[re.Pattern]) -> bool:
+def matches(rel: str, globs: Iterable[Glob]) -> bool:
     return any(g.match(rel) for g in globs)
 
 
@@ -184,7 +351,7 @@ def matches(rel: str, globs: Iterable[re.Pattern]) -> bool:
 
 @dataclass
 class Profile:
-    globs: tuple[re.Pattern, ...]
+    globs: tuple[Glob, ...]
     gpu: Any = None  # a knowledge.hardware.Gpu
     gpus: int | None = None
     rows: int | None = None
@@ -195,14 +362,14 @@ class Project:
     source: Path  # the file it was read from
     root: Path  # the folder holding it; globs are relative to it
     data: dict[str, Any]
-    configs: tuple[re.Pattern, ...] = ()
-    exclude: tuple[re.Pattern, ...] = ()
+    configs: tuple[Glob, ...] = ()
+    exclude: tuple[Glob, ...] = ()
     only: frozenset[str] | None = None
     skip: frozenset[str] = frozenset()
     severity: dict[str, Severity] = field(default_factory=dict)
     thresholds: dict[str, dict[str, Any]] = field(default_factory=dict)
     profiles: list[Profile] = field(default_factory=list)
-    waivers: list[tuple[tuple[re.Pattern, ...], ProjectWaiver]] = field(default_factory=list)
+    waivers: list[tuple[tuple[Glob, ...], ProjectWaiver]] = field(default_factory=list)
     gate: Severity | None = None
     show: Severity | None = None
     baseline: Path | None = None
@@ -301,9 +468,11 @@ _TABLE_LINE = re.compile(r"^\s*\[\[?\s*tool\s*\.\s*cfgcheck\s*[\].]", re.M)
 
 
 def _mentions_table(path: Path) -> bool:
+    from .load import LoadError, read_source
+
     try:
-        text = path.read_text(encoding="utf-8", errors="replace")
-    except OSError:
+        text = read_source(path).text  # guarded: never a FIFO, a device or an endless file
+    except LoadError:
         return False
     return bool(_TABLE_LINE.search(text)) or bool(
         re.search(r"^\s*\[\s*tool\s*\]\s*$(?:(?!^\s*\[).)*^\s*cfgcheck\s*[.=]", text, re.M | re.S))
@@ -321,10 +490,12 @@ def load(path: str | Path) -> Project:
     """Read, validate and resolve a project file; raises ProjectError with positions."""
     path = Path(os.path.abspath(path))
     name = str(path)
+    from .load import LoadError, read_source
+
     try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ProjectError([(name, 1, 1, f"cannot read: {exc}")]) from None
+        text = read_source(path).text  # guarded: never a FIFO, a device or an endless file
+    except LoadError as exc:
+        raise ProjectError([(name, exc.line, exc.column, f"cannot read: {exc.reason}")]) from None
     if path.suffix == ".toml":
         data, locate = _read_toml(text, name)
     else:
@@ -452,15 +623,15 @@ def _validate(data: Any, name: str, locate) -> None:
         where = ".".join(str(p) for p in path) or "(top level)"
         if err.validator == "additionalProperties" and isinstance(err.instance, dict):
             allowed = set(err.schema.get("properties", {}))
-            for extra in sorted(k for k in err.instance if k not in allowed):
+            for extra in sorted((k for k in err.instance if k not in allowed), key=str):
                 near = difflib.get_close_matches(str(extra), sorted(allowed), n=1)
                 hint = f"; did you mean {near[0]}?" if near else f"; known: {', '.join(sorted(allowed))}"
                 line, col = locate(path + (extra,), True)
-                problems.append((name, line, col, f"{where}: unknown key {extra!r}{hint}"))
+                problems.append((name, line, col, f"{where}: unknown key {_show(extra)}{hint}"))
             continue
         if err.validator == "propertyNames":
             line, col = locate(path + (err.instance,), True)
-            problems.append((name, line, col, f"{where}: {err.instance!r} is not a rule id (lowercase words joined by '-')"))
+            problems.append((name, line, col, f"{where}: {_show(err.instance)} is not a rule id (lowercase words joined by '-')"))
             continue
         line, col = locate(path)
         problems.append((name, line, col, f"{where}: {err.message}"))
@@ -484,6 +655,23 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
         problems.append((name, line, col, f"no rule {rule!r}" + (f"; did you mean {near[0]}?" if near else
                                                                    " (see: cfgcheck rules)")))
         return False
+
+    def globs(value: Any, at: tuple) -> tuple[Glob, ...]:
+        out = []
+        for i, pattern in enumerate(_globs(value)):
+            where = at + (i,) if not isinstance(value, str) else at
+            if len(pattern) > MAX_GLOB:
+                line, col = locate(where)
+                problems.append((name, line, col, f"{dotted(where)}: a glob of {len(pattern):,} "
+                                 f"characters; the limit is {MAX_GLOB:,}"))
+                continue
+            try:
+                out.append(compile_glob(pattern))
+            except GlobError as exc:
+                line, col = locate(where)
+                problems.append((name, line, col, f"{dotted(where)}: glob {_show(pattern)}: {exc.reason} "
+                                 f"(at character {exc.offset + 1})"))
+        return tuple(out)
 
     rules_sec = data.get("rules") or {}
     only = None
@@ -526,20 +714,20 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
             except UnknownGpu as exc:
                 line, col = locate(("profiles", i, "gpu"))
                 problems.append((name, line, col, str(exc)))
-        profiles.append(Profile(globs=tuple(glob_regex(g) for g in _globs(prof["paths"])), gpu=gpu,
+        profiles.append(Profile(globs=globs(prof["paths"], ("profiles", i, "paths")), gpu=gpu,
                                 gpus=prof.get("gpus"), rows=prof.get("rows")))
     waivers = []
     for i, w in enumerate(data.get("waive") or []):
         if rule_known(w["rule"], ("waive", i, "rule")):
-            waivers.append((tuple(glob_regex(g) for g in _globs(w["files"])),
+            waivers.append((globs(w["files"], ("waive", i, "files")),
                             ProjectWaiver(rule=w["rule"], reason=w["reason"].strip(), key=w.get("key"))))
+    configs = globs(data.get("configs"), ("configs",))
+    exclude = globs(data.get("exclude"), ("exclude",))
     if problems:
         raise ProjectError(problems)
     root = path.parent
     return Project(
-        source=path, root=root, data=data,
-        configs=tuple(glob_regex(g) for g in data.get("configs") or ()),
-        exclude=tuple(glob_regex(g) for g in data.get("exclude") or ()),
+        source=path, root=root, data=data, configs=configs, exclude=exclude,
         only=only, skip=skip, severity=severity, thresholds=thresholds, profiles=profiles,
         waivers=waivers,
         gate=Severity.parse(data["gate"]) if "gate" in data else None,

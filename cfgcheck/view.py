@@ -10,6 +10,7 @@ import re
 from dataclasses import dataclass, field
 from typing import Any
 
+from .findings import too_large
 from .layouts import BY_NAME, FIELD_TYPES, LAYOUTS, NOT_TRAINING, Layout
 from .load import Document, dotted
 
@@ -59,6 +60,8 @@ class RunView:
     method_stated: bool = False
     method_field: Field | None = None
     type_problems: list[TypeProblem] = field(default_factory=list)
+    # numbers beyond findings.MAX_MAGNITUDE: written, but set aside (their Field's value is None)
+    out_of_range: list[Field] = field(default_factory=list)
     skipped: str | None = None  # why this document is not a training config
     attached: list["RunView"] = field(default_factory=list)  # configs this one points to
     cache: dict = field(default_factory=dict)  # knowledge looked up once per view (the model)
@@ -197,9 +200,12 @@ def _add(view: RunView, name: str, path: tuple, written: Any) -> None:
         if resolved:
             source = value
     value, ok, auto, from_text = _coerce(name, source)
-    f = Field(name=name, value=value if ok else None, path=path, written=written,
+    huge = ok and too_large(value)  # no rule does arithmetic on a number past any run's range
+    f = Field(name=name, value=value if ok and not huge else None, path=path, written=written,
               auto=auto, from_text=from_text)
     view.fields[name] = f
+    if huge:
+        view.out_of_range.append(f)
     if not ok:
         view.type_problems.append(TypeProblem(f, FIELD_TYPES.get(name, "any")))
 

@@ -71,8 +71,8 @@ def test_bad_baseline_files(tmp_path):
     with pytest.raises(BaselineError, match="not a cfgcheck baseline"):
         baselinemod.load(tmp_path / "x.json")
     (tmp_path / "y.json").write_text("{")
-    with pytest.raises(BaselineError, match="line 1, column 2"):
-        baselinemod.load(tmp_path / "y.json")
+    with pytest.raises(BaselineError, match=r"y\.json:1:2: baseline: invalid JSON"):
+        baselinemod.load(tmp_path / "y.json")  # where the json module places the error
 
 
 def test_cli_save_then_compare(tmp_path):

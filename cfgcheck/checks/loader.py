@@ -60,15 +60,35 @@ def yaml_version_dependent(ctx) -> None:
                        number=amb.yaml12, replacement=new)
         elif amb.kind == "word-boolean":
             new = "true" if amb.yaml11 else "false"
-            fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
-                      edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.yaml11),))
-            ctx.report(amb.path, "word-boolean", fix=fix, key=key, raw=amb.raw,
-                       replacement=new)
+            kind = _setting_kind(ctx.view, amb.path)
+            if kind == "bool":
+                fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
+                          edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.yaml11),))
+                ctx.report(amb.path, "word-boolean", fix=fix, key=key, raw=amb.raw,
+                           replacement=new)
+            elif kind == "text":
+                # a text setting: PyYAML readers get the boolean, YAML 1.2 readers the text; no
+                # rewrite keeps both readings, so no fix: the hint says to quote it
+                ctx.report(amb.path, "word-boolean-text", key=key, raw=amb.raw, boolean=new)
+            else:  # a setting cfgcheck does not type: say both, change nothing
+                ctx.report(amb.path, "word-boolean-unknown", key=key, raw=amb.raw,
+                           replacement=new)
         elif amb.kind == "leading-zero-octal":
             ctx.report(amb.path, "leading-zero-octal", key=key, raw=amb.raw,
                        yaml11=amb.yaml11, yaml12=amb.yaml12)
         else:
             ctx.report(amb.path, "base-60", key=key, raw=amb.raw, yaml11=amb.yaml11)
+
+
+def _setting_kind(view, path: tuple) -> str | None:
+    """"bool" or "text" for a key the view reads with that type, else None (not known)."""
+    from ..layouts import FIELD_TYPES
+
+    for name, f in view.fields.items():
+        if tuple(f.path) == tuple(path):
+            kind = FIELD_TYPES.get(name)
+            return "bool" if kind == "bool" else "text" if kind in ("str", "names") else None
+    return None
 
 
 _EXPECTED = {

@@ -2,10 +2,21 @@
 
 from __future__ import annotations
 
+from ..findings import MAX_MAGNITUDE, number_text
 from ..schema import violations
 from . import check
 
 _WORDS = {"below": "below the minimum", "not-above": "not above", "at-or-above": "at or above the limit"}
+
+
+# plain words that YAML 1.1 (PyYAML) reads as a boolean or null (yaml.org/type/bool.html, null.html)
+_NOT_TEXT = {"y", "n", "yes", "no", "on", "off", "true", "false", "null", "~", ""}
+
+
+def yaml_word(word) -> str:
+    """An accepted word as it must be written: quoted when a bare one would not be text."""
+    text = str(word)
+    return f'"{text}"' if isinstance(word, str) and text.lower() in _NOT_TEXT else text
 
 
 @check("value-outside-schema")
@@ -13,6 +24,8 @@ def value_outside_schema(ctx) -> None:
     view = ctx.view
     layout = view.layout.name if view.layout is not None else None
     ambiguous = {a.path for a in ctx.doc.ambiguities}  # yaml-version-dependent-value says it
+    for f in view.out_of_range:  # set aside by the view: no other rule uses these
+        ctx.report(f, "too-large", key=f.key, value=number_text(f.written), limit=f"{MAX_MAGNITUDE:,}")
     for name, f in view.fields.items():
         if f.value is None or f.auto or f.path in ambiguous:
             continue
@@ -20,8 +33,9 @@ def value_outside_schema(ctx) -> None:
             if v.problem == "not-one-of":
                 import difflib
 
-                words = [str(w) for w in v.bound]
-                near = difflib.get_close_matches(str(f.value), words, n=1, cutoff=0.6)
+                words = [yaml_word(w) for w in v.bound]
+                near = difflib.get_close_matches(str(f.value), [str(w) for w in v.bound], n=1, cutoff=0.6)
+                near = [yaml_word(w) for w in near]
                 ctx.report(f, "not-one-of", key=f.key, value=f.value, count=len(words),
                            suggestion=f"did you mean {near[0]}? " if near else "",
                            choices=", ".join(words[:12]) + (", ..." if len(words) > 12 else ""),

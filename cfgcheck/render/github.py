@@ -7,13 +7,14 @@ documented workflow-command format: in the message ``%``, CR and LF become ``%25
 
 from __future__ import annotations
 
-from ..findings import Severity
+from ..findings import Severity, printable
 from .text import summary_line
 
 COMMAND = {Severity.ERROR: "error", Severity.WARNING: "warning", Severity.INFO: "notice"}
 
 
 def escape_data(text: str) -> str:
+    """Escape a message (which may hold the line breaks cfgcheck puts there itself)."""
     return text.replace("%", "%25").replace("\r", "%0D").replace("\n", "%0A")
 
 
@@ -22,19 +23,22 @@ def escape_property(text: str) -> str:
 
 
 def _line(command: str, file: str, line: int, column: int, title: str, message: str) -> str:
-    props = f"file={escape_property(file)},line={line},col={column},title={escape_property(title)}"
+    # the file name is made printable first (as in text output), then escaped for the command
+    props = (f"file={escape_property(printable(file))},line={line},col={column},"
+             f"title={escape_property(title)}")
     return f"::{command} {props}::{escape_data(message)}"
 
 
 def render(report, visible, *, hidden_info: int = 0, **_) -> str:
     lines = []
     for p in report.problems:
-        lines.append(_line("error", p.file, p.line, p.column, "cfgcheck input error", p.reason))
+        lines.append(_line("error", p.file, p.line, p.column, "cfgcheck input error", printable(p.reason)))
     for f in visible:
-        message = f.message + (f"\nhint: {f.hint}" if f.hint else "")
+        # each piece printable on its own, so only cfgcheck's own line break separates them
+        message = printable(f.message) + (f"\nhint: {printable(f.hint)}" if f.hint else "")
         lines.append(_line(COMMAND[f.severity], f.file, f.line, f.column, f"cfgcheck {f.rule}", message))
     for e in report.internal:
         lines.append(f"::error title={escape_property('cfgcheck internal error')}::"
-                     + escape_data(f"{e.file}: rule {e.rule} failed: {e.error} (a bug in cfgcheck)"))
+                     + escape_data(printable(f"{e.file}: {e.where} failed: {e.error} (a bug in cfgcheck)")))
     lines.append(summary_line(report, hidden_info))
     return "\n".join(lines) + "\n"

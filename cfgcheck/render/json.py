@@ -2,10 +2,8 @@
 
 from __future__ import annotations
 
-import json
-
 from .. import __version__
-from ..findings import Severity
+from ..findings import Severity, json_text
 
 
 def render(report, visible, **_) -> str:
@@ -33,4 +31,4 @@ def render(report, visible, **_) -> str:
         "waived": [dict(f.as_dict(), reason=reason, waived_by=kind)
                    for fr in report.files for f, reason, kind in fr.waived],
     }
-    return json.dumps(doc, indent=2, ensure_ascii=False) + "\n"
+    return json_text(doc) + "\n"

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from ..findings import printable
 from ..plan import Plan
 
 GB = 1e9
@@ -67,11 +68,12 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
     if plan.cadence:
         rows.append(("cadence", ", ".join(f"{k} every {v} steps" for k, v in plan.cadence.items())))
     width = max(len(k) for k, _ in rows)
-    out = [file]
-    out += [f"  {k:<{width}}  {v}" for k, v in rows]
+    # names and values come from the file: printable, so none can start a line of its own
+    out = [printable(file)]
+    out += [f"  {k:<{width}}  {printable(v)}" for k, v in rows]
     m = plan.memory
     if m is None:
-        out.append(f"  {'memory':<{width}}  not estimated: {plan.memory_problem}")
+        out.append(f"  {'memory':<{width}}  not estimated: {printable(str(plan.memory_problem))}")
     else:
         cap = plan.capacity_bytes
         head = f"{m.total_bytes / GB:.1f} GB per GPU"
@@ -88,5 +90,5 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
         if cap:
             out.append(f"    {'capacity':<20} {cap / GB:7.1f} GB  " + "|" * round(_BAR * cap / scale))
     for a in plan.assumptions:
-        out.append(f"  assumed: {a}")
+        out.append(f"  assumed: {printable(a)}")
     return "\n".join(out) + "\n"

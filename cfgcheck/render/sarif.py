@@ -9,27 +9,36 @@ Columns count Unicode code points (``columnKind``), as cfgcheck's columns do.
 from __future__ import annotations
 
 import hashlib
-import json
+import os
 from urllib.parse import quote
 
 from .. import __version__
 from ..catalogue import load_catalogue
-from ..findings import Severity
+from ..findings import Severity, json_text
 
 SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
 FINGERPRINT = "cfgcheck/identity/v1"
 LEVEL = {Severity.ERROR: "error", Severity.WARNING: "warning", Severity.INFO: "note"}
 
 
+def _bytes(text: str) -> bytes:
+    """A file name's bytes: as the file system holds them (a name that is not UTF-8 included)."""
+    try:
+        return os.fsencode(text)
+    except UnicodeEncodeError:  # a lone surrogate that is not an undecodable byte
+        return text.encode("utf-8", "surrogatepass")
+
+
 def uri(file: str) -> str:
-    """A relative (or absolute-path) URI reference for a file name as cfgcheck reports it."""
-    return quote(file.replace("\\", "/"), safe="/:@!$&'()*+,;=-._~")
+    """A relative (or absolute-path) URI reference for a file name as cfgcheck reports it; a name
+    that is not UTF-8 is percent-encoded byte by byte (RFC 3986 sec. 2.1)."""
+    return quote(_bytes(file.replace("\\", "/")), safe="/:@!$&'()*+,;=-._~")
 
 
 def fingerprint(finding) -> str:
     rule, file, key, values = finding.identity()
     text = "\x1f".join((rule, file.replace("\\", "/"), key, values))
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    return hashlib.sha256(text.encode("utf-8", "surrogatepass")).hexdigest()
 
 
 def _rule(rule) -> dict:
@@ -100,7 +109,7 @@ def render(report, visible, *, rules=None, **_) -> str:
     for e in report.internal:
         notifications.append({
             "level": "error",
-            "message": {"text": f"internal error in rule {e.rule}: {e.error}"},
+            "message": {"text": f"internal error in {e.where}: {e.error}"},
             "locations": [{"physicalLocation": {"artifactLocation": {"uri": uri(e.file)}}}],
         })
     run = {
@@ -112,4 +121,4 @@ def render(report, visible, *, rules=None, **_) -> str:
         "results": results,
     }
     doc = {"$schema": SCHEMA_URI, "version": "2.1.0", "runs": [run]}
-    return json.dumps(doc, indent=2, ensure_ascii=False) + "\n"
+    return json_text(doc) + "\n"

@@ -7,7 +7,7 @@ Options (all off by default, so piped output stays plain): ``color`` (ANSI SGR c
 
 from __future__ import annotations
 
-from ..findings import Severity
+from ..findings import Severity, printable
 
 _SGR = {"error": "1;31", "warning": "1;33", "info": "1;36", "where": "1", "rule": "2",
         "hint": "32", "mark": "1;4", "summary": "1"}
@@ -104,22 +104,26 @@ def render(report, visible, *, hidden_info: int = 0, color: bool = False,
     if mode == "summary":
         return summary_line(report, hidden_info) + "\n"
     lines: list[str] = []
+    # every text that comes from a file (names, keys, values inside messages) goes through
+    # printable(): a key holding a line break cannot print a line that looks like a finding
     for p in report.problems:
-        lines.append(f"{_paint(f'{p.file}:{p.line}:{p.column}:', 'where', color)} "
-                     f"{_paint('input error', 'error', color)}: {p.reason}")
+        lines.append(f"{_paint(f'{printable(p.file)}:{p.line}:{p.column}:', 'where', color)} "
+                     f"{_paint('input error', 'error', color)}: {printable(p.reason)}")
     for f in visible:
         word = f.severity.word
-        lines.append(f"{_paint(f'{f.file}:{f.line}:{f.column}:', 'where', color)} "
-                     f"{_paint(word, word, color)}: {f.message} {_paint(f'[{f.rule}]', 'rule', color)}")
+        lines.append(f"{_paint(f'{printable(f.file)}:{f.line}:{f.column}:', 'where', color)} "
+                     f"{_paint(word, word, color)}: {printable(f.message)} "
+                     f"{_paint(f'[{f.rule}]', 'rule', color)}")
         if mode == "quiet":
             continue
         if frames is not None and f.file in frames:
             lines.extend(frame(frames[f.file], f.line, f.column, color))
         if f.hint:
-            lines.append(f"    {_paint('hint', 'hint', color)}: {f.hint}")
+            lines.append(f"    {_paint('hint', 'hint', color)}: {printable(f.hint)}")
     for e in report.internal:
-        lines.append(f"{e.file}: internal error in rule {e.rule}: {e.error} (a bug in cfgcheck; "
-                     "the other rules ran)")
+        rest = "the other rules ran" if e.rule else "the other files were checked"
+        lines.append(f"{printable(e.file)}: internal error in {e.where}: {printable(e.error)} "
+                     f"(a bug in cfgcheck; {rest})")
     if mode != "quiet":
         lines.append(_paint(summary_line(report, hidden_info), "summary", color))
     return "\n".join(lines) + "\n" if lines else ""
