@@ -593,10 +593,11 @@ def match_catalogue(ref: str) -> Architecture | None:
     if hits:
         n = max(h[0] for h in hits)
         top = {h[1].id: h[1] for h in hits if h[0] == n}
-        shapes = {replace(e.arch, max_position_embeddings=None) for e in top.values()}
+        # entries that differ only in context window or stored dtype are one parameter shape
+        shapes = {replace(e.arch, max_position_embeddings=None, torch_dtype=None, source="") for e in top.values()}
         if len(shapes) == 1:
             e = next(iter(top.values()))
-            shared = sorted(next(t for t, x in token_rows if x is e))
+            shared = sorted(max((t for t, x in token_rows if x is e and t <= toks), key=len))
             return _catalogue_match(e, "tokens", f"{ref} -> the {e.id} shape, matched by the name tokens {', '.join(shared)}{export}", True, stored)
     return None
 
