@@ -11,6 +11,7 @@ import transformers
 
 from cfgcheck.knowledge.memory import MemoryInputs, estimate_memory
 from cfgcheck.knowledge.models import (
+    PEFT_DEFAULT_TARGETS,
     Architecture,
     NoDefaultTargets,
     lora_scale,
@@ -298,4 +299,38 @@ def test_router_shared_and_expert_targets_equal_peft(fam, targets):
             peft_count(arch, targets, 4, None)
         return
     _pm, theirs = peft_count(arch, targets, 4, None)
+    assert ours == theirs
+
+
+def _one_entry_per_family():
+    from cfgcheck.knowledge.models import catalogue_entries
+
+    seen = {}
+    for e in catalogue_entries():
+        seen.setdefault(e.arch.family, e)
+    return [(e.id, e.arch, targets) for e in seen.values()
+            for targets in (["all-linear"] + ([None] if e.arch.family in PEFT_DEFAULT_TARGETS else []))]
+
+
+FULL_SIZE = _one_entry_per_family()
+
+
+@pytest.mark.parametrize("ref,arch,targets", FULL_SIZE, ids=[f"{r}-{t or 'default'}" for r, _a, t in FULL_SIZE])
+def test_full_size_lora_counts_equal_peft_on_the_meta_device(ref, arch, targets):
+    # reference: PEFT get_peft_model on the full-size model built on the meta device (no weights allocated),
+    # one catalogue entry per family, with PEFT's default targets for the family and with "all-linear"
+    try:
+        ours = lora_trainable_parameters(arch, rank=16, targets=targets)
+    except NoDefaultTargets:  # mixtral: PEFT's rewrite for transformers 5 leaves no default targets
+        ours = None
+    with torch.device("meta"):
+        model = transformers.AutoModelForCausalLM.from_config(hf_config(arch))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            if ours is None:
+                with pytest.raises(ValueError):
+                    peft.get_peft_model(model, peft.LoraConfig(r=16, lora_alpha=32, target_modules=targets))
+                return
+            pm = peft.get_peft_model(model, peft.LoraConfig(r=16, lora_alpha=32, target_modules=targets))
+    theirs, _all = pm.get_nb_trainable_parameters()
     assert ours == theirs
