@@ -48,6 +48,7 @@ class Plan:
     memory_problem: str | None = None  # why there is no estimate
     gpu: Gpu | None = None
     assumptions: list[str] = field(default_factory=list)
+    load_note: str | None = None  # which load-dtype default the estimate used, in words
     # the learning-rate schedule as written (None: not written), its kwargs, and the strategy
     # words of evaluation, saving and logging (None: not written) -- what the pictures draw
     scheduler: str | None = None
@@ -70,6 +71,7 @@ class Plan:
             m = self.memory
             mem = {"weights_bytes": m.weights_bytes, "gradients_bytes": m.gradients_bytes,
                    "optimizer_bytes": m.optimizer_bytes, "master_weights_bytes": m.master_weights_bytes,
+                   "weight_copies_bytes": m.weight_copies_bytes,
                    "activations_bytes": m.activations_bytes, "logits_bytes": m.logits_bytes,
                    "overhead_bytes": m.overhead_bytes, "total_bytes": m.total_bytes,
                    "capacity_bytes": self.capacity_bytes, "notes": list(m.notes)}
@@ -120,9 +122,32 @@ def _storage(view: RunView, arch: Architecture | None, method: str, plan: Plan) 
             word = arch.torch_dtype.lower()
         if word in _DTYPES:
             return _DTYPES[word]
-    if dtype is None and method != "full":
+    if dtype is None and method != "full" and not (arch is not None and arch.torch_dtype):
         return "bf16" if (view.is_on("precision.bf16") or not view.is_on("precision.fp16")) else "fp16"
-    plan.assumptions.append("no torch_dtype: weights loaded in fp32 (the transformers default)")
+    if dtype is not None and str(dtype).strip().lower() != "auto":
+        plan.load_note = f"torch_dtype {dtype!r} not understood: weights loaded in fp32 assumed"
+        plan.assumptions.append(plan.load_note)
+        return "fp32"
+    return _default_load_storage(arch, plan)
+
+
+# --- the load dtype when the config names none (memory estimate input) --------------------------
+# transformers 5.x from_pretrained turns dtype=None into "auto": the checkpoint's dtype from its
+# config.json (transformers 5.24 modeling_utils.from_pretrained); 4.x loaded fp32
+# (torch.get_default_dtype()). The references are pinned at 5.x, so the 5.x default applies.
+LOAD_DEFAULT_VERSION = "transformers 5"
+
+
+def _default_load_storage(arch: Architecture | None, plan: Plan) -> str:
+    stored = _DTYPES.get(str(arch.torch_dtype).lower()) if arch is not None and arch.torch_dtype else None
+    if stored is not None:
+        plan.load_note = (f"no torch_dtype: weights loaded in the checkpoint's dtype {stored} "
+                          f"({LOAD_DEFAULT_VERSION} default dtype='auto'; transformers 4 loaded fp32)")
+        plan.assumptions.append(plan.load_note)
+        return stored
+    plan.load_note = ("no torch_dtype and the checkpoint's dtype unknown: weights loaded in fp32 assumed "
+                      "(the torch default dtype)")
+    plan.assumptions.append(plan.load_note)
     return "fp32"
 
 
@@ -130,8 +155,8 @@ def _sharding(view: RunView) -> str:
     stage = view.value("runtime.zero_stage")
     for attached in view.attached:
         stage = stage if stage is not None else attached.value("runtime.zero_stage")
-    if isinstance(stage, int) and stage in (1, 2, 3):
-        return f"zero{stage}"
+    if isinstance(stage, int) and not isinstance(stage, bool) and stage in (0, 1, 2, 3):
+        return f"zero{stage}"  # zero0: DeepSpeed without partitioning (still fp32 master weights)
     fsdp = view.value("runtime.fsdp")
     if isinstance(fsdp, str):
         if "full_shard" in fsdp or "hybrid_shard" in fsdp:
@@ -252,7 +277,17 @@ def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int) -
         modules_to_save=tuple([save] if isinstance(save, str) else (save or ())),
         num_gpus=max(1, gpus or 1),
         sharding=sharding,
+        # the forward runs under torch.autocast when the trainer's 16-bit flag is on (outside DeepSpeed)
+        autocast=_wants_16bit(view) is not None,
+        storage_note=plan.load_note,
     )
+
+
+def _wants_16bit(view: RunView) -> str | None:
+    mixed = view.value("precision.mixed")
+    if isinstance(mixed, str) and mixed.lower() in ("bf16", "fp16"):
+        return mixed.lower()
+    return "bf16" if view.is_on("precision.bf16") else "fp16" if view.is_on("precision.fp16") else None
 
 
 def fitting_changes(plan: Plan) -> list[tuple[str, MemoryBreakdown]]:

@@ -25,6 +25,7 @@ SEGMENTS = (
     ("gradients", "▓", "#d9822b"),
     ("optimizer states", "▒", "#5a9e4b"),
     ("fp32 master weights", "▞", "#8c6bb1"),
+    ("16-bit weight copies (autocast)", "▚", "#b07aa1"),
     ("activations", "░", "#c44e52"),
     ("logits and loss", ":", "#937860"),
     ("runtime overhead", ".", "#8c8c8c"),
