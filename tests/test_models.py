@@ -793,3 +793,15 @@ def test_derived_run_and_findings_say_which_entry_and_match(tmp_path):
     report = api.lint([cfg], project=None)
     msgs = [f.message for f in report.findings if f.rule == "lora-target-not-in-model"]
     assert msgs and "meta-llama/Llama-2-7b-hf" in msgs[0] and "assumed from the name" in msgs[0]
+
+
+def test_gpt2_conv1d_weights_count_as_quantised_matmul_weights():
+    # transformers integrations/bitsandbytes.py quantises Conv1D layers (transposing them) like nn.Linear;
+    # per GPT-2 block: c_attn h x 3h, attn.c_proj h x h, c_fc h x 4h, mlp.c_proj 4h x h = 12 h^2
+    from cfgcheck.knowledge.memory import _quantised_rows
+
+    a = CAT["openai-community/gpt2"]
+    quant, rows, rest = _quantised_rows(a)
+    assert quant == 12 * 12 * 768 * 768
+    assert rows == 12 * (3 * 768 + 768 + 4 * 768 + 768)
+    assert quant + rest == total_parameters(a)
