@@ -29,7 +29,8 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
                   only: Iterable[str] | None = None, skip: Iterable[str] | None = None,
                   severity: Mapping[str, str | Severity] | None = None,
                   thresholds: Mapping[str, Mapping[str, Any]] | None = None,
-                  debug: bool | None = None, cwd: Path | None = None) -> dict[str, Any]:
+                  debug: bool | None = None, cwd: Path | None = None,
+                  overrides: Iterable[str] | None = None) -> dict[str, Any]:
     """The options a caller set explicitly, as engine values (None = not set).
     Raises UnknownGpu for a GPU name we do not know, OptionError for a bad severity (both are
     ValueErrors)."""
@@ -49,7 +50,21 @@ def given_options(*, gpu: str | None = None, gpus: int | None = None, rows: int 
         "thresholds": {r: dict(t) for r, t in thresholds.items()} if thresholds else None,
         "debug": debug,
         "cwd": cwd,
+        "overrides": _checked_overrides(overrides),
     }
+
+
+def _checked_overrides(overrides: Iterable[str] | None) -> tuple[str, ...] | None:
+    """key=value overrides as given; ValueError for one that is neither key=value nor ~key."""
+    if not overrides:
+        return None
+    out = tuple(overrides)
+    for item in out:
+        text = item.strip()
+        key = text[1:] if text.startswith("~") else text.partition("=")[0]
+        if (not text.startswith("~") and "=" not in text) or not key.lstrip("+").strip():
+            raise ValueError(f"override {item!r} is not KEY=VALUE (or ~KEY to remove a key)")
+    return out
 
 
 def make_options(**options: Any) -> Options:

@@ -221,6 +221,10 @@ def lint(
     frame: Optional[bool] = typer.Option(None, "--frame/--no-frame", help="Text output: print the offending line with its value set off by >> << (default: on a terminal)."),
     debug: bool = typer.Option(False, "--debug", help="Re-raise an error inside a rule instead of reporting it."),
     jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Lint files in N processes (output order stays the same)."),
+    override: Optional[List[str]] = typer.Option(None, "--override", metavar="KEY=VALUE",
+                                                 help="A key=value override the launch passes to the config's loader (repeatable), applied over the composed config."),
+    sarif_not_checked: bool = typer.Option(False, "--sarif-not-checked",
+                                           help="SARIF output: also carry the 'not checked' notes (rules that lacked the GPU, model or row count); left out by default."),
 ) -> None:
     """Check training configs and report what would waste the run."""
     from . import api
@@ -244,6 +248,7 @@ def lint(
     chosen = {
         "gpu": gpu, "gpus": gpus, "rows": rows, "debug": debug or None,
         "only": only or None, "skip": skip or None, "severity": levels or None,
+        "overrides": override or None,
     }
     progress = None
     if not (quiet or summary) and sys.stderr.isatty():
@@ -285,7 +290,11 @@ def lint(
 
     level = Severity.parse((show.value if show else None) or (proj.show.word if proj and proj.show else "warning"))
     fail_on = Severity.parse((gate.value if gate else None) or (proj.gate.word if proj and proj.gate else "warning"))
-    if fmt in (Format.json, Format.sarif):
+    if fmt is Format.sarif:
+        from .render.notes import is_note  # code-scanning views list every result: notes only when asked
+
+        out = render("sarif", report, [f for f in report.findings if sarif_not_checked or not is_note(f)])
+    elif fmt is Format.json:
         out = render(fmt.value, report, report.findings)
     else:
         shown = api.visible(report.findings, level)
@@ -463,13 +472,30 @@ def list_rules() -> None:
                       if len(rule.sources) > 1 else ""))
 
 
+def _describe_layouts(names: list[str]) -> None:
+    from .layouts import BY_NAME, UNREAD_FORMATS, layout_summary
+
+    for name in names:
+        s = layout_summary(BY_NAME[name])
+        typer.echo(f"{s['name']}: {s['title']}\n  recognised by: {s['recognised']}\n"
+                   f"  sections: {s['sections']}\n  reads: {s['reads']}\n  does not read: {s['not_read']}\n")
+    if len(names) > 1:
+        typer.echo("Recognised but not read (not a format cfgcheck reads (yet)):")
+        for fmt in UNREAD_FORMATS:
+            typer.echo(f"  {fmt.name}: {fmt.title}")
+
+
 @app.command()
-def describe(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck rules`.")) -> None:
-    """Show one rule's catalogue entry: why, thresholds, sources, examples."""
+def describe(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck rules`, a layout name, or `layouts` for every layout.")) -> None:
+    """Show one rule's catalogue entry (why, thresholds, sources, examples), or what a layout reads."""
     import difflib
 
     from .catalogue import load_catalogue
+    from .layouts import BY_NAME, LAYOUTS
 
+    if rule_id == "layouts" or rule_id in BY_NAME:
+        _describe_layouts([lay.name for lay in LAYOUTS] if rule_id == "layouts" else [rule_id])
+        return
     rules = load_catalogue()
     rule = rules.get(rule_id)
     if rule is None:

@@ -269,10 +269,10 @@ class Workspace:
         if ":" in before:  # a value position: the accepted words of that setting
             key = before.split(":", 1)[0].strip().strip("\"'- ")
             return self._value_words(layout, key, path)
-        if layout is None or layout.name not in keysmod.layouts():
+        if layout is None or layout.key_table is None or layout.key_table not in keysmod.layouts():
             return []
         prefix = before.strip().strip("\"'- ")
-        groups = keysmod._data()["by_parent"][layout.name]
+        groups = keysmod._data()["by_parent"][layout.key_table]
         return [(k, "key of " + layout.title) for k in groups.get("", []) if k.startswith(prefix)]
 
     @staticmethod

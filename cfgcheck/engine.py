@@ -15,7 +15,7 @@ from typing import Any, Callable, Iterable, Iterator
 from . import load as loadmod
 from .catalogue import Rule, load_catalogue
 from .checks import all_checks
-from .findings import Finding, Fix, InputProblem, InternalError, Severity, shown_data
+from .findings import Finding, Fix, InputProblem, InternalError, Related, Severity, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted
 from .view import Field, RunView, build_view
@@ -37,6 +37,7 @@ class Options:
     debug: bool = False  # re-raise a failing rule instead of reporting it
     waivers: tuple[waivermod.ProjectWaiver, ...] = ()  # from the project configuration
     models: tuple = ()  # (id, Architecture) pairs the project configuration declares
+    overrides: tuple[str, ...] = ()  # key=value overrides the launch passes (compose.py)
 
 
 @dataclass
@@ -50,6 +51,7 @@ class FileReport:
     views: list[RunView] = field(default_factory=list)
     waived: list[tuple[Finding, str, str]] = field(default_factory=list)  # (finding, reason, "comment" | "project")
     baselined: int = 0  # findings hidden because the baseline holds them
+    compose_problem: str | None = None  # why a composed config could not be put together
 
 
 @dataclass
@@ -137,7 +139,10 @@ class Context:
 
     # reporting --------------------------------------------------------------
     def report(self, at: Field | tuple | None = None, variant: str = "default", *,
-               on: str = "value", fix: Fix | None = None, **data: Any) -> None:
+               on: str = "value", fix: Fix | None = None, related: Iterable = (),
+               **data: Any) -> None:
+        """``related``: other Fields (or key paths) where the same cause is written; the engine
+        locates them and the finding lists them beside its own location."""
         span = None
         if isinstance(at, waivermod.Waiver):  # a comment: located where it is written
             span = at.span
@@ -145,9 +150,10 @@ class Context:
             path = min(paths, key=len) if paths else ()
         else:
             path = at.path if isinstance(at, Field) else tuple(at or ())
+        others = tuple(r.path if isinstance(r, Field) else tuple(r) for r in related)
         self._sink.append(
             make_finding(self.rule, self.options, self.doc, self.file, path, variant, on, data,
-                         fix, span)
+                         fix, span, others)
         )
 
     def cannot_judge(self, what: str, **data: Any) -> None:
@@ -189,16 +195,37 @@ def _location(doc: Document, path: tuple, on: str) -> tuple[int, int]:
 
 def _finding(*, rule: str, severity: Severity, doc: Document, file: str, path: tuple, on: str,
              message: str, hint: str, data: dict[str, Any], fix: Fix | None = None,
-             span=None) -> Finding:
+             span=None, related: tuple = ()) -> Finding:
     line, column = (span.line, span.column) if span is not None else _location(doc, path, on)
+    others = tuple(Related(key=dotted(p), line=loc[0], column=loc[1])
+                   for p in related for loc in (_location(doc, p, on),))
+    if doc.origins and span is None:
+        # a composed config: the finding belongs to the file that set the value
+        origin = _origin_of(doc, tuple(path))
+        if origin is not None and origin != file:
+            file, fix = origin, None  # never edit one file for a value another file sets
+        from .compose import overridden_note
+
+        note = overridden_note(doc, tuple(path))
+        if note:
+            data = dict(data, overrides=note)
     return Finding(rule=rule, severity=severity, file=file, line=line, column=column,
                    key=dotted(path), message=message, hint=hint, data=data, path=tuple(path),
-                   document=doc.index, fix=fix)
+                   document=doc.index, fix=fix, related=others)
+
+
+def _origin_of(doc: Document, path: tuple) -> str | None:
+    while True:
+        if path in doc.origins:
+            return doc.origins[path]
+        if not path:
+            return None
+        path = path[:-1]
 
 
 def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: tuple,
                  variant: str, on: str, data: dict[str, Any], fix: Fix | None,
-                 span=None) -> Finding:
+                 span=None, related: tuple = ()) -> Finding:
     """The one place findings are made."""
     data = shown_data(data)  # a huge number as its short text, in the message and in the data
     msg = rule.messages[variant]
@@ -206,7 +233,7 @@ def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: t
     return _finding(rule=rule.id, severity=severity, doc=doc, file=file, path=path, on=on,
                     message=_fill(msg.message, data), hint=_fill(msg.hint, data),
                     data=dict(data, variant=variant) if variant != "default" else dict(data),
-                    fix=fix, span=span)
+                    fix=fix, span=span, related=related)
 
 
 # --------------------------------------------------------------------------- running
@@ -304,6 +331,28 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             owners.setdefault(owner, []).append(w)
     for doc in docs:
         try:  # the crash boundary of one document: a bug here spares the other documents
+            from . import sweep
+
+            def run(view: RunView) -> tuple[list[Finding], list[InternalError]]:
+                sub = FileReport(file=file)
+                lint_view(view, options, file, sub)
+                return sub.findings, sub.internal
+
+            if sweep.is_sweep(doc.data):  # a sweep file: lint its runs
+                sweep.lint_sweep(doc, file, run, report, layout)
+                continue
+            fixed, varying = sweep.split_overrides(options.overrides)
+            if varying and not file.startswith("<"):  # list-valued overrides: one run per combination
+                from . import compose
+
+                try:
+                    base = compose.compose(doc, file, fixed)
+                except compose.ComposeError as exc:
+                    report.compose_problem = str(exc)
+                else:
+                    sweep.lint_override_sweep(base, file, varying, run, report, layout)
+                    continue
+            doc = _composed(doc, file, options, report)
             view = build_view(doc, layout)
             report.views.append(view)
             if view.skipped:
@@ -323,6 +372,20 @@ def lint_documents(docs: list[Document], file: str, options: Options,
         report.skipped = reasons[0] if reasons else "empty file"
     report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
     return report
+
+
+def _composed(doc: Document, file: str, options: Options, report: FileReport) -> Document:
+    """DOC composed with the files it names and the launch's overrides (compose.py); as written
+    when there is nothing to compose or a named file cannot be read (the reason is kept)."""
+    from . import compose
+
+    if not (options.overrides or compose.composes(doc.data)) or file.startswith("<"):
+        return doc
+    try:
+        return compose.compose(doc, file, options.overrides)
+    except compose.ComposeError as exc:
+        report.compose_problem = str(exc)
+        return doc
 
 
 def lint_text(text: str, name: str = "<text>", options: Options | None = None,

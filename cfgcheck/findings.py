@@ -137,6 +137,15 @@ class Fix:
 
 
 @dataclass(frozen=True, kw_only=True)
+class Related:
+    """Another place the same cause is written (one cause, one finding)."""
+
+    key: str
+    line: int
+    column: int
+
+
+@dataclass(frozen=True, kw_only=True)
 class Finding:
     rule: str
     severity: Severity
@@ -150,6 +159,7 @@ class Finding:
     path: tuple = ()
     document: int = 0
     fix: Fix | None = None
+    related: tuple[Related, ...] = ()  # other places of the same cause (located by the engine)
 
     def identity(self) -> tuple[str, str, str, str]:
         """Stable across line shifts: rule, file, key path and the values reported (data items
@@ -161,7 +171,7 @@ class Finding:
         return (self.rule, self.file, self.key, values)
 
     def as_dict(self) -> dict[str, Any]:
-        return {
+        out = {
             "rule": self.rule,
             "severity": self.severity.word,
             "file": self.file,
@@ -173,6 +183,9 @@ class Finding:
             "data": {k: _plain(v) for k, v in self.data.items()},
             "fixable": self.fix.tier if self.fix else None,
         }
+        if self.related:
+            out["related"] = [{"key": r.key, "line": r.line, "column": r.column} for r in self.related]
+        return out
 
 
 def _is_line(name: str) -> bool:

@@ -15,6 +15,11 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 
+# method words most layouts share (PEFT / TRL scripts, axolotl's adapter, LLaMA-Factory's
+# finetuning_type: lora | freeze | full)
+METHOD_WORDS: dict[str, str] = {"lora": "lora", "qlora": "qlora", "full": "full", "freeze": "partial"}
+
+
 @dataclass(frozen=True)
 class Layout:
     name: str
@@ -27,8 +32,9 @@ class Layout:
     sections: dict[str, tuple[str, ...]] = field(default_factory=dict)
     # fields a layout's own loader reads as numbers even when YAML 1.1 gives text
     coerces_numbers: bool = False
-    # what a "method" value means in this layout
-    method_values: dict[str, str] = field(default_factory=dict)
+    # what a "method" value means in this layout: word -> "full" | "lora" | "qlora" | "partial"
+    # (some layers train fully, the others stay frozen); a word not listed says nothing
+    method_values: dict[str, str] = field(default_factory=lambda: dict(METHOD_WORDS))
     # the method when nothing in the file states one (None: unknown)
     default_method: str | None = None
     # (regex, method) matched against the model builder name (component-style recipes)
@@ -42,6 +48,54 @@ class Layout:
     eval_data_known: bool = False
     # why this layout's loader reads ``2e-5`` as a number (shown in the YAML-version finding)
     number_reader: str = ""
+    # section-local names: inside a section of that name, a key means the layout's bare name
+    # (``model: {name_or_path: ...}`` is ``model_name_or_path``, ``scheduler: {type: ...}`` is
+    # ``lr_scheduler_type``)
+    section_names: dict[str, dict[str, str]] = field(default_factory=dict)
+    # sections whose keys describe another part of the run (evaluation, a reference or teacher
+    # model, generation): only their section-local names are read (``eval: {steps: 50}`` is
+    # ``eval_steps``), never a bare training name (``eval: {batch_size: 8}`` is not the train batch)
+    restricted_sections: frozenset[str] = frozenset()
+    # mappings never searched (another tool's inline config, free-form keyword arguments)
+    foreign_sections: frozenset[str] = frozenset()
+    # every other nested mapping is searched for bare names too (a section named as the author likes)
+    search_all_sections: bool = False
+    # the model a builder builds: (regex on the builder's last name, hub id the model resolver
+    # knows), tried in order after a (q)lora_ prefix is dropped
+    builder_models: tuple[tuple[str, str], ...] = ()
+    # a dotted path whose value is the model's folder (its config.json), used when no builder maps
+    model_dir: str = ""
+    # what cfgcheck reads of this layout and what it does not (the layouts table in the docs)
+    reads: str = ""
+    not_read: str = ""
+
+    # --- what the layout's runner does with the values: rules read these, never the name ---
+    # what the file describes: "run" (a training recipe), "engine" (a DeepSpeed engine
+    # config), "launch" (a launcher config: processes, machines, mixed precision), "adapter"
+    # (a saved adapter's config)
+    role: str = "run"
+    # unset values take the transformers TrainingArguments defaults (batch 8, 3 epochs, eval
+    # "no", save every 500 steps), because the file goes to TrainingArguments as it is
+    trainer_defaults: bool = False
+    # scheduler, warm-up and max_steps/epochs keys reach the transformers Trainer with its meaning
+    trainer_schedule: bool = False
+    # word lists (schema.CONSTRAINTS ``word_list``) the layout's values are checked against
+    word_lists: frozenset[str] = frozenset()
+    # the generated key table unknown-key checks keys against (None: keys are not judged)
+    key_table: str | None = None
+    # how a text value of the target-module setting is read: "regex" (PEFT matches it against
+    # full module names), "comma-list" (split on commas), "comma-list-or-regex" (a list when it
+    # has a comma, else PEFT's regex)
+    targets_text: str = "regex"
+    # the runner's packing builds a block-causal mask itself, so packed samples never attend
+    # across their boundaries whatever the attention kernel
+    packing_masks_boundaries: bool = False
+    # the runner refuses the "qlora" method word unless the base loads in 4 bits
+    qlora_word_needs_4bit: bool = False
+    # what fp16 means to the runner: "autocast" (mixed precision over the weights as loaded),
+    # "loads-weights" (the fp16 flag also loads the weights as float16, so a full fine-tune
+    # cannot use it), "refused" (the runner refuses fp16 training: bf16 or fp32 only)
+    fp16_mode: str = "autocast"
 
     @property
     def has_bare_names(self) -> bool:
@@ -154,6 +208,9 @@ _TRAINER_SECTIONS: dict[str, tuple[str, ...]] = {
     "quantization": ("bnb_4bit_",),
     "quantization_config": ("bnb_4bit_",),
     "bnb": ("bnb_4bit_",),
+    "quant": ("bnb_4bit_",),
+    "bitsandbytes": ("bnb_4bit_",),
+    "lora_config": ("lora_",),
     "evaluation": (),
     "eval": (),
     "logging": (),
@@ -163,14 +220,93 @@ _TRAINER_SECTIONS: dict[str, tuple[str, ...]] = {
     "distributed": (),
 }
 
+def _same(names: str, target: str) -> dict[str, str]:
+    return {n: target for n in names.split()}
+
+
+# Section-local names of trainer-style files, by what a section holds. The section words and the
+# local names are common practice in training repositories (no source); a local name is mapped
+# only where it cannot mean another setting in that kind of section.
+_MODEL_NAMES = {**_same("name_or_path name path id model_id repo_id pretrained checkpoint hub_id", "model_name_or_path"),
+                **_same("dtype torch_dtype", "torch_dtype"),
+                **_same("attn_implementation attention attn", "attn_implementation"),
+                **_same("max_seq_length max_seq_len max_length context_length", "max_seq_length")}
+_SCHEDULE_NAMES = {**_same("type name kind scheduler lr_scheduler_type", "lr_scheduler_type"),
+                   **_same("warmup_steps num_warmup_steps", "warmup_steps"),
+                   **_same("warmup_ratio warmup_fraction", "warmup_ratio")}
+_OPTIM_NAMES = {**_same("name type kind optimizer", "optim"), **_same("lr learning_rate", "learning_rate"),
+                **_same("weight_decay wd", "weight_decay"),
+                **_same("max_grad_norm grad_clip clip_grad_norm gradient_clipping", "max_grad_norm")}
+_ADAPTER_NAMES = {**_same("r rank", "lora_r"), "alpha": "lora_alpha", "dropout": "lora_dropout",
+                  **_same("target_modules targets target modules", "lora_target_modules"),
+                  **_same("enabled enable use", "use_peft"), "rslora": "use_rslora", "dora": "use_dora",
+                  **_same("type method kind peft_type", "finetuning_method")}
+_QUANT_NAMES = {**_same("quant_type type", "bnb_4bit_quant_type"),
+                **_same("double_quant use_double_quant nested", "bnb_4bit_use_double_quant"),
+                "compute_dtype": "bnb_4bit_compute_dtype", "4bit": "load_in_4bit", "8bit": "load_in_8bit",
+                **_same("bits quant_bits", "quantization_bits")}
+_TRAIN_NAMES = {**_same("batch_size micro_batch_size per_device_batch_size batch_size_per_device "
+                        "train_micro_batch_size", "per_device_train_batch_size"),
+                **_same("epochs num_epochs", "num_train_epochs"), "lr": "learning_rate",
+                **_same("grad_accum gradient_accumulation accumulation_steps grad_accumulation_steps "
+                        "grad_accumulation", "gradient_accumulation_steps"),
+                **_same("grad_clip clip_grad_norm", "max_grad_norm")}
+_DATA_NAMES = {**_same("max_length max_seq_len seq_len sequence_length sequence_len context_length "
+                       "block_size cutoff_len", "max_seq_length"), "pack": "packing"}
+_EVAL_NAMES = {**_same("steps every_n_steps interval eval_steps", "eval_steps"),
+               **_same("strategy eval_strategy", "eval_strategy")}
+_LOG_NAMES = _same("steps every_n_steps interval logging_steps", "logging_steps")
+_SAVE_NAMES = {**_same("steps every_n_steps interval save_steps", "save_steps"),
+               **_same("strategy save_strategy", "save_strategy")}
+_HARDWARE_NAMES = {**_same("gpus num_gpus gpus_per_node", "num_gpus"), **_same("nodes num_nodes", "num_nodes")}
+
+
+def _kinds(**groups: tuple[str, dict[str, str]]) -> dict[str, dict[str, str]]:
+    out: dict[str, dict[str, str]] = {}
+    for words, names in groups.values():
+        for w in words.split():
+            out[w] = names
+    return out
+
+
+_TRAINER_SECTION_NAMES = _kinds(
+    model=("model model_args model_arguments model_config base_model llm backbone", _MODEL_NAMES),
+    schedule=("schedule scheduler lr_schedule lr_scheduler learning_rate_schedule sched", _SCHEDULE_NAMES),
+    optim=("optim optimizer optimiser optimization optimisation", _OPTIM_NAMES),
+    adapter=("lora peft peft_config adapter adapters lora_config lora_args peft_args", _ADAPTER_NAMES),
+    quant=("quantization quantization_config quant bnb bitsandbytes", _QUANT_NAMES),
+    train=("training train trainer training_args training_arguments args hyperparameters hparams run", _TRAIN_NAMES),
+    data=("data data_args data_arguments dataset tokenizer", _DATA_NAMES),
+    eval=("eval evaluation validation val", _EVAL_NAMES),
+    log=("logging log", _LOG_NAMES),
+    save=("checkpointing checkpoint checkpoints save saving", _SAVE_NAMES),
+    hardware=("hardware distributed compute resources", _HARDWARE_NAMES),
+)
+
 TRAINER = Layout(
     name="trainer",
     title="trainer-style arguments (transformers / PEFT / TRL names, flat or in sections)",
-    sections=_TRAINER_SECTIONS,
+    sections={**_TRAINER_SECTIONS, **{w: _TRAINER_SECTIONS.get(w, ()) for w in _TRAINER_SECTION_NAMES}},
+    section_names=_TRAINER_SECTION_NAMES,
+    restricted_sections=frozenset("eval evaluation validation val test".split()),
+    foreign_sections=frozenset("teacher teacher_model ref_model reference_model ref reward_model critic "
+                               "value_model draft_model judge vllm generation generation_config gen_kwargs "
+                               "generation_kwargs inference deepspeed fsdp_config accelerate".split()),
+    search_all_sections=True,
+    reads="top-level transformers / PEFT / TRL argument names; the same names inside any section, "
+          "with section-local names by what the section holds (model: name_or_path, scheduler: type, "
+          "optim: lr, lora: r, quantization: quant_type, training: batch_size, eval: steps)",
+    not_read="keys of evaluation, reference/teacher-model and generation sections as training settings; "
+             "inline DeepSpeed and FSDP mappings (read as linked configs)",
+    default_method="full",  # no adapter anywhere: every weight trains
+    trainer_defaults=True,
+    trainer_schedule=True,
+    word_lists=frozenset({"transformers-arguments", "transformers-strategies", "peft-lora"}),
+    key_table="trainer",
     fields={
         "method": ("finetuning_method", "tuning_method"),
         "model.ref": ("model_name_or_path", "base_model_name_or_path", "pretrained_model_name_or_path",
-                      "base_model", "model_id"),
+                      "base_model", "model_id", "model"),
         "model.dtype": ("torch_dtype", "model_dtype", "dtype"),
         "model.attention": ("attn_implementation",),
         "adapter.enabled": ("use_peft", "use_lora"),
@@ -190,6 +326,7 @@ TRAINER = Layout(
         "quant.type_4bit": ("bnb_4bit_quant_type",),
         "quant.double": ("bnb_4bit_use_double_quant", "use_bnb_nested_quant"),
         "quant.compute_dtype": ("bnb_4bit_compute_dtype",),
+        "quant.bits": ("quantization_bits", "quantization_bit"),
         "optim.lr": ("learning_rate", "lr"),
         "optim.name": ("optim",),
         "optim.scheduler": ("lr_scheduler_type",),
@@ -239,6 +376,9 @@ TRAINER = Layout(
 DEEPSPEED = Layout(
     name="deepspeed",
     title="DeepSpeed configuration JSON",
+    role="engine",
+    word_lists=frozenset({"deepspeed"}),
+    key_table="deepspeed",
     fields={
         "batch.per_device": ("=train_micro_batch_size_per_gpu",),
         "batch.accumulation": ("=gradient_accumulation_steps",),
@@ -266,6 +406,10 @@ DEEPSPEED = Layout(
 PEFT_ADAPTER = Layout(
     name="peft-adapter",
     title="PEFT adapter_config.json",
+    role="adapter",
+    default_method="lora",  # a saved adapter's config: the run that made it trained an adapter
+    word_lists=frozenset({"peft-lora"}),
+    key_table="peft-adapter",
     fields={
         "model.ref": ("=base_model_name_or_path",),
         "adapter.rank": ("=r",),
@@ -298,8 +442,19 @@ AXOLOTL = Layout(
     coerces_numbers=True,
     number_reader="axolotl validates the file with a pydantic model that converts this text to a float",
     default_method="full",
+    trainer_schedule=True,  # its scheduler and warm-up keys become TrainingArguments
+    word_lists=frozenset({"transformers-strategies"}),
+    targets_text="comma-list-or-regex",
+    # validation: "Require cfg.load_in_4bit to be True for qlora" (axolotl utils/schemas/config.py)
+    qlora_word_needs_4bit=True,
+    # resolve_dtype (axolotl utils/config/__init__.py): fp16 -> cfg.torch_dtype = torch.float16,
+    # so the weights load in fp16 and a full fine-tune stops at "Attempting to unscale FP16
+    # gradients" (axolotl bug report #1031); bf16 off and fp16 unset loads float32
+    fp16_mode="loads-weights",
     # axolotl turns evaluation off itself when there is no eval data (core/builders/base.py)
-    sections={"peft": ("lora_",), "loftq_config": ("loftq_",), "bnb_config_kwargs": ()},
+    # fsdp_config: axolotl drops the `fsdp_` prefix of its keys (0.19.0 utils/schemas/validation.py)
+    sections={"peft": ("lora_",), "loftq_config": ("loftq_",), "bnb_config_kwargs": (),
+              "fsdp_config": ("fsdp_",)},
     fields={
         "method": ("adapter",),
         "model.ref": ("base_model",),
@@ -342,6 +497,10 @@ AXOLOTL = Layout(
         "precision.tf32": ("tf32",),
         "data.seq_len": ("sequence_len",),
         "data.packing": ("sample_packing",),
+        # axolotl 0.19.0 utils/schemas/config.py: `tokens` are added to the vocabulary (new rows
+        # of the embedding). `chat_template: chatml` alone adds none: its markers are tokenised
+        # into pieces the model has, unless `tokens:` adds them.
+        "data.new_tokens": ("tokens",),
         "data.eval": ("val_set_size", "test_datasets"),
         "cadence.eval_strategy": ("eval_strategy",),
         "cadence.eval_steps": ("eval_steps",),
@@ -372,6 +531,12 @@ LLAMA_FACTORY = Layout(
     # the file goes to transformers' HfArgumentParser.parse_dict after yaml.safe_load: text stays text
     default_method="lora",  # FinetuningArguments.finetuning_type defaults to "lora"
     eval_data_known=True,
+    trainer_defaults=True,  # the file is parsed into (a subclass of) TrainingArguments
+    trainer_schedule=True,
+    word_lists=frozenset({"transformers-arguments", "transformers-strategies"}),
+    targets_text="comma-list",  # lora_target: "q_proj,v_proj" is split on commas
+    # fp16_mode stays "autocast": model/adapter.py _setup_full_tuning casts the trainable
+    # parameters to fp32 (cast_trainable_params_to_fp32, off only with pure_bf16)
     fields={
         "method": ("finetuning_type",),
         "model.ref": ("model_name_or_path",),
@@ -427,6 +592,8 @@ LLAMA_FACTORY_V1 = Layout(
     name="llama-factory-v1",
     title="LLaMA-Factory v1 arguments (model, peft_config block, micro_batch_size, cutoff_len)",
     default_method="full",  # no peft_config block: every weight trains
+    trainer_schedule=True,
+    targets_text="comma-list",
     fields={
         "method": ("=peft_config.name",),
         "model.ref": ("=model",),
@@ -458,7 +625,38 @@ TORCHTUNE = Layout(
     number_reader="the recipe is loaded by OmegaConf, whose YAML reader takes it as a float",
     interpolates=True,
     default_method="full",
+    # torchtune builds a block-causal mask for packed samples (datasets/_packed.py)
+    packing_masks_boundaries=True,
+    # its recipes raise "full fp16 training is not supported with this recipe. Please use bf16
+    # or fp32 instead." (recipes/full_finetune_*.py, lora_finetune_*.py)
+    fp16_mode="refused",
     method_patterns=((r"(^|\.)qlora_", "qlora"), (r"(^|\.)lora_", "lora")),
+    # torchtune 0.6.1 models/*/_model_builders.py: each builder's shapes are those of this model
+    # (llama2_7b: 32 layers, 4096 wide, max_seq_len 4096; qwen2_5_*_instruct: max_seq_len 32768)
+    builder_models=(
+        (r"llama2_7b$", "meta-llama/Llama-2-7b-hf"), (r"llama2_13b$", "meta-llama/Llama-2-13b-hf"),
+        (r"llama2_70b$", "meta-llama/Llama-2-70b-hf"),
+        (r"llama3_8b$", "meta-llama/Meta-Llama-3-8B"), (r"llama3_70b$", "meta-llama/Meta-Llama-3-70B"),
+        (r"llama3_1_8b$", "meta-llama/Llama-3.1-8B"), (r"llama3_1_70b$", "meta-llama/Llama-3.1-70B"),
+        (r"llama3_1_405b$", "meta-llama/Llama-3.1-405B"),
+        (r"llama3_2_1b$", "meta-llama/Llama-3.2-1B"), (r"llama3_2_3b$", "meta-llama/Llama-3.2-3B"),
+        (r"llama3_3_70b$", "meta-llama/Llama-3.3-70B-Instruct"),
+        (r"mistral_7b$", "mistralai/Mistral-7B-v0.1"),
+        (r"gemma_2b$", "google/gemma-2b"), (r"gemma_7b$", "google/gemma-7b"),
+        (r"gemma2_2b$", "google/gemma-2-2b"), (r"gemma2_9b$", "google/gemma-2-9b"),
+        (r"gemma2_27b$", "google/gemma-2-27b"),
+        (r"phi3_mini$", "microsoft/Phi-3-mini-4k-instruct"), (r"phi4_14b$", "microsoft/phi-4"),
+        (r"qwen2_5_0_5b$", "Qwen/Qwen2.5-0.5B"),
+        (r"qwen2_5_1_5b_base$", "Qwen/Qwen2.5-1.5B"), (r"qwen2_5_1_5b_instruct$", "Qwen/Qwen2.5-1.5B-Instruct"),
+        (r"qwen2_5_3b$", "Qwen/Qwen2.5-3B"),
+        (r"qwen2_5_7b_base$", "Qwen/Qwen2.5-7B"), (r"qwen2_5_7b_instruct$", "Qwen/Qwen2.5-7B-Instruct"),
+        (r"qwen2_5_14b_base$", "Qwen/Qwen2.5-14B"), (r"qwen2_5_14b_instruct$", "Qwen/Qwen2.5-14B-Instruct"),
+        (r"qwen2_5_32b_base$", "Qwen/Qwen2.5-32B"), (r"qwen2_5_32b_instruct$", "Qwen/Qwen2.5-32B-Instruct"),
+        (r"qwen2_5_72b_base$", "Qwen/Qwen2.5-72B"), (r"qwen2_5_72b_instruct$", "Qwen/Qwen2.5-72B-Instruct"),
+        (r"qwen2_0_5b$", "Qwen/Qwen2-0.5B"), (r"qwen2_1_5b$", "Qwen/Qwen2-1.5B"), (r"qwen2_7b$", "Qwen/Qwen2-7B"),
+        (r"qwen3_0_6b_(base|instruct)$", "Qwen/Qwen3-0.6B"),
+    ),
+    model_dir="checkpointer.checkpoint_dir",
     module_names={"q_proj": "q_proj", "k_proj": "k_proj", "v_proj": "v_proj",
                   "output_proj": "o_proj"},
     fields={
@@ -498,6 +696,9 @@ TORCHTUNE = Layout(
 ACCELERATE = Layout(
     name="accelerate",
     title="accelerate launch config (distributed_type, num_processes, mixed_precision)",
+    role="launch",
+    word_lists=frozenset({"accelerate"}),
+    key_table="accelerate",
     fields={
         "runtime.distributed": ("=distributed_type",),
         # accelerate's num_processes counts processes over all machines
@@ -558,3 +759,127 @@ NOT_TRAINING = {
     "pre-commit": {"repos"},
     "kubernetes": {"apiVersion", "kind", "metadata", "spec"},
 }
+
+
+# ---------------------------------------------------------------------------------------------
+# Formats cfgcheck recognises but does not read: named in the summary, never read as a layout.
+
+@dataclass(frozen=True)
+class UnreadFormat:
+    name: str
+    title: str
+    # top-level keys that mark it (``-`` and ``_`` are the same), how many must be present, and
+    # keys of which at least one must be there (empty: none required)
+    marks: frozenset[str] = frozenset()
+    min_hits: int = 2
+    required: frozenset[str] = frozenset()
+    # keys of a top-level section that mark it ("trainer" -> Lightning's trainer arguments)
+    section: str = ""
+    # a special shape: "composed" (a defaults: list or _target_ nodes), "tuning-space" (lists of
+    # candidate values where DeepSpeed takes one value)
+    shape: str = ""
+
+
+# keys that name a base file the config is composed over (compose.py reads them)
+BASE_FILE_KEYS = ("_base_", "base_config", "extends", "inherit_from", "base")
+
+UNREAD_FORMATS: tuple[UnreadFormat, ...] = (
+    UnreadFormat(
+        name="gpt-neox", title="a GPT-NeoX model and training config",
+        # GPT-NeoX configs/*.yml (neox_arguments): hyphenated or underscored names
+        marks=frozenset("pipe_parallel_size model_parallel_size num_layers hidden_size num_attention_heads "
+                        "seq_length max_position_embeddings pos_emb norm train_iters lr_decay_style "
+                        "lr_decay_iters vocab_file merge_file data_path checkpoint_activations "
+                        "partition_activations synchronize_each_layer gpt_j_residual "
+                        "scaled_upper_triang_masked_softmax_fusion bias_gelu_fusion output_layer_parallelism "
+                        "attention_config init_method output_layer_init_method".split()),
+        min_hits=3,
+        required=frozenset("pipe_parallel_size model_parallel_size pos_emb train_iters lr_decay_style "
+                           "gpt_j_residual attention_config output_layer_parallelism".split()),
+    ),
+    UnreadFormat(
+        name="deepspeed-autotuning", title="a DeepSpeed autotuning tuning space (lists of candidate values)",
+        shape="tuning-space",
+    ),
+    UnreadFormat(
+        name="composed", title="a config composed from other files that cannot be put together "
+                               "(a defaults: list or base file not found, or _target_ nodes)",
+        shape="composed",
+    ),
+    UnreadFormat(
+        name="lightning", title="a PyTorch Lightning / NeMo-style config (trainer: accelerator, devices, max_epochs)",
+        marks=frozenset("accelerator devices max_epochs accumulate_grad_batches strategy num_nodes "
+                        "gradient_clip_val val_check_interval check_val_every_n_epoch limit_val_batches "
+                        "enable_checkpointing".split()),
+        min_hits=3, section="trainer",
+    ),
+    UnreadFormat(
+        name="llm-foundry", title="an llm-foundry / Composer-style config (global_train_batch_size, max_duration)",
+        marks=frozenset("global_train_batch_size device_train_microbatch_size max_duration eval_interval "
+                        "device_eval_batch_size eval_first save_interval".split()),
+        min_hits=2,
+    ),
+    UnreadFormat(
+        name="ludwig", title="a Ludwig config (input_features, output_features)",
+        marks=frozenset("input_features output_features model_type".split()), min_hits=2,
+        required=frozenset({"input_features"}),
+    ),
+)
+
+
+# ---------------------------------------------------------------------------------------------
+# The layouts table (docs/layouts-and-rules.md and ``cfgcheck describe LAYOUT``), generated from
+# the tables above so it cannot drift from what is read.
+
+def _grouped(names) -> str:
+    groups: dict[str, list[str]] = {}
+    for n in sorted(names):
+        head, _, tail = n.partition(".")
+        groups.setdefault(head, []).append(tail or head)
+    return "; ".join(f"{h}: {', '.join(t)}" if t != [h] else h for h, t in groups.items())
+
+
+def layout_summary(layout: Layout) -> dict[str, str]:
+    """What a layout reads and does not read, in words (generated from its table)."""
+    read = set(layout.fields)
+    extra = ""
+    if layout.builder_models or layout.model_dir:
+        read.add("model.ref")
+        extra = f"; model.ref from the builder's name, else `{layout.model_dir}` (its config.json)"
+    if layout.method_patterns:
+        read.add("method")
+        extra += "; the method from the builder's name"
+    if layout.default_method:
+        extra += f"; no method written means {layout.default_method}"
+    not_read = set(FIELD_TYPES) - read
+    top = sorted(layout.signature, key=lambda k: (-layout.signature[k], k))[:6]
+    where = "bare names at the top level and in its sections" if layout.has_bare_names else "exact key paths"
+    if layout.search_all_sections:
+        where = "bare names at the top level and in any section"
+    return {
+        "name": layout.name,
+        "title": layout.title,
+        "recognised": ", ".join(f"`{k}`" for k in top),
+        "reads": _grouped(read) + f" ({where})" + extra + (f"; {layout.reads}" if layout.reads else ""),
+        "not_read": _grouped(not_read) + (f"; {layout.not_read}" if layout.not_read else ""),
+        "sections": ", ".join(f"`{s}`" for s in sorted(layout.sections)) or "none",
+    }
+
+
+def layouts_markdown() -> str:
+    """The docs' layouts table: one row per layout, then the formats recognised but not read."""
+    lines = ["| layout | recognised by | view fields read | view fields not read |",
+             "| --- | --- | --- | --- |"]
+    for lay in LAYOUTS:
+        s = layout_summary(lay)
+        cells = [f"`{s['name']}`: {s['title']}", s["recognised"], s["reads"], s["not_read"]]
+        lines.append("| " + " | ".join(c.replace("|", "\\|") for c in cells) + " |")
+    lines += ["", "Recognised but not read (named in the summary as \"not a format cfgcheck reads (yet)\"):", ""]
+    for fmt in UNREAD_FORMATS:
+        marks = ", ".join(f"`{m}`" for m in sorted(fmt.required or fmt.marks)[:6])
+        how = {"composed": "a top-level `defaults:` list, or `_target_` nodes",
+               "tuning-space": "a list where DeepSpeed takes one value (`zero_optimization.stage`, "
+                               "`train_micro_batch_size_per_gpu`)"}.get(fmt.shape, marks)
+        where = f" in `{fmt.section}:`" if fmt.section else ""
+        lines.append(f"* `{fmt.name}`: {fmt.title}; recognised by {how}{where}")
+    return "\n".join(lines) + "\n"

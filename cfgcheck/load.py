@@ -115,6 +115,12 @@ class Document:
     ambiguities: list[Ambiguity] = field(default_factory=list)
     tags: list[tuple[Path_, str]] = field(default_factory=list)
     index: int = 0  # position of this document in a multi-document stream
+    # composed documents (compose.py): the file that set each key path, and for a value set in
+    # more than one file, those files in the order they were applied
+    origins: dict[Path_, str] = field(default_factory=dict)
+    overrides: dict[Path_, list[str]] = field(default_factory=dict)
+    composed_from: list[str] = field(default_factory=list)
+    number_reader: str = ""  # why the loader reads 2e-5 as a number, when it does (compose.py)
 
     def entry(self, path: Path_) -> Entry | None:
         return self.entries.get(tuple(path))

@@ -82,14 +82,13 @@ def derive(values: dict, *, gpus: int | None, rows: int | None, use_trainer_defa
     return sched
 
 
-# layouts whose trainer is the transformers Trainer, so its defaults apply to unset values
-TRAINER_LAYOUTS = ("trainer", "llama-factory")
 _FIELDS = ("batch.per_device", "batch.accumulation", "optim.epochs", "optim.max_steps")
 
 
 def derive_for(view, *, gpus: int | None, rows: int | None) -> Schedule:
     """The schedule of a typed view (rows from the command line win over the config's own)."""
-    trainer = view.layout is not None and view.layout.name in TRAINER_LAYOUTS
+    # layouts whose file goes to TrainingArguments as it is: its defaults fill unset values
+    trainer = view.layout is not None and view.layout.trainer_defaults
     values = {name: view.value(name) for name in _FIELDS}
     return derive(values, gpus=gpus, rows=rows or view.value("data.rows"), use_trainer_defaults=trainer)
 

@@ -45,7 +45,10 @@ ACCELERATE_PRECISION = ("no", "fp16", "bf16", "fp8")
 # DeepSpeed runtime/lr_schedules.py VALID_LR_SCHEDULES
 DEEPSPEED_SCHEDULERS = ("LRRangeTest", "OneCycle", "WarmupLR", "WarmupDecayLR", "WarmupCosineLR")
 
-_HF_ARGS = ("trainer", "llama-factory")  # values parsed into TrainingArguments as they are
+# Word lists a constraint can belong to; a layout names the ones its values are read by
+# (Layout.word_lists): "transformers-arguments" (values parsed into TrainingArguments as they
+# are), "transformers-strategies" (eval/save strategy words passed on to TrainingArguments),
+# "peft-lora" (LoraConfig), "deepspeed", "accelerate".
 
 
 @dataclass(frozen=True)
@@ -54,7 +57,7 @@ class Constraint:
     exclusive_minimum: float | None = None
     exclusive_maximum: float | None = None
     enum: tuple | None = None
-    layouts: tuple[str, ...] | None = None  # only for these layouts (None: all)
+    word_list: str | None = None  # only for layouts that read this word list (None: all)
     source: str = ""
 
 
@@ -62,7 +65,7 @@ CONSTRAINTS: dict[str, tuple[Constraint, ...]] = {
     "adapter.rank": (Constraint(minimum=1, source="PEFT LoraConfig: r must be a positive integer"),),
     "adapter.alpha": (Constraint(exclusive_minimum=0, source="LoRA: the update is scaled by alpha/r"),),
     "adapter.dropout": (Constraint(minimum=0, exclusive_maximum=1, source="torch.nn.Dropout: p in [0, 1)"),),
-    "adapter.bias": (Constraint(enum=("none", "all", "lora_only"), layouts=("trainer", "peft-adapter"),
+    "adapter.bias": (Constraint(enum=("none", "all", "lora_only"), word_list="peft-lora",
                                 source="PEFT LoraConfig.bias"),),
     "quant.type_4bit": (Constraint(enum=("nf4", "fp4"), source="transformers BitsAndBytesConfig"),),
     "quant.bits": (Constraint(enum=(2, 3, 4, 5, 6, 8), source="LLaMA-Factory quantization_bit"),),
@@ -75,17 +78,18 @@ CONSTRAINTS: dict[str, tuple[Constraint, ...]] = {
     "optim.weight_decay": (Constraint(minimum=0, source="decoupled weight decay is not negative"),),
     "optim.grad_clip": (Constraint(minimum=0, source="a clipping norm is not negative"),),
     "optim.scheduler": (
-        Constraint(enum=HF_SCHEDULERS, layouts=_HF_ARGS, source="transformers SchedulerType"),
-        Constraint(enum=DEEPSPEED_SCHEDULERS, layouts=("deepspeed",), source="DeepSpeed lr_schedules"),
+        Constraint(enum=HF_SCHEDULERS, word_list="transformers-arguments", source="transformers SchedulerType"),
+        Constraint(enum=DEEPSPEED_SCHEDULERS, word_list="deepspeed", source="DeepSpeed lr_schedules"),
     ),
-    "optim.name": (Constraint(enum=HF_OPTIMIZERS, layouts=_HF_ARGS, source="transformers OptimizerNames"),),
+    "optim.name": (Constraint(enum=HF_OPTIMIZERS, word_list="transformers-arguments",
+                              source="transformers OptimizerNames"),),
     "batch.per_device": (Constraint(minimum=1, source="a batch holds at least one sample"),),
     "batch.accumulation": (Constraint(minimum=1, source="at least one micro-batch per step"),),
     "batch.global": (Constraint(minimum=1, source="DeepSpeed: train_batch_size > 0"),),
     "data.seq_len": (Constraint(minimum=1, source="a sequence holds at least one token"),),
-    "cadence.eval_strategy": (Constraint(enum=EVAL_STRATEGIES, layouts=_HF_ARGS + ("axolotl",),
+    "cadence.eval_strategy": (Constraint(enum=EVAL_STRATEGIES, word_list="transformers-strategies",
                                          source="transformers IntervalStrategy"),),
-    "cadence.save_strategy": (Constraint(enum=SAVE_STRATEGIES, layouts=_HF_ARGS + ("axolotl",),
+    "cadence.save_strategy": (Constraint(enum=SAVE_STRATEGIES, word_list="transformers-strategies",
                                          source="transformers SaveStrategy"),),
     "cadence.eval_steps": (Constraint(exclusive_minimum=0, source="transformers: a step count or a ratio in (0, 1)"),),
     "cadence.save_steps": (Constraint(exclusive_minimum=0, source="transformers: a step count or a ratio in (0, 1)"),),
@@ -93,9 +97,9 @@ CONSTRAINTS: dict[str, tuple[Constraint, ...]] = {
     "cadence.evals_per_epoch": (Constraint(minimum=1, source="a positive count"),),
     "cadence.saves_per_epoch": (Constraint(minimum=1, source="a positive count"),),
     "runtime.zero_stage": (Constraint(enum=(0, 1, 2, 3), source="DeepSpeed zero_optimization.stage"),),
-    "runtime.distributed": (Constraint(enum=ACCELERATE_DISTRIBUTED, layouts=("accelerate",),
+    "runtime.distributed": (Constraint(enum=ACCELERATE_DISTRIBUTED, word_list="accelerate",
                                        source="accelerate DistributedType"),),
-    "precision.mixed": (Constraint(enum=ACCELERATE_PRECISION, layouts=("accelerate",),
+    "precision.mixed": (Constraint(enum=ACCELERATE_PRECISION, word_list="accelerate",
                                    source="accelerate mixed_precision choices"),),
     "hardware.num_gpus": (Constraint(minimum=1, source="a positive count"),),
     "hardware.num_machines": (Constraint(minimum=1, source="a positive count"),),
@@ -112,8 +116,12 @@ _TYPES = {
 }
 
 
-def _applies(c: Constraint, layout: str | None) -> bool:
-    return c.layouts is None or (layout is not None and layout in c.layouts)
+def _applies(c: Constraint, layout: "Layout | str | None") -> bool:
+    """Whether a constraint holds for a layout (given as a Layout or by its name)."""
+    if c.word_list is None:
+        return True
+    lay = BY_NAME.get(layout) if isinstance(layout, str) else layout
+    return lay is not None and c.word_list in lay.word_lists
 
 
 def field_schema(name: str, layout: str | None = None) -> dict[str, Any]:
@@ -121,7 +129,7 @@ def field_schema(name: str, layout: str | None = None) -> dict[str, Any]:
     out = dict(_TYPES[FIELD_TYPES.get(name, "any")])
     constraints = [c for c in CONSTRAINTS.get(name, ()) if layout is None or _applies(c, layout)]
     enums = [c for c in constraints if c.enum is not None]
-    if layout is None and any(c.layouts for c in enums):
+    if layout is None and any(c.word_list for c in enums):
         enums = []  # layout-specific word lists: only in a layout's own schema
     for c in constraints:
         if c.enum is not None:
@@ -194,7 +202,7 @@ class Violation:
     source: str
 
 
-def violations(name: str, value: Any, layout: str | None) -> list[Violation]:
+def violations(name: str, value: Any, layout: "Layout | str | None") -> list[Violation]:
     """What the schema would reject in one typed value (the value already has the right type)."""
     out: list[Violation] = []
     for c in CONSTRAINTS.get(name, ()):

@@ -11,7 +11,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from .findings import too_large
-from .layouts import BY_NAME, FIELD_TYPES, LAYOUTS, NOT_TRAINING, Layout
+from .layouts import (BASE_FILE_KEYS, BY_NAME, FIELD_TYPES, LAYOUTS, METHOD_WORDS, NOT_TRAINING,
+                      UNREAD_FORMATS, Layout, UnreadFormat)
 from .load import Document, dotted
 
 _NUMBER = re.compile(r"^[-+]?(?:\.[0-9]+|[0-9][0-9_]*(?:\.[0-9_]*)?)(?:[eE][-+]?[0-9]+)?$")
@@ -94,10 +95,53 @@ def _score(layout: Layout, data: dict) -> int:
     for section, prefixes in layout.sections.items():
         sub = data.get(section)
         if isinstance(sub, dict):
+            local = layout.section_names.get(section, {})
             for key in sub:
                 names.add(key)
                 names.update(p + str(key) for p in prefixes)
+                if key in local and section not in layout.restricted_sections:
+                    names.add(local[key])
     return sum(layout.signature.get(k, 0) for k in names if isinstance(k, str))
+
+
+NOT_READ_YET = "not a format cfgcheck reads (yet)"
+_TUNED = ("train_micro_batch_size_per_gpu", "gradient_accumulation_steps", "train_batch_size")
+
+
+def _has_target(data: Any, depth: int = 0) -> bool:
+    if not isinstance(data, dict) or depth > 3:
+        return False
+    return "_target_" in data or any(_has_target(v, depth + 1) for v in data.values())
+
+
+def _matches(fmt: UnreadFormat, data: dict) -> bool:
+    if fmt.shape == "composed":
+        defaults = data.get("defaults")
+        listed = isinstance(defaults, list) and defaults and all(
+            isinstance(x, (str, dict)) for x in defaults)
+        named = any(isinstance(data.get(k), str) and data[k].strip().lower().endswith((".yaml", ".yml", ".json"))
+                    for k in BASE_FILE_KEYS)  # still there: the base file could not be read
+        return bool(listed) or named or _has_target(data)
+    if fmt.shape == "tuning-space":
+        zero = data.get("zero_optimization")
+        stage_list = isinstance(zero, dict) and isinstance(zero.get("stage"), list)
+        return stage_list or any(isinstance(data.get(k), list) for k in _TUNED)
+    where = data.get(fmt.section) if fmt.section else data
+    if not isinstance(where, dict):
+        return False
+    names = {k.replace("-", "_") for k in where if isinstance(k, str)}
+    hits = names & fmt.marks
+    return len(hits) >= fmt.min_hits and (not fmt.required or bool(names & fmt.required))
+
+
+def unread_format(data: Any) -> UnreadFormat | None:
+    """The format cfgcheck recognises but does not read that DATA is in, or None."""
+    if not isinstance(data, dict):
+        return None
+    for fmt in UNREAD_FORMATS:
+        if _matches(fmt, data):
+            return fmt
+    return None
 
 
 def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
@@ -110,6 +154,9 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
     for what, marks in NOT_TRAINING.items():
         if len(top & marks) >= 2 or (what == "github-workflow" and True in data and "jobs" in top):
             return None, f"looks like a {what} file"
+    unread = unread_format(data)
+    if unread is not None:
+        return None, f"{unread.title} ({unread.name}): {NOT_READ_YET}"
     best, best_score = None, 0
     for layout in LAYOUTS:
         s = _score(layout, data)
@@ -122,21 +169,53 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
 
 # --------------------------------------------------------------------------- building
 
-def _index(layout: Layout, data: dict) -> dict[str, tuple]:
-    """Bare names -> first key path that spells them, top level first."""
-    index: dict[str, tuple] = {}
-    queue: list[tuple[tuple, dict, tuple[str, ...]]] = [((), data, ())]
+_MAX_SECTION_DEPTH = 4
+
+
+def _index(layout: Layout, data: dict) -> dict[str, list[tuple]]:
+    """Bare names -> the key paths that spell them, the preferred one first.
+
+    The top level comes first, then sections breadth-first in file order. Inside a section the
+    layout knows, the section's prefixes may be dropped (``lora: {alpha: 32}``) and its
+    section-local names count (``model: {name_or_path: ...}``). A restricted section (``eval:``)
+    gives only its local names; a foreign one (``ref_model:``, an inline DeepSpeed mapping) and
+    everything below it is never searched. With ``search_all_sections`` a mapping under any other
+    name is searched for bare names as written.
+    """
+    index: dict[str, list[tuple]] = {}
+    queue: list[tuple[tuple, dict, tuple[str, ...], dict[str, str], bool]] = [((), data, (), {}, False)]
+
+    def put(name: str, path: tuple) -> None:
+        paths = index.setdefault(name, [])
+        if path not in paths:
+            paths.append(path)
+
     while queue:
-        base, mapping, prefixes = queue.pop(0)
+        base, mapping, prefixes, local, restricted = queue.pop(0)
         for key, value in mapping.items():
             if not isinstance(key, str):
                 continue
             path = base + (key,)
-            index.setdefault(key, path)
-            for pre in prefixes:
-                index.setdefault(pre + key, path)
-            if isinstance(value, dict) and key in layout.sections and len(base) < 3:
-                queue.append((path, value, prefixes + layout.sections[key]))
+            if key in local:
+                put(local[key], path)
+            if not restricted:
+                put(key, path)
+                for pre in prefixes:
+                    put(pre + key, path)
+            elif key.startswith(("eval_", "per_device_eval", "evaluation_", "logging_", "save_",
+                                 "load_best", "metric_for_best", "greater_is_better")):
+                put(key, path)  # a full name of an evaluation or checkpoint setting is that setting
+            if not isinstance(value, dict) or len(base) >= _MAX_SECTION_DEPTH - 1:
+                continue
+            lowered = key.lower()
+            if lowered in layout.foreign_sections:
+                continue
+            named = key in layout.sections or lowered in layout.section_names
+            if not named and not layout.search_all_sections:
+                continue
+            sub_local = layout.section_names.get(lowered, {})
+            sub_restricted = restricted or lowered in layout.restricted_sections
+            queue.append((path, value, prefixes + layout.sections.get(key, ()), sub_local, sub_restricted))
     return index
 
 
@@ -191,7 +270,17 @@ def _coerce(name: str, written: Any) -> tuple[Any, bool, bool, bool]:
     return written, True, False, False
 
 
-def _add(view: RunView, name: str, path: tuple, written: Any) -> None:
+def _also(data: dict, paths: list[tuple]) -> str:
+    """A note when the same setting is written in more than one place with different values."""
+    first = _walk(data, paths[0])[1]
+    others = [p for p in paths[1:] if _walk(data, p)[1] != first]
+    if not others:
+        return ""
+    where = ", ".join(f"{dotted(p)}: {_walk(data, p)[1]!r}" for p in others[:3])
+    return f"{dotted(paths[0])} is used (the top level first, then the first section); also written: {where}"
+
+
+def _add(view: RunView, name: str, path: tuple, written: Any, note: str = "") -> None:
     if name in view.fields:
         return
     source = written
@@ -202,7 +291,7 @@ def _add(view: RunView, name: str, path: tuple, written: Any) -> None:
     value, ok, auto, from_text = _coerce(name, source)
     huge = ok and too_large(value)  # no rule does arithmetic on a number past any run's range
     f = Field(name=name, value=value if ok and not huge else None, path=path, written=written,
-              auto=auto, from_text=from_text)
+              auto=auto, from_text=from_text, note=note)
     view.fields[name] = f
     if huge:
         view.out_of_range.append(f)
@@ -258,13 +347,33 @@ def fill(view: RunView, layout: Layout, data: dict) -> None:
                     _add(view, name, tuple(spec[1:].split(".")), written)
                     break
             else:
-                path = index.get(spec)
-                if path is not None:
-                    found, written = _walk(data, path)
-                    if isinstance(written, dict):
-                        continue  # a section that shares the name, not a value
-                    _add(view, name, path, written)
+                paths = [p for p in index.get(spec, ()) if not isinstance(_walk(data, p)[1], dict)]
+                if paths:  # (a mapping is a section that shares the name, not a value)
+                    _found, written = _walk(data, paths[0])
+                    _add(view, name, paths[0], written, _also(data, paths))
                     break
+
+
+def _model_from_builder(view: RunView, layout: Layout, data: dict) -> None:
+    """The model of a component recipe: the one its builder builds, else its checkpoint folder."""
+    if view.has("model.ref") or (not layout.builder_models and not layout.model_dir):
+        return
+    builder = view.get("model.builder")
+    if builder is not None and isinstance(builder.value, str):
+        last = builder.value.rsplit(".", 1)[-1]
+        base = re.sub(r"^q?lora_", "", last)
+        for pattern, ref in layout.builder_models:
+            if re.search(pattern, base):
+                view.fields["model.ref"] = Field(
+                    name="model.ref", value=ref, path=builder.path, written=builder.written,
+                    note=f"{ref}: the model the builder {last} builds")
+                return
+    if layout.model_dir:
+        path = tuple(layout.model_dir.split("."))
+        found, written = _walk(data, path)
+        if found and isinstance(written, str) and written.strip():
+            view.fields["model.ref"] = Field(name="model.ref", value=written.strip(), path=path,
+                                             written=written, note="the checkpoint folder (its config.json)")
 
 
 def _infer_method(view: RunView) -> None:
@@ -272,12 +381,13 @@ def _infer_method(view: RunView) -> None:
     stated = view.get("method") or view.get("adapter.kind")
     if stated is not None and isinstance(stated.value, str):
         word = stated.value.strip().lower()
-        mapped = {"lora": "lora", "qlora": "qlora", "full": "full", "freeze": None}.get(word)
-        if mapped:
-            view.method, view.method_stated, view.method_field = mapped, True, stated
-        elif word == "freeze":
+        words = layout.method_values if layout is not None else METHOD_WORDS
+        mapped = words.get(word)
+        if mapped == "partial":
             view.method_stated, view.method_field = True, stated
             return  # some layers train fully, the others stay frozen: neither full nor adapter
+        if mapped:
+            view.method, view.method_stated, view.method_field = mapped, True, stated
     builder = view.get("model.builder")
     if view.method is None and layout is not None and layout.method_patterns and builder is not None \
             and isinstance(builder.value, str):
@@ -299,10 +409,6 @@ def _infer_method(view: RunView) -> None:
             view.method = "lora"
             view.method_stated = enabled is not None
             view.method_field = enabled
-        elif layout is not None and layout.name == "peft-adapter":
-            view.method = "lora"
-        elif layout is not None and layout.name == "trainer":
-            view.method = "full"  # no adapter anywhere: every weight trains
         elif layout is not None and layout.default_method and stated is None:
             view.method = layout.default_method
     bits = view.value("quant.bits")
@@ -322,5 +428,6 @@ def build_view(doc: Document, layout_name: str | None = None) -> RunView:
     if layout is None:
         return view
     fill(view, layout, doc.data)
+    _model_from_builder(view, layout, doc.data)
     _infer_method(view)
     return view

@@ -12,7 +12,7 @@ LAYERS = {
     "findings": 0, "load": 0, "knowledge": 0,
     "layouts": 1, "schedule": 1, "waivers": 1,
     "view": 2, "catalogue": 2,
-    "checks": 3, "plan": 3, "links": 3, "parallel": 3,
+    "checks": 3, "plan": 3, "links": 3, "parallel": 3, "compose": 3, "sweep": 3,
     "engine": 4,
     "render": 5, "fix": 5, "project": 5, "baseline": 5, "schema": 3,
     "api": 6, "editor": 6, "lrcurve": 1,
@@ -72,6 +72,147 @@ def test_only_the_cli_exits_or_touches_argv():
             if word in text:
                 offenders.append(f"{path.name}: {word}")
     assert offenders == []
+
+
+# --------------------------------------------------------------------------- layouts carry their meaning
+
+def _is_layout_name(node: ast.AST, aliases: set[str]) -> bool:
+    """``x.layout.name``, ``layout.name``, ``lay.name`` or a variable assigned from one."""
+    if isinstance(node, ast.Name):
+        return node.id in aliases
+    if isinstance(node, ast.Attribute) and node.attr == "name":
+        owner = node.value
+        if isinstance(owner, ast.Name):
+            return owner.id in ("layout", "lay") or owner.id.endswith("_layout")
+        if isinstance(owner, ast.Attribute):
+            return owner.attr == "layout"
+    if isinstance(node, ast.IfExp):
+        return _is_layout_name(node.body, aliases) or _is_layout_name(node.orelse, aliases)
+    return False
+
+
+def _names_a_layout(node: ast.AST, names: set[str]) -> bool:
+    """A string constant that is some layout's name, or a tuple/list/set of only such names."""
+    if isinstance(node, ast.Constant):
+        return isinstance(node.value, str) and node.value in names
+    if isinstance(node, (ast.Tuple, ast.List, ast.Set)):
+        return bool(node.elts) and all(_names_a_layout(e, names) for e in node.elts)
+    return False
+
+
+def _is_layout_object(node: ast.AST, objects: set[str]) -> bool:
+    """``TRAINER`` or ``layouts.TRAINER``: a layout compared by identity is a name test too."""
+    if isinstance(node, ast.Name):
+        return node.id in objects
+    return isinstance(node, ast.Attribute) and node.attr in objects
+
+
+def layout_name_tests(source: str, layout_names: set[str], objects: set[str] = frozenset()) -> list[int]:
+    """Lines where code decides something by a layout's name instead of its attributes."""
+    tree = ast.parse(source)
+    found: list[int] = []
+    for fn in [tree] + [n for n in ast.walk(tree) if isinstance(n, (ast.FunctionDef, ast.AsyncFunctionDef))]:
+        aliases: set[str] = set()
+        for node in ast.walk(fn):
+            if isinstance(node, ast.Assign) and _is_layout_name(node.value, set()):
+                aliases.update(t.id for t in node.targets if isinstance(t, ast.Name))
+        consts: set[str] = set()  # module constants holding layout names: _X = ("trainer", ...)
+        for node in ast.walk(fn):
+            if isinstance(node, ast.Assign) and _names_a_layout(node.value, layout_names):
+                consts.update(t.id for t in node.targets if isinstance(t, ast.Name))
+        for node in ast.walk(fn):
+            if not isinstance(node, ast.Compare):
+                continue
+            operands = [node.left, *node.comparators]
+            if any(_is_layout_name(o, aliases) or _is_layout_object(o, objects) for o in operands) or \
+                    any(_names_a_layout(o, layout_names) or
+                        (isinstance(o, ast.Name) and o.id in consts) for o in operands):
+                found.append(node.lineno)
+    return sorted(set(found))
+
+
+def test_no_rule_or_module_tests_a_layout_by_its_name():
+    from cfgcheck import layouts
+
+    names = {lay.name for lay in layouts.LAYOUTS}
+    objects = {k for k, v in vars(layouts).items() if isinstance(v, layouts.Layout)}
+    offenders = []
+    for path in sorted(PKG.rglob("*.py")):
+        if path.name == "layouts.py":
+            continue  # the layout definitions themselves
+        for line in layout_name_tests(path.read_text(), names, objects):
+            offenders.append(f"{path.relative_to(PKG)}:{line}")
+    assert offenders == [], "decide by a Layout attribute, not its name: " + ", ".join(offenders)
+
+
+def test_the_layout_name_test_finder_finds_each_spelling():
+    names = {"trainer", "axolotl", "llama-factory"}
+    src = (
+        "_HF = ('trainer', 'llama-factory')\n"
+        "def a(view):\n    return view.layout.name == 'axolotl'\n"
+        "def b(view):\n    layout = view.layout.name if view.layout else ''\n    return layout in _HF\n"
+        "def c(lay):\n    return lay.name != 'trainer'\n"
+        "def d(view):\n    return view.layout.trainer_defaults\n"
+        "def e(view):\n    return f'{view.layout.name} names'\n"
+        "def f(view):\n    return view.layout is TRAINER\n"
+    )
+    assert layout_name_tests(src, names, {"TRAINER"}) == [3, 6, 8, 14]
+
+
+def _findings_under(layout, text: str, fmt: str = "yaml", **opts):
+    from cfgcheck import view as viewmod
+    from cfgcheck.engine import FileReport, Options, lint_view
+    from cfgcheck.knowledge.hardware import find_gpu
+    from cfgcheck.load import load_text
+
+    doc = load_text(text, "case." + fmt, fmt)[0]
+    v = viewmod.RunView(doc=doc, layout=layout)
+    viewmod.fill(v, layout, doc.data)
+    viewmod._infer_method(v)
+    options = Options(gpu=find_gpu(opts["gpu"]) if "gpu" in opts else None, rows=opts.get("rows"))
+    report = FileReport(file="case." + fmt)
+    lint_view(v, options, "case." + fmt, report)
+    return sorted((f.rule, f.key, f.data.get("variant")) for f in report.findings)
+
+
+def test_a_renamed_layout_lints_like_the_original():
+    """A layout is its attributes: the same table under another name gives the same findings."""
+    import dataclasses
+
+    from cfgcheck.layouts import AXOLOTL, LLAMA_FACTORY, TORCHTUNE, TRAINER
+
+    cases = [
+        (TRAINER, "learning_rate: 2.0e-5\nlr_scheduler_type: constant\nwarmup_ratio: 0.1\n"
+                  "load_best_model_at_end: true\neval_strategy: steps\nbf16: true\n"
+                  "per_device_train_batch_size: 4\nnum_train_epochs: 1\nmax_steps: 10\n", {"gpu": "t4"}),
+        (LLAMA_FACTORY, "finetuning_type: lora\nlora_target: q_proj,v_proj\nlora_rank: 8\n"
+                        "lr_scheduler_type: constant\nwarmup_steps: 10\ncutoff_len: 1024\n", {}),
+        (AXOLOTL, "adapter: qlora\nlora_r: 8\nlora_alpha: 16\nload_in_4bit: true\n"
+                  "peft_init_lora_weights: loftq\nsample_packing: true\nmicro_batch_size: 2\n", {}),
+        (TORCHTUNE, "model:\n  _component_: torchtune.models.llama2.lora_llama2_7b\n  lora_rank: 8\n"
+                    "  lora_alpha: 16\ndataset:\n  packed: true\ndtype: bf16\nbatch_size: 2\n", {"gpu": "t4"}),
+    ]
+    for layout, text, opts in cases:
+        renamed = dataclasses.replace(layout, name="acme-runner")
+        original = _findings_under(layout, text, **opts)
+        assert original, layout.name  # each case says something, so the comparison means something
+        assert _findings_under(renamed, text, **opts) == original, layout.name
+
+
+def test_layout_attributes_hold_known_words():
+    from cfgcheck.knowledge import keys
+    from cfgcheck.layouts import LAYOUTS
+    from cfgcheck.schema import CONSTRAINTS
+
+    lists = {c.word_list for cs in CONSTRAINTS.values() for c in cs if c.word_list}
+    for lay in LAYOUTS:
+        assert lay.role in ("run", "engine", "launch", "adapter"), lay.name
+        assert lay.fp16_mode in ("autocast", "loads-weights", "refused"), lay.name
+        assert lay.targets_text in ("regex", "comma-list", "comma-list-or-regex"), lay.name
+        assert lay.word_lists <= lists, lay.name
+        assert lay.key_table is None or lay.key_table in keys.layouts(), lay.name
+        assert set(lay.method_values.values()) <= {"full", "lora", "qlora", "partial"}, lay.name
+        assert lay.default_method in (None, "full", "lora", "qlora"), lay.name
 
 
 def _module_graph() -> dict[str, set[str]]:

@@ -61,6 +61,7 @@ def test_api_example_runs(tmp_path):
     p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path,
                        env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
     assert p.returncode == 0, p.stderr
-    # alpha 16: scale 16/8 = 2, 16/16 = 1, 16/64 = 0.25 (LoRA paper sec. 4.1): only r64 is flagged
+    # alpha 16: scale 16/8 = 2, 16/16 = 1, 16/64 = 0.25 (LoRA paper sec. 4.1): only r64 is flagged,
+    # and at 2e-5 its effective step 5e-6 is below the published recipes (QLoRA: 1e-4 x 0.25)
     assert "lora-scale-below-one warning lora_alpha 0.25" in p.stdout
     assert "cfgcheck rejected the config" in p.stdout and "precision-unsupported-on-gpu" in p.stdout

@@ -127,7 +127,7 @@ def test_case_inputs_keep_their_byte_features():
 ])
 def test_trainable_modules_fix_follows_the_bundled_model_knowledge(model, added):
     text = (f"model_name_or_path: {model}\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
-            "lora_target_modules: [q_proj, v_proj]\nchat_template: \"<|turn|>\"\n")
+            "lora_target_modules: [q_proj, v_proj]\nchat_template: \"<start_of_turn>\"\n")  # Gemma markers: in neither vocabulary
     result = fix.fix_text(text, "run.yaml", api.make_options(), training=True)
     assert result.error is None and [a.rule for a in result.applied] == ["chat-format-untrained-embeddings"]
     assert yaml.safe_load(result.new_text)["lora_modules_to_save"] == added

@@ -15,7 +15,7 @@ bnb_4bit_use_double_quant: true
 lora_r: 16
 lora_alpha: 32
 lora_target_modules: [q_proj, v_proj]
-chat_template: "<|turn|>{{ m }}"
+chat_template: "<|im_start|>{{ m }}"
 per_device_train_batch_size: 5
 gradient_checkpointing: true
 max_seq_length: 2048

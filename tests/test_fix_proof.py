@@ -106,12 +106,14 @@ def test_cli_diff_writes_nothing_and_no_write_exits_one(tmp_path):
 
 def test_cli_training_tier_and_halving(tmp_path):
     p = tmp_path / "run.yaml"
-    p.write_text(TEXT + "chat_template: \"<|turn|>\"\nper_device_train_batch_size: 8\n"
+    p.write_text(TEXT + "added_tokens: [\"<|turn|>\"]\nper_device_train_batch_size: 8\n"
                  "gradient_accumulation_steps: 2\n")
     out = _cli("fix", "--allow-training-changes", "--halve-batch", "--gpu", "t4", p)
     assert out.exit_code == 0, out.output
     data = yaml.safe_load(p.read_text())
-    assert data["lora_alpha"] == 32  # 2 x r (PEFT LoRA scaling alpha/r; our target scale 2)
+    # r 16, alpha 8 at 2e-4: a tuned recipe (lr x scale 1e-4); scale 1 (alpha = r) paired with
+    # the learning rate that keeps lr x scale (PEFT LoRA scaling alpha/r)
+    assert data["lora_alpha"] == 16 and data["learning_rate"] == 1.0e-4
     assert data["bf16"] is False and data["fp16"] is True
     assert data["lora_modules_to_save"] == ["embed_tokens", "lm_head"]  # PEFT troubleshooting guide
     assert (data["per_device_train_batch_size"], data["gradient_accumulation_steps"]) == (4, 4)

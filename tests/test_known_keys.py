@@ -22,13 +22,14 @@ def _version(v: str) -> tuple[int, ...]:
     return tuple(int(p) for p in v.split("."))
 
 
-def test_layouts_are_the_four_config_kinds():
-    assert layouts() == ("accelerate", "deepspeed", "peft-adapter", "trainer")
+def test_layouts_are_the_library_kinds_and_the_recipe_runners():
+    assert layouts() == ("accelerate", "axolotl", "deepspeed", "llama-factory", "peft-adapter",
+                         "torchtune", "trainer")
 
 
 def test_unknown_layout_is_a_clear_error():
-    with pytest.raises(ValueError, match="unknown layout 'axolotl'"):
-        lookup("learning_rate", "axolotl")
+    with pytest.raises(ValueError, match="unknown layout 'peft-bench'"):
+        lookup("learning_rate", "peft-bench")
 
 
 def test_trainer_keys_are_found_with_owner_and_range():
@@ -255,3 +256,60 @@ def test_deepspeed_and_accelerate_corpus_top_level_keys_are_known():
         assert [k for k in data if lookup(k, layout) is None] == [], row["file"]
         checked += 1
     assert checked >= 20
+
+
+# --------------------------------------------------------------------------- recipe runners
+
+
+def test_runner_key_lists_name_their_release_and_files():
+    data = json.loads((KNOWLEDGE / "runner_keys.json").read_text(encoding="utf-8"))["layouts"]
+    # the releases the layouts' notes cite (axolotl 0.19.0, llamafactory 0.9.5, torchtune 0.6.1)
+    assert data["axolotl"]["source"].startswith("axolotl 0.19.0")
+    assert data["llama-factory"]["source"].startswith("llamafactory 0.9.5")
+    assert data["torchtune"]["source"].startswith("torchtune 0.6.1")
+    for entry in data.values():
+        assert entry["files"] and entry["keys"]
+        assert list(entry["keys"]) == sorted(entry["keys"])
+
+
+def test_axolotl_keys_from_its_settings_model():
+    # axolotl 0.19.0 utils/schemas/config.py AxolotlInputConfig and its bases
+    for key in ("base_model", "adapter", "lora_r", "lora_alpha", "micro_batch_size", "num_epochs",
+                "sequence_len", "sample_packing", "special_tokens", "tokens", "chat_template"):
+        assert lookup(key, "axolotl") is not None, key
+    assert lookup("lora_alpah", "axolotl") is None
+    assert suggest("lora_alpah", "axolotl") == "lora_alpha"
+    assert suggest("num_epoch", "axolotl") == "num_epochs"
+
+
+def test_llama_factory_keys_include_transformers_training_arguments():
+    # llamafactory 0.9.5 hparams: FinetuningArguments.lora_rank, DataArguments.cutoff_len; its
+    # TrainingArguments derives from transformers' Seq2SeqTrainingArguments
+    for key in ("lora_rank", "lora_target", "cutoff_len", "finetuning_type", "template",
+                "per_device_train_batch_size", "learning_rate", "predict_with_generate"):
+        assert lookup(key, "llama-factory") is not None, key
+    assert suggest("gradient_accumulation_step", "llama-factory") == "gradient_accumulation_steps"
+
+
+def test_torchtune_recipe_keys_and_component_parameters():
+    from cfgcheck.knowledge.keys import _data
+
+    # torchtune 0.6.1 recipes/lora_finetune_single_device.py reads cfg.epochs, cfg.batch_size...
+    for key in ("epochs", "batch_size", "gradient_accumulation_steps", "max_steps_per_epoch",
+                "enable_activation_checkpointing", "log_every_n_steps", "dtype", "checkpointer"):
+        assert lookup(key, "torchtune") is not None, key
+    comps = _data()["components"]["torchtune"]
+    # torchtune 0.6.1 models/llama2/_model_builders.py lora_llama2_7b; qlora_llama2_7b is a partial of it
+    lora = comps["torchtune.models.llama2.lora_llama2_7b"]
+    assert {"lora_rank", "lora_alpha", "lora_attn_modules", "apply_lora_to_mlp"} <= set(lora["params"])
+    assert comps["torchtune.models.llama2.qlora_llama2_7b"]["params"] == lora["params"]
+    assert lora["open"] is False
+
+
+def test_suggestions_search_only_keys_within_reach():
+    from cfgcheck.knowledge.keys import _letter_gap, _osa_distance
+
+    # the letter-count bound never exceeds the edit distance (each edit moves at most two counts)
+    for a, b in [("lora_alpah", "lora_alpha"), ("num_epoch", "num_epochs"), ("abc", "xyz"),
+                 ("learning_rate", "warmup_ratio"), ("", "ab")]:
+        assert _letter_gap(a, b) <= _osa_distance(a, b, 99)

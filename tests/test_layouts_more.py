@@ -161,3 +161,81 @@ def test_interpolated_field_takes_the_target_value():
     text = TORCHTUNE.replace("batch_size: 4\n", "base_batch: 4\nbatch_size: ${base_batch}\n")
     f = _view(text).get("batch.per_device")
     assert f.value == 4 and f.written == "${base_batch}"
+
+
+# --------------------------------------------------------------------------- component recipes' model
+
+_TT_LLAMA2 = """\
+model:
+  _component_: torchtune.models.llama2.lora_llama2_7b
+  lora_attn_modules: [q_proj, v_proj]
+  lora_rank: 8
+  lora_alpha: 16
+tokenizer:
+  _component_: torchtune.models.llama2.llama2_tokenizer
+  path: /nonexistent/acme-llama2/tokenizer.model
+  max_seq_len: 8192
+checkpointer:
+  _component_: torchtune.training.FullModelHFCheckpointer
+  checkpoint_dir: /nonexistent/acme-llama2
+  checkpoint_files: [model.safetensors]
+  model_type: LLAMA2
+  output_dir: /tmp/out
+enable_activation_checkpointing: true
+max_steps_per_epoch: null
+log_every_n_steps: 1
+batch_size: 2
+epochs: 1
+"""
+
+
+def test_component_recipe_model_comes_from_its_builder():
+    from cfgcheck import engine
+    from cfgcheck.load import load_text
+    from cfgcheck.view import build_view
+
+    view = build_view(load_text(_TT_LLAMA2, "r.yaml")[0])
+    ref = view.get("model.ref")
+    assert ref.value == "meta-llama/Llama-2-7b-hf" and ref.path == ("model", "_component_")
+    assert "lora_llama2_7b" in ref.note
+    # Llama 2 has a 4096-token context (Touvron et al. 2023, table 1; torchtune llama2_7b max_seq_len=4096)
+    report = engine.lint_text(_TT_LLAMA2, "r.yaml")
+    hits = [f for f in report.findings if f.rule == "seq-len-above-context-window"]
+    assert hits and hits[0].severity.word == "warning" and hits[0].key == "tokenizer.max_seq_len"
+
+
+def test_component_recipe_model_from_the_checkpoint_folder(tmp_path):
+    import json
+
+    from cfgcheck import engine
+
+    folder = tmp_path / "acme-model"
+    folder.mkdir()
+    # a Llama-2-7B-shaped config.json (shapes: Touvron et al. 2023, table 1)
+    (folder / "config.json").write_text(json.dumps({
+        "architectures": ["LlamaForCausalLM"], "model_type": "llama", "hidden_size": 4096,
+        "intermediate_size": 11008, "num_hidden_layers": 32, "num_attention_heads": 32,
+        "num_key_value_heads": 32, "vocab_size": 32000, "max_position_embeddings": 4096,
+        "tie_word_embeddings": False, "torch_dtype": "float16"}))
+    text = _TT_LLAMA2.replace("torchtune.models.llama2.lora_llama2_7b", "acme.models.custom_builder")
+    text = text.replace("/nonexistent/acme-llama2", str(folder))
+    cfg = tmp_path / "r.yaml"
+    cfg.write_text(text)
+    report = engine.lint_file(cfg)
+    hits = [f for f in report.findings if f.rule == "seq-len-above-context-window"]
+    assert hits and hits[0].severity.word == "warning"
+
+
+def test_recipe_runner_added_tokens_feed_the_chat_format_view():
+    from cfgcheck import engine
+
+    text = ("base_model: mistralai/Mistral-7B-v0.1\nadapter: lora\nlora_r: 16\nlora_alpha: 32\n"
+            "lora_target_linear: true\nmicro_batch_size: 2\nsequence_len: 2048\nsample_packing: true\n"
+            "chat_template: chatml\nspecial_tokens:\n  eos_token: \"<|im_end|>\"\n"
+            "tokens:\n  - \"<|im_start|>\"\n  - \"<|im_end|>\"\n")
+    report = engine.lint_text(text, "a.yaml")
+    hits = [f for f in report.findings if f.rule == "chat-format-untrained-embeddings"]
+    assert hits and hits[0].key == "tokens"
+    fixed = text + "lora_modules_to_save:\n  - embed_tokens\n  - lm_head\n"
+    assert not [f for f in engine.lint_text(fixed, "a.yaml").findings
+                if f.rule == "chat-format-untrained-embeddings"]

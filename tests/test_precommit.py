@@ -21,7 +21,7 @@ pytestmark = pytest.mark.slow
 
 # alpha 8 < r 16: adapter scale 0.5 (LoRA paper sec. 4.1, scale alpha/r) -> a warning, exit 1;
 # 2e-4 is text to PyYAML (YAML 1.1 resolver: a float needs a dot) -> the fix hook writes 2.0e-4
-BAD = "use_peft: true\nlora_r: 16\nlora_alpha: 8\nlearning_rate: 2e-4\n"
+BAD = "use_peft: true\nlora_r: 16\nlora_alpha: 8\nlearning_rate: 2e-5\n"
 GOOD = "use_peft: true\nlora_r: 16\nlora_alpha: 32\nlearning_rate: 2.0e-4\n"
 
 
@@ -89,7 +89,7 @@ def test_hook_blocks_a_bad_config_and_passes_a_good_one(tmp_path):
     assert blocked.returncode != 0, out
     assert "runs/route-planner-lora.yaml:3:13: warning:" in out and "[lora-scale-below-one]" in out
     assert "files were modified by this hook" in out  # pre-commit's own report of the fix hook
-    assert cfg.read_text() == BAD.replace("2e-4", "2.0e-4")  # the fix that keeps the meaning
+    assert cfg.read_text() == BAD.replace("2e-5", "2.0e-5")  # the fix that keeps the meaning
     assert _git(repo, "rev-list", "--count", "HEAD", env=env).stdout.strip() == "1"  # nothing committed
 
     cfg.write_text(GOOD)

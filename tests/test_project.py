@@ -174,7 +174,7 @@ def test_pyproject_on_python_without_tomllib(tmp_path, monkeypatch):
     ("profiles:\n  - paths: runs/**\n    gpu: a100-8gb\n", 3, 10, "a100-80gb"),
     ("severty:\n  duplicate-key: error\n", 1, 1, "did you mean severity"),
     ("severity:\n  lora-scale-below-on: error\n", 2, 3, "did you mean lora-scale-below-one"),
-    ("thresholds:\n  lora-scale-below-one:\n    min_scal: 2\n", 3, 5, "its thresholds: min_scale, target_scale"),
+    ("thresholds:\n  lora-scale-below-one:\n    min_scal: 2\n", 3, 5, "its thresholds: min_effective_step, min_scale, target_scale"),
     ("thresholds:\n  lora-scale-below-one:\n    min_scale: high\n", 3, 16, "is not of type 'number'"),
     ("waive:\n  - rule: duplicate-key\n    files: a.json\n", 2, 5, "'reason' is a required property"),
     ("rules:\n  only: [Duplicate_Key]\n", 2, 10, "does not match"),

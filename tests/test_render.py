@@ -29,7 +29,7 @@ LORA = """\
 use_peft: true
 lora_r: 16
 lora_alpha: 8
-learning_rate: 2e-4
+learning_rate: 2e-5
 bf16: true
 per_device_train_batch_size: 4
 max_grad_norm: 1.0  # cfgcheck: waive duplicate-key because kept while the template settles

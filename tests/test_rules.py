@@ -34,8 +34,8 @@ def test_alpha_below_rank_message_states_the_scale():
     (f,) = findings("use_peft: true\nlora_r: 16\nlora_alpha: 8\n", "lora-scale-below-one")
     assert f.severity == Severity.WARNING and f.key == "lora_alpha" and (f.line, f.column) == (3, 13)
     assert "lora_alpha 8 < r 16" in f.message and "scale 0.5" in f.message
-    assert f.data["scale"] == 0.5 and f.data["new_alpha"] == 32  # target alpha = 2r (common practice, no source)
-    assert "32" in f.hint
+    assert f.data["scale"] == 0.5 and f.data["new_alpha"] == 16  # alpha = r: scale 1 (LoRA paper App. D)
+    assert "16" in f.hint and "no learning rate is written" in f.message
 
 
 def test_guanaco_recipe_scale_is_flagged_with_its_numbers():
@@ -90,21 +90,49 @@ def test_adapter_rate_on_adapter_run_is_fine():
 # --- chat format -----------------------------------------------------------------------------
 
 def test_new_tokens_are_an_error_and_template_a_warning():
-    base = "model_name_or_path: acme/base-3b\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
-    (w,) = findings(base + "chat_template: '<|turn|>{{ m }}'\n", "chat-format-untrained-embeddings")
-    assert w.severity == Severity.WARNING
+    # Llama 2's 32000-token vocabulary holds <unk>, <s>, </s> only (tokenizer files, from memory)
+    base = "model_name_or_path: meta-llama/Llama-2-7b-hf\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
+    (w,) = findings(base + "chat_template: '<|im_start|>{{ m }}<|im_end|>'\n", "chat-format-untrained-embeddings")
+    assert w.severity == Severity.WARNING and w.data["format"] == "ChatML"
+    assert w.data["markers"] == "<|im_end|>, <|im_start|>" and "32000 tokens" in w.message
     (e,) = findings(base + "added_tokens: ['<|turn|>']\n", "chat-format-untrained-embeddings")
     assert e.severity == Severity.ERROR and e.key == "added_tokens"
 
 
-def test_instruct_model_with_its_template_is_fine():
-    text = "model_name_or_path: acme/model-8b-Instruct\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\nchat_template: '<|turn|>'\n"
+def test_text_role_markers_need_no_new_embeddings():
+    # the zephyr format: <|user|> and friends as text, turns ended by the base EOS
+    zephyr = ("{% for m in messages %}{{ '<|' + m.role + '|>\\n' + m.content + eos_token }}"
+              "{% endfor %}{{ '<|assistant|>' }}")
+    text = ("model_name_or_path: mistralai/Mistral-7B-v0.1\nuse_peft: true\nlora_r: 16\nlora_alpha: 16\n"
+            f"chat_template: \"{zephyr}\"\n")
+    assert findings(text, "chat-format-untrained-embeddings") == []
+    # an unknown base with text markers: nothing to judge, so not even a note
+    text = "model_name_or_path: acme/base-3b\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\nchat_template: '<|turn|>'\n"
     assert findings(text, "chat-format-untrained-embeddings") == []
 
 
-def test_lora_on_embeddings_counts_as_trained():
+def test_a_base_whose_vocabulary_holds_the_markers_is_fine():
+    # Qwen2.5 base tokenizers carry <|im_start|> 151644 and <|im_end|> 151645
+    text = ("model_name_or_path: Qwen/Qwen2.5-7B\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
+            "chat_template: '<|im_start|>{{ m }}<|im_end|>'\n")
+    assert findings(text, "chat-format-untrained-embeddings") == []
+    # Phi-3's format (it ends turns with <|end|>) on a Llama 2 base: its markers are absent
+    text = ("model_name_or_path: meta-llama/Llama-2-7b-hf\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
+            "chat_template: '<|user|>{{ m }}<|end|>'\n")
+    (f,) = findings(text, "chat-format-untrained-embeddings")
+    assert f.data["format"] == "Phi-3" and f.data["markers"] == "<|end|>, <|user|>"
+
+
+def test_special_markers_on_an_unknown_base_are_a_note():
     text = ("model_name_or_path: acme/base-3b\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
-            "lora_target_modules: [q_proj, v_proj, embed_tokens, lm_head]\nchat_template: '<|turn|>'\n")
+            "chat_template: '<|im_start|>{{ m }}'\n")
+    (f,) = findings(text, "chat-format-untrained-embeddings")
+    assert f.severity == Severity.INFO and f.data["judged"] is False
+
+
+def test_lora_on_embeddings_counts_as_trained():
+    text = ("model_name_or_path: meta-llama/Llama-2-7b-hf\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
+            "lora_target_modules: [q_proj, v_proj, embed_tokens, lm_head]\nchat_template: '<|im_start|>'\n")
     assert findings(text, "chat-format-untrained-embeddings") == []
 
 
@@ -192,3 +220,25 @@ def test_exponent_rewrite_is_a_float_in_both_yaml_versions(raw, fixed):
 
 def test_version_dependent_value_not_reported_in_json():
     assert found('{"learning_rate": 1e-4, "per_device_train_batch_size": 4}', "a.json") == []
+
+
+def test_added_tokens_the_base_already_holds_need_no_new_rows():
+    # Qwen2.5's tokenizer already holds <|im_start|> and <|im_end|> (added_tokens 151644/151645)
+    text = ("model_name_or_path: Qwen/Qwen2.5-7B\nuse_peft: true\nlora_r: 8\nlora_alpha: 16\n"
+            "additional_special_tokens: ['<|im_start|>', '<|im_end|>']\n")
+    assert findings(text, "chat-format-untrained-embeddings") == []
+    (f,) = findings(text.replace("'<|im_end|>'", "'<|tool|>'"), "chat-format-untrained-embeddings")
+    assert f.data["count"] == 1 and f.data["tokens"] == "<|tool|>"
+
+
+def test_public_zephyr_qlora_recipe_brings_no_new_tokens():
+    from pathlib import Path
+
+    path = (Path(__file__).resolve().parents[2] / "shared" / "corpus" / "public"
+            / "alignment-handbook__recipes__zephyr-7b-beta__sft__config_qlora.yaml")
+    if not path.is_file():
+        pytest.skip("../shared/corpus/public is not present")
+    # the zephyr format writes <|user|>, <|system|>, <|assistant|> as text and ends turns with the
+    # Mistral EOS </s>: nothing for the frozen embeddings to learn
+    rep = lint(path.read_text(), path.name)
+    assert [f for f in rep.findings if f.rule == "chat-format-untrained-embeddings"] == []

@@ -18,7 +18,7 @@ from cfgcheck.render import FORMATS, render
 
 ROOT = Path(__file__).resolve().parents[1]
 ENV = dict(os.environ, PYTHONPATH=str(ROOT))
-LORA = "model_name_or_path: tidewater/support-7b\nlora_r: 16\nlora_alpha: 8\nlearning_rate: 2.0e-4\n"
+LORA = "model_name_or_path: tidewater/support-7b\nlora_r: 16\nlora_alpha: 8\nlearning_rate: 2.0e-5\n"
 
 
 @pytest.fixture
@@ -38,7 +38,7 @@ def test_a_failing_rule_is_one_internal_error_and_the_others_run(broken_rule, tm
     assert [(e.rule, Path(e.file).name) for e in report.internal] == [(broken_rule, "run.yaml")]
     assert "ZeroDivisionError: boom" in report.internal[0].error
     warned = [f.rule for f in report.findings if f.severity >= Severity.WARNING]
-    assert warned == ["lora-scale-below-one"]  # alpha 8 < r 16
+    assert warned == ["lora-scale-below-one"]  # alpha 8 < r 16 at 2e-5: effective step 1e-5, below the published recipes
     assert report.problems == []
     assert api.exit_code(report) == api.EXIT_INTERNAL
     text = render("text", report, report.findings)

@@ -50,7 +50,7 @@ def test_hand_checks_agree_with_jsonschema(layout):
             by_hand = sch.violations(name, value, layout)
             if layout is None:
                 by_hand = [v for v in by_hand if v.problem != "not-one-of"]
-                if any(c.enum and c.layouts is None for c in sch.CONSTRAINTS[name]):
+                if any(c.enum and c.word_list is None for c in sch.CONSTRAINTS[name]):
                     by_hand = sch.violations(name, value, None)
             errors = sch.validate_with_jsonschema({name: value}, layout)
             assert bool(by_hand) == bool(errors), (name, value, layout, by_hand, errors)

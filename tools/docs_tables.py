@@ -47,8 +47,14 @@ def fixes_table() -> str:
     return "\n".join(rows)
 
 
-TABLES = {"rules": rules_table, "fixes": fixes_table}
-FILES = {"docs/layouts-and-rules.md": ("rules",), "docs/fixing.md": ("fixes",)}
+def layouts_table() -> str:
+    from cfgcheck.layouts import layouts_markdown
+
+    return layouts_markdown().rstrip("\n")
+
+
+TABLES = {"rules": rules_table, "fixes": fixes_table, "layouts": layouts_table}
+FILES = {"docs/layouts-and-rules.md": ("rules", "layouts"), "docs/fixing.md": ("fixes",)}
 
 
 def render(text: str, names: tuple[str, ...]) -> str:

@@ -33,12 +33,26 @@ with :mod:`ast`:
   dicts: the string literals ``accelerate config`` writes in ``cluster.py`` plus
   the ``accelerate launch`` options the launcher copies them onto.
 
+The recipe runners (axolotl, LLaMA-Factory, torchtune) are scanned at one release each
+(``RUNNERS``) into ``runner_keys.json``, with the release and the files read:
+
+* ``axolotl``       - fields and aliases of the pydantic ``AxolotlInputConfig`` (and its bases)
+  in ``axolotl/utils/schemas/config.py``, nested models as dotted keys, and the plugins'
+  settings models in ``axolotl/integrations/*/args.py``;
+* ``llama-factory`` - dataclass fields of the argument classes ``get_train_args`` parses
+  (``llamafactory/hparams/*.py``); its ``TrainingArguments`` derives from transformers', so
+  the transformers keys count too;
+* ``torchtune``     - the keys the recipes (``recipes/*.py``) read from their config
+  (``cfg.x``, ``cfg.get("x")``), and the parameters of every public function and class of the
+  package, the ``_component_`` targets whose sub-keys are their arguments.
+
 Usage (from the repository root; needs pip and network access to PyPI)::
 
     python tools/generate_known_keys.py                 # download what is missing, write the JSON
     python tools/generate_known_keys.py --cache DIR     # default ~/.cache/cfgcheck-keys
     python tools/generate_known_keys.py --offline       # use only archives already in the cache
     python tools/generate_known_keys.py --check         # exit 1 if the committed JSON is stale
+    python tools/generate_known_keys.py --runners       # the recipe runners' runner_keys.json
 
 To scan another version, edit ``SCAN`` below and rerun.  The output is sorted and
 deterministic: the same archives always give the same file.
@@ -774,6 +788,229 @@ SCANNERS = {
 }
 
 
+# Recipe runners ----------------------------------------------------------------
+#
+# The runners are scanned at one release each (the one the layouts' notes cite); their key
+# lists go to ``runner_keys.json`` with the release and the files they come from.
+
+RUNNERS: dict[str, str] = {"axolotl": "0.19.0", "llamafactory": "0.9.5", "torchtune": "0.6.1"}
+RUNNER_LAYOUT = {"axolotl": "axolotl", "llamafactory": "llama-factory", "torchtune": "torchtune"}
+DEFAULT_RUNNER_OUTPUT = REPO_ROOT / "cfgcheck" / "knowledge" / "runner_keys.json"
+
+
+def _pydantic_like(pkg: Package, mod: Module, cls: ast.ClassDef) -> bool:
+    return "BaseModel" in ancestry(pkg, mod, cls) or cls.name == "BaseModel"
+
+
+def _field_aliases(value: ast.expr | None) -> list[str]:
+    out = []
+    for kw in ("alias", "validation_alias"):
+        v = field_call_kw(value, kw)
+        if isinstance(v, ast.Constant) and isinstance(v.value, str):
+            out.append(v.value)
+    return out
+
+
+def _model_keys(pkg: Package, mod: Module, cls: ast.ClassDef, owner: str, found: Found,
+                prefix: str = "", depth: int = 0) -> None:
+    """Fields (and aliases) of a pydantic model, nested models as dotted keys."""
+    for name, (declaring, fmod, ann, value) in all_fields(pkg, mod, cls).items():
+        for key in [name, *_field_aliases(value)]:
+            add(found, prefix + key, f"{owner}.{declaring.name}")
+        if depth < 2:
+            for nmod, ncls in annotation_classes(pkg, fmod, ann):
+                if _pydantic_like(pkg, nmod, ncls) or is_dataclass(ncls):
+                    # a list of models is a list of mappings: its items are not dotted keys
+                    if "list" in ast.unparse(ann).lower():
+                        continue
+                    _model_keys(pkg, nmod, ncls, owner, found, f"{prefix}{name}.", depth + 1)
+
+
+def scan_axolotl(pkg: Package) -> tuple[Found, list[str]]:
+    found: Found = {}
+    files = []
+    mod = pkg.module("axolotl.utils.schemas.config")
+    if mod is None or "AxolotlInputConfig" not in mod.classes:
+        raise SystemExit("no AxolotlInputConfig in the axolotl archive")
+    _model_keys(pkg, mod, mod.classes["AxolotlInputConfig"], "axolotl", found)
+    files.append("axolotl/utils/schemas/config.py AxolotlInputConfig (and its bases)")
+    # plugins add their own settings models (axolotl/integrations/*/args.py), merged at load time
+    for modname in sorted(pkg.by_name):
+        if modname.startswith("axolotl.integrations.") and modname.endswith(".args"):
+            pmod = pkg.module(modname)
+            for cls in (pmod.classes.values() if pmod else ()):
+                if _pydantic_like(pkg, pmod, cls):
+                    _model_keys(pkg, pmod, cls, "axolotl", found)
+            files.append(pkg.by_name[modname])
+    return found, files
+
+
+def scan_llamafactory(pkg: Package) -> tuple[Found, list[str]]:
+    found: Found = {}
+    files = []
+    for modname, clsname in [
+        ("llamafactory.hparams.model_args", "ModelArguments"),
+        ("llamafactory.hparams.data_args", "DataArguments"),
+        ("llamafactory.hparams.training_args", "TrainingArguments"),
+        ("llamafactory.hparams.finetuning_args", "FinetuningArguments"),
+        ("llamafactory.hparams.generating_args", "GeneratingArguments"),
+        ("llamafactory.hparams.evaluation_args", "EvaluationArguments"),
+    ]:
+        mod = pkg.module(modname)
+        if mod is None or clsname not in mod.classes:
+            raise SystemExit(f"no {clsname} in the llamafactory archive")
+        for name, (declaring, _m, _a, _v) in all_fields(pkg, mod, mod.classes[clsname]).items():
+            add(found, name, f"llamafactory.{declaring.name}")
+        files.append(f"{pkg.by_name[modname]} {clsname}")
+    return found, files
+
+
+def _signature(node: ast.FunctionDef | ast.ClassDef, pkg: Package, mod: Module, depth: int = 0):
+    """(parameter names, takes **kwargs) of a function, or of a class's __init__."""
+    if isinstance(node, ast.ClassDef):
+        init = next((n for n in node.body if isinstance(n, ast.FunctionDef) and n.name == "__init__"), None)
+        if init is None:
+            if is_dataclass(node):
+                return [n for n, _a, _v in own_fields(node)], False
+            for kind, where, base in class_bases(pkg, mod, node):
+                if kind == "class" and depth < 5:
+                    return _signature(base, pkg, where, depth + 1)
+            return None
+        node = init
+    a = node.args
+    names = [x.arg for x in a.posonlyargs + a.args + a.kwonlyargs if x.arg not in ("self", "cls")]
+    return names, a.kwarg is not None
+
+
+def scan_torchtune(pkg: Package, recipes: dict[str, str]) -> tuple[Found, list[str], dict]:
+    found: Found = {}
+    # top-level keys: what the recipes read from their config (cfg.x, cfg.get("x"), cfg["x"])
+    for path in sorted(recipes):
+        try:
+            tree = ast.parse(recipes[path])
+        except SyntaxError:
+            continue
+        owner = "torchtune recipe " + path.rsplit("/", 1)[-1][:-3]
+        for node in ast.walk(tree):
+            key = None
+            if isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name) and node.value.id == "cfg":
+                if node.attr not in ("get", "pop", "keys", "items", "values"):
+                    key = node.attr
+            elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute)
+                  and node.func.attr in ("get", "pop") and isinstance(node.func.value, ast.Name)
+                  and node.func.value.id == "cfg" and node.args
+                  and isinstance(node.args[0], ast.Constant) and isinstance(node.args[0].value, str)):
+                key = node.args[0].value
+            elif (isinstance(node, ast.Subscript) and isinstance(node.value, ast.Name) and node.value.id == "cfg"
+                  and isinstance(node.slice, ast.Constant) and isinstance(node.slice.value, str)):
+                key = node.slice.value
+            if key:
+                add(found, key, owner)
+    # components: the parameters of every public function and class, under its public name
+    components: dict[str, dict] = {}
+    partials: dict[tuple[str, str], ast.Call] = {}  # qlora_x = partial(lora_x, quantize_base=True)
+    for modname in sorted(pkg.by_name):
+        mod = pkg.module(modname)
+        for node in (mod.tree.body if mod else ()):
+            if (isinstance(node, ast.Assign) and isinstance(node.value, ast.Call)
+                    and base_name(node.value.func) == "partial" and node.value.args):
+                for t in node.targets:
+                    if isinstance(t, ast.Name):
+                        partials[(modname, t.id)] = node.value
+
+    def resolve(modname: str, name: str, depth: int = 0):
+        mod = pkg.module(modname)
+        if mod is None or depth > 5:
+            return None
+        if (modname, name) in partials:
+            inner = base_name(partials[(modname, name)].args[0])
+            return resolve(modname, inner, depth + 1) if inner else None
+        if name in mod.imports:
+            src, orig = mod.imports[name]
+            if src in pkg.by_name:
+                return resolve(src, orig, depth + 1)
+        hit = pkg.lookup(modname, name)
+        return hit if hit and hit[0] in ("class", "function") else None
+
+    for modname in sorted(pkg.by_name):
+        if any(part.startswith("_") for part in modname.split(".")):
+            continue
+        mod = pkg.module(modname)
+        if mod is None:
+            continue
+        names = set(mod.classes) | set(mod.functions) | set(mod.imports) \
+            | {n for (m, n) in partials if m == modname}
+        for name in sorted(names):
+            if name.startswith("_"):
+                continue
+            hit = resolve(modname, name)
+            if not hit or hit[0] not in ("class", "function"):
+                continue
+            sig = _signature(hit[2], pkg, hit[1])
+            if sig is None:
+                continue
+            params, varkw = sig
+            components[f"{modname}.{name}"] = {"params": sorted(set(params)), "open": varkw}
+    return found, ["recipes/*.py (keys read from the recipe config)", "torchtune/**.py (component parameters)"], components
+
+
+def read_recipes(archive: Path) -> dict[str, str]:
+    out = {}
+    with zipfile.ZipFile(archive) as zf:
+        for info in zf.infolist():
+            if info.filename.startswith("recipes/") and info.filename.endswith(".py") \
+                    and "/dev/" not in info.filename:
+                out[info.filename] = zf.read(info).decode("utf-8", "replace")
+    return out
+
+
+def build_runners(cache: Path, offline: bool) -> dict:
+    layouts: dict[str, dict] = {}
+    for lib, version in RUNNERS.items():
+        archive = fetch(lib, version, cache, offline)
+        pkg = Package(read_sources(archive, lib))
+        components = None
+        if lib == "torchtune":
+            found, files, components = scan_torchtune(pkg, read_recipes(archive))
+        else:
+            found, files = {"axolotl": scan_axolotl, "llamafactory": scan_llamafactory}[lib](pkg)
+        print(f"{lib} {version}: {len(found)} keys", file=sys.stderr)
+        entry = {
+            "source": f"{lib} {version} (wheel from PyPI)",
+            "files": files,
+            "keys": {k: sorted(v) for k, v in sorted(found.items())},
+        }
+        if lib == "llamafactory":
+            # TrainingArguments derives from transformers' Seq2SeqTrainingArguments: those keys too
+            entry["also"] = "transformers"
+            entry["closed"] = True  # the parser raises on keys no dataclass takes
+        if components is not None:
+            entry["components"] = dict(sorted(components.items()))
+        layouts[RUNNER_LAYOUT[lib]] = entry
+    return {"format": 1, "generated_by": "tools/generate_known_keys.py", "layouts": layouts}
+
+
+def dump_runners(data: dict) -> str:
+    lines = ["{", f' "format": {data["format"]},', f' "generated_by": {json.dumps(data["generated_by"])},',
+             ' "layouts": {']
+    items = sorted(data["layouts"].items())
+    for li, (layout, entry) in enumerate(items):
+        lines.append(f"  {json.dumps(layout)}: {{")
+        parts = []
+        for field_name in ("source", "files", "also", "closed"):
+            if field_name in entry:
+                parts.append(f"   {json.dumps(field_name)}: {json.dumps(entry[field_name])}")
+        for big in ("keys", "components"):
+            if big in entry:
+                rows = [f"    {json.dumps(k)}: {json.dumps(v, sort_keys=True, separators=(',', ':'))}"
+                        for k, v in entry[big].items()]
+                parts.append(f"   {json.dumps(big)}: {{\n" + ",\n".join(rows) + "\n   }")
+        lines.append(",\n".join(parts))
+        lines.append("  }" + ("," if li < len(items) - 1 else ""))
+    lines += [" }", "}"]
+    return "\n".join(lines) + "\n"
+
+
 # --------------------------------------------------------------------------- assembly
 
 
@@ -849,8 +1086,15 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--output", type=Path, default=DEFAULT_OUTPUT, help="JSON file to write")
     ap.add_argument("--offline", action="store_true", help="do not call pip; use the cache only")
     ap.add_argument("--check", action="store_true", help="compare with the existing file instead of writing")
+    ap.add_argument("--runners", action="store_true",
+                    help="only the recipe runners' lists (runner_keys.json; --output defaults to it)")
     ns = ap.parse_args(argv)
-    text = dump(build(ns.cache.expanduser(), ns.offline))
+    if ns.runners:
+        if ns.output == DEFAULT_OUTPUT:
+            ns.output = DEFAULT_RUNNER_OUTPUT
+        text = dump_runners(build_runners(ns.cache.expanduser(), ns.offline))
+    else:
+        text = dump(build(ns.cache.expanduser(), ns.offline))
     if ns.check:
         current = ns.output.read_text(encoding="utf-8") if ns.output.exists() else ""
         if current != text:
@@ -858,7 +1102,7 @@ def main(argv: list[str] | None = None) -> int:
             return 1
         return 0
     ns.output.write_text(text, encoding="utf-8")
-    total = {k: len(v) for k, v in json.loads(text)["layouts"].items()}
+    total = {k: len(v.get("keys", v)) for k, v in json.loads(text)["layouts"].items()}
     print(f"wrote {ns.output}: {total}", file=sys.stderr)
     return 0
 

@@ -2,17 +2,14 @@
 
 from __future__ import annotations
 
-import re
-
 from ..findings import Edit, Fix
+from ..knowledge import chat_tokens
 from ..load import dotted
 from . import check
 
 EMBEDDING_NAMES = {"embed_tokens", "wte", "tok_embeddings", "word_embeddings", "embeddings",
                    "embed_in", "tok_embed"}
 HEAD_NAMES = {"lm_head", "output", "embed_out", "head"}
-# names of models already tuned on a chat format: their template's tokens are trained
-_TUNED = re.compile(r"(instruct|chat|-it\b|-it-|sft|dpo|zephyr|hermes|assistant)", re.I)
 
 
 def _names(value) -> set[str]:
@@ -35,10 +32,23 @@ def chat_format(ctx) -> None:
     template = view.get("data.chat_template")
     tokens = view.get("data.new_tokens")
     new_tokens = sorted(_names(tokens.value)) if tokens is not None else []
-    if (template is None or not template.value) and not new_tokens:
-        return
-    trained = _leaves(_names(view.value("adapter.save_modules")) | _names(view.value("adapter.targets")))
+    fmt, special = (chat_tokens.special_markers(template.value) if template is not None
+                    else (None, set()))
+    if not special and not new_tokens:
+        return  # text role markers are made of tokens the base already has: nothing is new
     arch = ctx.model()
+    vocab = chat_tokens.vocabulary(arch.family, arch.vocab_size) if arch is not None else None
+    if vocab is not None:
+        new_tokens = [t for t in new_tokens if t not in vocab.special]
+        special = special - vocab.special
+    elif not new_tokens:
+        ctx.cannot_judge("the base model's vocabulary is not known offline, so whether it holds "
+                         "the template's special tokens is not known",
+                         markers=", ".join(sorted(special)))
+        return
+    if not special and not new_tokens:
+        return  # the base vocabulary holds them all
+    trained = _leaves(_names(view.value("adapter.save_modules")) | _names(view.value("adapter.targets")))
     tied = bool(arch and arch.tie_word_embeddings)
     has_embed = bool(trained & EMBEDDING_NAMES)
     has_head = bool(trained & HEAD_NAMES) or (tied and has_embed)
@@ -60,10 +70,10 @@ def chat_format(ctx) -> None:
                    missing=" and ".join(missing), save_key=key)
         return
     ref = view.value("model.ref")
-    if isinstance(ref, str) and _TUNED.search(ref.rsplit("/", 1)[-1]):
-        return  # the model already speaks a chat format: its template's tokens are trained
     ctx.report(template, fix=fix, missing=" and ".join(missing), save_key=key,
-               model=ref if isinstance(ref, str) else "the base model")
+               model=ref if isinstance(ref, str) else "the base model",
+               format=fmt.name, markers=", ".join(sorted(special)),
+               vocab=f"{arch.family} ({arch.vocab_size} tokens)", vocab_source=vocab.source)
 
 
 def _fix(view, save, key: str, missing: list[str], tied: bool) -> Fix | None:

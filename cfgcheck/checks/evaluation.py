@@ -5,8 +5,6 @@ from __future__ import annotations
 from ..findings import Edit, Fix
 from . import check
 
-# layouts whose values are transformers TrainingArguments, defaults included
-_HF_DEFAULTS = ("trainer", "llama-factory")
 _DEFAULT = {"cadence.eval_strategy": "no", "cadence.save_strategy": "steps",
             "cadence.save_steps": 500}  # transformers TrainingArguments defaults (4.57 and 5.x)
 
@@ -26,7 +24,7 @@ def best_model_cadence(ctx) -> None:
     best = view.get("cadence.load_best")
     if best is None or best.value is not True:
         return
-    defaults = view.layout is not None and view.layout.name in _HF_DEFAULTS
+    defaults = view.layout is not None and view.layout.trainer_defaults
     ev, ev_f = _word(view, "cadence.eval_strategy", defaults)
     sv, sv_f = _word(view, "cadence.save_strategy", defaults)
     if ev is None or sv is None:

@@ -39,6 +39,14 @@ def dotted_exponent(raw: str) -> str:
     return f"{sign}{whole}{frac}e{esign or '+'}{digits}"
 
 
+def _repository_reader(file: str) -> str:
+    """How the scripts of the config's repository read numbers, when they show it (ast only)."""
+    from ..knowledge.repo_keys import repo_keys
+
+    found = repo_keys(file)
+    return found.number_reader if found is not None else ""
+
+
 @check("yaml-version-dependent-value")
 def yaml_version_dependent(ctx) -> None:
     if ctx.doc.format != "yaml":
@@ -50,11 +58,13 @@ def yaml_version_dependent(ctx) -> None:
             fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
                       edits=(Edit(path=amb.path, old=amb.yaml11, new=float(amb.yaml12)),))
             layout = ctx.view.layout
-            if layout is not None and layout.coerces_numbers:
-                # the layout's own loader or settings model reads the text as a number
+            reader = layout.number_reader if layout is not None and layout.coerces_numbers \
+                else ctx.doc.number_reader or _repository_reader(ctx.file)
+            if layout is not None and reader:
+                # the layout's own loader or settings model (or the loader that composes the
+                # file) reads the text as a number
                 ctx.report(amb.path, "exponent-read-as-number", fix=fix, key=key, raw=amb.raw,
-                           number=amb.yaml12, replacement=new, layout=layout.name,
-                           reader=layout.number_reader)
+                           number=amb.yaml12, replacement=new, layout=layout.name, reader=reader)
                 continue
             ctx.report(amb.path, "exponent-without-dot", fix=fix, key=key, raw=amb.raw,
                        number=amb.yaml12, replacement=new)

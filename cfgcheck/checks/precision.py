@@ -37,7 +37,10 @@ def _wanted(view):
     return out
 
 
-_REPLACEMENT = {"bf16": "fp16", "tf32": "false", "fp8": "bf16", "flash_attention_2": "sdpa"}
+_FP16_WORDS = {"float16", "fp16", "half"}
+# bf16 asked for in several places is one cause: one finding at the first of these, the others
+# listed with it
+_BF16_ORDER = ("precision.bf16", "precision.mixed", "model.dtype", "quant.compute_dtype")
 
 
 def _fp16_edit(view, bf16):
@@ -55,27 +58,102 @@ def _fp16_edit(view, bf16):
                  after=bf16.path),)
 
 
+def _dtype_word(written: str, bits: int) -> str:
+    """float16/float32 in the spelling the file uses (bfloat16 -> float*, bf16 -> fp*)."""
+    short = written.strip().lower() in ("bf16",)
+    return ("fp16" if short else "float16") if bits == 16 else ("fp32" if short else "float32")
+
+
+def _half_plan(view):
+    """How this run leaves bf16 on a card without it: "fp16" (fp16 mixed precision over
+    weights that are fp32 where they train) or "fp32" (the runner refuses fp16, or its fp16 flag
+    would load the trained weights in fp16), and why in words."""
+    lay = view.layout
+    mode = lay.fp16_mode if lay is not None else "autocast"
+    if mode == "refused":
+        return "fp32", "this runner refuses fp16 training and takes bf16 or fp32 only"
+    if mode == "loads-weights" and _trains_weights(view):
+        return "fp32", ("this runner's fp16 flag also loads the weights in fp16, which a full "
+                        "fine-tune cannot train (\"Attempting to unscale FP16 gradients\")")
+    return "fp16", ""
+
+
+def _trains_weights(view) -> bool:
+    """Whether the run trains the base weights themselves (a full or partial fine-tune of a
+    training recipe; not an adapter, and not a DeepSpeed or launcher file, which load no weights)."""
+    return not view.is_adapter and view.layout is not None and view.layout.role == "run"
+
+
+def _trains_full_modules(view) -> bool:
+    """An adapter run that also trains whole modules (modules_to_save): PEFT copies them in the
+    base's dtype, so with fp16 weights their gradients are fp16 and cannot be unscaled (axolotl
+    bug report #1031: the crash appeared once lora_modules_to_save listed embed_tokens and lm_head)."""
+    f = view.get("adapter.save_modules")
+    return view.is_adapter and f is not None and bool(f.value)
+
+
+def _bf16_fix(view, fields, gpu):
+    """One fix for every place that asks for bf16: a config the runner then trains."""
+    plan, _why = _half_plan(view)
+    full = _trains_weights(view) or _trains_full_modules(view)
+    edits: list[Edit] = []
+    words: list[str] = []
+    turned_fp16 = False
+    for f in fields:
+        if f.name == "precision.bf16":
+            edits.append(Edit(path=f.path, old=f.written, new=False))
+            words.append(f"{f.key}: true -> false")
+            fp = view.get("precision.fp16")
+            if plan == "fp16":
+                for e in _fp16_edit(view, f):
+                    edits.append(e)
+                    words.append(f"{dotted(e.path)}: " + ("added as " if e.insert else "-> ")
+                                 + ("true" if e.new is True else "{enabled: true}"))
+                turned_fp16 = True
+            elif fp is not None and fp.value is True:
+                edits.append(Edit(path=fp.path, old=fp.written, new=False))
+                words.append(f"{fp.key}: true -> false")
+        elif f.name == "precision.mixed":
+            if plan != "fp16":
+                return None  # a launcher's mixed precision: fp32 is "no", which we do not guess
+            edits.append(Edit(path=f.path, old=f.written, new="fp16"))
+            words.append(f"{f.key}: {f.written} -> fp16")
+            turned_fp16 = True
+        elif isinstance(f.written, str):
+            # the weights: fp32 where a full fine-tune trains them (fp16 master weights cannot be
+            # unscaled), or where the runner refuses fp16; fp16 for frozen adapter bases
+            # (the 4-bit compute dtype stays 16-bit: fp32 compute is what quant-compute-dtype-fp32 flags)
+            bits = 32 if f.name == "model.dtype" and (plan == "fp32" or full) else 16
+            new = _dtype_word(f.written, bits)
+            edits.append(Edit(path=f.path, old=f.written, new=new))
+            words.append(f"{f.key}: {f.written} -> {new}")
+        else:
+            return None
+    # a full fine-tune whose weights are written as float16 elsewhere must not meet fp16 mixed
+    # precision: those weights train, and fp16 gradients cannot be unscaled
+    dt = view.get("model.dtype")
+    if turned_fp16 and full and dt is not None and dt not in fields and isinstance(dt.value, str) \
+            and dt.value.strip().lower() in _FP16_WORDS:
+        new = _dtype_word(dt.written if isinstance(dt.written, str) else "", 32)
+        edits.append(Edit(path=dt.path, old=dt.written, new=new))
+        words.append(f"{dt.key}: {dt.written} -> {new}")
+    what = ("fp16 mixed precision" + (" over fp32 weights" if full else "")) if turned_fp16 \
+        else "fp32"
+    return Fix(tier="changes-training", summary=f"{', '.join(words)} ({what} on the {gpu.name})",
+               edits=tuple(edits))
+
+
 def _fix_for(feature, f, gpu, view):
     if feature == "tf32":
         return Fix(tier="changes-training", summary=f"{f.key}: true -> false (no TF32 below 8.0)",
                    edits=(Edit(path=f.path, old=f.written, new=False),))
-    if feature == "bf16" and f.name == "precision.bf16":
-        extra = _fp16_edit(view, f)
-        also = "".join(f", {dotted(e.path)}: " + ("added as " if e.insert else "-> ")
-                       + ("true" if e.new is True else "{enabled: true}") for e in extra)
-        return Fix(tier="changes-training",
-                   summary=f"{f.key}: true -> false{also} (use fp16 on {gpu.name})",
-                   edits=(Edit(path=f.path, old=f.written, new=False),) + extra)
-    if feature == "bf16" and isinstance(f.written, str):
-        new = "float16" if f.written.strip().lower() == "bfloat16" else "fp16"
-        return Fix(tier="changes-training", summary=f"{f.key}: {f.written} -> {new}",
-                   edits=(Edit(path=f.path, old=f.written, new=new),))
     return None
 
 
 @check("precision-unsupported-on-gpu")
 def precision_vs_gpu(ctx) -> None:
-    wanted = _wanted(ctx.view)
+    view = ctx.view
+    wanted = _wanted(view)
     if not wanted:
         return
     gpu = ctx.gpu
@@ -83,21 +161,48 @@ def precision_vs_gpu(ctx) -> None:
         ctx.cannot_judge("no GPU named (--gpu NAME); "
                          + ", ".join(sorted({w for w, _ in wanted})) + " support not checked")
         return
+    bf16 = sorted((f for w, f in wanted if w == "bf16"), key=lambda f: _BF16_ORDER.index(f.name))
+    done_bf16 = False
     for feature, f in wanted:
         if gpu.supports(feature):
             continue
         need, source = FEATURE_MIN_CAPABILITY[feature]
-        if feature == "fp8":
+        extra: dict = {}
+        fix = None
+        if feature == "bf16":
+            if done_bf16:
+                continue
+            done_bf16 = True
+            f, others = bf16[0], bf16[1:]
+            plan, why = _half_plan(view)
+            if plan == "fp32":
+                dt = next((o for o in bf16 if o.name == "model.dtype"), None)
+                how = (f"{dt.key}: {_dtype_word(dt.written, 32)}" if dt is not None
+                       and isinstance(dt.written, str) else "bf16 off, fp16 left off")
+                suits = f"train in fp32 ({how}): {why}"
+            elif not (_trains_weights(view) or _trains_full_modules(view)):
+                suits = "use fp16 mixed precision (with loss scaling) on this card"
+            else:
+                suits = ("use fp16 mixed precision with the weights in fp32 on this card "
+                         "(fp16 weights cannot be trained with loss scaling)")
+            arch = ctx.model() if plan == "fp16" else None
+            if arch is not None and (arch.torch_dtype or "").lower() in _BF16_WORDS:
+                suits += (f"; the {arch.family} weights are stored in {arch.torch_dtype}, so keep "
+                          "dynamic loss scaling on and watch the loss for inf/NaN (fp16 overflows "
+                          "above 65504)")
+            fix = _bf16_fix(view, bf16, gpu)
+            extra = dict(also="".join(f" and {o.key}" for o in others),
+                         also_keys=[o.key for o in others])
+        elif feature == "fp8":
             suits = "bf16" if gpu.supports("bf16") else "fp16"
-        elif feature == "bf16":
-            suits = "fp16 (with loss scaling)"
         elif feature == "tf32":
             suits = "plain fp32 matmuls (tf32: false)"
+            fix = _fix_for(feature, f, gpu, view)
         else:
             suits = "attn_implementation: sdpa"
-        ctx.report(f, feature, fix=_fix_for(feature, f, gpu, ctx.view), key=f.key, feature=feature,
-                   gpu=gpu.label, capability=gpu.capability_text,
-                   needed=f"{need[0]}.{need[1]}", suits=suits, source=source)
+        ctx.report(f, feature, fix=fix, related=[o for o in bf16[1:]] if feature == "bf16" else (),
+                   key=f.key, feature=feature, gpu=gpu.label, capability=gpu.capability_text,
+                   needed=f"{need[0]}.{need[1]}", suits=suits, source=source, **extra)
 
 
 @check("bf16-and-fp16-both-on")
@@ -135,10 +240,8 @@ def fp16_on_bf16_model(ctx) -> None:
         return
     gpu = ctx.gpu
     if gpu is not None and not gpu.supports("bf16"):
-        # fp16 is the only half precision this card has: say so, do not warn against the only choice
-        ctx.report(f, "no-bf16-card", key=f.key, family=arch.family, stored=arch.torch_dtype,
-                   source=arch.source or "model config", gpu=gpu.label,
-                   capability=gpu.capability_text)
+        # fp16 is the only half precision this card has: nothing to change here (the overflow
+        # caveat travels with the bf16 finding and its fix, precision-unsupported-on-gpu)
         return
     ctx.report(f, key=f.key, family=arch.family, stored=arch.torch_dtype,
                source=arch.source or "model config")

@@ -47,12 +47,15 @@ def loftq_with_quantised_base(ctx) -> None:
         edits = [Edit(path=q.path, old=q.written, new=False)]
         also = ""
         m = view.method_field
-        # axolotl refuses `adapter: qlora` without load_in_4bit: the run becomes a plain LoRA
-        if view.layout is not None and view.layout.name == "axolotl" and m is not None \
+        lay = view.layout
+        # a runner that refuses the "qlora" word without load_in_4bit: the run becomes a plain LoRA
+        lora_word = next((w for w, meaning in lay.method_values.items() if meaning == "lora"),
+                         None) if lay is not None else None
+        if lay is not None and lay.qlora_word_needs_4bit and lora_word and m is not None \
                 and m.name == "method" and isinstance(m.written, str) \
-                and m.written.strip().lower() == "qlora":
-            edits.append(Edit(path=m.path, old=m.written, new="lora"))
-            also = f", {m.key}: {m.written} -> lora"
+                and lay.method_values.get(m.written.strip().lower()) == "qlora":
+            edits.append(Edit(path=m.path, old=m.written, new=lora_word))
+            also = f", {m.key}: {m.written} -> {lora_word}"
         fix = Fix(tier="changes-training",
                   summary=f"{q.key}: true -> false{also} (LoftQ quantises itself)",
                   edits=tuple(edits))

@@ -22,7 +22,7 @@ def yaml_word(word) -> str:
 @check("value-outside-schema")
 def value_outside_schema(ctx) -> None:
     view = ctx.view
-    layout = view.layout.name if view.layout is not None else None
+    layout = view.layout  # its word lists decide which accepted-word checks apply
     ambiguous = {a.path for a in ctx.doc.ambiguities}  # yaml-version-dependent-value says it
     for f in view.out_of_range:  # set aside by the view: no other rule uses these
         ctx.report(f, "too-large", key=f.key, value=number_text(f.written), limit=f"{MAX_MAGNITUDE:,}")

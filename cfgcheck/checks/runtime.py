@@ -29,9 +29,10 @@ def deepspeed_contradicts(ctx) -> None:
     for link in view.cache.get("links", []):
         if link.problem and link.field == "runtime.deepspeed":
             ctx.cannot_judge(f"the DeepSpeed file {link.problem}", linked=link.target)
-    layout = view.layout.name if view.layout is not None else ""
+    defaults = view.layout is not None and view.layout.trainer_defaults
+    launcher = view.layout is not None and view.layout.role == "launch"
     for ds in view.attached:
-        if ds.layout is None or ds.layout.name != "deepspeed":
+        if ds.layout is None or ds.layout.role != "engine":
             continue
         name = "the inline deepspeed block" if ds.doc is view.doc or ds.doc.name == view.doc.name \
             else ds.doc.name
@@ -43,12 +44,12 @@ def deepspeed_contradicts(ctx) -> None:
             value, where = None, None
             if f is not None and isinstance(f.value, int) and not f.auto:
                 value, where = f.value, "written"
-            elif f is None and layout == "trainer" and ours in TRAINER_DEFAULTS:
+            elif f is None and defaults and ours in TRAINER_DEFAULTS:
                 value, where = TRAINER_DEFAULTS[ours], "the default"
             if value is None or value == d.value:
                 continue
             at = f if f is not None else view.get("runtime.deepspeed")
-            ctx.report(at, "accelerate" if layout == "accelerate" else "default",
+            ctx.report(at, "accelerate" if launcher else "default",
                        key=f.leaf if f is not None else hf_key, value=value, where=where,
                        ds_file=name, ds_key=d.key, ds_value=d.value)
         for ours, theirs in (("precision.bf16", "precision.bf16"), ("precision.fp16", "precision.fp16")):

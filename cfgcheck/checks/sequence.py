@@ -50,8 +50,8 @@ def packing_attention(ctx) -> None:
     f = view.get("data.packing")
     if f is None or f.value is not True:
         return
-    if view.layout is not None and view.layout.name == "torchtune":
-        return  # torchtune builds a block-causal mask for packed samples itself
+    if view.layout is not None and view.layout.packing_masks_boundaries:
+        return  # the runner builds a block-causal mask for packed samples itself
     if view.is_on("model.flash_attention"):
         return
     att = view.get("model.attention")

@@ -35,12 +35,12 @@ def target_names(view) -> tuple[list[str] | None, str, object]:
     if f is None or f.value is None:
         return None, "none", None
     value = f.value
-    layout = view.layout.name if view.layout is not None else ""
+    text = view.layout.targets_text if view.layout is not None else "regex"
     if isinstance(value, str):
         word = value.strip()
         if word.lower() in _ALL_WORDS:
             return None, "all", f
-        if layout in ("llama-factory", "llama-factory-v1") or (layout == "axolotl" and "," in word):
+        if text == "comma-list" or (text == "comma-list-or-regex" and "," in word):
             return [t.strip() for t in word.split(",") if t.strip()], "list", f
         return None, "regex", f  # PEFT matches a string target as a regex on full module names
     names = [str(t).strip() for t in value]

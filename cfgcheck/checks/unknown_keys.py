@@ -1,11 +1,26 @@
-"""Keys the detected layout's libraries do not accept: typos, odd spelling, renamed or removed keys.
+"""Keys the detected layout's readers do not accept: typos, odd spelling, renamed or removed keys.
 
-Only layouts with generated key lists are judged (trainer arguments, PEFT adapter configs,
-DeepSpeed and accelerate files); the recipe runners' own key sets are not scanned, so a key
-there is never called a typo.
+Which reader and which key set:
+
+* trainer-style files, PEFT adapter configs, DeepSpeed and accelerate files: the key lists
+  generated from transformers, TRL, PEFT, DeepSpeed and accelerate, plus the keys the scripts of
+  the config's own repository declare (dataclass fields, ``add_argument`` options, read with
+  ``ast``);
+* the recipe runners (axolotl, LLaMA-Factory, torchtune): their own key lists, generated from one
+  release each (``runner_keys.json``); inside a torchtune ``_component_`` mapping, the
+  parameters of that component.
+
+A "did you mean" is offered only for a near miss that is itself no setting any known reader
+takes (``lora_rank`` is LLaMA-Factory's and never becomes ``local_rank``), and whose words each
+differ by a slip of the keyboard (``min_lr`` never becomes ``min_p``). A key nothing is close to
+is an info: the script that reads the file may declare it. Inside the sections of a
+trainer-style file (``training:``, ``lora:``) only near misses are reported: the section
+belongs to the repository's own script.
 """
 
 from __future__ import annotations
+
+from functools import lru_cache
 
 from . import check
 
@@ -16,35 +31,201 @@ def _keys_module():
     return keys
 
 
+@lru_cache(maxsize=1)
+def _read_somewhere() -> frozenset[str]:
+    """Every key name any known reader takes, and every name a layout reads as a setting."""
+    from ..layouts import LAYOUTS
+
+    keys = _keys_module()
+    names: set[str] = set()
+    for layout in keys.layouts():
+        names.update(n.rpartition(".")[2] for n in keys._data()["infos"][layout])
+    for lay in LAYOUTS:
+        for specs in lay.fields.values():
+            names.update(s.rpartition(".")[2].lstrip("=") for s in specs)
+        names.update(lay.sections)
+    return frozenset(names)
+
+
+def _words(text: str) -> list[str]:
+    return [w for w in text.lower().replace(".", "_").split("_") if w]
+
+
+def _edits(a: str, b: str, limit: int) -> int:
+    return _keys_module()._osa_distance(a, b, limit)
+
+
+def slip_of_keyboard(key: str, near: str) -> bool:
+    """Whether KEY could be NEAR mistyped: word by word, each word at most one edit away (two
+    for words of eight letters or more); a word joined or split (``batchsize``) counts as one."""
+    a, b = _words(key), _words(near)
+    if "".join(a) == "".join(b):
+        return True
+    if len(a) != len(b):
+        return _edits("".join(a), "".join(b), 1) <= 1
+    for x, y in zip(a, b):
+        if x != y and _edits(x, y, 2) > (2 if min(len(x), len(y)) >= 8 else 1):
+            return False
+    return True
+
+
+class _Judge:
+    def __init__(self, ctx, layout: str):
+        self.ctx = ctx
+        self.layout = layout
+        self.keys = _keys_module()
+        self.limit = ctx.thresholds.get("suggestion_limit", 200)
+        self.asked = 0
+        self.past_limit = False
+        from ..knowledge.repo_keys import repo_keys
+
+        self.repo = repo_keys(ctx.file) if layout in ("trainer", "llama-factory") else None
+
+    def declared_by_repo(self, name: str) -> str | None:
+        if self.repo is not None and name in self.repo.keys:
+            return self.repo.sources.get(name, "")
+        return None
+
+    def suggestion(self, name: str, table: str | None = None) -> str | None:
+        """A safe nearest key, within the per-document budget of suggestion searches."""
+        if self.asked >= self.limit:
+            self.past_limit = True
+            return None
+        self.asked += 1
+        near = self.keys.suggest(name, table or self.layout)
+        if near is None:
+            return None
+        leaf = name.rpartition(".")[2]
+        if leaf in _read_somewhere() and leaf.strip().lower() != near.rpartition(".")[2].lower():
+            return None  # a different valid setting of some reader: never "corrected" into another
+        if near.lower() != name.strip().lower().replace(" ", "_") and not slip_of_keyboard(name, near):
+            return None
+        return near
+
+    def report_unknown(self, path: tuple, name: str, title: str, *, quiet_when_far: bool = False,
+                       shown_suggestion=None) -> None:
+        ctx = self.ctx
+        if self.declared_by_repo(path[-1]) is not None:
+            return
+        near = self.suggestion(name)
+        if near is not None and near.lower() == name.strip().lower().replace(" ", "_"):
+            ctx.report(path, "spelling", on="key", key=name, shown=repr(path[-1]), suggestion=near)
+        elif near is not None:
+            ctx.report(path, "typo", on="key", key=name,
+                       suggestion=shown_suggestion(near) if shown_suggestion else near)
+        elif self.past_limit:
+            if not quiet_when_far:
+                ctx.report(path, "unknown-past-limit", on="key", key=name, layout=title, limit=self.limit)
+        elif not quiet_when_far:
+            ctx.report(path, "unknown", on="key", key=name, layout=title)
+
+
+def _component_keys(ctx, judge: _Judge, section: tuple, mapping: dict) -> None:
+    """Sub-keys of a ``_component_`` mapping: the component's parameters, when they are known."""
+    target = mapping.get("_component_")
+    comps = judge.keys._data()["components"].get(judge.layout, {})
+    info = comps.get(target) if isinstance(target, str) else None
+    if info is None or info["open"]:
+        return  # a component outside the scanned package, or one that takes any keyword
+    params = set(info["params"])
+    for key in mapping:
+        if not isinstance(key, str) or key == "_component_" or key in params:
+            continue
+        path = section + (key,)
+        if isinstance(mapping[key], dict):
+            continue
+        near = None
+        if judge.asked < judge.limit:
+            judge.asked += 1
+            limit = judge.keys._allowed_edits(len(key))
+            buckets: dict[int, list[str]] = {}
+            for p in sorted(params):
+                buckets.setdefault(len(p), []).append(p)
+            near = judge.keys._nearest(key.lower(), buckets, limit)
+            if near is not None and not slip_of_keyboard(key, near):
+                near = None
+        if near is not None:
+            ctx.report(path, "typo", on="key", key=".".join(path), suggestion=near)
+        else:
+            ctx.report(path, "not-a-parameter", on="key", key=".".join(path), component=target)
+
+
 @check("unknown-key")
 def unknown_key(ctx) -> None:
     view = ctx.view
     if view.layout is None:
         return
     keys = _keys_module()
-    layout = view.layout.name
-    if layout not in keys.layouts():
+    layout = view.layout.key_table  # the key table of the layout's libraries
+    if layout is None or layout not in keys.layouts():
         return
+    judge = _Judge(ctx, layout)
     groups = keys._data()["by_parent"][layout]
     sections = view.layout.sections
+    title = view.layout.title
     for path, entry in ctx.doc.entries.items():
         if not path or entry.key is None or not all(isinstance(p, str) for p in path):
             continue
-        if path[0] in sections and isinstance(ctx.doc.get(path[:1]), dict):
-            continue  # a section of the trainer layout (lora:, training:): our structure, not a key
+        value = ctx.doc.get(path)
+        if len(path) == 1 and isinstance(value, dict) and "_component_" in value:
+            _component_keys(ctx, judge, path, value)
+            continue
+        if layout == "trainer" and path[0] in sections and isinstance(ctx.doc.get(path[:1]), dict):
+            if len(path) > 1 and not isinstance(value, dict):
+                _section_key(ctx, judge, path, sections)
+            continue  # the section itself: the file's own structure, not a key
         parent = ".".join(path[:-1])
         if parent not in groups:
             continue  # a free-form mapping (optimizer.params, fsdp_config of the trainer, ...)
         name = f"{parent}.{path[-1]}" if parent else path[-1]
         info = keys.lookup(name, layout)
+        if info is None and parent:
+            # a section whose reader drops (or adds) a prefix: axolotl reads fsdp_config's
+            # `fsdp_offload_params` as `offload_params` (0.19.0 utils/schemas/validation.py)
+            for pre in sections.get(path[-2], ()):
+                leaf = path[-1]
+                other = leaf[len(pre):] if leaf.startswith(pre) else pre + leaf
+                info = keys.lookup(f"{parent}.{other}", layout) or info
         if info is not None:
             if not info.current:
                 ctx.report(path, "not-current", on="key", key=name, versions=info.versions_text())
             continue
-        near = keys.suggest(name, layout)
-        if near is not None and near.lower() == name.strip().lower().replace(" ", "_"):
-            ctx.report(path, "spelling", on="key", key=name, shown=repr(path[-1]), suggestion=near)
-        elif near is not None:
-            ctx.report(path, "typo", on="key", key=name, suggestion=near)
+        judge.report_unknown(path, name, title)
+
+
+def _section_key(ctx, judge: _Judge, path: tuple, sections: dict) -> None:
+    """A key inside a section of a trainer-style file: a near miss of a trainer key is reported."""
+    keys = judge.keys
+    leaf = path[-1]
+    prefixes = sections.get(path[-2], ()) if len(path) >= 2 else ()
+    spellings = [leaf] + [p + leaf for p in prefixes if not leaf.startswith(p)]
+    if any(keys.lookup(s, "trainer") is not None or s in _read_somewhere() for s in spellings):
+        return
+    if judge.declared_by_repo(leaf) is not None:
+        return
+    local = ctx.view.layout.section_names.get(str(path[-2]).lower(), {}) if len(path) >= 2 else {}
+    if leaf in local:
+        return
+    if local and judge.asked < judge.limit:
+        # a near miss of the section's own local names (training: {num_epoch} -> num_epochs)
+        judge.asked += 1
+        buckets: dict[int, list[str]] = {}
+        for name in sorted(local):
+            buckets.setdefault(len(name), []).append(name)
+        near = keys._nearest(leaf.lower(), buckets, keys._allowed_edits(len(leaf)))
+        if near is not None and slip_of_keyboard(leaf, near) and near not in ("r",):
+            ctx.report(path, "typo", on="key", key=".".join(path), suggestion=near)
+            return
+    for spelling in spellings:
+        near = judge.suggestion(spelling)
+        if near is None:
+            continue
+        shown = near
+        for p in prefixes:  # written without the section's prefix: suggest it without too
+            if spelling != leaf and near.startswith(p):
+                shown = near[len(p):]
+        if near.lower() == spelling.strip().lower().replace(" ", "_"):
+            ctx.report(path, "spelling", on="key", key=".".join(path), shown=repr(leaf), suggestion=shown)
         else:
-            ctx.report(path, "unknown", on="key", key=name, layout=view.layout.title)
+            ctx.report(path, "typo", on="key", key=".".join(path), suggestion=shown)
+        return

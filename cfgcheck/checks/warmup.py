@@ -8,8 +8,11 @@ from ..findings import Edit, Fix
 from ..schedule import derive_for, how_text
 from . import check
 
-# transformers' argument-parser layouts read the schedule keys with the Trainer's meaning
-_HF_ARGS = ("trainer", "llama-factory", "llama-factory-v1", "axolotl")
+
+
+def _trainer_schedule(view) -> bool:
+    """The schedule keys reach the transformers Trainer with its meaning."""
+    return view.layout is not None and view.layout.trainer_schedule
 
 
 def _num(f):
@@ -71,7 +74,7 @@ def constant_ignores_warmup(ctx) -> None:
     sched = view.get("optim.scheduler")
     if sched is None or not isinstance(sched.value, str) or sched.value.strip().lower() not in _CONSTANT:
         return
-    if view.layout is None or view.layout.name not in _HF_ARGS:
+    if not _trainer_schedule(view):
         return
     for name in ("optim.warmup_steps", "optim.warmup_ratio"):
         f = view.get(name)
@@ -87,7 +90,7 @@ def constant_ignores_warmup(ctx) -> None:
 @check("warmup-ratio-and-steps-both-set")
 def warmup_both(ctx) -> None:
     view = ctx.view
-    if view.layout is None or view.layout.name not in _HF_ARGS:
+    if not _trainer_schedule(view):
         return
     steps_f, ratio_f = view.get("optim.warmup_steps"), view.get("optim.warmup_ratio")
     steps, ratio = _num(steps_f), _num(ratio_f)
@@ -99,7 +102,7 @@ def warmup_both(ctx) -> None:
 @check("max-steps-overrides-epochs")
 def max_steps_overrides_epochs(ctx) -> None:
     view = ctx.view
-    if view.layout is None or view.layout.name not in _HF_ARGS:
+    if not _trainer_schedule(view):
         return
     ms_f, ep_f = view.get("optim.max_steps"), view.get("optim.epochs")
     ms, ep = _num(ms_f), _num(ep_f)

@@ -78,6 +78,13 @@ def _result(f, index: dict[str, int], suppression: dict | None = None) -> dict:
         "partialFingerprints": {FINGERPRINT: fingerprint(f)},
         "properties": {"key": f.key, "hint": f.hint, "data": f.as_dict()["data"]},
     }
+    if getattr(f, "related", ()):
+        out["relatedLocations"] = [
+            {"id": i, "message": {"text": f"the same cause, also at {r.key}"},
+             "physicalLocation": {"artifactLocation": {"uri": uri(f.file)},
+                                  "region": {"startLine": r.line, "startColumn": r.column}},
+             "logicalLocations": [{"fullyQualifiedName": r.key, "kind": "member"}]}
+            for i, r in enumerate(f.related)]
     if f.rule in index:
         out["ruleIndex"] = index[f.rule]
     if suppression is not None:

@@ -7,6 +7,8 @@ Options (all off by default, so piped output stays plain): ``color`` (ANSI SGR c
 
 from __future__ import annotations
 
+import re
+
 from ..findings import Severity, printable
 
 _SGR = {"error": "1;31", "warning": "1;33", "info": "1;36", "where": "1", "rule": "2",
@@ -22,13 +24,22 @@ def _paint(text: str, what: str, color: bool) -> str:
     return f"\x1b[{_SGR[what]}m{text}\x1b[0m" if color and text else text
 
 
+_UNREAD = re.compile(r"\(([\w-]+)\): not a format cfgcheck reads \(yet\)$")
+
+
 def summary_line(report, hidden_info: int = 0) -> str:
     errors = report.count(Severity.ERROR)
     warnings = report.count(Severity.WARNING)
     infos = report.count(Severity.INFO)
     parts = [f"{_plural(report.linted, 'config')} checked"]
-    if report.skipped:
-        parts.append(f"{report.skipped} skipped (not training configs)")
+    files = getattr(report, "files", [])
+    unread = sorted({m.group(1) for fr in files if fr.skipped and not fr.problem
+                     and (m := _UNREAD.search(fr.skipped))})
+    unread_count = sum(1 for fr in files if fr.skipped and not fr.problem and _UNREAD.search(fr.skipped))
+    if report.skipped - unread_count:
+        parts.append(f"{report.skipped - unread_count} skipped (not training configs)")
+    if unread_count:
+        parts.append(f"{unread_count} not a format cfgcheck reads (yet): {', '.join(unread)}")
     if report.problems:
         parts.append(f"{len(report.problems)} unreadable")
     counts = f"{_plural(errors, 'error')}, {_plural(warnings, 'warning')}, {infos} info"
@@ -118,12 +129,21 @@ def render(report, visible, *, hidden_info: int = 0, color: bool = False,
             continue
         if frames is not None and f.file in frames:
             lines.extend(frame(frames[f.file], f.line, f.column, color))
+        for r in getattr(f, "related", ()):
+            lines.append(f"    also: {_paint(f'{f.file}:{r.line}:{r.column}:', 'where', color)} {r.key}")
         if f.hint:
             lines.append(f"    {_paint('hint', 'hint', color)}: {printable(f.hint)}")
+        if isinstance(f.data.get("overrides"), str):  # a composed config: which file won
+            lines.append(f"    composed: {printable(f.data['overrides'])}")
+        if isinstance(f.data.get("sweep"), str):  # a sweep: which of its runs
+            lines.append(f"    sweep: {printable(f.data['sweep'])}")
     for e in report.internal:
         rest = "the other rules ran" if e.rule else "the other files were checked"
         lines.append(f"{printable(e.file)}: internal error in {e.where}: {printable(e.error)} "
                      f"(a bug in cfgcheck; {rest})")
     if mode != "quiet":
+        from .notes import lines as note_lines  # "not checked" notes, counted per run
+
+        lines.extend(f"cfgcheck: {line}" for line in note_lines(report.findings))
         lines.append(_paint(summary_line(report, hidden_info), "summary", color))
     return "\n".join(lines) + "\n" if lines else ""

@@ -1,0 +1,355 @@
+"""Composed configs: a ``defaults:`` list, a base file the config names, and ``key=value`` overrides.
+
+The result is one Document whose values are what the loader would see, and whose every key path
+remembers the file that set it (``Document.origins``) and the files it overrode
+(``Document.overrides``), so a finding is located in the file that set the value.
+
+How the loaders compose, as followed here:
+
+* a ``defaults:`` list (Hydra 1.1+, "The Defaults List"): ``- name`` merges ``name.yaml`` at the
+  root; ``- group: option`` merges ``group/option.yaml`` under ``group`` (``group@pkg`` under
+  ``pkg``, ``@_global_`` at the root; ``override``/``optional`` prefixes are accepted; a null
+  option is skipped); ``_self_`` marks where this file's own values go, at the end when absent.
+  Group files are looked up from the primary config's folder, plain names from the including file's.
+  Dicts merge key by key; any other value (lists too) is replaced, as OmegaConf's merge does.
+* a base file named by ``_base_``, ``base_config``, ``extends``, ``inherit_from`` or
+  ``base`` (a path ending in .yaml/.yml/.json, or a list of them): read first, this file overrides.
+* ``key=value`` overrides (the launch command line): ``a.b=1`` sets, ``+a.b=1`` adds, ``++a.b=1``
+  sets or adds, ``~a.b`` removes; the value is read as a YAML scalar.
+
+Only local files are read, at most ``MAX_FILES`` of them, ``MAX_DEPTH`` levels of nesting. A file
+that cannot be found or read leaves the document as written, with the reason
+(``compose_problem``), and the layout detection then names it as a composed config it cannot read.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from . import load as loadmod
+from .layouts import BASE_FILE_KEYS
+from .load import Document, LoadError
+
+MAX_FILES = 32
+MAX_DEPTH = 6
+BASE_KEYS = BASE_FILE_KEYS
+_SUFFIXES = (".yaml", ".yml", ".json")
+# the loader that composes these files reads 2e-5 as a number (OmegaConf's YAML reader)
+OMEGACONF_READER = "the file is composed by an OmegaConf-based loader, whose YAML reader takes it as a float"
+
+
+class ComposeError(Exception):
+    pass
+
+
+@dataclass
+class _State:
+    primary_dir: Path
+    files: list[str] = field(default_factory=list)
+    docs: dict[str, Document] = field(default_factory=dict)
+    defaults_list: bool = False  # composed through a defaults: list (an OmegaConf-based loader)
+
+
+@dataclass
+class _Layer:
+    """Merged values with the file and Entry behind every key path."""
+
+    data: Any = None
+    origin: dict[tuple, tuple] = field(default_factory=dict)  # path -> (file, doc, path in that doc)
+    chain: dict[tuple, list[str]] = field(default_factory=dict)  # path -> files that set it, in order
+
+
+def _layer_of(doc: Document, file: str, data: Any, base: tuple = ()) -> _Layer:
+    layer = _Layer(data=data)
+
+    def walk(value: Any, path: tuple, doc_path: tuple) -> None:
+        layer.origin[path] = (file, doc, doc_path)
+        layer.chain[path] = [file]
+        if isinstance(value, dict):
+            for k, v in value.items():
+                walk(v, path + (k,), doc_path + (k,))
+
+    walk(data, base, ())
+    return layer
+
+
+def _merge(into: _Layer, top: _Layer) -> _Layer:
+    """TOP's values over INTO's: dicts key by key, anything else replaced (OmegaConf's merge)."""
+    if into.data is None:
+        return top
+    out = _Layer()
+
+    def chain(path: tuple) -> list[str]:
+        seen = into.chain.get(path, [])
+        return seen + [f for f in top.chain.get(path, []) if f not in seen]
+
+    def copy(layer: _Layer, value: Any, path: tuple) -> Any:
+        if path in layer.origin:
+            out.origin[path] = layer.origin[path]
+        if path in layer.chain:
+            out.chain[path] = list(layer.chain[path])
+        if isinstance(value, dict):
+            for k, v in value.items():
+                copy(layer, v, path + (k,))
+        return value
+
+    def merge(a: Any, b: Any, path: tuple) -> Any:
+        if isinstance(a, dict) and isinstance(b, dict):
+            res = {}
+            for k, v in a.items():
+                res[k] = merge(v, b[k], path + (k,)) if k in b else copy(into, v, path + (k,))
+            for k, v in b.items():
+                if k not in a:
+                    res[k] = copy(top, v, path + (k,))
+            origin = top.origin.get(path) or into.origin.get(path)
+            if origin is not None:
+                out.origin[path] = origin
+            out.chain[path] = chain(path)
+            return res
+        result = copy(top, b, path)
+        out.chain[path] = chain(path)
+        return result
+
+    out.data = merge(into.data, top.data, ())
+    return out
+
+
+def _read(path: Path, state: _State) -> tuple[Document, str]:
+    if len(state.files) >= MAX_FILES:
+        raise ComposeError(f"more than {MAX_FILES} files to compose")
+    name = str(path)
+    if name in state.docs:
+        return state.docs[name], name
+    try:
+        src = loadmod.read_source(path)
+        docs = loadmod.load_text(src.text, name)
+    except LoadError as exc:
+        raise ComposeError(f"{name}:{exc.line}:{exc.column}: {exc.reason}") from None
+    if not docs or not isinstance(docs[0].data, dict):
+        raise ComposeError(f"{name} is not a mapping")
+    state.files.append(name)
+    state.docs[name] = docs[0]
+    return docs[0], name
+
+
+def _find(name: str, folders: list[Path]) -> Path:
+    text = name.strip()
+    if "://" in text:
+        raise ComposeError(f"{text} is a URL; only local files are read")
+    candidates = []
+    for folder in folders:
+        base = (folder / text).expanduser()
+        candidates += [base] if base.suffix in _SUFFIXES else [base.with_name(base.name + s) for s in (".yaml", ".yml")]
+    for c in candidates:
+        try:
+            if c.is_file():
+                return c
+        except (OSError, ValueError):  # a name too long, a NUL byte: not a file we can read
+            continue
+    raise ComposeError(f"{text} was not found (looked in {', '.join(sorted({str(f) for f in folders}))})")
+
+
+def _entry_key(entry: Any) -> tuple[str, Any] | None:
+    """('group[@pkg]', option) for a dict entry of a defaults list."""
+    if isinstance(entry, dict) and len(entry) == 1:
+        (k, v), = entry.items()
+        if isinstance(k, str):
+            k = k.strip()
+            for word in ("override ", "optional "):
+                if k.startswith(word):
+                    k = k[len(word):].strip()
+            return k, v
+    return None
+
+
+def _compose_file(doc: Document, file: str, state: _State, depth: int) -> _Layer:
+    if depth > MAX_DEPTH:
+        raise ComposeError(f"defaults nested more than {MAX_DEPTH} deep")
+    data = dict(doc.data)
+    here = Path(file).parent
+    layers: list[_Layer] = []
+    # a base file named by the config: read first
+    for key in BASE_KEYS:
+        value = data.get(key)
+        names = [value] if isinstance(value, str) else value if isinstance(value, list) else []
+        names = [n for n in names if isinstance(n, str) and n.strip().lower().endswith(_SUFFIXES)]
+        if not names:
+            continue
+        data.pop(key)
+        for n in names:
+            sub, subname = _read(_find(n, [here]), state)
+            layers.append(_compose_file(sub, subname, state, depth + 1))
+    defaults = data.pop("defaults", None) if isinstance(data.get("defaults"), list) else None
+    if defaults is not None:
+        state.defaults_list = True
+    own = _layer_of(doc, file, {k: v for k, v in data.items()})
+    if defaults is None:
+        layers.append(own)
+    else:
+        placed = False
+        for entry in defaults:
+            if entry == "_self_":
+                layers.append(own)
+                placed = True
+                continue
+            if isinstance(entry, str):
+                sub, subname = _read(_find(entry, [here, state.primary_dir]), state)
+                layers.append(_compose_file(sub, subname, state, depth + 1))
+                continue
+            pair = _entry_key(entry)
+            if pair is None:
+                raise ComposeError(f"a defaults entry cfgcheck cannot read: {entry!r}")
+            group, option = pair
+            group, _, package = group.partition("@")
+            options = option if isinstance(option, list) else [option]
+            for opt in options:
+                if opt is None:
+                    continue
+                if not isinstance(opt, (str, int, float)) or isinstance(opt, bool):
+                    raise ComposeError(f"a defaults entry cfgcheck cannot read: {entry!r}")
+                rel = f"{group.lstrip('/')}/{opt}"
+                sub, subname = _read(_find(rel, [state.primary_dir, here]), state)
+                inner = _compose_file(sub, subname, state, depth + 1)
+                target = package or group.lstrip("/")
+                prefix = () if target in ("_global_", "") else tuple(target.replace("/", ".").split("."))
+                layers.append(_nest(inner, prefix))
+        if not placed:
+            layers.append(own)  # Hydra 1.1+: _self_ goes last when the list does not name it
+    merged = _Layer()
+    for layer in layers:
+        merged = _merge(merged, layer)
+    return merged
+
+
+def _nest(layer: _Layer, prefix: tuple) -> _Layer:
+    if not prefix:
+        return layer
+    data = layer.data
+    for part in reversed(prefix):
+        data = {part: data}
+    out = _Layer(data=data)
+    for p, o in layer.origin.items():
+        out.origin[prefix + p] = o
+    for p, c in layer.chain.items():
+        out.chain[prefix + p] = c
+    return out
+
+
+_FLOAT = re.compile(r"^[-+]?(?:[0-9][0-9_]*(?:\.[0-9_]*)?|\.[0-9]+)(?:[eE][-+]?[0-9]+)?$")
+
+
+def override_value(raw: str) -> Any:
+    """An override's value as the command-line loaders read it: a YAML scalar, and a number for
+    any text that spells one (``1e-4`` too: Hydra's override grammar reads it as a float)."""
+    import yaml
+
+    try:
+        value = yaml.safe_load(raw) if raw.strip() else None
+    except yaml.YAMLError:
+        return raw
+    if isinstance(value, str) and _FLOAT.match(value.strip()):
+        return float(value.strip().replace("_", ""))
+    return value
+
+
+def _apply_overrides(merged: _Layer, overrides: list[str], label: str) -> None:
+    for item in overrides:
+        text = item.strip()
+        if text.startswith("~"):
+            path = tuple(text[1:].split("=", 1)[0].strip().split("."))
+            _set(merged, path, None, label, remove=True)
+            continue
+        if "=" not in text:
+            raise ComposeError(f"override {item!r} is not key=value")
+        key, _, raw = text.partition("=")
+        key = key.lstrip("+").strip()
+        _set(merged, tuple(key.split(".")), override_value(raw), label)
+
+
+def _set(merged: _Layer, path: tuple, value: Any, label: str, remove: bool = False) -> None:
+    cur = merged.data
+    for part in path[:-1]:
+        nxt = cur.get(part) if isinstance(cur, dict) else None
+        if not isinstance(nxt, dict):
+            if remove:
+                return
+            nxt = {}
+            cur[part] = nxt
+        cur = nxt
+    if remove:
+        cur.pop(path[-1], None)
+        return
+    cur[path[-1]] = value
+    for p in [p for p in merged.origin if p[:len(path)] == path and len(p) > len(path)]:
+        del merged.origin[p]
+    merged.origin.pop(path, None)
+    merged.chain[path] = merged.chain.get(path, []) + [label]
+
+
+def composes(data: Any) -> bool:
+    """Whether a document names other files to compose with."""
+    if not isinstance(data, dict):
+        return False
+    if isinstance(data.get("defaults"), list) and data["defaults"]:
+        return True
+    for key in BASE_KEYS:
+        value = data.get(key)
+        names = [value] if isinstance(value, str) else value if isinstance(value, list) else []
+        if any(isinstance(n, str) and n.strip().lower().endswith(_SUFFIXES) for n in names):
+            return True
+    return False
+
+
+def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (),
+            override_label: str = "the command line") -> Document:
+    """DOC composed with the files it names and the overrides; raises ComposeError."""
+    state = _State(primary_dir=Path(file).parent)
+    state.files.append(file)
+    state.docs[file] = doc
+    merged = _compose_file(doc, file, state, 0)
+    if overrides:
+        _apply_overrides(merged, list(overrides), override_label)
+    entries, origins, chains = {}, {}, {}
+    ambiguities = []
+    for path, (src_file, src_doc, doc_path) in merged.origin.items():
+        entry = src_doc.entries.get(doc_path)
+        if entry is not None:
+            entries[path] = entry
+        origins[path] = src_file
+        chain = merged.chain.get(path, [])
+        if len(chain) > 1 and not isinstance(_value_at(merged.data, path), dict):
+            chains[path] = chain
+        for amb in src_doc.ambiguities:
+            if amb.path == doc_path:
+                ambiguities.append(type(amb)(path=path, kind=amb.kind, raw=amb.raw,
+                                             yaml11=amb.yaml11, yaml12=amb.yaml12))
+    for path, chain in merged.chain.items():
+        if path not in origins:  # set by an override: located at the top of the primary file
+            origins[path] = file
+            chains[path] = chain
+    return Document(name=doc.name, format=doc.format, data=merged.data, entries=entries,
+                    duplicates=list(doc.duplicates), ambiguities=ambiguities, tags=list(doc.tags),
+                    index=doc.index, origins=origins, overrides=chains,
+                    composed_from=list(state.files),
+                    number_reader=OMEGACONF_READER if state.defaults_list else "")
+
+
+def _value_at(data: Any, path: tuple) -> Any:
+    for part in path:
+        if not isinstance(data, dict) or part not in data:
+            return None
+        data = data[part]
+    return data
+
+
+def overridden_note(doc: Document, path: tuple) -> str:
+    """'run.yaml overrides base.yaml' for a value set in more than one file, else ''."""
+    chain = doc.overrides.get(tuple(path))
+    if not chain:
+        return ""
+    names = [os.path.basename(c) if os.sep in c else c for c in chain]
+    return f"{names[-1]} overrides {', '.join(reversed(names[:-1]))}"

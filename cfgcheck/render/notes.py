@@ -1,0 +1,66 @@
+"""The "not checked" notes of a run, summarised: one line per rule and reason, with file counts.
+
+A rule that lacks the GPU, the model or the row count says so once per file (an info finding
+whose data holds ``judged: False``). Over a folder those notes repeat; the summary counts them
+instead: "memory-exceeds-gpu not checked for 42 files: model not known offline (22 distinct
+names)". The notes themselves stay findings (JSON carries them; text shows them with
+``--show info``).
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+
+_QUOTED = re.compile(r"'([^']*)'")
+_DETAIL = re.compile(r"\s*\((?:[^()]*['/][^()]*|no model named)\)")
+
+
+def is_note(finding) -> bool:
+    """A "not checked" note (made by ``Context.cannot_judge``), not a finding about a value."""
+    return finding.data.get("judged") is False
+
+
+@dataclass
+class NoteGroup:
+    rule: str
+    reason: str  # the reason without what differs per file (names, paths, feature lists)
+    files: set[str] = field(default_factory=set)
+    names: set[str] = field(default_factory=set)  # the distinct names the reasons quoted
+
+
+def _general(reason: str, data) -> tuple[str, list[str]]:
+    """(the reason shared by every file, the names it quoted)."""
+    names = _QUOTED.findall(reason)
+    linked = data.get("linked")
+    if isinstance(linked, str) and linked:
+        names.append(linked)
+        reason = " ".join(reason.replace(linked, "").split())
+    # per-file detail: a parenthesis that quotes a name or shows a path, and what follows a ";"
+    # (which features were not checked)
+    reason = _DETAIL.sub("", reason)
+    head = reason.split(";", 1)[0].strip()
+    return (head or reason.strip()), names
+
+
+def summarise(findings) -> list[NoteGroup]:
+    """Note groups, most files first, then by rule and reason."""
+    groups: dict[tuple[str, str], NoteGroup] = {}
+    for f in findings:
+        if not is_note(f):
+            continue
+        reason, names = _general(str(f.data.get("reason", "")), f.data)
+        g = groups.setdefault((f.rule, reason), NoteGroup(f.rule, reason))
+        g.files.add(f.file)
+        g.names.update(n for n in names if n)
+    return sorted(groups.values(), key=lambda g: (-len(g.files), g.rule, g.reason))
+
+
+def lines(findings) -> list[str]:
+    """One text line per group."""
+    out = []
+    for g in summarise(findings):
+        n = len(g.files)
+        names = f" ({len(g.names)} distinct name{'' if len(g.names) == 1 else 's'})" if g.names else ""
+        out.append(f"not checked: {g.rule} for {n} file{'' if n == 1 else 's'}: {g.reason}{names}")
+    return out
