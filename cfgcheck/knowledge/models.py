@@ -733,6 +733,20 @@ def resolve_model(
     return _resolve(ref, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=0)
 
 
+def _by_folder_name(ref: str) -> Architecture | None:
+    """A path that is not on this machine (a checkpoint folder of the training host, such as torchtune's
+    ``/tmp/Qwen3-8B``): matched by its last component's name, as an assumption."""
+    parts = [p for p in re.split(r"[\\/]", ref) if p and p not in (".", "..")]
+    if not parts or not _HUB_ID_RE.match(parts[-1]):
+        return None
+    arch = match_catalogue(parts[-1])
+    if arch is None:
+        return None
+    how = f"{ref}: no such folder here; its name {parts[-1]!r} -> the {arch.entry} shape ({arch.match} match)"
+    return replace(arch, how=how, assumed=True, match="folder name",
+                   source=f"{arch.source.split('; assumed from the name:')[0]}; assumed from the name: {how}")
+
+
 def _adapter_base(folder: Path) -> str | None:
     """base_model_name_or_path of a PEFT adapter folder (adapter_config.json), if any."""
     try:
@@ -771,7 +785,7 @@ def _resolve(ref, *, config_dir, cwd, hub_cache, depth) -> Architecture | None:
     except (OSError, ValueError):
         return None
     if not _HUB_ID_RE.match(ref):
-        return None
+        return _by_folder_name(ref)
     cache = Path(hub_cache) if hub_cache is not None else _default_hub_cache()
     arch = _from_hub_cache(ref, cache)
     if arch is not None:
