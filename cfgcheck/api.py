@@ -154,10 +154,11 @@ def lint_mapping(data: Mapping, name: str = "<mapping>", **options: Any) -> File
     return lint_text(text, name, fmt="json", **options)
 
 
-def fix(paths: Iterable[str | Path], *, training: bool = False, halve_batch: bool = False,
+def fix(paths: Iterable[str | Path], *, training: bool = False, halve_batch: int = 0,
         write: bool = True, project: Any = "auto", **options: Any):
     """Fix files and folders; returns a ``fix.FixReport`` (see docs/fixing.md). The project file's
-    hardware profiles, rule selection and waivers apply as they do for ``lint``."""
+    hardware profiles, rule selection and waivers apply as they do for ``lint``. ``halve_batch``
+    counts halvings (True is one)."""
     from . import fix as fixmod
 
     files, options_for, _proj = _targets(list(paths), project, given_options(**options))

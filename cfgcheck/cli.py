@@ -360,7 +360,7 @@ def fix(
     diff: bool = typer.Option(False, "--diff", help="Print a unified diff of the fixes; write nothing."),
     no_write: bool = typer.Option(False, "--no-write", help="Write nothing; exit 1 when a fix would change a file (for CI and pre-commit)."),
     training: bool = typer.Option(False, "--allow-training-changes", help="Also apply fixes that change the training outcome (alpha, learning rate, precision, trainable modules, batch)."),
-    halve_batch: bool = typer.Option(False, "--halve-batch", help="Halve the per-device batch and double gradient accumulation (same effective batch)."),
+    halve_batch: int = typer.Option(0, "--halve-batch", count=True, help="Halve the per-device batch and double gradient accumulation (same effective batch); repeat to halve again (-> a quarter, ...)."),
     gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
     gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
     rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),

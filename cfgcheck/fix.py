@@ -23,10 +23,13 @@ from __future__ import annotations
 import bisect
 import codecs
 import difflib
+import errno
+import functools
 import json
 import os
 import re
 import stat
+import sys
 import tempfile
 from dataclasses import dataclass, field
 from decimal import Decimal
@@ -36,6 +39,7 @@ from typing import Any, Iterable
 import yaml
 
 from . import engine
+from . import links
 from . import load as loadmod
 from .engine import Options
 from .findings import Edit, Finding, InputProblem, InternalError, Severity
@@ -44,7 +48,7 @@ from .load import Document, Entry, LoadError, Source, dotted
 KEEPS_MEANING = "keeps-meaning"
 CHANGES_TRAINING = "changes-training"
 TIERS = (KEEPS_MEANING, CHANGES_TRAINING)
-BATCH_SPLIT = "batch-split"  # the label of the user-requested halving (not a rule of the catalogue)
+BATCH_SPLIT = "--halve-batch"  # the label of the user-requested halving: the option, not a rule id
 
 try:
     from yaml import CSafeLoader as _Scanner
@@ -84,10 +88,16 @@ class FileFix:
     refused: str | None = None  # the write was refused (file changed on disk, cannot write)
     skipped: str | None = None  # not a training config
     written: bool = False
+    links: tuple[str, ...] = ()  # real paths of the files this one links (DeepSpeed, accelerate)
+    needs: tuple[tuple[str, str], ...] = ()  # (rule, flag): fixes that need a flag to be judged
+    evidence: dict | None = None  # a failed proof: before, after, which check (for a bug report)
+    evidence_file: str | None = None  # where the evidence was saved
 
     @property
     def changed(self) -> bool:
-        return self.error is None and self.problem is None and self.new_text != self.old_text
+        """The fixed text differs (and, once written, the write was not refused)."""
+        return (self.error is None and self.problem is None and self.refused is None
+                and self.new_text != self.old_text)
 
     def diff(self) -> str:
         if not self.changed:
@@ -152,32 +162,37 @@ class _Planned:
     finding: Finding | None  # None for the batch split
 
 
-def _halving(view, document: int) -> tuple[_Planned | None, str | None]:
-    """Halve the per-device batch and double accumulation: the effective batch stays the same."""
+def _halving(view, document: int, times: int = 1) -> tuple[_Planned | None, str | None]:
+    """Halve the per-device batch ``times`` times and multiply accumulation by as much: the
+    effective batch stays the same."""
     pd, ga = view.get("batch.per_device"), view.get("batch.accumulation")
+    factor = 2 ** times
     if pd is None:
         return None, "no per-device batch size is set"
     if pd.auto or not isinstance(pd.value, int) or isinstance(pd.value, bool):
         return None, f"{pd.key} is not a whole number ({pd.written!r})"
-    if pd.value < 2 or pd.value % 2:
-        return None, (f"{pd.key} {pd.value} is odd: halving it would change the effective batch")
-    edits = [Edit(path=pd.path, old=pd.written, new=pd.value // 2)]
+    if pd.value < factor or pd.value % factor:
+        what = "halving it" if times == 1 else f"halving it {times} times (dividing by {factor})"
+        return None, (f"{pd.key} {pd.value} is not divisible by {factor}: {what} would change "
+                      "the effective batch")
+    new_pd = pd.value // factor
+    edits = [Edit(path=pd.path, old=pd.written, new=new_pd)]
     if ga is None:
-        edits.append(Edit(path=pd.path[:-1] + ("gradient_accumulation_steps",), old=None, new=2,
-                          insert=True, after=pd.path))
-        ga_text = "gradient_accumulation_steps: added as 2"
+        edits.append(Edit(path=pd.path[:-1] + ("gradient_accumulation_steps",), old=None,
+                          new=factor, insert=True, after=pd.path))
+        ga_text = f"gradient_accumulation_steps: added as {factor}"
     elif ga.auto or not isinstance(ga.value, int) or isinstance(ga.value, bool):
         return None, f"{ga.key} is {ga.written!r}, not a whole number: cannot double it"
     else:
-        edits.append(Edit(path=ga.path, old=ga.written, new=ga.value * 2))
-        ga_text = f"{ga.key}: {ga.value} -> {ga.value * 2}"
-    summary = (f"{pd.key}: {pd.value} -> {pd.value // 2}, {ga_text} "
+        edits.append(Edit(path=ga.path, old=ga.written, new=ga.value * factor))
+        ga_text = f"{ga.key}: {ga.value} -> {ga.value * factor}"
+    summary = (f"{pd.key}: {pd.value} -> {new_pd}, {ga_text} "
                f"(per-device × accumulation stays {pd.value * (ga.value if ga else 1)})")
     return _Planned(BATCH_SPLIT, pd.key, summary, CHANGES_TRAINING, tuple(edits), document, None), None
 
 
 def _plan(report, *, training: bool,
-          halve_batch: bool) -> tuple[list[_Planned], list[Applied], list[str]]:
+          halve_batch: int) -> tuple[list[_Planned], list[Applied], list[str]]:
     planned: list[_Planned] = []
     withheld: list[Applied] = []
     for f in report.findings:
@@ -194,7 +209,7 @@ def _plan(report, *, training: bool,
         for view in report.views:
             if view.skipped:
                 continue
-            item, why = _halving(view, view.doc.index)
+            item, why = _halving(view, view.doc.index, int(halve_batch))
             if item is not None:
                 planned.append(item)
             else:
@@ -206,6 +221,7 @@ def _plan(report, *, training: bool,
 
 # --------------------------------------------------------------------------- rendering values
 
+_EXP_NO_DOT = re.compile(r"([-+]?)([0-9]+)(\.[0-9]*)?([eE])([-+]?)([0-9]+)")
 _PLAIN_STR = re.compile(r"[A-Za-z_][A-Za-z0-9_.\-/]*")
 _COMMENT_PAD = re.compile(r"( {2,})#")
 _PROPS = re.compile(r"[&!][^\s,\[\]{}]*\s+")
@@ -219,6 +235,10 @@ def _float_text(value: float, like: str = "") -> str:
     """
     if value != value or value in (float("inf"), float("-inf")):
         raise _Unplaceable("not a finite number")
+    m = _EXP_NO_DOT.fullmatch(like)
+    if m is not None and float(like) == value:  # "12e-5" -> "12.0e-5": the author's digits stay
+        sign, whole, frac, letter, esign, digits = m.groups()
+        return f"{sign}{whole}{frac if frac and frac != '.' else '.0'}{letter}{esign or '+'}{digits}"
     d = Decimal(repr(float(value)))
     sign, digits, exp = d.as_tuple()
     low = like.lower()
@@ -291,6 +311,7 @@ class _TextEdit:
     end: int
     text: str
     rule: str
+    plan: int = 0  # id() of the _Planned it belongs to
 
 
 class _DocIndex:
@@ -411,6 +432,13 @@ def _append_items(text: str, idx: _DocIndex, path: tuple, extra: list, rule: str
             open_at = text.index("[", entry.value.start)
             return [_TextEdit(open_at + 1, open_at + 1, ", ".join(rendered), rule)]
         last_end = idx.end(items[-1])
+        own = _own_line_comment(text, idx.doc.entries[items[-1]].value.start, last_end)
+        if own is not None:  # "item  # note": the note stays with its item, new items go below
+            indent, comma, next_line = own
+            body = "".join(f"{indent}{r}" + ("," if comma or i < len(rendered) - 1 else "") + _nl_at(text, next_line)
+                           for i, r in enumerate(rendered))
+            return ([] if comma else [_TextEdit(last_end, last_end, ",", rule)]) + \
+                [_TextEdit(next_line, next_line, body, rule)]
         if len(items) >= 2:
             sep = text[idx.end(items[-2]):idx.doc.entries[items[-1]].value.start]
             if "#" in sep or sep.count(",") != 1:
@@ -458,6 +486,11 @@ def _insert_key(text: str, idx: _DocIndex, edit: Edit, rule: str, fmt: str) -> l
     aentry = idx.doc.entries[anchor]
     akey_raw = text[aentry.key.start:aentry.key.end]
     indent = text[aentry.key.start - _indent_of(text, aentry.key.start):aentry.key.start]
+    if "?" in indent:  # "? key" (a complex key, its value on a ": value" line): align under "?"
+        lead, _, after = indent.partition("?")
+        if lead.strip(" \t") or after.strip(" \t"):
+            raise _Unplaceable(f"{dotted(anchor)} is written as a complex key inside another item")
+        indent = lead
     indent = re.sub(r"[^\t]", " ", indent)  # "- key:" in a list item: align under the key
     pos, nl = _line_after(text, idx.end(anchor))
     prefix = ""
@@ -521,9 +554,38 @@ def _insert_flow(text: str, idx: _DocIndex, parent: tuple, key: Any, value: Any,
         rendered = _object_like(text, idx, anchor, value, fmt) or rendered
     if isinstance(value, list) and value:
         rendered = _list_like(text, idx, parent, anchor, value, fmt) or rendered
-    member = "," + gap + _render_key(key, fmt, akey_raw) + colon + rendered
     end = idx.end(anchor)
+    own = _own_line_comment(text, aentry.key.start, end)
+    if own is not None:  # "key: value  # note": the note stays with its member, the new one goes below
+        indent, comma, next_line = own
+        line = f"{indent}{_render_key(key, fmt, akey_raw)}{colon}{rendered}" + ("," if comma else "")
+        return ([] if comma else [_TextEdit(end, end, ",", rule)]) + \
+            [_TextEdit(next_line, next_line, line + _nl_at(text, next_line), rule)]
+    member = "," + gap + _render_key(key, fmt, akey_raw) + colon + rendered
     return [_TextEdit(end, end, member, rule)]
+
+
+def _nl_at(text: str, line_start: int) -> str:
+    """The newline the line before ``line_start`` ends with."""
+    return "\r\n" if text[line_start - 2:line_start] == "\r\n" else "\n"
+
+
+def _own_line_comment(text: str, first: int, end: int) -> tuple[str, bool, int] | None:
+    """For a flow member or item written alone on its line(s) and followed by a comment there:
+    (its indentation, whether a comma follows it, where the next line starts); else None."""
+    line_start = text.rfind("\n", 0, first) + 1
+    indent = text[line_start:first]
+    nl = text.find("\n", end)
+    if nl < 0 or indent.strip(" \t"):
+        return None
+    rest = text[end:nl]
+    hash_at = rest.find("#")
+    if hash_at < 0:
+        return None
+    before = rest[:hash_at]
+    if before.strip(" \t,") or before.count(",") > 1 or (hash_at and before[-1] not in " \t"):
+        return None
+    return indent, "," in before, nl + 1
 
 
 def _object_like(text: str, idx: _DocIndex, sibling: tuple, value: dict, fmt: str) -> str | None:
@@ -576,6 +638,25 @@ def _edits_for(text: str, doc: Document, idx: _DocIndex, plan: _Planned,
         else:
             raise _Unplaceable(f"{dotted(path)} is not written in this file as such "
                                "(merged with <<, or gone)")
+    return _join_commas(text, out)
+
+
+def _join_commas(text: str, edits: list[_TextEdit]) -> list[_TextEdit]:
+    """A "," inserted right after a value that is also rewritten (with the padding before its
+    comment) becomes part of that rewrite: "true  # c" -> "false, # c"."""
+    commas = [e for e in edits if e.start == e.end and e.text == ","]
+    if not commas:
+        return edits
+    out = [e for e in edits if e not in commas]
+    for c in commas:
+        host = next((i for i, e in enumerate(out) if e.start < c.start < e.end
+                     and text[c.start:e.end].strip(" \t") == ""), None)
+        if host is None:
+            out.append(c)
+            continue
+        e = out[host]
+        head, pad = e.text[:len(e.text.rstrip(" "))], e.text[len(e.text.rstrip(" ")):]
+        out[host] = _TextEdit(e.start, e.end, head + "," + (pad[1:] if len(pad) > 1 else pad), e.rule)
     return out
 
 
@@ -653,28 +734,36 @@ _LINE = re.compile(r"[^\n]*\n|[^\n]+\Z")
 
 
 def _outside_lines_identical(old: str, new: str, edits: list[_TextEdit]) -> str | None:
-    """None when every line the edits do not touch is byte-identical in ``new``; else why not."""
+    """None when every line the edits do not touch is byte-identical in ``new``; else why not.
+
+    Linear in the text: each untouched line of ``old`` must sit in ``new`` at its offset shifted
+    by the length change of the edits before it, and ``new`` must be exactly as long as the
+    edits make it.
+    """
+    ordered = sorted(edits, key=lambda e: (e.start, e.end))
+    if len(new) != len(old) + sum(len(e.text) - (e.end - e.start) for e in ordered):
+        return "the fixed text is not as long as its edits make it"
+    # lines end at "\n" only (str.splitlines also breaks at \x85, \u2028, \x0c..., which would
+    # shift every line number after one inside a quoted value)
     starts = [0] + [m.end() for m in re.finditer("\n", old)]
     touched: set[int] = set()
-    for e in edits:
+    for e in ordered:
         first = _line_of(starts, e.start)
         last = _line_of(starts, max(e.start, e.end - 1))
         touched.update(range(first, last + 1))
         if e.start == e.end:
             touched.add(first - 1)  # an insertion at a line start sits after the line before
-    # lines end at "\n" only, as ``starts`` counts them (str.splitlines also breaks at \x85,
-    # \u2028, \x0c..., which would shift every line number after one inside a quoted value)
-    a, b = _LINE.findall(old), _LINE.findall(new)
-    for tag, i1, i2, j1, j2 in difflib.SequenceMatcher(None, a, b, autojunk=False).get_opcodes():
-        if tag == "equal":
+    shifts = [0]  # cumulative length change after each edit, in start order
+    for e in ordered:
+        shifts.append(shifts[-1] + len(e.text) - (e.end - e.start))
+    begins = [e.start for e in ordered]
+    for n, start in enumerate(starts):
+        if n in touched or start >= len(old) and n:
             continue
-        lines = range(i1, i2) if i2 > i1 else range(i1 - 1, i1 + 1)
-        if tag == "insert":
-            if not any(n in touched for n in lines):
-                return f"a line was inserted after line {i1} away from every edit"
-        elif any(n not in touched for n in lines):
-            bad = next(n for n in lines if n not in touched)
-            return f"line {bad + 1} changed but no edit touches it"
+        end = starts[n + 1] if n + 1 < len(starts) else len(old)
+        shift = shifts[bisect.bisect_right(begins, start)] if begins else 0
+        if new[start + shift:end + shift] != old[start:end]:
+            return f"line {n + 1} changed but no edit touches it"
     return None
 
 
@@ -682,9 +771,21 @@ def _finding_key(f: Finding) -> tuple:
     return (f.rule, f.document, tuple(f.path), f.data.get("variant"), f.data.get("reason"))
 
 
-def _prove(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Document],
-           plans: list[_Planned], edits: list[_TextEdit], before, options: Options) -> list[str]:
-    """Raise ProofFailed unless the rewrite is exactly what the plans intend; return notes."""
+class _Shared(Exception):
+    """A training-changing edit reaches other settings through an alias or a merge key (<<)."""
+
+    def __init__(self, plans: list, where: str):
+        super().__init__(where)
+        self.plans = plans
+        self.where = where
+
+
+def _prove_text(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Document],
+                plans: list[_Planned], edits: list[_TextEdit]) -> tuple[list[Document], list[str]]:
+    """Raise ProofFailed unless the new text is exactly what the plans intend (without linting).
+
+    Returns the new documents and notes (values that follow an alias of an edited value).
+    """
     rules = [p.rule for p in plans]
     notes: list[str] = []
     try:
@@ -694,16 +795,25 @@ def _prove(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Doc
                           rules) from None
     if len(new_docs) != len(old_docs):
         raise ProofFailed(f"{len(old_docs)} documents became {len(new_docs)}", rules)
+    by_doc: dict[int, list[_Planned]] = {}
+    for p in plans:
+        by_doc.setdefault(p.document, []).append(p)
     for old_doc, new_doc in zip(old_docs, new_docs):
-        mine = [p for p in plans if p.document == old_doc.index]
-        intended: dict[tuple, tuple[Any, str]] = {}
+        mine = by_doc.get(old_doc.index, [])
+        if not mine:
+            if old_doc.data != new_doc.data and _diff_paths(old_doc.data, new_doc.data):
+                raise ProofFailed(f"document {old_doc.index + 1} changed but no fix meant to change it",
+                                  rules)
+            continue
+        intended: dict[tuple, tuple[Any, _Planned]] = {}
         for p in mine:
             for e in p.edits:
-                intended[tuple(e.path)] = (e.new, p.rule)
-        for path, (value, rule) in intended.items():
+                intended[tuple(e.path)] = (e.new, p)
+        for path, (value, plan) in intended.items():
             got = new_doc.get(path, _MISSING)
             if _diff_paths(value, got):
-                raise ProofFailed(f"{dotted(path)} reads back as {got!r}, not {value!r}", [rule])
+                raise ProofFailed(f"{dotted(path)} reads back as {got!r}, not {value!r}", [plan.rule])
+        shared: list[_Planned] = []
         for path in _diff_paths(old_doc.data, new_doc.data):
             if any(path[:len(ip)] == ip for ip in intended):
                 continue
@@ -713,29 +823,61 @@ def _prove(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Doc
             if copy is None:
                 raise ProofFailed(f"{dotted(path) or 'the document'} changed but no fix meant to change it",
                                   rules)
+            plan = intended[copy][1]
+            if plan.tier == CHANGES_TRAINING:
+                if plan not in shared:
+                    shared.append(plan)
+                continue
             notes.append(f"{dotted(path)} follows {dotted(copy)} (a YAML alias or merge), "
                          "so it changed too")
+        if shared:
+            raise _Shared(shared, "the value is shared through a YAML anchor or merge key (<<) "
+                                  "with another section; change it where the anchor is written")
     if fmt == "yaml":
         if yaml_comments(old_text) != yaml_comments(new_text):
             raise ProofFailed("the comments are not the same, in the same order", rules)
     why = _outside_lines_identical(old_text, new_text, edits)
     if why:
         raise ProofFailed(why, rules)
-    after = engine.lint_text(new_text, name, options, fmt)
+    return new_docs, notes
+
+
+def _finding_keys(report) -> dict[tuple, Finding]:
+    return {_finding_key(f): f for f in report.findings}
+
+
+def _lint_after(new_text: str, name: str, options: Options, fmt: str, linked: dict, rules):
+    with links.linked_texts(linked):
+        after = engine.lint_text(new_text, name, options, fmt)
     if after.problem is not None or after.internal:
         raise ProofFailed("the fixed text does not lint cleanly: "
                           + (after.problem.reason if after.problem else after.internal[0].error), rules)
-    before_keys = {_finding_key(f) for f in before.findings}
-    after_keys = {_finding_key(f): f for f in after.findings}
+    return after
+
+
+def _prove(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Document],
+           plans: list[_Planned], edits: list[_TextEdit], before, options: Options,
+           linked: dict | None = None) -> tuple[list[str], dict[tuple, Finding], Any]:
+    """The whole proof: the text (see _prove_text), then a re-lint. Returns notes and the
+    findings the fixed text has that the old one had not (any severity): the caller decides,
+    per finding, which fix brought it."""
+    rules = [p.rule for p in plans]
+    _docs, notes = _prove_text(old_text, new_text, name, fmt, old_docs, plans, edits)
+    after = _lint_after(new_text, name, options, fmt, linked or {}, rules)
+    after_keys = _finding_keys(after)
     for p in plans:
         if p.finding is not None and _finding_key(p.finding) in after_keys:
             raise ProofFailed(f"the finding at {p.key or 'the top level'} is still there after the fix",
                               [p.rule])
+    before_keys = _finding_keys(before)
+    new = {}
     for k, f in after_keys.items():
-        # info findings are notes (what a rule could not judge), not defects a fix could bring
-        if k not in before_keys and f.severity >= Severity.WARNING:
-            raise NewFinding(f"the fix brings a new finding: {f.rule} at {f.key}: {f.message}", rules)
-    return notes
+        if k in before_keys:
+            continue
+        if f.data.get("judged") is False:  # a "not checked" note flags no value
+            continue
+        new[k] = f  # any severity, info included: no fix may write a value a rule flags
+    return notes, new, after
 
 
 _MISSING = object()
@@ -751,16 +893,111 @@ def _follows(old_doc: Document, new_doc: Document, path: tuple, edited: tuple, v
     return own is None or (source is not None and own.value == source.value)
 
 
+def _blame(text: str, name: str, fmt: str, options: Options, accepted: list[_Planned],
+           edits: list[_TextEdit], new: dict[tuple, Finding],
+           linked: dict) -> dict[int, tuple[list[Finding], str]]:
+    """Which fix brought each new finding: id(plan) -> (findings, how it was told).
+
+    A document's findings depend on that document (and its linked files) only, so a finding of
+    document d is blamed on d's fixes: the only one, or the one that brings it when applied
+    alone. The "alone" tries run for every document at once (try k applies the k-th candidate of
+    every document), so the cost is one lint per candidate of the busiest document, not per fix.
+    """
+    out: dict[int, tuple[list[Finding], str]] = {}
+
+    def blame(plan, f, how):
+        out.setdefault(id(plan), ([], how))[0].append(f)
+
+    per_doc: dict[int, list[_Planned]] = {}
+    for p in accepted:
+        if p.edits:
+            per_doc.setdefault(p.document, []).append(p)
+    open_: dict[int, list[Finding]] = {}
+    for f in new.values():
+        cands = per_doc.get(f.document, [])
+        if len(cands) == 1:
+            blame(cands[0], f, "alone")
+        elif cands:
+            open_.setdefault(f.document, []).append(f)
+    if not open_:
+        return out
+    rounds = max(len(per_doc[d]) for d in open_)
+    found: set[int] = set()
+    for k in range(rounds):
+        trial = [per_doc[d][k] for d in open_ if k < len(per_doc[d])]
+        ids = {id(p) for p in trial}
+        mine = [e for e in edits if e.plan in ids]
+        try:
+            after = _lint_after(_apply(text, mine), name, options, fmt, linked, ())
+        except ProofFailed:
+            continue
+        keys = _finding_keys(after)
+        for p in trial:
+            for f in open_[p.document]:
+                if _finding_key(f) in keys:
+                    blame(p, f, "alone")
+                    found.add(id(f))
+    for d, fs in open_.items():
+        for f in fs:
+            if id(f) not in found:  # only the fixes together bring it: all of them go
+                for p in per_doc[d]:
+                    blame(p, f, "together")
+    return out
+
+
 # --------------------------------------------------------------------------- the pure core
 
 def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
-             fmt: str | None = None, training: bool = False,
-             halve_batch: bool = False) -> FileFix:
-    """Fix a decoded text in memory. Never raises for bad input: see FileFix.problem / .error."""
+             fmt: str | None = None, training: bool = False, halve_batch: int = 0,
+             linked_before: dict | None = None, linked_after: dict | None = None,
+             check_stable: bool = True) -> FileFix:
+    """Fix a decoded text in memory. Never raises for bad input: see FileFix.problem / .error.
+
+    ``linked_before`` / ``linked_after``: the texts of linked files (real path -> text) to lint
+    with, as they are and as they will be once fixed (files fixed together).
+    """
+    halve_batch = int(halve_batch)
+    lead = "\ufeff" if text.startswith("\ufeff") else ""  # a second byte-order mark: kept as is
+    body = text[len(lead):]
+    cr_only = "\r" in body and "\n" not in body
+    if cr_only:  # old Mac line ends: fixed as "\n" lines (one for one), written back as "\r"
+        body = body.replace("\r", "\n")
+    elif re.search("\r(?!\n)", body):
+        result = FileFix(file=name, old_text=text, new_text=text)
+        before = engine.lint_text(text, name, options or Options(), fmt)
+        if before.problem is not None:
+            result.problem = before.problem
+        elif any(f.fix is not None for f in before.findings) or halve_batch:
+            result.notes.append("not fixed: its lines end in a mix of CR and LF; make them "
+                                "one kind, then fix again")
+        return result
+    result = _fix_body(body, name, options, fmt=fmt, training=training, halve_batch=halve_batch,
+                       linked_before=linked_before, linked_after=linked_after,
+                       check_stable=check_stable)
+    if cr_only:
+        result.old_text, result.new_text = text, lead + result.new_text.replace("\n", "\r")
+    elif lead:
+        result.old_text, result.new_text = text, lead + result.new_text
+    if result.evidence is not None:
+        after = result.evidence["after"]
+        result.evidence = dict(result.evidence, before=text,
+                               after=lead + (after.replace("\n", "\r") if cr_only else after))
+    return result
+
+
+def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None, training: bool,
+              halve_batch: int, linked_before: dict | None, linked_after: dict | None,
+              check_stable: bool, linted=None) -> FileFix:
     options = options or Options()
     fmt = fmt or loadmod.guess_format(name, text)
+    linked_before = linked_before or {}
+    linked_after = linked_after if linked_after is not None else linked_before
     result = FileFix(file=name, old_text=text, new_text=text)
-    before = engine.lint_text(text, name, options, fmt)
+    if linted is not None:  # the stability pass: the proof's re-lint of this very text
+        before = linted
+    else:
+        with links.linked_texts(linked_before):
+            before = engine.lint_text(text, name, options, fmt)
     if before.problem is not None:
         result.problem = before.problem
         return result
@@ -771,6 +1008,8 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
         return result
     if before.skipped:
         result.skipped = before.skipped
+    result.links = _linked_paths(before)
+    result.needs = _needed_flags(before, options)
     docs = [v.doc for v in before.views]
     planned, result.withheld, result.notes = _plan(before, training=training,
                                                    halve_batch=halve_batch)
@@ -780,7 +1019,10 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
     by_index = {d.index: d for d in docs}
     accepted: list[_Planned] = []
     edits: list[_TextEdit] = []
+    spans: set[tuple] = set()  # (start, end, text) of every edit made, for the alias dedup
+    starts: list[tuple[int, int]] = []  # sorted (start, end) of the edits made, for overlaps
     taken: dict[tuple, tuple[Any, str]] = {}  # (document, path) -> (new value, rule)
+    applied: dict[int, Applied] = {}
     for plan in planned:
         doc = by_index[plan.document]
         keys = [(plan.document, tuple(e.path)) for e in plan.edits]
@@ -788,11 +1030,12 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
         if clash:
             if plan.tier == KEEPS_MEANING and all(k in taken for k in keys):
                 owner = taken[clash[0]][1]
-                result.applied.append(Applied(plan.rule, plan.key,
-                                              f"{plan.summary} (covered by the {owner} fix)",
-                                              plan.tier, ()))
-                accepted.append(_Planned(plan.rule, plan.key, plan.summary, plan.tier, (),
-                                         plan.document, plan.finding))
+                covered = _Planned(plan.rule, plan.key, plan.summary, plan.tier, (),
+                                   plan.document, plan.finding)
+                accepted.append(covered)
+                applied[id(covered)] = Applied(plan.rule, plan.key,
+                                               f"{plan.summary} (covered by the {owner} fix)",
+                                               plan.tier, ())
                 continue
             result.notes.append(f"{plan.rule} at {plan.key}: not applied, another fix already "
                                 f"changes {dotted(clash[0][1])}")
@@ -823,71 +1066,193 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
             result.notes.append(f"{plan.rule} at {plan.key}: not applied, {exc}")
             continue
         # the same rewrite reached twice (an alias and its anchor) is made once
-        mine = [m for m in mine if not any((m.start, m.end, m.text) == (e.start, e.end, e.text)
-                                           for e in edits)]
-        overlap = [m for m in mine if any(m.start < e.end and e.start < m.end for e in edits)]
-        if overlap:
+        mine = [m for m in mine if (m.start, m.end, m.text) not in spans]
+        if any(_overlaps(starts, m) for m in mine):
             result.notes.append(f"{plan.rule} at {plan.key}: not applied, it would rewrite text "
                                 "another fix already rewrites")
             continue
+        mine = [_TextEdit(m.start, m.end, m.text, m.rule, id(plan)) for m in mine]
         accepted.append(plan)
         edits.extend(mine)
+        for m in mine:
+            spans.add((m.start, m.end, m.text))
+            bisect.insort(starts, (m.start, m.end))
         for k, e in zip(keys, plan.edits):
             taken[k] = (e.new, plan.rule)
-        result.applied.append(Applied(plan.rule, plan.key, plan.summary, plan.tier,
-                                      tuple(dotted(e.path) for e in plan.edits)))
+        applied[id(plan)] = Applied(plan.rule, plan.key, plan.summary, plan.tier,
+                                    tuple(dotted(e.path) for e in plan.edits))
     if not edits:
+        result.applied = [applied[id(p)] for p in accepted if id(p) in applied]
         return result
-    failure: ProofFailed | None = None
     while True:
+        new_text = _apply(text, edits)
         try:
-            new_text = _apply(text, edits)
-            result.notes.extend(_prove(text, new_text, name, fmt, docs, accepted, edits, before,
-                                       options))
-            break
-        except NewFinding as exc:
-            # a consequence of the change, not a bug: leave out the fixes that cause it, say
-            # why, and prove the rest again
-            bad = set(_culprits(text, name, fmt, docs, accepted, edits, before, options)) \
-                or {p.rule for p in accepted}
-            for plan in accepted:
-                if plan.rule in bad:
-                    result.notes.append(f"{plan.rule} at {plan.key}: not applied, {exc.reason}")
-            accepted = [p for p in accepted if p.rule not in bad]
-            edits = [e for e in edits if e.rule not in bad]
-            result.applied = [a for a in result.applied if a.rule not in bad]
-            if not edits:
-                return result
+            notes, new, after = _prove(text, new_text, name, fmt, docs, accepted, edits, before, options,
+                                linked_after)
+        except _Shared as exc:
+            bad = {id(p) for p in exc.plans}
+            for p in exc.plans:
+                result.notes.append(f"{p.rule} at {p.key}: not applied, {exc.where}")
         except ProofFailed as exc:
-            failure = exc
-            break
-    if failure is not None:
-        exc = failure
-        rules = exc.rules or tuple(p.rule for p in accepted)
-        if len(accepted) > 1 and len(set(rules)) > 1:
-            rules = _culprits(text, name, fmt, docs, accepted, edits, before, options) or rules
-        result.error = InternalError(
-            file=name, rule=", ".join(dict.fromkeys(rules)),
-            error=f"the fix did not pass the safety proof ({exc.reason}); nothing saved")
-        result.applied = []
-        return result
+            return _failed(result, exc, text, new_text, accepted, edits, docs, name, fmt)
+        else:
+            if not new:
+                break
+            # a consequence of a change, not a bug: leave out the fix that brings each new
+            # finding (decided per finding), say which finding, and prove the rest again
+            blamed = _blame(text, name, fmt, options, accepted, edits, new, linked_after)
+            bad = set(blamed)
+            for p in accepted:
+                if id(p) in blamed:
+                    fs, how = blamed[id(p)]
+                    why = "together with the other fixes of this document, " if how == "together" else ""
+                    what = "; ".join(f"{f.rule} at {f.key or 'the top level'}: {f.message}" for f in fs)
+                    result.notes.append(f"{p.rule} at {p.key}: not applied, {why}it would bring "
+                                        f"{'a new finding' if len(fs) == 1 else 'new findings'}: {what}")
+            if not bad:  # cannot happen: every new finding belongs to a document with fixes
+                return _failed(result, ProofFailed("a new finding that no fix brings",
+                                                   [p.rule for p in accepted]),
+                               text, new_text, accepted, edits, docs, name, fmt)
+        accepted = [p for p in accepted if id(p) not in bad]
+        edits = [e for e in edits if e.plan not in bad]
+        if not edits:
+            result.applied = [applied[id(p)] for p in accepted if id(p) in applied]
+            return result
+    result.notes.extend(notes)
+    if new_text != text:
+        _say_as_written(new_text, name, fmt, accepted, applied)
+    result.applied = [applied[id(p)] for p in accepted if id(p) in applied]
     if new_text == text:
         return result
+    if check_stable:
+        # a formatter's safe mode: fixing the fixed text again must change nothing
+        again = _fix_body(new_text, name, options, fmt=fmt, training=training, halve_batch=0,
+                          linked_before=linked_after, linked_after=linked_after,
+                          check_stable=False, linted=after)
+        if again.error is not None or again.new_text != new_text:
+            why = again.error.error if again.error is not None else \
+                "fixing the fixed text changes it again: " + "; ".join(a.summary for a in again.applied)
+            return _failed(result, ProofFailed(why, [p.rule for p in accepted]), text, new_text,
+                           accepted, edits, docs, name, fmt, check="stability")
     result.new_text = new_text
     return result
 
 
-def _culprits(text, name, fmt, docs, accepted, edits, before, options) -> tuple[str, ...]:
-    """Prove each fix alone to name the one(s) that fail."""
+def _say_as_written(new_text: str, name: str, fmt: str, accepted: list[_Planned],
+                    applied: dict[int, Applied]) -> None:
+    """Make each summary's "KEY: OLD -> NEW" / "KEY: added as NEW" show NEW exactly as written.
+
+    A rule words its summary before the fixer renders the value; where the two differ (the
+    number style, JSON quotes), the summary takes the text that is in the file now.
+    """
+    try:
+        docs = {d.index: d for d in loadmod.load_text(new_text, name, fmt)}
+    except LoadError:
+        return
+    for plan in accepted:
+        a = applied.get(id(plan))
+        doc = docs.get(plan.document)
+        if a is None or doc is None or not plan.edits:
+            continue
+        summary = a.summary
+        keys = [dotted(e.path) for e in plan.edits]
+        for e, key in zip(plan.edits, keys):
+            entry = doc.entries.get(tuple(e.path))
+            if entry is None:
+                continue
+            written = _PROPS_LEAD.sub("", new_text[entry.value.start:entry.value.end])
+            if "\n" in written or "\r" in written:
+                continue  # a collection written over several lines: the rule's words stay
+            m = re.search(r"(?:^|, )" + re.escape(key) + r": (?:added as |(?:[^,]*?) -> )", summary)
+            if m is None:
+                continue
+            start = m.end()
+            stops = [len(summary)]
+            for other in keys:
+                if other != key:
+                    i = summary.find(f", {other}: ", start)
+                    if i >= 0:
+                        stops.append(i)
+            i = summary.find(" (", start)
+            if i >= 0:
+                stops.append(i)
+            end = min(stops)
+            if summary[start:end] != written:
+                summary = summary[:start] + written + summary[end:]
+        if summary != a.summary:
+            applied[id(plan)] = Applied(a.rule, a.key, summary, a.tier, a.paths)
+
+
+_PROPS_LEAD = re.compile(r"^(?:[&!][^\s,\[\]{}]*\s+)+")
+
+
+def _overlaps(starts: list[tuple[int, int]], m: _TextEdit) -> bool:
+    i = bisect.bisect_left(starts, (m.start, -1))
+    for j in (i - 1, i):
+        if 0 <= j < len(starts):
+            s, e = starts[j]
+            if m.start < e and s < m.end:
+                return True
+    return False
+
+
+def _failed(result: FileFix, exc: ProofFailed, text: str, new_text: str, accepted, edits, docs,
+            name: str, fmt: str, check: str = "proof") -> FileFix:
+    rules = exc.rules or tuple(p.rule for p in accepted)
+    if len({p.rule for p in accepted}) > 1:
+        rules = _culprits(text, name, fmt, docs, accepted, edits) or rules
+    result.error = InternalError(
+        file=name, rule=", ".join(dict.fromkeys(rules)),
+        error=f"the fix did not pass the safety proof ({exc.reason}); nothing saved")
+    result.evidence = {"file": name, "check": check, "reason": exc.reason,
+                       "rules": list(dict.fromkeys(rules)), "before": text, "after": new_text}
+    result.applied = []
+    return result
+
+
+def _culprits(text, name, fmt, docs, accepted, edits) -> tuple[str, ...]:
+    """Prove each fix's text alone to name the one(s) that fail (only after a failed proof)."""
     bad = []
     for plan in accepted:
-        mine = [e for e in edits if e.rule == plan.rule]
+        mine = [e for e in edits if e.plan == id(plan)]
+        if not mine:
+            continue
         try:
-            _prove(text, _apply(text, mine), name, fmt, docs,
-                   [p for p in accepted if p.rule == plan.rule], mine, before, options)
-        except ProofFailed:
+            _prove_text(text, _apply(text, mine), name, fmt, docs, [plan], mine)
+        except (ProofFailed, _Shared):
             bad.append(plan.rule)
     return tuple(dict.fromkeys(bad))
+
+
+def _linked_paths(report) -> tuple[str, ...]:
+    out = []
+    for view in report.views:
+        for link in view.cache.get("links", ()):
+            if link.path and link.problem is None:
+                out.append(os.path.realpath(link.path))
+    return tuple(dict.fromkeys(out))
+
+
+_FLAG = re.compile(r"--(gpus|gpu|rows)\b")
+_FLAG_ARG = {"--gpu": "--gpu NAME (see: cfgcheck gpus)", "--gpus": "--gpus N", "--rows": "--rows N"}
+
+
+def _needed_flags(report, options: Options) -> tuple[tuple[str, str], ...]:
+    """(rule, flag) for each rule that proposes fixes but could not judge this file without a
+    flag its "not checked" note names."""
+    from .catalogue import load_catalogue
+
+    catalogue = load_catalogue()
+    out = []
+    for f in report.findings:
+        if f.data.get("judged") is not False:
+            continue
+        rule = catalogue.get(f.rule)
+        if rule is None or not rule.fix:
+            continue
+        for flag in _FLAG.findall(str(f.data.get("reason", ""))):
+            out.append((f.rule, "--" + flag))
+    return tuple(dict.fromkeys(out))
 
 
 def _tagged(text: str, doc: Document, plan: _Planned) -> bool:
@@ -931,22 +1296,206 @@ class ChangedOnDisk(Exception):
     pass
 
 
-def _rename(tmp: str, target: str) -> None:
-    """The one step that makes the new file visible (replaced in tests to simulate a crash)."""
+class WriteRefused(Exception):
+    """The file may not be replaced as it is (not writable, other hard links, owner, xattrs)."""
+
+
+_AT_FDCWD, _RENAME_EXCHANGE = -100, 2
+
+
+def _exchange(tmp: str, target: str) -> bool:
+    """Swap ``tmp`` and ``target`` in one step (Linux renameat2 RENAME_EXCHANGE); False where the
+    system or file system cannot."""
+    fn = _renameat2()
+    if fn is None:
+        return False
+    import ctypes
+
+    if fn(_AT_FDCWD, os.fsencode(tmp), _AT_FDCWD, os.fsencode(target), _RENAME_EXCHANGE) == 0:
+        return True
+    err = ctypes.get_errno()
+    if err in (errno.EINVAL, errno.ENOSYS, errno.EOPNOTSUPP, errno.EXDEV):
+        return False
+    raise OSError(err, os.strerror(err), target)
+
+
+@functools.cache
+def _renameat2():
+    if not sys.platform.startswith("linux"):
+        return None
+    try:
+        import ctypes
+
+        fn = ctypes.CDLL(None, use_errno=True).renameat2
+    except (OSError, AttributeError):
+        return None
+    fn.argtypes = [ctypes.c_int, ctypes.c_char_p, ctypes.c_int, ctypes.c_char_p, ctypes.c_uint]
+    return fn
+
+
+def _exchange_supported(folder: str) -> bool:
+    """Whether ``folder`` allows the atomic exchange (for the documentation and tests)."""
+    a = tempfile.NamedTemporaryFile(dir=folder, delete=False)
+    b = tempfile.NamedTemporaryFile(dir=folder, delete=False)
+    a.close()
+    b.close()
+    try:
+        return _exchange(a.name, b.name)
+    except OSError:
+        return False
+    finally:
+        for n in (a.name, b.name):
+            try:
+                os.unlink(n)
+            except OSError:
+                pass
+
+
+def _rename(tmp: str, target: str) -> bool:
+    """The one step that makes the new file visible (replaced in tests to simulate a crash).
+
+    True when the files were swapped (the old one is now at ``tmp``), False when ``tmp``
+    replaced ``target``.
+    """
+    if _exchange(tmp, target):
+        return True
     os.replace(tmp, target)
+    return False
+
+
+def _before_rename(target: str) -> None:
+    """Called after the temp file is complete, just before the final re-check (a test hook)."""
+
+
+def _read_bounded(fd: int) -> bytes:
+    chunks, size = [], 0
+    while size <= loadmod.MAX_FILE_BYTES:
+        chunk = os.read(fd, 1 << 16)
+        if not chunk:
+            break
+        chunks.append(chunk)
+        size += len(chunk)
+    return b"".join(chunks)
+
+
+def _state(st: os.stat_result) -> tuple:
+    return (st.st_ino, st.st_dev, st.st_size, st.st_mtime_ns)
+
+
+def check_writable(path: str | Path) -> None:
+    """Raise WriteRefused when replacing ``path`` would do more than change its bytes."""
+    target = os.path.realpath(path)
+    try:
+        st = os.stat(target)
+    except OSError as exc:
+        raise WriteRefused(f"cannot write: {exc.strerror or exc}; the file is unchanged") from None
+    if not stat.S_ISREG(st.st_mode):
+        raise WriteRefused("not a regular file")
+    if st.st_nlink > 1:
+        raise WriteRefused(f"the file has {st.st_nlink} hard links; replacing it would split "
+                           "them (fix a copy, or remove the other links)")
+    if not os.access(target, os.W_OK) or not st.st_mode & 0o222:  # read-only: even for root
+        raise WriteRefused(f"the file is read-only or not writable by you "
+                           f"(mode {stat.S_IMODE(st.st_mode):04o})")
+    if st.st_uid != os.geteuid() and os.geteuid() != 0:
+        raise WriteRefused(f"the file belongs to another user (uid {st.st_uid}); replacing it "
+                           "would change its owner")
+    if not os.access(os.path.dirname(target) or ".", os.W_OK | os.X_OK):
+        raise WriteRefused("its folder is not writable, so it cannot be replaced atomically")
+
+
+def _copy_metadata(src_fd: int, st: os.stat_result, tmp: str) -> None:
+    """Mode, group (and owner, as root) and extended attributes of the original onto ``tmp``."""
+    os.chmod(tmp, stat.S_IMODE(st.st_mode))
+    tst = os.stat(tmp)
+    if (tst.st_uid, tst.st_gid) != (st.st_uid, st.st_gid):
+        try:
+            os.chown(tmp, st.st_uid if os.geteuid() == 0 else -1, st.st_gid)
+        except OSError:
+            raise WriteRefused(f"cannot keep the file's group (gid {st.st_gid})") from None
+        os.chmod(tmp, stat.S_IMODE(st.st_mode))  # chown may clear set-id bits
+    if hasattr(os, "listxattr"):
+        try:
+            names = os.listxattr(src_fd)
+        except OSError:
+            names = []
+        for n in names:
+            try:
+                value = os.getxattr(src_fd, n)
+                try:
+                    if os.getxattr(tmp, n) == value:
+                        continue  # already there (a security label the folder gives every file)
+                except OSError:
+                    pass
+                os.setxattr(tmp, n, value)
+            except OSError as exc:
+                raise WriteRefused(f"cannot keep the extended attribute {n} "
+                                   f"({exc.strerror or exc})") from None
 
 
 def atomic_write(path: str | Path, data: bytes, expected: bytes) -> None:
-    """Write ``data`` to ``path`` through a temp file in the same folder, keeping its mode.
+    """Replace ``path`` by ``data`` through a temp file in the same folder.
 
-    Refuses (ChangedOnDisk) when the file's bytes are no longer ``expected``. On any failure the
-    original stays as it was and the temp file is removed.
+    What is guaranteed (docs/robustness.md, "Writing"): the file is replaced only if its bytes
+    are still ``expected`` when the temp file is complete, re-read just before the rename; mode,
+    group, owner and extended attributes stay (or nothing is written: WriteRefused); a write into
+    the old file between that re-read and the rename is detected after the rename and the other
+    writer's bytes are put back (ChangedOnDisk). On any failure the original stays and the temp
+    file is removed.
     """
     target = os.path.realpath(path)  # a symbolic link keeps pointing at the rewritten file
-    with open(target, "rb") as fh:
-        if fh.read() != expected:
+    check_writable(target)
+    fd0 = os.open(target, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+    try:
+        st = os.fstat(fd0)
+        if not stat.S_ISREG(st.st_mode) or _read_bounded(fd0) != expected:
             raise ChangedOnDisk("the file changed on disk since it was read; not writing")
-    mode = stat.S_IMODE(os.stat(target).st_mode)
+        folder, base = os.path.split(target)
+        fd, tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=".cfgcheck-tmp", dir=folder or ".")
+        try:
+            with os.fdopen(fd, "wb") as fh:
+                fh.write(data)
+                fh.flush()
+                os.fsync(fh.fileno())
+            _copy_metadata(fd0, st, tmp)
+            _before_rename(target)
+            # the final re-check: same file (inode), same bytes, right before the rename
+            fd1 = os.open(target, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+            try:
+                st1 = os.fstat(fd1)
+                if (st1.st_ino, st1.st_dev) != (st.st_ino, st.st_dev) or _read_bounded(fd1) != expected:
+                    raise ChangedOnDisk("the file changed on disk while the fix was written; "
+                                        "not writing")
+                swapped = _rename(tmp, target) is True
+                if swapped:  # the file we displaced is now at tmp: was it still the one we checked?
+                    shown = os.lstat(tmp)
+                    if (shown.st_ino, shown.st_dev) != (st1.st_ino, st1.st_dev):
+                        _exchange(tmp, target)  # another program replaced it meanwhile: theirs back
+                        raise ChangedOnDisk("another program replaced the file while the fix was "
+                                            "written; its version stays and nothing was fixed")
+                after = os.fstat(fd1)  # the old file, now displaced: written to in the window?
+                if (after.st_size, after.st_mtime_ns) != (st1.st_size, st1.st_mtime_ns):
+                    os.lseek(fd1, 0, os.SEEK_SET)
+                    theirs = _read_bounded(fd1)
+                    _put_back(target, theirs, st)
+                    raise ChangedOnDisk("another program wrote to the file while it was being "
+                                        "replaced; its version was put back and nothing was fixed")
+                if swapped:
+                    os.unlink(tmp)
+            finally:
+                os.close(fd1)
+        except BaseException:
+            try:
+                os.unlink(tmp)
+            except FileNotFoundError:
+                pass
+            raise
+    finally:
+        os.close(fd0)
+    _sync_folder(os.path.dirname(target))
+
+
+def _put_back(target: str, data: bytes, st: os.stat_result) -> None:
     folder, base = os.path.split(target)
     fd, tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=".cfgcheck-tmp", dir=folder or ".")
     try:
@@ -954,14 +1503,17 @@ def atomic_write(path: str | Path, data: bytes, expected: bytes) -> None:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
-        os.chmod(tmp, mode)
-        _rename(tmp, target)
+        os.chmod(tmp, stat.S_IMODE(st.st_mode))
+        os.replace(tmp, target)
     except BaseException:
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
         raise
+
+
+def _sync_folder(folder: str) -> None:
     try:  # make the rename itself durable; not every system lets a folder be opened
         dfd = os.open(folder or ".", os.O_RDONLY)
         try:
@@ -972,39 +1524,32 @@ def atomic_write(path: str | Path, data: bytes, expected: bytes) -> None:
         pass
 
 
-def fix_file(path: str | Path, options: Options | None = None, *, training: bool = False,
-             halve_batch: bool = False, write: bool = True) -> FileFix:
+@dataclass
+class _Item:
+    path: str
+    options: Options
+    result: FileFix
+    src: Source | None = None
+    real: str = ""
+
+
+def _read(path: str | Path) -> tuple[Source | None, FileFix | None]:
     name = str(path)
     try:
-        try:
-            raw = Path(path).read_bytes()
-        except OSError as exc:
-            loadmod.read_source(path)  # names the reason (folder, missing, permission) ...
-            raise LoadError(f"cannot read: {exc.strerror or exc}") from None  # ... or this
-        src = loadmod.decode(raw, name)
+        return loadmod.read_source(path), None  # the guarded reader lint uses
     except LoadError as exc:
-        return FileFix(file=name, problem=InputProblem(file=name, line=exc.line, column=exc.column,
-                                                       reason=exc.reason))
-    result = fix_text(src.text, name, options, training=training, halve_batch=halve_batch)
-    if not result.changed or not write:
-        return result
-    data = encode(src, result.new_text)
-    if data == raw:
-        return result
-    try:
-        atomic_write(path, data, raw)
-    except ChangedOnDisk as exc:
-        result.refused = str(exc)
-        return result
-    except OSError as exc:
-        result.refused = f"cannot write: {exc.strerror or exc}; the file is unchanged"
-        return result
-    result.written = True
-    return result
+        return None, FileFix(file=name, problem=InputProblem(file=name, line=exc.line,
+                                                             column=exc.column, reason=exc.reason))
+
+
+def fix_file(path: str | Path, options: Options | None = None, *, training: bool = False,
+             halve_batch: int = 0, write: bool = True) -> FileFix:
+    return fix_files([(path, options or Options())], training=training, halve_batch=halve_batch,
+                     write=write).files[0]
 
 
 def fix_paths(paths: Iterable[str | Path], options: Options | None = None, *,
-              training: bool = False, halve_batch: bool = False, write: bool = True) -> FixReport:
+              training: bool = False, halve_batch: int = 0, write: bool = True) -> FixReport:
     """Fix files and folders (folders walked as lint walks them), all with the same options."""
     options = options or Options()
     return fix_files([(p, options) for p in engine.expand_paths(paths)], training=training,
@@ -1012,10 +1557,189 @@ def fix_paths(paths: Iterable[str | Path], options: Options | None = None, *,
 
 
 def fix_files(files: Iterable[tuple[str, Options]], *, training: bool = False,
-              halve_batch: bool = False, write: bool = True) -> FixReport:
-    """Fix each file with its own options (a project's hardware profiles differ per folder)."""
-    return FixReport(files=[fix_file(p, o, training=training, halve_batch=halve_batch,
-                                     write=write) for p, o in files])
+              halve_batch: int = 0, write: bool = True) -> FixReport:
+    """Fix each file with its own options (a project's hardware profiles differ per folder).
+
+    A config and the files it links (its DeepSpeed or accelerate file), when both are given, are
+    fixed as one group: each is proven against the others' fixed text, and they are written
+    together or not at all, whatever order their names come in.
+    """
+    items: list[_Item] = []
+    for path, options in files:
+        src, problem = _read(path)
+        if problem is not None:
+            items.append(_Item(str(path), options, problem))
+            continue
+        res = fix_text(src.text, str(path), options, training=training, halve_batch=halve_batch)
+        items.append(_Item(str(path), options, res, src, os.path.realpath(path)))
+    for group in _groups(items):
+        _fix_group(group, training=training, halve_batch=halve_batch)
+    if write:
+        done: set[int] = set()
+        for group in _groups(items):
+            _write_group(group)
+            done.update(id(i) for i in group)
+        for item in items:
+            if id(item) not in done:
+                _write_group([item])
+    for item in items:
+        _save_evidence(item.result)
+    return FixReport(files=[i.result for i in items])
+
+
+def _groups(items: list[_Item]) -> list[list[_Item]]:
+    """Files given together that link each other (union of the links, either direction)."""
+    by_real = {i.real: i for i in items if i.src is not None}
+    parent = {id(i): id(i) for i in items}
+
+    def root(x):
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    for i in items:
+        for link in i.result.links:
+            j = by_real.get(link)
+            if j is not None and j is not i:
+                parent[root(id(i))] = root(id(j))
+    groups: dict[int, list[_Item]] = {}
+    for i in items:
+        groups.setdefault(root(id(i)), []).append(i)
+    return [g for g in groups.values() if len(g) > 1]
+
+
+_GROUP_ROUNDS = 4
+
+
+def _fix_group(group: list[_Item], *, training: bool, halve_batch: int) -> None:
+    """Fix linked files against each other's fixed text until nothing moves."""
+    members = [i for i in group if i.src is not None]
+    old = {i.real: i.src.text for i in members}
+    proposed = {i.real: i.result.new_text for i in members}
+    for _ in range(_GROUP_ROUNDS):
+        moved = False
+        for i in members:
+            others = {k: v for k, v in proposed.items() if k != i.real}
+            res = fix_text(i.src.text, i.path, i.options, training=training, halve_batch=halve_batch,
+                           linked_before={k: v for k, v in old.items() if k != i.real},
+                           linked_after=others)
+            if res.new_text != proposed[i.real]:
+                moved = True
+            proposed[i.real] = res.new_text
+            i.result = res
+        if not moved:
+            break
+    else:
+        _undo_group(members, "its fixes and those of the files it is linked with ({names}) do "
+                             "not settle; fix them one at a time")
+        return
+    # a member left unchanged is proven against the others' fixed text here: together, the
+    # group must bring no finding that none of them had
+    for i in members:
+        if proposed[i.real] != old[i.real]:
+            continue  # its own proof ran against the others' fixed text
+        others_new = {k: v for k, v in proposed.items() if k != i.real}
+        if others_new == {k: v for k, v in old.items() if k != i.real}:
+            continue
+        with links.linked_texts({k: v for k, v in old.items() if k != i.real}):
+            before = engine.lint_text(old[i.real], i.path, i.options)
+        with links.linked_texts(others_new):
+            after = engine.lint_text(old[i.real], i.path, i.options)
+        was = _finding_keys(before)
+        new = [f for k, f in _finding_keys(after).items()
+               if k not in was and f.data.get("judged") is not False]
+        if new:
+            f = new[0]
+            _undo_group(members, "together with the files it is linked with ({names}) it would "
+                                 f"bring a new finding in {i.path}: {f.rule} at {f.key or 'the top level'}: "
+                                 f"{f.message}")
+            return
+
+
+def _undo_group(members: list[_Item], why: str) -> None:
+    """Fix none of the linked files, and say why in each."""
+    for i in members:
+        names = ", ".join(j.path for j in members if j is not i)
+        i.result.notes.append("not fixed: " + why.replace("{names}", names))
+        i.result.new_text = i.result.old_text
+        i.result.applied = []
+
+
+def _write_group(group: list[_Item]) -> None:
+    """Write every changed member, or none: checked first, rolled back if a later one fails."""
+    todo = [i for i in group if i.src is not None and i.result.changed]
+    if not todo:
+        return
+    broken = [i for i in group if i.result.error is not None or i.result.problem is not None]
+    if broken and len(group) > 1:
+        for i in todo:
+            i.result.refused = (f"the linked file {broken[0].path} could not be fixed, and "
+                                "linked files are fixed together or not at all")
+        return
+    data = {}
+    for i in todo:
+        data[id(i)] = encode(i.src, i.result.new_text)
+        try:
+            check_writable(i.path)
+        except WriteRefused as exc:
+            i.result.refused = str(exc)
+    refused = [i for i in todo if i.result.refused]
+    if refused:
+        for i in todo:
+            if not i.result.refused:
+                i.result.refused = (f"the linked file {refused[0].path} cannot be written, and "
+                                    "linked files are fixed together or not at all")
+        return
+    written: list[_Item] = []
+    for i in todo:
+        expected = encode(i.src, i.src.text)
+        if data[id(i)] == expected:
+            continue
+        try:
+            atomic_write(i.path, data[id(i)], expected)
+        except (ChangedOnDisk, WriteRefused) as exc:
+            i.result.refused = str(exc)
+        except OSError as exc:
+            i.result.refused = f"cannot write: {exc.strerror or exc}; the file is unchanged"
+        if i.result.refused:
+            for j in written:  # put the linked files written so far back as they were
+                try:
+                    atomic_write(j.path, encode(j.src, j.src.text), data[id(j)])
+                    j.result.written = False
+                    j.result.refused = (f"written, then put back: the linked file {i.path} could "
+                                        "not be written")
+                except (ChangedOnDisk, WriteRefused, OSError):
+                    j.result.notes.append(f"the linked file {i.path} could not be written; this "
+                                          "one was, and could not be put back")
+            for j in todo:
+                if j is not i and not j.result.written and not j.result.refused:
+                    j.result.refused = f"the linked file {i.path} could not be written"
+            return
+        i.result.written = True
+        written.append(i)
+
+
+def _save_evidence(result: FileFix) -> None:
+    """A failed proof is a bug in cfgcheck: keep what it saw for the bug report."""
+    ev = result.evidence
+    if ev is None or result.evidence_file is not None:
+        return
+    body = (f"cfgcheck fix: a rewrite failed its safety proof; nothing was written.\n"
+            f"file: {ev['file']}\ncheck: {ev['check']}\nreason: {ev['reason']}\n"
+            f"rules: {', '.join(ev['rules'])}\n\n"
+            f"===== before =====\n{ev['before']}\n===== after (not written) =====\n{ev['after']}\n")
+    try:
+        fd, where = tempfile.mkstemp(prefix="cfgcheck-proof-", suffix=".txt")
+        with os.fdopen(fd, "w", encoding="utf-8", errors="backslashreplace") as fh:
+            fh.write(body)
+    except OSError:
+        return
+    result.evidence_file = where
+    if result.error is not None:
+        result.error = InternalError(file=result.error.file, rule=result.error.rule,
+                                     error=f"{result.error.error}; evidence for a bug report "
+                                           f"saved in {where}")
 
 
 # --------------------------------------------------------------------------- the summary
@@ -1025,38 +1749,56 @@ TRAINING_OPTION = "--allow-training-changes"
 
 def summary_text(report: FixReport, *, dry: bool) -> str:
     """Per file and rule: what was (or, when ``dry``, would be) fixed, withheld or refused."""
+    from .findings import printable as P  # a key or file name never starts a line of its own
+
     verb = "would fix" if dry else "fixed"
     lines: list[str] = []
     fixes = withheld = 0
     for f in report.files:
         if f.problem is not None:
             p = f.problem
-            lines.append(f"{p.file}:{p.line}:{p.column}: input error: {p.reason} (not fixing)")
+            lines.append(f"{P(p.file)}:{p.line}:{p.column}: input error: {P(p.reason)} (not fixing)")
             continue
         if f.error is not None:
-            lines.append(f"{f.file}: internal error in the fix for {f.error.rule}: {f.error.error}"
+            lines.append(f"{P(f.file)}: internal error in the fix for {f.error.rule}: {P(f.error.error)}"
                          " (a bug in cfgcheck)")
             continue
         body = []
         if f.changed:
             for a in f.applied:
-                body.append(f"    {verb}: {a.summary} [{a.rule}]")
+                body.append(f"    {verb}: {P(a.summary)} [{a.rule}]")
             fixes += len(f.applied)
         for a in f.withheld:
-            body.append(f"    left as is (changes training, {TRAINING_OPTION}): {a.summary} [{a.rule}]")
+            body.append(f"    left as is (changes training, {TRAINING_OPTION}): {P(a.summary)} [{a.rule}]")
         withheld += len(f.withheld)
         for n in f.notes:
-            body.append(f"    note: {n}")
+            body.append(f"    note: {P(n)}")
         if f.refused:
-            body.append(f"    not written: {f.refused}")
+            body.append(f"    not written: {P(f.refused)}")
         if not body:
             continue
-        head = f"{f.file}: " + (f"{len(f.applied)} fix{'es' if len(f.applied) != 1 else ''}"
-                                if f.changed else "nothing to fix")
+        if f.changed:
+            head = f"{P(f.file)}: {len(f.applied)} fix{'es' if len(f.applied) != 1 else ''}"
+        elif f.refused:
+            head = f"{P(f.file)}: {len(f.applied)} fix{'es' if len(f.applied) != 1 else ''} not written"
+        elif f.withheld:
+            head = (f"{P(f.file)}: no fix applied; {len(f.withheld)} left that change training "
+                    f"({TRAINING_OPTION})")
+        elif any(a.rule for a in f.applied) or f.notes:
+            head = f"{P(f.file)}: no fix applied"
+        else:
+            head = f"{P(f.file)}: nothing to fix"
         if f.written:
             head += ", written"
         lines.append(head)
         lines.extend(body)
+    needs: dict[tuple[str, str], int] = {}
+    for f in report.files:
+        for k in f.needs:
+            needs[k] = needs.get(k, 0) + 1
+    for (rule, flag), n in needs.items():
+        lines.append(f"note: {rule} could not judge {n} file{'s' if n != 1 else ''} without "
+                     f"{flag}, so it proposed no fix there; pass {_FLAG_ARG.get(flag, flag)}")
     changed = len(report.changed)
     tail = (f"cfgcheck fix: {len(report.files)} file{'s' if len(report.files) != 1 else ''} read; "
             f"{changed} {'would change' if dry else 'changed'} ({fixes} fix{'es' if fixes != 1 else ''})")
@@ -1066,5 +1808,7 @@ def summary_text(report: FixReport, *, dry: bool) -> str:
         tail += f"; {len(report.problems)} unreadable"
     if report.errors:
         tail += f"; {len(report.errors)} refused by the safety proof"
+    if report.refused:
+        tail += f"; {len(report.refused)} not written"
     lines.append(tail)
     return "\n".join(lines) + "\n"

@@ -434,6 +434,7 @@ PEFT_ADAPTER = Layout(
 
 AXOLOTL = Layout(
     name="axolotl",
+    key_table="axolotl",  # the runner's own key list (knowledge/runner_keys.json)
     title="axolotl-style recipe (adapter: lora|qlora, lora_r, micro_batch_size, num_epochs)",
     # axolotl reads the YAML with yaml.safe_load, then validates it with a pydantic settings
     # model: learning_rate is `str | float` with a validator that calls float() on text
@@ -527,6 +528,7 @@ AXOLOTL = Layout(
 
 LLAMA_FACTORY = Layout(
     name="llama-factory",
+    key_table="llama-factory",  # the runner's own key list (knowledge/runner_keys.json)
     title="LLaMA-Factory-style arguments (finetuning_type, lora_rank, lora_target, cutoff_len)",
     # the file goes to transformers' HfArgumentParser.parse_dict after yaml.safe_load: text stays text
     default_method="lora",  # FinetuningArguments.finetuning_type defaults to "lora"
@@ -617,6 +619,7 @@ LLAMA_FACTORY_V1 = Layout(
 
 TORCHTUNE = Layout(
     name="torchtune",
+    key_table="torchtune",  # the runner's own key list (knowledge/runner_keys.json)
     title="component-style recipe (_component_ keys, model builder, lora_rank, optimizer.lr)",
     # torchtune loads recipes with OmegaConf.load, whose YAML loader adds an implicit float
     # resolver that accepts a mantissa without a dot and an exponent without a sign

@@ -11,6 +11,9 @@ be followed is recorded in ``view.cache["links"]`` for the rules to mention once
 
 from __future__ import annotations
 
+import os
+from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -19,6 +22,19 @@ from .load import Document, LoadError
 from .view import RunView, build_view
 
 LINK_FIELDS = ("runtime.deepspeed",)
+
+# texts to read in place of linked files (real path -> text): the fixer lints a config against
+# the fixed text of the file it links before writing either
+_TEXTS: ContextVar[dict] = ContextVar("cfgcheck_linked_texts", default={})
+
+
+@contextmanager
+def linked_texts(texts: dict):
+    token = _TEXTS.set(texts or {})
+    try:
+        yield
+    finally:
+        _TEXTS.reset(token)
 _SUFFIXES = (".json", ".yaml", ".yml")
 
 
@@ -140,8 +156,9 @@ def attach_linked(view: RunView, file: str, cwd: Path | None = None) -> None:
             links.append(Link(name, ref, problem=f"{ref} was not found (looked in {where})"))
             continue
         try:
-            src = loadmod.read_source(found)
-            docs = loadmod.load_text(src.text, str(found))
+            given = _TEXTS.get().get(os.path.realpath(found)) if _TEXTS.get() else None
+            text = given if given is not None else loadmod.read_source(found).text
+            docs = loadmod.load_text(text, str(found))
         except LoadError as exc:
             links.append(Link(name, ref, str(found),
                               problem=f"{found}:{exc.line}:{exc.column}: {exc.reason}"))

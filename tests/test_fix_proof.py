@@ -115,9 +115,12 @@ def test_cli_training_tier_and_halving(tmp_path):
     # the learning rate that keeps lr x scale (PEFT LoRA scaling alpha/r)
     assert data["lora_alpha"] == 16 and data["learning_rate"] == 1.0e-4
     assert data["bf16"] is False and data["fp16"] is True
-    assert data["lora_modules_to_save"] == ["embed_tokens", "lm_head"]  # PEFT troubleshooting guide
+    # the embeddings fix (PEFT troubleshooting guide: modules_to_save embed_tokens, lm_head) would
+    # train them in full at the adapter rate, which full-modules-at-adapter-lr flags: withheld
+    assert "lora_modules_to_save" not in data
+    assert "not applied, it would bring a new finding: full-modules-at-adapter-lr" in out.output
     assert (data["per_device_train_batch_size"], data["gradient_accumulation_steps"]) == (4, 4)
-    assert "[batch-split]" in out.output
+    assert "[--halve-batch]" in out.output
 
 
 def test_cli_input_error_and_unknown_gpu(tmp_path):

@@ -201,7 +201,7 @@ def test_halving_keeps_the_effective_batch(config):
         return pd * ga
 
     assert product(new) == product(old)  # per-device × accumulation (× GPUs, unchanged)
-    assert "batch-split" in {a.rule for a in result.applied}
+    assert "--halve-batch" in {a.rule for a in result.applied}
 
 
 @st.composite

@@ -452,7 +452,7 @@ def test_hint_for_a_boolean_setting_says_the_boolean():
 
 
 def test_hint_for_an_untyped_setting_gives_both_and_changes_nothing():
-    hit = [f for f in engine.lint_text("learning_rate: 2.0e-4\nhub_strategy: off\n", "r.yaml", Options()).findings
+    hit = [f for f in engine.lint_text("learning_rate: 2.0e-4\nmy_team_switch: off\n", "r.yaml", Options()).findings
            if f.rule == "yaml-version-dependent-value"]
     assert '"off" in quotes' in hit[0].hint and "false" in hit[0].hint and hit[0].fix is None
 

@@ -28,15 +28,42 @@ def _short(value) -> str:
     return text if len(text) <= 40 else text[:37] + "..."
 
 
-_EXP = re.compile(r"^([-+]?)([0-9][0-9_]*)(\.[0-9_]*)?[eE]([-+]?)([0-9]+)$")
+_EXP = re.compile(r"^([-+]?)([0-9][0-9_]*)(\.[0-9_]*)?([eE])([-+]?)([0-9]+)$")
 
 
 def dotted_exponent(raw: str) -> str:
-    """``1e-4`` -> ``1.0e-4``, ``1e4`` -> ``1.0e+4``: read as a float by YAML 1.1 and 1.2 alike."""
+    """``1e-4`` -> ``1.0e-4``, ``1E4`` -> ``1.0E+4``: read as a float by YAML 1.1 and 1.2 alike.
+
+    Only a dot and a sign are added: the author's digits and letter case stay, so what the
+    summary says is what the fixer writes.
+    """
     m = _EXP.match(raw)
-    sign, whole, frac, esign, digits = m.groups()
+    sign, whole, frac, letter, esign, digits = m.groups()
     frac = frac if frac and frac != "." else ".0"
-    return f"{sign}{whole}{frac}e{esign or '+'}{digits}"
+    return f"{sign}{whole}{frac}{letter}{esign or '+'}{digits}"
+
+
+# what the view's field types mean for the value's type
+_FIELD_KIND = {"int": "number", "number": "number", "bool": "bool", "str": "text", "names": "text"}
+
+
+def _setting_type(ctx, path: tuple) -> str | None:
+    """"number", "bool", "text", "mixed" or None (unknown): what the setting at ``path`` takes."""
+    from ..knowledge.setting_types import setting_type
+    from ..layouts import FIELD_TYPES
+
+    for f in ctx.view.fields.values():
+        if tuple(f.path) == tuple(path) or (path and isinstance(path[-1], int)
+                                            and tuple(f.path) == tuple(path[:-1])):
+            kind = _FIELD_KIND.get(FIELD_TYPES.get(f.name, "any"))
+            if kind is not None:
+                return kind
+    layout = ctx.view.layout.name if ctx.view.layout is not None else None
+    return setting_type(layout, tuple(path))
+
+
+def _quoted(raw: str) -> str:
+    return '"' + raw + '"'  # the raw texts concerned are digits, signs, dots, letters: no escapes
 
 
 def _repository_reader(file: str) -> str:
@@ -54,7 +81,19 @@ def yaml_version_dependent(ctx) -> None:
     for amb in ctx.doc.ambiguities:
         key = dotted(amb.path)
         if amb.kind == "exponent-without-dot":
+            kind = _setting_type(ctx, amb.path)
             new = dotted_exponent(amb.raw)
+            if kind == "text":
+                q = _quoted(amb.raw)
+                fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {q}",
+                          edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.raw),))
+                ctx.report(amb.path, "exponent-in-text-setting", fix=fix, key=key, raw=amb.raw,
+                           number=amb.yaml12, replacement=q)
+                continue
+            if kind != "number":
+                ctx.report(amb.path, "exponent-type-unknown", key=key, raw=amb.raw,
+                           number=amb.yaml12, number_text=new)
+                continue
             fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
                       edits=(Edit(path=amb.path, old=amb.yaml11, new=float(amb.yaml12)),))
             layout = ctx.view.layout
@@ -69,8 +108,8 @@ def yaml_version_dependent(ctx) -> None:
             ctx.report(amb.path, "exponent-without-dot", fix=fix, key=key, raw=amb.raw,
                        number=amb.yaml12, replacement=new)
         elif amb.kind == "word-boolean":
+            kind = _setting_type(ctx, amb.path)
             new = "true" if amb.yaml11 else "false"
-            kind = _setting_kind(ctx.view, amb.path)
             if kind == "bool":
                 fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
                           edits=(Edit(path=amb.path, old=amb.yaml11, new=amb.yaml11),))
@@ -80,7 +119,7 @@ def yaml_version_dependent(ctx) -> None:
                 # a text setting: PyYAML readers get the boolean, YAML 1.2 readers the text; no
                 # rewrite keeps both readings, so no fix: the hint says to quote it
                 ctx.report(amb.path, "word-boolean-text", key=key, raw=amb.raw, boolean=new)
-            else:  # a setting cfgcheck does not type: say both, change nothing
+            else:  # a setting cfgcheck does not type (or of mixed type): say both, change nothing
                 ctx.report(amb.path, "word-boolean-unknown", key=key, raw=amb.raw,
                            replacement=new)
         elif amb.kind == "leading-zero-octal":
@@ -88,17 +127,6 @@ def yaml_version_dependent(ctx) -> None:
                        yaml11=amb.yaml11, yaml12=amb.yaml12)
         else:
             ctx.report(amb.path, "base-60", key=key, raw=amb.raw, yaml11=amb.yaml11)
-
-
-def _setting_kind(view, path: tuple) -> str | None:
-    """"bool" or "text" for a key the view reads with that type, else None (not known)."""
-    from ..layouts import FIELD_TYPES
-
-    for name, f in view.fields.items():
-        if tuple(f.path) == tuple(path):
-            kind = FIELD_TYPES.get(name)
-            return "bool" if kind == "bool" else "text" if kind in ("str", "names") else None
-    return None
 
 
 _EXPECTED = {

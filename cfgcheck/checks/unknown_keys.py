@@ -79,7 +79,9 @@ class _Judge:
         self.past_limit = False
         from ..knowledge.repo_keys import repo_keys
 
-        self.repo = repo_keys(ctx.file) if layout in ("trainer", "llama-factory") else None
+        # a file parsed into argument dataclasses (TrainingArguments and the script's own): the
+        # repository's scripts may declare more of them
+        self.repo = repo_keys(ctx.file) if ctx.view.layout.trainer_defaults else None
 
     def declared_by_repo(self, name: str) -> str | None:
         if self.repo is not None and name in self.repo.keys:
@@ -170,7 +172,7 @@ def unknown_key(ctx) -> None:
         if len(path) == 1 and isinstance(value, dict) and "_component_" in value:
             _component_keys(ctx, judge, path, value)
             continue
-        if layout == "trainer" and path[0] in sections and isinstance(ctx.doc.get(path[:1]), dict):
+        if view.layout.search_all_sections and path[0] in sections and isinstance(ctx.doc.get(path[:1]), dict):
             if len(path) > 1 and not isinstance(value, dict):
                 _section_key(ctx, judge, path, sections)
             continue  # the section itself: the file's own structure, not a key
