@@ -269,7 +269,7 @@ def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any
                 view = run.view
                 if view.skipped:
                     continue
-                arch = model_of(view, file, opts.cwd)
+                arch = model_of(view, file, opts.cwd, declared=opts.models)
                 out.runs.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=run.gpus, rows=opts.rows)))
         except Exception as exc:
             if opts.debug:

@@ -546,15 +546,63 @@ def schema(
     sys.stdout.write(schemamod.dumps(schemamod.layout_schema(layout)))
 
 
+def _project_here():
+    """The project configuration found from the working folder, or None (a broken one is reported)."""
+    from . import project as projectmod
+
+    try:
+        found = projectmod.find_file(None)
+        return projectmod.load(found) if found else None
+    except projectmod.ProjectError as exc:
+        for f, line, col, reason in exc.problems:
+            typer.echo(f"{f}:{line}:{col}: project config: {reason}", err=True)
+        raise typer.Exit(2)
+
+
 @app.command()
 def gpus() -> None:
-    """List the GPU names --gpu accepts, with compute capability and memory."""
+    """List the GPU names --gpu accepts, with compute capability, memory and where each entry comes from."""
     from .knowledge.hardware import ALIASES, GPUS
 
-    for g in GPUS.values():
-        aliases = sorted(a for a, t in ALIASES.items() if t == g.name)
+    proj = _project_here()
+    declared = list(proj.gpu_types.values()) if proj else []
+    for g in [*declared, *GPUS.values()]:
+        aliases = sorted(a for a, t in ALIASES.items() if t == g.name) if g not in declared else []
         extra = f"  (also: {', '.join(aliases)})" if aliases else ""
-        typer.echo(f"{g.name:<10} {g.label:<18} cc {g.capability_text:<5} {g.memory_gb:>4.0f} GB{extra}")
+        typer.echo(f"{g.name:<10} {g.label:<18} cc {g.capability_text:<5} {g.memory_gb:>4.0f} GB{extra}  [{g.source}]")
+
+
+@app.command()
+def models(
+    family: Optional[str] = typer.Option(None, "--family", help="Only this model family (transformers model_type)."),
+    ids: bool = typer.Option(False, "--ids", help="Also list every other id that names the same shape."),
+    modules: bool = typer.Option(False, "--modules", help="Also list the module names LoRA can target, per layer."),
+) -> None:
+    """List the models known offline: the project's own, then the bundled catalogue, with their sources."""
+    from .knowledge.models import catalogue_entries, linear_modules, total_parameters
+
+    def size(n: int) -> str:
+        return f"{n / 1e9:.2f}B" if n >= 1e9 else f"{n / 1e6:.0f}M"
+
+    proj = _project_here()
+    for ref, arch in (proj.models if proj else ()):
+        if family and arch.family != family:
+            continue
+        typer.echo(f"{ref:<46} {arch.family:<12} {size(total_parameters(arch)):>8}  "
+                   f"context {arch.max_position_embeddings or '-'}  [{arch.source}]")
+    for e in catalogue_entries():
+        a = e.arch
+        if family and a.family != family:
+            continue
+        moe = f", {a.num_experts} experts / {a.experts_per_token} active" if a.is_moe else ""
+        published = (f"; published {size(e.published_total)}: {e.published_source}" if e.published_total
+                     else f"; {e.published_source}" if e.published_source else "")
+        typer.echo(f"{e.id:<46} {a.family:<12} {size(total_parameters(a)):>8}  context {a.max_position_embeddings}"
+                   f"{moe}  {a.torch_dtype}  [shapes: {e.source}{published}]")
+        if ids and e.aliases:
+            typer.echo(f"{'':<4}also: {', '.join(e.aliases)}")
+        if modules:
+            typer.echo(f"{'':<4}modules: {', '.join(linear_modules(a))}")
 
 
 def main() -> None:

@@ -216,7 +216,7 @@ class Workspace:
         name = names[0]
         opts = self.options(path)
         gpus = view.run.gpus if view.run is not None else opts.gpus  # as the opened run resolved them
-        plan = derive_plan(view, model_of(view, path, opts.cwd), gpu=opts.gpu, gpus=gpus, rows=opts.rows)
+        plan = derive_plan(view, model_of(view, path, opts.cwd, declared=opts.models), gpu=opts.gpu, gpus=gpus, rows=opts.rows)
         s = plan.schedule
         if name in ("adapter.alpha", "adapter.rank", "adapter.rslora", "optim.lr"):
             if plan.adapter_scale is None:

@@ -39,6 +39,7 @@ class Options:
     launch: tuple[str, ...] = ()  # launch files the run is started with (--launch, project file)
     gpus_from: str = ""  # where ``gpus`` came from, in words ("--gpus", "cfgcheck.yaml profile")
     script: Any = None  # scripts.ScriptLaunch: a launch script in the tree that names this config
+    models: tuple = ()  # (id, Architecture) pairs the project configuration declares
     overrides: tuple[str, ...] = ()  # key=value overrides the launch passes (compose.py)
     versions: dict[str, str] = field(default_factory=dict)  # library -> release the run uses (--installed)
 
@@ -118,6 +119,7 @@ class Context:
             name: overrides.get(name, rule.threshold(name)) for name in rule.thresholds
         }
         self._judged_once: set[str] = set()
+        self._model_assumption = ""  # set when the rule asked for a model matched by name alone
 
     # knowledge --------------------------------------------------------------
     @property
@@ -139,7 +141,11 @@ class Context:
         """The base model's architecture when it can be known offline, else None."""
         from .plan import model_of  # only rules that need a model pay for it
 
-        return model_of(self.view, self.file, self.options.cwd)
+        arch = model_of(self.view, self.file, self.options.cwd, declared=self.options.models)
+        if arch is not None and getattr(arch, "assumed", False) and "model" in self.rule.needs:
+            # matched by its name alone: the verdicts of a rule that needs the model rest on it
+            self._model_assumption = f"the model is {getattr(arch, 'how', '') or 'matched by its name'}"
+        return arch
 
     # reporting --------------------------------------------------------------
     def report(self, at: Field | tuple | None = None, variant: str = "default", *,
@@ -150,7 +156,7 @@ class Context:
         (or words) the verdict rests on that nothing written, linked, launched, flagged or
         defaulted says; with any, the finding is at most a warning and its message names them."""
         span = None
-        notes = []
+        notes = [self._model_assumption] if self._model_assumption else []
         for a in list(assumed) + ([at] if isinstance(at, Field) else []):
             if isinstance(a, Field):
                 if a.origin == "assumed":

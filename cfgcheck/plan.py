@@ -84,6 +84,10 @@ class Plan:
             "method": self.method,
             "model": self.model_ref,
             "model_source": self.arch.source if self.arch else None,
+            "model_entry": (self.arch.entry or None) if self.arch else None,
+            "model_match": (self.arch.how or None) if self.arch else None,
+            "model_assumed": self.arch.assumed if self.arch else None,
+            "active_parameters": _models.active_parameters(self.arch) if self.arch and self.arch.is_moe else None,
             "total_parameters": self.total_parameters,
             "trainable_parameters": self.trainable_parameters,
             "trainable_fraction": (self.trainable_parameters / self.total_parameters
@@ -190,7 +194,7 @@ def _words(f) -> str:
     return f.note or f"{f.name} = {f.value}"
 
 
-def model_of(view: RunView, file: str, cwd: Path | None) -> Architecture | None:
+def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Architecture | None:
     """The base model's architecture when it can be known offline (cached on the view)."""
     if view.model_found is not None:
         return view.model_found[0]
@@ -198,7 +202,7 @@ def model_of(view: RunView, file: str, cwd: Path | None) -> Architecture | None:
     arch = None
     if isinstance(ref, str) and ref.strip():
         parent = Path(file).parent if file and not file.startswith("<") else None
-        arch = _models.resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(os.getcwd()))
+        arch = _models.resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(os.getcwd()), declared=declared)
     view.model_found = (arch,)
     return arch
 

@@ -91,6 +91,31 @@ SCHEMA: dict[str, Any] = {
                 },
             },
         },
+        "models": {  # models of your own: the id configs name, and a config.json path or the shape itself
+            "type": "array",
+            "items": {
+                "type": "object",
+                "required": ["id"],
+                "properties": {
+                    "id": {"type": "string", "minLength": 1},
+                    "config": {"type": "string", "minLength": 1},
+                },
+            },
+        },
+        "gpu_types": {  # GPUs of your own, usable by name in profiles
+            "type": "array",
+            "items": {
+                "type": "object",
+                "additionalProperties": False,
+                "required": ["name", "memory_gb", "capability"],
+                "properties": {
+                    "name": {"type": "string", "minLength": 1},
+                    "label": {"type": "string", "minLength": 1},
+                    "memory_gb": {"type": "number", "exclusiveMinimum": 0},
+                    "capability": {"type": "string", "pattern": r"^\d+\.\d+$"},
+                },
+            },
+        },
         "gate": _LEVEL,
         "show": _LEVEL,
         "baseline": {"type": "string", "minLength": 1},
@@ -358,6 +383,8 @@ class Project:
     show: Severity | None = None
     baseline: Path | None = None
     installed: dict[str, str] = field(default_factory=dict)  # library -> release (``installed:``)
+    models: tuple = ()  # (id, knowledge.models.Architecture) pairs declared here
+    gpu_types: dict[str, Any] = field(default_factory=dict)  # name -> knowledge.hardware.Gpu declared here
 
     def relative(self, file: str | Path) -> str | None:
         """The file's path relative to the project root, '/'-separated; None when outside it."""
@@ -414,6 +441,8 @@ class Project:
                     if prof.launch:
                         values["launch"] = prof.launch
             values["waivers"] = tuple(w for globs, w in self.waivers if matches(rel, globs))
+        if self.models:
+            values["models"] = self.models
         for name, value in given.items():
             if value is None:
                 continue
@@ -682,12 +711,26 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
                 problems.append((name, line, col, f"rule {r} has no threshold {tname!r} (its thresholds: {known})"))
                 continue
             thresholds.setdefault(r, {})[tname] = value
+    from .knowledge.hardware import declared_gpu
+    from .knowledge.models import declared_model
+
+    gpu_types = {}
+    for i, g in enumerate(data.get("gpu_types") or []):
+        gpu_types[g["name"].strip().lower()] = declared_gpu(g, name)
+    models = []
+    for i, m in enumerate(data.get("models") or []):
+        got = declared_model(m["id"].strip(), m, path.parent, name)
+        if isinstance(got, str):
+            line, col = locate(("models", i))
+            problems.append((name, line, col, f"models[{i}] ({m['id']}): {got}"))
+        else:
+            models.append((m["id"].strip(), got))
     profiles = []
     for i, prof in enumerate(data.get("profiles") or []):
         gpu = None
         if "gpu" in prof:
             try:
-                gpu = find_gpu(prof["gpu"])
+                gpu = gpu_types.get(prof["gpu"].strip().lower()) or find_gpu(prof["gpu"])
             except UnknownGpu as exc:
                 line, col = locate(("profiles", i, "gpu"))
                 problems.append((name, line, col, str(exc)))
@@ -718,4 +761,5 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
         show=Severity.parse(data["show"]) if "show" in data else None,
         baseline=(root / data["baseline"]) if "baseline" in data else None,
         installed={str(k): str(v) for k, v in (data.get("installed") or {}).items()},
+        models=tuple(models), gpu_types=gpu_types,
     )

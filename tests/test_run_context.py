@@ -475,3 +475,14 @@ def test_parameter_offload_makes_the_estimate_an_upper_bound_and_at_most_a_warni
     view = fr.views[0]
     plan = derive_plan(view, model_of(view, "x.yaml", None), gpu=None, gpus=2, rows=None)
     assert plan.memory_inputs.offload_optimizer and plan.memory.optimizer_bytes == 0
+
+
+def test_a_model_matched_by_its_name_alone_caps_model_verdicts_only():
+    # "acme/...-Qwen3-4B-..." is matched to the Qwen3-4B shape by its name tokens: an assumption
+    text = "model_name_or_path: acme/Qwen3-4B-Instruct-special\nlearning_rate: 1.0e-4\nbf16: true\n"
+    fr = api.lint_text(text, "x.yaml", gpu="t4", gpus=1)
+    by_rule = {f.rule: f for f in fr.findings}
+    lr = by_rule["full-finetune-lr-too-high"]  # needs the model: rests on the name match
+    assert lr.severity <= Severity.WARNING and "assuming the model is" in lr.message
+    bf16 = by_rule["precision-unsupported-on-gpu"]  # bf16 written, the T4 flagged: no model involved
+    assert bf16.severity == Severity.ERROR and "assuming the model" not in bf16.message

@@ -78,8 +78,10 @@ def target_not_in_model(ctx) -> None:
         got = _arch_or_judge(ctx)
         if got is None:
             return
-        arch, linear = got
-        known = set(linear) | {"embed_tokens", "lm_head"}
+        arch, _linear = got
+        from ..knowledge.models import target_names
+
+        known = set(target_names(arch))
         where = f"{arch.family} ({arch.source or 'model config'})"
     missing = [n for n in names if n.rsplit(".", 1)[-1] not in known and not _REGEX_CHARS.search(n)]
     if not missing:

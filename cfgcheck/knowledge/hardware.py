@@ -109,3 +109,15 @@ def find_gpu(name: str) -> Gpu:
     if n in ALIASES:
         return GPUS[ALIASES[n]]
     raise UnknownGpu(name)
+
+
+def declared_gpu(data: dict, project_file: str) -> Gpu:
+    """A GPU the project file declares (name, memory in GB, compute capability "X.Y", optional label)."""
+    major, minor = (int(x) for x in str(data["capability"]).split("."))
+    return Gpu(
+        name=str(data["name"]).strip(),
+        label=str(data.get("label") or data["name"]).strip(),
+        capability=(major, minor),
+        memory_bytes=int(float(data["memory_gb"]) * GB),
+        source=f"declared in {project_file}",
+    )

@@ -443,8 +443,9 @@ def _quantised_rows(arch: Architecture) -> tuple[int, int, int]:
     """
     quant = rows = 0
     for name, kind, params in module_table(arch):
-        if kind == "linear" and name != "lm_head":
-            fout, fin = params["weight"]
+        if kind in ("linear", "conv1d") and name != "lm_head":
+            # transformers' bitsandbytes integration quantises GPT-2's Conv1D too (weight stored in x out)
+            fout, fin = params["weight"] if kind == "linear" else params["weight"][::-1]
             quant += fout * fin
             rows += fout
         elif kind == "experts":
@@ -480,7 +481,7 @@ def _linear_weight_params(arch: Architecture, *, skip_first_attention_inputs: bo
     total = 0
     first = f"model.layers.0.self_attn."
     for name, kind, params in module_table(arch):
-        if kind not in ("linear", "experts"):
+        if kind not in ("linear", "conv1d", "experts"):
             continue
         if skip_first_attention_inputs and name.startswith(first) and name.rsplit(".", 1)[-1] in (
                 "q_proj", "k_proj", "v_proj", "qkv_proj"):

@@ -32,7 +32,7 @@ import json
 import math
 import os
 import re
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from functools import lru_cache
 from pathlib import Path
 from typing import Iterable
@@ -48,7 +48,14 @@ __all__ = [
     "catalogue",
     "module_table",
     "total_parameters",
+    "active_parameters",
+    "expert_parameters",
+    "match_catalogue",
+    "catalogue_entries",
+    "CatalogueEntry",
+    "FUSED_QKV",
     "linear_modules",
+    "target_names",
     "resolve_targets",
     "target_leaf_names",
     "unsupported_target_matches",
@@ -62,24 +69,42 @@ __all__ = [
 
 @dataclass(frozen=True)
 class Architecture:
-    """Shapes of a decoder-only language model (names follow transformers' config.json keys)."""
+    """Shapes of a decoder-only language model (names follow transformers' config.json keys).
+
+    The last three fields say how a reference was matched to these shapes (see :func:`match_model`);
+    they take no part in equality or hashing, so two matches of the same shapes are equal.
+    """
 
     family: str  # transformers model_type: "llama", "mistral", "qwen2", ...
     hidden_size: int
-    intermediate_size: int
+    intermediate_size: int  # dense FFN width (gpt_oss: each expert's width)
     num_layers: int
     num_heads: int
     num_kv_heads: int
-    head_dim: int
+    head_dim: int  # deepseek_v2: the query/key head width, qk_nope_head_dim + qk_rope_head_dim
     vocab_size: int
-    max_position_embeddings: int | None
+    max_position_embeddings: int | None  # the context window the config states
     tie_word_embeddings: bool
     torch_dtype: str | None  # stored dtype, e.g. "bfloat16"
-    num_experts: int = 0  # mixture of experts (mixtral: num_local_experts); 0 = dense
-    experts_per_token: int = 0
+    num_experts: int = 0  # mixture of experts: routed experts per MoE layer; 0 = dense
+    experts_per_token: int = 0  # routed experts active per token
     source: str = ""  # where the numbers came from
     attention_bias: bool = False  # bias on q/k/v/o (llama/qwen3 `attention_bias`); qwen2 has q/k/v bias always
     mlp_bias: bool = False  # llama `mlp_bias`
+    sliding_window: int | None = None  # local-attention window where the config sets one
+    expert_intermediate_size: int = 0  # moe_intermediate_size (0: the experts use intermediate_size)
+    shared_expert_intermediate_size: int = 0  # always-active shared expert(s) FFN width, 0 = none
+    first_dense_layers: int = 0  # deepseek first_k_dense_replace: leading layers with a dense MLP
+    kv_lora_rank: int = 0  # deepseek_v2 latent attention
+    q_lora_rank: int = 0
+    qk_rope_head_dim: int = 0
+    v_head_dim: int = 0
+    parallel_norms: int = 0  # falcon new_decoder_architecture: 2 layer norms (ln_attn, ln_mlp), else 1
+    entry: str = field(default="", compare=False)  # catalogue entry (canonical id) the shapes came from
+    how: str = field(default="", compare=False)  # how the reference was matched, in words
+    assumed: bool = field(default=False, compare=False)  # True when the match rests on the name alone
+    match: str = field(default="", compare=False)  # exact | mirror | variant | derived | tokens | config | declared
+    quantised: str = field(default="", compare=False)  # what a quantised export stores ("GPTQ", "GGUF Q4_K_M")
 
     @property
     def is_moe(self) -> bool:
@@ -94,24 +119,41 @@ class NoDefaultTargets(ValueError):
     """``target_modules`` is unset and PEFT has no default for this family (PEFT raises too)."""
 
 
-# Families whose module layout is modelled (transformers 5.x layouts).
-SUPPORTED_FAMILIES = frozenset({"llama", "mistral", "qwen2", "qwen3", "gemma", "gemma2", "phi3", "mixtral"})
+# Families whose module layout is modelled (transformers 5.x layouts, checked in tests/reference).
+SUPPORTED_FAMILIES = frozenset({
+    "llama", "mistral", "qwen2", "qwen3", "gemma", "gemma2", "gemma3_text", "phi3", "mixtral", "granite",
+    "smollm3", "olmo", "olmo2", "starcoder2", "phi", "gpt2", "gpt_neox", "falcon", "qwen2_moe", "qwen3_moe",
+    "deepseek_v2", "gpt_oss",
+})
+
+# Families whose q, k and v come out of one fused projection (LoRA on it adapts all three together).
+FUSED_QKV = {"gpt2": "c_attn", "gpt_neox": "query_key_value", "falcon": "query_key_value", "phi3": "qkv_proj"}
 
 # PEFT @5d602fdb / 0.21 `TRANSFORMERS_MODELS_TO_LORA_TARGET_MODULES_MAPPING` (utils/constants.py),
-# restricted to the families above. phi3 is absent there: PEFT raises when target_modules is unset.
+# restricted to the families above. The others are absent there: PEFT raises when target_modules is unset.
 PEFT_DEFAULT_TARGETS: dict[str, tuple[str, ...]] = {
     "llama": ("q_proj", "v_proj"),
     "mistral": ("q_proj", "v_proj"),
     "mixtral": ("q_proj", "v_proj"),
     "gemma": ("q_proj", "v_proj"),
     "gemma2": ("q_proj", "v_proj"),
+    "gemma3_text": ("q_proj", "v_proj"),
     "qwen2": ("q_proj", "v_proj"),
     "qwen3": ("q_proj", "v_proj"),
+    "phi": ("q_proj", "v_proj", "fc1", "fc2"),
+    "gpt2": ("c_attn",),
+    "gpt_neox": ("query_key_value",),
+    "falcon": ("query_key_value",),
 }
 
 # transformers 5.x config-class defaults used when config.json omits a key.
-_DEFAULT_TIE = {"gemma": True, "gemma2": True}  # GemmaConfig / Gemma2Config default tie_word_embeddings=True
-_DEFAULT_HEAD_DIM = {"gemma": 256, "gemma2": 256, "qwen3": 128}  # fixed defaults, not hidden/heads
+_DEFAULT_TIE = {  # tie_word_embeddings=True in these config classes
+    "gemma": True, "gemma2": True, "gemma3_text": True, "smollm3": True, "starcoder2": True, "gpt2": True,
+    "falcon": True,
+}
+_DEFAULT_HEAD_DIM = {"gemma": 256, "gemma2": 256, "gemma3_text": 256, "qwen3": 128}  # fixed, not hidden/heads
+# model_type of a multimodal or wrapper config -> the text family whose layout it uses
+_TEXT_FAMILY = {"gemma3": "gemma3_text", "qwen3_vl_text": "qwen3"}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -173,12 +215,33 @@ def _pos_int(value) -> int | None:
     return value
 
 
+def _nonneg_int(value, default: int = 0) -> int | None:
+    if value is None:
+        return default
+    if isinstance(value, bool) or not isinstance(value, int) or value < 0:
+        return None
+    return value
+
+
+# config.json key spellings of other families -> the llama-style names read below
+_KEY_ALIASES = {
+    "gpt2": {"hidden_size": "n_embd", "num_hidden_layers": "n_layer", "num_attention_heads": "n_head",
+             "intermediate_size": "n_inner", "max_position_embeddings": "n_positions"},
+    "falcon": {"num_hidden_layers": "n_layer", "num_attention_heads": "n_head"},  # FalconConfig.attribute_map
+}
+_FAMILY_ALIASES = {"RefinedWeb": "falcon", "RefinedWebModel": "falcon"}  # falcon's original model_type names
+
+
 def architecture_from_config(data: dict, source: str) -> Architecture | None:
     """An Architecture from a transformers config.json mapping, or None when the keys are missing.
 
     head_dim absent -> family default (gemma 256, qwen3 128) else hidden_size // num_attention_heads;
     num_key_value_heads absent -> num_attention_heads; tie_word_embeddings absent -> the family's
-    config-class default; multimodal configs with a ``text_config`` are read from it.
+    config-class default; multimodal configs with a ``text_config`` are read from it. Family
+    spellings follow the config classes: GPT-2's ``n_embd``/``n_layer``/``n_head``/``n_inner``
+    (absent: 4 x hidden), Falcon's ``num_kv_heads``/``multi_query``/``new_decoder_architecture``/
+    ``ffn_hidden_size``, Qwen-MoE's ``num_experts``/``moe_intermediate_size``, DeepSeek-V2's
+    ``n_routed_experts``/``n_shared_experts``/``first_k_dense_replace`` and latent-attention ranks.
     """
     if not isinstance(data, dict):
         return None
@@ -187,37 +250,95 @@ def architecture_from_config(data: dict, source: str) -> Architecture | None:
         for key in ("tie_word_embeddings", "torch_dtype", "dtype"):
             if key not in inner and key in data:
                 inner[key] = data[key]
+        if "model_type" not in inner and isinstance(data.get("model_type"), str):
+            inner["model_type"] = _TEXT_FAMILY.get(data["model_type"], data["model_type"])
         data = inner
     family = data.get("model_type")
     if not isinstance(family, str) or not family:
         return None
-    hidden = _pos_int(data.get("hidden_size"))
-    inter = _pos_int(data.get("intermediate_size"))
-    layers = _pos_int(data.get("num_hidden_layers"))
-    heads = _pos_int(data.get("num_attention_heads"))
-    vocab = _pos_int(data.get("vocab_size"))
+    family = _FAMILY_ALIASES.get(family, _TEXT_FAMILY.get(family, family))
+    names = _KEY_ALIASES.get(family, {})
+
+    def get(key, default=None):
+        alias = names.get(key)
+        if alias is not None and alias in data:
+            return data[alias]
+        return data.get(key, default)
+
+    hidden = _pos_int(get("hidden_size"))
+    layers = _pos_int(get("num_hidden_layers"))
+    heads = _pos_int(get("num_attention_heads"))
+    vocab = _pos_int(get("vocab_size"))
+    inter_raw = get("ffn_hidden_size") if family == "falcon" else get("intermediate_size")
+    if inter_raw is None and family in ("gpt2", "falcon") and hidden is not None:
+        inter_raw = 4 * hidden  # GPT2Config n_inner=None and FalconConfig ffn_hidden_size=None mean 4 x hidden
+    inter = _pos_int(inter_raw)
     if None in (hidden, inter, layers, heads, vocab):
         return None
-    kv = data.get("num_key_value_heads")
+    parallel_norms = 0
+    if family == "falcon":
+        if data.get("new_decoder_architecture"):
+            kv = data.get("num_kv_heads", heads)
+            norms = data.get("num_ln_in_parallel_attn")
+            parallel_norms = 2 if norms is None else norms
+        else:
+            kv = 1 if data.get("multi_query", True) else heads
+            parallel_norms = 1
+        if data.get("parallel_attn", True) is not True or parallel_norms not in (1, 2):
+            return None  # the sequential falcon-rw layout is not modelled
+    elif family in ("gpt2",):
+        kv = heads
+    else:
+        kv = data.get("num_key_value_heads")
     kv = heads if kv is None else _pos_int(kv)
     if kv is None or heads % kv != 0:
         return None
     head_dim = data.get("head_dim")
+    rope = nope = v_head = kv_rank = q_rank = 0
+    if family == "deepseek_v2":
+        rope, nope = _nonneg_int(data.get("qk_rope_head_dim"), 64), _nonneg_int(data.get("qk_nope_head_dim"), 128)
+        v_head, kv_rank = _nonneg_int(data.get("v_head_dim"), 128), _nonneg_int(data.get("kv_lora_rank"), 512)
+        q_rank = _nonneg_int(data.get("q_lora_rank"), 0)
+        if None in (rope, nope, v_head, kv_rank, q_rank):
+            return None
+        head_dim = rope + nope
     if head_dim is None:
         head_dim = _DEFAULT_HEAD_DIM.get(family, hidden // heads)
     head_dim = _pos_int(head_dim)
     if head_dim is None:
         return None
-    max_pos = data.get("max_position_embeddings")
+    max_pos = get("max_position_embeddings")
     max_pos = _pos_int(max_pos) if max_pos is not None else None
     tie = data.get("tie_word_embeddings", _DEFAULT_TIE.get(family, False))
-    dtype = data.get("dtype", data.get("torch_dtype"))
-    experts = data.get("num_local_experts", 0) or 0
-    per_tok = data.get("num_experts_per_tok", 0) or 0
-    if not isinstance(experts, int) or not isinstance(per_tok, int) or experts < 0 or per_tok < 0:
+    dtype = data.get("dtype") or data.get("torch_dtype")
+    experts = per_tok = expert_inter = shared = first_dense = 0
+    if family in ("mixtral", "gpt_oss"):
+        experts, per_tok = data.get("num_local_experts", 0), data.get("num_experts_per_tok", 0)
+    elif family in ("qwen2_moe", "qwen3_moe"):
+        # hub config.json files say num_experts; transformers 5 writes it back as num_local_experts
+        experts = data.get("num_experts", data.get("num_local_experts", 0))
+        per_tok = data.get("num_experts_per_tok", 0)
+        expert_inter = data.get("moe_intermediate_size", 0)
+        shared = data.get("shared_expert_intermediate_size", 0) if family == "qwen2_moe" else 0
+        if data.get("decoder_sparse_step", 1) != 1 or data.get("mlp_only_layers"):
+            return None  # dense layers between sparse ones are not modelled
+    elif family == "deepseek_v2":
+        experts, per_tok = data.get("n_routed_experts", 0), data.get("num_experts_per_tok", 0)
+        expert_inter = data.get("moe_intermediate_size", 0)
+        n_shared = _nonneg_int(data.get("n_shared_experts"), 0)
+        first_dense = data.get("first_k_dense_replace", 0)
+        if n_shared is None or not isinstance(expert_inter, int) or data.get("moe_layer_freq", 1) != 1:
+            return None
+        shared = expert_inter * n_shared
+    checked = [_nonneg_int(v) for v in (experts, per_tok, expert_inter, shared, first_dense)]
+    if None in checked:
         return None
-    if family != "mixtral":
-        experts, per_tok = 0, 0
+    experts, per_tok, expert_inter, shared, first_dense = checked
+    window = data.get("sliding_window")
+    if data.get("use_sliding_window") is False:
+        window = None
+    window = _pos_int(window) if window is not None else None
+    bias_default = family == "falcon" and bool(data.get("bias", False))
     return Architecture(
         family=family,
         hidden_size=hidden,
@@ -233,8 +354,18 @@ def architecture_from_config(data: dict, source: str) -> Architecture | None:
         num_experts=experts,
         experts_per_token=per_tok,
         source=source,
-        attention_bias=bool(data.get("attention_bias", False)),
+        # gpt_neox: the bias of query_key_value is part of the layout, whatever attention_bias says
+        attention_bias=bias_default or (family != "gpt_neox" and bool(data.get("attention_bias", family == "gpt_oss"))),
         mlp_bias=bool(data.get("mlp_bias", False)),
+        sliding_window=window,
+        expert_intermediate_size=expert_inter,
+        shared_expert_intermediate_size=shared,
+        first_dense_layers=first_dense if experts else 0,
+        kv_lora_rank=kv_rank,
+        q_lora_rank=q_rank,
+        qk_rope_head_dim=rope,
+        v_head_dim=v_head,
+        parallel_norms=parallel_norms,
     )
 
 
@@ -246,7 +377,8 @@ def _read_config(path: Path) -> Architecture | None:
         return None
     if not isinstance(data, dict):
         return None
-    return architecture_from_config(data, f"config.json at {path}")
+    arch = architecture_from_config(data, f"config.json at {path}")
+    return replace(arch, how=f"config.json at {path}", match="config") if arch is not None else None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -254,40 +386,223 @@ def _read_config(path: Path) -> Architecture | None:
 # ---------------------------------------------------------------------------------------------
 
 _CATALOGUE_FILE = Path(__file__).with_name("base_models.json")
+_ARCH_FIELDS = None
+
+
+@dataclass(frozen=True)
+class CatalogueEntry:
+    """One bundled shape: its canonical id, other ids of the same shape, and where the numbers come from."""
+
+    id: str
+    aliases: tuple[str, ...]
+    arch: Architecture
+    source: str  # where the shapes come from ("from memory" = unverified)
+    published_total: int | None  # the published total parameter count, None where none is comparable
+    published_source: str | None
+    published_extra: int = 0  # parameters the published count holds beyond num_parameters() (stored extras)
+
+    @property
+    def ids(self) -> tuple[str, ...]:
+        return (self.id, *self.aliases)
 
 
 @lru_cache(maxsize=1)
-def _catalogue_entries() -> tuple[tuple[tuple[str, ...], Architecture], ...]:
-    raw = json.loads(_CATALOGUE_FILE.read_text(encoding="utf-8"))
+def _catalogue_raw() -> dict:
+    return json.loads(_CATALOGUE_FILE.read_text(encoding="utf-8"))
+
+
+@lru_cache(maxsize=1)
+def catalogue_entries() -> tuple[CatalogueEntry, ...]:
+    """The bundled catalogue, read once on the first lookup (lint start-up never reads it)."""
+    global _ARCH_FIELDS
+    if _ARCH_FIELDS is None:
+        _ARCH_FIELDS = {f for f in Architecture.__dataclass_fields__
+                        if f not in ("source", "entry", "how", "assumed", "match", "quantised")}
+    raw = _catalogue_raw()
     out = []
-    for entry in raw["models"]:
-        ids = tuple(entry["ids"])
-        fields = {k: v for k, v in entry.items() if k not in ("ids", "source", "num_layers")}
-        arch = Architecture(
-            num_layers=entry["num_layers"],
-            source=f"bundled catalogue: {entry['source']}",
-            **fields,
-        )
-        out.append((ids, arch))
+    for item in raw["models"]:
+        fields = {k: v for k, v in item.items() if k in _ARCH_FIELDS}
+        arch = Architecture(source=f"bundled catalogue: {item['id']} ({item['source']})", entry=item["id"], **fields)
+        out.append(CatalogueEntry(
+            id=item["id"], aliases=tuple(item.get("aliases", ())), arch=arch, source=item["source"],
+            published_total=item.get("published_total"), published_source=item.get("published_source"),
+            published_extra=item.get("published_extra", 0),
+        ))
     return tuple(out)
+
+
+def _catalogue_entries() -> tuple[tuple[tuple[str, ...], Architecture], ...]:
+    return tuple((e.ids, e.arch) for e in catalogue_entries())
 
 
 def catalogue() -> dict[str, Architecture]:
     """Every hub id in the bundled catalogue -> its Architecture."""
-    return {ref: arch for ids, arch in _catalogue_entries() for ref in ids}
+    return {ref: e.arch for e in catalogue_entries() for ref in e.ids}
 
 
-def _from_catalogue(ref: str) -> Architecture | None:
-    want = ref.strip().strip("/").lower()
-    entries = _catalogue_entries()
-    for ids, arch in entries:
-        if any(want == i.lower() for i in ids):
-            return arch
-    name = want.rsplit("/", 1)[-1]
-    for ids, arch in entries:
-        if any(name == i.lower().rsplit("/", 1)[-1] for i in ids):
-            return arch
+# --- name matching -----------------------------------------------------------------------------
+
+# Suffixes that name a variant of the same weights' shape (chat / instruction tuning, exports, dated releases).
+_VARIANT_SUFFIX = re.compile(
+    r"[-_.](instruct|it|chat|base|hf|pt|sft|dpo|rlhf|thinking|\d{4}|v\d+(?:\.\d+)?-hf)$", re.IGNORECASE
+)
+# Quantised or re-typed exports: (pattern, what is stored)
+_QUANT_SUFFIXES = (
+    (re.compile(r"[-_.]gguf$", re.I), "GGUF"),
+    (re.compile(r"[-_.](fp16|f16|float16)$", re.I), "float16"),
+    (re.compile(r"[-_.](bf16|bfloat16)$", re.I), "bfloat16"),
+    (re.compile(r"[-_.](fp32|f32|float32)$", re.I), "float32"),
+    (re.compile(r"[-_.](i?q\d(?:_[a-z0-9]+)*)$", re.I), "GGUF {0}"),
+    (re.compile(r"[-_.]gptq(?:[-_.]int[48])?$", re.I), "GPTQ"),
+    (re.compile(r"[-_.]awq$", re.I), "AWQ"),
+    (re.compile(r"[-_.]bnb[-_.]?([48])bit$", re.I), "bitsandbytes {0}-bit"),
+    (re.compile(r"[-_.](?:unsloth[-_.])?bnb$", re.I), "bitsandbytes"),
+    (re.compile(r"[-_.]([48])[-_.]?bits?$", re.I), "{0}-bit"),
+    (re.compile(r"[-_.](int[48]|fp8|nf4|exl2|mlx|mxfp4)$", re.I), "{0}"),
+)
+_ANY_EXPORT = re.compile("|".join(f"(?:{p.pattern})" for p, _ in _QUANT_SUFFIXES), re.I)
+_DTYPE_EXPORT = {"float16", "bfloat16", "float32"}
+# Tokens that say nothing about the shape (an organisation-like prefix, file or checkpoint words)
+_VERSION_TOKEN = re.compile(r"v\d+(?:\.\d+)*")
+_NEUTRAL_TOKENS = {"meta", "hf", "base", "pt", "model", "checkpoints", "checkpoint", "final", "latest", "main"}
+
+
+def _strip_exports(name: str) -> tuple[str, list[str], str | None]:
+    """(the name without export suffixes, the suffixes dropped, what a quantised export stores)."""
+    gguf = name.strip().lower().endswith(".gguf")
+    name = re.sub(r"\.gguf$", "", name.strip(), flags=re.I)
+    dropped: list[str] = []
+    stored: list[str] = []  # outermost suffix first
+    for _ in range(6):
+        if not _ANY_EXPORT.search(name):
+            break
+        for pattern, what in _QUANT_SUFFIXES:
+            m = pattern.search(name)
+            if m and m.start() > 0:
+                stored.append(what.format(*(g.upper() if not g.isdigit() else g for g in m.groups())))
+                dropped.append(name[m.start():])
+                name = name[: m.start()]
+                break
+        else:
+            break
+    if gguf and not any(s.startswith("GGUF") for s in stored):
+        stored.append("GGUF")
+    dtypes = [s for s in stored if s in _DTYPE_EXPORT]
+    formats = [s for s in stored if s not in _DTYPE_EXPORT]
+    if formats:  # a quantised export: name its format and bits in reading order ("AWQ INT4", "GGUF Q4_K_M")
+        return name, dropped, " ".join(reversed(formats)) + (f" {dtypes[0]}" if dtypes else "")
+    return name, dropped, dtypes[0] if dtypes else None
+
+
+def _strip_name(name: str) -> tuple[str, list[str], str | None]:
+    """(the name without variant and export suffixes, the suffixes dropped, what a quantised export stores)."""
+    name, dropped, stored = _strip_exports(name)
+    for _ in range(8):
+        m = _VARIANT_SUFFIX.search(name)
+        if not m or m.start() == 0:
+            more, extra, what = _strip_exports(name)  # an export tag before a variant tag
+            if not extra:
+                break
+            name, stored = more, stored or what
+            dropped.extend(extra)
+            continue
+        dropped.append(name[m.start():])
+        name = name[: m.start()]
+    return name.lower(), dropped, stored
+
+
+def _tokens(stripped: str) -> frozenset[str]:
+    return frozenset(t for t in re.split(r"[-_\s]+", stripped) if t)
+
+
+@lru_cache(maxsize=1)
+def _name_index():
+    by_id: dict[str, CatalogueEntry] = {}
+    by_name: dict[str, CatalogueEntry] = {}
+    by_stripped: dict[str, CatalogueEntry] = {}
+    token_rows: list[tuple[frozenset[str], CatalogueEntry]] = []
+    entries = catalogue_entries()
+    for e in entries:  # canonical ids first: they win a tie among same-name variants
+        by_stripped.setdefault(_strip_name(e.id.rsplit("/", 1)[-1])[0], e)
+    for e in entries:
+        for ref in e.ids:
+            by_id.setdefault(ref.lower(), e)
+            name = ref.rsplit("/", 1)[-1]
+            by_name.setdefault(name.lower(), e)
+            stripped = _strip_name(name)[0]
+            by_stripped.setdefault(stripped, e)
+            # release tags (v0.1, v1.0) are not required: a fine-tune's name rarely repeats them
+            token_rows.append((frozenset(t for t in _tokens(stripped) - _NEUTRAL_TOKENS if not _VERSION_TOKEN.fullmatch(t)), e))
+    derived = _catalogue_raw().get("derived", [])
+    ids = {e.id: e for e in catalogue_entries()}
+    derived_rows = [(frozenset(d["tokens"]), ids[d["base"]], d["source"]) for d in derived if d["base"] in ids]
+    return by_id, by_name, by_stripped, token_rows, derived_rows
+
+
+def _catalogue_match(entry: CatalogueEntry, kind: str, how: str, assumed: bool, stored: str | None = None) -> Architecture:
+    arch = entry.arch
+    changes = {"how": how, "assumed": assumed, "match": kind}
+    if assumed:  # messages quote the source: a name-only match says so there
+        changes["source"] = f"{arch.source}; assumed from the name: {how}"
+    if stored in _DTYPE_EXPORT:
+        changes["torch_dtype"] = stored
+    elif stored:
+        changes["quantised"] = stored
+    return replace(arch, **changes)
+
+
+def match_catalogue(ref: str) -> Architecture | None:
+    """The bundled shape a hub id names, with ``how`` (in words), ``match`` and ``assumed`` set; None if unknown.
+
+    In order: the exact id or a listed alias (case-insensitive) -> "exact"; the same name under another
+    organisation (a mirror) -> "mirror"; the name without variant suffixes (-Instruct, -it, -chat, -Base,
+    -hf, dated -2507) and export suffixes (-GPTQ, -AWQ, -bnb-4bit, -fp16, GGUF quant tags) -> "variant";
+    a known fine-tune family named with its base's size (zephyr-7b -> Mistral-7B) -> "derived"; the
+    family and size tokens of one entry all present in the name -> "tokens". Everything but "exact"
+    rests on the name alone and is marked ``assumed``.
+    """
+    if not isinstance(ref, str) or not ref.strip():
+        return None
+    ref = ref.strip().strip("/")
+    by_id, by_name, by_stripped, token_rows, derived_rows = _name_index()
+    e = by_id.get(ref.lower())
+    if e is not None:
+        return _catalogue_match(e, "exact", f"{ref}: catalogue entry {e.id}", False)
+    name = ref.rsplit("/", 1)[-1]
+    e = by_name.get(name.lower())
+    if e is not None:
+        return _catalogue_match(e, "mirror", f"{ref} -> the {e.id} shape, matched by name (same name, other organisation)", True)
+    stripped, dropped, stored = _strip_name(name)
+    export = f"; a {stored} export" if stored and stored not in _DTYPE_EXPORT else (f"; stored as {stored}" if stored else "")
+    plain, export_tags, _what = _strip_exports(name)
+    e = by_name.get(plain.lower()) if export_tags else None
+    if e is not None:  # the export of a listed id: only the export suffixes differ
+        suffixes = ", ".join(reversed(export_tags))
+        return _catalogue_match(e, "variant", f"{ref} -> the {e.id} shape, matched by name without {suffixes}{export}", True, stored)
+    e = by_stripped.get(stripped)
+    if e is not None and dropped:
+        suffixes = ", ".join(reversed(dropped))
+        return _catalogue_match(e, "variant", f"{ref} -> the {e.id} shape, matched by name without {suffixes}{export}", True, stored)
+    toks = _tokens(stripped)
+    best = [(len(t), base, src) for t, base, src in derived_rows if t <= toks]
+    if best:
+        n, base, src = max(best, key=lambda x: x[0])
+        if sum(1 for b in best if b[0] == n and b[1].arch != base.arch) == 0:
+            return _catalogue_match(base, "derived", f"{ref} -> the {base.id} shape, matched by name as a fine-tune of it ({src}){export}", True, stored)
+    hits = [(len(t), e) for t, e in token_rows if t and t <= toks and any(_SIZE_TOKEN.fullmatch(x) for x in t)]
+    if hits:
+        n = max(h[0] for h in hits)
+        top = {h[1].id: h[1] for h in hits if h[0] == n}
+        # entries that differ only in context window or stored dtype are one parameter shape
+        shapes = {replace(e.arch, max_position_embeddings=None, torch_dtype=None, source="") for e in top.values()}
+        if len(shapes) == 1:
+            e = next(iter(top.values()))
+            shared = sorted(max((t for t, x in token_rows if x is e and t <= toks), key=len))
+            return _catalogue_match(e, "tokens", f"{ref} -> the {e.id} shape, matched by the name tokens {', '.join(shared)}{export}", True, stored)
     return None
+
+
+_SIZE_TOKEN = re.compile(r"\d+(?:\.\d+)?[bm]|\d+x\d+b|a\d+(?:\.\d+)?b|small|medium|large|xl|mini|gpt2")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -343,12 +658,61 @@ def _from_hub_cache(ref: str, cache: Path) -> Architecture | None:
     return None
 
 
+def _hub_cache_adapter_base(ref: str, cache: Path) -> str | None:
+    """base_model_name_or_path of an adapter repository in the hub cache (adapter_config.json, no config.json)."""
+    folder_name = ("models--" + ref.replace("/", "--")).lower()
+    try:
+        if not cache.is_dir():
+            return None
+        repos = [p for p in cache.iterdir() if p.is_dir() and p.name.lower() == folder_name]
+        snapshots = [s for r in repos if (r / "snapshots").is_dir() for s in (r / "snapshots").iterdir()]
+    except OSError:
+        return None
+    for snap in snapshots:
+        base = _adapter_base(snap)
+        if base is not None:
+            return base
+    return None
+
+
+def declared_model(ref: str, data: dict, project_dir: Path, project_file: str) -> Architecture | str:
+    """A model the project file declares: ``config`` (a config.json path, relative to the project file)
+    or the shape itself in config.json key names (``model_type`` or ``family``, ``hidden_size``, ...).
+    Returns the Architecture, or a sentence saying what is wrong."""
+    if "config" in data:
+        path = Path(str(data["config"])).expanduser()
+        if not path.is_absolute():
+            path = project_dir / path
+        if path.is_dir():
+            path = path / "config.json"
+        try:
+            raw = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, ValueError, RecursionError) as exc:
+            return f"cannot read {path}: {exc.__class__.__name__}"
+        where = f"config.json at {path}, declared in {project_file}"
+    else:
+        raw = {k: v for k, v in data.items() if k != "id"}
+        if "family" in raw and "model_type" not in raw:
+            raw["model_type"] = raw.pop("family")
+        if "num_layers" in raw and "num_hidden_layers" not in raw:
+            raw["num_hidden_layers"] = raw.pop("num_layers")
+        where = f"declared in {project_file}"
+    arch = architecture_from_config(raw, where) if isinstance(raw, dict) else None
+    if arch is None:
+        return ("not a model shape: needs model_type, hidden_size, intermediate_size, num_hidden_layers, "
+                "num_attention_heads and vocab_size")
+    if arch.family not in SUPPORTED_FAMILIES:
+        return f"model family {arch.family!r} has no module layout here (supported: {', '.join(sorted(SUPPORTED_FAMILIES))})"
+    return replace(arch, entry=ref, how=f"{ref}: {where}", match="declared", assumed=False)
+
+
 def resolve_model(
     ref: str | None,
     *,
     config_dir: Path | None = None,
     cwd: Path | None = None,
     hub_cache: Path | None = None,
+    declared=None,
 ) -> Architecture | None:
     """Find the architecture behind a model reference, offline. Never raises on user input.
 
@@ -356,11 +720,31 @@ def resolve_model(
     first, then against ``config_dir``, the folder of the file being linted); then the local hub
     cache (``hub_cache``, else HF_HUB_CACHE, HF_HOME/hub or ~/.cache/huggingface/hub, layout
     ``models--ORG--NAME/snapshots/<rev>/config.json``, preferring ``refs/main``); then the bundled
-    catalogue (case-insensitive, also by the name without the organisation). A local PEFT adapter
+    catalogue (:func:`match_catalogue`: exact ids, mirrors, variants and exports, fine-tunes, name
+    tokens; every match sets ``how``, ``match`` and ``assumed``). Models the project file declares
+    (``declared``: pairs of id and Architecture) come before everything else. A local PEFT adapter
     folder (adapter_config.json) resolves to its ``base_model_name_or_path``. A local folder whose
     config.json is unreadable or not a model config gives None.
     """
+    if declared and isinstance(ref, str):
+        hit = dict((k.lower(), v) for k, v in declared).get(ref.strip().lower())
+        if hit is not None:
+            return hit
     return _resolve(ref, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=0)
+
+
+def _by_folder_name(ref: str) -> Architecture | None:
+    """A path that is not on this machine (a checkpoint folder of the training host, such as torchtune's
+    ``/tmp/Qwen3-8B``): matched by its last component's name, as an assumption."""
+    parts = [p for p in re.split(r"[\\/]", ref) if p and p not in (".", "..")]
+    if not parts or not _HUB_ID_RE.match(parts[-1]):
+        return None
+    arch = match_catalogue(parts[-1])
+    if arch is None:
+        return None
+    how = f"{ref}: no such folder here; its name {parts[-1]!r} -> the {arch.entry} shape ({arch.match} match)"
+    return replace(arch, how=how, assumed=True, match="folder name",
+                   source=f"{arch.source.split('; assumed from the name:')[0]}; assumed from the name: {how}")
 
 
 def _adapter_base(folder: Path) -> str | None:
@@ -401,19 +785,26 @@ def _resolve(ref, *, config_dir, cwd, hub_cache, depth) -> Architecture | None:
     except (OSError, ValueError):
         return None
     if not _HUB_ID_RE.match(ref):
-        return None
+        return _by_folder_name(ref)
     cache = Path(hub_cache) if hub_cache is not None else _default_hub_cache()
     arch = _from_hub_cache(ref, cache)
     if arch is not None:
         return arch
-    return _from_catalogue(ref)
+    base = _hub_cache_adapter_base(ref, cache) if depth == 0 else None
+    if base is not None and base.strip().lower() != ref.lower():
+        arch = _resolve(base, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=1)
+        if arch is not None:
+            how = f"{ref}: an adapter in the hub cache whose base_model_name_or_path is {base}; {arch.how or arch.source}"
+            return replace(arch, source=f"{arch.source} (base of the adapter {ref})", how=how)
+    return match_catalogue(ref)
 
 
 # ---------------------------------------------------------------------------------------------
 # Module tree (transformers 5.x layout)
 # ---------------------------------------------------------------------------------------------
 
-# kinds: "container", "linear", "embedding", "norm", "router", "experts", "other"
+# kinds: "container", "linear", "conv1d" (GPT-2's transposed Linear), "embedding", "norm", "router", "experts",
+# "other"
 Module = tuple[str, str, dict]  # (full name, kind, {param name: shape})
 
 
@@ -432,47 +823,194 @@ def _linear(name: str, fin: int, fout: int, bias: bool) -> Module:
     return (name, "linear", params)
 
 
-def _layer_modules(arch: Architecture, prefix: str) -> list[Module]:
+def _conv1d(name: str, fin: int, fout: int) -> Module:
+    # transformers' GPT-2 Conv1D: weight stored (in, out), always with a bias; PEFT wraps it like a Linear
+    return (name, "conv1d", {"weight": (fin, fout), "bias": (fout,)})
+
+
+def _layer_norm(name: str, width: int) -> Module:
+    return (name, "norm", {"weight": (width,), "bias": (width,)})
+
+
+def _rms(name: str, width: int) -> Module:
+    return (name, "norm", {"weight": (width,)})
+
+
+def _gated_mlp(m: str, h: int, inter: int, bias: bool) -> list[Module]:
+    return [
+        (m, "container", {}),
+        _linear(f"{m}.gate_proj", h, inter, bias),
+        _linear(f"{m}.up_proj", h, inter, bias),
+        _linear(f"{m}.down_proj", inter, h, bias),
+        (f"{m}.act_fn", "other", {}),
+    ]
+
+
+def _is_moe_layer(arch: Architecture, index: int) -> bool:
+    return arch.num_experts > 0 and index >= arch.first_dense_layers
+
+
+def _layer_modules(arch: Architecture, prefix: str, index: int = 0) -> list[Module]:
     h, d, H, KV, inter = arch.hidden_size, arch.head_dim, arch.num_heads, arch.num_kv_heads, arch.intermediate_size
     fam = arch.family
-    qkv_bias = arch.attention_bias or fam == "qwen2"  # Qwen2Attention: q/k/v bias=True, o bias=False
-    o_bias = arch.attention_bias and fam != "qwen2"
-    mods: list[Module] = [(prefix, "container", {}), (f"{prefix}.self_attn", "container", {})]
+    if fam == "gpt2":
+        return [
+            (prefix, "container", {}),
+            _layer_norm(f"{prefix}.ln_1", h),
+            (f"{prefix}.attn", "container", {}),
+            _conv1d(f"{prefix}.attn.c_attn", h, 3 * h),
+            _conv1d(f"{prefix}.attn.c_proj", h, h),
+            (f"{prefix}.attn.attn_dropout", "other", {}),
+            (f"{prefix}.attn.resid_dropout", "other", {}),
+            _layer_norm(f"{prefix}.ln_2", h),
+            (f"{prefix}.mlp", "container", {}),
+            _conv1d(f"{prefix}.mlp.c_fc", h, inter),
+            _conv1d(f"{prefix}.mlp.c_proj", inter, h),
+            (f"{prefix}.mlp.act", "other", {}),
+            (f"{prefix}.mlp.dropout", "other", {}),
+        ]
+    if fam == "gpt_neox":
+        return [
+            (prefix, "container", {}),
+            _layer_norm(f"{prefix}.input_layernorm", h),
+            _layer_norm(f"{prefix}.post_attention_layernorm", h),
+            (f"{prefix}.post_attention_dropout", "other", {}),
+            (f"{prefix}.post_mlp_dropout", "other", {}),
+            (f"{prefix}.attention", "container", {}),
+            _linear(f"{prefix}.attention.query_key_value", h, 3 * H * d, True),
+            _linear(f"{prefix}.attention.dense", H * d, h, True),
+            (f"{prefix}.mlp", "container", {}),
+            _linear(f"{prefix}.mlp.dense_h_to_4h", h, inter, True),
+            _linear(f"{prefix}.mlp.dense_4h_to_h", inter, h, True),
+            (f"{prefix}.mlp.act", "other", {}),
+        ]
+    if fam == "falcon":
+        # FalconAttention: fused q/k/v; new_decoder_architecture (40B, 180B) has grouped K/V heads and two
+        # parallel layer norms; multi_query (7B) one K/V head; bias=False for the released models
+        a, m, b = f"{prefix}.self_attention", f"{prefix}.mlp", arch.attention_bias
+        mods = [
+            (prefix, "container", {}),
+            (a, "container", {}),
+            _linear(f"{a}.query_key_value", h, (H + 2 * KV) * d, b),
+            _linear(f"{a}.dense", H * d, h, b),
+            (f"{a}.attention_dropout", "other", {}),
+            (m, "container", {}),
+            _linear(f"{m}.dense_h_to_4h", h, inter, b),
+            (f"{m}.act", "other", {}),
+            _linear(f"{m}.dense_4h_to_h", inter, h, b),
+        ]
+        if arch.parallel_norms == 2:
+            mods += [_layer_norm(f"{prefix}.ln_attn", h), _layer_norm(f"{prefix}.ln_mlp", h)]
+        else:
+            mods.append(_layer_norm(f"{prefix}.input_layernorm", h))
+        return mods
+    if fam == "phi":
+        a, m = f"{prefix}.self_attn", f"{prefix}.mlp"
+        return [
+            (prefix, "container", {}),
+            (a, "container", {}),
+            _linear(f"{a}.q_proj", h, H * d, True),
+            _linear(f"{a}.k_proj", h, KV * d, True),
+            _linear(f"{a}.v_proj", h, KV * d, True),
+            _linear(f"{a}.dense", H * d, h, True),
+            (m, "container", {}),
+            (f"{m}.activation_fn", "other", {}),
+            _linear(f"{m}.fc1", h, inter, True),
+            _linear(f"{m}.fc2", inter, h, True),
+            _layer_norm(f"{prefix}.input_layernorm", h),
+            (f"{prefix}.resid_dropout", "other", {}),
+        ]
+
+    qkv_bias = arch.attention_bias or fam in ("qwen2", "qwen2_moe", "starcoder2", "gpt_oss")
+    o_bias = (arch.attention_bias and fam not in ("qwen2", "qwen2_moe")) or fam in ("starcoder2", "gpt_oss")
     a = f"{prefix}.self_attn"
+    mods: list[Module] = [(prefix, "container", {})]
+    mods.append((a, "container", {"sinks": (H,)} if fam == "gpt_oss" else {}))
     if fam == "phi3":
         mods.append(_linear(f"{a}.o_proj", H * d, h, False))
         mods.append(_linear(f"{a}.qkv_proj", h, H * d + 2 * KV * d, False))
+    elif fam == "deepseek_v2":
+        # multi-head latent attention (DeepSeek-V2 paper sec. 2.1; transformers DeepseekV2Attention)
+        rope, nope, v = arch.qk_rope_head_dim, d - arch.qk_rope_head_dim, arch.v_head_dim
+        if arch.q_lora_rank:
+            mods.append(_linear(f"{a}.q_a_proj", h, arch.q_lora_rank, False))
+            mods.append(_rms(f"{a}.q_a_layernorm", arch.q_lora_rank))
+            mods.append(_linear(f"{a}.q_b_proj", arch.q_lora_rank, H * d, False))
+        else:
+            mods.append(_linear(f"{a}.q_proj", h, H * d, False))
+        mods.append(_linear(f"{a}.kv_a_proj_with_mqa", h, arch.kv_lora_rank + rope, False))
+        mods.append(_rms(f"{a}.kv_a_layernorm", arch.kv_lora_rank))
+        mods.append(_linear(f"{a}.kv_b_proj", arch.kv_lora_rank, H * (nope + v), False))
+        mods.append(_linear(f"{a}.o_proj", H * v, h, False))
     else:
         mods.append(_linear(f"{a}.q_proj", h, H * d, qkv_bias))
         mods.append(_linear(f"{a}.k_proj", h, KV * d, qkv_bias))
         mods.append(_linear(f"{a}.v_proj", h, KV * d, qkv_bias))
         mods.append(_linear(f"{a}.o_proj", H * d, h, o_bias))
-    if fam == "qwen3":
-        mods.append((f"{a}.q_norm", "norm", {"weight": (d,)}))
-        mods.append((f"{a}.k_norm", "norm", {"weight": (d,)}))
+    if fam in ("qwen3", "qwen3_moe", "gemma3_text"):
+        mods.append(_rms(f"{a}.q_norm", d))
+        mods.append(_rms(f"{a}.k_norm", d))
+    elif fam == "olmo2":  # Olmo2Attention normalises the whole q and k projections
+        mods.append(_rms(f"{a}.q_norm", H * d))
+        mods.append(_rms(f"{a}.k_norm", KV * d))
     m = f"{prefix}.mlp"
-    mods.append((m, "container", {}))
+    E, ei = arch.num_experts, arch.expert_intermediate_size or inter
     if fam == "phi3":
+        mods.append((m, "container", {}))
         mods.append(_linear(f"{m}.gate_up_proj", h, 2 * inter, False))
         mods.append(_linear(f"{m}.down_proj", inter, h, False))
         mods.append((f"{m}.activation_fn", "other", {}))
+    elif fam == "starcoder2":
+        mods.append((m, "container", {}))
+        mods.append(_linear(f"{m}.c_fc", h, inter, True))
+        mods.append(_linear(f"{m}.c_proj", inter, h, True))
+        mods.append((f"{m}.act", "other", {}))
     elif fam == "mixtral":
-        E = arch.num_experts
+        mods.append((m, "container", {}))
         mods.append((f"{m}.gate", "router", {"weight": (E, h)}))
-        mods.append(
-            (f"{m}.experts", "experts", {"gate_up_proj": (E, 2 * inter, h), "down_proj": (E, h, inter)})
-        )
+        mods.append((f"{m}.experts", "experts", {"gate_up_proj": (E, 2 * inter, h), "down_proj": (E, h, inter)}))
         mods.append((f"{m}.experts.act_fn", "other", {}))
+    elif fam == "gpt_oss":
+        mods.append((m, "container", {}))
+        mods.append((f"{m}.router", "router", {"weight": (E, h), "bias": (E,)}))
+        mods.append((f"{m}.experts", "experts", {
+            "gate_up_proj": (E, h, 2 * ei), "gate_up_proj_bias": (E, 2 * ei),
+            "down_proj": (E, ei, h), "down_proj_bias": (E, h),
+        }))
+    elif fam in ("qwen2_moe", "qwen3_moe", "deepseek_v2") and _is_moe_layer(arch, index):
+        experts = [
+            (f"{m}.experts", "experts", {"gate_up_proj": (E, 2 * ei, h), "down_proj": (E, h, ei)}),
+            (f"{m}.experts.act_fn", "other", {}),
+        ]
+        router = (f"{m}.gate", "router", {"weight": (E, h)})
+        mods.append((m, "container", {}))
+        if fam == "qwen2_moe":
+            mods.append(router)
+            mods.extend(experts)
+            mods.extend(_gated_mlp(f"{m}.shared_expert", h, arch.shared_expert_intermediate_size, False))
+            mods.append(_linear(f"{m}.shared_expert_gate", h, 1, False))
+        else:
+            mods.extend(experts)
+            mods.append(router)
+            if fam == "deepseek_v2":
+                mods.extend(_gated_mlp(f"{m}.shared_experts", h, arch.shared_expert_intermediate_size, False))
     else:
-        mods.append(_linear(f"{m}.gate_proj", h, inter, arch.mlp_bias))
-        mods.append(_linear(f"{m}.up_proj", h, inter, arch.mlp_bias))
-        mods.append(_linear(f"{m}.down_proj", inter, h, arch.mlp_bias))
-        mods.append((f"{m}.act_fn", "other", {}))
-    mods.append((f"{prefix}.input_layernorm", "norm", {"weight": (h,)}))
-    mods.append((f"{prefix}.post_attention_layernorm", "norm", {"weight": (h,)}))
-    if fam == "gemma2":
-        mods.append((f"{prefix}.pre_feedforward_layernorm", "norm", {"weight": (h,)}))
-        mods.append((f"{prefix}.post_feedforward_layernorm", "norm", {"weight": (h,)}))
+        mods.extend(_gated_mlp(m, h, inter, arch.mlp_bias))
+    if fam == "olmo":  # OlmoLayerNorm: layer norm without learnable parameters
+        mods.append((f"{prefix}.input_layernorm", "norm", {}))
+        mods.append((f"{prefix}.post_attention_layernorm", "norm", {}))
+    elif fam == "olmo2":
+        mods.append(_rms(f"{prefix}.post_attention_layernorm", h))
+        mods.append(_rms(f"{prefix}.post_feedforward_layernorm", h))
+    elif fam == "starcoder2":
+        mods.append(_layer_norm(f"{prefix}.input_layernorm", h))
+        mods.append(_layer_norm(f"{prefix}.post_attention_layernorm", h))
+    else:
+        mods.append(_rms(f"{prefix}.input_layernorm", h))
+        mods.append(_rms(f"{prefix}.post_attention_layernorm", h))
+    if fam in ("gemma2", "gemma3_text"):
+        mods.append(_rms(f"{prefix}.pre_feedforward_layernorm", h))
+        mods.append(_rms(f"{prefix}.post_feedforward_layernorm", h))
     if fam == "phi3":
         mods.append((f"{prefix}.resid_attn_dropout", "other", {}))
         mods.append((f"{prefix}.resid_mlp_dropout", "other", {}))
@@ -497,17 +1035,64 @@ def _module_rows(arch: Architecture) -> tuple[Module, ...]:
 
 def _build_module_table(arch: Architecture) -> list[Module]:
     _require_supported(arch)
-    h, V = arch.hidden_size, arch.vocab_size
-    mods: list[Module] = [
-        ("model", "container", {}),
-        ("model.embed_tokens", "embedding", {"weight": (V, h)}),
-        ("model.layers", "container", {}),
-    ]
-    for i in range(arch.num_layers):
-        mods.extend(_layer_modules(arch, f"model.layers.{i}"))
-    mods.append(("model.norm", "norm", {"weight": (h,)}))
-    mods.append(("model.rotary_emb", "other", {}))
-    mods.append(("lm_head", "linear", {"weight": (V, h)}))
+    h, V, fam = arch.hidden_size, arch.vocab_size, arch.family
+    layers = range(arch.num_layers)
+    if fam == "gpt2":
+        mods: list[Module] = [
+            ("transformer", "container", {}),
+            ("transformer.wte", "embedding", {"weight": (V, h)}),
+            ("transformer.wpe", "embedding", {"weight": (arch.max_position_embeddings or 1024, h)}),
+            ("transformer.drop", "other", {}),
+            ("transformer.h", "container", {}),
+        ]
+        for i in layers:
+            mods.extend(_layer_modules(arch, f"transformer.h.{i}", i))
+        mods.append(_layer_norm("transformer.ln_f", h))
+    elif fam == "gpt_neox":
+        mods = [
+            ("gpt_neox", "container", {}),
+            ("gpt_neox.embed_in", "embedding", {"weight": (V, h)}),
+            ("gpt_neox.emb_dropout", "other", {}),
+            ("gpt_neox.layers", "container", {}),
+        ]
+        for i in layers:
+            mods.extend(_layer_modules(arch, f"gpt_neox.layers.{i}", i))
+        mods.append(_layer_norm("gpt_neox.final_layer_norm", h))
+        mods.append(("gpt_neox.rotary_emb", "other", {}))
+    elif fam == "falcon":
+        mods = [
+            ("transformer", "container", {}),
+            ("transformer.word_embeddings", "embedding", {"weight": (V, h)}),
+            ("transformer.h", "container", {}),
+        ]
+        for i in layers:
+            mods.extend(_layer_modules(arch, f"transformer.h.{i}", i))
+        mods.append(_layer_norm("transformer.ln_f", h))
+        mods.append(("transformer.rotary_emb", "other", {}))
+    else:
+        mods = [
+            ("model", "container", {}),
+            ("model.embed_tokens", "embedding", {"weight": (V, h)}),
+            ("model.layers", "container", {}),
+        ]
+        for i in layers:
+            mods.extend(_layer_modules(arch, f"model.layers.{i}", i))
+        if fam == "phi":
+            mods.append(("model.rotary_emb", "other", {}))
+            mods.append(("model.embed_dropout", "other", {}))
+            mods.append(_layer_norm("model.final_layernorm", h))
+        else:
+            if fam == "olmo":
+                mods.append(("model.norm", "norm", {}))
+            elif fam == "starcoder2":
+                mods.append(_layer_norm("model.norm", h))
+            else:
+                mods.append(_rms("model.norm", h))
+            mods.append(("model.rotary_emb", "other", {}))
+    head = {"weight": (V, h)}
+    if fam == "phi":
+        head["bias"] = (V,)  # PhiForCausalLM: lm_head = nn.Linear(..., bias=True)
+    mods.append(("lm_head", "linear", head))
     return mods
 
 
@@ -526,22 +1111,69 @@ def total_parameters(arch: Architecture) -> int:
     return total
 
 
+def expert_parameters(arch: Architecture) -> int:
+    """Parameters of the routed experts over all layers (0 for a dense model); router and shared experts excluded."""
+    return sum(
+        _numel(shape) for _name, kind, params in module_table(arch) if kind == "experts" for shape in params.values()
+    )
+
+
+def active_parameters(arch: Architecture) -> int:
+    """Parameters one token passes through: the total less the routed experts it is not sent to.
+
+    Every expert stays resident in memory (weights, and gradients and optimizer states when trained), so the
+    memory estimate uses :func:`total_parameters`; only compute per token scales with this figure. The router,
+    the shared experts and attention are always active. Equals the total for a dense model.
+    """
+    if not arch.is_moe:
+        return total_parameters(arch)
+    idle = arch.num_experts - min(arch.experts_per_token, arch.num_experts)
+    return total_parameters(arch) - expert_parameters(arch) * idle // arch.num_experts
+
+
 def linear_modules(arch: Architecture) -> dict[str, tuple[int, int]]:
-    """Per decoder layer: leaf module name -> (in_features, out_features) of each nn.Linear."""
+    """Per decoder layer: leaf module name -> (in_features, out_features) of each nn.Linear (or Conv1D).
+
+    Where the first layers are dense and the rest mixture-of-experts (DeepSeek), both kinds are merged.
+    """
     _require_supported(arch)
     out: dict[str, tuple[int, int]] = {}
-    for name, kind, params in _layer_modules(arch, "L"):
-        if kind == "linear":
-            fout, fin = params["weight"]
-            out[name.rsplit(".", 1)[-1]] = (fin, fout)
+    indices = sorted({0, min(arch.first_dense_layers, max(arch.num_layers - 1, 0))})
+    for index in indices:
+        for name, kind, params in _layer_modules(arch, "L", index):
+            if kind in _LINEAR_KINDS:
+                fin, fout = _in_out(kind, params["weight"])
+                out.setdefault(name.rsplit(".", 1)[-1], (fin, fout))
     return out
+
+
+def target_names(arch: Architecture) -> frozenset[str]:
+    """Last name components a LoRA ``target_modules`` list may name for this model and PEFT accept.
+
+    Every Linear, Conv1D and embedding (``embed_tokens``, GPT-2 ``wte``, GPT-NeoX ``embed_in``,
+    Falcon ``word_embeddings``, ``lm_head``), plus the transformers 4.x expert and router names that
+    PEFT rewrites for the fused transformers 5 layout (mixtral ``w1``/``w2``/``w3``/``gate``; qwen3_moe
+    and deepseek_v2 ``gate_proj``/``up_proj``/``down_proj``/``gate``).
+    """
+    names = {r[0].rsplit(".", 1)[-1] for r in module_table(arch) if r[1] in _LORA_KINDS}
+    if arch.family in _MOE_PATTERN:
+        names |= set(_MOE_CONVERSIONS[_MOE_PATTERN[arch.family]][0])
+    return frozenset(names)
+
+
+def _in_out(kind: str, weight: tuple[int, ...]) -> tuple[int, int]:
+    """(in_features, out_features) of a Linear (weight out x in) or a GPT-2 Conv1D (weight in x out)."""
+    if kind == "conv1d":
+        return weight[0], weight[1]
+    return weight[1], weight[0]
 
 
 # ---------------------------------------------------------------------------------------------
 # PEFT target resolution and counts (PEFT 0.21 semantics, tuners_utils.check_target_module_exists)
 # ---------------------------------------------------------------------------------------------
 
-_LORA_KINDS = ("linear", "embedding")  # module types LoRA can wrap among those modelled here
+_LINEAR_KINDS = ("linear", "conv1d")  # what PEFT's "all-linear" collects (nn.Linear and transformers' Conv1D)
+_LORA_KINDS = ("linear", "conv1d", "embedding")  # module types LoRA can wrap among those modelled here
 
 
 def _is_all_linear(targets) -> bool:
@@ -615,7 +1247,7 @@ def _match_rows(arch: Architecture, targets, modules_to_save) -> list[Module]:
         return [
             r
             for r in rows
-            if r[1] == "linear" and r[0] != "lm_head" and not _excluded_by_modules_to_save(r[0], modules_to_save)
+            if r[1] in _LINEAR_KINDS and r[0] != "lm_head" and not _excluded_by_modules_to_save(r[0], modules_to_save)
         ]
     norm = _normalise_targets(arch, targets)
     return [r for r in rows if _matches(norm, r[0]) and not _excluded_by_modules_to_save(r[0], modules_to_save)]
@@ -624,18 +1256,33 @@ def _match_rows(arch: Architecture, targets, modules_to_save) -> list[Module]:
 # PEFT 0.21 utils/transformers_weight_conversion.py: with transformers >= 5, mixtral targets written for the
 # 4.x layout are rewritten before injection: "gate" -> the router parameter "gate.weight", "w1" + "w3" -> the fused
 # expert parameter "gate_up_proj" (rank and alpha doubled; naming only one of them is an error), "w2" -> "down_proj".
-# A string target ("all-linear" or a regex) is first turned into a set of leaf names.
-_MOE_MAPPING = {"gate": "gate.weight", "w1": "gate_up_proj", "w3": "gate_up_proj", "w2": "down_proj"}
-_MOE_FUSED = {"gate_up_proj": ("w1", "w3")}
+# The families transformers maps to the "qwen2_moe" conversion pattern (qwen3_moe, deepseek_v2, ...) get the same
+# treatment with gate_proj + up_proj -> gate_up_proj: the shared experts' gate_proj/up_proj/down_proj, real
+# nn.Linear modules, are then no longer targeted as modules. A string target ("all-linear" or a regex) is first
+# turned into a set of leaf names.
+_MOE_CONVERSIONS = {
+    "mixtral": (
+        {"gate": "gate.weight", "w1": "gate_up_proj", "w3": "gate_up_proj", "w2": "down_proj"},
+        {"gate_up_proj": ("w1", "w3")},
+    ),
+    "qwen2_moe": (
+        {"gate": "gate.weight", "gate_proj": "gate_up_proj", "up_proj": "gate_up_proj", "down_proj": "down_proj"},
+        {"gate_up_proj": ("gate_proj", "up_proj")},
+    ),
+}
+# transformers 5.24 conversion_mapping._MODEL_TO_CONVERSION_PATTERN (+ PEFT's own "mixtral" entry), restricted
+# to the families modelled here; qwen2_moe itself has no entry there, so its targets are not rewritten.
+_MOE_PATTERN = {"mixtral": "mixtral", "qwen3_moe": "qwen2_moe", "deepseek_v2": "qwen2_moe"}
 
 
 def _moe_convert(arch: Architecture, targets, modules_to_save):
-    """(module targets, {parameter target: rank multiplier}) after PEFT's mixtral conversion."""
+    """(module targets, {parameter target: rank multiplier}) after PEFT's MoE target conversion."""
+    mapping, fused = _MOE_CONVERSIONS[_MOE_PATTERN[arch.family]]
     rows = module_table(arch)
     if isinstance(targets, str):
         if _is_all_linear(targets):
-            resolved = {r[0].rsplit(".", 1)[-1] for r in rows if r[1] == "linear" and r[0] != "lm_head"}
-            resolved |= set(_MOE_MAPPING)
+            resolved = {r[0].rsplit(".", 1)[-1] for r in rows if r[1] in _LINEAR_KINDS and r[0] != "lm_head"}
+            resolved |= set(mapping)
         else:
             keys = [r[0] for r in rows] + [f"{r[0]}.{p}" for r in rows for p in r[2]]
             resolved = {
@@ -647,7 +1294,7 @@ def _moe_convert(arch: Architecture, targets, modules_to_save):
             for r in rows:
                 for p in r[2]:
                     containers.setdefault(p, []).append(r[0])
-            for old, new in _MOE_MAPPING.items():
+            for old, new in mapping.items():
                 if old in resolved:
                     continue
                 if any(_matches(targets, f"{c}.{old}") for c in containers.get(new, ())):
@@ -659,20 +1306,20 @@ def _moe_convert(arch: Architecture, targets, modules_to_save):
         # PEFT 0.21 with transformers >= 5 turns an unset target_modules into an empty set here, so the
         # family default (q_proj, v_proj) is never applied and injection fails.
         raise NoDefaultTargets(
-            "target_modules is unset: for mixtral, PEFT's conversion to the transformers 5 layout leaves no "
+            f"target_modules is unset: for {arch.family}, PEFT's conversion to the transformers 5 layout leaves no "
             "targets and get_peft_model raises; set target_modules"
         )
     params: dict[str, int] = {}
     remaining: list[str] = []
     present: dict[str, set[str]] = {}
     for t in targets:
-        hit = next((old for old in _MOE_MAPPING if t == old or t.endswith(f".{old}")), None)
+        hit = next((old for old in mapping if t == old or t.endswith(f".{old}")), None)
         if hit is None:
             remaining.append(t)
             continue
-        params.setdefault(_MOE_MAPPING[hit], 1)
-        present.setdefault(_MOE_MAPPING[hit], set()).add(hit)
-    for new, olds in _MOE_FUSED.items():
+        params.setdefault(mapping[hit], 1)
+        present.setdefault(mapping[hit], set()).add(hit)
+    for new, olds in fused.items():
         got = present.get(new, set())
         if 0 < len(got) < len(olds):
             missing = ", ".join(sorted(set(olds) - got))
@@ -687,7 +1334,7 @@ def _moe_convert(arch: Architecture, targets, modules_to_save):
 
 def _plan(arch: Architecture, targets, modules_to_save):
     """(wrapped module rows, [(parameter full name, shape, rank multiplier)]) as PEFT would inject them."""
-    if arch.family != "mixtral":
+    if arch.family not in _MOE_PATTERN:
         return [r for r in _matched(arch, targets, modules_to_save)], []
     module_targets, param_targets = _moe_convert(arch, targets, modules_to_save)
     if isinstance(module_targets, list) and not module_targets:
@@ -779,10 +1426,11 @@ def lora_trainable_parameters(
         total += rank * mult * experts * (fin + fout)
     for name in wrapped:
         _, kind, params = rows[name]
-        rows_out, cols_in = params["weight"]
         if kind == "embedding":  # weight (V, h): A is r x V, B is h x r
+            rows_out, cols_in = params["weight"]
             total += rank * rows_out + cols_in * rank + (cols_in if use_dora else 0)
-        else:  # weight (out, in)
+        else:  # Linear weight (out, in); Conv1D weight (in, out)
+            cols_in, rows_out = _in_out(kind, params["weight"])
             total += rank * cols_in + rows_out * rank + (rows_out if use_dora else 0)
     for name in saved:
         # a module inside an already-wrapped module is not wrapped again

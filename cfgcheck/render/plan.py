@@ -31,10 +31,18 @@ def render_plan(file: str, plan: Plan, *, color: bool = False) -> str:
     if plan.arch is not None:
         model += f"  [{plan.arch.family}, {plan.arch.source}]"
     rows.append(("model", model))
+    if plan.arch is not None and plan.arch.how:
+        rows.append(("model match", plan.arch.how + (" (assumed from the name)" if plan.arch.assumed else "")))
     if plan.total_parameters:
         frac = (f" ({100 * plan.trainable_parameters / plan.total_parameters:.3g}%)"
                 if plan.trainable_parameters else "")
-        rows.append(("parameters", f"{_params(plan.total_parameters)} total, "
+        moe = ""
+        if plan.arch is not None and plan.arch.is_moe:
+            from ..knowledge.models import active_parameters
+
+            moe = (f" ({_params(active_parameters(plan.arch))} active per token; all {plan.arch.num_experts} "
+                   f"experts per layer stay in memory)")
+        rows.append(("parameters", f"{_params(plan.total_parameters)} total{moe}, "
                                    f"{_params(plan.trainable_parameters)} trainable{frac}"))
     if plan.adapter_scale is not None:
         eff = f", effective adapter LR {plan.effective_lr:.3g}" if plan.effective_lr is not None else ""

@@ -11,6 +11,7 @@ import transformers
 
 from cfgcheck.knowledge.memory import MemoryInputs, estimate_memory
 from cfgcheck.knowledge.models import (
+    PEFT_DEFAULT_TARGETS,
     Architecture,
     NoDefaultTargets,
     lora_scale,
@@ -24,14 +25,32 @@ from cfgcheck.knowledge.models import (
 from .conftest import hf_config
 
 FAMILIES = ["llama", "mistral", "qwen2", "qwen3", "gemma", "gemma2", "phi3", "mixtral"]
+# Families added later, including the fused-attention ones (GPT-2 c_attn, GPT-NeoX / Falcon query_key_value)
+# and the mixture-of-experts layouts with shared experts, a router bias or dense leading layers.
+MORE_FAMILIES = ["gemma3_text", "granite", "smollm3", "olmo", "olmo2", "starcoder2", "phi", "gpt2", "gpt_neox",
+                 "falcon", "falcon_new", "qwen2_moe", "qwen3_moe", "deepseek_v2", "gpt_oss"]
+
+_MOE = dict(num_experts=4, experts_per_token=2, expert_intermediate_size=16)
+_SHAPES = {
+    "phi": dict(num_kv_heads=4), "gpt2": dict(num_kv_heads=4), "gpt_neox": dict(num_kv_heads=4),
+    "falcon": dict(num_kv_heads=1, parallel_norms=1), "falcon_new": dict(num_kv_heads=2, parallel_norms=2),
+    "mixtral": dict(num_experts=4, experts_per_token=2),
+    "gpt_oss": dict(num_experts=4, experts_per_token=2, attention_bias=True),
+    "qwen2_moe": dict(_MOE, shared_expert_intermediate_size=40), "qwen3_moe": dict(_MOE),
+    "deepseek_v2": dict(_MOE, num_layers=3, num_kv_heads=4, head_dim=12, qk_rope_head_dim=4, v_head_dim=8,
+                        kv_lora_rank=16, shared_expert_intermediate_size=32, first_dense_layers=1),
+}
 
 
 def tiny(family: str, tied: bool) -> Architecture:
-    return Architecture(
+    base = dict(
         family=family, hidden_size=32, intermediate_size=48, num_layers=2, num_heads=4, num_kv_heads=2,
         head_dim=8, vocab_size=64, max_position_embeddings=128, tie_word_embeddings=tied, torch_dtype=None,
-        num_experts=4 if family == "mixtral" else 0, experts_per_token=2 if family == "mixtral" else 0,
     )
+    base.update(_SHAPES.get(family, {}))
+    if family == "falcon_new":
+        base["family"] = "falcon"
+    return Architecture(**base)
 
 
 def build(arch: Architecture):
@@ -39,14 +58,20 @@ def build(arch: Architecture):
     return transformers.AutoModelForCausalLM.from_config(hf_config(arch))
 
 
+_MLP = {"phi3": ["gate_up_proj", "down_proj"], "gpt2": ["c_fc", "c_proj"], "starcoder2": ["c_fc", "c_proj"],
+        "phi": ["fc1", "fc2"], "gpt_neox": ["dense_h_to_4h", "dense_4h_to_h"],
+        "falcon": ["dense_h_to_4h", "dense_4h_to_h"], "falcon_new": ["dense_h_to_4h", "dense_4h_to_h"],
+        "gpt_oss": ["experts"]}
+
+
 def mlp_targets(family):
-    return ["gate_up_proj", "down_proj"] if family == "phi3" else ["gate_proj", "up_proj", "down_proj"]
+    return _MLP.get(family, ["gate_proj", "up_proj", "down_proj"])
 
 
 TARGET_SETS = {
     "q_v": lambda fam: ["q_proj", "v_proj"],
     "all_linear": lambda fam: "all-linear",
-    "regex_attn_o": lambda fam: r".*\.self_attn\.(q_proj|o_proj|qkv_proj)",
+    "regex_attn_o": lambda fam: r".*\.(self_attn|attn|attention|self_attention)\.(q_proj|o_proj|qkv_proj|c_attn|query_key_value|dense)",
     "mlp_only": mlp_targets,
     "default": lambda fam: None,
 }
@@ -59,6 +84,11 @@ for fam in FAMILIES:
             for sname in SAVE_SETS:
                 rank = 4 if (len(CASES) % 2) else 8
                 CASES.append((fam, tied, tname, sname, rank))
+for fam in MORE_FAMILIES:
+    for tname in TARGET_SETS:
+        for sname in ("none", "lm_head"):
+            rank = 4 if (len(CASES) % 2) else 8
+            CASES.append((fam, fam in ("gpt2", "smollm3"), tname, sname, rank))
 
 
 def peft_count(arch, targets, rank, modules_to_save, use_dora=False, bias="none"):
@@ -80,6 +110,8 @@ def test_lora_trainable_equals_peft(fam, tied, tname, sname, rank):
     arch = tiny(fam, tied)
     targets = TARGET_SETS[tname](fam)
     mts = SAVE_SETS[sname]
+    if fam == "gpt2" and mts:
+        mts = [m.replace("embed_tokens", "wte") for m in mts]
     try:
         ours = lora_trainable_parameters(arch, rank=rank, targets=targets, modules_to_save=mts)
         wrapped = resolve_targets(arch, targets, mts)
@@ -239,3 +271,66 @@ def test_lora_states_on_bf16_base_equal_torch(mts, opt):
     est = estimate_memory(MemoryInputs(arch=STATE_ARCH, method="lora", lora_rank=4, lora_targets="all-linear",
                                        modules_to_save=tuple(mts or ()), optimizer=opt, sgd_momentum=0.9))
     assert (est.weights_bytes, est.gradients_bytes, est.optimizer_bytes) == (w, g, s)
+
+
+@pytest.mark.parametrize(
+    "fam,targets",
+    [("qwen2_moe", ["gate"]), ("qwen2_moe", ["shared_expert_gate", "q_proj"]), ("qwen2_moe", ["experts"]),
+     ("qwen2_moe", ["gate_proj", "up_proj", "down_proj"]),
+     ("qwen3_moe", ["gate"]), ("qwen3_moe", ["gate_proj"]), ("qwen3_moe", ["gate_proj", "up_proj"]),
+     ("qwen3_moe", ["down_proj", "o_proj"]), ("qwen3_moe", r".*\.mlp\.(gate_proj|up_proj)"),
+     ("deepseek_v2", ["gate_proj", "up_proj", "down_proj"]), ("deepseek_v2", ["gate", "kv_b_proj"]),
+     ("deepseek_v2", "all-linear"), ("gpt_oss", ["router"]), ("gpt_oss", ["q_proj", "o_proj"]),
+     ("gpt_oss", "all-linear")],
+    ids=lambda v: v if isinstance(v, str) else "+".join(v),
+)
+def test_router_shared_and_expert_targets_equal_peft(fam, targets):
+    # reference: PEFT 0.21 on transformers 5.24 MoE layouts: routers are not nn.Linear (unsupported as modules,
+    # the router weight becomes a target parameter where PEFT rewrites the names), shared experts are plain
+    # Linear layers, fused experts are 3-D parameters
+    arch = tiny(fam, False)
+    try:
+        ours = lora_trainable_parameters(arch, rank=4, targets=targets)
+        ok = bool(resolve_targets(arch, targets)) and not unsupported_target_matches(arch, targets)
+    except ValueError:
+        ours, ok = None, False
+    if not ok:
+        with pytest.raises(ValueError):
+            peft_count(arch, targets, 4, None)
+        return
+    _pm, theirs = peft_count(arch, targets, 4, None)
+    assert ours == theirs
+
+
+def _one_entry_per_family():
+    from cfgcheck.knowledge.models import catalogue_entries
+
+    seen = {}
+    for e in catalogue_entries():
+        seen.setdefault(e.arch.family, e)
+    return [(e.id, e.arch, targets) for e in seen.values()
+            for targets in (["all-linear"] + ([None] if e.arch.family in PEFT_DEFAULT_TARGETS else []))]
+
+
+FULL_SIZE = _one_entry_per_family()
+
+
+@pytest.mark.parametrize("ref,arch,targets", FULL_SIZE, ids=[f"{r}-{t or 'default'}" for r, _a, t in FULL_SIZE])
+def test_full_size_lora_counts_equal_peft_on_the_meta_device(ref, arch, targets):
+    # reference: PEFT get_peft_model on the full-size model built on the meta device (no weights allocated),
+    # one catalogue entry per family, with PEFT's default targets for the family and with "all-linear"
+    try:
+        ours = lora_trainable_parameters(arch, rank=16, targets=targets)
+    except NoDefaultTargets:  # mixtral: PEFT's rewrite for transformers 5 leaves no default targets
+        ours = None
+    with torch.device("meta"):
+        model = transformers.AutoModelForCausalLM.from_config(hf_config(arch))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            if ours is None:
+                with pytest.raises(ValueError):
+                    peft.get_peft_model(model, peft.LoraConfig(r=16, lora_alpha=32, target_modules=targets))
+                return
+            pm = peft.get_peft_model(model, peft.LoraConfig(r=16, lora_alpha=32, target_modules=targets))
+    theirs, _all = pm.get_nb_trainable_parameters()
+    assert ours == theirs

@@ -130,3 +130,21 @@ def test_frozen_base_layer_bytes_match_torch(family, targets, autocast):
         lora_leaves=frozenset(target_leaf_names(arch, targets)), lora_rank=4, adapter_act_bytes=2 if autocast else 4,
     )
     assert ours == pytest.approx(theirs, rel=0.04 if autocast else 0.01)
+
+
+@pytest.mark.parametrize("ref,arch", CASES, ids=[c[0] for c in CASES])
+def test_config_json_round_trip(ref, arch):
+    # reference: the config.json transformers writes for these shapes (PretrainedConfig.to_dict) reads back to the
+    # same Architecture, whatever the family's key names (GPT-2 n_embd/n_layer, Falcon num_kv_heads and
+    # new_decoder_architecture, Qwen-MoE num_experts, DeepSeek n_routed_experts and latent-attention ranks)
+    import dataclasses
+
+    from cfgcheck.knowledge.models import architecture_from_config
+
+    data = hf_config(arch).to_dict()
+    data["dtype"] = arch.torch_dtype  # transformers 5 writes the stored dtype as "dtype"
+    back = architecture_from_config(data, "round trip")
+    assert back is not None
+    want = dataclasses.replace(arch, source="round trip")
+    assert dataclasses.replace(back, sliding_window=want.sliding_window) == want
+    assert total_parameters(back) == total_parameters(arch)
