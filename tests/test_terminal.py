@@ -123,6 +123,9 @@ def test_shell_completion_from_typer(tmp_path):
     env.update(COMP_WORDS="cfgcheck lint --only duplicate", COMP_CWORD="3")
     p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, cwd=tmp_path)
     assert p.stdout.split() == ["duplicate-key"]
-    show = subprocess.run([sys.executable, "-c", code, "--show-completion", "bash"], capture_output=True,
-                          text=True, env=dict(os.environ, PYTHONPATH=str(ROOT)), cwd=tmp_path)
+    # --show-completion detects the shell it was started from: start it from bash (the trailing
+    # "true" keeps bash from replacing itself with the program), wherever the test runs
+    show = subprocess.run(["bash", "-c", '"$0" -c "$1" --show-completion; true', sys.executable, code],
+                          capture_output=True, text=True, env=dict(os.environ, PYTHONPATH=str(ROOT)),
+                          cwd=tmp_path)
     assert show.returncode == 0 and "_CFGCHECK_COMPLETE" in show.stdout and "complete" in show.stdout
