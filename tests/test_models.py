@@ -809,10 +809,10 @@ def test_gpt2_conv1d_weights_count_as_quantised_matmul_weights():
 
 def test_a_checkpoint_folder_of_another_machine_is_matched_by_its_name(tmp_path):
     # torchtune-style checkpoint_dir paths name the downloaded model; the folder is absent here
-    a = resolve_model("/nonexistent-h3/ckpt/Qwen3-8B/", cwd=tmp_path, hub_cache=tmp_path / "empty")
+    a = resolve_model("/nonexistent-folder/ckpt/Qwen3-8B/", cwd=tmp_path, hub_cache=tmp_path / "empty")
     assert a is not None and a.entry == "Qwen/Qwen3-8B" and a.assumed and a.match == "folder name"
     assert "no such folder here" in a.how and "assumed from the name" in a.source
-    assert resolve_model("/nonexistent-h3/ckpt/", cwd=tmp_path, hub_cache=tmp_path / "empty") is None
+    assert resolve_model("/nonexistent-folder/ckpt/", cwd=tmp_path, hub_cache=tmp_path / "empty") is None
     # an existing local folder without a config is still not looked up by name
     (tmp_path / "Qwen3-8B").mkdir()
     assert resolve_model(str(tmp_path / "Qwen3-8B"), cwd=tmp_path, hub_cache=tmp_path / "empty") is None
