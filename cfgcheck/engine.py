@@ -264,7 +264,7 @@ def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: t
 
 # --------------------------------------------------------------------------- running
 
-_SELECTED: dict[tuple, list[Rule]] = {}  # (select, ignore) -> rules, worked out once per run
+_SELECTED: dict[tuple, list[Rule]] = {}  # (only, skip) -> rules, worked out once per run (a cache)
 
 
 def active_rules(options: Options) -> list[tuple[Rule, Any]]:
