@@ -17,11 +17,10 @@ from .catalogue import Rule, load_catalogue
 from .checks import all_checks
 from .findings import Finding, Fix, InputProblem, InternalError, Related, Severity, shown_data
 from .knowledge.hardware import Gpu
-from .load import Document, LoadError, dotted
+from .load import Document, LoadError, dotted, walk_paths
 from .view import Field, RunView, build_view
 from . import waivers as waivermod
 
-CONFIG_SUFFIXES = (".yaml", ".yml", ".json")
 
 
 @dataclass
@@ -492,29 +491,6 @@ def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
         if options.debug:
             raise
         return FileReport(file=name, internal=[internal_error(name, None, exc)])
-
-
-def walk_paths(paths: Iterable[str | Path]) -> list[tuple[str, bool]]:
-    """(file, named) pairs: files as given (named True); folders walked for .yaml/.yml/.json
-    files, sorted, hidden folders skipped (named False). A folder that cannot be listed is kept
-    (named True), so that linting it reports why."""
-    out: list[tuple[str, bool]] = []
-
-    def unlistable(exc: OSError) -> None:
-        if exc.filename is not None:
-            out.append((str(exc.filename), True))
-
-    for p in paths:
-        p = Path(p)
-        if p.is_dir():
-            for root, dirs, files in os.walk(p, onerror=unlistable):
-                dirs[:] = sorted(d for d in dirs if not d.startswith("."))
-                for f in sorted(files):
-                    if f.lower().endswith(CONFIG_SUFFIXES):
-                        out.append((str(Path(root) / f), False))
-        else:
-            out.append((str(p), True))
-    return out
 
 
 def expand_paths(paths: Iterable[str | Path]) -> list[str]:

@@ -1450,13 +1450,8 @@ def atomic_write(path: str | Path, data: bytes, expected: bytes) -> None:
         st = os.fstat(fd0)
         if not stat.S_ISREG(st.st_mode) or _read_bounded(fd0) != expected:
             raise ChangedOnDisk("the file changed on disk since it was read; not writing")
-        folder, base = os.path.split(target)
-        fd, tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=".cfgcheck-tmp", dir=folder or ".")
+        tmp = _temp_beside(target, data)
         try:
-            with os.fdopen(fd, "wb") as fh:
-                fh.write(data)
-                fh.flush()
-                os.fsync(fh.fileno())
             _copy_metadata(fd0, st, tmp)
             _before_rename(target)
             # the final re-check: same file (inode), same bytes, right before the rename
@@ -1495,7 +1490,8 @@ def atomic_write(path: str | Path, data: bytes, expected: bytes) -> None:
     _sync_folder(os.path.dirname(target))
 
 
-def _put_back(target: str, data: bytes, st: os.stat_result) -> None:
+def _temp_beside(target: str, data: bytes) -> str:
+    """A new file in the target's folder holding ``data``, flushed to disk (removed on failure)."""
     folder, base = os.path.split(target)
     fd, tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=".cfgcheck-tmp", dir=folder or ".")
     try:
@@ -1503,6 +1499,18 @@ def _put_back(target: str, data: bytes, st: os.stat_result) -> None:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+    return tmp
+
+
+def _put_back(target: str, data: bytes, st: os.stat_result) -> None:
+    tmp = _temp_beside(target, data)
+    try:
         os.chmod(tmp, stat.S_IMODE(st.st_mode))
         os.replace(tmp, target)
     except BaseException:

@@ -21,7 +21,7 @@ import re
 import stat
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Iterable
 
 import yaml
 
@@ -637,3 +637,31 @@ class _JsonScanner:
             self.doc.entries[path] = Entry(
                 value=self.span(start, self.pos), key=key_span, raw=m.group(), style="json"
             )
+
+
+# --------------------------------------------------------------------------- finding files
+
+CONFIG_SUFFIXES = (".yaml", ".yml", ".json")
+
+
+def walk_paths(paths: Iterable[str | Path], suffixes: tuple[str, ...] = CONFIG_SUFFIXES) -> list[tuple[str, bool]]:
+    """(file, named) pairs: files as given (named True); folders walked for files ending in
+    ``suffixes`` (configs by default), sorted, hidden folders skipped (named False). A folder that
+    cannot be listed is kept (named True), so that reading it reports why."""
+    out: list[tuple[str, bool]] = []
+
+    def unlistable(exc: OSError) -> None:
+        if exc.filename is not None:
+            out.append((str(exc.filename), True))
+
+    for p in paths:
+        p = Path(p)
+        if p.is_dir():
+            for root, dirs, files in os.walk(p, onerror=unlistable):
+                dirs[:] = sorted(d for d in dirs if not d.startswith("."))
+                for f in sorted(files):
+                    if f.lower().endswith(suffixes):
+                        out.append((str(Path(root) / f), False))
+        else:
+            out.append((str(p), True))
+    return out

@@ -380,23 +380,14 @@ def _offload_params(view: RunView) -> bool:
 
     if own_fsdp(view)[1]:
         return True
-    for sub in view.attached:
-        data = sub.doc.data if isinstance(sub.doc.data, dict) else {}
-        zo = data.get("zero_optimization") if isinstance(data.get("zero_optimization"), dict) else {}
-        off = zo.get("offload_param")
-        if isinstance(off, dict) and str(off.get("device", "")).lower() in ("cpu", "nvme"):
-            return True
-    return False
+    return _offload_linked(view, "offload_param")
 
 
-def _offload_linked(view: RunView) -> bool:
-    for sub in view.attached:
-        data = sub.doc.data if isinstance(sub.doc.data, dict) else {}
-        zo = data.get("zero_optimization") if isinstance(data.get("zero_optimization"), dict) else {}
-        off = zo.get("offload_optimizer")
-        if isinstance(off, dict) and str(off.get("device", "")).lower() in ("cpu", "nvme"):
-            return True
-    return False
+def _offload_linked(view: RunView, what: str = "offload_optimizer") -> bool:
+    """Whether a linked DeepSpeed file offloads ``what`` (offload_optimizer / offload_param)."""
+    from .run import _offloaded, _section
+
+    return any(_offloaded(_section(sub.doc.data, "zero_optimization", what)) for sub in view.attached)
 
 
 def _wants_16bit(view: RunView) -> str | None:

@@ -22,7 +22,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable
 
-from .engine import Options, walk_paths
+from .engine import Options
+from .load import walk_paths
 from .load import dotted
 from .findings import MAX_MAGNITUDE, Severity, printable
 from .waivers import ProjectWaiver

@@ -18,12 +18,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable
 
-from .load import Document, Entry, LoadError, Span
+from .load import CONFIG_SUFFIXES as _CONFIG_SUFFIXES, Document, Entry, LoadError, Span, walk_paths
 
 SCRIPT_SUFFIXES = (".sh", ".bash")
 # the shell parser is pure Python (about 30 ms per KiB): bigger scripts are not launch scripts we read
 MAX_SCRIPT_BYTES = 64 * 1024
-_CONFIG_SUFFIXES = (".yaml", ".yml", ".json")
 _VAR = re.compile(r"\$(?:\{([A-Za-z_][A-Za-z0-9_]*)(?::?-([^}]*))?\}|([A-Za-z_][A-Za-z0-9_]*))")
 
 
@@ -370,16 +369,8 @@ def script_document(sl: ScriptLaunch, index: int = 0) -> Document | None:
 
 def find_scripts(paths: Iterable[str | Path]) -> list[str]:
     """Shell scripts named or inside the folders (hidden folders skipped), sorted."""
-    out: list[str] = []
-    for p in paths:
-        p = Path(p)
-        if p.is_dir():
-            for root, dirs, files in os.walk(p):
-                dirs[:] = sorted(d for d in dirs if not d.startswith("."))
-                out.extend(str(Path(root) / f) for f in sorted(files) if f.lower().endswith(SCRIPT_SUFFIXES))
-        elif p.suffix.lower() in SCRIPT_SUFFIXES and p.is_file():
-            out.append(str(p))
-    return out
+    return [f for f, named in walk_paths(paths, SCRIPT_SUFFIXES)
+            if f.lower().endswith(SCRIPT_SUFFIXES) and (not named or os.path.isfile(f))]
 
 
 def pairings(scripts: Iterable[str]) -> dict[str, ScriptLaunch]:
