@@ -15,7 +15,8 @@ from pathlib import Path
 from typing import Any, Callable, Iterable
 
 from . import engine
-from .engine import FileReport, Options, Report
+from .engine import Options
+from .findings import FileReport, Report
 from .findings import MAX_MAGNITUDE, Finding, OptionError, Severity, number_text
 from .knowledge.hardware import find_gpu
 

@@ -16,7 +16,7 @@ from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 
-from .engine import Report
+from .findings import Report
 from .findings import Finding, json_text, printable
 
 KIND = "cfgcheck-baseline"

@@ -25,7 +25,8 @@ from urllib.parse import unquote, urlparse
 
 from . import __version__
 from . import api
-from .engine import FileReport, Options
+from .engine import Options
+from .findings import FileReport
 from .findings import Finding, Severity
 
 DEBOUNCE_SECONDS = 0.2  # after the last change, before linting the buffer again

@@ -15,7 +15,7 @@ from typing import Any, Callable, Iterable, Iterator
 from . import load as loadmod
 from .catalogue import Rule, load_catalogue
 from .checks import all_checks
-from .findings import Finding, Fix, InputProblem, InternalError, Related, Severity, shown_data
+from .findings import FileReport, Finding, Fix, InputProblem, InternalError, Related, Report, Severity, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted, walk_paths
 from .view import Field, RunView, build_view
@@ -41,56 +41,6 @@ class Options:
     models: tuple = ()  # (id, Architecture) pairs the project configuration declares
     overrides: tuple[str, ...] = ()  # key=value overrides the launch passes (compose.py)
     versions: dict[str, str] = field(default_factory=dict)  # library -> release the run uses (--installed)
-
-
-@dataclass
-class FileReport:
-    file: str
-    findings: list[Finding] = field(default_factory=list)
-    problem: InputProblem | None = None
-    skipped: str | None = None
-    layout: str | None = None
-    internal: list[InternalError] = field(default_factory=list)
-    views: list[RunView] = field(default_factory=list)
-    waived: list[tuple[Finding, str, str]] = field(default_factory=list)  # (finding, reason, "comment" | "project")
-    baselined: int = 0  # findings hidden because the baseline holds them
-    compose_problem: str | None = None  # why a composed config could not be put together
-
-
-@dataclass
-class Report:
-    files: list[FileReport] = field(default_factory=list)
-
-    @property
-    def findings(self) -> list[Finding]:
-        return [f for fr in self.files for f in fr.findings]
-
-    @property
-    def problems(self) -> list[InputProblem]:
-        return [fr.problem for fr in self.files if fr.problem]
-
-    @property
-    def internal(self) -> list[InternalError]:
-        return [e for fr in self.files for e in fr.internal]
-
-    @property
-    def linted(self) -> int:
-        return sum(1 for fr in self.files if not fr.problem and not fr.skipped)
-
-    @property
-    def skipped(self) -> int:
-        return sum(1 for fr in self.files if fr.skipped and not fr.problem)
-
-    def count(self, severity: Severity) -> int:
-        return sum(1 for f in self.findings if f.severity == severity)
-
-    @property
-    def waived(self) -> int:
-        return sum(len(fr.waived) for fr in self.files)
-
-    @property
-    def baselined(self) -> int:
-        return sum(fr.baselined for fr in self.files)
 
 
 # --------------------------------------------------------------------------- the check context

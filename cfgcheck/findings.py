@@ -1,4 +1,5 @@
-"""What a lint run produces: findings (about the config) and input problems (about the file).
+"""What a lint run produces: findings (about the config), input problems (about the file), and
+the per-file and whole-run reports that hold them.
 
 Both are frozen, keyword-only records. Findings are created in one place only,
 ``engine.make_finding``, from a catalogue record and the data a check reported.
@@ -231,3 +232,55 @@ class InternalError:
 
     def as_dict(self) -> dict[str, Any]:
         return {"file": self.file, "rule": self.rule, "error": self.error}
+
+
+# --------------------------------------------------------------------------- results of a lint
+
+@dataclass
+class FileReport:
+    file: str
+    findings: list[Finding] = field(default_factory=list)
+    problem: InputProblem | None = None
+    skipped: str | None = None
+    layout: str | None = None
+    internal: list[InternalError] = field(default_factory=list)
+    views: list = field(default_factory=list)  # the typed views (view.RunView) the rules judged
+    waived: list[tuple[Finding, str, str]] = field(default_factory=list)  # (finding, reason, "comment" | "project")
+    baselined: int = 0  # findings hidden because the baseline holds them
+    compose_problem: str | None = None  # why a composed config could not be put together
+
+
+@dataclass
+class Report:
+    files: list[FileReport] = field(default_factory=list)
+
+    @property
+    def findings(self) -> list[Finding]:
+        return [f for fr in self.files for f in fr.findings]
+
+    @property
+    def problems(self) -> list[InputProblem]:
+        return [fr.problem for fr in self.files if fr.problem]
+
+    @property
+    def internal(self) -> list[InternalError]:
+        return [e for fr in self.files for e in fr.internal]
+
+    @property
+    def linted(self) -> int:
+        return sum(1 for fr in self.files if not fr.problem and not fr.skipped)
+
+    @property
+    def skipped(self) -> int:
+        return sum(1 for fr in self.files if fr.skipped and not fr.problem)
+
+    def count(self, severity: Severity) -> int:
+        return sum(1 for f in self.findings if f.severity == severity)
+
+    @property
+    def waived(self) -> int:
+        return sum(len(fr.waived) for fr in self.files)
+
+    @property
+    def baselined(self) -> int:
+        return sum(fr.baselined for fr in self.files)

@@ -161,7 +161,8 @@ def test_the_layout_name_test_finder_finds_each_spelling():
 
 def _findings_under(layout, text: str, fmt: str = "yaml", **opts):
     from cfgcheck import view as viewmod
-    from cfgcheck.engine import FileReport, Options, lint_view
+    from cfgcheck.engine import Options, lint_view
+    from cfgcheck.findings import FileReport
     from cfgcheck.knowledge.hardware import find_gpu
     from cfgcheck.load import load_text
 

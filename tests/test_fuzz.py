@@ -16,7 +16,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from cfgcheck import engine, load
+from cfgcheck import engine, findings, load
 from cfgcheck.engine import Options
 from cfgcheck.render import FORMATS, render
 from cfgcheck.view import build_view
@@ -30,7 +30,7 @@ def _options() -> list[Options]:
     return [Options(), api.make_options(gpu="t4", gpus=8, rows=1000)]
 
 
-def pipeline(name: str, raw: bytes) -> list[engine.FileReport]:
+def pipeline(name: str, raw: bytes) -> list[findings.FileReport]:
     """Everything lint does to a file's bytes; returns the reports made."""
     reports = []
     try:
@@ -38,7 +38,7 @@ def pipeline(name: str, raw: bytes) -> list[engine.FileReport]:
         docs = load.load_text(src.text, name)
     except load.LoadError as exc:
         assert exc.reason and "\n" not in exc.reason and exc.line >= 1 and exc.column >= 1
-        report = engine.FileReport(file=name, problem=engine.InputProblem(
+        report = findings.FileReport(file=name, problem=findings.InputProblem(
             file=name, line=exc.line, column=exc.column, reason=exc.reason))
         reports.append(report)
     else:
@@ -51,7 +51,7 @@ def pipeline(name: str, raw: bytes) -> list[engine.FileReport]:
                 assert f.line >= 1 and f.column >= 1 and f.message and f.hint
             reports.append(report)
     for report in reports:
-        whole = engine.Report(files=[report])
+        whole = findings.Report(files=[report])
         for fmt in FORMATS:
             out = render(fmt, whole, whole.findings)
             assert isinstance(out, str) and out.endswith("\n")

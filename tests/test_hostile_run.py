@@ -19,7 +19,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from cfgcheck import api, baseline as baselinemod, engine, project as projectmod
+from cfgcheck import api, baseline as baselinemod, engine, findings, project as projectmod
 from cfgcheck.engine import Options
 from cfgcheck.findings import MAX_MAGNITUDE, printable
 from cfgcheck.knowledge.hardware import find_gpu
@@ -162,7 +162,7 @@ def _pair(tmp_path: Path, body: str) -> tuple[Path, Path]:
     return good, bad
 
 
-def _reported(report: engine.Report, file: Path, words: str) -> None:
+def _reported(report: findings.Report, file: Path, words: str) -> None:
     assert report.internal == [] and report.problems == []
     mine = [f for f in report.findings if f.file == str(file)]
     assert any(f.rule == "deepspeed-file-contradicts-config" and words in f.message for f in mine), \
@@ -393,7 +393,7 @@ def test_huge_number_is_out_of_range_and_no_rule_fails(text, key):
     from cfgcheck.render import render
 
     for fmt in ("json", "sarif"):
-        json.loads(render(fmt, engine.Report(files=[report]), report.findings))
+        json.loads(render(fmt, findings.Report(files=[report]), report.findings))
 
 
 def test_base60_number_is_shown_short_in_its_own_finding():

@@ -41,13 +41,13 @@ def _cases():
 @pytest.mark.parametrize("layout,key", list(_cases()))
 def test_a_key_a_field_spec_reads_is_not_reported_unknown(layout, key):
     # a one-key file may be detected as another layout, so the check runs on a view of this one
-    from cfgcheck import engine
+    from cfgcheck import engine, findings
     from cfgcheck.load import load_text
     from cfgcheck.view import build_view
 
     doc = load_text(json.dumps(_doc_with(key)), "case.json", "json")[0]
     view = build_view(doc, layout)
-    out = engine.FileReport(file="case.json")
+    out = findings.FileReport(file="case.json")
     engine.lint_view(view, engine.Options(only=frozenset({"unknown-key"})), "case.json", out)
     assert [f.message for f in out.findings if f.key == key and _unknown(f)] == []
 

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from cfgcheck import __version__, engine
+from cfgcheck import __version__, engine, findings
 from cfgcheck.api import make_options, visible
 from cfgcheck.catalogue import load_catalogue
 from cfgcheck.findings import Severity
@@ -44,9 +44,9 @@ RULES = ("duplicate-key", "global-batch-mismatch", "lora-scale-below-one",
          "precision-unsupported-on-gpu", "waiver-comment-problem", "yaml-version-dependent-value")
 
 
-def fixed_report() -> engine.Report:
+def fixed_report() -> findings.Report:
     opts = make_options(gpu="t4", only=RULES)
-    return engine.Report(files=[
+    return findings.Report(files=[
         engine.lint_text(LORA, "configs/tidewater-lora.yaml", opts),
         engine.lint_text(DS, "configs/ds, zero2: test.json", opts),
         engine.lint_text(BROKEN, "configs/broken.yaml", opts),
@@ -143,7 +143,7 @@ def test_sarif_validates_against_the_oasis_schema(sarif_validator):
 
 def test_sarif_carries_waived_findings_as_suppressed(sarif_validator):
     text = LORA.replace("lora_alpha: 8\n", "lora_alpha: 8  # cfgcheck: waive lora-scale-below-one because lr is raised 2x\n")
-    report = engine.Report(files=[engine.lint_text(text, "configs/w.yaml", make_options(gpu="t4"))])
+    report = findings.Report(files=[engine.lint_text(text, "configs/w.yaml", make_options(gpu="t4"))])
     doc = json.loads(render("sarif", report, report.findings))
     assert list(sarif_validator.iter_errors(doc)) == []
     (res,) = [r for r in doc["runs"][0]["results"] if r.get("suppressions")]

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import pytest
 
-from cfgcheck import engine
+from cfgcheck import engine, findings
 from cfgcheck.render.text import summary_line
 
 NEOX_YAML = """\
@@ -53,7 +53,7 @@ def test_unread_format_is_named_not_misread(name):
 
 
 def test_summary_names_the_unread_formats():
-    rep = engine.Report(files=[engine.lint_text(CASES["gpt-neox"][0], "a.yml"),
+    rep = findings.Report(files=[engine.lint_text(CASES["gpt-neox"][0], "a.yml"),
                                engine.lint_text(CASES["composed"][0], "b.yaml"),
                                engine.lint_text("jobs:\n  x: 1\nruns-on: linux\nsteps: []\n", "c.yaml"),
                                engine.lint_text("learning_rate: 2.0e-5\nper_device_train_batch_size: 4\n", "d.yaml")])
