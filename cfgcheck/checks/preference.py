@@ -66,6 +66,41 @@ def generation_batch(ctx) -> None:
                    per_key=per_name, steps=k, steps_key=k_name, need=need)
 
 
+@check("rl-generation-batch-not-whole-steps")
+def generation_batch_steps(ctx) -> None:
+    view = ctx.view
+    gen = _int(view, "rl.generation_batch")
+    if gen is None:
+        return
+    per = _int(view, "batch.per_device")
+    if per is None and not _trl_trainer_file(view):
+        return  # the per-device batch is not known
+    per_v = per.value if per is not None else 8  # TrainingArguments default
+    per_key = per.key if per is not None else "per_device_train_batch_size (default)"
+    gpus, _ = ctx.num_gpus
+    steps = _int(view, "rl.steps_per_generation")
+    if steps is not None:
+        ctx.report(gen, "both-set", related=[steps], key=gen.key, value=gen.value,
+                   steps_key=steps.key, steps=steps.value, per=per_v)
+        return
+    if gpus:
+        whole = per_v * gpus
+        if gen.value % whole:
+            ctx.report(gen, "global", key=gen.key, value=gen.value, global_batch=whole, per=per_v,
+                       per_key=per_key, gpus=gpus, suggest=_multiple_near(gen.value, whole))
+        return
+    if gen.value % per_v:
+        ctx.report(gen, "per-device", key=gen.key, value=gen.value, per=per_v, per_key=per_key,
+                   suggest=_multiple_near(gen.value, per_v))
+
+
+def _multiple_near(value: int, step: int) -> int:
+    """The nearest multiple of STEP to VALUE, at least STEP (rounding up on a tie)."""
+    low = value - value % step
+    high = low + step
+    return high if low < step or value - low >= high - value else low
+
+
 @check("rl-lengths-exceed-generation-engine")
 def lengths_vs_engine(ctx) -> None:
     view = ctx.view
