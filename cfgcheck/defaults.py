@@ -1,7 +1,9 @@
 """The defaults a runner applies to what a recipe leaves out, each with its source and versions.
 
-Layout data, like the tables in ``layouts.py``: for each layout, the values its runner fills in
-when the file does not write them. The open path (``cfgcheck.run``) adds them to the view as
+Layout data, like the tables in ``layouts.py``: the values a runner fills in when the file does
+not write them, where they depend on other values (a function of the view). A layout names its
+table here with ``Layout.defaults_table``; constant defaults live in the layout itself
+(``Layout.defaults``). The open path (``cfgcheck.run``) adds them to the view as
 ``Field(origin="default", note=...)`` in ``RunView.supplied``; the plan and the rules read them
 through ``RunView.effective``. A default is a defined value, not a guess: a verdict may rest on it.
 """

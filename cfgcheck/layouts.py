@@ -101,6 +101,12 @@ class Layout:
     # the runner's validator refuses to merge an adapter into a quantised base ("" = it merges);
     # the text it stops with, {bits} for 4 or 8
     refuses_quantised_merge: str = ""
+    # what the runner fills in for a field the file leaves out: (field, value, note with the
+    # source and the releases where it holds); supplied to the view as origin "default"
+    defaults: tuple[tuple[str, object, str], ...] = ()
+    # the table of defaults that depend on other values (``defaults.DEFAULTS[name]``: functions
+    # of the view), None when the runner has none
+    defaults_table: str | None = None
 
     @property
     def has_bare_names(self) -> bool:
@@ -373,6 +379,7 @@ _TRAINER_SECTION_NAMES = _kinds(
 
 TRAINER = Layout(
     name="trainer",
+    defaults_table="trainer",  # defaults.DEFAULTS
     title="trainer-style arguments (transformers / PEFT / TRL names, flat or in sections)",
     sections={**_TRAINER_SECTIONS, **{w: _TRAINER_SECTIONS.get(w, ()) for w in _TRAINER_SECTION_NAMES}},
     section_names=_TRAINER_SECTION_NAMES,
@@ -464,6 +471,7 @@ TRAINER = Layout(
 
 DEEPSPEED = Layout(
     name="deepspeed",
+    defaults_table="deepspeed",  # defaults.DEFAULTS
     title="DeepSpeed configuration JSON",
     role="engine",
     word_lists=frozenset({"deepspeed"}),
@@ -524,6 +532,7 @@ PEFT_ADAPTER = Layout(
 
 AXOLOTL = Layout(
     name="axolotl",
+    defaults_table="axolotl",  # defaults.DEFAULTS
     key_table="axolotl",  # the runner's own key list (knowledge/runner_keys.json)
     title="axolotl-style recipe (adapter: lora|qlora, lora_r, micro_batch_size, num_epochs)",
     # axolotl reads the YAML with yaml.safe_load, then validates it with a pydantic settings
@@ -621,6 +630,7 @@ AXOLOTL = Layout(
 
 LLAMA_FACTORY = Layout(
     name="llama-factory",
+    defaults_table="llama-factory",  # defaults.DEFAULTS
     key_table="llama-factory",  # the runner's own key list (knowledge/runner_keys.json)
     title="LLaMA-Factory-style arguments (finetuning_type, lora_rank, lora_target, cutoff_len)",
     # the file goes to transformers' HfArgumentParser.parse_dict after yaml.safe_load: text stays text
@@ -950,6 +960,8 @@ def layout_summary(layout: Layout) -> dict[str, str]:
         extra += "; the method from the builder's name"
     if layout.default_method:
         extra += f"; no method written means {layout.default_method}"
+    if layout.defaults:
+        extra += "; unwritten: " + ", ".join(f"{name} {value}" for name, value, _ in layout.defaults)
     not_read = set(FIELD_TYPES) - read
     top = sorted(layout.signature, key=lambda k: (-layout.signature[k], k))[:6]
     where = "bare names at the top level and in its sections" if layout.has_bare_names else "exact key paths"

@@ -18,7 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from . import load as loadmod
-from .defaults import DEFAULTS
+from .defaults import DEFAULTS, Default
 from .load import LoadError
 from .view import Field, RunView, build_view
 
@@ -277,8 +277,11 @@ def _supply(view: RunView, name: str, value: Any, origin: str, note: str, *, aut
 
 
 def _apply_defaults(view: RunView) -> None:
-    layout = view.layout.name if view.layout is not None else None
-    for d in DEFAULTS.get(layout, ()):
+    layout = view.layout
+    if layout is None:
+        return
+    table = DEFAULTS.get(layout.defaults_table, ()) if layout.defaults_table else ()
+    for d in (*table, *(Default(name, value, note) for name, value, note in layout.defaults)):
         f = view.get(d.field)
         if f is not None and f.value is not None:
             continue

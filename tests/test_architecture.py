@@ -121,6 +121,12 @@ def layout_name_tests(source: str, layout_names: set[str], objects: set[str] = f
             if isinstance(node, ast.Assign) and _names_a_layout(node.value, layout_names):
                 consts.update(t.id for t in node.targets if isinstance(t, ast.Name))
         for node in ast.walk(fn):
+            # a table looked up by a layout's name: TABLE[layout.name], TABLE.get(layout.name)
+            key = node.slice if isinstance(node, ast.Subscript) else \
+                node.args[0] if isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) \
+                and node.func.attr == "get" and node.args else None
+            if key is not None and _is_layout_name(key, aliases):
+                found.append(node.lineno)
             if not isinstance(node, ast.Compare):
                 continue
             operands = [node.left, *node.comparators]
@@ -155,8 +161,10 @@ def test_the_layout_name_test_finder_finds_each_spelling():
         "def d(view):\n    return view.layout.trainer_defaults\n"
         "def e(view):\n    return f'{view.layout.name} names'\n"
         "def f(view):\n    return view.layout is TRAINER\n"
+        "def g(view):\n    name = view.layout.name if view.layout else None\n    return TABLE.get(name, ())\n"
+        "def h(view):\n    return TABLE[view.layout.name]\n"
     )
-    assert layout_name_tests(src, names, {"TRAINER"}) == [3, 6, 8, 14]
+    assert layout_name_tests(src, names, {"TRAINER"}) == [3, 6, 8, 14, 17, 19]
 
 
 def _findings_under(layout, text: str, fmt: str = "yaml", **opts):

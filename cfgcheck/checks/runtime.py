@@ -21,7 +21,6 @@ _PAIRS = (
     ("batch.per_device", "batch.per_device", "per_device_train_batch_size"),
     ("batch.accumulation", "batch.accumulation", "gradient_accumulation_steps"),
 )
-_HF_TRAINER = ("trainer", "llama-factory", "axolotl")
 
 
 @check("deepspeed-file-contradicts-config")
