@@ -801,6 +801,51 @@ TORCHTUNE = Layout(
     min_score=6,
 )
 
+MLX_LM = Layout(
+    name="mlx-lm",
+    title="MLX LM fine-tuning config (fine_tune_type, lora_parameters, iters, batch_size)",
+    # mlx-lm 0.32.2 mlx_lm/lora.py: the file is read with yaml.SafeLoader plus an implicit float
+    # resolver that takes a mantissa without a dot (`1e-5`) as a float
+    coerces_numbers=True,
+    number_reader="mlx-lm reads the config with a YAML loader that adds a float resolver, which takes it as a float",
+    # lora.py CONFIG_DEFAULTS fine_tune_type "lora"; train_model: "lora" and "dora" put adapters on
+    # the last num_layers blocks, "full" unfreezes only the last num_layers blocks (16 unless -1)
+    default_method="lora",
+    method_values={"lora": "lora", "dora": "lora", "full": "partial"},
+    fields={
+        "model.ref": ("=model",),
+        "method": ("=fine_tune_type",),
+        "adapter.rank": ("=lora_parameters.rank",),
+        "adapter.dropout": ("=lora_parameters.dropout",),
+        "optim.name": ("=optimizer",),
+        # the rate when no lr_schedule is written (an lr_schedule's arguments[0] replaces it)
+        "optim.lr": ("=learning_rate",),
+        "batch.per_device": ("=batch_size",),
+        "batch.accumulation": ("=grad_accumulation_steps",),
+        "data.seq_len": ("=max_seq_length",),
+        "runtime.gradient_checkpointing": ("=grad_checkpoint",),
+    },
+    # mlx-lm 0.32.2 mlx_lm/lora.py CONFIG_DEFAULTS, filled in for every key the file leaves out
+    defaults=(
+        ("batch.per_device", 4, "batch_size defaults to 4 (mlx-lm 0.32.2 lora.py CONFIG_DEFAULTS)"),
+        ("batch.accumulation", 1, "grad_accumulation_steps defaults to 1 (mlx-lm 0.32.2 lora.py CONFIG_DEFAULTS)"),
+        ("data.seq_len", 2048, "max_seq_length defaults to 2048 (mlx-lm 0.32.2 lora.py CONFIG_DEFAULTS)"),
+        ("runtime.gradient_checkpointing", False,
+         "grad_checkpoint defaults to false (mlx-lm 0.32.2 lora.py CONFIG_DEFAULTS)"),
+    ),
+    reads="the top-level keys of mlx_lm.lora's config and lora_parameters' rank and dropout",
+    not_read="lr_schedule (its first argument replaces learning_rate); iters, steps_per_eval and "
+             "save_every (they count micro-batches, and validation also runs on the first and last "
+             "iteration); lora_parameters.scale (the LoRA scale itself, not an alpha) and keys",
+    signature={
+        "fine_tune_type": 4, "lora_parameters": 4, "iters": 3, "steps_per_eval": 3,
+        "steps_per_report": 3, "val_batches": 3, "grad_checkpoint": 3, "resume_adapter_file": 3,
+        "adapter_path": 2, "save_every": 2, "test_batches": 2, "lr_schedule": 2, "mask_prompt": 2,
+        "num_layers": 1,
+    },
+    min_score=6,
+)
+
 ACCELERATE = Layout(
     name="accelerate",
     title="accelerate launch config (distributed_type, num_processes, mixed_precision)",
@@ -857,7 +902,7 @@ PEFT_BENCH = Layout(
 )
 
 # Order matters only for ties: the most specific layouts first.
-LAYOUTS: tuple[Layout, ...] = (PEFT_ADAPTER, DEEPSPEED, ACCELERATE, PEFT_BENCH, TORCHTUNE,
+LAYOUTS: tuple[Layout, ...] = (PEFT_ADAPTER, DEEPSPEED, ACCELERATE, PEFT_BENCH, TORCHTUNE, MLX_LM,
                                LLAMA_FACTORY_V1, LLAMA_FACTORY, AXOLOTL, TRAINER)
 BY_NAME = {lay.name: lay for lay in LAYOUTS}
 
