@@ -123,6 +123,54 @@ def test_fix_in_the_record_matches_the_fixes_the_check_proposes(rule_id):
         assert tiers == {record["tier"]}, f"the record says {record['tier']}, the examples give {tiers or 'none'}"
 
 
+def _fix(rule_id, ex):
+    """Fix an example (with the files it names beside it) for this rule only; nothing is written."""
+    import tempfile
+    from pathlib import Path
+
+    from cfgcheck import api
+
+    folder = Path(tempfile.mkdtemp(prefix="cfgcheck-example-"))
+    for other, text in (ex.get("files") or {}).items():
+        (folder / other).write_text(text, encoding="utf-8")
+    name = folder / ("example.json" if ex.get("format") == "json" else "example.yaml")
+    name.write_text(ex["text"], encoding="utf-8")
+    options = dict(ex.get("options") or {})
+    if "launch" in options:
+        options["launch"] = [str(folder / f) for f in options["launch"]]
+    training = (CATALOGUE[rule_id].fix or {}).get("tier") == "changes-training"
+    report = api.fix([str(name)], training=training, write=False, project=None, only=[rule_id], **options)
+    return report.files[0]
+
+
+@pytest.mark.parametrize("rule_id,ex", list(_examples("bad")))
+def test_a_bad_example_that_gets_a_fix_states_the_fixed_text(rule_id, ex):
+    """``fixed:`` on a bad example is the text the fixer writes, by this rule's fixes alone and of
+    the record's tier; a bad example whose finding carries a fix must say it."""
+    proposes = any(f.rule == rule_id and f.fix is not None for f in _run(ex).findings)
+    if "fixed" not in ex:
+        assert not proposes, f"{rule_id}: the finding carries a fix: add fixed: (the text after fixing)"
+        return
+    tier = (CATALOGUE[rule_id].fix or {}).get("tier")
+    assert tier, f"{rule_id}: an example states fixed: but the record has no fix:"
+    result = _fix(rule_id, ex)
+    assert result.problem is None and result.error is None, (result.problem, result.error)
+    assert {(a.rule, a.tier) for a in result.applied} == {(rule_id, tier)}
+    assert result.new_text != ex["text"]
+    assert result.new_text == ex["fixed"]
+
+
+@pytest.mark.parametrize("rule_id", sorted(CATALOGUE))
+def test_a_fix_in_the_record_is_shown_with_its_output(rule_id):
+    """``fix:`` in a record exactly when some bad example states the fixed text."""
+    shown = any("fixed" in ex for ex in CATALOGUE[rule_id].examples.get("bad", []))
+    assert shown == (CATALOGUE[rule_id].fix is not None), \
+        "a record with fix: needs a bad example with fixed:, and only such a record may have one"
+    for kind in ("good", "unjudged"):
+        assert not any("fixed" in ex for ex in CATALOGUE[rule_id].examples.get(kind, [])), \
+            f"fixed: belongs on bad examples only, not {kind}"
+
+
 def test_generated_docs_tables_are_current():
     import importlib.util
     from pathlib import Path
