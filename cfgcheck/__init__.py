@@ -4,14 +4,16 @@ The Python API is importable from here (``cfgcheck.lint``, ``cfgcheck.guard``, .
 loaded on first use, so ``import cfgcheck`` stays cheap.
 """
 
+from types import MappingProxyType
+
 __version__ = "0.1.0"
 
 _API = ("lint", "lint_text", "lint_mapping", "guard", "ConfigRejected", "exit_code",
         "EXIT_CLEAN", "EXIT_FINDINGS", "EXIT_INPUT", "EXIT_INTERNAL")
-_ELSEWHERE = {"Finding": "findings", "Severity": "findings", "Report": "engine",
-              "FileReport": "engine", "ProjectError": "project", "BaselineError": "baseline"}
+_ELSEWHERE = MappingProxyType({"Finding": "findings", "Severity": "findings", "Report": "engine",
+              "FileReport": "engine", "ProjectError": "project", "BaselineError": "baseline"})
 
-__all__ = ["__version__", *_API, *_ELSEWHERE]
+__all__ = ("__version__", *_API, *_ELSEWHERE)
 
 
 def __getattr__(name: str):

@@ -11,6 +11,7 @@ through ``RunView.effective``. A default is a defined value, not a guess: a verd
 from __future__ import annotations
 
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import Any, Callable
 
 from .view import RunView
@@ -95,7 +96,7 @@ def _grpo_seq(view: RunView):
     return int(view.value("data.max_prompt", 512)) + int(view.value("data.max_completion", 256))
 
 
-DEFAULTS: dict[str, tuple[Default, ...]] = {
+DEFAULTS: MappingProxyType[str, tuple[Default, ...]] = MappingProxyType({
     "axolotl": (
         Default("model.dtype", _axolotl_dtype,
                 f"bf16: true or auto loads the weights in bf16 (fp16: true in fp16): the runner sets "
@@ -156,7 +157,7 @@ DEFAULTS: dict[str, tuple[Default, ...]] = {
                 "(train_micro_batch_size_per_gpu x GPUs) (DeepSpeed runtime/config.py, "
                 "_set_batch_related_parameters, from memory)"),
     ),
-}
+})
 
 # The word a layout uses for "every linear layer" in its target list -> PEFT's word
 ALL_LINEAR_WORDS = frozenset({"all", "all-linear", "all_linear"})

@@ -213,18 +213,18 @@ def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: t
 
 # --------------------------------------------------------------------------- running
 
-_SELECTED: dict[tuple, list[Rule]] = {}  # (only, skip) -> rules, worked out once per run (a cache)
+_SELECTED_CACHE: dict[tuple, list[Rule]] = {}  # (only, skip) -> rules, worked out once per run (a cache)
 
 
 def active_rules(options: Options) -> list[tuple[Rule, Any]]:
     key = (options.only, options.skip)
-    rules = _SELECTED.get(key)
+    rules = _SELECTED_CACHE.get(key)
     if rules is None:
         rules = [rule for rule_id, rule in load_catalogue().items()
                  if (options.only is None or rule_id in options.only)
                  and rule_id not in options.skip]
         rules.sort(key=lambda r: r.stage == "last")  # stable: catalogue order otherwise
-        _SELECTED[key] = rules
+        _SELECTED_CACHE[key] = rules
     checks = all_checks()  # looked up each time: a check may be replaced (tests do)
     return [(rule, checks[rule.id]) for rule in rules]
 

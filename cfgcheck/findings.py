@@ -10,6 +10,7 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass, field
 from enum import IntEnum
+from types import MappingProxyType
 from typing import Any, Mapping
 
 
@@ -83,7 +84,7 @@ def shown_data(data: Mapping[str, Any]) -> dict[str, Any]:
 
 # --------------------------------------------------------------------------- shown text
 
-_NAMED = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
+_NAMED = MappingProxyType({"\n": "\\n", "\r": "\\r", "\t": "\\t"})
 
 
 def printable(text: str) -> str:

@@ -34,6 +34,7 @@ import tempfile
 from dataclasses import dataclass, field
 from decimal import Decimal
 from pathlib import Path
+from types import MappingProxyType
 from typing import Any, Iterable
 
 import yaml
@@ -1234,7 +1235,7 @@ def _linked_paths(report) -> tuple[str, ...]:
 
 
 _FLAG = re.compile(r"--(gpus|gpu|rows)\b")
-_FLAG_ARG = {"--gpu": "--gpu NAME (see: cfgcheck gpus)", "--gpus": "--gpus N", "--rows": "--rows N"}
+_FLAG_ARG = MappingProxyType({"--gpu": "--gpu NAME (see: cfgcheck gpus)", "--gpus": "--gpus N", "--rows": "--rows N"})
 
 
 def _needed_flags(report, options: Options) -> tuple[tuple[str, str], ...]:
@@ -1277,13 +1278,13 @@ def _shared(doc: Document, plan: _Planned) -> bool:
 
 # --------------------------------------------------------------------------- files
 
-_BOM_BYTES = {
+_BOM_BYTES = MappingProxyType({
     "utf-8": codecs.BOM_UTF8,
     "utf-16-le": codecs.BOM_UTF16_LE,
     "utf-16-be": codecs.BOM_UTF16_BE,
     "utf-32-le": codecs.BOM_UTF32_LE,
     "utf-32-be": codecs.BOM_UTF32_BE,
-}
+})
 
 
 def encode(src: Source, text: str) -> bytes:

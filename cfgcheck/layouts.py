@@ -13,11 +13,12 @@ Key specs:
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from types import MappingProxyType
 
 
 # method words most layouts share (PEFT / TRL scripts, axolotl's adapter, LLaMA-Factory's
 # finetuning_type: lora | freeze | full)
-METHOD_WORDS: dict[str, str] = {"lora": "lora", "qlora": "qlora", "full": "full", "freeze": "partial"}
+METHOD_WORDS: MappingProxyType[str, str] = MappingProxyType({"lora": "lora", "qlora": "qlora", "full": "full", "freeze": "partial"})
 
 
 @dataclass(frozen=True)
@@ -115,7 +116,7 @@ class Layout:
 
 
 # The field types the view knows; the type rule checks values against them.
-FIELD_TYPES: dict[str, str] = {
+FIELD_TYPES: MappingProxyType[str, str] = MappingProxyType({
     "method": "str",
     "model.ref": "str",
     "model.dtype": "str",
@@ -217,10 +218,10 @@ FIELD_TYPES: dict[str, str] = {
     "data.assistant_only": "bool",
     "tokenizer.pad_token": "str",
     "tokenizer.eos_token": "str",
-}
+})
 
 # Field specs of the same rules, one block per layout (kept together so the tables stay readable)
-_RULE_FIELDS_TRAINER: dict[str, tuple[str, ...]] = {
+_RULE_FIELDS_TRAINER: MappingProxyType[str, tuple[str, ...]] = MappingProxyType({
     "runtime.ddp_find_unused": ("ddp_find_unused_parameters",),
     "runtime.gc_reentrant": ("=gradient_checkpointing_kwargs.use_reentrant",
                              "=activation_checkpointing_kwargs.use_reentrant"),
@@ -246,18 +247,18 @@ _RULE_FIELDS_TRAINER: dict[str, tuple[str, ...]] = {
     "data.assistant_only": ("assistant_only_loss",),
     "tokenizer.pad_token": ("pad_token",),
     "tokenizer.eos_token": ("eos_token",),
-}
-_RULE_FIELDS_DEEPSPEED: dict[str, tuple[str, ...]] = {
+})
+_RULE_FIELDS_DEEPSPEED: MappingProxyType[str, tuple[str, ...]] = MappingProxyType({
     "runtime.zero3_save_16bit": ("=zero_optimization.stage3_gather_16bit_weights_on_model_save",
                                  "=zero_optimization.stage3_gather_fp16_weights_on_model_save"),
-}
-_RULE_FIELDS_ACCELERATE: dict[str, tuple[str, ...]] = {
+})
+_RULE_FIELDS_ACCELERATE: MappingProxyType[str, tuple[str, ...]] = MappingProxyType({
     "runtime.zero3_save_16bit": ("=deepspeed_config.zero3_save_16bit_model",),
     "runtime.zero3_init": ("=deepspeed_config.zero3_init_flag",),
     "runtime.fsdp_wrap": ("=fsdp_config.fsdp_transformer_layer_cls_to_wrap",),
     "runtime.fsdp_version": ("=fsdp_config.fsdp_version",),
-}
-_RULE_FIELDS_AXOLOTL: dict[str, tuple[str, ...]] = {
+})
+_RULE_FIELDS_AXOLOTL: MappingProxyType[str, tuple[str, ...]] = MappingProxyType({
     "model.device_map": ("device_map",),
     "model.low_cpu_mem": ("low_cpu_mem_usage",),
     "quant.storage": ("bnb_4bit_quant_storage",),
@@ -274,9 +275,9 @@ _RULE_FIELDS_AXOLOTL: dict[str, tuple[str, ...]] = {
     "data.max_completion": ("=trl.max_completion_length",),
     "tokenizer.pad_token": ("=special_tokens.pad_token",),
     "tokenizer.eos_token": ("=special_tokens.eos_token",),
-}
+})
 
-_TRAINER_SECTIONS: dict[str, tuple[str, ...]] = {
+_TRAINER_SECTIONS: MappingProxyType[str, tuple[str, ...]] = MappingProxyType({
     # section name -> prefixes that may be dropped inside it
     "model": (),
     "model_args": (),
@@ -312,7 +313,7 @@ _TRAINER_SECTIONS: dict[str, tuple[str, ...]] = {
     "precision": (),
     "hardware": (),
     "distributed": (),
-}
+})
 
 def _same(names: str, target: str) -> dict[str, str]:
     return {n: target for n in names.split()}
@@ -321,38 +322,38 @@ def _same(names: str, target: str) -> dict[str, str]:
 # Section-local names of trainer-style files, by what a section holds. The section words and the
 # local names are common practice in training repositories (no source); a local name is mapped
 # only where it cannot mean another setting in that kind of section.
-_MODEL_NAMES = {**_same("name_or_path name path id model_id repo_id pretrained checkpoint hub_id", "model_name_or_path"),
+_MODEL_NAMES = MappingProxyType({**_same("name_or_path name path id model_id repo_id pretrained checkpoint hub_id", "model_name_or_path"),
                 **_same("dtype torch_dtype", "torch_dtype"),
                 **_same("attn_implementation attention attn", "attn_implementation"),
-                **_same("max_seq_length max_seq_len max_length context_length", "max_seq_length")}
-_SCHEDULE_NAMES = {**_same("type name kind scheduler lr_scheduler_type", "lr_scheduler_type"),
+                **_same("max_seq_length max_seq_len max_length context_length", "max_seq_length")})
+_SCHEDULE_NAMES = MappingProxyType({**_same("type name kind scheduler lr_scheduler_type", "lr_scheduler_type"),
                    **_same("warmup_steps num_warmup_steps", "warmup_steps"),
-                   **_same("warmup_ratio warmup_fraction", "warmup_ratio")}
-_OPTIM_NAMES = {**_same("name type kind optimizer", "optim"), **_same("lr learning_rate", "learning_rate"),
+                   **_same("warmup_ratio warmup_fraction", "warmup_ratio")})
+_OPTIM_NAMES = MappingProxyType({**_same("name type kind optimizer", "optim"), **_same("lr learning_rate", "learning_rate"),
                 **_same("weight_decay wd", "weight_decay"),
-                **_same("max_grad_norm grad_clip clip_grad_norm gradient_clipping", "max_grad_norm")}
-_ADAPTER_NAMES = {**_same("r rank", "lora_r"), "alpha": "lora_alpha", "dropout": "lora_dropout",
+                **_same("max_grad_norm grad_clip clip_grad_norm gradient_clipping", "max_grad_norm")})
+_ADAPTER_NAMES = MappingProxyType({**_same("r rank", "lora_r"), "alpha": "lora_alpha", "dropout": "lora_dropout",
                   **_same("target_modules targets target modules", "lora_target_modules"),
                   **_same("enabled enable use", "use_peft"), "rslora": "use_rslora", "dora": "use_dora",
-                  **_same("type method kind peft_type", "finetuning_method")}
-_QUANT_NAMES = {**_same("quant_type type", "bnb_4bit_quant_type"),
+                  **_same("type method kind peft_type", "finetuning_method")})
+_QUANT_NAMES = MappingProxyType({**_same("quant_type type", "bnb_4bit_quant_type"),
                 **_same("double_quant use_double_quant nested", "bnb_4bit_use_double_quant"),
                 "compute_dtype": "bnb_4bit_compute_dtype", "4bit": "load_in_4bit", "8bit": "load_in_8bit",
-                **_same("bits quant_bits", "quantization_bits")}
-_TRAIN_NAMES = {**_same("batch_size micro_batch_size per_device_batch_size batch_size_per_device "
+                **_same("bits quant_bits", "quantization_bits")})
+_TRAIN_NAMES = MappingProxyType({**_same("batch_size micro_batch_size per_device_batch_size batch_size_per_device "
                         "train_micro_batch_size", "per_device_train_batch_size"),
                 **_same("epochs num_epochs", "num_train_epochs"), "lr": "learning_rate",
                 **_same("grad_accum gradient_accumulation accumulation_steps grad_accumulation_steps "
                         "grad_accumulation", "gradient_accumulation_steps"),
-                **_same("grad_clip clip_grad_norm", "max_grad_norm")}
-_DATA_NAMES = {**_same("max_length max_seq_len seq_len sequence_length sequence_len context_length "
-                       "block_size cutoff_len", "max_seq_length"), "pack": "packing"}
-_EVAL_NAMES = {**_same("steps every_n_steps interval eval_steps", "eval_steps"),
-               **_same("strategy eval_strategy", "eval_strategy")}
+                **_same("grad_clip clip_grad_norm", "max_grad_norm")})
+_DATA_NAMES = MappingProxyType({**_same("max_length max_seq_len seq_len sequence_length sequence_len context_length "
+                       "block_size cutoff_len", "max_seq_length"), "pack": "packing"})
+_EVAL_NAMES = MappingProxyType({**_same("steps every_n_steps interval eval_steps", "eval_steps"),
+               **_same("strategy eval_strategy", "eval_strategy")})
 _LOG_NAMES = _same("steps every_n_steps interval logging_steps", "logging_steps")
-_SAVE_NAMES = {**_same("steps every_n_steps interval save_steps", "save_steps"),
-               **_same("strategy save_strategy", "save_strategy")}
-_HARDWARE_NAMES = {**_same("gpus num_gpus gpus_per_node", "num_gpus"), **_same("nodes num_nodes", "num_nodes")}
+_SAVE_NAMES = MappingProxyType({**_same("steps every_n_steps interval save_steps", "save_steps"),
+               **_same("strategy save_strategy", "save_strategy")})
+_HARDWARE_NAMES = MappingProxyType({**_same("gpus num_gpus gpus_per_node", "num_gpus"), **_same("nodes num_nodes", "num_nodes")})
 
 
 def _kinds(**groups: tuple[str, dict[str, str]]) -> dict[str, dict[str, str]]:
@@ -904,15 +905,15 @@ PEFT_BENCH = Layout(
 # Order matters only for ties: the most specific layouts first.
 LAYOUTS: tuple[Layout, ...] = (PEFT_ADAPTER, DEEPSPEED, ACCELERATE, PEFT_BENCH, TORCHTUNE, MLX_LM,
                                LLAMA_FACTORY_V1, LLAMA_FACTORY, AXOLOTL, TRAINER)
-BY_NAME = {lay.name: lay for lay in LAYOUTS}
+BY_NAME = MappingProxyType({lay.name: lay for lay in LAYOUTS})
 
 # Words that say a file is something other than a training config (counted as skipped).
-NOT_TRAINING = {
+NOT_TRAINING = MappingProxyType({
     "github-workflow": {"jobs", "runs-on", "steps"},
     "compose": {"services", "volumes", "networks"},
     "pre-commit": {"repos"},
     "kubernetes": {"apiVersion", "kind", "metadata", "spec"},
-}
+})
 
 
 # ---------------------------------------------------------------------------------------------

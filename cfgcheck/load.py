@@ -21,6 +21,7 @@ import re
 import stat
 from dataclasses import dataclass, field
 from pathlib import Path
+from types import MappingProxyType
 from typing import Any, Iterable
 
 import yaml
@@ -259,8 +260,8 @@ def load_path(path: str | Path) -> tuple[Source, list[Document]]:
 _EXP_NO_DOT = re.compile(r"^[-+]?(?:[0-9][0-9_]*)(?:\.[0-9_]*)?[eE][-+]?[0-9]+$")
 _CORE_FLOAT = re.compile(r"^[-+]?(?:\.[0-9]+|[0-9]+(?:\.[0-9]*)?)(?:[eE][-+]?[0-9]+)?$")
 _CORE_INT = re.compile(r"^[-+]?[0-9]+$")
-_WORD_BOOL = {"yes": True, "no": False, "on": True, "off": False}
-_STD_TAGS = {
+_WORD_BOOL = MappingProxyType({"yes": True, "no": False, "on": True, "off": False})
+_STD_TAGS = frozenset({
     "tag:yaml.org,2002:str",
     "tag:yaml.org,2002:int",
     "tag:yaml.org,2002:float",
@@ -275,7 +276,7 @@ _STD_TAGS = {
     "tag:yaml.org,2002:omap",
     "tag:yaml.org,2002:pairs",
     "tag:yaml.org,2002:set",
-}
+})
 _MERGE = "tag:yaml.org,2002:merge"
 
 _constructor = yaml.constructor.SafeConstructor()

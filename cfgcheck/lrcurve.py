@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from types import MappingProxyType
 from typing import Any, Callable
 
 # the lr_scheduler_type words the transformers Trainer accepts (trainer_utils.SchedulerType, 5.x)
@@ -152,17 +153,17 @@ def _wsd(step, *, warmup, total, num_decay_steps=None, num_stable_steps=None, wa
     return min_lr_ratio
 
 
-_FORMULAS: dict[str, Callable[..., float]] = {
+_FORMULAS: MappingProxyType[str, Callable[..., float]] = MappingProxyType({
     "linear": _linear, "cosine": _cosine, "cosine_with_restarts": _cosine_restarts,
     "polynomial": _polynomial, "constant": _constant, "constant_with_warmup": _constant_warmup,
     "inverse_sqrt": _inverse_sqrt, "reduce_lr_on_plateau": _constant,
     "cosine_with_min_lr": _cosine_min_lr, "cosine_warmup_with_min_lr": _cosine_warmup_min_lr,
     "warmup_stable_decay": _wsd, "greedy": _constant,
-}
+})
 # other spellings of the same schedules (recipe runners, torchtune component names)
-_ALIASES = {"cosine_with_warmup": "cosine", "get_cosine_schedule_with_warmup": "cosine",
+_ALIASES = MappingProxyType({"cosine_with_warmup": "cosine", "get_cosine_schedule_with_warmup": "cosine",
             "wsd": "warmup_stable_decay", "constant_schedule_with_warmup": "constant_with_warmup",
-            "linear_with_warmup": "linear"}
+            "linear_with_warmup": "linear"})
 MAX_STEPS_DRAWN = 1_000_000  # a longer run is drawn from a sample of its steps
 
 

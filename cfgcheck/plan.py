@@ -11,6 +11,7 @@ import math
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
+from types import MappingProxyType
 from typing import Any
 
 from .knowledge.hardware import Gpu
@@ -23,8 +24,8 @@ from .view import RunView
 
 DEFAULT_SEQ_LEN = 2048  # assumed when the config sets none (common practice, no source)
 
-_DTYPES = {"bfloat16": "bf16", "bf16": "bf16", "float16": "fp16", "fp16": "fp16", "half": "fp16",
-           "float32": "fp32", "fp32": "fp32", "float": "fp32"}
+_DTYPES = MappingProxyType({"bfloat16": "bf16", "bf16": "bf16", "float16": "fp16", "fp16": "fp16", "half": "fp16",
+           "float32": "fp32", "fp32": "fp32", "float": "fp32"})
 
 
 @dataclass

@@ -20,6 +20,7 @@ import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
+from types import MappingProxyType
 from typing import Any, Iterable
 
 from .engine import Options
@@ -32,12 +33,12 @@ YAML_NAME = "cfgcheck.yaml"
 TOML_NAME = "pyproject.toml"
 TABLE = ("tool", "cfgcheck")
 
-_LEVEL = {"enum": ["error", "warning", "info"]}
-_GLOBS = {"type": "array", "items": {"type": "string", "minLength": 1}}
-_GLOB_OR_GLOBS = {"anyOf": [{"type": "string", "minLength": 1}, _GLOBS]}
-_RULE_ID = {"type": "string", "pattern": "^[a-z0-9][a-z0-9-]*$"}
+_LEVEL = MappingProxyType({"enum": ["error", "warning", "info"]})
+_GLOBS = MappingProxyType({"type": "array", "items": {"type": "string", "minLength": 1}})
+_GLOB_OR_GLOBS = MappingProxyType({"anyOf": [{"type": "string", "minLength": 1}, _GLOBS]})
+_RULE_ID = MappingProxyType({"type": "string", "pattern": "^[a-z0-9][a-z0-9-]*$"})
 
-SCHEMA: dict[str, Any] = {
+SCHEMA: MappingProxyType[str, Any] = MappingProxyType({
     "$schema": "https://json-schema.org/draft/2020-12/schema",
     "title": "cfgcheck project configuration",
     "type": "object",
@@ -127,7 +128,7 @@ SCHEMA: dict[str, Any] = {
             "additionalProperties": {"type": "string", "pattern": r"^[0-9]"},
         },
     },
-}
+})
 
 
 MAX_GLOB = 1_000  # characters in one glob of the project file
@@ -167,12 +168,12 @@ class GlobError(ValueError):
 
 
 # the character classes of POSIX bracket expressions that a glob may use inside [...]
-_POSIX_CLASSES = {
+_POSIX_CLASSES = MappingProxyType({
     "alpha": str.isalpha, "digit": str.isdigit, "alnum": str.isalnum, "upper": str.isupper,
     "lower": str.islower, "space": str.isspace,
     "punct": lambda c: c.isascii() and not c.isalnum() and c.isprintable() and not c.isspace(),
     "xdigit": lambda c: c in "0123456789abcdefABCDEF",
-}
+})
 
 _STEP_CACHE = 200_000  # positions held by one glob's memo of steps (a few MiB); cleared past it
 

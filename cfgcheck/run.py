@@ -15,6 +15,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
+from types import MappingProxyType
 from typing import Any
 
 from . import load as loadmod
@@ -22,8 +23,8 @@ from .defaults import DEFAULTS, Default
 from .load import LoadError
 from .view import Field, RunView, build_view
 
-_DISTRIBUTED_WORDS = {"DEEPSPEED": "DeepSpeed", "FSDP": "FSDP", "MULTI_GPU": "data parallel (DDP)",
-                      "NO": "one process", "MEGATRON_LM": "Megatron-LM", "XLA": "XLA"}
+_DISTRIBUTED_WORDS = MappingProxyType({"DEEPSPEED": "DeepSpeed", "FSDP": "FSDP", "MULTI_GPU": "data parallel (DDP)",
+                      "NO": "one process", "MEGATRON_LM": "Megatron-LM", "XLA": "XLA"})
 
 
 @dataclass

@@ -11,16 +11,17 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from types import MappingProxyType
 
 # transformers TrainingArguments defaults (identical in 4.57 and 5.x)
-TRAINER_DEFAULTS = {
+TRAINER_DEFAULTS = MappingProxyType({
     "batch.per_device": 8,
     "batch.accumulation": 1,
     "optim.epochs": 3.0,
     "optim.max_steps": -1,
     "cadence.logging_steps": 500,
     "cadence.save_steps": 500,
-}
+})
 
 
 @dataclass

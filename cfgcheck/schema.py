@@ -13,6 +13,7 @@ from __future__ import annotations
 import functools
 import json
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import Any
 
 from .layouts import BY_NAME, FIELD_TYPES, LAYOUTS, Layout
@@ -61,7 +62,7 @@ class Constraint:
     source: str = ""
 
 
-CONSTRAINTS: dict[str, tuple[Constraint, ...]] = {
+CONSTRAINTS: MappingProxyType[str, tuple[Constraint, ...]] = MappingProxyType({
     "adapter.rank": (Constraint(minimum=1, source="PEFT LoraConfig: r must be a positive integer"),),
     "adapter.alpha": (Constraint(exclusive_minimum=0, source="LoRA: the update is scaled by alpha/r"),),
     "adapter.dropout": (Constraint(minimum=0, exclusive_maximum=1, source="torch.nn.Dropout: p in [0, 1)"),),
@@ -104,16 +105,16 @@ CONSTRAINTS: dict[str, tuple[Constraint, ...]] = {
     "hardware.num_gpus": (Constraint(minimum=1, source="a positive count"),),
     "hardware.num_machines": (Constraint(minimum=1, source="a positive count"),),
     "launch.num_machines": (Constraint(minimum=1, source="a positive count"),),
-}
+})
 
-_TYPES = {
+_TYPES = MappingProxyType({
     "int": {"type": "integer"},
     "number": {"type": "number"},
     "bool": {"type": "boolean"},
     "str": {"type": "string"},
     "names": {"anyOf": [{"type": "string"}, {"type": "array", "items": {"type": "string"}}]},
     "any": {},
-}
+})
 
 
 def _applies(c: Constraint, layout: "Layout | str | None") -> bool:

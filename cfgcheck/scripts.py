@@ -16,6 +16,7 @@ import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
+from types import MappingProxyType
 from typing import Any, Iterable
 
 from .load import CONFIG_SUFFIXES as _CONFIG_SUFFIXES, Document, Entry, LoadError, Span, walk_paths
@@ -53,7 +54,7 @@ class ScriptLaunch:
 
 
 # launcher options that take a value (both spellings are accepted: --num_processes, --num-processes)
-_ACCELERATE_VALUED = {
+_ACCELERATE_VALUED = frozenset({
     "config_file", "num_processes", "num_machines", "mixed_precision", "deepspeed_config_file",
     "zero_stage", "main_process_port", "main_process_ip", "machine_rank", "gpu_ids",
     "gradient_accumulation_steps", "offload_optimizer_device", "offload_param_device",
@@ -62,12 +63,12 @@ _ACCELERATE_VALUED = {
     "fsdp_offload_params", "fsdp_auto_wrap_policy", "fsdp_transformer_layer_cls_to_wrap",
     "fsdp_state_dict_type", "fsdp_version", "same_network", "tpu_name", "downcast_bf16",
     "fsdp_activation_checkpointing", "fsdp_backward_prefetch", "fsdp_reshard_after_forward",
-}
-_TORCHRUN_VALUED = {"nproc_per_node", "nnodes", "node_rank", "master_addr", "master_port",
+})
+_TORCHRUN_VALUED = frozenset({"nproc_per_node", "nnodes", "node_rank", "master_addr", "master_port",
                     "rdzv_backend", "rdzv_endpoint", "rdzv_id", "rdzv_conf", "max_restarts",
-                    "monitor_interval", "log_dir", "redirects", "tee", "local_addr", "role"}
-_DEEPSPEED_VALUED = {"num_gpus", "num_nodes", "include", "exclude", "hostfile", "master_port",
-                     "master_addr", "launcher", "launcher_args", "node_rank", "ssh_port"}
+                    "monitor_interval", "log_dir", "redirects", "tee", "local_addr", "role"})
+_DEEPSPEED_VALUED = frozenset({"num_gpus", "num_nodes", "include", "exclude", "hostfile", "master_port",
+                     "master_addr", "launcher", "launcher_args", "node_rank", "ssh_port"})
 _PYTHONS = re.compile(r"^(?:.*/)?python(?:[0-9.]*)$")
 
 
@@ -282,14 +283,14 @@ def _launch_of(text: str, name: str, folder: Path, plain: list, words: _Words) -
 
 _RUNNER_CLIS = ("llamafactory-cli", "axolotl", "tune", "trl")
 # the launchers by their first word(s) -> (our label, the options that take a value)
-_LAUNCHERS = {"accelerate launch": ("accelerate launch", _ACCELERATE_VALUED),
+_LAUNCHERS = MappingProxyType({"accelerate launch": ("accelerate launch", _ACCELERATE_VALUED),
               "torchrun": ("torchrun", _TORCHRUN_VALUED),
-              "deepspeed": ("deepspeed launcher", _DEEPSPEED_VALUED)}
+              "deepspeed": ("deepspeed launcher", _DEEPSPEED_VALUED)})
 
-_FLAGS = {"multi_gpu", "use_deepspeed", "use_fsdp", "use_megatron_lm", "cpu", "tpu", "no_python",
+_FLAGS = frozenset({"multi_gpu", "use_deepspeed", "use_fsdp", "use_megatron_lm", "cpu", "tpu", "no_python",
           "module", "m", "quiet", "q", "standalone", "debug", "no_local_rank", "enable_each_rank_log",
           "bind_cores_to_rank", "force_multi", "autotuning", "elastic_training", "save_pid",
-          "no_ssh_check", "no_ssh", "use_cpu"}
+          "no_ssh_check", "no_ssh", "use_cpu"})
 
 
 def _int(val: str) -> int | None:

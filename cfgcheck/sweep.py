@@ -29,8 +29,8 @@ from .load import Document, Entry
 
 ALL_UP_TO = 16
 MAX_RUNS = 24
-_SWEEP_KEYS = {"method", "program", "metric", "command", "early_terminate", "run_cap", "project", "entity"}
-_SPEC_KEYS = {"values", "value", "min", "max", "distribution"}
+_SWEEP_KEYS = frozenset({"method", "program", "metric", "command", "early_terminate", "run_cap", "project", "entity"})
+_SPEC_KEYS = frozenset({"values", "value", "min", "max", "distribution"})
 
 
 def is_sweep(data: Any) -> bool:

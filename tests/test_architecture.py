@@ -263,3 +263,103 @@ def test_no_import_cycle_even_inside_functions():
     # package __init__ modules re-export lazily from their own submodules; that is not a cycle
     cycles = [c for c in cycles if not c.startswith("__init__")]
     assert cycles == []
+
+
+# --------------------------------------------------------------------------- no hidden global state
+
+_MUTABLE_CALLS = frozenset({"dict", "list", "set", "defaultdict", "OrderedDict", "Counter", "deque",
+                            "bytearray"})
+
+
+def _is_cache_name(name: str) -> bool:
+    """An explicit cache says so in its name: ``_SELECTED_CACHE``, ``_memo_cache``."""
+    return name.endswith(("_CACHE", "_cache"))
+
+
+def _mutable_value(node: ast.AST) -> bool:
+    if isinstance(node, (ast.Dict, ast.List, ast.Set, ast.DictComp, ast.ListComp, ast.SetComp)):
+        return True
+    if isinstance(node, ast.Call):
+        f = node.func
+        name = f.id if isinstance(f, ast.Name) else f.attr if isinstance(f, ast.Attribute) else None
+        return name in _MUTABLE_CALLS
+    return False
+
+
+def _module_level(body):
+    """Statements run at import: the module body and the blocks of its if / try / with."""
+    for node in body:
+        yield node
+        if isinstance(node, (ast.If, ast.Try, ast.With)):
+            for part in ("body", "orelse", "finalbody"):
+                yield from _module_level(getattr(node, part, []))
+            for handler in getattr(node, "handlers", []):
+                yield from _module_level(handler.body)
+
+
+def module_state(source: str) -> list[str]:
+    """Module-level names bound to a mutable value, and ``global`` statements, that are not named
+    as explicit caches ("line: name")."""
+    tree = ast.parse(source)
+    found = []
+    for node in _module_level(tree.body):
+        if isinstance(node, ast.Assign):
+            targets, value = node.targets, node.value
+        elif isinstance(node, (ast.AnnAssign, ast.AugAssign)) and node.value is not None:
+            targets, value = [node.target], node.value
+        else:
+            continue
+        pairs = []
+        for t in targets:
+            if isinstance(t, (ast.Tuple, ast.List)) and isinstance(value, (ast.Tuple, ast.List)) \
+                    and len(t.elts) == len(value.elts):
+                pairs += list(zip(t.elts, value.elts))  # A, B = [], {}
+            else:
+                pairs += [(name, value) for name in (t.elts if isinstance(t, (ast.Tuple, ast.List)) else [t])]
+        for name, v in pairs:
+            text = ast.unparse(name)
+            if _mutable_value(v) and not _is_cache_name(text):
+                found.append(f"{node.lineno}: {text}")
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Global):
+            found.extend(f"{node.lineno}: global {n}" for n in node.names if not _is_cache_name(n))
+    return found
+
+
+def test_no_module_global_mutable_state_outside_explicit_caches():
+    """Constants are immutable (tuple, frozenset, MappingProxyType); state that changes as the
+    program runs lives in a cache that says so in its name, or in a functools cache."""
+    offenders = []
+    for path in sorted(PKG.rglob("*.py")):
+        offenders += [f"{path.relative_to(PKG)}:{hit}" for hit in module_state(path.read_text())]
+    assert offenders == [], "make it immutable, or name it an explicit cache: " + ", ".join(offenders)
+
+
+def test_the_module_state_finder_finds_each_spelling():
+    src = (
+        "from types import MappingProxyType\n"
+        "A = {'x': 1}\n"
+        "B: list[int] = []\n"
+        "C = frozenset({1, 2})\n"
+        "D = MappingProxyType({'x': 1})\n"
+        "E = (1, 2)\n"
+        "_MEMO_CACHE: dict = {}\n"
+        "F, G = [], ()\n"
+        "H = defaultdict(list)\n"
+        "try:\n    I = set()\nexcept ImportError:\n    pass\n"
+        "def f():\n    global _count\n    local = {}\n"
+        "class K:\n    table = {}\n"
+    )
+    assert module_state(src) == ["2: A", "3: B", "8: F", "9: H", "11: I", "15: global _count"]
+
+
+def test_frozen_tables_refuse_changes():
+    from cfgcheck.layouts import FIELD_TYPES, METHOD_WORDS
+    from cfgcheck.schema import CONSTRAINTS
+
+    for table in (FIELD_TYPES, METHOD_WORDS, CONSTRAINTS):
+        try:
+            table["acme.field"] = "str"  # type: ignore[index]
+        except TypeError:
+            continue
+        raise AssertionError("a module table took a new entry")

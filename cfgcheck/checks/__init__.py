@@ -5,18 +5,21 @@ anywhere else.
 
 from __future__ import annotations
 
+import functools
 import importlib
 import pkgutil
 from typing import Callable
 
-CHECKS: dict[str, Callable] = {}  # rule id -> check: filled by the decorator as modules load
+# rule id -> check: filled by the decorator as the modules load, so a cache of what the package
+# holds (read once per process; tests may replace an entry)
+_CHECKS_CACHE: dict[str, Callable] = {}
 
 
 def check(rule_id: str) -> Callable[[Callable], Callable]:
     def register(fn: Callable) -> Callable:
-        if rule_id in CHECKS:
+        if rule_id in _CHECKS_CACHE:
             raise RuntimeError(f"two checks for rule {rule_id}")
-        CHECKS[rule_id] = fn
+        _CHECKS_CACHE[rule_id] = fn
         fn.rule_id = rule_id  # type: ignore[attr-defined]
         return fn
 
@@ -28,13 +31,12 @@ def check_modules() -> list[str]:
     return sorted(m.name for m in pkgutil.iter_modules(__path__) if not m.name.startswith("_"))
 
 
-_loaded = False
+@functools.cache
+def _load_modules() -> None:
+    for name in check_modules():
+        importlib.import_module(f"{__name__}.{name}")
 
 
 def all_checks() -> dict[str, Callable]:
-    global _loaded
-    if not _loaded:
-        for name in check_modules():
-            importlib.import_module(f"{__name__}.{name}")
-        _loaded = True
-    return CHECKS
+    _load_modules()
+    return _CHECKS_CACHE

@@ -7,9 +7,9 @@ from ..knowledge import chat_tokens
 from ..load import dotted
 from . import check
 
-EMBEDDING_NAMES = {"embed_tokens", "wte", "tok_embeddings", "word_embeddings", "embeddings",
-                   "embed_in", "tok_embed"}
-HEAD_NAMES = {"lm_head", "output", "embed_out", "head"}
+EMBEDDING_NAMES = frozenset({"embed_tokens", "wte", "tok_embeddings", "word_embeddings", "embeddings",
+                   "embed_in", "tok_embed"})
+HEAD_NAMES = frozenset({"lm_head", "output", "embed_out", "head"})
 
 
 def _names(value) -> set[str]:

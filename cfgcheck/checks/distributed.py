@@ -3,13 +3,15 @@ checkpointing under data parallel, FSDP with adapters or quantisation, device pl
 
 from __future__ import annotations
 
+from types import MappingProxyType
+
 from ..findings import Edit, Fix
 from . import check
 
 # transformers TrainingArguments defaults the DeepSpeed integration compares with (4.57 and 5.x,
 # training_args.py): max_grad_norm 1.0, learning_rate 5e-5, weight_decay 0.0, fp16/bf16 False
-HF_DEFAULTS = {"optim.grad_clip": 1.0, "optim.lr": 5e-5, "optim.weight_decay": 0.0,
-               "precision.fp16": False, "precision.bf16": False}
+HF_DEFAULTS = MappingProxyType({"optim.grad_clip": 1.0, "optim.lr": 5e-5, "optim.weight_decay": 0.0,
+               "precision.fp16": False, "precision.bf16": False})
 
 
 def trainer_defaults_apply(view) -> bool:
@@ -157,10 +159,10 @@ def zero3_save(ctx) -> None:
 
 # --------------------------------------------------------------------------- DeepSpeed replacing settings
 
-_SHAPES = {  # trainer lr_scheduler_type -> the DeepSpeed scheduler of the same shape
+_SHAPES = MappingProxyType({  # trainer lr_scheduler_type -> the DeepSpeed scheduler of the same shape
     "linear": "warmupdecaylr", "cosine": "warmupcosinelr", "constant_with_warmup": "warmuplr",
-}
-_ADAM = {"adam", "adamw"}
+})
+_ADAM = frozenset({"adam", "adamw"})
 
 
 @check("deepspeed-file-replaces-trainer-setting")
@@ -257,9 +259,9 @@ def checkpointing_ddp(ctx) -> None:
 
 # --------------------------------------------------------------------------- FSDP with adapters / quantisation
 
-_DTYPE_WORDS = {"bfloat16": "bfloat16", "bf16": "bfloat16", "float16": "float16", "fp16": "float16",
+_DTYPE_WORDS = MappingProxyType({"bfloat16": "bfloat16", "bf16": "bfloat16", "float16": "float16", "fp16": "float16",
                 "half": "float16", "float32": "float32", "fp32": "float32", "float": "float32",
-                "uint8": "uint8"}
+                "uint8": "uint8"})
 
 
 def _dtype(value):
@@ -314,11 +316,11 @@ def fsdp_double_checkpointing(ctx) -> None:
 
 # The decoder layer class of each model family (transformers models/<family>/modeling_<family>.py);
 # tests/reference checks these names against the installed transformers.
-DECODER_LAYER = {
+DECODER_LAYER = MappingProxyType({
     "llama": "LlamaDecoderLayer", "mistral": "MistralDecoderLayer", "mixtral": "MixtralDecoderLayer",
     "qwen2": "Qwen2DecoderLayer", "qwen3": "Qwen3DecoderLayer", "gemma": "GemmaDecoderLayer",
     "gemma2": "Gemma2DecoderLayer", "phi3": "Phi3DecoderLayer",
-}
+})
 
 
 def _other_family(name: str, own: str) -> bool:

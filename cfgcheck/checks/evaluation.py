@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+from types import MappingProxyType
+
 from ..findings import Edit, Fix
 from . import check
 
-_DEFAULT = {"cadence.eval_strategy": "no", "cadence.save_strategy": "steps",
-            "cadence.save_steps": 500}  # transformers TrainingArguments defaults (4.57 and 5.x)
+_DEFAULT = MappingProxyType({"cadence.eval_strategy": "no", "cadence.save_strategy": "steps",
+            "cadence.save_steps": 500})  # transformers TrainingArguments defaults (4.57 and 5.x)
 
 
 def _word(view, name, defaults: bool):

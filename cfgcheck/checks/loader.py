@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import re
+from types import MappingProxyType
 
 from ..findings import Edit, Fix
 from ..load import dotted
@@ -44,7 +45,7 @@ def dotted_exponent(raw: str) -> str:
 
 
 # what the view's field types mean for the value's type
-_FIELD_KIND = {"int": "number", "number": "number", "bool": "bool", "str": "text", "names": "text"}
+_FIELD_KIND = MappingProxyType({"int": "number", "number": "number", "bool": "bool", "str": "text", "names": "text"})
 
 
 def _setting_type(ctx, path: tuple) -> str | None:
@@ -129,20 +130,20 @@ def yaml_version_dependent(ctx) -> None:
             ctx.report(amb.path, "base-60", key=key, raw=amb.raw, yaml11=amb.yaml11)
 
 
-_EXPECTED = {
+_EXPECTED = MappingProxyType({
     "int": "a whole number",
     "number": "a number",
     "bool": "true or false",
     "str": "a single text value",
     "names": "a module name or a list of names",
-}
-_EXAMPLE = {
+})
+_EXAMPLE = MappingProxyType({
     "optim.lr": "2.0e-5",
     "adapter.rank": "16",
     "adapter.alpha": "32",
     "batch.per_device": "4",
     "batch.accumulation": "8",
-}
+})
 
 
 def _kind(value) -> str:

@@ -7,7 +7,7 @@ from ..knowledge.hardware import FEATURE_MIN_CAPABILITY
 from ..load import dotted
 from . import check
 
-_BF16_WORDS = {"bfloat16", "bf16"}
+_BF16_WORDS = frozenset({"bfloat16", "bf16"})
 
 
 def _wanted(view):
@@ -37,7 +37,7 @@ def _wanted(view):
     return out
 
 
-_FP16_WORDS = {"float16", "fp16", "half"}
+_FP16_WORDS = frozenset({"float16", "fp16", "half"})
 # bf16 asked for in several places is one cause: one finding at the first of these, the others
 # listed with it
 _BF16_ORDER = ("precision.bf16", "precision.mixed", "model.dtype", "quant.compute_dtype")

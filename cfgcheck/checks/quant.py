@@ -87,7 +87,7 @@ def fp4(ctx) -> None:
         ctx.report(q, "default", key=q.key, section=q.path[0])
 
 
-_FP32 = {"float32", "fp32", "torch.float32", "float"}
+_FP32 = frozenset({"float32", "fp32", "torch.float32", "float"})
 
 
 def _half_dtype(ctx, written: str) -> tuple[str, str]:

@@ -2,15 +2,17 @@
 
 from __future__ import annotations
 
+from types import MappingProxyType
+
 from ..findings import MAX_MAGNITUDE, number_text
 from ..schema import violations
 from . import check
 
-_WORDS = {"below": "below the minimum", "not-above": "not above", "at-or-above": "at or above the limit"}
+_WORDS = MappingProxyType({"below": "below the minimum", "not-above": "not above", "at-or-above": "at or above the limit"})
 
 
 # plain words that YAML 1.1 (PyYAML) reads as a boolean or null (yaml.org/type/bool.html, null.html)
-_NOT_TEXT = {"y", "n", "yes", "no", "on", "off", "true", "false", "null", "~", ""}
+_NOT_TEXT = frozenset({"y", "n", "yes", "no", "on", "off", "true", "false", "null", "~", ""})
 
 
 def yaml_word(word) -> str:

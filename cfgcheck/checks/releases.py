@@ -3,13 +3,15 @@ against the versions pinned beside the config (or given with --installed)."""
 
 from __future__ import annotations
 
+from types import MappingProxyType
+
 from . import check
 
 # Whether the library that reads a key table refuses a key it does not declare (an error) or
 # passes over it (a warning): transformers' HfArgumentParser raises "Some keys are not used by the
 # HfArgumentParser"; accelerate's config loader raises on unknown keys ("The config file at ... had
 # unknown keys"); DeepSpeed and PEFT adapter configs are read more loosely (from memory).
-_REFUSES = {"trainer": True, "accelerate": True, "deepspeed": False, "peft-adapter": False}
+_REFUSES = MappingProxyType({"trainer": True, "accelerate": True, "deepspeed": False, "peft-adapter": False})
 
 
 def _keys():

@@ -46,8 +46,8 @@ def seq_len_above_context(ctx) -> None:
                source=arch.source or "model config")
 
 
-_AWARE = {"flash_attention_2", "flash_attention_3", "kernels-community/flash-attn",
-          "kernels-community/vllm-flash-attn3", "flex_attention", "fa2", "fa3"}
+_AWARE = frozenset({"flash_attention_2", "flash_attention_3", "kernels-community/flash-attn",
+          "kernels-community/vllm-flash-attn3", "flex_attention", "fa2", "fa3"})
 
 
 @check("packing-without-boundary-aware-attention")

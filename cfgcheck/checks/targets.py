@@ -4,17 +4,18 @@ from __future__ import annotations
 
 import math
 import re
+from types import MappingProxyType
 
 from . import check
 
-_ALL_WORDS = {"all-linear", "all"}  # PEFT's "all-linear"; LLaMA-Factory's lora_target: all
-_ATTENTION = {"q_proj", "k_proj", "v_proj", "o_proj", "qkv_proj", "query_key_value", "c_attn",
-              "out_proj", "query", "key", "value", "wq", "wk", "wv", "wo", "wqkv", "output_proj"}
-_EMBEDDINGS = {"embed_tokens", "lm_head", "wte", "embed_out", "word_embeddings", "tok_embeddings",
-               "output", "embeddings"}
+_ALL_WORDS = frozenset({"all-linear", "all"})  # PEFT's "all-linear"; LLaMA-Factory's lora_target: all
+_ATTENTION = frozenset({"q_proj", "k_proj", "v_proj", "o_proj", "qkv_proj", "query_key_value", "c_attn",
+              "out_proj", "query", "key", "value", "wq", "wk", "wv", "wo", "wqkv", "output_proj"})
+_EMBEDDINGS = frozenset({"embed_tokens", "lm_head", "wte", "embed_out", "word_embeddings", "tok_embeddings",
+               "output", "embeddings"})
 # names other libraries give the Llama-family projections (torchtune / Meta reference code)
-_OTHER_LIBRARY_NAMES = {"output_proj": "o_proj", "w1": "gate_proj", "w3": "up_proj", "w2": "down_proj",
-                        "wq": "q_proj", "wk": "k_proj", "wv": "v_proj", "wo": "o_proj"}
+_OTHER_LIBRARY_NAMES = MappingProxyType({"output_proj": "o_proj", "w1": "gate_proj", "w3": "up_proj", "w2": "down_proj",
+                        "wq": "q_proj", "wk": "k_proj", "wv": "v_proj", "wo": "o_proj"})
 _REGEX_CHARS = re.compile(r"[\\^$*+?()\[\]{}|]")
 
 

@@ -8,9 +8,9 @@ from ..findings import Edit, Fix
 from . import check
 from .distributed import quantised_field
 
-_HALF = {"float16", "fp16", "half", "torch.float16"}
-_BF16 = {"bfloat16", "bf16", "torch.bfloat16"}
-_FP32 = {"float32", "fp32", "float", "torch.float32"}
+_HALF = frozenset({"float16", "fp16", "half", "torch.float16"})
+_BF16 = frozenset({"bfloat16", "bf16", "torch.bfloat16"})
+_FP32 = frozenset({"float32", "fp32", "float", "torch.float32"})
 
 
 def _word(f):
@@ -58,9 +58,9 @@ def qlora_fp16_bf16(ctx) -> None:
     ctx.report(cd, key=cd.key, value=cd.written, fp16_key=fp.key)
 
 
-_VARLEN = {"flash_attention_2", "flash_attention_3", "kernels-community/flash-attn",
-           "kernels-community/vllm-flash-attn3", "flex_attention", "fa2", "fa3"}
-_FLASH = {"flash_attention_2", "flash_attention_3", "fa2", "fa3"}
+_VARLEN = frozenset({"flash_attention_2", "flash_attention_3", "kernels-community/flash-attn",
+           "kernels-community/vllm-flash-attn3", "flex_attention", "fa2", "fa3"})
+_FLASH = frozenset({"flash_attention_2", "flash_attention_3", "fa2", "fa3"})
 
 
 @check("attention-kernel-unsuited")

@@ -65,7 +65,7 @@ def warmup_longer_than_run(ctx) -> None:
                    limit=round(100 * limit))
 
 
-_CONSTANT = {"constant"}
+_CONSTANT = frozenset({"constant"})
 
 
 @check("constant-schedule-ignores-warmup")

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
+from types import MappingProxyType
 
 
 @dataclass(frozen=True)
@@ -47,12 +48,12 @@ FORMATS: tuple[ChatFormat, ...] = (
 )
 
 # Text-marker formats, for the record: their markers are plain text in the base vocabulary.
-TEXT_FORMATS = {
+TEXT_FORMATS = MappingProxyType({
     "zephyr": "<|system|>, <|user|>, <|assistant|> as text and the base EOS </s> to end a turn: "
               "zephyr-7b-beta's tokenizer adds no tokens to Mistral's 32000 (from memory); the "
               "alignment-handbook sets the template string only (get_tokenizer)",
     "Llama 2 chat": "[INST] ... [/INST] as text: Llama 2's vocabulary has no such token (from memory)",
-}
+})
 
 
 @dataclass(frozen=True)

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import difflib
 from dataclasses import dataclass
+from types import MappingProxyType
 
 GIB = 1024**3
 GB = 1000**3
@@ -35,15 +36,15 @@ class Gpu:
 
 
 # Feature gates: minimum compute capability and the published source for each.
-FEATURE_MIN_CAPABILITY: dict[str, tuple[tuple[int, int], str]] = {
+FEATURE_MIN_CAPABILITY: MappingProxyType[str, tuple[tuple[int, int], str]] = MappingProxyType({
     "bf16": ((8, 0), "NVIDIA Transformer Engine support matrix: BF16 requires compute capability 8.0 or higher"),
     "tf32": ((8, 0), "transformers is_torch_tf32_available(): device major >= 8 (Ampere)"),
     "fp8": ((8, 9), "NVIDIA Transformer Engine support matrix: FP8 requires compute capability 8.9 or higher"),
     "flash_attention_2": ((8, 0), "flash-attention README: FlashAttention-2 supports Ampere, Ada or Hopper GPUs"),
-}
+})
 
 _CC = "NVIDIA CUDA GPU compute capability table"
-_GPUS = [
+_GPUS = (
     Gpu("p100", "Tesla P100 16GB", (6, 0), 16 * GB, f"{_CC} (legacy page); memory from memory"),
     Gpu("v100-16gb", "Tesla V100 16GB", (7, 0), 16 * GB, f"{_CC} (legacy page); V100 16/32 GB spec"),
     Gpu("v100-32gb", "Tesla V100 32GB", (7, 0), 32 * GB, f"{_CC} (legacy page); V100 16/32 GB spec"),
@@ -60,11 +61,11 @@ _GPUS = [
     Gpu("h100", "H100 80GB (SXM)", (9, 0), 80 * GB, f"{_CC}; 80 GB HBM3 (SXM)"),
     Gpu("h200", "H200 141GB", (9, 0), 141 * GB, f"{_CC}; 141 GB HBM3e (MLPerf system description)"),
     Gpu("b200", "B200 180GB", (10, 0), 180 * GB, f"{_CC}; 180 GB HBM3e (MLPerf system description)"),
-]
+)
 
-GPUS: dict[str, Gpu] = {g.name: g for g in _GPUS}
+GPUS: MappingProxyType[str, Gpu] = MappingProxyType({g.name: g for g in _GPUS})
 
-ALIASES: dict[str, str] = {
+ALIASES: MappingProxyType[str, str] = MappingProxyType({
     "v100": "v100-16gb",
     "tesla-t4": "t4",
     "a100": "a100-80gb",
@@ -80,7 +81,7 @@ ALIASES: dict[str, str] = {
     "h100-80gb": "h100",
     "h100-sxm": "h100",
     "h200-141gb": "h200",
-}
+})
 
 
 class UnknownGpu(ValueError):

@@ -37,7 +37,7 @@ from dataclasses import dataclass, field
 from functools import cache
 from pathlib import Path
 
-__all__ = ["KeyInfo", "lookup", "suggest", "layouts"]
+__all__ = ("KeyInfo", "lookup", "suggest", "layouts")
 
 _GENERATED = "known_keys.json"
 _EXTRA = "extra_keys.json"

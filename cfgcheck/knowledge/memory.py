@@ -30,6 +30,7 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass, field, replace
+from types import MappingProxyType
 
 from .models import (
     Architecture,
@@ -42,7 +43,7 @@ from .models import (
     total_parameters,
 )
 
-__all__ = [
+__all__ = (
     "MemoryInputs",
     "NotEstimated",
     "normalise_optimizer",
@@ -56,19 +57,19 @@ __all__ = [
     "layer_activation_bytes",
     "quantised_bits_per_param",
     "optimizer_state_bytes_per_param",
-]
+)
 
 # CUDA context, cuBLAS/cuDNN workspaces and allocator slack. Common practice, no source: a CUDA
 # context alone is typically several hundred MiB; 1 GiB is a round allowance.
 DEFAULT_OVERHEAD_BYTES = 1 << 30
 
-_BYTES = {"fp32": 4, "bf16": 2, "fp16": 2}
+_BYTES = MappingProxyType({"fp32": 4, "bf16": 2, "fp16": 2})
 _QUANT = ("int8", "nf4", "fp4")
 _STORAGES = ("fp32", "bf16", "fp16", "int8", "nf4", "fp4")
 _SHARDINGS = ("none", "zero0", "zero1", "zero2", "zero3", "fsdp_full", "fsdp_grad_op")
 # which model states each scheme partitions across the data-parallel GPUs (ZeRO paper sec. 5, Fig. 1;
 # FSDP FULL_SHARD partitions like ZeRO-3 and SHARD_GRAD_OP like ZeRO-2, from memory)
-_SHARDED = {
+_SHARDED = MappingProxyType({
     "none": (),
     "zero0": (),
     "zero1": ("optimizer",),
@@ -76,7 +77,7 @@ _SHARDED = {
     "fsdp_grad_op": ("optimizer", "gradients"),
     "zero3": ("optimizer", "gradients", "weights"),
     "fsdp_full": ("optimizer", "gradients", "weights"),
-}
+})
 
 
 @dataclass(frozen=True)
@@ -213,13 +214,13 @@ def quantised_bits_per_param(storage: str, double_quant: bool = False) -> float:
     raise ValueError(f"unknown weight storage {storage!r}; expected one of {', '.join(_STORAGES)}")
 
 
-_ADAM_32 = {
+_ADAM_32 = frozenset({
     "adamw_torch", "adamw_torch_fused", "adamw_hf", "adamw", "adam", "adamw_apex_fused", "adamw_anyprecision",
     "adamw_torch_xla", "adamw_torch_npu_fused", "paged_adamw_32bit", "paged_adam_32bit", "adamw_32bit",
-}
-_ADAM_8 = {"adamw_8bit", "adamw_bnb_8bit", "paged_adamw_8bit", "adam_8bit", "paged_adam_8bit", "adamw_torch_8bit"}
-_ONE_STATE_32 = {"lion_32bit", "paged_lion_32bit", "adagrad", "rmsprop", "rmsprop_bnb_32bit"}
-_ONE_STATE_8 = {"lion_8bit", "paged_lion_8bit", "rmsprop_bnb_8bit", "rmsprop_8bit"}
+})
+_ADAM_8 = frozenset({"adamw_8bit", "adamw_bnb_8bit", "paged_adamw_8bit", "adam_8bit", "paged_adam_8bit", "adamw_torch_8bit"})
+_ONE_STATE_32 = frozenset({"lion_32bit", "paged_lion_32bit", "adagrad", "rmsprop", "rmsprop_bnb_32bit"})
+_ONE_STATE_8 = frozenset({"lion_8bit", "paged_lion_8bit", "rmsprop_bnb_8bit", "rmsprop_8bit"})
 
 
 class NotEstimated(ValueError):
@@ -230,13 +231,13 @@ class NotEstimated(ValueError):
 # Class names written as a component path (torchtune `optimizer._component_`, recipe runners'
 # `optimizer_type`) mapped onto the transformers `optim` names the table below knows (from memory of
 # torch.optim and bitsandbytes.optim class names).
-_CLASS_NAMES = {
+_CLASS_NAMES = MappingProxyType({
     "adamw": "adamw_torch", "adam": "adam", "sgd": "sgd", "adagrad": "adagrad", "rmsprop": "rmsprop",
     "adamw8bit": "adamw_8bit", "adam8bit": "adam_8bit", "pagedadamw": "paged_adamw_32bit",
     "pagedadamw32bit": "paged_adamw_32bit", "pagedadamw8bit": "paged_adamw_8bit", "pagedadam": "paged_adam_32bit",
     "pagedadam8bit": "paged_adam_8bit", "adamw32bit": "adamw_32bit", "lion": "lion_32bit", "lion8bit": "lion_8bit",
     "pagedlion": "paged_lion_32bit", "pagedlion8bit": "paged_lion_8bit", "adafactor": "adafactor",
-}
+})
 
 
 def normalise_optimizer(optimizer: str | None) -> str:
@@ -808,7 +809,7 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
 # What would make it fit
 # ---------------------------------------------------------------------------------------------
 
-_EIGHT_BIT = {"paged_adamw_32bit": "paged_adamw_8bit", "paged_adam_32bit": "paged_adam_8bit"}
+_EIGHT_BIT = MappingProxyType({"paged_adamw_32bit": "paged_adamw_8bit", "paged_adam_32bit": "paged_adam_8bit"})
 
 
 def _single_changes(inp: MemoryInputs) -> list[tuple[str, dict]]:

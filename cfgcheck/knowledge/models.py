@@ -35,9 +35,10 @@ import re
 from dataclasses import dataclass, field, replace
 from functools import lru_cache
 from pathlib import Path
+from types import MappingProxyType
 from typing import Iterable
 
-__all__ = [
+__all__ = (
     "Architecture",
     "SUPPORTED_FAMILIES",
     "UnsupportedFamily",
@@ -64,7 +65,7 @@ __all__ = [
     "trainable_fraction",
     "lora_scale",
     "PEFT_DEFAULT_TARGETS",
-]
+)
 
 
 @dataclass(frozen=True)
@@ -127,11 +128,11 @@ SUPPORTED_FAMILIES = frozenset({
 })
 
 # Families whose q, k and v come out of one fused projection (LoRA on it adapts all three together).
-FUSED_QKV = {"gpt2": "c_attn", "gpt_neox": "query_key_value", "falcon": "query_key_value", "phi3": "qkv_proj"}
+FUSED_QKV = MappingProxyType({"gpt2": "c_attn", "gpt_neox": "query_key_value", "falcon": "query_key_value", "phi3": "qkv_proj"})
 
 # PEFT @5d602fdb / 0.21 `TRANSFORMERS_MODELS_TO_LORA_TARGET_MODULES_MAPPING` (utils/constants.py),
 # restricted to the families above. The others are absent there: PEFT raises when target_modules is unset.
-PEFT_DEFAULT_TARGETS: dict[str, tuple[str, ...]] = {
+PEFT_DEFAULT_TARGETS: MappingProxyType[str, tuple[str, ...]] = MappingProxyType({
     "llama": ("q_proj", "v_proj"),
     "mistral": ("q_proj", "v_proj"),
     "mixtral": ("q_proj", "v_proj"),
@@ -144,16 +145,16 @@ PEFT_DEFAULT_TARGETS: dict[str, tuple[str, ...]] = {
     "gpt2": ("c_attn",),
     "gpt_neox": ("query_key_value",),
     "falcon": ("query_key_value",),
-}
+})
 
 # transformers 5.x config-class defaults used when config.json omits a key.
-_DEFAULT_TIE = {  # tie_word_embeddings=True in these config classes
+_DEFAULT_TIE = MappingProxyType({  # tie_word_embeddings=True in these config classes
     "gemma": True, "gemma2": True, "gemma3_text": True, "smollm3": True, "starcoder2": True, "gpt2": True,
     "falcon": True,
-}
-_DEFAULT_HEAD_DIM = {"gemma": 256, "gemma2": 256, "gemma3_text": 256, "qwen3": 128}  # fixed, not hidden/heads
+})
+_DEFAULT_HEAD_DIM = MappingProxyType({"gemma": 256, "gemma2": 256, "gemma3_text": 256, "qwen3": 128})  # fixed, not hidden/heads
 # model_type of a multimodal or wrapper config -> the text family whose layout it uses
-_TEXT_FAMILY = {"gemma3": "gemma3_text", "qwen3_vl_text": "qwen3"}
+_TEXT_FAMILY = MappingProxyType({"gemma3": "gemma3_text", "qwen3_vl_text": "qwen3"})
 
 
 # ---------------------------------------------------------------------------------------------
@@ -224,12 +225,12 @@ def _nonneg_int(value, default: int = 0) -> int | None:
 
 
 # config.json key spellings of other families -> the llama-style names read below
-_KEY_ALIASES = {
+_KEY_ALIASES = MappingProxyType({
     "gpt2": {"hidden_size": "n_embd", "num_hidden_layers": "n_layer", "num_attention_heads": "n_head",
              "intermediate_size": "n_inner", "max_position_embeddings": "n_positions"},
     "falcon": {"num_hidden_layers": "n_layer", "num_attention_heads": "n_head"},  # FalconConfig.attribute_map
-}
-_FAMILY_ALIASES = {"RefinedWeb": "falcon", "RefinedWebModel": "falcon"}  # falcon's original model_type names
+})
+_FAMILY_ALIASES = MappingProxyType({"RefinedWeb": "falcon", "RefinedWebModel": "falcon"})  # falcon's original model_type names
 
 
 def architecture_from_config(data: dict, source: str) -> Architecture | None:
@@ -386,7 +387,13 @@ def _read_config(path: Path) -> Architecture | None:
 # ---------------------------------------------------------------------------------------------
 
 _CATALOGUE_FILE = Path(__file__).with_name("base_models.json")
-_ARCH_FIELDS = None
+
+
+@lru_cache(maxsize=1)
+def _arch_fields() -> frozenset[str]:
+    """The Architecture fields a catalogue entry fills (the rest say how the model was matched)."""
+    return frozenset(f for f in Architecture.__dataclass_fields__
+                     if f not in ("source", "entry", "how", "assumed", "match", "quantised"))
 
 
 @dataclass(frozen=True)
@@ -414,14 +421,11 @@ def _catalogue_raw() -> dict:
 @lru_cache(maxsize=1)
 def catalogue_entries() -> tuple[CatalogueEntry, ...]:
     """The bundled catalogue, read once on the first lookup (lint start-up never reads it)."""
-    global _ARCH_FIELDS
-    if _ARCH_FIELDS is None:
-        _ARCH_FIELDS = {f for f in Architecture.__dataclass_fields__
-                        if f not in ("source", "entry", "how", "assumed", "match", "quantised")}
+    arch_fields = _arch_fields()
     raw = _catalogue_raw()
     out = []
     for item in raw["models"]:
-        fields = {k: v for k, v in item.items() if k in _ARCH_FIELDS}
+        fields = {k: v for k, v in item.items() if k in arch_fields}
         arch = Architecture(source=f"bundled catalogue: {item['id']} ({item['source']})", entry=item["id"], **fields)
         out.append(CatalogueEntry(
             id=item["id"], aliases=tuple(item.get("aliases", ())), arch=arch, source=item["source"],
@@ -461,10 +465,10 @@ _QUANT_SUFFIXES = (
     (re.compile(r"[-_.](int[48]|fp8|nf4|exl2|mlx|mxfp4)$", re.I), "{0}"),
 )
 _ANY_EXPORT = re.compile("|".join(f"(?:{p.pattern})" for p, _ in _QUANT_SUFFIXES), re.I)
-_DTYPE_EXPORT = {"float16", "bfloat16", "float32"}
+_DTYPE_EXPORT = frozenset({"float16", "bfloat16", "float32"})
 # Tokens that say nothing about the shape (an organisation-like prefix, file or checkpoint words)
 _VERSION_TOKEN = re.compile(r"v\d+(?:\.\d+)*")
-_NEUTRAL_TOKENS = {"meta", "hf", "base", "pt", "model", "checkpoints", "checkpoint", "final", "latest", "main"}
+_NEUTRAL_TOKENS = frozenset({"meta", "hf", "base", "pt", "model", "checkpoints", "checkpoint", "final", "latest", "main"})
 
 
 def _strip_exports(name: str) -> tuple[str, list[str], str | None]:
@@ -1222,21 +1226,21 @@ def _frozen(value):
     return (type(value).__name__, value)
 
 
-_MATCHED: dict = {}
+_MATCHED_CACHE: dict = {}  # memo of _matched (a cache, bounded below)
 
 
 def _matched(arch: Architecture, targets, modules_to_save) -> list[Module]:
     """Memoised per (architecture, targets, modules_to_save): the same few occur across a corpus."""
     try:
         key = (arch, _frozen(targets), _frozen(modules_to_save))
-        hit = _MATCHED.get(key)
+        hit = _MATCHED_CACHE.get(key)
     except TypeError:  # something unhashable inside: work it out each time
         return _match_rows(arch, targets, modules_to_save)
     if hit is None:
         hit = tuple(_match_rows(arch, targets, modules_to_save))
-        if len(_MATCHED) >= 4096:
-            _MATCHED.clear()
-        _MATCHED[key] = hit
+        if len(_MATCHED_CACHE) >= 4096:
+            _MATCHED_CACHE.clear()
+        _MATCHED_CACHE[key] = hit
     return list(hit)
 
 
@@ -1260,7 +1264,7 @@ def _match_rows(arch: Architecture, targets, modules_to_save) -> list[Module]:
 # treatment with gate_proj + up_proj -> gate_up_proj: the shared experts' gate_proj/up_proj/down_proj, real
 # nn.Linear modules, are then no longer targeted as modules. A string target ("all-linear" or a regex) is first
 # turned into a set of leaf names.
-_MOE_CONVERSIONS = {
+_MOE_CONVERSIONS = MappingProxyType({
     "mixtral": (
         {"gate": "gate.weight", "w1": "gate_up_proj", "w3": "gate_up_proj", "w2": "down_proj"},
         {"gate_up_proj": ("w1", "w3")},
@@ -1269,10 +1273,10 @@ _MOE_CONVERSIONS = {
         {"gate": "gate.weight", "gate_proj": "gate_up_proj", "up_proj": "gate_up_proj", "down_proj": "down_proj"},
         {"gate_up_proj": ("gate_proj", "up_proj")},
     ),
-}
+})
 # transformers 5.24 conversion_mapping._MODEL_TO_CONVERSION_PATTERN (+ PEFT's own "mixtral" entry), restricted
 # to the families modelled here; qwen2_moe itself has no entry there, so its targets are not rewritten.
-_MOE_PATTERN = {"mixtral": "mixtral", "qwen3_moe": "qwen2_moe", "deepseek_v2": "qwen2_moe"}
+_MOE_PATTERN = MappingProxyType({"mixtral": "mixtral", "qwen3_moe": "qwen2_moe", "deepseek_v2": "qwen2_moe"})
 
 
 def _moe_convert(arch: Architecture, targets, modules_to_save):

@@ -24,13 +24,14 @@ import os
 from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
+from types import MappingProxyType
 
 MAX_FILES = 400
 MAX_BYTES = 512 * 1024
 MAX_ENTRIES = 20_000  # folder entries looked at (a data folder of millions of files stays cheap)
 MAX_UP = 6
 _MARKERS = (".git", "pyproject.toml", "setup.py", "setup.cfg")
-_SKIP_DIRS = {"node_modules", "site-packages", "venv", ".venv", "env", "build", "dist", "__pycache__"}
+_SKIP_DIRS = frozenset({"node_modules", "site-packages", "venv", ".venv", "env", "build", "dist", "__pycache__"})
 
 
 @dataclass(frozen=True)
@@ -142,10 +143,10 @@ def readers_of_source(text: str) -> set[str]:
     return kinds
 
 
-_READER_WORDS = {
+_READER_WORDS = MappingProxyType({
     "omegaconf": "the repository's scripts load their configs with OmegaConf, whose YAML reader takes it as a float",
     "cli-text": "the repository's script turns each value into a command-line argument, whose parser converts the text to a float",
-}
+})
 
 
 def keys_of_source(text: str, label: str = "") -> dict[str, str]:

@@ -12,8 +12,9 @@ when every class that declares it belongs to that family.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from types import MappingProxyType
 
-FAMILIES: dict[str, frozenset[str]] = {
+FAMILIES: MappingProxyType[str, frozenset[str]] = MappingProxyType({
     "SFT": frozenset({"SFTConfig", "IterativeSFTConfig", "GKDConfig"}),
     "offline preference (DPO, KTO, ORPO, CPO, BCO)": frozenset(
         {"DPOConfig", "CPOConfig", "ORPOConfig", "KTOConfig", "BCOConfig", "TPOConfig", "A2POConfig"}),
@@ -26,7 +27,7 @@ FAMILIES: dict[str, frozenset[str]] = {
          "SDPOConfig", "SSDConfig", "SelfDistillationConfig", "ExampleSDFTConfig", "ExampleSDPOConfig"}),
     "PPO": frozenset({"PPOConfig", "PPOv2Config", "OnPolicyConfig", "OnpolicyRuntimeConfig", "RLOOConfig"}),
     "reward modelling": frozenset({"RewardConfig", "PRMConfig"}),
-}
+})
 
 
 def _families_of(owners) -> frozenset[str]:

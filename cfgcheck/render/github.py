@@ -7,10 +7,12 @@ documented workflow-command format: in the message ``%``, CR and LF become ``%25
 
 from __future__ import annotations
 
+from types import MappingProxyType
+
 from ..findings import Severity, printable
 from .text import summary_line
 
-COMMAND = {Severity.ERROR: "error", Severity.WARNING: "warning", Severity.INFO: "notice"}
+COMMAND = MappingProxyType({Severity.ERROR: "error", Severity.WARNING: "warning", Severity.INFO: "notice"})
 
 
 def escape_data(text: str) -> str:

@@ -11,6 +11,7 @@ from __future__ import annotations
 import hashlib
 import os
 from urllib.parse import quote
+from types import MappingProxyType
 
 from .. import __version__
 from ..catalogue import load_catalogue
@@ -18,7 +19,7 @@ from ..findings import Severity, json_text
 
 SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
 FINGERPRINT = "cfgcheck/identity/v1"
-LEVEL = {Severity.ERROR: "error", Severity.WARNING: "warning", Severity.INFO: "note"}
+LEVEL = MappingProxyType({Severity.ERROR: "error", Severity.WARNING: "warning", Severity.INFO: "note"})
 
 
 def _bytes(text: str) -> bytes:

@@ -8,11 +8,12 @@ Options (all off by default, so piped output stays plain): ``color`` (ANSI SGR c
 from __future__ import annotations
 
 import re
+from types import MappingProxyType
 
 from ..findings import Severity, printable
 
-_SGR = {"error": "1;31", "warning": "1;33", "info": "1;36", "where": "1", "rule": "2",
-        "hint": "32", "mark": "1;4", "summary": "1"}
+_SGR = MappingProxyType({"error": "1;31", "warning": "1;33", "info": "1;36", "where": "1", "rule": "2",
+        "hint": "32", "mark": "1;4", "summary": "1"})
 MAX_FRAME = 120  # characters of a source line shown around the column
 
 
