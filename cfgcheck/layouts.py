@@ -49,6 +49,9 @@ class Layout:
     eval_data_known: bool = False
     # why this layout's loader reads ``2e-5`` as a number (shown in the YAML-version finding)
     number_reader: str = ""
+    # the number reading is the YAML loader's own (a float resolver), so it holds for every value
+    # in the file, not only for the settings a validator types as numbers
+    loader_reads_numbers: bool = False
     # section-local names: inside a section of that name, a key means the layout's bare name
     # (``model: {name_or_path: ...}`` is ``model_name_or_path``, ``scheduler: {type: ...}`` is
     # ``lr_scheduler_type``)
@@ -809,6 +812,7 @@ MLX_LM = Layout(
     # resolver that takes a mantissa without a dot (`1e-5`) as a float
     coerces_numbers=True,
     number_reader="mlx-lm reads the config with a YAML loader that adds a float resolver, which takes it as a float",
+    loader_reads_numbers=True,
     # lora.py CONFIG_DEFAULTS fine_tune_type "lora"; train_model: "lora" and "dora" put adapters on
     # the last num_layers blocks, "full" unfreezes only the last num_layers blocks (16 unless -1)
     default_method="lora",

@@ -90,3 +90,20 @@ def test_an_exponent_without_a_dot_is_harmless_here_and_said_so():
 def test_a_plain_mlx_lm_config_gives_no_warning():
     report = lint(MLX, "harbour.yaml")
     assert [f.rule for f in report.findings if f.severity >= Severity.WARNING] == []
+
+
+def test_the_loaders_float_resolver_holds_for_values_no_field_reads():
+    # mlx-lm 0.32.2 lora.py: the resolver belongs to the YAML loader, so lr_schedule's warmup_init
+    # (read by build_schedule, not by cfgcheck's view) is a float too
+    text = MLX + "lr_schedule:\n  name: cosine_decay\n  warmup: 50\n  warmup_init: 1e-7\n  arguments: [1e-5, 600, 1e-7]\n"
+    hits = [f for f in lint(text, "harbour.yaml").findings if f.rule == "yaml-version-dependent-value"]
+    assert {f.data.get("variant") for f in hits} == {"exponent-read-as-number"}
+    assert {f.severity for f in hits} == {Severity.INFO}
+    assert "lr_schedule.warmup_init" in {f.key for f in hits}
+
+
+def test_the_same_unknown_value_elsewhere_is_still_a_question():
+    # a trainer-style file read by PyYAML: an untyped 1e-7 is text there, and cfgcheck says so
+    text = "model_name_or_path: saltmarsh/harbour-chat-7b\nlearning_rate: 2.0e-5\nmy_floor: 1e-7\n"
+    hits = [f for f in lint(text, "harbour.yaml").findings if f.rule == "yaml-version-dependent-value"]
+    assert [(f.key, f.data.get("variant")) for f in hits] == [("my_floor", "exponent-type-unknown")]

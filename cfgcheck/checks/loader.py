@@ -91,13 +91,14 @@ def yaml_version_dependent(ctx) -> None:
                 ctx.report(amb.path, "exponent-in-text-setting", fix=fix, key=key, raw=amb.raw,
                            number=amb.yaml12, replacement=q)
                 continue
-            if kind != "number":
+            layout = ctx.view.layout
+            if kind != "number" and not (layout is not None and layout.coerces_numbers
+                                         and layout.loader_reads_numbers):
                 ctx.report(amb.path, "exponent-type-unknown", key=key, raw=amb.raw,
                            number=amb.yaml12, number_text=new)
                 continue
             fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
                       edits=(Edit(path=amb.path, old=amb.yaml11, new=float(amb.yaml12)),))
-            layout = ctx.view.layout
             reader = layout.number_reader if layout is not None and layout.coerces_numbers \
                 else ctx.doc.number_reader or _repository_reader(ctx.file)
             if layout is not None and reader:
