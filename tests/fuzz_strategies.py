@@ -130,12 +130,26 @@ def _peft_adapter() -> st.SearchStrategy:
     )
 
 
+def _mlx_lm() -> st.SearchStrategy:
+    # mlx-lm 0.32.2 mlx_lm/lora.py CONFIG_DEFAULTS keys; lora_parameters as its examples write it
+    lora = _mapping({"rank": _count()}, {"scale": value, "dropout": value, "keys": value})
+    return _mapping(
+        {"fine_tune_type": st.sampled_from(["lora", "dora", "full", "LORA", ""]), "lora_parameters": lora,
+         "iters": _count()},
+        {"model": _models, "batch_size": _count(), "learning_rate": _lr(), "steps_per_eval": _count(),
+         "steps_per_report": _count(), "save_every": _count(), "val_batches": _count(),
+         "max_seq_length": _count(), "grad_checkpoint": _flag(), "grad_accumulation_steps": _count(),
+         "optimizer": _words, "num_layers": _count(), "lr_schedule": value, "adapter_path": _text},
+    )
+
+
 # name -> strategy of the mapping a user writes in that layout; add new layouts here
 LAYOUTS: dict[str, st.SearchStrategy] = {
     "trainer-flat": _trainer_flat(),
     "trainer-nested": _trainer_nested(),
     "deepspeed": _deepspeed(),
     "peft-adapter": _peft_adapter(),
+    "mlx-lm": _mlx_lm(),
 }
 
 config = st.one_of(*LAYOUTS.values())
