@@ -15,7 +15,11 @@ Three stages, in the order a formatter trusts them:
    and no new finding. Only then is the file written: atomically, with its encoding, BOM,
    newline style, final newline and mode, and only if it did not change on disk meanwhile.
 
-Nothing here reads argv or prints; ``cli.fix`` formats the :class:`FixReport`.
+The stages live in their own modules: ``plan`` (the fixes taken), ``values`` and ``edits`` (the
+span edits), ``proof`` (the proof, the stability check, a failed proof's evidence), ``write`` (the
+atomic write), ``results`` (the records they share). This module holds the entry points that run
+them: :func:`fix_text` for a text in memory, :func:`fix_files` for files, linked ones together.
+Nothing here reads argv or prints; ``render.fixes.summary_text`` words the :class:`FixReport`.
 """
 
 from __future__ import annotations
@@ -159,7 +163,7 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
     result.applied = [applied[id(p)] for p in accepted if id(p) in applied]
     if new_text == text:
         return result
-    if check_stable:
+    if check_stable:  # a formatter's safe mode: fixing the fixed text again must change nothing
         def refix(fixed: str) -> FileFix:  # the proof's re-lint of the fixed text is reused
             return _fix_body(fixed, name, options, fmt=fmt, training=training, halve_batch=0,
                              linked_before=linked_after, linked_after=linked_after,

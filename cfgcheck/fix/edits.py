@@ -16,10 +16,7 @@ from .results import ProofFailed, _Planned
 from .values import _render, _render_key, _Unplaceable
 
 
-_MISSING = object()
-  # a path the document does not hold
-
-
+_MISSING = object()  # what a document holds at a path it does not have
 _COMMENT_PAD = re.compile(r"( {2,})#")
 _PROPS = re.compile(r"[&!][^\s,\[\]{}]*\s+")
 

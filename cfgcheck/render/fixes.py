@@ -12,8 +12,6 @@ if TYPE_CHECKING:
 
 
 TRAINING_OPTION = "--allow-training-changes"
-
-
 _FLAG_ARG = {"--gpu": "--gpu NAME (see: cfgcheck gpus)", "--gpus": "--gpus N", "--rows": "--rows N"}
 
 
