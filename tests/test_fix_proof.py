@@ -54,7 +54,8 @@ def test_a_rewrite_that_touches_another_line_is_refused(monkeypatch):
     def sloppy(text, edits):  # also "tidies" the first comment
         return real(text, edits).replace("# Harborlight Logistics", "#Harborlight Logistics", 1)
 
-    monkeypatch.setattr(fix, "_apply", sloppy)
+    monkeypatch.setattr(fix, "_apply", sloppy)  # the fixer's rewrite
+    monkeypatch.setattr(fix_proof, "_apply", sloppy)  # and the proof's tries of one fix alone
     result = fix.fix_text(TEXT, "run.yaml", api.make_options())
     assert result.error is not None
     assert "comments" in result.error.error or "no edit touches" in result.error.error
