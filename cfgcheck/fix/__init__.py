@@ -43,12 +43,12 @@ from .results import (BATCH_SPLIT, CHANGES_TRAINING, KEEPS_MEANING, TIERS, Appli
                       FixReport, NewFinding, ProofFailed, _Item, _Planned)
 from .write import ChangedOnDisk, WriteRefused, _write_group, atomic_write, check_writable, encode
 
-__all__ = [
+__all__ = (
     "KEEPS_MEANING", "CHANGES_TRAINING", "TIERS", "BATCH_SPLIT",
     "Applied", "FileFix", "FixReport", "ProofFailed", "NewFinding",
     "fix_text", "fix_file", "fix_paths", "fix_files",
     "yaml_comments", "encode", "check_writable", "atomic_write", "ChangedOnDisk", "WriteRefused",
-]
+)
 
 
 def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
