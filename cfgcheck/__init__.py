@@ -6,6 +6,7 @@ loaded on first use, so ``import cfgcheck`` stays cheap.
 
 from types import MappingProxyType
 
+
 __version__ = "0.1.0"
 
 _API = ("lint", "lint_text", "lint_mapping", "guard", "ConfigRejected", "exit_code",

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from types import MappingProxyType
 
+
 from ..findings import Edit, Fix
 from . import check
 

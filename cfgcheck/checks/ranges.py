@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from types import MappingProxyType
 
+
 from ..findings import MAX_MAGNITUDE, number_text
 from ..schema import violations
 from . import check

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from types import MappingProxyType
 
+
 from . import check
 
 # Whether the library that reads a key table refuses a key it does not declare (an error) or

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from types import MappingProxyType
 
+
 from ..findings import Severity, printable
 from .text import summary_line
 
