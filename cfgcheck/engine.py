@@ -44,6 +44,7 @@ class Options:
     models: tuple = ()  # (id, Architecture) pairs the project configuration declares
     overrides: tuple[str, ...] = ()  # key=value overrides the launch passes (compose.py)
     versions: dict[str, str] = field(default_factory=dict)  # library -> release the run uses (--installed)
+    readers: tuple[str, ...] = ()  # Python scripts that read this config (project file ``readers``)
 
 
 # --------------------------------------------------------------------------- the check context

@@ -53,6 +53,8 @@ class ScriptLaunch:
     launch_files: tuple[str, ...] = ()  # absolute paths of accelerate / DeepSpeed files it names
     configs: tuple[str, ...] = ()  # absolute paths of the configs it passes
     args: list[ScriptArg] = field(default_factory=list)
+    # the Python program it runs, as a path, when that file exists (the script reading the configs)
+    reader: str | None = None
     # ``key=value`` words after the program (OmegaConf's dotlist: LLaMA-Factory, torchtune)
     dotlist: list[ScriptArg] = field(default_factory=list)
 
@@ -246,6 +248,9 @@ def _launch_of(text: str, name: str, folder: Path, plain: list, words: _Words) -
         i += 1
     if launcher == "python" and not (sl.program or "").endswith(".py") and sl.program is None:
         return None
+    if (sl.program or "").endswith(".py"):
+        found = _resolve(sl.program, folder)
+        sl.reader = found if os.path.isfile(found) else None
     configs: list[str] = []
     # the program's arguments: configs it is given, and --key value trainer arguments
     while i < len(w):
