@@ -371,9 +371,10 @@ def _script_layer(file: str, options: Options) -> Document | None:
         return None
     if os.path.normpath(os.path.abspath(file)) not in script.configs:
         return None
+    from .compose import override_value
     from .scripts import override_document
 
-    return override_document(script)
+    return override_document(script, override_value)
 
 
 def _composed(doc: Document, file: str, options: Options, report: FileReport) -> Document:

@@ -286,7 +286,8 @@ def _launch_of(text: str, name: str, folder: Path, plain: list, words: _Words) -
             key, _, raw_val = word.partition("=")
             key_start = node.pos[0]
             vstart = key_start + len(plain[i].word.partition("=")[0]) + 1
-            sl.dotlist.append(ScriptArg(key=key.lstrip("+"), value=_dotlist_value(raw_val), text=raw_val,
+            # the value stays text here: the composer reads it as its loader does (a YAML scalar)
+            sl.dotlist.append(ScriptArg(key=key.lstrip("+"), value=raw_val, text=raw_val,
                                         key_span=_span(text, key_start, key_start + len(key)),
                                         value_span=_span(text, vstart, node.pos[1]),
                                         unresolved=words.expand(plain[i].word.partition("=")[2])[1]))
@@ -302,11 +303,6 @@ _RUNNER_CLIS = ("llamafactory-cli", "axolotl", "tune", "trl")
 # a key=value word: a dotted key (``+`` adds a key in OmegaConf/Hydra overrides), then the value
 _DOTLIST = re.compile(r"^\+{0,2}[A-Za-z_][A-Za-z0-9_]*(?:\.[A-Za-z0-9_]+)*=")
 
-
-def _dotlist_value(raw: str) -> Any:
-    from .compose import override_value
-
-    return override_value(raw)
 # the launchers by their first word(s) -> (our label, the options that take a value)
 _LAUNCHERS = {"accelerate launch": ("accelerate launch", _ACCELERATE_VALUED),
               "torchrun": ("torchrun", _TORCHRUN_VALUED),
@@ -379,7 +375,7 @@ class ScriptTooLarge(LoadError):
 
 # How each reader applies the arguments that follow a config on its command line:
 # * ``llamafactory-cli train cfg.yaml k=v``: LLaMA-Factory 0.9.5 hparams/parser.py read_args merges
-#   ``OmegaConf.from_cli(sys.argv[2:])`` over the YAML: ``key=value`` words win, ``--key`` words
+#   ``OmegaConf.from_cli`` of the words after the YAML over it: ``key=value`` words win, ``--key`` words
 #   are not read as settings;
 # * ``tune run RECIPE --config cfg.yaml k=v``: torchtune 0.6.1 _cli/run.py hands the words to its
 #   recipe parser, which merges ``OmegaConf.from_dotlist`` over the file: ``key=value`` wins;
@@ -395,43 +391,48 @@ class ScriptTooLarge(LoadError):
 _READS_DOTLIST = {"llamafactory-cli": True, "tune": True, "axolotl": False, "trl": False}
 _READS_FLAGS = {"llamafactory-cli": False, "tune": False, "axolotl": True, "trl": True}
 # arguments that name files the launch context reads itself, never settings of the config
-_NOT_OVERRIDES = {"deepspeed"}
+_FILE_ARGS = {"deepspeed": "a DeepSpeed JSON (read as a launch file)"}
+# the separator a runner's CLI keywords nest with (``--trl__beta`` sets ``trl.beta``)
+_NESTING = {"axolotl": "__"}
 
 
-def overrides_of(sl: ScriptLaunch) -> list[tuple[tuple, ScriptArg]]:
-    """(key path, argument) for each argument that overrides the configs the launch passes, in the
-    order the reader applies them; empty when the launch passes no config."""
+def overrides_of(sl: ScriptLaunch) -> list[tuple[tuple, ScriptArg, bool]]:
+    """(key path, argument, whether it is a ``key=value`` word) for each argument that overrides
+    the configs the launch passes, in the order the reader applies them; empty when the launch
+    passes no config."""
     if not sl.configs:
         return []
     runner = sl.launcher if sl.launcher in _RUNNER_CLIS else None
-    out: list[tuple[tuple, ScriptArg]] = []
+    out: list[tuple[tuple, ScriptArg, bool]] = []
     if _READS_FLAGS.get(runner, True):
         for a in sl.args:
-            if a.key in _NOT_OVERRIDES or a.unresolved:
+            if _FILE_ARGS.get(a.key) or a.unresolved:
                 continue
-            path = tuple(a.key.split("__")) if runner == "axolotl" else (a.key,)
-            out.append((path, a))
+            sep = _NESTING.get(runner)
+            path = tuple(a.key.split(sep)) if sep else (a.key,)
+            out.append((path, a, False))
     if _READS_DOTLIST.get(runner, True):
-        out += [(tuple(a.key.split(".")), a) for a in sl.dotlist if not a.unresolved]
+        out += [(tuple(a.key.split(".")), a, True) for a in sl.dotlist if not a.unresolved]
     return out
 
 
-def override_document(sl: ScriptLaunch) -> Document | None:
+def override_document(sl: ScriptLaunch, read_word=None) -> Document | None:
     """The launch's overriding arguments as a document located at the script's lines (the layer
-    composed over the config)."""
+    composed over the config); ``read_word`` reads a ``key=value`` word's text as its loader does
+    (``compose.override_value``)."""
     pairs = overrides_of(sl)
     if not pairs:
         return None
     data: dict[str, Any] = {}
     entries: dict[tuple, Entry] = {}
-    for path, a in pairs:
+    for path, a, word in pairs:
         cur = data
         for part in path[:-1]:
             nxt = cur.get(part)
             if not isinstance(nxt, dict):
                 nxt = cur[part] = {}
             cur = nxt
-        cur[path[-1]] = a.value  # a later argument wins, as in every reader
+        cur[path[-1]] = read_word(a.text) if word and read_word else a.value  # a later one wins
         entries[path] = Entry(value=a.value_span, key=a.key_span, raw=a.text)
     entries[()] = Entry(value=Span(line=sl.line, column=1, start=0, end=0), kind="map")
     return Document(name=sl.file, format="shell", data=data, entries=entries)

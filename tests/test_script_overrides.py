@@ -53,7 +53,7 @@ def test_llama_factory_reads_key_value_words_not_flags(tmp_path):
     script = tmp_path / "lf.sh"
     script.write_text("llamafactory-cli train lf.yaml learning_rate=2e-4 --warmup_steps 9\n")
     (sl,) = parse_script(script.read_text(), str(script))
-    assert [(p, a.value) for p, a in overrides_of(sl)] == [(("learning_rate",), 2e-4)]
+    assert [(p, a.text) for p, a, _word in overrides_of(sl)] == [(("learning_rate",), "2e-4")]
     (hit,) = _loud(api.lint([str(tmp_path)], project=None))
     assert hit.file == str(script) and hit.line == 1
     assert hit.data["overrides"] == "lf.sh:1 overrides lf.yaml:5"
@@ -64,14 +64,16 @@ def test_torchtune_dotlist_sets_nested_keys(tmp_path):
     script.write_text("tune run full_finetune_distributed --config tt.yaml optimizer.lr=3e-4 batch_size=8\n")
     (tmp_path / "tt.yaml").write_text("optimizer:\n  _component_: torch.optim.AdamW\n  lr: 2.0e-5\n")
     (sl,) = parse_script(script.read_text(), str(script))
-    assert [(p, a.value) for p, a in overrides_of(sl)] == [(("optimizer", "lr"), 3e-4), (("batch_size",), 8)]
-    from cfgcheck.compose import compose
+    assert [(p, a.text) for p, a, _word in overrides_of(sl)] == [(("optimizer", "lr"), "3e-4"), (("batch_size",), "8")]
+    from cfgcheck.compose import compose, override_value
     from cfgcheck.load import load_text
     from cfgcheck.scripts import override_document
 
     doc = compose(load_text((tmp_path / "tt.yaml").read_text(), str(tmp_path / "tt.yaml"))[0],
-                  str(tmp_path / "tt.yaml"), located=override_document(sl))
+                  str(tmp_path / "tt.yaml"), located=override_document(sl, override_value))
+    # OmegaConf's dotlist reads each value as a YAML scalar (1e-4 as a float, as Hydra's grammar does)
     assert doc.data["optimizer"] == {"_component_": "torch.optim.AdamW", "lr": 3e-4}
+    assert doc.data["batch_size"] == 8
     assert doc.origins[("optimizer", "lr")] == str(script)
     assert doc.entries[("optimizer", "lr")].value.line == 1
     assert doc.origins[("optimizer", "_component_")] == str(tmp_path / "tt.yaml")
@@ -83,7 +85,7 @@ def test_axolotl_keywords_override_and_double_underscore_nests(tmp_path):
     (tmp_path / "ax.yml").write_text("base_model: acme/base-3b\n")
     (sl,) = parse_script(script.read_text(), str(script))
     # axolotl's CLI takes --key value keywords; a bare key=value word is not one of them
-    assert [(p, a.value) for p, a in overrides_of(sl)] == [(("learning_rate",), 5e-4), (("trl", "beta"), 0.2)]
+    assert [(p, a.value) for p, a, _word in overrides_of(sl)] == [(("learning_rate",), 5e-4), (("trl", "beta"), 0.2)]
 
 
 def test_trl_cli_flags_override_its_config(tmp_path):
