@@ -380,7 +380,9 @@ class ScriptTooLarge(LoadError):
 # * ``tune run RECIPE --config cfg.yaml k=v``: torchtune 0.6.1 _cli/run.py hands the words to its
 #   recipe parser, which merges ``OmegaConf.from_dotlist`` over the file: ``key=value`` wins;
 # * ``axolotl train cfg.yml --k v``: axolotl 0.19.0 cli/config.py load_cfg sets each CLI keyword
-#   over the file's value (``--a__b`` sets ``a.b``);
+#   over the file's value; cli/utils/args.py makes one option per config field (``--no-k`` for a
+#   boolean's false, ``--trl.beta`` for a nested field, passed on as ``trl__beta``); the train
+#   command's own options (cli/main.py, cli/args.py TrainerCliArgs) are not settings;
 # * ``trl sft --config cfg.yaml --k v``: TRL's TrlParser.parse_args_and_config reads the file as
 #   the defaults, then the command line, so ``--key value`` wins;
 # * a Python program given a config (``train.py cfg.yaml --k v``): transformers' HfArgumentParser
@@ -392,24 +394,32 @@ _READS_DOTLIST = {"llamafactory-cli": True, "tune": True, "axolotl": False, "trl
 _READS_FLAGS = {"llamafactory-cli": False, "tune": False, "axolotl": True, "trl": True}
 # arguments that name files the launch context reads itself, never settings of the config
 _FILE_ARGS = {"deepspeed": "a DeepSpeed JSON (read as a launch file)"}
-# the separator a runner's CLI keywords nest with (``--trl__beta`` sets ``trl.beta``)
-_NESTING = {"axolotl": "__"}
+# how a runner's CLI keywords nest (``--trl.beta`` / ``trl__beta`` set ``trl.beta``)
+_NESTING = {"axolotl": ("__", ".")}
+# a runner CLI's own options, never settings of the config
+_CLI_OPTIONS = {"axolotl": {"launcher", "cloud", "sweep", "debug", "debug_text_only", "debug_num_examples",
+                            "prompter", "shard"}}
+# ``--no-k`` sets a boolean k to false
+_NEGATES = {"axolotl": True}
 
 
 def overrides_of(sl: ScriptLaunch) -> list[tuple[tuple, ScriptArg, bool]]:
     """(key path, argument, whether it is a ``key=value`` word) for each argument that overrides
     the configs the launch passes, in the order the reader applies them; empty when the launch
     passes no config."""
-    if not sl.configs:
-        return []
+    if len(sl.configs) != 1:
+        return []  # several configs: which one an argument belongs to is the program's business
     runner = sl.launcher if sl.launcher in _RUNNER_CLIS else None
     out: list[tuple[tuple, ScriptArg, bool]] = []
     if _READS_FLAGS.get(runner, True):
         for a in sl.args:
-            if _FILE_ARGS.get(a.key) or a.unresolved:
+            if _FILE_ARGS.get(a.key) or a.unresolved or a.key in _CLI_OPTIONS.get(runner, ()):
                 continue
-            sep = _NESTING.get(runner)
-            path = tuple(a.key.split(sep)) if sep else (a.key,)
+            if _NEGATES.get(runner) and a.key.startswith("no_") and a.value is True and a.text == "true":
+                a = ScriptArg(key=a.key[3:], value=False, text="false", key_span=a.key_span,
+                              value_span=a.value_span)
+            seps = _NESTING.get(runner, ())
+            path = tuple(re.split("|".join(map(re.escape, seps)), a.key)) if seps else (a.key,)
             out.append((path, a, False))
     if _READS_DOTLIST.get(runner, True):
         out += [(tuple(a.key.split(".")), a, True) for a in sl.dotlist if not a.unresolved]

@@ -119,3 +119,21 @@ def test_a_launch_with_no_config_still_lints_its_arguments_flat(tmp_path):
     script.write_text("python train.py --model_name_or_path meta-llama/Llama-2-7b-hf --learning_rate 5e-3\n")
     (hit,) = _loud(api.lint([str(script)], project=None))
     assert hit.file == str(script) and "overrides" not in hit.data
+
+
+def test_axolotl_own_options_are_not_settings_and_no_flags_set_false(tmp_path):
+    script = tmp_path / "ax.sh"
+    # axolotl 0.19.0 cli/main.py: --launcher and --sweep are the train command's own options;
+    # cli/utils/args.py: a boolean field k gets --k/--no-k, a nested field --parent.field
+    script.write_text("axolotl train ax.yml --launcher torchrun --no-flash-attention --trl.beta 0.2\n")
+    (tmp_path / "ax.yml").write_text("base_model: acme/base-3b\n")
+    (sl,) = parse_script(script.read_text(), str(script))
+    assert [(p, a.value) for p, a, _word in overrides_of(sl)] == [(("flash_attention",), False),
+                                                                 (("trl", "beta"), 0.2)]
+
+
+def test_a_launch_with_several_configs_overrides_none(tmp_path):
+    script = tmp_path / "two.sh"
+    script.write_text("python train.py model.yaml data.yaml --learning_rate 1e-4\n")
+    (sl,) = parse_script(script.read_text(), str(script))
+    assert overrides_of(sl) == []

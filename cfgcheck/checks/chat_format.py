@@ -93,14 +93,21 @@ class _Vocab:
         return f"{self.arch.family} ({self.arch.vocab_size} tokens)"
 
     def lacks(self, tokens: list[str]) -> tuple[list[str], list[str]]:
-        """(tokens it surely lacks, tokens it lacks only by assumption) of marker-shaped tokens."""
+        """(tokens it surely lacks, tokens it lacks only by assumption) of marker-shaped tokens.
+
+        Without a complete list, only a chat format's own markers (ChatML's, Llama 3's...) are
+        taken as missing, by assumption: a base's own special tokens (``<|endoftext|>``, ``</s>``)
+        are in many vocabularies and are not judged."""
         sure, assumed = [], []
         for t in dict.fromkeys(tokens):
             if not chat_tokens.marker_shaped(t):
                 continue  # ordinary text may be a piece the vocabulary has: not judged
             if self.table is not None and t in self.table.special:
                 continue
-            (sure if self.table is not None and self.table.complete else assumed).append(t)
+            if self.table is not None and self.table.complete:
+                sure.append(t)
+            elif t in chat_tokens.CHAT_MARKERS:
+                assumed.append(t)
         return sure, assumed
 
     def assumption(self, tokens: list[str]) -> str:

@@ -46,6 +46,9 @@ FORMATS: tuple[ChatFormat, ...] = (
                "<|end|> 32007, <|user|> 32010, special: true (public copies found by search)"),
 )
 
+# every special-token marker of the formats above: the tokens a chat format adds to a base
+CHAT_MARKERS: frozenset[str] = frozenset().union(*(f.special for f in FORMATS)) | {"<|eom_id|>"}
+
 # Text-marker formats, for the record: their markers are plain text in the base vocabulary.
 TEXT_FORMATS = {
     "zephyr": "<|system|>, <|user|>, <|assistant|> as text and the base EOS </s> to end a turn: "
