@@ -327,12 +327,14 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             if sweep.is_sweep(doc.data):  # a sweep file: lint its runs
                 sweep.lint_sweep(doc, file, run, report, layout)
                 continue
+            from .run import script_layer
+
             fixed, varying = sweep.split_overrides(options.overrides)
             if varying and not file.startswith("<"):  # list-valued overrides: one run per combination
                 from . import compose
 
                 try:
-                    base = compose.compose(doc, file, fixed, located=_script_layer(file, options))
+                    base = compose.compose(doc, file, fixed, located=script_layer(file, options))
                 except compose.ComposeError as exc:
                     report.compose_problem = str(exc)
                 else:
@@ -364,33 +366,15 @@ def lint_documents(docs: list[Document], file: str, options: Options,
     return report
 
 
-def _script_layer(file: str, options: Options) -> Document | None:
-    """The arguments of the launch script that starts FILE, when they override it."""
-    script = options.script
-    if script is None or file.startswith("<"):
-        return None
-    if os.path.normpath(os.path.abspath(file)) not in script.configs:
-        return None
-    from .compose import override_value
-    from .scripts import override_document
-
-    return override_document(script, override_value)
-
-
 def _composed(doc: Document, file: str, options: Options, report: FileReport) -> Document:
-    """DOC composed with the files it names, the launch's overrides and the arguments of the launch
-    script that starts it (compose.py); as written when there is nothing to compose or a named
-    file cannot be read (the reason is kept)."""
-    from . import compose
+    """DOC composed (``run.composed``); a named file that cannot be read leaves it as written,
+    with the reason kept in the report."""
+    from .run import composed
 
-    located = _script_layer(file, options)
-    if not (options.overrides or located is not None or compose.composes(doc.data)) or file.startswith("<"):
-        return doc
-    try:
-        return compose.compose(doc, file, options.overrides, located=located)
-    except compose.ComposeError as exc:
-        report.compose_problem = str(exc)
-        return doc
+    out, problem = composed(doc, file, options)
+    if problem:
+        report.compose_problem = problem
+    return out
 
 
 def lint_text(text: str, name: str = "<text>", options: Options | None = None,

@@ -137,3 +137,15 @@ def test_a_launch_with_several_configs_overrides_none(tmp_path):
     script.write_text("python train.py model.yaml data.yaml --learning_rate 1e-4\n")
     (sl,) = parse_script(script.read_text(), str(script))
     assert overrides_of(sl) == []
+
+
+def test_derive_opens_the_same_composed_run(tmp_path):
+    # derive opens runs on the one open path (cfgcheck.run): the script's value is the run's
+    (tmp_path / "run.yaml").write_text(FULL_7B)
+    (tmp_path / "go.sh").write_text("python train.py run.yaml --learning_rate 1e-4 --per_device_train_batch_size 8\n")
+    result = api.derive([str(tmp_path)], project=None)
+    ((file, plan),) = result.runs
+    assert file == str(tmp_path / "run.yaml")
+    assert plan.learning_rate == 1e-4 and plan.schedule.per_device == 8
+    alone = api.derive([str(tmp_path / "run.yaml")], project=None)
+    assert alone.runs[0][1].learning_rate == 2e-5  # without the script: the config as written
