@@ -28,6 +28,12 @@ class Layout:
     # keys whose presence says "this is a file of that layout", with a weight each
     signature: dict[str, int]
     min_score: int = 2
+    # the layout whose argument classes this one's reader extends (LLaMA-Factory parses into a
+    # TrainingArguments subclass): once a key of ``extends_marks`` is present and the layout's own
+    # signature reaches ``min_score``, the other layout's signature counts for it too, so a file
+    # that writes mostly the shared keys is still recognised by the keys only its runner reads
+    extends: str = ""
+    extends_marks: frozenset[str] = frozenset()
     # section names searched for bare names, and the prefixes a section lets you drop
     sections: dict[str, tuple[str, ...]] = field(default_factory=dict)
     # fields a layout's own loader reads as numbers even when YAML 1.1 gives text
@@ -315,7 +321,8 @@ def _same(names: str, target: str) -> dict[str, str]:
 # Section-local names of trainer-style files, by what a section holds. The section words and the
 # local names are common practice in training repositories (no source); a local name is mapped
 # only where it cannot mean another setting in that kind of section.
-_MODEL_NAMES = {**_same("name_or_path name path id model_id repo_id pretrained checkpoint hub_id", "model_name_or_path"),
+_MODEL_NAMES = {**_same("name_or_path name path id model_id repo_id pretrained checkpoint hub_id model_name "
+                         "model_path base_model base_model_id pretrained_model hf_name hf_path", "model_name_or_path"),
                 **_same("dtype torch_dtype", "torch_dtype"),
                 **_same("attn_implementation attention attn", "attn_implementation"),
                 **_same("max_seq_length max_seq_len max_length context_length", "max_seq_length")}
@@ -323,6 +330,9 @@ _SCHEDULE_NAMES = {**_same("type name kind scheduler lr_scheduler_type", "lr_sch
                    **_same("warmup_steps num_warmup_steps", "warmup_steps"),
                    **_same("warmup_ratio warmup_fraction", "warmup_ratio")}
 _OPTIM_NAMES = {**_same("name type kind optimizer", "optim"), **_same("lr learning_rate", "learning_rate"),
+                # an optimiser section often holds the schedule beside it
+                **_same("scheduler lr_scheduler schedule lr_schedule", "lr_scheduler_type"),
+                "num_warmup_steps": "warmup_steps",
                 **_same("weight_decay wd", "weight_decay"),
                 **_same("max_grad_norm grad_clip clip_grad_norm gradient_clipping", "max_grad_norm")}
 _ADAPTER_NAMES = {**_same("r rank", "lora_r"), "alpha": "lora_alpha", "dropout": "lora_dropout",
@@ -363,7 +373,9 @@ _TRAINER_SECTION_NAMES = _kinds(
     optim=("optim optimizer optimiser optimization optimisation", _OPTIM_NAMES),
     adapter=("lora peft peft_config adapter adapters lora_config lora_args peft_args", _ADAPTER_NAMES),
     quant=("quantization quantization_config quant bnb bitsandbytes", _QUANT_NAMES),
-    train=("training train trainer training_args training_arguments args hyperparameters hparams run", _TRAIN_NAMES),
+    train=("training train trainer training_args training_arguments args hyperparameters hparams run config "
+           "train_config training_config trainer_config trainer_args train_args hyperparams params settings "
+           "sft sft_config dpo dpo_config grpo grpo_config orpo kto finetune finetuning fine_tuning", _TRAIN_NAMES),
     data=("data data_args data_arguments dataset tokenizer", _DATA_NAMES),
     eval=("eval evaluation validation val", _EVAL_NAMES),
     log=("logging log", _LOG_NAMES),
@@ -394,7 +406,7 @@ TRAINER = Layout(
     fields={
         "method": ("finetuning_method", "tuning_method"),
         "model.ref": ("model_name_or_path", "base_model_name_or_path", "pretrained_model_name_or_path",
-                      "base_model", "model_id", "model"),
+                      "base_model", "model_id", "model", "model_name", "model_path"),
         "model.dtype": ("torch_dtype", "model_dtype", "dtype"),
         "model.attention": ("attn_implementation",),
         "adapter.enabled": ("use_peft", "use_lora"),
@@ -417,10 +429,12 @@ TRAINER = Layout(
         "quant.bits": ("quantization_bits", "quantization_bit"),
         "optim.lr": ("learning_rate", "lr"),
         "optim.name": ("optim",),
-        "optim.scheduler": ("lr_scheduler_type",),
+        # lr_scheduler / num_warmup_steps: the names of transformers' no-trainer example scripts
+        # (run_clm_no_trainer.py: --lr_scheduler_type, --num_warmup_steps) and of many repositories
+        "optim.scheduler": ("lr_scheduler_type", "lr_scheduler", "scheduler_type"),
         "optim.scheduler_kwargs": ("lr_scheduler_kwargs",),
         "optim.warmup_ratio": ("warmup_ratio",),
-        "optim.warmup_steps": ("warmup_steps",),
+        "optim.warmup_steps": ("warmup_steps", "num_warmup_steps"),
         "optim.epochs": ("num_train_epochs",),
         "optim.max_steps": ("max_steps",),
         "optim.weight_decay": ("weight_decay",),
@@ -683,6 +697,9 @@ LLAMA_FACTORY = Layout(
         "preprocessing_num_workers": 1, "overwrite_cache": 2, "quantization_method": 2, "ddp_timeout": 1,
     },
     min_score=5,
+    # keys only LLaMA-Factory's argument classes declare (hparams/finetuning_args.py, data_args.py)
+    extends="trainer",
+    extends_marks=frozenset("finetuning_type stage template cutoff_len lora_target quantization_bit plot_loss".split()),
 )
 
 LLAMA_FACTORY_V1 = Layout(
@@ -734,6 +751,9 @@ TORCHTUNE = Layout(
     builder_models=(
         (r"llama2_7b$", "meta-llama/Llama-2-7b-hf"), (r"llama2_13b$", "meta-llama/Llama-2-13b-hf"),
         (r"llama2_70b$", "meta-llama/Llama-2-70b-hf"),
+        # models/code_llama2/_model_builders.py: max_seq_len 16384
+        (r"code_llama2_7b$", "codellama/CodeLlama-7b-hf"), (r"code_llama2_13b$", "codellama/CodeLlama-13b-hf"),
+        (r"code_llama2_70b$", "codellama/CodeLlama-70b-hf"),
         (r"llama3_8b$", "meta-llama/Meta-Llama-3-8B"), (r"llama3_70b$", "meta-llama/Meta-Llama-3-70B"),
         (r"llama3_1_8b$", "meta-llama/Llama-3.1-8B"), (r"llama3_1_70b$", "meta-llama/Llama-3.1-70B"),
         (r"llama3_1_405b$", "meta-llama/Llama-3.1-405B"),
@@ -752,7 +772,10 @@ TORCHTUNE = Layout(
         (r"qwen2_5_32b_base$", "Qwen/Qwen2.5-32B"), (r"qwen2_5_32b_instruct$", "Qwen/Qwen2.5-32B-Instruct"),
         (r"qwen2_5_72b_base$", "Qwen/Qwen2.5-72B"), (r"qwen2_5_72b_instruct$", "Qwen/Qwen2.5-72B-Instruct"),
         (r"qwen2_0_5b$", "Qwen/Qwen2-0.5B"), (r"qwen2_1_5b$", "Qwen/Qwen2-1.5B"), (r"qwen2_7b$", "Qwen/Qwen2-7B"),
-        (r"qwen3_0_6b_(base|instruct)$", "Qwen/Qwen3-0.6B"),
+        # models/qwen3/_model_builders.py (torchtune main): 0.6B-14B base and instruct, 32B
+        (r"qwen3_0_6b_(base|instruct)$", "Qwen/Qwen3-0.6B"), (r"qwen3_1_7b_(base|instruct)$", "Qwen/Qwen3-1.7B"),
+        (r"qwen3_4b_(base|instruct)$", "Qwen/Qwen3-4B"), (r"qwen3_8b_(base|instruct)$", "Qwen/Qwen3-8B"),
+        (r"qwen3_14b_(base|instruct)$", "Qwen/Qwen3-14B"), (r"qwen3_32b$", "Qwen/Qwen3-32B"),
     ),
     model_dir="checkpointer.checkpoint_dir",
     module_names={"q_proj": "q_proj", "k_proj": "k_proj", "v_proj": "v_proj",

@@ -33,14 +33,27 @@ _SWEEP_KEYS = {"method", "program", "metric", "command", "early_terminate", "run
 _SPEC_KEYS = {"values", "value", "min", "max", "distribution"}
 
 
+def _flat(params: dict, prefix: str = "", path: tuple = ("parameters",), depth: int = 0):
+    """(dotted name, spec, key path of the spec): a nested ``parameters:`` block (a parameter
+    whose spec is itself ``{parameters: {...}}``) names the settings inside it as ``outer.inner``."""
+    for key, spec in params.items():
+        name, at = f"{prefix}{key}", path + (key,)
+        inner = spec.get("parameters") if isinstance(spec, dict) else None
+        if isinstance(inner, dict) and inner and not set(spec) & _SPEC_KEYS and depth < 4:
+            yield from _flat(inner, name + ".", at + ("parameters",), depth + 1)
+        else:
+            yield name, spec, at
+
+
 def is_sweep(data: Any) -> bool:
     if not isinstance(data, dict):
         return False
     params = data.get("parameters")
     if not isinstance(params, dict) or not params:
         return False
-    specs = [v for v in params.values() if isinstance(v, dict) and set(v) & _SPEC_KEYS]
-    return bool(specs) and (bool(set(data) & _SWEEP_KEYS) or len(specs) == len(params))
+    flat = list(_flat(params))
+    specs = [v for _n, v, _p in flat if isinstance(v, dict) and set(v) & _SPEC_KEYS]
+    return bool(specs) and (bool(set(data) & _SWEEP_KEYS) or len(specs) == len(flat))
 
 
 def _candidates(spec: Any) -> list[tuple[Any, tuple]]:
@@ -135,12 +148,12 @@ def split_overrides(overrides) -> tuple[list[str], list[tuple[str, list]]]:
 
 def lint_sweep(doc: Document, file: str, run, report, layout: str | None = None) -> None:
     """Lint the runs of the sweep file DOC into REPORT (an engine FileReport)."""
-    params = doc.data["parameters"]
-    names = [str(k) for k in params]
+    flat = list(_flat(doc.data["parameters"]))
+    names = [str(n) for n, _spec, _at in flat]
     cands = []
-    for k in params:
-        cands.append([(value, doc.entries.get(("parameters", k) + inner) or doc.entries.get(("parameters", k)))
-                      for value, inner in _candidates(params[k])])
+    for _n, spec, at in flat:
+        cands.append([(value, doc.entries.get(at + inner) or doc.entries.get(at))
+                      for value, inner in _candidates(spec)])
     base_doc = None
     base_file = _base_config(doc, file)
     if base_file is not None:

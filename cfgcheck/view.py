@@ -182,6 +182,8 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
     best, best_score = None, 0
     for layout in LAYOUTS:
         s = _score(layout, data)
+        if s >= layout.min_score and layout.extends and top & layout.extends_marks:
+            s += _score(BY_NAME[layout.extends], data)
         if s >= layout.min_score and s > best_score:
             best, best_score = layout, s
     if best is None:
@@ -385,7 +387,7 @@ def _model_from_builder(view: RunView, layout: Layout, data: dict) -> None:
         last = builder.value.rsplit(".", 1)[-1]
         base = re.sub(r"^q?lora_", "", last)
         for pattern, ref in layout.builder_models:
-            if re.search(pattern, base):
+            if re.match(pattern, base):  # the whole name: code_llama2_7b is not llama2_7b
                 view.fields["model.ref"] = Field(
                     name="model.ref", value=ref, path=builder.path, written=builder.written,
                     note=f"{ref}: the model the builder {last} builds")
@@ -393,8 +395,12 @@ def _model_from_builder(view: RunView, layout: Layout, data: dict) -> None:
     if layout.model_dir:
         path = tuple(layout.model_dir.split("."))
         found, written = _walk(data, path)
-        if found and isinstance(written, str) and written.strip():
-            view.fields["model.ref"] = Field(name="model.ref", value=written.strip(), path=path,
+        value = written
+        if found and layout.interpolates:
+            resolved, target = resolve_interpolation(data, written)
+            value = target if resolved else written
+        if found and isinstance(value, str) and value.strip() and "${" not in value:
+            view.fields["model.ref"] = Field(name="model.ref", value=value.strip(), path=path,
                                              written=written, note="the checkpoint folder (its config.json)")
 
 

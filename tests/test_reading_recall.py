@@ -1,0 +1,970 @@
+"""Planted defects are found wherever and however the setting is written.
+
+Each case is a small project of invented configs (made-up organisations and tasks) in one of the
+layouts cfgcheck reads, written the way practitioners write them, with one defect planted: the
+case says which rule must find it (at warning or error) and, where it matters, which key the
+finding must point to. Its clean twin changes only the planted value (``clean``: a text
+replacement in one file) and must give no warning or error at all.
+
+Model facts the cases rest on (the bundled catalogue, with its sources):
+* Llama 2 7B: 6.74B parameters, a 4096-token context (Touvron et al. 2023, table 1).
+* Mistral 7B v0.1: 7.24B parameters, a 32768-position table (Mistral config.json, from memory).
+* Qwen2.5-7B-Instruct: 32768 positions in its config.json (Qwen2.5 model card).
+* gemma-7b: an 8192-token context (Gemma Team 2024, table 1).
+Thresholds come from the rule records (rules/<id>.yaml), which name their sources.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import pytest
+
+from cfgcheck import api
+from cfgcheck.findings import Severity
+
+
+@dataclass(frozen=True)
+class Case:
+    id: str
+    files: dict[str, str]
+    rule: str  # the rule that must find the planted defect (at warning or above)
+    clean: tuple[str, str, str]  # (file, old, new): the twin without the defect
+    target: str = ""  # the file linted (default: the first one)
+    at: str | None = None  # the dotted key the finding points to
+    options: dict = field(default_factory=dict)
+    in_file: str | None = None  # the file the finding is located in (default: the target)
+    clean_options: dict | None = None  # the clean twin's options (default: the same)
+
+
+L2 = "meta-llama/Llama-2-7b-hf"
+MISTRAL = "mistralai/Mistral-7B-v0.1"
+SMALL = "Qwen/Qwen2.5-0.5B"  # 0.49B parameters (Qwen2.5 model card), fits a 16 GB card
+
+CASES: list[Case] = []
+
+
+def case(*args, **kwargs) -> None:
+    CASES.append(Case(*args, **kwargs))
+
+
+# ----------------------------------------------------------------------------- flat trainer files
+
+case("trainer-json-quoted-lr", {"run.json": f"""{{
+  "model_name_or_path": "{MISTRAL}",
+  "output_dir": "out/harbor-faq-full",
+  "learning_rate": "1e-4",
+  "num_train_epochs": 2,
+  "per_device_train_batch_size": 4,
+  "bf16": true
+}}
+"""}, "full-finetune-lr-too-high", ("run.json", '"1e-4"', '"2e-5"'), at="learning_rate")
+
+case("trainer-yaml-anchor-merge", {"run.yaml": f"""\
+common: &common
+  bf16: true
+  gradient_checkpointing: true
+model_name_or_path: {L2}
+output_dir: out/orchard-notes
+<<: *common
+learning_rate: 1.0e-4
+num_train_epochs: 1
+per_device_train_batch_size: 2
+"""}, "full-finetune-lr-too-high", ("run.yaml", "1.0e-4", "2.0e-5"), at="learning_rate")
+
+# ----------------------------------------------------------------------------- nested sections
+
+case("sections-model-name-or-path", {"run.yaml": f"""\
+model:
+  name_or_path: {L2}
+  torch_dtype: bfloat16
+training:
+  learning_rate: 1.0e-4
+  num_train_epochs: 3
+  per_device_train_batch_size: 4
+  bf16: true
+  output_dir: out/tidewater-support
+"""}, "full-finetune-lr-too-high", ("run.yaml", "1.0e-4", "2.0e-5"), at="training.learning_rate")
+
+case("sections-model-args-optim-lr", {"run.yaml": f"""\
+model_args:
+  model_name_or_path: {MISTRAL}
+optim:
+  name: adamw_torch
+  lr: 0.0001
+  weight_decay: 0.0
+args:
+  num_train_epochs: 2
+  per_device_train_batch_size: 2
+  bf16: true
+"""}, "full-finetune-lr-too-high", ("run.yaml", "0.0001", "0.00002"), at="optim.lr")
+
+case("sections-base-model-path-hparams", {"run.yaml": f"""\
+base_model:
+  path: {L2}
+hparams:
+  lr: "1e-4"
+  epochs: 2
+  batch_size: 8
+precision:
+  bf16: true
+"""}, "full-finetune-lr-too-high", ("run.yaml", '"1e-4"', '"2e-5"'), at="hparams.lr")
+
+case("schedule-section-constant-warmup", {"run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+schedule:
+  type: constant
+  warmup_steps: 100
+num_train_epochs: 1
+"""}, "constant-schedule-ignores-warmup", ("run.yaml", "type: constant", "type: constant_with_warmup"))
+
+case("scheduler-section-name", {"run.yaml": f"""\
+model:
+  name: {L2}
+peft:
+  r: 16
+  lora_alpha: 32
+scheduler:
+  name: constant
+  num_warmup_steps: 50
+training:
+  learning_rate: 2.0e-4
+  num_train_epochs: 1
+"""}, "constant-schedule-ignores-warmup", ("run.yaml", "name: constant", "name: constant_with_warmup"))
+
+case("optim-section-holds-the-schedule", {"run.yaml": f"""\
+model_name_or_path: {L2}
+lora:
+  r: 16
+  alpha: 32
+optim:
+  lr: 2.0e-4
+  scheduler: constant
+  warmup_steps: 100
+num_train_epochs: 1
+"""}, "constant-schedule-ignores-warmup", ("run.yaml", "scheduler: constant", "scheduler: constant_with_warmup"))
+
+case("lr-schedule-section-warmup-ratio", {"run.yaml": f"""\
+model_name_or_path: {L2}
+lora_r: 8
+lora_alpha: 16
+learning_rate: 2.0e-4
+lr_schedule:
+  kind: constant
+  warmup_steps: 30
+num_train_epochs: 2
+"""}, "constant-schedule-ignores-warmup", ("run.yaml", "kind: constant", "kind: constant_with_warmup"))
+
+case("peft-section-alpha-small", {"run.yaml": f"""\
+model_name_or_path: {L2}
+peft:
+  r: 64
+  lora_alpha: 8
+  lora_dropout: 0.05
+  target_modules: [q_proj, k_proj, v_proj, o_proj, gate_proj, up_proj, down_proj]
+learning_rate: 1.0e-4
+num_train_epochs: 1
+"""}, "lora-scale-below-one", ("run.yaml", "lora_alpha: 8", "lora_alpha: 128"))
+
+case("adapter-section-rank-alpha", {"run.yaml": f"""\
+model:
+  model_id: {MISTRAL}
+adapter:
+  rank: 128
+  alpha: 16
+  dropout: 0.0
+  target_modules: all-linear
+train:
+  lr: 1.0e-4
+  epochs: 1
+"""}, "lora-scale-below-one", ("run.yaml", "alpha: 16", "alpha: 256"))
+
+case("quantization-section-both-bits", {"run.yaml": f"""\
+model_name_or_path: {L2}
+quantization:
+  load_in_4bit: true
+  load_in_8bit: true
+  bnb_4bit_quant_type: nf4
+  bnb_4bit_compute_dtype: bfloat16
+lora:
+  r: 16
+  alpha: 32
+learning_rate: 2.0e-4
+bf16: true
+"""}, "quant-4bit-and-8bit-both-on", ("run.yaml", "load_in_8bit: true", "load_in_8bit: false"))
+
+case("bnb-section-bf16-compute-fp16-trainer", {"run.yaml": f"""\
+model_name_or_path: {L2}
+bnb:
+  load_in_4bit: true
+  quant_type: nf4
+  compute_dtype: bfloat16
+  use_double_quant: true
+peft_config:
+  r: 16
+  lora_alpha: 32
+training_arguments:
+  learning_rate: 2.0e-4
+  fp16: true
+"""}, "qlora-fp16-with-bf16-compute", ("run.yaml", "compute_dtype: bfloat16", "compute_dtype: float16"))
+
+case("quantised-full-finetune", {"run.yaml": f"""\
+model:
+  name_or_path: {L2}
+quantization_config:
+  load_in_4bit: true
+  bnb_4bit_quant_type: nf4
+  bnb_4bit_compute_dtype: bfloat16
+training:
+  learning_rate: 1.0e-5
+  bf16: true
+"""}, "full-finetune-of-quantised-base", ("run.yaml", "load_in_4bit: true", "load_in_4bit: false"))
+
+# ----------------------------------------------------------------------------- misspelt keys
+
+case("typo-inside-training", {"run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+training:
+  learning_rate: 2.0e-4
+  gradient_accumulation_step: 4
+  num_train_epochs: 1
+"""}, "unknown-key", ("run.yaml", "gradient_accumulation_step:", "gradient_accumulation_steps:"),
+     at="training.gradient_accumulation_step")
+
+case("typo-inside-lora", {"run.yaml": f"""\
+model_name_or_path: {L2}
+lora:
+  lora_r: 16
+  lora_alpah: 32
+  lora_dropout: 0.05
+learning_rate: 2.0e-4
+num_train_epochs: 1
+"""}, "unknown-key", ("run.yaml", "lora_alpah", "lora_alpha"), at="lora.lora_alpah")
+
+case("typo-warmup-step-flat", {"run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+warmup_step: 100
+num_train_epochs: 1
+"""}, "unknown-key", ("run.yaml", "warmup_step:", "warmup_steps:"), at="warmup_step")
+
+case("typo-learning-rat-in-trainer-section", {"run.yaml": f"""\
+model:
+  name_or_path: {L2}
+trainer:
+  learning_rat: 2.0e-5
+  num_train_epochs: 2
+  bf16: true
+"""}, "unknown-key", ("run.yaml", "learning_rat:", "learning_rate:"), at="trainer.learning_rat")
+
+# ----------------------------------------------------------------------------- TRL
+
+case("trl-dpo-prompt-fills-length", {"dpo.yaml": f"""\
+model_name_or_path: {MISTRAL}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 5.0e-6
+beta: 0.1
+max_length: 1024
+max_prompt_length: 1024
+per_device_train_batch_size: 2
+"""}, "max-prompt-length-leaves-no-completion", ("dpo.yaml", "max_prompt_length: 1024", "max_prompt_length: 512"))
+
+case("trl-grpo-generation-batch-in-section", {"grpo.yaml": f"""\
+model_name_or_path: Qwen/Qwen2.5-1.5B-Instruct
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 1.0e-5
+trainer:
+  num_generations: 8
+  generation_batch_size: 12
+  max_completion_length: 256
+  per_device_train_batch_size: 4
+"""}, "rl-generation-batch-not-divisible", ("grpo.yaml", "generation_batch_size: 12", "generation_batch_size: 16"))
+
+case("trl-sft-seq-beyond-context", {"sft.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+dataset:
+  max_seq_length: 8192
+  packing: false
+"""}, "seq-len-above-context-window", ("sft.yaml", "max_seq_length: 8192", "max_seq_length: 4096"))
+
+# ----------------------------------------------------------------------------- axolotl
+
+AXO = f"""\
+base_model: {L2}
+adapter: lora
+lora_r: 16
+lora_alpha: 32
+lora_dropout: 0.05
+lora_target_linear: true
+sequence_len: 4096
+sample_packing: false
+micro_batch_size: 2
+gradient_accumulation_steps: 4
+num_epochs: 1
+learning_rate: 0.0002
+lr_scheduler: cosine
+datasets:
+  - path: orchard/faq-pairs
+    type: alpaca
+val_set_size: 0.05
+output_dir: ./out/orchard
+"""
+case("axolotl-typo-lora-alpah", {"axo.yaml": AXO.replace("lora_alpha: 32", "lora_alpah: 32")},
+     "unknown-key", ("axo.yaml", "lora_alpah", "lora_alpha"), at="lora_alpah")
+case("axolotl-typo-num-epoch", {"axo.yaml": AXO.replace("num_epochs: 1", "num_epoch: 1")},
+     "unknown-key", ("axo.yaml", "num_epoch:", "num_epochs:"), at="num_epoch")
+case("axolotl-seq-beyond-context", {"axo.yaml": AXO.replace("sequence_len: 4096", "sequence_len: 8192")},
+     "seq-len-above-context-window", ("axo.yaml", "sequence_len: 8192", "sequence_len: 4096"))
+case("axolotl-bf16-on-v100", {"axo.yaml": AXO.replace(L2, SMALL).replace("sequence_len: 4096", "sequence_len: 1024")
+                                         + "bf16: true\n"},
+     "precision-unsupported-on-gpu", ("axo.yaml", "bf16: true", "bf16: false"), options={"gpu": "v100"})
+
+# ----------------------------------------------------------------------------- LLaMA-Factory
+
+LF = f"""\
+model_name_or_path: {L2}
+stage: sft
+do_train: true
+finetuning_type: lora
+lora_rank: 16
+lora_alpha: 32
+lora_target: all
+dataset: harbor_faq
+template: llama2
+cutoff_len: 4096
+per_device_train_batch_size: 2
+gradient_accumulation_steps: 8
+learning_rate: 1.0e-4
+num_train_epochs: 2.0
+lr_scheduler_type: cosine
+warmup_steps: 20
+bf16: true
+output_dir: saves/harbor
+"""
+case("llamafactory-typo-learning-rat", {"lf.yaml": LF.replace("learning_rate:", "learning_rat:")},
+     "unknown-key", ("lf.yaml", "learning_rat:", "learning_rate:"), at="learning_rat")
+case("llamafactory-full-at-adapter-lr", {"lf.yaml": LF.replace("finetuning_type: lora", "finetuning_type: full")
+                                         .replace("lora_rank: 16\nlora_alpha: 32\nlora_target: all\n", "")},
+     "full-finetune-lr-too-high", ("lf.yaml", "1.0e-4", "1.0e-5"))
+case("llamafactory-cutoff-beyond-context", {"lf.yaml": LF.replace("cutoff_len: 4096", "cutoff_len: 16384")},
+     "seq-len-above-context-window", ("lf.yaml", "cutoff_len: 16384", "cutoff_len: 4096"))
+
+# ----------------------------------------------------------------------------- torchtune
+
+TT_LORA = """\
+output_dir: /tmp/tt/lantern
+model:
+  _component_: torchtune.models.{family}.lora_{builder}
+  lora_attn_modules: ['q_proj', 'v_proj', 'output_proj']
+  apply_lora_to_mlp: True
+  lora_rank: 8
+  lora_alpha: 16
+  lora_dropout: 0.0
+tokenizer:
+  _component_: torchtune.models.{family}.{family}_tokenizer
+  path: /tmp/tt/tokenizer.model
+  max_seq_len: {seq}
+checkpointer:
+  _component_: torchtune.training.FullModelHFCheckpointer
+  checkpoint_dir: /tmp/tt/base
+  checkpoint_files: [model-00001-of-00002.safetensors, model-00002-of-00002.safetensors]
+  output_dir: ${{output_dir}}
+  model_type: {mtype}
+resume_from_checkpoint: False
+dataset:
+  _component_: torchtune.datasets.alpaca_cleaned_dataset
+  packed: False
+seed: null
+shuffle: True
+batch_size: 2
+optimizer:
+  _component_: torch.optim.AdamW
+  fused: True
+  weight_decay: 0.01
+  lr: 3e-4
+lr_scheduler:
+  _component_: torchtune.training.lr_schedulers.get_cosine_schedule_with_warmup
+  num_warmup_steps: 100
+loss:
+  _component_: torchtune.modules.loss.CEWithChunkedOutputLoss
+epochs: 1
+max_steps_per_epoch: null
+gradient_accumulation_steps: 8
+clip_grad_norm: null
+compile: False
+device: cuda
+enable_activation_checkpointing: True
+dtype: bf16
+metric_logger:
+  _component_: torchtune.training.metric_logging.DiskLogger
+  log_dir: ${{output_dir}}/logs
+log_every_n_steps: 1
+"""
+
+
+def tt(family: str, builder: str, seq: int, mtype: str) -> str:
+    return TT_LORA.format(family=family, builder=builder, seq=seq, mtype=mtype)
+
+
+case("torchtune-llama2-builder-seq", {"tt.yaml": tt("llama2", "llama2_7b", 8192, "LLAMA2")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 8192", "max_seq_len: 4096"))
+case("torchtune-mistral-builder-seq", {"tt.yaml": tt("mistral", "mistral_7b", 65536, "MISTRAL")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 65536", "max_seq_len: 32768"))
+case("torchtune-qwen-builder-seq", {"tt.yaml": tt("qwen2_5", "qwen2_5_7b_instruct", 65536, "QWEN2")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 65536", "max_seq_len: 32768"))
+case("torchtune-gemma-builder-seq", {"tt.yaml": tt("gemma", "gemma_7b", 16384, "GEMMA")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 16384", "max_seq_len: 8192"))
+case("torchtune-typo-grad-accum", {"tt.yaml": tt("llama2", "llama2_7b", 4096, "LLAMA2")
+                                   .replace("gradient_accumulation_steps: 8", "gradient_accumulation_step: 8")},
+     "unknown-key", ("tt.yaml", "gradient_accumulation_step:", "gradient_accumulation_steps:"),
+     at="gradient_accumulation_step")
+case("torchtune-typo-lora-alpah", {"tt.yaml": tt("llama2", "llama2_7b", 4096, "LLAMA2")
+                                   .replace("lora_alpha: 16", "lora_alpah: 16")},
+     "unknown-key", ("tt.yaml", "lora_alpah", "lora_alpha"), at="model.lora_alpah")
+case("torchtune-full-builder-lr", {"tt.yaml": tt("llama2", "llama2_7b", 4096, "LLAMA2")
+                                   .replace("lora_llama2_7b", "llama2_7b")
+                                   .replace("  lora_attn_modules: ['q_proj', 'v_proj', 'output_proj']\n"
+                                            "  apply_lora_to_mlp: True\n  lora_rank: 8\n  lora_alpha: 16\n"
+                                            "  lora_dropout: 0.0\n", "")},
+     "full-finetune-lr-too-high", ("tt.yaml", "lr: 3e-4", "lr: 2e-5"))
+
+TINY_CONFIG = """{
+  "architectures": ["LlamaForCausalLM"],
+  "model_type": "llama",
+  "hidden_size": 2048,
+  "intermediate_size": 5632,
+  "num_hidden_layers": 22,
+  "num_attention_heads": 32,
+  "num_key_value_heads": 4,
+  "max_position_embeddings": 2048,
+  "vocab_size": 32000,
+  "tie_word_embeddings": false,
+  "torch_dtype": "bfloat16"
+}
+"""
+case("torchtune-checkpoint-dir-config", {
+    "recipes/tt.yaml": tt("llama2", "llama2_7b", 4096, "LLAMA2")
+    .replace("torchtune.models.llama2.lora_llama2_7b", "lanternlab.models.build_small_lm")
+    .replace("/tmp/tt/base", "../weights/small-lm"),
+    "weights/small-lm/config.json": TINY_CONFIG},
+    "seq-len-above-context-window", ("recipes/tt.yaml", "max_seq_len: 4096", "max_seq_len: 2048"))
+
+# ----------------------------------------------------------------------------- DeepSpeed, launchers
+
+DS = """{
+  "train_batch_size": 64,
+  "train_micro_batch_size_per_gpu": "auto",
+  "gradient_accumulation_steps": "auto",
+  "gradient_clipping": "auto",
+  "bf16": {"enabled": "auto"},
+  "zero_optimization": {"stage": 2}
+}
+"""
+case("deepspeed-linked-global-batch", {
+    "run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+per_device_train_batch_size: 4
+gradient_accumulation_steps: 4
+bf16: true
+deepspeed: ds_z2.json
+""", "ds_z2.json": DS}, "deepspeed-file-contradicts-config", ("ds_z2.json", '"train_batch_size": 64', '"train_batch_size": 32'),
+    options={"gpus": 2})
+
+case("deepspeed-linked-global-batch-sections", {
+    "run.yaml": f"""\
+model:
+  name_or_path: {L2}
+lora:
+  r: 16
+  alpha: 32
+train:
+  batch_size: 4
+  gradient_accumulation_steps: 2
+  learning_rate: 2.0e-4
+eval:
+  batch_size: 16
+deepspeed: ./ds.json
+""", "ds.json": DS}, "deepspeed-file-contradicts-config", ("ds.json", '"train_batch_size": 64', '"train_batch_size": 32'),
+    options={"gpus": 4})
+
+case("bf16-in-precision-section-on-t4", {"run.yaml": f"""\
+model_name_or_path: {SMALL}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+per_device_train_batch_size: 1
+max_length: 512
+precision:
+  bf16: true
+"""}, "precision-unsupported-on-gpu", ("run.yaml", "bf16: true", "fp16: true"), options={"gpu": "t4"})
+
+ACC = """\
+compute_environment: LOCAL_MACHINE
+distributed_type: MULTI_GPU
+num_machines: 1
+num_processes: 2
+machine_rank: 0
+mixed_precision: bf16
+gpu_ids: all
+main_training_function: main
+"""
+case("accelerate-bf16-on-v100", {"accelerate.yaml": ACC}, "precision-unsupported-on-gpu",
+     ("accelerate.yaml", "mixed_precision: bf16", "mixed_precision: fp16"), options={"gpu": "v100"})
+
+# ----------------------------------------------------------------------------- PEFT adapter config
+
+case("peft-adapter-rank-beyond-width", {"adapter_config.json": """{
+  "peft_type": "LORA",
+  "task_type": "CAUSAL_LM",
+  "base_model_name_or_path": "openai-community/gpt2",
+  "r": 1024,
+  "lora_alpha": 2048,
+  "lora_dropout": 0.05,
+  "target_modules": ["c_attn"],
+  "fan_in_fan_out": true,
+  "inference_mode": true,
+  "bias": "none"
+}
+"""}, "lora-rank-above-matrix-dim", ("adapter_config.json", '"r": 1024,\n  "lora_alpha": 2048',
+                                     '"r": 16,\n  "lora_alpha": 32'))
+
+case("peft-adapter-target-missing", {"adapter_config.json": f"""{{
+  "peft_type": "LORA",
+  "task_type": "CAUSAL_LM",
+  "base_model_name_or_path": "{L2}",
+  "r": 16,
+  "lora_alpha": 32,
+  "lora_dropout": 0.05,
+  "target_modules": ["q_proj", "v_proj", "query_key_value"],
+  "fan_in_fan_out": false,
+  "inference_mode": true,
+  "bias": "none"
+}}
+"""}, "lora-target-not-in-model", ("adapter_config.json", ', "query_key_value"', ""))
+
+# ----------------------------------------------------------------------------- composed configs
+
+case("composed-defaults-override-lr", {
+    "conf/base.yaml": f"model_name_or_path: {L2}\nnum_train_epochs: 2\nper_device_train_batch_size: 4\n"
+                      "learning_rate: 2.0e-5\nbf16: true\n",
+    "conf/hot.yaml": "defaults:\n  - base\n  - _self_\nlearning_rate: 1.0e-4\noutput_dir: out/hot\n"},
+    "full-finetune-lr-too-high", ("conf/hot.yaml", "learning_rate: 1.0e-4", "learning_rate: 2.0e-5"),
+    target="conf/hot.yaml")
+
+case("composed-base-file-schedule", {
+    "base.yaml": f"model_name_or_path: {L2}\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\n"
+                 "learning_rate: 2.0e-4\nlr_scheduler_type: cosine\nwarmup_steps: 100\n",
+    "const.yaml": "base_config: base.yaml\nlr_scheduler_type: constant\n"},
+    "constant-schedule-ignores-warmup", ("const.yaml", "lr_scheduler_type: constant",
+                                         "lr_scheduler_type: constant_with_warmup"), target="const.yaml")
+
+case("composed-group-sections", {
+    "cfg/train.yaml": "defaults:\n  - model: llama7b\n  - optim: hot\n  - _self_\nseed: 7\n",
+    "cfg/model/llama7b.yaml": f"name_or_path: {L2}\n",
+    "cfg/optim/hot.yaml": "lr: 1.0e-4\nweight_decay: 0.0\n"},
+    "full-finetune-lr-too-high", ("cfg/optim/hot.yaml", "lr: 1.0e-4", "lr: 2.0e-5"),
+    target="cfg/train.yaml", in_file="cfg/optim/hot.yaml")
+
+# ----------------------------------------------------------------------------- sweeps
+
+case("sweep-lr-values-one-fails", {
+    "base.yaml": f"model_name_or_path: {L2}\nper_device_train_batch_size: 4\nbf16: true\nnum_train_epochs: 1\n",
+    "sweep.yaml": """\
+program: train.py
+method: grid
+metric: {name: eval/loss, goal: minimize}
+command: [python, train.py, --config, base.yaml]
+parameters:
+  learning_rate:
+    values: [1.0e-5, 2.0e-5, 1.0e-4]
+  weight_decay:
+    values: [0.0, 0.1]
+"""}, "full-finetune-lr-too-high", ("sweep.yaml", "1.0e-4]", "3.0e-5]"), target="sweep.yaml")
+
+case("sweep-lora-alpha-grid", {
+    "sweep.yaml": f"""\
+method: random
+metric:
+  name: eval_loss
+  goal: minimize
+parameters:
+  model_name_or_path:
+    value: {L2}
+  use_peft:
+    value: true
+  lora_r:
+    value: 64
+  lora_alpha:
+    values: [8, 64, 128]
+  learning_rate:
+    distribution: log_uniform_values
+    min: 5.0e-5
+    max: 2.0e-4
+"""}, "lora-scale-below-one", ("sweep.yaml", "[8, 64, 128]", "[64, 128]"), target="sweep.yaml")
+
+# ----------------------------------------------------------------------------- launch scripts
+
+case("script-variable-lr", {"train.sh": f"""\
+#!/usr/bin/env bash
+set -euo pipefail
+MODEL={L2}
+LR=1e-4
+torchrun --nproc_per_node 4 finetune.py \\
+    --model_name_or_path $MODEL \\
+    --learning_rate $LR \\
+    --num_train_epochs 2 \\
+    --per_device_train_batch_size 4 \\
+    --bf16 True \\
+    --output_dir out/lighthouse
+"""}, "full-finetune-lr-too-high", ("train.sh", "LR=1e-4", "LR=2e-5"))
+
+case("script-dashed-names", {"train.sh": f"""\
+#!/bin/bash
+accelerate launch --num_processes 2 sft.py \\
+  --model-name-or-path {L2} \\
+  --learning-rate 1e-4 \\
+  --num-train-epochs 1 \\
+  --per-device-train-batch-size 2
+"""}, "full-finetune-lr-too-high", ("train.sh", "--learning-rate 1e-4", "--learning-rate 2e-5"))
+
+
+# ----------------------------------------------------------------------------- more shapes
+
+case("top-level-model-path-key", {"run.yaml": f"""\
+model_path: {L2}
+learning_rate: 1.0e-4
+num_train_epochs: 2
+per_device_train_batch_size: 4
+bf16: true
+"""}, "full-finetune-lr-too-high", ("run.yaml", "1.0e-4", "2.0e-5"))
+
+case("model-section-model-name", {"run.yaml": f"""\
+model:
+  model_name: {MISTRAL}
+  torch_dtype: bfloat16
+training:
+  learning_rate: 1.0e-4
+  num_train_epochs: 1
+"""}, "full-finetune-lr-too-high", ("run.yaml", "1.0e-4", "2.0e-5"))
+
+case("model-section-pretrained-path", {"run.yaml": f"""\
+model:
+  pretrained_model_name_or_path: {L2}
+config:
+  lr: 1.0e-4
+  epochs: 1
+  batch_size: 4
+"""}, "full-finetune-lr-too-high", ("run.yaml", "1.0e-4", "2.0e-5"), at="config.lr")
+
+case("train-config-section", {"run.json": f"""{{
+  "model": {{"name_or_path": "{L2}"}},
+  "train_config": {{"lr": "1e-4", "num_epochs": 2, "micro_batch_size": 4}}
+}}
+"""}, "full-finetune-lr-too-high", ("run.json", '"1e-4"', '"2e-5"'), at="train_config.lr")
+
+case("sft-section-of-a-trl-recipe", {"run.yaml": f"""\
+model_name_or_path: {L2}
+sft:
+  learning_rate: 1.0e-4
+  num_train_epochs: 1
+  max_length: 2048
+"""}, "full-finetune-lr-too-high", ("run.yaml", "1.0e-4", "2.0e-5"), at="sft.learning_rate")
+
+case("top-level-num-warmup-steps", {"run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+lr_scheduler_type: constant
+num_warmup_steps: 100
+"""}, "constant-schedule-ignores-warmup", ("run.yaml", "lr_scheduler_type: constant", "lr_scheduler_type: constant_with_warmup"))
+
+case("nested-scheduler-in-optimizer", {"run.yaml": f"""\
+model_name_or_path: {L2}
+peft:
+  r: 16
+  lora_alpha: 32
+optimizer:
+  name: adamw_torch
+  lr: 2.0e-4
+  scheduler:
+    type: constant
+    warmup_steps: 80
+"""}, "constant-schedule-ignores-warmup", ("run.yaml", "type: constant", "type: constant_with_warmup"))
+
+case("quoted-numbers-in-lora-section", {"run.yaml": f"""\
+model_name_or_path: {L2}
+lora:
+  r: "64"
+  alpha: "8"
+learning_rate: "1e-4"
+num_train_epochs: 1
+"""}, "lora-scale-below-one", ("run.yaml", 'alpha: "8"', 'alpha: "128"'))
+
+case("quantization-bits-full-finetune", {"run.yaml": f"""\
+model:
+  name: {L2}
+quantization:
+  bits: 4
+  quant_type: nf4
+training:
+  learning_rate: 1.0e-5
+  num_train_epochs: 1
+"""}, "full-finetune-of-quantised-base", ("run.yaml", "quantization:\n  bits: 4\n  quant_type: nf4\n", ""))
+
+case("json-nested-sections-typo", {"run.json": f"""{{
+  "model": {{"name_or_path": "{L2}"}},
+  "peft": {{"r": 16, "lora_alpha": 32}},
+  "training": {{"learning_rate": 2e-4, "num_train_epoch": 3}}
+}}
+"""}, "unknown-key", ("run.json", '"num_train_epoch"', '"num_train_epochs"'), at="training.num_train_epoch")
+
+case("anchor-shared-lora-block", {"run.yaml": f"""\
+lora_defaults: &lora
+  r: 64
+  lora_alpha: 8
+  lora_dropout: 0.05
+model_name_or_path: {L2}
+peft:
+  <<: *lora
+  target_modules: all-linear
+learning_rate: 1.0e-4
+"""}, "lora-scale-below-one", ("run.yaml", "lora_alpha: 8", "lora_alpha: 128"))
+
+case("axolotl-constant-with-warmup", {"axo.yaml": AXO.replace("lr_scheduler: cosine", "lr_scheduler: constant\nwarmup_steps: 50")},
+     "constant-schedule-ignores-warmup", ("axo.yaml", "lr_scheduler: constant", "lr_scheduler: cosine"))
+case("axolotl-full-finetune-hot", {"axo.yaml": AXO.replace("adapter: lora\n", "")
+                                   .replace("lora_r: 16\nlora_alpha: 32\nlora_dropout: 0.05\nlora_target_linear: true\n", "")
+                                   .replace("learning_rate: 0.0002", "learning_rate: 0.0001")},
+     "full-finetune-lr-too-high", ("axo.yaml", "learning_rate: 0.0001", "learning_rate: 0.00002"))
+case("axolotl-alpha-small", {"axo.yaml": AXO.replace("lora_r: 16\nlora_alpha: 32", "lora_r: 128\nlora_alpha: 8")},
+     "lora-scale-below-one", ("axo.yaml", "lora_alpha: 8", "lora_alpha: 256"))
+case("axolotl-typo-grad-accum", {"axo.yaml": AXO.replace("gradient_accumulation_steps:", "gradient_accumulation_step:")},
+     "unknown-key", ("axo.yaml", "gradient_accumulation_step:", "gradient_accumulation_steps:"))
+
+LF_FULL = LF.replace("finetuning_type: lora", "finetuning_type: full").replace(
+    "lora_rank: 16\nlora_alpha: 32\nlora_target: all\n", "") + "logging_steps: 10\nsave_steps: 500\nmax_grad_norm: 1.0\n"
+case("llamafactory-full-many-shared-keys", {"lf.yaml": LF_FULL}, "full-finetune-lr-too-high",
+     ("lf.yaml", "1.0e-4", "1.0e-5"))
+case("llamafactory-quantised-full", {"lf.yaml": LF_FULL.replace("1.0e-4", "1.0e-5") + "quantization_bit: 4\n"},
+     "full-finetune-of-quantised-base", ("lf.yaml", "quantization_bit: 4\n", ""))
+case("llamafactory-alpha-small", {"lf.yaml": LF.replace("lora_rank: 16\nlora_alpha: 32", "lora_rank: 128\nlora_alpha: 16")},
+     "lora-scale-below-one", ("lf.yaml", "lora_alpha: 16", "lora_alpha: 256"))
+case("llamafactory-typo-num-epoch", {"lf.yaml": LF.replace("num_train_epochs:", "num_train_epoch:")},
+     "unknown-key", ("lf.yaml", "num_train_epoch:", "num_train_epochs:"))
+
+case("torchtune-codellama-builder-not-llama2", {"tt.yaml": tt("code_llama2", "code_llama2_7b", 32768, "LLAMA2")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 32768", "max_seq_len: 16384"))
+case("torchtune-llama3-builder", {"tt.yaml": tt("llama3", "llama3_8b", 16384, "LLAMA3")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 16384", "max_seq_len: 8192"))
+case("torchtune-phi3-builder", {"tt.yaml": tt("phi3", "phi3_mini", 8192, "PHI3_MINI")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 8192", "max_seq_len: 4096"))
+case("torchtune-qlora-llama2", {"tt.yaml": tt("llama2", "llama2_7b", 8192, "LLAMA2").replace("lora_llama2_7b", "qlora_llama2_7b")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 8192", "max_seq_len: 4096"))
+case("torchtune-gemma2-builder", {"tt.yaml": tt("gemma2", "gemma2_9b", 16384, "GEMMA2")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 16384", "max_seq_len: 8192"))
+case("torchtune-qwen2-builder", {"tt.yaml": tt("qwen2", "qwen2_1_5b", 65536, "QWEN2")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 65536", "max_seq_len: 32768"))
+case("torchtune-lora-alpha-small", {"tt.yaml": tt("llama2", "llama2_7b", 4096, "LLAMA2")
+                                    .replace("lora_rank: 8\n  lora_alpha: 16", "lora_rank: 64\n  lora_alpha: 4")},
+     "lora-scale-below-one", ("tt.yaml", "lora_alpha: 4", "lora_alpha: 128"))
+case("torchtune-tokenizer-max-seq-length-typo", {"tt.yaml": tt("llama2", "llama2_7b", 4096, "LLAMA2")
+                                                 .replace("max_seq_len: 4096", "max_seq_length: 4096")},
+     "unknown-key", ("tt.yaml", "max_seq_length: 4096", "max_seq_len: 4096"))
+case("torchtune-checkpoint-dir-interpolated", {
+    "tt.yaml": tt("llama2", "llama2_7b", 4096, "LLAMA2")
+    .replace("torchtune.models.llama2.lora_llama2_7b", "lanternlab.models.build_small_lm")
+    .replace("output_dir: /tmp/tt/lantern", "output_dir: /tmp/tt/lantern\nbase_dir: ./weights/small-lm")
+    .replace("checkpoint_dir: /tmp/tt/base", "checkpoint_dir: ${base_dir}"),
+    "weights/small-lm/config.json": TINY_CONFIG},
+    "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 4096", "max_seq_len: 2048"))
+
+case("deepspeed-alone-batch-arithmetic", {"ds.json": """{
+  "train_batch_size": 32,
+  "train_micro_batch_size_per_gpu": 4,
+  "gradient_accumulation_steps": 2,
+  "bf16": {"enabled": true},
+  "zero_optimization": {"stage": 3, "stage3_gather_16bit_weights_on_model_save": true}
+}
+"""}, "global-batch-mismatch", ("ds.json", '"train_batch_size": 32', '"train_batch_size": 64'), options={"gpus": 8})
+
+case("deepspeed-bf16-on-v100", {"ds.json": """{
+  "train_micro_batch_size_per_gpu": 4,
+  "gradient_accumulation_steps": 2,
+  "bf16": {"enabled": true},
+  "zero_optimization": {"stage": 2}
+}
+"""}, "precision-unsupported-on-gpu", ('ds.json', '"bf16": {"enabled": true}', '"fp16": {"enabled": true}'),
+     options={"gpu": "v100"})
+
+case("deepspeed-gpus-from-launch-file", {
+    "run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+per_device_train_batch_size: 4
+gradient_accumulation_steps: 4
+bf16: true
+deepspeed: ds_z2.json
+""", "ds_z2.json": DS, "acc.yaml": ACC.replace("num_processes: 2", "num_processes: 8")},
+    "deepspeed-file-contradicts-config", ("ds_z2.json", '"train_batch_size": 64', '"train_batch_size": 128'),
+    options={"launch": ["{dir}/acc.yaml"]})
+
+case("accelerate-launch-bf16-for-trainer-on-t4", {
+    "run.yaml": f"""\
+model_name_or_path: {SMALL}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+per_device_train_batch_size: 1
+max_length: 512
+""", "acc.yaml": ACC.replace("num_processes: 2", "num_processes: 1").replace("MULTI_GPU", "NO")},
+    "precision-unsupported-on-gpu", ("acc.yaml", "mixed_precision: bf16", "mixed_precision: fp16"),
+    options={"gpu": "t4", "launch": ["{dir}/acc.yaml"]})
+
+case("composed-json-base-with-overrides", {
+    "base.json": f'{{"model_name_or_path": "{L2}", "learning_rate": 2e-5, "num_train_epochs": 1, "bf16": true}}\n',
+    "run.yaml": "base: base.json\noutput_dir: out/x\n"},
+    "full-finetune-lr-too-high", ("run.yaml", "output_dir: out/x\n", "output_dir: out/x\n"),
+    target="run.yaml", options={"overrides": ["learning_rate=1e-4"]},
+    clean_options={"overrides": ["learning_rate=2e-5"]})
+
+case("composed-base-list", {
+    "configs/model.yaml": f"model_name_or_path: {L2}\n",
+    "configs/train.yaml": "learning_rate: 2.0e-5\nnum_train_epochs: 1\nper_device_train_batch_size: 4\n",
+    "configs/exp.yaml": "_base_: [model.yaml, train.yaml]\nper_device_train_batch_size: 8\nmax_length: 8192\n"},
+    "seq-len-above-context-window", ("configs/exp.yaml", "max_length: 8192", "max_length: 4096"),
+    target="configs/exp.yaml")
+
+case("sweep-dotted-section-parameter", {
+    "base.yaml": f"model:\n  name_or_path: {L2}\ntraining:\n  learning_rate: 2.0e-5\n  num_train_epochs: 1\n",
+    "sweep.yaml": """\
+program: train.py
+method: grid
+command: [python, train.py, --config=base.yaml]
+parameters:
+  training.learning_rate:
+    values: [1.0e-5, 1.0e-4]
+"""}, "full-finetune-lr-too-high", ("sweep.yaml", "1.0e-4]", "2.0e-5]"), target="sweep.yaml")
+
+case("sweep-nested-parameters", {
+    "sweep.yaml": f"""\
+method: bayes
+metric:
+  name: eval_loss
+  goal: minimize
+parameters:
+  model_name_or_path:
+    value: {L2}
+  optim:
+    parameters:
+      lr:
+        values: [1.0e-5, 1.0e-4]
+"""}, "full-finetune-lr-too-high", ("sweep.yaml", "1.0e-4]", "2.0e-5]"), target="sweep.yaml")
+
+case("sweep-string-values", {
+    "sweep.yaml": f"""\
+method: grid
+parameters:
+  model_name_or_path:
+    value: {L2}
+  learning_rate:
+    values: ["1e-5", "1e-4"]
+"""}, "full-finetune-lr-too-high", ("sweep.yaml", '"1e-4"]', '"2e-5"]'), target="sweep.yaml")
+
+case("script-default-expansion", {"run_sft.sh": f"""\
+#!/usr/bin/env bash
+LR=${{LR:-1e-4}}
+EPOCHS=${{EPOCHS:-2}}
+python train.py \\
+  --model_name_or_path {L2} \\
+  --learning_rate "${{LR}}" \\
+  --num_train_epochs ${{EPOCHS}} \\
+  --bf16
+"""}, "full-finetune-lr-too-high", ("run_sft.sh", "LR:-1e-4", "LR:-2e-5"))
+
+case("script-equals-form-deepspeed", {"launch.sh": f"""\
+#!/bin/bash
+export MODEL_PATH={MISTRAL}
+deepspeed --num_gpus 8 train.py \\
+    --model_name_or_path=$MODEL_PATH \\
+    --learning_rate=1e-4 \\
+    --per_device_train_batch_size=2
+"""}, "full-finetune-lr-too-high", ("launch.sh", "--learning_rate=1e-4", "--learning_rate=2e-5"))
+
+case("script-env-prefix-typo", {"go.sh": f"""\
+#!/bin/bash
+CUDA_VISIBLE_DEVICES=0,1 python finetune.py \\
+    --model_name_or_path {L2} \\
+    --use_peft --lora_r 16 --lora_alpha 32 \\
+    --learning_rate 2e-4 \\
+    --gradient_accumulation_step 4
+"""}, "unknown-key", ("go.sh", "--gradient_accumulation_step 4", "--gradient_accumulation_steps 4"))
+
+# ----------------------------------------------------------------------------- the test
+
+def _write(tmp_path, files: dict[str, str]) -> None:
+    for name, text in files.items():
+        p = tmp_path / name
+        p.parent.mkdir(parents=True, exist_ok=True)
+        p.write_text(text)
+
+
+def _lint(tmp_path, c: Case, files: dict[str, str], given: dict | None = None):
+    _write(tmp_path, files)
+    target = tmp_path / (c.target or next(iter(c.files)))
+    options = {k: [x.replace("{dir}", str(tmp_path)) for x in v] if k == "launch" else v
+               for k, v in (c.options if given is None else given).items()}
+    report = api.lint([target], project=None, **options)
+    assert not report.problems and not report.internal, (report.problems, report.internal)
+    return target, report
+
+
+@pytest.mark.parametrize("c", CASES, ids=[c.id for c in CASES])
+def test_the_planted_defect_is_found(tmp_path, c: Case):
+    target, report = _lint(tmp_path, c, c.files)
+    hits = [f for f in report.findings if f.rule == c.rule and f.severity >= Severity.WARNING]
+    assert hits, [(f.rule, f.severity.word, f.key, f.message) for f in report.findings]
+    if c.at is not None:
+        assert c.at in [f.key for f in hits], [(f.key, f.message) for f in hits]
+    where = tmp_path / c.in_file if c.in_file else (target if not c.clean[0] else None)
+    if c.in_file:
+        assert str(where) in [f.file for f in hits]
+
+
+@pytest.mark.parametrize("c", CASES, ids=[c.id for c in CASES])
+def test_the_clean_twin_gives_no_warning(tmp_path, c: Case):
+    name, old, new = c.clean
+    assert old in c.files[name], "the clean twin must change the planted value"
+    files = dict(c.files)
+    files[name] = files[name].replace(old, new, 1)
+    _target, report = _lint(tmp_path, c, files, c.clean_options)
+    loud = [(f.rule, f.severity.word, f.key, f.message) for f in report.findings if f.severity >= Severity.WARNING]
+    assert loud == []
