@@ -968,3 +968,15 @@ def test_the_clean_twin_gives_no_warning(tmp_path, c: Case):
     _target, report = _lint(tmp_path, c, files, c.clean_options)
     loud = [(f.rule, f.severity.word, f.key, f.message) for f in report.findings if f.severity >= Severity.WARNING]
     assert loud == []
+
+
+def test_a_finding_names_the_train_batch_not_the_eval_batch(tmp_path):
+    """``train.batch_size`` and ``eval.batch_size`` are different settings: the cross-file batch
+    check uses the train one and says so."""
+    c = next(c for c in CASES if c.id == "deepspeed-linked-global-batch-sections")
+    _target, report = _lint(tmp_path, c, c.files)
+    hit = next(f for f in report.findings if f.rule == c.rule and f.severity >= Severity.WARNING)
+    # 4 per device x 2 accumulation x 4 GPUs = 32, not the file's 64 (the eval batch of 16 is not used)
+    assert hit.data["per_device"] == 4 and hit.data["expected"] == 32
+    assert hit.data["per_device_from"] == "train.batch_size"
+    assert "(train.batch_size)" in hit.message
