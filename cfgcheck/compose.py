@@ -52,6 +52,8 @@ class _State:
     files: list[str] = field(default_factory=list)
     docs: dict[str, Document] = field(default_factory=dict)
     defaults_list: bool = False  # composed through a defaults: list (an OmegaConf-based loader)
+    # ``group=option`` overrides that choose another option of a group the defaults list names
+    choices: dict[str, str] = field(default_factory=dict)
 
 
 @dataclass
@@ -205,6 +207,7 @@ def _compose_file(doc: Document, file: str, state: _State, depth: int) -> _Layer
                 raise ComposeError(f"a defaults entry cfgcheck cannot read: {entry!r}")
             group, option = pair
             group, _, package = group.partition("@")
+            option = state.choices.get(group.lstrip("/"), option)
             options = option if isinstance(option, list) else [option]
             for opt in options:
                 if opt is None:
@@ -254,6 +257,33 @@ def override_value(raw: str) -> Any:
     if isinstance(value, str) and _FLOAT.match(value.strip()):
         return float(value.strip().replace("_", ""))
     return value
+
+
+def _group_choices(doc: Document, overrides: list[str], state: _State) -> list[str]:
+    """Hydra's ``group=option`` (``optim=hot``) picks another option of a group the primary
+    defaults list names, read from ``group/option.yaml`` beside it (Hydra 1.1+, "Overriding a
+    config group"); it sets no value. -> the overrides that remain (values to set)."""
+    defaults = doc.data.get("defaults") if isinstance(doc.data, dict) else None
+    groups = set()
+    for entry in defaults if isinstance(defaults, list) else ():
+        pair = _entry_key(entry)
+        if pair is not None:
+            groups.add(pair[0].partition("@")[0].lstrip("/"))
+    rest = []
+    for item in overrides:
+        key, eq, raw = item.strip().partition("=")
+        key = key.strip()
+        option = raw.strip()
+        if eq and key in groups and option and "," not in option:
+            try:
+                _find(f"{key}/{option}", [state.primary_dir])
+            except ComposeError:
+                rest.append(item)
+                continue
+            state.choices[key] = option
+            continue
+        rest.append(item)
+    return rest
 
 
 def _apply_overrides(merged: _Layer, overrides: list[str], label: str) -> None:
@@ -310,6 +340,7 @@ def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (
     state = _State(primary_dir=Path(file).parent)
     state.files.append(file)
     state.docs[file] = doc
+    overrides = _group_choices(doc, list(overrides or ()), state)
     merged = _compose_file(doc, file, state, 0)
     if overrides:
         _apply_overrides(merged, list(overrides), override_label)

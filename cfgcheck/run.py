@@ -314,6 +314,10 @@ def _apply_launch(view: RunView, launch: LaunchContext) -> None:
         _supply(view, "precision.mixed", mp, "launch", f"mixed precision {mp} from {launch.mixed_precision_from or where}")
     if launch.offload_optimizer:
         _supply(view, "runtime.offload_optimizer", True, "launch", f"optimizer offload in {where}")
+    for sub in launch.views:  # the FSDP wrap class of the launch file wraps this config's model
+        wrap = sub.get("runtime.fsdp_wrap") if sub.layout is not None and sub.layout.role == "launch" else None
+        if wrap is not None and wrap.value is not None:
+            _supply(view, "runtime.fsdp_wrap", wrap.value, "launch", f"{wrap.key} in {sub.doc.name}")
     for sub in launch.views:  # a DeepSpeed file the run is started with is checked like a linked one
         if sub.layout is not None and sub.layout.role == "engine" and sub not in view.attached \
                 and all(a.doc.name != sub.doc.name for a in view.attached):

@@ -111,20 +111,26 @@ def _copy(data: Any) -> Any:
     return data
 
 
+def _config_path(word: Any, file: str) -> str | None:
+    """The config file WORD names, beside the sweep file, when it exists."""
+    if not isinstance(word, str) or not word.strip().lower().endswith((".yaml", ".yml", ".json")):
+        return None
+    path = Path(file).parent / word.strip()
+    try:
+        return str(path) if path.is_file() else None
+    except (OSError, ValueError):
+        return None
+
+
 def _base_config(doc: Document, file: str) -> str | None:
     command = doc.data.get("command")
     items = command if isinstance(command, list) else [command] if isinstance(command, str) else []
     for item in items:
         if isinstance(item, str):
             for word in item.split():
-                word = word.split("=", 1)[-1]
-                if word.lower().endswith((".yaml", ".yml", ".json")):
-                    path = Path(file).parent / word
-                    try:
-                        if path.is_file():
-                            return str(path)
-                    except (OSError, ValueError):
-                        continue
+                found = _config_path(word.split("=", 1)[-1], file)
+                if found is not None:
+                    return found
     return None
 
 
@@ -156,6 +162,15 @@ def lint_sweep(doc: Document, file: str, run, report, layout: str | None = None)
                       for value, inner in _candidates(spec)])
     base_doc = None
     base_file = _base_config(doc, file)
+    if base_file is None:
+        # a parameter with one value that names an existing config file (``config: {value:
+        # base.yaml}``): the program is given the file, so it is the runs' base, not a setting
+        for i, (_n, spec, _at) in enumerate(flat):
+            if isinstance(spec, dict) and set(spec) == {"value"}:
+                base_file = _config_path(spec["value"], file)
+                if base_file is not None:
+                    del names[i], cands[i]
+                    break
     if base_file is not None:
         from . import compose
         from . import load as loadmod

@@ -928,6 +928,292 @@ CUDA_VISIBLE_DEVICES=0,1 python finetune.py \\
     --gradient_accumulation_step 4
 """}, "unknown-key", ("go.sh", "--gradient_accumulation_step 4", "--gradient_accumulation_steps 4"))
 
+# ----------------------------------------------------------------------------- third round
+
+case("script-torch-distributed-run", {"run.sh": f"""\
+python -m torch.distributed.run --nproc_per_node=4 --master_port=29501 sft.py \\
+  --model_name_or_path {MISTRAL} --learning_rate 1e-4 --bf16 True
+"""}, "full-finetune-lr-too-high", ("run.sh", "--learning_rate 1e-4", "--learning_rate 2e-5"))
+
+case("two-level-adapter-section", {"run.yaml": f"""\
+model_name_or_path: {L2}
+peft:
+  method: lora
+  lora:
+    r: 64
+    alpha: 8
+learning_rate: 1.0e-4
+"""}, "lora-scale-below-one", ("run.yaml", "alpha: 8", "alpha: 128"))
+
+case("fsdp-wrap-class-in-trainer-config", {"run.yaml": f"""\
+model_name_or_path: {L2}
+learning_rate: 2.0e-5
+bf16: true
+fsdp: "full_shard auto_wrap"
+fsdp_config:
+  transformer_layer_cls_to_wrap: [MistralDecoderLayer]
+"""}, "fsdp-wrap-class-not-in-model", ("run.yaml", "MistralDecoderLayer", "LlamaDecoderLayer"))
+
+case("fsdp-wrap-class-in-launch-file", {
+    "run.yaml": f"model_name_or_path: {L2}\nlearning_rate: 2.0e-5\nbf16: true\n",
+    "fsdp.yaml": """\
+compute_environment: LOCAL_MACHINE
+distributed_type: FSDP
+fsdp_config:
+  fsdp_auto_wrap_policy: TRANSFORMER_BASED_WRAP
+  fsdp_sharding_strategy: FULL_SHARD
+  fsdp_transformer_layer_cls_to_wrap: Qwen2DecoderLayer
+  fsdp_state_dict_type: SHARDED_STATE_DICT
+mixed_precision: bf16
+num_machines: 1
+num_processes: 8
+machine_rank: 0
+main_training_function: main
+"""}, "fsdp-wrap-class-not-in-model", ("fsdp.yaml", "Qwen2DecoderLayer", "LlamaDecoderLayer"),
+    options={"launch": ["{dir}/fsdp.yaml"]})
+
+case("deepspeed-zero3-no-gather", {"ds.json": """{
+  "train_micro_batch_size_per_gpu": "auto",
+  "gradient_accumulation_steps": "auto",
+  "bf16": {"enabled": "auto"},
+  "zero_optimization": {"stage": 3, "overlap_comm": true,
+                        "stage3_gather_16bit_weights_on_model_save": false}
+}
+"""}, "zero3-save-without-gathered-weights", ("ds.json", '"stage3_gather_16bit_weights_on_model_save": false',
+                                             '"stage3_gather_16bit_weights_on_model_save": true'))
+
+case("inline-deepspeed-global-batch", {"run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+per_device_train_batch_size: 2
+gradient_accumulation_steps: 8
+deepspeed:
+  train_batch_size: 64
+  train_micro_batch_size_per_gpu: auto
+  gradient_accumulation_steps: auto
+  gradient_clipping: auto
+  zero_optimization: {{stage: 2}}
+"""}, "deepspeed-file-contradicts-config", ("run.yaml", "train_batch_size: 64", "train_batch_size: 16"),
+    options={"gpus": 1})
+
+case("local-model-folder-config", {
+    "configs/run.yaml": "model_name_or_path: ../weights/small-lm\nlearning_rate: 3.0e-3\nnum_train_epochs: 1\n",
+    "weights/small-lm/config.json": TINY_CONFIG}, "full-finetune-lr-too-high",
+    ("configs/run.yaml", "3.0e-3", "2.0e-4"), target="configs/run.yaml")
+
+case("grpo-lengths-beyond-engine", {"grpo.yaml": """\
+model_name_or_path: Qwen/Qwen2.5-1.5B-Instruct
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 1.0e-5
+use_vllm: true
+vllm_max_model_length: 2048
+max_prompt_length: 1024
+max_completion_length: 2048
+num_generations: 8
+per_device_train_batch_size: 8
+"""}, "rl-lengths-exceed-generation-engine", ("grpo.yaml", "max_completion_length: 2048", "max_completion_length: 1024"))
+
+case("dashed-key-in-yaml", {"run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning-rate: 2.0e-4
+num_train_epochs: 1
+"""}, "unknown-key", ("run.yaml", "learning-rate:", "learning_rate:"))
+
+case("camel-case-key-in-yaml", {"run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+numTrainEpochs: 1
+"""}, "unknown-key", ("run.yaml", "numTrainEpochs:", "num_train_epochs:"))
+
+case("composed-hydra-override-group", {
+    "conf/config.yaml": "defaults:\n  - model: llama7b\n  - optim: gentle\n  - _self_\nseed: 3\n",
+    "conf/model/llama7b.yaml": f"name_or_path: {L2}\n",
+    "conf/optim/gentle.yaml": "lr: 2.0e-5\n",
+    "conf/optim/hot.yaml": "lr: 1.0e-4\n"},
+    "full-finetune-lr-too-high", ("conf/optim/hot.yaml", "lr: 1.0e-4", "lr: 2.0e-5"),
+    target="conf/config.yaml", options={"overrides": ["optim=hot"]}, in_file="conf/optim/hot.yaml")
+
+case("composed-base-relative-up", {
+    "base/common.yaml": f"model_name_or_path: {L2}\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\nlearning_rate: 2.0e-4\n",
+    "exp/a/run.yaml": "extends: ../../base/common.yaml\nlora_alpha: 1\n"},
+    "lora-scale-below-one", ("exp/a/run.yaml", "lora_alpha: 1", "lora_alpha: 32"), target="exp/a/run.yaml",
+    at="lora_alpha")
+
+case("sweep-config-file-as-parameter", {
+    "base.yaml": f"model_name_or_path: {L2}\nnum_train_epochs: 1\nbf16: true\n",
+    "sweep.yaml": """\
+program: train.py
+method: grid
+parameters:
+  config:
+    value: base.yaml
+  learning_rate:
+    values: [2.0e-5, 1.0e-4]
+"""}, "full-finetune-lr-too-high", ("sweep.yaml", "1.0e-4]", "3.0e-5]"), target="sweep.yaml")
+
+case("sweep-axolotl-base", {
+    "axo.yaml": AXO,
+    "sweep.yaml": """\
+program: axolotl
+method: grid
+command: [axolotl, train, axo.yaml, "${args}"]
+parameters:
+  lora_alpha:
+    values: [2, 32]
+  learning_rate:
+    values: [0.0001, 0.0002]
+"""}, "lora-scale-below-one", ("sweep.yaml", "[2, 32]", "[16, 32]"), target="sweep.yaml")
+
+case("multi-document-yaml", {"runs.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+---
+model_name_or_path: {L2}
+learning_rate: 1.0e-4
+num_train_epochs: 1
+"""}, "full-finetune-lr-too-high", ("runs.yaml", "learning_rate: 1.0e-4", "learning_rate: 2.0e-5"))
+
+# ----------------------------------------------------------------------------- second shapes of each kind
+
+case("json-optimizer-section-schedule", {"run.json": f"""{{
+  "model_name_or_path": "{L2}",
+  "peft_config": {{"r": 16, "lora_alpha": 32}},
+  "optimizer": {{"type": "adamw_torch", "lr": 2e-4, "lr_scheduler": "constant", "num_warmup_steps": 50}}
+}}
+"""}, "constant-schedule-ignores-warmup", ("run.json", '"lr_scheduler": "constant"', '"lr_scheduler": "constant_with_warmup"'))
+
+case("llm-section-model-name", {"run.yaml": """\
+llm:
+  model_name: Qwen/Qwen2.5-7B
+params:
+  lr: "1e-4"
+  epochs: 1
+"""}, "full-finetune-lr-too-high", ("run.yaml", '"1e-4"', '"2e-5"'), at="params.lr")
+
+case("dpo-config-section", {"run.yaml": f"""\
+model:
+  model_path: {MISTRAL}
+dpo_config:
+  beta: 0.1
+  lr: 1.0e-4
+  max_length: 2048
+"""}, "full-finetune-lr-too-high", ("run.yaml", "lr: 1.0e-4", "lr: 5.0e-7"), at="dpo_config.lr")
+
+case("json-no-trainer-scheduler-names", {"run.json": f"""{{
+  "model_name_or_path": "{L2}",
+  "use_peft": true, "lora_r": 8, "lora_alpha": 16,
+  "learning_rate": 2e-4,
+  "lr_scheduler": "constant",
+  "num_warmup_steps": 10
+}}
+"""}, "constant-schedule-ignores-warmup", ("run.json", '"lr_scheduler": "constant"', '"lr_scheduler": "cosine"'))
+
+case("llamafactory-dpo-full-shared-keys", {"lf_dpo.yaml": f"""\
+model_name_or_path: {MISTRAL}
+stage: dpo
+do_train: true
+finetuning_type: full
+pref_beta: 0.1
+dataset: orchard_prefs
+template: mistral
+cutoff_len: 2048
+per_device_train_batch_size: 1
+gradient_accumulation_steps: 8
+learning_rate: 1.0e-4
+num_train_epochs: 1.0
+lr_scheduler_type: cosine
+warmup_steps: 10
+logging_steps: 5
+save_steps: 200
+bf16: true
+output_dir: saves/orchard-dpo
+"""}, "full-finetune-lr-too-high", ("lf_dpo.yaml", "1.0e-4", "5.0e-7"))
+
+case("torchtune-qwen3-builder", {"tt.yaml": tt("qwen3", "qwen3_8b_instruct", 65536, "QWEN3")},
+     "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 65536", "max_seq_len: 32768"))
+
+case("torchtune-checkpoint-dir-in-text", {
+    "tt.yaml": tt("llama2", "llama2_7b", 4096, "LLAMA2")
+    .replace("torchtune.models.llama2.lora_llama2_7b", "lanternlab.models.build_small_lm")
+    .replace("output_dir: /tmp/tt/lantern", "output_dir: /tmp/tt/lantern\nroot: ./weights")
+    .replace("checkpoint_dir: /tmp/tt/base", "checkpoint_dir: ${root}/small-lm"),
+    "weights/small-lm/config.json": TINY_CONFIG},
+    "seq-len-above-context-window", ("tt.yaml", "max_seq_len: 4096", "max_seq_len: 2048"))
+
+case("sweep-nested-min-max", {
+    "sweep.yaml": f"""\
+method: random
+metric: {{name: eval_loss, goal: minimize}}
+parameters:
+  model:
+    parameters:
+      name_or_path:
+        value: {L2}
+  training:
+    parameters:
+      learning_rate:
+        min: 1.0e-5
+        max: 1.0e-4
+"""}, "full-finetune-lr-too-high", ("sweep.yaml", "max: 1.0e-4", "max: 2.0e-5"), target="sweep.yaml")
+
+case("launch-deepspeed-bf16-on-v100", {
+    "run.yaml": f"model_name_or_path: {SMALL}\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\n"
+                "learning_rate: 2.0e-4\nper_device_train_batch_size: 1\nmax_length: 512\n",
+    "ds.json": '{\n  "train_micro_batch_size_per_gpu": "auto",\n  "gradient_accumulation_steps": "auto",\n'
+               '  "gradient_clipping": "auto",\n  "bf16": {"enabled": true},\n  "zero_optimization": {"stage": 2}\n}\n'},
+    "precision-unsupported-on-gpu", ("ds.json", '"bf16": {"enabled": true}', '"fp16": {"enabled": "auto"}'),
+    options={"gpu": "v100", "launch": ["{dir}/ds.json"], "gpus": 1})
+
+case("fsdp-launch-file-for-axolotl", {
+    "axo.yaml": AXO.replace(L2, MISTRAL),
+    "fsdp.yaml": """\
+compute_environment: LOCAL_MACHINE
+distributed_type: FSDP
+fsdp_config:
+  fsdp_transformer_layer_cls_to_wrap: LlamaDecoderLayer
+  fsdp_sharding_strategy: FULL_SHARD
+mixed_precision: bf16
+num_machines: 1
+num_processes: 4
+main_training_function: main
+"""}, "fsdp-wrap-class-not-in-model", ("fsdp.yaml", "LlamaDecoderLayer", "MistralDecoderLayer"),
+    options={"launch": ["{dir}/fsdp.yaml"]})
+
+case("composed-group-choice-model", {
+    "conf/train.yaml": "defaults:\n  - model: small\n  - _self_\nmax_length: 8192\nlearning_rate: 2.0e-5\n",
+    "conf/model/small.yaml": "model_name_or_path: Qwen/Qwen2.5-0.5B\n",
+    "conf/model/llama7b.yaml": f"model_name_or_path: {L2}\n"},
+    "seq-len-above-context-window", ("conf/train.yaml", "max_length: 8192", "max_length: 4096"),
+    target="conf/train.yaml", options={"overrides": ["model=llama7b"]})
+
+case("sweep-config-file-parameter-json", {
+    "configs/base.json": f'{{"model_name_or_path": "{L2}", "use_peft": true, "lora_r": 64, "lora_alpha": 128}}\n',
+    "sweep.yaml": """\
+program: train.py
+method: grid
+parameters:
+  config_file:
+    value: configs/base.json
+  lora_alpha:
+    values: [4, 128]
+  learning_rate:
+    value: 1.0e-4
+"""}, "lora-scale-below-one", ("sweep.yaml", "[4, 128]", "[64, 128]"), target="sweep.yaml")
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:

@@ -332,7 +332,7 @@ def _other_family(name: str, own: str) -> bool:
 @check("fsdp-wrap-class-not-in-model")
 def fsdp_wrap_class(ctx) -> None:
     view = ctx.view
-    f = view.get("runtime.fsdp_wrap")
+    f = view.effective("runtime.fsdp_wrap")  # written here, or in the launch file of the run
     if f is None or f.value is None:
         return
     names = [n.strip() for n in (f.value.split(",") if isinstance(f.value, str) else f.value) if n.strip()]
@@ -355,10 +355,10 @@ def fsdp_wrap_class(ctx) -> None:
     if not all(_other_family(n, own) for n in names):
         return
     fix = None
-    if isinstance(f.written, str) and len(names) == 1:
+    if isinstance(f.written, str) and len(names) == 1 and f.origin == "written":
         fix = Fix(tier="changes-training", summary=f"{f.key}: {f.written} -> {want}",
                   edits=(Edit(path=f.path, old=f.written, new=want),))
-    ctx.report(f, fix=fix, key=f.key, written=", ".join(names), family=arch.family, layer=want)
+    ctx.report(f, fix=fix, key=f.key or f.note, written=", ".join(names), family=arch.family, layer=want)
 
 
 # --------------------------------------------------------------------------- device placement
