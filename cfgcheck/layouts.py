@@ -723,9 +723,11 @@ LLAMA_FACTORY_V1 = Layout(
         "data.seq_len": ("=cutoff_len",),
         "precision.bf16": ("=bf16",),
     },
-    signature={"model_class": 4, "kernel_config": 3, "dist_config": 2, "sample_backend": 3,
+    # its own keys weigh more than the trainer names a peft_config block spells (r, lora_alpha,
+    # lora_dropout, target_modules), which are no trainer settings here
+    signature={"model_class": 8, "kernel_config": 6, "dist_config": 4, "sample_backend": 6,
                "train_dataset": 1, "peft_config": 1, "cutoff_len": 1, "micro_batch_size": 1,
-               "quant_config": 2},
+               "quant_config": 4},
     min_score=6,
 )
 

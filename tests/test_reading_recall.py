@@ -1214,6 +1214,36 @@ parameters:
     value: 1.0e-4
 """}, "lora-scale-below-one", ("sweep.yaml", "[4, 128]", "[64, 128]"), target="sweep.yaml")
 
+# ----------------------------------------------------------------------------- LLaMA-Factory v1
+
+V1 = """\
+model: Qwen/Qwen2.5-7B-Instruct
+model_class: llm
+peft_config:
+  name: lora
+  r: 16
+  lora_alpha: 32
+  lora_dropout: 0.05
+  target_modules: all
+kernel_config:
+  name: auto
+dist_config:
+  name: fsdp2
+train_dataset: data/harbor_sft.yaml
+output_dir: outputs/harbor
+micro_batch_size: 2
+gradient_accumulation_steps: 4
+cutoff_len: 4096
+learning_rate: 1.0e-4
+max_steps: 500
+"""
+V1_FULL = V1.replace("peft_config:\n  name: lora\n  r: 16\n  lora_alpha: 32\n  lora_dropout: 0.05\n  target_modules: all\n", "")
+case("llamafactory-v1-full-hot", {"v1.yaml": V1_FULL}, "full-finetune-lr-too-high", ("v1.yaml", "1.0e-4", "2.0e-5"))
+case("llamafactory-v1-cutoff-beyond-context", {"v1.yaml": V1.replace("cutoff_len: 4096", "cutoff_len: 65536")},
+     "seq-len-above-context-window", ("v1.yaml", "cutoff_len: 65536", "cutoff_len: 32768"))
+case("llamafactory-v1-lora-alpha-small", {"v1.yaml": V1.replace("r: 16\n  lora_alpha: 32", "r: 128\n  lora_alpha: 8")},
+     "lora-scale-below-one", ("v1.yaml", "lora_alpha: 8", "lora_alpha: 256"))
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:
