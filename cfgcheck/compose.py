@@ -15,7 +15,11 @@ How the loaders compose, as followed here:
 * a base file named by ``_base_``, ``base_config``, ``extends``, ``inherit_from`` or
   ``base`` (a path ending in .yaml/.yml/.json, or a list of them): read first, this file overrides.
 * ``key=value`` overrides (the launch command line): ``a.b=1`` sets, ``+a.b=1`` adds, ``++a.b=1``
-  sets or adds, ``~a.b`` removes; the value is read as a YAML scalar.
+  sets or adds, ``~a.b`` removes; the value is read as a YAML scalar. ``group=option`` for a group
+  the defaults list names picks that group's other file instead (Hydra's group override).
+* a runner's experiment folder (a layout's ``experiment_root``): the file is read over the
+  runner's defaults file, a top-level key replacing the default's whole value
+  (``compose_over_defaults``, called by the engine).
 
 Only local files are read, at most ``MAX_FILES`` of them, ``MAX_DEPTH`` levels of nesting. A file
 that cannot be found or read leaves the document as written, with the reason
@@ -367,6 +371,45 @@ def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (
                     index=doc.index, origins=origins, overrides=chains,
                     composed_from=list(state.files),
                     number_reader=OMEGACONF_READER if state.defaults_list else "")
+
+
+def experiment_base(file: str, root: str, names: tuple[str, ...]) -> str | None:
+    """The runner's defaults file for FILE in ``<root>/<method>/<name>/``, when it exists."""
+    folder = Path(os.path.abspath(file)).parent
+    if len(folder.parents) < 2 or folder.parents[1].name != root:
+        return None
+    top = folder.parents[2] if len(folder.parents) > 2 else folder.parents[1]
+    for name in names:
+        cand = top / name
+        try:
+            if cand.is_file() and cand.resolve() != Path(file).resolve():
+                return str(cand)
+        except (OSError, ValueError):
+            continue
+    return None
+
+
+def compose_over_defaults(doc: Document, file: str, base_file: str) -> Document:
+    """DOC read over BASE_FILE the way a ``{**defaults, **config}`` loader does: a top-level key
+    DOC writes replaces the default's whole value; raises ComposeError."""
+    state = _State(primary_dir=Path(file).parent)
+    state.files.append(file)
+    state.docs[file] = doc
+    base_doc, base_name = _read(Path(base_file), state)
+    own = dict(doc.data)
+    base = _layer_of(base_doc, base_name, {k: v for k, v in base_doc.data.items() if k not in own})
+    for path in [p for p in base.origin if p and p[0] in own]:
+        del base.origin[path]
+    merged = _merge(base, _layer_of(doc, file, own))
+    entries, origins = {}, {}
+    for path, (src_file, src_doc, doc_path) in merged.origin.items():
+        entry = src_doc.entries.get(doc_path)
+        if entry is not None:
+            entries[path] = entry
+        origins[path] = src_file
+    return Document(name=doc.name, format=doc.format, data=merged.data, entries=entries,
+                    duplicates=list(doc.duplicates), ambiguities=list(doc.ambiguities), tags=list(doc.tags),
+                    index=doc.index, origins=origins, overrides={}, composed_from=list(state.files))
 
 
 def _value_at(data: Any, path: tuple) -> Any:

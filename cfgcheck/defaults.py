@@ -94,6 +94,11 @@ def _grpo_seq(view: RunView):
 
 
 DEFAULTS: dict[str, tuple[Default, ...]] = {
+    "peft-bench": (
+        Default("cadence.eval_strategy", "steps",
+                "the runner evaluates every eval_steps steps: PEFT method_comparison/MetaMathQA run.py "
+                "train(): 'if step % eval_steps == 0'"),
+    ),
     "axolotl": (
         Default("model.dtype", _axolotl_dtype,
                 f"bf16: true or auto loads the weights in bf16 (fp16: true in fp16): the runner sets "

@@ -18,9 +18,12 @@ from .checks import all_checks
 from .findings import FileReport, Finding, Fix, InputProblem, InternalError, Related, Report, Severity, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted, walk_paths
-from .view import Field, RunView, build_view
+from .layouts import LAYOUTS
+from .view import Field, RunView, build_view, detect_layout
 from . import waivers as waivermod
 
+# layouts whose runner reads an experiment folder over its own defaults file
+EXPERIMENT_LAYOUTS = tuple(lay for lay in LAYOUTS if lay.experiment_root)
 
 
 @dataclass
@@ -357,13 +360,22 @@ def _composed(doc: Document, file: str, options: Options, report: FileReport) ->
     when there is nothing to compose or a named file cannot be read (the reason is kept)."""
     from . import compose
 
-    if not (options.overrides or compose.composes(doc.data)) or file.startswith("<"):
+    if file.startswith("<"):
         return doc
-    try:
-        return compose.compose(doc, file, options.overrides)
-    except compose.ComposeError as exc:
-        report.compose_problem = str(exc)
-        return doc
+    if options.overrides or compose.composes(doc.data):
+        try:
+            doc = compose.compose(doc, file, options.overrides)
+        except compose.ComposeError as exc:
+            report.compose_problem = str(exc)
+            return doc
+    for lay in EXPERIMENT_LAYOUTS:  # an experiment of a runner, read over the runner's defaults
+        base = compose.experiment_base(file, lay.experiment_root, lay.experiment_defaults)
+        if base is not None and detect_layout(doc.data)[0] is lay:
+            try:
+                return compose.compose_over_defaults(doc, file, base)
+            except compose.ComposeError as exc:
+                report.compose_problem = str(exc)
+    return doc
 
 
 def lint_text(text: str, name: str = "<text>", options: Options | None = None,

@@ -71,6 +71,13 @@ class Layout:
     builder_models: tuple[tuple[str, str], ...] = ()
     # a dotted path whose value is the model's folder (its config.json), used when no builder maps
     model_dir: str = ""
+    # an experiment folder of the runner (``<experiments>/<method>/<name>/``): a file there is read
+    # over the runner's defaults file (``experiment_defaults``, looked up from the folder above
+    # ``<experiments>``, then inside it; a key the file writes replaces the default's whole value),
+    # and the run trains the adapter of ``experiment_adapter`` beside it, or every weight without one
+    experiment_root: str = ""
+    experiment_defaults: tuple[str, ...] = ()
+    experiment_adapter: str = ""
     # what cfgcheck reads of this layout and what it does not (the layouts table in the docs)
     reads: str = ""
     not_read: str = ""
@@ -848,6 +855,14 @@ ACCELERATE = Layout(
 PEFT_BENCH = Layout(
     name="peft-bench",
     title="PEFT method-comparison training parameters (defaults and per-experiment overrides)",
+    # PEFT method_comparison/MetaMathQA: run.py takes ./experiments/<peft-method>/<experiment-name>;
+    # utils.py get_train_config reads the default params, then {**default, **experiment}; main():
+    # "Could not find PEFT config at {path}, performing FULL FINETUNING" without adapter_config.json
+    experiment_root="experiments",
+    experiment_defaults=("default_training_params.json", "experiments/default_training_params.json"),
+    experiment_adapter="adapter_config.json",
+    reads="an experiment's training_params.json over the default training params (top-level keys replace); "
+          "the method from the adapter_config.json beside it (none: full fine-tuning)",
     fields={
         "model.ref": ("=model_id",),
         "model.dtype": ("=dtype",),

@@ -293,6 +293,34 @@ def _apply_defaults(view: RunView) -> None:
             _supply(view, d.field, value, "default", d.note)
 
 
+def _experiment_method(view: RunView, file: str) -> None:
+    """The method of a runner's experiment folder: the adapter its config file there names (its
+    settings supplied as linked), or, with none, every weight trains (the runner's own rule)."""
+    lay = view.layout
+    if not lay.experiment_adapter or view.method is not None or file.startswith("<"):
+        return
+    folder = Path(file).absolute().parent
+    if len(folder.parents) < 2 or folder.parents[1].name != lay.experiment_root:
+        return
+    adapter = folder / lay.experiment_adapter
+    try:
+        present = adapter.is_file()
+        docs = loadmod.load_text(loadmod.read_source(adapter).text, str(adapter)) if present else []
+    except (OSError, ValueError, LoadError):
+        return  # unreadable: the method stays unknown (the adapter file is reported on its own)
+    if not present:
+        view.method, view.method_stated = "full", True
+        return
+    sub = build_view(docs[0]) if docs else None
+    if sub is None or sub.layout is None or sub.layout.role != "adapter" or sub.method is None:
+        return
+    view.method, view.method_stated = sub.method, True
+    for name in ("adapter.rank", "adapter.alpha", "adapter.rslora", "adapter.targets", "adapter.dora"):
+        f = sub.get(name)
+        if f is not None and f.value is not None:
+            _supply(view, name, f.value, "linked", f"{f.key} in {adapter}")
+
+
 def _apply_linked(view: RunView) -> None:
     for sub in view.attached:
         if sub.layout is None or sub.layout.role != "engine":
@@ -381,6 +409,7 @@ def open_view(view: RunView, file: str, options: Any = None) -> OpenedRun:
     view.run = run
     if view.layout is None:
         return run
+    _experiment_method(view, file)
     _apply_launch(view, launch)
     _apply_linked(view)
     _apply_defaults(view)

@@ -1244,6 +1244,57 @@ case("llamafactory-v1-cutoff-beyond-context", {"v1.yaml": V1.replace("cutoff_len
 case("llamafactory-v1-lora-alpha-small", {"v1.yaml": V1.replace("r: 16\n  lora_alpha: 32", "r: 128\n  lora_alpha: 8")},
      "lora-scale-below-one", ("v1.yaml", "lora_alpha: 8", "lora_alpha: 256"))
 
+# ----------------------------------------------------------------------------- PEFT method comparison
+
+BENCH = """{
+  "model_id": "meta-llama/Llama-3.2-3B",
+  "dtype": "bfloat16",
+  "max_seq_length": 768,
+  "batch_size": 4,
+  "batch_size_eval": 32,
+  "max_steps": 3000,
+  "eval_steps": 250,
+  "compile": false,
+  "use_gc": false,
+  "seed": 0,
+  "grad_norm_clip": 1.0,
+  "optimizer_type": "AdamW",
+  "optimizer_kwargs": {"lr": 1e-4, "weight_decay": 0.1},
+  "lr_scheduler": "cosine",
+  "use_amp": false,
+  "autocast_adapter_dtype": true,
+  "attn_implementation": null,
+  "generation_kwargs": {"max_length": 800, "max_new_tokens": 300},
+  "query_template": "Riddle: {query}\\nAnswer:",
+  "init_kv_cache_prefix": null
+}
+"""
+BENCH_ADAPTER = """{
+  "peft_type": "LORA", "task_type": "CAUSAL_LM", "base_model_name_or_path": null,
+  "r": 32, "lora_alpha": 64, "lora_dropout": 0.0, "target_modules": null,
+  "bias": "none", "fan_in_fan_out": false, "inference_mode": false
+}
+"""
+# Llama 3.2 3B: 3.21B parameters (the bundled catalogue): the 3-20B band of the rule
+case("bench-full-finetuning-experiment-lr", {
+    "bench/experiments/full-finetuning/llama-3b-lr-hot/training_params.json": '{"optimizer_kwargs": {"lr": 1e-4}}\n',
+    "bench/default_training_params.json": BENCH,
+    "bench/experiments/lora/rank32/adapter_config.json": BENCH_ADAPTER,
+    "bench/experiments/lora/rank32/training_params.json": '{"optimizer_kwargs": {"lr": 2e-4}}\n'},
+    "full-finetune-lr-too-high", ("bench/experiments/full-finetuning/llama-3b-lr-hot/training_params.json",
+                                  "1e-4", "1e-5"))
+case("bench-lora-experiment-is-not-full", {
+    "bench/experiments/lora/rank32/training_params.json": '{"optimizer_kwargs": {"lr": 2e-4}, "max_seq_length": 262144}\n',
+    "bench/default_training_params.json": BENCH,
+    "bench/experiments/lora/rank32/adapter_config.json": BENCH_ADAPTER},
+    "seq-len-above-context-window", ("bench/experiments/lora/rank32/training_params.json", "262144", "768"))
+case("bench-eval-interval-beyond-run", {"default_training_params.json": BENCH.replace('"eval_steps": 250', '"eval_steps": 4000')},
+     "cadence-longer-than-run", ("default_training_params.json", '"eval_steps": 4000', '"eval_steps": 500'))
+case("bench-experiment-model-override", {
+    "experiments/full-finetuning/smol/training_params.json": '{"model_id": "HuggingFaceTB/SmolLM-360M", "max_seq_length": 4096, "optimizer_kwargs": {"lr": 1e-4}}\n',
+    "experiments/default_training_params.json": BENCH},
+    "seq-len-above-context-window", ("experiments/full-finetuning/smol/training_params.json", '"max_seq_length": 4096', '"max_seq_length": 2048'))
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:
