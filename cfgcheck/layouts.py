@@ -335,6 +335,9 @@ _MODEL_NAMES = {**_same("name_or_path name path id model_id repo_id pretrained c
                 **_same("max_seq_length max_seq_len max_length context_length", "max_seq_length")}
 _SCHEDULE_NAMES = {**_same("type name kind scheduler lr_scheduler_type", "lr_scheduler_type"),
                    **_same("warmup_steps num_warmup_steps", "warmup_steps"),
+                   # a schedule section often says how long the run is
+                   **_same("epochs num_epochs", "num_train_epochs"),
+                   **_same("total_steps num_training_steps train_steps max_train_steps", "max_steps"),
                    **_same("warmup_ratio warmup_fraction", "warmup_ratio")}
 _OPTIM_NAMES = {**_same("name type kind optimizer", "optim"), **_same("lr learning_rate", "learning_rate"),
                 # an optimiser section often holds the schedule beside it
@@ -353,6 +356,7 @@ _QUANT_NAMES = {**_same("quant_type type", "bnb_4bit_quant_type"),
 _TRAIN_NAMES = {**_same("batch_size micro_batch_size per_device_batch_size batch_size_per_device "
                         "train_micro_batch_size", "per_device_train_batch_size"),
                 **_same("epochs num_epochs", "num_train_epochs"), "lr": "learning_rate",
+                **_same("total_steps num_training_steps train_steps max_train_steps", "max_steps"),
                 **_same("grad_accum gradient_accumulation accumulation_steps grad_accumulation_steps "
                         "grad_accumulation", "gradient_accumulation_steps"),
                 **_same("grad_clip clip_grad_norm", "max_grad_norm")}
@@ -443,7 +447,8 @@ TRAINER = Layout(
         "optim.warmup_ratio": ("warmup_ratio",),
         "optim.warmup_steps": ("warmup_steps", "num_warmup_steps"),
         "optim.epochs": ("num_train_epochs",),
-        "optim.max_steps": ("max_steps",),
+        # max_train_steps: transformers' no-trainer examples ("If provided, overrides num_train_epochs")
+        "optim.max_steps": ("max_steps", "max_train_steps"),
         "optim.weight_decay": ("weight_decay",),
         "optim.grad_clip": ("max_grad_norm",),
         "batch.per_device": ("per_device_train_batch_size",),

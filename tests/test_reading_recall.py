@@ -1295,6 +1295,101 @@ case("bench-experiment-model-override", {
     "experiments/default_training_params.json": BENCH},
     "seq-len-above-context-window", ("experiments/full-finetuning/smol/training_params.json", '"max_seq_length": 4096', '"max_seq_length": 2048'))
 
+# ----------------------------------------------------------------------------- run length in sections
+
+case("schedule-section-epochs-beside-max-steps", {"run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+training:
+  learning_rate: 2.0e-4
+  max_steps: 1000
+schedule:
+  type: cosine
+  epochs: 3
+"""}, "max-steps-overrides-epochs", ("run.yaml", "  epochs: 3\n", ""))
+
+case("no-trainer-max-train-steps", {"run.json": f"""{{
+  "model_name_or_path": "{L2}",
+  "use_peft": true, "lora_r": 16, "lora_alpha": 32,
+  "learning_rate": 2e-4,
+  "num_train_epochs": 2,
+  "max_train_steps": 800
+}}
+"""}, "max-steps-overrides-epochs", ("run.json", ',\n  "max_train_steps": 800', ""))
+
+case("train-section-total-steps-short-warmup", {"run.yaml": f"""\
+model_name_or_path: {L2}
+peft:
+  r: 16
+  lora_alpha: 32
+train:
+  lr: 2.0e-4
+  total_steps: 150
+scheduler:
+  name: cosine
+  warmup_steps: 200
+"""}, "warmup-longer-than-run", ("run.yaml", "warmup_steps: 200", "warmup_steps: 10"))
+
+case("warmup-ratio-and-steps-in-two-sections", {"run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+scheduler:
+  type: cosine
+  warmup_ratio: 0.1
+training:
+  warmup_steps: 100
+"""}, "warmup-ratio-and-steps-both-set", ("run.yaml", "  warmup_ratio: 0.1\n", ""))
+
+case("best-model-cadence-in-eval-and-save-sections", {"run.yaml": f"""\
+model_name_or_path: {L2}
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+eval_dataset: orchard/val
+eval:
+  strategy: steps
+  steps: 300
+save:
+  strategy: steps
+  steps: 500
+load_best_model_at_end: true
+"""}, "best-model-needs-matching-cadence", ("run.yaml", "steps: 500", "steps: 600"))
+
+case("attention-kernel-in-model-section", {"run.yaml": f"""\
+model:
+  name_or_path: {L2}
+  attn_implementation: flash_attention_2
+  torch_dtype: float32
+use_peft: true
+lora_r: 16
+lora_alpha: 32
+learning_rate: 2.0e-4
+"""}, "attention-kernel-unsuited", ("run.yaml", "torch_dtype: float32", "torch_dtype: bfloat16"))
+
+case("dpo-section-prompt-fills-length", {"dpo.yaml": f"""\
+model:
+  name_or_path: {MISTRAL}
+peft:
+  enabled: true
+  r: 16
+  alpha: 32
+dpo:
+  learning_rate: 5.0e-6
+  max_length: 512
+  max_prompt_length: 512
+"""}, "max-prompt-length-leaves-no-completion", ("dpo.yaml", "max_prompt_length: 512", "max_prompt_length: 256"))
+
+case("axolotl-linked-deepspeed-batch", {
+    "axo.yaml": AXO + "deepspeed: zero2.json\nbf16: true\n", "zero2.json": DS},
+    "deepspeed-file-contradicts-config", ("zero2.json", '"train_batch_size": 64', '"train_batch_size": 64'),
+    options={"gpus": 4}, clean_options={"gpus": 8})
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:
