@@ -342,10 +342,15 @@ def _apply_launch(view: RunView, launch: LaunchContext) -> None:
         _supply(view, "precision.mixed", mp, "launch", f"mixed precision {mp} from {launch.mixed_precision_from or where}")
     if launch.offload_optimizer:
         _supply(view, "runtime.offload_optimizer", True, "launch", f"optimizer offload in {where}")
-    for sub in launch.views:  # the FSDP wrap class of the launch file wraps this config's model
-        wrap = sub.get("runtime.fsdp_wrap") if sub.layout is not None and sub.layout.role == "launch" else None
-        if wrap is not None and wrap.value is not None:
-            _supply(view, "runtime.fsdp_wrap", wrap.value, "launch", f"{wrap.key} in {sub.doc.name}")
+    if launch.activation_checkpointing is True:  # FSDP's own checkpointing, beside the trainer's
+        _supply(view, "runtime.fsdp_checkpointing", True, "launch", f"fsdp_activation_checkpointing in {where}")
+    for sub in launch.views:  # what the launch file sets for the run of this config
+        if sub.layout is None or sub.layout.role != "launch":
+            continue
+        for name in ("runtime.fsdp_wrap", "runtime.zero3_save_16bit"):
+            f = sub.get(name)
+            if f is not None and f.value is not None:
+                _supply(view, name, f.value, "launch", f"{f.key} in {sub.doc.name}")
     for sub in launch.views:  # a DeepSpeed file the run is started with is checked like a linked one
         if sub.layout is not None and sub.layout.role == "engine" and sub not in view.attached \
                 and all(a.doc.name != sub.doc.name for a in view.attached):

@@ -1390,6 +1390,51 @@ case("axolotl-linked-deepspeed-batch", {
     "deepspeed-file-contradicts-config", ("zero2.json", '"train_batch_size": 64', '"train_batch_size": 64'),
     options={"gpus": 4}, clean_options={"gpus": 8})
 
+# ----------------------------------------------------------------------------- launch files feed the config's run
+
+FSDP_ACC = """\
+compute_environment: LOCAL_MACHINE
+distributed_type: FSDP
+fsdp_config:
+  fsdp_auto_wrap_policy: TRANSFORMER_BASED_WRAP
+  fsdp_sharding_strategy: FULL_SHARD
+  fsdp_activation_checkpointing: true
+  fsdp_transformer_layer_cls_to_wrap: LlamaDecoderLayer
+mixed_precision: bf16
+num_machines: 1
+num_processes: 8
+main_training_function: main
+"""
+Z3_ACC = """\
+compute_environment: LOCAL_MACHINE
+distributed_type: DEEPSPEED
+deepspeed_config:
+  zero_stage: 3
+  zero3_init_flag: true
+  zero3_save_16bit_model: false
+  offload_optimizer_device: none
+mixed_precision: bf16
+num_machines: 1
+num_processes: 8
+"""
+case("launch-fsdp-checkpointing-beside-trainer", {
+    "run.yaml": f"model_name_or_path: {L2}\nlearning_rate: 2.0e-5\nbf16: true\ngradient_checkpointing: true\n",
+    "fsdp.yaml": FSDP_ACC}, "fsdp-and-trainer-checkpointing-both-on",
+    ("run.yaml", "gradient_checkpointing: true", "gradient_checkpointing: false"),
+    options={"launch": ["{dir}/fsdp.yaml"]}, at="gradient_checkpointing")
+case("launch-fsdp-checkpointing-beside-axolotl", {
+    "axo.yaml": AXO + "gradient_checkpointing: true\nbf16: true\n", "fsdp.yaml": FSDP_ACC},
+    "fsdp-and-trainer-checkpointing-both-on",
+    ("fsdp.yaml", "fsdp_activation_checkpointing: true", "fsdp_activation_checkpointing: false"),
+    options={"launch": ["{dir}/fsdp.yaml"]})
+case("launch-zero3-save-for-full-finetune", {
+    "run.yaml": f"model_name_or_path: {L2}\nlearning_rate: 2.0e-5\nbf16: true\n", "z3.yaml": Z3_ACC},
+    "zero3-save-without-gathered-weights", ("z3.yaml", "zero3_save_16bit_model: false", "zero3_save_16bit_model: true"),
+    options={"launch": ["{dir}/z3.yaml"]})
+case("launch-zero3-save-for-llamafactory-full", {"lf.yaml": LF_FULL.replace("1.0e-4", "1.0e-5"), "z3.yaml": Z3_ACC},
+     "zero3-save-without-gathered-weights", ("z3.yaml", "zero3_save_16bit_model: false", "zero3_save_16bit_model: true"),
+     options={"launch": ["{dir}/z3.yaml"]})
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:
