@@ -1435,6 +1435,16 @@ case("launch-zero3-save-for-llamafactory-full", {"lf.yaml": LF_FULL.replace("1.0
      "zero3-save-without-gathered-weights", ("z3.yaml", "zero3_save_16bit_model: false", "zero3_save_16bit_model: true"),
      options={"launch": ["{dir}/z3.yaml"]})
 
+# ----------------------------------------------------------------------------- component parameters
+
+case("torchtune-typo-in-optimizer", {"tt.yaml": tt("llama2", "llama2_7b", 4096, "LLAMA2")
+                                     .replace("weight_decay: 0.01", "weight_deacy: 0.01")},
+     "unknown-key", ("tt.yaml", "weight_deacy", "weight_decay"), at="optimizer.weight_deacy")
+case("torchtune-full-recipe-sgd-typo", {"tt.yaml": tt("llama2", "llama2_7b", 4096, "LLAMA2")
+                                        .replace("_component_: torch.optim.AdamW\n  fused: True\n  weight_decay: 0.01",
+                                                 "_component_: torch.optim.SGD\n  momentum: 0.9\n  nesterov_: True")},
+     "unknown-key", ("tt.yaml", "nesterov_:", "nesterov:"), at="optimizer.nesterov_")
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:
