@@ -440,9 +440,9 @@ TRAINER = Layout(
         "quant.bits": ("quantization_bits", "quantization_bit"),
         "optim.lr": ("learning_rate", "lr"),
         "optim.name": ("optim",),
-        # lr_scheduler / num_warmup_steps: the names of transformers' no-trainer example scripts
-        # (run_clm_no_trainer.py: --lr_scheduler_type, --num_warmup_steps) and of many repositories
-        "optim.scheduler": ("lr_scheduler_type", "lr_scheduler", "scheduler_type"),
+        # num_warmup_steps: the name of transformers' no-trainer example scripts
+        # (run_clm_no_trainer.py: --lr_scheduler_type, --num_warmup_steps)
+        "optim.scheduler": ("lr_scheduler_type",),
         "optim.scheduler_kwargs": ("lr_scheduler_kwargs",),
         "optim.warmup_ratio": ("warmup_ratio",),
         "optim.warmup_steps": ("warmup_steps", "num_warmup_steps"),

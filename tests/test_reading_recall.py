@@ -1117,10 +1117,10 @@ case("json-no-trainer-scheduler-names", {"run.json": f"""{{
   "model_name_or_path": "{L2}",
   "use_peft": true, "lora_r": 8, "lora_alpha": 16,
   "learning_rate": 2e-4,
-  "lr_scheduler": "constant",
+  "lr_scheduler_type": "constant",
   "num_warmup_steps": 10
 }}
-"""}, "constant-schedule-ignores-warmup", ("run.json", '"lr_scheduler": "constant"', '"lr_scheduler": "cosine"'))
+"""}, "constant-schedule-ignores-warmup", ("run.json", '"lr_scheduler_type": "constant"', '"lr_scheduler_type": "cosine"'))
 
 case("llamafactory-dpo-full-shared-keys", {"lf_dpo.yaml": f"""\
 model_name_or_path: {MISTRAL}
