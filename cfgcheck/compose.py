@@ -10,7 +10,9 @@ How the loaders compose, as followed here:
   root; ``- group: option`` merges ``group/option.yaml`` under ``group`` (``group@pkg`` under
   ``pkg``, ``@_global_`` at the root; ``override``/``optional`` prefixes are accepted; a null
   option is skipped); ``_self_`` marks where this file's own values go, at the end when absent.
-  Group files are looked up from the primary config's folder, plain names from the including file's.
+  Group files are looked up from the primary config's folder, plain names from the including file's;
+  an ``optional`` entry whose file is missing is skipped, and Hydra's own ``hydra/...`` groups
+  (launchers, sweepers) are not read.
   Dicts merge key by key; any other value (lists too) is replaced, as OmegaConf's merge does.
 * a base file named by ``_base_``, ``base_config``, ``extends``, ``inherit_from`` or
   ``base`` (a path ending in .yaml/.yml/.json, or a list of them): read first, this file overrides.
@@ -161,15 +163,28 @@ def _find(name: str, folders: list[Path]) -> Path:
 
 def _entry_key(entry: Any) -> tuple[str, Any] | None:
     """('group[@pkg]', option) for a dict entry of a defaults list."""
+    found = _entry(entry)
+    return (found[0], found[1]) if found is not None else None
+
+
+def _entry(entry: Any) -> tuple[str, Any, bool] | None:
+    """('group[@pkg]', option, optional) for a dict entry of a defaults list."""
     if isinstance(entry, dict) and len(entry) == 1:
         (k, v), = entry.items()
         if isinstance(k, str):
             k = k.strip()
+            optional = False
             for word in ("override ", "optional "):
                 if k.startswith(word):
+                    optional = optional or word == "optional "
                     k = k[len(word):].strip()
-            return k, v
+            return k, v, optional
     return None
+
+
+# Hydra's own groups (launchers, sweepers, logging) come from Hydra and its plugins, not from the
+# config folder, and set nothing the training run reads (Hydra 1.1+, "The hydra package")
+_HYDRA_GROUPS = ("hydra/",)
 
 
 def _compose_file(doc: Document, file: str, state: _State, depth: int) -> _Layer:
@@ -206,10 +221,12 @@ def _compose_file(doc: Document, file: str, state: _State, depth: int) -> _Layer
                 sub, subname = _read(_find(entry, [here, state.primary_dir]), state)
                 layers.append(_compose_file(sub, subname, state, depth + 1))
                 continue
-            pair = _entry_key(entry)
-            if pair is None:
+            found = _entry(entry)
+            if found is None:
                 raise ComposeError(f"a defaults entry cfgcheck cannot read: {entry!r}")
-            group, option = pair
+            group, option, optional = found
+            if group.lstrip("/").startswith(_HYDRA_GROUPS):
+                continue
             group, _, package = group.partition("@")
             option = state.choices.get(group.lstrip("/"), option)
             options = option if isinstance(option, list) else [option]
@@ -219,7 +236,13 @@ def _compose_file(doc: Document, file: str, state: _State, depth: int) -> _Layer
                 if not isinstance(opt, (str, int, float)) or isinstance(opt, bool):
                     raise ComposeError(f"a defaults entry cfgcheck cannot read: {entry!r}")
                 rel = f"{group.lstrip('/')}/{opt}"
-                sub, subname = _read(_find(rel, [state.primary_dir, here]), state)
+                try:
+                    where = _find(rel, [state.primary_dir, here])
+                except ComposeError:
+                    if optional:  # Hydra skips an optional entry whose file is not there
+                        continue
+                    raise
+                sub, subname = _read(where, state)
                 inner = _compose_file(sub, subname, state, depth + 1)
                 target = package or group.lstrip("/")
                 prefix = () if target in ("_global_", "") else tuple(target.replace("/", ".").split("."))

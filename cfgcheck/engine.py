@@ -335,6 +335,10 @@ def lint_documents(docs: list[Document], file: str, options: Options,
                     sweep.lint_override_sweep(base, file, varying, run, report, layout)
                     continue
             doc = _composed(doc, file, options, report)
+            names, cands = sweep.hydra_grid(doc) if not file.startswith("<") else ([], [])
+            if names:  # the config's own multirun grid: one run per combination
+                sweep.lint_hydra_grid(doc, file, names, cands, run, report, layout)
+                continue
             view = build_view(doc, layout)
             if not view.skipped:
                 open_view(view, file, options)  # links, launch context, runner defaults, GPUs

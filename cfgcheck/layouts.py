@@ -402,7 +402,7 @@ TRAINER = Layout(
     restricted_sections=frozenset("eval evaluation validation val test".split()),
     foreign_sections=frozenset("teacher teacher_model ref_model reference_model ref reward_model critic "
                                "value_model draft_model judge vllm generation generation_config gen_kwargs "
-                               "generation_kwargs inference deepspeed fsdp_config accelerate".split()),
+                               "generation_kwargs inference deepspeed fsdp_config accelerate hydra".split()),
     search_all_sections=True,
     reads="top-level transformers / PEFT / TRL argument names; the same names inside any section, "
           "with section-local names by what the section holds (model: name_or_path, scheduler: type, "

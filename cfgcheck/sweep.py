@@ -3,7 +3,8 @@
 A sweep file is recognised by a top-level ``parameters:`` mapping whose entries say how a
 setting varies (``values: [...]``, ``value: x``, ``min:``/``max:``) beside the sweep's own keys
 (``method``, ``program``, ``metric``, ``command``) — the shape of W&B sweep configurations — or
-by list-valued overrides (``key=a,b,c``, the multirun syntax of Hydra-style launchers).
+by list-valued overrides (``key=a,b,c``, the multirun syntax of Hydra-style launchers), or by the
+grid a config gives Hydra's multirun itself (``hydra.sweeper.params``, ``hydra_grid``).
 Each parameter contributes its candidate values (``min``/``max``: both ends); the runs are their
 product. All runs are linted when there are at most ``ALL_UP_TO`` of them; otherwise the two
 extreme runs (every parameter at its first / its last candidate), each parameter's ends with the
@@ -150,6 +151,37 @@ def split_overrides(overrides) -> tuple[list[str], list[tuple[str, list]]]:
         else:
             fixed.append(item)
     return fixed, varying
+
+
+def hydra_grid(doc: Document) -> tuple[list[str], list[list[tuple[Any, Any]]]]:
+    """The grid a config defines for Hydra's multirun (Hydra 1.2+, ``hydra.sweeper.params``:
+    ``key: a,b,c`` or ``key: choice(a,b)``): (names, candidates located at the param's line);
+    empty when the config defines none."""
+    from .compose import override_value
+
+    data = doc.data if isinstance(doc.data, dict) else {}
+    hydra = data.get("hydra")
+    sweeper = hydra.get("sweeper") if isinstance(hydra, dict) else None
+    params = sweeper.get("params") if isinstance(sweeper, dict) else None
+    names: list[str] = []
+    cands: list[list[tuple[Any, Any]]] = []
+    for key, raw in (params.items() if isinstance(params, dict) else ()):
+        if not isinstance(key, str):
+            continue
+        text = str(raw).strip() if isinstance(raw, (str, int, float)) and not isinstance(raw, bool) else ""
+        if text.startswith("choice(") and text.endswith(")"):
+            text = text[len("choice("):-1]
+        if not text or "(" in text or "," not in text:
+            continue  # one value, or a range()/interval() this reader does not expand
+        entry = doc.entries.get(("hydra", "sweeper", "params", key))
+        names.append(key.lstrip("+"))
+        cands.append([(override_value(part.strip()), entry) for part in text.split(",")])
+    return names, cands
+
+
+def lint_hydra_grid(base_doc: Document, file: str, names, cands, run, report, layout: str | None = None) -> None:
+    """Lint the runs of the config's own multirun grid over the config itself."""
+    lint_runs(base_doc, file, names, cands, base_doc, file, run, report, layout)
 
 
 def lint_sweep(doc: Document, file: str, run, report, layout: str | None = None) -> None:

@@ -1445,6 +1445,25 @@ case("torchtune-full-recipe-sgd-typo", {"tt.yaml": tt("llama2", "llama2_7b", 409
                                                  "_component_: torch.optim.SGD\n  momentum: 0.9\n  nesterov_: True")},
      "unknown-key", ("tt.yaml", "nesterov_:", "nesterov:"), at="optimizer.nesterov_")
 
+# ----------------------------------------------------------------------------- Hydra's own groups and grids
+
+case("composed-with-hydra-plugin-groups", {
+    "conf/train.yaml": "defaults:\n  - model: llama\n  - optional local: mine\n  - override hydra/launcher: joblib\n"
+                       "  - _self_\nlearning_rate: 1.0e-4\nnum_train_epochs: 1\n",
+    "conf/model/llama.yaml": f"model_name_or_path: {L2}\n"},
+    "full-finetune-lr-too-high", ("conf/train.yaml", "learning_rate: 1.0e-4", "learning_rate: 2.0e-5"),
+    target="conf/train.yaml")
+case("hydra-sweeper-grid-one-combination-fails", {
+    "conf/grid.yaml": "defaults:\n  - model: llama\n  - _self_\nlearning_rate: 2.0e-5\nnum_train_epochs: 1\n"
+                      "hydra:\n  sweeper:\n    params:\n      learning_rate: 1e-5,1e-4\n      weight_decay: 0.0,0.1\n",
+    "conf/model/llama.yaml": f"model_name_or_path: {L2}\n"},
+    "full-finetune-lr-too-high", ("conf/grid.yaml", "1e-5,1e-4", "1e-5,2e-5"), target="conf/grid.yaml",
+    at="learning_rate")
+case("hydra-sweeper-choice-of-lora-alpha", {
+    "exp.yaml": f"model_name_or_path: {L2}\nuse_peft: true\nlora_r: 64\nlora_alpha: 128\nlearning_rate: 1.0e-4\n"
+                "hydra:\n  sweeper:\n    params:\n      lora_alpha: choice(8,128)\n"},
+    "lora-scale-below-one", ("exp.yaml", "choice(8,128)", "choice(64,128)"))
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:
