@@ -380,14 +380,20 @@ def _kinds(**groups: tuple[str, dict[str, str]]) -> dict[str, dict[str, str]]:
 
 _TRAINER_SECTION_NAMES = _kinds(
     model=("model model_args model_arguments model_config base_model llm backbone", _MODEL_NAMES),
-    schedule=("schedule scheduler lr_schedule lr_scheduler learning_rate_schedule sched", _SCHEDULE_NAMES),
-    optim=("optim optimizer optimiser optimization optimisation", _OPTIM_NAMES),
-    adapter=("lora peft peft_config adapter adapters lora_config lora_args peft_args", _ADAPTER_NAMES),
-    quant=("quantization quantization_config quant bnb bitsandbytes", _QUANT_NAMES),
+    schedule=("schedule scheduler lr_schedule lr_scheduler learning_rate_schedule sched scheduler_config "
+              "lr_scheduler_config schedule_config", _SCHEDULE_NAMES),
+    optim=("optim optimizer optimiser optimization optimisation optimizer_config optimizer_args optim_config",
+           _OPTIM_NAMES),
+    adapter=("lora peft peft_config adapter adapters lora_config lora_args peft_args lora_params peft_params "
+             "lora_hparams lora_settings", _ADAPTER_NAMES),
+    quant=("quantization quantization_config quant bnb bitsandbytes quant_config bnb_config quantisation "
+           "quantisation_config quantization_args", _QUANT_NAMES),
     train=("training train trainer training_args training_arguments args hyperparameters hparams run config "
            "train_config training_config trainer_config trainer_args train_args hyperparams params settings "
-           "sft sft_config dpo dpo_config grpo grpo_config orpo kto finetune finetuning fine_tuning", _TRAIN_NAMES),
-    data=("data data_args data_arguments dataset tokenizer", _DATA_NAMES),
+           "sft sft_config dpo dpo_config grpo grpo_config orpo kto finetune finetuning fine_tuning "
+           "training_hparams train_hparams train_params training_params trainer_kwargs training_kwargs sft_args",
+           _TRAIN_NAMES),
+    data=("data data_args data_arguments dataset tokenizer data_config dataset_config data_params", _DATA_NAMES),
     eval=("eval evaluation validation val", _EVAL_NAMES),
     log=("logging log", _LOG_NAMES),
     save=("checkpointing checkpoint checkpoints save saving", _SAVE_NAMES),

@@ -1464,6 +1464,37 @@ case("hydra-sweeper-choice-of-lora-alpha", {
                 "hydra:\n  sweeper:\n    params:\n      lora_alpha: choice(8,128)\n"},
     "lora-scale-below-one", ("exp.yaml", "choice(8,128)", "choice(64,128)"))
 
+# ----------------------------------------------------------------------------- more section names
+
+case("bnb-config-section-with-full-finetune", {"run.yaml": f"""\
+model:
+  name_or_path: {L2}
+bnb_config:
+  load_in_4bit: true
+  bnb_4bit_quant_type: nf4
+training_params:
+  lr: 1.0e-5
+  epochs: 1
+"""}, "full-finetune-of-quantised-base", ("run.yaml", "load_in_4bit: true", "load_in_4bit: false"))
+case("lora-params-and-optimizer-config", {"run.json": f"""{{
+  "model_config": {{"model_name": "{L2}"}},
+  "lora_params": {{"rank": 64, "alpha": 8, "dropout": 0.05}},
+  "optimizer_config": {{"name": "adamw_torch", "lr": 1e-4}},
+  "scheduler_config": {{"type": "cosine", "warmup_steps": 30}}
+}}
+"""}, "lora-scale-below-one", ("run.json", '"alpha": 8', '"alpha": 128'))
+case("scheduler-config-constant-with-warmup", {"run.yaml": f"""\
+model_name_or_path: {L2}
+peft_params:
+  r: 8
+  lora_alpha: 16
+trainer_kwargs:
+  learning_rate: 2.0e-4
+scheduler_config:
+  name: constant
+  warmup_steps: 40
+"""}, "constant-schedule-ignores-warmup", ("run.yaml", "name: constant", "name: constant_with_warmup"))
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:
