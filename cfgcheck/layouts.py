@@ -722,6 +722,7 @@ LLAMA_FACTORY = Layout(
 
 LLAMA_FACTORY_V1 = Layout(
     name="llama-factory-v1",
+    key_table="llama-factory-v1",  # its own closed argument set (knowledge/runner_keys.json)
     title="LLaMA-Factory v1 arguments (model, peft_config block, micro_batch_size, cutoff_len)",
     default_method="full",  # no peft_config block: every weight trains
     trainer_schedule=True,
@@ -736,10 +737,16 @@ LLAMA_FACTORY_V1 = Layout(
         "optim.lr": ("=learning_rate",),
         "optim.max_steps": ("=max_steps",),
         "optim.epochs": ("=num_train_epochs",),
+        # v1 TrainingArguments (llamafactory 0.9.5 v1/config/training_args.py) has micro_batch_size
+        # and global_batch_size ("default to DP size * micro batch size"), no accumulation key
         "batch.per_device": ("=micro_batch_size",),
-        "batch.accumulation": ("=gradient_accumulation_steps",),
+        "batch.global": ("=global_batch_size",),
         "data.seq_len": ("=cutoff_len",),
         "precision.bf16": ("=bf16",),
+        "optim.grad_clip": ("=max_grad_norm",),
+        "cadence.save_steps": ("=save_steps",),
+        "cadence.logging_steps": ("=logging_steps",),
+        "runtime.gradient_checkpointing": ("=enable_activation_checkpointing",),
     },
     # its own keys weigh more than the trainer names a peft_config block spells (r, lora_alpha,
     # lora_dropout, target_modules), which are no trainer settings here

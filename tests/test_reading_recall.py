@@ -1232,7 +1232,7 @@ dist_config:
 train_dataset: data/harbor_sft.yaml
 output_dir: outputs/harbor
 micro_batch_size: 2
-gradient_accumulation_steps: 4
+global_batch_size: 32
 cutoff_len: 4096
 learning_rate: 1.0e-4
 max_steps: 500
@@ -1241,6 +1241,15 @@ V1_FULL = V1.replace("peft_config:\n  name: lora\n  r: 16\n  lora_alpha: 32\n  l
 case("llamafactory-v1-full-hot", {"v1.yaml": V1_FULL}, "full-finetune-lr-too-high", ("v1.yaml", "1.0e-4", "2.0e-5"))
 case("llamafactory-v1-cutoff-beyond-context", {"v1.yaml": V1.replace("cutoff_len: 4096", "cutoff_len: 65536")},
      "seq-len-above-context-window", ("v1.yaml", "cutoff_len: 65536", "cutoff_len: 32768"))
+case("llamafactory-v1-typo-cutoff", {"v1.yaml": V1.replace("cutoff_len:", "cutof_len:")},
+     "unknown-key", ("v1.yaml", "cutof_len:", "cutoff_len:"), at="cutof_len")
+# bf16 is on by default in the v1 trainer (llamafactory 0.9.5 v1/config/training_args.py)
+case("llamafactory-v1-default-bf16-on-v100", {"v1.yaml": V1.replace("Qwen/Qwen2.5-7B-Instruct", SMALL)
+                                              .replace("micro_batch_size: 2", "micro_batch_size: 1")
+                                              .replace("global_batch_size: 32", "global_batch_size: 8")
+                                              .replace("cutoff_len: 4096", "cutoff_len: 512")},
+     "precision-unsupported-on-gpu", ("v1.yaml", "max_steps: 500\n", "max_steps: 500\nbf16: false\n"),
+     options={"gpu": "v100", "gpus": 8})
 case("llamafactory-v1-lora-alpha-small", {"v1.yaml": V1.replace("r: 16\n  lora_alpha: 32", "r: 128\n  lora_alpha: 8")},
      "lora-scale-below-one", ("v1.yaml", "lora_alpha: 8", "lora_alpha: 256"))
 

@@ -41,7 +41,8 @@ The recipe runners (axolotl, LLaMA-Factory, torchtune) are scanned at one releas
   settings models in ``axolotl/integrations/*/args.py``;
 * ``llama-factory`` - dataclass fields of the argument classes ``get_train_args`` parses
   (``llamafactory/hparams/*.py``); its ``TrainingArguments`` derives from transformers', so
-  the transformers keys count too;
+  the transformers keys count too; ``llama-factory-v1``: the v1 trainer's own argument classes
+  (``llamafactory/v1/config/*_args.py``), a closed set;
 * ``torchtune``     - the keys the recipes (``recipes/*.py``) read from their config
   (``cfg.x``, ``cfg.get("x")``), and the parameters of every public function and class of the
   package, the ``_component_`` targets whose sub-keys are their arguments; and the parameters
@@ -867,6 +868,26 @@ def scan_llamafactory(pkg: Package) -> tuple[Found, list[str]]:
     return found, files
 
 
+def scan_llamafactory_v1(pkg: Package) -> tuple[Found, list[str]]:
+    """LLaMA-Factory's v1 trainer: the dataclasses ``llamafactory/v1/config/arg_parser.py`` get_args
+    parses with HfArgumentParser.parse_dict (extra keys refused unless ALLOW_EXTRA_KEYS is set)."""
+    found: Found = {}
+    files = []
+    for modname, clsname in [
+        ("llamafactory.v1.config.model_args", "ModelArguments"),
+        ("llamafactory.v1.config.data_args", "DataArguments"),
+        ("llamafactory.v1.config.training_args", "TrainingArguments"),
+        ("llamafactory.v1.config.sample_args", "SampleArguments"),
+    ]:
+        mod = pkg.module(modname)
+        if mod is None or clsname not in mod.classes:
+            raise SystemExit(f"no v1 {clsname} in the llamafactory archive")
+        for name, (declaring, _m, _a, _v) in all_fields(pkg, mod, mod.classes[clsname]).items():
+            add(found, name, f"llamafactory.v1.{declaring.name}")
+        files.append(f"{pkg.by_name[modname]} {clsname}")
+    return found, files
+
+
 def _signature(node: ast.FunctionDef | ast.ClassDef, pkg: Package, mod: Module, depth: int = 0):
     """(parameter names, takes **kwargs) of a function, or of a class's __init__."""
     if isinstance(node, ast.ClassDef):
@@ -1033,6 +1054,12 @@ def build_runners(cache: Path, offline: bool) -> dict:
         if components is not None:
             entry["components"] = dict(sorted(components.items()))
         layouts[RUNNER_LAYOUT[lib]] = entry
+        if lib == "llamafactory":  # the v1 trainer in the same release: its own closed argument set
+            found, files = scan_llamafactory_v1(pkg)
+            print(f"{lib} {version} v1: {len(found)} keys", file=sys.stderr)
+            layouts["llama-factory-v1"] = {
+                "source": f"{lib} {version} (wheel from PyPI)", "files": files, "closed": True,
+                "keys": {k: sorted(v) for k, v in sorted(found.items())}}
     return {"format": 1, "generated_by": "tools/generate_known_keys.py", "layouts": layouts}
 
 

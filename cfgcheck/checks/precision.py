@@ -15,6 +15,9 @@ def _wanted(view):
     out = []
     for name in ("precision.bf16",):
         f = view.get(name)
+        if f is None:  # not written: the runner's own default, where it turns bf16 on
+            d = view.effective(name)
+            f = d if d is not None and d.origin == "default" else None
         if f is not None and f.value is True:
             out.append(("bf16", f))
     for name in ("model.dtype", "quant.compute_dtype"):
@@ -104,6 +107,8 @@ def _bf16_fix(view, fields, gpu):
     edits: list[Edit] = []
     words: list[str] = []
     turned_fp16 = False
+    if any(not f.path for f in fields):
+        return None  # a default or a launch file's value: nothing written here to change
     for f in fields:
         if f.name == "precision.bf16":
             edits.append(Edit(path=f.path, old=f.written, new=False))
