@@ -112,6 +112,15 @@ class RunView:
 
 # --------------------------------------------------------------------------- detection
 
+_CAMEL = re.compile(r"(?<=[a-z0-9])(?=[A-Z])")
+
+
+def section_word(key: str) -> str:
+    """A section name as the tables spell it: lower case, CamelCase split (TrainingArguments ->
+    training_arguments), dashes as underscores."""
+    return _CAMEL.sub("_", key).lower().replace("-", "_")
+
+
 def _score(layout: Layout, data: dict) -> int:
     names = set(data)
     for section, prefixes in layout.sections.items():
@@ -123,7 +132,25 @@ def _score(layout: Layout, data: dict) -> int:
                 names.update(p + str(key) for p in prefixes)
                 if key in local and section not in layout.restricted_sections:
                     names.add(local[key])
+    if layout.search_all_sections:  # sections named as the author likes, nested too
+        _score_nested(layout, data, names, 0)
     return sum(layout.signature.get(k, 0) for k in names if isinstance(k, str))
+
+
+def _score_nested(layout: Layout, mapping: dict, names: set, depth: int) -> None:
+    for key, value in mapping.items():
+        if not isinstance(key, str) or not isinstance(value, dict) or depth >= _MAX_SECTION_DEPTH - 1:
+            continue
+        word = section_word(key)
+        if word in layout.foreign_sections or word in layout.restricted_sections:
+            continue
+        local = layout.section_names.get(word, {})
+        for sub in value:
+            if isinstance(sub, str):
+                names.add(sub)
+                if sub.lower() in local:
+                    names.add(local[sub.lower()])
+        _score_nested(layout, value, names, depth + 1)
 
 
 NOT_READ_YET = "not a format cfgcheck reads (yet)"
@@ -220,8 +247,8 @@ def _index(layout: Layout, data: dict) -> dict[str, list[tuple]]:
             if not isinstance(key, str):
                 continue
             path = base + (key,)
-            if key in local:
-                put(local[key], path)
+            if key.lower() in local:
+                put(local[key.lower()], path)
             if not restricted:
                 put(key, path)
                 for pre in prefixes:
@@ -231,7 +258,7 @@ def _index(layout: Layout, data: dict) -> dict[str, list[tuple]]:
                 put(key, path)  # a full name of an evaluation or checkpoint setting is that setting
             if not isinstance(value, dict) or len(base) >= _MAX_SECTION_DEPTH - 1:
                 continue
-            lowered = key.lower()
+            lowered = section_word(key)
             if lowered in layout.foreign_sections:
                 continue
             named = key in layout.sections or lowered in layout.section_names

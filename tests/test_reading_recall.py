@@ -1504,6 +1504,29 @@ scheduler_config:
   warmup_steps: 40
 """}, "constant-schedule-ignores-warmup", ("run.yaml", "name: constant", "name: constant_with_warmup"))
 
+# ----------------------------------------------------------------------------- wrapped and CamelCase sections
+
+case("everything-under-an-experiment-wrapper", {"run.yaml": f"""\
+experiment:
+  model:
+    name_or_path: {L2}
+  training:
+    learning_rate: 1.0e-4
+    num_train_epochs: 1
+"""}, "full-finetune-lr-too-high", ("run.yaml", "1.0e-4", "2.0e-5"), at="experiment.training.learning_rate")
+case("dataclass-named-sections-in-json", {"args.json": f"""{{
+  "ModelArguments": {{"model_name_or_path": "{MISTRAL}"}},
+  "DataTrainingArguments": {{"max_seq_length": 65536}},
+  "TrainingArguments": {{"learning_rate": 2e-5, "num_train_epochs": 1}}
+}}
+"""}, "seq-len-above-context-window", ("args.json", "65536", "32768"))
+case("upper-case-local-names", {"run.yaml": f"""\
+model_name_or_path: {L2}
+Training:
+  LR: 1.0e-4
+  Epochs: 1
+"""}, "full-finetune-lr-too-high", ("run.yaml", "LR: 1.0e-4", "LR: 2.0e-5"), at="Training.LR")
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:
