@@ -374,11 +374,14 @@ def _composed(doc: Document, file: str, options: Options, report: FileReport) ->
             return doc
     for lay in EXPERIMENT_LAYOUTS:  # an experiment of a runner, read over the runner's defaults
         base = compose.experiment_base(file, lay.experiment_root, lay.experiment_defaults)
-        if base is not None and detect_layout(doc.data)[0] is lay:
-            try:
-                return compose.compose_over_defaults(doc, file, base)
-            except compose.ComposeError as exc:
-                report.compose_problem = str(exc)
+        if base is None:
+            continue
+        try:  # an experiment may write a single setting: the composed run says what it is
+            composed = compose.compose_over_defaults(doc, file, base)
+        except compose.ComposeError:
+            continue  # the defaults file is not readable: it is reported on its own
+        if detect_layout(composed.data)[0] is lay:
+            return composed
     return doc
 
 

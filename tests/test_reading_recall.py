@@ -1527,6 +1527,12 @@ Training:
   Epochs: 1
 """}, "full-finetune-lr-too-high", ("run.yaml", "LR: 1.0e-4", "LR: 2.0e-5"), at="Training.LR")
 
+case("bench-experiment-writing-one-setting", {
+    "bench/experiments/lora/long/training_params.json": '{"max_seq_length": 262144}\n',
+    "bench/default_training_params.json": BENCH,
+    "bench/experiments/lora/long/adapter_config.json": BENCH_ADAPTER},
+    "seq-len-above-context-window", ("bench/experiments/lora/long/training_params.json", "262144", "4096"))
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:
