@@ -1533,6 +1533,22 @@ case("bench-experiment-writing-one-setting", {
     "bench/experiments/lora/long/adapter_config.json": BENCH_ADAPTER},
     "seq-len-above-context-window", ("bench/experiments/lora/long/training_params.json", "262144", "4096"))
 
+case("deepspeed-gpus-from-hardware-section", {
+    "run.yaml": f"""\
+model:
+  name_or_path: {L2}
+lora:
+  r: 16
+  alpha: 32
+train:
+  batch_size: 4
+  grad_accum: 2
+  lr: 2.0e-4
+hardware:
+  gpus: 4
+deepspeed: ds.json
+""", "ds.json": DS}, "deepspeed-file-contradicts-config", ("ds.json", '"train_batch_size": 64', '"train_batch_size": 32'))
+
 # ----------------------------------------------------------------------------- the test
 
 def _write(tmp_path, files: dict[str, str]) -> None:
