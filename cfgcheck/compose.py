@@ -19,6 +19,8 @@ How the loaders compose, as followed here:
 * ``key=value`` overrides (the launch command line): ``a.b=1`` sets, ``+a.b=1`` adds, ``++a.b=1``
   sets or adds, ``~a.b`` removes; the value is read as a YAML scalar. ``group=option`` for a group
   the defaults list names picks that group's other file instead (Hydra's group override).
+* the arguments of a launch script that starts the config (``scripts.override_document``): a
+  layer applied last, each value located at the script line that wrote it.
 * a runner's experiment folder (a layout's ``experiment_root``): the file is read over the
   runner's defaults file, a top-level key replacing the default's whole value
   (``compose_over_defaults``, called by the engine).
@@ -361,9 +363,28 @@ def composes(data: Any) -> bool:
     return False
 
 
+def _apply_located(merged: _Layer, located: Document) -> None:
+    """The launch script's arguments over the composed config, each located where it was written;
+    the note names the script line and the config line it overrode."""
+    for path, entry in located.entries.items():
+        if not path or entry.kind != "scalar":
+            continue
+        value = _value_at(located.data, path)
+        before = merged.origin.get(path)
+        if before is not None and merged.chain.get(path):
+            src_file, src_doc, doc_path = before
+            old = src_doc.entries.get(doc_path)
+            if old is not None and merged.chain[path][-1] == src_file:
+                merged.chain[path][-1] = f"{src_file}:{old.value.line}"
+        label = f"{located.name}:{entry.value.line}"
+        _set(merged, path, value, label)
+        merged.origin[path] = (located.name, located, path)
+
+
 def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (),
-            override_label: str = "the command line") -> Document:
-    """DOC composed with the files it names and the overrides; raises ComposeError."""
+            override_label: str = "the command line", located: Document | None = None) -> Document:
+    """DOC composed with the files it names, the overrides and a launch script's located
+    arguments (applied last); raises ComposeError."""
     state = _State(primary_dir=Path(file).parent)
     state.files.append(file)
     state.docs[file] = doc
@@ -371,6 +392,8 @@ def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (
     merged = _compose_file(doc, file, state, 0)
     if overrides:
         _apply_overrides(merged, list(overrides), override_label)
+    if located is not None:
+        _apply_located(merged, located)
     entries, origins, chains = {}, {}, {}
     ambiguities = []
     for path, (src_file, src_doc, doc_path) in merged.origin.items():

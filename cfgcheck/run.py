@@ -13,6 +13,7 @@ Every value that does not come from the file itself is a ``Field`` in ``view.sup
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -20,7 +21,8 @@ from typing import Any
 from . import load as loadmod
 from .defaults import DEFAULTS
 from .load import LoadError
-from .view import Field, RunView, build_view
+from .layouts import LAYOUTS
+from .view import Field, RunView, build_view, detect_layout
 
 _DISTRIBUTED_WORDS = {"DEEPSPEED": "DeepSpeed", "FSDP": "FSDP", "MULTI_GPU": "data parallel (DDP)",
                       "NO": "one process", "MEGATRON_LM": "Megatron-LM", "XLA": "XLA"}
@@ -427,10 +429,67 @@ def open_view(view: RunView, file: str, options: Any = None) -> OpenedRun:
     return run
 
 
+def script_layer(file: str, options: Any) -> Any:
+    """The arguments of the launch script that starts FILE, when they override it (a document
+    located at the script's lines), else None."""
+    script = getattr(options, "script", None)
+    if script is None or file.startswith("<"):
+        return None
+    if os.path.normpath(os.path.abspath(file)) not in script.configs:
+        return None
+    from .compose import override_value
+    from .scripts import override_document
+
+    return override_document(script, override_value)
+
+
+def composed(doc: Any, file: str, options: Any) -> tuple[Any, str]:
+    """(DOC composed with the files it names, the launch's ``key=value`` overrides and the
+    arguments of the launch script that starts it; why a named file could not be read, or "").
+    As written when there is nothing to compose, or when composing fails."""
+    from . import compose
+    from .sweep import split_overrides
+
+    located = script_layer(file, options)
+    # list-valued overrides make a sweep of runs (sweep.py): only the fixed ones compose here
+    overrides = tuple(split_overrides(tuple(getattr(options, "overrides", ()) or ()))[0])
+    if file.startswith("<"):
+        return doc, ""
+    if overrides or located is not None or compose.composes(doc.data):
+        try:
+            doc = compose.compose(doc, file, overrides, located=located)
+        except compose.ComposeError as exc:
+            return doc, str(exc)
+    return _over_runner_defaults(doc, file), ""
+
+
+# layouts whose runner reads an experiment folder over its own defaults file
+_EXPERIMENT_LAYOUTS = tuple(lay for lay in LAYOUTS if lay.experiment_root)
+
+
+def _over_runner_defaults(doc: Any, file: str) -> Any:
+    """DOC read over its runner's defaults file, when it is an experiment of such a runner."""
+    from . import compose
+
+    for lay in _EXPERIMENT_LAYOUTS:
+        base = compose.experiment_base(file, lay.experiment_root, lay.experiment_defaults)
+        if base is None:
+            continue
+        try:  # an experiment may write a single setting: the composed run says what it is
+            out = compose.compose_over_defaults(doc, file, base)
+        except compose.ComposeError:
+            continue  # the defaults file is not readable: it is reported on its own
+        if detect_layout(out.data)[0] is lay:
+            return out
+    return doc
+
+
 def open_documents(docs: list, file: str, options: Any = None, layout: str | None = None) -> list[OpenedRun]:
-    """Every document of a file, opened (skipped documents too, with ``view.skipped`` set)."""
+    """Every document of a file, composed and opened (skipped documents too, with
+    ``view.skipped`` set)."""
     out = []
     for doc in docs:
+        doc, _problem = composed(doc, file, options)
         view = build_view(doc, layout)
         if view.skipped:
             out.append(OpenedRun(view=view, file=file, cwd=getattr(options, "cwd", None), launch=LaunchContext()))
