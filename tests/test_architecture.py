@@ -396,3 +396,13 @@ def test_frozen_tables_refuse_changes():
         except TypeError:
             continue
         raise AssertionError("a module table took a new entry")
+
+
+def test_every_runner_defaults_table_is_named_by_a_layout():
+    """A table in defaults.DEFAULTS reaches a run only through ``Layout.defaults_table``."""
+    from cfgcheck.defaults import DEFAULTS
+    from cfgcheck.layouts import LAYOUTS
+
+    named = {lay.defaults_table for lay in LAYOUTS if lay.defaults_table}
+    assert set(DEFAULTS) - named == set(), "name the table in its layout: defaults_table=..."
+    assert named - set(DEFAULTS) == set(), "a layout names a defaults table that does not exist"
