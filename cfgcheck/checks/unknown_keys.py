@@ -45,7 +45,22 @@ def _read_somewhere() -> frozenset[str]:
         for specs in lay.fields.values():
             names.update(s.rpartition(".")[2].lstrip("=") for s in specs)
         names.update(lay.sections)
+    for comps in keys._data()["components"].values():  # torchtune components' parameters
+        for info in comps.values():
+            names.update(info["params"])
+    names.update(_OPTIMIZER_PARAMETERS)
     return frozenset(names)
+
+
+# Parameters of the torch optimizers that configs hand on as keyword arguments (DeepSpeed's
+# optimizer.params, an optimizer section of a repository's own script): torch 2.x
+# torch/optim/adamw.py AdamW, sgd.py SGD, adagrad.py Adagrad, rmsprop.py RMSprop signatures
+_OPTIMIZER_PARAMETERS = frozenset("lr betas eps weight_decay amsgrad momentum dampening nesterov foreach "
+                                  "fused maximize capturable differentiable lr_decay alpha centered "
+                                  "initial_accumulator_value".split())
+# mappings that hold another component's keyword arguments (jsonargparse init_args, *_kwargs,
+# DeepSpeed-style params): their keys are that component's, never near misses of ours
+_KEYWORD_MAPPINGS = ("kwargs", "init_args", "params")
 
 
 def _words(text: str) -> list[str]:
@@ -205,6 +220,10 @@ def _section_key(ctx, judge: _Judge, path: tuple, sections: dict) -> None:
     """A key inside a section of a trainer-style file: a near miss of a trainer key is reported."""
     keys = judge.keys
     leaf = path[-1]
+    layout = ctx.view.layout
+    if any(str(p).lower() in layout.foreign_sections or str(p).lower().endswith(_KEYWORD_MAPPINGS)
+           for p in path[:-1]):
+        return  # another component's keyword arguments, or a section of another part of the run
     prefixes = sections.get(path[-2], ()) if len(path) >= 2 else ()
     spellings = [leaf] + [p + leaf for p in prefixes if not leaf.startswith(p)]
     if any(keys.lookup(s, "trainer") is not None or s in _read_somewhere() for s in spellings):

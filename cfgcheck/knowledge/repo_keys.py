@@ -5,10 +5,13 @@ Many training repositories run their own script: its argument dataclasses and it
 holds a config are parsed with :mod:`ast` — never imported or run — for
 
 * the fields of classes decorated with ``@dataclass`` (``HfArgumentParser`` turns each field
-  into a key), and of pydantic-style settings classes (annotated fields of a class whose base is
-  named ``BaseModel`` or ``BaseSettings``);
-* the options of ``add_argument("--max-train-samples", dest=...)`` calls (the key is the
-  ``dest``, else the long option with dashes turned into underscores).
+  into a key) or an attrs decorator, and of settings classes (pydantic ``BaseModel`` /
+  ``BaseSettings``, simple-parsing ``Serializable``, ``NamedTuple``, ``TypedDict``, and their
+  subclasses in the same file), with the aliases their ``Field(alias=...)`` give;
+* the options of ``add_argument("--max-train-samples", dest=...)`` and ``click.option`` calls
+  (the ``dest`` and every long option with dashes turned into underscores);
+* the parameters of a function handed to ``fire.Fire`` or ``jsonargparse.CLI``;
+* string keys read from a mapping that a YAML / JSON / TOML / OmegaConf loader returned.
 
 The repository is the nearest folder above the config that holds ``.git``, ``pyproject.toml``,
 ``setup.py`` or ``setup.cfg`` (at most six levels up); without one nothing is scanned.
@@ -92,15 +95,6 @@ def _base_names(cls: ast.ClassDef) -> set[str]:
     return names
 
 
-def _is_dataclass(cls: ast.ClassDef) -> bool:
-    for d in cls.decorator_list:
-        target = d.func if isinstance(d, ast.Call) else d
-        name = target.id if isinstance(target, ast.Name) else getattr(target, "attr", None)
-        if name == "dataclass":
-            return True
-    return False
-
-
 def _call_name(node: ast.Call) -> str:
     f = node.func
     if isinstance(f, ast.Attribute):
@@ -148,34 +142,139 @@ _READER_WORDS = {
 }
 
 
+# base classes whose annotated fields are settings (pydantic, simple-parsing, typed tuples and
+# dictionaries, the transformers argument classes a script extends)
+_SETTINGS_BASES = {"BaseModel", "BaseSettings", "Serializable", "FrozenSerializable", "NamedTuple",
+                   "TypedDict", "TrainingArguments", "Seq2SeqTrainingArguments"}
+# decorators that make a class's fields settings (dataclasses, pydantic dataclasses, attrs)
+_FIELD_DECORATORS = {"dataclass", "define", "frozen", "mutable", "s", "attrs"}
+# calls whose result is a config mapping read from a file: subscripts and .get() on it name keys
+_LOADERS = ("yaml.safe_load", "yaml.load", "yaml.full_load", "json.load", "json.loads", "toml.load",
+            "tomllib.load", "OmegaConf.load", "OmegaConf.create")
+# callables that turn a function's parameters into command-line options
+_CLI_FROM_FUNCTION = ("fire.Fire", "Fire", "CLI", "jsonargparse.CLI", "auto_cli")
+
+
+def _decorator_names(node) -> set[str]:
+    names = set()
+    for d in node.decorator_list:
+        target = d.func if isinstance(d, ast.Call) else d
+        if isinstance(target, ast.Name):
+            names.add(target.id)
+        elif isinstance(target, ast.Attribute):
+            names.add(target.attr)
+    return names
+
+
+def _field_call(value) -> bool:
+    """``attr.ib()`` / ``attrs.field()`` / ``field()``: a field written without an annotation."""
+    return isinstance(value, ast.Call) and _call_name(value).rpartition(".")[2] in ("ib", "attrib", "field")
+
+
+def _option_names(node: ast.Call) -> list[str]:
+    """The setting names one ``add_argument`` / ``click.option`` call accepts: its ``dest``, and
+    each long option with dashes turned into underscores (a config turned into ``--key value``
+    text names the option as written, ``grad_accum`` for ``--grad-accum``)."""
+    options = [a.value for a in node.args if isinstance(a, ast.Constant) and isinstance(a.value, str)]
+    dest = next((k.value.value for k in node.keywords if k.arg == "dest"
+                 and isinstance(k.value, ast.Constant) and isinstance(k.value.value, str)), None)
+    names = [o.lstrip("-").replace("-", "_") for o in options if o.startswith("--")]
+    plain = [o for o in options if not o.startswith("-")]
+    if dest is None and not names and plain:
+        names = [plain[0]]  # a positional argument
+    if dest is not None:
+        names.insert(0, dest)
+    return [n for n in names if n.isidentifier()]
+
+
+def _function_parameters(fn) -> list[str]:
+    a = fn.args
+    return [p.arg for p in a.posonlyargs + a.args + a.kwonlyargs if p.arg not in ("self", "cls")]
+
+
 def keys_of_source(text: str, label: str = "") -> dict[str, str]:
-    """Setting names declared in one Python source: key -> where (file and class or option)."""
+    """Setting names declared in one Python source: key -> where (file and class or option).
+
+    Read shapes: fields of dataclasses (``field(default=...)`` or plain defaults), attrs classes
+    (annotated or ``attr.ib()``), pydantic models and settings, simple-parsing ``Serializable``
+    classes, ``NamedTuple`` / ``TypedDict`` classes and subclasses of any of these defined in
+    the same source; ``add_argument`` and ``click.option`` options (``dest`` and every long
+    option); the parameters of a function handed to ``fire.Fire`` or ``jsonargparse.CLI``; and
+    string keys read from a mapping a YAML / JSON / TOML / OmegaConf loader returned
+    (``cfg["lr"]``, ``cfg.get("min_lr")``).
+    """
     try:
         tree = ast.parse(text)
     except (SyntaxError, ValueError, RecursionError, MemoryError):
         return {}
     found: dict[str, str] = {}
+    classes = {n.name: n for n in ast.walk(tree) if isinstance(n, ast.ClassDef)}
+    functions = {n.name: n for n in ast.walk(tree) if isinstance(n, (ast.FunctionDef, ast.AsyncFunctionDef))}
+
+    def settings_class(cls: ast.ClassDef, seen: frozenset = frozenset()) -> bool:
+        if _decorator_names(cls) & _FIELD_DECORATORS:
+            return True
+        bases = _base_names(cls)
+        if bases & _SETTINGS_BASES:
+            return True
+        return any(b in classes and b not in seen and settings_class(classes[b], seen | {cls.name})
+                   for b in bases)
+
+    loaded: set[str] = set()  # names bound to a loaded config mapping
     for node in ast.walk(tree):
-        if isinstance(node, ast.ClassDef) and (
-            _is_dataclass(node) or _base_names(node) & {"BaseModel", "BaseSettings"}
-        ):
+        if isinstance(node, ast.Assign) and isinstance(node.value, ast.Call) and _call_name(node.value) in _LOADERS:
+            loaded.update(t.id for t in node.targets if isinstance(t, ast.Name))
+        elif isinstance(node, ast.withitem) and isinstance(node.context_expr, ast.Call) \
+                and _call_name(node.context_expr) in _LOADERS and isinstance(node.optional_vars, ast.Name):
+            loaded.add(node.optional_vars.id)
+
+    def from_loaded(expr) -> bool:
+        while isinstance(expr, (ast.Subscript, ast.Attribute, ast.Call)):
+            if isinstance(expr, ast.Call):
+                expr = expr.func
+            expr = expr.value
+        return isinstance(expr, ast.Name) and expr.id in loaded
+
+    for node in ast.walk(tree):
+        if isinstance(node, ast.ClassDef) and settings_class(node):
             for item in node.body:
+                name = None
                 if isinstance(item, ast.AnnAssign) and isinstance(item.target, ast.Name):
-                    name = item.target.id
-                    if not name.startswith("_") and "ClassVar" not in ast.unparse(item.annotation):
-                        found.setdefault(name, f"{label} {node.name}".strip())
-        elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute)
-              and node.func.attr == "add_argument"):
-            dest = next((k.value.value for k in node.keywords if k.arg == "dest"
-                         and isinstance(k.value, ast.Constant) and isinstance(k.value.value, str)), None)
-            options = [a.value for a in node.args if isinstance(a, ast.Constant) and isinstance(a.value, str)]
-            if dest is None:
-                longs = [o for o in options if o.startswith("--")]
-                plain = [o for o in options if not o.startswith("-")]
-                chosen = longs[0][2:] if longs else (plain[0] if plain else None)
-                dest = chosen.replace("-", "_") if chosen else None
-            if dest and dest.isidentifier():
-                found.setdefault(dest, f"{label} {options[0] if options else dest}".strip())
+                    if "ClassVar" not in ast.unparse(item.annotation):
+                        name = item.target.id
+                elif isinstance(item, ast.Assign) and _field_call(item.value) and len(item.targets) == 1 \
+                        and isinstance(item.targets[0], ast.Name):
+                    name = item.targets[0].id
+                if name and not name.startswith("_"):
+                    found.setdefault(name, f"{label} {node.name}".strip())
+                    value = getattr(item, "value", None)
+                    for kw in value.keywords if isinstance(value, ast.Call) else ():
+                        # pydantic Field(alias=...), simple-parsing field(alias=...)
+                        if kw.arg in ("alias", "validation_alias") and isinstance(kw.value, ast.Constant) \
+                                and isinstance(kw.value.value, str) and kw.value.value.lstrip("-").isidentifier():
+                            found.setdefault(kw.value.value.lstrip("-"), f"{label} {node.name}".strip())
+        elif isinstance(node, ast.Call):
+            called = _call_name(node)
+            if isinstance(node.func, ast.Attribute) and node.func.attr == "add_argument" \
+                    or called in ("click.option", "option"):
+                names = _option_names(node)
+                shown = next((a.value for a in node.args if isinstance(a, ast.Constant)), names[0] if names else "")
+                for n in names:
+                    found.setdefault(n, f"{label} {shown}".strip())
+            elif called in _CLI_FROM_FUNCTION and node.args and isinstance(node.args[0], ast.Name):
+                target = node.args[0].id
+                if target in functions:
+                    for n in _function_parameters(functions[target]):
+                        found.setdefault(n, f"{label} {target}()".strip())
+            elif isinstance(node.func, ast.Attribute) and node.func.attr in ("get", "pop", "setdefault") \
+                    and node.args and isinstance(node.args[0], ast.Constant) \
+                    and isinstance(node.args[0].value, str) and from_loaded(node.func.value):
+                if node.args[0].value.isidentifier():
+                    found.setdefault(node.args[0].value, f"{label} read from the loaded config".strip())
+        elif isinstance(node, ast.Subscript) and isinstance(node.slice, ast.Constant) \
+                and isinstance(node.slice.value, str) and from_loaded(node.value):
+            if node.slice.value.isidentifier():
+                found.setdefault(node.slice.value, f"{label} read from the loaded config".strip())
     return found
 
 
