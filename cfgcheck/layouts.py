@@ -84,6 +84,9 @@ class Layout:
     # unset values take the transformers TrainingArguments defaults (batch 8, 3 epochs, eval
     # "no", save every 500 steps), because the file goes to TrainingArguments as it is
     trainer_defaults: bool = False
+    # the file is parsed only into the argument classes of its repository's own scripts (no
+    # transformers or TRL class among them): set when a run is opened, never in a table
+    read_by_own_classes: bool = False
     # scheduler, warm-up and max_steps/epochs keys reach the transformers Trainer with its meaning
     trainer_schedule: bool = False
     # word lists (schema.CONSTRAINTS ``word_list``) the layout's values are checked against

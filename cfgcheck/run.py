@@ -293,6 +293,24 @@ def _apply_defaults(view: RunView) -> None:
             _supply(view, d.field, value, "default", d.note)
 
 
+def _own_reader(view: RunView, file: str) -> bool:
+    """A trainer-style file whose repository parses its configs only into its own argument
+    classes (no transformers or TRL class among them): TrainingArguments' defaults (batch 8,
+    3 epochs, save every 500 steps) are not the run's, so the layout's runner holds none.
+    Returns whether that is so."""
+    if view.layout is None or not view.layout.trainer_defaults:
+        return False
+    from .knowledge.repo_keys import repo_keys
+
+    repo = repo_keys(file)
+    if repo is None or repo.reader_libraries is None or repo.reader_libraries:
+        return False
+    import dataclasses
+
+    view.layout = dataclasses.replace(view.layout, trainer_defaults=False, read_by_own_classes=True)
+    return True
+
+
 def _apply_linked(view: RunView) -> None:
     for sub in view.attached:
         if sub.layout is None or sub.layout.role != "engine":
@@ -377,9 +395,11 @@ def open_view(view: RunView, file: str, options: Any = None) -> OpenedRun:
     view.run = run
     if view.layout is None:
         return run
+    own = _own_reader(view, file)
     _apply_launch(view, launch)
     _apply_linked(view)
-    _apply_defaults(view)
+    if not own:  # the runner's defaults are those of classes the repository does not use
+        _apply_defaults(view)
     _resolve_gpus(run, options)
     if run.gpus is not None and run.gpus_origin in ("flag", "launch"):
         view.supplied["hardware.num_gpus"] = Field(

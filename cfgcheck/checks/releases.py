@@ -90,7 +90,7 @@ def key_not_in_release(ctx) -> None:
     scanned = data["scanned"]
     newest = _newest_installed(scanned, data["requires"].get(table, {}))
     repo = None
-    if view.layout.trainer_defaults:
+    if view.layout.trainer_defaults or view.layout.read_by_own_classes:
         from ..knowledge.repo_keys import repo_keys
 
         repo = repo_keys(ctx.file)  # keys the repository's own scripts declare are theirs
@@ -114,6 +114,11 @@ def key_not_in_release(ctx) -> None:
             continue
         if repo is not None and path[-1] in repo.keys:
             continue  # the script that reads the file declares it: its own release decides
+        if repo is not None and repo.reader_libraries is not None \
+                and not set(info.accepted) & repo.reader_libraries:
+            # the repository's parsers are built from classes of other libraries (or its own):
+            # the releases of the libraries that once took the key say nothing about them
+            continue
         if pins is None:
             pins = installed(ctx)
         verdicts = {}

@@ -13,7 +13,9 @@ Which reader and which key set:
 A "did you mean" is offered only for a near miss that is itself no setting any known reader
 takes (``lora_rank`` is LLaMA-Factory's and never becomes ``local_rank``), and whose words each
 differ by a slip of the keyboard (``min_lr`` never becomes ``min_p``). A key nothing is close to
-is an info: the script that reads the file may declare it. Inside the sections of a
+is an info: the script that reads the file may declare it. When the repository's argument parsers
+are built from its own classes only, its keys are the candidates; when they also take classes
+from a package cfgcheck does not read, a near miss is only an info. Inside the sections of a
 trainer-style file (``training:``, ``lora:``) only near misses are reported: the section
 belongs to the repository's own script.
 """
@@ -97,20 +99,42 @@ class _Judge:
 
         # a file parsed into argument dataclasses (TrainingArguments and the script's own): the
         # repository's scripts may declare more of them
-        self.repo = repo_keys(ctx.file) if ctx.view.layout.trainer_defaults else None
+        self.repo = repo_keys(ctx.file) if (ctx.view.layout.trainer_defaults
+                                                  or ctx.view.layout.read_by_own_classes) else None
 
     def declared_by_repo(self, name: str) -> str | None:
         if self.repo is not None and name in self.repo.keys:
             return self.repo.sources.get(name, "")
         return None
 
+    def reader_open(self) -> bool:
+        """The repository's parsers take argument classes from a package cfgcheck cannot see."""
+        return self.repo is not None and self.repo.reader_libraries is not None \
+            and "other" in self.repo.reader_libraries
+
+    def _repo_nearest(self, name: str) -> str | None:
+        if "." in name or self.repo is None or not self.repo.keys:
+            return None
+        buckets: dict[int, list[str]] = {}
+        for key in sorted(self.repo.keys):
+            buckets.setdefault(len(key), []).append(key)
+        return self.keys._nearest(name.strip().lower(), buckets, self.keys._allowed_edits(len(name)))
+
     def suggestion(self, name: str, table: str | None = None) -> str | None:
-        """A safe nearest key, within the per-document budget of suggestion searches."""
+        """A safe nearest key, within the per-document budget of suggestion searches.
+
+        When the repository's parsers are built only from its own classes (and the libraries'),
+        the reader's key set is known: the nearest of the repository's keys competes with the
+        library's; with only its own classes, the library's keys are no candidates at all."""
         if self.asked >= self.limit:
             self.past_limit = True
             return None
         self.asked += 1
-        near = self.keys.suggest(name, table or self.layout)
+        libs = self.repo.reader_libraries if self.repo is not None else None
+        near = self.keys.suggest(name, table or self.layout) if libs is None or libs else None
+        mine = self._repo_nearest(name) if libs is not None else None
+        if mine is not None and (near is None or self._closer(name, mine, near)):
+            near = mine
         if near is None:
             return None
         leaf = name.rpartition(".")[2]
@@ -120,13 +144,22 @@ class _Judge:
             return None
         return near
 
+    def _closer(self, name: str, a: str, b: str) -> bool:
+        """Whether A is at least as near to NAME as B (by leaf edit distance)."""
+        leaf = name.strip().lower()
+        return self.keys._osa_distance(leaf, a.lower(), 9) <= self.keys._osa_distance(
+            leaf, b.rpartition(".")[2].lower(), 9)
+
     def report_unknown(self, path: tuple, name: str, title: str, *, quiet_when_far: bool = False,
                        shown_suggestion=None) -> None:
         ctx = self.ctx
         if self.declared_by_repo(path[-1]) is not None:
             return
         near = self.suggestion(name)
-        if near is not None and near.lower() == name.strip().lower().replace(" ", "_"):
+        if near is not None and self.reader_open():
+            # a class the parser takes comes from a package not scanned: it may declare the key
+            ctx.report(path, "near-miss-reader-open", on="key", key=name, suggestion=near)
+        elif near is not None and near.lower() == name.strip().lower().replace(" ", "_"):
             ctx.report(path, "spelling", on="key", key=name, shown=repr(path[-1]), suggestion=near)
         elif near is not None:
             ctx.report(path, "typo", on="key", key=name,
@@ -251,7 +284,9 @@ def _section_key(ctx, judge: _Judge, path: tuple, sections: dict) -> None:
         for p in prefixes:  # written without the section's prefix: suggest it without too
             if spelling != leaf and near.startswith(p):
                 shown = near[len(p):]
-        if near.lower() == spelling.strip().lower().replace(" ", "_"):
+        if judge.reader_open():
+            ctx.report(path, "near-miss-reader-open", on="key", key=".".join(path), suggestion=shown)
+        elif near.lower() == spelling.strip().lower().replace(" ", "_"):
             ctx.report(path, "spelling", on="key", key=".".join(path), shown=repr(leaf), suggestion=shown)
         else:
             ctx.report(path, "typo", on="key", key=".".join(path), suggestion=shown)

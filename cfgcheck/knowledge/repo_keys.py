@@ -45,6 +45,10 @@ class RepoKeys:
     # why 2e-5 reaches the script as a number whatever YAML version reads it, when the scripts
     # show it: they load configs with OmegaConf only, or turn every value into command-line text
     number_reader: str = ""
+    # the libraries whose argument classes the repository's argument parsers are built from
+    # ("transformers", "trl", "peft", or "other" for a class imported from a package outside the
+    # repository and those libraries); None when no parser built from classes is found
+    reader_libraries: frozenset[str] | None = None
 
 
 def repository_root(config: str | os.PathLike) -> Path | None:
@@ -229,10 +233,13 @@ def keys_of_source(text: str, label: str = "") -> dict[str, str]:
             loaded.add(node.optional_vars.id)
 
     def from_loaded(expr) -> bool:
-        while isinstance(expr, (ast.Subscript, ast.Attribute, ast.Call)):
+        for _ in range(64):
             if isinstance(expr, ast.Call):
                 expr = expr.func
-            expr = expr.value
+            elif isinstance(expr, (ast.Subscript, ast.Attribute)):
+                expr = expr.value
+            else:
+                break
         return isinstance(expr, ast.Name) and expr.id in loaded
 
     for node in ast.walk(tree):
@@ -278,10 +285,75 @@ def keys_of_source(text: str, label: str = "") -> dict[str, str]:
     return found
 
 
+_LIBRARIES = {"transformers": ("transformers",), "trl": ("trl", "transformers"), "peft": ("peft",)}
+
+
+def parsers_of_source(text: str) -> tuple[dict[str, str], dict[str, list[str]], list[str]]:
+    """(names imported -> their module, classes defined -> their base names, the class names
+    handed to an argument parser built from classes: ``HfArgumentParser((A, B))`` and the
+    parsers that extend it: any ``...Parser...`` called with classes)."""
+    try:
+        tree = ast.parse(text)
+    except (SyntaxError, ValueError, RecursionError, MemoryError):
+        return {}, {}, []
+    imports: dict[str, str] = {}
+    classes: dict[str, list[str]] = {}
+    handed: list[str] = []
+    for node in ast.walk(tree):
+        if isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
+            for alias in node.names:
+                imports[alias.asname or alias.name] = node.module
+        elif isinstance(node, ast.ImportFrom):
+            for alias in node.names:
+                imports[alias.asname or alias.name] = "."  # a module of this repository
+        elif isinstance(node, ast.ClassDef):
+            classes[node.name] = sorted(_base_names(node))
+        elif isinstance(node, ast.Call) and "Parser" in _call_name(node).rpartition(".")[2] and node.args:
+            first = node.args[0]
+            items = first.elts if isinstance(first, (ast.Tuple, ast.List)) else [first]
+            names = [i.id if isinstance(i, ast.Name) else getattr(i, "attr", None) for i in items]
+            if all(isinstance(n, str) and n[:1].isupper() for n in names):
+                handed.extend(names)
+    return imports, classes, handed
+
+
+def _reader_libraries(imports: dict[str, str], classes: dict[str, list[str]], handed: list[str],
+                      local: set[str]) -> frozenset[str] | None:
+    """The libraries behind the classes handed to the parsers (see ``RepoKeys``); LOCAL holds
+    the module names of the repository's own files."""
+    if not handed:
+        return None
+    out: set[str] = set()
+
+    def resolve(name: str, depth: int = 0) -> None:
+        if depth > 8:
+            return
+        if name in classes:
+            for base in classes[name]:
+                resolve(base, depth + 1)
+            return
+        module = imports.get(name)
+        if module is None or module == "." or module in local:
+            return  # a builtin base (object), or a class of this repository
+        top = module.split(".")[0]
+        if top in _LIBRARIES:
+            out.update(_LIBRARIES[top])
+        else:
+            out.add("other")
+
+    for name in handed:
+        resolve(name)
+    return frozenset(out)
+
+
 @lru_cache(maxsize=64)
 def _scan(root: str) -> RepoKeys:
     keys: dict[str, str] = {}
     readers: set[str] = set()
+    all_imports: dict[str, str] = {}
+    all_classes: dict[str, list[str]] = {}
+    all_handed: list[str] = []
+    modules: set[str] = set()
     files = _python_files(Path(root))
     parsed = 0
     for path in files:
@@ -296,10 +368,18 @@ def _scan(root: str) -> RepoKeys:
         for key, where in keys_of_source(text, rel).items():
             keys.setdefault(key, where)
         readers |= readers_of_source(text)
+        imp, cls, handed = parsers_of_source(text)
+        all_imports.update(imp)
+        all_classes.update(cls)
+        all_handed.extend(handed)
+        modules.add(rel[:-3].replace(os.sep, ".").removesuffix(".__init__"))
+        modules.add(Path(rel).stem)
+    libraries = _reader_libraries(all_imports, all_classes, all_handed, modules)
     # one way of reading only: a repository that also reads YAML as PyYAML types says nothing
     only = readers - {"yaml"} if "yaml" not in readers else set()
     reader = _READER_WORDS[sorted(only)[0]] if len(only) == 1 else ""
-    return RepoKeys(root=root, keys=frozenset(keys), sources=keys, files=parsed, number_reader=reader)
+    return RepoKeys(root=root, keys=frozenset(keys), sources=keys, files=parsed, number_reader=reader,
+                    reader_libraries=libraries)
 
 
 def repo_keys(config: str | os.PathLike) -> RepoKeys | None:
