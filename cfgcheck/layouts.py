@@ -874,6 +874,9 @@ NOT_TRAINING = {
     "compose": {"services", "volumes", "networks"},
     "pre-commit": {"repos"},
     "kubernetes": {"apiVersion", "kind", "metadata", "spec"},
+    # transformers Trainer's trainer_state.json in a checkpoint folder (TrainerState.save_to_json)
+    "trainer-state": {"log_history", "global_step", "best_metric", "best_model_checkpoint",
+                      "is_world_process_zero", "is_local_process_zero", "total_flos"},
 }
 
 

@@ -47,7 +47,8 @@ class RepoKeys:
     number_reader: str = ""
     # the libraries whose argument classes the repository's argument parsers are built from
     # ("transformers", "trl", "peft", or "other" for a class imported from a package outside the
-    # repository and those libraries); None when no parser built from classes is found
+    # repository and those libraries; empty when only the repository's own classes, or its
+    # argparse options fed with the config's values as command-line text); None when unknown
     reader_libraries: frozenset[str] | None = None
 
 
@@ -354,6 +355,7 @@ def _scan(root: str) -> RepoKeys:
     all_classes: dict[str, list[str]] = {}
     all_handed: list[str] = []
     modules: set[str] = set()
+    options = False  # some script declares argparse options
     files = _python_files(Path(root))
     parsed = 0
     for path in files:
@@ -367,6 +369,7 @@ def _scan(root: str) -> RepoKeys:
         rel = os.path.relpath(path, root)
         for key, where in keys_of_source(text, rel).items():
             keys.setdefault(key, where)
+        options = options or "add_argument" in text
         readers |= readers_of_source(text)
         imp, cls, handed = parsers_of_source(text)
         all_imports.update(imp)
@@ -375,6 +378,10 @@ def _scan(root: str) -> RepoKeys:
         modules.add(rel[:-3].replace(os.sep, ".").removesuffix(".__init__"))
         modules.add(Path(rel).stem)
     libraries = _reader_libraries(all_imports, all_classes, all_handed, modules)
+    if libraries is None and "cli-text" in readers and options:
+        # a config turned into ``--key value`` text for the script's own argparse options: the
+        # options are the reader's whole key set
+        libraries = frozenset()
     # one way of reading only: a repository that also reads YAML as PyYAML types says nothing
     only = readers - {"yaml"} if "yaml" not in readers else set()
     reader = _READER_WORDS[sorted(only)[0]] if len(only) == 1 else ""
