@@ -939,6 +939,8 @@ UNREAD_FORMATS: tuple[UnreadFormat, ...] = (
         marks=frozenset("global_train_batch_size device_train_microbatch_size max_duration eval_interval "
                         "device_eval_batch_size eval_first save_interval".split()),
         min_hits=2,
+        # Composer's own names (eval_interval / save_interval alone are common research-script keys)
+        required=frozenset("global_train_batch_size device_train_microbatch_size max_duration".split()),
     ),
     UnreadFormat(
         name="class-path", title="a LitGPT / LightningCLI-style config (class_path with init_args)",
@@ -950,6 +952,19 @@ UNREAD_FORMATS: tuple[UnreadFormat, ...] = (
         name="rl-trainer-sections", title="a verl-style RL trainer config (actor_rollout_ref, critic, algorithm)",
         marks=frozenset("actor_rollout_ref critic algorithm reward_model trainer data custom_reward_function".split()),
         min_hits=3, required=frozenset({"actor_rollout_ref"}),
+    ),
+    UnreadFormat(
+        name="h2o-llmstudio", title="an H2O LLM Studio experiment config (llm_backbone, problem_type, sections)",
+        marks=frozenset("llm_backbone problem_type experiment_name output_directory architecture augmentation "
+                        "environment prediction dataset tokenizer training logging".split()),
+        min_hits=5, required=frozenset({"llm_backbone", "problem_type"}),
+    ),
+    UnreadFormat(
+        name="levanter", title="a Levanter-style config (trainer: mp, num_train_steps, steps_per_eval)",
+        # Levanter's TrainerConfig (draccus): mixed-precision policy, step counts, mesh axes
+        marks=frozenset("mp num_train_steps steps_per_eval tracker fsdp_axis batch_axis tensor_parallel_axes "
+                        "per_device_parallelism per_device_eval_parallelism checkpointer".split()),
+        min_hits=3, section="trainer",
     ),
     UnreadFormat(
         name="ludwig", title="a Ludwig config (input_features, output_features)",

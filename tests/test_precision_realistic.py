@@ -2187,6 +2187,249 @@ warmup_ratio: 0.1
 bf16: true
 """,
     },
+    'h2o_style_config': {
+        'cfg.yaml': """architecture:
+    backbone_dtype: int4
+    gradient_checkpointing: true
+    intermediate_dropout: 0.0
+    pretrained: true
+    pretrained_weights: ''
+augmentation:
+    neftune_noise_alpha: 0.0
+    random_parent_probability: 0.0
+    skip_parent_probability: 0.0
+    token_mask_probability: 0.0
+dataset:
+    add_eos_token_to_answer: true
+    add_eos_token_to_prompt: true
+    add_eos_token_to_system: true
+    answer_column: output
+    chatbot_author: acme
+    chatbot_name: helper
+    data_sample: 1.0
+    data_sample_choice:
+    - Train
+    - Validation
+    limit_chained_samples: false
+    mask_prompt_labels: true
+    parent_id_column: None
+    personalize: false
+    prompt_column:
+    - instruction
+    system_column: None
+    text_answer_separator: <|answer|>
+    text_prompt_start: <|prompt|>
+    text_system_start: <|system|>
+    train_dataframe: /data/acme_train.pq
+    validation_dataframe: None
+    validation_size: 0.01
+    validation_strategy: automatic
+environment:
+    compile_model: false
+    deepspeed_reduce_bucket_size: 1000000
+    deepspeed_stage3_param_persistence_threshold: 1000000
+    deepspeed_stage3_prefetch_bucket_size: 1000000
+    find_unused_parameters: false
+    gpus:
+    - '0'
+    huggingface_branch: main
+    mixed_precision: true
+    number_of_workers: 8
+    seed: -1
+    trust_remote_code: true
+    use_deepspeed: false
+experiment_name: acme-helper-1b
+llm_backbone: acme/tiny-1b
+logging:
+    logger: None
+    neptune_project: ''
+output_directory: output/acme-helper-1b/
+prediction:
+    batch_size_inference: 0
+    do_sample: false
+    max_length_inference: 256
+    metric: Perplexity
+    min_length_inference: 2
+    num_beams: 1
+    num_history: 4
+    repetition_penalty: 1.2
+    stop_tokens: ''
+    temperature: 0.0
+    top_k: 0
+    top_p: 1.0
+problem_type: text_causal_language_modeling
+tokenizer:
+    add_prompt_answer_tokens: false
+    max_length: 512
+    padding_quantile: 1.0
+    tokenizer_kwargs: '{"use_fast": true, "add_prefix_space": false}'
+training:
+    batch_size: 2
+    differential_learning_rate: 1.0e-05
+    differential_learning_rate_layers: []
+    drop_last_batch: true
+    epochs: 1
+    evaluate_before_training: false
+    evaluation_epochs: 1.0
+    grad_accumulation: 1
+    gradient_clip: 0.0
+    learning_rate: 0.0001
+    lora: true
+    lora_alpha: 16
+    lora_dropout: 0.05
+    lora_r: 4
+    lora_target_modules: ''
+    loss_function: TokenAveragedCrossEntropy
+    optimizer: AdamW
+    save_checkpoint: last
+    schedule: Cosine
+    train_validation_data: false
+    warmup_epochs: 0.0
+    weight_decay: 0.0
+""",
+    },
+    'levanter_style_config': {
+        'llama_small_ft.yaml': """data:
+  train_urls:
+    - "gs://acme-data/chat/train.{1..16}.jsonl.gz"
+  validation_urls:
+    - "gs://acme-data/chat/val.jsonl.gz"
+  cache_dir: "gs://acme-data/tokenized/chat/"
+  tokenizer: "acme/tiny-1b"
+model:
+  type: llama
+  seq_len: 2048
+  hidden_dim: 2048
+  intermediate_dim: 5632
+  num_layers: 22
+  num_heads: 32
+  num_kv_heads: 4
+initialize_from_hf: "acme/tiny-1b"
+use_hf_model_config: true
+trainer:
+  tracker:
+    type: wandb
+    project: "acme-levanter"
+    tags: ["llama", "ft"]
+  mp: p=f32,c=bfloat16
+  train_batch_size: 256
+  num_train_steps: 10000
+  steps_per_eval: 1000
+  tensor_parallel_axes: ["mlp", "heads"]
+  fsdp_axis: "embed"
+  batch_axis: "batch"
+optimizer:
+  learning_rate: 3e-5
+  weight_decay: 0.0
+  warmup: 0.01
+  min_lr_ratio: 0.1
+  lr_schedule: cosine
+""",
+    },
+    'olmo_style_config': {
+        'olmo-1b-ft.yaml': """run_name: acme-olmo-1b-ft
+seed: 6198
+dry_run: false
+model:
+  d_model: 2048
+  n_heads: 16
+  n_layers: 16
+  mlp_ratio: 8
+  weight_tying: true
+  alibi: false
+  rope: true
+  flash_attention: true
+  attention_dropout: 0.0
+  multi_query_attention: false
+  include_bias: false
+  block_type: sequential
+  layer_norm_type: default
+  activation_type: swiglu
+  max_sequence_length: 2048
+  vocab_size: 50280
+  embedding_size: 50304
+  init_device: meta
+  init_fn: mitchell
+compile: null
+optimizer:
+  name: adamw
+  learning_rate: 2.0e-5
+  weight_decay: 0.1
+  betas:
+  - 0.9
+  - 0.95
+  metrics_log_interval: 10
+scheduler:
+  name: linear_with_warmup
+  t_warmup: 200
+  alpha_f: 0.001
+tokenizer:
+  identifier: tokenizers/acme-tokenizer.json
+  truncate_direction: right
+save_folder: runs/${run_name}
+save_overwrite: false
+save_interval: 1000
+save_num_checkpoints_to_keep: 1
+load_path: null
+max_duration: 3ep
+global_train_batch_size: 128
+device_train_microbatch_size: 8
+precision: amp_bf16
+fsdp:
+  wrapping_strategy: by_block
+  precision: mixed
+max_grad_norm: 1.0
+max_grad_norm_ratio: null
+speed_monitor:
+  window_size: 20
+eval_interval: 1000
+eval_subset_num_batches: -1
+device_eval_batch_size: ${device_train_microbatch_size}
+data:
+  paths:
+  - /data/acme/tokenized/part-0-00000.npy
+  pad_direction: right
+  num_workers: 0
+  drop_last: true
+  pin_memory: true
+  prefetch_factor: 16
+  persistent_workers: true
+  timeout: 0
+""",
+    },
+    'trainer_with_fsdp_json': {
+        'fsdp_config.json': """{
+  "transformer_layer_cls_to_wrap": ["LlamaDecoderLayer"],
+  "backward_prefetch": "backward_pre",
+  "forward_prefetch": false,
+  "limit_all_gathers": true,
+  "use_orig_params": true,
+  "sync_module_states": true,
+  "cpu_ram_efficient_loading": true,
+  "activation_checkpointing": false,
+  "xla": false
+}
+""",
+        'sft_fsdp.yaml': """model_name_or_path: meta-llama/Llama-3.1-8B
+dataset_name: acme/support-chats
+output_dir: out/sft-fsdp
+per_device_train_batch_size: 2
+gradient_accumulation_steps: 8
+learning_rate: 1.0e-5
+num_train_epochs: 2
+lr_scheduler_type: cosine
+warmup_steps: 100
+bf16: true
+gradient_checkpointing: true
+fsdp: "full_shard auto_wrap"
+fsdp_config: fsdp_config.json
+max_length: 4096
+packing: true
+logging_steps: 10
+save_strategy: epoch
+report_to: none
+""",
+    },
 }
 
 # (file, rule, severity, key, suggestion) of every finding at warning and above. Each was judged
@@ -2246,6 +2489,10 @@ EXPECTED: dict[str, set[tuple]] = {
         ("run_planted.yaml", "unknown-key", "warning", "warmup_iter", "warmup_iters"),
     },
     "omegaconf_repo": set(),
+    "h2o_style_config": set(),
+    "levanter_style_config": set(),
+    "olmo_style_config": set(),
+    "trainer_with_fsdp_json": set(),
     # planted: a typo in each layout, bf16 and fp16 both on in a DeepSpeed file (DeepSpeed
     # runtime/config.py asserts they are not both enabled)
     "planted_mistakes_in_many_layouts": {
@@ -2268,6 +2515,9 @@ NOT_READ_FILES: dict[str, dict[str, str]] = {
     "class_path_config": {"config_hub/finetune/acme-1b/lora.yaml": "class-path"},
     "rl_sections_config": {"examples/config/ppo_acme.yaml": "rl-trainer-sections"},
     "deepspeed_variants": {"ds_autotune.json": "deepspeed-autotuning"},
+    "h2o_style_config": {"cfg.yaml": "h2o-llmstudio"},
+    "levanter_style_config": {"llama_small_ft.yaml": "levanter"},
+    "olmo_style_config": {"olmo-1b-ft.yaml": "llm-foundry"},
 }
 
 
@@ -2535,3 +2785,33 @@ def test_requirement_specifiers(version, spec, ok):
     assert satisfies(version, spec) is ok
     packaging = pytest.importorskip("packaging.specifiers")
     assert packaging.SpecifierSet(spec).contains(version) is ok
+
+
+def test_a_word_that_is_another_settings_term_is_no_slip_of_the_keyboard():
+    # use_qlora (a common script flag) is one letter from use_lora, but qlora is a method of its
+    # own: a near key is named at info, never a warning "did you mean"
+    report = lint("model_name_or_path: acme/tiny-1b\nlearning_rate: 2.0e-5\nuse_qlora: true\n"
+                  "gradient_accumulation_step: 4\n", "run.yaml")
+    got = {f.key: (f.severity, f.data.get("variant"), f.data.get("suggestion"))
+           for f in report.findings if f.rule == "unknown-key"}
+    assert got["use_qlora"] == (Severity.INFO, "near-miss-other-term", "use_lora")
+    # the singular of a term is the same term: still a slip
+    assert got["gradient_accumulation_step"] == (Severity.WARNING, "typo", "gradient_accumulation_steps")
+
+
+def test_realistic_research_script_keys_get_no_warning_suggestion():
+    # keys research scripts commonly declare (nanoGPT-style loops, argparse flags, their own
+    # dataclasses): none is a near miss of a trainer key worth a warning, whoever reads them
+    names = ("lr min_lr max_lr warmup_iters lr_decay_iters eval_iters batch_size micro_batch_size "
+             "grad_accum block_size n_layer n_head n_embd beta1 beta2 grad_clip decay_lr dtype compile "
+             "wandb_log out_dir eval_interval log_interval save_interval init_from lora_rank lora_target "
+             "quant_bits bits double_quant quant_type max_train_samples max_eval_samples "
+             "source_max_len target_max_len max_source_length max_target_length use_qlora use_lora "
+             "lora_enable train_on_inputs val_set_size micro_batch min_lr_ratio final_lr clip_grad "
+             "max_prompt_len max_response_len response_column prompt_column text_column eval_every "
+             "save_every log_every accumulation_steps grad_accum_steps lora_scale scaling").split()
+    text = "learning_rate: 2.0e-5\n" + "".join(f"{n}: 1\n" for n in names)
+    report = lint(text, "run.yaml")
+    assert report.skipped is None
+    assert [(f.key, f.data.get("suggestion")) for f in report.findings
+            if f.rule == "unknown-key" and f.severity >= Severity.WARNING] == []

@@ -73,16 +73,40 @@ def _edits(a: str, b: str, limit: int) -> int:
     return _keys_module()._osa_distance(a, b, limit)
 
 
-def slip_of_keyboard(key: str, near: str) -> bool:
+@lru_cache(maxsize=1)
+def _vocabulary() -> frozenset[str]:
+    """The words the known settings are made of (``use``, ``qlora``, ``lora``, ``steps``...)."""
+    from ..layouts import METHOD_WORDS
+
+    words = {w for name in _read_somewhere() for w in _words(name)}
+    return frozenset(words | set(METHOD_WORDS))
+
+
+def _same_term(x: str, y: str) -> bool:
+    """One word in the singular and the plural, or numbered (``beta`` / ``beta1``)."""
+    if x + "s" == y or y + "s" == x or x + "es" == y or y + "es" == x:
+        return True
+    return x.rstrip("0123456789") == y.rstrip("0123456789")
+
+
+def slip_of_keyboard(key: str, near: str, terms: bool = True) -> bool:
     """Whether KEY could be NEAR mistyped: word by word, each word at most one edit away (two
-    for words of eight letters or more); a word joined or split (``batchsize``) counts as one."""
+    for words of eight letters or more); a word joined or split (``batchsize``) counts as one.
+    A word (of four letters or more) that is itself another word of the settings' vocabulary is no slip, unless it is the
+    same word in the singular or plural, or numbered (``use_qlora`` is not ``use_lora``; ``gradient_accumulation_step``
+    is ``gradient_accumulation_steps``)."""
     a, b = _words(key), _words(near)
     if "".join(a) == "".join(b):
         return True
     if len(a) != len(b):
         return _edits("".join(a), "".join(b), 1) <= 1
+    vocabulary = _vocabulary() if terms else frozenset()
     for x, y in zip(a, b):
-        if x != y and _edits(x, y, 2) > (2 if min(len(x), len(y)) >= 8 else 1):
+        if x == y:
+            continue
+        if terms and len(x) >= 4 and x in vocabulary and not _same_term(x, y):
+            return False  # a different term, not a mistyped one
+        if _edits(x, y, 2) > (2 if min(len(x), len(y)) >= 8 else 1):
             return False
     return True
 
@@ -95,6 +119,7 @@ class _Judge:
         self.limit = ctx.thresholds.get("suggestion_limit", 200)
         self.asked = 0
         self.past_limit = False
+        self.other_term: dict[str, str] = {}  # name -> a near key whose differing word is a term
         from ..knowledge.repo_keys import repo_keys
 
         # a file parsed into argument dataclasses (TrainingArguments and the script's own): the
@@ -141,6 +166,8 @@ class _Judge:
         if leaf in _read_somewhere() and leaf.strip().lower() != near.rpartition(".")[2].lower():
             return None  # a different valid setting of some reader: never "corrected" into another
         if near.lower() != name.strip().lower().replace(" ", "_") and not slip_of_keyboard(name, near):
+            if slip_of_keyboard(name, near, terms=False):
+                self.other_term[name] = near  # close, but its words are other settings' terms
             return None
         return near
 
@@ -164,6 +191,8 @@ class _Judge:
         elif near is not None:
             ctx.report(path, "typo", on="key", key=name,
                        suggestion=shown_suggestion(near) if shown_suggestion else near)
+        elif name in self.other_term:
+            ctx.report(path, "near-miss-other-term", on="key", key=name, suggestion=self.other_term[name])
         elif self.past_limit:
             if not quiet_when_far:
                 ctx.report(path, "unknown-past-limit", on="key", key=name, layout=title, limit=self.limit)
