@@ -2646,6 +2646,11 @@ def test_a_runners_keys_are_judged_against_the_releases_it_installs_with(tmp_pat
     path = _write(tmp_path, {"run.yaml": text}) / "run.yaml"
     fresh = lint(text, str(path))
     assert not [f for f in fresh.findings if f.rule == "key-not-in-release"]
+    # evaluation_strategy left transformers in 4.51, before any release the runner allows
+    old = text + "evaluation_strategy: steps\n"
+    hits = [f for f in lint(old, str(path)).findings if f.rule == "key-not-in-release"]
+    assert [f.key for f in hits] == ["evaluation_strategy"]
+    assert "the newest scanned release llamafactory 0.9.5 allows" in hits[0].message
     # with transformers 5.24 stated as installed, the key is refused
     pinned = lint(text, str(path), installed=["transformers==5.24.0"])
     hits = [f for f in pinned.findings if f.rule == "key-not-in-release"]

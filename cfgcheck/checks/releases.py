@@ -67,6 +67,12 @@ def _newest_installed(scanned: dict, requires: dict) -> dict[str, str]:
     return out
 
 
+def _installed_text(lib: str, version: str, requires: dict, runner: str) -> str:
+    if lib in requires and runner:
+        return f"{lib} {version}, the newest scanned release {runner} allows ({requires[lib]})"
+    return f"{lib} {version}"
+
+
 def _current(info, newest: dict) -> bool:
     """Whether a fresh install accepts the key: some library reads it in the release installed."""
     from ..knowledge.pins import version_key
@@ -88,7 +94,9 @@ def key_not_in_release(ctx) -> None:
     data = keys._data()
     groups = data["by_parent"][table]
     scanned = data["scanned"]
-    newest = _newest_installed(scanned, data["requires"].get(table, {}))
+    requires = data["requires"].get(table, {})
+    newest = _newest_installed(scanned, requires)
+    runner = data["runner_sources"].get(table, "").split(" (")[0]
     repo = None
     if view.layout.trainer_defaults or view.layout.read_by_own_classes:
         from ..knowledge.repo_keys import repo_keys
@@ -143,5 +151,6 @@ def key_not_in_release(ctx) -> None:
         elif not _current(info, newest):
             libs = sorted(info.accepted)
             ctx.report(path, "no-version", on="key", key=name, versions=versions,
-                       newest=", ".join(f"{lib} {newest[lib]}" for lib in libs if lib in newest))
+                       newest=", ".join(_installed_text(lib, newest[lib], requires, runner)
+                                        for lib in libs if lib in newest))
             reported.append(tuple(path))
