@@ -200,6 +200,18 @@ gradient_checkpointing: true
 """,
     },
     'simple_parsing_repo': {
+        'example/planted.yaml': """data:
+  instruct_data: "/data/acme_chat_train.jsonl"
+model_id_or_path: "/models/acme-7b-v3"
+lora:
+  rnak: 64
+seq_lne: 32768
+batch_size: 1
+max_steps: 300
+optim:
+  lr: 6.e-5
+run_dir: "/runs/acme-7b-chat"
+""",
         'finetune/args.py': """import logging
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -479,6 +491,13 @@ max_train_samples: 100000
 """,
     },
     'pydantic_and_fire_repo': {
+        'cfg/planted.yaml': """base_model: acme/tiny-1b
+learning_rate: 2.0e-4
+contxt_length: 4096
+lora:
+  rank: 16
+  alpah: 32
+""",
         'finetune.py': """import fire
 import yaml
 from pydantic import BaseModel, Field
@@ -2448,14 +2467,23 @@ EXPECTED: dict[str, set[tuple]] = {
     # the parser is built only from the repository's FlatArguments: max_seq_length, use_lora,
     # warmup_ratio are its fields, whatever TRL or transformers releases do with those names
     "open_instruct_style_repo": set(),
-    "simple_parsing_repo": set(),
+    # planted: typos of the simple-parsing dataclass fields (lora.rank, seq_len), suggested from
+    # the repository's own keys
+    "simple_parsing_repo": {
+        ("example/planted.yaml", "unknown-key", "warning", "lora.rnak", "rank"),
+        ("example/planted.yaml", "unknown-key", "warning", "seq_lne", "seq_len"),
+    },
     # SimPOConfig derives from transformers' TrainingArguments: warmup_ratio meets a fresh
     # transformers; torch_dtype goes to ModelArguments of a package not in the repository
     "alignment_recipe_with_outside_classes": {
         ("training_configs/acme-8b-instruct-simpo.yaml", "key-not-in-release", "warning", "warmup_ratio", None),
     },
     "argparse_dashes_and_dest_repo": set(),
-    "pydantic_and_fire_repo": set(),
+    # planted: typos of the pydantic model's fields (RunSettings(**yaml.safe_load(fh)))
+    "pydantic_and_fire_repo": {
+        ("cfg/planted.yaml", "unknown-key", "warning", "contxt_length", "context_length"),
+        ("cfg/planted.yaml", "unknown-key", "warning", "lora.alpah", "alpha"),
+    },
     "hydra_target_repo": set(),
     "nemo_style_config": set(),
     "foundry_style_config": set(),
@@ -2771,6 +2799,12 @@ def test_the_libraries_behind_a_repositorys_parsers(tmp_path):
              "t.py": "from cfg import B\nfrom transformers import HfArgumentParser\nHfArgumentParser((B,))\n"}
     assert libs(local) == frozenset()
     assert libs({"t.py": "import argparse\nargparse.ArgumentParser(description='x')\n"}) is None
+    pyd = "import yaml\nfrom pydantic import BaseModel\nclass S(BaseModel):\n    lr: float = 1e-4\n"
+    assert libs({"t.py": pyd + "s = S(**yaml.safe_load(open('c.yaml')))\n"}) == frozenset()
+    assert libs({"t.py": pyd + "def f(**kw):\n    return S(**kw)\n"}) is None  # not built from a config
+    sp = "from simple_parsing.helpers import Serializable\nfrom dataclasses import dataclass\n" \
+         "@dataclass\nclass T(Serializable):\n    seq_len: int = 2048\nT.load('c.yaml')\n"
+    assert libs({"t.py": sp}) == frozenset()
 
 
 @pytest.mark.parametrize("version,spec,ok", [

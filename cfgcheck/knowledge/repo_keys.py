@@ -197,6 +197,52 @@ def _function_parameters(fn) -> list[str]:
     return [p.arg for p in a.posonlyargs + a.args + a.kwonlyargs if p.arg not in ("self", "cls")]
 
 
+def _loaded_names(tree) -> set[str]:
+    """Names bound to a config mapping a loader returned (``cfg = yaml.safe_load(fh)``)."""
+    loaded: set[str] = set()
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Assign) and isinstance(node.value, ast.Call) and _call_name(node.value) in _LOADERS:
+            loaded.update(t.id for t in node.targets if isinstance(t, ast.Name))
+    return loaded
+
+
+def _from_loaded(expr, loaded: set[str]) -> bool:
+    """Whether EXPR is a loaded config, a loader's call, or a part of one (``cfg["train"]``)."""
+    for _ in range(64):
+        if isinstance(expr, ast.Call):
+            if _call_name(expr) in _LOADERS:
+                return True
+            expr = expr.func
+        elif isinstance(expr, (ast.Subscript, ast.Attribute)):
+            expr = expr.value
+        else:
+            break
+    return isinstance(expr, ast.Name) and expr.id in loaded
+
+
+def _settings_classes(tree) -> set[str]:
+    """Names of the classes of one module whose fields are settings (see ``keys_of_source``)."""
+    classes = {n.name: n for n in ast.walk(tree) if isinstance(n, ast.ClassDef)}
+
+    def settings_class(cls: ast.ClassDef, seen: frozenset = frozenset()) -> bool:
+        if _decorator_names(cls) & _FIELD_DECORATORS:
+            return True
+        bases = _base_names(cls)
+        if bases & _SETTINGS_BASES:
+            return True
+        return any(b in classes and b not in seen and settings_class(classes[b], seen | {cls.name})
+                   for b in bases)
+
+    return {name for name, cls in classes.items() if settings_class(cls)}
+
+
+def settings_classes_of_source(text: str) -> set[str]:
+    try:
+        return _settings_classes(ast.parse(text))
+    except (SyntaxError, ValueError, RecursionError, MemoryError):
+        return set()
+
+
 def keys_of_source(text: str, label: str = "") -> dict[str, str]:
     """Setting names declared in one Python source: key -> where (file and class or option).
 
@@ -213,38 +259,16 @@ def keys_of_source(text: str, label: str = "") -> dict[str, str]:
     except (SyntaxError, ValueError, RecursionError, MemoryError):
         return {}
     found: dict[str, str] = {}
-    classes = {n.name: n for n in ast.walk(tree) if isinstance(n, ast.ClassDef)}
     functions = {n.name: n for n in ast.walk(tree) if isinstance(n, (ast.FunctionDef, ast.AsyncFunctionDef))}
+    settings = _settings_classes(tree)
 
-    def settings_class(cls: ast.ClassDef, seen: frozenset = frozenset()) -> bool:
-        if _decorator_names(cls) & _FIELD_DECORATORS:
-            return True
-        bases = _base_names(cls)
-        if bases & _SETTINGS_BASES:
-            return True
-        return any(b in classes and b not in seen and settings_class(classes[b], seen | {cls.name})
-                   for b in bases)
-
-    loaded: set[str] = set()  # names bound to a loaded config mapping
-    for node in ast.walk(tree):
-        if isinstance(node, ast.Assign) and isinstance(node.value, ast.Call) and _call_name(node.value) in _LOADERS:
-            loaded.update(t.id for t in node.targets if isinstance(t, ast.Name))
-        elif isinstance(node, ast.withitem) and isinstance(node.context_expr, ast.Call) \
-                and _call_name(node.context_expr) in _LOADERS and isinstance(node.optional_vars, ast.Name):
-            loaded.add(node.optional_vars.id)
+    loaded = _loaded_names(tree)
 
     def from_loaded(expr) -> bool:
-        for _ in range(64):
-            if isinstance(expr, ast.Call):
-                expr = expr.func
-            elif isinstance(expr, (ast.Subscript, ast.Attribute)):
-                expr = expr.value
-            else:
-                break
-        return isinstance(expr, ast.Name) and expr.id in loaded
+        return _from_loaded(expr, loaded)
 
     for node in ast.walk(tree):
-        if isinstance(node, ast.ClassDef) and settings_class(node):
+        if isinstance(node, ast.ClassDef) and node.name in settings:
             for item in node.body:
                 name = None
                 if isinstance(item, ast.AnnAssign) and isinstance(item.target, ast.Name):
@@ -300,7 +324,11 @@ def parsers_of_source(text: str) -> tuple[dict[str, str], dict[str, list[str]], 
     imports: dict[str, str] = {}
     classes: dict[str, list[str]] = {}
     handed: list[str] = []
+    loaded = _loaded_names(tree)
     for node in ast.walk(tree):
+        built = _built_from_config(node, loaded)
+        if built:
+            handed.append("?" + built)  # kept when it is a settings class or a library's class
         if isinstance(node, ast.ImportFrom) and node.module and node.level == 0:
             for alias in node.names:
                 imports[alias.asname or alias.name] = node.module
@@ -318,10 +346,43 @@ def parsers_of_source(text: str) -> tuple[dict[str, str], dict[str, list[str]], 
     return imports, classes, handed
 
 
+# class methods that build a settings object from a file or a mapping (simple-parsing
+# Serializable.load, pydantic model_validate / parse_obj / parse_file, dataclass-wizard from_dict)
+_BUILDERS = ("load", "load_yaml", "from_yaml", "from_dict", "from_file", "model_validate", "parse_obj",
+             "parse_file")
+
+
+def _built_from_config(node, loaded: set[str]) -> str | None:
+    """The class a call builds from a config: ``Settings(**cfg)`` (CFG a loaded config),
+    ``Settings.load(path)``, ``Settings.model_validate(data)``, ``OmegaConf.structured(Settings)``."""
+    if not isinstance(node, ast.Call):
+        return None
+    f = node.func
+    if isinstance(f, ast.Name) and f.id[:1].isupper() and any(
+            k.arg is None and _from_loaded(k.value, loaded) for k in node.keywords):
+        return f.id
+    if isinstance(f, ast.Attribute) and isinstance(f.value, ast.Name) and f.value.id[:1].isupper():
+        if f.attr in _BUILDERS:
+            return f.value.id
+        if f.value.id == "OmegaConf" and f.attr == "structured" and node.args \
+                and isinstance(node.args[0], ast.Name):
+            return node.args[0].id
+    return None
+
+
 def _reader_libraries(imports: dict[str, str], classes: dict[str, list[str]], handed: list[str],
-                      local: set[str]) -> frozenset[str] | None:
+                      local: set[str], settings: set[str] = frozenset()) -> frozenset[str] | None:
     """The libraries behind the classes handed to the parsers (see ``RepoKeys``); LOCAL holds
     the module names of the repository's own files."""
+    kept = []
+    for name in handed:
+        if name.startswith("?"):  # a class built from a config: a settings class or a library's
+            name = name[1:]
+            module = imports.get(name, "")
+            if name not in settings and module.split(".")[0] not in _LIBRARIES:
+                continue
+        kept.append(name)
+    handed = kept
     if not handed:
         return None
     out: set[str] = set()
@@ -339,8 +400,8 @@ def _reader_libraries(imports: dict[str, str], classes: dict[str, list[str]], ha
         top = module.split(".")[0]
         if top in _LIBRARIES:
             out.update(_LIBRARIES[top])
-        else:
-            out.add("other")
+        elif name not in _SETTINGS_BASES:  # pydantic's BaseModel, simple-parsing's Serializable:
+            out.add("other")  # the fields are the repository's own
 
     for name in handed:
         resolve(name)
@@ -356,6 +417,7 @@ def _scan(root: str) -> RepoKeys:
     all_handed: list[str] = []
     modules: set[str] = set()
     options = False  # some script declares argparse options
+    settings: set[str] = set()  # settings classes (dataclasses, pydantic models, ...) defined
     files = _python_files(Path(root))
     parsed = 0
     for path in files:
@@ -372,12 +434,13 @@ def _scan(root: str) -> RepoKeys:
         options = options or "add_argument" in text
         readers |= readers_of_source(text)
         imp, cls, handed = parsers_of_source(text)
+        settings |= settings_classes_of_source(text)
         all_imports.update(imp)
         all_classes.update(cls)
         all_handed.extend(handed)
         modules.add(rel[:-3].replace(os.sep, ".").removesuffix(".__init__"))
         modules.add(Path(rel).stem)
-    libraries = _reader_libraries(all_imports, all_classes, all_handed, modules)
+    libraries = _reader_libraries(all_imports, all_classes, all_handed, modules, settings)
     if libraries is None and "cli-text" in readers and options:
         # a config turned into ``--key value`` text for the script's own argparse options: the
         # options are the reader's whole key set
