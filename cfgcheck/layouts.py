@@ -874,6 +874,8 @@ NOT_TRAINING = {
     "compose": {"services", "volumes", "networks"},
     "pre-commit": {"repos"},
     "kubernetes": {"apiVersion", "kind", "metadata", "spec"},
+    # a W&B run's recorded config (wandb/run-*/files/config.yaml: each value as {desc, value})
+    "wandb-run-record": {"wandb_version", "_wandb"},
     # transformers Trainer's trainer_state.json in a checkpoint folder (TrainerState.save_to_json)
     "trainer-state": {"log_history", "global_step", "best_metric", "best_model_checkpoint",
                       "is_world_process_zero", "is_local_process_zero", "total_flos"},

@@ -1789,6 +1789,37 @@ ddp_timeout: 180000000
 """,
     },
     'checkpoint_folder': {
+        'wandb/run-20240101_000000-abcd/files/config.yaml': """wandb_version: 1
+
+_wandb:
+  desc: null
+  value:
+    python_version: 3.11.9
+    cli_version: 0.17.0
+    framework: huggingface
+    is_jupyter_run: false
+learning_rate:
+  desc: null
+  value: 2.0e-05
+per_device_train_batch_size:
+  desc: null
+  value: 4
+num_train_epochs:
+  desc: null
+  value: 3
+lr_scheduler_type:
+  desc: null
+  value: cosine
+warmup_ratio:
+  desc: null
+  value: 0.03
+model_name_or_path:
+  desc: null
+  value: acme/tiny-7b
+bf16:
+  desc: null
+  value: true
+""",
         'checkpoint-500/config.json': """{
   "architectures": ["LlamaForCausalLM"],
   "attention_bias": false,
@@ -2597,6 +2628,8 @@ def test_a_checkpoint_folder_holds_no_training_config_but_its_adapter(tmp_path):
     assert checked == ["checkpoint-500/adapter_config.json"]
     state = next(fr for fr in report.files if fr.file.endswith("trainer_state.json"))
     assert "trainer-state" in state.skipped
+    run = next(fr for fr in report.files if fr.file.endswith("files/config.yaml"))
+    assert "wandb-run-record" in run.skipped
 
 
 def test_exponents_are_harmless_for_a_script_that_turns_values_into_command_line_text(tmp_path):
