@@ -2887,3 +2887,22 @@ def test_realistic_research_script_keys_get_no_warning_suggestion():
     assert report.skipped is None
     assert [(f.key, f.data.get("suggestion")) for f in report.findings
             if f.rule == "unknown-key" and f.severity >= Severity.WARNING] == []
+
+
+def test_a_repositorys_argument_files_are_read_before_vendored_code(tmp_path, monkeypatch):
+    root = tmp_path / "repo"
+    (root / "aaa_vendor" / "lib").mkdir(parents=True)
+    for i in range(3):
+        (root / "aaa_vendor" / "lib" / f"mod{i}.py").write_text(f"x{i} = {i}\n")
+    (root / "scripts" / "sft").mkdir(parents=True)
+    (root / "scripts" / "sft" / "train_sft.py").write_text(
+        "import argparse\nargparse.ArgumentParser().add_argument('--warmup-iters')\n")
+    (root / "pyproject.toml").write_text("")
+    (root / "run.yaml").write_text("learning_rate: 2.0e-5\n")
+    monkeypatch.setattr(rk, "MAX_FILES", 1)
+    rk._scan.cache_clear()
+    try:
+        found = rk.repo_keys(root / "run.yaml")
+        assert found.files == 1 and "warmup_iters" in found.keys
+    finally:
+        rk._scan.cache_clear()

@@ -71,23 +71,32 @@ def repository_root(config: str | os.PathLike) -> Path | None:
     return None
 
 
+# file names that usually hold a training script's arguments: parsed first, so that a repository
+# with much vendored code still has its own scripts read within MAX_FILES
+_LIKELY = ("train", "finetune", "fine_tune", "sft", "dpo", "args", "argument", "config", "hparam",
+           "param", "option", "setting", "run", "main", "launch", "cli")
+
+
 def _python_files(root: Path) -> list[Path]:
+    """The repository's Python files to parse: at most MAX_FILES of those met within
+    MAX_ENTRIES folder entries, likely argument files first, then the shallowest."""
     out: list[Path] = []
     seen = 0
     try:
         for here, dirs, files in os.walk(root, followlinks=False):
             seen += len(dirs) + len(files)
-            if seen > MAX_ENTRIES:
-                return out
             dirs[:] = sorted(d for d in dirs if not d.startswith(".") and d not in _SKIP_DIRS)
-            for name in sorted(files):
-                if name.endswith(".py"):
-                    out.append(Path(here) / name)
-                    if len(out) >= MAX_FILES:
-                        return out
+            out.extend(Path(here) / name for name in sorted(files) if name.endswith(".py"))
+            if seen > MAX_ENTRIES:
+                break
     except OSError:
         pass
-    return out
+
+    def rank(path: Path) -> tuple:
+        name = path.stem.lower()
+        return (not any(w in name for w in _LIKELY), len(path.relative_to(root).parts), str(path))
+
+    return sorted(out, key=rank)[:MAX_FILES]
 
 
 def _base_names(cls: ast.ClassDef) -> set[str]:
