@@ -92,9 +92,10 @@ def _same_term(x: str, y: str) -> bool:
 def slip_of_keyboard(key: str, near: str, terms: bool = True) -> bool:
     """Whether KEY could be NEAR mistyped: word by word, each word at most one edit away (two
     for words of eight letters or more); a word joined or split (``batchsize``) counts as one.
-    A word (of four letters or more) that is itself another word of the settings' vocabulary is no slip, unless it is the
-    same word in the singular or plural, or numbered (``use_qlora`` is not ``use_lora``; ``gradient_accumulation_step``
-    is ``gradient_accumulation_steps``)."""
+    A word of four letters or more that is itself another word of the settings' vocabulary is no
+    slip, unless it is the same word in the singular or plural, or numbered (``use_qlora`` is
+    not ``use_lora``; ``gradient_accumulation_step`` is ``gradient_accumulation_steps``).
+    TERMS=False leaves that test out."""
     a, b = _words(key), _words(near)
     if "".join(a) == "".join(b):
         return True

@@ -99,6 +99,12 @@ def _python_files(root: Path) -> list[Path]:
     return sorted(out, key=rank)[:MAX_FILES]
 
 
+@lru_cache(maxsize=4)
+def _parse(text: str) -> ast.Module:
+    """One parse per source: the readers below each walk the same tree (never changed)."""
+    return ast.parse(text)
+
+
 def _base_names(cls: ast.ClassDef) -> set[str]:
     names = set()
     for b in cls.bases:
@@ -122,7 +128,7 @@ def readers_of_source(text: str) -> set[str]:
     values as YAML 1.1 types), {"omegaconf"}, {"cli-text"} (each value formatted into a
     ``--key value`` argument, so the script's own parser converts the text)."""
     try:
-        tree = ast.parse(text)
+        tree = _parse(text)
     except (SyntaxError, ValueError, RecursionError, MemoryError):
         return set()
     kinds: set[str] = set()
@@ -247,7 +253,7 @@ def _settings_classes(tree) -> set[str]:
 
 def settings_classes_of_source(text: str) -> set[str]:
     try:
-        return _settings_classes(ast.parse(text))
+        return _settings_classes(_parse(text))
     except (SyntaxError, ValueError, RecursionError, MemoryError):
         return set()
 
@@ -264,7 +270,7 @@ def keys_of_source(text: str, label: str = "") -> dict[str, str]:
     (``cfg["lr"]``, ``cfg.get("min_lr")``).
     """
     try:
-        tree = ast.parse(text)
+        tree = _parse(text)
     except (SyntaxError, ValueError, RecursionError, MemoryError):
         return {}
     found: dict[str, str] = {}
@@ -327,7 +333,7 @@ def parsers_of_source(text: str) -> tuple[dict[str, str], dict[str, list[str]], 
     handed to an argument parser built from classes: ``HfArgumentParser((A, B))`` and the
     parsers that extend it: any ``...Parser...`` called with classes)."""
     try:
-        tree = ast.parse(text)
+        tree = _parse(text)
     except (SyntaxError, ValueError, RecursionError, MemoryError):
         return {}, {}, []
     imports: dict[str, str] = {}
