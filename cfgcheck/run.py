@@ -296,7 +296,8 @@ def _apply_defaults(view: RunView) -> None:
 def _own_reader(view: RunView, file: str) -> bool:
     """A trainer-style file whose repository parses its configs only into its own argument
     classes (no transformers or TRL class among them): TrainingArguments' defaults (batch 8,
-    3 epochs, save every 500 steps) are not the run's, so the layout's runner holds none.
+    3 epochs, save every 500 steps) are not the run's, so the layout's runner holds none, and its
+    word lists (transformers' optimizer and strategy names) are not the script's.
     Returns whether that is so."""
     if view.layout is None or not view.layout.trainer_defaults:
         return False
@@ -307,7 +308,9 @@ def _own_reader(view: RunView, file: str) -> bool:
         return False
     import dataclasses
 
-    view.layout = dataclasses.replace(view.layout, trainer_defaults=False, read_by_own_classes=True)
+    # nor are TrainingArguments' accepted words (optim names, strategies) the script's
+    view.layout = dataclasses.replace(view.layout, trainer_defaults=False, read_by_own_classes=True,
+                                      word_lists=frozenset())
     return True
 
 

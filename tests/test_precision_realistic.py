@@ -491,6 +491,13 @@ max_train_samples: 100000
 """,
     },
     'pydantic_and_fire_repo': {
+        # optimizer.name goes to the script's own settings, not to transformers' OptimizerNames
+        'cfg/optim_words.yaml': """base_model: acme/tiny-1b
+learning_rate: 2.0e-4
+optimizer:
+  name: adamw
+  lr: 2.0e-4
+""",
         'cfg/planted.yaml': """base_model: acme/tiny-1b
 learning_rate: 2.0e-4
 contxt_length: 4096
