@@ -906,6 +906,13 @@ BASE_FILE_KEYS = ("_base_", "base_config", "extends", "inherit_from", "base")
 
 UNREAD_FORMATS: tuple[UnreadFormat, ...] = (
     UnreadFormat(
+        name="megatron-lm", title="a Megatron-LM YAML config (language_model, model_parallel sections)",
+        # Megatron-LM --yaml-cfg files: TransformerConfig and ModelParallelConfig as two sections
+        marks=frozenset("language_model model_parallel use_legacy_models transformer_impl spec "
+                        "lr_decay_style lr_warmup_fraction train_iters train_samples".split()),
+        min_hits=3, required=frozenset({"language_model", "model_parallel", "use_legacy_models"}),
+    ),
+    UnreadFormat(
         name="gpt-neox", title="a GPT-NeoX model and training config",
         # GPT-NeoX configs/*.yml (neox_arguments): hyphenated or underscored names
         marks=frozenset("pipe_parallel_size model_parallel_size num_layers hidden_size num_attention_heads "

@@ -2487,6 +2487,136 @@ save_strategy: epoch
 report_to: none
 """,
     },
+    'megatron_style_config': {
+        'gpt_config.yaml': """# WARNING: Yaml configs is currently an experimental feature
+language_model:
+  num_layers: 24
+  hidden_size: 1024
+  num_attention_heads: 16
+  num_query_groups: null
+  ffn_hidden_size: null
+  kv_channels: null
+  hidden_dropout: 0.0
+  attention_dropout: 0.0
+  fp32_residual_connection: False
+  apply_residual_connection_post_layernorm: False
+  layernorm_epsilon: 1.e-5
+  layernorm_zero_centered_gamma: True
+  add_bias_linear: False
+  bias_activation_fusion: False
+  add_qkv_bias: False
+  gated_linear_unit: False
+  activation_func: swiglu
+  num_moe_experts: null
+  rotary_interleaved: False
+  window_size: null
+  init_method: null
+  init_method_std: 0.02
+  output_layer_init_method: null
+  apply_query_key_layer_scaling: False
+  attention_softmax_in_fp32: False
+  bias_dropout_fusion: True
+  apply_rope_fusion: True
+  recompute_granularity: null
+  recompute_method: null
+  recompute_num_layers: null
+  distribute_saved_activations: null
+  fp8: null
+model_parallel:
+  tensor_model_parallel_size: 1
+  context_parallel_size: 1
+  pipeline_model_parallel_size: 1
+  virtual_pipeline_model_parallel_size: null
+  sequence_parallel: True
+  expert_model_parallel_size: 1
+  perform_initialization: True
+  use_cpu_initialization: null
+  fp16: False
+  bf16: True
+  params_dtype: null
+  timers: null
+  gradient_accumulation_fusion: True
+  async_tensor_model_parallel_allreduce: True
+  tp_comm_overlap: False
+  pipeline_dtype: null
+  grad_scale_func: null
+  enable_autocast: False
+  autocast_dtype: null
+  variable_seq_lengths: False
+  num_microbatches_with_partial_activation_checkpoints: null
+  overlap_p2p_comm: False
+  batch_p2p_comm: True
+  batch_p2p_sync: True
+  use_ring_exchange_p2p: False
+  deallocate_pipeline_outputs: False
+  no_sync_func: null
+  grad_sync_func: null
+  param_sync_func: null
+  pipeline_model_parallel_split_rank: null
+  cpu_offloading: False
+  cpu_offloading_num_layers: 0
+  _cpu_offloading_context: null
+  cpu_offloading_weights: False
+  cpu_offloading_activations: True
+  barrier_with_L1_time: True
+use_legacy_models: False
+spec: null
+micro_batch_size: 2
+global_batch_size: 128
+rampup_batch_size: [32, 32, 65324160]
+check_for_nan_in_loss_and_grad: True
+num_layers_per_virtual_pipeline_stage: null
+encoder_num_layers: null
+decoder_num_layers: null
+rotary_seq_len_interpolation_factor: null
+add_position_embedding: False
+make_vocab_size_divisible_by: 128
+group_query_attention: False
+exit_signal_handler: False
+exit_duration_in_mins: null
+exit_interval: null
+untie_embeddings_and_output_weights: True
+position_embedding_type: rope
+rotary_percent: 0.5
+openai_gelu: False
+squared_relu: False
+swiglu: True
+onnx_safe: null
+bert_binary_head: True
+max_position_embeddings: 4096
+transformer_impl: local
+use_flash_attn: False
+seed: 1234
+data_parallel_random_init: False
+init_method_xavier_uniform: False
+lr: 3.0e-4
+lr_decay_style: cosine
+lr_decay_iters: null
+lr_decay_samples: 255126953
+lr_warmup_fraction: null
+lr_warmup_iters: 0
+lr_warmup_samples: 81381
+lr_warmup_init: 0.0
+min_lr: 3.0e-5
+weight_decay: 0.1
+start_weight_decay: null
+end_weight_decay: null
+weight_decay_incr_style: constant
+clip_grad: 1.0
+adam_beta1: 0.9
+adam_beta2: 0.95
+adam_eps: 1.e-08
+sgd_momentum: 0.9
+override_opt_param_scheduler: False
+use_checkpoint_opt_param_scheduler: False
+train_iters: null
+train_samples: 268554688
+eval_iters: 32
+eval_interval: 2000
+skip_train: False
+seq_length: 4096
+""",
+    },
 }
 
 # (file, rule, severity, key, suggestion) of every finding at warning and above. Each was judged
@@ -2556,6 +2686,7 @@ EXPECTED: dict[str, set[tuple]] = {
     },
     "omegaconf_repo": set(),
     "h2o_style_config": set(),
+    "megatron_style_config": set(),
     "levanter_style_config": set(),
     "olmo_style_config": set(),
     "trainer_with_fsdp_json": set(),
@@ -2582,6 +2713,7 @@ NOT_READ_FILES: dict[str, dict[str, str]] = {
     "rl_sections_config": {"examples/config/ppo_acme.yaml": "rl-trainer-sections"},
     "deepspeed_variants": {"ds_autotune.json": "deepspeed-autotuning"},
     "h2o_style_config": {"cfg.yaml": "h2o-llmstudio"},
+    "megatron_style_config": {"gpt_config.yaml": "megatron-lm"},
     "levanter_style_config": {"llama_small_ft.yaml": "levanter"},
     "olmo_style_config": {"olmo-1b-ft.yaml": "llm-foundry"},
 }
