@@ -2966,6 +2966,15 @@ def test_the_libraries_behind_a_repositorys_parsers(tmp_path):
     outside = derived.replace("HfArgumentParser((A,))", "HfArgumentParser((ModelArguments, A))") \
         + "from acme_align import ModelArguments\n"
     assert libs({"t.py": outside}) == {"transformers", "other"}
+    dotted = "import transformers\nfrom dataclasses import dataclass\n@dataclass\nclass A:\n    x: int = 1\n" \
+             "transformers.HfArgumentParser((A, transformers.TrainingArguments))\n"
+    assert libs({"t.py": dotted}) == {"transformers"}
+    based = "import transformers as tf\nfrom dataclasses import dataclass\n" \
+            "@dataclass\nclass B(tf.TrainingArguments):\n    y: int = 1\ntf.HfArgumentParser((B,))\n"
+    assert libs({"t.py": based}) == {"transformers"}
+    pyd_dotted = "import pydantic, yaml\nclass S(pydantic.BaseModel):\n    lr: float = 1e-4\n" \
+                 "S(**yaml.safe_load(open('c.yaml')))\n"
+    assert libs({"t.py": pyd_dotted}) == frozenset()
     trl = "from trl import ModelConfig, SFTConfig, TrlParser\nTrlParser((SFTConfig, ModelConfig))\n"
     assert libs({"t.py": trl}) == {"trl", "transformers"}
     local = {"cfg.py": "from dataclasses import dataclass\n@dataclass\nclass B:\n    y: int = 2\n",

@@ -350,15 +350,32 @@ def parsers_of_source(text: str) -> tuple[dict[str, str], dict[str, list[str]], 
         elif isinstance(node, ast.ImportFrom):
             for alias in node.names:
                 imports[alias.asname or alias.name] = "."  # a module of this repository
+        elif isinstance(node, ast.Import):
+            for alias in node.names:  # import transformers / import transformers as tf
+                imports[alias.asname or alias.name.split(".")[0]] = alias.name if alias.asname \
+                    else alias.name.split(".")[0]
         elif isinstance(node, ast.ClassDef):
-            classes[node.name] = sorted(_base_names(node))
+            classes[node.name] = sorted(filter(None, (_class_name(b) for b in node.bases)))
         elif isinstance(node, ast.Call) and "Parser" in _call_name(node).rpartition(".")[2] and node.args:
             first = node.args[0]
             items = first.elts if isinstance(first, (ast.Tuple, ast.List)) else [first]
-            names = [i.id if isinstance(i, ast.Name) else getattr(i, "attr", None) for i in items]
-            if all(isinstance(n, str) and n[:1].isupper() for n in names):
+            names = [_class_name(i) for i in items]
+            if all(isinstance(n, str) and n.rpartition(".")[2][:1].isupper() for n in names):
                 handed.extend(names)
+    # transformers.TrainingArguments: the class of the module the name stands for
+    for name in [n for n in handed + [b for bs in classes.values() for b in bs] if "." in n]:
+        head = name.split(".")[0].lstrip("?")
+        imports.setdefault(name.lstrip("?"), imports.get(head, head))
     return imports, classes, handed
+
+
+def _class_name(node) -> str | None:
+    """``Name`` -> "Name"; ``module.Name`` -> "module.Name"; anything else None."""
+    if isinstance(node, ast.Name):
+        return node.id
+    if isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name):
+        return f"{node.value.id}.{node.attr}"
+    return None
 
 
 # class methods that build a settings object from a file or a mapping (simple-parsing
@@ -415,7 +432,7 @@ def _reader_libraries(imports: dict[str, str], classes: dict[str, list[str]], ha
         top = module.split(".")[0]
         if top in _LIBRARIES:
             out.update(_LIBRARIES[top])
-        elif name not in _SETTINGS_BASES:  # pydantic's BaseModel, simple-parsing's Serializable:
+        elif name.rpartition(".")[2] not in _SETTINGS_BASES:  # pydantic's BaseModel, simple-parsing's Serializable:
             out.add("other")  # the fields are the repository's own
 
     for name in handed:
