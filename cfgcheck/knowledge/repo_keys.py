@@ -105,6 +105,21 @@ def _parse(text: str) -> ast.Module:
     return ast.parse(text)
 
 
+_WALKED: dict[int, tuple[ast.AST, list]] = {}
+
+
+def _walk(tree: ast.AST) -> list:
+    """Every node of TREE, listed once per tree (the readers each go over them)."""
+    hit = _WALKED.get(id(tree))
+    if hit is not None and hit[0] is tree:
+        return hit[1]
+    nodes = list(ast.walk(tree))
+    if len(_WALKED) >= 4:
+        _WALKED.clear()
+    _WALKED[id(tree)] = (tree, nodes)
+    return nodes
+
+
 def _base_names(cls: ast.ClassDef) -> set[str]:
     names = set()
     for b in cls.bases:
@@ -133,7 +148,7 @@ def readers_of_source(text: str) -> set[str]:
         return set()
     kinds: set[str] = set()
     loads_yaml = False
-    for node in ast.walk(tree):
+    for node in _walk(tree):
         if isinstance(node, ast.Call):
             name = _call_name(node)
             if name in ("yaml.safe_load", "yaml.load", "yaml.full_load") or name.endswith(".parse_yaml_file"):
@@ -145,7 +160,7 @@ def readers_of_source(text: str) -> set[str]:
                 if isinstance(d, ast.Call) and _call_name(d) == "hydra.main":
                     kinds.add("omegaconf")
     cli_text = False
-    for node in ast.walk(tree):
+    for node in _walk(tree):
         if isinstance(node, ast.For) and isinstance(node.iter, ast.Call) and _call_name(node.iter).endswith(".items"):
             for inner in ast.walk(node):
                 if isinstance(inner, ast.JoinedStr) and inner.values and isinstance(inner.values[0], ast.Constant) \
@@ -215,7 +230,7 @@ def _function_parameters(fn) -> list[str]:
 def _loaded_names(tree) -> set[str]:
     """Names bound to a config mapping a loader returned (``cfg = yaml.safe_load(fh)``)."""
     loaded: set[str] = set()
-    for node in ast.walk(tree):
+    for node in _walk(tree):
         if isinstance(node, ast.Assign) and isinstance(node.value, ast.Call) and _call_name(node.value) in _LOADERS:
             loaded.update(t.id for t in node.targets if isinstance(t, ast.Name))
     return loaded
@@ -237,7 +252,7 @@ def _from_loaded(expr, loaded: set[str]) -> bool:
 
 def _settings_classes(tree) -> set[str]:
     """Names of the classes of one module whose fields are settings (see ``keys_of_source``)."""
-    classes = {n.name: n for n in ast.walk(tree) if isinstance(n, ast.ClassDef)}
+    classes = {n.name: n for n in _walk(tree) if isinstance(n, ast.ClassDef)}
 
     def settings_class(cls: ast.ClassDef, seen: frozenset = frozenset()) -> bool:
         if _decorator_names(cls) & _FIELD_DECORATORS:
@@ -274,7 +289,7 @@ def keys_of_source(text: str, label: str = "") -> dict[str, str]:
     except (SyntaxError, ValueError, RecursionError, MemoryError):
         return {}
     found: dict[str, str] = {}
-    functions = {n.name: n for n in ast.walk(tree) if isinstance(n, (ast.FunctionDef, ast.AsyncFunctionDef))}
+    functions = {n.name: n for n in _walk(tree) if isinstance(n, (ast.FunctionDef, ast.AsyncFunctionDef))}
     settings = _settings_classes(tree)
 
     loaded = _loaded_names(tree)
@@ -282,7 +297,7 @@ def keys_of_source(text: str, label: str = "") -> dict[str, str]:
     def from_loaded(expr) -> bool:
         return _from_loaded(expr, loaded)
 
-    for node in ast.walk(tree):
+    for node in _walk(tree):
         if isinstance(node, ast.ClassDef) and node.name in settings:
             for item in node.body:
                 name = None
@@ -340,7 +355,7 @@ def parsers_of_source(text: str) -> tuple[dict[str, str], dict[str, list[str]], 
     classes: dict[str, list[str]] = {}
     handed: list[str] = []
     loaded = _loaded_names(tree)
-    for node in ast.walk(tree):
+    for node in _walk(tree):
         built = _built_from_config(node, loaded)
         if built:
             handed.append("?" + built)  # kept when it is a settings class or a library's class
