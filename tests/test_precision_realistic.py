@@ -3069,3 +3069,23 @@ def test_public_llama_factory_recipes_are_judged_against_the_transformers_the_ru
     assert [f.key for f in report.findings if f.rule == "key-not-in-release"] == []
     # and none of them is taken for a format cfgcheck does not read
     assert not [fr.file for fr in report.files if fr.skipped and NOT_READ in fr.skipped]
+
+
+def test_keys_only_read_from_a_loaded_config_still_meet_the_librarys_release(tmp_path):
+    # train.py reads warmup_ratio from the config and may hand it to TrainingArguments, whose
+    # fresh release (transformers 5.24, cfgcheck/knowledge/known_keys.json) no longer takes it;
+    # a test file that reads torch_dtype declares nothing
+    files = {
+        "pyproject.toml": "",
+        "train.py": "import yaml\ncfg = yaml.safe_load(open('run.yaml'))\nwarm = cfg['warmup_ratio']\n",
+        "tests/test_config.py": "import yaml\nassert yaml.safe_load(open('run.yaml'))['fjord_depth'] == 2\n",
+        "run.yaml": "model_name_or_path: acme/tiny-1b\nlearning_rate: 2.0e-5\nwarmup_ratio: 0.1\nfjord_depth: 2\n",
+    }
+    root = _write(tmp_path, files)
+    rk._scan.cache_clear()
+    found = rk.repo_keys(root / "run.yaml")
+    assert "warmup_ratio" in found.read_only and "fjord_depth" not in found.keys
+    report = api.lint([str(root / "run.yaml")], project=None)
+    assert [f.key for f in report.findings if f.rule == "key-not-in-release"] == ["warmup_ratio"]
+    # read by the script, so no unknown key
+    assert not [f for f in report.findings if f.rule == "unknown-key" and f.key == "warmup_ratio"]

@@ -13,7 +13,8 @@ holds a config are parsed with :mod:`ast` — never imported or run — for
 * the parameters of a function handed to ``fire.Fire`` or ``jsonargparse.CLI``;
 * string keys read from a mapping that a YAML / JSON / TOML / OmegaConf loader returned.
 
-The repository is the nearest folder above the config that holds ``.git``, ``pyproject.toml``,
+Test files (``tests/``, ``test_*.py``, ``conftest.py``) are left out: they read configs, they do not
+take them. The repository is the nearest folder above the config that holds ``.git``, ``pyproject.toml``,
 ``setup.py`` or ``setup.cfg`` (at most six levels up); without one nothing is scanned.
 The work is bounded: at most ``MAX_FILES`` Python files, each at most ``MAX_BYTES``, hidden
 folders, virtual environments and ``site-packages`` skipped, at most ``MAX_ENTRIES`` folder
@@ -50,6 +51,9 @@ class RepoKeys:
     # repository and those libraries; empty when only the repository's own classes, or its
     # argparse options fed with the config's values as command-line text); None when unknown
     reader_libraries: frozenset[str] | None = None
+    # keys known only because a script reads them from a loaded config (``cfg["lr"]``): the
+    # script may pass them on to a library, whose release still decides
+    read_only: frozenset[str] = frozenset()
 
 
 def repository_root(config: str | os.PathLike) -> Path | None:
@@ -86,7 +90,9 @@ def _python_files(root: Path) -> list[Path]:
         for here, dirs, files in os.walk(root, followlinks=False):
             seen += len(dirs) + len(files)
             dirs[:] = sorted(d for d in dirs if not d.startswith(".") and d not in _SKIP_DIRS)
-            out.extend(Path(here) / name for name in sorted(files) if name.endswith(".py"))
+            dirs[:] = [d for d in dirs if d not in ("tests", "test")]  # tests read configs, never take them
+            out.extend(Path(here) / name for name in sorted(files) if name.endswith(".py")
+                       and not name.startswith("test_") and not name.endswith("_test.py") and name != "conftest.py")
             if seen > MAX_ENTRIES:
                 break
     except OSError:
@@ -477,7 +483,8 @@ def _scan(root: str) -> RepoKeys:
         parsed += 1
         rel = os.path.relpath(path, root)
         for key, where in keys_of_source(text, rel).items():
-            keys.setdefault(key, where)
+            if key not in keys or keys[key].endswith("read from the loaded config"):
+                keys[key] = where  # a declaration wins over a read
         options = options or "add_argument" in text
         readers |= readers_of_source(text)
         imp, cls, handed = parsers_of_source(text)
@@ -495,8 +502,9 @@ def _scan(root: str) -> RepoKeys:
     # one way of reading only: a repository that also reads YAML as PyYAML types says nothing
     only = readers - {"yaml"} if "yaml" not in readers else set()
     reader = _READER_WORDS[sorted(only)[0]] if len(only) == 1 else ""
+    read_only = frozenset(k for k, where in keys.items() if where.endswith("read from the loaded config"))
     return RepoKeys(root=root, keys=frozenset(keys), sources=keys, files=parsed, number_reader=reader,
-                    reader_libraries=libraries)
+                    reader_libraries=libraries, read_only=read_only)
 
 
 def repo_keys(config: str | os.PathLike) -> RepoKeys | None:
