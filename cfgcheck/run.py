@@ -13,6 +13,7 @@ Every value that does not come from the file itself is a ``Field`` in ``view.sup
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -293,7 +294,7 @@ def _apply_defaults(view: RunView) -> None:
             _supply(view, d.field, value, "default", d.note)
 
 
-def _own_reader(view: RunView, file: str) -> bool:
+def _own_reader(view: RunView, file: str, options: Any = None) -> bool:
     """A trainer-style file whose repository parses its configs only into its own argument
     classes (no transformers or TRL class among them): TrainingArguments' defaults (batch 8,
     3 epochs, save every 500 steps) are not the run's, so the layout's runner holds none, and its
@@ -301,9 +302,11 @@ def _own_reader(view: RunView, file: str) -> bool:
     Returns whether that is so."""
     if view.layout is None or not view.layout.trainer_defaults:
         return False
-    from .knowledge.repo_keys import repo_keys
+    from .knowledge.repo_keys import keys_for
 
-    repo = repo_keys(file)
+    readers = list(getattr(options, "readers", ()) or ())
+    reader = getattr(getattr(options, "script", None), "reader", None)
+    repo = keys_for(file, tuple(readers + ([reader] if reader else [])))
     if repo is None or repo.reader_libraries is None or repo.reader_libraries:
         return False
     import dataclasses
@@ -398,7 +401,7 @@ def open_view(view: RunView, file: str, options: Any = None) -> OpenedRun:
     view.run = run
     if view.layout is None:
         return run
-    own = _own_reader(view, file)
+    own = _own_reader(view, file, options)
     _apply_launch(view, launch)
     _apply_linked(view)
     if not own:  # the runner's defaults are those of classes the repository does not use
@@ -412,10 +415,44 @@ def open_view(view: RunView, file: str, options: Any = None) -> OpenedRun:
     return run
 
 
+def script_layer(file: str, options: Any) -> Any:
+    """The arguments of the launch script that starts FILE, when they override it (a document
+    located at the script's lines), else None."""
+    script = getattr(options, "script", None)
+    if script is None or file.startswith("<"):
+        return None
+    if os.path.normpath(os.path.abspath(file)) not in script.configs:
+        return None
+    from .compose import override_value
+    from .scripts import override_document
+
+    return override_document(script, override_value)
+
+
+def composed(doc: Any, file: str, options: Any) -> tuple[Any, str]:
+    """(DOC composed with the files it names, the launch's ``key=value`` overrides and the
+    arguments of the launch script that starts it; why a named file could not be read, or "").
+    As written when there is nothing to compose, or when composing fails."""
+    from . import compose
+    from .sweep import split_overrides
+
+    located = script_layer(file, options)
+    # list-valued overrides make a sweep of runs (sweep.py): only the fixed ones compose here
+    overrides = tuple(split_overrides(tuple(getattr(options, "overrides", ()) or ()))[0])
+    if not (overrides or located is not None or compose.composes(doc.data)) or file.startswith("<"):
+        return doc, ""
+    try:
+        return compose.compose(doc, file, overrides, located=located), ""
+    except compose.ComposeError as exc:
+        return doc, str(exc)
+
+
 def open_documents(docs: list, file: str, options: Any = None, layout: str | None = None) -> list[OpenedRun]:
-    """Every document of a file, opened (skipped documents too, with ``view.skipped`` set)."""
+    """Every document of a file, composed and opened (skipped documents too, with
+    ``view.skipped`` set)."""
     out = []
     for doc in docs:
+        doc, _problem = composed(doc, file, options)
         view = build_view(doc, layout)
         if view.skipped:
             out.append(OpenedRun(view=view, file=file, cwd=getattr(options, "cwd", None), launch=LaunchContext()))

@@ -66,11 +66,13 @@ def _quoted(raw: str) -> str:
     return '"' + raw + '"'  # the raw texts concerned are digits, signs, dots, letters: no escapes
 
 
-def _repository_reader(file: str) -> str:
-    """How the scripts of the config's repository read numbers, when they show it (ast only)."""
-    from ..knowledge.repo_keys import repo_keys
+def _repository_reader(ctx) -> str:
+    """How the scripts of the config's repository (and the scripts named as its readers) read
+    numbers, when they show it (ast only)."""
+    from ..knowledge.repo_keys import keys_for
+    from .unknown_keys import reader_scripts
 
-    found = repo_keys(file)
+    found = keys_for(ctx.file, reader_scripts(ctx))
     return found.number_reader if found is not None else ""
 
 
@@ -92,12 +94,12 @@ def yaml_version_dependent(ctx) -> None:
                 continue
             layout = ctx.view.layout
             reader = layout.number_reader if layout is not None and layout.coerces_numbers \
-                else ctx.doc.number_reader or _repository_reader(ctx.file)
+                else ctx.doc.number_reader or _repository_reader(ctx)
             if kind != "number":
                 # a loader that reads every value (OmegaConf takes the text as a float; a value
                 # turned into command-line text is converted by the script's own parser) makes
                 # it harmless whatever the setting's type
-                whole = ctx.doc.number_reader or _repository_reader(ctx.file)
+                whole = ctx.doc.number_reader or _repository_reader(ctx)
                 if layout is not None and whole:
                     ctx.report(amb.path, "exponent-read-as-number", key=key, raw=amb.raw,
                                number=amb.yaml12, replacement=new, layout=layout.name, reader=whole)

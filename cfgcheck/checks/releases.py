@@ -99,9 +99,11 @@ def key_not_in_release(ctx) -> None:
     runner = data["runner_sources"].get(table, "").split(" (")[0]
     repo = None
     if view.layout.trainer_defaults or view.layout.read_by_own_classes:
-        from ..knowledge.repo_keys import repo_keys
+        from ..knowledge.repo_keys import keys_for
+        from .unknown_keys import reader_scripts
 
-        repo = repo_keys(ctx.file)  # keys the repository's own scripts declare are theirs
+        # keys the repository's own scripts (and the scripts named as the file's readers) declare
+        repo = keys_for(ctx.file, reader_scripts(ctx))
     sections = view.layout.sections
     pins = None
     reported: list[tuple] = []
