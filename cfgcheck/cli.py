@@ -607,15 +607,17 @@ def models(
 
 def main() -> None:
     from .fastcli import direct_arguments
+    from .memo import scope
 
-    kwargs = direct_arguments(sys.argv[1:], "lint", lint)  # plain `lint` lines skip typer's set-up
-    if kwargs is not None:
-        try:
-            lint(**kwargs)
-        except typer.Exit as exc:
-            sys.exit(exc.exit_code)
-        sys.exit(0)
-    app()
+    with scope():  # one command is one run: a folder's surroundings are looked up once
+        kwargs = direct_arguments(sys.argv[1:], "lint", lint)  # plain `lint` lines skip typer's set-up
+        if kwargs is not None:
+            try:
+                lint(**kwargs)
+            except typer.Exit as exc:
+                sys.exit(exc.exit_code)
+            sys.exit(0)
+        app()
 
 
 if __name__ == "__main__":

@@ -112,18 +112,28 @@ class RunView:
 
 # --------------------------------------------------------------------------- detection
 
-def _score(layout: Layout, data: dict) -> int:
-    names = set(data)
+def _score(layout: Layout, data: dict, top: frozenset | None = None) -> int:
+    """The layout's signature weights of the names DATA spells (each name once): its top-level
+    keys (``top``, the str keys, when the caller has them), and in the layout's sections their
+    keys, prefixed keys and section-local names."""
+    names = None
     for section, prefixes in layout.sections.items():
         sub = data.get(section)
         if isinstance(sub, dict):
+            if names is None:
+                names = set(data)
             local = layout.section_names.get(section, {})
             for key in sub:
                 names.add(key)
                 names.update(p + str(key) for p in prefixes)
                 if key in local and section not in layout.restricted_sections:
                     names.add(local[key])
-    return sum(layout.signature.get(k, 0) for k in names if isinstance(k, str))
+    sig = layout.signature
+    if names is None:  # no section of this layout: the top-level names alone
+        if top is None:
+            top = frozenset(k for k in data if isinstance(k, str))
+        return sum(sig[k] for k in top if k in sig)
+    return sum(sig.get(k, 0) for k in names if isinstance(k, str))
 
 
 NOT_READ_YET = "not a format cfgcheck reads (yet)"
@@ -180,8 +190,9 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
     if unread is not None:
         return None, f"{unread.title} ({unread.name}): {NOT_READ_YET}"
     best, best_score = None, 0
+    top = frozenset(top)
     for layout in LAYOUTS:
-        s = _score(layout, data)
+        s = _score(layout, data, top)
         if s >= layout.min_score and s > best_score:
             best, best_score = layout, s
     if best is None:
