@@ -31,7 +31,6 @@ True
 
 from __future__ import annotations
 
-import difflib
 import json
 from dataclasses import dataclass, field
 from functools import cache
@@ -268,6 +267,8 @@ def _letter_gap(a: str, b: str) -> int:
 def _nearest(leaf: str, buckets: dict[int, list[str]], limit: int) -> str | None:
     """The nearest name (by leaf) within LIMIT edits: only names whose length is in reach are
     compared, and the letter-count bound skips most of them before the edit distance."""
+    import difflib  # only a key that is not known pays for it
+
     best: tuple[int, float, str] | None = None
     candidates = [n for size in range(len(leaf) - limit, len(leaf) + limit + 1) for n in buckets.get(size, ())]
     for name in candidates:
