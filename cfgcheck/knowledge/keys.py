@@ -103,7 +103,16 @@ def _read_json(name: str) -> dict:
 
 @cache
 def _data() -> dict:
-    """Load both files once; returns dict-of-dicts keyed for O(1) lookups."""
+    """Load both files once; returns dict-of-dicts keyed for O(1) lookups (kept ready to use
+    between runs: knowledge.tables)."""
+    from .tables import ready_table
+
+    here = Path(__file__).resolve()
+    sources = [here] + [here.with_name(n) for n in (_GENERATED, _EXTRA, _RUNNERS)]
+    return ready_table("known_keys", sources, _build)
+
+
+def _build() -> dict:
     generated = _read_json(_GENERATED)
     extra = _read_json(_EXTRA)
     scanned = {lib: list(v) for lib, v in generated["scanned"].items()}
