@@ -27,15 +27,16 @@ def _stamp(sources: list[Path]) -> tuple:
     return tuple(out)
 
 
-def ready_table(name: str, sources: list[Path], build: Callable[[], Any]) -> Any:
-    """``build()``, or its kept copy while SOURCES are unchanged."""
+def ready_table(name: str, sources: list[Path], build: Callable[[], Any], folder: Path | None = None) -> Any:
+    """``build()``, or its kept copy (in FOLDER, this package's ``__pycache__`` by default) while
+    SOURCES are unchanged."""
     try:
         stamp = _stamp(sources)
     except OSError:  # a zipped package or a file gone: nothing to compare with
         return build()
     import pickle
 
-    cache = _HERE / "__pycache__" / f"{name}.{sys.implementation.cache_tag}.pickle"
+    cache = (folder or _HERE / "__pycache__") / f"{name}.{sys.implementation.cache_tag}.pickle"
     try:
         with open(cache, "rb") as fh:
             kept = pickle.load(fh)
