@@ -1410,7 +1410,37 @@ def modules_to_save_matches(arch: Architecture, modules_to_save) -> list[str]:
     return [r[0] for r in module_table(arch) if any(r[0].endswith(m) for m in names)]
 
 
+def _hashable(value):
+    return tuple(value) if isinstance(value, list) else value
+
+
 def lora_trainable_parameters(
+    arch: Architecture,
+    *,
+    rank: int,
+    targets,
+    modules_to_save=None,
+    use_dora: bool = False,
+    bias: str = "none",
+) -> int:
+    """:func:`_lora_trainable_parameters`, once per run for the same model and adapter
+    (``cfgcheck.memo``): configs of one recipe share them."""
+    from ..memo import remembered
+
+    def count() -> int:
+        return _lora_trainable_parameters(arch, rank=rank, targets=targets, modules_to_save=modules_to_save,
+                                          use_dora=use_dora, bias=bias)
+
+    key = (arch, type(rank), rank, type(targets), _hashable(targets), type(modules_to_save), _hashable(modules_to_save),
+           type(use_dora), use_dora, bias)
+    try:
+        hash(key)
+    except TypeError:
+        return count()
+    return remembered("lora_trainable_parameters", key, count)
+
+
+def _lora_trainable_parameters(
     arch: Architecture,
     *,
     rank: int,
