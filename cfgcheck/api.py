@@ -144,7 +144,8 @@ def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = F
 def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
          baseline: str | Path | bool | None = None,
          progress: Callable[[int, int], None] | None = None, jobs: int = 1,
-         keep_views: bool = True, **options: Any) -> Report:
+         keep_views: bool = True, cache: bool | str | os.PathLike = False,
+         **options: Any) -> Report:
     """Lint files and folders.
 
     ``project``: "auto" (default) finds cfgcheck.yaml / [tool.cfgcheck] by walking up from the
@@ -153,6 +154,9 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
     ``baseline``: a baseline file; findings it holds are left out (counted in ``baselined``).
     ``jobs``: lint over that many processes (same reports, same order). ``keep_views=False``:
     drop each file's parsed documents once its rules have run (memory stays flat).
+    ``cache``: True keeps results in the user's cache folder (``$CFGCHECK_CACHE_DIR`` or the
+    platform's), a path keeps them there; a file whose stored result still holds is not linted
+    again, and its report has no views (see cfgcheck/cache.py).
     None uses the project's ``baseline`` when that file exists; False uses none.
     Raises ``project.ProjectError`` / ``baseline.BaselineError`` for a bad project or baseline
     file, ``ValueError`` for a bad option value.
@@ -163,8 +167,13 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
         baseline = proj.baseline  # the project's baseline, unless the caller chose
     report = Report()
     # jobs > 1: the files are linted over processes, reports still in this order
+    store = None
+    if cache is not False and cache is not None:
+        from .cache import Store
+
+        store = Store(None if cache is True else cache)
     linted = engine.lint_files([(f, options_for(f)) for f, skip in files if not skip],
-                               jobs=jobs, keep_views=keep_views)
+                               jobs=jobs, keep_views=keep_views, cache=store)
     for i, (file, skip) in enumerate(files, start=1):
         if skip:
             report.files.append(FileReport(file=file, skipped=skip))

@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from . import load as loadmod
+from . import load as loadmod, reads
 from .defaults import DEFAULTS
 from .load import LoadError
 from .view import Field, RunView, build_view
@@ -169,6 +169,8 @@ def read_launch(files: tuple[str, ...] | list[str], cwd: Path | None = None, scr
         files = list(script.launch_files) + [f for f in files if f not in script.launch_files]
     for name in files:
         path = Path(name)
+        if not path.is_absolute() and cwd is not None:
+            reads.note_kind(path)
         if not path.is_absolute() and cwd is not None and not path.exists():
             path = cwd / path
         try:

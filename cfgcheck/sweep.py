@@ -25,6 +25,7 @@ from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
+from . import reads
 from .load import Document, Entry
 
 ALL_UP_TO = 16
@@ -108,6 +109,7 @@ def _base_config(doc: Document, file: str) -> str | None:
                 if word.lower().endswith((".yaml", ".yml", ".json")):
                     path = Path(file).parent / word
                     try:
+                        reads.note_kind(path)
                         if path.is_file():
                             return str(path)
                     except (OSError, ValueError):

@@ -22,8 +22,9 @@ from __future__ import annotations
 import ast
 import os
 from dataclasses import dataclass
-from functools import lru_cache
 from pathlib import Path
+
+from .. import reads
 
 MAX_FILES = 400
 MAX_BYTES = 512 * 1024
@@ -53,6 +54,8 @@ def repository_root(config: str | os.PathLike) -> Path | None:
     cur = start
     for _ in range(MAX_UP + 1):
         try:
+            for m in _MARKERS:
+                reads.note_kind(cur / m)
             if any((cur / m).exists() for m in _MARKERS):
                 return cur
         except OSError:
@@ -69,6 +72,8 @@ def _python_files(root: Path) -> list[Path]:
     try:
         for here, dirs, files in os.walk(root, followlinks=False):
             seen += len(dirs) + len(files)
+            reads.note_folders(here)  # the result cache re-lists the folders and Python files only
+            reads.note_names(here, r".*\.py")
             if seen > MAX_ENTRIES:
                 return out
             dirs[:] = sorted(d for d in dirs if not d.startswith(".") and d not in _SKIP_DIRS)
@@ -179,7 +184,7 @@ def keys_of_source(text: str, label: str = "") -> dict[str, str]:
     return found
 
 
-@lru_cache(maxsize=64)
+@reads.memo(maxsize=64)
 def _scan(root: str) -> RepoKeys:
     keys: dict[str, str] = {}
     readers: set[str] = set()
@@ -187,6 +192,7 @@ def _scan(root: str) -> RepoKeys:
     parsed = 0
     for path in files:
         try:
+            reads.note_file(path)
             if path.is_symlink() or not path.is_file() or path.stat().st_size > MAX_BYTES:
                 continue
             text = path.read_text(encoding="utf-8", errors="replace")
@@ -209,6 +215,7 @@ def repo_keys(config: str | os.PathLike) -> RepoKeys | None:
     if not text or text.startswith("<"):
         return None
     try:
+        reads.note_kind(text)
         if not Path(text).is_file():
             return None
     except (OSError, ValueError):
