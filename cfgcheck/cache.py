@@ -386,7 +386,8 @@ def usage(root: str | os.PathLike) -> tuple[int, int]:
 def lint_cached(pairs: Iterable[tuple[str, Any]], store: Store, lint_recorded, lint_many=None):
     """Reports for (file, options) pairs, in order: stored ones when they still hold, the others
     from ``lint_recorded(path, options) -> (report, facts)`` (or, for several misses at once,
-    ``lint_many(misses) -> iterator of (report, facts)``, e.g. over processes)."""
+    ``lint_many(misses) -> iterator of (report, facts)``, e.g. over processes). The caller
+    calls ``store.close()`` once it has taken the reports it wants."""
     pairs = list(pairs)
     keyed: list[tuple[str, str] | None] = []
     for path, options in pairs:
@@ -402,7 +403,6 @@ def lint_cached(pairs: Iterable[tuple[str, Any]], store: Store, lint_recorded, l
                 if k:
                     store.put(k[0], k[1], path, facts, report)
             yield report
-        store.close()
         return
     found = [store.get(k[0]) if k else None for k in keyed]
     misses = [i for i, r in enumerate(found) if r is None]
@@ -416,4 +416,3 @@ def lint_cached(pairs: Iterable[tuple[str, Any]], store: Store, lint_recorded, l
                 store.put(keyed[i][0], keyed[i][1], pairs[i][0], facts, report)
             nxt = next(pending, None)
         yield report
-    store.close()

@@ -158,6 +158,16 @@ def note_folders(path: Any) -> None:
         facts.setdefault(("s", _abs(path), ""), folders(path))
 
 
+_MEMOS: list[Callable] = []
+
+
+def forget() -> None:
+    """Empty every ``memo``: a new run looks at the disk afresh (``api.lint`` starts with this,
+    so a long-lived process never reuses what an earlier run saw)."""
+    for clear in _MEMOS:
+        clear()
+
+
 def memo(maxsize: int = 64) -> Callable[[Callable], Callable]:
     """``functools.lru_cache`` for functions that look at the disk: a call served from the memo
     notes the facts the first call noted, so each file's record stays complete."""
@@ -179,6 +189,7 @@ def memo(maxsize: int = 64) -> Callable[[Callable], Callable]:
             return result
 
         call.cache_clear = first.cache_clear  # type: ignore[attr-defined]
+        _MEMOS.append(first.cache_clear)
         return call
 
     return wrap
