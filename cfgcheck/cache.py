@@ -28,6 +28,7 @@ from __future__ import annotations
 import hashlib
 import io
 import os
+import stat
 import sys
 import time
 from pathlib import Path
@@ -138,39 +139,49 @@ _ALLOWED = {
 _PLAIN = (type(None), bool, int, float, str, bytes, list, tuple, dict, set, frozenset)
 
 
+_CLASSES: dict[str, Any] = {}  # the pickler and unpickler classes, made on first use
+
+
+def _picklers() -> dict[str, Any]:
+    if not _CLASSES:
+        import pickle
+
+        from . import findings
+
+        allowed = (findings.FileReport, findings.Finding, findings.Fix, findings.Edit,
+                   findings.Related, findings.InputProblem, findings.Severity)
+
+        class _Pickler(pickle.Pickler):
+            def persistent_id(self, obj: Any) -> None:
+                if isinstance(obj, type):  # a class named by reference
+                    ok = obj in allowed or obj in _PLAIN
+                else:
+                    ok = isinstance(obj, _PLAIN) or type(obj) in allowed
+                if not ok:
+                    raise Uncacheable(f"{type(obj).__name__} in a report")
+                return None
+
+        class _Unpickler(pickle.Unpickler):
+            def find_class(self, module: str, name: str) -> Any:
+                if (module, name) not in _ALLOWED:
+                    raise pickle.UnpicklingError(f"{module}.{name} is not a result type")
+                return super().find_class(module, name)
+
+        _CLASSES.update(pickler=_Pickler, unpickler=_Unpickler, protocol=pickle.HIGHEST_PROTOCOL)
+    return _CLASSES
+
+
 def _dumps(payload: Any) -> bytes:
-    import pickle
-
-    from . import findings
-
-    allowed = (findings.FileReport, findings.Finding, findings.Fix, findings.Edit,
-               findings.Related, findings.InputProblem, findings.Severity)
-
-    class _Pickler(pickle.Pickler):
-        def persistent_id(self, obj: Any) -> None:
-            if isinstance(obj, type):  # a class named by reference
-                ok = obj in allowed or obj in _PLAIN
-            else:
-                ok = isinstance(obj, _PLAIN) or type(obj) in allowed
-            if not ok:
-                raise Uncacheable(f"{type(obj).__name__} in a report")
-            return None
-
+    """PAYLOAD pickled; Uncacheable when it holds anything but plain values and result types."""
+    made = _picklers()
     buf = io.BytesIO()
-    _Pickler(buf, protocol=pickle.HIGHEST_PROTOCOL).dump(payload)
+    made["pickler"](buf, protocol=made["protocol"]).dump(payload)
     return buf.getvalue()
 
 
 def _loads(blob: bytes) -> Any:
-    import pickle
-
-    class _Unpickler(pickle.Unpickler):
-        def find_class(self, module: str, name: str) -> Any:
-            if (module, name) not in _ALLOWED:
-                raise pickle.UnpicklingError(f"{module}.{name} is not a result type")
-            return super().find_class(module, name)
-
-    return _Unpickler(io.BytesIO(blob)).load()
+    """An entry's payload, building no class but the result types (never code from the file)."""
+    return _picklers()["unpickler"](io.BytesIO(blob)).load()
 
 
 class Store:
@@ -180,12 +191,14 @@ class Store:
     def __init__(self, folder: str | os.PathLike | None = None):
         base = Path(folder) if folder is not None else default_folder()
         self.root = base / f"lint-{FORMAT}"
+        self._folder = str(self.root)
         self.writable = True
         self.hits = 0
         self.misses = 0
         self.written = 0  # bytes written by this run
         self._facts: dict[tuple[str, str, str], str] = {}  # facts checked in this run
         self._prefix: str | None = None
+        self._options: dict[int, tuple[Any, str]] = {}  # id -> (options, their text): files share them
 
     # the key ------------------------------------------------------------------
     def _fixed(self) -> str:
@@ -225,15 +238,23 @@ class Store:
     def key(self, path: str, options: Any) -> tuple[str, str]:
         """(entry key, sha256 of the file's bytes); Uncacheable when the file or the options
         cannot be keyed (not a regular file, an option the key cannot describe)."""
-        digest = reads.content(path)
-        if len(digest) != 64:  # a folder, a missing file, a huge file: linting it is cheap
-            raise Uncacheable(digest)
-        text = "\0".join((self._fixed(), path, os.path.abspath(path), digest, options_text(options)))
+        try:
+            with open(path, "rb") as fh:
+                st = os.fstat(fh.fileno())
+                if not stat.S_ISREG(st.st_mode) or st.st_size > reads.MAX_HASHED:
+                    raise Uncacheable("not a regular file of a size worth keeping")
+                digest = hashlib.sha256(fh.read()).hexdigest()
+        except (OSError, ValueError):  # a folder, a missing file: linting it says why, cheaply
+            raise Uncacheable("not readable") from None
+        known = self._options.get(id(options))
+        if known is None or known[0] is not options:
+            known = self._options[id(options)] = (options, options_text(options))
+        text = "\0".join((self._fixed(), path, os.path.abspath(path), digest, known[1]))
         return hashlib.sha256(text.encode("utf-8", "surrogateescape")).hexdigest(), digest
 
     # entries ------------------------------------------------------------------
-    def _entry(self, key: str) -> Path:
-        return self.root / key[:2] / key[2:]
+    def _entry(self, key: str) -> str:
+        return os.path.join(self._folder, key[:2], key[2:])
 
     def get(self, key: str) -> Any:
         """The stored report for KEY when every fact it rests on still holds, else None."""
@@ -283,9 +304,10 @@ class Store:
             return True
         return False
 
-    def _write(self, target: Path, blob: bytes) -> bool:
+    def _write(self, target: str | Path, blob: bytes) -> bool:
         if not self.writable:
             return False
+        target = Path(target)
         tmp = target.parent / f".{target.name}.{os.getpid()}.{time.monotonic_ns()}.tmp"
         try:
             target.parent.mkdir(parents=True, exist_ok=True)

@@ -167,6 +167,8 @@ def _severity_pairs(pairs: list[str]) -> dict[str, str]:
 
 
 def _unknown_rules(names) -> None:
+    if not names:
+        return  # nothing to look up: the catalogue is not read (a cached run may need none of it)
     import difflib
 
     from .catalogue import load_catalogue
