@@ -199,6 +199,7 @@ class Store:
         self._facts: dict[tuple[str, str, str], str] = {}  # facts checked in this run
         self._prefix: str | None = None
         self._options: dict[int, tuple[Any, str]] = {}  # id -> (options, their text): files share them
+        self._sets: dict[str, bool] = {}  # fact sets checked in this run -> whether they hold
 
     # the key ------------------------------------------------------------------
     def _fixed(self) -> str:
@@ -267,21 +268,44 @@ class Store:
         try:
             if not blob.startswith(_MAGIC):
                 raise ValueError("not an entry")
-            stored_key, facts, report = _loads(blob[len(_MAGIC):])
-            if stored_key != key:
-                raise ValueError("another key")
-            for kind, path, pattern, fact in facts:
-                now = self._facts.get((kind, path, pattern))
-                if now is None:
-                    now = self._facts[(kind, path, pattern)] = reads.fact(kind, path, pattern)
-                if now != fact:
-                    self.misses += 1
-                    return None
+            stored_key, facts_id, report = _loads(blob[len(_MAGIC):])
+            if stored_key != key or not self._holds(facts_id):
+                raise ValueError("another key, or a fact changed")
         except Exception:  # noqa: BLE001 - a truncated, corrupt or foreign entry is a miss
             self.misses += 1
             return None
         self.hits += 1
         return report
+
+    def _facts_file(self, facts_id: str) -> str:
+        return os.path.join(self._folder, "facts", facts_id[:2], facts_id[2:])
+
+    def _holds(self, facts_id: str) -> bool:
+        """Whether every fact of the stored set FACTS_ID holds now. Files of one folder share
+        one set (the folders above them, the hub cache, the repository): each set is checked
+        once per run, each fact at most once."""
+        known = self._sets.get(facts_id)
+        if known is not None:
+            return known
+        ok = False
+        try:
+            with open(self._facts_file(facts_id), "rb") as fh:
+                blob = fh.read()
+            if hashlib.sha256(blob).hexdigest() == facts_id:
+                import json
+
+                ok = True
+                for kind, path, pattern, fact in json.loads(blob):
+                    now = self._facts.get((kind, path, pattern))
+                    if now is None:
+                        now = self._facts[(kind, path, pattern)] = reads.fact(kind, path, pattern)
+                    if now != fact:
+                        ok = False
+                        break
+        except (OSError, ValueError, TypeError):
+            ok = False
+        self._sets[facts_id] = ok
+        return ok
 
     def put(self, key: str, digest: str, path: str, facts: dict, report: Any) -> bool:
         """Store REPORT (without views) with the facts it rests on; False when it is not stored
@@ -291,10 +315,25 @@ class Store:
         own = ("f", os.path.abspath(path), "")
         if facts.get(own, digest) != digest:
             return False  # the file changed between the key and the lint
-        kept = [(k, p, pat, v) for (k, p, pat), v in sorted(facts.items()) if (k, p, pat) != own]
+        import json
+
+        # what the key says already (the file is there, with these bytes) is left out, so the
+        # files of one folder share one set of facts
+        kept = [[k, p, pat, v] for (k, p, pat), v in sorted(facts.items())
+                if not (p == own[1] and k in ("f", "k"))]
+        try:
+            facts_blob = json.dumps(kept, separators=(",", ":")).encode("utf-8", "surrogateescape")
+        except (TypeError, ValueError, UnicodeEncodeError):
+            return False
+        facts_id = hashlib.sha256(facts_blob).hexdigest()
+        if self._sets.get(facts_id) is None:
+            target = self._facts_file(facts_id)
+            if not os.path.exists(target) and not self._write(target, facts_blob):
+                return False
+            self._sets[facts_id] = True  # written now from what this run saw
         views, report.views = report.views, []
         try:
-            blob = _MAGIC + _dumps((key, kept, report))
+            blob = _MAGIC + _dumps((key, facts_id, report))
         except Exception:  # noqa: BLE001 - a value the result types do not hold: not stored
             return False
         finally:
@@ -346,10 +385,12 @@ def trim(root: str | os.PathLike, max_bytes: int | None = None, max_entries: int
     entries = []
     removed = 0
     now = time.time()
-    try:
-        shards = [e for e in os.scandir(root) if e.is_dir() and len(e.name) == 2]
-    except OSError:
-        return 0
+    shards = []
+    for folder in (root, os.path.join(root, "facts")):
+        try:
+            shards += [e for e in os.scandir(folder) if e.is_dir() and len(e.name) == 2]
+        except OSError:
+            pass
     for shard in shards:
         try:
             with os.scandir(shard.path) as it:
@@ -390,18 +431,21 @@ def _remove(path: str) -> bool:
 
 
 def usage(root: str | os.PathLike) -> tuple[int, int]:
-    """(entries, bytes) stored under ROOT."""
+    """(files, bytes) of the entries and fact sets stored under ROOT."""
     n = total = 0
-    for here, _dirs, files in os.walk(root):
-        if os.path.basename(here) in ("code",) or here == os.fspath(root):
+    for folder in (os.fspath(root), os.path.join(root, "facts")):
+        try:
+            shards = [e.path for e in os.scandir(folder) if e.is_dir() and len(e.name) == 2]
+        except OSError:
             continue
-        for f in files:
-            if not f.endswith(".tmp"):
-                try:
-                    total += os.stat(os.path.join(here, f)).st_size
-                    n += 1
-                except OSError:
-                    pass
+        for shard in shards:
+            for e in os.scandir(shard):
+                if not e.name.endswith(".tmp"):
+                    try:
+                        total += e.stat().st_size
+                        n += 1
+                    except OSError:
+                        pass
     return n, total
 
 
