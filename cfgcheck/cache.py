@@ -55,13 +55,18 @@ class Uncacheable(Exception):
     """An input the key cannot describe exactly: lint without the cache."""
 
 
-def default_folder() -> Path:
+def default_folder() -> Path | None:
+    """``$CFGCHECK_CACHE_DIR``, else the platform's user cache folder; None when neither can be
+    known (no home folder, platformdirs missing): then nothing is cached."""
     given = os.environ.get(ENV_FOLDER)
-    if given:
-        return Path(given).expanduser()
-    import platformdirs
+    try:
+        if given:
+            return Path(given).expanduser()
+        import platformdirs
 
-    return Path(platformdirs.user_cache_dir("cfgcheck", appauthor=False))
+        return Path(platformdirs.user_cache_dir("cfgcheck", appauthor=False))
+    except (ImportError, RuntimeError, OSError, ValueError):
+        return None
 
 
 # --------------------------------------------------------------------------- the key
@@ -190,9 +195,10 @@ class Store:
 
     def __init__(self, folder: str | os.PathLike | None = None):
         base = Path(folder) if folder is not None else default_folder()
-        self.root = base / f"lint-{FORMAT}"
+        self.root = (base if base is not None else Path(os.devnull)) / f"lint-{FORMAT}"
         self._folder = str(self.root)
-        self.writable = True
+        self.usable = base is not None
+        self.writable = self.usable
         self.hits = 0
         self.misses = 0
         self.written = 0  # bytes written by this run
@@ -214,7 +220,12 @@ class Store:
                     stats.append((str(p), -1, -1))
             code = self._code_fingerprint(stats)
             env = [(n, os.environ.get(n)) for n in ENV_INPUTS]
-            self._prefix = repr((FORMAT, __version__, sys.version, code, env, os.getcwd()))
+            # a process that already holds the checks (a long-lived caller, a test) may have
+            # replaced one: the functions that will run are part of the key then
+            checks = getattr(sys.modules.get("cfgcheck.checks"), "CHECKS", None) or {}
+            registry = sorted((rule, getattr(fn, "__module__", ""), getattr(fn, "__qualname__", ""))
+                              for rule, fn in checks.items())
+            self._prefix = repr((FORMAT, __version__, sys.version, code, env, os.getcwd(), registry))
         return self._prefix
 
     def _code_fingerprint(self, stats: list) -> str:
@@ -259,6 +270,9 @@ class Store:
 
     def get(self, key: str) -> Any:
         """The stored report for KEY when every fact it rests on still holds, else None."""
+        if not self.usable:
+            self.misses += 1
+            return None
         try:
             with open(self._entry(key), "rb") as fh:
                 blob = fh.read()
@@ -458,8 +472,8 @@ def lint_cached(pairs: Iterable[tuple[str, Any]], store: Store, lint_recorded, l
     keyed: list[tuple[str, str] | None] = []
     for path, options in pairs:
         try:
-            keyed.append(store.key(path, options))
-        except Uncacheable:
+            keyed.append(store.key(path, options) if store.usable else None)
+        except Exception:  # noqa: BLE001 - Uncacheable, or anything odd: lint it without the cache
             keyed.append(None)
     if lint_many is None:
         for (path, options), k in zip(pairs, keyed):

@@ -471,3 +471,40 @@ def test_parallel_cached_run_gives_the_serial_answer(tmp_path):
     store = cache.Store(tmp_path / "cache")
     assert _answer(api.lint(files, project=None, cache=store, jobs=2)) == _answer(api.lint(files, project=None))
     assert (store.hits, store.misses) == (5, 1)
+
+
+def test_cache_folder_comes_from_the_environment_or_the_platform(tmp_path, monkeypatch):
+    import platformdirs
+
+    monkeypatch.setenv(cache.ENV_FOLDER, str(tmp_path / "mine"))
+    assert cache.default_folder() == tmp_path / "mine"
+    monkeypatch.delenv(cache.ENV_FOLDER)
+    assert cache.default_folder() == Path(platformdirs.user_cache_dir("cfgcheck", appauthor=False))
+
+
+def test_no_known_cache_folder_means_no_caching(tmp_path, monkeypatch):
+    monkeypatch.delenv(cache.ENV_FOLDER)
+    monkeypatch.setitem(sys.modules, "platformdirs", None)  # the library cannot be imported
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    store = cache.Store()
+    report = api.lint([str(cfg)], project=None, cache=store)
+    assert not store.usable and store.written == 0 and store.hits == 0
+    assert "lora-scale-below-one" in _rules(_answer(report))
+
+
+def test_a_replaced_check_in_a_long_lived_process_is_a_miss(tmp_path, monkeypatch):
+    from cfgcheck import checks
+
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    case = Case(tmp_path)
+    before = case.cached([cfg])
+    assert "lora-scale-below-one" in _rules(before)
+
+    def silent(ctx):
+        return None
+
+    monkeypatch.setitem(checks.all_checks(), "lora-scale-below-one", silent)
+    after = case.cached([cfg])
+    assert case.store.hits == 0 and "lora-scale-below-one" not in _rules(after)
