@@ -508,3 +508,60 @@ def test_a_replaced_check_in_a_long_lived_process_is_a_miss(tmp_path, monkeypatc
     monkeypatch.setitem(checks.all_checks(), "lora-scale-below-one", silent)
     after = case.cached([cfg])
     assert case.store.hits == 0 and "lora-scale-below-one" not in _rules(after)
+
+
+# every file a lint opens and every folder it lists must be in its record of reads, or a change
+# there would go unseen by the cache; checked with the interpreter's audit events in a fresh process
+_AUDIT = r"""
+import json, os, sys
+watch, opened = [False], []
+def hook(event, args):
+    if watch[0] and event in ("open", "os.listdir", "os.scandir") and args and isinstance(args[0], (str, bytes, os.PathLike)):
+        opened.append((event, os.path.abspath(os.fsdecode(args[0]))))
+sys.addaudithook(hook)
+from cfgcheck import engine
+from cfgcheck.catalogue import catalogue_dir
+from cfgcheck.engine import Options
+# cfgcheck's own files (code, rule records) are in the key; the interpreter's and libraries' too
+skip = tuple({sys.prefix, sys.base_prefix, os.path.dirname(engine.__file__), os.path.dirname(os.__file__),
+              str(catalogue_dir())})
+out = {}
+for f in engine.expand_paths(sys.argv[1:]):
+    opened.clear()
+    watch[0] = True
+    report, facts = engine.lint_file_recorded(f, Options(launch=tuple(os.environ.get("LAUNCH", "").split()) or ()))
+    watch[0] = False
+    read = {p for k, p, _pat in facts if k == "f"} | {os.path.abspath(f)}  # contents
+    listed = {p for k, p, _pat in facts if k in ("d", "s")}  # names in folders
+    unseen = sorted({f"{e} {p}" for e, p in opened if p not in (read if e == "open" else listed)
+                     and not p.startswith(skip)})
+    out[f] = unseen
+print(json.dumps(out))
+"""
+
+
+def test_every_file_a_lint_opens_is_recorded(tmp_path):
+    repo = tmp_path / "repo"
+    (repo / ".git").mkdir(parents=True)
+    (repo / "train.py").write_text("import argparse\np = argparse.ArgumentParser()\np.add_argument('--harbor_tide_window')\n")
+    (repo / "requirements.txt").write_text("transformers==4.57.0\n")
+    ckpt = repo / "ckpt"
+    ckpt.mkdir()
+    (ckpt / "config.json").write_text(json.dumps({
+        "model_type": "llama", "hidden_size": 1024, "intermediate_size": 2816, "num_hidden_layers": 8,
+        "num_attention_heads": 16, "num_key_value_heads": 16, "vocab_size": 32000,
+        "max_position_embeddings": 2048, "tie_word_embeddings": False, "torch_dtype": "bfloat16"}))
+    (repo / "ds.json").write_text('{"train_micro_batch_size_per_gpu": 2, "zero_optimization": {"stage": 2}}\n')
+    (repo / "base.yaml").write_text("lora_r: 16\nlora_alpha: 8\n")
+    (repo / "composed.yaml").write_text("defaults:\n  - base\n  - _self_\nuse_peft: true\n")
+    (repo / "run.yaml").write_text(f"model_name_or_path: {ckpt}\ndeepspeed: ds.json\nlearning_rate: 2.0e-5\n"
+                                   "harbor_tide_window: 3\nper_device_train_batch_size: 2\n")
+    (repo / "launch.yaml").write_text("compute_environment: LOCAL_MACHINE\ndistributed_type: MULTI_GPU\n"
+                                      "num_processes: 4\nmixed_precision: fp16\n")
+    env = dict(ENV, LAUNCH=str(repo / "launch.yaml"))
+    p = subprocess.run([sys.executable, "-c", _AUDIT, str(repo), str(ROOT / "fixtures")], capture_output=True,
+                       text=True, cwd=ROOT, env=env, timeout=600)
+    assert p.returncode == 0, p.stderr
+    unseen = {f: u for f, u in json.loads(p.stdout.splitlines()[-1]).items() if u}
+    assert unseen == {}
+    assert len(json.loads(p.stdout.splitlines()[-1])) > 20
