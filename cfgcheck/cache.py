@@ -221,10 +221,11 @@ class Store:
             code = self._code_fingerprint(stats)
             env = [(n, os.environ.get(n)) for n in ENV_INPUTS]
             # a process that already holds the checks (a long-lived caller, a test) may have
-            # replaced one: the functions that will run are part of the key then
+            # replaced one with a function from elsewhere: such replacements are part of the key
             checks = getattr(sys.modules.get("cfgcheck.checks"), "CHECKS", None) or {}
-            registry = sorted((rule, getattr(fn, "__module__", ""), getattr(fn, "__qualname__", ""))
-                              for rule, fn in checks.items())
+            registry = sorted((rule, str(getattr(fn, "__module__", "")), getattr(fn, "__qualname__", ""))
+                              for rule, fn in checks.items()
+                              if not str(getattr(fn, "__module__", "")).startswith("cfgcheck.checks."))
             self._prefix = repr((FORMAT, __version__, sys.version, code, env, os.getcwd(), registry))
         return self._prefix
 

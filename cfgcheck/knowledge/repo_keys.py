@@ -243,18 +243,21 @@ def _local_imports(tree: ast.AST, script: Path, top: Path) -> list[Path]:
             rel = Path(*dotted_name.split(".")) if dotted_name else Path()
             for b in bases:
                 for cand in (b / rel.with_suffix(".py") if dotted_name else None, b / rel / "__init__.py"):
+                    if cand is not None:
+                        reads.note_kind(cand)  # a module appearing where none was changes the keys
                     if cand is not None and cand.is_file():
                         out.append(cand)
                         break
     return out
 
 
-@lru_cache(maxsize=64)
+@reads.memo(maxsize=64)
 def reader_keys(script: str) -> RepoKeys | None:
     """The keys SCRIPT (a Python file) and the modules of its own tree it imports declare; None
     when the script cannot be read."""
     path = Path(script)
     try:
+        reads.note_kind(path)
         if not path.is_file():
             return None
     except (OSError, ValueError):
@@ -265,6 +268,7 @@ def reader_keys(script: str) -> RepoKeys | None:
     queue, seen, parsed = [(path, 0)], {path.resolve()}, 0
     while queue and parsed < MAX_READER_FILES:
         here, depth = queue.pop(0)
+        reads.note_file(here)
         try:
             if here.stat().st_size > MAX_BYTES:
                 continue
