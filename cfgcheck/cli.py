@@ -167,6 +167,8 @@ def _severity_pairs(pairs: list[str]) -> dict[str, str]:
 
 
 def _unknown_rules(names) -> None:
+    if not names:
+        return  # nothing to look up: the catalogue is not read (a cached run may need none of it)
     import difflib
 
     from .catalogue import load_catalogue
@@ -228,6 +230,8 @@ def lint(
                                                  help="A key=value override the launch passes to the config's loader (repeatable), applied over the composed config."),
     sarif_not_checked: bool = typer.Option(False, "--sarif-not-checked",
                                            help="SARIF output: also carry the 'not checked' notes (rules that lacked the GPU, model or row count); left out by default."),
+    no_cache: bool = typer.Option(False, "--no-cache",
+                                  help="Lint every file afresh and leave the result cache alone. By default a file whose bytes, linked files, options and cfgcheck release are unchanged reuses its stored result (folder: $CFGCHECK_CACHE_DIR, else the user cache folder)."),
 ) -> None:
     """Check training configs and report what would waste the run."""
     from . import api
@@ -275,7 +279,8 @@ def lint(
         if not paths and proj is None:
             paths = [Path(".")]  # no project file: the working folder
         report = api.lint(paths or [], project=proj, progress=progress, jobs=jobs, keep_views=False,
-                          baseline=False if save_baseline else baseline, **chosen)
+                          baseline=False if save_baseline else baseline, cache=not no_cache,
+                          **chosen)
     except (UnknownGpu, OptionError) as exc:
         _fail(f"cfgcheck: {printable(str(exc))}", api.EXIT_INPUT)
     except (ProjectError, BaselineError) as exc:

@@ -532,10 +532,16 @@ def lint_paths(paths: Iterable[str | Path], options: Options | None = None, *,
 
 
 def lint_files(pairs: list[tuple[str, Options]], *, jobs: int = 1,
-               keep_views: bool = True) -> Iterator[FileReport]:
-    """(file, options) pairs -> their reports, in order, each as soon as it is ready. What lies
-    around the files (repository roots, pinned releases) is looked up once per folder."""
+               keep_views: bool = True, cache: Any = None) -> Iterator[FileReport]:
+    """(file, options) pairs -> their reports, in order, each as soon as it is ready.
+
+    ``cache``: a ``cache.Store``; a file whose stored report still holds is not linted again
+    (such a report has no views), the others are linted and stored. What lies around the files
+    (repository roots, pinned releases) is looked up once per folder (memo.py)."""
     with memo.scope():
+        if cache is not None:
+            yield from _lint_files_cached(pairs, jobs, keep_views, cache)
+            return
         if jobs > 1 and len(pairs) > 1:
             from .parallel import lint_files_parallel
 
@@ -546,3 +552,40 @@ def lint_files(pairs: list[tuple[str, Options]], *, jobs: int = 1,
             if not keep_views:
                 report.views = []
             yield report
+
+
+# --------------------------------------------------------------------------- with the result cache
+
+def lint_file_recorded(path: str | Path, options: Options | None = None) -> tuple[FileReport, dict]:
+    """``lint_file`` and the facts about the disk its report rests on (reads.py)."""
+    from . import reads
+
+    with reads.recording() as facts:
+        report = lint_file(path, options)
+    return report, facts
+
+
+def _lint_recorded_in_worker(path: str, options: Options) -> FileReport:
+    """For a process pool: the report carries its facts back in ``_reads``."""
+    report, facts = lint_file_recorded(path, options)
+    report._reads = facts  # type: ignore[attr-defined]
+    return report
+
+
+def _lint_files_cached(pairs: list[tuple[str, Options]], jobs: int, keep_views: bool,
+                       store: Any) -> Iterator[FileReport]:
+    from .cache import lint_cached
+
+    many = None
+    if jobs > 1 and len(pairs) > 1:
+        from .parallel import lint_files_parallel
+
+        def many(misses: list[tuple[str, Options]]) -> Iterator[tuple[FileReport, dict]]:
+            for report in lint_files_parallel(misses, jobs, lint_file=_lint_recorded_in_worker,
+                                              prepare=active_rules):
+                yield report, report.__dict__.pop("_reads", {})
+
+    for report in lint_cached(pairs, store, lint_file_recorded, many):
+        if not keep_views:
+            report.views = []
+        yield report

@@ -5,12 +5,18 @@ A *run* is one ``engine.lint_files`` pass (or whatever opens a ``scope()``): ins
 on disk are taken as they were when it began, so two configs in one folder look the folder up
 once. Outside a scope nothing is remembered and every call computes afresh, so a long-lived
 process (the editor server, a test) never sees a folder as it was before it changed.
+
+An answer that looked at the disk keeps the facts it noted (reads.py), and every later caller in
+the run gets them replayed into its own record: the result cache then knows that the second
+config of a folder rests on the same files as the first.
 """
 
 from __future__ import annotations
 
 from contextlib import contextmanager
 from typing import Any, Callable, Hashable, Iterator
+
+from . import reads
 
 MAX_ENTRIES = 4096  # per kind of answer: a run over a huge tree stays bounded
 
@@ -40,11 +46,13 @@ def remembered(kind: str, key: Hashable, compute: Callable[[], Any]) -> Any:
     if table is None:
         table = memo[kind] = {}
     try:
-        return table[key]
+        value, seen = table[key]
     except KeyError:
-        pass
-    value = compute()
-    if len(table) >= MAX_ENTRIES:
-        table.clear()
-    table[key] = value
+        with reads.recording() as facts:
+            value = compute()
+        seen = tuple(facts.items())
+        if len(table) >= MAX_ENTRIES:
+            table.clear()
+        table[key] = (value, seen)
+    reads.replay(seen)
     return value

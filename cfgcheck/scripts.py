@@ -21,6 +21,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable
 
+from . import reads
 from .load import CONFIG_SUFFIXES as _CONFIG_SUFFIXES, Document, Entry, LoadError, Span, walk_paths
 
 SCRIPT_SUFFIXES = (".sh", ".bash")
@@ -190,10 +191,13 @@ def _resolve(ref: str, folder: Path) -> str:
         return os.path.normpath(str(p))
     start = folder.absolute()
     for base in (start, *start.parents):
+        reads.note_kind(base / p)
         if (base / p).exists():
             return os.path.normpath(str(base / p))
+        reads.note_kind(base / ".git")
         if (base / ".git").exists():
             break
+    reads.note_kind(p)
     if p.exists():
         return os.path.normpath(str(p.absolute()))
     return os.path.normpath(str(start / p))

@@ -25,6 +25,7 @@ from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
+from . import reads
 from .load import Document, Entry
 
 ALL_UP_TO = 16
@@ -119,6 +120,7 @@ def _config_path(word: Any, file: str) -> str | None:
         return None
     path = Path(file).parent / word.strip()
     try:
+        reads.note_kind(path)  # a base file appearing where none was changes the runs
         return str(path) if path.is_file() else None
     except (OSError, ValueError):
         return None

@@ -105,7 +105,8 @@ def test_direct_path_reads_options_like_typer():
 def test_plain_lint_command_lines_take_the_direct_path():
     # if a new lint option uses something the direct path cannot read (a callback, an envvar...),
     # every lint start pays for typer's set-up again: teach fastcli.parse that option
-    for argv in (["lint", "configs/"], ["lint"], ["lint", "a.yaml", "--format", "json", "--frame"]):
+    for argv in (["lint", "configs/"], ["lint"], ["lint", "a.yaml", "--format", "json", "--frame"],
+                 ["lint", "a.yaml", "--no-cache"]):
         assert fastcli.direct_arguments(argv, "lint", cli.lint) is not None, argv
 
 
@@ -134,6 +135,7 @@ def test_other_commands_go_to_typer():
     ["fixtures/demo", "--only", "lora-scale-below-one", "--only", "bf16-and-fp16-both-on", "--no-project"],
     ["fixtures/demo", "--no-frame", "-q", "--skip", "memory-exceeds-gpu"],
     ["fixtures/demo", "--format", "github", "--gate", "error", "-j", "2"],
+    ["fixtures/demo", "--format", "sarif", "--no-cache"],
 ])
 def test_direct_path_prints_what_typer_prints(args):
     direct = subprocess.run([sys.executable, "-m", "cfgcheck", "lint", *args], capture_output=True,

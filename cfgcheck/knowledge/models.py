@@ -37,6 +37,8 @@ from functools import lru_cache
 from pathlib import Path
 from typing import Iterable
 
+from .. import reads
+
 __all__ = [
     "Architecture",
     "SUPPORTED_FAMILIES",
@@ -370,6 +372,7 @@ def architecture_from_config(data: dict, source: str) -> Architecture | None:
 
 
 def _read_config(path: Path) -> Architecture | None:
+    reads.note_file(path)
     try:
         text = path.read_text(encoding="utf-8")
         data = json.loads(text)
@@ -645,11 +648,14 @@ def _default_hub_cache() -> Path:
 def _from_hub_cache(ref: str, cache: Path) -> Architecture | None:
     folder_name = "models--" + ref.replace("/", "--")
     try:
+        reads.note_kind(cache)
         if not cache.is_dir():
             return None
         repo = cache / folder_name
+        reads.note_kind(repo)
         if not repo.is_dir():
             lowered = folder_name.lower()
+            reads.note_names(cache, "(?i)" + re.escape(folder_name))
             matches = [p for p in cache.iterdir() if p.is_dir() and p.name.lower() == lowered]
             if not matches:
                 return None
@@ -657,11 +663,16 @@ def _from_hub_cache(ref: str, cache: Path) -> Architecture | None:
         snapshots = repo / "snapshots"
         candidates: list[Path] = []
         main = repo / "refs" / "main"
+        reads.note_file(main)
+        reads.note_kind(snapshots)
         if main.is_file():
             commit = main.read_text(encoding="utf-8").strip()
             if commit and "/" not in commit and "\\" not in commit:
                 candidates.append(snapshots / commit / "config.json")
         if snapshots.is_dir():
+            reads.note_folders(snapshots)
+            for p in snapshots.iterdir():
+                reads.note_kind(p / "config.json")
             others = sorted(
                 (p / "config.json" for p in snapshots.iterdir() if (p / "config.json").is_file()),
                 key=lambda p: p.stat().st_mtime,
@@ -682,8 +693,14 @@ def _hub_cache_adapter_base(ref: str, cache: Path) -> str | None:
     """base_model_name_or_path of an adapter repository in the hub cache (adapter_config.json, no config.json)."""
     folder_name = ("models--" + ref.replace("/", "--")).lower()
     try:
+        reads.note_kind(cache)
         if not cache.is_dir():
             return None
+        reads.note_names(cache, "(?i)" + re.escape(folder_name))
+        for r in cache.iterdir():
+            if r.name.lower() == folder_name:
+                reads.note_kind(r / "snapshots")
+                reads.note_folders(r / "snapshots")
         repos = [p for p in cache.iterdir() if p.is_dir() and p.name.lower() == folder_name]
         snapshots = [s for r in repos if (r / "snapshots").is_dir() for s in (r / "snapshots").iterdir()]
     except OSError:
@@ -769,6 +786,7 @@ def _by_folder_name(ref: str) -> Architecture | None:
 
 def _adapter_base(folder: Path) -> str | None:
     """base_model_name_or_path of a PEFT adapter folder (adapter_config.json), if any."""
+    reads.note_file(folder / "adapter_config.json")
     try:
         data = json.loads((folder / "adapter_config.json").read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, ValueError, RecursionError):
@@ -789,6 +807,8 @@ def _resolve(ref, *, config_dir, cwd, hub_cache, depth) -> Architecture | None:
             bases = [(Path(b) / given) for b in (cwd if cwd is not None else Path.cwd(), config_dir) if b is not None]
         local_dir = False
         for base in bases:
+            reads.note_kind(base)
+            reads.note_kind(base / "config.json")
             if base.is_file() and base.suffix == ".json":
                 return _read_config(base)
             if (base / "config.json").is_file():
