@@ -93,10 +93,17 @@ def _project(project: Any, paths: list):
     """None, or the project for ``project`` = "auto" (search), a path, or a Project."""
     if project is None or project is False:
         return None
+    if project == "auto":
+        from .projectfile import find_file  # cfgcheck.project only when a project file is found
+
+        found = find_file(paths[0] if paths else None)
+        if found is None:
+            return None
+        from .project import load
+
+        return load(found)
     from . import project as projectmod
 
-    if project == "auto":
-        return projectmod.discover(paths)
     if isinstance(project, projectmod.Project):
         return project
     return projectmod.load(project)
@@ -144,7 +151,8 @@ def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = F
 def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
          baseline: str | Path | bool | None = None,
          progress: Callable[[int, int], None] | None = None, jobs: int = 1,
-         keep_views: bool = True, **options: Any) -> Report:
+         keep_views: bool = True, cache: Any = False,
+         **options: Any) -> Report:
     """Lint files and folders.
 
     ``project``: "auto" (default) finds cfgcheck.yaml / [tool.cfgcheck] by walking up from the
@@ -153,18 +161,29 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
     ``baseline``: a baseline file; findings it holds are left out (counted in ``baselined``).
     ``jobs``: lint over that many processes (same reports, same order). ``keep_views=False``:
     drop each file's parsed documents once its rules have run (memory stays flat).
+    ``cache``: True keeps results in the user's cache folder (``$CFGCHECK_CACHE_DIR`` or the
+    platform's), a path keeps them there (or a ``cache.Store``); a file whose stored result still holds is not linted
+    again, and its report has no views (see cfgcheck/cache.py).
     None uses the project's ``baseline`` when that file exists; False uses none.
     Raises ``project.ProjectError`` / ``baseline.BaselineError`` for a bad project or baseline
     file, ``ValueError`` for a bad option value.
     """
+    from . import reads
+
+    reads.forget()  # what an earlier run saw on disk (repository keys, pins) is looked at again
     paths = list(paths)
     files, options_for, proj = _targets(paths, project, given_options(**options), scripts=True)
     if proj is not None and baseline is None and proj.baseline is not None and proj.baseline.is_file():
         baseline = proj.baseline  # the project's baseline, unless the caller chose
     report = Report()
     # jobs > 1: the files are linted over processes, reports still in this order
+    store = None
+    if cache is not False and cache is not None:
+        from .cache import Store
+
+        store = cache if isinstance(cache, Store) else Store(None if cache is True else cache)
     linted = engine.lint_files([(f, options_for(f)) for f, skip in files if not skip],
-                               jobs=jobs, keep_views=keep_views)
+                               jobs=jobs, keep_views=keep_views, cache=store)
     for i, (file, skip) in enumerate(files, start=1):
         if skip:
             report.files.append(FileReport(file=file, skipped=skip))
@@ -172,6 +191,8 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
             report.files.append(next(linted))
         if progress is not None:
             progress(i, len(files))
+    if store is not None:
+        store.close()  # trims the cache folder when that is due
     if baseline is not None and baseline is not False:
         from . import baseline as baselinemod
 

@@ -38,7 +38,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from . import load as loadmod
+from . import load as loadmod, reads
 from .layouts import BASE_FILE_KEYS
 from .load import Document, LoadError
 
@@ -156,6 +156,7 @@ def _find(name: str, folders: list[Path]) -> Path:
         candidates += [base] if base.suffix in _SUFFIXES else [base.with_name(base.name + s) for s in (".yaml", ".yml")]
     for c in candidates:
         try:
+            reads.note_kind(c)
             if c.is_file():
                 return c
         except (OSError, ValueError):  # a name too long, a NUL byte: not a file we can read
@@ -428,6 +429,7 @@ def experiment_base(file: str, root: str, names: tuple[str, ...]) -> str | None:
     for name in names:
         cand = top / name
         try:
+            reads.note_kind(cand)
             if cand.is_file() and cand.resolve() != Path(file).resolve():
                 return str(cand)
         except (OSError, ValueError):

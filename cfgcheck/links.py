@@ -18,7 +18,7 @@ from contextvars import ContextVar
 from dataclasses import dataclass
 from pathlib import Path
 
-from . import load as loadmod
+from . import load as loadmod, reads
 from .load import Document, LoadError
 from .view import RunView, build_view
 
@@ -71,6 +71,7 @@ def _expand(ref: str) -> Path:
 
 def _exists(p: Path) -> bool:
     try:
+        reads.note_kind(p)
         return p.exists()
     except (OSError, ValueError):
         return False
@@ -103,6 +104,7 @@ def _find(candidates: list[Path]) -> tuple[Path | None, list[str]]:
     why = []
     for p in candidates:
         try:
+            reads.note_kind(p)  # a file appearing where nothing was changes the verdict
             if p.is_file():
                 return p, why
             if p.exists():  # a folder, a FIFO, a device: never opened

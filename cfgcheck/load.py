@@ -26,6 +26,8 @@ from typing import Any, Iterable
 
 import yaml
 
+from . import reads
+
 
 def _libyaml_nests_safely() -> bool:
     """libyaml 0.2.5 and later refuse nesting past 1,000 levels; older ones recurse in C."""
@@ -203,15 +205,19 @@ def read_source(path: str | Path, limit: int = MAX_FILE_BYTES, what: str = "a co
     """Read a regular file, never more than the size limit (a FIFO or /dev/zero cannot hang us)."""
     p = Path(path)
     try:
-        st = p.stat()
-        if stat.S_ISDIR(st.st_mode):
-            raise LoadError("is a folder, not a file")
-        if not stat.S_ISREG(st.st_mode):
-            raise LoadError("not a regular file (a device, pipe or socket); not read")
-        if st.st_size > limit:
-            raise LoadError(f"file is {st.st_size:,} bytes, over the {limit:,}-byte limit for {what}")
-        with open(p, "rb") as fh:
-            raw = fh.read(limit + 1)  # the file may grow after stat
+        try:
+            st = p.stat()
+            if stat.S_ISDIR(st.st_mode):
+                raise LoadError("is a folder, not a file")
+            if not stat.S_ISREG(st.st_mode):
+                raise LoadError("not a regular file (a device, pipe or socket); not read")
+            if st.st_size > limit:
+                raise LoadError(f"file is {st.st_size:,} bytes, over the {limit:,}-byte limit for {what}")
+            with open(p, "rb") as fh:
+                raw = fh.read(limit + 1)  # the file may grow after stat
+        except BaseException:
+            reads.note_file(p)  # what stood there instead, for the result cache
+            raise
     except LoadError:
         raise
     except IsADirectoryError:
@@ -224,6 +230,7 @@ def read_source(path: str | Path, limit: int = MAX_FILE_BYTES, what: str = "a co
         raise LoadError("permission denied") from None
     except OSError as exc:
         raise LoadError(f"cannot read: {exc.strerror or exc}") from None
+    reads.note_bytes(p, raw)  # the bytes used, for the result cache
     return decode(raw, str(path), limit, what)
 
 

@@ -19,7 +19,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
-from . import load as loadmod
+from . import load as loadmod, reads
 from .defaults import DEFAULTS, Default
 from .load import LoadError
 from .layouts import LAYOUTS
@@ -172,6 +172,8 @@ def read_launch(files: tuple[str, ...] | list[str], cwd: Path | None = None, scr
         files = list(script.launch_files) + [f for f in files if f not in script.launch_files]
     for name in files:
         path = Path(name)
+        if not path.is_absolute() and cwd is not None:
+            reads.note_kind(path)
         if not path.is_absolute() and cwd is not None and not path.exists():
             path = cwd / path
         try:
@@ -333,6 +335,7 @@ def _experiment_method(view: RunView, file: str) -> None:
         return
     adapter = folder / lay.experiment_adapter
     try:
+        reads.note_kind(adapter)  # an adapter file appearing changes the method
         present = adapter.is_file()
         docs = loadmod.load_text(loadmod.read_source(adapter).text, str(adapter)) if present else []
     except (OSError, ValueError, LoadError):

@@ -22,6 +22,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Iterable
 
+from . import reads
 from .load import CONFIG_SUFFIXES as _CONFIG_SUFFIXES, Document, Entry, LoadError, Span, walk_paths
 
 SCRIPT_SUFFIXES = (".sh", ".bash")
@@ -191,10 +192,13 @@ def _resolve(ref: str, folder: Path) -> str:
         return os.path.normpath(str(p))
     start = folder.absolute()
     for base in (start, *start.parents):
+        reads.note_kind(base / p)
         if (base / p).exists():
             return os.path.normpath(str(base / p))
+        reads.note_kind(base / ".git")
         if (base / ".git").exists():
             break
+    reads.note_kind(p)
     if p.exists():
         return os.path.normpath(str(p.absolute()))
     return os.path.normpath(str(start / p))

@@ -12,6 +12,10 @@ os.environ["HF_HOME"] = _EMPTY_HUB
 os.environ["HF_HUB_CACHE"] = os.path.join(_EMPTY_HUB, "hub")
 os.environ["HF_HUB_OFFLINE"] = "1"
 
+# The result cache of `cfgcheck lint` is on in the suite (every test that lints a file twice is an
+# invalidation check), in a folder of this session: the user's own cache folder is never written.
+os.environ["CFGCHECK_CACHE_DIR"] = tempfile.mkdtemp(prefix="cfgcheck-test-cache-")
+
 try:
     from hypothesis import settings
 

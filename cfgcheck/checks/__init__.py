@@ -37,6 +37,11 @@ def _load_modules() -> None:
         importlib.import_module(f"{__name__}.{name}")
 
 
+def registered() -> dict[str, Callable]:
+    """The checks registered so far, without importing any module (what a process holds)."""
+    return _CHECKS_CACHE
+
+
 def all_checks() -> dict[str, Callable]:
     _load_modules()
     return _CHECKS_CACHE

@@ -7,7 +7,6 @@ against a primary source.
 
 from __future__ import annotations
 
-import difflib
 from dataclasses import dataclass
 from types import MappingProxyType
 
@@ -86,6 +85,8 @@ ALIASES: MappingProxyType[str, str] = MappingProxyType({
 
 class UnknownGpu(ValueError):
     def __init__(self, name: str):
+        import difflib  # only a GPU name that is not known pays for it
+
         self.name = name
         self.suggestions = difflib.get_close_matches(
             _normal(name), sorted(GPUS) + sorted(ALIASES), n=3, cutoff=0.4

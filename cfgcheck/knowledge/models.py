@@ -38,6 +38,8 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Iterable
 
+from .. import reads
+
 __all__ = (
     "Architecture",
     "SUPPORTED_FAMILIES",
@@ -371,6 +373,7 @@ def architecture_from_config(data: dict, source: str) -> Architecture | None:
 
 
 def _read_config(path: Path) -> Architecture | None:
+    reads.note_file(path)
     try:
         text = path.read_text(encoding="utf-8")
         data = json.loads(text)
@@ -418,9 +421,12 @@ def _catalogue_raw() -> dict:
     return json.loads(_CATALOGUE_FILE.read_text(encoding="utf-8"))
 
 
-@lru_cache(maxsize=1)
 def catalogue_entries() -> tuple[CatalogueEntry, ...]:
     """The bundled catalogue, read once on the first lookup (lint start-up never reads it)."""
+    return _bundle()[0]
+
+
+def _build_entries() -> tuple[CatalogueEntry, ...]:
     arch_fields = _arch_fields()
     raw = _catalogue_raw()
     out = []
@@ -520,12 +526,29 @@ def _tokens(stripped: str) -> frozenset[str]:
 
 
 @lru_cache(maxsize=1)
+def _bundle():
+    """(catalogue entries, name index), built together so the index holds the very entries
+    ``catalogue_entries`` returns; kept ready to use between runs (knowledge.tables)."""
+    from .tables import ready_table
+
+    here = Path(__file__).resolve()
+
+    def build():
+        entries = _build_entries()
+        return entries, _build_name_index(entries)
+
+    return ready_table("model_names", [here, _CATALOGUE_FILE], build)
+
+
 def _name_index():
+    return _bundle()[1]
+
+
+def _build_name_index(entries: tuple[CatalogueEntry, ...]):
     by_id: dict[str, CatalogueEntry] = {}
     by_name: dict[str, CatalogueEntry] = {}
     by_stripped: dict[str, CatalogueEntry] = {}
     token_rows: list[tuple[frozenset[str], CatalogueEntry]] = []
-    entries = catalogue_entries()
     for e in entries:  # canonical ids first: they win a tie among same-name variants
         by_stripped.setdefault(_strip_name(e.id.rsplit("/", 1)[-1])[0], e)
     for e in entries:
@@ -538,7 +561,7 @@ def _name_index():
             # release tags (v0.1, v1.0) are not required: a fine-tune's name rarely repeats them
             token_rows.append((frozenset(t for t in _tokens(stripped) - _NEUTRAL_TOKENS if not _VERSION_TOKEN.fullmatch(t)), e))
     derived = _catalogue_raw().get("derived", [])
-    ids = {e.id: e for e in catalogue_entries()}
+    ids = {e.id: e for e in entries}
     derived_rows = [(frozenset(d["tokens"]), ids[d["base"]], d["source"]) for d in derived if d["base"] in ids]
     return by_id, by_name, by_stripped, token_rows, derived_rows
 
@@ -629,11 +652,14 @@ def _default_hub_cache() -> Path:
 def _from_hub_cache(ref: str, cache: Path) -> Architecture | None:
     folder_name = "models--" + ref.replace("/", "--")
     try:
+        reads.note_kind(cache)
         if not cache.is_dir():
             return None
         repo = cache / folder_name
+        reads.note_kind(repo)
         if not repo.is_dir():
             lowered = folder_name.lower()
+            reads.note_names(cache, "(?i)" + re.escape(folder_name))
             matches = [p for p in cache.iterdir() if p.is_dir() and p.name.lower() == lowered]
             if not matches:
                 return None
@@ -641,11 +667,16 @@ def _from_hub_cache(ref: str, cache: Path) -> Architecture | None:
         snapshots = repo / "snapshots"
         candidates: list[Path] = []
         main = repo / "refs" / "main"
+        reads.note_file(main)
+        reads.note_kind(snapshots)
         if main.is_file():
             commit = main.read_text(encoding="utf-8").strip()
             if commit and "/" not in commit and "\\" not in commit:
                 candidates.append(snapshots / commit / "config.json")
         if snapshots.is_dir():
+            reads.note_folders(snapshots)
+            for p in snapshots.iterdir():
+                reads.note_kind(p / "config.json")
             others = sorted(
                 (p / "config.json" for p in snapshots.iterdir() if (p / "config.json").is_file()),
                 key=lambda p: p.stat().st_mtime,
@@ -666,8 +697,14 @@ def _hub_cache_adapter_base(ref: str, cache: Path) -> str | None:
     """base_model_name_or_path of an adapter repository in the hub cache (adapter_config.json, no config.json)."""
     folder_name = ("models--" + ref.replace("/", "--")).lower()
     try:
+        reads.note_kind(cache)
         if not cache.is_dir():
             return None
+        reads.note_names(cache, "(?i)" + re.escape(folder_name))
+        for r in cache.iterdir():
+            if r.name.lower() == folder_name:
+                reads.note_kind(r / "snapshots")
+                reads.note_folders(r / "snapshots")
         repos = [p for p in cache.iterdir() if p.is_dir() and p.name.lower() == folder_name]
         snapshots = [s for r in repos if (r / "snapshots").is_dir() for s in (r / "snapshots").iterdir()]
     except OSError:
@@ -753,6 +790,7 @@ def _by_folder_name(ref: str) -> Architecture | None:
 
 def _adapter_base(folder: Path) -> str | None:
     """base_model_name_or_path of a PEFT adapter folder (adapter_config.json), if any."""
+    reads.note_file(folder / "adapter_config.json")
     try:
         data = json.loads((folder / "adapter_config.json").read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, ValueError, RecursionError):
@@ -773,6 +811,8 @@ def _resolve(ref, *, config_dir, cwd, hub_cache, depth) -> Architecture | None:
             bases = [(Path(b) / given) for b in (cwd if cwd is not None else Path.cwd(), config_dir) if b is not None]
         local_dir = False
         for base in bases:
+            reads.note_kind(base)
+            reads.note_kind(base / "config.json")
             if base.is_file() and base.suffix == ".json":
                 return _read_config(base)
             if (base / "config.json").is_file():
@@ -1394,7 +1434,37 @@ def modules_to_save_matches(arch: Architecture, modules_to_save) -> list[str]:
     return [r[0] for r in module_table(arch) if any(r[0].endswith(m) for m in names)]
 
 
+def _hashable(value):
+    return tuple(value) if isinstance(value, list) else value
+
+
 def lora_trainable_parameters(
+    arch: Architecture,
+    *,
+    rank: int,
+    targets,
+    modules_to_save=None,
+    use_dora: bool = False,
+    bias: str = "none",
+) -> int:
+    """:func:`_lora_trainable_parameters`, once per run for the same model and adapter
+    (``cfgcheck.memo``): configs of one recipe share them."""
+    from ..memo import remembered
+
+    def count() -> int:
+        return _lora_trainable_parameters(arch, rank=rank, targets=targets, modules_to_save=modules_to_save,
+                                          use_dora=use_dora, bias=bias)
+
+    key = (arch, type(rank), rank, type(targets), _hashable(targets), type(modules_to_save), _hashable(modules_to_save),
+           type(use_dora), use_dora, bias)
+    try:
+        hash(key)
+    except TypeError:
+        return count()
+    return remembered("lora_trainable_parameters", key, count)
+
+
+def _lora_trainable_parameters(
     arch: Architecture,
     *,
     rank: int,

@@ -19,9 +19,9 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
-from functools import lru_cache
 from pathlib import Path
 
+from .. import reads
 from ..findings import OptionError
 
 LIBRARIES = ("transformers", "trl", "peft", "deepspeed", "accelerate")
@@ -86,6 +86,7 @@ def satisfies(version: str, spec: str) -> bool:
 
 
 def _read(path: Path) -> str | None:
+    reads.note_file(path)
     try:
         if not path.is_file() or path.stat().st_size > _MAX_BYTES:
             return None
@@ -149,11 +150,16 @@ def _from_pyproject(text: str) -> dict[str, str]:
     return out
 
 
-@lru_cache(maxsize=256)
+# the names in a folder that decide its pins (the result cache re-lists only these)
+_PIN_NAMES = r"(?:uv|poetry|pdm)\.lock|(?:requirements|constraints)[\w.-]*\.txt|pyproject\.toml|\.git"
+
+
+@reads.memo(maxsize=256)
 def _folder_pins(folder: str) -> tuple[tuple[Pin, ...], bool]:
     """The pins found in one folder, and whether the search stops here (a project root)."""
     path = Path(folder)
     found: dict[str, Pin] = {}
+    reads.note_names(path, _PIN_NAMES)
     try:
         names = sorted(p.name for p in path.iterdir())
     except OSError:
@@ -179,8 +185,20 @@ def pins_near(file: str | None, cwd: Path | None = None) -> dict[str, Pin]:
         return {}
     try:
         path = Path(file) if Path(file).is_absolute() else (cwd or Path.cwd()) / file
+        reads.note_kind(path)
         if not path.is_file():
             return {}  # text given without a file (lint_text): nothing lies beside it
+        if not path.is_symlink():  # the folder is looked up once per run (cfgcheck.memo)
+            from ..memo import remembered
+
+            return dict(remembered("pins_near", str(path.parent), lambda: _pins_of_folder(path)))
+        return _pins_of_folder(path)
+    except (OSError, RuntimeError):
+        return {}
+
+
+def _pins_of_folder(path: Path) -> dict[str, Pin]:
+    try:
         folder = path.resolve().parent
     except (OSError, RuntimeError):
         return {}

@@ -37,6 +37,8 @@ from functools import lru_cache
 from pathlib import Path
 from types import MappingProxyType
 
+from .. import reads
+
 MAX_FILES = 400
 MAX_BYTES = 512 * 1024
 MAX_ENTRIES = 20_000  # folder entries looked at (a data folder of millions of files stays cheap)
@@ -65,7 +67,18 @@ class RepoKeys:
 
 
 def repository_root(config: str | os.PathLike) -> Path | None:
-    """The repository that holds CONFIG, or None when no marker is found above it."""
+    """The repository that holds CONFIG, or None when no marker is found above it (looked up
+    once per folder in a run: ``cfgcheck.memo``)."""
+    from ..memo import remembered
+
+    if os.path.islink(config):  # resolved through the link: its own target's folder
+        return _repository_root(config)
+    folder = os.path.dirname(os.fspath(config))
+    return remembered("repository_root", (folder, os.getcwd() if not os.path.isabs(folder) else ""),
+                      lambda: _repository_root(config))
+
+
+def _repository_root(config: str | os.PathLike) -> Path | None:
     try:
         start = Path(config).resolve().parent
     except (OSError, RuntimeError, ValueError):
@@ -73,6 +86,8 @@ def repository_root(config: str | os.PathLike) -> Path | None:
     cur = start
     for _ in range(MAX_UP + 1):
         try:
+            for m in _MARKERS:
+                reads.note_kind(cur / m)
             if any((cur / m).exists() for m in _MARKERS):
                 return cur
         except OSError:
@@ -97,6 +112,8 @@ def _python_files(root: Path) -> list[Path]:
     try:
         for here, dirs, files in os.walk(root, followlinks=False):
             seen += len(dirs) + len(files)
+            reads.note_folders(here)  # the result cache re-lists the folders and Python files only
+            reads.note_names(here, r".*\.py")
             dirs[:] = sorted(d for d in dirs if not d.startswith(".") and d not in _SKIP_DIRS)
             dirs[:] = [d for d in dirs if d not in ("tests", "test")]  # tests read configs, never take them
             out.extend(Path(here) / name for name in sorted(files) if name.endswith(".py")
@@ -469,7 +486,7 @@ def _reader_libraries(imports: dict[str, str], classes: dict[str, list[str]], ha
     return frozenset(out)
 
 
-@lru_cache(maxsize=64)
+@reads.memo(maxsize=64)
 def _scan(root: str) -> RepoKeys:
     keys: dict[str, str] = {}
     readers: set[str] = set()
@@ -483,6 +500,7 @@ def _scan(root: str) -> RepoKeys:
     parsed = 0
     for path in files:
         try:
+            reads.note_file(path)
             if path.is_symlink() or not path.is_file() or path.stat().st_size > MAX_BYTES:
                 continue
             text = path.read_text(encoding="utf-8", errors="replace")
@@ -542,18 +560,21 @@ def _local_imports(tree: ast.AST, script: Path, top: Path) -> list[Path]:
             rel = Path(*dotted_name.split(".")) if dotted_name else Path()
             for b in bases:
                 for cand in (b / rel.with_suffix(".py") if dotted_name else None, b / rel / "__init__.py"):
+                    if cand is not None:
+                        reads.note_kind(cand)  # a module appearing where none was changes the keys
                     if cand is not None and cand.is_file():
                         out.append(cand)
                         break
     return out
 
 
-@lru_cache(maxsize=64)
+@reads.memo(maxsize=64)
 def reader_keys(script: str) -> RepoKeys | None:
     """The keys SCRIPT (a Python file) and the modules of its own tree it imports declare; None
     when the script cannot be read."""
     path = Path(script)
     try:
+        reads.note_kind(path)
         if not path.is_file():
             return None
     except (OSError, ValueError):
@@ -569,6 +590,7 @@ def reader_keys(script: str) -> RepoKeys | None:
     queue, seen, parsed = [(path, 0)], {path.resolve()}, 0
     while queue and parsed < MAX_READER_FILES:
         here, depth = queue.pop(0)
+        reads.note_file(here)
         try:
             if here.stat().st_size > MAX_BYTES:
                 continue
@@ -642,6 +664,7 @@ def repo_keys(config: str | os.PathLike) -> RepoKeys | None:
     if not text or text.startswith("<"):
         return None
     try:
+        reads.note_kind(text)
         if not Path(text).is_file():
             return None
     except (OSError, ValueError):

@@ -1,0 +1,500 @@
+"""A content cache of lint results: an unchanged file with unchanged surroundings is not linted again.
+
+An entry is found by a key made of everything that decides a file's report and is known before
+the lint starts: the file's bytes (sha256), its name as given and its absolute path, the working
+folder, cfgcheck's version, a fingerprint of cfgcheck's own files (code, rule records, knowledge
+tables) and of the libraries that read the files (PyYAML, bashlex), the environment variables that
+decide where models are looked up, and the options of the lint (GPU, GPU count, rows, rule
+selection, severity and threshold overrides, waivers and hardware profiles from the project file,
+launch files, overrides, library releases, the launch script paired with the file).
+
+What is only known while linting (the files a config links or composes, launch files, a
+checkpoint's config.json, the model hub cache, the repository's Python files, pins beside the
+config, paths that did not exist) is recorded by ``reads`` as facts, stored with the entry, and
+checked again before the entry is used: one changed fact and the file is linted afresh.
+
+Entries are pickles of FileReport (without its views: the text, JSON, SARIF and GitHub output
+never read them), read back with an unpickler that builds only the result types. Reports with an
+internal error are never stored. Writes go to a temporary file in the same folder and are moved
+into place, so concurrent runs never see half an entry; an unreadable entry is a miss; a folder
+that cannot be written to means no caching, never an error. The total size is bounded: now and
+then the oldest entries (by modification time) are removed.
+
+The folder: ``$CFGCHECK_CACHE_DIR``, else the platform's user cache folder (platformdirs).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import os
+import stat
+import sys
+import time
+from pathlib import Path
+from typing import Any, Iterable
+
+from . import __version__, reads
+
+ENV_FOLDER = "CFGCHECK_CACHE_DIR"
+FORMAT = 1  # bump when the entry layout or the key's make-up changes
+MAX_BYTES = 256 * 1024 * 1024  # entries kept in all
+MAX_ENTRIES = 200_000
+TRIM_EVERY_S = 24 * 3600  # look at the total size at most this often (or after writing a lot)
+KEEP_FRACTION = 0.8  # a trim removes the oldest entries until this much of the bound is left
+
+# environment variables that change which model a name resolves to, or where ~ points
+ENV_INPUTS = ("HF_HOME", "HF_HUB_CACHE", "HUGGINGFACE_HUB_CACHE", "TRANSFORMERS_CACHE",
+              "HF_HUB_OFFLINE", "TRANSFORMERS_OFFLINE", "XDG_CACHE_HOME", "HOME", "USERPROFILE")
+
+_MAGIC = b"cfgcheck-lint-cache\n"
+_OPTIONS_LEFT_OUT = ("debug",)  # re-raising a failing rule: a stored report has no failure
+
+
+class Uncacheable(Exception):
+    """An input the key cannot describe exactly: lint without the cache."""
+
+
+def default_folder() -> Path | None:
+    """``$CFGCHECK_CACHE_DIR``, else the platform's user cache folder; None when neither can be
+    known (no home folder, platformdirs missing): then nothing is cached."""
+    given = os.environ.get(ENV_FOLDER)
+    try:
+        if given:
+            return Path(given).expanduser()
+        import platformdirs
+
+        return Path(platformdirs.user_cache_dir("cfgcheck", appauthor=False))
+    except (ImportError, RuntimeError, OSError, ValueError):
+        return None
+
+
+# --------------------------------------------------------------------------- the key
+
+def canonical(value: Any) -> Any:
+    """VALUE as plain nested tuples that print the same in every process (sets sorted, dataclass
+    fields by name); raises Uncacheable for a value it cannot describe."""
+    if value is None or isinstance(value, (bool, int, float, str, bytes)):
+        return (type(value).__name__, value)
+    if isinstance(value, os.PathLike):
+        return ("path", os.fspath(value))
+    import enum
+
+    if isinstance(value, enum.Enum):
+        return ("enum", type(value).__qualname__, canonical(value.value))
+    if isinstance(value, (list, tuple)):
+        return (type(value).__name__, tuple(canonical(v) for v in value))
+    if isinstance(value, (set, frozenset)):
+        return ("set", tuple(sorted((canonical(v) for v in value), key=repr)))
+    if isinstance(value, dict):
+        return ("dict", tuple(sorted(((canonical(k), canonical(v)) for k, v in value.items()), key=repr)))
+    import dataclasses
+
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return (type(value).__module__ + "." + type(value).__qualname__,
+                tuple((f.name, canonical(getattr(value, f.name))) for f in dataclasses.fields(value)))
+    raise Uncacheable(f"{type(value).__name__} in the options")
+
+
+def options_text(options: Any) -> str:
+    import dataclasses
+
+    fields = [(f.name, canonical(getattr(options, f.name))) for f in dataclasses.fields(options)
+              if f.name not in _OPTIONS_LEFT_OUT]
+    return repr(fields)
+
+
+def _package_files() -> list[Path]:
+    """cfgcheck's own files whose change can change a report: the package (code, knowledge
+    tables) and the rule records (packaged as cfgcheck/_catalogue, or rules/ beside a checkout;
+    the same choice as catalogue.catalogue_dir)."""
+    pkg = Path(__file__).resolve().parent
+    roots = [pkg]
+    if not (pkg / "_catalogue").is_dir():
+        roots.append(pkg.parent / "rules")
+    out = []
+    for root in roots:
+        for here, dirs, files in os.walk(root):
+            dirs[:] = sorted(d for d in dirs if d != "__pycache__" and not d.startswith("."))
+            out.extend(Path(here) / f for f in sorted(files)
+                       if not f.endswith((".pyc", ".tmp")) and not f.startswith("."))
+    return out
+
+
+def _library_files() -> list[Path]:
+    import importlib.util
+
+    out = []
+    for name in ("yaml", "bashlex"):
+        try:
+            spec = importlib.util.find_spec(name)
+        except (ImportError, ValueError):
+            continue
+        if spec is not None and spec.origin:
+            out.append(Path(spec.origin))
+    return out
+
+
+# --------------------------------------------------------------------------- entries
+
+_ALLOWED = frozenset({
+    ("cfgcheck.findings", name)
+    for name in ("FileReport", "Finding", "Fix", "Edit", "Related", "InputProblem", "Severity")
+})
+_PLAIN = (type(None), bool, int, float, str, bytes, list, tuple, dict, set, frozenset)
+
+
+_CLASSES_CACHE: dict[str, Any] = {}  # the pickler and unpickler classes, made on first use
+
+
+def _picklers() -> dict[str, Any]:
+    if not _CLASSES_CACHE:
+        import pickle
+
+        from . import findings
+
+        allowed = (findings.FileReport, findings.Finding, findings.Fix, findings.Edit,
+                   findings.Related, findings.InputProblem, findings.Severity)
+
+        class _Pickler(pickle.Pickler):
+            def persistent_id(self, obj: Any) -> None:
+                if isinstance(obj, type):  # a class named by reference
+                    ok = obj in allowed or obj in _PLAIN
+                else:
+                    ok = isinstance(obj, _PLAIN) or type(obj) in allowed
+                if not ok:
+                    raise Uncacheable(f"{type(obj).__name__} in a report")
+                return None
+
+        class _Unpickler(pickle.Unpickler):
+            def find_class(self, module: str, name: str) -> Any:
+                if (module, name) not in _ALLOWED:
+                    raise pickle.UnpicklingError(f"{module}.{name} is not a result type")
+                return super().find_class(module, name)
+
+        _CLASSES_CACHE.update(pickler=_Pickler, unpickler=_Unpickler, protocol=pickle.HIGHEST_PROTOCOL)
+    return _CLASSES_CACHE
+
+
+def _dumps(payload: Any) -> bytes:
+    """PAYLOAD pickled; Uncacheable when it holds anything but plain values and result types."""
+    made = _picklers()
+    buf = io.BytesIO()
+    made["pickler"](buf, protocol=made["protocol"]).dump(payload)
+    return buf.getvalue()
+
+
+def _loads(blob: bytes) -> Any:
+    """An entry's payload, building no class but the result types (never code from the file)."""
+    return _picklers()["unpickler"](io.BytesIO(blob)).load()
+
+
+class Store:
+    """One run's use of the cache folder. Every method swallows the folder's failures: a cache
+    that cannot be read is a miss, one that cannot be written is not written."""
+
+    def __init__(self, folder: str | os.PathLike | None = None):
+        base = Path(folder) if folder is not None else default_folder()
+        self.root = (base if base is not None else Path(os.devnull)) / f"lint-{FORMAT}"
+        self._folder = str(self.root)
+        self.usable = base is not None
+        self.writable = self.usable
+        self.hits = 0
+        self.misses = 0
+        self.written = 0  # bytes written by this run
+        self._facts: dict[tuple[str, str, str], str] = {}  # facts checked in this run
+        self._prefix: str | None = None
+        self._options: dict[int, tuple[Any, str]] = {}  # id -> (options, their text): files share them
+        self._sets: dict[str, bool] = {}  # fact sets checked in this run -> whether they hold
+
+    # the key ------------------------------------------------------------------
+    def _fixed(self) -> str:
+        """The part of every key that does not depend on the file or its options."""
+        if self._prefix is None:
+            stats = []
+            for p in _package_files() + _library_files():
+                try:
+                    st = p.stat()
+                    stats.append((str(p), st.st_size, st.st_mtime_ns))
+                except OSError:
+                    stats.append((str(p), -1, -1))
+            code = self._code_fingerprint(stats)
+            env = [(n, os.environ.get(n)) for n in ENV_INPUTS]
+            # a process that already holds the checks (a long-lived caller, a test) may have
+            # replaced one with a function from elsewhere: such replacements are part of the key
+            held = sys.modules.get("cfgcheck.checks")
+            checks = held.registered() if held is not None and hasattr(held, "registered") else {}
+            registry = sorted((rule, str(getattr(fn, "__module__", "")), getattr(fn, "__qualname__", ""))
+                              for rule, fn in checks.items()
+                              if not str(getattr(fn, "__module__", "")).startswith("cfgcheck.checks."))
+            self._prefix = repr((FORMAT, __version__, sys.version, code, env, os.getcwd(), registry))
+        return self._prefix
+
+    def _code_fingerprint(self, stats: list) -> str:
+        """sha256 over the contents of cfgcheck's files, remembered in the cache folder under the
+        hash of their sizes and modification times (an editable install: any edit is seen)."""
+        by_stat = hashlib.sha256(repr(stats).encode("utf-8", "surrogateescape")).hexdigest()
+        where = self.root / "code" / by_stat
+        try:
+            known = where.read_text(encoding="ascii").strip()
+            if len(known) == 64:
+                return known
+        except (OSError, ValueError):
+            pass
+        h = hashlib.sha256()
+        for name, _size, _mtime in stats:
+            h.update(name.encode("utf-8", "surrogateescape") + b"\0")
+            h.update(reads.content(name).encode("ascii", "replace") + b"\0")
+        digest = h.hexdigest()
+        self._write(where, digest.encode("ascii"))
+        return digest
+
+    def key(self, path: str, options: Any) -> tuple[str, str]:
+        """(entry key, sha256 of the file's bytes); Uncacheable when the file or the options
+        cannot be keyed (not a regular file, an option the key cannot describe)."""
+        try:
+            with open(path, "rb") as fh:
+                st = os.fstat(fh.fileno())
+                if not stat.S_ISREG(st.st_mode) or st.st_size > reads.MAX_HASHED:
+                    raise Uncacheable("not a regular file of a size worth keeping")
+                digest = hashlib.sha256(fh.read()).hexdigest()
+        except (OSError, ValueError):  # a folder, a missing file: linting it says why, cheaply
+            raise Uncacheable("not readable") from None
+        known = self._options.get(id(options))
+        if known is None or known[0] is not options:
+            known = self._options[id(options)] = (options, options_text(options))
+        text = "\0".join((self._fixed(), path, os.path.abspath(path), digest, known[1]))
+        return hashlib.sha256(text.encode("utf-8", "surrogateescape")).hexdigest(), digest
+
+    # entries ------------------------------------------------------------------
+    def _entry(self, key: str) -> str:
+        return os.path.join(self._folder, key[:2], key[2:])
+
+    def get(self, key: str) -> Any:
+        """The stored report for KEY when every fact it rests on still holds, else None."""
+        if not self.usable:
+            self.misses += 1
+            return None
+        try:
+            with open(self._entry(key), "rb") as fh:
+                blob = fh.read()
+        except OSError:
+            self.misses += 1
+            return None
+        try:
+            if not blob.startswith(_MAGIC):
+                raise ValueError("not an entry")
+            stored_key, facts_id, report = _loads(blob[len(_MAGIC):])
+            if stored_key != key or not self._holds(facts_id):
+                raise ValueError("another key, or a fact changed")
+        except Exception:  # noqa: BLE001 - a truncated, corrupt or foreign entry is a miss
+            self.misses += 1
+            return None
+        self.hits += 1
+        return report
+
+    def _facts_file(self, facts_id: str) -> str:
+        return os.path.join(self._folder, "facts", facts_id[:2], facts_id[2:])
+
+    def _holds(self, facts_id: str) -> bool:
+        """Whether every fact of the stored set FACTS_ID holds now. Files of one folder share
+        one set (the folders above them, the hub cache, the repository): each set is checked
+        once per run, each fact at most once."""
+        known = self._sets.get(facts_id)
+        if known is not None:
+            return known
+        ok = False
+        try:
+            with open(self._facts_file(facts_id), "rb") as fh:
+                blob = fh.read()
+            if hashlib.sha256(blob).hexdigest() == facts_id:
+                import json
+
+                ok = True
+                for kind, path, pattern, fact in json.loads(blob):
+                    now = self._facts.get((kind, path, pattern))
+                    if now is None:
+                        now = self._facts[(kind, path, pattern)] = reads.fact(kind, path, pattern)
+                    if now != fact:
+                        ok = False
+                        break
+        except (OSError, ValueError, TypeError):
+            ok = False
+        self._sets[facts_id] = ok
+        return ok
+
+    def put(self, key: str, digest: str, path: str, facts: dict, report: Any) -> bool:
+        """Store REPORT (without views) with the facts it rests on; False when it is not stored
+        (an internal error, the file changed while it was linted, an unwritable folder)."""
+        if not self.writable or report.internal:
+            return False
+        own = ("f", os.path.abspath(path), "")
+        if facts.get(own, digest) != digest:
+            return False  # the file changed between the key and the lint
+        import json
+
+        # what the key says already (the file is there, with these bytes) is left out, so the
+        # files of one folder share one set of facts
+        kept = [[k, p, pat, v] for (k, p, pat), v in sorted(facts.items())
+                if not (p == own[1] and k in ("f", "k"))]
+        try:
+            facts_blob = json.dumps(kept, separators=(",", ":")).encode("utf-8", "surrogateescape")
+        except (TypeError, ValueError, UnicodeEncodeError):
+            return False
+        facts_id = hashlib.sha256(facts_blob).hexdigest()
+        if self._sets.get(facts_id) is None:
+            target = self._facts_file(facts_id)
+            if not os.path.exists(target) and not self._write(target, facts_blob):
+                return False
+            self._sets[facts_id] = True  # written now from what this run saw
+        views, report.views = report.views, []
+        try:
+            blob = _MAGIC + _dumps((key, facts_id, report))
+        except Exception:  # noqa: BLE001 - a value the result types do not hold: not stored
+            return False
+        finally:
+            report.views = views
+        if self._write(self._entry(key), blob):
+            self.written += len(blob)
+            return True
+        return False
+
+    def _write(self, target: str | Path, blob: bytes) -> bool:
+        if not self.writable:
+            return False
+        target = Path(target)
+        tmp = target.parent / f".{target.name}.{os.getpid()}.{time.monotonic_ns()}.tmp"
+        try:
+            target.parent.mkdir(parents=True, exist_ok=True)
+            with open(tmp, "wb") as fh:
+                fh.write(blob)
+            os.replace(tmp, target)
+            return True
+        except OSError:
+            self.writable = False  # a read-only or full disk: this run stops trying
+            try:
+                tmp.unlink()
+            except OSError:
+                pass
+            return False
+
+    # size ---------------------------------------------------------------------
+    def close(self) -> None:
+        """After a run that wrote entries: trim the folder when it is due."""
+        if not self.written:
+            return
+        stamp = self.root / "trimmed"
+        try:
+            due = time.time() - stamp.stat().st_mtime > TRIM_EVERY_S
+        except OSError:
+            due = True
+        if due or self.written > MAX_BYTES // 8:
+            trim(self.root)
+            self._write(stamp, b"")
+
+
+def trim(root: str | os.PathLike, max_bytes: int | None = None, max_entries: int | None = None) -> int:
+    """Remove the oldest entries until at most KEEP_FRACTION of the bounds is used (and leftover
+    temporary files older than an hour); returns the number of files removed."""
+    max_bytes = MAX_BYTES if max_bytes is None else max_bytes
+    max_entries = MAX_ENTRIES if max_entries is None else max_entries
+    entries = []
+    removed = 0
+    now = time.time()
+    shards = []
+    for folder in (root, os.path.join(root, "facts")):
+        try:
+            shards += [e for e in os.scandir(folder) if e.is_dir() and len(e.name) == 2]
+        except OSError:
+            pass
+    for shard in shards:
+        try:
+            with os.scandir(shard.path) as it:
+                for e in it:
+                    try:
+                        st = e.stat()
+                    except OSError:
+                        continue
+                    if e.name.endswith(".tmp"):
+                        if now - st.st_mtime > 3600 and _remove(e.path):
+                            removed += 1
+                        continue
+                    entries.append((st.st_mtime, st.st_size, e.path))
+        except OSError:
+            continue
+    total = sum(size for _, size, _ in entries)
+    if total <= max_bytes and len(entries) <= max_entries:
+        return removed
+    entries.sort()
+    keep_bytes, keep_entries = int(max_bytes * KEEP_FRACTION), int(max_entries * KEEP_FRACTION)
+    count = len(entries)
+    for _mtime, size, path in entries:
+        if total <= keep_bytes and count <= keep_entries:
+            break
+        if _remove(path):
+            removed += 1
+            total -= size
+            count -= 1
+    return removed
+
+
+def _remove(path: str) -> bool:
+    try:
+        os.unlink(path)
+        return True
+    except OSError:
+        return False
+
+
+def usage(root: str | os.PathLike) -> tuple[int, int]:
+    """(files, bytes) of the entries and fact sets stored under ROOT."""
+    n = total = 0
+    for folder in (os.fspath(root), os.path.join(root, "facts")):
+        try:
+            shards = [e.path for e in os.scandir(folder) if e.is_dir() and len(e.name) == 2]
+        except OSError:
+            continue
+        for shard in shards:
+            for e in os.scandir(shard):
+                if not e.name.endswith(".tmp"):
+                    try:
+                        total += e.stat().st_size
+                        n += 1
+                    except OSError:
+                        pass
+    return n, total
+
+
+def lint_cached(pairs: Iterable[tuple[str, Any]], store: Store, lint_recorded, lint_many=None):
+    """Reports for (file, options) pairs, in order: stored ones when they still hold, the others
+    from ``lint_recorded(path, options) -> (report, facts)`` (or, for several misses at once,
+    ``lint_many(misses) -> iterator of (report, facts)``, e.g. over processes). The caller
+    calls ``store.close()`` once it has taken the reports it wants."""
+    pairs = list(pairs)
+    keyed: list[tuple[str, str] | None] = []
+    for path, options in pairs:
+        try:
+            keyed.append(store.key(path, options) if store.usable else None)
+        except Exception:  # noqa: BLE001 - Uncacheable, or anything odd: lint it without the cache
+            keyed.append(None)
+    if lint_many is None:
+        for (path, options), k in zip(pairs, keyed):
+            report = store.get(k[0]) if k else None
+            if report is None:
+                report, facts = lint_recorded(path, options)
+                if k:
+                    store.put(k[0], k[1], path, facts, report)
+            yield report
+        return
+    found = [store.get(k[0]) if k else None for k in keyed]
+    misses = [i for i, r in enumerate(found) if r is None]
+    fresh = lint_many([pairs[i] for i in misses]) if misses else iter(())
+    pending = iter(misses)
+    nxt = next(pending, None)
+    for i, report in enumerate(found):
+        if i == nxt:
+            report, facts = next(fresh)
+            if keyed[i]:
+                store.put(keyed[i][0], keyed[i][1], pairs[i][0], facts, report)
+            nxt = next(pending, None)
+        yield report

@@ -1,0 +1,58 @@
+"""Answers worked out once per run: what lies around a config folder (the repository root, the
+releases pinned beside it) and pure computations many configs share (a memory estimate).
+
+A *run* is one ``engine.lint_files`` pass (or whatever opens a ``scope()``): inside it the files
+on disk are taken as they were when it began, so two configs in one folder look the folder up
+once. Outside a scope nothing is remembered and every call computes afresh, so a long-lived
+process (the editor server, a test) never sees a folder as it was before it changed.
+
+An answer that looked at the disk keeps the facts it noted (reads.py), and every later caller in
+the run gets them replayed into its own record: the result cache then knows that the second
+config of a folder rests on the same files as the first.
+"""
+
+from __future__ import annotations
+
+from contextlib import contextmanager
+from typing import Any, Callable, Hashable, Iterator
+
+from . import reads
+
+MAX_ENTRIES = 4096  # per kind of answer: a run over a huge tree stays bounded
+
+_active_cache: dict[str, dict] | None = None
+
+
+@contextmanager
+def scope() -> Iterator[None]:
+    """Remember answers until the outermost scope ends."""
+    global _active_cache
+    outer = _active_cache
+    if outer is None:
+        _active_cache = {}
+    try:
+        yield
+    finally:
+        if outer is None:
+            _active_cache = None
+
+
+def remembered(kind: str, key: Hashable, compute: Callable[[], Any]) -> Any:
+    """``compute()``, or the answer it gave for KEY earlier in this run."""
+    memo = _active_cache
+    if memo is None:
+        return compute()
+    table = memo.get(kind)
+    if table is None:
+        table = memo[kind] = {}
+    try:
+        value, seen = table[key]
+    except KeyError:
+        with reads.recording() as facts:
+            value = compute()
+        seen = tuple(facts.items())
+        if len(table) >= MAX_ENTRIES:
+            table.clear()
+        table[key] = (value, seen)
+    reads.replay(seen)
+    return value

@@ -1,0 +1,200 @@
+"""What the lint of one file looked at on disk, so a stored result can be checked before reuse.
+
+While ``recording()`` is active, every place that reads a file, asks whether a path exists or
+lists a folder notes a *fact* here: the file's content (sha256 of its bytes), the kind of a path
+(file, folder, other, missing) or the names in a folder (optionally only those matching a
+pattern). ``fact(kind, path, pattern)`` computes the same fact again from the disk, so the result
+cache (cache.py) can tell whether anything a stored result rests on has changed: a linked file
+edited, a file appearing where a link pointed to nothing, a new lock file beside a config.
+
+Outside ``recording()`` every ``note_*`` function returns at once: a lint without the cache pays
+one context-variable lookup per read. Functions memoised across files must use ``memo``, which
+replays the facts of the first call into each later caller's record.
+
+Standard library only: the cache-hit path imports this module and nothing heavier.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import contextvars
+import functools
+import hashlib
+import os
+import re
+import stat
+from typing import Any, Callable, Iterator
+
+# (kind, absolute path, pattern or "") -> fact; kinds: "f" content, "k" kind of path, "d" names,
+# "s" subfolder names
+Facts = dict[tuple[str, str, str], str]
+
+_RECORD: contextvars.ContextVar[Facts | None] = contextvars.ContextVar("cfgcheck_reads", default=None)
+
+MAX_HASHED = 64 * 1024 * 1024  # a bigger file is known by its size and modification time
+
+
+@contextlib.contextmanager
+def recording() -> Iterator[Facts]:
+    """Collect the facts noted inside the block (nested blocks collect their own)."""
+    facts: Facts = {}
+    token = _RECORD.set(facts)
+    try:
+        yield facts
+    finally:
+        _RECORD.reset(token)
+
+
+def _abs(path: Any) -> str:
+    return os.path.abspath(os.fspath(path))
+
+
+def path_kind(path: Any) -> str:
+    """"file" | "folder" | "other" | "missing" (links followed) | "error:<errno>"."""
+    try:
+        st = os.stat(path)
+    except (FileNotFoundError, NotADirectoryError, ValueError):
+        return "missing"
+    except OSError as exc:
+        return f"error:{exc.errno}"
+    if stat.S_ISREG(st.st_mode):
+        return "file"
+    if stat.S_ISDIR(st.st_mode):
+        return "folder"
+    return "other"
+
+
+def content(path: Any) -> str:
+    """sha256 of a regular file's bytes, or the kind of path when it is not a readable file."""
+    kind = path_kind(path)
+    if kind != "file":
+        return kind
+    try:
+        size = os.stat(path).st_size
+        if size > MAX_HASHED:
+            st = os.stat(path)
+            return f"large:{st.st_size}:{st.st_mtime_ns}"
+        with open(path, "rb") as fh:
+            return hashlib.sha256(fh.read()).hexdigest()
+    except OSError as exc:
+        return f"unreadable:{exc.errno}"
+
+
+def names(path: Any, pattern: str = "") -> str:
+    """sha256 of the sorted names in a folder (those matching PATTERN in full, when given)."""
+    try:
+        found = os.listdir(path)
+    except (FileNotFoundError, NotADirectoryError, ValueError):
+        return "missing"
+    except OSError as exc:
+        return f"error:{exc.errno}"
+    if pattern:
+        rx = re.compile(pattern)
+        found = [n for n in found if rx.fullmatch(n)]
+    return hashlib.sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
+
+
+def folders(path: Any) -> str:
+    """sha256 of the sorted names of the subfolders of PATH (links to folders included)."""
+    try:
+        with os.scandir(path) as it:
+            found = [e.name for e in it if e.is_dir()]
+    except (FileNotFoundError, NotADirectoryError, ValueError):
+        return "missing"
+    except OSError as exc:
+        return f"error:{exc.errno}"
+    return hashlib.sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
+
+
+def fact(kind: str, path: str, pattern: str = "") -> str:
+    """The fact of KIND about PATH as the disk says now."""
+    if kind == "f":
+        return content(path)
+    if kind == "k":
+        return path_kind(path)
+    if kind == "s":
+        return folders(path)
+    return names(path, pattern)
+
+
+# --------------------------------------------------------------------------- noting
+
+def active() -> bool:
+    return _RECORD.get() is not None
+
+
+def note_bytes(path: Any, raw: bytes) -> None:
+    """PATH was read and these are the bytes used (the guarded reader calls this)."""
+    facts = _RECORD.get()
+    if facts is not None:
+        facts.setdefault(("f", _abs(path), ""), hashlib.sha256(raw).hexdigest())
+
+
+def note_file(path: Any) -> None:
+    """PATH was read (or could not be): its content as the disk holds it."""
+    facts = _RECORD.get()
+    if facts is not None:
+        facts.setdefault(("f", _abs(path), ""), content(path))
+
+
+def note_kind(path: Any) -> None:
+    """Whether PATH exists, and as what, decided something."""
+    facts = _RECORD.get()
+    if facts is not None:
+        facts.setdefault(("k", _abs(path), ""), path_kind(path))
+
+
+def note_names(path: Any, pattern: str = "") -> None:
+    """The names in folder PATH (those matching PATTERN) decided something."""
+    facts = _RECORD.get()
+    if facts is not None:
+        facts.setdefault(("d", _abs(path), pattern), names(path, pattern))
+
+
+def note_folders(path: Any) -> None:
+    """The subfolders of PATH decided something (a walk went into them)."""
+    facts = _RECORD.get()
+    if facts is not None:
+        facts.setdefault(("s", _abs(path), ""), folders(path))
+
+
+def replay(seen: tuple) -> None:
+    """Note again, in the record now active, the facts an earlier (memoised) call noted."""
+    facts = _RECORD.get()
+    if facts is not None:
+        for k, v in seen:
+            facts.setdefault(k, v)
+
+
+_MEMOS_CACHE: list[Callable] = []
+
+
+def forget() -> None:
+    """Empty every ``memo``: a new run looks at the disk afresh (``api.lint`` starts with this,
+    so a long-lived process never reuses what an earlier run saw)."""
+    for clear in _MEMOS_CACHE:
+        clear()
+
+
+def memo(maxsize: int = 64) -> Callable[[Callable], Callable]:
+    """``functools.lru_cache`` for functions that look at the disk: a call served from the memo
+    notes the facts the first call noted, so each file's record stays complete."""
+
+    def wrap(fn: Callable) -> Callable:
+        @functools.lru_cache(maxsize=maxsize)
+        def first(*args: Any) -> tuple[Any, tuple]:
+            with recording() as facts:
+                result = fn(*args)
+            return result, tuple(facts.items())
+
+        @functools.wraps(fn)
+        def call(*args: Any) -> Any:
+            result, seen = first(*args)
+            replay(seen)
+            return result
+
+        call.cache_clear = first.cache_clear  # type: ignore[attr-defined]
+        _MEMOS_CACHE.append(first.cache_clear)
+        return call
+
+    return wrap

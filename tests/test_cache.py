@@ -1,0 +1,567 @@
+"""The lint result cache: a stored report is reused only while everything it rests on is unchanged.
+
+Each invalidation case lints once (stored), again (served from the cache, same answer), changes one
+input, and lints again: the answer must be the one a lint without the cache gives, and differ from
+the old one. The concurrency, corruption, unwritable-folder and size cases check that the cache
+never breaks a run.
+"""
+
+from __future__ import annotations
+
+import json
+import multiprocessing
+import os
+import pickle
+import subprocess
+import sys
+import threading
+from pathlib import Path
+
+import pytest
+
+from cfgcheck import api, cache, reads
+from cfgcheck.findings import FileReport, Finding, Severity
+from cfgcheck.render import render
+
+ROOT = Path(__file__).resolve().parents[1]
+ENV = dict(os.environ, PYTHONPATH=str(ROOT), NO_COLOR="1")
+
+# alpha 8 / r 16: LoRA scale 0.5 (LoRA paper sec. 4.1: the update is scaled by alpha / r), which
+# lora-scale-below-one reports; alpha 32 gives scale 2 and no finding
+LOW_SCALE = "use_peft: true\nlora_r: 16\nlora_alpha: 8\nlearning_rate: 2.0e-4\n"
+GOOD_SCALE = "use_peft: true\nlora_r: 16\nlora_alpha: 32\nlearning_rate: 2.0e-4\n"
+
+
+def _answer(report) -> str:
+    return render("json", report, report.findings)
+
+
+class Case:
+    """Lints through one cache folder; ``store`` is the Store of the latest cached lint."""
+
+    def __init__(self, tmp_path: Path):
+        self.folder = tmp_path / "cache"
+        self.store: cache.Store | None = None
+
+    def cached(self, paths, **options) -> str:
+        self.store = cache.Store(self.folder)
+        options.setdefault("project", None)
+        return _answer(api.lint([str(p) for p in paths], cache=self.store, **options))
+
+    @staticmethod
+    def fresh(paths, **options) -> str:
+        options.setdefault("project", None)
+        return _answer(api.lint([str(p) for p in paths], **options))
+
+    def check(self, paths, change, **options) -> tuple[str, str]:
+        """(answer before, answer after CHANGE); asserts the hit before and the miss after."""
+        before = self.cached(paths, **options)
+        assert self.store.misses == len(paths) and self.store.written > 0
+        again = self.cached(paths, **options)
+        assert (self.store.hits, again) == (len(paths), before)
+        changed = change()
+        new_options = changed if isinstance(changed, dict) else options
+        after = self.cached(paths, **new_options)
+        assert self.store.hits == 0, "a changed input must not be served from the cache"
+        assert after == self.fresh(paths, **new_options)
+        assert after != before
+        # and the new answer is stored in its turn
+        assert self.cached(paths, **new_options) == after and self.store.hits == len(paths)
+        return before, after
+
+
+def _rules(answer: str) -> list[str]:
+    return sorted(f["rule"] for f in json.loads(answer)["findings"])
+
+
+# --------------------------------------------------------------------------- invalidation
+
+def test_changed_file_is_linted_again(tmp_path):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    before, after = Case(tmp_path).check([cfg], lambda: cfg.write_text(GOOD_SCALE))
+    assert "lora-scale-below-one" in _rules(before) and "lora-scale-below-one" not in _rules(after)
+
+
+def test_changed_linked_deepspeed_file(tmp_path):
+    # an accelerate file naming a DeepSpeed JSON; 4 accumulation steps against the JSON's 8
+    # contradict each other (rule deepspeed-file-contradicts-config), against 4 they agree
+    cfg = tmp_path / "accelerate.yaml"
+    cfg.write_text("compute_environment: LOCAL_MACHINE\ndistributed_type: DEEPSPEED\nnum_processes: 8\n"
+                   "deepspeed_config:\n  deepspeed_config_file: ds.json\n  gradient_accumulation_steps: 4\n")
+    ds = tmp_path / "ds.json"
+    ds.write_text('{"train_micro_batch_size_per_gpu": 2, "gradient_accumulation_steps": 8, '
+                  '"zero_optimization": {"stage": 2}}\n')
+    before, after = Case(tmp_path).check([cfg], lambda: ds.write_text(
+        '{"train_micro_batch_size_per_gpu": 2, "gradient_accumulation_steps": 4, '
+        '"zero_optimization": {"stage": 2}}\n'))
+    assert "deepspeed-file-contradicts-config" in _rules(before)
+    assert "deepspeed-file-contradicts-config" not in _rules(after)
+
+
+def test_linked_file_that_appears_where_nothing_was(tmp_path):
+    cfg = tmp_path / "accelerate.yaml"
+    cfg.write_text("compute_environment: LOCAL_MACHINE\ndistributed_type: DEEPSPEED\nnum_processes: 8\n"
+                   "deepspeed_config:\n  deepspeed_config_file: ds.json\n  gradient_accumulation_steps: 4\n")
+    ds = tmp_path / "ds.json"
+    before, after = Case(tmp_path).check([cfg], lambda: ds.write_text(
+        '{"train_micro_batch_size_per_gpu": 2, "gradient_accumulation_steps": 8, '
+        '"zero_optimization": {"stage": 2}}\n'))
+    assert "deepspeed-file-contradicts-config" in _rules(after)
+    assert "ds.json" in before  # the missing file was reported as not found
+
+
+def test_changed_launch_file(tmp_path):
+    # bf16 in the config against fp16 in the launch file: launch-context-disagrees; bf16 in both agree
+    cfg = tmp_path / "train.yaml"
+    cfg.write_text("learning_rate: 2.0e-5\nper_device_train_batch_size: 4\nbf16: true\n")
+    launch = tmp_path / "launch.yaml"
+    launch.write_text("compute_environment: LOCAL_MACHINE\ndistributed_type: MULTI_GPU\nnum_processes: 4\n"
+                      "mixed_precision: fp16\n")
+    before, after = Case(tmp_path).check(
+        [cfg], lambda: launch.write_text("compute_environment: LOCAL_MACHINE\ndistributed_type: MULTI_GPU\n"
+                                         "num_processes: 4\nmixed_precision: bf16\n"),
+        launch=[str(launch)])
+    assert "launch-context-disagrees" in _rules(before) and "launch-context-disagrees" not in _rules(after)
+
+
+def test_changed_project_file(tmp_path):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    project = tmp_path / "cfgcheck.yaml"
+    project.write_text("rules:\n  skip: [unknown-key]\n")
+    before, after = Case(tmp_path).check(
+        [cfg], lambda: project.write_text("rules:\n  skip: [lora-scale-below-one]\n"), project="auto")
+    assert "lora-scale-below-one" in _rules(before) and "lora-scale-below-one" not in _rules(after)
+
+
+@pytest.mark.parametrize("first, second", [
+    ({}, {"gpu": "t4"}),
+    ({"gpu": "t4"}, {"gpu": "a100-80gb"}),
+    ({}, {"severity": {"lora-scale-below-one": "error"}}),
+    ({}, {"skip": ["lora-scale-below-one"]}),
+    ({}, {"only": ["lora-scale-below-one"]}),
+    ({"gpu": "t4"}, {"gpu": "t4", "gpus": 4}),
+])
+def test_changed_option(tmp_path, first, second):
+    cfg = tmp_path / "run.yaml"
+    # a 7B model: whether it fits depends on the GPU (memory-exceeds-gpu) and the GPU count
+    cfg.write_text("model_name_or_path: meta-llama/Llama-2-7b-hf\nuse_peft: true\nlora_r: 16\n"
+                   "lora_alpha: 8\nlearning_rate: 2.0e-4\nper_device_train_batch_size: 8\n"
+                   "max_seq_length: 4096\n")
+    Case(tmp_path).check([cfg], lambda: second, **first)
+
+
+def test_changed_threshold(tmp_path):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    from cfgcheck.catalogue import load_catalogue
+
+    rule = load_catalogue()["lora-scale-below-one"]
+    name = next(iter(rule.thresholds))
+    case = Case(tmp_path)
+    case.cached([cfg])
+    other = case.cached([cfg], thresholds={"lora-scale-below-one": {name: -1}})
+    assert case.store.hits == 0 and other == Case.fresh([cfg], thresholds={"lora-scale-below-one": {name: -1}})
+
+
+def test_changed_base_file_of_a_composed_config(tmp_path):
+    base = tmp_path / "base.yaml"
+    base.write_text("lora_r: 16\nlora_alpha: 8\n")
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text("defaults:\n  - base\n  - _self_\nuse_peft: true\nlearning_rate: 2.0e-4\n")
+    before, after = Case(tmp_path).check([cfg], lambda: base.write_text("lora_r: 16\nlora_alpha: 32\n"))
+    assert "lora-scale-below-one" in _rules(before) and "lora-scale-below-one" not in _rules(after)
+
+
+def test_repository_script_that_starts_declaring_a_key(tmp_path):
+    repo = tmp_path / "repo"
+    (repo / ".git").mkdir(parents=True)
+    script = repo / "train.py"
+    script.write_text("from dataclasses import dataclass\n\n@dataclass\nclass ScriptArgs:\n"
+                      "    dataset_mix: str = ''\n")
+    cfg = repo / "configs" / "run.yaml"
+    cfg.parent.mkdir()
+    cfg.write_text("learning_rate: 2.0e-5\nper_device_train_batch_size: 4\nnum_train_epochs: 1\n"
+                   "dataset_mix: a\nharbor_tide_window: 3\n")
+    before, after = Case(tmp_path).check([cfg], lambda: script.write_text(
+        "from dataclasses import dataclass\n\n@dataclass\nclass ScriptArgs:\n"
+        "    dataset_mix: str = ''\n    harbor_tide_window: int = 0\n"))
+    assert "harbor_tide_window" in before and "harbor_tide_window" not in after
+
+
+def test_new_python_file_in_the_repository(tmp_path):
+    repo = tmp_path / "repo"
+    (repo / ".git").mkdir(parents=True)
+    cfg = repo / "run.yaml"
+    cfg.write_text("learning_rate: 2.0e-5\nper_device_train_batch_size: 4\nharbor_tide_window: 3\n")
+    before, after = Case(tmp_path).check([cfg], lambda: (repo / "tools").mkdir() or (
+        repo / "tools" / "args.py").write_text(
+        "from dataclasses import dataclass\n\n@dataclass\nclass Extra:\n    harbor_tide_window: int = 0\n"))
+    assert "harbor_tide_window" in before and "harbor_tide_window" not in after
+
+
+def test_checkpoint_config_json_changed(tmp_path):
+    ckpt = tmp_path / "ckpt"
+    ckpt.mkdir()
+    shape = {"model_type": "llama", "hidden_size": 4096, "intermediate_size": 11008,
+             "num_hidden_layers": 32, "num_attention_heads": 32, "num_key_value_heads": 32,
+             "vocab_size": 32000, "max_position_embeddings": 4096, "tie_word_embeddings": False,
+             "torch_dtype": "bfloat16"}  # Llama 2 7B's config.json (meta-llama/Llama-2-7b-hf), from memory
+    (ckpt / "config.json").write_text(json.dumps(shape))
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(f"model_name_or_path: {ckpt}\nlearning_rate: 2.0e-5\nper_device_train_batch_size: 8\n"
+                   "max_seq_length: 4096\nbf16: true\n")
+    smaller = dict(shape, hidden_size=1024, intermediate_size=2816, num_hidden_layers=8,
+                   num_attention_heads=16, num_key_value_heads=16)
+    Case(tmp_path).check([cfg], lambda: (ckpt / "config.json").write_text(json.dumps(smaller)), gpu="t4")
+
+
+def test_catalogue_or_code_change_is_a_miss(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    record = tmp_path / "extra-record.yaml"
+    record.write_text("id: x\n")
+    files = cache._package_files()
+    monkeypatch.setattr(cache, "_package_files", lambda: files + [record])
+    case = Case(tmp_path)
+    first = case.cached([cfg])
+    case.cached([cfg])
+    assert case.store.hits == 1
+    record.write_text("id: y\n")  # same size: the content is what counts, through the mtime
+    os.utime(record, ns=(1, 1))
+    assert case.cached([cfg]) == first and case.store.hits == 0
+
+
+def test_the_package_fingerprint_covers_the_rule_records():
+    from cfgcheck.catalogue import catalogue_dir
+
+    listed = {p.resolve() for p in cache._package_files()}
+    records = sorted(catalogue_dir().glob("*.yaml"))
+    assert records and all(r.resolve() in listed for r in records)
+    assert Path(cache.__file__).resolve() in listed
+    knowledge = sorted((Path(cache.__file__).parent / "knowledge").glob("*.json"))
+    assert knowledge and all(k.resolve() in listed for k in knowledge)
+
+
+def test_version_change_is_a_miss(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    case = Case(tmp_path)
+    case.cached([cfg])
+    monkeypatch.setattr(cache, "__version__", "99.0.0")
+    case.cached([cfg])
+    assert case.store.hits == 0 and case.store.misses == 1
+
+
+def test_hub_cache_location_is_part_of_the_key(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    case = Case(tmp_path)
+    case.cached([cfg])
+    monkeypatch.setenv("HF_HUB_CACHE", str(tmp_path / "elsewhere"))
+    case.cached([cfg])
+    assert case.store.hits == 0
+
+
+def test_same_bytes_under_another_name_is_another_entry(tmp_path):
+    a, b = tmp_path / "a.yaml", tmp_path / "b.yaml"
+    a.write_text(LOW_SCALE)
+    b.write_text(LOW_SCALE)
+    case = Case(tmp_path)
+    case.cached([a])
+    out = case.cached([b])
+    assert case.store.hits == 0 and '"file": "' + str(b) in out
+
+
+def test_a_report_with_an_internal_error_is_not_stored(tmp_path, monkeypatch):
+    from cfgcheck import checks
+
+    def broken(ctx):
+        raise RuntimeError("a rule that fails")
+
+    monkeypatch.setitem(checks.all_checks(), "lora-scale-below-one", broken)
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    case = Case(tmp_path)
+    case.cached([cfg])
+    assert case.store.written == 0
+    case.cached([cfg])
+    assert case.store.hits == 0
+
+
+def test_reads_memo_replays_what_the_first_call_read(tmp_path):
+    f = tmp_path / "data.txt"
+    f.write_text("x")
+
+    @reads.memo()
+    def look(path):
+        reads.note_file(path)
+        return 1
+
+    with reads.recording() as first:
+        look(str(f))
+    with reads.recording() as second:
+        look(str(f))
+    assert first == second and len(first) == 1
+
+
+# --------------------------------------------------------------------------- byte-identical output
+
+def _all_formats(paths, env, *extra):
+    out = {}
+    for fmt in ("text", "json", "sarif", "github"):
+        p = subprocess.run([sys.executable, "-m", "cfgcheck", "lint", *map(str, paths), "--format", fmt,
+                            "--no-project", *extra], capture_output=True, cwd=ROOT, env=env, timeout=300)
+        out[fmt] = (p.returncode, p.stdout, p.stderr)
+    return out
+
+
+def test_cached_output_is_byte_identical_in_every_format(tmp_path):
+    env = dict(ENV, CFGCHECK_CACHE_DIR=str(tmp_path / "cache"))
+    paths = [ROOT / "fixtures" / "demo", ROOT / "fixtures" / "clean", ROOT / "fixtures" / "launch"]
+    uncached = _all_formats(paths, env, "--no-cache", "--show", "info")
+    assert not (tmp_path / "cache").exists()
+    stored = _all_formats(paths, env, "--show", "info")
+    served = _all_formats(paths, env, "--show", "info")
+    assert uncached == stored == served
+    assert uncached["json"][1].count(b'"rule"') > 5  # the fixtures hold findings
+
+
+def test_cached_reports_render_the_same_over_the_public_corpus(tmp_path, shared_dir):
+    corpus = shared_dir / "corpus" / "public"
+    if not corpus.is_dir():
+        pytest.skip("no public corpus")
+    first = cache.Store(tmp_path / "cache")
+    plain = api.lint([corpus], project=None)
+    api.lint([corpus], project=None, cache=first)
+    store = cache.Store(tmp_path / "cache")
+    served = api.lint([corpus], project=None, cache=store)
+    # every file linted the first time is served now, except one whose lint failed inside cfgcheck
+    assert first.misses > 100 and store.hits + store.misses == first.misses
+    assert store.misses == sum(1 for fr in plain.files if fr.internal)
+    for fmt in ("text", "json", "sarif", "github"):
+        assert render(fmt, served, served.findings) == render(fmt, plain, plain.findings), fmt
+
+
+# --------------------------------------------------------------------------- robustness
+
+def _hammer(folder: str, worker: int, rounds: int) -> None:
+    store = cache.Store(folder)
+    for i in range(rounds):
+        key = f"{i % 4:02d}" + "ab" * 31  # four keys, shared by every worker
+        report = FileReport(file=f"w{worker}.yaml", layout="trainer", findings=[
+            Finding(rule="r", severity=Severity.WARNING, file="f", line=i, column=1, key="k",
+                    message="m" * (1000 + worker), hint="h")])
+        store.put(key, "0" * 64, f"/nonexistent/w{worker}.yaml", {}, report)
+        got = store.get(key)
+        assert got is None or isinstance(got, FileReport)
+
+
+def test_concurrent_writers_never_leave_a_broken_entry(tmp_path):
+    folder = str(tmp_path / "cache")
+    ctx = multiprocessing.get_context("fork" if sys.platform.startswith("linux") else None)
+    procs = [ctx.Process(target=_hammer, args=(folder, w, 60)) for w in range(4)]
+    threads = [threading.Thread(target=_hammer, args=(folder, 10 + w, 60)) for w in range(3)]
+    for p in procs:
+        p.start()
+    for t in threads:
+        t.start()
+    for p in procs:
+        p.join(120)
+    for t in threads:
+        t.join(120)
+    assert all(p.exitcode == 0 for p in procs)
+    store = cache.Store(folder)
+    for i in range(4):
+        got = store.get(f"{i:02d}" + "ab" * 31)
+        assert isinstance(got, FileReport) and got.findings[0].message.startswith("m" * 1000)
+    assert not list(Path(folder).rglob("*.tmp"))
+
+
+def test_corrupt_or_foreign_entry_is_a_miss(tmp_path):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    case = Case(tmp_path)
+    first = case.cached([cfg])
+    root = case.folder / f"lint-{cache.FORMAT}"
+    (entry,) = [p for p in root.glob("??/*") if p.is_file()]
+    (facts,) = [p for p in root.glob("facts/??/*") if p.is_file()]
+    blob = entry.read_bytes()
+    facts.write_bytes(facts.read_bytes()[:-2])  # a damaged record of what the lint read
+    assert case.cached([cfg]) == first and case.store.hits == 0
+    marker = tmp_path / "ran"
+
+    class Evil:
+        def __reduce__(self):
+            return (os.system, (f"touch {marker}",))
+
+    for damaged in (blob[: len(blob) // 2], b"", b"garbage", blob[:-3] + b"xyz",
+                    cache._MAGIC + pickle.dumps(("k", [], Evil()))):
+        entry.write_bytes(damaged)
+        assert case.cached([cfg]) == first and case.store.hits == 0
+    assert not marker.exists()
+
+
+def test_unwritable_cache_folder_is_no_error(tmp_path):
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a folder")
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    store = cache.Store(blocker / "cache")
+    report = api.lint([str(cfg)], project=None, cache=store)
+    assert "lora-scale-below-one" in _rules(_answer(report)) and store.written == 0
+    env = dict(ENV, CFGCHECK_CACHE_DIR=str(blocker / "cache"))
+    p = subprocess.run([sys.executable, "-m", "cfgcheck", "lint", str(cfg), "--no-project", "--show", "info"],
+                       capture_output=True, text=True, cwd=ROOT, env=env, timeout=120)
+    assert p.returncode == 0 and "lora-scale-below-one" in p.stdout and p.stderr == ""
+
+
+def test_size_stays_bounded(tmp_path, monkeypatch):
+    monkeypatch.setattr(cache, "MAX_BYTES", 40_000)
+    files = []
+    for i in range(40):
+        f = tmp_path / "cfgs" / f"run{i:02d}.yaml"
+        f.parent.mkdir(exist_ok=True)
+        f.write_text(LOW_SCALE + f"seed: {i}\n")
+        files.append(f)
+    for chunk in range(0, 40, 5):  # several runs, each writing a few entries
+        store = cache.Store(tmp_path / "cache")
+        api.lint([str(f) for f in files[chunk:chunk + 5]], project=None, cache=store)
+    n, total = cache.usage(tmp_path / "cache" / f"lint-{cache.FORMAT}")
+    assert 0 < total <= 40_000 and n < 40
+
+
+def test_trim_removes_the_oldest_first(tmp_path):
+    root = tmp_path / "root"
+    for i in range(10):
+        p = root / f"{i:02d}" / "entry"
+        p.parent.mkdir(parents=True)
+        p.write_bytes(b"x" * 100)
+        os.utime(p, (1000 + i, 1000 + i))
+    removed = cache.trim(root, max_bytes=500)
+    left = sorted(p.parent.name for p in root.rglob("entry"))
+    assert removed == 6 and left == ["06", "07", "08", "09"]  # 80 % of 500 bytes: 4 entries
+
+
+def test_no_cache_never_touches_the_cache_folder(tmp_path):
+    folder = tmp_path / "never"
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    env = dict(ENV, CFGCHECK_CACHE_DIR=str(folder))
+    for extra in ([], ["--format", "json"], ["-j", "2"]):
+        p = subprocess.run([sys.executable, "-m", "cfgcheck", "lint", str(cfg), str(cfg), "--no-cache",
+                            "--no-project", *extra], capture_output=True, text=True, cwd=ROOT, env=env,
+                           timeout=120)
+        assert p.returncode == 0, p.stderr
+    assert not folder.exists()
+
+
+def test_parallel_cached_run_gives_the_serial_answer(tmp_path):
+    files = []
+    for i in range(6):
+        f = tmp_path / f"run{i}.yaml"
+        f.write_text(LOW_SCALE if i % 2 else GOOD_SCALE)
+        files.append(str(f))
+    plain = _answer(api.lint(files, project=None))
+    store = cache.Store(tmp_path / "cache")
+    assert _answer(api.lint(files, project=None, cache=store, jobs=2)) == plain
+    assert store.misses == 6 and store.written > 0
+    Path(files[0]).write_text(LOW_SCALE)
+    store = cache.Store(tmp_path / "cache")
+    assert _answer(api.lint(files, project=None, cache=store, jobs=2)) == _answer(api.lint(files, project=None))
+    assert (store.hits, store.misses) == (5, 1)
+
+
+def test_cache_folder_comes_from_the_environment_or_the_platform(tmp_path, monkeypatch):
+    import platformdirs
+
+    monkeypatch.setenv(cache.ENV_FOLDER, str(tmp_path / "mine"))
+    assert cache.default_folder() == tmp_path / "mine"
+    monkeypatch.delenv(cache.ENV_FOLDER)
+    assert cache.default_folder() == Path(platformdirs.user_cache_dir("cfgcheck", appauthor=False))
+
+
+def test_no_known_cache_folder_means_no_caching(tmp_path, monkeypatch):
+    monkeypatch.delenv(cache.ENV_FOLDER)
+    monkeypatch.setitem(sys.modules, "platformdirs", None)  # the library cannot be imported
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    store = cache.Store()
+    report = api.lint([str(cfg)], project=None, cache=store)
+    assert not store.usable and store.written == 0 and store.hits == 0
+    assert "lora-scale-below-one" in _rules(_answer(report))
+
+
+def test_a_replaced_check_in_a_long_lived_process_is_a_miss(tmp_path, monkeypatch):
+    from cfgcheck import checks
+
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    case = Case(tmp_path)
+    before = case.cached([cfg])
+    assert "lora-scale-below-one" in _rules(before)
+
+    def silent(ctx):
+        return None
+
+    monkeypatch.setitem(checks.all_checks(), "lora-scale-below-one", silent)
+    after = case.cached([cfg])
+    assert case.store.hits == 0 and "lora-scale-below-one" not in _rules(after)
+
+
+# every file a lint opens and every folder it lists must be in its record of reads, or a change
+# there would go unseen by the cache; checked with the interpreter's audit events in a fresh process
+_AUDIT = r"""
+import json, os, sys
+watch, opened = [False], []
+def hook(event, args):
+    if watch[0] and event in ("open", "os.listdir", "os.scandir") and args and isinstance(args[0], (str, bytes, os.PathLike)):
+        opened.append((event, os.path.abspath(os.fsdecode(args[0]))))
+sys.addaudithook(hook)
+from cfgcheck import engine
+from cfgcheck.catalogue import catalogue_dir
+from cfgcheck.engine import Options
+# cfgcheck's own files (code, rule records) are in the key; the interpreter's and libraries' too
+skip = tuple({sys.prefix, sys.base_prefix, os.path.dirname(engine.__file__), os.path.dirname(os.__file__),
+              str(catalogue_dir())})
+out = {}
+for f in engine.expand_paths(sys.argv[1:]):
+    opened.clear()
+    watch[0] = True
+    report, facts = engine.lint_file_recorded(f, Options(launch=tuple(os.environ.get("LAUNCH", "").split()) or ()))
+    watch[0] = False
+    read = {p for k, p, _pat in facts if k == "f"} | {os.path.abspath(f)}  # contents
+    listed = {p for k, p, _pat in facts if k in ("d", "s")}  # names in folders
+    unseen = sorted({f"{e} {p}" for e, p in opened if p not in (read if e == "open" else listed)
+                     and not p.startswith(skip)})
+    out[f] = unseen
+print(json.dumps(out))
+"""
+
+
+def test_every_file_a_lint_opens_is_recorded(tmp_path):
+    repo = tmp_path / "repo"
+    (repo / ".git").mkdir(parents=True)
+    (repo / "train.py").write_text("import argparse\np = argparse.ArgumentParser()\np.add_argument('--harbor_tide_window')\n")
+    (repo / "requirements.txt").write_text("transformers==4.57.0\n")
+    ckpt = repo / "ckpt"
+    ckpt.mkdir()
+    (ckpt / "config.json").write_text(json.dumps({
+        "model_type": "llama", "hidden_size": 1024, "intermediate_size": 2816, "num_hidden_layers": 8,
+        "num_attention_heads": 16, "num_key_value_heads": 16, "vocab_size": 32000,
+        "max_position_embeddings": 2048, "tie_word_embeddings": False, "torch_dtype": "bfloat16"}))
+    (repo / "ds.json").write_text('{"train_micro_batch_size_per_gpu": 2, "zero_optimization": {"stage": 2}}\n')
+    (repo / "base.yaml").write_text("lora_r: 16\nlora_alpha: 8\n")
+    (repo / "composed.yaml").write_text("defaults:\n  - base\n  - _self_\nuse_peft: true\n")
+    (repo / "run.yaml").write_text(f"model_name_or_path: {ckpt}\ndeepspeed: ds.json\nlearning_rate: 2.0e-5\n"
+                                   "harbor_tide_window: 3\nper_device_train_batch_size: 2\n")
+    (repo / "launch.yaml").write_text("compute_environment: LOCAL_MACHINE\ndistributed_type: MULTI_GPU\n"
+                                      "num_processes: 4\nmixed_precision: fp16\n")
+    env = dict(ENV, LAUNCH=str(repo / "launch.yaml"))
+    p = subprocess.run([sys.executable, "-c", _AUDIT, str(repo), str(ROOT / "fixtures")], capture_output=True,
+                       text=True, cwd=ROOT, env=env, timeout=600)
+    assert p.returncode == 0, p.stderr
+    unseen = {f: u for f, u in json.loads(p.stdout.splitlines()[-1]).items() if u}
+    assert unseen == {}
+    assert len(json.loads(p.stdout.splitlines()[-1])) > 20
