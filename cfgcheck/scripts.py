@@ -228,8 +228,9 @@ def _prepare(text: str) -> tuple[str, dict[int, tuple[str, bool, list[tuple[str,
     while i < n:
         c = text[i]
         start = i == 0 or text[i - 1] in " \t\n;&|(`"
-        if c == "\n" and heredocs:
+        if c == "\n" and heredocs:  # the bodies are text the command reads, never commands: blanked
             i += 1
+            body = i
             for delim, strip in heredocs:
                 while i < n:
                     e = text.find("\n", i)
@@ -237,6 +238,7 @@ def _prepare(text: str) -> tuple[str, dict[int, tuple[str, bool, list[tuple[str,
                     i = n if e < 0 else e + 1
                     if (line.lstrip("\t") if strip else line) == delim:
                         break
+            blank(body, i, "")
             heredocs = []
             continue
         if c == "\\":
@@ -273,6 +275,7 @@ def _prepare(text: str) -> tuple[str, dict[int, tuple[str, bool, list[tuple[str,
             m = re.compile(r"<<(-?)\s*(['\"]?)([A-Za-z0-9_.-]+)\2").match(text, i)
             if m:
                 heredocs.append((m.group(3), bool(m.group(1))))
+                blank(i, m.end(), "")
                 i = m.end()
                 continue
         if start and text.startswith("[[", i) and i + 2 < n and text[i + 2] in " \t":
