@@ -134,6 +134,7 @@ class _Tok:
     how: str = "known"
 
 
+MAX_ROUNDS = 24  # the most rounds of a script's loops linted: as many runs as a sweep's (sweep.MAX_RUNS)
 _WORSE = {"known": 0, "default": 1, "unknown": 2}
 # ${X}, $X, ${X[@]}, ${X[*]}, ${X[3]} as a whole word
 _WHOLE = re.compile(r"^\$(?:\{([A-Za-z_][A-Za-z0-9_]*)(?:\[([@*]|[0-9]+)\])?\}|([A-Za-z_][A-Za-z0-9_]*))$")
@@ -367,8 +368,6 @@ class _Walk:
         return branches
 
     def loop(self, node, branches: list) -> list:
-        from .sweep import MAX_RUNS
-
         parts = list(node.parts)
         var = parts[1].word if len(parts) > 1 else ""
         has_in = len(parts) > 2 and getattr(parts[2], "kind", "") == "reservedword" and parts[2].word == "in"
@@ -382,7 +381,7 @@ class _Walk:
             vals = [t for w in words for t in _expand(w.word, w.pos, env)]
             if not has_in or not vals or any(t.how == "unknown" for t in vals):
                 vals = [_Tok("$" + var, parts[1].pos, "unknown")]  # iterated at launch time
-            room = max(1, MAX_RUNS // max(1, len(branches)))
+            room = max(1, MAX_ROUNDS // max(1, len(branches)))
             if len(vals) > room:  # the ends and evenly spaced ones between
                 vals = [vals[round(j * (len(vals) - 1) / max(1, room - 1))] for j in range(room)]
             for t in vals:

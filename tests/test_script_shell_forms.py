@@ -205,3 +205,31 @@ def test_an_unfinished_script_is_an_input_error_or_not_read_never_a_crash(tmp_pa
     (fr,) = report.files
     assert not fr.internal
     assert (fr.problem is not None and fr.problem.line >= 1) or fr.skipped.startswith("not read: ")
+
+
+def test_a_loop_over_the_arguments_that_override_a_config_lints_each_round_over_it(tmp_path):
+    (tmp_path / "cfg.yaml").write_text(f"model_name_or_path: {MODEL}\nlearning_rate: 2.0e-5\nnum_train_epochs: 1\n")
+    text = """\
+    for LR in 1e-5 5e-3; do
+      trl sft --config cfg.yaml --learning_rate $LR --num_train_epochs ${EP:-x}
+    done
+    """
+    script = tmp_path / "go.sh"
+    script.write_text(textwrap.dedent(text))
+    report = api.lint([str(tmp_path)], project=None)
+    assert _found(report) == [("full-finetune-lr-too-high", 1), ("value-type-mismatch", 2)]
+    lr, ep = sorted((f for f in report.findings if f.severity != Severity.INFO), key=lambda f: f.line)
+    assert lr.file == str(script) and "LR=5e-3" in lr.data["sweep"]
+    assert ep.severity == Severity.WARNING and "every run" in ep.data["sweep"]
+
+
+def test_a_long_loop_lints_as_many_rounds_as_a_sweep_with_both_ends(tmp_path):
+    from cfgcheck.scripts import MAX_ROUNDS
+    from cfgcheck.sweep import MAX_RUNS
+
+    assert MAX_ROUNDS == MAX_RUNS
+    seeds = " ".join(str(s) for s in range(100))
+    text = f"for S in {seeds}; do\n  python train.py --model_name_or_path {MODEL} --seed $S\ndone\n"
+    launches = parse_script(text, str(tmp_path / "seeds.sh"))
+    assert len(launches) == MAX_ROUNDS
+    assert launches[0].run == "S=0" and launches[-1].run == "S=99"
