@@ -206,10 +206,10 @@ def _prepare(text: str) -> tuple[str, dict[int, tuple[str, bool, list[tuple[str,
     n, i = len(text), 0
     heredocs: list[tuple[str, bool]] = []
 
-    def blank(a: int, b: int, lead: str) -> None:
+    def blank(a: int, b: int, lead: str, fill: str = " ") -> None:
+        """Offsets a..b blanked (newlines kept: every line stays), LEAD written at the start."""
         for k in range(a, b):
-            out[k] = "\n" if text[k] == "\n" else " "
-        out[a:a + len(lead)] = list(lead)
+            out[k] = "\n" if text[k] == "\n" else (lead[k - a] if k - a < len(lead) else fill)
 
     def close_paren(j: int) -> int:  # the offset after the ')' that closes the '(' before j
         depth = 1
@@ -224,7 +224,7 @@ def _prepare(text: str) -> tuple[str, dict[int, tuple[str, bool, list[tuple[str,
                 continue
             depth += (c == "(") - (c == ")")
             j += 1
-        return j
+        return min(j, n)
 
     while i < n:
         c = text[i]
@@ -255,7 +255,7 @@ def _prepare(text: str) -> tuple[str, dict[int, tuple[str, bool, list[tuple[str,
             continue
         if text.startswith("$((", i):
             e = close_paren(i + 2)
-            blank(i, e, "$" + "_" * max(0, min(e - i, n) - 1))
+            blank(i, e, "$", "_")
             i = e
             continue
         if c == '"':
@@ -266,7 +266,7 @@ def _prepare(text: str) -> tuple[str, dict[int, tuple[str, bool, list[tuple[str,
                     continue
                 if text.startswith("$((", j):
                     e = close_paren(j + 2)
-                    blank(j, e, "$" + "_" * (e - j - 1))
+                    blank(j, e, "$", "_")
                     j = e
                     continue
                 j += 1

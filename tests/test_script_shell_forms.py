@@ -233,3 +233,29 @@ def test_a_long_loop_lints_as_many_rounds_as_a_sweep_with_both_ends(tmp_path):
     launches = parse_script(text, str(tmp_path / "seeds.sh"))
     assert len(launches) == MAX_ROUNDS
     assert launches[0].run == "S=0" and launches[-1].run == "S=99"
+
+
+def test_shell_fragments_keep_every_offset_and_end_in_a_read_or_a_positioned_reason():
+    import random
+
+    from cfgcheck.load import LoadError
+    from cfgcheck.scripts import ScriptNotRead, _prepare
+
+    pieces = list("ab XY=()[]{}$'\"`\\#;&|<>-\n\t01") + [
+        "$((", "[[ ", " ]]", "<<EOF\n", "\nEOF\n", "A=(", "A+=(", "for x in ", "; do ", "done",
+        "torchrun t.py --learning_rate ", "${A[@]}", "${X:-1}", "case a in a) ;; esac\n"]
+    rng = random.Random(3)  # a fixed seed: the same fragments every run
+    for _ in range(300):
+        text = "".join(rng.choice(pieces) for _ in range(rng.randrange(1, 80)))
+        try:
+            prepared, _arrays = _prepare(text)
+        except Exception as exc:  # only an unclosed array stops the preparation
+            assert "not closed" in str(exc), text
+            prepared = text
+        assert len(prepared) == len(text) and prepared.count("\n") == text.count("\n"), text
+        try:
+            parse_script(text, "/nowhere/frag.sh")
+        except ScriptNotRead as exc:
+            assert exc.reason
+        except LoadError as exc:
+            assert exc.line >= 0 and exc.reason
