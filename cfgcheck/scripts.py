@@ -306,6 +306,10 @@ def _prepare(text: str) -> tuple[str, dict[int, tuple[str, bool, list[tuple[str,
                     if q == "\\" and k + 1 < n:
                         word.append(text[k + 1])
                         k += 2
+                    elif text.startswith("$(", k):  # a substitution inside an element: only the launch knows it
+                        e = close_paren(k + 2)
+                        word.append(text[k:e])
+                        k = e
                     elif q in "'\"":
                         e = text.find(q, k + 1)
                         e = n if e < 0 else e

@@ -259,3 +259,13 @@ def test_shell_fragments_keep_every_offset_and_end_in_a_read_or_a_positioned_rea
             assert exc.reason
         except LoadError as exc:
             assert exc.line >= 0 and exc.reason
+
+
+def test_array_elements_in_a_function_take_variables_and_leave_launch_values_unknown(tmp_path):
+    text = ("LR=3e-5\ngo() {\n"
+            "  local -a ARGS=(--learning_rate \"$LR\" --seed $1 --run_name 'tide b' --tag $(date +%s))\n"
+            "  ARGS+=(--num_train_epochs $((1+1)))\n  torchrun train.py ${ARGS[*]}\n}\ngo\n")
+    (sl,) = parse_script(text, str(tmp_path / "fn.sh"))
+    got = {a.key: (a.value, a.unresolved, a.value_span.line) for a in sl.args}
+    assert got["learning_rate"] == (3e-5, False, 3) and got["run_name"] == ("tide b", False, 3)
+    assert got["seed"][1] and got["tag"][1] and got["num_train_epochs"][1:] == (True, 4)
