@@ -3,7 +3,11 @@
 ``accelerate launch --config_file A.yaml train.py B.yaml``, ``torchrun --nproc_per_node 8 ...``,
 ``deepspeed --num_gpus 4 ... --deepspeed ds.json``: the script is parsed with bashlex (a real
 shell parser: line continuations, quoting, ``&&`` lists), variables set earlier in the script are
-substituted (``LR=2e-4`` ... ``--learning_rate $LR``), and each training command gives a
+substituted (``LR=2e-4`` ... ``--learning_rate $LR``), bash arrays are read (``_prepare`` blanks
+what bashlex does not parse to the same length, so every offset stays), a ``for`` loop gives one
+launch per round (linted like a sweep's runs), a value only the launch knows (``$1``, ``$(...)``,
+a variable from the environment) is unresolved and never linted as text, a default the script
+gives (``${LR:-2e-4}``) is kept as an assumption, and each training command gives a
 ``ScriptLaunch``: processes, machines, mixed precision, the launch files it names, the configs it
 passes, and its own ``--key value`` trainer arguments with their positions. The configs it names
 are paired with that launch context (``cfgcheck.run``). Arguments given after a config override
