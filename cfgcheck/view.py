@@ -163,7 +163,17 @@ def _has_target(data: Any, depth: int = 0) -> bool:
     return "_target_" in data or any(_has_target(v, depth + 1) for v in data.values())
 
 
+def _has_class_path(data: Any, depth: int = 0) -> bool:
+    if not isinstance(data, dict) or depth > 3:
+        return False
+    if isinstance(data.get("class_path"), str) and "init_args" in data:
+        return True
+    return any(_has_class_path(v, depth + 1) for v in data.values())
+
+
 def _matches(fmt: UnreadFormat, data: dict) -> bool:
+    if fmt.shape == "class-path":
+        return _has_class_path(data)
     if fmt.shape == "composed":
         defaults = data.get("defaults")
         listed = isinstance(defaults, list) and defaults and all(
@@ -392,7 +402,11 @@ def resolve_interpolation(data: Any, written: Any, depth: int = 0) -> tuple[bool
 def fill(view: RunView, layout: Layout, data: dict) -> None:
     """Fill the view's fields from one layout's table."""
     index = _index(layout, data) if layout.has_bare_names else {}
+    kind = data.get(layout.kind_key) if layout.kind_key else None
+    other_kind = isinstance(kind, str) and kind.strip().upper() not in layout.kinds_described
     for name, specs in layout.fields.items():
+        if other_kind and name not in layout.fields_for_any_kind:
+            continue  # the table describes other kinds: these keys mean something else here
         for spec in specs:
             if spec.startswith("="):
                 found, written = _walk(data, tuple(spec[1:].split(".")))

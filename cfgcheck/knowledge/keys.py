@@ -161,6 +161,8 @@ def _data() -> dict:
         "runner_sources": sources,
         "components": {lay: e.get("components", {}) for lay, e in runners.items()},
         "closed": {lay for lay, e in runners.items() if e.get("closed")},
+        # the library releases each runner installs with (its wheel's Requires-Dist)
+        "requires": {lay: dict(e.get("requires", {})) for lay, e in runners.items()},
         "absent": absent,
         "scanned": scanned,
         "extra": extra_layouts,

@@ -60,6 +60,31 @@ def version_key(text: str) -> tuple[int, ...]:
     return tuple(out)
 
 
+def satisfies(version: str, spec: str) -> bool:
+    """Whether VERSION meets a comma-separated specifier (``>=4.55.0,<=5.6.0,!=4.57.0``); the
+    operators ``==`` (with a trailing ``.*``), ``!=``, ``<=``, ``>=``, ``<``, ``>``, ``~=``."""
+    v = version_key(version)
+    for part in (p.strip() for p in spec.split(",")):
+        m = re.match(r"(==|!=|<=|>=|~=|<|>)\s*([0-9][0-9A-Za-z.*+!-]*)$", part)
+        if not m:
+            continue
+        op, text = m.groups()
+        star = text.endswith(".*")
+        w = version_key(text[:-2] if star else text)
+        width = max(len(v), len(w))
+        a, b = v + (0,) * (width - len(v)), w + (0,) * (width - len(w))
+        if star:
+            same = v[:len(w)] == w
+            ok = same if op == "==" else not same if op == "!=" else True
+        elif op == "~=":
+            ok = a >= b and v[:len(w) - 1] == w[:len(w) - 1]
+        else:
+            ok = {"==": a == b, "!=": a != b, "<=": a <= b, ">=": a >= b, "<": a < b, ">": a > b}[op]
+        if not ok:
+            return False
+    return True
+
+
 def _read(path: Path) -> str | None:
     try:
         if not path.is_file() or path.stat().st_size > _MAX_BYTES:
