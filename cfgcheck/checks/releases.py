@@ -138,7 +138,8 @@ def key_not_in_release(ctx) -> None:
         if any(s == "yes" for s, _ in verdicts.values()):
             continue
         unpinned = [lib for lib in info.accepted if lib not in pins]
-        versions = info.versions_text()
+        if verdicts or not info.current:
+            versions = info.versions_text()  # only for a key that may be reported
         if verdicts and not unpinned and all(s == "no" for s, _ in verdicts.values()):
             lib = sorted(verdicts)[0]
             variant = "refused" if _REFUSES.get(table) else "ignored"

@@ -181,6 +181,17 @@ def pins_near(file: str | None, cwd: Path | None = None) -> dict[str, Pin]:
         path = Path(file) if Path(file).is_absolute() else (cwd or Path.cwd()) / file
         if not path.is_file():
             return {}  # text given without a file (lint_text): nothing lies beside it
+        if not path.is_symlink():  # the folder is looked up once per run (cfgcheck.memo)
+            from ..memo import remembered
+
+            return dict(remembered("pins_near", str(path.parent), lambda: _pins_of_folder(path)))
+        return _pins_of_folder(path)
+    except (OSError, RuntimeError):
+        return {}
+
+
+def _pins_of_folder(path: Path) -> dict[str, Pin]:
+    try:
         folder = path.resolve().parent
     except (OSError, RuntimeError):
         return {}

@@ -64,7 +64,18 @@ class RepoKeys:
 
 
 def repository_root(config: str | os.PathLike) -> Path | None:
-    """The repository that holds CONFIG, or None when no marker is found above it."""
+    """The repository that holds CONFIG, or None when no marker is found above it (looked up
+    once per folder in a run: ``cfgcheck.memo``)."""
+    from ..memo import remembered
+
+    if os.path.islink(config):  # resolved through the link: its own target's folder
+        return _repository_root(config)
+    folder = os.path.dirname(os.fspath(config))
+    return remembered("repository_root", (folder, os.getcwd() if not os.path.isabs(folder) else ""),
+                      lambda: _repository_root(config))
+
+
+def _repository_root(config: str | os.PathLike) -> Path | None:
     try:
         start = Path(config).resolve().parent
     except (OSError, RuntimeError, ValueError):
