@@ -416,11 +416,11 @@ def lint_text(text: str, name: str = "<text>", options: Options | None = None,
 
 def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
     """A launch script: each training command's ``--key value`` arguments are linted like a flat
-    trainer config located at the script's lines, with the launch context the command gives."""
-    import dataclasses
-
-    from .run import open_view
-    from .scripts import ScriptTooLarge, read_script, script_document
+    trainer config located at the script's lines, with the launch context the command gives. A
+    command inside a ``for`` loop is one run per round; its findings are merged the way a sweep's
+    are (``sweep.merge_runs``): once, saying in which rounds they appear."""
+    from .scripts import ScriptNotRead, ScriptTooLarge, read_script
+    from .sweep import merge_runs
 
     options = options or Options()
     name = str(path)
@@ -428,31 +428,56 @@ def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
         launches = read_script(path)
     except ScriptTooLarge as exc:
         return FileReport(file=name, skipped=exc.reason)
+    except ScriptNotRead as exc:
+        return FileReport(file=name, skipped=f"not read: {exc.reason}" + (f" (line {exc.line})" if exc.line else ""))
     except LoadError as exc:
         return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
                                                           column=exc.column, reason=exc.reason))
     report = FileReport(file=name)
-    for i, sl in enumerate(launches):
-        try:  # the crash boundary of one launch: a bug here spares the others
-            if _lint_overridden_configs(sl, options, report):
-                continue  # its arguments override the configs it starts: linted with their runs
-            doc = script_document(sl, i)
-            if doc is None:
-                continue
-            view = build_view(doc, "trainer")
-            report.views.append(view)
-            report.layout = report.layout or "launch script"
-            open_view(view, name, dataclasses.replace(options, script=sl))
-            lint_view(view, options, name, report)
-        except Exception as exc:
-            if options.debug:
-                raise
-            report.internal.append(internal_error(name, None, exc))
+    groups: dict[int, list] = {}
+    for sl in launches:
+        groups.setdefault(sl.at, []).append(sl)
+    for i, rounds in enumerate(groups.values()):
+        if len(rounds) == 1:
+            _lint_launch(rounds[0], i, name, options, report)
+            continue
+        runs = []
+        for sl in rounds:
+            one = FileReport(file=name)
+            _lint_launch(sl, i, name, options, one)
+            runs.append((sl.run, one.findings))
+            report.views += one.views
+            report.internal += one.internal
+            report.layout = report.layout or one.layout
+        merge_runs(runs, len(rounds), report, "the loop")
     if not report.layout and not report.internal:
         report.skipped = ("a shell script that starts no training" if not launches
                           else "a launch script with no trainer arguments of its own")
     report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
     return report
+
+
+def _lint_launch(sl, index: int, name: str, options: Options, report: FileReport) -> None:
+    import dataclasses
+
+    from .run import open_view
+    from .scripts import script_document
+
+    try:  # the crash boundary of one launch: a bug here spares the others
+        if _lint_overridden_configs(sl, options, report):
+            return  # its arguments override the configs it starts: linted with their runs
+        doc = script_document(sl, index)
+        if doc is None:
+            return
+        view = build_view(doc, "trainer")
+        report.views.append(view)
+        report.layout = report.layout or "launch script"
+        open_view(view, name, dataclasses.replace(options, script=sl))
+        lint_view(view, options, name, report)
+    except Exception as exc:
+        if options.debug:
+            raise
+        report.internal.append(internal_error(name, None, exc))
 
 
 def _lint_overridden_configs(sl, options: Options, report: FileReport) -> bool:
