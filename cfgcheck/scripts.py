@@ -446,6 +446,19 @@ class _Walk:
         env[key] = val
 
 
+# bash forms bashlex rejects as syntax errors although bash runs them
+_UNPARSED = ((re.compile(r"(^|[\s;&|(])for\s*\(\("), "a C-style for loop"),
+             (re.compile(r"(^|[\s;&|])\(\("), "an arithmetic command"),
+             (re.compile(r"(^|[\s;&|])coproc\s"), "a coproc command"))
+
+
+def _unparsed_construct(line: str) -> str | None:
+    for rx, what in _UNPARSED:
+        if rx.search(line):
+            return what
+    return None
+
+
 def parse_script(text: str, name: str) -> list[ScriptLaunch]:
     """The training launches of a shell script. Raises LoadError when it cannot be parsed, and
     ScriptNotRead when it uses a shell construct this reader does not follow."""
@@ -460,9 +473,14 @@ def parse_script(text: str, name: str) -> list[ScriptLaunch]:
     except bashlex.errors.ParsingError as exc:
         pos = getattr(exc, "position", None)
         line, col = _line_col(text, pos) if isinstance(pos, int) and 0 <= pos <= len(text) else (1, 1)
+        unread = _unparsed_construct(text.splitlines()[line - 1] if 0 < line <= text.count("\n") + 1 else "")
+        if unread:  # valid bash the parser does not know: named, never an input error
+            raise ScriptNotRead(f"a shell construct the shell parser does not implement: {unread}", line, 1) from None
         raise LoadError(f"shell script cannot be parsed: {getattr(exc, 'message', None) or exc}", line, col) from None
     except NotImplementedError as exc:  # valid shell that the parser does not implement
-        what = "a case statement" if "pattern" in str(exc) else f"{exc}"
+        kind = re.search(r"type = \{([^}]*)\}", str(exc))
+        what = "a case statement" if "pattern" in str(exc) else \
+            f"a {kind.group(1)}" if kind else f"{exc}"
         raise ScriptNotRead(f"a shell construct the shell parser does not implement: {what}", 0, 1) from None
     except Exception as exc:  # bashlex raises other errors on some inputs
         raise ScriptNotRead(f"the shell parser stopped ({type(exc).__name__})", 0, 1) from None

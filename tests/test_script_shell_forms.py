@@ -199,6 +199,25 @@ def test_a_construct_the_reader_does_not_follow_is_named_not_read(tmp_path):
     assert "1 not read (" in summary_line(report) and "pick.sh" in summary_line(report)
 
 
+@pytest.mark.parametrize("form, what", [
+    ("for ((i = 0; i < 3; i++)); do\n  echo $i\ndone\n", "C-style for loop"),
+    ("select size in small big; do\n  break\ndone\n", "select command"),
+])
+def test_valid_bash_the_parser_rejects_is_named_not_read_never_an_input_error(tmp_path, form, what):
+    # bash runs both forms (bash manual, "Looping Constructs"); bashlex raises a syntax error
+    text = form + f"torchrun train.py --model_name_or_path {MODEL} --learning_rate 2e-5\n"
+    report = _lint(tmp_path, text, "count.sh")
+    (fr,) = report.files
+    assert fr.problem is None and report.problems == []
+    assert fr.skipped.startswith("not read: ") and what in fr.skipped
+
+
+def test_a_real_syntax_error_stays_an_input_error_with_its_position(tmp_path):
+    report = _lint(tmp_path, f"torchrun train.py --model_name_or_path {MODEL} (\n", "broken.sh")
+    (fr,) = report.files
+    assert fr.problem is not None and fr.problem.line == 1 and fr.problem.column > 1
+
+
 @pytest.mark.parametrize("text", ["ARGS=(--learning_rate 2e-5\n", "for x in a b; do\n"])
 def test_an_unfinished_script_is_an_input_error_or_not_read_never_a_crash(tmp_path, text):
     report = _lint(tmp_path, text, "cut.sh")
