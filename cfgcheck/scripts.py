@@ -473,7 +473,8 @@ def parse_script(text: str, name: str) -> list[ScriptLaunch]:
     except bashlex.errors.ParsingError as exc:
         pos = getattr(exc, "position", None)
         line, col = _line_col(text, pos) if isinstance(pos, int) and 0 <= pos <= len(text) else (1, 1)
-        unread = _unparsed_construct(text.splitlines()[line - 1] if 0 < line <= text.count("\n") + 1 else "")
+        lines = text.splitlines()
+        unread = _unparsed_construct(lines[line - 1] if 0 < line <= len(lines) else "")
         if unread:  # valid bash the parser does not know: named, never an input error
             raise ScriptNotRead(f"a shell construct the shell parser does not implement: {unread}", line, 1) from None
         raise LoadError(f"shell script cannot be parsed: {getattr(exc, 'message', None) or exc}", line, col) from None
