@@ -457,7 +457,7 @@ def _listable(path: str | Path) -> None:
 
 
 def lint_paths(paths: Iterable[str | Path], options: Options | None = None, *,
-               options_for: Callable[[str], Options] | None = None, jobs: int = 1,
+               options_for: Callable[[str], Options] | None = None, jobs: int | str = 1,
                keep_views: bool = True) -> Report:
     """Lint files and folders; ``options_for(file)`` gives per-file options when they differ.
 
@@ -471,14 +471,17 @@ def lint_paths(paths: Iterable[str | Path], options: Options | None = None, *,
     return Report(files=list(lint_files(pairs, jobs=jobs, keep_views=keep_views)))
 
 
-def lint_files(pairs: list[tuple[str, Options]], *, jobs: int = 1,
+def lint_files(pairs: list[tuple[str, Options]], *, jobs: int | str = 1,
                keep_views: bool = True) -> Iterator[FileReport]:
-    """(file, options) pairs -> their reports, in order, each as soon as it is ready."""
-    if jobs > 1 and len(pairs) > 1:
-        from .parallel import lint_files_parallel
+    """(file, options) pairs -> their reports, in order, each as soon as it is ready. ``jobs``:
+    a number of processes, or "auto" (the usable CPUs; serial for a short list of files)."""
+    if jobs != 1 and len(pairs) > 1:
+        from .parallel import lint_files_parallel, worker_count
 
-        yield from lint_files_parallel(pairs, jobs, lint_file=lint_file, prepare=active_rules)
-        return
+        workers = worker_count(jobs, len(pairs))
+        if workers > 1:
+            yield from lint_files_parallel(pairs, workers, lint_file=lint_file, prepare=active_rules)
+            return
     for path, opts in pairs:
         report = lint_file(path, opts)
         if not keep_views:
