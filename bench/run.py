@@ -69,7 +69,8 @@ LABELS = {
     "corpus": ["corpus: lint / yaml.load(CSafeLoader) loop", "corpus: lint / C compose loop"],
     "peer": ["corpus: lint / jsonschema loop (our schemas)"],
     "script": ["corpus: lint / hand script, three rules"],
-    "jobs": ["speed-up: serial / --jobs 2", "speed-up: serial / --jobs auto"],
+    "jobs": ["speed-up: serial / --jobs 2", "speed-up: serial / --jobs auto",
+             "speed-up the work allows (CPU critical path), --jobs 2"],
     "threshold": ["pool threshold: serial / --jobs 2 by run size"],
     "fix": ["fix --diff over the corpus / C compose loop"],
     "derive": ["derive over the corpus / C compose loop"],
@@ -447,6 +448,45 @@ def sec_jobs(b: Bench) -> None:
         verdict = at_least(rs, 0.9 * ideal) if ideal > 1 else "serial here (one usable CPU or a short run)"
         row(label, f"{seconds(r.median(name))} ({workers} process{'es' if workers > 1 else ''}; CPU {added:.2f}x serial's)",
             seconds(r.median("serial")), spread(rs), target, verdict)
+    sec_allowed(b)
+
+
+ALLOWED = """
+import json, sys, time
+from cfgcheck import engine, parallel
+opts = engine.Options()
+pairs = [(f, opts) for f in engine.expand_paths(sys.argv[2:])]
+cpu = time.process_time()
+for _report in engine.lint_files(pairs, jobs=int(sys.argv[1]), keep_views=False):
+    pass
+if sys.argv[1] == "1":
+    print(json.dumps([time.process_time() - cpu]))
+else:
+    print(json.dumps([parallel.LAST_RUN["here"], max(parallel.LAST_RUN["workers"].values())]))
+"""
+
+
+def sec_allowed(b: Bench) -> None:
+    """Serial CPU over the parallel run's critical path in CPU (this process up to the pool's
+    start, then the busiest worker), each in a fresh process: the speed-up two idle cores would
+    give, whatever the load."""
+    label = LABELS["jobs"][2]
+    runs = []
+    for r in range(b.repeat):
+        pair = []
+        for jobs in ("1", "2") if r % 2 == 0 else ("2", "1"):
+            out = subprocess.run([PY, "-c", ALLOWED, jobs, *b.corpus], capture_output=True, text=True,
+                                 env=ENV, cwd=ROOT)
+            if out.returncode != 0:
+                row(label, "failed", "-", "-", "≥ 1.8", (out.stderr.strip().splitlines() or ["no output"])[-1])
+                return
+            pair.append((jobs, json.loads(out.stdout.strip().splitlines()[-1])))
+        got = dict(pair)
+        runs.append((got["1"][0], *got["2"]))
+    rs = [s / (h + w) for s, h, w in runs]
+    med = statistics.median
+    row(label, f"CPU {med([h for _, h, _ in runs]):.2f} s here + {med([w for *_, w in runs]):.2f} s "
+        "busiest worker", f"serial CPU {med([s for s, *_ in runs]):.2f} s", spread(rs), "≥ 1.8", at_least(rs, 1.8))
 
 
 def sec_threshold(b: Bench) -> None:

@@ -94,16 +94,30 @@ def _strip(report: Any) -> Any:
     return report
 
 
-def _lint_range(start: int, end: int) -> list[Any]:
-    """In a forked worker: lint the inherited pairs start..end."""
+# The last parallel run's CPU seconds: "here" (this process until the pool started: preparing,
+# the first file) and per worker process id (its chunks). bench/run.py reads it to tell the
+# speed-up the work allows from what a busy machine let it have.
+LAST_RUN: dict[str, Any] = {}
+
+
+def _lint_range(start: int, end: int) -> tuple[int, float, list[Any]]:
+    """In a forked worker: lint the inherited pairs start..end -> (pid, CPU seconds, reports)."""
+    import time
+
     assert _INHERITED is not None and _LINT is not None
-    return [_strip(_LINT(path, options)) for path, options in _INHERITED[start:end]]
+    cpu = time.process_time()
+    reports = [_strip(_LINT(path, options)) for path, options in _INHERITED[start:end]]
+    return os.getpid(), time.process_time() - cpu, reports
 
 
 def _lint_chunk(lint_file: Callable[[str, Any], Any], options: list[Any],
-                files: list[tuple[str, int]]) -> list[Any]:
+                files: list[tuple[str, int]]) -> tuple[int, float, list[Any]]:
     """In a worker that inherited nothing: lint (file, index into options) pairs."""
-    return [_strip(lint_file(path, options[i])) for path, i in files]
+    import time
+
+    cpu = time.process_time()
+    reports = [_strip(lint_file(path, options[i])) for path, i in files]
+    return os.getpid(), time.process_time() - cpu, reports
 
 
 def _fork_is_safe() -> bool:
@@ -131,8 +145,11 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
     are done. ``lint_file(path, options)`` lints one file (a module-level function, so a worker can
     be handed it); ``prepare(options)`` runs once per distinct options before the workers start."""
     global _INHERITED, _LINT
+    import time
+
     if not pairs:
         return
+    started = time.process_time()
     distinct = list({id(o): o for _, o in pairs}.values())
     for options in distinct:
         prepare(options)  # parse the catalogue and import the checks before the workers start
@@ -151,6 +168,8 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
 
     futures: list = []
     pool = None
+    LAST_RUN.clear()
+    LAST_RUN.update(here=time.process_time() - started, workers={})
     if fork:
         _INHERITED, _LINT = rest, lint_file
         gc.freeze()  # the workers' collector then leaves the inherited objects (and their pages) alone
@@ -172,15 +191,16 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
     try:
         for done, (a, b) in enumerate(bounds):
             try:
-                reports = futures[done].result() if futures else None
+                pid, cpu, reports = futures[done].result() if futures else (0, 0.0, None)
             except BrokenProcessPool:  # a worker died (killed, out of memory)
-                reports = None
+                pid, cpu, reports = 0, 0.0, None
             if reports is None:  # the files not yet reported are linted here: still the serial output
                 for f in futures:
                     f.cancel()
                 for path, options in rest[a:]:
                     yield _strip(lint_file(path, options))
                 return
+            LAST_RUN["workers"][pid] = LAST_RUN["workers"].get(pid, 0.0) + cpu
             yield from reports
     finally:
         if pool is not None:
