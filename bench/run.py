@@ -381,6 +381,7 @@ class Bench:
     repeat: int
     quick: bool
     no_cache: list[str]  # ["--no-cache"] when lint has it
+    growth: str = "full"  # sizes of the growth curves
     uncached: dict[str, float] = field(default_factory=dict)  # median of the uncached corpus lint
 
     def cfg(self, *args: str) -> list[str]:
@@ -554,7 +555,7 @@ def sec_memory(b: Bench) -> None:
 
 def sec_growth(b: Bench) -> None:
     out = b.tmp / "growth.json"
-    cmd = [PY, str(BENCH / "growth.py"), "--json", str(out)] + (["--tiny"] if b.quick else [])
+    cmd = [PY, str(BENCH / "growth.py"), "--json", str(out)] + {"tiny": ["--tiny"], "quick": ["--quick"]}.get(b.growth, [])
     proc = subprocess.run(cmd, capture_output=True, text=True, env=ENV, cwd=ROOT)
     if proc.returncode != 0 or not out.exists():
         for label in LABELS["growth"]:
@@ -598,6 +599,8 @@ def main(argv: list[str] | None = None) -> None:
                     help="measured runs of each command per row (default 7, cold start 3x that; --quick: 1)")
     ap.add_argument("--only", default=",".join(SECTIONS), help="sections to run, comma-separated: " + ", ".join(SECTIONS))
     ap.add_argument("--quick", action="store_true", help="a handful of files, one run each, tiny growth curves")
+    ap.add_argument("--growth", choices=("tiny", "quick", "full"), default=None,
+                    help="sizes of the growth curves (default full; --quick: tiny)")
     ap.add_argument("--keep", type=Path, help="write the corpus here and keep it")
     a = ap.parse_args(argv)
     only = [s.strip() for s in a.only.split(",") if s.strip()]
@@ -617,7 +620,7 @@ def main(argv: list[str] | None = None) -> None:
         one = next(p for s in shards for p in sorted(s.iterdir()) if p.name.endswith("trainer-flat.yaml"))
         no_cache = ["--no-cache"] if has_option("lint", "--no-cache") else []
         b = Bench(tmp=tmp, corpus=corpus, shards=shards, one=one, files=files, repeat=repeat, quick=a.quick,
-                  no_cache=no_cache)
+                  no_cache=no_cache, growth=a.growth or ("tiny" if a.quick else "full"))
         print(f"cfgcheck benchmark: commit {commit()}, {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}")
         print(f"machine: {machine()}")
         print(f"corpus: {files:,} files ({', '.join(n for n, *_ in LAYOUTS)}) in {tmp / 'corpus'}; "
