@@ -20,6 +20,8 @@ Sections (``--only`` takes a comma-separated list of them; default: all):
   script     the corpus / a hand script of three rules over the C loader (bench/peer_script.py)
   jobs       serial / `--jobs 2` and serial / `--jobs auto` (the speed-up), and the CPU time the
              pool adds
+  allowed    serial CPU / the CPU critical path of `--jobs 2` (this process until the pool starts,
+             then the busiest worker): the speed-up idle cores would give, whatever the load
   threshold  serial / `--jobs 2` over small runs (16 .. 256 files): where a pool starts to pay
   fix        `cfgcheck fix --diff` over the corpus / the C compose loop
   derive     `cfgcheck derive` over the corpus / the C compose loop
@@ -60,7 +62,7 @@ sys.path.insert(0, str(ROOT))  # this checkout, not an installed copy
 ENTRY = "import sys; from cfgcheck.cli import main; sys.exit(main())"  # what the console script runs
 PY = sys.executable
 
-SECTIONS = ("cold", "corpus", "peer", "script", "jobs", "threshold", "fix", "derive", "cache",
+SECTIONS = ("cold", "corpus", "peer", "script", "jobs", "allowed", "threshold", "fix", "derive", "cache",
             "memory", "growth")
 
 # the row labels, in the order printed (tests check that a quick run prints every one)
@@ -69,8 +71,8 @@ LABELS = {
     "corpus": ["corpus: lint / yaml.load(CSafeLoader) loop", "corpus: lint / C compose loop"],
     "peer": ["corpus: lint / jsonschema loop (our schemas)"],
     "script": ["corpus: lint / hand script, three rules"],
-    "jobs": ["speed-up: serial / --jobs 2", "speed-up: serial / --jobs auto",
-             "speed-up the work allows (CPU critical path), --jobs 2"],
+    "jobs": ["speed-up: serial / --jobs 2", "speed-up: serial / --jobs auto"],
+    "allowed": ["speed-up the work allows (CPU critical path), --jobs 2"],
     "threshold": ["pool threshold: serial / --jobs 2 by run size"],
     "fix": ["fix --diff over the corpus / C compose loop"],
     "derive": ["derive over the corpus / C compose loop"],
@@ -449,7 +451,6 @@ def sec_jobs(b: Bench) -> None:
         verdict = at_least(rs, 0.9 * ideal) if ideal > 1 else "serial here (one usable CPU or a short run)"
         row(label, f"{seconds(r.median(name))} ({workers} process{'es' if workers > 1 else ''}; CPU {added:.2f}x serial's)",
             seconds(r.median("serial")), spread(rs), target, verdict)
-    sec_allowed(b)
 
 
 ALLOWED = """
@@ -471,7 +472,7 @@ def sec_allowed(b: Bench) -> None:
     """Serial CPU over the parallel run's critical path in CPU (this process up to the pool's
     start, then the busiest worker), each in a fresh process: the speed-up two idle cores would
     give, whatever the load."""
-    label = LABELS["jobs"][2]
+    label = LABELS["allowed"][0]
     runs = []
     for r in range(b.repeat):
         pair = []
@@ -585,6 +586,7 @@ def sec_growth(b: Bench) -> None:
 
 
 RUNNERS = {"cold": sec_cold, "corpus": sec_corpus, "peer": sec_peer, "script": sec_script, "jobs": sec_jobs,
+           "allowed": sec_allowed,
            "threshold": sec_threshold, "fix": sec_fix, "derive": sec_derive, "cache": sec_cache,
            "memory": sec_memory, "growth": sec_growth}
 

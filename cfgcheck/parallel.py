@@ -1,8 +1,8 @@
 """Linting many files over a pool of processes, results in the order the files were given.
 
-The files are cut into contiguous chunks, about ``CHUNKS_PER_WORKER`` per worker, and each worker
-lints a whole chunk and sends its reports back in one message: one process round trip per chunk,
-not per file. A report comes back without its views (the typed views and documents are only
+The files are cut into contiguous chunks, about ``CHUNKS_PER_WORKER`` per worker and shrinking
+towards the end (so the workers finish close together), and each worker lints a whole chunk and
+sends its reports back in one message: one process round trip per chunk, not per file. A report comes back without its views (the typed views and documents are only
 needed while the rules run, and pickling them would cost more than linting); everything else of
 a report (findings, input problems, internal errors, layout, skipped reason) is the same as in a
 serial run, and the reports are yielded in the files' order, so the output is byte for byte the
@@ -77,13 +77,18 @@ def worker_count(jobs: int | str, files: int) -> int:
 
 
 def chunk_bounds(n: int, workers: int, per_worker: int = CHUNKS_PER_WORKER) -> list[tuple[int, int]]:
-    """Contiguous [start, end) ranges covering 0..n, about ``per_worker`` per worker, their
-    sizes differing by at most one."""
+    """Contiguous [start, end) ranges covering 0..n, about ``per_worker`` per worker, the first
+    three times the size of the last, shrinking evenly: a worker takes the next chunk when it is
+    done, so the last chunks, small, leave the workers finishing close together."""
     count = max(1, min(n, workers * per_worker))
-    size, extra = divmod(n, count)
-    bounds, start = [], 0
-    for i in range(count):
-        end = start + size + (1 if i < extra else 0)
+    if count == 1:
+        return [(0, n)]
+    weights = [3 - 2 * i / (count - 1) for i in range(count)]
+    total = sum(weights)
+    bounds, start, acc = [], 0, 0.0
+    for i, w in enumerate(weights):
+        acc += w
+        end = n if i == count - 1 else max(start + 1, min(n - (count - 1 - i), round(n * acc / total)))
         bounds.append((start, end))
         start = end
     return bounds

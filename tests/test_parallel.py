@@ -44,8 +44,14 @@ def test_chunks_cover_the_files_in_order_about_four_per_worker(n, workers):
     assert bounds[0][0] == 0 and bounds[-1][1] == n
     assert all(a[1] == b[0] for a, b in zip(bounds, bounds[1:]))  # contiguous, in order
     sizes = [b - a for a, b in bounds]
-    assert min(sizes) >= 1 and max(sizes) - min(sizes) <= 1
+    assert min(sizes) >= 1
     assert len(bounds) == min(n, workers * parallel.CHUNKS_PER_WORKER)
+
+
+def test_chunks_shrink_so_workers_finish_together():
+    sizes = [b - a for a, b in parallel.chunk_bounds(1999, 2)]
+    assert sizes == sorted(sizes, reverse=True) and sum(sizes) == 1999
+    assert 2.5 <= sizes[0] / sizes[-1] <= 3.5  # the first about three times the last
 
 
 def test_jobs_auto_is_the_usable_cpus_and_serial_for_a_short_run(monkeypatch):
