@@ -382,8 +382,8 @@ def fix(
 ) -> None:
     """Rewrite the values rules can fix, in place, keeping every other byte; each rewrite is proven first."""
     from . import api
-    from . import fix as fixmod
     from .findings import printable
+    from .render.fixes import summary_text
 
     try:
         report = api.fix(paths, training=training, halve_batch=halve_batch,
@@ -393,7 +393,7 @@ def fix(
         _fail(_input_message(exc), api.EXIT_INPUT)
     if diff:
         sys.stdout.write("".join(f.diff() for f in report.files))
-    summary = fixmod.summary_text(report, dry=diff or no_write)
+    summary = summary_text(report, dry=diff or no_write)
     (sys.stderr if diff else sys.stdout).write(summary)
     raise typer.Exit(api.fix_exit_code(report, no_write=no_write))
 

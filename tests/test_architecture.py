@@ -62,6 +62,39 @@ def test_no_upward_imports():
     assert upward == []
 
 
+# Inside the fixer package the stages point down as well: the records every stage shares, then
+# value text and file writing, span edits, the proof, the plan (which edits are taken; it asks
+# the proof's data comparison), and the package's entry points on top. "fix" alone is the
+# package itself (its __init__), as a submodule's "from . import x" names it.
+FIX_STAGES = {
+    "fix.results": 0,
+    "fix.values": 1, "fix.write": 1,
+    "fix.edits": 2,
+    "fix.proof": 3,
+    "fix.plan": 4,
+    "fix.__init__": 5, "fix": 5,
+}
+
+
+def test_the_fixer_stages_import_downward_and_formatters_read_only_its_results():
+    offenders = []
+    for path in sorted((PKG / "fix").glob("*.py")):
+        me = ".".join(path.relative_to(PKG).with_suffix("").parts)
+        if me not in FIX_STAGES:
+            offenders.append(f"{me}: fixer module without a stage in this test")
+            continue
+        for target in _imports(path):
+            if target in FIX_STAGES and FIX_STAGES[target] > FIX_STAGES[me]:
+                offenders.append(f"{me} (stage {FIX_STAGES[me]}) imports {target} "
+                                 f"(stage {FIX_STAGES[target]})")
+    for path in sorted((PKG / "render").glob("*.py")):
+        me = ".".join(path.relative_to(PKG).with_suffix("").parts)
+        for target in _imports(path):
+            if target.split(".")[0] == "fix" and target != "fix.results":
+                offenders.append(f"{me} imports {target}: a formatter reads the fixer's result types only")
+    assert offenders == []
+
+
 def test_only_the_cli_exits_or_touches_argv():
     offenders = []
     for path in PKG.rglob("*.py"):

@@ -13,6 +13,8 @@ import yaml
 from typer.testing import CliRunner
 
 from cfgcheck import api, engine, fix
+from cfgcheck.fix import edits as fix_edits, proof as fix_proof, write as fix_write
+from cfgcheck.render.fixes import summary_text
 from cfgcheck.cli import app
 
 HEAD = "model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 2.0e-5\n"
@@ -120,7 +122,7 @@ def test_write_between_check_and_rename_is_not_lost(tmp_path, monkeypatch):
     p = tmp_path / "run.yaml"
     p.write_text(TEXT)
     theirs = TEXT + "num_train_epochs: 3\n"
-    monkeypatch.setattr(fix, "_before_rename", lambda target: open(target, "w").write(theirs))
+    monkeypatch.setattr(fix_write, "_before_rename", lambda target: open(target, "w").write(theirs))
     result = fix.fix_file(p, api.make_options())
     assert result.refused and not result.written and p.read_text() == theirs
     assert [x.name for x in tmp_path.iterdir()] == ["run.yaml"]
@@ -130,14 +132,14 @@ def test_write_into_the_old_file_during_the_rename_is_put_back(tmp_path, monkeyp
     p = tmp_path / "run.yaml"
     p.write_text(TEXT)
     theirs = TEXT + "num_train_epochs: 3\n"
-    real = fix._rename
+    real = fix_write._rename
 
     def racing(tmp, target):
         with open(target, "w") as fh:  # an editor writes in place just before our rename lands
             fh.write(theirs)
         real(tmp, target)
 
-    monkeypatch.setattr(fix, "_rename", racing)
+    monkeypatch.setattr(fix_write, "_rename", racing)
     result = fix.fix_file(p, api.make_options())
     assert result.refused and "put back" in result.refused and p.read_text() == theirs
     assert [x.name for x in tmp_path.iterdir()] == ["run.yaml"]
@@ -150,8 +152,8 @@ def test_read_only_file_is_not_replaced(tmp_path):
     result = fix.fix_file(p, api.make_options())
     assert result.refused and "not writable" in result.refused and p.read_text() == TEXT
     assert not result.changed  # a refused write is not counted as a change
-    assert "0 changed" in fix.summary_text(fix.FixReport([result]), dry=False)
-    assert "1 not written" in fix.summary_text(fix.FixReport([result]), dry=False)
+    assert "0 changed" in summary_text(fix.FixReport([result]), dry=False)
+    assert "1 not written" in summary_text(fix.FixReport([result]), dry=False)
 
 
 def test_hard_linked_file_is_not_split(tmp_path):
@@ -224,8 +226,8 @@ def test_many_repeated_comment_lines_keep_the_proof_exact():
     text = HEAD.replace("2.0e-5", "2e-5") + "#\n" * 20000
     result = fix.fix_text(text, "c.yaml", api.make_options())
     assert result.error is None and result.new_text == text.replace("2e-5", "2.0e-5")
-    bad = fix._TextEdit(len(HEAD) - 5, len(HEAD) - 5, "", "r")
-    assert fix._outside_lines_identical(text, text[:-2] + "x\n", [bad]) is not None
+    bad = fix_edits._TextEdit(len(HEAD) - 5, len(HEAD) - 5, "", "r")
+    assert fix_proof._outside_lines_identical(text, text[:-2] + "x\n", [bad]) is not None
 
 
 # --------------------------------------------------------------------------- odd layouts
@@ -362,7 +364,7 @@ def test_fixing_the_fixed_text_changes_nothing_is_part_of_the_proof(monkeypatch)
 def test_failed_proof_saves_its_evidence_for_a_bug_report(tmp_path, monkeypatch):
     p = tmp_path / "run.yaml"
     p.write_text(TEXT)
-    monkeypatch.setattr(fix, "_outside_lines_identical", lambda *a: "line 9 changed (injected)")
+    monkeypatch.setattr(fix_proof, "_outside_lines_identical", lambda *a: "line 9 changed (injected)")
     result = fix.fix_file(p, api.make_options())
     assert p.read_text() == TEXT and result.error is not None
     where = result.evidence_file
@@ -376,7 +378,7 @@ def test_file_replaced_by_another_program_during_the_rename_keeps_their_version(
     p = tmp_path / "run.yaml"
     p.write_text(TEXT)
     theirs = TEXT + "num_train_epochs: 3\n"
-    real = fix._rename
+    real = fix_write._rename
 
     def racing(tmp, target):
         other = tmp_path / "editor-save.tmp"
@@ -384,9 +386,9 @@ def test_file_replaced_by_another_program_during_the_rename_keeps_their_version(
         os.replace(other, target)  # an editor saves by renaming its own temp file over ours
         return real(tmp, target)
 
-    monkeypatch.setattr(fix, "_rename", racing)
+    monkeypatch.setattr(fix_write, "_rename", racing)
     result = fix.fix_file(p, api.make_options())
-    if not fix._exchange_supported(str(tmp_path)):
+    if not fix_write._exchange_supported(str(tmp_path)):
         pytest.skip("no atomic exchange on this system: documented as the remaining window")
     assert result.refused and p.read_text() == theirs
     assert [x.name for x in tmp_path.iterdir()] == ["run.yaml"]
@@ -427,7 +429,7 @@ def test_linked_file_is_not_fixed_alone_when_its_partner_cannot_follow(tmp_path)
 def test_fix_summary_escapes_keys_and_file_names(tmp_path):
     p = tmp_path / "run\nx.yaml:1:1: error: forged.yaml"
     p.write_text(HEAD.replace("2.0e-5", "2e-5") + '"odd\\nkey": on\n')
-    out = fix.summary_text(api.fix([p]), dry=True)
+    out = summary_text(api.fix([p]), dry=True)
     assert all(not line.startswith(("x.yaml", "key")) for line in out.splitlines())
     assert "run\\nx.yaml" in out
 

@@ -11,6 +11,7 @@ import yaml
 from typer.testing import CliRunner
 
 from cfgcheck import api, fix
+from cfgcheck.fix import edits as fix_edits, proof as fix_proof
 from cfgcheck.cli import app
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -20,7 +21,7 @@ TEXT = ("# Harborlight Logistics\nmodel_name_or_path: harborlight/base-7b\nuse_p
 
 
 def _broken_render(replacement):
-    real = fix._render
+    real = fix_edits._render
 
     def render(value, fmt, like=None, raw=""):
         out = real(value, fmt, like, raw)
@@ -38,7 +39,7 @@ def _broken_render(replacement):
 def test_a_wrong_rewrite_is_refused_and_names_the_rule(tmp_path, monkeypatch, breakage, reason):
     p = tmp_path / "run.yaml"
     p.write_text(TEXT)
-    monkeypatch.setattr(fix, "_render", _broken_render(breakage))
+    monkeypatch.setattr(fix_edits, "_render", _broken_render(breakage))
     result = fix.fix_file(p, api.make_options())
     assert result.error is not None and result.problem is None
     assert result.error.rule == "yaml-version-dependent-value"
@@ -53,7 +54,8 @@ def test_a_rewrite_that_touches_another_line_is_refused(monkeypatch):
     def sloppy(text, edits):  # also "tidies" the first comment
         return real(text, edits).replace("# Harborlight Logistics", "#Harborlight Logistics", 1)
 
-    monkeypatch.setattr(fix, "_apply", sloppy)
+    monkeypatch.setattr(fix, "_apply", sloppy)  # the fixer's rewrite
+    monkeypatch.setattr(fix_proof, "_apply", sloppy)  # and the proof's tries of one fix alone
     result = fix.fix_text(TEXT, "run.yaml", api.make_options())
     assert result.error is not None
     assert "comments" in result.error.error or "no edit touches" in result.error.error
@@ -71,10 +73,10 @@ def test_a_fix_that_leaves_its_finding_is_refused(monkeypatch):
 
 def test_the_lines_check_on_its_own():
     old = "a: 1\nb: 2\nc: 3\n"
-    edit = fix._TextEdit(start=8, end=9, text="5", rule="r")
-    assert fix._outside_lines_identical(old, "a: 1\nb: 5\nc: 3\n", [edit]) is None
-    assert "line 1" in fix._outside_lines_identical(old, "a: 0\nb: 5\nc: 3\n", [edit])
-    assert fix._outside_lines_identical(old, "a: 1\nb: 5\nc: 3", [edit]) is not None  # lost newline
+    edit = fix_edits._TextEdit(start=8, end=9, text="5", rule="r")
+    assert fix_proof._outside_lines_identical(old, "a: 1\nb: 5\nc: 3\n", [edit]) is None
+    assert "line 1" in fix_proof._outside_lines_identical(old, "a: 0\nb: 5\nc: 3\n", [edit])
+    assert fix_proof._outside_lines_identical(old, "a: 1\nb: 5\nc: 3", [edit]) is not None  # lost newline
 
 
 def test_comments_are_read_outside_scalars_only():

@@ -9,6 +9,7 @@ import stat
 import pytest
 
 from cfgcheck import api, fix
+from cfgcheck.fix import write as fix_write
 
 TEXT = "# Saltmarsh Games: dialogue run\nlearning_rate: 2e-4   # text under YAML 1.1\nnum_train_epochs: 2\n"
 FIXED = "# Saltmarsh Games: dialogue run\nlearning_rate: 2.0e-4 # text under YAML 1.1\nnum_train_epochs: 2\n"
@@ -36,7 +37,7 @@ def test_interrupted_between_temp_write_and_rename_leaves_original(config, monke
             seen["data"] = fh.read()
         raise exc
 
-    monkeypatch.setattr(fix, "_rename", crash)
+    monkeypatch.setattr(fix_write, "_rename", crash)
     if isinstance(exc, OSError):
         result = fix.fix_file(config, api.make_options())
         assert not result.written and "cannot write" in result.refused

@@ -14,6 +14,7 @@ import yaml
 from hypothesis import given, strategies as st
 
 from cfgcheck import fix
+from cfgcheck.fix.values import _float_text, _yaml_str
 
 ruamel_yaml = pytest.importorskip("ruamel.yaml")
 
@@ -63,7 +64,7 @@ finite = st.floats(allow_nan=False, allow_infinity=False, min_value=-1e300, max_
 @given(value=finite, like=st.sampled_from(["", "1e-4", "2.0E-5", "0.001", "3"]))
 def test_every_float_we_write_reads_back_exactly(value, like):
     """Any float, in either style, is the same float to PyYAML, YAML 1.2 and JSON (RFC 8259)."""
-    text = fix._float_text(value, like)
+    text = _float_text(value, like)
     for reader in (lambda t: pyyaml(f"k: {t}\n")["k"], lambda t: yaml12(f"k: {t}\n")["k"],
                    lambda t: json.loads(t)):
         got = reader(text)
@@ -74,6 +75,6 @@ def test_every_float_we_write_reads_back_exactly(value, like):
 @given(st.text(st.characters(blacklist_categories=("Cs",)), max_size=20),
        st.sampled_from([None, "'", '"']))
 def test_every_string_we_write_reads_back_exactly(value, quote):
-    text = fix._yaml_str(value, quote)
+    text = _yaml_str(value, quote)
     assert pyyaml(f"k: {text}\n")["k"] == value
     assert yaml12(f"k: {text}\n")["k"] == value

@@ -35,6 +35,10 @@ def test_wheel_contains_the_catalogue(wheel):
     rules = sorted(Path(n).name for n in names if n.startswith("cfgcheck/_catalogue/"))
     assert rules == sorted(p.name for p in (ROOT / "rules").glob("*.yaml"))
     assert "cfgcheck/cli.py" in names
+    # every module of the package, its subpackages (fix/, render/, checks/, knowledge/) included
+    modules = sorted(p.relative_to(ROOT).as_posix() for p in (ROOT / "cfgcheck").rglob("*.py"))
+    assert "cfgcheck/fix/__init__.py" in modules and "cfgcheck/render/fixes.py" in modules
+    assert [m for m in modules if m not in names] == []
     meta = next(n for n in names if n.endswith("METADATA"))
     text = zipfile.ZipFile(wheel).read(meta).decode()
     requires = sorted(l.split()[1].split(">")[0].split("=")[0].lower() for l in text.splitlines()
@@ -59,3 +63,8 @@ def test_installed_wheel_lints_outside_the_checkout(wheel, tmp_path):
                           "--gpu", "t4", "--rows", "1000"], capture_output=True, text=True, env=env, cwd=tmp_path)
     assert run.returncode == 1, run.stderr
     assert "lora-scale-below-one" in run.stdout and "Traceback" not in run.stderr
+    # the fixer (a package of its own) runs from the installed copy too; --diff writes nothing
+    fixed = subprocess.run([sys.executable, "-m", "cfgcheck", "fix", "--diff", str(ROOT / "fixtures" / "demo")],
+                           capture_output=True, text=True, env=env, cwd=tmp_path)
+    assert fixed.returncode == 0, fixed.stderr
+    assert "(fixed)" in fixed.stdout and "would change" in fixed.stderr and "Traceback" not in fixed.stderr
