@@ -33,7 +33,8 @@ Sections (``--only`` takes a comma-separated list of them; default: all):
 
 Everything runs in fresh subprocesses of this interpreter with this checkout first on the path,
 the way the installed `cfgcheck` script starts (bytecode written, as an installed package has it),
-with a cache folder of its own (XDG_CACHE_HOME in a temporary folder) and without project files.
+with a cache folder of its own (XDG_CACHE_HOME and CFGCHECK_CACHE_DIR in a temporary folder) and
+without project files.
 When `lint --no-cache` exists, every uncached figure passes it.
 """
 
@@ -227,6 +228,7 @@ def _env(cache: Path) -> dict[str, str]:
     env.pop("PYTHONDONTWRITEBYTECODE", None)  # as installed: bytecode (and the catalogue cache) kept
     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
     env["XDG_CACHE_HOME"] = str(cache)  # a cache folder of the benchmark's own
+    env["CFGCHECK_CACHE_DIR"] = str(cache / "cfgcheck")
     env.pop("NO_COLOR", None)
     return env
 
