@@ -615,6 +615,8 @@ def main(argv: list[str] | None = None) -> None:
     repeat = a.repeat or (1 if a.quick else 7)
     WARM = not a.quick
 
+    if a.keep is not None and a.keep.exists():
+        ap.error(f"--keep {a.keep}: the folder exists (the corpus is written afresh)")
     tmp = Path(tempfile.mkdtemp(prefix="cfgcheck-bench-")) if a.keep is None else a.keep
     try:
         ENV = _env(tmp / "cache")
