@@ -128,7 +128,7 @@ def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = F
         opts = base(file)
         sl = paired.get(os.path.normpath(os.path.abspath(file)))
         if sl is not None and opts.script is None:
-            opts = dataclasses.replace(opts, script=sl)
+            opts = dataclasses.replace(opts, script=sl, script_linted=scripts)
         return opts
 
     if scripts:

@@ -16,6 +16,8 @@ How the loaders compose, as followed here:
   ``base`` (a path ending in .yaml/.yml/.json, or a list of them): read first, this file overrides.
 * ``key=value`` overrides (the launch command line): ``a.b=1`` sets, ``+a.b=1`` adds, ``++a.b=1``
   sets or adds, ``~a.b`` removes; the value is read as a YAML scalar.
+* the arguments of a launch script that starts the config (``scripts.override_document``): a
+  layer applied last, each value located at the script line that wrote it.
 
 Only local files are read, at most ``MAX_FILES`` of them, ``MAX_DEPTH`` levels of nesting. A file
 that cannot be found or read leaves the document as written, with the reason
@@ -304,15 +306,36 @@ def composes(data: Any) -> bool:
     return False
 
 
+def _apply_located(merged: _Layer, located: Document) -> None:
+    """The launch script's arguments over the composed config, each located where it was written;
+    the note names the script line and the config line it overrode."""
+    for path, entry in located.entries.items():
+        if not path or entry.kind != "scalar":
+            continue
+        value = _value_at(located.data, path)
+        before = merged.origin.get(path)
+        if before is not None and merged.chain.get(path):
+            src_file, src_doc, doc_path = before
+            old = src_doc.entries.get(doc_path)
+            if old is not None and merged.chain[path][-1] == src_file:
+                merged.chain[path][-1] = f"{src_file}:{old.value.line}"
+        label = f"{located.name}:{entry.value.line}"
+        _set(merged, path, value, label)
+        merged.origin[path] = (located.name, located, path)
+
+
 def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (),
-            override_label: str = "the command line") -> Document:
-    """DOC composed with the files it names and the overrides; raises ComposeError."""
+            override_label: str = "the command line", located: Document | None = None) -> Document:
+    """DOC composed with the files it names, the overrides and a launch script's located
+    arguments (applied last); raises ComposeError."""
     state = _State(primary_dir=Path(file).parent)
     state.files.append(file)
     state.docs[file] = doc
     merged = _compose_file(doc, file, state, 0)
     if overrides:
         _apply_overrides(merged, list(overrides), override_label)
+    if located is not None:
+        _apply_located(merged, located)
     entries, origins, chains = {}, {}, {}
     ambiguities = []
     for path, (src_file, src_doc, doc_path) in merged.origin.items():

@@ -38,9 +38,13 @@ class Options:
     launch: tuple[str, ...] = ()  # launch files the run is started with (--launch, project file)
     gpus_from: str = ""  # where ``gpus`` came from, in words ("--gpus", "cfgcheck.yaml profile")
     script: Any = None  # scripts.ScriptLaunch: a launch script in the tree that names this config
+    # the same lint reports that script too: findings located at its lines (its arguments override
+    # this config) are left to the script's report, so each finding is reported once
+    script_linted: bool = False
     models: tuple = ()  # (id, Architecture) pairs the project configuration declares
     overrides: tuple[str, ...] = ()  # key=value overrides the launch passes (compose.py)
     versions: dict[str, str] = field(default_factory=dict)  # library -> release the run uses (--installed)
+    readers: tuple[str, ...] = ()  # Python scripts that read this config (project file ``readers``)
 
 
 # --------------------------------------------------------------------------- the check context
@@ -293,7 +297,10 @@ WAIVER_RULE = "waiver-comment-problem"
 
 
 def lint_documents(docs: list[Document], file: str, options: Options,
-                   layout: str | None = None, text: str | None = None) -> FileReport:
+                   layout: str | None = None, text: str | None = None,
+                   located_in: str | None = None) -> FileReport:
+    """Lint the documents of FILE. ``located_in``: keep only the findings located in that file
+    (a launch script lints the runs of the configs it overrides for the findings on its lines)."""
     report = FileReport(file=file)
     reasons = []
     waivers = waivermod.scan(text) if text and docs and docs[0].format == "yaml" else []
@@ -320,12 +327,14 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             if sweep.is_sweep(doc.data):  # a sweep file: lint its runs
                 sweep.lint_sweep(doc, file, run, report, layout)
                 continue
+            from .run import script_layer
+
             fixed, varying = sweep.split_overrides(options.overrides)
             if varying and not file.startswith("<"):  # list-valued overrides: one run per combination
                 from . import compose
 
                 try:
-                    base = compose.compose(doc, file, fixed)
+                    base = compose.compose(doc, file, fixed, located=script_layer(file, options))
                 except compose.ComposeError as exc:
                     report.compose_problem = str(exc)
                 else:
@@ -348,22 +357,24 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             report.internal.append(internal_error(file, None, exc))
     if not report.layout and not report.internal:
         report.skipped = reasons[0] if reasons else "empty file"
+    script = options.script
+    if located_in is not None:
+        report.findings = [f for f in report.findings if f.file == located_in]
+    elif script is not None and options.script_linted and script.file != file:
+        report.findings = [f for f in report.findings if f.file != script.file]
     report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
     return report
 
 
 def _composed(doc: Document, file: str, options: Options, report: FileReport) -> Document:
-    """DOC composed with the files it names and the launch's overrides (compose.py); as written
-    when there is nothing to compose or a named file cannot be read (the reason is kept)."""
-    from . import compose
+    """DOC composed (``run.composed``); a named file that cannot be read leaves it as written,
+    with the reason kept in the report."""
+    from .run import composed
 
-    if not (options.overrides or compose.composes(doc.data)) or file.startswith("<"):
-        return doc
-    try:
-        return compose.compose(doc, file, options.overrides)
-    except compose.ComposeError as exc:
-        report.compose_problem = str(exc)
-        return doc
+    out, problem = composed(doc, file, options)
+    if problem:
+        report.compose_problem = problem
+    return out
 
 
 def lint_text(text: str, name: str = "<text>", options: Options | None = None,
@@ -402,6 +413,8 @@ def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
     report = FileReport(file=name)
     for i, sl in enumerate(launches):
         try:  # the crash boundary of one launch: a bug here spares the others
+            if _lint_overridden_configs(sl, options, report):
+                continue  # its arguments override the configs it starts: linted with their runs
             doc = script_document(sl, i)
             if doc is None:
                 continue
@@ -419,6 +432,32 @@ def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
                           else "a launch script with no trainer arguments of its own")
     report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
     return report
+
+
+def _lint_overridden_configs(sl, options: Options, report: FileReport) -> bool:
+    """Lint the runs of the configs a launch starts with its overriding arguments, keeping the
+    findings located at the script's lines. False when the launch overrides no readable config."""
+    import dataclasses
+
+    from .scripts import overrides_of
+
+    if not overrides_of(sl):
+        return False
+    done = False
+    for config in sl.configs:
+        try:
+            src = loadmod.read_source(config)
+            docs = loadmod.load_text(src.text, config)
+        except LoadError:
+            continue  # the config's own lint says why it cannot be read
+        sub = lint_documents(docs, config, dataclasses.replace(options, script=sl),
+                             located_in=sl.file)
+        report.findings += sub.findings
+        report.internal += sub.internal
+        report.views += sub.views
+        report.layout = report.layout or "launch script"
+        done = True
+    return done
 
 
 def lint_file(path: str | Path, options: Options | None = None) -> FileReport:

@@ -101,6 +101,14 @@ class Layout:
     # the runner's validator refuses to merge an adapter into a quantised base ("" = it merges);
     # the text it stops with, {bits} for 4 or 8
     refuses_quantised_merge: str = ""
+    # the key without which the runner never resizes the embedding for added tokens ("" = it always
+    # resizes). With it, the runner turns it on itself for explicitly added tokens, and a resized
+    # run with no trainable-module list written gets the embedding and head added to that list
+    vocab_resize_key: str = ""
+    # a token list and the trainable-module list may be written as one comma-separated text
+    comma_token_lists: bool = False
+    # the runner's registered chat templates that add special tokens: name -> those tokens
+    template_stop_words: dict[str, tuple[str, ...]] = field(default_factory=dict)
 
     @property
     def has_bare_names(self) -> bool:
@@ -211,6 +219,12 @@ FIELD_TYPES: dict[str, str] = {
     "data.assistant_only": "bool",
     "tokenizer.pad_token": "str",
     "tokenizer.eos_token": "str",
+    # chat-format settings of the recipe runners
+    "data.special_tokens": "any",  # role -> token (bos/eos/unk/pad), additional_special_tokens list
+    "data.template_name": "str",  # a runner's registered chat template, by name
+    "model.resize_vocab": "bool",
+    "adapter.unfrozen": "names",  # regex patterns of parameters left trainable
+    "adapter.trainable_tokens": "any",  # token rows of the embedding trained (PEFT trainable tokens)
 }
 
 # Field specs of the same rules, one block per layout (kept together so the tables stay readable)
@@ -525,6 +539,8 @@ PEFT_ADAPTER = Layout(
 AXOLOTL = Layout(
     name="axolotl",
     key_table="axolotl",  # the runner's own key list (knowledge/runner_keys.json)
+    not_read="chat_template / chat_template_jinja for the vocabulary: axolotl sets the template "
+             "string only, so its markers stay text unless tokens / special_tokens add them",
     title="axolotl-style recipe (adapter: lora|qlora, lora_r, micro_batch_size, num_epochs)",
     # axolotl reads the YAML with yaml.safe_load, then validates it with a pydantic settings
     # model: learning_rate is `str | float` with a validator that calls float() on text
@@ -590,10 +606,15 @@ AXOLOTL = Layout(
         "precision.tf32": ("tf32",),
         "data.seq_len": ("sequence_len",),
         "data.packing": ("sample_packing",),
-        # axolotl 0.19.0 utils/schemas/config.py: `tokens` are added to the vocabulary (new rows
-        # of the embedding). `chat_template: chatml` alone adds none: its markers are tokenised
-        # into pieces the model has, unless `tokens:` adds them.
+        # axolotl 0.19.0 loaders/tokenizer.py load_tokenizer: `tokens` go to add_tokens and
+        # `special_tokens` (bos/eos/unk/pad, additional_special_tokens) to add_special_tokens: a
+        # token the vocabulary lacks becomes a new embedding row. `chat_template` (a name, or
+        # `jinja` with `chat_template_jinja`) only sets the template string: its markers are
+        # tokenised into pieces the model has, unless `tokens:` / `special_tokens:` add them.
         "data.new_tokens": ("tokens",),
+        "data.special_tokens": ("=special_tokens",),  # a mapping: read at the root
+        "adapter.unfrozen": ("unfrozen_parameters",),
+        "adapter.trainable_tokens": ("peft_trainable_token_indices",),
         "data.eval": ("val_set_size", "test_datasets"),
         "cadence.eval_strategy": ("eval_strategy",),
         "cadence.eval_steps": ("eval_steps",),
@@ -632,6 +653,20 @@ LLAMA_FACTORY = Layout(
     trainer_schedule=True,
     word_lists=frozenset({"transformers-arguments", "transformers-strategies"}),
     targets_text="comma-list",  # lora_target: "q_proj,v_proj" is split on commas
+    # add_tokens / add_special_tokens / additional_target: comma texts (hparams __post_init__)
+    comma_token_lists=True,
+    # model/patcher.py patch_tokenizer turns resize_vocab on when add_tokens / add_special_tokens
+    # add any token; model/adapter.py adds the input and output embeddings to additional_target
+    # when resize_vocab is on and additional_target is unset; a template's stop words only warn
+    # "make sure `resize_vocab` is True" (data/template.py), and patcher.py resizes only with it
+    vocab_resize_key="resize_vocab",
+    # data/template.py (0.9.5) register_template stop_words, added as special tokens by
+    # fix_special_tokens (replace_eos: the first becomes the EOS token); the text-marker templates
+    # (llama2, mistral, alpaca, vicuna, zephyr, default, empty) register none
+    template_stop_words={"chatml": ("<|im_end|>", "<|im_start|>"), "qwen": ("<|im_end|>",),
+                         "qwen3": ("<|im_end|>",), "phi4": ("<|im_end|>",),
+                         "llama3": ("<|eot_id|>", "<|eom_id|>"), "gemma": ("<end_of_turn>",),
+                         "phi": ("<|end|>",)},
     # fp16_mode stays "autocast": model/adapter.py _setup_full_tuning casts the trainable
     # parameters to fp32 (cast_trainable_params_to_fp32, off only with pure_bf16)
     fields={
@@ -644,6 +679,12 @@ LLAMA_FACTORY = Layout(
         "adapter.dropout": ("lora_dropout",),
         "adapter.targets": ("lora_target",),
         "adapter.save_modules": ("additional_target",),
+        # LLaMA-Factory 0.9.5 hparams/model_args.py: add_tokens / add_special_tokens (comma
+        # texts; new_special_tokens before 0.9.4), resize_vocab; data_args.template names a
+        # registered template whose stop words data/template.py fix_special_tokens adds
+        "data.new_tokens": ("add_tokens", "add_special_tokens", "new_special_tokens"),
+        "data.template_name": ("template",),
+        "model.resize_vocab": ("resize_vocab",),
         "adapter.dora": ("use_dora",),
         "adapter.init": ("pissa_init",),
         "quant.bits": ("quantization_bit",),

@@ -6,7 +6,8 @@ Found by walking up from the first linted path (or the working folder) to the re
 
 What it holds: which files are training configs (``configs``/``exclude`` globs), rule selection,
 severity and threshold overrides, hardware profiles per path glob, waivers (the way to waive a
-finding in a JSON file), the gate, and a baseline file. ``options_for(file, given)`` turns it
+finding in a JSON file), the Python scripts that read the configs (``readers``), the gate, and a
+baseline file. ``options_for(file, given)`` turns it
 into the engine's per-file ``Options``; values given on the command line (``given``) win.
 
 ``pyproject.toml`` is read with ``tomllib`` (Python 3.11+). On Python 3.10 a ``[tool.cfgcheck]``
@@ -114,6 +115,19 @@ SCHEMA: dict[str, Any] = {
                     "label": {"type": "string", "minLength": 1},
                     "memory_gb": {"type": "number", "exclusiveMinimum": 0},
                     "capability": {"type": "string", "pattern": r"^\d+\.\d+$"},
+                },
+            },
+        },
+        # the Python script that reads the configs a glob matches: its declared keys are accepted
+        "readers": {
+            "type": "array",
+            "items": {
+                "type": "object",
+                "additionalProperties": False,
+                "required": ["configs", "script"],
+                "properties": {
+                    "configs": _GLOB_OR_GLOBS,
+                    "script": {"type": "string", "minLength": 1},
                 },
             },
         },
@@ -386,6 +400,7 @@ class Project:
     installed: dict[str, str] = field(default_factory=dict)  # library -> release (``installed:``)
     models: tuple = ()  # (id, knowledge.models.Architecture) pairs declared here
     gpu_types: dict[str, Any] = field(default_factory=dict)  # name -> knowledge.hardware.Gpu declared here
+    readers: list[tuple[tuple[Glob, ...], str]] = field(default_factory=list)  # (globs, script, absolute)
 
     def relative(self, file: str | Path) -> str | None:
         """The file's path relative to the project root, '/'-separated; None when outside it."""
@@ -442,6 +457,9 @@ class Project:
                     if prof.launch:
                         values["launch"] = prof.launch
             values["waivers"] = tuple(w for globs, w in self.waivers if matches(rel, globs))
+            readers = tuple(dict.fromkeys(s for globs, s in self.readers if matches(rel, globs)))
+            if readers:
+                values["readers"] = readers
         if self.models:
             values["models"] = self.models
         for name, value in given.items():
@@ -749,6 +767,18 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
         if rule_known(w["rule"], ("waive", i, "rule")):
             waivers.append((globs(w["files"], ("waive", i, "files")),
                             ProjectWaiver(rule=w["rule"], reason=w["reason"].strip(), key=w.get("key"))))
+    readers = []
+    for i, r in enumerate(data.get("readers") or []):
+        script = (path.parent / r["script"]).resolve()
+        if not r["script"].strip().lower().endswith(".py"):
+            line, col = locate(("readers", i, "script"))
+            problems.append((name, line, col, f"readers[{i}].script: {_show(r['script'])} is not a Python "
+                                              "file (the script that reads the configs, e.g. src/train.py)"))
+        elif not script.is_file():
+            line, col = locate(("readers", i, "script"))
+            problems.append((name, line, col, f"readers[{i}].script: {_show(r['script'])} not found "
+                                              f"(relative to {path.parent})"))
+        readers.append((globs(r["configs"], ("readers", i, "configs")), str(script)))
     configs = globs(data.get("configs"), ("configs",))
     exclude = globs(data.get("exclude"), ("exclude",))
     if problems:
@@ -762,5 +792,5 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
         show=Severity.parse(data["show"]) if "show" in data else None,
         baseline=(root / data["baseline"]) if "baseline" in data else None,
         installed={str(k): str(v) for k, v in (data.get("installed") or {}).items()},
-        models=tuple(models), gpu_types=gpu_types,
+        models=tuple(models), gpu_types=gpu_types, readers=readers,
     )

@@ -13,6 +13,7 @@ Every value that does not come from the file itself is a ``Field`` in ``view.sup
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -389,10 +390,44 @@ def open_view(view: RunView, file: str, options: Any = None) -> OpenedRun:
     return run
 
 
+def script_layer(file: str, options: Any) -> Any:
+    """The arguments of the launch script that starts FILE, when they override it (a document
+    located at the script's lines), else None."""
+    script = getattr(options, "script", None)
+    if script is None or file.startswith("<"):
+        return None
+    if os.path.normpath(os.path.abspath(file)) not in script.configs:
+        return None
+    from .compose import override_value
+    from .scripts import override_document
+
+    return override_document(script, override_value)
+
+
+def composed(doc: Any, file: str, options: Any) -> tuple[Any, str]:
+    """(DOC composed with the files it names, the launch's ``key=value`` overrides and the
+    arguments of the launch script that starts it; why a named file could not be read, or "").
+    As written when there is nothing to compose, or when composing fails."""
+    from . import compose
+    from .sweep import split_overrides
+
+    located = script_layer(file, options)
+    # list-valued overrides make a sweep of runs (sweep.py): only the fixed ones compose here
+    overrides = tuple(split_overrides(tuple(getattr(options, "overrides", ()) or ()))[0])
+    if not (overrides or located is not None or compose.composes(doc.data)) or file.startswith("<"):
+        return doc, ""
+    try:
+        return compose.compose(doc, file, overrides, located=located), ""
+    except compose.ComposeError as exc:
+        return doc, str(exc)
+
+
 def open_documents(docs: list, file: str, options: Any = None, layout: str | None = None) -> list[OpenedRun]:
-    """Every document of a file, opened (skipped documents too, with ``view.skipped`` set)."""
+    """Every document of a file, composed and opened (skipped documents too, with
+    ``view.skipped`` set)."""
     out = []
     for doc in docs:
+        doc, _problem = composed(doc, file, options)
         view = build_view(doc, layout)
         if view.skipped:
             out.append(OpenedRun(view=view, file=file, cwd=getattr(options, "cwd", None), launch=LaunchContext()))

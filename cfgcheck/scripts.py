@@ -6,8 +6,11 @@ shell parser: line continuations, quoting, ``&&`` lists), variables set earlier 
 substituted (``LR=2e-4`` ... ``--learning_rate $LR``), and each training command gives a
 ``ScriptLaunch``: processes, machines, mixed precision, the launch files it names, the configs it
 passes, and its own ``--key value`` trainer arguments with their positions. The configs it names
-are paired with that launch context (``cfgcheck.run``); the arguments are linted like a flat
-trainer config located at the script's lines (``script_document``).
+are paired with that launch context (``cfgcheck.run``). Arguments given after a config override
+that config the way the launch's reader applies them (``overrides_of``): the run of the config is
+the config composed with them (``compose.py``), each value located where it was written. A launch
+that names no config has its arguments linted like a flat trainer config located at the script's
+lines (``script_document``).
 """
 
 from __future__ import annotations
@@ -50,6 +53,10 @@ class ScriptLaunch:
     launch_files: tuple[str, ...] = ()  # absolute paths of accelerate / DeepSpeed files it names
     configs: tuple[str, ...] = ()  # absolute paths of the configs it passes
     args: list[ScriptArg] = field(default_factory=list)
+    # the Python program it runs, as a path, when that file exists (the script reading the configs)
+    reader: str | None = None
+    # ``key=value`` words after the program (OmegaConf's dotlist: LLaMA-Factory, torchtune)
+    dotlist: list[ScriptArg] = field(default_factory=list)
 
 
 # launcher options that take a value (both spellings are accepted: --num_processes, --num-processes)
@@ -241,6 +248,9 @@ def _launch_of(text: str, name: str, folder: Path, plain: list, words: _Words) -
         i += 1
     if launcher == "python" and not (sl.program or "").endswith(".py") and sl.program is None:
         return None
+    if (sl.program or "").endswith(".py"):
+        found = _resolve(sl.program, folder)
+        sl.reader = found if os.path.isfile(found) else None
     configs: list[str] = []
     # the program's arguments: configs it is given, and --key value trainer arguments
     while i < len(w):
@@ -272,8 +282,17 @@ def _launch_of(text: str, name: str, folder: Path, plain: list, words: _Words) -
             continue
         if word.lower().endswith(_CONFIG_SUFFIXES):
             configs.append(_resolve(word, folder))
+        elif _DOTLIST.match(word):
+            key, _, raw_val = word.partition("=")
+            key_start = node.pos[0]
+            vstart = key_start + len(plain[i].word.partition("=")[0]) + 1
+            # the value stays text here: the composer reads it as its loader does (a YAML scalar)
+            sl.dotlist.append(ScriptArg(key=key.lstrip("+"), value=raw_val, text=raw_val,
+                                        key_span=_span(text, key_start, key_start + len(key)),
+                                        value_span=_span(text, vstart, node.pos[1]),
+                                        unresolved=words.expand(plain[i].word.partition("=")[2])[1]))
         i += 1
-    if launcher == "python" and not configs and not sl.args:
+    if launcher == "python" and not configs and not sl.args and not sl.dotlist:
         return None
     sl.configs = tuple(configs)
     sl.launch_files = tuple(dict.fromkeys(files))
@@ -281,6 +300,9 @@ def _launch_of(text: str, name: str, folder: Path, plain: list, words: _Words) -
 
 
 _RUNNER_CLIS = ("llamafactory-cli", "axolotl", "tune", "trl")
+# a key=value word: a dotted key (``+`` adds a key in OmegaConf/Hydra overrides), then the value
+_DOTLIST = re.compile(r"^\+{0,2}[A-Za-z_][A-Za-z0-9_]*(?:\.[A-Za-z0-9_]+)*=")
+
 # the launchers by their first word(s) -> (our label, the options that take a value)
 _LAUNCHERS = {"accelerate launch": ("accelerate launch", _ACCELERATE_VALUED),
               "torchrun": ("torchrun", _TORCHRUN_VALUED),
@@ -349,6 +371,81 @@ def read_script(path: str | Path) -> list[ScriptLaunch]:
 
 class ScriptTooLarge(LoadError):
     """Not an input error: the script is left out (skipped), not reported as unreadable."""
+
+
+# How each reader applies the arguments that follow a config on its command line:
+# * ``llamafactory-cli train cfg.yaml k=v``: LLaMA-Factory 0.9.5 hparams/parser.py read_args merges
+#   ``OmegaConf.from_cli`` of the words after the YAML over it: ``key=value`` words win, ``--key`` words
+#   are not read as settings;
+# * ``tune run RECIPE --config cfg.yaml k=v``: torchtune 0.6.1 _cli/run.py hands the words to its
+#   recipe parser, which merges ``OmegaConf.from_dotlist`` over the file: ``key=value`` wins;
+# * ``axolotl train cfg.yml --k v``: axolotl 0.19.0 cli/config.py load_cfg sets each CLI keyword
+#   over the file's value; cli/utils/args.py makes one option per config field (``--no-k`` for a
+#   boolean's false, ``--trl.beta`` for a nested field, passed on as ``trl__beta``); the train
+#   command's own options (cli/main.py, cli/args.py TrainerCliArgs) are not settings;
+# * ``trl sft --config cfg.yaml --k v``: TRL's TrlParser.parse_args_and_config reads the file as
+#   the defaults, then the command line, so ``--key value`` wins;
+# * a Python program given a config (``train.py cfg.yaml --k v``): transformers' HfArgumentParser
+#   alone reads a YAML file only through ``parse_yaml_file`` with no other arguments; the
+#   training scripts that take a YAML path and more arguments (TrlParser's ``--config``, the
+#   argument parsers of training repositories built on it, LLaMA-Factory's read_args) apply the
+#   command line over the file, ``--key value`` and ``key=value`` alike. That is what is followed.
+_READS_DOTLIST = {"llamafactory-cli": True, "tune": True, "axolotl": False, "trl": False}
+_READS_FLAGS = {"llamafactory-cli": False, "tune": False, "axolotl": True, "trl": True}
+# arguments that name files the launch context reads itself, never settings of the config
+_FILE_ARGS = {"deepspeed": "a DeepSpeed JSON (read as a launch file)"}
+# how a runner's CLI keywords nest (``--trl.beta`` / ``trl__beta`` set ``trl.beta``)
+_NESTING = {"axolotl": ("__", ".")}
+# a runner CLI's own options, never settings of the config
+_CLI_OPTIONS = {"axolotl": {"launcher", "cloud", "sweep", "debug", "debug_text_only", "debug_num_examples",
+                            "prompter", "shard"}}
+# ``--no-k`` sets a boolean k to false
+_NEGATES = {"axolotl": True}
+
+
+def overrides_of(sl: ScriptLaunch) -> list[tuple[tuple, ScriptArg, bool]]:
+    """(key path, argument, whether it is a ``key=value`` word) for each argument that overrides
+    the configs the launch passes, in the order the reader applies them; empty when the launch
+    passes no config."""
+    if len(sl.configs) != 1:
+        return []  # several configs: which one an argument belongs to is the program's business
+    runner = sl.launcher if sl.launcher in _RUNNER_CLIS else None
+    out: list[tuple[tuple, ScriptArg, bool]] = []
+    if _READS_FLAGS.get(runner, True):
+        for a in sl.args:
+            if _FILE_ARGS.get(a.key) or a.unresolved or a.key in _CLI_OPTIONS.get(runner, ()):
+                continue
+            if _NEGATES.get(runner) and a.key.startswith("no_") and a.value is True and a.text == "true":
+                a = ScriptArg(key=a.key[3:], value=False, text="false", key_span=a.key_span,
+                              value_span=a.value_span)
+            seps = _NESTING.get(runner, ())
+            path = tuple(re.split("|".join(map(re.escape, seps)), a.key)) if seps else (a.key,)
+            out.append((path, a, False))
+    if _READS_DOTLIST.get(runner, True):
+        out += [(tuple(a.key.split(".")), a, True) for a in sl.dotlist if not a.unresolved]
+    return out
+
+
+def override_document(sl: ScriptLaunch, read_word=None) -> Document | None:
+    """The launch's overriding arguments as a document located at the script's lines (the layer
+    composed over the config); ``read_word`` reads a ``key=value`` word's text as its loader does
+    (``compose.override_value``)."""
+    pairs = overrides_of(sl)
+    if not pairs:
+        return None
+    data: dict[str, Any] = {}
+    entries: dict[tuple, Entry] = {}
+    for path, a, word in pairs:
+        cur = data
+        for part in path[:-1]:
+            nxt = cur.get(part)
+            if not isinstance(nxt, dict):
+                nxt = cur[part] = {}
+            cur = nxt
+        cur[path[-1]] = read_word(a.text) if word and read_word else a.value  # a later one wins
+        entries[path] = Entry(value=a.value_span, key=a.key_span, raw=a.text)
+    entries[()] = Entry(value=Span(line=sl.line, column=1, start=0, end=0), kind="map")
+    return Document(name=sl.file, format="shell", data=data, entries=entries)
 
 
 def script_document(sl: ScriptLaunch, index: int = 0) -> Document | None:

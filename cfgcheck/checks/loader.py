@@ -66,11 +66,13 @@ def _quoted(raw: str) -> str:
     return '"' + raw + '"'  # the raw texts concerned are digits, signs, dots, letters: no escapes
 
 
-def _repository_reader(file: str) -> str:
-    """How the scripts of the config's repository read numbers, when they show it (ast only)."""
-    from ..knowledge.repo_keys import repo_keys
+def _repository_reader(ctx) -> str:
+    """How the scripts of the config's repository (and the scripts named as its readers) read
+    numbers, when they show it (ast only)."""
+    from ..knowledge.repo_keys import keys_for
+    from .unknown_keys import reader_scripts
 
-    found = repo_keys(file)
+    found = keys_for(ctx.file, reader_scripts(ctx))
     return found.number_reader if found is not None else ""
 
 
@@ -98,7 +100,7 @@ def yaml_version_dependent(ctx) -> None:
                       edits=(Edit(path=amb.path, old=amb.yaml11, new=float(amb.yaml12)),))
             layout = ctx.view.layout
             reader = layout.number_reader if layout is not None and layout.coerces_numbers \
-                else ctx.doc.number_reader or _repository_reader(ctx.file)
+                else ctx.doc.number_reader or _repository_reader(ctx)
             if layout is not None and reader:
                 # the layout's own loader or settings model (or the loader that composes the
                 # file) reads the text as a number

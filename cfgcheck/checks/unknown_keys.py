@@ -70,6 +70,17 @@ def slip_of_keyboard(key: str, near: str) -> bool:
     return True
 
 
+def reader_scripts(ctx) -> tuple[str, ...]:
+    """The Python scripts said to read this config: the project file's ``readers``, and the
+    program of the launch script that starts it."""
+    out = list(getattr(ctx.options, "readers", ()) or ())
+    script = getattr(ctx.options, "script", None)
+    reader = getattr(script, "reader", None)
+    if reader and reader not in out:
+        out.append(reader)
+    return tuple(out)
+
+
 class _Judge:
     def __init__(self, ctx, layout: str):
         self.ctx = ctx
@@ -78,11 +89,14 @@ class _Judge:
         self.limit = ctx.thresholds.get("suggestion_limit", 200)
         self.asked = 0
         self.past_limit = False
-        from ..knowledge.repo_keys import repo_keys
+        from ..knowledge.repo_keys import keys_for
 
         # a file parsed into argument dataclasses (TrainingArguments and the script's own): the
-        # repository's scripts may declare more of them
-        self.repo = repo_keys(ctx.file) if ctx.view.layout.trainer_defaults else None
+        # repository's scripts may declare more of them; a script named as the file's reader (by
+        # the launch script that starts it, or the project file) declares them wherever it lives
+        readers = reader_scripts(ctx)
+        self.repo = (keys_for(ctx.file, readers) if ctx.view.layout.trainer_defaults or readers
+                     else None)
 
     def declared_by_repo(self, name: str) -> str | None:
         if self.repo is not None and name in self.repo.keys:

@@ -46,6 +46,9 @@ FORMATS: tuple[ChatFormat, ...] = (
                "<|end|> 32007, <|user|> 32010, special: true (public copies found by search)"),
 )
 
+# every special-token marker of the formats above: the tokens a chat format adds to a base
+CHAT_MARKERS: frozenset[str] = frozenset().union(*(f.special for f in FORMATS)) | {"<|eom_id|>"}
+
 # Text-marker formats, for the record: their markers are plain text in the base vocabulary.
 TEXT_FORMATS = {
     "zephyr": "<|system|>, <|user|>, <|assistant|> as text and the base EOS </s> to end a turn: "
@@ -61,6 +64,9 @@ class Vocabulary:
     vocab_size: int | None  # None: every size of the family
     special: frozenset[str]
     source: str
+    # the list holds every special and added token of the tokenizer (a marker-shaped token it
+    # lacks is not in the vocabulary); False: the list holds the chat markers only
+    complete: bool = False
 
 
 _LLAMA2 = frozenset({"<unk>", "<s>", "</s>"})
@@ -70,10 +76,11 @@ _GEMMA = frozenset({"<pad>", "<eos>", "<bos>", "<unk>", "<start_of_turn>", "<end
 VOCABULARIES: tuple[Vocabulary, ...] = (
     Vocabulary("llama", 32000, _LLAMA2,
                "Llama 2 / TinyLlama sentencepiece tokenizer: <unk> 0, <s> 1, </s> 2 and no added "
-               "tokens (from memory); vocab 32000 in base_models.json"),
+               "tokens (from memory); vocab 32000 in base_models.json", complete=True),
     Vocabulary("mistral", 32000, _LLAMA2,
-               "Mistral-7B-v0.1 tokenizer: <unk>, <s>, </s> (from memory); vocab 32000"),
-    Vocabulary("mixtral", 32000, _LLAMA2, "Mixtral-8x7B-v0.1: the Mistral v0.1 tokenizer (from memory)"),
+               "Mistral-7B-v0.1 tokenizer: <unk>, <s>, </s> (from memory); vocab 32000", complete=True),
+    Vocabulary("mixtral", 32000, _LLAMA2, "Mixtral-8x7B-v0.1: the Mistral v0.1 tokenizer (from memory)",
+               complete=True),
     Vocabulary("llama", 128256,
                frozenset({"<|begin_of_text|>", "<|end_of_text|>", "<|start_header_id|>",
                           "<|end_header_id|>", "<|eot_id|>", "<|eom_id|>", "<|python_tag|>"}),
@@ -97,6 +104,15 @@ VOCABULARIES: tuple[Vocabulary, ...] = (
 )
 
 _MARKER = re.compile(r"<\|[A-Za-z0-9_]+\|>|<[a-z_]+_of_turn>")
+
+
+_MARKER_TOKEN = re.compile(r"^<\|?/?[A-Za-z0-9_.:-]+\|?>$")
+
+
+def marker_shaped(token: str) -> bool:
+    """A token written like a special token (``<|im_end|>``, ``<end_of_turn>``, ``</s>``): never a
+    piece of ordinary text in a tokenizer that does not list it as added."""
+    return isinstance(token, str) and bool(_MARKER_TOKEN.match(token.strip()))
 
 
 def markers(template: str) -> set[str]:

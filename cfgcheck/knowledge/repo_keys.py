@@ -12,6 +12,13 @@ holds a config are parsed with :mod:`ast` — never imported or run — for
 
 The repository is the nearest folder above the config that holds ``.git``, ``pyproject.toml``,
 ``setup.py`` or ``setup.cfg`` (at most six levels up); without one nothing is scanned.
+
+The script that reads a config can also be named: by the launch script that starts it
+(``python src/train.py cfg.yaml``) or by the project file (``readers:``). That script and the
+modules of its own tree it imports (``from .args import ...``, ``import my_args``; at most
+``MAX_READER_FILES`` files, ``MAX_IMPORT_DEPTH`` imports deep) are parsed the same way
+(``reader_keys``), wherever they live, so its declared keys are accepted even when the config
+sits outside the script's repository or the repository is too big to scan whole.
 The work is bounded: at most ``MAX_FILES`` Python files, each at most ``MAX_BYTES``, hidden
 folders, virtual environments and ``site-packages`` skipped, at most ``MAX_ENTRIES`` folder
 entries looked at.
@@ -201,6 +208,107 @@ def _scan(root: str) -> RepoKeys:
     only = readers - {"yaml"} if "yaml" not in readers else set()
     reader = _READER_WORDS[sorted(only)[0]] if len(only) == 1 else ""
     return RepoKeys(root=root, keys=frozenset(keys), sources=keys, files=parsed, number_reader=reader)
+
+
+MAX_READER_FILES = 40
+MAX_IMPORT_DEPTH = 3
+
+
+def _local_imports(tree: ast.AST, script: Path, top: Path) -> list[Path]:
+    """Files of the script's own tree that it imports (relative imports, or module names found
+    as files beside the script or under TOP); other imports are libraries and left alone."""
+    out: list[Path] = []
+    for node in ast.walk(tree):
+        names: list[tuple[int, str]] = []
+        if isinstance(node, ast.ImportFrom):
+            names.append((node.level, node.module or ""))
+            if node.module is None or node.level:
+                names += [(node.level, f"{node.module}.{a.name}" if node.module else a.name) for a in node.names]
+        elif isinstance(node, ast.Import):
+            names += [(0, a.name) for a in node.names]
+        for level, dotted_name in names:
+            if level:
+                base = script.parent
+                for _ in range(level - 1):
+                    base = base.parent
+                bases = [base]
+            else:
+                bases = [script.parent, top]
+            rel = Path(*dotted_name.split(".")) if dotted_name else Path()
+            for b in bases:
+                for cand in (b / rel.with_suffix(".py") if dotted_name else None, b / rel / "__init__.py"):
+                    if cand is not None and cand.is_file():
+                        out.append(cand)
+                        break
+    return out
+
+
+@lru_cache(maxsize=64)
+def reader_keys(script: str) -> RepoKeys | None:
+    """The keys SCRIPT (a Python file) and the modules of its own tree it imports declare; None
+    when the script cannot be read."""
+    path = Path(script)
+    try:
+        if not path.is_file():
+            return None
+    except (OSError, ValueError):
+        return None
+    top = repository_root(path) or path.parent
+    keys: dict[str, str] = {}
+    readers: set[str] = set()
+    queue, seen, parsed = [(path, 0)], {path.resolve()}, 0
+    while queue and parsed < MAX_READER_FILES:
+        here, depth = queue.pop(0)
+        try:
+            if here.stat().st_size > MAX_BYTES:
+                continue
+            text = here.read_text(encoding="utf-8", errors="replace")
+        except OSError:
+            continue
+        parsed += 1
+        try:
+            rel = os.path.relpath(here, top)
+        except ValueError:
+            rel = str(here)
+        for key, where in keys_of_source(text, rel).items():
+            keys.setdefault(key, where)
+        readers |= readers_of_source(text)
+        if depth >= MAX_IMPORT_DEPTH:
+            continue
+        try:
+            tree = ast.parse(text)
+        except (SyntaxError, ValueError, RecursionError, MemoryError):
+            continue
+        for dep in _local_imports(tree, here, top):
+            r = dep.resolve()
+            if r not in seen:
+                seen.add(r)
+                queue.append((dep, depth + 1))
+    only = readers - {"yaml"} if "yaml" not in readers else set()
+    reader = _READER_WORDS[sorted(only)[0]] if len(only) == 1 else ""
+    return RepoKeys(root=str(top), keys=frozenset(keys), sources=keys, files=parsed, number_reader=reader)
+
+
+def merged(parts: list[RepoKeys]) -> RepoKeys | None:
+    """One key set from several scans (the repository's and the named reader scripts')."""
+    parts = [p for p in parts if p is not None]
+    if not parts:
+        return None
+    if len(parts) == 1:
+        return parts[0]
+    sources: dict[str, str] = {}
+    for p in parts:
+        for k, v in p.sources.items():
+            sources.setdefault(k, v)
+    readers = {p.number_reader for p in parts if p.number_reader}
+    return RepoKeys(root=parts[0].root, keys=frozenset().union(*(p.keys for p in parts)), sources=sources,
+                    files=sum(p.files for p in parts),
+                    number_reader=readers.pop() if len(readers) == 1 else "")
+
+
+def keys_for(config: str | os.PathLike, readers: tuple[str, ...] = ()) -> RepoKeys | None:
+    """The keys CONFIG's repository declares, with those of the scripts named as its readers."""
+    return merged([repo_keys(config)] + [reader_keys(str(r)) for r in readers])
 
 
 def repo_keys(config: str | os.PathLike) -> RepoKeys | None:
