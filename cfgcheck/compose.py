@@ -10,14 +10,20 @@ How the loaders compose, as followed here:
   root; ``- group: option`` merges ``group/option.yaml`` under ``group`` (``group@pkg`` under
   ``pkg``, ``@_global_`` at the root; ``override``/``optional`` prefixes are accepted; a null
   option is skipped); ``_self_`` marks where this file's own values go, at the end when absent.
-  Group files are looked up from the primary config's folder, plain names from the including file's.
+  Group files are looked up from the primary config's folder, plain names from the including file's;
+  an ``optional`` entry whose file is missing is skipped, and Hydra's own ``hydra/...`` groups
+  (launchers, sweepers) are not read.
   Dicts merge key by key; any other value (lists too) is replaced, as OmegaConf's merge does.
 * a base file named by ``_base_``, ``base_config``, ``extends``, ``inherit_from`` or
   ``base`` (a path ending in .yaml/.yml/.json, or a list of them): read first, this file overrides.
 * ``key=value`` overrides (the launch command line): ``a.b=1`` sets, ``+a.b=1`` adds, ``++a.b=1``
-  sets or adds, ``~a.b`` removes; the value is read as a YAML scalar.
+  sets or adds, ``~a.b`` removes; the value is read as a YAML scalar. ``group=option`` for a group
+  the defaults list names picks that group's other file instead (Hydra's group override).
 * the arguments of a launch script that starts the config (``scripts.override_document``): a
   layer applied last, each value located at the script line that wrote it.
+* a runner's experiment folder (a layout's ``experiment_root``): the file is read over the
+  runner's defaults file, a top-level key replacing the default's whole value
+  (``compose_over_defaults``, called by the engine).
 
 Only local files are read, at most ``MAX_FILES`` of them, ``MAX_DEPTH`` levels of nesting. A file
 that cannot be found or read leaves the document as written, with the reason
@@ -54,6 +60,8 @@ class _State:
     files: list[str] = field(default_factory=list)
     docs: dict[str, Document] = field(default_factory=dict)
     defaults_list: bool = False  # composed through a defaults: list (an OmegaConf-based loader)
+    # ``group=option`` overrides that choose another option of a group the defaults list names
+    choices: dict[str, str] = field(default_factory=dict)
 
 
 @dataclass
@@ -157,15 +165,28 @@ def _find(name: str, folders: list[Path]) -> Path:
 
 def _entry_key(entry: Any) -> tuple[str, Any] | None:
     """('group[@pkg]', option) for a dict entry of a defaults list."""
+    found = _entry(entry)
+    return (found[0], found[1]) if found is not None else None
+
+
+def _entry(entry: Any) -> tuple[str, Any, bool] | None:
+    """('group[@pkg]', option, optional) for a dict entry of a defaults list."""
     if isinstance(entry, dict) and len(entry) == 1:
         (k, v), = entry.items()
         if isinstance(k, str):
             k = k.strip()
+            optional = False
             for word in ("override ", "optional "):
                 if k.startswith(word):
+                    optional = optional or word == "optional "
                     k = k[len(word):].strip()
-            return k, v
+            return k, v, optional
     return None
+
+
+# Hydra's own groups (launchers, sweepers, logging) come from Hydra and its plugins, not from the
+# config folder, and set nothing the training run reads (Hydra 1.1+, "The hydra package")
+_HYDRA_GROUPS = ("hydra/",)
 
 
 def _compose_file(doc: Document, file: str, state: _State, depth: int) -> _Layer:
@@ -202,11 +223,14 @@ def _compose_file(doc: Document, file: str, state: _State, depth: int) -> _Layer
                 sub, subname = _read(_find(entry, [here, state.primary_dir]), state)
                 layers.append(_compose_file(sub, subname, state, depth + 1))
                 continue
-            pair = _entry_key(entry)
-            if pair is None:
+            found = _entry(entry)
+            if found is None:
                 raise ComposeError(f"a defaults entry cfgcheck cannot read: {entry!r}")
-            group, option = pair
+            group, option, optional = found
+            if group.lstrip("/").startswith(_HYDRA_GROUPS):
+                continue
             group, _, package = group.partition("@")
+            option = state.choices.get(group.lstrip("/"), option)
             options = option if isinstance(option, list) else [option]
             for opt in options:
                 if opt is None:
@@ -214,7 +238,13 @@ def _compose_file(doc: Document, file: str, state: _State, depth: int) -> _Layer
                 if not isinstance(opt, (str, int, float)) or isinstance(opt, bool):
                     raise ComposeError(f"a defaults entry cfgcheck cannot read: {entry!r}")
                 rel = f"{group.lstrip('/')}/{opt}"
-                sub, subname = _read(_find(rel, [state.primary_dir, here]), state)
+                try:
+                    where = _find(rel, [state.primary_dir, here])
+                except ComposeError:
+                    if optional:  # Hydra skips an optional entry whose file is not there
+                        continue
+                    raise
+                sub, subname = _read(where, state)
                 inner = _compose_file(sub, subname, state, depth + 1)
                 target = package or group.lstrip("/")
                 prefix = () if target in ("_global_", "") else tuple(target.replace("/", ".").split("."))
@@ -256,6 +286,33 @@ def override_value(raw: str) -> Any:
     if isinstance(value, str) and _FLOAT.match(value.strip()):
         return float(value.strip().replace("_", ""))
     return value
+
+
+def _group_choices(doc: Document, overrides: list[str], state: _State) -> list[str]:
+    """Hydra's ``group=option`` (``optim=hot``) picks another option of a group the primary
+    defaults list names, read from ``group/option.yaml`` beside it (Hydra 1.1+, "Overriding a
+    config group"); it sets no value. -> the overrides that remain (values to set)."""
+    defaults = doc.data.get("defaults") if isinstance(doc.data, dict) else None
+    groups = set()
+    for entry in defaults if isinstance(defaults, list) else ():
+        pair = _entry_key(entry)
+        if pair is not None:
+            groups.add(pair[0].partition("@")[0].lstrip("/"))
+    rest = []
+    for item in overrides:
+        key, eq, raw = item.strip().partition("=")
+        key = key.strip()
+        option = raw.strip()
+        if eq and key in groups and option and "," not in option:
+            try:
+                _find(f"{key}/{option}", [state.primary_dir])
+            except ComposeError:
+                rest.append(item)
+                continue
+            state.choices[key] = option
+            continue
+        rest.append(item)
+    return rest
 
 
 def _apply_overrides(merged: _Layer, overrides: list[str], label: str) -> None:
@@ -331,6 +388,7 @@ def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (
     state = _State(primary_dir=Path(file).parent)
     state.files.append(file)
     state.docs[file] = doc
+    overrides = _group_choices(doc, list(overrides or ()), state)
     merged = _compose_file(doc, file, state, 0)
     if overrides:
         _apply_overrides(merged, list(overrides), override_label)
@@ -359,6 +417,45 @@ def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (
                     index=doc.index, origins=origins, overrides=chains,
                     composed_from=list(state.files),
                     number_reader=OMEGACONF_READER if state.defaults_list else "")
+
+
+def experiment_base(file: str, root: str, names: tuple[str, ...]) -> str | None:
+    """The runner's defaults file for FILE in ``<root>/<method>/<name>/``, when it exists."""
+    folder = Path(os.path.abspath(file)).parent
+    if len(folder.parents) < 2 or folder.parents[1].name != root:
+        return None
+    top = folder.parents[2] if len(folder.parents) > 2 else folder.parents[1]
+    for name in names:
+        cand = top / name
+        try:
+            if cand.is_file() and cand.resolve() != Path(file).resolve():
+                return str(cand)
+        except (OSError, ValueError):
+            continue
+    return None
+
+
+def compose_over_defaults(doc: Document, file: str, base_file: str) -> Document:
+    """DOC read over BASE_FILE the way a ``{**defaults, **config}`` loader does: a top-level key
+    DOC writes replaces the default's whole value; raises ComposeError."""
+    state = _State(primary_dir=Path(file).parent)
+    state.files.append(file)
+    state.docs[file] = doc
+    base_doc, base_name = _read(Path(base_file), state)
+    own = dict(doc.data)
+    base = _layer_of(base_doc, base_name, {k: v for k, v in base_doc.data.items() if k not in own})
+    for path in [p for p in base.origin if p and p[0] in own]:
+        del base.origin[path]
+    merged = _merge(base, _layer_of(doc, file, own))
+    entries, origins = {}, {}
+    for path, (src_file, src_doc, doc_path) in merged.origin.items():
+        entry = src_doc.entries.get(doc_path)
+        if entry is not None:
+            entries[path] = entry
+        origins[path] = src_file
+    return Document(name=doc.name, format=doc.format, data=merged.data, entries=entries,
+                    duplicates=list(doc.duplicates), ambiguities=list(doc.ambiguities), tags=list(doc.tags),
+                    index=doc.index, origins=origins, overrides={}, composed_from=list(state.files))
 
 
 def _value_at(data: Any, path: tuple) -> Any:

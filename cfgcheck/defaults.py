@@ -93,7 +93,23 @@ def _grpo_seq(view: RunView):
     return int(view.value("data.max_prompt", 512)) + int(view.value("data.max_completion", 256))
 
 
+_LF_V1 = "LLaMA-Factory 0.9.5 v1/config/training_args.py TrainingArguments"
+
 DEFAULTS: dict[str, tuple[Default, ...]] = {
+    "llama-factory-v1": (
+        Default("precision.bf16", True, f"bf16 defaults to true ({_LF_V1})"),
+        Default("optim.lr", 1.0e-4, f"learning_rate defaults to 1e-4 ({_LF_V1})"),
+        Default("optim.epochs", 3, f"num_train_epochs defaults to 3 ({_LF_V1})"),
+        Default("batch.per_device", 1, f"micro_batch_size defaults to 1 ({_LF_V1})"),
+        Default("data.seq_len", 2048, f"cutoff_len defaults to 2048 ({_LF_V1})"),
+        Default("runtime.gradient_checkpointing", True,
+                f"enable_activation_checkpointing defaults to true ({_LF_V1})"),
+    ),
+    "peft-bench": (
+        Default("cadence.eval_strategy", "steps",
+                "the runner evaluates every eval_steps steps: PEFT method_comparison/MetaMathQA run.py "
+                "train(): 'if step % eval_steps == 0'"),
+    ),
     "axolotl": (
         Default("model.dtype", _axolotl_dtype,
                 f"bf16: true or auto loads the weights in bf16 (fp16: true in fp16): the runner sets "

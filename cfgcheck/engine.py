@@ -22,7 +22,6 @@ from .view import Field, RunView, build_view
 from . import waivers as waivermod
 
 
-
 @dataclass
 class Options:
     gpu: Gpu | None = None
@@ -341,6 +340,10 @@ def lint_documents(docs: list[Document], file: str, options: Options,
                     sweep.lint_override_sweep(base, file, varying, run, report, layout)
                     continue
             doc = _composed(doc, file, options, report)
+            names, cands = sweep.hydra_grid(doc) if not file.startswith("<") else ([], [])
+            if names:  # the config's own multirun grid: one run per combination
+                sweep.lint_hydra_grid(doc, file, names, cands, run, report, layout)
+                continue
             view = build_view(doc, layout)
             if not view.skipped:
                 open_view(view, file, options)  # links, launch context, runner defaults, GPUs

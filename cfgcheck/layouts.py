@@ -28,6 +28,12 @@ class Layout:
     # keys whose presence says "this is a file of that layout", with a weight each
     signature: dict[str, int]
     min_score: int = 2
+    # the layout whose argument classes this one's reader extends (LLaMA-Factory parses into a
+    # TrainingArguments subclass): once a key of ``extends_marks`` is present and the layout's own
+    # signature reaches ``min_score``, the other layout's signature counts for it too, so a file
+    # that writes mostly the shared keys is still recognised by the keys only its runner reads
+    extends: str = ""
+    extends_marks: frozenset[str] = frozenset()
     # section names searched for bare names, and the prefixes a section lets you drop
     sections: dict[str, tuple[str, ...]] = field(default_factory=dict)
     # fields a layout's own loader reads as numbers even when YAML 1.1 gives text
@@ -65,6 +71,13 @@ class Layout:
     builder_models: tuple[tuple[str, str], ...] = ()
     # a dotted path whose value is the model's folder (its config.json), used when no builder maps
     model_dir: str = ""
+    # an experiment folder of the runner (``<experiments>/<method>/<name>/``): a file there is read
+    # over the runner's defaults file (``experiment_defaults``, looked up from the folder above
+    # ``<experiments>``, then inside it; a key the file writes replaces the default's whole value),
+    # and the run trains the adapter of ``experiment_adapter`` beside it, or every weight without one
+    experiment_root: str = ""
+    experiment_defaults: tuple[str, ...] = ()
+    experiment_adapter: str = ""
     # what cfgcheck reads of this layout and what it does not (the layouts table in the docs)
     reads: str = ""
     not_read: str = ""
@@ -329,14 +342,21 @@ def _same(names: str, target: str) -> dict[str, str]:
 # Section-local names of trainer-style files, by what a section holds. The section words and the
 # local names are common practice in training repositories (no source); a local name is mapped
 # only where it cannot mean another setting in that kind of section.
-_MODEL_NAMES = {**_same("name_or_path name path id model_id repo_id pretrained checkpoint hub_id", "model_name_or_path"),
+_MODEL_NAMES = {**_same("name_or_path name path id model_id repo_id pretrained checkpoint hub_id model_name "
+                         "model_path base_model base_model_id pretrained_model hf_name hf_path", "model_name_or_path"),
                 **_same("dtype torch_dtype", "torch_dtype"),
                 **_same("attn_implementation attention attn", "attn_implementation"),
                 **_same("max_seq_length max_seq_len max_length context_length", "max_seq_length")}
 _SCHEDULE_NAMES = {**_same("type name kind scheduler lr_scheduler_type", "lr_scheduler_type"),
                    **_same("warmup_steps num_warmup_steps", "warmup_steps"),
+                   # a schedule section often says how long the run is
+                   **_same("epochs num_epochs", "num_train_epochs"),
+                   **_same("total_steps num_training_steps train_steps max_train_steps", "max_steps"),
                    **_same("warmup_ratio warmup_fraction", "warmup_ratio")}
 _OPTIM_NAMES = {**_same("name type kind optimizer", "optim"), **_same("lr learning_rate", "learning_rate"),
+                # an optimiser section often holds the schedule beside it
+                **_same("scheduler lr_scheduler schedule lr_schedule", "lr_scheduler_type"),
+                "num_warmup_steps": "warmup_steps",
                 **_same("weight_decay wd", "weight_decay"),
                 **_same("max_grad_norm grad_clip clip_grad_norm gradient_clipping", "max_grad_norm")}
 _ADAPTER_NAMES = {**_same("r rank", "lora_r"), "alpha": "lora_alpha", "dropout": "lora_dropout",
@@ -350,6 +370,7 @@ _QUANT_NAMES = {**_same("quant_type type", "bnb_4bit_quant_type"),
 _TRAIN_NAMES = {**_same("batch_size micro_batch_size per_device_batch_size batch_size_per_device "
                         "train_micro_batch_size", "per_device_train_batch_size"),
                 **_same("epochs num_epochs", "num_train_epochs"), "lr": "learning_rate",
+                **_same("total_steps num_training_steps train_steps max_train_steps", "max_steps"),
                 **_same("grad_accum gradient_accumulation accumulation_steps grad_accumulation_steps "
                         "grad_accumulation", "gradient_accumulation_steps"),
                 **_same("grad_clip clip_grad_norm", "max_grad_norm")}
@@ -373,12 +394,20 @@ def _kinds(**groups: tuple[str, dict[str, str]]) -> dict[str, dict[str, str]]:
 
 _TRAINER_SECTION_NAMES = _kinds(
     model=("model model_args model_arguments model_config base_model llm backbone", _MODEL_NAMES),
-    schedule=("schedule scheduler lr_schedule lr_scheduler learning_rate_schedule sched", _SCHEDULE_NAMES),
-    optim=("optim optimizer optimiser optimization optimisation", _OPTIM_NAMES),
-    adapter=("lora peft peft_config adapter adapters lora_config lora_args peft_args", _ADAPTER_NAMES),
-    quant=("quantization quantization_config quant bnb bitsandbytes", _QUANT_NAMES),
-    train=("training train trainer training_args training_arguments args hyperparameters hparams run", _TRAIN_NAMES),
-    data=("data data_args data_arguments dataset tokenizer", _DATA_NAMES),
+    schedule=("schedule scheduler lr_schedule lr_scheduler learning_rate_schedule sched scheduler_config "
+              "lr_scheduler_config schedule_config", _SCHEDULE_NAMES),
+    optim=("optim optimizer optimiser optimization optimisation optimizer_config optimizer_args optim_config",
+           _OPTIM_NAMES),
+    adapter=("lora peft peft_config adapter adapters lora_config lora_args peft_args lora_params peft_params "
+             "lora_hparams lora_settings", _ADAPTER_NAMES),
+    quant=("quantization quantization_config quant bnb bitsandbytes quant_config bnb_config quantisation "
+           "quantisation_config quantization_args", _QUANT_NAMES),
+    train=("training train trainer training_args training_arguments args hyperparameters hparams run config "
+           "train_config training_config trainer_config trainer_args train_args hyperparams params settings "
+           "sft sft_config dpo dpo_config grpo grpo_config orpo kto finetune finetuning fine_tuning "
+           "training_hparams train_hparams train_params training_params trainer_kwargs training_kwargs sft_args",
+           _TRAIN_NAMES),
+    data=("data data_args data_arguments dataset tokenizer data_config dataset_config data_params", _DATA_NAMES),
     eval=("eval evaluation validation val", _EVAL_NAMES),
     log=("logging log", _LOG_NAMES),
     save=("checkpointing checkpoint checkpoints save saving", _SAVE_NAMES),
@@ -393,7 +422,7 @@ TRAINER = Layout(
     restricted_sections=frozenset("eval evaluation validation val test".split()),
     foreign_sections=frozenset("teacher teacher_model ref_model reference_model ref reward_model critic "
                                "value_model draft_model judge vllm generation generation_config gen_kwargs "
-                               "generation_kwargs inference deepspeed fsdp_config accelerate".split()),
+                               "generation_kwargs inference deepspeed fsdp_config accelerate hydra".split()),
     search_all_sections=True,
     reads="top-level transformers / PEFT / TRL argument names; the same names inside any section, "
           "with section-local names by what the section holds (model: name_or_path, scheduler: type, "
@@ -408,7 +437,7 @@ TRAINER = Layout(
     fields={
         "method": ("finetuning_method", "tuning_method"),
         "model.ref": ("model_name_or_path", "base_model_name_or_path", "pretrained_model_name_or_path",
-                      "base_model", "model_id", "model"),
+                      "base_model", "model_id", "model", "model_name", "model_path"),
         "model.dtype": ("torch_dtype", "model_dtype", "dtype"),
         "model.attention": ("attn_implementation",),
         "adapter.enabled": ("use_peft", "use_lora"),
@@ -431,12 +460,15 @@ TRAINER = Layout(
         "quant.bits": ("quantization_bits", "quantization_bit"),
         "optim.lr": ("learning_rate", "lr"),
         "optim.name": ("optim",),
+        # num_warmup_steps: the name of transformers' no-trainer example scripts
+        # (run_clm_no_trainer.py: --lr_scheduler_type, --num_warmup_steps)
         "optim.scheduler": ("lr_scheduler_type",),
         "optim.scheduler_kwargs": ("lr_scheduler_kwargs",),
         "optim.warmup_ratio": ("warmup_ratio",),
-        "optim.warmup_steps": ("warmup_steps",),
+        "optim.warmup_steps": ("warmup_steps", "num_warmup_steps"),
         "optim.epochs": ("num_train_epochs",),
-        "optim.max_steps": ("max_steps",),
+        # max_train_steps: transformers' no-trainer examples ("If provided, overrides num_train_epochs")
+        "optim.max_steps": ("max_steps", "max_train_steps"),
         "optim.weight_decay": ("weight_decay",),
         "optim.grad_clip": ("max_grad_norm",),
         "batch.per_device": ("per_device_train_batch_size",),
@@ -724,10 +756,14 @@ LLAMA_FACTORY = Layout(
         "preprocessing_num_workers": 1, "overwrite_cache": 2, "quantization_method": 2, "ddp_timeout": 1,
     },
     min_score=5,
+    # keys only LLaMA-Factory's argument classes declare (hparams/finetuning_args.py, data_args.py)
+    extends="trainer",
+    extends_marks=frozenset("finetuning_type stage template cutoff_len lora_target quantization_bit plot_loss".split()),
 )
 
 LLAMA_FACTORY_V1 = Layout(
     name="llama-factory-v1",
+    key_table="llama-factory-v1",  # its own closed argument set (knowledge/runner_keys.json)
     title="LLaMA-Factory v1 arguments (model, peft_config block, micro_batch_size, cutoff_len)",
     default_method="full",  # no peft_config block: every weight trains
     trainer_schedule=True,
@@ -742,14 +778,22 @@ LLAMA_FACTORY_V1 = Layout(
         "optim.lr": ("=learning_rate",),
         "optim.max_steps": ("=max_steps",),
         "optim.epochs": ("=num_train_epochs",),
+        # v1 TrainingArguments (llamafactory 0.9.5 v1/config/training_args.py) has micro_batch_size
+        # and global_batch_size ("default to DP size * micro batch size"), no accumulation key
         "batch.per_device": ("=micro_batch_size",),
-        "batch.accumulation": ("=gradient_accumulation_steps",),
+        "batch.global": ("=global_batch_size",),
         "data.seq_len": ("=cutoff_len",),
         "precision.bf16": ("=bf16",),
+        "optim.grad_clip": ("=max_grad_norm",),
+        "cadence.save_steps": ("=save_steps",),
+        "cadence.logging_steps": ("=logging_steps",),
+        "runtime.gradient_checkpointing": ("=enable_activation_checkpointing",),
     },
-    signature={"model_class": 4, "kernel_config": 3, "dist_config": 2, "sample_backend": 3,
+    # its own keys weigh more than the trainer names a peft_config block spells (r, lora_alpha,
+    # lora_dropout, target_modules), which are no trainer settings here
+    signature={"model_class": 8, "kernel_config": 6, "dist_config": 4, "sample_backend": 6,
                "train_dataset": 1, "peft_config": 1, "cutoff_len": 1, "micro_batch_size": 1,
-               "quant_config": 2},
+               "quant_config": 4},
     min_score=6,
 )
 
@@ -775,6 +819,9 @@ TORCHTUNE = Layout(
     builder_models=(
         (r"llama2_7b$", "meta-llama/Llama-2-7b-hf"), (r"llama2_13b$", "meta-llama/Llama-2-13b-hf"),
         (r"llama2_70b$", "meta-llama/Llama-2-70b-hf"),
+        # models/code_llama2/_model_builders.py: max_seq_len 16384
+        (r"code_llama2_7b$", "codellama/CodeLlama-7b-hf"), (r"code_llama2_13b$", "codellama/CodeLlama-13b-hf"),
+        (r"code_llama2_70b$", "codellama/CodeLlama-70b-hf"),
         (r"llama3_8b$", "meta-llama/Meta-Llama-3-8B"), (r"llama3_70b$", "meta-llama/Meta-Llama-3-70B"),
         (r"llama3_1_8b$", "meta-llama/Llama-3.1-8B"), (r"llama3_1_70b$", "meta-llama/Llama-3.1-70B"),
         (r"llama3_1_405b$", "meta-llama/Llama-3.1-405B"),
@@ -793,7 +840,10 @@ TORCHTUNE = Layout(
         (r"qwen2_5_32b_base$", "Qwen/Qwen2.5-32B"), (r"qwen2_5_32b_instruct$", "Qwen/Qwen2.5-32B-Instruct"),
         (r"qwen2_5_72b_base$", "Qwen/Qwen2.5-72B"), (r"qwen2_5_72b_instruct$", "Qwen/Qwen2.5-72B-Instruct"),
         (r"qwen2_0_5b$", "Qwen/Qwen2-0.5B"), (r"qwen2_1_5b$", "Qwen/Qwen2-1.5B"), (r"qwen2_7b$", "Qwen/Qwen2-7B"),
-        (r"qwen3_0_6b_(base|instruct)$", "Qwen/Qwen3-0.6B"),
+        # models/qwen3/_model_builders.py (torchtune main): 0.6B-14B base and instruct, 32B
+        (r"qwen3_0_6b_(base|instruct)$", "Qwen/Qwen3-0.6B"), (r"qwen3_1_7b_(base|instruct)$", "Qwen/Qwen3-1.7B"),
+        (r"qwen3_4b_(base|instruct)$", "Qwen/Qwen3-4B"), (r"qwen3_8b_(base|instruct)$", "Qwen/Qwen3-8B"),
+        (r"qwen3_14b_(base|instruct)$", "Qwen/Qwen3-14B"), (r"qwen3_32b$", "Qwen/Qwen3-32B"),
     ),
     model_dir="checkpointer.checkpoint_dir",
     module_names={"q_proj": "q_proj", "k_proj": "k_proj", "v_proj": "v_proj",
@@ -864,6 +914,14 @@ ACCELERATE = Layout(
 PEFT_BENCH = Layout(
     name="peft-bench",
     title="PEFT method-comparison training parameters (defaults and per-experiment overrides)",
+    # PEFT method_comparison/MetaMathQA: run.py takes ./experiments/<peft-method>/<experiment-name>;
+    # utils.py get_train_config reads the default params, then {**default, **experiment}; main():
+    # "Could not find PEFT config at {path}, performing FULL FINETUNING" without adapter_config.json
+    experiment_root="experiments",
+    experiment_defaults=("default_training_params.json", "experiments/default_training_params.json"),
+    experiment_adapter="adapter_config.json",
+    reads="an experiment's training_params.json over the default training params (top-level keys replace); "
+          "the method from the adapter_config.json beside it (none: full fine-tuning)",
     fields={
         "model.ref": ("=model_id",),
         "model.dtype": ("=dtype",),

@@ -21,7 +21,8 @@ from typing import Any
 from . import load as loadmod
 from .defaults import DEFAULTS
 from .load import LoadError
-from .view import Field, RunView, build_view
+from .layouts import LAYOUTS
+from .view import Field, RunView, build_view, detect_layout
 
 _DISTRIBUTED_WORDS = {"DEEPSPEED": "DeepSpeed", "FSDP": "FSDP", "MULTI_GPU": "data parallel (DDP)",
                       "NO": "one process", "MEGATRON_LM": "Megatron-LM", "XLA": "XLA"}
@@ -294,6 +295,34 @@ def _apply_defaults(view: RunView) -> None:
             _supply(view, d.field, value, "default", d.note)
 
 
+def _experiment_method(view: RunView, file: str) -> None:
+    """The method of a runner's experiment folder: the adapter its config file there names (its
+    settings supplied as linked), or, with none, every weight trains (the runner's own rule)."""
+    lay = view.layout
+    if not lay.experiment_adapter or view.method is not None or file.startswith("<"):
+        return
+    folder = Path(file).absolute().parent
+    if len(folder.parents) < 2 or folder.parents[1].name != lay.experiment_root:
+        return
+    adapter = folder / lay.experiment_adapter
+    try:
+        present = adapter.is_file()
+        docs = loadmod.load_text(loadmod.read_source(adapter).text, str(adapter)) if present else []
+    except (OSError, ValueError, LoadError):
+        return  # unreadable: the method stays unknown (the adapter file is reported on its own)
+    if not present:
+        view.method, view.method_stated = "full", True
+        return
+    sub = build_view(docs[0]) if docs else None
+    if sub is None or sub.layout is None or sub.layout.role != "adapter" or sub.method is None:
+        return
+    view.method, view.method_stated = sub.method, True
+    for name in ("adapter.rank", "adapter.alpha", "adapter.rslora", "adapter.targets", "adapter.dora"):
+        f = sub.get(name)
+        if f is not None and f.value is not None:
+            _supply(view, name, f.value, "linked", f"{f.key} in {adapter}")
+
+
 def _apply_linked(view: RunView) -> None:
     for sub in view.attached:
         if sub.layout is None or sub.layout.role != "engine":
@@ -315,6 +344,15 @@ def _apply_launch(view: RunView, launch: LaunchContext) -> None:
         _supply(view, "precision.mixed", mp, "launch", f"mixed precision {mp} from {launch.mixed_precision_from or where}")
     if launch.offload_optimizer:
         _supply(view, "runtime.offload_optimizer", True, "launch", f"optimizer offload in {where}")
+    if launch.activation_checkpointing is True:  # FSDP's own checkpointing, beside the trainer's
+        _supply(view, "runtime.fsdp_checkpointing", True, "launch", f"fsdp_activation_checkpointing in {where}")
+    for sub in launch.views:  # what the launch file sets for the run of this config
+        if sub.layout is None or sub.layout.role != "launch":
+            continue
+        for name in ("runtime.fsdp_wrap", "runtime.zero3_save_16bit"):
+            f = sub.get(name)
+            if f is not None and f.value is not None:
+                _supply(view, name, f.value, "launch", f"{f.key} in {sub.doc.name}")
     for sub in launch.views:  # a DeepSpeed file the run is started with is checked like a linked one
         if sub.layout is not None and sub.layout.role == "engine" and sub not in view.attached \
                 and all(a.doc.name != sub.doc.name for a in view.attached):
@@ -378,6 +416,7 @@ def open_view(view: RunView, file: str, options: Any = None) -> OpenedRun:
     view.run = run
     if view.layout is None:
         return run
+    _experiment_method(view, file)
     _apply_launch(view, launch)
     _apply_linked(view)
     _apply_defaults(view)
@@ -414,12 +453,35 @@ def composed(doc: Any, file: str, options: Any) -> tuple[Any, str]:
     located = script_layer(file, options)
     # list-valued overrides make a sweep of runs (sweep.py): only the fixed ones compose here
     overrides = tuple(split_overrides(tuple(getattr(options, "overrides", ()) or ()))[0])
-    if not (overrides or located is not None or compose.composes(doc.data)) or file.startswith("<"):
+    if file.startswith("<"):
         return doc, ""
-    try:
-        return compose.compose(doc, file, overrides, located=located), ""
-    except compose.ComposeError as exc:
-        return doc, str(exc)
+    if overrides or located is not None or compose.composes(doc.data):
+        try:
+            doc = compose.compose(doc, file, overrides, located=located)
+        except compose.ComposeError as exc:
+            return doc, str(exc)
+    return _over_runner_defaults(doc, file), ""
+
+
+# layouts whose runner reads an experiment folder over its own defaults file
+_EXPERIMENT_LAYOUTS = tuple(lay for lay in LAYOUTS if lay.experiment_root)
+
+
+def _over_runner_defaults(doc: Any, file: str) -> Any:
+    """DOC read over its runner's defaults file, when it is an experiment of such a runner."""
+    from . import compose
+
+    for lay in _EXPERIMENT_LAYOUTS:
+        base = compose.experiment_base(file, lay.experiment_root, lay.experiment_defaults)
+        if base is None:
+            continue
+        try:  # an experiment may write a single setting: the composed run says what it is
+            out = compose.compose_over_defaults(doc, file, base)
+        except compose.ComposeError:
+            continue  # the defaults file is not readable: it is reported on its own
+        if detect_layout(out.data)[0] is lay:
+            return out
+    return doc
 
 
 def open_documents(docs: list, file: str, options: Any = None, layout: str | None = None) -> list[OpenedRun]:

@@ -3,7 +3,8 @@
 A sweep file is recognised by a top-level ``parameters:`` mapping whose entries say how a
 setting varies (``values: [...]``, ``value: x``, ``min:``/``max:``) beside the sweep's own keys
 (``method``, ``program``, ``metric``, ``command``) — the shape of W&B sweep configurations — or
-by list-valued overrides (``key=a,b,c``, the multirun syntax of Hydra-style launchers).
+by list-valued overrides (``key=a,b,c``, the multirun syntax of Hydra-style launchers), or by the
+grid a config gives Hydra's multirun itself (``hydra.sweeper.params``, ``hydra_grid``).
 Each parameter contributes its candidate values (``min``/``max``: both ends); the runs are their
 product. All runs are linted when there are at most ``ALL_UP_TO`` of them; otherwise the two
 extreme runs (every parameter at its first / its last candidate), each parameter's ends with the
@@ -33,14 +34,27 @@ _SWEEP_KEYS = {"method", "program", "metric", "command", "early_terminate", "run
 _SPEC_KEYS = {"values", "value", "min", "max", "distribution"}
 
 
+def _flat(params: dict, prefix: str = "", path: tuple = ("parameters",), depth: int = 0):
+    """(dotted name, spec, key path of the spec): a nested ``parameters:`` block (a parameter
+    whose spec is itself ``{parameters: {...}}``) names the settings inside it as ``outer.inner``."""
+    for key, spec in params.items():
+        name, at = f"{prefix}{key}", path + (key,)
+        inner = spec.get("parameters") if isinstance(spec, dict) else None
+        if isinstance(inner, dict) and inner and not set(spec) & _SPEC_KEYS and depth < 4:
+            yield from _flat(inner, name + ".", at + ("parameters",), depth + 1)
+        else:
+            yield name, spec, at
+
+
 def is_sweep(data: Any) -> bool:
     if not isinstance(data, dict):
         return False
     params = data.get("parameters")
     if not isinstance(params, dict) or not params:
         return False
-    specs = [v for v in params.values() if isinstance(v, dict) and set(v) & _SPEC_KEYS]
-    return bool(specs) and (bool(set(data) & _SWEEP_KEYS) or len(specs) == len(params))
+    flat = list(_flat(params))
+    specs = [v for _n, v, _p in flat if isinstance(v, dict) and set(v) & _SPEC_KEYS]
+    return bool(specs) and (bool(set(data) & _SWEEP_KEYS) or len(specs) == len(flat))
 
 
 def _candidates(spec: Any) -> list[tuple[Any, tuple]]:
@@ -98,20 +112,26 @@ def _copy(data: Any) -> Any:
     return data
 
 
+def _config_path(word: Any, file: str) -> str | None:
+    """The config file WORD names, beside the sweep file, when it exists."""
+    if not isinstance(word, str) or not word.strip().lower().endswith((".yaml", ".yml", ".json")):
+        return None
+    path = Path(file).parent / word.strip()
+    try:
+        return str(path) if path.is_file() else None
+    except (OSError, ValueError):
+        return None
+
+
 def _base_config(doc: Document, file: str) -> str | None:
     command = doc.data.get("command")
     items = command if isinstance(command, list) else [command] if isinstance(command, str) else []
     for item in items:
         if isinstance(item, str):
             for word in item.split():
-                word = word.split("=", 1)[-1]
-                if word.lower().endswith((".yaml", ".yml", ".json")):
-                    path = Path(file).parent / word
-                    try:
-                        if path.is_file():
-                            return str(path)
-                    except (OSError, ValueError):
-                        continue
+                found = _config_path(word.split("=", 1)[-1], file)
+                if found is not None:
+                    return found
     return None
 
 
@@ -133,16 +153,56 @@ def split_overrides(overrides) -> tuple[list[str], list[tuple[str, list]]]:
     return fixed, varying
 
 
+def hydra_grid(doc: Document) -> tuple[list[str], list[list[tuple[Any, Any]]]]:
+    """The grid a config defines for Hydra's multirun (Hydra 1.2+, ``hydra.sweeper.params``:
+    ``key: a,b,c`` or ``key: choice(a,b)``): (names, candidates located at the param's line);
+    empty when the config defines none."""
+    from .compose import override_value
+
+    data = doc.data if isinstance(doc.data, dict) else {}
+    hydra = data.get("hydra")
+    sweeper = hydra.get("sweeper") if isinstance(hydra, dict) else None
+    params = sweeper.get("params") if isinstance(sweeper, dict) else None
+    names: list[str] = []
+    cands: list[list[tuple[Any, Any]]] = []
+    for key, raw in (params.items() if isinstance(params, dict) else ()):
+        if not isinstance(key, str):
+            continue
+        text = str(raw).strip() if isinstance(raw, (str, int, float)) and not isinstance(raw, bool) else ""
+        if text.startswith("choice(") and text.endswith(")"):
+            text = text[len("choice("):-1]
+        if not text or "(" in text or "," not in text:
+            continue  # one value, or a range()/interval() this reader does not expand
+        entry = doc.entries.get(("hydra", "sweeper", "params", key))
+        names.append(key.lstrip("+"))
+        cands.append([(override_value(part.strip()), entry) for part in text.split(",")])
+    return names, cands
+
+
+def lint_hydra_grid(base_doc: Document, file: str, names, cands, run, report, layout: str | None = None) -> None:
+    """Lint the runs of the config's own multirun grid over the config itself."""
+    lint_runs(base_doc, file, names, cands, base_doc, file, run, report, layout)
+
+
 def lint_sweep(doc: Document, file: str, run, report, layout: str | None = None) -> None:
     """Lint the runs of the sweep file DOC into REPORT (an engine FileReport)."""
-    params = doc.data["parameters"]
-    names = [str(k) for k in params]
+    flat = list(_flat(doc.data["parameters"]))
+    names = [str(n) for n, _spec, _at in flat]
     cands = []
-    for k in params:
-        cands.append([(value, doc.entries.get(("parameters", k) + inner) or doc.entries.get(("parameters", k)))
-                      for value, inner in _candidates(params[k])])
+    for _n, spec, at in flat:
+        cands.append([(value, doc.entries.get(at + inner) or doc.entries.get(at))
+                      for value, inner in _candidates(spec)])
     base_doc = None
     base_file = _base_config(doc, file)
+    if base_file is None:
+        # a parameter with one value that names an existing config file (``config: {value:
+        # base.yaml}``): the program is given the file, so it is the runs' base, not a setting
+        for i, (_n, spec, _at) in enumerate(flat):
+            if isinstance(spec, dict) and set(spec) == {"value"}:
+                base_file = _config_path(spec["value"], file)
+                if base_file is not None:
+                    del names[i], cands[i]
+                    break
     if base_file is not None:
         from . import compose
         from . import load as loadmod

@@ -112,6 +112,15 @@ class RunView:
 
 # --------------------------------------------------------------------------- detection
 
+_CAMEL = re.compile(r"(?<=[a-z0-9])(?=[A-Z])")
+
+
+def section_word(key: str) -> str:
+    """A section name as the tables spell it: lower case, CamelCase split (TrainingArguments ->
+    training_arguments), dashes as underscores."""
+    return _CAMEL.sub("_", key).lower().replace("-", "_")
+
+
 def _score(layout: Layout, data: dict) -> int:
     names = set(data)
     for section, prefixes in layout.sections.items():
@@ -123,7 +132,25 @@ def _score(layout: Layout, data: dict) -> int:
                 names.update(p + str(key) for p in prefixes)
                 if key in local and section not in layout.restricted_sections:
                     names.add(local[key])
+    if layout.search_all_sections:  # sections named as the author likes, nested too
+        _score_nested(layout, data, names, 0)
     return sum(layout.signature.get(k, 0) for k in names if isinstance(k, str))
+
+
+def _score_nested(layout: Layout, mapping: dict, names: set, depth: int) -> None:
+    for key, value in mapping.items():
+        if not isinstance(key, str) or not isinstance(value, dict) or depth >= _MAX_SECTION_DEPTH - 1:
+            continue
+        word = section_word(key)
+        if word in layout.foreign_sections or word in layout.restricted_sections:
+            continue
+        local = layout.section_names.get(word, {})
+        for sub in value:
+            if isinstance(sub, str):
+                names.add(sub)
+                if sub.lower() in local:
+                    names.add(local[sub.lower()])
+        _score_nested(layout, value, names, depth + 1)
 
 
 NOT_READ_YET = "not a format cfgcheck reads (yet)"
@@ -182,6 +209,8 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
     best, best_score = None, 0
     for layout in LAYOUTS:
         s = _score(layout, data)
+        if s >= layout.min_score and layout.extends and top & layout.extends_marks:
+            s += _score(BY_NAME[layout.extends], data)
         if s >= layout.min_score and s > best_score:
             best, best_score = layout, s
     if best is None:
@@ -218,8 +247,8 @@ def _index(layout: Layout, data: dict) -> dict[str, list[tuple]]:
             if not isinstance(key, str):
                 continue
             path = base + (key,)
-            if key in local:
-                put(local[key], path)
+            if key.lower() in local:
+                put(local[key.lower()], path)
             if not restricted:
                 put(key, path)
                 for pre in prefixes:
@@ -229,7 +258,7 @@ def _index(layout: Layout, data: dict) -> dict[str, list[tuple]]:
                 put(key, path)  # a full name of an evaluation or checkpoint setting is that setting
             if not isinstance(value, dict) or len(base) >= _MAX_SECTION_DEPTH - 1:
                 continue
-            lowered = key.lower()
+            lowered = section_word(key)
             if lowered in layout.foreign_sections:
                 continue
             named = key in layout.sections or lowered in layout.section_names
@@ -385,7 +414,7 @@ def _model_from_builder(view: RunView, layout: Layout, data: dict) -> None:
         last = builder.value.rsplit(".", 1)[-1]
         base = re.sub(r"^q?lora_", "", last)
         for pattern, ref in layout.builder_models:
-            if re.search(pattern, base):
+            if re.match(pattern, base):  # the whole name: code_llama2_7b is not llama2_7b
                 view.fields["model.ref"] = Field(
                     name="model.ref", value=ref, path=builder.path, written=builder.written,
                     note=f"{ref}: the model the builder {last} builds")
@@ -393,8 +422,12 @@ def _model_from_builder(view: RunView, layout: Layout, data: dict) -> None:
     if layout.model_dir:
         path = tuple(layout.model_dir.split("."))
         found, written = _walk(data, path)
-        if found and isinstance(written, str) and written.strip():
-            view.fields["model.ref"] = Field(name="model.ref", value=written.strip(), path=path,
+        value = written
+        if found and layout.interpolates:
+            resolved, target = resolve_interpolation(data, written)
+            value = target if resolved else written
+        if found and isinstance(value, str) and value.strip() and "${" not in value:
+            view.fields["model.ref"] = Field(name="model.ref", value=value.strip(), path=path,
                                              written=written, note="the checkpoint folder (its config.json)")
 
 

@@ -23,8 +23,8 @@ def _version(v: str) -> tuple[int, ...]:
 
 
 def test_layouts_are_the_library_kinds_and_the_recipe_runners():
-    assert layouts() == ("accelerate", "axolotl", "deepspeed", "llama-factory", "peft-adapter",
-                         "torchtune", "trainer")
+    assert layouts() == ("accelerate", "axolotl", "deepspeed", "llama-factory", "llama-factory-v1",
+                         "peft-adapter", "torchtune", "trainer")
 
 
 def test_unknown_layout_is_a_clear_error():

@@ -26,6 +26,8 @@ MODEL_STYLES = [
     {"model_args": {"model_name_or_path": MODEL}},
     {"model_arguments": {"model_id": MODEL}},
     {"model": MODEL},
+    {"model": {"model_name": MODEL}},
+    {"model_config": {"model_path": MODEL}},
 ]
 SCHEDULE_STYLES = [
     {"lr_scheduler_type": "constant", "warmup_steps": 100},
@@ -33,6 +35,9 @@ SCHEDULE_STYLES = [
     {"scheduler": {"name": "constant", "num_warmup_steps": 100}},
     {"lr_schedule": {"lr_scheduler_type": "constant", "warmup_steps": 100}},
     {"training": {"lr_scheduler_type": "constant", "warmup_steps": 100}},
+    {"optim": {"scheduler": "constant", "num_warmup_steps": 100}},
+    {"scheduler_config": {"type": "constant", "warmup_steps": 100}},
+    {"lr_scheduler_type": "constant", "num_warmup_steps": 100},
 ]
 OPTIM_STYLES = [
     {"learning_rate": 1.0e-4},
@@ -41,6 +46,9 @@ OPTIM_STYLES = [
     {"optimization": {"lr": 1.0e-4}},
     {"hyperparameters": {"learning_rate": 1.0e-4}},
     {"trainer": {"lr": 1.0e-4}},
+    {"config": {"lr": 1.0e-4}},
+    {"params": {"lr": 1.0e-4}},
+    {"optimizer_config": {"lr": 1.0e-4}},
 ]
 BATCH_STYLES = [
     {"per_device_train_batch_size": 4, "max_seq_length": 8192},

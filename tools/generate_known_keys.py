@@ -41,10 +41,13 @@ The recipe runners (axolotl, LLaMA-Factory, torchtune) are scanned at one releas
   settings models in ``axolotl/integrations/*/args.py``;
 * ``llama-factory`` - dataclass fields of the argument classes ``get_train_args`` parses
   (``llamafactory/hparams/*.py``); its ``TrainingArguments`` derives from transformers', so
-  the transformers keys count too;
+  the transformers keys count too; ``llama-factory-v1``: the v1 trainer's own argument classes
+  (``llamafactory/v1/config/*_args.py``), a closed set;
 * ``torchtune``     - the keys the recipes (``recipes/*.py``) read from their config
   (``cfg.x``, ``cfg.get("x")``), and the parameters of every public function and class of the
-  package, the ``_component_`` targets whose sub-keys are their arguments.
+  package, the ``_component_`` targets whose sub-keys are their arguments; and the parameters
+  of ``torch.optim`` (``optimizer: {_component_: torch.optim.AdamW}``), read from the installed
+  torch of the version pyproject.toml pins (``TORCH_VERSION``), located without importing it.
 
 Usage (from the repository root; needs pip and network access to PyPI)::
 
@@ -865,6 +868,26 @@ def scan_llamafactory(pkg: Package) -> tuple[Found, list[str]]:
     return found, files
 
 
+def scan_llamafactory_v1(pkg: Package) -> tuple[Found, list[str]]:
+    """LLaMA-Factory's v1 trainer: the dataclasses ``llamafactory/v1/config/arg_parser.py`` get_args
+    parses with HfArgumentParser.parse_dict (extra keys refused unless ALLOW_EXTRA_KEYS is set)."""
+    found: Found = {}
+    files = []
+    for modname, clsname in [
+        ("llamafactory.v1.config.model_args", "ModelArguments"),
+        ("llamafactory.v1.config.data_args", "DataArguments"),
+        ("llamafactory.v1.config.training_args", "TrainingArguments"),
+        ("llamafactory.v1.config.sample_args", "SampleArguments"),
+    ]:
+        mod = pkg.module(modname)
+        if mod is None or clsname not in mod.classes:
+            raise SystemExit(f"no v1 {clsname} in the llamafactory archive")
+        for name, (declaring, _m, _a, _v) in all_fields(pkg, mod, mod.classes[clsname]).items():
+            add(found, name, f"llamafactory.v1.{declaring.name}")
+        files.append(f"{pkg.by_name[modname]} {clsname}")
+    return found, files
+
+
 def _signature(node: ast.FunctionDef | ast.ClassDef, pkg: Package, mod: Module, depth: int = 0):
     """(parameter names, takes **kwargs) of a function, or of a class's __init__."""
     if isinstance(node, ast.ClassDef):
@@ -932,6 +955,13 @@ def scan_torchtune(pkg: Package, recipes: dict[str, str]) -> tuple[Found, list[s
         hit = pkg.lookup(modname, name)
         return hit if hit and hit[0] in ("class", "function") else None
 
+    components = _components(pkg, partials, resolve)
+    return found, ["recipes/*.py (keys read from the recipe config)", "torchtune/**.py (component parameters)"], components
+
+
+def _components(pkg: Package, partials: dict, resolve) -> dict[str, dict]:
+    """{public name: {params, open}} for every public function and class of PKG."""
+    components: dict[str, dict] = {}
     for modname in sorted(pkg.by_name):
         if any(part.startswith("_") for part in modname.split(".")):
             continue
@@ -951,7 +981,41 @@ def scan_torchtune(pkg: Package, recipes: dict[str, str]) -> tuple[Found, list[s
                 continue
             params, varkw = sig
             components[f"{modname}.{name}"] = {"params": sorted(set(params)), "open": varkw}
-    return found, ["recipes/*.py (keys read from the recipe config)", "torchtune/**.py (component parameters)"], components
+    return components
+
+
+# The optimizers and schedulers component recipes name (``optimizer: {_component_: torch.optim.AdamW}``):
+# read from the torch the project pins (pyproject.toml), located without importing it.
+TORCH_VERSION = "2.13.0"
+
+
+def scan_torch_optim() -> tuple[dict[str, dict], str]:
+    import importlib.util
+    import re
+
+    spec = importlib.util.find_spec("torch")  # finds the installed package; runs none of it
+    if spec is None or not spec.submodule_search_locations:
+        raise SystemExit("torch is not installed; install the pinned torch to scan torch.optim")
+    root = Path(list(spec.submodule_search_locations)[0])
+    found = re.search(r"__version__\s*=\s*'([^'+]+)", (root / "version.py").read_text(encoding="utf-8"))
+    if not found or found.group(1) != TORCH_VERSION:
+        raise SystemExit(f"torch {found.group(1) if found else '?'} is installed; the scan reads {TORCH_VERSION}")
+    sources = {f"torch/optim/{p.relative_to(root / 'optim').as_posix()}": p.read_text(encoding="utf-8")
+               for p in sorted((root / "optim").rglob("*.py"))}
+    pkg = Package(sources)
+
+    def resolve(modname: str, name: str, depth: int = 0):
+        mod = pkg.module(modname)
+        if mod is None or depth > 5:
+            return None
+        if name in mod.imports:
+            src, orig = mod.imports[name]
+            if src in pkg.by_name:
+                return resolve(src, orig, depth + 1)
+        hit = pkg.lookup(modname, name)
+        return hit if hit and hit[0] in ("class", "function") else None
+
+    return _components(pkg, {}, resolve), f"torch {TORCH_VERSION} torch/optim/**.py (installed; optimizer and scheduler parameters)"
 
 
 def read_recipes(archive: Path) -> dict[str, str]:
@@ -972,6 +1036,9 @@ def build_runners(cache: Path, offline: bool) -> dict:
         components = None
         if lib == "torchtune":
             found, files, components = scan_torchtune(pkg, read_recipes(archive))
+            optim, where = scan_torch_optim()
+            components.update(optim)
+            files = files + [where]
         else:
             found, files = {"axolotl": scan_axolotl, "llamafactory": scan_llamafactory}[lib](pkg)
         print(f"{lib} {version}: {len(found)} keys", file=sys.stderr)
@@ -987,6 +1054,12 @@ def build_runners(cache: Path, offline: bool) -> dict:
         if components is not None:
             entry["components"] = dict(sorted(components.items()))
         layouts[RUNNER_LAYOUT[lib]] = entry
+        if lib == "llamafactory":  # the v1 trainer in the same release: its own closed argument set
+            found, files = scan_llamafactory_v1(pkg)
+            print(f"{lib} {version} v1: {len(found)} keys", file=sys.stderr)
+            layouts["llama-factory-v1"] = {
+                "source": f"{lib} {version} (wheel from PyPI)", "files": files, "closed": True,
+                "keys": {k: sorted(v) for k, v in sorted(found.items())}}
     return {"format": 1, "generated_by": "tools/generate_known_keys.py", "layouts": layouts}
 
 

@@ -100,7 +100,7 @@ def cadence_longer_than_run(ctx) -> None:
         return
     for f, strategy_name, what in intervals:
         if strategy_name:
-            strategy = view.value(strategy_name)
+            strategy = view.effective_value(strategy_name)  # written, or the runner's own
             if isinstance(strategy, str) and strategy.lower() in ("no", "epoch", "best"):
                 continue
             if strategy is None and what == "evaluation":

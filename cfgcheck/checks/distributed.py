@@ -117,6 +117,15 @@ def zero3_save(ctx) -> None:
         if own.value is False:
             ctx.report(own, "launcher", key=own.key, stage_key=stage.key)
         return
+    launched = view.effective("runtime.zero3_save_16bit")
+    launched_stage = view.effective("runtime.zero_stage")
+    if own is None and launched is not None and launched.origin == "launch" and launched.value is False \
+            and launched_stage is not None and launched_stage.value == 3 and view.method is not None:
+        # the launch file this run starts with: its ZeRO-3 saves this config's model ungathered
+        key, _, where = launched.note.partition(" in ")
+        ctx.report(launched, "written", ds_file=where, ds_key=key,
+                   method="full fine-tune" if view.method == "full" else "run")
+        return
     launcher = view.get("runtime.distributed")
     if stage is not None and stage.value == 3 and own is None and view.get("runtime.deepspeed") is None \
             and launcher is not None and isinstance(launcher.value, str) \
@@ -304,12 +313,13 @@ def quant_storage(ctx) -> None:
 @check("fsdp-and-trainer-checkpointing-both-on")
 def fsdp_double_checkpointing(ctx) -> None:
     view = ctx.view
-    gc, ac = view.get("runtime.gradient_checkpointing"), view.get("runtime.fsdp_checkpointing")
+    # FSDP's checkpointing: written here, or in the launch file the run starts with
+    gc, ac = view.get("runtime.gradient_checkpointing"), view.effective("runtime.fsdp_checkpointing")
     if gc is None or ac is None or gc.value is not True or ac.value is not True or gc.path == ac.path:
         return
     fix = Fix(tier="changes-training", summary=f"{gc.key}: true -> false (FSDP checkpoints the layers)",
               edits=(Edit(path=gc.path, old=gc.written, new=False),))
-    ctx.report(gc, fix=fix, key=gc.key, fsdp_key=ac.key)
+    ctx.report(gc, fix=fix, key=gc.key, fsdp_key=ac.key or ac.note)
 
 
 # The decoder layer class of each model family (transformers models/<family>/modeling_<family>.py);
@@ -332,7 +342,7 @@ def _other_family(name: str, own: str) -> bool:
 @check("fsdp-wrap-class-not-in-model")
 def fsdp_wrap_class(ctx) -> None:
     view = ctx.view
-    f = view.get("runtime.fsdp_wrap")
+    f = view.effective("runtime.fsdp_wrap")  # written here, or in the launch file of the run
     if f is None or f.value is None:
         return
     names = [n.strip() for n in (f.value.split(",") if isinstance(f.value, str) else f.value) if n.strip()]
@@ -355,10 +365,10 @@ def fsdp_wrap_class(ctx) -> None:
     if not all(_other_family(n, own) for n in names):
         return
     fix = None
-    if isinstance(f.written, str) and len(names) == 1:
+    if isinstance(f.written, str) and len(names) == 1 and f.origin == "written":
         fix = Fix(tier="changes-training", summary=f"{f.key}: {f.written} -> {want}",
                   edits=(Edit(path=f.path, old=f.written, new=want),))
-    ctx.report(f, fix=fix, key=f.key, written=", ".join(names), family=arch.family, layer=want)
+    ctx.report(f, fix=fix, key=f.key or f.note, written=", ".join(names), family=arch.family, layer=want)
 
 
 # --------------------------------------------------------------------------- device placement

@@ -15,13 +15,21 @@ def _wanted(view):
     out = []
     for name in ("precision.bf16",):
         f = view.get(name)
+        if f is None:  # not written: the runner's own default, where it turns bf16 on
+            d = view.effective(name)
+            f = d if d is not None and d.origin == "default" else None
         if f is not None and f.value is True:
             out.append(("bf16", f))
     for name in ("model.dtype", "quant.compute_dtype"):
         f = view.get(name)
         if f is not None and isinstance(f.value, str) and f.value.strip().lower() in _BF16_WORDS:
             out.append(("bf16", f))
+    # the launcher's mixed precision: written here (an accelerate file), or from the launch
+    # context the run is started with (a launch file or script)
     f = view.get("precision.mixed")
+    if f is None or f.value is None:
+        f = view.effective("precision.mixed")
+        f = f if f is not None and f.origin == "launch" else None
     if f is not None and isinstance(f.value, str):
         word = f.value.strip().lower()
         if word in _BF16_WORDS:
@@ -99,6 +107,8 @@ def _bf16_fix(view, fields, gpu):
     edits: list[Edit] = []
     words: list[str] = []
     turned_fp16 = False
+    if any(not f.path for f in fields):
+        return None  # a default or a launch file's value: nothing written here to change
     for f in fields:
         if f.name == "precision.bf16":
             edits.append(Edit(path=f.path, old=f.written, new=False))
@@ -114,7 +124,8 @@ def _bf16_fix(view, fields, gpu):
                 edits.append(Edit(path=fp.path, old=fp.written, new=False))
                 words.append(f"{fp.key}: true -> false")
         elif f.name == "precision.mixed":
-            if plan != "fp16":
+            if plan != "fp16" or f.origin != "written":  # fp32 is "no", which we do not guess;
+                return None  # a launch file's value is fixed in that file, not here
                 return None  # a launcher's mixed precision: fp32 is "no", which we do not guess
             edits.append(Edit(path=f.path, old=f.written, new="fp16"))
             words.append(f"{f.key}: {f.written} -> fp16")
@@ -191,8 +202,8 @@ def precision_vs_gpu(ctx) -> None:
                           "dynamic loss scaling on and watch the loss for inf/NaN (fp16 overflows "
                           "above 65504)")
             fix = _bf16_fix(view, bf16, gpu)
-            extra = dict(also="".join(f" and {o.key}" for o in others),
-                         also_keys=[o.key for o in others])
+            extra = dict(also="".join(f" and {o.key or o.note}" for o in others),
+                         also_keys=[o.key or o.note for o in others])
         elif feature == "fp8":
             suits = "bf16" if gpu.supports("bf16") else "fp16"
         elif feature == "tf32":
@@ -200,8 +211,8 @@ def precision_vs_gpu(ctx) -> None:
             fix = _fix_for(feature, f, gpu, view)
         else:
             suits = "attn_implementation: sdpa"
-        ctx.report(f, feature, fix=fix, related=[o for o in bf16[1:]] if feature == "bf16" else (),
-                   key=f.key, feature=feature, gpu=gpu.label, capability=gpu.capability_text,
+        ctx.report(f, feature, fix=fix, related=[o for o in bf16[1:] if o.path] if feature == "bf16" else (),
+                   key=f.key or f.note, feature=feature, gpu=gpu.label, capability=gpu.capability_text,
                    needed=f"{need[0]}.{need[1]}", suits=suits, source=source, **extra)
 
 

@@ -115,16 +115,20 @@ def _global_batch(ctx, view, ds, name: str, defaults: bool) -> None:
     d = ds.get("batch.global")
     if d is None or d.auto or not isinstance(d.value, int) or isinstance(d.value, bool) or d.value <= 0:
         return
-    values = []
-    for ours in ("batch.per_device", "batch.accumulation"):
+    values, froms = [], []
+    for ours, hf_key in (("batch.per_device", "per_device_train_batch_size"),
+                         ("batch.accumulation", "gradient_accumulation_steps")):
         f = view.get(ours)
         if f is not None and isinstance(f.value, int) and not f.auto and f.value > 0:
             values.append(f.value)
+            froms.append(f.key)  # which key, where train and eval batches are both written
         elif f is None and defaults and ours in TRAINER_DEFAULTS:
             values.append(TRAINER_DEFAULTS[ours])
+            froms.append(f"{hf_key} default")
         else:
             return
     pd, ga = values
+    sources = dict(per_device_from=froms[0], accumulation_from=froms[1])
     gpus, gpus_f = ctx.num_gpus
     at = view.get("runtime.deepspeed") or view.get("batch.per_device")
     if ds.doc.name == view.doc.name and isinstance(view.doc.data, dict) \
@@ -135,8 +139,8 @@ def _global_batch(ctx, view, ds, name: str, defaults: bool) -> None:
         if expected != d.value:
             run = ctx.run
             ctx.report(at, "global-batch", ds_file=name, ds_key=d.key, ds_value=d.value, per_device=pd,
-                       accumulation=ga, gpus=gpus, expected=expected,
+                       accumulation=ga, gpus=gpus, expected=expected, **sources,
                        gpus_from=gpus_f.key if gpus_f is not None else (run.gpus_from if run else "--gpus"))
     elif d.value % (pd * ga) != 0:
         ctx.report(at, "global-batch-no-gpus", ds_file=name, ds_key=d.key, ds_value=d.value,
-                   per_device=pd, accumulation=ga, product=pd * ga)
+                   per_device=pd, accumulation=ga, product=pd * ga, **sources)
