@@ -93,10 +93,17 @@ def _project(project: Any, paths: list):
     """None, or the project for ``project`` = "auto" (search), a path, or a Project."""
     if project is None or project is False:
         return None
+    if project == "auto":
+        from .projectfile import find_file  # cfgcheck.project only when a project file is found
+
+        found = find_file(paths[0] if paths else None)
+        if found is None:
+            return None
+        from .project import load
+
+        return load(found)
     from . import project as projectmod
 
-    if project == "auto":
-        return projectmod.discover(paths)
     if isinstance(project, projectmod.Project):
         return project
     return projectmod.load(project)

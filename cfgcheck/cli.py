@@ -112,19 +112,19 @@ def _fail(message: str, code: int) -> None:
 
 def _input_errors() -> tuple:
     """The exceptions that mean "your input is wrong" (exit 2); anything else is our bug (exit 3)."""
-    from .baseline import BaselineError
+    from .findings import BaselineError
     from .findings import OptionError
     from .knowledge.hardware import UnknownGpu
-    from .project import ProjectError
+    from .projectfile import ProjectError
 
     return (UnknownGpu, OptionError, ProjectError, BaselineError)
 
 
 def _input_message(exc: Exception) -> str:
     """A project or baseline error is already its own file:line:column: lines."""
-    from .baseline import BaselineError
+    from .findings import BaselineError
     from .findings import printable
-    from .project import ProjectError
+    from .projectfile import ProjectError
 
     if isinstance(exc, (ProjectError, BaselineError)):
         return str(exc)
@@ -232,10 +232,10 @@ def lint(
 ) -> None:
     """Check training configs and report what would waste the run."""
     from . import api
-    from .baseline import BaselineError
+    from .findings import BaselineError
     from .findings import OptionError, Severity, printable
     from .knowledge.hardware import UnknownGpu
-    from .project import ProjectError
+    from .projectfile import ProjectError
     from .render import render
 
     if quiet and summary:
@@ -267,9 +267,18 @@ def lint(
     try:
         proj = None
         if not no_project:
-            from . import project as projectmod
+            if project:
+                from .project import load as load_project
 
-            proj = projectmod.load(project) if project else projectmod.discover(paths or [])
+                proj = load_project(project)
+            else:
+                from .projectfile import find_file  # cfgcheck.project only when a file is found
+
+                found = find_file(paths[0] if paths else None)
+                if found is not None:
+                    from .project import load as load_project
+
+                    proj = load_project(found)
         if not paths and proj is None:
             paths = [Path(".")]  # no project file: the working folder
         report = api.lint(paths or [], project=proj, progress=progress, jobs=workers, keep_views=False,
@@ -614,15 +623,17 @@ def models(
 
 def main() -> None:
     from .fastcli import direct_arguments
+    from .memo import scope
 
-    kwargs = direct_arguments(sys.argv[1:], "lint", lint)  # plain `lint` lines skip typer's set-up
-    if kwargs is not None:
-        try:
-            lint(**kwargs)
-        except typer.Exit as exc:
-            sys.exit(exc.exit_code)
-        sys.exit(0)
-    app()
+    with scope():  # one command is one run: a folder's surroundings are looked up once
+        kwargs = direct_arguments(sys.argv[1:], "lint", lint)  # plain `lint` lines skip typer's set-up
+        if kwargs is not None:
+            try:
+                lint(**kwargs)
+            except typer.Exit as exc:
+                sys.exit(exc.exit_code)
+            sys.exit(0)
+        app()
 
 
 if __name__ == "__main__":

@@ -13,6 +13,7 @@ from pathlib import Path
 from typing import Any, Callable, Iterable, Iterator
 
 from . import load as loadmod
+from . import memo
 from .catalogue import Rule, load_catalogue
 from .checks import all_checks
 from .findings import FileReport, Finding, Fix, InputProblem, InternalError, Related, Report, Severity, shown_data
@@ -48,8 +49,26 @@ class Options:
 
 # --------------------------------------------------------------------------- the check context
 
+_DEFAULT_THRESHOLDS: dict[int, tuple[Rule, dict[str, Any]]] = {}  # id(rule) -> its record's values
+
+
+def _thresholds(rule: Rule, options: Options) -> dict[str, Any]:
+    """The rule's thresholds with the options' overrides; the record's own values are worked out
+    once per rule (checks only read them)."""
+    overrides = options.thresholds.get(rule.id)
+    if overrides:
+        return {name: overrides.get(name, rule.threshold(name)) for name in rule.thresholds}
+    got = _DEFAULT_THRESHOLDS.get(id(rule))
+    if got is None or got[0] is not rule:
+        got = _DEFAULT_THRESHOLDS[id(rule)] = (rule, {name: rule.threshold(name) for name in rule.thresholds})
+    return got[1]
+
+
 class Context:
     """What a check sees: the view, the knowledge, the options, and ``report``."""
+
+    __slots__ = ("view", "run", "waivers", "waiver_paths", "earlier", "active", "doc", "rule",
+                 "options", "_sink", "file", "thresholds", "_judged_once", "_model_assumption")
 
     def __init__(self, view: RunView, rule: Rule, options: Options, sink: list[Finding],
                  file: str, waivers: list | None = None, earlier: list[Finding] | None = None,
@@ -66,11 +85,8 @@ class Context:
         self.options = options
         self._sink = sink
         self.file = file
-        overrides = options.thresholds.get(rule.id, {})
-        self.thresholds = {
-            name: overrides.get(name, rule.threshold(name)) for name in rule.thresholds
-        }
-        self._judged_once: set[str] = set()
+        self.thresholds = _thresholds(rule, options)
+        self._judged_once: set[str] | None = None  # made on the first cannot_judge
         self._model_assumption = ""  # set when the rule asked for a model matched by name alone
 
     # knowledge --------------------------------------------------------------
@@ -129,7 +145,9 @@ class Context:
 
     def cannot_judge(self, what: str, **data: Any) -> None:
         """Say once, at info level, that the rule had too little to go on."""
-        if what in self._judged_once:
+        if self._judged_once is None:
+            self._judged_once = set()
+        elif what in self._judged_once:
             return
         self._judged_once.add(what)
         data = shown_data(data)
@@ -516,16 +534,18 @@ def lint_paths(paths: Iterable[str | Path], options: Options | None = None, *,
 def lint_files(pairs: list[tuple[str, Options]], *, jobs: int | str = 1,
                keep_views: bool = True) -> Iterator[FileReport]:
     """(file, options) pairs -> their reports, in order, each as soon as it is ready. ``jobs``:
-    a number of processes, or "auto" (the usable CPUs; serial for a short list of files)."""
-    if jobs != 1 and len(pairs) > 1:
-        from .parallel import lint_files_parallel, worker_count
+    a number of processes, or "auto" (the usable CPUs; serial for a short list of files). What
+    lies around the files (repository roots, pinned releases) is looked up once per folder."""
+    with memo.scope():
+        if jobs != 1 and len(pairs) > 1:
+            from .parallel import lint_files_parallel, worker_count
 
-        workers = worker_count(jobs, len(pairs))
-        if workers > 1:
-            yield from lint_files_parallel(pairs, workers, lint_file=lint_file, prepare=active_rules)
-            return
-    for path, opts in pairs:
-        report = lint_file(path, opts)
-        if not keep_views:
-            report.views = []
-        yield report
+            workers = worker_count(jobs, len(pairs))
+            if workers > 1:
+                yield from lint_files_parallel(pairs, workers, lint_file=lint_file, prepare=active_rules)
+                return
+        for path, opts in pairs:
+            report = lint_file(path, opts)
+            if not keep_views:
+                report.views = []
+            yield report

@@ -284,3 +284,11 @@ class Report:
     @property
     def baselined(self) -> int:
         return sum(fr.baselined for fr in self.files)
+
+
+class BaselineError(Exception):
+    """A baseline file that cannot be used (raised by cfgcheck.baseline), with its position."""
+
+    def __init__(self, file: str, reason: str, line: int = 1, column: int = 1):
+        self.file, self.reason, self.line, self.column = file, reason, line, column
+        super().__init__(f"{printable(file)}:{line}:{column}: baseline: {printable(reason)}")

@@ -71,6 +71,13 @@ class Layout:
     builder_models: tuple[tuple[str, str], ...] = ()
     # a dotted path whose value is the model's folder (its config.json), used when no builder maps
     model_dir: str = ""
+    # a key naming the kind of method the file describes, the kinds the field table is written
+    # for, and the fields read whatever the kind: PEFT's ``r`` and ``lora_alpha`` are LoRA's, while
+    # an OFT config's ``r`` counts blocks (0 when ``oft_block_size`` is set) and a prompt-tuning
+    # config has no rank at all
+    kind_key: str = ""
+    kinds_described: frozenset[str] = frozenset()
+    fields_for_any_kind: frozenset[str] = frozenset()
     # an experiment folder of the runner (``<experiments>/<method>/<name>/``): a file there is read
     # over the runner's defaults file (``experiment_defaults``, looked up from the folder above
     # ``<experiments>``, then inside it; a key the file writes replaces the default's whole value),
@@ -90,6 +97,9 @@ class Layout:
     # unset values take the transformers TrainingArguments defaults (batch 8, 3 epochs, eval
     # "no", save every 500 steps), because the file goes to TrainingArguments as it is
     trainer_defaults: bool = False
+    # the file is parsed only into the argument classes of its repository's own scripts (no
+    # transformers or TRL class among them): set when a run is opened, never in a table
+    read_by_own_classes: bool = False
     # scheduler, warm-up and max_steps/epochs keys reach the transformers Trainer with its meaning
     trainer_schedule: bool = False
     # word lists (schema.CONSTRAINTS ``word_list``) the layout's values are checked against
@@ -560,6 +570,13 @@ PEFT_ADAPTER = Layout(
         "adapter.tie": ("=ensure_weight_tying",),
         "adapter.loftq": ("=loftq_config",),
     },
+    # PEFT 0.21 tuners/lora/config.py LoraConfig (and AdaLoraConfig, its subclass) define the
+    # keys the table reads; other tuners (OFT, BOFT, VeRA, IA3, prompt tuning, ...) reuse some names
+    # with other meanings
+    kind_key="peft_type",
+    kinds_described=frozenset({"LORA", "ADALORA"}),
+    fields_for_any_kind=frozenset({"model.ref", "adapter.save_modules"}),
+    not_read="the LoRA fields of adapters of other PEFT types (peft_type OFT, VERA, PROMPT_TUNING, ...)",
     signature={"peft_type": 4, "base_model_name_or_path": 1, "task_type": 1, "r": 1,
                "lora_alpha": 1, "target_modules": 1, "fan_in_fan_out": 2, "inference_mode": 2},
     min_score=5,
@@ -956,6 +973,11 @@ NOT_TRAINING = {
     "compose": {"services", "volumes", "networks"},
     "pre-commit": {"repos"},
     "kubernetes": {"apiVersion", "kind", "metadata", "spec"},
+    # a W&B run's recorded config (wandb/run-*/files/config.yaml: each value as {desc, value})
+    "wandb-run-record": {"wandb_version", "_wandb"},
+    # transformers Trainer's trainer_state.json in a checkpoint folder (TrainerState.save_to_json)
+    "trainer-state": {"log_history", "global_step", "best_metric", "best_model_checkpoint",
+                      "is_world_process_zero", "is_local_process_zero", "total_flos"},
 }
 
 
@@ -974,7 +996,7 @@ class UnreadFormat:
     # keys of a top-level section that mark it ("trainer" -> Lightning's trainer arguments)
     section: str = ""
     # a special shape: "composed" (a defaults: list or _target_ nodes), "tuning-space" (lists of
-    # candidate values where DeepSpeed takes one value)
+    # candidate values where DeepSpeed takes one value), "class-path" (class_path / init_args)
     shape: str = ""
 
 
@@ -983,9 +1005,17 @@ BASE_FILE_KEYS = ("_base_", "base_config", "extends", "inherit_from", "base")
 
 UNREAD_FORMATS: tuple[UnreadFormat, ...] = (
     UnreadFormat(
+        name="megatron-lm", title="a Megatron-LM YAML config (language_model, model_parallel sections)",
+        # Megatron-LM --yaml-cfg files: TransformerConfig and ModelParallelConfig as two sections
+        marks=frozenset("language_model model_parallel use_legacy_models transformer_impl spec "
+                        "lr_decay_style lr_warmup_fraction train_iters train_samples".split()),
+        min_hits=3, required=frozenset({"language_model", "model_parallel", "use_legacy_models"}),
+    ),
+    UnreadFormat(
         name="gpt-neox", title="a GPT-NeoX model and training config",
         # GPT-NeoX configs/*.yml (neox_arguments): hyphenated or underscored names
         marks=frozenset("pipe_parallel_size model_parallel_size num_layers hidden_size num_attention_heads "
+                        "data_impl checkpoint_factor "
                         "seq_length max_position_embeddings pos_emb norm train_iters lr_decay_style "
                         "lr_decay_iters vocab_file merge_file data_path checkpoint_activations "
                         "partition_activations synchronize_each_layer gpt_j_residual "
@@ -993,7 +1023,8 @@ UNREAD_FORMATS: tuple[UnreadFormat, ...] = (
                         "attention_config init_method output_layer_init_method".split()),
         min_hits=3,
         required=frozenset("pipe_parallel_size model_parallel_size pos_emb train_iters lr_decay_style "
-                           "gpt_j_residual attention_config output_layer_parallelism".split()),
+                           "gpt_j_residual attention_config output_layer_parallelism merge_file data_impl "
+                           "checkpoint_factor".split()),
     ),
     UnreadFormat(
         name="deepspeed-autotuning", title="a DeepSpeed autotuning tuning space (lists of candidate values)",
@@ -1016,6 +1047,32 @@ UNREAD_FORMATS: tuple[UnreadFormat, ...] = (
         marks=frozenset("global_train_batch_size device_train_microbatch_size max_duration eval_interval "
                         "device_eval_batch_size eval_first save_interval".split()),
         min_hits=2,
+        # Composer's own names (eval_interval / save_interval alone are common research-script keys)
+        required=frozenset("global_train_batch_size device_train_microbatch_size max_duration".split()),
+    ),
+    UnreadFormat(
+        name="class-path", title="a LitGPT / LightningCLI-style config (class_path with init_args)",
+        # jsonargparse: a mapping {class_path: a.b.Class, init_args: {...}} names the class that
+        # is built with those arguments (LitGPT config_hub, LightningCLI configs)
+        shape="class-path",
+    ),
+    UnreadFormat(
+        name="rl-trainer-sections", title="a verl-style RL trainer config (actor_rollout_ref, critic, algorithm)",
+        marks=frozenset("actor_rollout_ref critic algorithm reward_model trainer data custom_reward_function".split()),
+        min_hits=3, required=frozenset({"actor_rollout_ref"}),
+    ),
+    UnreadFormat(
+        name="h2o-llmstudio", title="an H2O LLM Studio experiment config (llm_backbone, problem_type, sections)",
+        marks=frozenset("llm_backbone problem_type experiment_name output_directory architecture augmentation "
+                        "environment prediction dataset tokenizer training logging".split()),
+        min_hits=5, required=frozenset({"llm_backbone", "problem_type"}),
+    ),
+    UnreadFormat(
+        name="levanter", title="a Levanter-style config (trainer: mp, num_train_steps, steps_per_eval)",
+        # Levanter's TrainerConfig (draccus): mixed-precision policy, step counts, mesh axes
+        marks=frozenset("mp num_train_steps steps_per_eval tracker fsdp_axis batch_axis tensor_parallel_axes "
+                        "per_device_parallelism per_device_eval_parallelism checkpointer".split()),
+        min_hits=3, section="trainer",
     ),
     UnreadFormat(
         name="ludwig", title="a Ludwig config (input_features, output_features)",
@@ -1076,6 +1133,7 @@ def layouts_markdown() -> str:
     for fmt in UNREAD_FORMATS:
         marks = ", ".join(f"`{m}`" for m in sorted(fmt.required or fmt.marks)[:6])
         how = {"composed": "a top-level `defaults:` list, or `_target_` nodes",
+               "class-path": "a mapping with `class_path` and `init_args`",
                "tuning-space": "a list where DeepSpeed takes one value (`zero_optimization.stage`, "
                                "`train_micro_batch_size_per_gpu`)"}.get(fmt.shape, marks)
         where = f" in `{fmt.section}:`" if fmt.section else ""

@@ -14,6 +14,7 @@ from pathlib import Path
 from typing import Any
 
 from .knowledge.hardware import Gpu
+from .memo import remembered
 from .knowledge.memory import MemoryBreakdown, MemoryInputs, changes_that_fit, estimate_memory
 from .knowledge import models as _models
 from .knowledge.models import Architecture, UnsupportedFamily, lora_scale, total_parameters
@@ -194,6 +195,15 @@ def _words(f) -> str:
     return f.note or f"{f.name} = {f.value}"
 
 
+def _estimate(inputs: MemoryInputs) -> MemoryBreakdown:
+    """estimate_memory, once per run for the same inputs (configs of one recipe share them)."""
+    try:
+        hash(inputs)
+    except TypeError:
+        return estimate_memory(inputs)
+    return remembered("estimate_memory", inputs, lambda: estimate_memory(inputs))
+
+
 def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Architecture | None:
     """The base model's architecture when it can be known offline (cached on the view)."""
     if view.model_found is not None:
@@ -202,7 +212,18 @@ def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Archite
     arch = None
     if isinstance(ref, str) and ref.strip():
         parent = Path(file).parent if file and not file.startswith("<") else None
-        arch = _models.resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(os.getcwd()), declared=declared)
+        here = cwd or Path(os.getcwd())
+
+        def resolve():
+            return _models.resolve_model(ref.strip(), config_dir=parent, cwd=here, declared=declared)
+
+        try:  # the same reference from the same folder: looked up once per run (cfgcheck.memo)
+            key = (ref.strip(), str(parent), str(here), declared)
+            hash(key)
+        except TypeError:
+            arch = resolve()
+        else:
+            arch = remembered("resolve_model", key, resolve)
     view.model_found = (arch,)
     return arch
 
@@ -290,7 +311,7 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
             plan.assumptions.append("no ZeRO/FSDP sharding because no launch context names it "
                                     "(pass --launch FILE, or --gpus 1 for a single-GPU run)")
         plan.memory_inputs = inputs
-        plan.memory = estimate_memory(inputs)
+        plan.memory = _estimate(inputs)
         plan.trainable_parameters = plan.memory.trainable_parameters
         plan.total_parameters = plan.memory.total_parameters or plan.total_parameters
     except (UnsupportedFamily, ValueError) as exc:

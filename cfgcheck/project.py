@@ -29,8 +29,10 @@ from .load import dotted
 from .findings import MAX_MAGNITUDE, Severity, printable
 from .waivers import ProjectWaiver
 
-YAML_NAME = "cfgcheck.yaml"
-TOML_NAME = "pyproject.toml"
+# the file names, the project error and the search for the file live in projectfile (a lint with
+# no project file never imports this module)
+from .projectfile import TOML_NAME, YAML_NAME, ProjectError, _TABLE_LINE, _mentions_table, _short, find_file  # noqa: F401
+
 TABLE = ("tool", "cfgcheck")
 
 _LEVEL = {"enum": ["error", "warning", "info"]}
@@ -154,20 +156,6 @@ def _show(value: Any) -> str:
     except ValueError:  # an integer too long to print
         text = f"a {type(value).__name__}"
     return text if len(text) <= 80 else text[:77] + "..."
-
-
-class ProjectError(Exception):
-    """The project configuration is wrong: one or more (file, line, column, reason)."""
-
-    def __init__(self, problems: list[tuple[str, int, int, str]]):
-        self.problems = sorted(((f, line, col, _short(r)) for f, line, col, r in problems),
-                               key=lambda p: (p[1], p[2]))
-        super().__init__("\n".join(f"{printable(f)}:{line}:{col}: project config: {printable(r)}"
-                                   for f, line, col, r in self.problems))
-
-
-def _short(reason: str, limit: int = 300) -> str:
-    return reason if len(reason) <= limit else reason[:limit - 3] + "..."
 
 
 # --------------------------------------------------------------------------- globs
@@ -479,43 +467,6 @@ class Project:
 
 
 # --------------------------------------------------------------------------- finding the file
-
-def find_file(start: str | Path | None = None) -> Path | None:
-    """The nearest cfgcheck.yaml, or pyproject.toml with a [tool.cfgcheck] table, walking up from
-    ``start`` to the repository root (a folder holding .git) or the filesystem root."""
-    here = Path(os.path.abspath(start or os.getcwd()))
-    if not here.is_dir():
-        here = here.parent
-    for folder in (here, *here.parents):
-        yaml_file = folder / YAML_NAME
-        toml_file = folder / TOML_NAME
-        has_table = toml_file.is_file() and _mentions_table(toml_file)
-        if yaml_file.is_file():
-            if has_table:
-                raise ProjectError([(str(toml_file), 1, 1,
-                                     f"both {YAML_NAME} and [tool.cfgcheck] in {TOML_NAME} are "
-                                     f"in {folder}; keep one")])
-            return yaml_file
-        if has_table:
-            return toml_file
-        if (folder / ".git").exists():
-            return None
-    return None
-
-
-_TABLE_LINE = re.compile(r"^\s*\[\[?\s*tool\s*\.\s*cfgcheck\s*[\].]", re.M)
-
-
-def _mentions_table(path: Path) -> bool:
-    from .load import LoadError, read_source
-
-    try:
-        text = read_source(path).text  # guarded: never a FIFO, a device or an endless file
-    except LoadError:
-        return False
-    return bool(_TABLE_LINE.search(text)) or bool(
-        re.search(r"^\s*\[\s*tool\s*\]\s*$(?:(?!^\s*\[).)*^\s*cfgcheck\s*[.=]", text, re.M | re.S))
-
 
 def discover(paths: Iterable[str | Path] = ()) -> Project | None:
     paths = list(paths)

@@ -295,6 +295,29 @@ def _apply_defaults(view: RunView) -> None:
             _supply(view, d.field, value, "default", d.note)
 
 
+def _own_reader(view: RunView, file: str, options: Any = None) -> bool:
+    """A trainer-style file whose repository parses its configs only into its own argument
+    classes (no transformers or TRL class among them): TrainingArguments' defaults (batch 8,
+    3 epochs, save every 500 steps) are not the run's, so the layout's runner holds none, and its
+    word lists (transformers' optimizer and strategy names) are not the script's.
+    Returns whether that is so."""
+    if view.layout is None or not view.layout.trainer_defaults:
+        return False
+    from .knowledge.repo_keys import keys_for
+
+    readers = list(getattr(options, "readers", ()) or ())
+    reader = getattr(getattr(options, "script", None), "reader", None)
+    repo = keys_for(file, tuple(readers + ([reader] if reader else [])))
+    if repo is None or repo.reader_libraries is None or repo.reader_libraries:
+        return False
+    import dataclasses
+
+    # nor are TrainingArguments' accepted words (optim names, strategies) the script's
+    view.layout = dataclasses.replace(view.layout, trainer_defaults=False, read_by_own_classes=True,
+                                      word_lists=frozenset())
+    return True
+
+
 def _experiment_method(view: RunView, file: str) -> None:
     """The method of a runner's experiment folder: the adapter its config file there names (its
     settings supplied as linked), or, with none, every weight trains (the runner's own rule)."""
@@ -416,10 +439,12 @@ def open_view(view: RunView, file: str, options: Any = None) -> OpenedRun:
     view.run = run
     if view.layout is None:
         return run
+    own = _own_reader(view, file, options)
     _experiment_method(view, file)
     _apply_launch(view, launch)
     _apply_linked(view)
-    _apply_defaults(view)
+    if not own:  # the runner's defaults are those of classes the repository does not use
+        _apply_defaults(view)
     _resolve_gpus(run, options)
     if run.gpus is not None and run.gpus_origin in ("flag", "launch"):
         view.supplied["hardware.num_gpus"] = Field(

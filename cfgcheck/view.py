@@ -121,11 +121,17 @@ def section_word(key: str) -> str:
     return _CAMEL.sub("_", key).lower().replace("-", "_")
 
 
-def _score(layout: Layout, data: dict) -> int:
-    names = set(data)
+def _score(layout: Layout, data: dict, top: frozenset | None = None) -> int:
+    """The layout's signature weights of the names DATA spells (each name once): its top-level
+    keys (``top``, the str keys, when the caller has them), and in the layout's sections their
+    keys, prefixed keys and section-local names (every nested section too, for a layout that
+    searches all sections)."""
+    names = None
     for section, prefixes in layout.sections.items():
         sub = data.get(section)
         if isinstance(sub, dict):
+            if names is None:
+                names = set(data)
             local = layout.section_names.get(section, {})
             for key in sub:
                 names.add(key)
@@ -133,8 +139,15 @@ def _score(layout: Layout, data: dict) -> int:
                 if key in local and section not in layout.restricted_sections:
                     names.add(local[key])
     if layout.search_all_sections:  # sections named as the author likes, nested too
+        if names is None:
+            names = set(data)
         _score_nested(layout, data, names, 0)
-    return sum(layout.signature.get(k, 0) for k in names if isinstance(k, str))
+    sig = layout.signature
+    if names is None:  # no section of this layout: the top-level names alone
+        if top is None:
+            top = frozenset(k for k in data if isinstance(k, str))
+        return sum(sig[k] for k in top if k in sig)
+    return sum(sig.get(k, 0) for k in names if isinstance(k, str))
 
 
 def _score_nested(layout: Layout, mapping: dict, names: set, depth: int) -> None:
@@ -163,7 +176,17 @@ def _has_target(data: Any, depth: int = 0) -> bool:
     return "_target_" in data or any(_has_target(v, depth + 1) for v in data.values())
 
 
+def _has_class_path(data: Any, depth: int = 0) -> bool:
+    if not isinstance(data, dict) or depth > 3:
+        return False
+    if isinstance(data.get("class_path"), str) and "init_args" in data:
+        return True
+    return any(_has_class_path(v, depth + 1) for v in data.values())
+
+
 def _matches(fmt: UnreadFormat, data: dict) -> bool:
+    if fmt.shape == "class-path":
+        return _has_class_path(data)
     if fmt.shape == "composed":
         defaults = data.get("defaults")
         listed = isinstance(defaults, list) and defaults and all(
@@ -207,10 +230,11 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
     if unread is not None:
         return None, f"{unread.title} ({unread.name}): {NOT_READ_YET}"
     best, best_score = None, 0
+    top = frozenset(top)
     for layout in LAYOUTS:
-        s = _score(layout, data)
+        s = _score(layout, data, top)
         if s >= layout.min_score and layout.extends and top & layout.extends_marks:
-            s += _score(BY_NAME[layout.extends], data)
+            s += _score(BY_NAME[layout.extends], data, top)
         if s >= layout.min_score and s > best_score:
             best, best_score = layout, s
     if best is None:
@@ -390,7 +414,11 @@ def resolve_interpolation(data: Any, written: Any, depth: int = 0) -> tuple[bool
 def fill(view: RunView, layout: Layout, data: dict) -> None:
     """Fill the view's fields from one layout's table."""
     index = _index(layout, data) if layout.has_bare_names else {}
+    kind = data.get(layout.kind_key) if layout.kind_key else None
+    other_kind = isinstance(kind, str) and kind.strip().upper() not in layout.kinds_described
     for name, specs in layout.fields.items():
+        if other_kind and name not in layout.fields_for_any_kind:
+            continue  # the table describes other kinds: these keys mean something else here
         for spec in specs:
             if spec.startswith("="):
                 found, written = _walk(data, tuple(spec[1:].split(".")))

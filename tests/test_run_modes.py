@@ -162,3 +162,33 @@ def test_lint_never_imports_the_fixer_the_schema_engine_or_typers_adapters():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT,
                          env=ENV, timeout=120)
     assert out.stderr.strip().splitlines()[-1] == "[]", out.stderr
+
+
+# Modules that linting one plain YAML file (no project file, no launch script, no sweep, a GPU
+# name that is known or none) has no use for; each one left out is start-up time saved.
+_NOT_ON_THE_LINT_PATH = (
+    "cfgcheck.fix",  # the fixer
+    "cfgcheck.project",  # reading a project file: only when one is found
+    "cfgcheck.baseline",  # only with --baseline / --save-baseline or a project's baseline
+    "jsonschema", "ruamel", "pydantic",  # the schema engine, the round-trip reader, typer's adapters
+    "tomllib",  # pyproject.toml is read only when it has a [tool.cfgcheck] table or pins
+    "bashlex",  # launch scripts are parsed only when there are some
+    "random",  # sampling a sweep too large to lint whole
+)
+
+
+def test_linting_one_plain_yaml_file_imports_nothing_it_does_not_use(tmp_path):
+    (tmp_path / ".git").mkdir()  # the search for a project file stops here
+    cfg = tmp_path / "train.yaml"
+    cfg.write_text("model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 2.0e-4\n"
+                   "per_device_train_batch_size: 4\nnum_train_epochs: 1\nuse_peft: true\n"
+                   "lora_r: 16\nlora_alpha: 32\n", encoding="utf-8")
+    code = ("import sys\n"
+            f"sys.argv = ['cfgcheck', 'lint', {str(cfg)!r}]\n"
+            "from cfgcheck.cli import main\ntry:\n    main()\nexcept SystemExit:\n    pass\n"
+            f"names = {_NOT_ON_THE_LINT_PATH!r}\n"
+            "loaded = sorted(m for m in sys.modules if m in names or m.split('.')[0] in names)\n"
+            "sys.stderr.write('\\nloaded: ' + repr(loaded) + ' lint: ' + repr('cfgcheck.engine' in sys.modules))\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path,
+                         env=ENV, timeout=120)
+    assert out.stderr.strip().splitlines()[-1] == "loaded: [] lint: True", out.stderr

@@ -67,6 +67,7 @@ import argparse
 import ast
 import io
 import json
+import re
 import subprocess
 import sys
 import tarfile
@@ -1028,6 +1029,23 @@ def read_recipes(archive: Path) -> dict[str, str]:
     return out
 
 
+def runner_requires(archive: Path) -> dict[str, str]:
+    """{library: specifier} of the scanned libraries the runner's wheel requires (its METADATA
+    Requires-Dist lines without an extra marker)."""
+    out: dict[str, str] = {}
+    with zipfile.ZipFile(archive) as zf:
+        meta = next((n for n in zf.namelist() if n.endswith(".dist-info/METADATA")), None)
+        text = zf.read(meta).decode("utf-8", "replace") if meta else ""
+    for line in text.splitlines():
+        if not line.startswith("Requires-Dist:") or "extra ==" in line:
+            continue
+        req = line.split(":", 1)[1].split(";")[0].strip()
+        m = re.match(r"([A-Za-z0-9_.-]+)\s*(?:\[[^]]*\])?\s*\(?([^)]*)\)?", req)
+        if m and m.group(1).lower() in SCAN and m.group(2).strip():
+            out[m.group(1).lower()] = ",".join(sorted(x.strip() for x in m.group(2).split(",")))
+    return dict(sorted(out.items()))
+
+
 def build_runners(cache: Path, offline: bool) -> dict:
     layouts: dict[str, dict] = {}
     for lib, version in RUNNERS.items():
@@ -1047,6 +1065,11 @@ def build_runners(cache: Path, offline: bool) -> dict:
             "files": files,
             "keys": {k: sorted(v) for k, v in sorted(found.items())},
         }
+        requires = runner_requires(archive)
+        if requires:
+            # the releases of the scanned libraries the runner installs with: a key it passes on
+            # to them is judged against those releases, not the newest
+            entry["requires"] = requires
         if lib == "llamafactory":
             # TrainingArguments derives from transformers' Seq2SeqTrainingArguments: those keys too
             entry["also"] = "transformers"
@@ -1070,7 +1093,7 @@ def dump_runners(data: dict) -> str:
     for li, (layout, entry) in enumerate(items):
         lines.append(f"  {json.dumps(layout)}: {{")
         parts = []
-        for field_name in ("source", "files", "also", "closed"):
+        for field_name in ("source", "files", "requires", "also", "closed"):
             if field_name in entry:
                 parts.append(f"   {json.dumps(field_name)}: {json.dumps(entry[field_name])}")
         for big in ("keys", "components"):

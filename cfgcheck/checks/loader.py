@@ -92,15 +92,23 @@ def yaml_version_dependent(ctx) -> None:
                 ctx.report(amb.path, "exponent-in-text-setting", fix=fix, key=key, raw=amb.raw,
                            number=amb.yaml12, replacement=q)
                 continue
-            if kind != "number":
-                ctx.report(amb.path, "exponent-type-unknown", key=key, raw=amb.raw,
-                           number=amb.yaml12, number_text=new)
-                continue
-            fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
-                      edits=(Edit(path=amb.path, old=amb.yaml11, new=float(amb.yaml12)),))
             layout = ctx.view.layout
             reader = layout.number_reader if layout is not None and layout.coerces_numbers \
                 else ctx.doc.number_reader or _repository_reader(ctx)
+            if kind != "number":
+                # a loader that reads every value (OmegaConf takes the text as a float; a value
+                # turned into command-line text is converted by the script's own parser) makes
+                # it harmless whatever the setting's type
+                whole = ctx.doc.number_reader or _repository_reader(ctx)
+                if layout is not None and whole:
+                    ctx.report(amb.path, "exponent-read-as-number", key=key, raw=amb.raw,
+                               number=amb.yaml12, replacement=new, layout=layout.name, reader=whole)
+                else:
+                    ctx.report(amb.path, "exponent-type-unknown", key=key, raw=amb.raw,
+                               number=amb.yaml12, number_text=new)
+                continue
+            fix = Fix(tier="keeps-meaning", summary=f"{key}: {amb.raw} -> {new}",
+                      edits=(Edit(path=amb.path, old=amb.yaml11, new=float(amb.yaml12)),))
             if layout is not None and reader:
                 # the layout's own loader or settings model (or the loader that composes the
                 # file) reads the text as a number

@@ -53,6 +53,35 @@ def installed(ctx) -> dict:
     return out
 
 
+def _newest_installed(scanned: dict, requires: dict) -> dict[str, str]:
+    """The release of each library a fresh install gets: the newest scanned one, or for a
+    recipe runner the newest scanned one its own requirements allow (llamafactory 0.9.5 installs
+    transformers <=5.6.0, so a key removed in 5.15 still reaches its parser)."""
+    from ..knowledge.pins import satisfies
+
+    out = {}
+    for lib, versions in scanned.items():
+        allowed = [v for v in versions if lib not in requires or satisfies(v, requires[lib])]
+        if allowed:
+            out[lib] = allowed[-1]
+    return out
+
+
+def _installed_text(lib: str, version: str, requires: dict, runner: str) -> str:
+    if lib in requires and runner:
+        return f"{lib} {version}, the newest scanned release {runner} allows ({requires[lib]})"
+    return f"{lib} {version}"
+
+
+def _current(info, newest: dict) -> bool:
+    """Whether a fresh install accepts the key: some library reads it in the release installed."""
+    from ..knowledge.pins import version_key
+
+    # a library none of whose scanned releases the runner allows: no verdict on it
+    return any(lib not in newest or version_key(first)[:2] <= version_key(newest[lib])[:2]
+               <= version_key(last)[:2] for lib, (first, last) in info.accepted.items())
+
+
 @check("key-not-in-release")
 def key_not_in_release(ctx) -> None:
     view = ctx.view
@@ -65,7 +94,16 @@ def key_not_in_release(ctx) -> None:
     data = keys._data()
     groups = data["by_parent"][table]
     scanned = data["scanned"]
-    newest = {lib: v[-1] for lib, v in scanned.items() if v}
+    requires = data["requires"].get(table, {})
+    newest = _newest_installed(scanned, requires)
+    runner = data["runner_sources"].get(table, "").split(" (")[0]
+    repo = None
+    if view.layout.trainer_defaults or view.layout.read_by_own_classes:
+        from ..knowledge.repo_keys import keys_for
+        from .unknown_keys import reader_scripts
+
+        # keys the repository's own scripts (and the scripts named as the file's readers) declare
+        repo = keys_for(ctx.file, reader_scripts(ctx))
     sections = view.layout.sections
     pins = None
     reported: list[tuple] = []
@@ -84,6 +122,13 @@ def key_not_in_release(ctx) -> None:
         info = keys.lookup(name, table)
         if info is None or not info.accepted:
             continue
+        if repo is not None and path[-1] in repo.keys and path[-1] not in repo.read_only:
+            continue  # the script that reads the file declares it: its own release decides
+        if repo is not None and repo.reader_libraries is not None \
+                and not set(info.accepted) & repo.reader_libraries:
+            # the repository's parsers are built from classes of other libraries (or its own):
+            # the releases of the libraries that once took the key say nothing about them
+            continue
         if pins is None:
             pins = installed(ctx)
         verdicts = {}
@@ -93,7 +138,8 @@ def key_not_in_release(ctx) -> None:
         if any(s == "yes" for s, _ in verdicts.values()):
             continue
         unpinned = [lib for lib in info.accepted if lib not in pins]
-        versions = info.versions_text()
+        if verdicts or not info.current:
+            versions = info.versions_text()  # only for a key that may be reported
         if verdicts and not unpinned and all(s == "no" for s, _ in verdicts.values()):
             lib = sorted(verdicts)[0]
             variant = "refused" if _REFUSES.get(table) else "ignored"
@@ -105,8 +151,9 @@ def key_not_in_release(ctx) -> None:
             ctx.report(path, "between", on="key", key=name, library=lib, version=pins[lib][0],
                        where=pins[lib][1], versions=versions)
             reported.append(tuple(path))
-        elif not info.current:
+        elif not _current(info, newest):
             libs = sorted(info.accepted)
             ctx.report(path, "no-version", on="key", key=name, versions=versions,
-                       newest=", ".join(f"{lib} {newest[lib]}" for lib in libs if lib in newest))
+                       newest=", ".join(_installed_text(lib, newest[lib], requires, runner)
+                                        for lib in libs if lib in newest))
             reported.append(tuple(path))

@@ -13,7 +13,9 @@ Which reader and which key set:
 A "did you mean" is offered only for a near miss that is itself no setting any known reader
 takes (``lora_rank`` is LLaMA-Factory's and never becomes ``local_rank``), and whose words each
 differ by a slip of the keyboard (``min_lr`` never becomes ``min_p``). A key nothing is close to
-is an info: the script that reads the file may declare it. Inside the sections of a
+is an info: the script that reads the file may declare it. When the repository's argument parsers
+are built from its own classes only, its keys are the candidates; when they also take classes
+from a package cfgcheck does not read, a near miss is only an info. Inside the sections of a
 trainer-style file (``training:``, ``lora:``) only near misses are reported: the section
 belongs to the repository's own script.
 """
@@ -45,7 +47,22 @@ def _read_somewhere() -> frozenset[str]:
         for specs in lay.fields.values():
             names.update(s.rpartition(".")[2].lstrip("=") for s in specs)
         names.update(lay.sections)
+    for comps in keys._data()["components"].values():  # torchtune components' parameters
+        for info in comps.values():
+            names.update(info["params"])
+    names.update(_OPTIMIZER_PARAMETERS)
     return frozenset(names)
+
+
+# Parameters of the torch optimizers that configs hand on as keyword arguments (DeepSpeed's
+# optimizer.params, an optimizer section of a repository's own script): torch 2.x
+# torch/optim/adamw.py AdamW, sgd.py SGD, adagrad.py Adagrad, rmsprop.py RMSprop signatures
+_OPTIMIZER_PARAMETERS = frozenset("lr betas eps weight_decay amsgrad momentum dampening nesterov foreach "
+                                  "fused maximize capturable differentiable lr_decay alpha centered "
+                                  "initial_accumulator_value".split())
+# mappings that hold another component's keyword arguments (jsonargparse init_args, *_kwargs,
+# DeepSpeed-style params): their keys are that component's, never near misses of ours
+_KEYWORD_MAPPINGS = ("kwargs", "init_args", "params")
 
 
 def _words(text: str) -> list[str]:
@@ -56,16 +73,41 @@ def _edits(a: str, b: str, limit: int) -> int:
     return _keys_module()._osa_distance(a, b, limit)
 
 
-def slip_of_keyboard(key: str, near: str) -> bool:
+@lru_cache(maxsize=1)
+def _vocabulary() -> frozenset[str]:
+    """The words the known settings are made of (``use``, ``qlora``, ``lora``, ``steps``...)."""
+    from ..layouts import METHOD_WORDS
+
+    words = {w for name in _read_somewhere() for w in _words(name)}
+    return frozenset(words | set(METHOD_WORDS))
+
+
+def _same_term(x: str, y: str) -> bool:
+    """One word in the singular and the plural, or numbered (``beta`` / ``beta1``)."""
+    if x + "s" == y or y + "s" == x or x + "es" == y or y + "es" == x:
+        return True
+    return x.rstrip("0123456789") == y.rstrip("0123456789")
+
+
+def slip_of_keyboard(key: str, near: str, terms: bool = True) -> bool:
     """Whether KEY could be NEAR mistyped: word by word, each word at most one edit away (two
-    for words of eight letters or more); a word joined or split (``batchsize``) counts as one."""
+    for words of eight letters or more); a word joined or split (``batchsize``) counts as one.
+    A word of four letters or more that is itself another word of the settings' vocabulary is no
+    slip, unless it is the same word in the singular or plural, or numbered (``use_qlora`` is
+    not ``use_lora``; ``gradient_accumulation_step`` is ``gradient_accumulation_steps``).
+    TERMS=False leaves that test out."""
     a, b = _words(key), _words(near)
     if "".join(a) == "".join(b):
         return True
     if len(a) != len(b):
         return _edits("".join(a), "".join(b), 1) <= 1
+    vocabulary = _vocabulary() if terms else frozenset()
     for x, y in zip(a, b):
-        if x != y and _edits(x, y, 2) > (2 if min(len(x), len(y)) >= 8 else 1):
+        if x == y:
+            continue
+        if terms and len(x) >= 4 and x in vocabulary and not _same_term(x, y):
+            return False  # a different term, not a mistyped one
+        if _edits(x, y, 2) > (2 if min(len(x), len(y)) >= 8 else 1):
             return False
     return True
 
@@ -89,35 +131,66 @@ class _Judge:
         self.limit = ctx.thresholds.get("suggestion_limit", 200)
         self.asked = 0
         self.past_limit = False
+        self.other_term: dict[str, str] = {}  # name -> a near key whose differing word is a term
         from ..knowledge.repo_keys import keys_for
 
         # a file parsed into argument dataclasses (TrainingArguments and the script's own): the
         # repository's scripts may declare more of them; a script named as the file's reader (by
         # the launch script that starts it, or the project file) declares them wherever it lives
         readers = reader_scripts(ctx)
-        self.repo = (keys_for(ctx.file, readers) if ctx.view.layout.trainer_defaults or readers
-                     else None)
+        layout = ctx.view.layout
+        self.repo = (keys_for(ctx.file, readers)
+                     if layout.trainer_defaults or layout.read_by_own_classes or readers else None)
 
     def declared_by_repo(self, name: str) -> str | None:
         if self.repo is not None and name in self.repo.keys:
             return self.repo.sources.get(name, "")
         return None
 
+    def reader_open(self) -> bool:
+        """The repository's parsers take argument classes from a package cfgcheck cannot see."""
+        return self.repo is not None and self.repo.reader_libraries is not None \
+            and "other" in self.repo.reader_libraries
+
+    def _repo_nearest(self, name: str) -> str | None:
+        if "." in name or self.repo is None or not self.repo.keys:
+            return None
+        buckets: dict[int, list[str]] = {}
+        for key in sorted(self.repo.keys):
+            buckets.setdefault(len(key), []).append(key)
+        return self.keys._nearest(name.strip().lower(), buckets, self.keys._allowed_edits(len(name)))
+
     def suggestion(self, name: str, table: str | None = None) -> str | None:
-        """A safe nearest key, within the per-document budget of suggestion searches."""
+        """A safe nearest key, within the per-document budget of suggestion searches.
+
+        When the repository's parsers are built only from its own classes (and the libraries'),
+        the reader's key set is known: the nearest of the repository's keys competes with the
+        library's; with only its own classes, the library's keys are no candidates at all."""
         if self.asked >= self.limit:
             self.past_limit = True
             return None
         self.asked += 1
-        near = self.keys.suggest(name, table or self.layout)
+        libs = self.repo.reader_libraries if self.repo is not None else None
+        near = self.keys.suggest(name, table or self.layout) if libs is None or libs else None
+        mine = self._repo_nearest(name) if libs is not None else None
+        if mine is not None and (near is None or self._closer(name, mine, near)):
+            near = mine
         if near is None:
             return None
         leaf = name.rpartition(".")[2]
         if leaf in _read_somewhere() and leaf.strip().lower() != near.rpartition(".")[2].lower():
             return None  # a different valid setting of some reader: never "corrected" into another
         if near.lower() != name.strip().lower().replace(" ", "_") and not slip_of_keyboard(name, near):
+            if slip_of_keyboard(name, near, terms=False):
+                self.other_term[name] = near  # close, but its words are other settings' terms
             return None
         return near
+
+    def _closer(self, name: str, a: str, b: str) -> bool:
+        """Whether A is at least as near to NAME as B (by leaf edit distance)."""
+        leaf = name.strip().lower()
+        return self.keys._osa_distance(leaf, a.lower(), 9) <= self.keys._osa_distance(
+            leaf, b.rpartition(".")[2].lower(), 9)
 
     def report_unknown(self, path: tuple, name: str, title: str, *, quiet_when_far: bool = False,
                        shown_suggestion=None) -> None:
@@ -125,11 +198,16 @@ class _Judge:
         if self.declared_by_repo(path[-1]) is not None:
             return
         near = self.suggestion(name)
-        if near is not None and near.lower() == name.strip().lower().replace(" ", "_"):
+        if near is not None and self.reader_open():
+            # a class the parser takes comes from a package not scanned: it may declare the key
+            ctx.report(path, "near-miss-reader-open", on="key", key=name, suggestion=near)
+        elif near is not None and near.lower() == name.strip().lower().replace(" ", "_"):
             ctx.report(path, "spelling", on="key", key=name, shown=repr(path[-1]), suggestion=near)
         elif near is not None:
             ctx.report(path, "typo", on="key", key=name,
                        suggestion=shown_suggestion(near) if shown_suggestion else near)
+        elif name in self.other_term:
+            ctx.report(path, "near-miss-other-term", on="key", key=name, suggestion=self.other_term[name])
         elif self.past_limit:
             if not quiet_when_far:
                 ctx.report(path, "unknown-past-limit", on="key", key=name, layout=title, limit=self.limit)
@@ -219,6 +297,10 @@ def _section_key(ctx, judge: _Judge, path: tuple, sections: dict) -> None:
     """A key inside a section of a trainer-style file: a near miss of a trainer key is reported."""
     keys = judge.keys
     leaf = path[-1]
+    layout = ctx.view.layout
+    if any(str(p).lower() in layout.foreign_sections or str(p).lower().endswith(_KEYWORD_MAPPINGS)
+           for p in path[:-1]):
+        return  # another component's keyword arguments, or a section of another part of the run
     prefixes = sections.get(path[-2], ()) if len(path) >= 2 else ()
     spellings = [leaf] + [p + leaf for p in prefixes if not leaf.startswith(p)]
     if any(keys.lookup(s, "trainer") is not None or s in _read_somewhere() for s in spellings):
@@ -246,7 +328,9 @@ def _section_key(ctx, judge: _Judge, path: tuple, sections: dict) -> None:
         for p in prefixes:  # written without the section's prefix: suggest it without too
             if spelling != leaf and near.startswith(p):
                 shown = near[len(p):]
-        if near.lower() == spelling.strip().lower().replace(" ", "_"):
+        if judge.reader_open():
+            ctx.report(path, "near-miss-reader-open", on="key", key=".".join(path), suggestion=shown)
+        elif near.lower() == spelling.strip().lower().replace(" ", "_"):
             ctx.report(path, "spelling", on="key", key=".".join(path), shown=repr(leaf), suggestion=shown)
         else:
             ctx.report(path, "typo", on="key", key=".".join(path), suggestion=shown)

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import difflib
 
 from ..catalogue import load_catalogue
 from ..waivers import covers
@@ -26,6 +25,8 @@ def waiver_comment_problem(ctx) -> None:
         paths = ctx.waiver_paths.get(w.target, [])
         for rule in w.rules:
             if rule not in known:
+                import difflib  # only a waiver naming an unknown rule pays for it
+
                 near = difflib.get_close_matches(rule, list(known), n=1, cutoff=0.6)
                 ctx.report(w, "unknown-rule", rule=rule,
                            suggestion=f" (did you mean {near[0]}?)" if near else "")

@@ -7,7 +7,6 @@ against a primary source.
 
 from __future__ import annotations
 
-import difflib
 from dataclasses import dataclass
 
 GIB = 1024**3
@@ -85,6 +84,8 @@ ALIASES: dict[str, str] = {
 
 class UnknownGpu(ValueError):
     def __init__(self, name: str):
+        import difflib  # only a GPU name that is not known pays for it
+
         self.name = name
         self.suggestions = difflib.get_close_matches(
             _normal(name), sorted(GPUS) + sorted(ALIASES), n=3, cutoff=0.4

@@ -31,7 +31,6 @@ True
 
 from __future__ import annotations
 
-import difflib
 import json
 from dataclasses import dataclass, field
 from functools import cache
@@ -104,7 +103,16 @@ def _read_json(name: str) -> dict:
 
 @cache
 def _data() -> dict:
-    """Load both files once; returns dict-of-dicts keyed for O(1) lookups."""
+    """Load both files once; returns dict-of-dicts keyed for O(1) lookups (kept ready to use
+    between runs: knowledge.tables)."""
+    from .tables import ready_table
+
+    here = Path(__file__).resolve()
+    sources = [here] + [here.with_name(n) for n in (_GENERATED, _EXTRA, _RUNNERS)]
+    return ready_table("known_keys", sources, _build)
+
+
+def _build() -> dict:
     generated = _read_json(_GENERATED)
     extra = _read_json(_EXTRA)
     scanned = {lib: list(v) for lib, v in generated["scanned"].items()}
@@ -161,6 +169,8 @@ def _data() -> dict:
         "runner_sources": sources,
         "components": {lay: e.get("components", {}) for lay, e in runners.items()},
         "closed": {lay for lay, e in runners.items() if e.get("closed")},
+        # the library releases each runner installs with (its wheel's Requires-Dist)
+        "requires": {lay: dict(e.get("requires", {})) for lay, e in runners.items()},
         "absent": absent,
         "scanned": scanned,
         "extra": extra_layouts,
@@ -268,6 +278,8 @@ def _letter_gap(a: str, b: str) -> int:
 def _nearest(leaf: str, buckets: dict[int, list[str]], limit: int) -> str | None:
     """The nearest name (by leaf) within LIMIT edits: only names whose length is in reach are
     compared, and the letter-count bound skips most of them before the edit distance."""
+    import difflib  # only a key that is not known pays for it
+
     best: tuple[int, float, str] | None = None
     candidates = [n for size in range(len(leaf) - limit, len(leaf) + limit + 1) for n in buckets.get(size, ())]
     for name in candidates:

@@ -411,9 +411,12 @@ def _catalogue_raw() -> dict:
     return json.loads(_CATALOGUE_FILE.read_text(encoding="utf-8"))
 
 
-@lru_cache(maxsize=1)
 def catalogue_entries() -> tuple[CatalogueEntry, ...]:
     """The bundled catalogue, read once on the first lookup (lint start-up never reads it)."""
+    return _bundle()[0]
+
+
+def _build_entries() -> tuple[CatalogueEntry, ...]:
     global _ARCH_FIELDS
     if _ARCH_FIELDS is None:
         _ARCH_FIELDS = {f for f in Architecture.__dataclass_fields__
@@ -516,12 +519,29 @@ def _tokens(stripped: str) -> frozenset[str]:
 
 
 @lru_cache(maxsize=1)
+def _bundle():
+    """(catalogue entries, name index), built together so the index holds the very entries
+    ``catalogue_entries`` returns; kept ready to use between runs (knowledge.tables)."""
+    from .tables import ready_table
+
+    here = Path(__file__).resolve()
+
+    def build():
+        entries = _build_entries()
+        return entries, _build_name_index(entries)
+
+    return ready_table("model_names", [here, _CATALOGUE_FILE], build)
+
+
 def _name_index():
+    return _bundle()[1]
+
+
+def _build_name_index(entries: tuple[CatalogueEntry, ...]):
     by_id: dict[str, CatalogueEntry] = {}
     by_name: dict[str, CatalogueEntry] = {}
     by_stripped: dict[str, CatalogueEntry] = {}
     token_rows: list[tuple[frozenset[str], CatalogueEntry]] = []
-    entries = catalogue_entries()
     for e in entries:  # canonical ids first: they win a tie among same-name variants
         by_stripped.setdefault(_strip_name(e.id.rsplit("/", 1)[-1])[0], e)
     for e in entries:
@@ -534,7 +554,7 @@ def _name_index():
             # release tags (v0.1, v1.0) are not required: a fine-tune's name rarely repeats them
             token_rows.append((frozenset(t for t in _tokens(stripped) - _NEUTRAL_TOKENS if not _VERSION_TOKEN.fullmatch(t)), e))
     derived = _catalogue_raw().get("derived", [])
-    ids = {e.id: e for e in catalogue_entries()}
+    ids = {e.id: e for e in entries}
     derived_rows = [(frozenset(d["tokens"]), ids[d["base"]], d["source"]) for d in derived if d["base"] in ids]
     return by_id, by_name, by_stripped, token_rows, derived_rows
 
@@ -1390,7 +1410,37 @@ def modules_to_save_matches(arch: Architecture, modules_to_save) -> list[str]:
     return [r[0] for r in module_table(arch) if any(r[0].endswith(m) for m in names)]
 
 
+def _hashable(value):
+    return tuple(value) if isinstance(value, list) else value
+
+
 def lora_trainable_parameters(
+    arch: Architecture,
+    *,
+    rank: int,
+    targets,
+    modules_to_save=None,
+    use_dora: bool = False,
+    bias: str = "none",
+) -> int:
+    """:func:`_lora_trainable_parameters`, once per run for the same model and adapter
+    (``cfgcheck.memo``): configs of one recipe share them."""
+    from ..memo import remembered
+
+    def count() -> int:
+        return _lora_trainable_parameters(arch, rank=rank, targets=targets, modules_to_save=modules_to_save,
+                                          use_dora=use_dora, bias=bias)
+
+    key = (arch, type(rank), rank, type(targets), _hashable(targets), type(modules_to_save), _hashable(modules_to_save),
+           type(use_dora), use_dora, bias)
+    try:
+        hash(key)
+    except TypeError:
+        return count()
+    return remembered("lora_trainable_parameters", key, count)
+
+
+def _lora_trainable_parameters(
     arch: Architecture,
     *,
     rank: int,

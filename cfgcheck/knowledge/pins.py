@@ -60,6 +60,31 @@ def version_key(text: str) -> tuple[int, ...]:
     return tuple(out)
 
 
+def satisfies(version: str, spec: str) -> bool:
+    """Whether VERSION meets a comma-separated specifier (``>=4.55.0,<=5.6.0,!=4.57.0``); the
+    operators ``==`` (with a trailing ``.*``), ``!=``, ``<=``, ``>=``, ``<``, ``>``, ``~=``."""
+    v = version_key(version)
+    for part in (p.strip() for p in spec.split(",")):
+        m = re.match(r"(==|!=|<=|>=|~=|<|>)\s*([0-9][0-9A-Za-z.*+!-]*)$", part)
+        if not m:
+            continue
+        op, text = m.groups()
+        star = text.endswith(".*")
+        w = version_key(text[:-2] if star else text)
+        width = max(len(v), len(w))
+        a, b = v + (0,) * (width - len(v)), w + (0,) * (width - len(w))
+        if star:
+            same = v[:len(w)] == w
+            ok = same if op == "==" else not same if op == "!=" else True
+        elif op == "~=":
+            ok = a >= b and v[:len(w) - 1] == w[:len(w) - 1]
+        else:
+            ok = {"==": a == b, "!=": a != b, "<=": a <= b, ">=": a >= b, "<": a < b, ">": a > b}[op]
+        if not ok:
+            return False
+    return True
+
+
 def _read(path: Path) -> str | None:
     try:
         if not path.is_file() or path.stat().st_size > _MAX_BYTES:
@@ -156,6 +181,17 @@ def pins_near(file: str | None, cwd: Path | None = None) -> dict[str, Pin]:
         path = Path(file) if Path(file).is_absolute() else (cwd or Path.cwd()) / file
         if not path.is_file():
             return {}  # text given without a file (lint_text): nothing lies beside it
+        if not path.is_symlink():  # the folder is looked up once per run (cfgcheck.memo)
+            from ..memo import remembered
+
+            return dict(remembered("pins_near", str(path.parent), lambda: _pins_of_folder(path)))
+        return _pins_of_folder(path)
+    except (OSError, RuntimeError):
+        return {}
+
+
+def _pins_of_folder(path: Path) -> dict[str, Pin]:
+    try:
         folder = path.resolve().parent
     except (OSError, RuntimeError):
         return {}
