@@ -542,7 +542,7 @@ def _listable(path: str | Path) -> None:
 
 
 def lint_paths(paths: Iterable[str | Path], options: Options | None = None, *,
-               options_for: Callable[[str], Options] | None = None, jobs: int = 1,
+               options_for: Callable[[str], Options] | None = None, jobs: int | str = 1,
                keep_views: bool = True) -> Report:
     """Lint files and folders; ``options_for(file)`` gives per-file options when they differ.
 
@@ -556,22 +556,25 @@ def lint_paths(paths: Iterable[str | Path], options: Options | None = None, *,
     return Report(files=list(lint_files(pairs, jobs=jobs, keep_views=keep_views)))
 
 
-def lint_files(pairs: list[tuple[str, Options]], *, jobs: int = 1,
+def lint_files(pairs: list[tuple[str, Options]], *, jobs: int | str = 1,
                keep_views: bool = True, cache: Any = None) -> Iterator[FileReport]:
-    """(file, options) pairs -> their reports, in order, each as soon as it is ready.
+    """(file, options) pairs -> their reports, in order, each as soon as it is ready. ``jobs``:
+    a number of processes, or "auto" (the usable CPUs; serial for a short list of files). What
+    lies around the files (repository roots, pinned releases) is looked up once per folder.
 
     ``cache``: a ``cache.Store``; a file whose stored report still holds is not linted again
-    (such a report has no views), the others are linted and stored. What lies around the files
-    (repository roots, pinned releases) is looked up once per folder (memo.py)."""
+    (such a report has no views), the others are linted and stored."""
     with memo.scope():
         if cache is not None:
             yield from _lint_files_cached(pairs, jobs, keep_views, cache)
             return
-        if jobs > 1 and len(pairs) > 1:
-            from .parallel import lint_files_parallel
+        if jobs != 1 and len(pairs) > 1:
+            from .parallel import lint_files_parallel, worker_count
 
-            yield from lint_files_parallel(pairs, jobs, lint_file=lint_file, prepare=active_rules)
-            return
+            workers = worker_count(jobs, len(pairs))
+            if workers > 1:
+                yield from lint_files_parallel(pairs, workers, lint_file=lint_file, prepare=active_rules)
+                return
         for path, opts in pairs:
             report = lint_file(path, opts)
             if not keep_views:
@@ -597,16 +600,20 @@ def _lint_recorded_in_worker(path: str, options: Options) -> FileReport:
     return report
 
 
-def _lint_files_cached(pairs: list[tuple[str, Options]], jobs: int, keep_views: bool,
+def _lint_files_cached(pairs: list[tuple[str, Options]], jobs: int | str, keep_views: bool,
                        store: Any) -> Iterator[FileReport]:
     from .cache import lint_cached
 
     many = None
-    if jobs > 1 and len(pairs) > 1:
-        from .parallel import lint_files_parallel
+    if jobs != 1 and len(pairs) > 1:
+        from .parallel import lint_files_parallel, worker_count
 
         def many(misses: list[tuple[str, Options]]) -> Iterator[tuple[FileReport, dict]]:
-            for report in lint_files_parallel(misses, jobs, lint_file=_lint_recorded_in_worker,
+            workers = worker_count(jobs, len(misses))  # the files left to lint decide
+            if workers <= 1:
+                yield from (lint_file_recorded(path, opts) for path, opts in misses)
+                return
+            for report in lint_files_parallel(misses, workers, lint_file=_lint_recorded_in_worker,
                                               prepare=active_rules):
                 yield report, report.__dict__.pop("_reads", {})
 
