@@ -1,41 +1,87 @@
-"""Speed and memory benchmark for cfgcheck (a script, not a test).
+"""Speed and memory benchmark for cfgcheck: every figure a ratio measured in the same run.
 
-    python bench/run.py [--files 2000] [--repeat 15] [--jobs N] [--keep DIR]
+    python bench/run.py [--files 2000] [--repeat 7] [--only cold,corpus,...] [--quick] [--keep DIR]
 
 Generates a corpus of realistic training configs across the layouts cfgcheck reads (trainer
-arguments flat and in sections, DeepSpeed JSON, PEFT adapter_config.json) into a temporary
-folder and prints five figures:
+arguments flat and in sections, DeepSpeed JSON, PEFT adapter_config.json) and prints one table
+row per figure. Each row times cfgcheck and the thing it is compared with (a floor: what the
+same files cost at least; or a peer: what a user would write instead) in the same run,
+alternating them run by run (A B, B A, A B, ...) so that a change in the machine's load falls
+on both; the ratio is taken per pair of runs and shown as the median with the minimum and
+maximum over the pairs.
 
-  (a) cold start of `cfgcheck lint one.yaml` against `python -c "import yaml, typer"` (medians)
-  (b) corpus throughput against a bare script that only parses the same files with PyYAML's C
-      loader (yaml.load with CSafeLoader)
-  (c) `--jobs N` speed-up on the cores present
-  (d) fixer cost per file against a bare ruamel.yaml round-trip (when cfgcheck.fix exists)
-  (e) peak memory (VmHWM, as ru_maxrss would give without the parent's) at 1/4, 1/2 and all
-      of the corpus
+Sections (``--only`` takes a comma-separated list of them; default: all):
+
+  cold       `cfgcheck lint one.yaml` / `python -c "import yaml, typer"`
+  corpus     `cfgcheck lint` over the corpus / a bare loop of yaml.load(CSafeLoader), and / a loop
+             of yaml.compose with the C loader (parse only)
+  peer       the corpus / a jsonschema loop validating each file against cfgcheck's own schemas
+             (`cfgcheck schema --layout ...`, each validator built once; bench/peer_jsonschema.py)
+  script     the corpus / a hand script of three rules over the C loader (bench/peer_script.py)
+  jobs       serial / `--jobs 2` and serial / `--jobs auto` (the speed-up), and the CPU time the
+             pool adds
+  allowed    serial CPU / the CPU critical path of `--jobs 2` (this process until the pool starts,
+             then the busiest worker): the speed-up idle cores would give, whatever the load
+  threshold  serial / `--jobs 2` over small runs (16 .. 256 files): where a pool starts to pay
+  fix        `cfgcheck fix --diff` over the corpus / the C compose loop
+  derive     `cfgcheck derive` over the corpus / the C compose loop
+  cache      an unchanged corpus linted again (the cache warm) / a sha256 pass over the files,
+             and / the uncached run (needs `lint --no-cache`; "cache not available" without it)
+  memory     peak memory (VmHWM) linting 1 file and 1/4, 1 and 4 times the corpus
+  growth     bench/growth.py's curves (keys per file, documents, unknown keys, files) with a
+             linearity verdict: the time ratio per 10x size over the largest step
 
 Everything runs in fresh subprocesses of this interpreter with this checkout first on the path,
-the way the installed `cfgcheck` script starts (bytecode written, as an installed package has it).
+the way the installed `cfgcheck` script starts (bytecode written, as an installed package has it),
+with a cache folder of its own (XDG_CACHE_HOME and CFGCHECK_CACHE_DIR in a temporary folder) and
+without project files.
+When `lint --no-cache` exists, every uncached figure passes it.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import math
 import os
 import platform
 import random
+import re
+import resource
 import shutil
 import statistics
 import subprocess
 import sys
 import tempfile
 import time
+from dataclasses import dataclass, field
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
-sys.path.insert(0, str(ROOT))  # this checkout, not an installed copy, for the in-process figure (d)
+BENCH = Path(__file__).resolve().parent
+sys.path.insert(0, str(ROOT))  # this checkout, not an installed copy
 ENTRY = "import sys; from cfgcheck.cli import main; sys.exit(main())"  # what the console script runs
+PY = sys.executable
+
+SECTIONS = ("cold", "corpus", "peer", "script", "jobs", "allowed", "threshold", "fix", "derive", "cache",
+            "memory", "growth")
+
+# the row labels, in the order printed (tests check that a quick run prints every one)
+LABELS = {
+    "cold": ["cold start: lint one.yaml / import yaml, typer"],
+    "corpus": ["corpus: lint / yaml.load(CSafeLoader) loop", "corpus: lint / C compose loop"],
+    "peer": ["corpus: lint / jsonschema loop (our schemas)"],
+    "script": ["corpus: lint / hand script, three rules"],
+    "jobs": ["speed-up: serial / --jobs 2", "speed-up: serial / --jobs auto"],
+    "allowed": ["speed-up the work allows (CPU critical path), --jobs 2"],
+    "threshold": ["pool threshold: serial / --jobs 2 by run size"],
+    "fix": ["fix --diff over the corpus / C compose loop"],
+    "derive": ["derive over the corpus / C compose loop"],
+    "cache": ["unchanged corpus linted again / sha256 pass", "unchanged corpus linted again / uncached run"],
+    "memory": ["peak memory by number of files"],
+    "growth": ["growth: keys per file", "growth: documents per file", "growth: unknown keys",
+               "growth: files in a folder"],
+}
 
 # --------------------------------------------------------------------------- the corpus
 
@@ -154,14 +200,14 @@ def _peft_adapter(r: random.Random, org: str, task: str) -> str:
 
 
 LAYOUTS = (("trainer-flat", ".yaml", _trainer_flat, 4), ("trainer-nested", ".yaml", _trainer_nested, 2),
-           ("deepspeed", ".json", _deepspeed, 2), ("peft-adapter", ".json", _peft_adapter, 1))
+           ("deepspeed", ".json", _deepspeed, 2), ("adapter", ".json", _peft_adapter, 1))
 
 
 def make_corpus(folder: Path, n: int, shards: int = 4, seed: int = 7) -> list[Path]:
     """n configs across the layouts, in `shards` sub-folders of equal size; returns the sub-folders."""
     r = random.Random(seed)
     weights = [w for *_, w in LAYOUTS]
-    subs = [folder / f"shard{i}" for i in range(shards)]
+    subs = [folder / f"shard{i:02d}" for i in range(shards)]
     for s in subs:
         s.mkdir(parents=True)
     for i in range(n):
@@ -172,45 +218,103 @@ def make_corpus(folder: Path, n: int, shards: int = 4, seed: int = 7) -> list[Pa
     return subs
 
 
-BARE = """
-import sys, yaml
-from pathlib import Path
-n = 0
-for root in sys.argv[1:]:
-    for p in sorted(Path(root).rglob("*")):
-        if p.suffix in (".yaml", ".yml", ".json"):
-            yaml.load(p.read_text(encoding="utf-8"), Loader=yaml.CSafeLoader)
-            n += 1
-print(n)
-"""
-
 # --------------------------------------------------------------------------- measuring
 
-def _env() -> dict[str, str]:
+ENV: dict[str, str] = {}
+
+
+def _env(cache: Path) -> dict[str, str]:
     env = dict(os.environ)
     env.pop("PYTHONDONTWRITEBYTECODE", None)  # as installed: bytecode (and the catalogue cache) kept
     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+    env["XDG_CACHE_HOME"] = str(cache)  # a cache folder of the benchmark's own
+    env["CFGCHECK_CACHE_DIR"] = str(cache / "cfgcheck")
+    env.pop("NO_COLOR", None)
     return env
 
 
-CPU: dict[str, float] = {}  # command label -> median CPU seconds (user + system, all processes)
+def run_once(cmd: list[str]) -> tuple[float, float]:
+    """(wall seconds, CPU seconds of the process and its children)."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    start = time.perf_counter()
+    subprocess.run(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=ENV, cwd=ROOT)
+    wall = time.perf_counter() - start
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return wall, after.ru_utime - before.ru_utime + after.ru_stime - before.ru_stime
 
 
-def timed(cmd: list[str], repeat: int, cwd: Path = ROOT, label: str | None = None) -> float:
-    import resource
+@dataclass
+class Race:
+    wall: dict[str, list[float]] = field(default_factory=dict)
+    cpu: dict[str, list[float]] = field(default_factory=dict)
 
-    env = _env()
-    runs, cpu = [], []
-    for _ in range(repeat):
-        before = resource.getrusage(resource.RUSAGE_CHILDREN)
-        start = time.perf_counter()
-        subprocess.run(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env, cwd=cwd)
-        runs.append(time.perf_counter() - start)
-        after = resource.getrusage(resource.RUSAGE_CHILDREN)
-        cpu.append(after.ru_utime - before.ru_utime + after.ru_stime - before.ru_stime)
-    if label:
-        CPU[label] = statistics.median(cpu)
-    return statistics.median(runs)
+    def median(self, name: str) -> float:
+        return statistics.median(self.wall[name])
+
+    def ratios(self, a: str, b: str) -> list[float]:
+        return [x / y for x, y in zip(self.wall[a], self.wall[b]) if y > 0]
+
+
+WARM = True  # one unmeasured run of each command first (--quick: none)
+
+
+def race(commands: dict[str, list[str]], repeat: int, warm: bool = True) -> Race:
+    """Each command ``repeat`` times, interleaved and alternating in order (A B C, C B A, ...),
+    after one unmeasured run of each (bytecode, the page cache)."""
+    if warm and WARM:
+        for cmd in commands.values():
+            run_once(cmd)
+    out = Race()
+    names = list(commands)
+    for r in range(repeat):
+        for name in names if r % 2 == 0 else names[::-1]:
+            wall, cpu = run_once(commands[name])
+            out.wall.setdefault(name, []).append(wall)
+            out.cpu.setdefault(name, []).append(cpu)
+    return out
+
+
+def spread(values: list[float], digits: int = 2) -> str:
+    if not values:
+        return "-"
+    med = statistics.median(values)
+    if len(values) == 1:
+        return f"{med:.{digits}f}"
+    return f"{med:.{digits}f} [{min(values):.{digits}f}–{max(values):.{digits}f}]"
+
+
+def seconds(t: float) -> str:
+    return f"{t * 1000:.0f} ms" if t < 1 else f"{t:.2f} s"
+
+
+def row(label: str, ours: str, base: str, ratio: str, target: str, verdict: str) -> None:
+    print(f"| {label} | {ours} | {base} | {ratio} | {target} | {verdict} |", flush=True)
+
+
+def at_most(ratios: list[float], target: float) -> str:
+    med = statistics.median(ratios)
+    return "met" if med <= target else f"missed ({med / target:.1f}x over)"
+
+
+def at_least(ratios: list[float], target: float) -> str:
+    med = statistics.median(ratios)
+    return "met" if med >= target else f"missed ({med / target:.0%} of it)"
+
+
+def has_option(command: str, spelling: str) -> bool:
+    """Whether the typer declaration of ``cfgcheck COMMAND`` carries an option spelled so."""
+    import inspect
+
+    from cfgcheck import cli
+
+    fn = getattr(cli, command, None)
+    if fn is None:
+        return False
+    for param in inspect.signature(fn).parameters.values():
+        for decl in getattr(param.default, "param_decls", None) or ():
+            if spelling in (d.strip() for d in decl.split("/")):
+                return True
+    return False
 
 
 def peak_rss_kib(args: list[str]) -> int:
@@ -224,13 +328,13 @@ def peak_rss_kib(args: list[str]) -> int:
             "m = s.exists() and re.search(r'VmHWM:\\s+(\\d+)', s.read_text())\n"
             "peak = int(m.group(1)) if m else resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
             "sys.stderr.write(str(peak))\n")
-    out = subprocess.run([sys.executable, "-c", code], stdout=subprocess.DEVNULL,
-                         stderr=subprocess.PIPE, text=True, env=_env(), cwd=ROOT)
+    out = subprocess.run([PY, "-c", code], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
+                         text=True, env=ENV, cwd=ROOT)
     return int(out.stderr.strip().split()[-1])
 
 
-def machine() -> dict[str, str]:
-    model = "unknown"
+def machine() -> str:
+    model = "unknown CPU"
     try:
         for line in Path("/proc/cpuinfo").read_text().splitlines():
             if line.startswith("model name"):
@@ -238,113 +342,303 @@ def machine() -> dict[str, str]:
                 break
     except OSError:
         pass
-    info = {"nproc": str(os.cpu_count()), "cpu": model, "python": platform.python_version(),
-            "platform": platform.platform()}
+    from cfgcheck.parallel import usable_cpus
+
+    parts = [f"{os.cpu_count()} CPUs ({usable_cpus()} usable)", model, f"Python {platform.python_version()}",
+             platform.platform()]
     try:
         import yaml
 
-        info["pyyaml"] = f"{yaml.__version__} (libyaml {'.'.join(map(str, yaml._yaml.get_version()))})"
+        parts.append(f"PyYAML {yaml.__version__} (libyaml {'.'.join(map(str, yaml._yaml.get_version()))})")
     except (ImportError, AttributeError):
         pass
-    return info
+    return ", ".join(parts)
 
 
 def load_average() -> str:
     try:
-        return "load average %.2f %.2f %.2f" % os.getloadavg()
+        return "%.2f %.2f %.2f" % os.getloadavg()
     except OSError:
-        return "load average unknown"
+        return "unknown"
 
 
-def fixer_figure(files: list[Path], repeat: int) -> str:
-    import importlib.util
-
-    if importlib.util.find_spec("cfgcheck.fix") is None:
-        return "not measured: no fixer yet (cfgcheck.fix is absent)"
-    import importlib
-
-    fix = importlib.import_module("cfgcheck.fix")
-    fn = getattr(fix, "fix_text", None)
-    if fn is None:
-        return "not measured: cfgcheck.fix has no fix_text(text, name) to call"
-    from io import StringIO
-
-    from ruamel.yaml import YAML
-
-    texts = [(str(p), p.read_text(encoding="utf-8")) for p in files if p.suffix == ".yaml"]
-
-    def bare():
-        y = YAML()
-        for _, t in texts:
-            out = StringIO()
-            y.dump(y.load(t), out)
-
-    def ours():
-        for name, t in texts:
-            fn(t, name)
-
-    def best(f):
-        runs = []
-        for _ in range(max(3, repeat // 5)):
-            s = time.perf_counter()
-            f()
-            runs.append(time.perf_counter() - s)
-        return statistics.median(runs)
-
-    b, o = best(bare), best(ours)
-    per = len(texts) or 1
-    return (f"{o / per * 1000:.2f} ms/file vs ruamel.yaml round-trip {b / per * 1000:.2f} ms/file: "
-            f"ratio {o / b:.2f} ({len(texts)} YAML files)")
+def commit() -> str:
+    try:
+        out = subprocess.run(["git", "rev-parse", "--short", "HEAD"], capture_output=True, text=True,
+                             cwd=ROOT, timeout=10)
+        dirty = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no"],
+                               capture_output=True, text=True, cwd=ROOT, timeout=10).stdout.strip()
+        return out.stdout.strip() + (" (with uncommitted changes)" if dirty else "")
+    except (OSError, subprocess.SubprocessError):
+        return "unknown"
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("--files", type=int, default=2000)
-    ap.add_argument("--repeat", type=int, default=15, help="runs per cold-start median")
-    ap.add_argument("--jobs", type=int, default=os.cpu_count() or 1)
+# --------------------------------------------------------------------------- the sections
+
+@dataclass
+class Bench:
+    tmp: Path
+    corpus: list[str]  # the corpus folders (N files)
+    shards: list[Path]  # 16 folders of N/4 files each (the memory figure's 4N files)
+    one: Path
+    files: int
+    repeat: int
+    quick: bool
+    no_cache: list[str]  # ["--no-cache"] when lint has it
+    growth: str = "full"  # sizes of the growth curves
+    uncached: dict[str, float] = field(default_factory=dict)  # median of the uncached corpus lint
+
+    def cfg(self, *args: str) -> list[str]:
+        return [PY, "-c", ENTRY, *args]
+
+    def lint(self, *args: str) -> list[str]:
+        return self.cfg("lint", "--no-project", *self.no_cache, *args)
+
+    def floor(self, mode: str, *paths: str) -> list[str]:
+        return [PY, str(BENCH / "floors.py"), mode, *paths]
+
+
+def sec_cold(b: Bench) -> None:
+    r = race({"lint": b.lint(str(b.one)), "floor": [PY, "-c", "import yaml, typer"]}, b.repeat * 3)
+    rs = r.ratios("lint", "floor")
+    row(LABELS["cold"][0], seconds(r.median("lint")), seconds(r.median("floor")), spread(rs), "≤ 1.3",
+        at_most(rs, 1.3))
+
+
+def sec_corpus(b: Bench) -> None:
+    r = race({"lint": b.lint(*b.corpus), "load": b.floor("load", *b.corpus),
+              "compose": b.floor("compose", *b.corpus)}, b.repeat)
+    b.uncached["lint"] = r.median("lint")
+    rs = r.ratios("lint", "load")
+    n = b.files
+    row(LABELS["corpus"][0], f"{seconds(r.median('lint'))} ({n / r.median('lint'):.0f} files/s)",
+        f"{seconds(r.median('load'))} ({n / r.median('load'):.0f} files/s)", spread(rs), "≤ 1.5", at_most(rs, 1.5))
+    rs = r.ratios("lint", "compose")
+    row(LABELS["corpus"][1], seconds(r.median("lint")), seconds(r.median("compose")), spread(rs), "-", "-")
+
+
+def sec_peer(b: Bench) -> None:
+    schemas = b.tmp / "schemas"
+    schemas.mkdir(exist_ok=True)
+    for layout in ("trainer", "deepspeed", "peft-adapter"):
+        out = subprocess.run(b.cfg("schema", "--layout", layout), capture_output=True, text=True, env=ENV,
+                             cwd=ROOT, check=True).stdout
+        (schemas / f"{layout}.json").write_text(out, encoding="utf-8")
+    r = race({"lint": b.lint(*b.corpus), "peer": [PY, str(BENCH / "peer_jsonschema.py"), str(schemas), *b.corpus]},
+             b.repeat)
+    rs = r.ratios("lint", "peer")
+    row(LABELS["peer"][0], seconds(r.median("lint")), seconds(r.median("peer")), spread(rs), "< 1 (faster)",
+        "met" if statistics.median(rs) < 1 else f"missed ({statistics.median(rs):.1f}x slower)")
+
+
+def sec_script(b: Bench) -> None:
+    r = race({"lint": b.lint(*b.corpus), "peer": [PY, str(BENCH / "peer_script.py"), *b.corpus]}, b.repeat)
+    rs = r.ratios("lint", "peer")
+    row(LABELS["script"][0], seconds(r.median("lint")), seconds(r.median("peer")), spread(rs), "≤ 1.5",
+        at_most(rs, 1.5))
+
+
+def sec_jobs(b: Bench) -> None:
+    from cfgcheck.parallel import usable_cpus, worker_count
+
+    r = race({"serial": b.lint(*b.corpus), "two": b.lint("--jobs", "2", *b.corpus),
+              "auto": b.lint("--jobs", "auto", *b.corpus)}, b.repeat)
+    cpus = usable_cpus()
+    for label, name, workers in ((LABELS["jobs"][0], "two", 2),
+                                 (LABELS["jobs"][1], "auto", worker_count("auto", b.files))):
+        rs = [s / p for s, p in zip(r.wall["serial"], r.wall[name])]
+        added = statistics.median(r.cpu[name]) / statistics.median(r.cpu["serial"])
+        ideal = min(workers, cpus)
+        target = f"≥ {0.9 * ideal:.1f}" if ideal > 1 else "-"
+        verdict = at_least(rs, 0.9 * ideal) if ideal > 1 else "serial here (one usable CPU or a short run)"
+        row(label, f"{seconds(r.median(name))} ({workers} process{'es' if workers > 1 else ''}; CPU {added:.2f}x serial's)",
+            seconds(r.median("serial")), spread(rs), target, verdict)
+
+
+ALLOWED = """
+import json, sys, time
+from cfgcheck import engine, parallel
+opts = engine.Options()
+pairs = [(f, opts) for f in engine.expand_paths(sys.argv[2:])]
+cpu = time.process_time()
+for _report in engine.lint_files(pairs, jobs=int(sys.argv[1]), keep_views=False):
+    pass
+if sys.argv[1] == "1":
+    print(json.dumps([time.process_time() - cpu]))
+else:
+    print(json.dumps([parallel.LAST_RUN["here"], max(parallel.LAST_RUN["workers"].values())]))
+"""
+
+
+def sec_allowed(b: Bench) -> None:
+    """Serial CPU over the parallel run's critical path in CPU (this process up to the pool's
+    start, then the busiest worker), each in a fresh process: the speed-up two idle cores would
+    give, whatever the load."""
+    label = LABELS["allowed"][0]
+    runs = []
+    for r in range(b.repeat):
+        pair = []
+        for jobs in ("1", "2") if r % 2 == 0 else ("2", "1"):
+            out = subprocess.run([PY, "-c", ALLOWED, jobs, *b.corpus], capture_output=True, text=True,
+                                 env=ENV, cwd=ROOT)
+            if out.returncode != 0:
+                row(label, "failed", "-", "-", "≥ 1.8", (out.stderr.strip().splitlines() or ["no output"])[-1])
+                return
+            pair.append((jobs, json.loads(out.stdout.strip().splitlines()[-1])))
+        got = dict(pair)
+        runs.append((got["1"][0], *got["2"]))
+    rs = [s / (h + w) for s, h, w in runs]
+    med = statistics.median
+    row(label, f"CPU {med([h for _, h, _ in runs]):.2f} s here + {med([w for *_, w in runs]):.2f} s "
+        "busiest worker", f"serial CPU {med([s for s, *_ in runs]):.2f} s", spread(rs), "≥ 1.8", at_least(rs, 1.8))
+
+
+def sec_threshold(b: Bench) -> None:
+    sizes = [4, 8] if b.quick else [16, 32, 64, 128, 256]
+    files = sorted(p for s in b.shards for p in s.iterdir())
+    parts = []
+    for n in sizes:
+        folder = b.tmp / f"small{n}"
+        if not folder.exists():
+            folder.mkdir()
+            for p in files[:n]:
+                shutil.copy(p, folder / p.name)
+        r = race({"serial": b.lint(str(folder)), "two": b.lint("--jobs", "2", str(folder))}, b.repeat)
+        rs = [s / p for s, p in zip(r.wall["serial"], r.wall["two"])]
+        parts.append(f"{n}: {spread(rs)}")
+    from cfgcheck.parallel import AUTO_FILES_PER_WORKER
+
+    row(LABELS["threshold"][0], "; ".join(parts), "-", "(files: speed-up)", "> 1 above the threshold",
+        f"--jobs auto stays serial below {2 * AUTO_FILES_PER_WORKER} files")
+
+
+def sec_fix(b: Bench) -> None:
+    r = race({"fix": b.cfg("fix", "--no-project", "--diff", *b.corpus), "compose": b.floor("compose", *b.corpus)},
+             b.repeat)
+    rs = r.ratios("fix", "compose")
+    row(LABELS["fix"][0], seconds(r.median("fix")), seconds(r.median("compose")), spread(rs), "≤ 3", at_most(rs, 3))
+
+
+def sec_derive(b: Bench) -> None:
+    r = race({"derive": b.cfg("derive", "--no-project", *b.corpus), "compose": b.floor("compose", *b.corpus)},
+             b.repeat)
+    rs = r.ratios("derive", "compose")
+    row(LABELS["derive"][0], seconds(r.median("derive")), seconds(r.median("compose")), spread(rs), "≤ 2",
+        at_most(rs, 2))
+
+
+def sec_cache(b: Bench) -> None:
+    if not b.no_cache:
+        for label in LABELS["cache"]:
+            row(label, "cache not available", "-", "-", "≤ 2 (sha256)", "cache not available (no lint --no-cache)")
+        return
+    warm = b.cfg("lint", "--no-project", *b.corpus)
+    run_once(warm)  # fills the cache
+    r = race({"warm": warm, "sha": b.floor("sha256", *b.corpus), "uncached": b.lint(*b.corpus)}, b.repeat,
+             warm=False)
+    rs = r.ratios("warm", "sha")
+    row(LABELS["cache"][0], seconds(r.median("warm")), seconds(r.median("sha")), spread(rs), "≤ 2", at_most(rs, 2))
+    rs = r.ratios("warm", "uncached")
+    row(LABELS["cache"][1], seconds(r.median("warm")), seconds(r.median("uncached")), spread(rs), "-", "-")
+
+
+def sec_memory(b: Bench) -> None:
+    points = [(1, peak_rss_kib(["lint", "--no-project", *b.no_cache, str(b.one)]))]
+    for k in (1, 4, 16):
+        sub = [str(s) for s in b.shards[:k]]
+        n = sum(1 for s in b.shards[:k] for _ in s.iterdir())
+        points.append((n, peak_rss_kib(["lint", "--no-project", *b.no_cache, *sub])))
+    (n0, k0), (n1, k1) = points[1], points[-1]
+    per_file = (k1 - k0) / max(1, n1 - n0)
+    text = " / ".join(f"{n:,}: {kib / 1024:.1f} MiB" for n, kib in points)
+    row(LABELS["memory"][0], text, f"1 file: {points[0][1] / 1024:.1f} MiB",
+        f"{points[-1][1] / points[1][1]:.2f} ({n1:,} / {n0:,} files)", "flat",
+        f"{per_file:+.2f} KiB per file" + (" (flat)" if abs(per_file) < 1 else ""))
+
+
+def sec_growth(b: Bench) -> None:
+    out = b.tmp / "growth.json"
+    cmd = [PY, str(BENCH / "growth.py"), "--json", str(out)] + {"tiny": ["--tiny"], "quick": ["--quick"]}.get(b.growth, [])
+    proc = subprocess.run(cmd, capture_output=True, text=True, env=ENV, cwd=ROOT)
+    if proc.returncode != 0 or not out.exists():
+        for label in LABELS["growth"]:
+            row(label, "failed", "-", "-", "linear", proc.stderr.strip().splitlines()[-1:] or "no output")
+        return
+    curves = {c["curve"]: c for c in json.loads(out.read_text(encoding="utf-8"))}
+    for label in LABELS["growth"]:
+        c = curves.get(label.split(": ", 1)[1])
+        if c is None:
+            row(label, "not measured", "-", "-", "linear", "-")
+            continue
+        sizes = c["sizes"]
+        parts, verdicts = [], []
+        for what in ("lint", "fix"):
+            t = c[what]
+            if len(t) < 2:
+                continue
+            # time ratio per 10x size over each step (linear: 10, quadratic: 100)
+            steps = [(t[i + 1] / t[i]) ** (1 / math.log10(sizes[i + 1] / sizes[i]))
+                     for i in range(len(t) - 1) if t[i] > 0]
+            parts.append(f"{what} " + ", ".join(f"{s:.1f}" for s in steps))
+            last = steps[-1]
+            verdicts.append(f"{what} {'linear' if last <= 13 else 'superlinear'}")
+        times = "; ".join(f"{w} " + " / ".join(seconds(x) for x in c[w]) for w in ("lint", "fix") if c[w])
+        row(label, times, " / ".join(f"{s:,}" for s in sizes), "per 10x: " + "; ".join(parts), "10 (linear)",
+            ", ".join(verdicts) + " (largest step)")
+
+
+RUNNERS = {"cold": sec_cold, "corpus": sec_corpus, "peer": sec_peer, "script": sec_script, "jobs": sec_jobs,
+           "allowed": sec_allowed,
+           "threshold": sec_threshold, "fix": sec_fix, "derive": sec_derive, "cache": sec_cache,
+           "memory": sec_memory, "growth": sec_growth}
+
+
+def main(argv: list[str] | None = None) -> None:
+    global ENV, WARM
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0],
+                                 formatter_class=argparse.RawDescriptionHelpFormatter,
+                                 epilog=__doc__.split("\n\n", 2)[2])
+    ap.add_argument("--files", type=int, default=None, help="configs in the corpus (default 2000; --quick: 16)")
+    ap.add_argument("--repeat", type=int, default=None,
+                    help="measured runs of each command per row (default 7, cold start 3x that; --quick: 1)")
+    ap.add_argument("--only", default=",".join(SECTIONS), help="sections to run, comma-separated: " + ", ".join(SECTIONS))
+    ap.add_argument("--quick", action="store_true", help="a handful of files, one run each, tiny growth curves")
+    ap.add_argument("--growth", choices=("tiny", "quick", "full"), default=None,
+                    help="sizes of the growth curves (default full; --quick: tiny)")
     ap.add_argument("--keep", type=Path, help="write the corpus here and keep it")
-    a = ap.parse_args()
+    a = ap.parse_args(argv)
+    only = [s.strip() for s in a.only.split(",") if s.strip()]
+    unknown = [s for s in only if s not in RUNNERS]
+    if unknown:
+        ap.error(f"unknown section(s) {', '.join(unknown)}; choose from {', '.join(SECTIONS)}")
+    files = a.files or (16 if a.quick else 2000)
+    repeat = a.repeat or (1 if a.quick else 7)
+    WARM = not a.quick
 
+    if a.keep is not None and a.keep.exists():
+        ap.error(f"--keep {a.keep}: the folder exists (the corpus is written afresh)")
     tmp = Path(tempfile.mkdtemp(prefix="cfgcheck-bench-")) if a.keep is None else a.keep
     try:
-        shards = make_corpus(tmp / "corpus", a.files)
-        files = sorted(p for s in shards for p in s.iterdir())
-        one = next(p for p in files if p.name.endswith("trainer-flat.yaml"))
-        py = sys.executable
-        lint = [py, "-c", ENTRY, "lint"]
-        subprocess.run(lint + [str(one)], capture_output=True, env=_env(), cwd=ROOT)  # warm: bytecode
-
+        ENV = _env(tmp / "cache")
+        # 16 shards of files/4: the first 4 are the corpus, all 16 the memory figure's largest run
+        shards = make_corpus(tmp / "corpus", files * 4, shards=16)
+        corpus = [str(s) for s in shards[:4]]
+        one = next(p for s in shards for p in sorted(s.iterdir()) if p.name.endswith("trainer-flat.yaml"))
+        no_cache = ["--no-cache"] if has_option("lint", "--no-cache") else []
+        b = Bench(tmp=tmp, corpus=corpus, shards=shards, one=one, files=files, repeat=repeat, quick=a.quick,
+                  no_cache=no_cache, growth=a.growth or ("tiny" if a.quick else "full"))
+        print(f"cfgcheck benchmark: commit {commit()}, {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}")
         print(f"machine: {machine()}")
-        print(f"    {load_average()} before")
-        print(f"corpus: {len(files)} files in {tmp / 'corpus'}")
-        floor = timed([py, "-c", "import yaml, typer"], a.repeat)
-        cold = timed(lint + [str(one)], a.repeat)
-        print(f"(a) cold start: lint one file {cold * 1000:.1f} ms vs import yaml, typer "
-              f"{floor * 1000:.1f} ms: ratio {cold / floor:.2f} (target <= 1.3)")
-
-        corpus_runs = max(3, a.repeat // 5)
-        bare = timed([py, "-c", BARE, str(tmp / "corpus")], corpus_runs)
-        serial = timed(lint + [str(tmp / "corpus")], corpus_runs, label="serial")
-        print(f"(b) corpus: lint {serial:.2f} s ({len(files) / serial:.0f} files/s) vs bare CSafeLoader "
-              f"parse {bare:.2f} s ({len(files) / bare:.0f} files/s): ratio {serial / bare:.2f} (target <= 1.5)")
-
-        par = timed(lint + [str(tmp / "corpus"), "--jobs", str(a.jobs)], corpus_runs, label="parallel")
-        print(f"(c) --jobs {a.jobs}: {par:.2f} s vs serial {serial:.2f} s: speed-up {serial / par:.2f} "
-              f"on {os.cpu_count()} cores (ideal {a.jobs:.0f}); CPU time {CPU['parallel']:.2f} s vs "
-              f"serial {CPU['serial']:.2f} s (the work added by the pool)")
-
-        print(f"(d) fixer: {fixer_figure(files, a.repeat)}")
-
-        sizes = []
-        for k in (1, 2, 4):
-            sub = [str(s) for s in shards[:k]]
-            n = sum(1 for s in shards[:k] for _ in s.iterdir())
-            sizes.append((n, peak_rss_kib(["lint", *sub])))
-        base = peak_rss_kib(["lint", str(one)])
-        mem = ", ".join(f"{n} files {kib / 1024:.1f} MiB" for n, kib in sizes)
-        print(f"    {load_average()} after the timed runs (other work on the machine skews (a)-(c))")
-        print(f"(e) peak memory: 1 file {base / 1024:.1f} MiB, {mem} "
-              f"(growth from {sizes[0][0]} to {sizes[-1][0]} files: {(sizes[-1][1] - sizes[0][1]) / 1024:+.1f} MiB)")
+        print(f"corpus: {files:,} files ({', '.join(n for n, *_ in LAYOUTS)}) in {tmp / 'corpus'}; "
+              f"{repeat} measured runs per command, interleaved; ratio: median [min–max] over the pairs of runs")
+        print(f"cache: {'lint --no-cache for the uncached figures' if no_cache else 'not available (no lint --no-cache)'}")
+        print(f"load average before: {load_average()}\n")
+        row("figure", "cfgcheck", "floor or peer", "ratio", "target", "verdict")
+        print("| --- | --- | --- | --- | --- | --- |")
+        for name in SECTIONS:
+            if name in only:
+                RUNNERS[name](b)
+        print(f"\nload average after: {load_average()} (other work on the machine moves every wall-clock figure)")
     finally:
         if a.keep is None:
             shutil.rmtree(tmp, ignore_errors=True)

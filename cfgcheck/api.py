@@ -150,7 +150,7 @@ def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = F
 
 def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
          baseline: str | Path | bool | None = None,
-         progress: Callable[[int, int], None] | None = None, jobs: int = 1,
+         progress: Callable[[int, int], None] | None = None, jobs: int | str = 1,
          keep_views: bool = True, cache: Any = False,
          **options: Any) -> Report:
     """Lint files and folders.
@@ -159,7 +159,8 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
     first path; a path reads that file; None ignores project files. Explicit ``options``
     (gpu, gpus, rows, only, skip, severity, thresholds) override the project's values.
     ``baseline``: a baseline file; findings it holds are left out (counted in ``baselined``).
-    ``jobs``: lint over that many processes (same reports, same order). ``keep_views=False``:
+    ``jobs``: lint over that many processes (same reports, same order); "auto": as many as the
+    usable CPUs, serial for a short list of files. ``keep_views=False``:
     drop each file's parsed documents once its rules have run (memory stays flat).
     ``cache``: True keeps results in the user's cache folder (``$CFGCHECK_CACHE_DIR`` or the
     platform's), a path keeps them there (or a ``cache.Store``); a file whose stored result still holds is not linted

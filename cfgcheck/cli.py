@@ -225,7 +225,8 @@ def lint(
     summary: bool = typer.Option(False, "--summary", help="Text output: only the summary line."),
     frame: Optional[bool] = typer.Option(None, "--frame/--no-frame", help="Text output: print the offending line with its value set off by >> << (default: on a terminal)."),
     debug: bool = typer.Option(False, "--debug", help="Re-raise an error inside a rule instead of reporting it."),
-    jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Lint files in N processes (output order stays the same)."),
+    jobs: str = typer.Option("1", "--jobs", "-j", metavar="N|auto",
+                             help="Lint files in N processes, or auto: one per usable CPU (a short run stays serial). Output order stays the same."),
     override: Optional[List[str]] = typer.Option(None, "--override", metavar="KEY=VALUE",
                                                  help="A key=value override the launch passes to the config's loader (repeatable), applied over the composed config."),
     sarif_not_checked: bool = typer.Option(False, "--sarif-not-checked",
@@ -249,6 +250,12 @@ def lint(
         _fail("cfgcheck: --project and --no-project exclude each other", 2)
     if baseline is not None and save_baseline is not None:
         _fail("cfgcheck: --baseline and --save-baseline exclude each other", 2)
+    from .parallel import parse_jobs
+
+    try:
+        workers = parse_jobs(jobs)
+    except ValueError as exc:
+        _fail(f"cfgcheck: {exc}", 2)
     _unknown_rules(list(only or []) + list(skip or []))
     levels = _severity_pairs(severity or [])
     _unknown_rules(levels)
@@ -278,7 +285,7 @@ def lint(
                     proj = load_project(found)
         if not paths and proj is None:
             paths = [Path(".")]  # no project file: the working folder
-        report = api.lint(paths or [], project=proj, progress=progress, jobs=jobs, keep_views=False,
+        report = api.lint(paths or [], project=proj, progress=progress, jobs=workers, keep_views=False,
                           baseline=False if save_baseline else baseline, cache=not no_cache,
                           **chosen)
     except (UnknownGpu, OptionError) as exc:

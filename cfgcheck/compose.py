@@ -395,12 +395,14 @@ def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (
         _apply_overrides(merged, list(overrides), override_label)
     if located is not None:
         _apply_located(merged, located)
-    entries, origins, chains = {}, {}, {}
+    entries, origins, chains, assumed = {}, {}, {}, {}
     ambiguities = []
     for path, (src_file, src_doc, doc_path) in merged.origin.items():
         entry = src_doc.entries.get(doc_path)
         if entry is not None:
             entries[path] = entry
+        if src_doc.assumed and doc_path in src_doc.assumed:
+            assumed[path] = src_doc.assumed[doc_path]
         origins[path] = src_file
         chain = merged.chain.get(path, [])
         if len(chain) > 1 and not isinstance(_value_at(merged.data, path), dict):
@@ -417,7 +419,7 @@ def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (
                     duplicates=list(doc.duplicates), ambiguities=ambiguities, tags=list(doc.tags),
                     index=doc.index, origins=origins, overrides=chains,
                     composed_from=list(state.files),
-                    number_reader=OMEGACONF_READER if state.defaults_list else "")
+                    number_reader=OMEGACONF_READER if state.defaults_list else "", assumed=assumed)
 
 
 def experiment_base(file: str, root: str, names: tuple[str, ...]) -> str | None:

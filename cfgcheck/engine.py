@@ -416,11 +416,11 @@ def lint_text(text: str, name: str = "<text>", options: Options | None = None,
 
 def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
     """A launch script: each training command's ``--key value`` arguments are linted like a flat
-    trainer config located at the script's lines, with the launch context the command gives."""
-    import dataclasses
-
-    from .run import open_view
-    from .scripts import ScriptTooLarge, read_script, script_document
+    trainer config located at the script's lines, with the launch context the command gives. A
+    command inside a ``for`` loop is one run per round; its findings are merged the way a sweep's
+    are (``sweep.merge_runs``): once, saying in which rounds they appear."""
+    from .scripts import ScriptNotRead, ScriptTooLarge, read_script
+    from .sweep import merge_runs
 
     options = options or Options()
     name = str(path)
@@ -428,31 +428,56 @@ def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
         launches = read_script(path)
     except ScriptTooLarge as exc:
         return FileReport(file=name, skipped=exc.reason)
+    except ScriptNotRead as exc:
+        return FileReport(file=name, skipped=f"not read: {exc.reason}" + (f" (line {exc.line})" if exc.line else ""))
     except LoadError as exc:
         return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
                                                           column=exc.column, reason=exc.reason))
     report = FileReport(file=name)
-    for i, sl in enumerate(launches):
-        try:  # the crash boundary of one launch: a bug here spares the others
-            if _lint_overridden_configs(sl, options, report):
-                continue  # its arguments override the configs it starts: linted with their runs
-            doc = script_document(sl, i)
-            if doc is None:
-                continue
-            view = build_view(doc, "trainer")
-            report.views.append(view)
-            report.layout = report.layout or "launch script"
-            open_view(view, name, dataclasses.replace(options, script=sl))
-            lint_view(view, options, name, report)
-        except Exception as exc:
-            if options.debug:
-                raise
-            report.internal.append(internal_error(name, None, exc))
+    groups: dict[int, list] = {}
+    for sl in launches:
+        groups.setdefault(sl.at, []).append(sl)
+    for i, rounds in enumerate(groups.values()):
+        if len(rounds) == 1:
+            _lint_launch(rounds[0], i, name, options, report)
+            continue
+        runs = []
+        for sl in rounds:
+            one = FileReport(file=name)
+            _lint_launch(sl, i, name, options, one)
+            runs.append((sl.run, one.findings))
+            report.views += one.views
+            report.internal += one.internal
+            report.layout = report.layout or one.layout
+        merge_runs(runs, len(rounds), report, "the loop")
     if not report.layout and not report.internal:
         report.skipped = ("a shell script that starts no training" if not launches
                           else "a launch script with no trainer arguments of its own")
     report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
     return report
+
+
+def _lint_launch(sl, index: int, name: str, options: Options, report: FileReport) -> None:
+    import dataclasses
+
+    from .run import open_view
+    from .scripts import script_document
+
+    try:  # the crash boundary of one launch: a bug here spares the others
+        if _lint_overridden_configs(sl, options, report):
+            return  # its arguments override the configs it starts: linted with their runs
+        doc = script_document(sl, index)
+        if doc is None:
+            return
+        view = build_view(doc, "trainer")
+        report.views.append(view)
+        report.layout = report.layout or "launch script"
+        open_view(view, name, dataclasses.replace(options, script=sl))
+        lint_view(view, options, name, report)
+    except Exception as exc:
+        if options.debug:
+            raise
+        report.internal.append(internal_error(name, None, exc))
 
 
 def _lint_overridden_configs(sl, options: Options, report: FileReport) -> bool:
@@ -517,7 +542,7 @@ def _listable(path: str | Path) -> None:
 
 
 def lint_paths(paths: Iterable[str | Path], options: Options | None = None, *,
-               options_for: Callable[[str], Options] | None = None, jobs: int = 1,
+               options_for: Callable[[str], Options] | None = None, jobs: int | str = 1,
                keep_views: bool = True) -> Report:
     """Lint files and folders; ``options_for(file)`` gives per-file options when they differ.
 
@@ -531,22 +556,25 @@ def lint_paths(paths: Iterable[str | Path], options: Options | None = None, *,
     return Report(files=list(lint_files(pairs, jobs=jobs, keep_views=keep_views)))
 
 
-def lint_files(pairs: list[tuple[str, Options]], *, jobs: int = 1,
+def lint_files(pairs: list[tuple[str, Options]], *, jobs: int | str = 1,
                keep_views: bool = True, cache: Any = None) -> Iterator[FileReport]:
-    """(file, options) pairs -> their reports, in order, each as soon as it is ready.
+    """(file, options) pairs -> their reports, in order, each as soon as it is ready. ``jobs``:
+    a number of processes, or "auto" (the usable CPUs; serial for a short list of files). What
+    lies around the files (repository roots, pinned releases) is looked up once per folder.
 
     ``cache``: a ``cache.Store``; a file whose stored report still holds is not linted again
-    (such a report has no views), the others are linted and stored. What lies around the files
-    (repository roots, pinned releases) is looked up once per folder (memo.py)."""
+    (such a report has no views), the others are linted and stored."""
     with memo.scope():
         if cache is not None:
             yield from _lint_files_cached(pairs, jobs, keep_views, cache)
             return
-        if jobs > 1 and len(pairs) > 1:
-            from .parallel import lint_files_parallel
+        if jobs != 1 and len(pairs) > 1:
+            from .parallel import lint_files_parallel, worker_count
 
-            yield from lint_files_parallel(pairs, jobs, lint_file=lint_file, prepare=active_rules)
-            return
+            workers = worker_count(jobs, len(pairs))
+            if workers > 1:
+                yield from lint_files_parallel(pairs, workers, lint_file=lint_file, prepare=active_rules)
+                return
         for path, opts in pairs:
             report = lint_file(path, opts)
             if not keep_views:
@@ -572,16 +600,20 @@ def _lint_recorded_in_worker(path: str, options: Options) -> FileReport:
     return report
 
 
-def _lint_files_cached(pairs: list[tuple[str, Options]], jobs: int, keep_views: bool,
+def _lint_files_cached(pairs: list[tuple[str, Options]], jobs: int | str, keep_views: bool,
                        store: Any) -> Iterator[FileReport]:
     from .cache import lint_cached
 
     many = None
-    if jobs > 1 and len(pairs) > 1:
-        from .parallel import lint_files_parallel
+    if jobs != 1 and len(pairs) > 1:
+        from .parallel import lint_files_parallel, worker_count
 
         def many(misses: list[tuple[str, Options]]) -> Iterator[tuple[FileReport, dict]]:
-            for report in lint_files_parallel(misses, jobs, lint_file=_lint_recorded_in_worker,
+            workers = worker_count(jobs, len(misses))  # the files left to lint decide
+            if workers <= 1:
+                yield from (lint_file_recorded(path, opts) for path, opts in misses)
+                return
+            for report in lint_files_parallel(misses, workers, lint_file=_lint_recorded_in_worker,
                                               prepare=active_rules):
                 yield report, report.__dict__.pop("_reads", {})
 

@@ -124,6 +124,8 @@ class Document:
     overrides: dict[Path_, list[str]] = field(default_factory=dict)
     composed_from: list[str] = field(default_factory=list)
     number_reader: str = ""  # why the loader reads 2e-5 as a number, when it does (compose.py)
+    # values nothing states for sure (a launch script's ``${LR:-2e-4}`` default): path -> in words
+    assumed: dict[Path_, str] = field(default_factory=dict)
 
     def entry(self, path: Path_) -> Entry | None:
         return self.entries.get(tuple(path))

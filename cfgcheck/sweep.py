@@ -267,6 +267,11 @@ def lint_runs(base_doc, base_file, names, cands, doc, file, run, report, layout)
         report.views.append(view)
         report.layout = report.layout or chosen
         report.internal.extend(internal)
+    merge_runs(runs, total, report)
+
+
+def merge_runs(runs: list[tuple[str, list]], total: int, report, whole: str = "the sweep") -> None:
+    """Each finding of the runs (label, findings) once into REPORT, saying in which runs."""
     seen: dict[tuple, list] = {}
     for label, findings in runs:
         for f in findings:
@@ -278,5 +283,5 @@ def lint_runs(base_doc, base_file, names, cands, doc, file, run, report, layout)
         if len(labels) == linted:
             note = f"in every run linted ({linted} of {total})"
         else:
-            note = f"in {len(labels)} of {linted} runs linted ({total} in the sweep): {shown}"
+            note = f"in {len(labels)} of {linted} runs linted ({total} in {whole}): {shown}"
         report.findings.append(replace(f, data={**f.data, "sweep": note}, fix=None))

@@ -365,8 +365,10 @@ def _add(view: RunView, name: str, path: tuple, written: Any, note: str = "") ->
             source = value
     value, ok, auto, from_text = _coerce(name, source)
     huge = ok and too_large(value)  # no rule does arithmetic on a number past any run's range
+    guess = view.doc.assumed.get(tuple(path)) if view.doc.assumed else None
     f = Field(name=name, value=value if ok and not huge else None, path=path, written=written,
-              auto=auto, from_text=from_text, note=note)
+              auto=auto, from_text=from_text, note=guess or note,
+              origin="assumed" if guess else "written")
     view.fields[name] = f
     if huge:
         view.out_of_range.append(f)

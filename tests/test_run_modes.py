@@ -86,7 +86,7 @@ def test_cli_jobs_same_bytes_and_exit(tmp_path):
     _corpus(tmp_path)
     runs = [subprocess.run([sys.executable, "-m", "cfgcheck", "lint", str(tmp_path), *extra],
                            capture_output=True, text=True, cwd=ROOT, env=ENV, timeout=120)
-            for extra in ([], ["--jobs", "2"], ["-j", "3"])]
+            for extra in ([], ["--jobs", "2"], ["-j", "3"], ["--jobs", "auto"])]
     assert {r.stdout for r in runs} == {runs[0].stdout}
     assert {r.returncode for r in runs} == {2}
 
@@ -96,7 +96,7 @@ def test_cli_jobs_same_bytes_and_exit(tmp_path):
 def test_direct_path_reads_options_like_typer():
     kw = fastcli.parse(["a.yaml", "--gpu", "t4", "--rows=1000", "-j", "2", "b.yaml", "--debug"], cli.lint)
     assert kw["paths"] == [Path("a.yaml"), Path("b.yaml")]
-    assert (kw["gpu"], kw["rows"], kw["jobs"], kw["debug"]) == ("t4", 1000, 2, True)
+    assert (kw["gpu"], kw["rows"], kw["jobs"], kw["debug"]) == ("t4", 1000, "2", True)  # --jobs: N or auto
     assert kw["fmt"] is cli.Format.text and kw["show"] is None and kw["gpus"] is None
     kw = fastcli.parse(["--only", "a", "--only", "b", "--no-frame", "-q"], cli.lint)
     assert (kw["only"], kw["frame"], kw["quiet"], kw["paths"], kw["skip"]) == (["a", "b"], False, True, None, None)
@@ -136,6 +136,8 @@ def test_other_commands_go_to_typer():
     ["fixtures/demo", "--no-frame", "-q", "--skip", "memory-exceeds-gpu"],
     ["fixtures/demo", "--format", "github", "--gate", "error", "-j", "2"],
     ["fixtures/demo", "--format", "sarif", "--no-cache"],
+    ["fixtures/demo", "--jobs", "auto"],
+    ["fixtures/demo", "--jobs", "0"],
 ])
 def test_direct_path_prints_what_typer_prints(args):
     direct = subprocess.run([sys.executable, "-m", "cfgcheck", "lint", *args], capture_output=True,

@@ -37,8 +37,12 @@ def summary_line(report, hidden_info: int = 0) -> str:
     unread = sorted({m.group(1) for fr in files if fr.skipped and not fr.problem
                      and (m := _UNREAD.search(fr.skipped))})
     unread_count = sum(1 for fr in files if fr.skipped and not fr.problem and _UNREAD.search(fr.skipped))
-    if report.skipped - unread_count:
-        parts.append(f"{report.skipped - unread_count} skipped (not training configs)")
+    not_read = [fr for fr in files if fr.skipped and not fr.problem and fr.skipped.startswith("not read: ")]
+    if report.skipped - unread_count - len(not_read):
+        parts.append(f"{report.skipped - unread_count - len(not_read)} skipped (not training configs)")
+    if not_read:  # valid input this version does not follow: named, with why
+        named = "; ".join(f"{fr.file}: {fr.skipped[len('not read: '):]}" for fr in not_read[:3])
+        parts.append(f"{len(not_read)} not read ({named}{'; ...' if len(not_read) > 3 else ''})")
     if unread_count:
         parts.append(f"{unread_count} not a format cfgcheck reads (yet): {', '.join(unread)}")
     if report.problems:
