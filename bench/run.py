@@ -466,7 +466,7 @@ for _report in engine.lint_files(pairs, jobs=int(sys.argv[1]), keep_views=False)
 if sys.argv[1] == "1":
     print(json.dumps([time.process_time() - cpu]))
 else:
-    print(json.dumps([parallel.LAST_RUN["here"], max(parallel.LAST_RUN["workers"].values())]))
+    print(json.dumps([parallel.LAST_RUN_CACHE["here"], max(parallel.LAST_RUN_CACHE["workers"].values())]))
 """
 
 

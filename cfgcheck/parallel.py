@@ -36,10 +36,11 @@ AUTO_FILES_PER_WORKER = 32
 
 CHUNKS_PER_WORKER = 4  # fewer: a slow chunk at the end idles the others; more: more round trips
 
-_PRELOAD = ["cfgcheck.engine", "cfgcheck.checks"]  # what a fork server imports once
+_PRELOAD = ("cfgcheck.engine", "cfgcheck.checks")  # what a fork server imports once
 
-_INHERITED: list[tuple[str, Any]] | None = None  # the pairs a forked worker reads by index
-_LINT: Callable[[str, Any], Any] | None = None
+# handed to forked workers, which inherit them (held only while a pool starts)
+_INHERITED_CACHE: list[tuple[str, Any]] | None = None  # the pairs a forked worker reads by index
+_LINT_CACHE: Callable[[str, Any], Any] | None = None
 
 
 def usable_cpus() -> int:
@@ -102,16 +103,16 @@ def _strip(report: Any) -> Any:
 # The last parallel run's CPU seconds: "here" (this process until the pool started: preparing,
 # the first file) and per worker process id (its chunks). bench/run.py reads it to tell the
 # speed-up the work allows from what a busy machine let it have.
-LAST_RUN: dict[str, Any] = {}
+LAST_RUN_CACHE: dict[str, Any] = {}
 
 
 def _lint_range(start: int, end: int) -> tuple[int, float, list[Any]]:
     """In a forked worker: lint the inherited pairs start..end -> (pid, CPU seconds, reports)."""
     import time
 
-    assert _INHERITED is not None and _LINT is not None
+    assert _INHERITED_CACHE is not None and _LINT_CACHE is not None
     cpu = time.process_time()
-    reports = [_strip(_LINT(path, options)) for path, options in _INHERITED[start:end]]
+    reports = [_strip(_LINT_CACHE(path, options)) for path, options in _INHERITED_CACHE[start:end]]
     return os.getpid(), time.process_time() - cpu, reports
 
 
@@ -139,7 +140,7 @@ def _context(fork: bool):
         return multiprocessing.get_context("fork")
     if "forkserver" in multiprocessing.get_all_start_methods():
         ctx = multiprocessing.get_context("forkserver")
-        ctx.set_forkserver_preload(_PRELOAD)
+        ctx.set_forkserver_preload(list(_PRELOAD))
         return ctx
     return multiprocessing.get_context("spawn")
 
@@ -149,7 +150,7 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
     """Reports for (file, options) pairs, in order, each yielded as soon as it and those before it
     are done. ``lint_file(path, options)`` lints one file (a module-level function, so a worker can
     be handed it); ``prepare(options)`` runs once per distinct options before the workers start."""
-    global _INHERITED, _LINT
+    global _INHERITED_CACHE, _LINT_CACHE
     import time
 
     if not pairs:
@@ -173,10 +174,10 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
 
     futures: list = []
     pool = None
-    LAST_RUN.clear()
-    LAST_RUN.update(here=time.process_time() - started, workers={})
+    LAST_RUN_CACHE.clear()
+    LAST_RUN_CACHE.update(here=time.process_time() - started, workers={})
     if fork:
-        _INHERITED, _LINT = rest, lint_file
+        _INHERITED_CACHE, _LINT_CACHE = rest, lint_file
         gc.freeze()  # the workers' collector then leaves the inherited objects (and their pages) alone
     try:
         pool = ProcessPoolExecutor(max_workers=workers, mp_context=_context(fork))
@@ -192,7 +193,7 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
     finally:
         if fork:
             gc.unfreeze()
-            _INHERITED, _LINT = None, None  # the workers have their copy
+            _INHERITED_CACHE, _LINT_CACHE = None, None  # the workers have their copy
     try:
         for done, (a, b) in enumerate(bounds):
             try:
@@ -205,7 +206,7 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
                 for path, options in rest[a:]:
                     yield _strip(lint_file(path, options))
                 return
-            LAST_RUN["workers"][pid] = LAST_RUN["workers"].get(pid, 0.0) + cpu
+            LAST_RUN_CACHE["workers"][pid] = LAST_RUN_CACHE["workers"].get(pid, 0.0) + cpu
             yield from reports
     finally:
         if pool is not None:

@@ -141,7 +141,7 @@ class _Tok:
 
 
 MAX_ROUNDS = 24  # the most rounds of a script's loops linted: as many runs as a sweep's (sweep.MAX_RUNS)
-_WORSE = {"known": 0, "default": 1, "unknown": 2}
+_WORSE = MappingProxyType({"known": 0, "default": 1, "unknown": 2})
 # ${X}, $X, ${X[@]}, ${X[*]}, ${X[3]} as a whole word
 _WHOLE = re.compile(r"^\$(?:\{([A-Za-z_][A-Za-z0-9_]*)(?:\[([@*]|[0-9]+)\])?\}|([A-Za-z_][A-Za-z0-9_]*))$")
 # what is left after substitution that only the running shell knows: $1, $@, $(...), ${X/a/b}, `...`
