@@ -185,13 +185,16 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
         store = cache if isinstance(cache, Store) else Store(None if cache is True else cache)
     linted = engine.lint_files([(f, options_for(f)) for f, skip in files if not skip],
                                jobs=jobs, keep_views=keep_views, cache=store)
-    for i, (file, skip) in enumerate(files, start=1):
-        if skip:
-            report.files.append(FileReport(file=file, skipped=skip))
-        else:
-            report.files.append(next(linted))
-        if progress is not None:
-            progress(i, len(files))
+    try:
+        for i, (file, skip) in enumerate(files, start=1):
+            if skip:
+                report.files.append(FileReport(file=file, skipped=skip))
+            else:
+                report.files.append(next(linted))
+            if progress is not None:
+                progress(i, len(files))
+    finally:
+        linted.close()  # ends the run's memo scope now, even when a caller's progress raised
     if store is not None:
         store.close()  # trims the cache folder when that is due
     if baseline is not None and baseline is not False:

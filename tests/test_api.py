@@ -92,3 +92,32 @@ def test_import_is_cheap_and_the_api_loads_on_use():
     assert sorted(dir(cfgcheck)) == sorted(cfgcheck.__all__)
     with pytest.raises(AttributeError):
         cfgcheck.no_such_name
+
+
+def test_a_run_that_raises_leaves_nothing_remembered_for_the_next_run(tmp_path):
+    # A run remembers what it looked up on disk (memo.py) until it ends. A run that ends in an
+    # exception held by its caller (here: a baseline that does not exist) must still end, or the
+    # next run would see a checkpoint folder as it was before it changed.
+    import json
+
+    from cfgcheck import api
+    from cfgcheck.baseline import BaselineError
+
+    ckpt = tmp_path / "ckpt"
+    ckpt.mkdir()
+    shape = {"model_type": "llama", "hidden_size": 4096, "intermediate_size": 11008,
+             "num_hidden_layers": 32, "num_attention_heads": 32, "num_key_value_heads": 32,
+             "vocab_size": 32000, "max_position_embeddings": 4096, "tie_word_embeddings": False,
+             "torch_dtype": "bfloat16"}  # Llama 2 7B's config.json (meta-llama/Llama-2-7b-hf), from memory
+    (ckpt / "config.json").write_text(json.dumps(shape))
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(f"model_name_or_path: {ckpt}\nlearning_rate: 2.0e-5\nper_device_train_batch_size: 8\n"
+                   "max_seq_length: 4096\n")
+    with pytest.raises(BaselineError) as held:
+        api.lint([cfg], project=None, gpu="t4", baseline=tmp_path / "none.json")
+    before = sorted(f.message for f in api.lint([cfg], project=None, gpu="t4").findings)
+    (ckpt / "config.json").write_text(json.dumps(dict(shape, hidden_size=1024, intermediate_size=2816,
+                                                      num_hidden_layers=8, num_attention_heads=16,
+                                                      num_key_value_heads=16)))
+    after = sorted(f.message for f in api.lint([cfg], project=None, gpu="t4").findings)
+    assert held.value is not None and before and after != before
