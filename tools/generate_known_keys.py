@@ -849,44 +849,41 @@ def scan_axolotl(pkg: Package) -> tuple[Found, list[str]]:
     return found, files
 
 
-def scan_llamafactory(pkg: Package) -> tuple[Found, list[str]]:
+def _scan_argument_classes(pkg: Package, classes: list[tuple[str, str]], origin: str,
+                           what: str) -> tuple[Found, list[str]]:
+    """The fields of each (module, class), every one noted as ORIGIN.<declaring class>."""
     found: Found = {}
     files = []
-    for modname, clsname in [
+    for modname, clsname in classes:
+        mod = pkg.module(modname)
+        if mod is None or clsname not in mod.classes:
+            raise SystemExit(f"no {what}{clsname} in the llamafactory archive")
+        for name, (declaring, _m, _a, _v) in all_fields(pkg, mod, mod.classes[clsname]).items():
+            add(found, name, f"{origin}.{declaring.name}")
+        files.append(f"{pkg.by_name[modname]} {clsname}")
+    return found, files
+
+
+def scan_llamafactory(pkg: Package) -> tuple[Found, list[str]]:
+    return _scan_argument_classes(pkg, [
         ("llamafactory.hparams.model_args", "ModelArguments"),
         ("llamafactory.hparams.data_args", "DataArguments"),
         ("llamafactory.hparams.training_args", "TrainingArguments"),
         ("llamafactory.hparams.finetuning_args", "FinetuningArguments"),
         ("llamafactory.hparams.generating_args", "GeneratingArguments"),
         ("llamafactory.hparams.evaluation_args", "EvaluationArguments"),
-    ]:
-        mod = pkg.module(modname)
-        if mod is None or clsname not in mod.classes:
-            raise SystemExit(f"no {clsname} in the llamafactory archive")
-        for name, (declaring, _m, _a, _v) in all_fields(pkg, mod, mod.classes[clsname]).items():
-            add(found, name, f"llamafactory.{declaring.name}")
-        files.append(f"{pkg.by_name[modname]} {clsname}")
-    return found, files
+    ], "llamafactory", "")
 
 
 def scan_llamafactory_v1(pkg: Package) -> tuple[Found, list[str]]:
     """LLaMA-Factory's v1 trainer: the dataclasses ``llamafactory/v1/config/arg_parser.py`` get_args
     parses with HfArgumentParser.parse_dict (extra keys refused unless ALLOW_EXTRA_KEYS is set)."""
-    found: Found = {}
-    files = []
-    for modname, clsname in [
+    return _scan_argument_classes(pkg, [
         ("llamafactory.v1.config.model_args", "ModelArguments"),
         ("llamafactory.v1.config.data_args", "DataArguments"),
         ("llamafactory.v1.config.training_args", "TrainingArguments"),
         ("llamafactory.v1.config.sample_args", "SampleArguments"),
-    ]:
-        mod = pkg.module(modname)
-        if mod is None or clsname not in mod.classes:
-            raise SystemExit(f"no v1 {clsname} in the llamafactory archive")
-        for name, (declaring, _m, _a, _v) in all_fields(pkg, mod, mod.classes[clsname]).items():
-            add(found, name, f"llamafactory.v1.{declaring.name}")
-        files.append(f"{pkg.by_name[modname]} {clsname}")
-    return found, files
+    ], "llamafactory.v1", "v1 ")
 
 
 def _signature(node: ast.FunctionDef | ast.ClassDef, pkg: Package, mod: Module, depth: int = 0):
