@@ -18,6 +18,7 @@ True
 from __future__ import annotations
 
 import re
+from functools import lru_cache
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -49,6 +50,7 @@ def parse_requirement(line: str) -> tuple[str, str] | None:
     return _norm(m.group(1)), m.group(2)
 
 
+@lru_cache(maxsize=4096)  # a pure function asked about the same few releases for every key
 def version_key(text: str) -> tuple[int, ...]:
     """'4.44.2' -> (4, 44, 2); pre-release and local parts are dropped."""
     out = []
