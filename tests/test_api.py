@@ -103,12 +103,11 @@ def test_a_run_that_raises_leaves_nothing_remembered_for_the_next_run(tmp_path):
     from cfgcheck import api
     from cfgcheck.baseline import BaselineError
 
+    from .helpers import LLAMA2_7B_CONFIG, SMALLER_LLAMA_CONFIG
+
     ckpt = tmp_path / "ckpt"
     ckpt.mkdir()
-    shape = {"model_type": "llama", "hidden_size": 4096, "intermediate_size": 11008,
-             "num_hidden_layers": 32, "num_attention_heads": 32, "num_key_value_heads": 32,
-             "vocab_size": 32000, "max_position_embeddings": 4096, "tie_word_embeddings": False,
-             "torch_dtype": "bfloat16"}  # Llama 2 7B's config.json (meta-llama/Llama-2-7b-hf), from memory
+    shape = LLAMA2_7B_CONFIG
     (ckpt / "config.json").write_text(json.dumps(shape))
     cfg = tmp_path / "run.yaml"
     cfg.write_text(f"model_name_or_path: {ckpt}\nlearning_rate: 2.0e-5\nper_device_train_batch_size: 8\n"
@@ -116,8 +115,6 @@ def test_a_run_that_raises_leaves_nothing_remembered_for_the_next_run(tmp_path):
     with pytest.raises(BaselineError) as held:
         api.lint([cfg], project=None, gpu="t4", baseline=tmp_path / "none.json")
     before = sorted(f.message for f in api.lint([cfg], project=None, gpu="t4").findings)
-    (ckpt / "config.json").write_text(json.dumps(dict(shape, hidden_size=1024, intermediate_size=2816,
-                                                      num_hidden_layers=8, num_attention_heads=16,
-                                                      num_key_value_heads=16)))
+    (ckpt / "config.json").write_text(json.dumps(SMALLER_LLAMA_CONFIG))
     after = sorted(f.message for f in api.lint([cfg], project=None, gpu="t4").findings)
     assert held.value is not None and before and after != before

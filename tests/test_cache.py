@@ -23,6 +23,8 @@ from cfgcheck import api, cache, reads
 from cfgcheck.findings import FileReport, Finding, Severity
 from cfgcheck.render import render
 
+from .helpers import LLAMA2_7B_CONFIG, SMALLER_LLAMA_CONFIG
+
 ROOT = Path(__file__).resolve().parents[1]
 ENV = dict(os.environ, PYTHONPATH=str(ROOT), NO_COLOR="1")
 
@@ -204,17 +206,13 @@ def test_new_python_file_in_the_repository(tmp_path):
 def test_checkpoint_config_json_changed(tmp_path):
     ckpt = tmp_path / "ckpt"
     ckpt.mkdir()
-    shape = {"model_type": "llama", "hidden_size": 4096, "intermediate_size": 11008,
-             "num_hidden_layers": 32, "num_attention_heads": 32, "num_key_value_heads": 32,
-             "vocab_size": 32000, "max_position_embeddings": 4096, "tie_word_embeddings": False,
-             "torch_dtype": "bfloat16"}  # Llama 2 7B's config.json (meta-llama/Llama-2-7b-hf), from memory
+    shape = LLAMA2_7B_CONFIG
     (ckpt / "config.json").write_text(json.dumps(shape))
     cfg = tmp_path / "run.yaml"
     cfg.write_text(f"model_name_or_path: {ckpt}\nlearning_rate: 2.0e-5\nper_device_train_batch_size: 8\n"
                    "max_seq_length: 4096\nbf16: true\n")
-    smaller = dict(shape, hidden_size=1024, intermediate_size=2816, num_hidden_layers=8,
-                   num_attention_heads=16, num_key_value_heads=16)
-    Case(tmp_path).check([cfg], lambda: (ckpt / "config.json").write_text(json.dumps(smaller)), gpu="t4")
+    Case(tmp_path).check([cfg], lambda: (ckpt / "config.json").write_text(json.dumps(SMALLER_LLAMA_CONFIG)),
+                         gpu="t4")
 
 
 def test_catalogue_or_code_change_is_a_miss(tmp_path, monkeypatch):

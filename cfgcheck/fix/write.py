@@ -223,14 +223,19 @@ def atomic_write(path: str | Path, data: bytes, expected: bytes) -> None:
             finally:
                 os.close(fd1)
         except BaseException:
-            try:
-                os.unlink(tmp)
-            except FileNotFoundError:
-                pass
+            _discard(tmp)
             raise
     finally:
         os.close(fd0)
     _sync_folder(os.path.dirname(target))
+
+
+def _discard(tmp: str) -> None:
+    """Remove a temporary file of ours if it is still there."""
+    try:
+        os.unlink(tmp)
+    except FileNotFoundError:
+        pass
 
 
 def _temp_beside(target: str, data: bytes) -> str:
@@ -243,10 +248,7 @@ def _temp_beside(target: str, data: bytes) -> str:
             fh.flush()
             os.fsync(fh.fileno())
     except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
+        _discard(tmp)
         raise
     return tmp
 
@@ -257,10 +259,7 @@ def _put_back(target: str, data: bytes, st: os.stat_result) -> None:
         os.chmod(tmp, stat.S_IMODE(st.st_mode))
         os.replace(tmp, target)
     except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
+        _discard(tmp)
         raise
 
 
