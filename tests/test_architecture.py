@@ -16,7 +16,7 @@ LAYERS = {
     "engine": 4,
     "render": 5, "fix": 5, "project": 5, "projectfile": 5, "baseline": 5, "schema": 3,
     "api": 6, "editor": 6, "lrcurve": 1,
-    "cli": 7, "fastcli": 7, "__main__": 8, "__init__": 9,
+    "cli": 7, "fastcli": 7, "cliparams": 7, "__main__": 8, "__init__": 9,
 }
 
 
