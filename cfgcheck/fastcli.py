@@ -13,9 +13,9 @@ Part of the command-line layer: only ``cli.main`` calls it, and runs the command
 
 from __future__ import annotations
 
+import builtins
 import enum
 import os
-import typing
 from pathlib import Path
 from typing import Any, Callable
 
@@ -30,28 +30,36 @@ class _Decline(Exception):
     """This command line is typer's to read."""
 
 
-def _base(annotation: Any) -> tuple[Any, bool]:
-    """(type, is_list) for the annotations we read: T, Optional[T], List[T]."""
-    origin = typing.get_origin(annotation)
-    args = [a for a in typing.get_args(annotation) if a is not type(None)]
-    if origin is typing.Union and len(args) == 1:
-        return _base(args[0])
-    if origin is list and len(args) == 1:
-        return args[0], True
-    return annotation, False
+def _base(annotation: Any, names: dict[str, Any]) -> tuple[Any, bool]:
+    """(type, is_list) for the annotations we read, as written: ``T``, ``Optional[T]``,
+    ``List[T]``, ``Optional[List[T]]`` with T a plain name (evaluating them with typing would
+    compile each one). Anything else is typer's to read."""
+    if not isinstance(annotation, str):
+        raise _Decline
+    text, is_list = annotation.replace(" ", ""), False
+    if text.startswith("Optional[") and text.endswith("]"):
+        text = text[len("Optional["):-1]
+    if (text.startswith("List[") or text.startswith("list[")) and text.endswith("]"):
+        text, is_list = text[len("List["):-1], True
+    if not text.isidentifier():
+        raise _Decline
+    kind = names[text] if text in names else getattr(builtins, text, None)
+    if kind is None:
+        raise _Decline
+    return kind, is_list
 
 
 def _spec(fn: Callable) -> tuple[dict[str, tuple[str, Any, Param, str]], tuple[str, Any, Param] | None]:
     """Option spellings -> (parameter, type, declaration, how: "value" | "list" | "flag" | "on" |
     "off"), and the positional argument (parameter, type, declaration)."""
     target = declared(fn)
-    hints = typing.get_type_hints(target)
+    hints = target.__annotations__
     options: dict[str, tuple[str, Any, Param, str]] = {}
     argument = None
     for name, info in parameters(target):
         if not isinstance(info, Param) or not set(info.settings) <= _READ:
             raise _Decline
-        kind, is_list = _base(hints.get(name))
+        kind, is_list = _base(hints.get(name), target.__globals__)
         if kind not in (bool, int, str, Path) and not (isinstance(kind, type) and issubclass(kind, enum.Enum)):
             raise _Decline
         if info.argument:
