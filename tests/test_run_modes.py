@@ -251,6 +251,9 @@ _NOT_ON_THE_LINT_PATH = (
     "random",  # sampling a sweep too large to lint whole
     "typer", "click", "rich", "shellingham",  # the command line framework: fastcli reads plain lint lines
     "subprocess", "platform",  # nothing on the lint path starts a process or asks for the platform
+    "cfgcheck.scripts",  # the shell reader: only when a launch script is there (scriptfiles tells)
+    "cfgcheck.knowledge.chat_tokens",  # token tables: only for a file that names tokens or a template
+    "traceback",  # only to record a bug
 )
 
 
