@@ -662,7 +662,12 @@ def main() -> None:
     with scope():  # one command is one run: a folder's surroundings are looked up once
         kwargs = direct_arguments(sys.argv[1:], "lint", lint)  # plain `lint` lines skip typer
         if kwargs is not None:
-            lint(**kwargs)  # ends in SystemExit with the exit status
+            try:
+                lint(**kwargs)  # ends in SystemExit with the exit status
+            except Exception as exc:
+                if not _typer_way_out(exc):
+                    raise
+                sys.exit(getattr(exc, "exit_code", 1))  # a typer.Exit raised on this path too
             sys.exit(0)
         _app()()
 
