@@ -8,10 +8,11 @@ Both are frozen, keyword-only records. Findings are created in one place only,
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass, field
 from enum import IntEnum
 from types import MappingProxyType
 from typing import Any, Mapping
+
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 
 
 class OptionError(ValueError):
@@ -120,25 +121,76 @@ def json_text(doc: Any, indent: int | None = 2) -> str:
     return _SURROGATE.sub(lambda m: f"\\u{ord(m.group()):04x}", text)
 
 
-@dataclass(frozen=True, kw_only=True)
 class Edit:
     """One change a fix proposes: set the value at a key path, or insert a key."""
 
     path: tuple
     old: Any
     new: Any
-    insert: bool = False  # True when the key does not exist yet
-    after: tuple | None = None  # for an insertion: the sibling key path to place it after
+    insert: bool  # True when the key does not exist yet
+    after: tuple | None  # for an insertion: the sibling key path to place it after
+
+    __slots__ = ('path', 'old', 'new', 'insert', 'after')
+
+    def __init__(self, *, path, old, new, insert=False, after=None):
+        _setattr(self, 'path', path)
+        _setattr(self, 'old', old)
+        _setattr(self, 'new', new)
+        _setattr(self, 'insert', insert)
+        _setattr(self, 'after', after)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(path={self.path!r}, old={self.old!r}, new={self.new!r}, insert={self.insert!r}, after={self.after!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.path, self.old, self.new, self.insert, self.after) == (other.path, other.old, other.new, other.insert, other.after)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.path, self.old, self.new, self.insert, self.after))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.path, self.old, self.new, self.insert, self.after)
+
+    __setstate__ = _frozen_setstate
 
 
-@dataclass(frozen=True, kw_only=True)
 class Fix:
     tier: str  # "keeps-meaning" (applied by default) | "changes-training" (only when asked)
     summary: str
     edits: tuple[Edit, ...]
 
+    __slots__ = ('tier', 'summary', 'edits')
 
-@dataclass(frozen=True, kw_only=True)
+    def __init__(self, *, tier, summary, edits):
+        _setattr(self, 'tier', tier)
+        _setattr(self, 'summary', summary)
+        _setattr(self, 'edits', edits)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(tier={self.tier!r}, summary={self.summary!r}, edits={self.edits!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.tier, self.summary, self.edits) == (other.tier, other.summary, other.edits)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.tier, self.summary, self.edits))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.tier, self.summary, self.edits)
+
+    __setstate__ = _frozen_setstate
+
+
 class Related:
     """Another place the same cause is written (one cause, one finding)."""
 
@@ -146,8 +198,33 @@ class Related:
     line: int
     column: int
 
+    __slots__ = ('key', 'line', 'column')
 
-@dataclass(frozen=True, kw_only=True)
+    def __init__(self, *, key, line, column):
+        _setattr(self, 'key', key)
+        _setattr(self, 'line', line)
+        _setattr(self, 'column', column)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(key={self.key!r}, line={self.line!r}, column={self.column!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.key, self.line, self.column) == (other.key, other.line, other.column)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.key, self.line, self.column))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.key, self.line, self.column)
+
+    __setstate__ = _frozen_setstate
+
+
 class Finding:
     rule: str
     severity: Severity
@@ -157,11 +234,47 @@ class Finding:
     key: str  # dotted key path as written, "" for the whole document
     message: str
     hint: str
-    data: Mapping[str, Any] = field(default_factory=dict)
-    path: tuple = ()
-    document: int = 0
-    fix: Fix | None = None
-    related: tuple[Related, ...] = ()  # other places of the same cause (located by the engine)
+    data: Mapping[str, Any]
+    path: tuple
+    document: int
+    fix: Fix | None
+    related: tuple[Related, ...]  # other places of the same cause (located by the engine)
+
+    __slots__ = ('rule', 'severity', 'file', 'line', 'column', 'key', 'message', 'hint', 'data', 'path', 'document', 'fix', 'related')
+
+    def __init__(self, *, rule, severity, file, line, column, key, message, hint, data=None, path=(), document=0, fix=None, related=()):
+        _setattr(self, 'rule', rule)
+        _setattr(self, 'severity', severity)
+        _setattr(self, 'file', file)
+        _setattr(self, 'line', line)
+        _setattr(self, 'column', column)
+        _setattr(self, 'key', key)
+        _setattr(self, 'message', message)
+        _setattr(self, 'hint', hint)
+        _setattr(self, 'data', {} if data is None else data)
+        _setattr(self, 'path', path)
+        _setattr(self, 'document', document)
+        _setattr(self, 'fix', fix)
+        _setattr(self, 'related', related)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(rule={self.rule!r}, severity={self.severity!r}, file={self.file!r}, line={self.line!r}, column={self.column!r}, key={self.key!r}, message={self.message!r}, hint={self.hint!r}, data={self.data!r}, path={self.path!r}, document={self.document!r}, fix={self.fix!r}, related={self.related!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.rule, self.severity, self.file, self.line, self.column, self.key, self.message, self.hint, self.data, self.path, self.document, self.fix, self.related) == (other.rule, other.severity, other.file, other.line, other.column, other.key, other.message, other.hint, other.data, other.path, other.document, other.fix, other.related)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.rule, self.severity, self.file, self.line, self.column, self.key, self.message, self.hint, self.data, self.path, self.document, self.fix, self.related))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.rule, self.severity, self.file, self.line, self.column, self.key, self.message, self.hint, self.data, self.path, self.document, self.fix, self.related)
+
+    __setstate__ = _frozen_setstate
 
     def identity(self) -> tuple[str, str, str, str]:
         """Stable across line shifts: rule, file, key path and the values reported (data items
@@ -204,7 +317,6 @@ def _plain(value: Any) -> Any:
     return str(value)
 
 
-@dataclass(frozen=True, kw_only=True)
 class InputProblem:
     """The file could not be read as a config: not a finding about its values."""
 
@@ -213,11 +325,37 @@ class InputProblem:
     column: int
     reason: str
 
+    __slots__ = ('file', 'line', 'column', 'reason')
+
+    def __init__(self, *, file, line, column, reason):
+        _setattr(self, 'file', file)
+        _setattr(self, 'line', line)
+        _setattr(self, 'column', column)
+        _setattr(self, 'reason', reason)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(file={self.file!r}, line={self.line!r}, column={self.column!r}, reason={self.reason!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.file, self.line, self.column, self.reason) == (other.file, other.line, other.column, other.reason)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.file, self.line, self.column, self.reason))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.file, self.line, self.column, self.reason)
+
+    __setstate__ = _frozen_setstate
+
     def as_dict(self) -> dict[str, Any]:
         return {"file": self.file, "line": self.line, "column": self.column, "reason": self.reason}
 
 
-@dataclass(frozen=True, kw_only=True)
 class InternalError:
     """A rule raised, or cfgcheck itself failed on a file outside any rule (``rule`` None):
     a bug in cfgcheck, reported apart from the findings."""
@@ -225,6 +363,32 @@ class InternalError:
     file: str
     rule: str | None
     error: str
+
+    __slots__ = ('file', 'rule', 'error')
+
+    def __init__(self, *, file, rule, error):
+        _setattr(self, 'file', file)
+        _setattr(self, 'rule', rule)
+        _setattr(self, 'error', error)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(file={self.file!r}, rule={self.rule!r}, error={self.error!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.file, self.rule, self.error) == (other.file, other.rule, other.error)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.file, self.rule, self.error))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.file, self.rule, self.error)
+
+    __setstate__ = _frozen_setstate
 
     @property
     def where(self) -> str:
@@ -237,23 +401,56 @@ class InternalError:
 
 # --------------------------------------------------------------------------- results of a lint
 
-@dataclass
 class FileReport:
     file: str
-    findings: list[Finding] = field(default_factory=list)
-    problem: InputProblem | None = None
-    skipped: str | None = None
-    layout: str | None = None
-    internal: list[InternalError] = field(default_factory=list)
-    views: list = field(default_factory=list)  # the typed views (view.RunView) the rules judged
-    waived: list[tuple[Finding, str, str]] = field(default_factory=list)  # (finding, reason, "comment" | "project")
-    baselined: int = 0  # findings hidden because the baseline holds them
-    compose_problem: str | None = None  # why a composed config could not be put together
+    findings: list[Finding]
+    problem: InputProblem | None
+    skipped: str | None
+    layout: str | None
+    internal: list[InternalError]
+    views: list  # the typed views (view.RunView) the rules judged
+    waived: list[tuple[Finding, str, str]]  # (finding, reason, "comment" | "project")
+    baselined: int  # findings hidden because the baseline holds them
+    compose_problem: str | None  # why a composed config could not be put together
+
+    def __init__(self, file, findings=None, problem=None, skipped=None, layout=None, internal=None, views=None, waived=None, baselined=0, compose_problem=None):
+        self.file = file
+        self.findings = [] if findings is None else findings
+        self.problem = problem
+        self.skipped = skipped
+        self.layout = layout
+        self.internal = [] if internal is None else internal
+        self.views = [] if views is None else views
+        self.waived = [] if waived is None else waived
+        self.baselined = baselined
+        self.compose_problem = compose_problem
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(file={self.file!r}, findings={self.findings!r}, problem={self.problem!r}, skipped={self.skipped!r}, layout={self.layout!r}, internal={self.internal!r}, views={self.views!r}, waived={self.waived!r}, baselined={self.baselined!r}, compose_problem={self.compose_problem!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.file, self.findings, self.problem, self.skipped, self.layout, self.internal, self.views, self.waived, self.baselined, self.compose_problem) == (other.file, other.findings, other.problem, other.skipped, other.layout, other.internal, other.views, other.waived, other.baselined, other.compose_problem)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
-@dataclass
 class Report:
-    files: list[FileReport] = field(default_factory=list)
+    files: list[FileReport]
+
+    def __init__(self, files=None):
+        self.files = [] if files is None else files
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(files={self.files!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.files,) == (other.files,)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
     @property
     def findings(self) -> list[Finding]:

@@ -21,10 +21,10 @@ on (the line of the candidate in ``values:``), and says in how many runs it appe
 from __future__ import annotations
 
 import itertools
-from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
+from ._records import replaced
 from . import reads
 from .load import Document, Entry
 
@@ -284,4 +284,4 @@ def merge_runs(runs: list[tuple[str, list]], total: int, report, whole: str = "t
             note = f"in every run linted ({linted} of {total})"
         else:
             note = f"in {len(labels)} of {linted} runs linted ({total} in {whole}): {shown}"
-        report.findings.append(replace(f, data={**f.data, "sweep": note}, fix=None))
+        report.findings.append(replaced(f, data={**f.data, "sweep": note}, fix=None))

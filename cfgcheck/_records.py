@@ -1,0 +1,36 @@
+"""Shared pieces of the record classes written out by hand (findings, positions, views...).
+
+Those classes spell out their ``__init__``/``__repr__``/``__eq__``/``__hash__`` in the source
+instead of using ``@dataclass``: the decorator writes and compiles those methods again at every
+import, which was a large part of the start-up time of a lint of one file; written here they
+are compiled once into the ``.pyc``. A frozen record refuses attribute changes like a frozen
+dataclass (an ``AttributeError``), and pickles by its fields in order.
+"""
+
+from __future__ import annotations
+
+_setattr = object.__setattr__
+
+
+class FrozenRecordError(AttributeError):
+    """An attempt to change a field of a frozen record."""
+
+
+def _frozen_setattr(self, name, value):
+    raise FrozenRecordError(f"cannot assign to field {name!r}")
+
+
+def _frozen_delattr(self, name):
+    raise FrozenRecordError(f"cannot delete field {name!r}")
+
+
+def _frozen_setstate(self, state):
+    for name, value in zip(type(self).__slots__, state):
+        _setattr(self, name, value)
+
+
+def replaced(record, **changes):
+    """A copy of a slotted record with some fields changed (``dataclasses.replace`` for these
+    classes): every field is passed to the constructor by name."""
+    return type(record)(**{name: changes.pop(name) if name in changes else getattr(record, name)
+                           for name in type(record).__slots__}, **changes)
