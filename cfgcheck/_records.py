@@ -30,7 +30,9 @@ def _frozen_setstate(self, state):
 
 
 def replaced(record, **changes):
-    """A copy of a slotted record with some fields changed (``dataclasses.replace`` for these
-    classes): every field is passed to the constructor by name."""
-    return type(record)(**{name: changes.pop(name) if name in changes else getattr(record, name)
-                           for name in type(record).__slots__}, **changes)
+    """A copy of a record with some fields changed (``dataclasses.replace`` for these classes):
+    every field is passed to the constructor by name."""
+    cls = type(record)
+    names = getattr(cls, "_record_fields", None) or getattr(cls, "__slots__", None) or tuple(vars(record))
+    return cls(**{name: changes.pop(name) if name in changes else getattr(record, name) for name in names},
+               **changes)

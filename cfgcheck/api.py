@@ -10,7 +10,6 @@ from __future__ import annotations
 import json
 import os
 from collections.abc import Mapping
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
@@ -114,8 +113,7 @@ def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = F
 
     Launch scripts (``.sh``) under the paths pair the configs they start with their launch
     context (``Options.script``); with ``scripts`` the scripts themselves are listed too."""
-    import dataclasses
-
+    from ._records import replaced
     from .scriptfiles import find_scripts
 
     proj = _project(project, paths)
@@ -137,7 +135,7 @@ def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = F
         opts = base(file)
         sl = paired.get(os.path.normpath(os.path.abspath(file)))
         if sl is not None and opts.script is None:
-            opts = dataclasses.replace(opts, script=sl, script_linted=scripts)
+            opts = replaced(opts, script=sl, script_linted=scripts)
         return opts
 
     if scripts:
@@ -264,11 +262,27 @@ def visible(findings: Iterable[Finding], show: Severity) -> list[Finding]:
     return [f for f in findings if f.severity >= show]
 
 
-@dataclass
 class DeriveResult:
-    runs: list = field(default_factory=list)  # (file, Plan)
-    problems: list = field(default_factory=list)
-    internal: list = field(default_factory=list)  # a bug in cfgcheck on one file (exit 3)
+    runs: list  # (file, Plan)
+    problems: list
+    internal: list  # a bug in cfgcheck on one file (exit 3)
+
+    __slots__ = ('runs', 'problems', 'internal')
+
+    def __init__(self, runs=None, problems=None, internal=None):
+        self.runs = [] if runs is None else runs
+        self.problems = [] if problems is None else problems
+        self.internal = [] if internal is None else internal
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(runs={self.runs!r}, problems={self.problems!r}, internal={self.internal!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.runs, self.problems, self.internal) == (other.runs, other.problems, other.internal)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
 def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any) -> DeriveResult:

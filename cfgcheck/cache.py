@@ -88,6 +88,10 @@ def canonical(value: Any) -> Any:
         return ("set", tuple(sorted((canonical(v) for v in value), key=repr)))
     if isinstance(value, dict):
         return ("dict", tuple(sorted(((canonical(k), canonical(v)) for k, v in value.items()), key=repr)))
+    names = getattr(type(value), "_record_fields", None)  # a record class written out by hand
+    if names is not None:
+        return (type(value).__module__ + "." + type(value).__qualname__,
+                tuple((name, canonical(getattr(value, name))) for name in names))
     import dataclasses
 
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
@@ -97,10 +101,8 @@ def canonical(value: Any) -> Any:
 
 
 def options_text(options: Any) -> str:
-    import dataclasses
-
-    fields = [(f.name, canonical(getattr(options, f.name))) for f in dataclasses.fields(options)
-              if f.name not in _OPTIONS_LEFT_OUT]
+    fields = [(name, canonical(getattr(options, name))) for name in type(options)._record_fields
+              if name not in _OPTIONS_LEFT_OUT]
     return repr(fields)
 
 

@@ -6,12 +6,12 @@ import functools
 import marshal
 import os
 import sys
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import yaml
 
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from .findings import Severity
 
 try:
@@ -26,14 +26,38 @@ class CatalogueError(Exception):
     pass
 
 
-@dataclass(frozen=True)
 class Message:
     message: str
     hint: str
-    severity: Severity | None = None  # a variant may be more severe than the rule's default
+    severity: Severity | None  # a variant may be more severe than the rule's default
+
+    __slots__ = ('message', 'hint', 'severity')
+
+    def __init__(self, message, hint, severity=None):
+        _setattr(self, 'message', message)
+        _setattr(self, 'hint', hint)
+        _setattr(self, 'severity', severity)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(message={self.message!r}, hint={self.hint!r}, severity={self.severity!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.message, self.hint, self.severity) == (other.message, other.hint, other.severity)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.message, self.hint, self.severity))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.message, self.hint, self.severity)
+
+    __setstate__ = _frozen_setstate
 
 
-@dataclass(frozen=True)
 class Rule:
     id: str
     summary: str
@@ -43,10 +67,45 @@ class Rule:
     messages: dict[str, Message]
     thresholds: dict[str, Any]
     examples: dict[str, list[dict[str, Any]]]
-    fix: dict[str, Any] | None = None
-    needs: tuple[str, ...] = ()  # "gpu", "model", "rows": what the rule cannot judge without
-    path: str = ""
-    stage: str = "normal"  # "last": runs after the other rules and sees their findings
+    fix: dict[str, Any] | None
+    needs: tuple[str, ...]  # "gpu", "model", "rows": what the rule cannot judge without
+    path: str
+    stage: str  # "last": runs after the other rules and sees their findings
+
+    __slots__ = ('id', 'summary', 'severity', 'rationale', 'sources', 'messages', 'thresholds', 'examples', 'fix', 'needs', 'path', 'stage')
+
+    def __init__(self, id, summary, severity, rationale, sources, messages, thresholds, examples, fix=None, needs=(), path="", stage="normal"):
+        _setattr(self, 'id', id)
+        _setattr(self, 'summary', summary)
+        _setattr(self, 'severity', severity)
+        _setattr(self, 'rationale', rationale)
+        _setattr(self, 'sources', sources)
+        _setattr(self, 'messages', messages)
+        _setattr(self, 'thresholds', thresholds)
+        _setattr(self, 'examples', examples)
+        _setattr(self, 'fix', fix)
+        _setattr(self, 'needs', needs)
+        _setattr(self, 'path', path)
+        _setattr(self, 'stage', stage)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(id={self.id!r}, summary={self.summary!r}, severity={self.severity!r}, rationale={self.rationale!r}, sources={self.sources!r}, messages={self.messages!r}, thresholds={self.thresholds!r}, examples={self.examples!r}, fix={self.fix!r}, needs={self.needs!r}, path={self.path!r}, stage={self.stage!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.id, self.summary, self.severity, self.rationale, self.sources, self.messages, self.thresholds, self.examples, self.fix, self.needs, self.path, self.stage) == (other.id, other.summary, other.severity, other.rationale, other.sources, other.messages, other.thresholds, other.examples, other.fix, other.needs, other.path, other.stage)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.id, self.summary, self.severity, self.rationale, self.sources, self.messages, self.thresholds, self.examples, self.fix, self.needs, self.path, self.stage))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.id, self.summary, self.severity, self.rationale, self.sources, self.messages, self.thresholds, self.examples, self.fix, self.needs, self.path, self.stage)
+
+    __setstate__ = _frozen_setstate
 
     def threshold(self, name: str) -> Any:
         t = self.thresholds[name]

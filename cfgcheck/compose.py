@@ -34,7 +34,6 @@ from __future__ import annotations
 
 import os
 import re
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -54,23 +53,57 @@ class ComposeError(Exception):
     pass
 
 
-@dataclass
 class _State:
     primary_dir: Path
-    files: list[str] = field(default_factory=list)
-    docs: dict[str, Document] = field(default_factory=dict)
-    defaults_list: bool = False  # composed through a defaults: list (an OmegaConf-based loader)
+    files: list[str]
+    docs: dict[str, Document]
+    defaults_list: bool  # composed through a defaults: list (an OmegaConf-based loader)
     # ``group=option`` overrides that choose another option of a group the defaults list names
-    choices: dict[str, str] = field(default_factory=dict)
+    choices: dict[str, str]
+
+    __slots__ = ('primary_dir', 'files', 'docs', 'defaults_list', 'choices')
+
+    def __init__(self, primary_dir, files=None, docs=None, defaults_list=False, choices=None):
+        self.primary_dir = primary_dir
+        self.files = [] if files is None else files
+        self.docs = {} if docs is None else docs
+        self.defaults_list = defaults_list
+        self.choices = {} if choices is None else choices
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(primary_dir={self.primary_dir!r}, files={self.files!r}, docs={self.docs!r}, defaults_list={self.defaults_list!r}, choices={self.choices!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.primary_dir, self.files, self.docs, self.defaults_list, self.choices) == (other.primary_dir, other.files, other.docs, other.defaults_list, other.choices)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
-@dataclass
 class _Layer:
     """Merged values with the file and Entry behind every key path."""
 
-    data: Any = None
-    origin: dict[tuple, tuple] = field(default_factory=dict)  # path -> (file, doc, path in that doc)
-    chain: dict[tuple, list[str]] = field(default_factory=dict)  # path -> files that set it, in order
+    data: Any
+    origin: dict[tuple, tuple]  # path -> (file, doc, path in that doc)
+    chain: dict[tuple, list[str]]  # path -> files that set it, in order
+
+    __slots__ = ('data', 'origin', 'chain')
+
+    def __init__(self, data=None, origin=None, chain=None):
+        self.data = data
+        self.origin = {} if origin is None else origin
+        self.chain = {} if chain is None else chain
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(data={self.data!r}, origin={self.origin!r}, chain={self.chain!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.data, self.origin, self.chain) == (other.data, other.origin, other.chain)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
 def _layer_of(doc: Document, file: str, data: Any, base: tuple = ()) -> _Layer:

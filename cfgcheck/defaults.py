@@ -10,18 +10,43 @@ through ``RunView.effective``. A default is a defined value, not a guess: a verd
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from types import MappingProxyType
 from typing import Any, Callable
 
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from .view import RunView
 
 
-@dataclass(frozen=True)
 class Default:
     field: str
     value: Callable[[RunView], Any] | Any  # a value, or a function of the view (None: does not apply)
     note: str  # in plain words, with the source and the versions where it holds
+
+    __slots__ = ('field', 'value', 'note')
+
+    def __init__(self, field, value, note):
+        _setattr(self, 'field', field)
+        _setattr(self, 'value', value)
+        _setattr(self, 'note', note)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(field={self.field!r}, value={self.value!r}, note={self.note!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.field, self.value, self.note) == (other.field, other.value, other.note)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.field, self.value, self.note))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.field, self.value, self.note)
+
+    __setstate__ = _frozen_setstate
 
 
 def _qlora(view: RunView) -> bool:

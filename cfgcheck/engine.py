@@ -7,7 +7,6 @@ user's overrides. Locations come from the document, never from a check.
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Iterator
 
@@ -22,28 +21,60 @@ from .view import Field, RunView, build_view
 from . import waivers as waivermod
 
 
-@dataclass
 class Options:
-    gpu: Gpu | None = None
-    gpus: int | None = None  # GPUs in the whole job
-    rows: int | None = None  # training rows
-    only: frozenset[str] | None = None  # only these rules
-    skip: frozenset[str] = frozenset()  # not these rules
-    severity: dict[str, Severity] = field(default_factory=dict)  # per-rule overrides
-    thresholds: dict[str, dict[str, Any]] = field(default_factory=dict)  # per-rule overrides
-    cwd: Path | None = None
-    debug: bool = False  # re-raise a failing rule instead of reporting it
-    waivers: tuple[waivermod.ProjectWaiver, ...] = ()  # from the project configuration
-    launch: tuple[str, ...] = ()  # launch files the run is started with (--launch, project file)
-    gpus_from: str = ""  # where ``gpus`` came from, in words ("--gpus", "cfgcheck.yaml profile")
-    script: Any = None  # scripts.ScriptLaunch: a launch script in the tree that names this config
+    gpu: Gpu | None
+    gpus: int | None  # GPUs in the whole job
+    rows: int | None  # training rows
+    only: frozenset[str] | None  # only these rules
+    skip: frozenset[str]  # not these rules
+    severity: dict[str, Severity]  # per-rule overrides
+    thresholds: dict[str, dict[str, Any]]  # per-rule overrides
+    cwd: Path | None
+    debug: bool  # re-raise a failing rule instead of reporting it
+    waivers: tuple[waivermod.ProjectWaiver, ...]  # from the project configuration
+    launch: tuple[str, ...]  # launch files the run is started with (--launch, project file)
+    gpus_from: str  # where ``gpus`` came from, in words ("--gpus", "cfgcheck.yaml profile")
+    script: Any  # scripts.ScriptLaunch: a launch script in the tree that names this config
     # the same lint reports that script too: findings located at its lines (its arguments override
     # this config) are left to the script's report, so each finding is reported once
-    script_linted: bool = False
-    models: tuple = ()  # (id, Architecture) pairs the project configuration declares
-    overrides: tuple[str, ...] = ()  # key=value overrides the launch passes (compose.py)
-    versions: dict[str, str] = field(default_factory=dict)  # library -> release the run uses (--installed)
-    readers: tuple[str, ...] = ()  # Python scripts that read this config (project file ``readers``)
+    script_linted: bool
+    models: tuple  # (id, Architecture) pairs the project configuration declares
+    overrides: tuple[str, ...]  # key=value overrides the launch passes (compose.py)
+    versions: dict[str, str]  # library -> release the run uses (--installed)
+    readers: tuple[str, ...]  # Python scripts that read this config (project file ``readers``)
+
+    # the fields in order: the result cache keys the record by them, ``replaced`` copies them
+    _record_fields = ('gpu', 'gpus', 'rows', 'only', 'skip', 'severity', 'thresholds', 'cwd', 'debug', 'waivers', 'launch', 'gpus_from', 'script', 'script_linted', 'models', 'overrides', 'versions', 'readers')
+
+    def __init__(self, gpu=None, gpus=None, rows=None, only=None, skip=frozenset(), severity=None, thresholds=None, cwd=None, debug=False, waivers=(), launch=(), gpus_from="", script=None, script_linted=False, models=(), overrides=(), versions=None, readers=()):
+        self.gpu = gpu
+        self.gpus = gpus
+        self.rows = rows
+        self.only = only
+        self.skip = skip
+        self.severity = {} if severity is None else severity
+        self.thresholds = {} if thresholds is None else thresholds
+        self.cwd = cwd
+        self.debug = debug
+        self.waivers = waivers
+        self.launch = launch
+        self.gpus_from = gpus_from
+        self.script = script
+        self.script_linted = script_linted
+        self.models = models
+        self.overrides = overrides
+        self.versions = {} if versions is None else versions
+        self.readers = readers
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(gpu={self.gpu!r}, gpus={self.gpus!r}, rows={self.rows!r}, only={self.only!r}, skip={self.skip!r}, severity={self.severity!r}, thresholds={self.thresholds!r}, cwd={self.cwd!r}, debug={self.debug!r}, waivers={self.waivers!r}, launch={self.launch!r}, gpus_from={self.gpus_from!r}, script={self.script!r}, script_linted={self.script_linted!r}, models={self.models!r}, overrides={self.overrides!r}, versions={self.versions!r}, readers={self.readers!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.gpu, self.gpus, self.rows, self.only, self.skip, self.severity, self.thresholds, self.cwd, self.debug, self.waivers, self.launch, self.gpus_from, self.script, self.script_linted, self.models, self.overrides, self.versions, self.readers) == (other.gpu, other.gpus, other.rows, other.only, other.skip, other.severity, other.thresholds, other.cwd, other.debug, other.waivers, other.launch, other.gpus_from, other.script, other.script_linted, other.models, other.overrides, other.versions, other.readers)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
 # --------------------------------------------------------------------------- the check context
@@ -459,7 +490,7 @@ def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
 
 
 def _lint_launch(sl, index: int, name: str, options: Options, report: FileReport) -> None:
-    import dataclasses
+    from ._records import replaced
 
     from .run import open_view
     from .scripts import script_document
@@ -473,7 +504,7 @@ def _lint_launch(sl, index: int, name: str, options: Options, report: FileReport
         view = build_view(doc, "trainer")
         report.views.append(view)
         report.layout = report.layout or "launch script"
-        open_view(view, name, dataclasses.replace(options, script=sl))
+        open_view(view, name, replaced(options, script=sl))
         lint_view(view, options, name, report)
     except Exception as exc:
         if options.debug:
@@ -484,7 +515,7 @@ def _lint_launch(sl, index: int, name: str, options: Options, report: FileReport
 def _lint_overridden_configs(sl, options: Options, report: FileReport) -> bool:
     """Lint the runs of the configs a launch starts with its overriding arguments, keeping the
     findings located at the script's lines. False when the launch overrides no readable config."""
-    import dataclasses
+    from ._records import replaced
 
     from .scripts import overrides_of
 
@@ -497,7 +528,7 @@ def _lint_overridden_configs(sl, options: Options, report: FileReport) -> bool:
             docs = loadmod.load_text(src.text, config)
         except LoadError:
             continue  # the config's own lint says why it cannot be read
-        sub = lint_documents(docs, config, dataclasses.replace(options, script=sl),
+        sub = lint_documents(docs, config, replaced(options, script=sl),
                              located_in=sl.file)
         report.findings += sub.findings
         report.internal += sub.internal

@@ -12,8 +12,9 @@ Key specs:
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 from types import MappingProxyType
+
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 
 
 # method words most layouts share (PEFT / TRL scripts, axolotl's adapter, LLaMA-Factory's
@@ -21,127 +22,197 @@ from types import MappingProxyType
 METHOD_WORDS: MappingProxyType[str, str] = MappingProxyType({"lora": "lora", "qlora": "qlora", "full": "full", "freeze": "partial"})
 
 
-@dataclass(frozen=True)
 class Layout:
     name: str
     title: str
     fields: dict[str, tuple[str, ...]]
     # keys whose presence says "this is a file of that layout", with a weight each
     signature: dict[str, int]
-    min_score: int = 2
+    min_score: int
     # the layout whose argument classes this one's reader extends (LLaMA-Factory parses into a
     # TrainingArguments subclass): once a key of ``extends_marks`` is present and the layout's own
     # signature reaches ``min_score``, the other layout's signature counts for it too, so a file
     # that writes mostly the shared keys is still recognised by the keys only its runner reads
-    extends: str = ""
-    extends_marks: frozenset[str] = frozenset()
+    extends: str
+    extends_marks: frozenset[str]
     # section names searched for bare names, and the prefixes a section lets you drop
-    sections: dict[str, tuple[str, ...]] = field(default_factory=dict)
+    sections: dict[str, tuple[str, ...]]
     # fields a layout's own loader reads as numbers even when YAML 1.1 gives text
-    coerces_numbers: bool = False
+    coerces_numbers: bool
     # what a "method" value means in this layout: word -> "full" | "lora" | "qlora" | "partial"
     # (some layers train fully, the others stay frozen); a word not listed says nothing
-    method_values: dict[str, str] = field(default_factory=lambda: dict(METHOD_WORDS))
+    method_values: dict[str, str]
     # the method when nothing in the file states one (None: unknown)
-    default_method: str | None = None
+    default_method: str | None
     # (regex, method) matched against the model builder name (component-style recipes)
-    method_patterns: tuple[tuple[str, str], ...] = ()
+    method_patterns: tuple[tuple[str, str], ...]
     # ``${a.b}`` interpolations inside the file are resolved when the view is filled
-    interpolates: bool = False
+    interpolates: bool
     # the layout's own names for adapter target modules -> the transformers leaf name
     # (None: the layout uses the transformers module names)
-    module_names: dict[str, str] | None = None
+    module_names: dict[str, str] | None
     # every key that names evaluation data is known, so "none present" means "no eval data"
-    eval_data_known: bool = False
+    eval_data_known: bool
     # why this layout's loader reads ``2e-5`` as a number (shown in the YAML-version finding)
-    number_reader: str = ""
+    number_reader: str
     # the number reading is the YAML loader's own (a float resolver), so it holds for every value
     # in the file, not only for the settings a validator types as numbers
-    loader_reads_numbers: bool = False
+    loader_reads_numbers: bool
     # section-local names: inside a section of that name, a key means the layout's bare name
     # (``model: {name_or_path: ...}`` is ``model_name_or_path``, ``scheduler: {type: ...}`` is
     # ``lr_scheduler_type``)
-    section_names: dict[str, dict[str, str]] = field(default_factory=dict)
+    section_names: dict[str, dict[str, str]]
     # sections whose keys describe another part of the run (evaluation, a reference or teacher
     # model, generation): only their section-local names are read (``eval: {steps: 50}`` is
     # ``eval_steps``), never a bare training name (``eval: {batch_size: 8}`` is not the train batch)
-    restricted_sections: frozenset[str] = frozenset()
+    restricted_sections: frozenset[str]
     # mappings never searched (another tool's inline config, free-form keyword arguments)
-    foreign_sections: frozenset[str] = frozenset()
+    foreign_sections: frozenset[str]
     # every other nested mapping is searched for bare names too (a section named as the author likes)
-    search_all_sections: bool = False
+    search_all_sections: bool
     # the model a builder builds: (regex on the builder's last name, hub id the model resolver
     # knows), tried in order after a (q)lora_ prefix is dropped
-    builder_models: tuple[tuple[str, str], ...] = ()
+    builder_models: tuple[tuple[str, str], ...]
     # a dotted path whose value is the model's folder (its config.json), used when no builder maps
-    model_dir: str = ""
+    model_dir: str
     # a key naming the kind of method the file describes, the kinds the field table is written
     # for, and the fields read whatever the kind: PEFT's ``r`` and ``lora_alpha`` are LoRA's, while
     # an OFT config's ``r`` counts blocks (0 when ``oft_block_size`` is set) and a prompt-tuning
     # config has no rank at all
-    kind_key: str = ""
-    kinds_described: frozenset[str] = frozenset()
-    fields_for_any_kind: frozenset[str] = frozenset()
+    kind_key: str
+    kinds_described: frozenset[str]
+    fields_for_any_kind: frozenset[str]
     # an experiment folder of the runner (``<experiments>/<method>/<name>/``): a file there is read
     # over the runner's defaults file (``experiment_defaults``, looked up from the folder above
     # ``<experiments>``, then inside it; a key the file writes replaces the default's whole value),
     # and the run trains the adapter of ``experiment_adapter`` beside it, or every weight without one
-    experiment_root: str = ""
-    experiment_defaults: tuple[str, ...] = ()
-    experiment_adapter: str = ""
+    experiment_root: str
+    experiment_defaults: tuple[str, ...]
+    experiment_adapter: str
     # what cfgcheck reads of this layout and what it does not (the layouts table in the docs)
-    reads: str = ""
-    not_read: str = ""
+    reads: str
+    not_read: str
 
     # --- what the layout's runner does with the values: rules read these, never the name ---
     # what the file describes: "run" (a training recipe), "engine" (a DeepSpeed engine
     # config), "launch" (a launcher config: processes, machines, mixed precision), "adapter"
     # (a saved adapter's config)
-    role: str = "run"
+    role: str
     # unset values take the transformers TrainingArguments defaults (batch 8, 3 epochs, eval
     # "no", save every 500 steps), because the file goes to TrainingArguments as it is
-    trainer_defaults: bool = False
+    trainer_defaults: bool
     # the file is parsed only into the argument classes of its repository's own scripts (no
     # transformers or TRL class among them): set when a run is opened, never in a table
-    read_by_own_classes: bool = False
+    read_by_own_classes: bool
     # scheduler, warm-up and max_steps/epochs keys reach the transformers Trainer with its meaning
-    trainer_schedule: bool = False
+    trainer_schedule: bool
     # word lists (schema.CONSTRAINTS ``word_list``) the layout's values are checked against
-    word_lists: frozenset[str] = frozenset()
+    word_lists: frozenset[str]
     # the generated key table unknown-key checks keys against (None: keys are not judged)
-    key_table: str | None = None
+    key_table: str | None
     # how a text value of the target-module setting is read: "regex" (PEFT matches it against
     # full module names), "comma-list" (split on commas), "comma-list-or-regex" (a list when it
     # has a comma, else PEFT's regex)
-    targets_text: str = "regex"
+    targets_text: str
     # the runner's packing builds a block-causal mask itself, so packed samples never attend
     # across their boundaries whatever the attention kernel
-    packing_masks_boundaries: bool = False
+    packing_masks_boundaries: bool
     # the key that caps the rows the runner reads from each dataset it lists (None: no such key)
-    rows_cap_key: str | None = None
+    rows_cap_key: str | None
     # the runner refuses the "qlora" method word unless the base loads in 4 bits
-    qlora_word_needs_4bit: bool = False
+    qlora_word_needs_4bit: bool
     # what fp16 means to the runner: "autocast" (mixed precision over the weights as loaded),
     # "loads-weights" (the fp16 flag also loads the weights as float16, so a full fine-tune
     # cannot use it), "refused" (the runner refuses fp16 training: bf16 or fp32 only)
-    fp16_mode: str = "autocast"
+    fp16_mode: str
     # the runner's validator refuses to merge an adapter into a quantised base ("" = it merges);
     # the text it stops with, {bits} for 4 or 8
-    refuses_quantised_merge: str = ""
+    refuses_quantised_merge: str
     # what the runner fills in for a field the file leaves out: (field, value, note with the
     # source and the releases where it holds); supplied to the view as origin "default"
-    defaults: tuple[tuple[str, object, str], ...] = ()
+    defaults: tuple[tuple[str, object, str], ...]
     # the table of defaults that depend on other values (``defaults.DEFAULTS[name]``: functions
     # of the view), None when the runner has none
-    defaults_table: str | None = None
+    defaults_table: str | None
     # the key without which the runner never resizes the embedding for added tokens ("" = it always
     # resizes). With it, the runner turns it on itself for explicitly added tokens, and a resized
     # run with no trainable-module list written gets the embedding and head added to that list
-    vocab_resize_key: str = ""
+    vocab_resize_key: str
     # a token list and the trainable-module list may be written as one comma-separated text
-    comma_token_lists: bool = False
+    comma_token_lists: bool
     # the runner's registered chat templates that add special tokens: name -> those tokens
-    template_stop_words: dict[str, tuple[str, ...]] = field(default_factory=dict)
+    template_stop_words: dict[str, tuple[str, ...]]
+
+    __slots__ = ('name', 'title', 'fields', 'signature', 'min_score', 'extends', 'extends_marks', 'sections', 'coerces_numbers', 'method_values', 'default_method', 'method_patterns', 'interpolates', 'module_names', 'eval_data_known', 'number_reader', 'loader_reads_numbers', 'section_names', 'restricted_sections', 'foreign_sections', 'search_all_sections', 'builder_models', 'model_dir', 'kind_key', 'kinds_described', 'fields_for_any_kind', 'experiment_root', 'experiment_defaults', 'experiment_adapter', 'reads', 'not_read', 'role', 'trainer_defaults', 'read_by_own_classes', 'trainer_schedule', 'word_lists', 'key_table', 'targets_text', 'packing_masks_boundaries', 'rows_cap_key', 'qlora_word_needs_4bit', 'fp16_mode', 'refuses_quantised_merge', 'defaults', 'defaults_table', 'vocab_resize_key', 'comma_token_lists', 'template_stop_words')
+
+    def __init__(self, name, title, fields, signature, min_score=2, extends="", extends_marks=frozenset(), sections=None, coerces_numbers=False, method_values=None, default_method=None, method_patterns=(), interpolates=False, module_names=None, eval_data_known=False, number_reader="", loader_reads_numbers=False, section_names=None, restricted_sections=frozenset(), foreign_sections=frozenset(), search_all_sections=False, builder_models=(), model_dir="", kind_key="", kinds_described=frozenset(), fields_for_any_kind=frozenset(), experiment_root="", experiment_defaults=(), experiment_adapter="", reads="", not_read="", role="run", trainer_defaults=False, read_by_own_classes=False, trainer_schedule=False, word_lists=frozenset(), key_table=None, targets_text="regex", packing_masks_boundaries=False, rows_cap_key=None, qlora_word_needs_4bit=False, fp16_mode="autocast", refuses_quantised_merge="", defaults=(), defaults_table=None, vocab_resize_key="", comma_token_lists=False, template_stop_words=None):
+        _setattr(self, 'name', name)
+        _setattr(self, 'title', title)
+        _setattr(self, 'fields', fields)
+        _setattr(self, 'signature', signature)
+        _setattr(self, 'min_score', min_score)
+        _setattr(self, 'extends', extends)
+        _setattr(self, 'extends_marks', extends_marks)
+        _setattr(self, 'sections', {} if sections is None else sections)
+        _setattr(self, 'coerces_numbers', coerces_numbers)
+        _setattr(self, 'method_values', dict(METHOD_WORDS) if method_values is None else method_values)
+        _setattr(self, 'default_method', default_method)
+        _setattr(self, 'method_patterns', method_patterns)
+        _setattr(self, 'interpolates', interpolates)
+        _setattr(self, 'module_names', module_names)
+        _setattr(self, 'eval_data_known', eval_data_known)
+        _setattr(self, 'number_reader', number_reader)
+        _setattr(self, 'loader_reads_numbers', loader_reads_numbers)
+        _setattr(self, 'section_names', {} if section_names is None else section_names)
+        _setattr(self, 'restricted_sections', restricted_sections)
+        _setattr(self, 'foreign_sections', foreign_sections)
+        _setattr(self, 'search_all_sections', search_all_sections)
+        _setattr(self, 'builder_models', builder_models)
+        _setattr(self, 'model_dir', model_dir)
+        _setattr(self, 'kind_key', kind_key)
+        _setattr(self, 'kinds_described', kinds_described)
+        _setattr(self, 'fields_for_any_kind', fields_for_any_kind)
+        _setattr(self, 'experiment_root', experiment_root)
+        _setattr(self, 'experiment_defaults', experiment_defaults)
+        _setattr(self, 'experiment_adapter', experiment_adapter)
+        _setattr(self, 'reads', reads)
+        _setattr(self, 'not_read', not_read)
+        _setattr(self, 'role', role)
+        _setattr(self, 'trainer_defaults', trainer_defaults)
+        _setattr(self, 'read_by_own_classes', read_by_own_classes)
+        _setattr(self, 'trainer_schedule', trainer_schedule)
+        _setattr(self, 'word_lists', word_lists)
+        _setattr(self, 'key_table', key_table)
+        _setattr(self, 'targets_text', targets_text)
+        _setattr(self, 'packing_masks_boundaries', packing_masks_boundaries)
+        _setattr(self, 'rows_cap_key', rows_cap_key)
+        _setattr(self, 'qlora_word_needs_4bit', qlora_word_needs_4bit)
+        _setattr(self, 'fp16_mode', fp16_mode)
+        _setattr(self, 'refuses_quantised_merge', refuses_quantised_merge)
+        _setattr(self, 'defaults', defaults)
+        _setattr(self, 'defaults_table', defaults_table)
+        _setattr(self, 'vocab_resize_key', vocab_resize_key)
+        _setattr(self, 'comma_token_lists', comma_token_lists)
+        _setattr(self, 'template_stop_words', {} if template_stop_words is None else template_stop_words)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(name={self.name!r}, title={self.title!r}, fields={self.fields!r}, signature={self.signature!r}, min_score={self.min_score!r}, extends={self.extends!r}, extends_marks={self.extends_marks!r}, sections={self.sections!r}, coerces_numbers={self.coerces_numbers!r}, method_values={self.method_values!r}, default_method={self.default_method!r}, method_patterns={self.method_patterns!r}, interpolates={self.interpolates!r}, module_names={self.module_names!r}, eval_data_known={self.eval_data_known!r}, number_reader={self.number_reader!r}, loader_reads_numbers={self.loader_reads_numbers!r}, section_names={self.section_names!r}, restricted_sections={self.restricted_sections!r}, foreign_sections={self.foreign_sections!r}, search_all_sections={self.search_all_sections!r}, builder_models={self.builder_models!r}, model_dir={self.model_dir!r}, kind_key={self.kind_key!r}, kinds_described={self.kinds_described!r}, fields_for_any_kind={self.fields_for_any_kind!r}, experiment_root={self.experiment_root!r}, experiment_defaults={self.experiment_defaults!r}, experiment_adapter={self.experiment_adapter!r}, reads={self.reads!r}, not_read={self.not_read!r}, role={self.role!r}, trainer_defaults={self.trainer_defaults!r}, read_by_own_classes={self.read_by_own_classes!r}, trainer_schedule={self.trainer_schedule!r}, word_lists={self.word_lists!r}, key_table={self.key_table!r}, targets_text={self.targets_text!r}, packing_masks_boundaries={self.packing_masks_boundaries!r}, rows_cap_key={self.rows_cap_key!r}, qlora_word_needs_4bit={self.qlora_word_needs_4bit!r}, fp16_mode={self.fp16_mode!r}, refuses_quantised_merge={self.refuses_quantised_merge!r}, defaults={self.defaults!r}, defaults_table={self.defaults_table!r}, vocab_resize_key={self.vocab_resize_key!r}, comma_token_lists={self.comma_token_lists!r}, template_stop_words={self.template_stop_words!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.name, self.title, self.fields, self.signature, self.min_score, self.extends, self.extends_marks, self.sections, self.coerces_numbers, self.method_values, self.default_method, self.method_patterns, self.interpolates, self.module_names, self.eval_data_known, self.number_reader, self.loader_reads_numbers, self.section_names, self.restricted_sections, self.foreign_sections, self.search_all_sections, self.builder_models, self.model_dir, self.kind_key, self.kinds_described, self.fields_for_any_kind, self.experiment_root, self.experiment_defaults, self.experiment_adapter, self.reads, self.not_read, self.role, self.trainer_defaults, self.read_by_own_classes, self.trainer_schedule, self.word_lists, self.key_table, self.targets_text, self.packing_masks_boundaries, self.rows_cap_key, self.qlora_word_needs_4bit, self.fp16_mode, self.refuses_quantised_merge, self.defaults, self.defaults_table, self.vocab_resize_key, self.comma_token_lists, self.template_stop_words) == (other.name, other.title, other.fields, other.signature, other.min_score, other.extends, other.extends_marks, other.sections, other.coerces_numbers, other.method_values, other.default_method, other.method_patterns, other.interpolates, other.module_names, other.eval_data_known, other.number_reader, other.loader_reads_numbers, other.section_names, other.restricted_sections, other.foreign_sections, other.search_all_sections, other.builder_models, other.model_dir, other.kind_key, other.kinds_described, other.fields_for_any_kind, other.experiment_root, other.experiment_defaults, other.experiment_adapter, other.reads, other.not_read, other.role, other.trainer_defaults, other.read_by_own_classes, other.trainer_schedule, other.word_lists, other.key_table, other.targets_text, other.packing_masks_boundaries, other.rows_cap_key, other.qlora_word_needs_4bit, other.fp16_mode, other.refuses_quantised_merge, other.defaults, other.defaults_table, other.vocab_resize_key, other.comma_token_lists, other.template_stop_words)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.name, self.title, self.fields, self.signature, self.min_score, self.extends, self.extends_marks, self.sections, self.coerces_numbers, self.method_values, self.default_method, self.method_patterns, self.interpolates, self.module_names, self.eval_data_known, self.number_reader, self.loader_reads_numbers, self.section_names, self.restricted_sections, self.foreign_sections, self.search_all_sections, self.builder_models, self.model_dir, self.kind_key, self.kinds_described, self.fields_for_any_kind, self.experiment_root, self.experiment_defaults, self.experiment_adapter, self.reads, self.not_read, self.role, self.trainer_defaults, self.read_by_own_classes, self.trainer_schedule, self.word_lists, self.key_table, self.targets_text, self.packing_masks_boundaries, self.rows_cap_key, self.qlora_word_needs_4bit, self.fp16_mode, self.refuses_quantised_merge, self.defaults, self.defaults_table, self.vocab_resize_key, self.comma_token_lists, self.template_stop_words))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.name, self.title, self.fields, self.signature, self.min_score, self.extends, self.extends_marks, self.sections, self.coerces_numbers, self.method_values, self.default_method, self.method_patterns, self.interpolates, self.module_names, self.eval_data_known, self.number_reader, self.loader_reads_numbers, self.section_names, self.restricted_sections, self.foreign_sections, self.search_all_sections, self.builder_models, self.model_dir, self.kind_key, self.kinds_described, self.fields_for_any_kind, self.experiment_root, self.experiment_defaults, self.experiment_adapter, self.reads, self.not_read, self.role, self.trainer_defaults, self.read_by_own_classes, self.trainer_schedule, self.word_lists, self.key_table, self.targets_text, self.packing_masks_boundaries, self.rows_cap_key, self.qlora_word_needs_4bit, self.fp16_mode, self.refuses_quantised_merge, self.defaults, self.defaults_table, self.vocab_resize_key, self.comma_token_lists, self.template_stop_words)
+
+    __setstate__ = _frozen_setstate
 
     @property
     def has_bare_names(self) -> bool:
@@ -1046,20 +1117,49 @@ NOT_TRAINING = MappingProxyType({
 # ---------------------------------------------------------------------------------------------
 # Formats cfgcheck recognises but does not read: named in the summary, never read as a layout.
 
-@dataclass(frozen=True)
 class UnreadFormat:
     name: str
     title: str
     # top-level keys that mark it (``-`` and ``_`` are the same), how many must be present, and
     # keys of which at least one must be there (empty: none required)
-    marks: frozenset[str] = frozenset()
-    min_hits: int = 2
-    required: frozenset[str] = frozenset()
+    marks: frozenset[str]
+    min_hits: int
+    required: frozenset[str]
     # keys of a top-level section that mark it ("trainer" -> Lightning's trainer arguments)
-    section: str = ""
+    section: str
     # a special shape: "composed" (a defaults: list or _target_ nodes), "tuning-space" (lists of
     # candidate values where DeepSpeed takes one value), "class-path" (class_path / init_args)
-    shape: str = ""
+    shape: str
+
+    __slots__ = ('name', 'title', 'marks', 'min_hits', 'required', 'section', 'shape')
+
+    def __init__(self, name, title, marks=frozenset(), min_hits=2, required=frozenset(), section="", shape=""):
+        _setattr(self, 'name', name)
+        _setattr(self, 'title', title)
+        _setattr(self, 'marks', marks)
+        _setattr(self, 'min_hits', min_hits)
+        _setattr(self, 'required', required)
+        _setattr(self, 'section', section)
+        _setattr(self, 'shape', shape)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(name={self.name!r}, title={self.title!r}, marks={self.marks!r}, min_hits={self.min_hits!r}, required={self.required!r}, section={self.section!r}, shape={self.shape!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.name, self.title, self.marks, self.min_hits, self.required, self.section, self.shape) == (other.name, other.title, other.marks, other.min_hits, other.required, other.section, other.shape)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.name, self.title, self.marks, self.min_hits, self.required, self.section, self.shape))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.name, self.title, self.marks, self.min_hits, self.required, self.section, self.shape)
+
+    __setstate__ = _frozen_setstate
 
 
 # keys that name a base file the config is composed over (compose.py reads them)

@@ -15,9 +15,9 @@ from __future__ import annotations
 import os
 from contextlib import contextmanager
 from contextvars import ContextVar
-from dataclasses import dataclass
 from pathlib import Path
 
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from . import load as loadmod, reads
 from .load import Document, LoadError
 from .view import RunView, build_view
@@ -39,12 +39,38 @@ def linked_texts(texts: dict):
 _SUFFIXES = (".json", ".yaml", ".yml")
 
 
-@dataclass(frozen=True)
 class Link:
     field: str  # our field name, e.g. "runtime.deepspeed"
     target: str  # what the config wrote, or "(inline)"
-    path: str | None = None  # the file read
-    problem: str | None = None  # why it was not attached
+    path: str | None  # the file read
+    problem: str | None  # why it was not attached
+
+    __slots__ = ('field', 'target', 'path', 'problem')
+
+    def __init__(self, field, target, path=None, problem=None):
+        _setattr(self, 'field', field)
+        _setattr(self, 'target', target)
+        _setattr(self, 'path', path)
+        _setattr(self, 'problem', problem)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(field={self.field!r}, target={self.target!r}, path={self.path!r}, problem={self.problem!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.field, self.target, self.path, self.problem) == (other.field, other.target, other.path, other.problem)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.field, self.target, self.path, self.problem))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.field, self.target, self.path, self.problem)
+
+    __setstate__ = _frozen_setstate
 
 
 def _inline(doc: Document, prefix: tuple, data: dict) -> Document:

@@ -19,13 +19,13 @@ import codecs
 import os
 import re
 import stat
-from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Iterable
 
 import yaml
 
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from . import reads
 
 
@@ -63,7 +63,6 @@ class LoadError(Exception):
         self.column = column
 
 
-@dataclass(frozen=True, slots=True)
 class Span:
     """A stretch of the text: 1-based line and column, 0-based character offsets."""
 
@@ -72,21 +71,67 @@ class Span:
     start: int
     end: int
 
+    __slots__ = ('line', 'column', 'start', 'end')
 
-@dataclass(slots=True)
+    def __init__(self, line, column, start, end):
+        _setattr(self, 'line', line)
+        _setattr(self, 'column', column)
+        _setattr(self, 'start', start)
+        _setattr(self, 'end', end)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(line={self.line!r}, column={self.column!r}, start={self.start!r}, end={self.end!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.line, self.column, self.start, self.end) == (other.line, other.column, other.start, other.end)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.line, self.column, self.start, self.end))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.line, self.column, self.start, self.end)
+
+    __setstate__ = _frozen_setstate
+
+
 class Entry:
     """Where one value of the document was written."""
 
     value: Span
-    key: Span | None = None  # None for list items and the root
-    raw: str = ""  # the scalar's source text (plain or quoted), "" for collections
-    style: str | None = None  # None = plain scalar; "'", '"', "|", ">" as in YAML; "json" for JSON
-    tag: str | None = None  # an explicit tag the author wrote (recorded, never acted on)
-    kind: str = "scalar"  # "scalar" | "map" | "seq"
-    flow: bool = False  # a collection written in flow style ({...} / [...])
+    key: Span | None  # None for list items and the root
+    raw: str  # the scalar's source text (plain or quoted), "" for collections
+    style: str | None  # None = plain scalar; "'", '"', "|", ">" as in YAML; "json" for JSON
+    tag: str | None  # an explicit tag the author wrote (recorded, never acted on)
+    kind: str  # "scalar" | "map" | "seq"
+    flow: bool  # a collection written in flow style ({...} / [...])
+
+    __slots__ = ('value', 'key', 'raw', 'style', 'tag', 'kind', 'flow')
+
+    def __init__(self, value, key=None, raw="", style=None, tag=None, kind="scalar", flow=False):
+        self.value = value
+        self.key = key
+        self.raw = raw
+        self.style = style
+        self.tag = tag
+        self.kind = kind
+        self.flow = flow
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(value={self.value!r}, key={self.key!r}, raw={self.raw!r}, style={self.style!r}, tag={self.tag!r}, kind={self.kind!r}, flow={self.flow!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.value, self.key, self.raw, self.style, self.tag, self.kind, self.flow) == (other.value, other.key, other.raw, other.style, other.tag, other.kind, other.flow)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
-@dataclass(slots=True)
 class Ambiguity:
     """A plain scalar that YAML 1.1 and YAML 1.2 readers take differently."""
 
@@ -96,8 +141,26 @@ class Ambiguity:
     yaml11: Any  # what PyYAML (YAML 1.1) gives
     yaml12: Any  # what a YAML 1.2 core-schema reader gives
 
+    __slots__ = ('path', 'kind', 'raw', 'yaml11', 'yaml12')
 
-@dataclass(slots=True)
+    def __init__(self, path, kind, raw, yaml11, yaml12):
+        self.path = path
+        self.kind = kind
+        self.raw = raw
+        self.yaml11 = yaml11
+        self.yaml12 = yaml12
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(path={self.path!r}, kind={self.kind!r}, raw={self.raw!r}, yaml11={self.yaml11!r}, yaml12={self.yaml12!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.path, self.kind, self.raw, self.yaml11, self.yaml12) == (other.path, other.kind, other.raw, other.yaml11, other.yaml12)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
+
+
 class Duplicate:
     path: Path_  # path of the key that appears twice
     first: Span
@@ -105,27 +168,72 @@ class Duplicate:
     first_value: Any
     second_value: Any
 
+    __slots__ = ('path', 'first', 'second', 'first_value', 'second_value')
 
-@dataclass(slots=True)
+    def __init__(self, path, first, second, first_value, second_value):
+        self.path = path
+        self.first = first
+        self.second = second
+        self.first_value = first_value
+        self.second_value = second_value
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(path={self.path!r}, first={self.first!r}, second={self.second!r}, first_value={self.first_value!r}, second_value={self.second_value!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.path, self.first, self.second, self.first_value, self.second_value) == (other.path, other.first, other.second, other.first_value, other.second_value)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
+
+
 class Document:
     """One YAML document (or the JSON file): values and where each was written."""
 
     name: str
     format: str  # "yaml" | "json"
     data: Any
-    entries: dict[Path_, Entry] = field(default_factory=dict)
-    duplicates: list[Duplicate] = field(default_factory=list)
-    ambiguities: list[Ambiguity] = field(default_factory=list)
-    tags: list[tuple[Path_, str]] = field(default_factory=list)
-    index: int = 0  # position of this document in a multi-document stream
+    entries: dict[Path_, Entry]
+    duplicates: list[Duplicate]
+    ambiguities: list[Ambiguity]
+    tags: list[tuple[Path_, str]]
+    index: int  # position of this document in a multi-document stream
     # composed documents (compose.py): the file that set each key path, and for a value set in
     # more than one file, those files in the order they were applied
-    origins: dict[Path_, str] = field(default_factory=dict)
-    overrides: dict[Path_, list[str]] = field(default_factory=dict)
-    composed_from: list[str] = field(default_factory=list)
-    number_reader: str = ""  # why the loader reads 2e-5 as a number, when it does (compose.py)
+    origins: dict[Path_, str]
+    overrides: dict[Path_, list[str]]
+    composed_from: list[str]
+    number_reader: str  # why the loader reads 2e-5 as a number, when it does (compose.py)
     # values nothing states for sure (a launch script's ``${LR:-2e-4}`` default): path -> in words
-    assumed: dict[Path_, str] = field(default_factory=dict)
+    assumed: dict[Path_, str]
+
+    __slots__ = ('name', 'format', 'data', 'entries', 'duplicates', 'ambiguities', 'tags', 'index', 'origins', 'overrides', 'composed_from', 'number_reader', 'assumed')
+
+    def __init__(self, name, format, data, entries=None, duplicates=None, ambiguities=None, tags=None, index=0, origins=None, overrides=None, composed_from=None, number_reader="", assumed=None):
+        self.name = name
+        self.format = format
+        self.data = data
+        self.entries = {} if entries is None else entries
+        self.duplicates = [] if duplicates is None else duplicates
+        self.ambiguities = [] if ambiguities is None else ambiguities
+        self.tags = [] if tags is None else tags
+        self.index = index
+        self.origins = {} if origins is None else origins
+        self.overrides = {} if overrides is None else overrides
+        self.composed_from = [] if composed_from is None else composed_from
+        self.number_reader = number_reader
+        self.assumed = {} if assumed is None else assumed
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(name={self.name!r}, format={self.format!r}, data={self.data!r}, entries={self.entries!r}, duplicates={self.duplicates!r}, ambiguities={self.ambiguities!r}, tags={self.tags!r}, index={self.index!r}, origins={self.origins!r}, overrides={self.overrides!r}, composed_from={self.composed_from!r}, number_reader={self.number_reader!r}, assumed={self.assumed!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.name, self.format, self.data, self.entries, self.duplicates, self.ambiguities, self.tags, self.index, self.origins, self.overrides, self.composed_from, self.number_reader, self.assumed) == (other.name, other.format, other.data, other.entries, other.duplicates, other.ambiguities, other.tags, other.index, other.origins, other.overrides, other.composed_from, other.number_reader, other.assumed)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
     def entry(self, path: Path_) -> Entry | None:
         return self.entries.get(tuple(path))
@@ -142,15 +250,33 @@ class Document:
         return cur
 
 
-@dataclass(slots=True)
 class Source:
     """A file's text as decoded, with what is needed to write it back the same way."""
 
     name: str
     text: str
-    encoding: str = "utf-8"
-    bom: bool = False
-    newline: str = "\n"
+    encoding: str
+    bom: bool
+    newline: str
+
+    __slots__ = ('name', 'text', 'encoding', 'bom', 'newline')
+
+    def __init__(self, name, text, encoding="utf-8", bom=False, newline="\n"):
+        self.name = name
+        self.text = text
+        self.encoding = encoding
+        self.bom = bom
+        self.newline = newline
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(name={self.name!r}, text={self.text!r}, encoding={self.encoding!r}, bom={self.bom!r}, newline={self.newline!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.name, self.text, self.encoding, self.bom, self.newline) == (other.name, other.text, other.encoding, other.bom, other.newline)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
 def dotted(path: Path_) -> str:

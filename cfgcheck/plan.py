@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import math
 import os
-from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any
@@ -29,38 +28,79 @@ _DTYPES = MappingProxyType({"bfloat16": "bf16", "bf16": "bf16", "float16": "fp16
            "float32": "fp32", "fp32": "fp32", "float": "fp32"})
 
 
-@dataclass
 class Plan:
     method: str | None
     method_stated: bool
     model_ref: str | None
     arch: Architecture | None
-    total_parameters: int | None = None
-    trainable_parameters: int | None = None
-    adapter_scale: float | None = None
-    effective_lr: float | None = None
-    learning_rate: float | None = None
-    schedule: Schedule | None = None
-    tokens_per_step: int | None = None
-    seq_len: int | None = None
-    seq_len_assumed: bool = False
-    warmup_steps: int | None = None
-    cadence: dict[str, int | None] = field(default_factory=dict)
-    memory_inputs: MemoryInputs | None = None
-    memory: MemoryBreakdown | None = None
-    memory_problem: str | None = None  # why there is no estimate
-    gpu: Gpu | None = None
-    assumptions: list[str] = field(default_factory=list)  # guesses: nothing says these (words)
-    defaults: list[str] = field(default_factory=list)  # runner and trainer defaults used (words)
-    supplied: list[tuple[str, str]] = field(default_factory=list)  # (origin, words): linked, launch, flag
-    context: str = ""  # the launch context the plan used, in words
-    gpus_assumed: bool = False  # the GPU count matters (sharded) and nothing names it
-    load_note: str | None = None  # which load-dtype default the estimate used, in words
+    total_parameters: int | None
+    trainable_parameters: int | None
+    adapter_scale: float | None
+    effective_lr: float | None
+    learning_rate: float | None
+    schedule: Schedule | None
+    tokens_per_step: int | None
+    seq_len: int | None
+    seq_len_assumed: bool
+    warmup_steps: int | None
+    cadence: dict[str, int | None]
+    memory_inputs: MemoryInputs | None
+    memory: MemoryBreakdown | None
+    memory_problem: str | None  # why there is no estimate
+    gpu: Gpu | None
+    assumptions: list[str]  # guesses: nothing says these (words)
+    defaults: list[str]  # runner and trainer defaults used (words)
+    supplied: list[tuple[str, str]]  # (origin, words): linked, launch, flag
+    context: str  # the launch context the plan used, in words
+    gpus_assumed: bool  # the GPU count matters (sharded) and nothing names it
+    load_note: str | None  # which load-dtype default the estimate used, in words
     # the learning-rate schedule as written (None: not written), its kwargs, and the strategy
     # words of evaluation, saving and logging (None: not written) -- what the pictures draw
-    scheduler: str | None = None
-    scheduler_kwargs: dict = field(default_factory=dict)
-    strategies: dict[str, str | None] = field(default_factory=dict)
+    scheduler: str | None
+    scheduler_kwargs: dict
+    strategies: dict[str, str | None]
+
+    __slots__ = ('method', 'method_stated', 'model_ref', 'arch', 'total_parameters', 'trainable_parameters', 'adapter_scale', 'effective_lr', 'learning_rate', 'schedule', 'tokens_per_step', 'seq_len', 'seq_len_assumed', 'warmup_steps', 'cadence', 'memory_inputs', 'memory', 'memory_problem', 'gpu', 'assumptions', 'defaults', 'supplied', 'context', 'gpus_assumed', 'load_note', 'scheduler', 'scheduler_kwargs', 'strategies')
+
+    def __init__(self, method, method_stated, model_ref, arch, total_parameters=None, trainable_parameters=None, adapter_scale=None, effective_lr=None, learning_rate=None, schedule=None, tokens_per_step=None, seq_len=None, seq_len_assumed=False, warmup_steps=None, cadence=None, memory_inputs=None, memory=None, memory_problem=None, gpu=None, assumptions=None, defaults=None, supplied=None, context="", gpus_assumed=False, load_note=None, scheduler=None, scheduler_kwargs=None, strategies=None):
+        self.method = method
+        self.method_stated = method_stated
+        self.model_ref = model_ref
+        self.arch = arch
+        self.total_parameters = total_parameters
+        self.trainable_parameters = trainable_parameters
+        self.adapter_scale = adapter_scale
+        self.effective_lr = effective_lr
+        self.learning_rate = learning_rate
+        self.schedule = schedule
+        self.tokens_per_step = tokens_per_step
+        self.seq_len = seq_len
+        self.seq_len_assumed = seq_len_assumed
+        self.warmup_steps = warmup_steps
+        self.cadence = {} if cadence is None else cadence
+        self.memory_inputs = memory_inputs
+        self.memory = memory
+        self.memory_problem = memory_problem
+        self.gpu = gpu
+        self.assumptions = [] if assumptions is None else assumptions
+        self.defaults = [] if defaults is None else defaults
+        self.supplied = [] if supplied is None else supplied
+        self.context = context
+        self.gpus_assumed = gpus_assumed
+        self.load_note = load_note
+        self.scheduler = scheduler
+        self.scheduler_kwargs = {} if scheduler_kwargs is None else scheduler_kwargs
+        self.strategies = {} if strategies is None else strategies
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(method={self.method!r}, method_stated={self.method_stated!r}, model_ref={self.model_ref!r}, arch={self.arch!r}, total_parameters={self.total_parameters!r}, trainable_parameters={self.trainable_parameters!r}, adapter_scale={self.adapter_scale!r}, effective_lr={self.effective_lr!r}, learning_rate={self.learning_rate!r}, schedule={self.schedule!r}, tokens_per_step={self.tokens_per_step!r}, seq_len={self.seq_len!r}, seq_len_assumed={self.seq_len_assumed!r}, warmup_steps={self.warmup_steps!r}, cadence={self.cadence!r}, memory_inputs={self.memory_inputs!r}, memory={self.memory!r}, memory_problem={self.memory_problem!r}, gpu={self.gpu!r}, assumptions={self.assumptions!r}, defaults={self.defaults!r}, supplied={self.supplied!r}, context={self.context!r}, gpus_assumed={self.gpus_assumed!r}, load_note={self.load_note!r}, scheduler={self.scheduler!r}, scheduler_kwargs={self.scheduler_kwargs!r}, strategies={self.strategies!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.method, self.method_stated, self.model_ref, self.arch, self.total_parameters, self.trainable_parameters, self.adapter_scale, self.effective_lr, self.learning_rate, self.schedule, self.tokens_per_step, self.seq_len, self.seq_len_assumed, self.warmup_steps, self.cadence, self.memory_inputs, self.memory, self.memory_problem, self.gpu, self.assumptions, self.defaults, self.supplied, self.context, self.gpus_assumed, self.load_note, self.scheduler, self.scheduler_kwargs, self.strategies) == (other.method, other.method_stated, other.model_ref, other.arch, other.total_parameters, other.trainable_parameters, other.adapter_scale, other.effective_lr, other.learning_rate, other.schedule, other.tokens_per_step, other.seq_len, other.seq_len_assumed, other.warmup_steps, other.cadence, other.memory_inputs, other.memory, other.memory_problem, other.gpu, other.assumptions, other.defaults, other.supplied, other.context, other.gpus_assumed, other.load_note, other.scheduler, other.scheduler_kwargs, other.strategies)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
     @property
     def rslora_alpha(self) -> int | None:

@@ -14,7 +14,6 @@ Every value that does not come from the file itself is a ``Field`` in ``view.sup
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any
@@ -29,27 +28,57 @@ _DISTRIBUTED_WORDS = MappingProxyType({"DEEPSPEED": "DeepSpeed", "FSDP": "FSDP",
                       "NO": "one process", "MEGATRON_LM": "Megatron-LM", "XLA": "XLA"})
 
 
-@dataclass
 class LaunchContext:
     """How the run is started, from launch files and scripts. None: not said anywhere."""
 
-    files: list[str] = field(default_factory=list)  # what was read, in order
-    views: list[RunView] = field(default_factory=list)  # their views (DeepSpeed JSON, accelerate)
-    problems: list[tuple[str, str]] = field(default_factory=list)  # (file, why it was not read)
-    processes: int | None = None  # processes over all machines (= GPUs)
-    processes_from: str = ""  # in words
-    machines: int | None = None
-    distributed: str | None = None  # accelerate's distributed_type, e.g. "DEEPSPEED"
-    zero_stage: int | None = None
-    offload_optimizer: bool = False
-    offload_params: bool = False
-    fsdp: str | None = None  # "full_shard" | "shard_grad_op" | "hybrid_shard" | "no_shard"
-    fsdp_offload: bool = False
-    activation_checkpointing: bool | None = None
-    mixed_precision: str | None = None  # "bf16" | "fp16" | "fp8" | "no"
-    mixed_precision_from: str = ""
-    mixed_precision_deepspeed: bool = False  # from a DeepSpeed file (checked by its own rule)
-    script: Any = None  # scripts.ScriptLaunch when a launch script names the config
+    files: list[str]  # what was read, in order
+    views: list[RunView]  # their views (DeepSpeed JSON, accelerate)
+    problems: list[tuple[str, str]]  # (file, why it was not read)
+    processes: int | None  # processes over all machines (= GPUs)
+    processes_from: str  # in words
+    machines: int | None
+    distributed: str | None  # accelerate's distributed_type, e.g. "DEEPSPEED"
+    zero_stage: int | None
+    offload_optimizer: bool
+    offload_params: bool
+    fsdp: str | None  # "full_shard" | "shard_grad_op" | "hybrid_shard" | "no_shard"
+    fsdp_offload: bool
+    activation_checkpointing: bool | None
+    mixed_precision: str | None  # "bf16" | "fp16" | "fp8" | "no"
+    mixed_precision_from: str
+    mixed_precision_deepspeed: bool  # from a DeepSpeed file (checked by its own rule)
+    script: Any  # scripts.ScriptLaunch when a launch script names the config
+
+    __slots__ = ('files', 'views', 'problems', 'processes', 'processes_from', 'machines', 'distributed', 'zero_stage', 'offload_optimizer', 'offload_params', 'fsdp', 'fsdp_offload', 'activation_checkpointing', 'mixed_precision', 'mixed_precision_from', 'mixed_precision_deepspeed', 'script')
+
+    def __init__(self, files=None, views=None, problems=None, processes=None, processes_from="", machines=None, distributed=None, zero_stage=None, offload_optimizer=False, offload_params=False, fsdp=None, fsdp_offload=False, activation_checkpointing=None, mixed_precision=None, mixed_precision_from="", mixed_precision_deepspeed=False, script=None):
+        self.files = [] if files is None else files
+        self.views = [] if views is None else views
+        self.problems = [] if problems is None else problems
+        self.processes = processes
+        self.processes_from = processes_from
+        self.machines = machines
+        self.distributed = distributed
+        self.zero_stage = zero_stage
+        self.offload_optimizer = offload_optimizer
+        self.offload_params = offload_params
+        self.fsdp = fsdp
+        self.fsdp_offload = fsdp_offload
+        self.activation_checkpointing = activation_checkpointing
+        self.mixed_precision = mixed_precision
+        self.mixed_precision_from = mixed_precision_from
+        self.mixed_precision_deepspeed = mixed_precision_deepspeed
+        self.script = script
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(files={self.files!r}, views={self.views!r}, problems={self.problems!r}, processes={self.processes!r}, processes_from={self.processes_from!r}, machines={self.machines!r}, distributed={self.distributed!r}, zero_stage={self.zero_stage!r}, offload_optimizer={self.offload_optimizer!r}, offload_params={self.offload_params!r}, fsdp={self.fsdp!r}, fsdp_offload={self.fsdp_offload!r}, activation_checkpointing={self.activation_checkpointing!r}, mixed_precision={self.mixed_precision!r}, mixed_precision_from={self.mixed_precision_from!r}, mixed_precision_deepspeed={self.mixed_precision_deepspeed!r}, script={self.script!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.files, self.views, self.problems, self.processes, self.processes_from, self.machines, self.distributed, self.zero_stage, self.offload_optimizer, self.offload_params, self.fsdp, self.fsdp_offload, self.activation_checkpointing, self.mixed_precision, self.mixed_precision_from, self.mixed_precision_deepspeed, self.script) == (other.files, other.views, other.problems, other.processes, other.processes_from, other.machines, other.distributed, other.zero_stage, other.offload_optimizer, other.offload_params, other.fsdp, other.fsdp_offload, other.activation_checkpointing, other.mixed_precision, other.mixed_precision_from, other.mixed_precision_deepspeed, other.script)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
     @property
     def known(self) -> bool:
@@ -197,18 +226,40 @@ def read_launch(files: tuple[str, ...] | list[str], cwd: Path | None = None, scr
 
 # --------------------------------------------------------------------------- the opened run
 
-@dataclass
 class OpenedRun:
     view: RunView
     file: str
     cwd: Path | None
     launch: LaunchContext
-    gpus: int | None = None  # GPUs in the whole job, when anything says it
-    gpus_origin: str = "assumed"  # "flag" | "launch" | "written" | "assumed"
-    gpus_from: str = ""  # in words
-    gpus_field: Field | None = None  # the config's own field when it is the source
+    gpus: int | None  # GPUs in the whole job, when anything says it
+    gpus_origin: str  # "flag" | "launch" | "written" | "assumed"
+    gpus_from: str  # in words
+    gpus_field: Field | None  # the config's own field when it is the source
     # (what, ours, theirs, where): the launch context and the config or flags disagree
-    disagreements: list[tuple[str, Any, Any, str]] = field(default_factory=list)
+    disagreements: list[tuple[str, Any, Any, str]]
+
+    __slots__ = ('view', 'file', 'cwd', 'launch', 'gpus', 'gpus_origin', 'gpus_from', 'gpus_field', 'disagreements')
+
+    def __init__(self, view, file, cwd, launch, gpus=None, gpus_origin="assumed", gpus_from="", gpus_field=None, disagreements=None):
+        self.view = view
+        self.file = file
+        self.cwd = cwd
+        self.launch = launch
+        self.gpus = gpus
+        self.gpus_origin = gpus_origin
+        self.gpus_from = gpus_from
+        self.gpus_field = gpus_field
+        self.disagreements = [] if disagreements is None else disagreements
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(view={self.view!r}, file={self.file!r}, cwd={self.cwd!r}, launch={self.launch!r}, gpus={self.gpus!r}, gpus_origin={self.gpus_origin!r}, gpus_from={self.gpus_from!r}, gpus_field={self.gpus_field!r}, disagreements={self.disagreements!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.view, self.file, self.cwd, self.launch, self.gpus, self.gpus_origin, self.gpus_from, self.gpus_field, self.disagreements) == (other.view, other.file, other.cwd, other.launch, other.gpus, other.gpus_origin, other.gpus_from, other.gpus_field, other.disagreements)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
     @property
     def offload_optimizer(self) -> bool:
@@ -316,11 +367,11 @@ def _own_reader(view: RunView, file: str, options: Any = None) -> bool:
     repo = keys_for(file, tuple(readers + ([reader] if reader else [])))
     if repo is None or repo.reader_libraries is None or repo.reader_libraries:
         return False
-    import dataclasses
+    from ._records import replaced
 
     # nor are TrainingArguments' accepted words (optim names, strategies) the script's
-    view.layout = dataclasses.replace(view.layout, trainer_defaults=False, read_by_own_classes=True,
-                                      word_lists=frozenset())
+    view.layout = replaced(view.layout, trainer_defaults=False, read_by_own_classes=True,
+                           word_lists=frozenset())
     return True
 
 

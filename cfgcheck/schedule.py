@@ -10,7 +10,6 @@ fractional logging/eval/save steps (below 1) resolve to ``ceil(total * fraction)
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
 from types import MappingProxyType
 
 # transformers TrainingArguments defaults (identical in 4.57 and 5.x)
@@ -24,19 +23,43 @@ TRAINER_DEFAULTS = MappingProxyType({
 })
 
 
-@dataclass
 class Schedule:
     per_device: int | None
     accumulation: int | None
     gpus: int
     effective_batch: int | None
-    rows: int | None = None
-    steps_per_epoch: int | None = None
-    total_steps: int | None = None
-    epochs: float | None = None
-    max_steps_override: bool = False
-    generations: int = 1  # completions sampled per prompt (online RL): each row counts that often
-    defaults_used: list[str] = field(default_factory=list)
+    rows: int | None
+    steps_per_epoch: int | None
+    total_steps: int | None
+    epochs: float | None
+    max_steps_override: bool
+    generations: int  # completions sampled per prompt (online RL): each row counts that often
+    defaults_used: list[str]
+
+    __slots__ = ('per_device', 'accumulation', 'gpus', 'effective_batch', 'rows', 'steps_per_epoch', 'total_steps', 'epochs', 'max_steps_override', 'generations', 'defaults_used')
+
+    def __init__(self, per_device, accumulation, gpus, effective_batch, rows=None, steps_per_epoch=None, total_steps=None, epochs=None, max_steps_override=False, generations=1, defaults_used=None):
+        self.per_device = per_device
+        self.accumulation = accumulation
+        self.gpus = gpus
+        self.effective_batch = effective_batch
+        self.rows = rows
+        self.steps_per_epoch = steps_per_epoch
+        self.total_steps = total_steps
+        self.epochs = epochs
+        self.max_steps_override = max_steps_override
+        self.generations = generations
+        self.defaults_used = [] if defaults_used is None else defaults_used
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(per_device={self.per_device!r}, accumulation={self.accumulation!r}, gpus={self.gpus!r}, effective_batch={self.effective_batch!r}, rows={self.rows!r}, steps_per_epoch={self.steps_per_epoch!r}, total_steps={self.total_steps!r}, epochs={self.epochs!r}, max_steps_override={self.max_steps_override!r}, generations={self.generations!r}, defaults_used={self.defaults_used!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.per_device, self.accumulation, self.gpus, self.effective_batch, self.rows, self.steps_per_epoch, self.total_steps, self.epochs, self.max_steps_override, self.generations, self.defaults_used) == (other.per_device, other.accumulation, other.gpus, other.effective_batch, other.rows, other.steps_per_epoch, other.total_steps, other.epochs, other.max_steps_override, other.generations, other.defaults_used)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
 def steps_per_epoch(rows: int, per_device: int, accumulation: int, gpus: int = 1) -> int:

@@ -12,10 +12,10 @@ from __future__ import annotations
 
 import functools
 import json
-from dataclasses import dataclass
 from types import MappingProxyType
 from typing import Any
 
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from .layouts import BY_NAME, FIELD_TYPES, LAYOUTS, Layout
 
 SCHEMA_ID = "https://cfgcheck.invalid/schema/run-view.json"
@@ -52,14 +52,42 @@ DEEPSPEED_SCHEDULERS = ("LRRangeTest", "OneCycle", "WarmupLR", "WarmupDecayLR", 
 # "peft-lora" (LoraConfig), "deepspeed", "accelerate".
 
 
-@dataclass(frozen=True)
 class Constraint:
-    minimum: float | None = None
-    exclusive_minimum: float | None = None
-    exclusive_maximum: float | None = None
-    enum: tuple | None = None
-    word_list: str | None = None  # only for layouts that read this word list (None: all)
-    source: str = ""
+    minimum: float | None
+    exclusive_minimum: float | None
+    exclusive_maximum: float | None
+    enum: tuple | None
+    word_list: str | None  # only for layouts that read this word list (None: all)
+    source: str
+
+    __slots__ = ('minimum', 'exclusive_minimum', 'exclusive_maximum', 'enum', 'word_list', 'source')
+
+    def __init__(self, minimum=None, exclusive_minimum=None, exclusive_maximum=None, enum=None, word_list=None, source=""):
+        _setattr(self, 'minimum', minimum)
+        _setattr(self, 'exclusive_minimum', exclusive_minimum)
+        _setattr(self, 'exclusive_maximum', exclusive_maximum)
+        _setattr(self, 'enum', enum)
+        _setattr(self, 'word_list', word_list)
+        _setattr(self, 'source', source)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(minimum={self.minimum!r}, exclusive_minimum={self.exclusive_minimum!r}, exclusive_maximum={self.exclusive_maximum!r}, enum={self.enum!r}, word_list={self.word_list!r}, source={self.source!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.minimum, self.exclusive_minimum, self.exclusive_maximum, self.enum, self.word_list, self.source) == (other.minimum, other.exclusive_minimum, other.exclusive_maximum, other.enum, other.word_list, other.source)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.minimum, self.exclusive_minimum, self.exclusive_maximum, self.enum, self.word_list, self.source))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.minimum, self.exclusive_minimum, self.exclusive_maximum, self.enum, self.word_list, self.source)
+
+    __setstate__ = _frozen_setstate
 
 
 CONSTRAINTS: MappingProxyType[str, tuple[Constraint, ...]] = MappingProxyType({
@@ -194,13 +222,40 @@ def layout_names() -> list[str]:
 
 # --------------------------------------------------------------------------- hand checks
 
-@dataclass(frozen=True)
 class Violation:
     field: str
     value: Any
     problem: str  # "below" | "at-or-above" | "not-above" | "not-one-of"
     bound: Any
     source: str
+
+    __slots__ = ('field', 'value', 'problem', 'bound', 'source')
+
+    def __init__(self, field, value, problem, bound, source):
+        _setattr(self, 'field', field)
+        _setattr(self, 'value', value)
+        _setattr(self, 'problem', problem)
+        _setattr(self, 'bound', bound)
+        _setattr(self, 'source', source)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(field={self.field!r}, value={self.value!r}, problem={self.problem!r}, bound={self.bound!r}, source={self.source!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.field, self.value, self.problem, self.bound, self.source) == (other.field, other.value, other.problem, other.bound, other.source)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.field, self.value, self.problem, self.bound, self.source))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.field, self.value, self.problem, self.bound, self.source)
+
+    __setstate__ = _frozen_setstate
 
 
 def violations(name: str, value: Any, layout: "Layout | str | None") -> list[Violation]:

@@ -7,9 +7,9 @@ it without knowing how the file spelled it.
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass, field
 from typing import Any
 
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from .findings import too_large
 from .layouts import (BASE_FILE_KEYS, BY_NAME, FIELD_TYPES, LAYOUTS, METHOD_WORDS, NOT_TRAINING,
                       UNREAD_FORMATS, Layout, UnreadFormat)
@@ -20,7 +20,6 @@ _TRUE = frozenset({"true", "yes", "on", "1"})
 _FALSE = frozenset({"false", "no", "off", "0"})
 
 
-@dataclass(frozen=True, slots=True)
 class Field:
     """One value of the view and where it was written."""
 
@@ -28,14 +27,45 @@ class Field:
     value: Any  # typed: numbers written as text are read as numbers here
     path: tuple  # key path in the document
     written: Any  # the value exactly as loaded
-    auto: bool = False  # "auto": filled in at launch
-    from_text: bool = False  # a number or boolean that was loaded as text
+    auto: bool  # "auto": filled in at launch
+    from_text: bool  # a number or boolean that was loaded as text
     # where the value came from: "written" (in this file), "linked" (a file this one names),
     # "launch" (a launch file or script the run is started with), "default" (the runner's own
     # default, with its source in ``note``), "flag" (the command line or the project file), or
     # "assumed" (a guess; ``note`` says it in words). Only "assumed" values can never make an error.
-    origin: str = "written"
-    note: str = ""  # in words: which file, which default and its source, or what was assumed
+    origin: str
+    note: str  # in words: which file, which default and its source, or what was assumed
+
+    __slots__ = ('name', 'value', 'path', 'written', 'auto', 'from_text', 'origin', 'note')
+
+    def __init__(self, name, value, path, written, auto=False, from_text=False, origin="written", note=""):
+        _setattr(self, 'name', name)
+        _setattr(self, 'value', value)
+        _setattr(self, 'path', path)
+        _setattr(self, 'written', written)
+        _setattr(self, 'auto', auto)
+        _setattr(self, 'from_text', from_text)
+        _setattr(self, 'origin', origin)
+        _setattr(self, 'note', note)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(name={self.name!r}, value={self.value!r}, path={self.path!r}, written={self.written!r}, auto={self.auto!r}, from_text={self.from_text!r}, origin={self.origin!r}, note={self.note!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.name, self.value, self.path, self.written, self.auto, self.from_text, self.origin, self.note) == (other.name, other.value, other.path, other.written, other.auto, other.from_text, other.origin, other.note)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.name, self.value, self.path, self.written, self.auto, self.from_text, self.origin, self.note))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.name, self.value, self.path, self.written, self.auto, self.from_text, self.origin, self.note)
+
+    __setstate__ = _frozen_setstate
 
     @property
     def key(self) -> str:
@@ -46,32 +76,74 @@ class Field:
         return str(self.path[-1]) if self.path else ""
 
 
-@dataclass(slots=True)
 class TypeProblem:
     field: Field
     expected: str
 
+    __slots__ = ('field', 'expected')
 
-@dataclass(slots=True)
+    def __init__(self, field, expected):
+        self.field = field
+        self.expected = expected
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(field={self.field!r}, expected={self.expected!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.field, self.expected) == (other.field, other.expected)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
+
+
 class RunView:
     doc: Document
     layout: Layout | None
-    fields: dict[str, Field] = field(default_factory=dict)
-    method: str | None = None  # "full" | "lora" | "qlora"
-    method_stated: bool = False
-    method_field: Field | None = None
-    type_problems: list[TypeProblem] = field(default_factory=list)
+    fields: dict[str, Field]
+    method: str | None  # "full" | "lora" | "qlora"
+    method_stated: bool
+    method_field: Field | None
+    type_problems: list[TypeProblem]
     # numbers beyond findings.MAX_MAGNITUDE: written, but set aside (their Field's value is None)
-    out_of_range: list[Field] = field(default_factory=list)
-    skipped: str | None = None  # why this document is not a training config
-    attached: list["RunView"] = field(default_factory=list)  # configs this one points to
+    out_of_range: list[Field]
+    skipped: str | None  # why this document is not a training config
+    attached: list["RunView"]  # configs this one points to
     # what the config names and what could not be followed (links.Link records)
-    links: list = field(default_factory=list)
+    links: list
     # values the file does not write but the run has: from a linked file, the launch context,
     # the runner's defaults, or an assumption (each Field says which in ``origin`` and ``note``)
-    supplied: dict[str, Field] = field(default_factory=dict)
-    model_found: tuple | None = None  # (Architecture or None,) once the model was looked up
-    run: Any = None  # the opened run (cfgcheck.run.OpenedRun) this view belongs to
+    supplied: dict[str, Field]
+    model_found: tuple | None  # (Architecture or None,) once the model was looked up
+    run: Any  # the opened run (cfgcheck.run.OpenedRun) this view belongs to
+
+    __slots__ = ('doc', 'layout', 'fields', 'method', 'method_stated', 'method_field', 'type_problems', 'out_of_range', 'skipped', 'attached', 'links', 'supplied', 'model_found', 'run')
+
+    def __init__(self, doc, layout, fields=None, method=None, method_stated=False, method_field=None, type_problems=None, out_of_range=None, skipped=None, attached=None, links=None, supplied=None, model_found=None, run=None):
+        self.doc = doc
+        self.layout = layout
+        self.fields = {} if fields is None else fields
+        self.method = method
+        self.method_stated = method_stated
+        self.method_field = method_field
+        self.type_problems = [] if type_problems is None else type_problems
+        self.out_of_range = [] if out_of_range is None else out_of_range
+        self.skipped = skipped
+        self.attached = [] if attached is None else attached
+        self.links = [] if links is None else links
+        self.supplied = {} if supplied is None else supplied
+        self.model_found = model_found
+        self.run = run
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(doc={self.doc!r}, layout={self.layout!r}, fields={self.fields!r}, method={self.method!r}, method_stated={self.method_stated!r}, method_field={self.method_field!r}, type_problems={self.type_problems!r}, out_of_range={self.out_of_range!r}, skipped={self.skipped!r}, attached={self.attached!r}, links={self.links!r}, supplied={self.supplied!r}, model_found={self.model_found!r}, run={self.run!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.doc, self.layout, self.fields, self.method, self.method_stated, self.method_field, self.type_problems, self.out_of_range, self.skipped, self.attached, self.links, self.supplied, self.model_found, self.run) == (other.doc, other.layout, other.fields, other.method, other.method_stated, other.method_field, other.type_problems, other.out_of_range, other.skipped, other.attached, other.links, other.supplied, other.model_found, other.run)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
     def effective(self, name: str) -> Field | None:
         """The written value when there is one, else what the run supplies (default, launch...)."""

@@ -16,9 +16,9 @@ a rule, file globs, an optional key and a reason; those are matched in ``apply``
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass
 from typing import Iterable
 
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from .findings import Finding
 from .load import Document, Span
 
@@ -31,7 +31,6 @@ _SPECIAL = re.compile(r"[#'\"\[{|>]")
 _BLOCK_START = re.compile(r"(?:^|[:?-]\s)\s*(?:[&!][^\s]*\s+)*[|>][1-9+-]{0,2}$")
 
 
-@dataclass(frozen=True)
 class Waiver:
     """One waiver comment: where it is, what it names and which line it applies to."""
 
@@ -39,10 +38,36 @@ class Waiver:
     column: int  # 1-based column of the '#'
     offset: int  # 0-based character offset of the '#'
     text: str  # the comment without '#', stripped
-    rules: tuple[str, ...] = ()
-    reason: str | None = None
-    problem: str | None = None  # set when the comment starts with "cfgcheck:" but does not parse
-    target: int | None = None  # the line the waiver applies to (None: no key follows)
+    rules: tuple[str, ...]
+    reason: str | None
+    problem: str | None  # set when the comment starts with "cfgcheck:" but does not parse
+    target: int | None  # the line the waiver applies to (None: no key follows)
+
+
+    def __init__(self, line, column, offset, text, rules=(), reason=None, problem=None, target=None):
+        _setattr(self, 'line', line)
+        _setattr(self, 'column', column)
+        _setattr(self, 'offset', offset)
+        _setattr(self, 'text', text)
+        _setattr(self, 'rules', rules)
+        _setattr(self, 'reason', reason)
+        _setattr(self, 'problem', problem)
+        _setattr(self, 'target', target)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(line={self.line!r}, column={self.column!r}, offset={self.offset!r}, text={self.text!r}, rules={self.rules!r}, reason={self.reason!r}, problem={self.problem!r}, target={self.target!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.line, self.column, self.offset, self.text, self.rules, self.reason, self.problem, self.target) == (other.line, other.column, other.offset, other.text, other.rules, other.reason, other.problem, other.target)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.line, self.column, self.offset, self.text, self.rules, self.reason, self.problem, self.target))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
 
     @property
     def span(self) -> Span:
@@ -50,13 +75,41 @@ class Waiver:
                     end=self.offset + len(self.text) + 1)
 
 
-@dataclass(frozen=True)
 class ProjectWaiver:
     """A waiver from the project configuration (the way to waive a finding in a JSON file)."""
 
     rule: str
     reason: str
-    key: str | None = None  # dotted key; None waives the rule for the whole file
+    key: str | None  # dotted key; None waives the rule for the whole file
+
+    __slots__ = ('rule', 'reason', 'key')
+
+    # the fields in order: the result cache keys the record by them, ``replaced`` copies them
+    _record_fields = ('rule', 'reason', 'key')
+
+    def __init__(self, rule, reason, key=None):
+        _setattr(self, 'rule', rule)
+        _setattr(self, 'reason', reason)
+        _setattr(self, 'key', key)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(rule={self.rule!r}, reason={self.reason!r}, key={self.key!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.rule, self.reason, self.key) == (other.rule, other.reason, other.key)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.rule, self.reason, self.key))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.rule, self.reason, self.key)
+
+    __setstate__ = _frozen_setstate
 
 
 # --------------------------------------------------------------------------- scanning

@@ -219,8 +219,7 @@ def _findings_under(layout, text: str, fmt: str = "yaml", **opts):
 
 def test_a_renamed_layout_lints_like_the_original():
     """A layout is its attributes: the same table under another name gives the same findings."""
-    import dataclasses
-
+    from cfgcheck._records import replaced
     from cfgcheck.layouts import AXOLOTL, LLAMA_FACTORY, TORCHTUNE, TRAINER
 
     cases = [
@@ -235,7 +234,7 @@ def test_a_renamed_layout_lints_like_the_original():
                     "  lora_alpha: 16\ndataset:\n  packed: true\ndtype: bf16\nbatch_size: 2\n", {"gpu": "t4"}),
     ]
     for layout, text, opts in cases:
-        renamed = dataclasses.replace(layout, name="acme-runner")
+        renamed = replaced(layout, name="acme-runner")
         original = _findings_under(layout, text, **opts)
         assert original, layout.name  # each case says something, so the comparison means something
         assert _findings_under(renamed, text, **opts) == original, layout.name

@@ -5,13 +5,13 @@ from __future__ import annotations
 import os
 import shutil
 import stat
-import dataclasses
 from pathlib import Path
 
 import pytest
 import yaml
 
 from cfgcheck import api, fix
+from cfgcheck._records import replaced
 from cfgcheck.knowledge import models
 
 CASES_DIR = Path(__file__).resolve().parents[1] / "fixtures" / "fix"
@@ -31,7 +31,7 @@ def known_model(monkeypatch):
         if tied is None:
             return
         base = models.resolve_model("Qwen/Qwen2.5-0.5B")  # bundled catalogue: tied embeddings
-        arch = dataclasses.replace(base, tie_word_embeddings=tied, source="test")
+        arch = replaced(base, tie_word_embeddings=tied, source="test")
         monkeypatch.setattr(models, "resolve_model", lambda *a, **k: arch)
 
     return use

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import replace
+from cfgcheck._records import replaced as replace  # the records are plain classes
 
 import pytest
 

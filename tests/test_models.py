@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import replace
+from cfgcheck._records import replaced as replace  # the records are plain classes
 from pathlib import Path
 
 import pytest

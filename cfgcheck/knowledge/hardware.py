@@ -7,20 +7,51 @@ against a primary source.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from types import MappingProxyType
+
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 
 GIB = 1024**3
 GB = 1000**3
 
 
-@dataclass(frozen=True)
 class Gpu:
     name: str  # canonical id, e.g. "a100-80gb"
     label: str  # what people call it
     capability: tuple[int, int]
     memory_bytes: int
     source: str
+
+    __slots__ = ('name', 'label', 'capability', 'memory_bytes', 'source')
+
+    # the fields in order: the result cache keys the record by them, ``replaced`` copies them
+    _record_fields = ('name', 'label', 'capability', 'memory_bytes', 'source')
+
+    def __init__(self, name, label, capability, memory_bytes, source):
+        _setattr(self, 'name', name)
+        _setattr(self, 'label', label)
+        _setattr(self, 'capability', capability)
+        _setattr(self, 'memory_bytes', memory_bytes)
+        _setattr(self, 'source', source)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(name={self.name!r}, label={self.label!r}, capability={self.capability!r}, memory_bytes={self.memory_bytes!r}, source={self.source!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.name, self.label, self.capability, self.memory_bytes, self.source) == (other.name, other.label, other.capability, other.memory_bytes, other.source)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.name, self.label, self.capability, self.memory_bytes, self.source))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.name, self.label, self.capability, self.memory_bytes, self.source)
+
+    __setstate__ = _frozen_setstate
 
     @property
     def capability_text(self) -> str:

@@ -32,9 +32,10 @@ True
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass, field
 from functools import cache
 from pathlib import Path
+
+from .._records import _frozen_delattr, _frozen_setattr, _setattr
 
 __all__ = ("KeyInfo", "lookup", "suggest", "layouts")
 
@@ -43,15 +44,37 @@ _EXTRA = "extra_keys.json"
 _RUNNERS = "runner_keys.json"
 
 
-@dataclass(frozen=True)
 class KeyInfo:
     """What is known about one configuration key in one layout."""
 
     name: str
     layout: str
     owners: tuple[str, ...]
-    accepted: dict[str, tuple[str, str]] = field(hash=False)
+    accepted: dict[str, tuple[str, str]]
     current: bool
+
+
+    def __init__(self, name, layout, owners, accepted, current):
+        _setattr(self, 'name', name)
+        _setattr(self, 'layout', layout)
+        _setattr(self, 'owners', owners)
+        _setattr(self, 'accepted', accepted)
+        _setattr(self, 'current', current)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(name={self.name!r}, layout={self.layout!r}, owners={self.owners!r}, accepted={self.accepted!r}, current={self.current!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.name, self.layout, self.owners, self.accepted, self.current) == (other.name, other.layout, other.owners, other.accepted, other.current)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.name, self.layout, self.owners, self.current))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
 
     def versions_text(self) -> str:
         """Human-readable acceptance, e.g. ``"transformers 4.36–4.50 (removed in 4.51)"``."""

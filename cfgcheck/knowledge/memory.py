@@ -29,9 +29,9 @@ from __future__ import annotations
 
 import itertools
 import math
-from dataclasses import dataclass, field, replace
 from types import MappingProxyType
 
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, replaced
 from .models import (
     Architecture,
     NoDefaultTargets,
@@ -80,7 +80,6 @@ _SHARDED = MappingProxyType({
 })
 
 
-@dataclass(frozen=True)
 class MemoryInputs:
     """What the estimate needs to know about a run.
 
@@ -110,31 +109,76 @@ class MemoryInputs:
 
     arch: Architecture
     method: str  # "full" | "lora" | "qlora"
-    base_storage: str = "bf16"  # "fp32" | "bf16" | "fp16" | "int8" | "nf4" | "fp4"
-    double_quant: bool = False
-    optimizer: str = "adamw_torch"  # transformers `optim` names
-    sgd_momentum: float = 0.0
-    mixed_precision: str | None = "bf16"  # "bf16" | "fp16" | None (no autocast; states in the weights' dtype)
-    micro_batch: int = 1
-    seq_len: int = 2048
-    gradient_checkpointing: bool = False
-    fused_attention: bool = True  # flash / sdpa: no s^2 attention-score term
-    lora_rank: int = 8
-    lora_targets: object = None
-    modules_to_save: tuple[str, ...] = ()
-    num_gpus: int = 1
-    sharding: str = "none"  # "none" | "zero0" | "zero1" | "zero2" | "zero3" | "fsdp_full" | "fsdp_grad_op"
-    overhead_bytes: int = DEFAULT_OVERHEAD_BYTES
-    offload_optimizer: bool = False  # DeepSpeed zero_optimization.offload_optimizer: states and master in CPU RAM
+    base_storage: str  # "fp32" | "bf16" | "fp16" | "int8" | "nf4" | "fp4"
+    double_quant: bool
+    optimizer: str  # transformers `optim` names
+    sgd_momentum: float
+    mixed_precision: str | None  # "bf16" | "fp16" | None (no autocast; states in the weights' dtype)
+    micro_batch: int
+    seq_len: int
+    gradient_checkpointing: bool
+    fused_attention: bool  # flash / sdpa: no s^2 attention-score term
+    lora_rank: int
+    lora_targets: object
+    modules_to_save: tuple[str, ...]
+    num_gpus: int
+    sharding: str  # "none" | "zero0" | "zero1" | "zero2" | "zero3" | "fsdp_full" | "fsdp_grad_op"
+    overhead_bytes: int
+    offload_optimizer: bool  # DeepSpeed zero_optimization.offload_optimizer: states and master in CPU RAM
     # Whether the forward runs under torch.autocast (the trainer's bf16/fp16 flags outside DeepSpeed).
     # None: derived as before -- autocast when mixed_precision is set and the weights are fp32.
-    autocast: bool | None = None
+    autocast: bool | None
     # Where base_storage came from, in words (e.g. the load-dtype default of the pinned transformers
     # version); repeated in the breakdown's notes.
-    storage_note: str | None = None
+    storage_note: str | None
+
+    __slots__ = ('arch', 'method', 'base_storage', 'double_quant', 'optimizer', 'sgd_momentum', 'mixed_precision', 'micro_batch', 'seq_len', 'gradient_checkpointing', 'fused_attention', 'lora_rank', 'lora_targets', 'modules_to_save', 'num_gpus', 'sharding', 'overhead_bytes', 'offload_optimizer', 'autocast', 'storage_note')
+
+    # the fields in order: the result cache keys the record by them, ``replaced`` copies them
+    _record_fields = ('arch', 'method', 'base_storage', 'double_quant', 'optimizer', 'sgd_momentum', 'mixed_precision', 'micro_batch', 'seq_len', 'gradient_checkpointing', 'fused_attention', 'lora_rank', 'lora_targets', 'modules_to_save', 'num_gpus', 'sharding', 'overhead_bytes', 'offload_optimizer', 'autocast', 'storage_note')
+
+    def __init__(self, arch, method, base_storage="bf16", double_quant=False, optimizer="adamw_torch", sgd_momentum=0.0, mixed_precision="bf16", micro_batch=1, seq_len=2048, gradient_checkpointing=False, fused_attention=True, lora_rank=8, lora_targets=None, modules_to_save=(), num_gpus=1, sharding="none", overhead_bytes=DEFAULT_OVERHEAD_BYTES, offload_optimizer=False, autocast=None, storage_note=None):
+        _setattr(self, 'arch', arch)
+        _setattr(self, 'method', method)
+        _setattr(self, 'base_storage', base_storage)
+        _setattr(self, 'double_quant', double_quant)
+        _setattr(self, 'optimizer', optimizer)
+        _setattr(self, 'sgd_momentum', sgd_momentum)
+        _setattr(self, 'mixed_precision', mixed_precision)
+        _setattr(self, 'micro_batch', micro_batch)
+        _setattr(self, 'seq_len', seq_len)
+        _setattr(self, 'gradient_checkpointing', gradient_checkpointing)
+        _setattr(self, 'fused_attention', fused_attention)
+        _setattr(self, 'lora_rank', lora_rank)
+        _setattr(self, 'lora_targets', lora_targets)
+        _setattr(self, 'modules_to_save', modules_to_save)
+        _setattr(self, 'num_gpus', num_gpus)
+        _setattr(self, 'sharding', sharding)
+        _setattr(self, 'overhead_bytes', overhead_bytes)
+        _setattr(self, 'offload_optimizer', offload_optimizer)
+        _setattr(self, 'autocast', autocast)
+        _setattr(self, 'storage_note', storage_note)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(arch={self.arch!r}, method={self.method!r}, base_storage={self.base_storage!r}, double_quant={self.double_quant!r}, optimizer={self.optimizer!r}, sgd_momentum={self.sgd_momentum!r}, mixed_precision={self.mixed_precision!r}, micro_batch={self.micro_batch!r}, seq_len={self.seq_len!r}, gradient_checkpointing={self.gradient_checkpointing!r}, fused_attention={self.fused_attention!r}, lora_rank={self.lora_rank!r}, lora_targets={self.lora_targets!r}, modules_to_save={self.modules_to_save!r}, num_gpus={self.num_gpus!r}, sharding={self.sharding!r}, overhead_bytes={self.overhead_bytes!r}, offload_optimizer={self.offload_optimizer!r}, autocast={self.autocast!r}, storage_note={self.storage_note!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.arch, self.method, self.base_storage, self.double_quant, self.optimizer, self.sgd_momentum, self.mixed_precision, self.micro_batch, self.seq_len, self.gradient_checkpointing, self.fused_attention, self.lora_rank, self.lora_targets, self.modules_to_save, self.num_gpus, self.sharding, self.overhead_bytes, self.offload_optimizer, self.autocast, self.storage_note) == (other.arch, other.method, other.base_storage, other.double_quant, other.optimizer, other.sgd_momentum, other.mixed_precision, other.micro_batch, other.seq_len, other.gradient_checkpointing, other.fused_attention, other.lora_rank, other.lora_targets, other.modules_to_save, other.num_gpus, other.sharding, other.overhead_bytes, other.offload_optimizer, other.autocast, other.storage_note)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.arch, self.method, self.base_storage, self.double_quant, self.optimizer, self.sgd_momentum, self.mixed_precision, self.micro_batch, self.seq_len, self.gradient_checkpointing, self.fused_attention, self.lora_rank, self.lora_targets, self.modules_to_save, self.num_gpus, self.sharding, self.overhead_bytes, self.offload_optimizer, self.autocast, self.storage_note))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.arch, self.method, self.base_storage, self.double_quant, self.optimizer, self.sgd_momentum, self.mixed_precision, self.micro_batch, self.seq_len, self.gradient_checkpointing, self.fused_attention, self.lora_rank, self.lora_targets, self.modules_to_save, self.num_gpus, self.sharding, self.overhead_bytes, self.offload_optimizer, self.autocast, self.storage_note)
+
+    __setstate__ = _frozen_setstate
 
 
-@dataclass(frozen=True)
 class MemoryBreakdown:
     weights_bytes: int
     gradients_bytes: int
@@ -144,14 +188,50 @@ class MemoryBreakdown:
     logits_bytes: int
     overhead_bytes: int
     total_bytes: int
-    notes: tuple[str, ...] = field(default=())
-    trainable_parameters: int = 0
-    total_parameters: int = 0
+    notes: tuple[str, ...]
+    trainable_parameters: int
+    total_parameters: int
     # 16-bit copies of fp32 weights that torch.autocast casts and keeps until backward (in total_bytes)
-    weight_copies_bytes: int = 0
+    weight_copies_bytes: int
     # with activation checkpointing: the part of activations_bytes that is one layer's activations
     # while it is recomputed during backward (0 without checkpointing)
-    recomputed_layer_bytes: int = 0
+    recomputed_layer_bytes: int
+
+    __slots__ = ('weights_bytes', 'gradients_bytes', 'optimizer_bytes', 'master_weights_bytes', 'activations_bytes', 'logits_bytes', 'overhead_bytes', 'total_bytes', 'notes', 'trainable_parameters', 'total_parameters', 'weight_copies_bytes', 'recomputed_layer_bytes')
+
+    def __init__(self, weights_bytes, gradients_bytes, optimizer_bytes, master_weights_bytes, activations_bytes, logits_bytes, overhead_bytes, total_bytes, notes=(), trainable_parameters=0, total_parameters=0, weight_copies_bytes=0, recomputed_layer_bytes=0):
+        _setattr(self, 'weights_bytes', weights_bytes)
+        _setattr(self, 'gradients_bytes', gradients_bytes)
+        _setattr(self, 'optimizer_bytes', optimizer_bytes)
+        _setattr(self, 'master_weights_bytes', master_weights_bytes)
+        _setattr(self, 'activations_bytes', activations_bytes)
+        _setattr(self, 'logits_bytes', logits_bytes)
+        _setattr(self, 'overhead_bytes', overhead_bytes)
+        _setattr(self, 'total_bytes', total_bytes)
+        _setattr(self, 'notes', notes)
+        _setattr(self, 'trainable_parameters', trainable_parameters)
+        _setattr(self, 'total_parameters', total_parameters)
+        _setattr(self, 'weight_copies_bytes', weight_copies_bytes)
+        _setattr(self, 'recomputed_layer_bytes', recomputed_layer_bytes)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(weights_bytes={self.weights_bytes!r}, gradients_bytes={self.gradients_bytes!r}, optimizer_bytes={self.optimizer_bytes!r}, master_weights_bytes={self.master_weights_bytes!r}, activations_bytes={self.activations_bytes!r}, logits_bytes={self.logits_bytes!r}, overhead_bytes={self.overhead_bytes!r}, total_bytes={self.total_bytes!r}, notes={self.notes!r}, trainable_parameters={self.trainable_parameters!r}, total_parameters={self.total_parameters!r}, weight_copies_bytes={self.weight_copies_bytes!r}, recomputed_layer_bytes={self.recomputed_layer_bytes!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.weights_bytes, self.gradients_bytes, self.optimizer_bytes, self.master_weights_bytes, self.activations_bytes, self.logits_bytes, self.overhead_bytes, self.total_bytes, self.notes, self.trainable_parameters, self.total_parameters, self.weight_copies_bytes, self.recomputed_layer_bytes) == (other.weights_bytes, other.gradients_bytes, other.optimizer_bytes, other.master_weights_bytes, other.activations_bytes, other.logits_bytes, other.overhead_bytes, other.total_bytes, other.notes, other.trainable_parameters, other.total_parameters, other.weight_copies_bytes, other.recomputed_layer_bytes)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.weights_bytes, self.gradients_bytes, self.optimizer_bytes, self.master_weights_bytes, self.activations_bytes, self.logits_bytes, self.overhead_bytes, self.total_bytes, self.notes, self.trainable_parameters, self.total_parameters, self.weight_copies_bytes, self.recomputed_layer_bytes))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.weights_bytes, self.gradients_bytes, self.optimizer_bytes, self.master_weights_bytes, self.activations_bytes, self.logits_bytes, self.overhead_bytes, self.total_bytes, self.notes, self.trainable_parameters, self.total_parameters, self.weight_copies_bytes, self.recomputed_layer_bytes)
+
+    __setstate__ = _frozen_setstate
 
     def components(self) -> list[tuple[str, int]]:
         return [
@@ -878,7 +958,7 @@ def changes_that_fit(inp: MemoryInputs, capacity_bytes: int) -> list[tuple[str, 
             if set(singles[i][1]) & set(changes):
                 return None  # two changes of the same setting (e.g. two micro-batch sizes)
             changes.update(singles[i][1])
-        new = replace(inp, **changes)
+        new = replaced(inp, **changes)
         try:
             est = estimate_memory(new)
         except ValueError:

@@ -32,12 +32,12 @@ import json
 import math
 import os
 import re
-from dataclasses import dataclass, field, replace
 from functools import lru_cache
 from pathlib import Path
 from types import MappingProxyType
 from typing import Iterable
 
+from .._records import _frozen_delattr, _frozen_setattr, _setattr, replaced
 from .. import reads
 
 __all__ = (
@@ -70,7 +70,6 @@ __all__ = (
 )
 
 
-@dataclass(frozen=True)
 class Architecture:
     """Shapes of a decoder-only language model (names follow transformers' config.json keys).
 
@@ -89,25 +88,76 @@ class Architecture:
     max_position_embeddings: int | None  # the context window the config states
     tie_word_embeddings: bool
     torch_dtype: str | None  # stored dtype, e.g. "bfloat16"
-    num_experts: int = 0  # mixture of experts: routed experts per MoE layer; 0 = dense
-    experts_per_token: int = 0  # routed experts active per token
-    source: str = ""  # where the numbers came from
-    attention_bias: bool = False  # bias on q/k/v/o (llama/qwen3 `attention_bias`); qwen2 has q/k/v bias always
-    mlp_bias: bool = False  # llama `mlp_bias`
-    sliding_window: int | None = None  # local-attention window where the config sets one
-    expert_intermediate_size: int = 0  # moe_intermediate_size (0: the experts use intermediate_size)
-    shared_expert_intermediate_size: int = 0  # always-active shared expert(s) FFN width, 0 = none
-    first_dense_layers: int = 0  # deepseek first_k_dense_replace: leading layers with a dense MLP
-    kv_lora_rank: int = 0  # deepseek_v2 latent attention
-    q_lora_rank: int = 0
-    qk_rope_head_dim: int = 0
-    v_head_dim: int = 0
-    parallel_norms: int = 0  # falcon new_decoder_architecture: 2 layer norms (ln_attn, ln_mlp), else 1
-    entry: str = field(default="", compare=False)  # catalogue entry (canonical id) the shapes came from
-    how: str = field(default="", compare=False)  # how the reference was matched, in words
-    assumed: bool = field(default=False, compare=False)  # True when the match rests on the name alone
-    match: str = field(default="", compare=False)  # exact | mirror | variant | derived | tokens | config | declared
-    quantised: str = field(default="", compare=False)  # what a quantised export stores ("GPTQ", "GGUF Q4_K_M")
+    num_experts: int  # mixture of experts: routed experts per MoE layer; 0 = dense
+    experts_per_token: int  # routed experts active per token
+    source: str  # where the numbers came from
+    attention_bias: bool  # bias on q/k/v/o (llama/qwen3 `attention_bias`); qwen2 has q/k/v bias always
+    mlp_bias: bool  # llama `mlp_bias`
+    sliding_window: int | None  # local-attention window where the config sets one
+    expert_intermediate_size: int  # moe_intermediate_size (0: the experts use intermediate_size)
+    shared_expert_intermediate_size: int  # always-active shared expert(s) FFN width, 0 = none
+    first_dense_layers: int  # deepseek first_k_dense_replace: leading layers with a dense MLP
+    kv_lora_rank: int  # deepseek_v2 latent attention
+    q_lora_rank: int
+    qk_rope_head_dim: int
+    v_head_dim: int
+    parallel_norms: int  # falcon new_decoder_architecture: 2 layer norms (ln_attn, ln_mlp), else 1
+    entry: str  # catalogue entry (canonical id) the shapes came from
+    how: str  # how the reference was matched, in words
+    assumed: bool  # True when the match rests on the name alone
+    match: str  # exact | mirror | variant | derived | tokens | config | declared
+    quantised: str  # what a quantised export stores ("GPTQ", "GGUF Q4_K_M")
+
+
+    # the fields in order: the result cache keys the record by them, ``replaced`` copies them
+    _record_fields = ('family', 'hidden_size', 'intermediate_size', 'num_layers', 'num_heads', 'num_kv_heads', 'head_dim', 'vocab_size', 'max_position_embeddings', 'tie_word_embeddings', 'torch_dtype', 'num_experts', 'experts_per_token', 'source', 'attention_bias', 'mlp_bias', 'sliding_window', 'expert_intermediate_size', 'shared_expert_intermediate_size', 'first_dense_layers', 'kv_lora_rank', 'q_lora_rank', 'qk_rope_head_dim', 'v_head_dim', 'parallel_norms', 'entry', 'how', 'assumed', 'match', 'quantised')
+
+    def __init__(self, family, hidden_size, intermediate_size, num_layers, num_heads, num_kv_heads, head_dim, vocab_size, max_position_embeddings, tie_word_embeddings, torch_dtype, num_experts=0, experts_per_token=0, source="", attention_bias=False, mlp_bias=False, sliding_window=None, expert_intermediate_size=0, shared_expert_intermediate_size=0, first_dense_layers=0, kv_lora_rank=0, q_lora_rank=0, qk_rope_head_dim=0, v_head_dim=0, parallel_norms=0, entry="", how="", assumed=False, match="", quantised=""):
+        _setattr(self, 'family', family)
+        _setattr(self, 'hidden_size', hidden_size)
+        _setattr(self, 'intermediate_size', intermediate_size)
+        _setattr(self, 'num_layers', num_layers)
+        _setattr(self, 'num_heads', num_heads)
+        _setattr(self, 'num_kv_heads', num_kv_heads)
+        _setattr(self, 'head_dim', head_dim)
+        _setattr(self, 'vocab_size', vocab_size)
+        _setattr(self, 'max_position_embeddings', max_position_embeddings)
+        _setattr(self, 'tie_word_embeddings', tie_word_embeddings)
+        _setattr(self, 'torch_dtype', torch_dtype)
+        _setattr(self, 'num_experts', num_experts)
+        _setattr(self, 'experts_per_token', experts_per_token)
+        _setattr(self, 'source', source)
+        _setattr(self, 'attention_bias', attention_bias)
+        _setattr(self, 'mlp_bias', mlp_bias)
+        _setattr(self, 'sliding_window', sliding_window)
+        _setattr(self, 'expert_intermediate_size', expert_intermediate_size)
+        _setattr(self, 'shared_expert_intermediate_size', shared_expert_intermediate_size)
+        _setattr(self, 'first_dense_layers', first_dense_layers)
+        _setattr(self, 'kv_lora_rank', kv_lora_rank)
+        _setattr(self, 'q_lora_rank', q_lora_rank)
+        _setattr(self, 'qk_rope_head_dim', qk_rope_head_dim)
+        _setattr(self, 'v_head_dim', v_head_dim)
+        _setattr(self, 'parallel_norms', parallel_norms)
+        _setattr(self, 'entry', entry)
+        _setattr(self, 'how', how)
+        _setattr(self, 'assumed', assumed)
+        _setattr(self, 'match', match)
+        _setattr(self, 'quantised', quantised)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(family={self.family!r}, hidden_size={self.hidden_size!r}, intermediate_size={self.intermediate_size!r}, num_layers={self.num_layers!r}, num_heads={self.num_heads!r}, num_kv_heads={self.num_kv_heads!r}, head_dim={self.head_dim!r}, vocab_size={self.vocab_size!r}, max_position_embeddings={self.max_position_embeddings!r}, tie_word_embeddings={self.tie_word_embeddings!r}, torch_dtype={self.torch_dtype!r}, num_experts={self.num_experts!r}, experts_per_token={self.experts_per_token!r}, source={self.source!r}, attention_bias={self.attention_bias!r}, mlp_bias={self.mlp_bias!r}, sliding_window={self.sliding_window!r}, expert_intermediate_size={self.expert_intermediate_size!r}, shared_expert_intermediate_size={self.shared_expert_intermediate_size!r}, first_dense_layers={self.first_dense_layers!r}, kv_lora_rank={self.kv_lora_rank!r}, q_lora_rank={self.q_lora_rank!r}, qk_rope_head_dim={self.qk_rope_head_dim!r}, v_head_dim={self.v_head_dim!r}, parallel_norms={self.parallel_norms!r}, entry={self.entry!r}, how={self.how!r}, assumed={self.assumed!r}, match={self.match!r}, quantised={self.quantised!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.family, self.hidden_size, self.intermediate_size, self.num_layers, self.num_heads, self.num_kv_heads, self.head_dim, self.vocab_size, self.max_position_embeddings, self.tie_word_embeddings, self.torch_dtype, self.num_experts, self.experts_per_token, self.source, self.attention_bias, self.mlp_bias, self.sliding_window, self.expert_intermediate_size, self.shared_expert_intermediate_size, self.first_dense_layers, self.kv_lora_rank, self.q_lora_rank, self.qk_rope_head_dim, self.v_head_dim, self.parallel_norms) == (other.family, other.hidden_size, other.intermediate_size, other.num_layers, other.num_heads, other.num_kv_heads, other.head_dim, other.vocab_size, other.max_position_embeddings, other.tie_word_embeddings, other.torch_dtype, other.num_experts, other.experts_per_token, other.source, other.attention_bias, other.mlp_bias, other.sliding_window, other.expert_intermediate_size, other.shared_expert_intermediate_size, other.first_dense_layers, other.kv_lora_rank, other.q_lora_rank, other.qk_rope_head_dim, other.v_head_dim, other.parallel_norms)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.family, self.hidden_size, self.intermediate_size, self.num_layers, self.num_heads, self.num_kv_heads, self.head_dim, self.vocab_size, self.max_position_embeddings, self.tie_word_embeddings, self.torch_dtype, self.num_experts, self.experts_per_token, self.source, self.attention_bias, self.mlp_bias, self.sliding_window, self.expert_intermediate_size, self.shared_expert_intermediate_size, self.first_dense_layers, self.kv_lora_rank, self.q_lora_rank, self.qk_rope_head_dim, self.v_head_dim, self.parallel_norms))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
 
     @property
     def is_moe(self) -> bool:
@@ -382,7 +432,7 @@ def _read_config(path: Path) -> Architecture | None:
     if not isinstance(data, dict):
         return None
     arch = architecture_from_config(data, f"config.json at {path}")
-    return replace(arch, how=f"config.json at {path}", match="config") if arch is not None else None
+    return replaced(arch, how=f"config.json at {path}", match="config") if arch is not None else None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -395,11 +445,10 @@ _CATALOGUE_FILE = Path(__file__).with_name("base_models.json")
 @lru_cache(maxsize=1)
 def _arch_fields() -> frozenset[str]:
     """The Architecture fields a catalogue entry fills (the rest say how the model was matched)."""
-    return frozenset(f for f in Architecture.__dataclass_fields__
+    return frozenset(f for f in Architecture._record_fields
                      if f not in ("source", "entry", "how", "assumed", "match", "quantised"))
 
 
-@dataclass(frozen=True)
 class CatalogueEntry:
     """One bundled shape: its canonical id, other ids of the same shape, and where the numbers come from."""
 
@@ -409,7 +458,32 @@ class CatalogueEntry:
     source: str  # where the shapes come from ("from memory" = unverified)
     published_total: int | None  # the published total parameter count, None where none is comparable
     published_source: str | None
-    published_extra: int = 0  # parameters the published count holds beyond num_parameters() (stored extras)
+    published_extra: int  # parameters the published count holds beyond num_parameters() (stored extras)
+
+
+    def __init__(self, id, aliases, arch, source, published_total, published_source, published_extra=0):
+        _setattr(self, 'id', id)
+        _setattr(self, 'aliases', aliases)
+        _setattr(self, 'arch', arch)
+        _setattr(self, 'source', source)
+        _setattr(self, 'published_total', published_total)
+        _setattr(self, 'published_source', published_source)
+        _setattr(self, 'published_extra', published_extra)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(id={self.id!r}, aliases={self.aliases!r}, arch={self.arch!r}, source={self.source!r}, published_total={self.published_total!r}, published_source={self.published_source!r}, published_extra={self.published_extra!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.id, self.aliases, self.arch, self.source, self.published_total, self.published_source, self.published_extra) == (other.id, other.aliases, other.arch, other.source, other.published_total, other.published_source, other.published_extra)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.id, self.aliases, self.arch, self.source, self.published_total, self.published_source, self.published_extra))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
 
     @property
     def ids(self) -> tuple[str, ...]:
@@ -575,7 +649,7 @@ def _catalogue_match(entry: CatalogueEntry, kind: str, how: str, assumed: bool, 
         changes["torch_dtype"] = stored
     elif stored:
         changes["quantised"] = stored
-    return replace(arch, **changes)
+    return replaced(arch, **changes)
 
 
 def match_catalogue(ref: str) -> Architecture | None:
@@ -621,7 +695,7 @@ def match_catalogue(ref: str) -> Architecture | None:
         n = max(h[0] for h in hits)
         top = {h[1].id: h[1] for h in hits if h[0] == n}
         # entries that differ only in context window or stored dtype are one parameter shape
-        shapes = {replace(e.arch, max_position_embeddings=None, torch_dtype=None, source="") for e in top.values()}
+        shapes = {replaced(e.arch, max_position_embeddings=None, torch_dtype=None, source="") for e in top.values()}
         if len(shapes) == 1:
             e = next(iter(top.values()))
             shared = sorted(max((t for t, x in token_rows if x is e and t <= toks), key=len))
@@ -744,7 +818,7 @@ def declared_model(ref: str, data: dict, project_dir: Path, project_file: str) -
                 "num_attention_heads and vocab_size")
     if arch.family not in SUPPORTED_FAMILIES:
         return f"model family {arch.family!r} has no module layout here (supported: {', '.join(sorted(SUPPORTED_FAMILIES))})"
-    return replace(arch, entry=ref, how=f"{ref}: {where}", match="declared", assumed=False)
+    return replaced(arch, entry=ref, how=f"{ref}: {where}", match="declared", assumed=False)
 
 
 def resolve_model(
@@ -784,8 +858,8 @@ def _by_folder_name(ref: str) -> Architecture | None:
     if arch is None:
         return None
     how = f"{ref}: no such folder here; its name {parts[-1]!r} -> the {arch.entry} shape ({arch.match} match)"
-    return replace(arch, how=how, assumed=True, match="folder name",
-                   source=f"{arch.source.split('; assumed from the name:')[0]}; assumed from the name: {how}")
+    return replaced(arch, how=how, assumed=True, match="folder name",
+                    source=f"{arch.source.split('; assumed from the name:')[0]}; assumed from the name: {how}")
 
 
 def _adapter_base(folder: Path) -> str | None:
@@ -823,7 +897,7 @@ def _resolve(ref, *, config_dir, cwd, hub_cache, depth) -> Architecture | None:
                 if adapter_base is not None:
                     arch = _resolve(adapter_base, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=1)
                     if arch is not None:
-                        return replace(arch, source=f"{arch.source} (base of the adapter at {base})")
+                        return replaced(arch, source=f"{arch.source} (base of the adapter at {base})")
         if local_dir:
             return None  # a local folder that holds no model config is not a hub id either
     except (OSError, ValueError):
@@ -839,7 +913,7 @@ def _resolve(ref, *, config_dir, cwd, hub_cache, depth) -> Architecture | None:
         arch = _resolve(base, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=1)
         if arch is not None:
             how = f"{ref}: an adapter in the hub cache whose base_model_name_or_path is {base}; {arch.how or arch.source}"
-            return replace(arch, source=f"{arch.source} (base of the adapter {ref})", how=how)
+            return replaced(arch, source=f"{arch.source} (base of the adapter {ref})", how=how)
     return match_catalogue(ref)
 
 

@@ -19,9 +19,9 @@ from __future__ import annotations
 
 import re
 from functools import lru_cache
-from dataclasses import dataclass
 from pathlib import Path
 
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from .. import reads
 from ..findings import OptionError
 
@@ -31,11 +31,36 @@ _MAX_UP = 8
 _REQ = re.compile(r"^\s*([A-Za-z0-9][A-Za-z0-9._-]*)\s*(?:\[[^\]]*\])?\s*===?\s*([0-9][0-9A-Za-z.+!-]*)\s*(?:[;#].*)?$")
 
 
-@dataclass(frozen=True)
 class Pin:
     library: str
     version: str
     source: str  # the file that pins it, or "--installed" for the command line
+
+    __slots__ = ('library', 'version', 'source')
+
+    def __init__(self, library, version, source):
+        _setattr(self, 'library', library)
+        _setattr(self, 'version', version)
+        _setattr(self, 'source', source)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(library={self.library!r}, version={self.version!r}, source={self.source!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.library, self.version, self.source) == (other.library, other.version, other.source)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.library, self.version, self.source))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.library, self.version, self.source)
+
+    __setstate__ = _frozen_setstate
 
 
 def _norm(name: str) -> str:

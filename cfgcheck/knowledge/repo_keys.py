@@ -32,11 +32,11 @@ from __future__ import annotations
 
 import ast
 import os
-from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
 from types import MappingProxyType
 
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from .. import reads
 
 MAX_FILES = 400
@@ -47,7 +47,6 @@ _MARKERS = (".git", "pyproject.toml", "setup.py", "setup.cfg")
 _SKIP_DIRS = frozenset({"node_modules", "site-packages", "venv", ".venv", "env", "build", "dist", "__pycache__"})
 
 
-@dataclass(frozen=True)
 class RepoKeys:
     root: str
     keys: frozenset[str]
@@ -55,15 +54,45 @@ class RepoKeys:
     files: int  # Python files parsed
     # why 2e-5 reaches the script as a number whatever YAML version reads it, when the scripts
     # show it: they load configs with OmegaConf only, or turn every value into command-line text
-    number_reader: str = ""
+    number_reader: str
     # the libraries whose argument classes the repository's argument parsers are built from
     # ("transformers", "trl", "peft", or "other" for a class imported from a package outside the
     # repository and those libraries; empty when only the repository's own classes, or its
     # argparse options fed with the config's values as command-line text); None when unknown
-    reader_libraries: frozenset[str] | None = None
+    reader_libraries: frozenset[str] | None
     # keys known only because a script reads them from a loaded config (``cfg["lr"]``): the
     # script may pass them on to a library, whose release still decides
-    read_only: frozenset[str] = frozenset()
+    read_only: frozenset[str]
+
+    __slots__ = ('root', 'keys', 'sources', 'files', 'number_reader', 'reader_libraries', 'read_only')
+
+    def __init__(self, root, keys, sources, files, number_reader="", reader_libraries=None, read_only=frozenset()):
+        _setattr(self, 'root', root)
+        _setattr(self, 'keys', keys)
+        _setattr(self, 'sources', sources)
+        _setattr(self, 'files', files)
+        _setattr(self, 'number_reader', number_reader)
+        _setattr(self, 'reader_libraries', reader_libraries)
+        _setattr(self, 'read_only', read_only)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(root={self.root!r}, keys={self.keys!r}, sources={self.sources!r}, files={self.files!r}, number_reader={self.number_reader!r}, reader_libraries={self.reader_libraries!r}, read_only={self.read_only!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.root, self.keys, self.sources, self.files, self.number_reader, self.reader_libraries, self.read_only) == (other.root, other.keys, other.sources, other.files, other.number_reader, other.reader_libraries, other.read_only)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.root, self.keys, self.sources, self.files, self.number_reader, self.reader_libraries, self.read_only))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.root, self.keys, self.sources, self.files, self.number_reader, self.reader_libraries, self.read_only)
+
+    __setstate__ = _frozen_setstate
 
 
 def repository_root(config: str | os.PathLike) -> Path | None:

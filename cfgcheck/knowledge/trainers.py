@@ -11,8 +11,9 @@ when every class that declares it belongs to that family.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from types import MappingProxyType
+
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 
 FAMILIES: MappingProxyType[str, frozenset[str]] = MappingProxyType({
     "SFT": frozenset({"SFTConfig", "IterativeSFTConfig", "GKDConfig"}),
@@ -40,12 +41,37 @@ def _trainer_classes(owners) -> list[str]:
                   if o.startswith("trl.") and any(o.split(".", 1)[1] in m for m in FAMILIES.values()))
 
 
-@dataclass(frozen=True)
 class Guess:
     family: str | None  # the family the keys point to, None when they do not agree
     evidence: tuple[str, ...]  # the keys that point to it
     # keys no class of that family declares: (key, the classes that do)
     strangers: tuple[tuple[str, tuple[str, ...]], ...]
+
+    __slots__ = ('family', 'evidence', 'strangers')
+
+    def __init__(self, family, evidence, strangers):
+        _setattr(self, 'family', family)
+        _setattr(self, 'evidence', evidence)
+        _setattr(self, 'strangers', strangers)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(family={self.family!r}, evidence={self.evidence!r}, strangers={self.strangers!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.family, self.evidence, self.strangers) == (other.family, other.evidence, other.strangers)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.family, self.evidence, self.strangers))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.family, self.evidence, self.strangers)
+
+    __setstate__ = _frozen_setstate
 
 
 def guess(keys) -> Guess:

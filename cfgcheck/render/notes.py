@@ -10,7 +10,6 @@ names)". The notes themselves stay findings (JSON carries them; text shows them 
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass, field
 
 _QUOTED = re.compile(r"'([^']*)'")
 _DETAIL = re.compile(r"\s*\((?:[^()]*['/][^()]*|no model named)\)")
@@ -21,12 +20,29 @@ def is_note(finding) -> bool:
     return finding.data.get("judged") is False
 
 
-@dataclass
 class NoteGroup:
     rule: str
     reason: str  # the reason without what differs per file (names, paths, feature lists)
-    files: set[str] = field(default_factory=set)
-    names: set[str] = field(default_factory=set)  # the distinct names the reasons quoted
+    files: set[str]
+    names: set[str]  # the distinct names the reasons quoted
+
+    __slots__ = ('rule', 'reason', 'files', 'names')
+
+    def __init__(self, rule, reason, files=None, names=None):
+        self.rule = rule
+        self.reason = reason
+        self.files = set() if files is None else files
+        self.names = set() if names is None else names
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(rule={self.rule!r}, reason={self.reason!r}, files={self.files!r}, names={self.names!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.rule, self.reason, self.files, self.names) == (other.rule, other.reason, other.files, other.names)
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
 def _general(reason: str, data) -> tuple[str, list[str]]:
