@@ -68,9 +68,9 @@ def _thresholds(rule: Rule, options: Options) -> dict[str, Any]:
 class Context:
     """What a check sees: the view, the knowledge, the options, and ``report``.
 
-    ``lint_view`` makes one per view and hands it to each rule in turn (``_next_rule`` resets
-    what belongs to one rule), so the answers shared by several rules of the same view
-    (``once``) are worked out once."""
+    ``lint_view`` makes one per view and hands it to each rule in turn, resetting what belongs
+    to one rule (its thresholds, its cannot-judge notes, its model assumption), so the answers
+    several rules of the same view share (``once``) are worked out once."""
 
     __slots__ = ("view", "run", "waivers", "waiver_paths", "earlier", "active", "doc", "rule",
                  "options", "_sink", "file", "_thresholds", "_judged_once", "_model_assumption",
@@ -95,14 +95,6 @@ class Context:
         self._judged_once: set[str] | None = None  # made on the first cannot_judge
         self._model_assumption = ""  # set when the rule asked for a model matched by name alone
         self._once: dict | None = None  # answers shared by the rules of this view (``once``)
-
-    def _next_rule(self, rule: Rule, earlier: list[Finding] | None) -> None:
-        """The same view, handed to the next rule: nothing of the last rule's stays."""
-        self.rule = rule
-        self.earlier = earlier or []
-        self._thresholds = None
-        self._judged_once = None
-        self._model_assumption = ""
 
     @property
     def thresholds(self) -> dict[str, Any]:
@@ -302,13 +294,13 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport,
     # rule that fails had reported is taken back out
     ctx = Context(view, rules[0][0] if rules else None, options, findings, file, waivers=waivers,
                   active=active, waiver_paths=paths)
-    first = True
     for rule, fn in rules:
-        if not first:
-            ctx._next_rule(rule, findings[start:] if rule.stage == "last" else None)
-        elif rule.stage == "last":
+        if ctx.rule is not rule:  # the next rule: nothing of the last rule's stays
+            ctx.rule = rule
+            ctx._thresholds = ctx._judged_once = None
+            ctx._model_assumption = ""
+        if rule.stage == "last":
             ctx.earlier = findings[start:]
-        first = False
         mark = len(findings)
         try:
             fn(ctx)
