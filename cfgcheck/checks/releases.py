@@ -114,6 +114,29 @@ def _table(table: str) -> _Table | None:
     return _Table(table) if table in _keys().layouts() else None
 
 
+def keyed_paths(ctx) -> list[tuple[tuple, str, str]]:
+    """(path, parent, dotted name) of each key written in the view's document whose path is all
+    key names (no list items), in the document's order; worked out once per view."""
+    return ctx.once("keyed-paths", lambda: _keyed_paths(ctx.doc))
+
+
+def _keyed_paths(doc) -> list[tuple[tuple, str, str]]:
+    out = []
+    for path, entry in doc.entries.items():
+        if not path or entry.key is None:
+            continue
+        for p in path:
+            if not isinstance(p, str):
+                break
+        else:
+            if len(path) == 1:
+                out.append((path, "", path[0]))
+            else:
+                parent = ".".join(path[:-1])
+                out.append((path, parent, f"{parent}.{path[-1]}" if parent else path[-1]))
+    return out
+
+
 @check("key-not-in-release")
 def key_not_in_release(ctx) -> None:
     view = ctx.view
@@ -126,28 +149,14 @@ def key_not_in_release(ctx) -> None:
     groups, bounded = known.groups, known.bounded
     sections = view.layout.sections
     doc = ctx.doc
+    data = doc.data if isinstance(doc.data, dict) else None
     candidates = []
-    for path, entry in doc.entries.items():
-        if not path or entry.key is None:
+    for path, parent, name in keyed_paths(ctx):
+        if parent not in groups or name not in bounded:
             continue
-        for p in path:
-            if not isinstance(p, str):
-                break
-        else:
-            if len(path) == 1:
-                name = path[0]
-                if name not in bounded or "" not in groups:
-                    continue
-            else:
-                parent = ".".join(path[:-1])
-                if parent not in groups:
-                    continue
-                name = f"{parent}.{path[-1]}" if parent else path[-1]
-                if name not in bounded:
-                    continue
-            if path[0] in sections and isinstance(doc.get(path[:1]), dict):
-                continue
-            candidates.append((path, name))
+        if path[0] in sections and data is not None and isinstance(data.get(path[0]), dict):
+            continue
+        candidates.append((path, name))
     if not candidates:
         return
     repo = None

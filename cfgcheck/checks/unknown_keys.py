@@ -26,6 +26,7 @@ from functools import lru_cache
 
 from ..layouts import keys_read
 from . import check
+from .releases import keyed_paths
 
 
 def _keys_module():
@@ -281,50 +282,37 @@ def unknown_key(ctx) -> None:
     doc = ctx.doc
     data = doc.data if isinstance(doc.data, dict) else None
     check_current = "key-not-in-release" not in ctx.active
-    for path, entry in doc.entries.items():
-        if not path or entry.key is None:
-            continue
-        for p in path:
-            if not isinstance(p, str):
-                break
-        else:
-            head = path[0]
-            if len(path) == 1:
-                value = data.get(head) if data is not None else None
-                if isinstance(value, dict) and "_component_" in value:
-                    _component_keys(ctx, judge, path, value)
-                    continue
-            if search_sections and head in sections and data is not None \
-                    and isinstance(data.get(head), dict):
-                if len(path) > 1 and not isinstance(doc.get(path), dict):
-                    _section_key(ctx, judge, path, sections)
-                continue  # the section itself: the file's own structure, not a key
-            if len(path) == 1:
-                if "" not in groups:
-                    continue
-                parent, name = "", head
-            else:
-                parent = ".".join(path[:-1])
-                if parent not in groups:
-                    continue  # a free-form mapping (optimizer.params, fsdp_config of the trainer, ...)
-                name = f"{parent}.{path[-1]}" if parent else path[-1]
-            info = table.get(name)
-            if info is None and parent:
-                # a section whose reader drops (or adds) a prefix: axolotl reads fsdp_config's
-                # `fsdp_offload_params` as `offload_params` (0.19.0 utils/schemas/validation.py)
-                for pre in sections.get(path[-2], ()):
-                    leaf = path[-1]
-                    other = leaf[len(pre):] if leaf.startswith(pre) else pre + leaf
-                    info = table.get(f"{parent}.{other}") or info
-            if info is not None:
-                # key-not-in-release judges known keys against the release in use; this note
-                # stays for runs that leave that rule out
-                if check_current and not info.current:
-                    ctx.report(path, "not-current", on="key", key=name, versions=info.versions_text())
+    for path, parent, name in keyed_paths(ctx):
+        head = path[0]
+        if len(path) == 1:
+            value = data.get(head) if data is not None else None
+            if isinstance(value, dict) and "_component_" in value:
+                _component_keys(ctx, judge, path, value)
                 continue
-            if name in read:
-                continue  # a key cfgcheck reads for this layout (recipe scripts pass it on): not unknown
-            judge.report_unknown(path, name, title)
+        if search_sections and head in sections and data is not None \
+                and isinstance(data.get(head), dict):
+            if len(path) > 1 and not isinstance(doc.get(path), dict):
+                _section_key(ctx, judge, path, sections)
+            continue  # the section itself: the file's own structure, not a key
+        if parent not in groups:
+            continue  # a free-form mapping (optimizer.params, fsdp_config of the trainer, ...)
+        info = table.get(name)
+        if info is None and parent:
+            # a section whose reader drops (or adds) a prefix: axolotl reads fsdp_config's
+            # `fsdp_offload_params` as `offload_params` (0.19.0 utils/schemas/validation.py)
+            for pre in sections.get(path[-2], ()):
+                leaf = path[-1]
+                other = leaf[len(pre):] if leaf.startswith(pre) else pre + leaf
+                info = table.get(f"{parent}.{other}") or info
+        if info is not None:
+            # key-not-in-release judges known keys against the release in use; this note
+            # stays for runs that leave that rule out
+            if check_current and not info.current:
+                ctx.report(path, "not-current", on="key", key=name, versions=info.versions_text())
+            continue
+        if name in read:
+            continue  # a key cfgcheck reads for this layout (recipe scripts pass it on): not unknown
+        judge.report_unknown(path, name, title)
 
 
 def _section_key(ctx, judge: _Judge, path: tuple, sections: dict) -> None:
