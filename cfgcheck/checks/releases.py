@@ -122,18 +122,18 @@ def keyed_paths(ctx) -> list[tuple[tuple, str, str]]:
 
 def _keyed_paths(doc) -> list[tuple[tuple, str, str]]:
     out = []
+    append = out.append
     for path, entry in doc.entries.items():
         if not path or entry.key is None:
             continue
-        for p in path:
-            if not isinstance(p, str):
-                break
-        else:
-            if len(path) == 1:
-                out.append((path, "", path[0]))
-            else:
-                parent = ".".join(path[:-1])
-                out.append((path, parent, f"{parent}.{path[-1]}" if parent else path[-1]))
+        last = path[-1]
+        if not isinstance(last, str):
+            continue
+        try:
+            parent = ".".join(path[:-1])  # a list item (an int) on the way: no key name
+        except TypeError:
+            continue
+        append((path, parent, f"{parent}.{last}" if parent else last))
     return out
 
 
