@@ -7,6 +7,7 @@ from functools import lru_cache
 from types import MappingProxyType
 
 from . import check
+from .unknown_keys import keyed_paths, repo_keys_of  # shared with unknown-key, once per view
 
 # Whether the library that reads a key table refuses a key it does not declare (an error) or
 # passes over it (a warning): transformers' HfArgumentParser raises "Some keys are not used by the
@@ -114,29 +115,6 @@ def _table(table: str) -> _Table | None:
     return _Table(table) if table in _keys().layouts() else None
 
 
-def keyed_paths(ctx) -> list[tuple[tuple, str, str]]:
-    """(path, parent, dotted name) of each key written in the view's document whose path is all
-    key names (no list items), in the document's order; worked out once per view."""
-    return ctx.once("keyed-paths", lambda: _keyed_paths(ctx.doc))
-
-
-def _keyed_paths(doc) -> list[tuple[tuple, str, str]]:
-    out = []
-    append = out.append
-    for path, entry in doc.entries.items():
-        if not path or entry.key is None:
-            continue
-        last = path[-1]
-        if not isinstance(last, str):
-            continue
-        try:
-            parent = ".".join(path[:-1])  # a list item (an int) on the way: no key name
-        except TypeError:
-            continue
-        append((path, parent, f"{parent}.{last}" if parent else last))
-    return out
-
-
 @check("key-not-in-release")
 def key_not_in_release(ctx) -> None:
     view = ctx.view
@@ -161,8 +139,6 @@ def key_not_in_release(ctx) -> None:
         return
     repo = None
     if view.layout.trainer_defaults or view.layout.read_by_own_classes:
-        from .unknown_keys import repo_keys_of
-
         repo = repo_keys_of(ctx)
     pins = None
     reported: list[tuple] = []

@@ -26,7 +26,6 @@ from functools import lru_cache
 
 from ..layouts import keys_read
 from . import check
-from .releases import keyed_paths
 
 
 def _keys_module():
@@ -131,6 +130,29 @@ def repo_keys_of(ctx):
 
     readers = reader_scripts(ctx)
     return ctx.once(("repo-keys", readers), lambda: keys_for(ctx.file, readers))
+
+
+def keyed_paths(ctx) -> list[tuple[tuple, str, str]]:
+    """(path, parent, dotted name) of each key written in the view's document whose path is all
+    key names (no list items), in the document's order; worked out once per view."""
+    return ctx.once("keyed-paths", lambda: _keyed_paths(ctx.doc))
+
+
+def _keyed_paths(doc) -> list[tuple[tuple, str, str]]:
+    out = []
+    append = out.append
+    for path, entry in doc.entries.items():
+        if not path or entry.key is None:
+            continue
+        last = path[-1]
+        if not isinstance(last, str):
+            continue
+        try:
+            parent = ".".join(path[:-1])  # a list item (an int) on the way: no key name
+        except TypeError:
+            continue
+        append((path, parent, f"{parent}.{last}" if parent else last))
+    return out
 
 
 _KEYS_READ_CACHE: dict[int, tuple] = {}  # id(layout) -> (layout, the keys its fields read)
