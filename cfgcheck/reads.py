@@ -26,7 +26,7 @@ import stat
 from typing import Any, Callable, Iterator
 
 # (kind, absolute path, pattern or "") -> fact; kinds: "f" content, "k" kind of path, "d" names,
-# "s" subfolder names
+# "s" subfolder names, "w" a folder's entries as a walk sees them (names, each marked folder or not)
 Facts = dict[tuple[str, str, str], str]
 
 _RECORD: contextvars.ContextVar[Facts | None] = contextvars.ContextVar("cfgcheck_reads", default=None)
@@ -106,6 +106,25 @@ def folders(path: Any) -> str:
     return hashlib.sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
 
 
+def listing(path: Any) -> str:
+    """sha256 of a folder's entries as ``os.walk`` splits them: each name, marked as a folder
+    (links to folders included) or not."""
+    try:
+        with os.scandir(path) as it:
+            found = []
+            for e in it:
+                try:
+                    is_dir = e.is_dir()
+                except OSError:
+                    is_dir = False
+                found.append(("d/" if is_dir else "f/") + e.name)
+    except (FileNotFoundError, NotADirectoryError, ValueError):
+        return "missing"
+    except OSError as exc:
+        return f"error:{exc.errno}"
+    return hashlib.sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
+
+
 def fact(kind: str, path: str, pattern: str = "") -> str:
     """The fact of KIND about PATH as the disk says now."""
     if kind == "f":
@@ -114,6 +133,8 @@ def fact(kind: str, path: str, pattern: str = "") -> str:
         return path_kind(path)
     if kind == "s":
         return folders(path)
+    if kind == "w":
+        return listing(path)
     return names(path, pattern)
 
 
@@ -156,6 +177,14 @@ def note_folders(path: Any) -> None:
     facts = _RECORD.get()
     if facts is not None:
         facts.setdefault(("s", _abs(path), ""), folders(path))
+
+
+def note_walk(path: Any) -> None:
+    """A walk listed folder PATH: which files it holds and which folders it goes on into decided
+    which files are linted."""
+    facts = _RECORD.get()
+    if facts is not None:
+        facts.setdefault(("w", _abs(path), ""), listing(path))
 
 
 def replay(seen: tuple) -> None:
