@@ -25,6 +25,7 @@ The folder: ``$CFGCHECK_CACHE_DIR``, else the platform's user cache folder (plat
 
 from __future__ import annotations
 
+import contextvars
 import hashlib
 import io
 import os
@@ -51,7 +52,8 @@ _MAGIC = b"cfgcheck-lint-cache\n"
 _OPTIONS_LEFT_OUT = ("debug",)  # re-raising a failing rule: a stored report has no failure
 
 
-_ACTIVE: "_Run | None" = None  # the command-line run being recorded whole, if any
+# the command-line run being recorded whole, if any (lint_from_cache)
+_ACTIVE_RUN: contextvars.ContextVar["_Run | None"] = contextvars.ContextVar("cfgcheck_run", default=None)
 
 
 class Uncacheable(Exception):
@@ -107,24 +109,25 @@ def options_text(options: Any) -> str:
     return repr(fields)
 
 
-def _package_files() -> list[Path]:
+def _package_files() -> list[str]:
     """cfgcheck's own files whose change can change a report: the package (code, knowledge
     tables) and the rule records (packaged as cfgcheck/_catalogue, or rules/ beside a checkout;
-    the same choice as catalogue.catalogue_dir)."""
-    pkg = Path(__file__).resolve().parent
+    the same choice as catalogue.catalogue_dir). Plain strings: every lint, the cache-hit path
+    too, lists them."""
+    pkg = os.path.dirname(os.path.realpath(__file__))
     roots = [pkg]
-    if not (pkg / "_catalogue").is_dir():
-        roots.append(pkg.parent / "rules")
+    if not os.path.isdir(os.path.join(pkg, "_catalogue")):
+        roots.append(os.path.join(os.path.dirname(pkg), "rules"))
     out = []
     for root in roots:
         for here, dirs, files in os.walk(root):
             dirs[:] = sorted(d for d in dirs if d != "__pycache__" and not d.startswith("."))
-            out.extend(Path(here) / f for f in sorted(files)
+            out.extend(os.path.join(here, f) for f in sorted(files)
                        if not f.endswith((".pyc", ".tmp")) and not f.startswith("."))
     return out
 
 
-def _library_files() -> list[Path]:
+def _library_files() -> list[str]:
     import importlib.util
 
     out = []
@@ -134,7 +137,7 @@ def _library_files() -> list[Path]:
         except (ImportError, ValueError):
             continue
         if spec is not None and spec.origin:
-            out.append(Path(spec.origin))
+            out.append(spec.origin)
     return out
 
 
@@ -212,7 +215,8 @@ class Store:
         self._set_facts: dict[str, list] = {}  # fact set -> its facts, while a run is recorded
         # a command-line run being recorded whole (see lint_from_cache): every file keyed, with
         # its digest, and every fact its report rests on
-        self.run = _ACTIVE if _ACTIVE is not None and _ACTIVE.open and _ACTIVE.store is None else None
+        active = _ACTIVE_RUN.get()
+        self.run = active if active is not None and active.open and active.store is None else None
         if self.run is not None:
             self.run.store = self
         self.run_files: list[tuple[str, str]] = []
@@ -226,7 +230,7 @@ class Store:
             stats = []
             for p in _package_files() + _library_files():
                 try:
-                    st = p.stat()
+                    st = os.stat(p)
                     stats.append((str(p), st.st_size, st.st_mtime_ns))
                 except OSError:
                     stats.append((str(p), -1, -1))
@@ -562,9 +566,9 @@ def lint_from_cache(args: dict, progress: Any = None) -> "_Run":
     the key holds the arguments, the working folder, the environment (ENV_INPUTS, NO_COLOR,
     TERM), whether stdout and stderr are terminals and their encodings, and cfgcheck's version
     and package fingerprint."""
-    global _ACTIVE
-    if _ACTIVE is not None:
-        _ACTIVE.abandon()  # a run of this process that ended without done(): it stores nothing
+    stale = _ACTIVE_RUN.get()
+    if stale is not None:
+        stale.abandon()  # a run of this process that ended without done(): it stores nothing
     run = _Run()
     if args.get("no_cache") or args.get("save_baseline") is not None:
         return run
@@ -705,7 +709,6 @@ class _Run:
         self._progress_total: int | None = None  # what the progress line counted (skipped files too)
 
     def start(self, target: str, args: dict) -> None:
-        global _ACTIVE
         out, err = sys.stdout, sys.stderr
         enc = getattr(out, "encoding", None) or ""
         try:
@@ -724,7 +727,7 @@ class _Run:
         sys.stdout = _Tee(out, self._took_out, self)
         sys.stderr = _Tee(err, self._took_err, self)
         self.open = True
-        _ACTIVE = self
+        _ACTIVE_RUN.set(self)
         import atexit
 
         atexit.register(self.abandon)  # a run that exits early leaves no temporary file
@@ -761,12 +764,11 @@ class _Run:
                 self._progress_total = int(total)
 
     def _restore(self) -> None:
-        global _ACTIVE
         if not self.open:
             return
         self.open = False
-        if _ACTIVE is self:
-            _ACTIVE = None
+        if _ACTIVE_RUN.get() is self:
+            _ACTIVE_RUN.set(None)
         if isinstance(sys.stdout, _Tee) and sys.stdout._run is self:
             sys.stdout = self._out
         if isinstance(sys.stderr, _Tee) and sys.stderr._run is self:

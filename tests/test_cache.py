@@ -234,7 +234,7 @@ def test_catalogue_or_code_change_is_a_miss(tmp_path, monkeypatch):
 def test_the_package_fingerprint_covers_the_rule_records():
     from cfgcheck.catalogue import catalogue_dir
 
-    listed = {p.resolve() for p in cache._package_files()}
+    listed = {Path(p).resolve() for p in cache._package_files()}
     records = sorted(catalogue_dir().glob("*.yaml"))
     assert records and all(r.resolve() in listed for r in records)
     assert Path(cache.__file__).resolve() in listed
