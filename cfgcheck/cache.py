@@ -20,6 +20,17 @@ into place, so concurrent runs never see half an entry; an unreadable entry is a
 that cannot be written to means no caching, never an error. The total size is bounded: now and
 then the oldest entries (by modification time) are removed.
 
+Whole runs: the ``lint`` command also keeps one record per command line (its arguments, working
+folder, environment, terminal and encoding of stdout/stderr, cfgcheck's fingerprint): the bytes
+it printed, its exit status, the digest of every file it linted and every fact those reports and
+the run itself rest on (what the walk of the folders listed, what the project-file search looked
+at, the project and baseline files). ``lint_from_cache``, called first by the command, checks
+those and prints the stored bytes, importing only this module, ``reads`` and the standard
+library; on any difference the full lint runs (reusing the per-file entries and the digests the
+check computed) and the record is written anew. A record is one file under ``runs/`` (the output,
+then a marshal of plain tuples, then its length and a magic line), written whole and moved into
+place; it is trimmed with the entries.
+
 The folder: ``$CFGCHECK_CACHE_DIR``, else the platform's user cache folder (platformdirs).
 """
 
@@ -219,6 +230,8 @@ class Store:
         self.run = active if active is not None and active.open and active.store is None else None
         if self.run is not None:
             self.run.store = self
+            self._facts.update(self.run.seen.get("facts", {}))  # checked a moment ago, in this run
+        self._digests = self.run.seen.get("digests", {}) if self.run is not None else {}
         self.run_files: list[tuple[str, str]] = []
         self.run_facts: dict[tuple[str, str, str], str] = {}
         self.run_whole = True  # False once a file was linted without the cache
@@ -273,7 +286,11 @@ class Store:
                 st = os.fstat(fh.fileno())
                 if not stat.S_ISREG(st.st_mode) or st.st_size > reads.MAX_HASHED:
                     raise Uncacheable("not a regular file of a size worth keeping")
-                digest = hashlib.sha256(fh.read()).hexdigest()
+                known = self._digests.get(path)
+                if known is not None and known[0] == _stat_id(st):
+                    digest = known[1]  # hashed by the check of the run's record, file untouched since
+                else:
+                    digest = hashlib.sha256(fh.read()).hexdigest()
         except (OSError, ValueError):  # a folder, a missing file: linting it says why, cheaply
             raise Uncacheable("not readable") from None
         known = self._options.get(id(options))
@@ -584,7 +601,7 @@ def lint_from_cache(args: dict, progress: Any = None) -> "_Run":
     except Exception:  # noqa: BLE001 - Uncacheable, an unreadable working folder: no run record
         return run
     target = os.path.join(store._folder, "runs", key[:2], key[2:])
-    code = _replay(target, key, progress)
+    code = _replay(target, key, progress, run.seen)
     if code is not None:
         run.code = code
         return run
@@ -592,9 +609,14 @@ def lint_from_cache(args: dict, progress: Any = None) -> "_Run":
     return run
 
 
-def _replay(target: str, key: str, progress: Any) -> int | None:
+def _replay(target: str, key: str, progress: Any, seen: dict | None = None) -> int | None:
     """Write the output stored at TARGET and return its exit code when every file and fact it
-    rests on is unchanged; None (nothing written) otherwise."""
+    rests on is unchanged; None (nothing written) otherwise. SEEN gets what was checked on the
+    way (facts, and files' digests with their stat), so a miss does not compute them again."""
+    if seen is None:
+        seen = {}
+    facts_seen = seen.setdefault("facts", {})
+    digests_seen = seen.setdefault("digests", {})
     try:
         fh = open(target, "rb")
     except OSError:
@@ -621,7 +643,8 @@ def _replay(target: str, key: str, progress: Any) -> int | None:
             if fmt != RUN_FORMAT or stored_key != key or type(code) is not int:
                 return None
             for kind, path, pattern, value in facts:
-                if reads.fact(kind, path, pattern) != value:
+                now = facts_seen[(kind, path, pattern)] = reads.fact(kind, path, pattern)
+                if now != value:
                     return None
             n = len(files)
             for i, (path, digest) in enumerate(files, start=1):
@@ -629,8 +652,10 @@ def _replay(target: str, key: str, progress: Any) -> int | None:
                     st = os.fstat(f.fileno())
                     if not stat.S_ISREG(st.st_mode) or st.st_size > reads.MAX_HASHED:
                         return None
-                    if hashlib.sha256(f.read()).hexdigest() != digest:
-                        return None
+                    now = hashlib.sha256(f.read()).hexdigest()
+                digests_seen[path] = (_stat_id(st), now)
+                if now != digest:
+                    return None
                 if progress is not None and i < n:
                     progress(min(i, total), total)
                     shown = True
@@ -646,6 +671,10 @@ def _replay(target: str, key: str, progress: Any) -> int | None:
         finally:
             if shown:
                 progress.close()
+
+
+def _stat_id(st: os.stat_result) -> tuple:
+    return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns, st.st_ctime_ns)
 
 
 def _copy_out(fh: Any, n: int) -> None:
@@ -707,6 +736,7 @@ class _Run:
         self._fh: Any = None
         self._bytes = 0
         self._progress_total: int | None = None  # what the progress line counted (skipped files too)
+        self.seen: dict = {}  # what the check of a stored record computed before it missed
 
     def start(self, target: str, args: dict) -> None:
         out, err = sys.stdout, sys.stderr

@@ -839,3 +839,23 @@ def test_a_run_answered_from_its_record_imports_no_linting_code(tmp_path):
     assert first[0] == second[0] == 0 and runs[0].stdout == runs[1].stdout != ""
     assert "cfgcheck.engine" in first[1]  # the first run lints
     assert second[1] == []
+
+
+def test_concurrent_runs_leave_one_whole_run_record(tmp_path):
+    cfgs = []
+    for i in range(4):
+        cfg = tmp_path / "configs" / f"run{i}.yaml"
+        cfg.parent.mkdir(exist_ok=True)
+        cfg.write_text(LOW_SCALE if i % 2 else GOOD_SCALE)
+        cfgs.append(cfg)
+    folder = tmp_path / "cache"
+    env = dict(ENV, CFGCHECK_CACHE_DIR=str(folder))
+    cmd = [sys.executable, "-m", "cfgcheck", "lint", str(tmp_path / "configs"), "--no-project", "--format", "json"]
+    procs = [subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, cwd=ROOT, env=env)
+             for _ in range(4)]
+    answers = {(p.wait(timeout=300), *p.communicate()) for p in procs}
+    assert len(answers) == 1
+    (record,) = _run_records(folder)
+    assert not [p for p in record.parent.iterdir() if p.name.endswith(".tmp")]
+    again = subprocess.run(cmd, capture_output=True, cwd=ROOT, env=env, timeout=300)
+    assert {(again.returncode, again.stdout, again.stderr)} == answers
