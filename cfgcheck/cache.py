@@ -555,7 +555,7 @@ def lint_cached(pairs: Iterable[tuple[str, Any]], store: Store, lint_recorded, l
 # --------------------------------------------------------------------------- whole runs
 
 RUN_FORMAT = 1  # bump when a run record's layout changes
-MAX_RUN_OUTPUT = 256 * 1024 * 1024  # a run printing more than this is not recorded
+MAX_RUN_OUTPUT = MAX_BYTES // 4  # a run printing more than this is not recorded
 _RUN_MAGIC = b"cfgcheck-lint-run\n"
 _TRAILER = 8 + len(_RUN_MAGIC)  # the metadata's length, then the magic
 _ENCODINGS = frozenset({"utf-8", "ascii", "latin-1", "iso8859-1", "cp1252"})  # one byte per piece
@@ -605,7 +605,10 @@ def lint_from_cache(args: dict, progress: Any = None) -> "_Run":
     if code is not None:
         run.code = code
         return run
-    run.start(target, args)
+    try:
+        run.start(target, args)
+    except Exception:  # noqa: BLE001 - recording is a help, never a reason for a run to fail
+        run.abandon()
     return run
 
 
@@ -664,13 +667,15 @@ def _replay(target: str, key: str, progress: Any, seen: dict | None = None) -> i
                 progress.close()
                 shown = False
             fh.seek(0)
-            _copy_out(fh, out_len)
-            return code
         except Exception:  # noqa: BLE001 - a changed, vanished, corrupt or foreign record: a miss
             return None
         finally:
             if shown:
                 progress.close()
+        # from here on the answer is this record: a failing write (a closed pipe) is the
+        # command's own failure, as it would be for a full run, never a second answer
+        _copy_out(fh, out_len)
+        return code
 
 
 def _stat_id(st: os.stat_result) -> tuple:
@@ -866,6 +871,8 @@ class _Run:
             self._fh = None
             os.replace(self._tmp, self._target)
             self._tmp = None
+            store.written += self._bytes + len(meta)
+            store.close()  # a trim when one is due counts the record too
         except (OSError, ValueError):
             self._discard()
         import atexit

@@ -859,3 +859,27 @@ def test_concurrent_runs_leave_one_whole_run_record(tmp_path):
     assert not [p for p in record.parent.iterdir() if p.name.endswith(".tmp")]
     again = subprocess.run(cmd, capture_output=True, cwd=ROOT, env=env, timeout=300)
     assert {(again.returncode, again.stdout, again.stderr)} == answers
+
+
+@pytest.mark.parametrize("aside", ["a warning on stderr", "bytes through stdout's buffer"])
+def test_a_run_that_printed_what_a_record_cannot_hold_is_not_recorded(tmp_path, monkeypatch, aside):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    folder = tmp_path / "cache"
+    real = api.lint
+
+    def lint_and_print(*a, **k):
+        if aside.startswith("a warning"):
+            sys.stderr.write("cfgcheck: a warning\n")
+        else:
+            sys.stdout.flush()
+            sys.stdout.buffer.write(b"raw\n")
+        return real(*a, **k)
+
+    monkeypatch.setattr(api, "lint", lint_and_print)
+    code, out, err = _lint_cli([cfg, "--no-project"], folder)
+    assert (b"raw\n" in out) or (b"a warning" in err)
+    assert _run_records(folder) == []
+    monkeypatch.setattr(api, "lint", real)
+    assert _lint_cli([cfg, "--no-project"], folder, lean=False, monkeypatch=monkeypatch)[0] == code
+    assert len(_run_records(folder)) == 1
