@@ -184,7 +184,9 @@ def note_walk(path: Any) -> None:
     which files are linted."""
     facts = _RECORD.get()
     if facts is not None:
-        facts.setdefault(("w", _abs(path), ""), listing(path))
+        key = ("w", _abs(path), "")
+        if key not in facts:  # the configs' walk and the scripts' walk list the same folders
+            facts[key] = listing(path)
 
 
 def replay(seen: tuple) -> None:
