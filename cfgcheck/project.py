@@ -739,6 +739,8 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
     if problems:
         raise ProjectError(problems)
     root = path.parent
+    if "baseline" in data:
+        reads.note_kind(root / data["baseline"])  # for the result cache: used only when it exists
     return Project(
         source=path, root=root, data=data, configs=configs, exclude=exclude,
         only=only, skip=skip, severity=severity, thresholds=thresholds, profiles=profiles,

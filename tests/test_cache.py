@@ -883,3 +883,17 @@ def test_a_run_that_printed_what_a_record_cannot_hold_is_not_recorded(tmp_path, 
     monkeypatch.setattr(api, "lint", real)
     assert _lint_cli([cfg, "--no-project"], folder, lean=False, monkeypatch=monkeypatch)[0] == code
     assert len(_run_records(folder)) == 1
+
+
+def test_run_record_project_baseline_that_appears(tmp_path, monkeypatch):
+    repo = tmp_path / "repo"
+    (repo / ".git").mkdir(parents=True)
+    cfg = repo / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    (repo / "cfgcheck.yaml").write_text("baseline: known.json\n")
+    known = repo / "known.json"
+    assert _lint_cli([cfg, "--save-baseline", known], tmp_path / "cache")[0] == 0
+    saved = known.read_text()
+    known.unlink()
+    before, after = RunCase(tmp_path, monkeypatch).check([cfg], lambda: known.write_text(saved))
+    assert b"lora-scale-below-one" in before[1] and b"lora-scale-below-one" not in after[1]
