@@ -897,3 +897,20 @@ def test_run_record_project_baseline_that_appears(tmp_path, monkeypatch):
     known.unlink()
     before, after = RunCase(tmp_path, monkeypatch).check([cfg], lambda: known.write_text(saved))
     assert b"lora-scale-below-one" in before[1] and b"lora-scale-below-one" not in after[1]
+
+
+def test_run_record_of_a_project_linted_without_paths(tmp_path, monkeypatch):
+    repo = tmp_path / "repo"
+    (repo / ".git").mkdir(parents=True)
+    (repo / "cfgcheck.yaml").write_text("configs: ['configs/**']\n")
+    (repo / "configs" / "team").mkdir(parents=True)
+    (repo / "configs" / "a.yaml").write_text(GOOD_SCALE)
+    (repo / "notes").mkdir()
+    monkeypatch.chdir(repo)
+    case = RunCase(tmp_path, monkeypatch)
+    before, after = case.check([], lambda: (repo / "configs" / "team" / "b.yaml").write_text(LOW_SCALE))
+    assert b"lora-scale-below-one" in after[1]
+    # a file outside the project's configs globs changes no answer, but a walked folder's entries:
+    # the full lint runs and gives the same bytes
+    (repo / "notes" / "c.yaml").write_text(LOW_SCALE)
+    assert _lint_cli(["--show", "info"], case.folder, lean=False, monkeypatch=monkeypatch) == after
