@@ -558,7 +558,7 @@ RUN_FORMAT = 1  # bump when a run record's layout changes
 MAX_RUN_OUTPUT = MAX_BYTES // 4  # a run printing more than this is not recorded
 _RUN_MAGIC = b"cfgcheck-lint-run\n"
 _TRAILER = 8 + len(_RUN_MAGIC)  # the metadata's length, then the magic
-_ENCODINGS = frozenset({"utf-8", "ascii", "latin-1", "iso8859-1", "cp1252"})  # one byte per piece
+_ENCODINGS = frozenset({"utf-8", "ascii", "latin-1", "iso8859-1", "cp1252"})  # stateless: pieces encode as the whole
 
 
 def _stream_traits(stream: Any) -> tuple:
