@@ -282,15 +282,14 @@ class Store:
         """(entry key, sha256 of the file's bytes); Uncacheable when the file or the options
         cannot be keyed (not a regular file, an option the key cannot describe)."""
         try:
-            with open(path, "rb") as fh:
-                st = os.fstat(fh.fileno())
-                if not stat.S_ISREG(st.st_mode) or st.st_size > reads.MAX_HASHED:
+            known = self._digests.get(path)
+            if known is not None and known[0] == _stat_id(os.stat(path)):
+                digest = known[1]  # hashed by the check of the run's record, file untouched since
+            else:
+                got = reads.regular_bytes(path)  # never blocks on a pipe
+                if got is None:
                     raise Uncacheable("not a regular file of a size worth keeping")
-                known = self._digests.get(path)
-                if known is not None and known[0] == _stat_id(st):
-                    digest = known[1]  # hashed by the check of the run's record, file untouched since
-                else:
-                    digest = hashlib.sha256(fh.read()).hexdigest()
+                digest = hashlib.sha256(got[1]).hexdigest()
         except (OSError, ValueError):  # a folder, a missing file: linting it says why, cheaply
             raise Uncacheable("not readable") from None
         known = self._options.get(id(options))
@@ -651,12 +650,11 @@ def _replay(target: str, key: str, progress: Any, seen: dict | None = None) -> i
                     return None
             n = len(files)
             for i, (path, digest) in enumerate(files, start=1):
-                with open(path, "rb") as f:
-                    st = os.fstat(f.fileno())
-                    if not stat.S_ISREG(st.st_mode) or st.st_size > reads.MAX_HASHED:
-                        return None
-                    now = hashlib.sha256(f.read()).hexdigest()
-                digests_seen[path] = (_stat_id(st), now)
+                got = reads.regular_bytes(path)  # never blocks on a pipe
+                if got is None:
+                    return None
+                now = hashlib.sha256(got[1]).hexdigest()
+                digests_seen[path] = (_stat_id(got[0]), now)
                 if now != digest:
                     return None
                 if progress is not None and i < n:

@@ -64,6 +64,21 @@ def path_kind(path: Any) -> str:
     return "other"
 
 
+_NONBLOCK = getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0)
+
+
+def regular_bytes(path: Any, limit: int = MAX_HASHED) -> tuple[os.stat_result, bytes] | None:
+    """(stat, bytes) of a regular file of at most LIMIT bytes; None for anything else (a FIFO,
+    a device, a folder, a bigger file). Opened without blocking, so a pipe never hangs the run.
+    Raises OSError when the path cannot be opened."""
+    fd = os.open(path, os.O_RDONLY | _NONBLOCK)
+    with open(fd, "rb", closefd=True) as fh:
+        st = os.fstat(fd)
+        if not stat.S_ISREG(st.st_mode) or st.st_size > limit:
+            return None
+        return st, fh.read()
+
+
 def content(path: Any) -> str:
     """sha256 of a regular file's bytes, or the kind of path when it is not a readable file."""
     kind = path_kind(path)
@@ -74,8 +89,10 @@ def content(path: Any) -> str:
         if size > MAX_HASHED:
             st = os.stat(path)
             return f"large:{st.st_size}:{st.st_mtime_ns}"
-        with open(path, "rb") as fh:
-            return hashlib.sha256(fh.read()).hexdigest()
+        got = regular_bytes(path)
+        if got is None:  # replaced by a pipe or a device, or grown, since the stat
+            return path_kind(path)
+        return hashlib.sha256(got[1]).hexdigest()
     except OSError as exc:
         return f"unreadable:{exc.errno}"
 

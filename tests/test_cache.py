@@ -914,3 +914,19 @@ def test_run_record_of_a_project_linted_without_paths(tmp_path, monkeypatch):
     # the full lint runs and gives the same bytes
     (repo / "notes" / "c.yaml").write_text(LOW_SCALE)
     assert _lint_cli(["--show", "info"], case.folder, lean=False, monkeypatch=monkeypatch) == after
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="named pipes are a POSIX thing")
+def test_a_pipe_among_the_configs_never_hangs_a_cached_lint(tmp_path):
+    (tmp_path / "configs").mkdir()
+    os.mkfifo(tmp_path / "configs" / "pipe.yaml")  # nothing ever writes to it: a blocking open would hang
+    (tmp_path / "configs" / "run.yaml").write_text(LOW_SCALE)
+    env = dict(ENV, CFGCHECK_CACHE_DIR=str(tmp_path / "cache"))
+    answers = []
+    for _ in range(2):
+        p = subprocess.run([sys.executable, "-m", "cfgcheck", "lint", str(tmp_path / "configs"), "--no-project"],
+                           capture_output=True, cwd=ROOT, env=env, timeout=120)
+        answers.append((p.returncode, p.stdout, p.stderr))
+    assert answers[0] == answers[1] and answers[0][0] == api.EXIT_INPUT
+    assert b"pipe.yaml:1:1: input error: not a regular file" in answers[0][1]
+    assert cache.reads.regular_bytes(str(tmp_path / "configs" / "pipe.yaml")) is None
