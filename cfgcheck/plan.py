@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any
@@ -198,11 +198,15 @@ def _words(f) -> str:
 
 def _estimate(inputs: MemoryInputs) -> MemoryBreakdown:
     """estimate_memory, once per run for the same inputs (configs of one recipe share them)."""
+    key = inputs
+    targets = inputs.lora_targets
+    if isinstance(targets, list):  # a written list: the same names (and their type) make the key
+        key = (replace(inputs, lora_targets=tuple(targets)), list)
     try:
-        hash(inputs)
+        hash(key)
     except TypeError:
         return estimate_memory(inputs)
-    return remembered("estimate_memory", inputs, lambda: estimate_memory(inputs))
+    return remembered("estimate_memory", key, lambda: estimate_memory(inputs))
 
 
 def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Architecture | None:
@@ -212,14 +216,15 @@ def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Archite
     ref = view.value("model.ref")
     arch = None
     if isinstance(ref, str) and ref.strip():
-        parent = Path(file).parent if file and not file.startswith("<") else None
-        here = cwd or Path(os.getcwd())
+        folder = os.path.dirname(file) if file and not file.startswith("<") else None
+        here = str(cwd) if cwd else os.getcwd()
 
         def resolve():
-            return _models.resolve_model(ref.strip(), config_dir=parent, cwd=here, declared=declared)
+            parent = Path(file).parent if folder is not None else None
+            return _models.resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(here), declared=declared)
 
         try:  # the same reference from the same folder: looked up once per run (cfgcheck.memo)
-            key = (ref.strip(), str(parent), str(here), declared)
+            key = (ref.strip(), folder, here, declared)
             hash(key)
         except TypeError:
             arch = resolve()
