@@ -579,6 +579,18 @@ def _catalogue_match(entry: CatalogueEntry, kind: str, how: str, assumed: bool, 
 
 
 def match_catalogue(ref: str) -> Architecture | None:
+    """:func:`_match_catalogue`, once per process for the same text (the catalogue is bundled)."""
+    if not isinstance(ref, str) or not ref.strip():
+        return None
+    return _match_catalogue_text(ref)
+
+
+@lru_cache(maxsize=1024)
+def _match_catalogue_text(ref: str) -> Architecture | None:
+    return _match_catalogue(ref)
+
+
+def _match_catalogue(ref: str) -> Architecture | None:
     """The bundled shape a hub id names, with ``how`` (in words), ``match`` and ``assumed`` set; None if unknown.
 
     In order: the exact id or a listed alias (case-insensitive) -> "exact"; the same name under another
@@ -831,10 +843,13 @@ def _resolve(ref, *, config_dir, cwd, hub_cache, depth) -> Architecture | None:
     if not _HUB_ID_RE.match(ref):
         return _by_folder_name(ref)
     cache = Path(hub_cache) if hub_cache is not None else _default_hub_cache()
-    arch = _from_hub_cache(ref, cache)
+    from ..memo import remembered  # the same id in the same hub cache: looked once per run
+
+    arch = remembered("hub_cache_model", (ref, str(cache)), lambda: _from_hub_cache(ref, cache))
     if arch is not None:
         return arch
-    base = _hub_cache_adapter_base(ref, cache) if depth == 0 else None
+    base = remembered("hub_cache_adapter", (ref, str(cache)),
+                      lambda: _hub_cache_adapter_base(ref, cache)) if depth == 0 else None
     if base is not None and base.strip().lower() != ref.lower():
         arch = _resolve(base, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=1)
         if arch is not None:
