@@ -44,7 +44,7 @@ from .models import (
     rows_by_name,
     total_parameters,
 )
-from .models import _frozen
+from .models import _frozen, _targets_key
 
 __all__ = (
     "MemoryInputs",
@@ -521,7 +521,7 @@ _RESOLVED_CACHE: dict = {}  # (arch, targets, modules_to_save) -> (names, leaf n
 def _resolved(arch: Architecture, targets, modules_to_save) -> tuple[tuple[str, ...], frozenset[str]]:
     """resolve_targets and the set of their last name components, once per architecture and targets."""
     try:
-        key = (arch, _frozen(targets), _frozen(modules_to_save))
+        key = (arch, _targets_key(arch, targets), _frozen(modules_to_save))
         hit = _RESOLVED_CACHE.get(key)
     except TypeError:
         hit = key = None

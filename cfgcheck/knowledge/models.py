@@ -1302,13 +1302,24 @@ def _frozen(value):
     return (type(value).__name__, value)
 
 
+def _targets_key(arch: Architecture, targets):
+    """What the answers for ``targets`` depend on, as a hashable key: for a list of names without a
+    dot (outside the MoE conversions) the set of their texts -- PEFT matches each module against
+    every name, so order and repeats change nothing; anything else as written."""
+    if isinstance(targets, (list, tuple)) and arch.family not in _MOE_PATTERN:
+        names = [str(t) for t in targets]  # as _normalise_targets reads them
+        if not any("." in n for n in names):
+            return ("names", frozenset(names))
+    return _frozen(targets)
+
+
 _MATCHED_CACHE: dict = {}  # memo of _matched (a cache, bounded below)
 
 
 def _matched(arch: Architecture, targets, modules_to_save) -> list[Module]:
     """Memoised per (architecture, targets, modules_to_save): the same few occur across a corpus."""
     try:
-        key = (arch, _frozen(targets), _frozen(modules_to_save))
+        key = (arch, _targets_key(arch, targets), _frozen(modules_to_save))
         hit = _MATCHED_CACHE.get(key)
     except TypeError:  # something unhashable inside: work it out each time
         return _match_rows(arch, targets, modules_to_save)
@@ -1426,7 +1437,7 @@ def _plan(arch: Architecture, targets, modules_to_save):
 
     Memoised per (architecture, targets, modules_to_save), as :func:`_matched`; an error is not kept."""
     try:
-        key = (arch, _frozen(targets), _frozen(modules_to_save))
+        key = (arch, _targets_key(arch, targets), _frozen(modules_to_save))
         hit = _PLAN_CACHE.get(key)
     except TypeError:  # something unhashable inside: work it out each time
         return _work_out_plan(arch, targets, modules_to_save)
@@ -1583,7 +1594,7 @@ def _adapter_sums(arch: Architecture, targets, modules_to_save) -> tuple[int, in
     entries; whether parameters are wrapped; the wrapped module names). Once per architecture and
     targets: the rank only scales it."""
     try:
-        key = (arch, _frozen(targets), _frozen(modules_to_save))
+        key = (arch, _targets_key(arch, targets), _frozen(modules_to_save))
         hit = _SUMS_CACHE.get(key)
     except TypeError:
         hit = key = None
