@@ -254,6 +254,7 @@ _NOT_ON_THE_LINT_PATH = (
     "cfgcheck.scripts",  # the shell reader: only when a launch script is there (scriptfiles tells)
     "cfgcheck.knowledge.chat_tokens",  # token tables: only for a file that names tokens or a template
     "traceback",  # only to record a bug
+    "dataclasses", "inspect",  # records are written out by hand (cfgcheck/_records.py): no generated code
 )
 
 
