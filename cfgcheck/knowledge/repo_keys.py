@@ -30,12 +30,12 @@ entries looked at.
 
 from __future__ import annotations
 
-import ast
 import os
 from functools import lru_cache
 from pathlib import Path
 from types import MappingProxyType
 
+# ``ast`` is imported by the functions that read a script: a plain lint never parses Python
 from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from .. import reads
 
@@ -162,6 +162,8 @@ def _python_files(root: Path) -> list[Path]:
 @lru_cache(maxsize=4)
 def _parse(text: str) -> ast.Module:
     """One parse per source: the readers below each walk the same tree (never changed)."""
+    import ast
+
     return ast.parse(text)
 
 
@@ -170,6 +172,8 @@ _WALKED_CACHE: dict[int, tuple[ast.AST, list]] = {}  # memo of _walk (a cache, b
 
 def _walk(tree: ast.AST) -> list:
     """Every node of TREE, listed once per tree (the readers each go over them)."""
+    import ast
+
     hit = _WALKED_CACHE.get(id(tree))
     if hit is not None and hit[0] is tree:
         return hit[1]
@@ -181,6 +185,8 @@ def _walk(tree: ast.AST) -> list:
 
 
 def _base_names(cls: ast.ClassDef) -> set[str]:
+    import ast
+
     names = set()
     for b in cls.bases:
         if isinstance(b, ast.Name):
@@ -191,6 +197,8 @@ def _base_names(cls: ast.ClassDef) -> set[str]:
 
 
 def _call_name(node: ast.Call) -> str:
+    import ast
+
     f = node.func
     if isinstance(f, ast.Attribute):
         base = f.value.id if isinstance(f.value, ast.Name) else getattr(f.value, "attr", "")
@@ -202,6 +210,8 @@ def readers_of_source(text: str) -> set[str]:
     """How one Python source reads YAML configs: {"yaml"} (PyYAML or transformers' parser,
     values as YAML 1.1 types), {"omegaconf"}, {"cli-text"} (each value formatted into a
     ``--key value`` argument, so the script's own parser converts the text)."""
+    import ast
+
     try:
         tree = _parse(text)
     except (SyntaxError, ValueError, RecursionError, MemoryError):
@@ -251,6 +261,8 @@ _CLI_FROM_FUNCTION = ("fire.Fire", "Fire", "CLI", "jsonargparse.CLI", "auto_cli"
 
 
 def _decorator_names(node) -> set[str]:
+    import ast
+
     names = set()
     for d in node.decorator_list:
         target = d.func if isinstance(d, ast.Call) else d
@@ -263,6 +275,8 @@ def _decorator_names(node) -> set[str]:
 
 def _field_call(value) -> bool:
     """``attr.ib()`` / ``attrs.field()`` / ``field()``: a field written without an annotation."""
+    import ast
+
     return isinstance(value, ast.Call) and _call_name(value).rpartition(".")[2] in ("ib", "attrib", "field")
 
 
@@ -270,6 +284,8 @@ def _option_names(node: ast.Call) -> list[str]:
     """The setting names one ``add_argument`` / ``click.option`` call accepts: its ``dest``, and
     each long option with dashes turned into underscores (a config turned into ``--key value``
     text names the option as written, ``grad_accum`` for ``--grad-accum``)."""
+    import ast
+
     options = [a.value for a in node.args if isinstance(a, ast.Constant) and isinstance(a.value, str)]
     dest = next((k.value.value for k in node.keywords if k.arg == "dest"
                  and isinstance(k.value, ast.Constant) and isinstance(k.value.value, str)), None)
@@ -289,6 +305,8 @@ def _function_parameters(fn) -> list[str]:
 
 def _loaded_names(tree) -> set[str]:
     """Names bound to a config mapping a loader returned (``cfg = yaml.safe_load(fh)``)."""
+    import ast
+
     loaded: set[str] = set()
     for node in _walk(tree):
         if isinstance(node, ast.Assign) and isinstance(node.value, ast.Call) and _call_name(node.value) in _LOADERS:
@@ -298,6 +316,8 @@ def _loaded_names(tree) -> set[str]:
 
 def _from_loaded(expr, loaded: set[str]) -> bool:
     """Whether EXPR is a loaded config, a loader's call, or a part of one (``cfg["train"]``)."""
+    import ast
+
     for _ in range(64):
         if isinstance(expr, ast.Call):
             if _call_name(expr) in _LOADERS:
@@ -312,6 +332,8 @@ def _from_loaded(expr, loaded: set[str]) -> bool:
 
 def _settings_classes(tree) -> set[str]:
     """Names of the classes of one module whose fields are settings (see ``keys_of_source``)."""
+    import ast
+
     classes = {n.name: n for n in _walk(tree) if isinstance(n, ast.ClassDef)}
 
     def settings_class(cls: ast.ClassDef, seen: frozenset = frozenset()) -> bool:
@@ -344,6 +366,8 @@ def keys_of_source(text: str, label: str = "") -> dict[str, str]:
     string keys read from a mapping a YAML / JSON / TOML / OmegaConf loader returned
     (``cfg["lr"]``, ``cfg.get("min_lr")``).
     """
+    import ast
+
     try:
         tree = _parse(text)
     except (SyntaxError, ValueError, RecursionError, MemoryError):
@@ -407,6 +431,8 @@ def parsers_of_source(text: str) -> tuple[dict[str, str], dict[str, list[str]], 
     """(names imported -> their module, classes defined -> their base names, the class names
     handed to an argument parser built from classes: ``HfArgumentParser((A, B))`` and the
     parsers that extend it: any ``...Parser...`` called with classes)."""
+    import ast
+
     try:
         tree = _parse(text)
     except (SyntaxError, ValueError, RecursionError, MemoryError):
@@ -446,6 +472,8 @@ def parsers_of_source(text: str) -> tuple[dict[str, str], dict[str, list[str]], 
 
 def _class_name(node) -> str | None:
     """``Name`` -> "Name"; ``module.Name`` -> "module.Name"; anything else None."""
+    import ast
+
     if isinstance(node, ast.Name):
         return node.id
     if isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name):
@@ -462,6 +490,8 @@ _BUILDERS = ("load", "load_yaml", "from_yaml", "from_dict", "from_file", "model_
 def _built_from_config(node, loaded: set[str]) -> str | None:
     """The class a call builds from a config: ``Settings(**cfg)`` (CFG a loaded config),
     ``Settings.load(path)``, ``Settings.model_validate(data)``, ``OmegaConf.structured(Settings)``."""
+    import ast
+
     if not isinstance(node, ast.Call):
         return None
     f = node.func
@@ -569,6 +599,8 @@ MAX_IMPORT_DEPTH = 3
 def _local_imports(tree: ast.AST, script: Path, top: Path) -> list[Path]:
     """Files of the script's own tree that it imports (relative imports, or module names found
     as files beside the script or under TOP); other imports are libraries and left alone."""
+    import ast
+
     out: list[Path] = []
     for node in ast.walk(tree):
         names: list[tuple[int, str]] = []
@@ -601,6 +633,8 @@ def _local_imports(tree: ast.AST, script: Path, top: Path) -> list[Path]:
 def reader_keys(script: str) -> RepoKeys | None:
     """The keys SCRIPT (a Python file) and the modules of its own tree it imports declare; None
     when the script cannot be read."""
+    import ast
+
     path = Path(script)
     try:
         reads.note_kind(path)
