@@ -21,8 +21,8 @@ from typing import Any, Callable, Iterator
 
 from ..findings import json_text
 
-MEMORY_LIMIT = 256 * 1024  # characters a spool keeps in memory before it moves to a file
-READ_SIZE = 1 << 20  # characters read back at a time
+MEMORY_LIMIT = 64 * 1024  # characters a spool keeps in memory before it moves to a file
+READ_SIZE = 64 * 1024  # characters read back at a time
 
 
 class Spool:
