@@ -42,7 +42,8 @@ AUTO_FILES_PER_WORKER = 32
 CHUNK_FILES = 16  # at most this many files a chunk: ~50 ms of work, about 0.3 ms of round trip
 CHUNKS_PER_PROCESS = 4  # a short run: about this many chunks for each process, so all have work
 POOL_AHEAD = 2  # chunks sent to each worker ahead of the reports yielded
-HELD_CHUNKS = 2  # chunks this process lints ahead of the next one in order, at most
+HELD_CHUNKS = 8  # chunks this process lints ahead of the next one in order, at most (a busy machine can
+# starve a worker: this process then goes on alone for a while)
 
 _PRELOAD = ("cfgcheck.engine", "cfgcheck.checks")  # what a fork server imports once
 
