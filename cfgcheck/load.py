@@ -123,6 +123,11 @@ class Entry:
     def key(self, span: Span | None) -> None:
         self._key = span
 
+    @property
+    def keyed(self) -> bool:
+        """Whether the value is a mapping's member (``key`` is not None), without placing the key."""
+        return self._key is not None
+
     def _fields(self) -> tuple:
         return (self.value, self.key, self.raw, self.style, self.tag, self.kind, self.flow)
 

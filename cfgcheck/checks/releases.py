@@ -112,7 +112,7 @@ def key_not_in_release(ctx) -> None:
     reported: list[tuple] = []
     # parents before their keys, so a section reported once covers what is inside it
     for path, entry in sorted(ctx.doc.entries.items(), key=lambda kv: len(kv[0])):
-        if not path or entry.key is None or not all(isinstance(p, str) for p in path):
+        if not path or not entry.keyed or not all(isinstance(p, str) for p in path):
             continue
         if path[0] in sections and isinstance(ctx.doc.get(path[:1]), dict):
             continue

@@ -260,7 +260,7 @@ def unknown_key(ctx) -> None:
     sections = view.layout.sections
     title = view.layout.title
     for path, entry in ctx.doc.entries.items():
-        if not path or entry.key is None or not all(isinstance(p, str) for p in path):
+        if not path or not entry.keyed or not all(isinstance(p, str) for p in path):
             continue
         value = ctx.doc.get(path)
         if len(path) == 1 and isinstance(value, dict) and "_component_" in value:
