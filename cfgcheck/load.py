@@ -263,12 +263,17 @@ def decode(raw: bytes, name: str, limit: int = MAX_FILE_BYTES, what: str = "a co
     return Source(name=name, text=text, encoding=encoding, bom=bom, newline=newline)
 
 
+_SEPARATORS = tuple({os.sep, os.altsep or os.sep})
+
+
 def read_source(path: str | Path, limit: int = MAX_FILE_BYTES, what: str = "a config file") -> Source:
     """Read a regular file, never more than the size limit (a FIFO or /dev/zero cannot hang us)."""
-    p = Path(path)
+    # a name as the walk gives it is opened as it is; a Path object, "" or a trailing slash are
+    # taken as Path reads them ("dir/" is "dir", "" is ".")
+    p = path if path.__class__ is str and path and not path.endswith(_SEPARATORS) else Path(path)
     try:
         try:
-            st = p.stat()
+            st = os.stat(p)
             if stat.S_ISDIR(st.st_mode):
                 raise LoadError("is a folder, not a file")
             if not stat.S_ISREG(st.st_mode):
@@ -597,19 +602,10 @@ def _reject_constant(name: str) -> Any:
 
 def _load_json(text: str, name: str) -> Document:
     import json  # YAML-only runs do not pay for it
-    duplicates_seen: list[str] = []
-
-    def pairs(items: list[tuple[str, Any]]) -> dict:
-        out: dict[str, Any] = {}
-        for k, v in items:
-            if k in out:
-                duplicates_seen.append(k)
-            out[k] = v
-        return out
 
     body = text[1:] if text.startswith("\ufeff") else text
-    try:
-        data = json.loads(body, object_pairs_hook=pairs, parse_constant=_reject_constant)
+    try:  # a repeated key: the last value, as here; the scan below reports the repetition
+        data = json.loads(body, parse_constant=_reject_constant)
     except json.JSONDecodeError as exc:
         raise LoadError(f"invalid JSON: {exc.msg}", exc.lineno, exc.colno) from None
     except ValueError as exc:  # NaN/Infinity, or an integer longer than Python reads
@@ -618,7 +614,7 @@ def _load_json(text: str, name: str) -> Document:
     except RecursionError:
         raise LoadError(f"nested more than {MAX_DEPTH} levels deep") from None
     doc = Document(name=name, format="json", data=data)
-    _json_entries(text, doc, bool(duplicates_seen))
+    _json_entries(text, doc)
     return doc
 
 
@@ -655,9 +651,9 @@ _JSON_TOKEN = re.compile(
     re.S)
 
 
-def _json_entries(text: str, doc: Document, duplicated: bool) -> None:
+def _json_entries(text: str, doc: Document) -> None:
     """Record the position of every key and value of TEXT, already known to be valid JSON, as
-    offsets (placed on lines when asked). DUPLICATED: some object repeats a key."""
+    offsets (placed on lines when asked), and the keys an object repeats."""
     lines = _Lines(text)
     entries = doc.entries
     stack: list[tuple] = []  # the states of the containers around the innermost open one
@@ -672,7 +668,7 @@ def _json_entries(text: str, doc: Document, duplicated: bool) -> None:
     key: str = ""
     key_at: tuple[int, int] | None = None
     want_key = False
-    seen: dict[str, tuple[int, int]] | None = None  # the open object's keys, when some repeat
+    seen: dict[str, tuple[int, int]] = {}  # the open object's keys so far
     for m in _JSON_TOKEN.finditer(text, 1 if text.startswith("\ufeff") else 0):
         kind = m.lastindex
         if kind == 1 and want_key:  # a member's key
@@ -680,13 +676,12 @@ def _json_entries(text: str, doc: Document, duplicated: bool) -> None:
             key = lit[1:-1] if "\\" not in lit else _json_string(lit)
             key_at = m.span()
             want_key = False
-            if seen is not None:
-                first = seen.get(key)
-                if first is not None:
-                    child = base + (key,)
-                    doc.duplicates.append(Duplicate(child, lines.span(*first), lines.span(*key_at),
-                                                    None, doc.get(child)))
-                seen[key] = key_at
+            first = seen.get(key)
+            if first is not None:
+                child = base + (key,)
+                doc.duplicates.append(Duplicate(child, lines.span(*first), lines.span(*key_at),
+                                                None, doc.get(child)))
+            seen[key] = key_at
             continue
         if kind == 3:  # the innermost container ends
             e = Entry((start, m.end()), own_key, "", "json", None, "map" if in_map else "seq")
@@ -717,7 +712,8 @@ def _json_entries(text: str, doc: Document, duplicated: bool) -> None:
             base, start, own_key = path, m.start(), at
             in_map = m.group(2) == "{"
             index, want_key = 0, in_map
-            seen = {} if duplicated and in_map else None
+            if in_map:
+                seen = {}
             continue
         e = Entry(m.span(), at, m.group(), "json")
         e._lines = lines

@@ -20,9 +20,11 @@ _TRUE = frozenset({"true", "yes", "on", "1"})
 _FALSE = frozenset({"false", "no", "off", "0"})
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True, unsafe_hash=True)
 class Field:
-    """One value of the view and where it was written."""
+    """One value of the view and where it was written. Never changed once made (not a frozen
+    dataclass only because a frozen one's constructor costs twice as much, and a run makes one
+    for every value of every file; equality and hashing are a frozen one's)."""
 
     name: str  # our name, e.g. "adapter.alpha"
     value: Any  # typed: numbers written as text are read as numbers here
@@ -194,10 +196,28 @@ def _has_class_path(data: Any, depth: int = 0) -> bool:
     return any(_has_class_path(v, depth + 1) for v in data.values())
 
 
-def _matches(fmt: UnreadFormat, data: dict, top_names: frozenset | None = None) -> bool:
-    """Whether DATA is in FMT (TOP_NAMES: DATA's str keys with dashes as underscores, when the
-    caller has them)."""
+def _mapping_keys(data: dict) -> set:
+    """The keys of DATA and of the mappings inside it down to the depth _has_target and
+    _has_class_path look (a mapping's values that are mappings, three levels down)."""
+    keys: set = set()
+    stack = [(data, 0)]
+    while stack:
+        mapping, depth = stack.pop()
+        keys.update(mapping)
+        if depth < 3:
+            stack.extend((v, depth + 1) for v in mapping.values() if isinstance(v, dict))
+    return keys
+
+
+def _matches(fmt: UnreadFormat, data: dict, top_names: frozenset | None = None,
+             keys: list | None = None) -> bool:
+    """Whether DATA is in FMT (TOP_NAMES: DATA's str keys with dashes as underscores; KEYS: a
+    list that holds, or gets, DATA's _mapping_keys; when the caller has them)."""
+    if fmt.shape in ("class-path", "composed") and keys is not None and not keys:
+        keys.append(_mapping_keys(data))
     if fmt.shape == "class-path":
+        if keys is not None and "class_path" not in keys[0]:
+            return False  # no mapping has one
         return _has_class_path(data)
     if fmt.shape == "composed":
         defaults = data.get("defaults")
@@ -205,7 +225,8 @@ def _matches(fmt: UnreadFormat, data: dict, top_names: frozenset | None = None) 
             isinstance(x, (str, dict)) for x in defaults)
         named = any(isinstance(data.get(k), str) and data[k].strip().lower().endswith((".yaml", ".yml", ".json"))
                     for k in BASE_FILE_KEYS)  # still there: the base file could not be read
-        return bool(listed) or named or _has_target(data)
+        return bool(listed) or named or (
+            "_target_" in keys[0] if keys is not None else _has_target(data))
     if fmt.shape == "tuning-space":
         zero = data.get("zero_optimization")
         stage_list = isinstance(zero, dict) and isinstance(zero.get("stage"), list)
@@ -226,8 +247,9 @@ def unread_format(data: Any) -> UnreadFormat | None:
     if not isinstance(data, dict):
         return None
     top_names = frozenset(k.replace("-", "_") for k in data if isinstance(k, str))
+    keys: list = []  # the mapping keys, found when a format first needs them
     for fmt in UNREAD_FORMATS:
-        if _matches(fmt, data, top_names):
+        if _matches(fmt, data, top_names, keys):
             return fmt
     return None
 
