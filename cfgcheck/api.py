@@ -11,11 +11,11 @@ import json
 import os
 from collections.abc import Mapping
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Any, Callable, Iterable, Iterator
 
 from . import engine
 from .engine import Options
-from .findings import FileReport, Report
+from .findings import FileReport, Report, Tally
 from .findings import MAX_MAGNITUDE, Finding, OptionError, Severity, number_text
 from .knowledge.hardware import find_gpu
 
@@ -168,7 +168,27 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
     None uses the project's ``baseline`` when that file exists; False uses none.
     Raises ``project.ProjectError`` / ``baseline.BaselineError`` for a bad project or baseline
     file, ``ValueError`` for a bad option value.
+
+    ``lint_reports`` gives the same reports one at a time, holding none of them.
     """
+    reports = lint_reports(paths, project=project, baseline=baseline, progress=progress, jobs=jobs,
+                           keep_views=keep_views, cache=cache, **options)
+    try:
+        return Report(files=list(reports))
+    finally:
+        reports.close()
+
+
+def lint_reports(paths: Iterable[str | Path] = (), *, project: Any = "auto",
+                 baseline: str | Path | bool | None = None,
+                 progress: Callable[[int, int], None] | None = None, jobs: int | str = 1,
+                 keep_views: bool = True, cache: Any = False,
+                 **options: Any) -> Iterator[FileReport]:
+    """``lint``'s file reports in the files' order, each yielded as soon as it is ready (and the
+    baseline has taken its findings), so a caller that writes each one and drops it keeps the
+    memory of a run flat. Nothing is linted before the first ``next``; the option, project and
+    baseline errors ``lint`` raises are raised there. Close it (or run it to the end) to end
+    the run: the run's memo scope and the result cache are closed then."""
     from . import reads
 
     reads.forget()  # what an earlier run saw on disk (repository keys, pins) is looked at again
@@ -176,7 +196,11 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
     files, options_for, proj = _targets(paths, project, given_options(**options), scripts=True)
     if proj is not None and baseline is None and proj.baseline is not None and proj.baseline.is_file():
         baseline = proj.baseline  # the project's baseline, unless the caller chose
-    report = Report()
+    held = None
+    if baseline is not None and baseline is not False:
+        from . import baseline as baselinemod
+
+        held = baselinemod.load(baseline).matcher()  # read before the first file is linted
     # jobs > 1: the files are linted over processes, reports still in this order
     store = None
     if cache is not False and cache is not None:
@@ -186,22 +210,18 @@ def lint(paths: Iterable[str | Path] = (), *, project: Any = "auto",
     linted = engine.lint_files([(f, options_for(f)) for f, skip in files if not skip],
                                jobs=jobs, keep_views=keep_views, cache=store)
     try:
+        total = len(files)
         for i, (file, skip) in enumerate(files, start=1):
-            if skip:
-                report.files.append(FileReport(file=file, skipped=skip))
-            else:
-                report.files.append(next(linted))
+            fr = FileReport(file=file, skipped=skip) if skip else next(linted)
+            if held is not None:
+                held.take(fr)
             if progress is not None:
-                progress(i, len(files))
+                progress(i, total)
+            yield fr
     finally:
         linted.close()  # ends the run's memo scope now, even when a caller's progress raised
-    if store is not None:
-        store.close()  # trims the cache folder when that is due
-    if baseline is not None and baseline is not False:
-        from . import baseline as baselinemod
-
-        baselinemod.load(baseline).filter(report)
-    return report
+        if store is not None:
+            store.close()  # trims the cache folder when that is due
 
 
 def lint_text(text: str, name: str = "<text>", *, fmt: str | None = None, project: Any = None,
@@ -247,13 +267,15 @@ def fix_exit_code(report, *, no_write: bool = False) -> int:
     return EXIT_CLEAN
 
 
-def exit_code(report: Report, fail_on: Severity = Severity.WARNING) -> int:
-    """0 clean, 1 a finding at or above ``fail_on``, 2 an unreadable file, 3 a rule failed."""
-    if report.problems:
+def exit_code(report: Report | Tally, fail_on: Severity = Severity.WARNING) -> int:
+    """0 clean, 1 a finding at or above ``fail_on``, 2 an unreadable file, 3 a rule failed.
+    ``report``: a Report, or the Tally of a run whose reports were written as they came."""
+    tally = report if isinstance(report, Tally) else report.tally()
+    if tally.problems:
         return EXIT_INPUT
-    if report.internal:
+    if tally.internal:
         return EXIT_INTERNAL
-    if any(f.severity >= fail_on for f in report.findings):
+    if tally.at_least(fail_on):
         return EXIT_FINDINGS
     return EXIT_CLEAN
 

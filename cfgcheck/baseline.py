@@ -45,20 +45,33 @@ class Baseline:
 
     def filter(self, report: Report) -> int:
         """Remove the findings the baseline holds from ``report``; returns how many."""
-        folder = self.path.parent
-        left = Counter(self.known)
+        held = self.matcher()
+        return sum(held.take(fr) for fr in report.files)
+
+    def matcher(self) -> "Matcher":
+        """Takes the findings the baseline holds out of file reports given one at a time, in
+        the run's order (as ``filter`` does for a whole report)."""
+        return Matcher(self.path.parent, Counter(self.known))
+
+
+class Matcher:
+    def __init__(self, folder: Path, left: Counter):
+        self.folder, self.left = folder, left
+
+    def take(self, fr) -> int:
+        """Remove from ``fr`` the findings still unmatched in the baseline; returns how many."""
+        left, folder = self.left, self.folder
+        kept = []
         hidden = 0
-        for fr in report.files:
-            kept = []
-            for f in fr.findings:
-                k = key_of(f, folder)
-                if left[k] > 0:
-                    left[k] -= 1
-                    fr.baselined += 1
-                    hidden += 1
-                else:
-                    kept.append(f)
-            fr.findings = kept
+        for f in fr.findings:
+            k = key_of(f, folder)
+            if left[k] > 0:
+                left[k] -= 1
+                fr.baselined += 1
+                hidden += 1
+            else:
+                kept.append(f)
+        fr.findings = kept
         return hidden
 
 

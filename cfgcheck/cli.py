@@ -265,7 +265,6 @@ def lint(
     from .findings import OptionError, Severity, printable
     from .knowledge.hardware import UnknownGpu
     from .projectfile import ProjectError
-    from .render import render
 
     if quiet and summary:
         _fail("cfgcheck: --quiet and --summary exclude each other", 2)
@@ -310,9 +309,15 @@ def lint(
                     proj = load_project(found)
         if not paths and proj is None:
             paths = [Path(".")]  # no project file: the working folder
-        report = api.lint(paths or [], project=proj, progress=progress, jobs=workers, keep_views=False,
-                          baseline=False if save_baseline else baseline, cache=not no_cache,
-                          **chosen)
+        if save_baseline is not None:  # the baseline records every finding: the whole report is kept
+            report = api.lint(paths or [], project=proj, progress=progress, jobs=workers, keep_views=False,
+                              baseline=False, cache=not no_cache, **chosen)
+        else:
+            out = _lint_output(api.lint_reports(paths or [], project=proj, progress=progress, jobs=workers,
+                                                keep_views=False, baseline=baseline, cache=not no_cache,
+                                                **chosen),
+                               fmt=fmt, proj=proj, show=show, frame=frame, quiet=quiet, summary=summary,
+                               sarif_not_checked=sarif_not_checked)
     except (UnknownGpu, OptionError) as exc:
         _fail(f"cfgcheck: {printable(str(exc))}", api.EXIT_INPUT)
     except (ProjectError, BaselineError) as exc:
@@ -338,28 +343,64 @@ def lint(
         raise SystemExit(api.EXIT_INPUT if report.problems else
                          api.EXIT_INTERNAL if report.internal else api.EXIT_CLEAN)
 
-    level = Severity.parse((show.value if show else None) or (proj.show.word if proj and proj.show else "warning"))
     fail_on = Severity.parse((gate.value if gate else None) or (proj.gate.word if proj and proj.gate else "warning"))
+    try:
+        out.finish(_write_piece)
+    finally:
+        out.close()
+    sys.stdout.flush()
+    raise SystemExit(run.done(api.exit_code(out.tally, fail_on)))
+
+
+def _lint_output(reports, *, fmt, proj, show, frame, quiet, summary, sarif_not_checked):
+    """The lint's output writer, given each file report as it comes (none is kept): the reports
+    go into the format's sections (render/spool.py), the summary and exit status come from
+    counts. Returns the writer, its output not yet written."""
+    from . import api
+    from .findings import Severity
+    from .render import writer
+
+    level = Severity.parse((show.value if show else None) or (proj.show.word if proj and proj.show else "warning"))
+    want_frame = False
     if fmt is Format.sarif:
         from .render.notes import is_note  # code-scanning views list every result: notes only when asked
 
-        out = render("sarif", report, [f for f in report.findings if sarif_not_checked or not is_note(f)])
+        out = writer("sarif")
+        pick = (lambda fr: fr.findings) if sarif_not_checked else \
+            (lambda fr: [f for f in fr.findings if not is_note(f)])
     elif fmt is Format.json:
-        out = render(fmt.value, report, report.findings)
+        out = writer("json")
+        pick = lambda fr: fr.findings  # noqa: E731
     else:
-        shown = api.visible(report.findings, level)
-        hidden = sum(1 for f in report.findings if f.severity == Severity.INFO and f.severity < level)
+        pick = lambda fr: api.visible(fr.findings, level)  # noqa: E731
         if fmt is Format.github:
-            out = render("github", report, shown, hidden_info=hidden)
+            out = writer("github")
         else:
-            tty_color = color_wanted(sys.stdout)
-            want_frame = frame if frame is not None else bool(sys.stdout.isatty())
-            frames = _frames(report, shown) if want_frame and not (quiet or summary) else None
-            mode = "quiet" if quiet else "summary" if summary else "full"
-            out = render("text", report, shown, hidden_info=hidden, color=tty_color, frames=frames,
-                         mode=mode)
-    _write(out)
-    raise SystemExit(run.done(api.exit_code(report, fail_on)))
+            want_frame = (frame if frame is not None else bool(sys.stdout.isatty())) and not (quiet or summary)
+            out = writer("text", color=color_wanted(sys.stdout),
+                         mode="quiet" if quiet else "summary" if summary else "full")
+    hides_info = level > Severity.INFO
+    try:
+        for fr in reports:
+            shown = pick(fr)
+            hidden = sum(1 for f in fr.findings if f.severity == Severity.INFO) if hides_info else 0
+            out.add(fr, shown, hidden_info=hidden, frames=_frames(None, shown) if want_frame else None)
+    except BaseException:
+        out.close()
+        raise
+    finally:
+        reports.close()
+    return out
+
+
+def _write_piece(out: str) -> None:
+    """Like _write, flushed once at the end (the output comes in pieces)."""
+    try:
+        sys.stdout.write(out)
+    except UnicodeEncodeError:
+        enc = sys.stdout.encoding or "utf-8"
+        sys.stdout.flush()
+        sys.stdout.buffer.write(out.encode(enc, errors="backslashreplace"))
 
 
 @commands.command("derive")

@@ -436,6 +436,65 @@ class FileReport:
     __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
+_UNREAD = re.compile(r"\(([\w-]+)\): not a format cfgcheck reads \(yet\)$")
+NOT_READ = "not read: "  # how a skipped reason starts for valid input this version does not follow
+NOT_READ_NAMED = 3  # files a summary names among those not read
+
+
+class Tally:
+    """The counts a run's summary and exit status rest on, kept as the file reports go by, so a
+    run that writes each report as it arrives keeps none of them (``add`` each report once,
+    after the baseline has taken its findings)."""
+
+    __slots__ = ("linted", "skipped", "problems", "internal", "waived", "baselined", "severities",
+                 "unread", "unread_count", "not_read", "not_read_count")
+
+    def __init__(self) -> None:
+        self.linted = self.skipped = self.problems = self.internal = 0
+        self.waived = self.baselined = 0
+        self.severities: dict[Severity, int] = {}
+        self.unread: set[str] = set()  # the formats named "not a format cfgcheck reads (yet)"
+        self.unread_count = 0
+        self.not_read: list[tuple[str, str]] = []  # the first NOT_READ_NAMED (file, why)
+        self.not_read_count = 0
+
+    @classmethod
+    def of(cls, report: "Report") -> "Tally":
+        tally = cls()
+        for fr in report.files:
+            tally.add(fr)
+        return tally
+
+    def add(self, fr: "FileReport") -> None:
+        if fr.problem:
+            self.problems += 1
+        elif fr.skipped:
+            self.skipped += 1
+            m = _UNREAD.search(fr.skipped)
+            if m:
+                self.unread.add(m.group(1))
+                self.unread_count += 1
+            if fr.skipped.startswith(NOT_READ):
+                self.not_read_count += 1
+                if len(self.not_read) < NOT_READ_NAMED:
+                    self.not_read.append((fr.file, fr.skipped[len(NOT_READ):]))
+        else:
+            self.linted += 1
+        self.internal += len(fr.internal)
+        self.waived += len(fr.waived)
+        self.baselined += fr.baselined
+        counts = self.severities
+        for f in fr.findings:
+            counts[f.severity] = counts.get(f.severity, 0) + 1
+
+    def count(self, severity: Severity) -> int:
+        return self.severities.get(severity, 0)
+
+    def at_least(self, severity: Severity) -> int:
+        """Findings at ``severity`` or above."""
+        return sum(n for s, n in self.severities.items() if s >= severity)
+
+
 class Report:
     files: list[FileReport]
 
@@ -451,6 +510,9 @@ class Report:
         return NotImplemented
 
     __hash__ = None  # a mutable record: compared by value, not a dict key
+
+    def tally(self) -> Tally:
+        return Tally.of(self)
 
     @property
     def findings(self) -> list[Finding]:

@@ -1,25 +1,30 @@
-"""Linting many files over a pool of processes, results in the order the files were given.
+"""Linting many files over several processes, results in the order the files were given.
 
-The files are cut into contiguous chunks, about ``CHUNKS_PER_WORKER`` per worker and shrinking
-towards the end (so the workers finish close together), and each worker lints a whole chunk and
-sends its reports back in one message: one process round trip per chunk, not per file. A report comes back without its views (the typed views and documents are only
-needed while the rules run, and pickling them would cost more than linting); everything else of
-a report (findings, input problems, internal errors, layout, skipped reason) is the same as in a
-serial run, and the reports are yielded in the files' order, so the output is byte for byte the
-serial one.
+``--jobs N`` is N processes linting: this one and a pool of N - 1 workers. The files are cut into
+small contiguous chunks (at most ``CHUNK_FILES``); the pool is kept a few chunks ahead of the
+reports yielded, and whenever the next report in order is still being linted in a worker, this
+process lints the next chunk nobody has taken (holding at most ``HELD_CHUNKS`` of its own ahead),
+so no process waits while there is work and a slow worker only means this one lints more. One
+round trip per chunk, not per file. A report comes back without its views (the typed views and
+documents are only needed while the rules run, and pickling them would cost more than linting);
+everything else of a report (findings, input problems, internal errors, layout, skipped reason)
+is the same as in a serial run, and the reports are yielded in the files' order, so the output
+is byte for byte the serial one. No more than a bounded window of reports is held at any time,
+so a caller that writes each report as it comes keeps its memory flat.
 
-How workers start: on Linux, when this process runs no other thread, they are forked after the
-catalogue is parsed, the checks are imported and the first file is linted here (which builds the
-tables the rules fill on first use), so a worker starts in about a millisecond with everything
-ready and the chunks it is sent are only index ranges into the list it inherited. Forking a
-process that runs other threads can copy a lock another thread holds; there (and on macOS and
-Windows, where fork is unsafe or absent) workers come from a fork server that imported the
-engine once (``forkserver``, preloaded), else are spawned, and are sent their files.
+How workers start: on Linux, when this process runs no other thread, they are forked at once,
+before anything is prepared: the worker parses the catalogue and builds the tables its rules
+fill on first use while this process does the same and lints, instead of after it; the chunks it
+is sent are only index ranges into the list it inherited. Forking a process that runs other
+threads can copy a lock another thread holds; there (and on macOS and Windows, where fork is
+unsafe or absent) workers come from a fork server that imported the engine once
+(``forkserver``, preloaded), else are spawned, and are sent their files; this process lints
+meanwhile.
 
 It knows nothing of the engine: the engine hands it the function that lints one file and the one
-that prepares a set of options (parses the catalogue and imports the checks) before the workers
-start, so imports point one way only. Nothing heavy is imported until a pool is wanted:
-``worker_count`` is all a serial run touches.
+that prepares a set of options (parses the catalogue and imports the checks), so imports point
+one way only. Nothing heavy is imported until a pool is wanted: ``worker_count`` is all a serial
+run touches.
 """
 
 from __future__ import annotations
@@ -34,7 +39,11 @@ from typing import Any, Callable, Iterator
 # even near 30 files; at 64 it saves about a quarter of the serial time (bench/RESULTS.md).
 AUTO_FILES_PER_WORKER = 32
 
-CHUNKS_PER_WORKER = 4  # fewer: a slow chunk at the end idles the others; more: more round trips
+CHUNK_FILES = 16  # at most this many files a chunk: ~50 ms of work, about 0.3 ms of round trip
+CHUNKS_PER_PROCESS = 4  # a short run: about this many chunks for each process, so all have work
+POOL_AHEAD = 2  # chunks sent to each worker ahead of the reports yielded
+HELD_CHUNKS = 8  # chunks this process lints ahead of the next one in order, at most (a busy machine can
+# starve a worker: this process then goes on alone for a while)
 
 _PRELOAD = ("cfgcheck.engine", "cfgcheck.checks")  # what a fork server imports once
 
@@ -77,22 +86,15 @@ def worker_count(jobs: int | str, files: int) -> int:
     return max(1, min(int(jobs), files))
 
 
-def chunk_bounds(n: int, workers: int, per_worker: int = CHUNKS_PER_WORKER) -> list[tuple[int, int]]:
-    """Contiguous [start, end) ranges covering 0..n, about ``per_worker`` per worker, the first
-    three times the size of the last, shrinking evenly: a worker takes the next chunk when it is
-    done, so the last chunks, small, leave the workers finishing close together."""
-    count = max(1, min(n, workers * per_worker))
-    if count == 1:
-        return [(0, n)]
-    weights = [3 - 2 * i / (count - 1) for i in range(count)]
-    total = sum(weights)
-    bounds, start, acc = [], 0, 0.0
-    for i, w in enumerate(weights):
-        acc += w
-        end = n if i == count - 1 else max(start + 1, min(n - (count - 1 - i), round(n * acc / total)))
-        bounds.append((start, end))
-        start = end
-    return bounds
+def chunk_bounds(n: int, processes: int) -> list[tuple[int, int]]:
+    """Contiguous [start, end) ranges covering 0..n in order, all of one size (the last may be
+    smaller): at most CHUNK_FILES files, fewer when the run is short, so each process gets about
+    CHUNKS_PER_PROCESS of them. Small chunks taken one at a time leave the processes finishing
+    close together."""
+    if n <= 0:
+        return []
+    size = max(1, min(CHUNK_FILES, n // max(1, processes * CHUNKS_PER_PROCESS)))
+    return [(a, min(n, a + size)) for a in range(0, n, size)]
 
 
 def _strip(report: Any) -> Any:
@@ -148,8 +150,9 @@ def _context(fork: bool):
 def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: Callable[[str, Any], Any],
                         prepare: Callable[[Any], Any]) -> Iterator[Any]:
     """Reports for (file, options) pairs, in order, each yielded as soon as it and those before it
-    are done. ``lint_file(path, options)`` lints one file (a module-level function, so a worker can
-    be handed it); ``prepare(options)`` runs once per distinct options before the workers start."""
+    are done, linted by ``jobs`` processes (this one included). ``lint_file(path, options)`` lints
+    one file (a module-level function, so a worker can be handed it); ``prepare(options)`` runs
+    once per distinct options in each process before its first file."""
     global _INHERITED_CACHE, _LINT_CACHE
     import time
 
@@ -157,57 +160,91 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
         return
     started = time.process_time()
     distinct = list({id(o): o for _, o in pairs}.values())
-    for options in distinct:
-        prepare(options)  # parse the catalogue and import the checks before the workers start
-    # the first file here: the tables rules build on first use are then built once, not per worker
-    yield _strip(lint_file(*pairs[0]))
-    rest = pairs[1:]
-    if not rest:
-        return
-    workers = max(1, min(jobs, len(rest)))
-    bounds = chunk_bounds(len(rest), workers)
+    bounds = chunk_bounds(len(pairs), jobs)
+    workers = max(0, min(jobs - 1, len(bounds) - 1))  # this process lints too
     fork = _fork_is_safe()
 
     import gc
     from concurrent.futures import ProcessPoolExecutor
     from concurrent.futures.process import BrokenProcessPool
 
-    futures: list = []
     pool = None
     LAST_RUN_CACHE.clear()
-    LAST_RUN_CACHE.update(here=time.process_time() - started, workers={})
-    if fork:
-        _INHERITED_CACHE, _LINT_CACHE = rest, lint_file
-        gc.freeze()  # the workers' collector then leaves the inherited objects (and their pages) alone
-    try:
-        pool = ProcessPoolExecutor(max_workers=workers, mp_context=_context(fork))
+    LAST_RUN_CACHE.update(here=0.0, workers={})
+    chunks: list[Any] = [None] * len(bounds)  # a Future, or the reports linted here ahead of order
+    taken = 0  # chunks handed out (to the pool or to this process), in order
+    in_pool = 0  # chunks sent to the pool and not yet yielded
+    held = 0  # chunks linted here ahead of the one in order
+    broken = True  # no pool to send to (none wanted, none to be had, or a worker died)
+    index = {id(o): i for i, o in enumerate(distinct)}
+
+    def send(i: int) -> Any:
+        a, b = bounds[i]
         if fork:
-            futures = [pool.submit(_lint_range, a, b) for a, b in bounds]
-        else:
-            index = {id(o): i for i, o in enumerate(distinct)}
-            futures = [pool.submit(_lint_chunk, lint_file, distinct,
-                                   [(path, index[id(o)]) for path, o in rest[a:b]])
-                       for a, b in bounds]
-    except OSError:
-        futures = []  # no processes to be had here (no semaphores, a process limit): serial
-    finally:
+            return pool.submit(_lint_range, a, b)
+        return pool.submit(_lint_chunk, lint_file, distinct, [(path, index[id(o)]) for path, o in pairs[a:b]])
+
+    if workers:
         if fork:
-            gc.unfreeze()
-            _INHERITED_CACHE, _LINT_CACHE = None, None  # the workers have their copy
+            _INHERITED_CACHE, _LINT_CACHE = pairs, lint_file
+            gc.freeze()  # the workers' collector then leaves the inherited objects (and their pages) alone
+        try:
+            pool = ProcessPoolExecutor(max_workers=workers, mp_context=_context(fork))
+            # the first chunks go out before anything is prepared here: forked workers start now
+            while taken < len(bounds) - 1 and in_pool < workers * POOL_AHEAD:
+                chunks[taken] = send(taken)
+                taken += 1
+                in_pool += 1
+            broken = False
+        except OSError:  # no processes to be had here (no semaphores, a process limit): serial
+            pass
+        finally:
+            if fork:
+                gc.unfreeze()
+                _INHERITED_CACHE, _LINT_CACHE = None, None  # the workers have their copy
+    LAST_RUN_CACHE["here"] = time.process_time() - started
+    mine = time.process_time()
+    for options in distinct:
+        prepare(options)  # parse the catalogue and import the checks
+
+    def here(i: int) -> list[Any]:
+        a, b = bounds[i]
+        return [_strip(lint_file(path, options)) for path, options in pairs[a:b]]
+
     try:
-        for done, (a, b) in enumerate(bounds):
-            try:
-                pid, cpu, reports = futures[done].result() if futures else (0, 0.0, None)
-            except BrokenProcessPool:  # a worker died (killed, out of memory)
-                pid, cpu, reports = 0, 0.0, None
-            if reports is None:  # the files not yet reported are linted here: still the serial output
-                for f in futures:
-                    f.cancel()
-                for path, options in rest[a:]:
-                    yield _strip(lint_file(path, options))
-                return
-            LAST_RUN_CACHE["workers"][pid] = LAST_RUN_CACHE["workers"].get(pid, 0.0) + cpu
-            yield from reports
+        for order in range(len(bounds)):
+            got = chunks[order]
+            if isinstance(got, list):
+                held -= 1
+            while not isinstance(got, list):
+                if got is None:  # nobody has it: lint it here
+                    taken = max(taken, order + 1)
+                    got = here(order)
+                    continue
+                if broken:  # sent to a pool that is gone
+                    got, in_pool = here(order), in_pool - 1
+                    continue
+                if not got.done() and taken < len(bounds) and held < HELD_CHUNKS:
+                    chunks[taken] = here(taken)  # a worker has this one: lint a later one meanwhile
+                    taken += 1
+                    held += 1
+                    continue
+                try:
+                    pid, cpu, got = got.result()
+                    LAST_RUN_CACHE["workers"][pid] = LAST_RUN_CACHE["workers"].get(pid, 0.0) + cpu
+                    in_pool -= 1
+                except BrokenProcessPool:  # a worker died (killed, out of memory): lint here
+                    broken = True
+                    for f in chunks:
+                        if f is not None and not isinstance(f, list):
+                            f.cancel()
+            chunks[order] = None
+            while not broken and taken < len(bounds) and in_pool < workers * POOL_AHEAD:
+                chunks[taken] = send(taken)  # keep the pool a few chunks ahead
+                taken += 1
+                in_pool += 1
+            yield from got
     finally:
+        LAST_RUN_CACHE["workers"][os.getpid()] = time.process_time() - mine
         if pool is not None:
             pool.shutdown(wait=True, cancel_futures=True)

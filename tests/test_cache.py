@@ -577,7 +577,7 @@ def _lint_cli(args, folder, *, lean: bool | None = None, monkeypatch=None, **env
 
     called = []
     if lean is not None:
-        real = api.lint
+        real = api.lint_reports
 
         def full_lint(*a, **k):
             called.append(1)
@@ -585,11 +585,11 @@ def _lint_cli(args, folder, *, lean: bool | None = None, monkeypatch=None, **env
                 raise AssertionError("the stored run record was not used")
             return real(*a, **k)
 
-        monkeypatch.setattr(api, "lint", full_lint)
+        monkeypatch.setattr(api, "lint_reports", full_lint)
     result = CliRunner().invoke(app, ["lint", *map(str, args)],
                                 env={"CFGCHECK_CACHE_DIR": str(folder), "NO_COLOR": "1", **env})
     if lean is not None:
-        monkeypatch.setattr(api, "lint", real)
+        monkeypatch.setattr(api, "lint_reports", real)
         assert called == ([] if lean else [1])
     assert result.exception is None or isinstance(result.exception, SystemExit), result.exception
     return result.exit_code, result.stdout_bytes, result.stderr_bytes
@@ -866,7 +866,7 @@ def test_a_run_that_printed_what_a_record_cannot_hold_is_not_recorded(tmp_path, 
     cfg = tmp_path / "run.yaml"
     cfg.write_text(LOW_SCALE)
     folder = tmp_path / "cache"
-    real = api.lint
+    real = api.lint_reports
 
     def lint_and_print(*a, **k):
         if aside.startswith("a warning"):
@@ -876,11 +876,11 @@ def test_a_run_that_printed_what_a_record_cannot_hold_is_not_recorded(tmp_path, 
             sys.stdout.buffer.write(b"raw\n")
         return real(*a, **k)
 
-    monkeypatch.setattr(api, "lint", lint_and_print)
+    monkeypatch.setattr(api, "lint_reports", lint_and_print)
     code, out, err = _lint_cli([cfg, "--no-project"], folder)
     assert (b"raw\n" in out) or (b"a warning" in err)
     assert _run_records(folder) == []
-    monkeypatch.setattr(api, "lint", real)
+    monkeypatch.setattr(api, "lint_reports", real)
     assert _lint_cli([cfg, "--no-project"], folder, lean=False, monkeypatch=monkeypatch)[0] == code
     assert len(_run_records(folder)) == 1
 

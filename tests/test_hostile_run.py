@@ -513,7 +513,7 @@ def test_a_bug_outside_the_rules_is_in_json_with_no_rule(tmp_path):
 @pytest.mark.parametrize("command", ["lint", "derive", "fix"])
 def test_a_bug_in_the_command_itself_is_exit_3(tmp_path, command):
     (tmp_path / "a.yaml").write_text(LORA)
-    target = {"lint": "cfgcheck.render.render", "derive": "cfgcheck.api.derive", "fix": "cfgcheck.api.fix"}[command]
+    target = {"lint": "cfgcheck.render.writer", "derive": "cfgcheck.api.derive", "fix": "cfgcheck.api.fix"}[command]
     code = (f"import cfgcheck.render, cfgcheck.api\nimport {target.rsplit('.', 1)[0]} as m\n"
             f"def boom(*a, **k): raise ValueError('injected')\nm.{target.rsplit('.', 1)[1]} = boom\n")
     result = cli(command, "--no-project", "a.yaml", cwd=tmp_path, code=code)

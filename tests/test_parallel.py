@@ -1,5 +1,6 @@
 """Parallel lint: chunks of files (one round trip per chunk), `--jobs auto`, workers started by
-fork or a fork server, a dead worker or no processes at all: always the serial output."""
+fork or a fork server, a dead worker or no processes at all: always the serial output, with this
+process linting too and holding no more than a bounded window of reports."""
 
 from __future__ import annotations
 
@@ -38,20 +39,16 @@ def _json(reports) -> str:
     return render("json", report, report.findings)
 
 
-@pytest.mark.parametrize("n,workers", [(1, 1), (7, 2), (8, 2), (9, 2), (100, 3), (2000, 2), (5, 16)])
-def test_chunks_cover_the_files_in_order_about_four_per_worker(n, workers):
-    bounds = parallel.chunk_bounds(n, workers)
+@pytest.mark.parametrize("n,processes", [(1, 1), (7, 2), (8, 2), (9, 2), (100, 3), (2000, 2), (5, 16)])
+def test_chunks_cover_the_files_in_order_small_and_even(n, processes):
+    bounds = parallel.chunk_bounds(n, processes)
     assert bounds[0][0] == 0 and bounds[-1][1] == n
     assert all(a[1] == b[0] for a, b in zip(bounds, bounds[1:]))  # contiguous, in order
     sizes = [b - a for a, b in bounds]
-    assert min(sizes) >= 1
-    assert len(bounds) == min(n, workers * parallel.CHUNKS_PER_WORKER)
-
-
-def test_chunks_shrink_so_workers_finish_together():
-    sizes = [b - a for a, b in parallel.chunk_bounds(1999, 2)]
-    assert sizes == sorted(sizes, reverse=True) and sum(sizes) == 1999
-    assert 2.5 <= sizes[0] / sizes[-1] <= 3.5  # the first about three times the last
+    assert min(sizes) >= 1 and max(sizes) <= parallel.CHUNK_FILES
+    assert set(sizes[:-1]) <= {sizes[0]}  # one size, the last chunk what is left
+    # a short run still gives every process chunks of its own
+    assert len(bounds) >= min(n, processes * parallel.CHUNKS_PER_PROCESS)
 
 
 def test_jobs_auto_is_the_usable_cpus_and_serial_for_a_short_run(monkeypatch):
@@ -98,8 +95,35 @@ def test_one_round_trip_per_chunk_not_per_file(tmp_path, monkeypatch):
     _Counting.submitted = 0
     opts = Options()
     parallel_out = _json(engine.lint_files([(f, opts) for f in files], jobs=2))
-    assert _Counting.submitted == 2 * parallel.CHUNKS_PER_WORKER  # 119 files after the first, 8 chunks
+    chunks = len(parallel.chunk_bounds(len(files), 2))
+    assert chunks < len(files) / 4
+    # each chunk is sent to the worker once or linted here; the first always goes out
+    assert 1 <= _Counting.submitted <= chunks
+    assert parallel.LAST_RUN_CACHE["workers"].get(os.getpid(), 0) > 0  # this process linted too
     assert parallel_out == _json(engine.lint_files([(f, opts) for f in files]))
+
+
+def test_a_bounded_window_of_reports_is_held(tmp_path):
+    files = _corpus(tmp_path, 200)
+    opts = Options()
+    pairs = [(f, opts) for f in files]
+    seen = 0
+    most = 0
+    size = parallel.chunk_bounds(len(files), 2)[0][1]
+    for _report in parallel.lint_files_parallel(pairs, 2, lint_file=_counted, prepare=engine.active_rules):
+        seen += 1
+        most = max(most, _LINTED_HERE[0] - seen)
+    window = (parallel.HELD_CHUNKS + 1) * size
+    assert seen == len(files) and most <= window
+
+
+_LINTED_HERE = [0]
+
+
+def _counted(path, options):
+    if os.getpid() == _PARENT:
+        _LINTED_HERE[0] += 1
+    return engine.lint_file(path, options)
 
 
 def test_fork_server_workers_give_the_serial_output(tmp_path, monkeypatch):

@@ -142,7 +142,7 @@ def _keyed_paths(doc) -> list[tuple[tuple, str, str]]:
     out = []
     append = out.append
     for path, entry in doc.entries.items():
-        if not path or entry.key is None:
+        if not path or not entry.keyed:
             continue
         last = path[-1]
         if not isinstance(last, str):

@@ -10,3 +10,11 @@ FORMATS = ("text", "json", "sarif", "github")
 def render(fmt: str, report, visible, **kw) -> str:
     module = importlib.import_module(f"{__name__}.{fmt}")
     return module.render(report, visible, **kw)
+
+
+def writer(fmt: str, **kw):
+    """The format's ``Writer``: ``add(file_report, shown, hidden_info=, frames=)`` for each file
+    in order (after the baseline), then ``finish(write)`` writes the whole output and ``close()``
+    drops what it held (see render/spool.py)."""
+    module = importlib.import_module(f"{__name__}.{fmt}")
+    return module.Writer(**kw)

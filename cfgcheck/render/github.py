@@ -10,7 +10,7 @@ from __future__ import annotations
 from types import MappingProxyType
 
 
-from ..findings import Severity, printable
+from ..findings import Severity, Tally, printable
 from .text import summary_line
 
 COMMAND = MappingProxyType({Severity.ERROR: "error", Severity.WARNING: "warning", Severity.INFO: "notice"})
@@ -32,16 +32,55 @@ def _line(command: str, file: str, line: int, column: int, title: str, message: 
     return f"::{command} {props}::{escape_data(message)}"
 
 
-def render(report, visible, *, hidden_info: int = 0, **_) -> str:
-    lines = []
-    for p in report.problems:
-        lines.append(_line("error", p.file, p.line, p.column, "cfgcheck input error", printable(p.reason)))
-    for f in visible:
+class Writer:
+    """GitHub output written file by file (see ``render.spool``): input errors, the findings
+    shown, internal errors, then the summary line."""
+
+    def __init__(self, **_) -> None:
+        from .spool import Spool
+
+        self.tally = Tally()
+        self.hidden_info = 0
+        self.problems, self.shown, self.internal = Spool(), Spool(), Spool()
+
+    def add(self, fr, shown, *, hidden_info: int = 0, **_) -> None:
+        self.tally.add(fr)
+        self.hidden_info += hidden_info
+        if fr.problem is not None:
+            p = fr.problem
+            self.problems.write(_line("error", p.file, p.line, p.column, "cfgcheck input error",
+                                      printable(p.reason)) + "\n")
+        for f in shown:
+            self.finding(f)
+        for e in fr.internal:
+            self.internal.write(f"::error title={escape_property('cfgcheck internal error')}::"
+                                + escape_data(printable(f"{e.file}: {e.where} failed: {e.error} (a bug in cfgcheck)"))
+                                + "\n")
+
+    def finding(self, f) -> None:
         # each piece printable on its own, so only cfgcheck's own line break separates them
         message = printable(f.message) + (f"\nhint: {printable(f.hint)}" if f.hint else "")
-        lines.append(_line(COMMAND[f.severity], f.file, f.line, f.column, f"cfgcheck {f.rule}", message))
-    for e in report.internal:
-        lines.append(f"::error title={escape_property('cfgcheck internal error')}::"
-                     + escape_data(printable(f"{e.file}: {e.where} failed: {e.error} (a bug in cfgcheck)")))
-    lines.append(summary_line(report, hidden_info))
-    return "\n".join(lines) + "\n"
+        self.shown.write(_line(COMMAND[f.severity], f.file, f.line, f.column, f"cfgcheck {f.rule}", message) + "\n")
+
+    def finish(self, write) -> None:
+        for spool in (self.problems, self.shown, self.internal):
+            for piece in spool.read():
+                write(piece)
+        write(summary_line(self.tally, self.hidden_info) + "\n")
+
+    def close(self) -> None:
+        for spool in (self.problems, self.shown, self.internal):
+            spool.close()
+
+
+def render(report, visible, *, hidden_info: int = 0, **_) -> str:
+    w = Writer()
+    for fr in report.files:
+        w.add(fr, ())
+    for f in visible:
+        w.finding(f)
+    w.hidden_info = hidden_info
+    out: list[str] = []
+    w.finish(out.append)
+    w.close()
+    return "".join(out)

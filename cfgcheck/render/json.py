@@ -3,32 +3,74 @@
 from __future__ import annotations
 
 from .. import __version__
-from ..findings import Severity, json_text
+from ..findings import Severity, Tally
+
+_LISTS = ("findings", "input_errors", "internal_errors", "files", "waived")  # in the document's order
+
+
+class Writer:
+    """The JSON document written file by file (see ``render.spool``)."""
+
+    def __init__(self, **_) -> None:
+        from .spool import JsonItems
+
+        self.tally = Tally()
+        self.lists = {name: JsonItems(indent=2) for name in _LISTS}
+
+    def add(self, fr, shown, **_) -> None:
+        self.tally.add(fr)
+        lists = self.lists
+        for f in shown:
+            lists["findings"].add(f.as_dict())
+        if fr.problem is not None:
+            lists["input_errors"].add(fr.problem.as_dict())
+        for e in fr.internal:
+            lists["internal_errors"].add(e.as_dict())
+        lists["files"].add({"file": fr.file, "layout": fr.layout, "skipped": fr.skipped,
+                            "unreadable": fr.problem is not None})
+        for f, reason, kind in fr.waived:
+            lists["waived"].add(dict(f.as_dict(), reason=reason, waived_by=kind))
+
+    def finding(self, f) -> None:
+        self.lists["findings"].add(f.as_dict())
+
+    def finish(self, write) -> None:
+        from .spool import json_document, spooled
+
+        t = self.tally
+        doc = {
+            "tool": "cfgcheck",
+            "version": __version__,
+            "findings": spooled("findings"),
+            "input_errors": spooled("input_errors"),
+            "internal_errors": spooled("internal_errors"),
+            "files": spooled("files"),
+            "summary": {
+                "checked": t.linted,
+                "skipped": t.skipped,
+                "unreadable": t.problems,
+                "errors": t.count(Severity.ERROR),
+                "warnings": t.count(Severity.WARNING),
+                "info": t.count(Severity.INFO),
+                "waived": t.waived,
+                "baselined": t.baselined,
+            },
+            "waived": spooled("waived"),
+        }
+        json_document(doc, {name: [items] for name, items in self.lists.items()}, write)
+
+    def close(self) -> None:
+        for items in self.lists.values():
+            items.close()
 
 
 def render(report, visible, **_) -> str:
-    doc = {
-        "tool": "cfgcheck",
-        "version": __version__,
-        "findings": [f.as_dict() for f in visible],
-        "input_errors": [p.as_dict() for p in report.problems],
-        "internal_errors": [e.as_dict() for e in report.internal],
-        "files": [
-            {"file": fr.file, "layout": fr.layout, "skipped": fr.skipped,
-             "unreadable": fr.problem is not None}
-            for fr in report.files
-        ],
-        "summary": {
-            "checked": report.linted,
-            "skipped": report.skipped,
-            "unreadable": len(report.problems),
-            "errors": report.count(Severity.ERROR),
-            "warnings": report.count(Severity.WARNING),
-            "info": report.count(Severity.INFO),
-            "waived": report.waived,
-            "baselined": report.baselined,
-        },
-        "waived": [dict(f.as_dict(), reason=reason, waived_by=kind)
-                   for fr in report.files for f, reason, kind in fr.waived],
-    }
-    return json_text(doc) + "\n"
+    w = Writer()
+    for fr in report.files:
+        w.add(fr, ())
+    for f in visible:
+        w.finding(f)
+    out: list[str] = []
+    w.finish(out.append)
+    w.close()
+    return "".join(out)

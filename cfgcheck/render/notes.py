@@ -59,24 +59,47 @@ def _general(reason: str, data) -> tuple[str, list[str]]:
     return (head or reason.strip()), names
 
 
+class NoteTally:
+    """The note groups of a run, kept as its findings go by (file by file)."""
+
+    def __init__(self) -> None:
+        self.groups: dict[tuple[str, str], NoteGroup] = {}
+
+    def add(self, findings) -> None:
+        groups = self.groups
+        for f in findings:
+            if not is_note(f):
+                continue
+            reason, names = _general(str(f.data.get("reason", "")), f.data)
+            g = groups.get((f.rule, reason))
+            if g is None:
+                g = groups[(f.rule, reason)] = NoteGroup(f.rule, reason)
+            g.files.add(f.file)
+            g.names.update(n for n in names if n)
+
+    def summarise(self) -> list[NoteGroup]:
+        """Note groups, most files first, then by rule and reason."""
+        return sorted(self.groups.values(), key=lambda g: (-len(g.files), g.rule, g.reason))
+
+    def lines(self) -> list[str]:
+        """One text line per group."""
+        out = []
+        for g in self.summarise():
+            n = len(g.files)
+            names = f" ({len(g.names)} distinct name{'' if len(g.names) == 1 else 's'})" if g.names else ""
+            out.append(f"not checked: {g.rule} for {n} file{'' if n == 1 else 's'}: {g.reason}{names}")
+        return out
+
+
 def summarise(findings) -> list[NoteGroup]:
     """Note groups, most files first, then by rule and reason."""
-    groups: dict[tuple[str, str], NoteGroup] = {}
-    for f in findings:
-        if not is_note(f):
-            continue
-        reason, names = _general(str(f.data.get("reason", "")), f.data)
-        g = groups.setdefault((f.rule, reason), NoteGroup(f.rule, reason))
-        g.files.add(f.file)
-        g.names.update(n for n in names if n)
-    return sorted(groups.values(), key=lambda g: (-len(g.files), g.rule, g.reason))
+    tally = NoteTally()
+    tally.add(findings)
+    return tally.summarise()
 
 
 def lines(findings) -> list[str]:
     """One text line per group."""
-    out = []
-    for g in summarise(findings):
-        n = len(g.files)
-        names = f" ({len(g.names)} distinct name{'' if len(g.names) == 1 else 's'})" if g.names else ""
-        out.append(f"not checked: {g.rule} for {n} file{'' if n == 1 else 's'}: {g.reason}{names}")
-    return out
+    tally = NoteTally()
+    tally.add(findings)
+    return tally.lines()

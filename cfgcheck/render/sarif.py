@@ -15,7 +15,7 @@ from types import MappingProxyType
 
 from .. import __version__
 from ..catalogue import load_catalogue
-from ..findings import Severity, json_text
+from ..findings import Severity, Tally
 
 SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
 FINGERPRINT = "cfgcheck/identity/v1"
@@ -93,40 +93,77 @@ def _result(f, index: dict[str, int], suppression: dict | None = None) -> dict:
     return out
 
 
-def render(report, visible, *, rules=None, **_) -> str:
-    """``rules``: the catalogue to describe (default: the whole catalogue, sorted by id)."""
-    catalogue = rules if rules is not None else load_catalogue()
-    rules = [catalogue[r] for r in sorted(catalogue)]
-    index = {r.id: i for i, r in enumerate(rules)}
-    results = [_result(f, index) for f in visible]
-    for fr in report.files:
+class Writer:
+    """The SARIF log written file by file (see ``render.spool``). ``rules``: the catalogue to
+    describe (default: the whole catalogue, sorted by id)."""
+
+    def __init__(self, *, rules=None, **_) -> None:
+        from .spool import JsonItems
+
+        catalogue = rules if rules is not None else load_catalogue()
+        self.rules = [catalogue[r] for r in sorted(catalogue)]
+        self.index = {r.id: i for i, r in enumerate(self.rules)}
+        self.tally = Tally()
+        # the run's results (shown, then waived) and notifications (input errors, then internal)
+        self.results, self.waived = JsonItems(indent=6), JsonItems(indent=6)
+        self.problems, self.internal = JsonItems(indent=10), JsonItems(indent=10)
+
+    def add(self, fr, shown, **_) -> None:
+        self.tally.add(fr)
+        for f in shown:
+            self.finding(f)
         for f, reason, kind in fr.waived:
-            results.append(_result(f, index, {
+            self.waived.add(_result(f, self.index, {
                 "kind": "inSource" if kind == "comment" else "external",
                 "status": "accepted",
                 "justification": reason or "(no reason given)",
             }))
-    notifications = []
-    for p in report.problems:
-        notifications.append({
-            "level": "error",
-            "message": {"text": f"input error: {p.reason}"},
-            "locations": [{"physicalLocation": {"artifactLocation": {"uri": uri(p.file)},
-                                                "region": {"startLine": p.line, "startColumn": p.column}}}],
-        })
-    for e in report.internal:
-        notifications.append({
-            "level": "error",
-            "message": {"text": f"internal error in {e.where}: {e.error}"},
-            "locations": [{"physicalLocation": {"artifactLocation": {"uri": uri(e.file)}}}],
-        })
-    run = {
-        "tool": {"driver": {"name": "cfgcheck", "version": __version__,
-                            "semanticVersion": __version__, "rules": [_rule(r) for r in rules]}},
-        "columnKind": "unicodeCodePoints",
-        "invocations": [{"executionSuccessful": not report.internal,
-                         "toolExecutionNotifications": notifications}],
-        "results": results,
-    }
-    doc = {"$schema": SCHEMA_URI, "version": "2.1.0", "runs": [run]}
-    return json_text(doc) + "\n"
+        p = fr.problem
+        if p is not None:
+            self.problems.add({
+                "level": "error",
+                "message": {"text": f"input error: {p.reason}"},
+                "locations": [{"physicalLocation": {"artifactLocation": {"uri": uri(p.file)},
+                                                    "region": {"startLine": p.line, "startColumn": p.column}}}],
+            })
+        for e in fr.internal:
+            self.internal.add({
+                "level": "error",
+                "message": {"text": f"internal error in {e.where}: {e.error}"},
+                "locations": [{"physicalLocation": {"artifactLocation": {"uri": uri(e.file)}}}],
+            })
+
+    def finding(self, f) -> None:
+        self.results.add(_result(f, self.index))
+
+    def finish(self, write) -> None:
+        from .spool import json_document, spooled
+
+        run = {
+            "tool": {"driver": {"name": "cfgcheck", "version": __version__,
+                                "semanticVersion": __version__, "rules": [_rule(r) for r in self.rules]}},
+            "columnKind": "unicodeCodePoints",
+            "invocations": [{"executionSuccessful": not self.tally.internal,
+                             "toolExecutionNotifications": spooled("notifications")}],
+            "results": spooled("results"),
+        }
+        doc = {"$schema": SCHEMA_URI, "version": "2.1.0", "runs": [run]}
+        json_document(doc, {"notifications": [self.problems, self.internal],
+                            "results": [self.results, self.waived]}, write)
+
+    def close(self) -> None:
+        for items in (self.results, self.waived, self.problems, self.internal):
+            items.close()
+
+
+def render(report, visible, *, rules=None, **_) -> str:
+    """``rules``: the catalogue to describe (default: the whole catalogue, sorted by id)."""
+    w = Writer(rules=rules)
+    for fr in report.files:
+        w.add(fr, ())
+    for f in visible:
+        w.finding(f)
+    out: list[str] = []
+    w.finish(out.append)
+    w.close()
+    return "".join(out)

@@ -7,10 +7,9 @@ Options (all off by default, so piped output stays plain): ``color`` (ANSI SGR c
 
 from __future__ import annotations
 
-import re
 from types import MappingProxyType
 
-from ..findings import Severity, printable
+from ..findings import NOT_READ_NAMED, Severity, Tally, printable
 
 _SGR = MappingProxyType({"error": "1;31", "warning": "1;33", "info": "1;36", "where": "1", "rule": "2",
         "hint": "32", "mark": "1;4", "summary": "1"})
@@ -25,35 +24,31 @@ def _paint(text: str, what: str, color: bool) -> str:
     return f"\x1b[{_SGR[what]}m{text}\x1b[0m" if color and text else text
 
 
-_UNREAD = re.compile(r"\(([\w-]+)\): not a format cfgcheck reads \(yet\)$")
-
-
 def summary_line(report, hidden_info: int = 0) -> str:
-    errors = report.count(Severity.ERROR)
-    warnings = report.count(Severity.WARNING)
-    infos = report.count(Severity.INFO)
-    parts = [f"{_plural(report.linted, 'config')} checked"]
-    files = getattr(report, "files", [])
-    unread = sorted({m.group(1) for fr in files if fr.skipped and not fr.problem
-                     and (m := _UNREAD.search(fr.skipped))})
-    unread_count = sum(1 for fr in files if fr.skipped and not fr.problem and _UNREAD.search(fr.skipped))
-    not_read = [fr for fr in files if fr.skipped and not fr.problem and fr.skipped.startswith("not read: ")]
-    if report.skipped - unread_count - len(not_read):
-        parts.append(f"{report.skipped - unread_count - len(not_read)} skipped (not training configs)")
+    """The last line of a run: counts of what was checked, skipped and found. ``report``: a
+    ``findings.Report`` or the ``findings.Tally`` of a run written as it went."""
+    tally = report if isinstance(report, Tally) else Tally.of(report)
+    errors = tally.count(Severity.ERROR)
+    warnings = tally.count(Severity.WARNING)
+    infos = tally.count(Severity.INFO)
+    parts = [f"{_plural(tally.linted, 'config')} checked"]
+    unread_count, not_read = tally.unread_count, tally.not_read_count
+    if tally.skipped - unread_count - not_read:
+        parts.append(f"{tally.skipped - unread_count - not_read} skipped (not training configs)")
     if not_read:  # valid input this version does not follow: named, with why
-        named = "; ".join(f"{fr.file}: {fr.skipped[len('not read: '):]}" for fr in not_read[:3])
-        parts.append(f"{len(not_read)} not read ({named}{'; ...' if len(not_read) > 3 else ''})")
+        named = "; ".join(f"{file}: {why}" for file, why in tally.not_read[:NOT_READ_NAMED])
+        parts.append(f"{not_read} not read ({named}{'; ...' if not_read > NOT_READ_NAMED else ''})")
     if unread_count:
-        parts.append(f"{unread_count} not a format cfgcheck reads (yet): {', '.join(unread)}")
-    if report.problems:
-        parts.append(f"{len(report.problems)} unreadable")
+        parts.append(f"{unread_count} not a format cfgcheck reads (yet): {', '.join(sorted(tally.unread))}")
+    if tally.problems:
+        parts.append(f"{tally.problems} unreadable")
     counts = f"{_plural(errors, 'error')}, {_plural(warnings, 'warning')}, {infos} info"
     line = "cfgcheck: " + ", ".join(parts) + f"; {counts}"
     extra = []
-    if getattr(report, "waived", 0):
-        extra.append(f"{report.waived} waived")
-    if getattr(report, "baselined", 0):
-        extra.append(f"{report.baselined} in the baseline")
+    if tally.waived:
+        extra.append(f"{tally.waived} waived")
+    if tally.baselined:
+        extra.append(f"{tally.baselined} in the baseline")
     if extra:
         line += "; " + ", ".join(extra) + " (not counted)"
     if hidden_info:
@@ -115,40 +110,93 @@ def frame(lines: list[str], line: int, column: int, color: bool = False) -> list
     return [f"    in line {line}: {head}{marked}{tail}"]
 
 
+class Writer:
+    """Text output written file by file (see ``render.spool``): input errors, then the findings
+    shown, then internal errors, the "not checked" notes and the summary line."""
+
+    def __init__(self, *, color: bool = False, frames: dict[str, list[str]] | None = None,
+                 mode: str = "full", **_) -> None:
+        from .notes import NoteTally
+        from .spool import Spool
+
+        self.color, self.frames, self.mode = color, frames, mode
+        self.tally = Tally()
+        self.notes = NoteTally()
+        self.hidden_info = 0
+        self.problems, self.shown, self.internal = Spool(), Spool(), Spool()
+
+    def add(self, fr, shown, *, hidden_info: int = 0, frames: dict[str, list[str]] | None = None) -> None:
+        """One file's report (its findings after the baseline) and the findings of it to print;
+        ``frames``: the lines of the files those findings are in (else the writer's own)."""
+        self.tally.add(fr)
+        self.hidden_info += hidden_info
+        if self.mode == "summary":
+            return
+        color = self.color
+        if fr.problem is not None:
+            p = fr.problem
+            self.problems.write(f"{_paint(f'{printable(p.file)}:{p.line}:{p.column}:', 'where', color)} "
+                                f"{_paint('input error', 'error', color)}: {printable(p.reason)}\n")
+        for f in shown:
+            self.finding(f, frames)
+        for e in fr.internal:
+            rest = "the other rules ran" if e.rule else "the other files were checked"
+            self.internal.write(f"{printable(e.file)}: internal error in {e.where}: {printable(e.error)} "
+                                f"(a bug in cfgcheck; {rest})\n")
+        if self.mode != "quiet":
+            self.notes.add(fr.findings)
+
+    def finding(self, f, frames: dict[str, list[str]] | None = None) -> None:
+        # every text that comes from a file (names, keys, values inside messages) goes through
+        # printable(): a key holding a line break cannot print a line that looks like a finding
+        if self.mode == "summary":
+            return
+        color = self.color
+        word = f.severity.word
+        lines = [f"{_paint(f'{printable(f.file)}:{f.line}:{f.column}:', 'where', color)} "
+                 f"{_paint(word, word, color)}: {printable(f.message)} "
+                 f"{_paint(f'[{f.rule}]', 'rule', color)}"]
+        if self.mode != "quiet":
+            frames = frames if frames is not None else self.frames
+            if frames is not None and f.file in frames:
+                lines.extend(frame(frames[f.file], f.line, f.column, color))
+            for r in getattr(f, "related", ()):
+                lines.append(f"    also: {_paint(f'{f.file}:{r.line}:{r.column}:', 'where', color)} {r.key}")
+            if f.hint:
+                lines.append(f"    {_paint('hint', 'hint', color)}: {printable(f.hint)}")
+            if isinstance(f.data.get("overrides"), str):  # a composed config: which file won
+                lines.append(f"    composed: {printable(f.data['overrides'])}")
+            if isinstance(f.data.get("sweep"), str):  # a sweep: which of its runs
+                lines.append(f"    sweep: {printable(f.data['sweep'])}")
+        self.shown.write("\n".join(lines) + "\n")
+
+    def finish(self, write) -> None:
+        """Write the whole output with ``write(text)`` (called with pieces)."""
+        if self.mode == "summary":
+            write(summary_line(self.tally, self.hidden_info) + "\n")
+            return
+        for spool in (self.problems, self.shown, self.internal):
+            for piece in spool.read():
+                write(piece)
+        if self.mode != "quiet":
+            tail = [f"cfgcheck: {line}" for line in self.notes.lines()]
+            tail.append(_paint(summary_line(self.tally, self.hidden_info), "summary", self.color))
+            write("\n".join(tail) + "\n")
+
+    def close(self) -> None:
+        for spool in (self.problems, self.shown, self.internal):
+            spool.close()
+
+
 def render(report, visible, *, hidden_info: int = 0, color: bool = False,
            frames: dict[str, list[str]] | None = None, mode: str = "full", **_) -> str:
-    if mode == "summary":
-        return summary_line(report, hidden_info) + "\n"
-    lines: list[str] = []
-    # every text that comes from a file (names, keys, values inside messages) goes through
-    # printable(): a key holding a line break cannot print a line that looks like a finding
-    for p in report.problems:
-        lines.append(f"{_paint(f'{printable(p.file)}:{p.line}:{p.column}:', 'where', color)} "
-                     f"{_paint('input error', 'error', color)}: {printable(p.reason)}")
+    w = Writer(color=color, frames=frames, mode=mode)
+    for fr in report.files:
+        w.add(fr, ())
     for f in visible:
-        word = f.severity.word
-        lines.append(f"{_paint(f'{printable(f.file)}:{f.line}:{f.column}:', 'where', color)} "
-                     f"{_paint(word, word, color)}: {printable(f.message)} "
-                     f"{_paint(f'[{f.rule}]', 'rule', color)}")
-        if mode == "quiet":
-            continue
-        if frames is not None and f.file in frames:
-            lines.extend(frame(frames[f.file], f.line, f.column, color))
-        for r in getattr(f, "related", ()):
-            lines.append(f"    also: {_paint(f'{f.file}:{r.line}:{r.column}:', 'where', color)} {r.key}")
-        if f.hint:
-            lines.append(f"    {_paint('hint', 'hint', color)}: {printable(f.hint)}")
-        if isinstance(f.data.get("overrides"), str):  # a composed config: which file won
-            lines.append(f"    composed: {printable(f.data['overrides'])}")
-        if isinstance(f.data.get("sweep"), str):  # a sweep: which of its runs
-            lines.append(f"    sweep: {printable(f.data['sweep'])}")
-    for e in report.internal:
-        rest = "the other rules ran" if e.rule else "the other files were checked"
-        lines.append(f"{printable(e.file)}: internal error in {e.where}: {printable(e.error)} "
-                     f"(a bug in cfgcheck; {rest})")
-    if mode != "quiet":
-        from .notes import lines as note_lines  # "not checked" notes, counted per run
-
-        lines.extend(f"cfgcheck: {line}" for line in note_lines(report.findings))
-        lines.append(_paint(summary_line(report, hidden_info), "summary", color))
-    return "\n".join(lines) + "\n" if lines else ""
+        w.finding(f)
+    w.hidden_info = hidden_info
+    out: list[str] = []
+    w.finish(out.append)
+    w.close()
+    return "".join(out)
