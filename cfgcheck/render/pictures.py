@@ -8,6 +8,7 @@ shapes are simple, and ``lint`` never imports this module). ``schedule_series`` 
 
 from __future__ import annotations
 
+import bisect
 import math
 from dataclasses import dataclass, field
 
@@ -99,20 +100,34 @@ def _lr_text(lr: float | None) -> str:
     return "-" if lr is None else f"{lr:.3g}"
 
 
+def _column_peaks(steps: list[int], values: list[float], total: int) -> list[float]:
+    """Per plot column, the highest multiplier among the sampled steps it covers (the steps s
+    with ``col * total / WIDTH <= s < (col + 1) * total / WIDTH``); a column that covers none
+    (fewer sampled steps than columns) takes the step nearest its start. One pass over the
+    samples: each falls in the column whose start is the last at or below it."""
+    bounds = [col * total / WIDTH for col in range(WIDTH + 1)]
+    covered: list[list[float]] = [[] for _ in range(WIDTH)]
+    for s, v in zip(steps, values):
+        col = bisect.bisect_right(bounds, s) - 1
+        if 0 <= col < WIDTH:
+            covered[col].append(v)
+    cols: list[float] = []
+    for col, vals in enumerate(covered):
+        if not vals:
+            lo = bounds[col]
+            i = min(range(len(steps)), key=lambda k: abs(steps[k] - lo))
+            vals = [values[i]]
+        cols.append(max(vals))
+    return cols
+
+
 def schedule_picture(plan: Plan) -> list[str]:
     series, why = schedule_series(plan)
     if series is None:
         return [f"learning rate: not drawn: {why}"]
     c = series.curve
     total = c.total_steps
-    cols: list[float] = []
-    for col in range(WIDTH):  # the highest multiplier among the steps a column covers
-        lo, hi = col * total / WIDTH, (col + 1) * total / WIDTH
-        vals = [v for s, v in zip(c.steps, c.values) if lo <= s < hi]
-        if not vals:  # fewer sampled steps than columns: take the nearest one
-            i = min(range(len(c.steps)), key=lambda k: abs(c.steps[k] - lo))
-            vals = [c.values[i]]
-        cols.append(max(vals))
+    cols = _column_peaks(c.steps, c.values, total)
     top = max(cols) or 1.0
     peak = c.base_lr * top if c.base_lr is not None else None
     head = (f"learning rate over {total:,} optimizer steps: {series.scheduler_note}"
@@ -120,11 +135,10 @@ def schedule_picture(plan: Plan) -> list[str]:
             + (f", peak {_lr_text(peak)}" if peak is not None else " (multiplier of the base rate)"))
     lines = [head]
     label_w = max(len(_lr_text(peak)), 1) + 1
+    heights = [round(v / top * HEIGHT * 8) for v in cols]  # in eighths of a row
     for row in range(HEIGHT - 1, -1, -1):
-        cells = []
-        for v in cols:
-            eighths = round(v / top * HEIGHT * 8) - row * 8
-            cells.append(_EIGHTHS[max(0, min(8, eighths))])
+        floor = row * 8
+        cells = [_EIGHTHS[max(0, min(8, h - floor))] for h in heights]
         label = _lr_text(peak) if row == HEIGHT - 1 else ("0" if row == 0 else "")
         lines.append(f"{label:>{label_w}} |{''.join(cells)}")
     if c.ignored_warmup:
