@@ -126,3 +126,27 @@ def test_the_column_peaks_are_those_of_their_definition_for_short_and_long_runs(
             c = curve(kind, total_steps=total, warmup_steps=warmup, base_lr=2e-4,
                       kwargs={"num_cycles": 3} if kind == "cosine_with_restarts" else None, sample=WIDTH * 8)
             assert _column_peaks(c.steps, c.values, total) == _peaks_by_definition(c.steps, c.values, total), (kind, total)
+
+
+def test_configs_of_one_run_sharing_a_schedule_compute_its_curve_once_and_draw_their_own_copy(tmp_path, monkeypatch):
+    from dataclasses import replace
+
+    from cfgcheck import memo
+    from cfgcheck.render import pictures
+
+    calls = []
+    monkeypatch.setattr(pictures, "curve", lambda *a, **k: calls.append(k) or curve(*a, **k))
+    plan = _plan(tmp_path, rows=20000)
+    with memo.scope():
+        first, _ = schedule_series(plan)
+        second, _ = schedule_series(replace(plan))
+        assert len(calls) == 1  # the same kind, steps, warm-up, rate and keywords: once
+        assert first.curve == second.curve and first.curve.values is not second.curve.values
+        first.curve.values[0] = 99.0  # one picture's copy is its own
+        assert second.curve.values[0] != 99.0
+        # a rate that differs only in its type or sign is another curve
+        schedule_series(replace(plan, learning_rate=-0.0))
+        schedule_series(replace(plan, learning_rate=0.0))
+        assert len(calls) == 3
+    schedule_series(plan)  # outside a run nothing is remembered
+    assert len(calls) == 4

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import bisect
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from ..lrcurve import Curve, curve, schedule_kind
 from ..plan import Plan
@@ -68,6 +68,24 @@ def _events(plan: Plan, what: str, total: int) -> tuple[list[int], str]:
     return steps, f"every {every:,} steps"
 
 
+def _curve(kind: str, total: int, warmup: int, base_lr: float | None, kwargs: dict) -> Curve:
+    """``lrcurve.curve`` sampled for a picture, worked out once per run for the same arguments
+    (cfgcheck.memo: the configs of one recipe share their schedule); each caller gets its own
+    copy. The arguments are told apart by their ``repr`` (1, 1.0 and True, 0.0 and -0.0 differ)."""
+    from ..memo import remembered
+
+    def compute() -> Curve:
+        return curve(kind, total_steps=total, warmup_steps=warmup, base_lr=base_lr, kwargs=kwargs,
+                     sample=WIDTH * 8)
+
+    try:
+        key = repr((kind, total, warmup, base_lr, kwargs))
+    except Exception:  # noqa: BLE001 - a value that cannot say what it is: no sharing
+        return compute()
+    c = remembered("lr_curve", key, compute)
+    return replace(c, steps=list(c.steps), values=list(c.values), notes=list(c.notes))
+
+
 def schedule_series(plan: Plan) -> tuple[Series | None, str | None]:
     """The curve of a plan, or why it cannot be drawn."""
     total = plan.schedule.total_steps if plan.schedule else None
@@ -79,8 +97,7 @@ def schedule_series(plan: Plan) -> tuple[Series | None, str | None]:
         return None, f"the schedule {written!r} is not one cfgcheck can draw"
     note = f"{kind} (written)" if written else "linear (not written: the transformers default, assumed)"
     try:
-        c = curve(kind, total_steps=total, warmup_steps=plan.warmup_steps or 0,
-                  base_lr=plan.learning_rate, kwargs=plan.scheduler_kwargs, sample=WIDTH * 8)
+        c = _curve(kind, total, plan.warmup_steps or 0, plan.learning_rate, plan.scheduler_kwargs)
     except (ValueError, TypeError, ZeroDivisionError, OverflowError) as exc:
         return None, f"the {kind} schedule cannot be built from this config: {exc}"
     s = Series(curve=c, scheduler_note=note)
