@@ -116,7 +116,7 @@ def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = F
     context (``Options.script``); with ``scripts`` the scripts themselves are listed too."""
     import dataclasses
 
-    from .scripts import find_scripts, pairings
+    from .scriptfiles import find_scripts
 
     proj = _project(project, paths)
     if proj is None:
@@ -129,6 +129,8 @@ def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = F
         files = proj.expand(roots)
         base = lambda file: proj.options_for(file, given)  # noqa: E731
     found = find_scripts(roots)
+    if found:
+        from .scripts import pairings
     paired = pairings(found) if found else {}
 
     def options_for(file: str) -> Options:
@@ -142,7 +144,7 @@ def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = F
         listed = {os.path.normpath(f) for f, _ in files}
         files = files + [(s, None) for s in found if os.path.normpath(s) not in listed]
     else:
-        from .scripts import SCRIPT_SUFFIXES
+        from .scriptfiles import SCRIPT_SUFFIXES
 
         files = [(f, skip) for f, skip in files if not f.lower().endswith(SCRIPT_SUFFIXES)]
     return files, options_for, proj

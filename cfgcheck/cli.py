@@ -2,16 +2,30 @@
 
 from __future__ import annotations
 
+import functools
 import sys
 from enum import Enum
 from pathlib import Path
 from typing import List, Optional
 
-import typer
-
 from . import __version__
+from .cliparams import Argument, Option, Program, typer_app
 
-app = typer.Typer(
+
+class _Typer:
+    """typer, imported on first use: the commands it runs use it, while a ``lint`` command line
+    read by ``fastcli`` never loads it (typer costs more to start than a lint of one file)."""
+
+    def __getattr__(self, name: str):
+        import typer as module
+
+        return getattr(module, name)
+
+
+typer = _Typer()
+
+# the commands are declared typer-free (cliparams); typer's app is made from them when needed
+commands = Program(
     add_completion=True,
     no_args_is_help=True,
     help="cfgcheck: finds the mistakes in fine-tuning configs (LoRA, QLoRA, full, DeepSpeed) before the GPU run.",
@@ -58,9 +72,9 @@ def _complete_rule(incomplete: str) -> list[str]:
     return [r for r in sorted(load_catalogue()) if r.startswith(incomplete)]
 
 
-@app.callback()
+@commands.callback()
 def main_options(
-    version: bool = typer.Option(False, "--version", callback=_version, is_eager=True,
+    version: bool = Option(False, "--version", callback=_version, is_eager=True,
                                  help="Print the version and exit."),
 ) -> None:
     pass
@@ -106,8 +120,8 @@ class _Progress:
 
 
 def _fail(message: str, code: int) -> None:
-    typer.echo(message, err=True)
-    raise typer.Exit(code)
+    _write_err(message + "\n")
+    raise SystemExit(code)
 
 
 def _input_errors() -> tuple:
@@ -131,6 +145,12 @@ def _input_message(exc: Exception) -> str:
     return f"cfgcheck: {printable(str(exc))}"
 
 
+def _typer_way_out(exc: Exception) -> bool:
+    """typer.Exit or typer.Abort (only a command typer runs can raise them)."""
+    module = sys.modules.get("typer")
+    return module is not None and isinstance(exc, (module.Exit, module.Abort))
+
+
 def _crash_boundary(command):
     """Around a command: a bug anywhere outside a rule (or a file's own boundary in the engine)
     ends as an internal error, exit 3, one line, never a traceback unless --debug asks."""
@@ -140,10 +160,8 @@ def _crash_boundary(command):
     def guarded(*args, **kwargs):
         try:
             return command(*args, **kwargs)
-        except (typer.Exit, typer.Abort):  # the command's own way out
-            raise
         except Exception as exc:
-            if kwargs.get("debug"):
+            if _typer_way_out(exc) or kwargs.get("debug"):  # typer.Exit / Abort: the command's own way out
                 raise
             from .engine import internal_error
             from .findings import printable
@@ -151,7 +169,7 @@ def _crash_boundary(command):
             e = internal_error("", None, exc)
             hint = "run again with --debug for the traceback" if "debug" in kwargs else "please report it"
             _write_err(f"cfgcheck: internal error: {printable(e.error)} (a bug in cfgcheck; {hint})\n")
-            raise typer.Exit(3) from None
+            raise SystemExit(3) from None
 
     return guarded
 
@@ -195,43 +213,43 @@ def _frames(report, shown) -> dict[str, list[str]]:
     return out
 
 
-@app.command()
+@commands.command()
 @_crash_boundary
 def lint(
-    paths: Optional[List[Path]] = typer.Argument(
+    paths: Optional[List[Path]] = Argument(
         None, help="Config files or folders (YAML and JSON inside are checked). "
                    "Default: the project's configs (from the project root), else the working folder."),
-    gpu: Optional[str] = typer.Option(None, "--gpu", autocompletion=_complete_gpu,
+    gpu: Optional[str] = Option(None, "--gpu", autocompletion=_complete_gpu,
                                       help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
-    gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
-    rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
-    installed: Optional[List[str]] = typer.Option(None, "--installed", metavar="LIBRARY==VERSION",
+    gpus: Optional[int] = Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
+    rows: Optional[int] = Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    installed: Optional[List[str]] = Option(None, "--installed", metavar="LIBRARY==VERSION",
                                                   help="A library release the run uses, e.g. trl==0.12.2 (repeat for several; wins over the pins found beside the config)."),
-    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
-    only: Optional[List[str]] = typer.Option(None, "--only", autocompletion=_complete_rule,
+    launch: Optional[List[Path]] = Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
+    only: Optional[List[str]] = Option(None, "--only", autocompletion=_complete_rule,
                                              help="Run only this rule (repeat for several)."),
-    skip: Optional[List[str]] = typer.Option(None, "--skip", autocompletion=_complete_rule,
+    skip: Optional[List[str]] = Option(None, "--skip", autocompletion=_complete_rule,
                                                   help="Do not run this rule (repeat for several)."),
-    severity: Optional[List[str]] = typer.Option(None, "--severity", metavar="RULE=LEVEL",
+    severity: Optional[List[str]] = Option(None, "--severity", metavar="RULE=LEVEL",
                                                  help="Report a rule at another severity, e.g. lora-scale-below-one=error."),
-    fmt: Format = typer.Option(Format.text, "--format", help="Output format: text, json, sarif (SARIF 2.1.0) or github (workflow-command annotations)."),
-    show: Optional[Level] = typer.Option(None, "--show", help="Lowest severity printed in text and github output (default: warning)."),
-    gate: Optional[Level] = typer.Option(None, "--gate", help="Lowest severity that makes the exit status 1 (default: warning)."),
-    project: Optional[Path] = typer.Option(None, "--project", help="Project file to use instead of searching for cfgcheck.yaml / pyproject.toml."),
-    no_project: bool = typer.Option(False, "--no-project", help="Ignore project files."),
-    baseline: Optional[Path] = typer.Option(None, "--baseline", help="Leave out the findings recorded in this baseline file."),
-    save_baseline: Optional[Path] = typer.Option(None, "--save-baseline", help="Record the current findings in this file and exit 0."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="Text output: only the finding lines, nothing when clean."),
-    summary: bool = typer.Option(False, "--summary", help="Text output: only the summary line."),
-    frame: Optional[bool] = typer.Option(None, "--frame/--no-frame", help="Text output: print the offending line with its value set off by >> << (default: on a terminal)."),
-    debug: bool = typer.Option(False, "--debug", help="Re-raise an error inside a rule instead of reporting it."),
-    jobs: str = typer.Option("1", "--jobs", "-j", metavar="N|auto",
+    fmt: Format = Option(Format.text, "--format", help="Output format: text, json, sarif (SARIF 2.1.0) or github (workflow-command annotations)."),
+    show: Optional[Level] = Option(None, "--show", help="Lowest severity printed in text and github output (default: warning)."),
+    gate: Optional[Level] = Option(None, "--gate", help="Lowest severity that makes the exit status 1 (default: warning)."),
+    project: Optional[Path] = Option(None, "--project", help="Project file to use instead of searching for cfgcheck.yaml / pyproject.toml."),
+    no_project: bool = Option(False, "--no-project", help="Ignore project files."),
+    baseline: Optional[Path] = Option(None, "--baseline", help="Leave out the findings recorded in this baseline file."),
+    save_baseline: Optional[Path] = Option(None, "--save-baseline", help="Record the current findings in this file and exit 0."),
+    quiet: bool = Option(False, "--quiet", "-q", help="Text output: only the finding lines, nothing when clean."),
+    summary: bool = Option(False, "--summary", help="Text output: only the summary line."),
+    frame: Optional[bool] = Option(None, "--frame/--no-frame", help="Text output: print the offending line with its value set off by >> << (default: on a terminal)."),
+    debug: bool = Option(False, "--debug", help="Re-raise an error inside a rule instead of reporting it."),
+    jobs: str = Option("1", "--jobs", "-j", metavar="N|auto",
                              help="Lint files in N processes, or auto: one per usable CPU (a short run stays serial). Output order stays the same."),
-    override: Optional[List[str]] = typer.Option(None, "--override", metavar="KEY=VALUE",
+    override: Optional[List[str]] = Option(None, "--override", metavar="KEY=VALUE",
                                                  help="A key=value override the launch passes to the config's loader (repeatable), applied over the composed config."),
-    sarif_not_checked: bool = typer.Option(False, "--sarif-not-checked",
+    sarif_not_checked: bool = Option(False, "--sarif-not-checked",
                                            help="SARIF output: also carry the 'not checked' notes (rules that lacked the GPU, model or row count); left out by default."),
-    no_cache: bool = typer.Option(False, "--no-cache",
+    no_cache: bool = Option(False, "--no-cache",
                                   help="Lint every file afresh and leave the result cache alone. By default a file whose bytes, linked files, options and cfgcheck release are unchanged reuses its stored result (folder: $CFGCHECK_CACHE_DIR, else the user cache folder)."),
 ) -> None:
     """Check training configs and report what would waste the run."""
@@ -310,7 +328,7 @@ def lint(
         for e in report.internal:
             _write_err(f"{printable(e.file)}: internal error in {e.where}: {printable(e.error)} "
                        "(a bug in cfgcheck)\n")
-        raise typer.Exit(api.EXIT_INPUT if report.problems else
+        raise SystemExit(api.EXIT_INPUT if report.problems else
                          api.EXIT_INTERNAL if report.internal else api.EXIT_CLEAN)
 
     level = Severity.parse((show.value if show else None) or (proj.show.word if proj and proj.show else "warning"))
@@ -334,20 +352,20 @@ def lint(
             out = render("text", report, shown, hidden_info=hidden, color=tty_color, frames=frames,
                          mode=mode)
     _write(out)
-    raise typer.Exit(api.exit_code(report, fail_on))
+    raise SystemExit(api.exit_code(report, fail_on))
 
 
-@app.command("derive")
+@commands.command("derive")
 @_crash_boundary
 def derive(
-    paths: List[Path] = typer.Argument(..., help="Config files or folders."),
-    gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use (see: cfgcheck gpus)."),
-    gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
-    rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows."),
-    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
-    fmt: PlanFormat = typer.Option(PlanFormat.text, "--format", help="Output format."),
-    no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (their hardware profiles)."),
-    pictures: bool = typer.Option(True, "--pictures/--no-pictures", help="Text output: draw the learning rate over the steps (with evaluation, checkpoint and logging marks) and the memory per GPU as a bar."),
+    paths: List[Path] = Argument(..., help="Config files or folders."),
+    gpu: Optional[str] = Option(None, "--gpu", help="The GPU the run will use (see: cfgcheck gpus)."),
+    gpus: Optional[int] = Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
+    rows: Optional[int] = Option(None, "--rows", min=1, help="Number of training rows."),
+    launch: Optional[List[Path]] = Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
+    fmt: PlanFormat = Option(PlanFormat.text, "--format", help="Output format."),
+    no_project: bool = Option(False, "--no-project", help="Ignore project files (their hardware profiles)."),
+    pictures: bool = Option(True, "--pictures/--no-pictures", help="Text output: draw the learning rate over the steps (with evaluation, checkpoint and logging marks) and the memory per GPU as a bar."),
 ) -> None:
     """Show the derived run: parameters, batch, steps and the memory estimate per GPU."""
     from . import api
@@ -380,19 +398,19 @@ def derive(
                      api.EXIT_INTERNAL if result.internal else api.EXIT_CLEAN)
 
 
-@app.command()
+@commands.command()
 @_crash_boundary
 def fix(
-    paths: List[Path] = typer.Argument(..., help="Config files or folders to fix in place."),
-    diff: bool = typer.Option(False, "--diff", help="Print a unified diff of the fixes; write nothing."),
-    no_write: bool = typer.Option(False, "--no-write", help="Write nothing; exit 1 when a fix would change a file (for CI and pre-commit)."),
-    training: bool = typer.Option(False, "--allow-training-changes", help="Also apply fixes that change the training outcome (alpha, learning rate, precision, trainable modules, batch)."),
-    halve_batch: int = typer.Option(0, "--halve-batch", count=True, help="Halve the per-device batch and double gradient accumulation (same effective batch); repeat to halve again (-> a quarter, ...)."),
-    gpu: Optional[str] = typer.Option(None, "--gpu", help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
-    gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
-    rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
-    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
-    no_project: bool = typer.Option(False, "--no-project", help="Ignore project files (hardware profiles, rule selection, waivers)."),
+    paths: List[Path] = Argument(..., help="Config files or folders to fix in place."),
+    diff: bool = Option(False, "--diff", help="Print a unified diff of the fixes; write nothing."),
+    no_write: bool = Option(False, "--no-write", help="Write nothing; exit 1 when a fix would change a file (for CI and pre-commit)."),
+    training: bool = Option(False, "--allow-training-changes", help="Also apply fixes that change the training outcome (alpha, learning rate, precision, trainable modules, batch)."),
+    halve_batch: int = Option(0, "--halve-batch", count=True, help="Halve the per-device batch and double gradient accumulation (same effective batch); repeat to halve again (-> a quarter, ...)."),
+    gpu: Optional[str] = Option(None, "--gpu", help="The GPU the run will use, e.g. a100-80gb, t4 (see: cfgcheck gpus)."),
+    gpus: Optional[int] = Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
+    rows: Optional[int] = Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    launch: Optional[List[Path]] = Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several): GPUs, sharding, offload and mixed precision come from it."),
+    no_project: bool = Option(False, "--no-project", help="Ignore project files (hardware profiles, rule selection, waivers)."),
 ) -> None:
     """Rewrite the values rules can fix, in place, keeping every other byte; each rewrite is proven first."""
     from . import api
@@ -433,16 +451,16 @@ def _write(out: str) -> None:
     sys.stdout.flush()
 
 
-@app.command("report")
+@commands.command("report")
 @_crash_boundary
 def report_html(
-    paths: List[Path] = typer.Argument(..., help="Config files or folders."),
-    out: Path = typer.Option(Path("cfgcheck-report.html"), "--out", "-o", help="The HTML file to write."),
-    gpu: Optional[str] = typer.Option(None, "--gpu", autocompletion=_complete_gpu, help="The GPU the run will use (see: cfgcheck gpus)."),
-    gpus: Optional[int] = typer.Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
-    rows: Optional[int] = typer.Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
-    launch: Optional[List[Path]] = typer.Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several)."),
-    no_project: bool = typer.Option(False, "--no-project", help="Ignore project files."),
+    paths: List[Path] = Argument(..., help="Config files or folders."),
+    out: Path = Option(Path("cfgcheck-report.html"), "--out", "-o", help="The HTML file to write."),
+    gpu: Optional[str] = Option(None, "--gpu", autocompletion=_complete_gpu, help="The GPU the run will use (see: cfgcheck gpus)."),
+    gpus: Optional[int] = Option(None, "--gpus", min=1, help="Number of GPUs in the whole job."),
+    rows: Optional[int] = Option(None, "--rows", min=1, help="Number of training rows, when the config does not say."),
+    launch: Optional[List[Path]] = Option(None, "--launch", metavar="FILE", help="An accelerate config or DeepSpeed JSON the run is started with (repeat for several)."),
+    no_project: bool = Option(False, "--no-project", help="Ignore project files."),
 ) -> None:
     """Write one self-contained HTML file: each config's findings, its derived run and two pictures."""
     import os
@@ -474,7 +492,7 @@ def report_html(
                      api.EXIT_INTERNAL if report.internal else api.EXIT_CLEAN)
 
 
-@app.command("editor-server")
+@commands.command("editor-server")
 def editor_server() -> None:
     """Run the language server for editors over stdio (findings as you type, fixes, hover, completion)."""
     try:
@@ -487,7 +505,7 @@ def editor_server() -> None:
     serve()
 
 
-@app.command("rules")
+@commands.command("rules")
 def list_rules() -> None:
     """List every rule in the catalogue with its default severity, summary and first source."""
     from .catalogue import load_catalogue
@@ -514,8 +532,8 @@ def _describe_layouts(names: list[str]) -> None:
             typer.echo(f"  {fmt.name}: {fmt.title}")
 
 
-@app.command()
-def describe(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck rules`, a layout name, or `layouts` for every layout.")) -> None:
+@commands.command()
+def describe(rule_id: str = Argument(..., help="A rule id from `cfgcheck rules`, a layout name, or `layouts` for every layout.")) -> None:
     """Show one rule's catalogue entry (why, thresholds, sources, examples), or what a layout reads."""
     import difflib
 
@@ -551,9 +569,9 @@ def describe(rule_id: str = typer.Argument(..., help="A rule id from `cfgcheck r
             typer.echo("  " + ex["text"].rstrip("\n").replace("\n", "\n  "))
 
 
-@app.command()
+@commands.command()
 def schema(
-    layout: Optional[str] = typer.Option(None, "--layout", help="A schema for config files of this layout (trainer, axolotl, llama-factory, torchtune, accelerate, deepspeed, peft-adapter, ...) instead of the typed view."),
+    layout: Optional[str] = Option(None, "--layout", help="A schema for config files of this layout (trainer, axolotl, llama-factory, torchtune, accelerate, deepspeed, peft-adapter, ...) instead of the typed view."),
 ) -> None:
     """Print the JSON Schema of the typed view (or of one layout's config files) for editors."""
     from . import schema as schemamod
@@ -580,7 +598,7 @@ def _project_here():
         raise typer.Exit(2)
 
 
-@app.command()
+@commands.command()
 def gpus() -> None:
     """List the GPU names --gpu accepts, with compute capability, memory and where each entry comes from."""
     from .knowledge.hardware import ALIASES, GPUS
@@ -593,11 +611,11 @@ def gpus() -> None:
         typer.echo(f"{g.name:<10} {g.label:<18} cc {g.capability_text:<5} {g.memory_gb:>4.0f} GB{extra}  [{g.source}]")
 
 
-@app.command()
+@commands.command()
 def models(
-    family: Optional[str] = typer.Option(None, "--family", help="Only this model family (transformers model_type)."),
-    ids: bool = typer.Option(False, "--ids", help="Also list every other id that names the same shape."),
-    modules: bool = typer.Option(False, "--modules", help="Also list the module names LoRA can target, per layer."),
+    family: Optional[str] = Option(None, "--family", help="Only this model family (transformers model_type)."),
+    ids: bool = Option(False, "--ids", help="Also list every other id that names the same shape."),
+    modules: bool = Option(False, "--modules", help="Also list the module names LoRA can target, per layer."),
 ) -> None:
     """List the models known offline: the project's own, then the bundled catalogue, with their sources."""
     from .knowledge.models import catalogue_entries, linear_modules, total_parameters
@@ -626,19 +644,32 @@ def models(
             typer.echo(f"{'':<4}modules: {', '.join(linear_modules(a))}")
 
 
+@functools.lru_cache(maxsize=None)
+def _app():
+    return typer_app(commands)
+
+
+def __getattr__(name: str):
+    if name == "app":  # typer's app (tests, completion): made on first use
+        return _app()
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
 def main() -> None:
     from .fastcli import direct_arguments
     from .memo import scope
 
     with scope():  # one command is one run: a folder's surroundings are looked up once
-        kwargs = direct_arguments(sys.argv[1:], "lint", lint)  # plain `lint` lines skip typer's set-up
+        kwargs = direct_arguments(sys.argv[1:], "lint", lint)  # plain `lint` lines skip typer
         if kwargs is not None:
             try:
-                lint(**kwargs)
-            except typer.Exit as exc:
-                sys.exit(exc.exit_code)
+                lint(**kwargs)  # ends in SystemExit with the exit status
+            except Exception as exc:
+                if not _typer_way_out(exc):
+                    raise
+                sys.exit(getattr(exc, "exit_code", 1))  # a typer.Exit raised on this path too
             sys.exit(0)
-        app()
+        _app()()
 
 
 if __name__ == "__main__":

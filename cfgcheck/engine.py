@@ -7,7 +7,6 @@ user's overrides. Locations come from the document, never from a check.
 from __future__ import annotations
 
 import os
-import traceback
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Iterator
@@ -274,6 +273,8 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport,
 
 def internal_error(file: str, rule: str | None, exc: BaseException) -> InternalError:
     """A bug in cfgcheck as a record: the exception, its message and where it was raised."""
+    import traceback
+
     frames = traceback.extract_tb(exc.__traceback__)
     at = f" ({Path(frames[-1].filename).name}:{frames[-1].lineno})" if frames else ""
     try:
@@ -509,7 +510,7 @@ def _lint_overridden_configs(sl, options: Options, report: FileReport) -> bool:
 def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
     options = options or Options()
     name = str(path)
-    from .scripts import SCRIPT_SUFFIXES
+    from .scriptfiles import SCRIPT_SUFFIXES
 
     if name.lower().endswith(SCRIPT_SUFFIXES) and not os.path.isdir(path):
         return lint_script(path, options)

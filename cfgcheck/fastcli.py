@@ -1,87 +1,96 @@
 """A direct path from argv to the ``lint`` command for the common invocations.
 
-Typer builds a validation adapter for every parameter of a command the first time it runs, which
-costs more than the whole lint of a small file. For ``cfgcheck lint`` with options this module
-understands, we read argv ourselves, from the same parameter declarations the typer command
-carries (names, defaults, ``min``/``max``, enum choices), and call the same command function.
-Anything else (``--help``, another command, an option or a value we do not read exactly as typer
-would, a parameter kind we do not know) returns ``None`` and typer handles the whole command line,
-so the errors and help texts stay typer's own.
+Typer costs more to import and set up than the whole lint of a small file. For ``cfgcheck lint``
+with options this module understands, we read argv ourselves, from the same declarations typer's
+command is made from (``cliparams``: names, spellings, defaults, ``min``/``max``, enum choices),
+and call the same command function. Anything else (``--help``, another command, an option or a
+value we do not read exactly as typer would, a setting or a parameter kind we do not know)
+returns ``None`` and typer handles the whole command line, so the errors and help texts stay
+typer's own. This module imports neither typer nor ``inspect``.
 
 Part of the command-line layer: only ``cli.main`` calls it, and runs the command.
 """
 
 from __future__ import annotations
 
+import builtins
 import enum
-import inspect
 import os
-import typing
 from pathlib import Path
 from typing import Any, Callable
 
-_REFUSE = ("callback", "envvar", "prompt", "default_factory", "parser", "count", "exists",
-           "confirmation_prompt", "is_eager")
+from .cliparams import Param, declared, parameters
+
+# settings of a declaration that change nothing about which values are accepted or what they
+# mean; any other (a callback, an envvar, a count, case_sensitive, ...) leaves the line to typer
+_READ = frozenset({"help", "metavar", "min", "max", "autocompletion"})
 
 
 class _Decline(Exception):
     """This command line is typer's to read."""
 
 
-def _base(annotation: Any) -> tuple[Any, bool]:
-    """(type, is_list) for the annotations we read: T, Optional[T], List[T]."""
-    origin = typing.get_origin(annotation)
-    args = [a for a in typing.get_args(annotation) if a is not type(None)]
-    if origin is typing.Union and len(args) == 1:
-        return _base(args[0])
-    if origin is list and len(args) == 1:
-        return args[0], True
-    return annotation, False
+def _base(annotation: Any, names: dict[str, Any]) -> tuple[Any, bool]:
+    """(type, is_list) for the annotations we read, as written: ``T``, ``Optional[T]``,
+    ``List[T]``, ``Optional[List[T]]`` with T a plain name (evaluating them with typing would
+    compile each one). Anything else is typer's to read."""
+    if not isinstance(annotation, str):
+        raise _Decline
+    text, is_list = annotation.replace(" ", ""), False
+    if text.startswith("Optional[") and text.endswith("]"):
+        text = text[len("Optional["):-1]
+    if (text.startswith("List[") or text.startswith("list[")) and text.endswith("]"):
+        text, is_list = text[len("List["):-1], True
+    if not text.isidentifier():
+        raise _Decline
+    kind = names[text] if text in names else getattr(builtins, text, None)
+    if kind is None:
+        raise _Decline
+    return kind, is_list
 
 
-def _spec(fn: Callable) -> tuple[dict[str, tuple[str, Any, Any, str]], tuple[str, Any, Any] | None]:
+def _spec(fn: Callable) -> tuple[dict[str, tuple[str, Any, Param, str]], tuple[str, Any, Param] | None]:
     """Option spellings -> (parameter, type, declaration, how: "value" | "list" | "flag" | "on" |
     "off"), and the positional argument (parameter, type, declaration)."""
-    from typer.models import ArgumentInfo, OptionInfo
-
-    hints = typing.get_type_hints(fn)
-    options: dict[str, tuple[str, Any, Any, str]] = {}
+    target = declared(fn)
+    hints = target.__annotations__
+    options: dict[str, tuple[str, Any, Param, str]] = {}
     argument = None
-    for name, param in inspect.signature(fn).parameters.items():
-        info = param.default
-        kind, is_list = _base(hints.get(name))
+    for name, info in parameters(target):
+        if not isinstance(info, Param) or not set(info.settings) <= _READ:
+            raise _Decline
+        kind, is_list = _base(hints.get(name), target.__globals__)
         if kind not in (bool, int, str, Path) and not (isinstance(kind, type) and issubclass(kind, enum.Enum)):
             raise _Decline
-        if any(getattr(info, attr, None) for attr in _REFUSE):
-            raise _Decline
-        if isinstance(info, ArgumentInfo):
+        if info.argument:
             if argument is not None or not is_list:
                 raise _Decline
             argument = (name, kind, info)
-        elif isinstance(info, OptionInfo):
-            for decl in info.param_decls or ():
-                if not decl.startswith("-"):
+            continue
+        if not info.param_decls:
+            raise _Decline  # spelled after the parameter's name: typer's rule, not ours
+        for decl in info.param_decls:
+            if "/" in decl:  # --x/--no-x
+                on, off = (d.strip() for d in decl.split("/", 1))
+                if kind is not bool or is_list or not on.startswith("-") or not off.startswith("-"):
                     raise _Decline
-                if "/" in decl:  # --x/--no-x
-                    on, off = (d.strip() for d in decl.split("/", 1))
-                    if kind is not bool or is_list:
-                        raise _Decline
-                    options[on] = (name, kind, info, "on")
-                    options[off] = (name, kind, info, "off")
-                else:
-                    how = "list" if is_list else ("flag" if kind is bool else "value")
-                    options[decl] = (name, kind, info, how)
-        else:
-            raise _Decline
+                options[on] = (name, kind, info, "on")
+                options[off] = (name, kind, info, "off")
+            elif not decl.startswith("-"):
+                raise _Decline
+            else:
+                how = "list" if is_list else ("flag" if kind is bool else "value")
+                options[decl] = (name, kind, info, how)
     return options, argument
 
 
-def _convert(kind: Any, info: Any, text: str) -> Any:
+def _convert(kind: Any, info: Param, text: str) -> Any:
     if kind is int:
         if not text.lstrip("-").isdigit():
             raise _Decline
         value = int(text)
-        if (info.min is not None and value < info.min) or (info.max is not None and value > info.max):
+        low, high = info.settings.get("min"), info.settings.get("max")
+        if (low is not None and value < low) or (high is not None and value > high):
             raise _Decline
         return value
     if kind is Path:

@@ -27,9 +27,8 @@ from types import MappingProxyType
 from typing import Any, Iterable
 
 from . import reads
-from .load import CONFIG_SUFFIXES as _CONFIG_SUFFIXES, Document, Entry, LoadError, Span, walk_paths
-
-SCRIPT_SUFFIXES = (".sh", ".bash")
+from .load import CONFIG_SUFFIXES as _CONFIG_SUFFIXES, Document, Entry, LoadError, Span
+from .scriptfiles import SCRIPT_SUFFIXES, find_scripts  # noqa: F401 (part of this module's interface)
 # the shell parser is pure Python (about 30 ms per KiB): bigger scripts are not launch scripts we read
 MAX_SCRIPT_BYTES = 64 * 1024
 _VAR = re.compile(r"\$(?:\{([A-Za-z_][A-Za-z0-9_]*)(?::?-([^}]*))?\}|([A-Za-z_][A-Za-z0-9_]*))")
@@ -797,12 +796,6 @@ def script_document(sl: ScriptLaunch, index: int = 0) -> Document | None:
     entries[()] = Entry(value=root, kind="map")
     return Document(name=sl.file, format="shell", data=data, entries=entries, index=index,
                     assumed=assumed)
-
-
-def find_scripts(paths: Iterable[str | Path]) -> list[str]:
-    """Shell scripts named or inside the folders (hidden folders skipped), sorted."""
-    return [f for f, named in walk_paths(paths, SCRIPT_SUFFIXES)
-            if f.lower().endswith(SCRIPT_SUFFIXES) and (not named or os.path.isfile(f))]
 
 
 def pairings(scripts: Iterable[str]) -> dict[str, ScriptLaunch]:

@@ -144,12 +144,12 @@ def _label(names: list[str], values: list[Any]) -> str:
 
 def split_overrides(overrides) -> tuple[list[str], list[tuple[str, list]]]:
     """key=value overrides -> (the single ones, the list-valued ones as (key, values))."""
-    from .compose import override_value
-
     fixed, varying = [], []
     for item in overrides or ():
         key, eq, raw = item.partition("=")
         if eq and "," in raw and not raw.strip().startswith(("[", "{", "'", '"')):
+            from .compose import override_value
+
             varying.append((key.lstrip("+").strip(), [override_value(p) for p in raw.split(",")]))
         else:
             fixed.append(item)
@@ -160,8 +160,6 @@ def hydra_grid(doc: Document) -> tuple[list[str], list[list[tuple[Any, Any]]]]:
     """The grid a config defines for Hydra's multirun (Hydra 1.2+, ``hydra.sweeper.params``:
     ``key: a,b,c`` or ``key: choice(a,b)``): (names, candidates located at the param's line);
     empty when the config defines none."""
-    from .compose import override_value
-
     data = doc.data if isinstance(doc.data, dict) else {}
     hydra = data.get("hydra")
     sweeper = hydra.get("sweeper") if isinstance(hydra, dict) else None
@@ -176,6 +174,8 @@ def hydra_grid(doc: Document) -> tuple[list[str], list[list[tuple[Any, Any]]]]:
             text = text[len("choice("):-1]
         if not text or "(" in text or "," not in text:
             continue  # one value, or a range()/interval() this reader does not expand
+        from .compose import override_value
+
         entry = doc.entries.get(("hydra", "sweeper", "params", key))
         names.append(key.lstrip("+"))
         cands.append([(override_value(part.strip()), entry) for part in text.split(",")])

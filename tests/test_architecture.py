@@ -11,12 +11,12 @@ PKG = Path(__file__).resolve().parents[1] / "cfgcheck"
 LAYERS = {
     "findings": 0, "load": 0, "knowledge": 0, "memo": 0, "reads": 0, "cache": 0,
     "layouts": 1, "schedule": 1, "waivers": 1,
-    "view": 2, "catalogue": 2, "defaults": 2, "scripts": 0,
+    "view": 2, "catalogue": 2, "defaults": 2, "scripts": 0, "scriptfiles": 0,
     "checks": 3, "plan": 3, "links": 3, "parallel": 3, "compose": 3, "sweep": 3, "run": 3,
     "engine": 4,
     "render": 5, "fix": 5, "project": 5, "projectfile": 5, "baseline": 5, "schema": 3,
     "api": 6, "editor": 6, "lrcurve": 1,
-    "cli": 7, "fastcli": 7, "__main__": 8, "__init__": 9,
+    "cli": 7, "fastcli": 7, "cliparams": 7, "__main__": 8, "__init__": 9,
 }
 
 

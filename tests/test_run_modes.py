@@ -10,7 +10,7 @@ from pathlib import Path
 
 import pytest
 
-from cfgcheck import api, cli, engine, fastcli
+from cfgcheck import api, cli, cliparams, engine, fastcli
 from cfgcheck.checks import all_checks
 from cfgcheck.engine import Options
 from cfgcheck.findings import Severity
@@ -121,6 +121,79 @@ def test_direct_path_leaves_the_rest_to_typer(argv):
     assert fastcli.direct_arguments(["lint", *argv], "lint", cli.lint) is None
 
 
+def _typer_reading(command: str) -> dict:
+    """What typer's command (made from the declarations) reads: spelling -> (parameter, how,
+    default, min, max, choices); the positional argument under "ARGUMENT"."""
+    import enum
+    import typing
+
+    import typer.main
+
+    group = typer.main.get_command(cli.app)
+    out = {}
+    for p in group.commands[command].params:
+        base = p.type_descriptor.annotation
+        base = (typing.get_args(base) or [base])[0]
+        choices = sorted(e.value for e in base) if isinstance(base, type) and issubclass(base, enum.Enum) else None
+        default = p.default.value if isinstance(p.default, enum.Enum) else p.default
+        if p.param_type_name == "argument":
+            out["ARGUMENT"] = (p.name, "list" if p.nargs == -1 else "value", default, None, None, choices)
+            continue
+        for spelling in p.opts:
+            how = ("on" if p.secondary_opts else "flag") if p.is_flag else "list" if p.multiple else "value"
+            out[spelling] = (p.name, how, default, p.min, p.max, choices)
+        for spelling in p.secondary_opts:
+            out[spelling] = (p.name, "off", default, p.min, p.max, choices)
+    return out
+
+
+def _direct_reading(fn) -> dict:
+    """The same, as the direct path reads the declarations."""
+    import enum
+
+    options, argument = fastcli._spec(fn)
+
+    def described(name, kind, info, how):
+        choices = sorted(e.value for e in kind) if issubclass(kind, enum.Enum) else None
+        default = info.default.value if isinstance(info.default, enum.Enum) else info.default
+        return (name, how, default, info.settings.get("min"), info.settings.get("max"), choices)
+
+    out = {spelling: described(*entry) for spelling, entry in options.items()}
+    if argument is not None:
+        out["ARGUMENT"] = described(*argument, "list")
+    return out
+
+
+def test_typer_and_the_direct_path_read_the_same_lint_options():
+    typer_side = _typer_reading("lint")
+    assert _direct_reading(cli.lint) == typer_side
+    # the table holds what it should: limits, choices, flags, lists and the default format
+    assert typer_side["--gpus"][3] == 1 and typer_side["--format"][5] == ["github", "json", "sarif", "text"]
+    assert typer_side["--no-frame"][1] == "off" and typer_side["-q"][1] == "flag"
+    assert typer_side["--only"][1] == "list" and typer_side["--format"][2] == "text"
+    assert typer_side["ARGUMENT"][:3] == ("paths", "list", None)
+
+
+def test_typer_receives_every_setting_of_a_declaration():
+    import inspect
+
+    from typer.models import OptionInfo
+
+    from cfgcheck.cliparams import _typer_callable
+
+    made = inspect.signature(_typer_callable(cli.lint)).parameters
+    declared = dict(cliparams.parameters(cli.lint))
+    assert list(made) == list(declared)
+    for name, info in declared.items():
+        if info.argument:
+            continue
+        option = made[name].default
+        assert isinstance(option, OptionInfo) and option.default == info.default, name
+        assert tuple(option.param_decls) == info.param_decls, name
+        for setting, value in info.settings.items():
+            assert getattr(option, setting) == value, (name, setting)
+
+
 def test_other_commands_go_to_typer():
     assert fastcli.direct_arguments(["rules"], "lint", cli.lint) is None
     assert fastcli.direct_arguments(["derive", "a.yaml"], "lint", cli.lint) is None
@@ -176,6 +249,11 @@ _NOT_ON_THE_LINT_PATH = (
     "tomllib",  # pyproject.toml is read only when it has a [tool.cfgcheck] table or pins
     "bashlex",  # launch scripts are parsed only when there are some
     "random",  # sampling a sweep too large to lint whole
+    "typer", "click", "rich", "shellingham",  # the command line framework: fastcli reads plain lint lines
+    "subprocess", "platform",  # nothing on the lint path starts a process or asks for the platform
+    "cfgcheck.scripts",  # the shell reader: only when a launch script is there (scriptfiles tells)
+    "cfgcheck.knowledge.chat_tokens",  # token tables: only for a file that names tokens or a template
+    "traceback",  # only to record a bug
 )
 
 

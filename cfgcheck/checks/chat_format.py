@@ -26,7 +26,6 @@ from __future__ import annotations
 import re
 
 from ..findings import Edit, Fix
-from ..knowledge import chat_tokens
 from ..load import dotted
 from . import check
 
@@ -83,6 +82,8 @@ class _Vocab:
     """What the base vocabulary is known to hold."""
 
     def __init__(self, arch):
+        from ..knowledge import chat_tokens
+
         self.arch = arch
         self.table = chat_tokens.vocabulary(arch.family, arch.vocab_size) if arch is not None else None
 
@@ -98,6 +99,8 @@ class _Vocab:
         Without a complete list, only a chat format's own markers (ChatML's, Llama 3's...) are
         taken as missing, by assumption: a base's own special tokens (``<|endoftext|>``, ``</s>``)
         are in many vocabularies and are not judged."""
+        from ..knowledge import chat_tokens
+
         sure, assumed = [], []
         for t in dict.fromkeys(tokens):
             if not chat_tokens.marker_shaped(t):
@@ -134,6 +137,8 @@ def chat_format(ctx) -> None:
     stop = (list(layout.template_stop_words.get(named.value.strip().lower(), ()))
             if named is not None and isinstance(named.value, str) else [])
     explicit = _names(tokens.value, comma) if tokens is not None else []
+    if template is not None:
+        from ..knowledge import chat_tokens
     fmt, special = (chat_tokens.special_markers(template.value) if template is not None
                     else (None, set()))
     if not (special or explicit or roles or stop):
