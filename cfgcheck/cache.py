@@ -20,11 +20,23 @@ into place, so concurrent runs never see half an entry; an unreadable entry is a
 that cannot be written to means no caching, never an error. The total size is bounded: now and
 then the oldest entries (by modification time) are removed.
 
+Whole runs: the ``lint`` command also keeps one record per command line (its arguments, working
+folder, environment, terminal and encoding of stdout/stderr, cfgcheck's fingerprint): the bytes
+it printed, its exit status, the digest of every file it linted and every fact those reports and
+the run itself rest on (what the walk of the folders listed, what the project-file search looked
+at, the project and baseline files). ``lint_from_cache``, called first by the command, checks
+those and prints the stored bytes, importing only this module, ``reads`` and the standard
+library; on any difference the full lint runs (reusing the per-file entries and the digests the
+check computed) and the record is written anew. A record is one file under ``runs/`` (the output,
+then a marshal of plain tuples, then its length and a magic line), written whole and moved into
+place; it is trimmed with the entries.
+
 The folder: ``$CFGCHECK_CACHE_DIR``, else the platform's user cache folder (platformdirs).
 """
 
 from __future__ import annotations
 
+import contextvars
 import hashlib
 import io
 import os
@@ -49,6 +61,10 @@ ENV_INPUTS = ("HF_HOME", "HF_HUB_CACHE", "HUGGINGFACE_HUB_CACHE", "TRANSFORMERS_
 
 _MAGIC = b"cfgcheck-lint-cache\n"
 _OPTIONS_LEFT_OUT = ("debug",)  # re-raising a failing rule: a stored report has no failure
+
+
+# the command-line run being recorded whole, if any (lint_from_cache)
+_ACTIVE_RUN: contextvars.ContextVar["_Run | None"] = contextvars.ContextVar("cfgcheck_run", default=None)
 
 
 class Uncacheable(Exception):
@@ -104,24 +120,25 @@ def options_text(options: Any) -> str:
     return repr(fields)
 
 
-def _package_files() -> list[Path]:
+def _package_files() -> list[str]:
     """cfgcheck's own files whose change can change a report: the package (code, knowledge
     tables) and the rule records (packaged as cfgcheck/_catalogue, or rules/ beside a checkout;
-    the same choice as catalogue.catalogue_dir)."""
-    pkg = Path(__file__).resolve().parent
+    the same choice as catalogue.catalogue_dir). Plain strings: every lint, the cache-hit path
+    too, lists them."""
+    pkg = os.path.dirname(os.path.realpath(__file__))
     roots = [pkg]
-    if not (pkg / "_catalogue").is_dir():
-        roots.append(pkg.parent / "rules")
+    if not os.path.isdir(os.path.join(pkg, "_catalogue")):
+        roots.append(os.path.join(os.path.dirname(pkg), "rules"))
     out = []
     for root in roots:
         for here, dirs, files in os.walk(root):
             dirs[:] = sorted(d for d in dirs if d != "__pycache__" and not d.startswith("."))
-            out.extend(Path(here) / f for f in sorted(files)
+            out.extend(os.path.join(here, f) for f in sorted(files)
                        if not f.endswith((".pyc", ".tmp")) and not f.startswith("."))
     return out
 
 
-def _library_files() -> list[Path]:
+def _library_files() -> list[str]:
     import importlib.util
 
     out = []
@@ -131,7 +148,7 @@ def _library_files() -> list[Path]:
         except (ImportError, ValueError):
             continue
         if spec is not None and spec.origin:
-            out.append(Path(spec.origin))
+            out.append(spec.origin)
     return out
 
 
@@ -206,6 +223,18 @@ class Store:
         self._prefix: str | None = None
         self._options: dict[int, tuple[Any, str]] = {}  # id -> (options, their text): files share them
         self._sets: dict[str, bool] = {}  # fact sets checked in this run -> whether they hold
+        self._set_facts: dict[str, list] = {}  # fact set -> its facts, while a run is recorded
+        # a command-line run being recorded whole (see lint_from_cache): every file keyed, with
+        # its digest, and every fact its report rests on
+        active = _ACTIVE_RUN.get()
+        self.run = active if active is not None and active.open and active.store is None else None
+        if self.run is not None:
+            self.run.store = self
+            self._facts.update(self.run.seen.get("facts", {}))  # checked a moment ago, in this run
+        self._digests = self.run.seen.get("digests", {}) if self.run is not None else {}
+        self.run_files: list[tuple[str, str]] = []
+        self.run_facts: dict[tuple[str, str, str], str] = {}
+        self.run_whole = True  # False once a file was linted without the cache
 
     # the key ------------------------------------------------------------------
     def _fixed(self) -> str:
@@ -214,7 +243,7 @@ class Store:
             stats = []
             for p in _package_files() + _library_files():
                 try:
-                    st = p.stat()
+                    st = os.stat(p)
                     stats.append((str(p), st.st_size, st.st_mtime_ns))
                 except OSError:
                     stats.append((str(p), -1, -1))
@@ -253,17 +282,22 @@ class Store:
         """(entry key, sha256 of the file's bytes); Uncacheable when the file or the options
         cannot be keyed (not a regular file, an option the key cannot describe)."""
         try:
-            with open(path, "rb") as fh:
-                st = os.fstat(fh.fileno())
-                if not stat.S_ISREG(st.st_mode) or st.st_size > reads.MAX_HASHED:
+            known = self._digests.get(path)
+            if known is not None and known[0] == _stat_id(os.stat(path)):
+                digest = known[1]  # hashed by the check of the run's record, file untouched since
+            else:
+                got = reads.regular_bytes(path)  # never blocks on a pipe
+                if got is None:
                     raise Uncacheable("not a regular file of a size worth keeping")
-                digest = hashlib.sha256(fh.read()).hexdigest()
+                digest = hashlib.sha256(got[1]).hexdigest()
         except (OSError, ValueError):  # a folder, a missing file: linting it says why, cheaply
             raise Uncacheable("not readable") from None
         known = self._options.get(id(options))
         if known is None or known[0] is not options:
             known = self._options[id(options)] = (options, options_text(options))
         text = "\0".join((self._fixed(), path, os.path.abspath(path), digest, known[1]))
+        if self.run is not None:
+            self.run_files.append((path, digest))
         return hashlib.sha256(text.encode("utf-8", "surrogateescape")).hexdigest(), digest
 
     # entries ------------------------------------------------------------------
@@ -291,6 +325,9 @@ class Store:
             self.misses += 1
             return None
         self.hits += 1
+        if self.run is not None:
+            for k, p, pat, v in self._set_facts.get(facts_id, ()):
+                self.run_facts.setdefault((k, p, pat), v)
         return report
 
     def _facts_file(self, facts_id: str) -> str:
@@ -311,7 +348,10 @@ class Store:
                 import json
 
                 ok = True
-                for kind, path, pattern, fact in json.loads(blob):
+                listed = json.loads(blob)
+                if self.run is not None:
+                    self._set_facts[facts_id] = listed
+                for kind, path, pattern, fact in listed:
                     now = self._facts.get((kind, path, pattern))
                     if now is None:
                         now = self._facts[(kind, path, pattern)] = reads.fact(kind, path, pattern)
@@ -327,9 +367,11 @@ class Store:
         """Store REPORT (without views) with the facts it rests on; False when it is not stored
         (an internal error, the file changed while it was linted, an unwritable folder)."""
         if not self.writable or report.internal:
+            self.run_whole = False
             return False
         own = ("f", os.path.abspath(path), "")
         if facts.get(own, digest) != digest:
+            self.run_whole = False
             return False  # the file changed between the key and the lint
         import json
 
@@ -340,23 +382,30 @@ class Store:
         try:
             facts_blob = json.dumps(kept, separators=(",", ":")).encode("utf-8", "surrogateescape")
         except (TypeError, ValueError, UnicodeEncodeError):
+            self.run_whole = False
             return False
         facts_id = hashlib.sha256(facts_blob).hexdigest()
         if self._sets.get(facts_id) is None:
             target = self._facts_file(facts_id)
             if not os.path.exists(target) and not self._write(target, facts_blob):
+                self.run_whole = False
                 return False
             self._sets[facts_id] = True  # written now from what this run saw
         views, report.views = report.views, []
         try:
             blob = _MAGIC + _dumps((key, facts_id, report))
         except Exception:  # noqa: BLE001 - a value the result types do not hold: not stored
+            self.run_whole = False
             return False
         finally:
             report.views = views
         if self._write(self._entry(key), blob):
             self.written += len(blob)
+            if self.run is not None:
+                for k, p, pat, v in kept:
+                    self.run_facts.setdefault((k, p, pat), v)
             return True
+        self.run_whole = False
         return False
 
     def _write(self, target: str | Path, blob: bytes) -> bool:
@@ -402,7 +451,7 @@ def trim(root: str | os.PathLike, max_bytes: int | None = None, max_entries: int
     removed = 0
     now = time.time()
     shards = []
-    for folder in (root, os.path.join(root, "facts")):
+    for folder in (root, os.path.join(root, "facts"), os.path.join(root, "runs")):
         try:
             shards += [e for e in os.scandir(folder) if e.is_dir() and len(e.name) == 2]
         except OSError:
@@ -449,7 +498,7 @@ def _remove(path: str) -> bool:
 def usage(root: str | os.PathLike) -> tuple[int, int]:
     """(files, bytes) of the entries and fact sets stored under ROOT."""
     n = total = 0
-    for folder in (os.fspath(root), os.path.join(root, "facts")):
+    for folder in (os.fspath(root), os.path.join(root, "facts"), os.path.join(root, "runs")):
         try:
             shards = [e.path for e in os.scandir(folder) if e.is_dir() and len(e.name) == 2]
         except OSError:
@@ -477,6 +526,8 @@ def lint_cached(pairs: Iterable[tuple[str, Any]], store: Store, lint_recorded, l
             keyed.append(store.key(path, options) if store.usable else None)
         except Exception:  # noqa: BLE001 - Uncacheable, or anything odd: lint it without the cache
             keyed.append(None)
+        if keyed[-1] is None:
+            store.run_whole = False
     if lint_many is None:
         for (path, options), k in zip(pairs, keyed):
             report = store.get(k[0]) if k else None
@@ -498,3 +549,331 @@ def lint_cached(pairs: Iterable[tuple[str, Any]], store: Store, lint_recorded, l
                 store.put(keyed[i][0], keyed[i][1], pairs[i][0], facts, report)
             nxt = next(pending, None)
         yield report
+
+
+# --------------------------------------------------------------------------- whole runs
+
+RUN_FORMAT = 1  # bump when a run record's layout changes
+MAX_RUN_OUTPUT = MAX_BYTES // 4  # a run printing more than this is not recorded
+_RUN_MAGIC = b"cfgcheck-lint-run\n"
+_TRAILER = 8 + len(_RUN_MAGIC)  # the metadata's length, then the magic
+_ENCODINGS = frozenset({"utf-8", "ascii", "latin-1", "iso8859-1", "cp1252"})  # stateless: pieces encode as the whole
+
+
+def _stream_traits(stream: Any) -> tuple:
+    try:
+        tty = bool(stream.isatty())
+    except (AttributeError, ValueError, OSError):
+        tty = None
+    return (tty, getattr(stream, "encoding", None), getattr(stream, "errors", None))
+
+
+def lint_from_cache(args: dict, progress: Any = None) -> "_Run":
+    """The lint command's arguments ARGS -> a run. ``run.code`` is set when the same command, in
+    the same folder and environment, was answered before and nothing it rested on changed: the
+    stored output has been written to stdout (progress through PROGRESS, a ``(done, total)``
+    callable with ``close()``, when given) and the command exits with that code, having imported
+    nothing but this module, ``reads`` and the standard library. Otherwise the run records what
+    the full lint reads and prints, and ``run.done(code)`` at the end stores it.
+
+    What is checked before the stored output is used: every linted file's bytes (sha256), every
+    fact a file's report rests on (reads.py), what the walk of the folders saw (each folder's
+    entries), what the project-file search looked at, the project and baseline files' bytes;
+    the key holds the arguments, the working folder, the environment (ENV_INPUTS, NO_COLOR,
+    TERM), whether stdout and stderr are terminals and their encodings, and cfgcheck's version
+    and package fingerprint."""
+    stale = _ACTIVE_RUN.get()
+    if stale is not None:
+        stale.abandon()  # a run of this process that ended without done(): it stores nothing
+    run = _Run()
+    if args.get("no_cache") or args.get("save_baseline") is not None:
+        return run
+    folder = default_folder()
+    if folder is None:
+        return run
+    store = Store(folder)
+    try:
+        key = hashlib.sha256(repr((
+            RUN_FORMAT, store._fixed(), canonical(args), _stream_traits(sys.stdout),
+            _stream_traits(sys.stderr), os.environ.get("NO_COLOR"), os.environ.get("TERM"), os.linesep,
+        )).encode("utf-8", "surrogateescape")).hexdigest()
+    except Exception:  # noqa: BLE001 - Uncacheable, an unreadable working folder: no run record
+        return run
+    target = os.path.join(store._folder, "runs", key[:2], key[2:])
+    code = _replay(target, key, progress, run.seen)
+    if code is not None:
+        run.code = code
+        return run
+    try:
+        run.start(target, args)
+    except Exception:  # noqa: BLE001 - recording is a help, never a reason for a run to fail
+        run.abandon()
+    return run
+
+
+def _replay(target: str, key: str, progress: Any, seen: dict | None = None) -> int | None:
+    """Write the output stored at TARGET and return its exit code when every file and fact it
+    rests on is unchanged; None (nothing written) otherwise. SEEN gets what was checked on the
+    way (facts, and files' digests with their stat), so a miss does not compute them again."""
+    if seen is None:
+        seen = {}
+    facts_seen = seen.setdefault("facts", {})
+    digests_seen = seen.setdefault("digests", {})
+    try:
+        fh = open(target, "rb")
+    except OSError:
+        return None
+    shown = False
+    with fh:
+        try:
+            size = os.fstat(fh.fileno()).st_size
+            if size < _TRAILER:
+                return None
+            fh.seek(size - _TRAILER)
+            trailer = fh.read(_TRAILER)
+            if trailer[8:] != _RUN_MAGIC:
+                return None
+            meta_len = int.from_bytes(trailer[:8], "little")
+            out_len = size - _TRAILER - meta_len
+            if out_len < 0:
+                return None
+            fh.seek(out_len)
+            import marshal
+
+            meta = marshal.loads(fh.read(meta_len))
+            fmt, stored_key, code, total, files, facts = meta
+            if fmt != RUN_FORMAT or stored_key != key or type(code) is not int:
+                return None
+            for kind, path, pattern, value in facts:
+                now = facts_seen[(kind, path, pattern)] = reads.fact(kind, path, pattern)
+                if now != value:
+                    return None
+            n = len(files)
+            for i, (path, digest) in enumerate(files, start=1):
+                got = reads.regular_bytes(path)  # never blocks on a pipe
+                if got is None:
+                    return None
+                now = hashlib.sha256(got[1]).hexdigest()
+                digests_seen[path] = (_stat_id(got[0]), now)
+                if now != digest:
+                    return None
+                if progress is not None and i < n:
+                    progress(min(i, total), total)
+                    shown = True
+            if progress is not None:
+                progress(total, total)
+                progress.close()
+                shown = False
+            fh.seek(0)
+        except Exception:  # noqa: BLE001 - a changed, vanished, corrupt or foreign record: a miss
+            return None
+        finally:
+            if shown:
+                progress.close()
+        # from here on the answer is this record: a failing write (a closed pipe) is the
+        # command's own failure, as it would be for a full run, never a second answer
+        _copy_out(fh, out_len)
+        return code
+
+
+def _stat_id(st: os.stat_result) -> tuple:
+    return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns, st.st_ctime_ns)
+
+
+def _copy_out(fh: Any, n: int) -> None:
+    """N stored bytes from FH to stdout, as the full run's text writes produced them."""
+    out = sys.stdout
+    buf = getattr(out, "buffer", None) if os.linesep == "\n" else None
+    out.flush()
+    decoder = None
+    if buf is None:
+        import codecs
+
+        decoder = codecs.getincrementaldecoder(out.encoding or "utf-8")(out.errors or "strict")
+    while n > 0:
+        chunk = fh.read(min(n, 1 << 20))
+        if not chunk:
+            break
+        n -= len(chunk)
+        if buf is not None:
+            buf.write(chunk)
+        else:
+            out.write(decoder.decode(chunk, final=n <= 0))
+    (buf if buf is not None else out).flush()
+
+
+class _Tee:
+    """Stands in for sys.stdout or sys.stderr while a run is recorded: every write goes through
+    to the stream and is kept by the run. A use the run cannot replay (the binary buffer,
+    writelines) spoils the record; the stream still works as before."""
+
+    _PASS = frozenset({"flush", "isatty", "encoding", "errors", "fileno", "closed", "name", "mode",
+                       "newlines", "line_buffering", "readable", "writable", "seekable"})
+
+    def __init__(self, inner: Any, took: Any, run: "_Run"):
+        self._inner = inner
+        self._took = took
+        self._run = run
+
+    def write(self, text: str) -> int:
+        n = self._inner.write(text)
+        self._took(text)
+        return n
+
+    def __getattr__(self, name: str) -> Any:
+        if name not in self._PASS:
+            self._run.spoil()
+        return getattr(self._inner, name)
+
+
+class _Run:
+    """One lint command's run: answered from a stored record (``code`` set), or recorded until
+    ``done(code)``; a run that ends otherwise (an error, an exit before the end) stores nothing."""
+
+    def __init__(self) -> None:
+        self.code: int | None = None
+        self.open = False
+        self.store: Store | None = None
+        self._spoiled = False
+        self._tmp: str | None = None
+        self._fh: Any = None
+        self._bytes = 0
+        self._progress_total: int | None = None  # what the progress line counted (skipped files too)
+        self.seen: dict = {}  # what the check of a stored record computed before it missed
+
+    def start(self, target: str, args: dict) -> None:
+        out, err = sys.stdout, sys.stderr
+        enc = getattr(out, "encoding", None) or ""
+        try:
+            import codecs
+
+            enc = codecs.lookup(enc).name
+        except (LookupError, TypeError):
+            return
+        if enc not in _ENCODINGS:
+            return
+        self._target, self._enc, self._errors = target, enc, getattr(out, "errors", None) or "strict"
+        self._args = args
+        self._facts: reads.Facts = {}
+        self._token = reads._RECORD.set(self._facts)
+        self._out, self._err = out, err
+        sys.stdout = _Tee(out, self._took_out, self)
+        sys.stderr = _Tee(err, self._took_err, self)
+        self.open = True
+        _ACTIVE_RUN.set(self)
+        import atexit
+
+        atexit.register(self.abandon)  # a run that exits early leaves no temporary file
+
+    def spoil(self) -> None:
+        self._spoiled = True
+
+    def _took_out(self, text: str) -> None:
+        if self._spoiled or not text:
+            return
+        try:
+            blob = text.encode(self._enc, self._errors)
+            if self._fh is None:
+                folder = os.path.dirname(self._target)
+                os.makedirs(folder, exist_ok=True)
+                self._tmp = os.path.join(folder, f".{os.path.basename(self._target)}."
+                                                 f"{os.getpid()}.{time.monotonic_ns()}.tmp")
+                self._fh = open(self._tmp, "wb")
+            self._fh.write(blob)
+            self._bytes += len(blob)
+            if self._bytes > MAX_RUN_OUTPUT:
+                self.spoil()
+        except (OSError, ValueError, UnicodeError):
+            self.spoil()
+
+    def _took_err(self, text: str) -> None:
+        # the progress line ('\r...') is drawn again on a replay; anything else on stderr (a
+        # warning) is not stored, so a run that printed one is not recorded
+        if text and not text.startswith("\r"):
+            self.spoil()
+        elif text.startswith("\rcfgcheck: "):
+            done, _, total = text[11:].partition(" ")[0].partition("/")
+            if total.isdigit():
+                self._progress_total = int(total)
+
+    def _restore(self) -> None:
+        if not self.open:
+            return
+        self.open = False
+        if _ACTIVE_RUN.get() is self:
+            _ACTIVE_RUN.set(None)
+        if isinstance(sys.stdout, _Tee) and sys.stdout._run is self:
+            sys.stdout = self._out
+        if isinstance(sys.stderr, _Tee) and sys.stderr._run is self:
+            sys.stderr = self._err
+        try:
+            reads._RECORD.reset(self._token)
+        except ValueError:  # set in another context
+            reads._RECORD.set(None)
+
+    def abandon(self) -> None:
+        self._restore()
+        self._discard()
+        import atexit
+
+        atexit.unregister(self.abandon)
+
+    def _discard(self) -> None:
+        if self._fh is not None:
+            try:
+                self._fh.close()
+            except OSError:
+                pass
+            self._fh = None
+        if self._tmp is not None:
+            _remove(self._tmp)
+            self._tmp = None
+
+    def done(self, code: int) -> int:
+        """The run ended with exit status CODE: store its record when the whole run can be
+        replayed (every file keyed and stored, nothing printed that a replay would lack)."""
+        if not self.open:
+            return code
+        sys.stdout.flush()
+        self._restore()
+        store = self.store
+        if (self._spoiled or store is None or not store.run_whole or not store.writable
+                or not store.run_files or type(code) is not int):
+            self.abandon()
+            return code
+        try:
+            import marshal
+
+            facts = dict(self._facts)
+            for name in ("project", "baseline"):
+                given = self._args.get(name)
+                if given is not None:
+                    facts.setdefault(("f", os.path.abspath(given), ""), reads.content(given))
+            for given in self._args.get("launch") or ():
+                facts.setdefault(("f", os.path.abspath(given), ""), reads.content(given))
+            for k, v in store.run_facts.items():
+                facts.setdefault(k, v)
+            total = self._progress_total if self._progress_total is not None else len(store.run_files)
+            meta = marshal.dumps((RUN_FORMAT, os.path.basename(os.path.dirname(self._target))
+                                  + os.path.basename(self._target), code, total,
+                                  tuple(store.run_files),
+                                  tuple((k, p, pat, v) for (k, p, pat), v in sorted(facts.items()))))
+            if self._fh is None:  # nothing printed
+                folder = os.path.dirname(self._target)
+                os.makedirs(folder, exist_ok=True)
+                self._tmp = os.path.join(folder, f".{os.path.basename(self._target)}."
+                                                 f"{os.getpid()}.{time.monotonic_ns()}.tmp")
+                self._fh = open(self._tmp, "wb")
+            self._fh.write(meta + len(meta).to_bytes(8, "little") + _RUN_MAGIC)
+            self._fh.close()
+            self._fh = None
+            os.replace(self._tmp, self._target)
+            self._tmp = None
+            store.written += self._bytes + len(meta)
+            store.close()  # a trim when one is due counts the record too
+        except (OSError, ValueError):
+            self._discard()
+        import atexit
+
+        atexit.unregister(self.abandon)
+        return code

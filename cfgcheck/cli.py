@@ -253,6 +253,13 @@ def lint(
                                   help="Lint every file afresh and leave the result cache alone. By default a file whose bytes, linked files, options and cfgcheck release are unchanged reuses its stored result (folder: $CFGCHECK_CACHE_DIR, else the user cache folder)."),
 ) -> None:
     """Check training configs and report what would waste the run."""
+    arguments = dict(locals())
+    from .cache import lint_from_cache  # an unchanged run is answered here, importing little else
+
+    run = lint_from_cache(arguments, _Progress(sys.stderr) if not (quiet or summary)
+                          and sys.stderr.isatty() else None)
+    if run.code is not None:
+        raise SystemExit(run.code)
     from . import api
     from .findings import BaselineError
     from .findings import OptionError, Severity, printable
@@ -352,7 +359,7 @@ def lint(
             out = render("text", report, shown, hidden_info=hidden, color=tty_color, frames=frames,
                          mode=mode)
     _write(out)
-    raise SystemExit(api.exit_code(report, fail_on))
+    raise SystemExit(run.done(api.exit_code(report, fail_on)))
 
 
 @commands.command("derive")

@@ -666,8 +666,10 @@ def walk_paths(paths: Iterable[str | Path], suffixes: tuple[str, ...] = CONFIG_S
 
     for p in paths:
         p = Path(p)
+        reads.note_kind(p)  # for the result cache: what the walk saw decides the files linted
         if p.is_dir():
             for root, dirs, files in os.walk(p, onerror=unlistable):
+                reads.note_walk(root)
                 dirs[:] = sorted(d for d in dirs if not d.startswith("."))
                 for f in sorted(files):
                     if f.lower().endswith(suffixes):

@@ -24,6 +24,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Iterable
 
+from . import reads
 from .engine import Options
 from .load import walk_paths
 from .load import dotted
@@ -707,6 +708,7 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
                 problems.append((name, line, col, str(exc)))
         launch = tuple(str(path.parent / f) for f in _globs(prof.get("launch")))
         for j, f in enumerate(launch):
+            reads.note_kind(f)  # for the result cache: a launch file vanishing fails the project
             if not Path(f).is_file():
                 at = ("profiles", i, "launch") + ((j,) if isinstance(prof.get("launch"), list) else ())
                 line, col = locate(at)
@@ -722,6 +724,7 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
     readers = []
     for i, r in enumerate(data.get("readers") or []):
         script = (path.parent / r["script"]).resolve()
+        reads.note_kind(script)  # for the result cache: a reader script vanishing fails the project
         if not r["script"].strip().lower().endswith(".py"):
             line, col = locate(("readers", i, "script"))
             problems.append((name, line, col, f"readers[{i}].script: {_show(r['script'])} is not a Python "
@@ -736,6 +739,8 @@ def _resolve(data: dict[str, Any], path: Path, locate) -> Project:
     if problems:
         raise ProjectError(problems)
     root = path.parent
+    if "baseline" in data:
+        reads.note_kind(root / data["baseline"])  # for the result cache: used only when it exists
     return Project(
         source=path, root=root, data=data, configs=configs, exclude=exclude,
         only=only, skip=skip, severity=severity, thresholds=thresholds, profiles=profiles,

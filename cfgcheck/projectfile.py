@@ -32,12 +32,18 @@ def _short(reason: str, limit: int = 300) -> str:
 def find_file(start: str | Path | None = None) -> Path | None:
     """The nearest cfgcheck.yaml, or pyproject.toml with a [tool.cfgcheck] table, walking up from
     ``start`` to the repository root (a folder holding .git) or the filesystem root."""
+    from . import reads  # the result cache re-checks what the search looked at
+
     here = Path(os.path.abspath(start or os.getcwd()))
+    reads.note_kind(here)
     if not here.is_dir():
         here = here.parent
     for folder in (here, *here.parents):
         yaml_file = folder / YAML_NAME
         toml_file = folder / TOML_NAME
+        reads.note_kind(yaml_file)
+        reads.note_file(toml_file)
+        reads.note_kind(folder / ".git")
         has_table = toml_file.is_file() and _mentions_table(toml_file)
         if yaml_file.is_file():
             if has_table:

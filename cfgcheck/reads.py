@@ -26,7 +26,7 @@ import stat
 from typing import Any, Callable, Iterator
 
 # (kind, absolute path, pattern or "") -> fact; kinds: "f" content, "k" kind of path, "d" names,
-# "s" subfolder names
+# "s" subfolder names, "w" a folder's entries as a walk sees them (names, each marked folder or not)
 Facts = dict[tuple[str, str, str], str]
 
 _RECORD: contextvars.ContextVar[Facts | None] = contextvars.ContextVar("cfgcheck_reads", default=None)
@@ -64,6 +64,21 @@ def path_kind(path: Any) -> str:
     return "other"
 
 
+_NONBLOCK = getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0)
+
+
+def regular_bytes(path: Any, limit: int = MAX_HASHED) -> tuple[os.stat_result, bytes] | None:
+    """(stat, bytes) of a regular file of at most LIMIT bytes; None for anything else (a FIFO,
+    a device, a folder, a bigger file). Opened without blocking, so a pipe never hangs the run.
+    Raises OSError when the path cannot be opened."""
+    fd = os.open(path, os.O_RDONLY | _NONBLOCK)
+    with open(fd, "rb", closefd=True) as fh:
+        st = os.fstat(fd)
+        if not stat.S_ISREG(st.st_mode) or st.st_size > limit:
+            return None
+        return st, fh.read()
+
+
 def content(path: Any) -> str:
     """sha256 of a regular file's bytes, or the kind of path when it is not a readable file."""
     kind = path_kind(path)
@@ -74,8 +89,10 @@ def content(path: Any) -> str:
         if size > MAX_HASHED:
             st = os.stat(path)
             return f"large:{st.st_size}:{st.st_mtime_ns}"
-        with open(path, "rb") as fh:
-            return hashlib.sha256(fh.read()).hexdigest()
+        got = regular_bytes(path)
+        if got is None:  # replaced by a pipe or a device, or grown, since the stat
+            return path_kind(path)
+        return hashlib.sha256(got[1]).hexdigest()
     except OSError as exc:
         return f"unreadable:{exc.errno}"
 
@@ -106,6 +123,25 @@ def folders(path: Any) -> str:
     return hashlib.sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
 
 
+def listing(path: Any) -> str:
+    """sha256 of a folder's entries as ``os.walk`` splits them: each name, marked as a folder
+    (links to folders included) or not."""
+    try:
+        with os.scandir(path) as it:
+            found = []
+            for e in it:
+                try:
+                    is_dir = e.is_dir()
+                except OSError:
+                    is_dir = False
+                found.append(("d/" if is_dir else "f/") + e.name)
+    except (FileNotFoundError, NotADirectoryError, ValueError):
+        return "missing"
+    except OSError as exc:
+        return f"error:{exc.errno}"
+    return hashlib.sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
+
+
 def fact(kind: str, path: str, pattern: str = "") -> str:
     """The fact of KIND about PATH as the disk says now."""
     if kind == "f":
@@ -114,6 +150,8 @@ def fact(kind: str, path: str, pattern: str = "") -> str:
         return path_kind(path)
     if kind == "s":
         return folders(path)
+    if kind == "w":
+        return listing(path)
     return names(path, pattern)
 
 
@@ -156,6 +194,16 @@ def note_folders(path: Any) -> None:
     facts = _RECORD.get()
     if facts is not None:
         facts.setdefault(("s", _abs(path), ""), folders(path))
+
+
+def note_walk(path: Any) -> None:
+    """A walk listed folder PATH: which files it holds and which folders it goes on into decided
+    which files are linted."""
+    facts = _RECORD.get()
+    if facts is not None:
+        key = ("w", _abs(path), "")
+        if key not in facts:  # the configs' walk and the scripts' walk list the same folders
+            facts[key] = listing(path)
 
 
 def replay(seen: tuple) -> None:

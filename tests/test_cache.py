@@ -234,7 +234,7 @@ def test_catalogue_or_code_change_is_a_miss(tmp_path, monkeypatch):
 def test_the_package_fingerprint_covers_the_rule_records():
     from cfgcheck.catalogue import catalogue_dir
 
-    listed = {p.resolve() for p in cache._package_files()}
+    listed = {Path(p).resolve() for p in cache._package_files()}
     records = sorted(catalogue_dir().glob("*.yaml"))
     assert records and all(r.resolve() in listed for r in records)
     assert Path(cache.__file__).resolve() in listed
@@ -563,3 +563,370 @@ def test_every_file_a_lint_opens_is_recorded(tmp_path):
     unseen = {f: u for f, u in json.loads(p.stdout.splitlines()[-1]).items() if u}
     assert unseen == {}
     assert len(json.loads(p.stdout.splitlines()[-1])) > 20
+
+
+# --------------------------------------------------------------------------- whole runs (the command line)
+
+def _lint_cli(args, folder, *, lean: bool | None = None, monkeypatch=None, **env):
+    """(exit code, stdout bytes, stderr bytes) of `cfgcheck lint ARGS` in this process, through
+    the cache folder FOLDER. lean=True: the run must be answered by its stored record (the full
+    lint is made to fail); lean=False: it must not be (the full lint is watched)."""
+    from typer.testing import CliRunner
+
+    from cfgcheck.cli import app
+
+    called = []
+    if lean is not None:
+        real = api.lint
+
+        def full_lint(*a, **k):
+            called.append(1)
+            if lean:
+                raise AssertionError("the stored run record was not used")
+            return real(*a, **k)
+
+        monkeypatch.setattr(api, "lint", full_lint)
+    result = CliRunner().invoke(app, ["lint", *map(str, args)],
+                                env={"CFGCHECK_CACHE_DIR": str(folder), "NO_COLOR": "1", **env})
+    if lean is not None:
+        monkeypatch.setattr(api, "lint", real)
+        assert called == ([] if lean else [1])
+    assert result.exception is None or isinstance(result.exception, SystemExit), result.exception
+    return result.exit_code, result.stdout_bytes, result.stderr_bytes
+
+
+def _run_records(folder: Path) -> list[Path]:
+    return sorted(p for p in (folder / f"lint-{cache.FORMAT}" / "runs").glob("*/*") if not p.name.endswith(".tmp"))
+
+
+@pytest.mark.parametrize("fmt", ["text", "json", "sarif", "github"])
+def test_an_unchanged_run_is_answered_byte_identical_from_its_record(tmp_path, monkeypatch, fmt):
+    paths = [ROOT / "fixtures" / "demo", ROOT / "fixtures" / "clean", ROOT / "fixtures" / "launch"]
+    folder = tmp_path / "cache"
+    args = [*paths, "--format", fmt, "--show", "info", "--no-project"]
+    uncached = _lint_cli([*args, "--no-cache"], folder)
+    assert not folder.exists()
+    stored = _lint_cli(args, folder, lean=False, monkeypatch=monkeypatch)
+    assert len(_run_records(folder)) == 1
+    served = _lint_cli(args, folder, lean=True, monkeypatch=monkeypatch)
+    assert uncached == stored == served
+    assert uncached[0] == 1 and len(uncached[1]) > 500  # the fixtures hold findings
+
+
+def test_a_run_with_the_summary_or_quiet_output_is_its_own_record(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    folder = tmp_path / "cache"
+    answers = {}
+    for extra in ([], ["--summary"], ["--quiet"]):
+        answers[tuple(extra)] = _lint_cli([cfg, "--no-project", *extra], folder, lean=False, monkeypatch=monkeypatch)
+    for extra, answer in answers.items():
+        assert _lint_cli([cfg, "--no-project", *extra], folder, lean=True, monkeypatch=monkeypatch) == answer
+        assert answer == _lint_cli([cfg, "--no-project", "--no-cache", *extra], folder)
+    assert len({a[1] for a in answers.values()}) == 3
+
+
+class RunCase:
+    """A command line linted (recorded), again (answered by its record), then once more after
+    CHANGE: the full lint must run and give the answer of a lint without the cache."""
+
+    def __init__(self, tmp_path: Path, monkeypatch):
+        self.folder = tmp_path / "cache"
+        self.monkeypatch = monkeypatch
+
+    def check(self, args, change, recorded=False, **env):
+        args = [*args, "--show", "info"]  # lora-scale-below-one is an info finding
+        before = _lint_cli(args, self.folder, lean=recorded, monkeypatch=self.monkeypatch, **env)
+        assert _lint_cli(args, self.folder, lean=True, monkeypatch=self.monkeypatch, **env) == before
+        changed = change()
+        new_args = [*changed, "--show", "info"] if isinstance(changed, list) else args
+        new_env = changed if isinstance(changed, dict) else env
+        after = _lint_cli(new_args, self.folder, lean=False, monkeypatch=self.monkeypatch, **new_env)
+        assert after == _lint_cli([*new_args, "--no-cache"], self.folder, **new_env)
+        assert after != before
+        # the new answer is recorded in its turn
+        assert _lint_cli(new_args, self.folder, lean=True, monkeypatch=self.monkeypatch, **new_env) == after
+        return before, after
+
+
+def test_run_record_changed_file_bytes(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    before, after = RunCase(tmp_path, monkeypatch).check([cfg, "--no-project"], lambda: cfg.write_text(GOOD_SCALE))
+    assert b"lora-scale-below-one" in before[1] and b"lora-scale-below-one" not in after[1]
+
+
+def test_run_record_changed_linked_file(tmp_path, monkeypatch):
+    cfg = tmp_path / "accelerate.yaml"
+    cfg.write_text("compute_environment: LOCAL_MACHINE\ndistributed_type: DEEPSPEED\nnum_processes: 8\n"
+                   "deepspeed_config:\n  deepspeed_config_file: ds.json\n  gradient_accumulation_steps: 4\n")
+    ds = tmp_path / "ds.json"
+    ds.write_text('{"train_micro_batch_size_per_gpu": 2, "gradient_accumulation_steps": 8, '
+                  '"zero_optimization": {"stage": 2}}\n')
+    before, after = RunCase(tmp_path, monkeypatch).check([cfg, "--no-project"], lambda: ds.write_text(
+        '{"train_micro_batch_size_per_gpu": 2, "gradient_accumulation_steps": 4, '
+        '"zero_optimization": {"stage": 2}}\n'))
+    assert b"deepspeed-file-contradicts-config" in before[1]
+    assert b"deepspeed-file-contradicts-config" not in after[1]
+
+
+def test_run_record_changed_project_file(tmp_path, monkeypatch):
+    repo = tmp_path / "repo"
+    (repo / ".git").mkdir(parents=True)
+    cfg = repo / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    project = repo / "cfgcheck.yaml"
+    project.write_text("rules:\n  skip: [unknown-key]\n")
+    before, after = RunCase(tmp_path, monkeypatch).check(
+        [cfg], lambda: project.write_text("rules:\n  skip: [lora-scale-below-one]\n"))
+    assert b"lora-scale-below-one" in before[1] and b"lora-scale-below-one" not in after[1]
+
+
+def test_run_record_project_file_that_appears(tmp_path, monkeypatch):
+    repo = tmp_path / "repo"
+    (repo / ".git").mkdir(parents=True)
+    cfg = repo / "configs" / "run.yaml"
+    cfg.parent.mkdir()
+    cfg.write_text(LOW_SCALE)
+    before, after = RunCase(tmp_path, monkeypatch).check(
+        [cfg], lambda: (repo / "cfgcheck.yaml").write_text("rules:\n  skip: [lora-scale-below-one]\n"))
+    assert b"lora-scale-below-one" in before[1] and b"lora-scale-below-one" not in after[1]
+
+
+def test_run_record_new_and_removed_files_in_a_walked_folder(tmp_path, monkeypatch):
+    top = tmp_path / "configs"
+    (top / "sub").mkdir(parents=True)
+    (top / "a.yaml").write_text(GOOD_SCALE)
+    case = RunCase(tmp_path, monkeypatch)
+    before, after = case.check([top, "--no-project"], lambda: (top / "sub" / "b.yaml").write_text(LOW_SCALE))
+    assert b"lora-scale-below-one" in after[1]
+    case.check([top, "--no-project"], lambda: (top / "sub" / "b.yaml").unlink(), recorded=True)
+    # a folder the walk skips (hidden) changes nothing: still answered by the record
+    (top / ".hidden").mkdir()
+    (top / ".hidden" / "c.yaml").write_text(LOW_SCALE)
+    args = [top, "--no-project", "--show", "info"]
+    again = _lint_cli(args, case.folder, lean=False, monkeypatch=monkeypatch)  # a new entry in top
+    (top / ".hidden" / "d.yaml").write_text(LOW_SCALE)
+    assert _lint_cli(args, case.folder, lean=True, monkeypatch=monkeypatch) == again
+
+
+def test_run_record_changed_option(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    before, after = RunCase(tmp_path, monkeypatch).check(
+        [cfg, "--no-project"], lambda: [cfg, "--no-project", "--skip", "lora-scale-below-one"])
+
+
+def test_run_record_changed_version_or_package(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    folder = tmp_path / "cache"
+    _lint_cli([cfg, "--no-project"], folder, lean=False, monkeypatch=monkeypatch)
+    _lint_cli([cfg, "--no-project"], folder, lean=True, monkeypatch=monkeypatch)
+    monkeypatch.setattr(cache, "__version__", "99.0.0")
+    _lint_cli([cfg, "--no-project"], folder, lean=False, monkeypatch=monkeypatch)
+    monkeypatch.undo()
+    record = tmp_path / "extra-record.yaml"
+    record.write_text("id: x\n")
+    files = cache._package_files()
+    monkeypatch.setattr(cache, "_package_files", lambda: files + [record])
+    _lint_cli([cfg, "--no-project"], folder, lean=False, monkeypatch=monkeypatch)
+    _lint_cli([cfg, "--no-project"], folder, lean=True, monkeypatch=monkeypatch)
+    record.write_text("id: y\n")
+    os.utime(record, ns=(1, 1))
+    _lint_cli([cfg, "--no-project"], folder, lean=False, monkeypatch=monkeypatch)
+
+
+def test_run_record_changed_environment(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    folder = tmp_path / "cache"
+    for env in ({}, {"HF_HUB_CACHE": str(tmp_path / "elsewhere")}, {"NO_COLOR": ""}):
+        _lint_cli([cfg, "--no-project"], folder, lean=False, monkeypatch=monkeypatch, **env)
+        _lint_cli([cfg, "--no-project"], folder, lean=True, monkeypatch=monkeypatch, **env)
+
+
+def test_run_record_checkpoint_config_changed(tmp_path, monkeypatch):
+    ckpt = tmp_path / "ckpt"
+    ckpt.mkdir()
+    (ckpt / "config.json").write_text(json.dumps(LLAMA2_7B_CONFIG))
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(f"model_name_or_path: {ckpt}\nlearning_rate: 2.0e-5\nper_device_train_batch_size: 8\n"
+                   "max_seq_length: 4096\nbf16: true\n")
+    RunCase(tmp_path, monkeypatch).check(
+        [cfg, "--no-project", "--gpu", "t4"],
+        lambda: (ckpt / "config.json").write_text(json.dumps(SMALLER_LLAMA_CONFIG)))
+
+
+def test_run_record_changed_baseline_file(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    folder = tmp_path / "cache"
+    base = tmp_path / "baseline.json"
+    code, _, err = _lint_cli([cfg, "--no-project", "--save-baseline", base], folder)
+    assert code == 0 and base.is_file() and b"recorded 3 findings" in err
+    RunCase(tmp_path, monkeypatch).check([cfg, "--no-project", "--baseline", base], lambda: base.write_text(
+        json.dumps(dict(json.loads(base.read_text()), findings=[]))))
+
+
+def test_save_baseline_is_never_answered_from_a_record(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    folder = tmp_path / "cache"
+    base = tmp_path / "baseline.json"
+    for _ in range(2):
+        base.unlink(missing_ok=True)
+        assert _lint_cli([cfg, "--no-project", "--save-baseline", base], folder, lean=False,
+                         monkeypatch=monkeypatch)[0] == 0
+        assert base.is_file()
+    assert _run_records(folder) == []
+
+
+def test_corrupt_or_foreign_run_record_is_a_miss(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    folder = tmp_path / "cache"
+    args = [cfg, "--no-project", "--format", "json"]
+    answer = _lint_cli(args, folder, lean=False, monkeypatch=monkeypatch)
+    (record,) = _run_records(folder)
+    good = record.read_bytes()
+    for bad in (b"", good[:-3], good[: len(good) // 2], b"x" * len(good), good[:-30] + b"\0" * 30):
+        record.write_bytes(bad)
+        assert _lint_cli(args, folder, lean=False, monkeypatch=monkeypatch) == answer
+        record.write_bytes(bad)  # the miss stored the record afresh; break it again for the next case
+    record.write_bytes(good)
+    assert _lint_cli(args, folder, lean=True, monkeypatch=monkeypatch) == answer
+
+
+def test_run_records_are_counted_and_trimmed(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    folder = tmp_path / "cache"
+    for fmt in ("text", "json", "sarif"):
+        _lint_cli([cfg, "--no-project", "--format", fmt], folder)
+    root = folder / f"lint-{cache.FORMAT}"
+    records = _run_records(folder)
+    assert len(records) == 3
+    n, size = cache.usage(root)
+    assert n >= 3 + 1 + 1 and size >= sum(r.stat().st_size for r in records)
+    cache.trim(root, max_entries=2)
+    assert cache.usage(root)[0] <= 2
+
+
+def test_a_run_that_cannot_store_a_file_is_not_recorded(tmp_path, monkeypatch):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    folder = tmp_path / "cache"
+    monkeypatch.setattr(cache.Store, "put", lambda self, *a, **k: setattr(self, "run_whole", False) or False)
+    _lint_cli([cfg, "--no-project"], folder)
+    assert _run_records(folder) == []
+
+
+def test_a_run_answered_from_its_record_imports_no_linting_code(tmp_path):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    env = dict(ENV, CFGCHECK_CACHE_DIR=str(tmp_path / "cache"))
+    env.pop("PYTHONDONTWRITEBYTECODE", None)
+    probe = ("import sys, runpy\nsys.argv = ['cfgcheck', 'lint', sys.argv[1], '--no-project']\n"
+             "try:\n    runpy.run_module('cfgcheck', run_name='__main__')\nexcept SystemExit as e:\n"
+             "    code = e.code\nsys.stderr.write(repr((code, sorted(m for m in sys.modules if m in HEAVY))))\n")
+    heavy = ["yaml", "pickle", "json", "cfgcheck.api", "cfgcheck.engine", "cfgcheck.findings",
+             "cfgcheck.load", "cfgcheck.view", "cfgcheck.render", "cfgcheck.checks", "cfgcheck.catalogue",
+             "cfgcheck.knowledge", "cfgcheck.project", "cfgcheck.projectfile"]
+    runs = [subprocess.run([sys.executable, "-c", f"HEAVY = {heavy!r}\n" + probe, str(cfg)], capture_output=True,
+                           text=True, cwd=ROOT, env=env, timeout=120) for _ in range(2)]
+    first, second = (eval(p.stderr.strip().splitlines()[-1]) for p in runs)  # noqa: S307 - our own repr
+    assert first[0] == second[0] == 0 and runs[0].stdout == runs[1].stdout != ""
+    assert "cfgcheck.engine" in first[1]  # the first run lints
+    assert second[1] == []
+
+
+def test_concurrent_runs_leave_one_whole_run_record(tmp_path):
+    cfgs = []
+    for i in range(4):
+        cfg = tmp_path / "configs" / f"run{i}.yaml"
+        cfg.parent.mkdir(exist_ok=True)
+        cfg.write_text(LOW_SCALE if i % 2 else GOOD_SCALE)
+        cfgs.append(cfg)
+    folder = tmp_path / "cache"
+    env = dict(ENV, CFGCHECK_CACHE_DIR=str(folder))
+    cmd = [sys.executable, "-m", "cfgcheck", "lint", str(tmp_path / "configs"), "--no-project", "--format", "json"]
+    procs = [subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, cwd=ROOT, env=env)
+             for _ in range(4)]
+    answers = {(p.wait(timeout=300), *p.communicate()) for p in procs}
+    assert len(answers) == 1
+    (record,) = _run_records(folder)
+    assert not [p for p in record.parent.iterdir() if p.name.endswith(".tmp")]
+    again = subprocess.run(cmd, capture_output=True, cwd=ROOT, env=env, timeout=300)
+    assert {(again.returncode, again.stdout, again.stderr)} == answers
+
+
+@pytest.mark.parametrize("aside", ["a warning on stderr", "bytes through stdout's buffer"])
+def test_a_run_that_printed_what_a_record_cannot_hold_is_not_recorded(tmp_path, monkeypatch, aside):
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    folder = tmp_path / "cache"
+    real = api.lint
+
+    def lint_and_print(*a, **k):
+        if aside.startswith("a warning"):
+            sys.stderr.write("cfgcheck: a warning\n")
+        else:
+            sys.stdout.flush()
+            sys.stdout.buffer.write(b"raw\n")
+        return real(*a, **k)
+
+    monkeypatch.setattr(api, "lint", lint_and_print)
+    code, out, err = _lint_cli([cfg, "--no-project"], folder)
+    assert (b"raw\n" in out) or (b"a warning" in err)
+    assert _run_records(folder) == []
+    monkeypatch.setattr(api, "lint", real)
+    assert _lint_cli([cfg, "--no-project"], folder, lean=False, monkeypatch=monkeypatch)[0] == code
+    assert len(_run_records(folder)) == 1
+
+
+def test_run_record_project_baseline_that_appears(tmp_path, monkeypatch):
+    repo = tmp_path / "repo"
+    (repo / ".git").mkdir(parents=True)
+    cfg = repo / "run.yaml"
+    cfg.write_text(LOW_SCALE)
+    (repo / "cfgcheck.yaml").write_text("baseline: known.json\n")
+    known = repo / "known.json"
+    assert _lint_cli([cfg, "--save-baseline", known], tmp_path / "cache")[0] == 0
+    saved = known.read_text()
+    known.unlink()
+    before, after = RunCase(tmp_path, monkeypatch).check([cfg], lambda: known.write_text(saved))
+    assert b"lora-scale-below-one" in before[1] and b"lora-scale-below-one" not in after[1]
+
+
+def test_run_record_of_a_project_linted_without_paths(tmp_path, monkeypatch):
+    repo = tmp_path / "repo"
+    (repo / ".git").mkdir(parents=True)
+    (repo / "cfgcheck.yaml").write_text("configs: ['configs/**']\n")
+    (repo / "configs" / "team").mkdir(parents=True)
+    (repo / "configs" / "a.yaml").write_text(GOOD_SCALE)
+    (repo / "notes").mkdir()
+    monkeypatch.chdir(repo)
+    case = RunCase(tmp_path, monkeypatch)
+    before, after = case.check([], lambda: (repo / "configs" / "team" / "b.yaml").write_text(LOW_SCALE))
+    assert b"lora-scale-below-one" in after[1]
+    # a file outside the project's configs globs changes no answer, but a walked folder's entries:
+    # the full lint runs and gives the same bytes
+    (repo / "notes" / "c.yaml").write_text(LOW_SCALE)
+    assert _lint_cli(["--show", "info"], case.folder, lean=False, monkeypatch=monkeypatch) == after
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="named pipes are a POSIX thing")
+def test_a_pipe_among_the_configs_never_hangs_a_cached_lint(tmp_path):
+    (tmp_path / "configs").mkdir()
+    os.mkfifo(tmp_path / "configs" / "pipe.yaml")  # nothing ever writes to it: a blocking open would hang
+    (tmp_path / "configs" / "run.yaml").write_text(LOW_SCALE)
+    env = dict(ENV, CFGCHECK_CACHE_DIR=str(tmp_path / "cache"))
+    answers = []
+    for _ in range(2):
+        p = subprocess.run([sys.executable, "-m", "cfgcheck", "lint", str(tmp_path / "configs"), "--no-project"],
+                           capture_output=True, cwd=ROOT, env=env, timeout=120)
+        answers.append((p.returncode, p.stdout, p.stderr))
+    assert answers[0] == answers[1] and answers[0][0] == api.EXIT_INPUT
+    assert b"pipe.yaml:1:1: input error: not a regular file" in answers[0][1]
+    assert cache.reads.regular_bytes(str(tmp_path / "configs" / "pipe.yaml")) is None
