@@ -422,9 +422,19 @@ def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (
                     number_reader=OMEGACONF_READER if state.defaults_list else "", assumed=assumed)
 
 
+def in_experiment_folder(absolute: str, root: str) -> bool:
+    """Whether the file at ABSOLUTE (a normalised absolute path) lies in
+    ``<root>/<method>/<name>/``: the name two folders above its own is ROOT."""
+    parts = absolute.split(os.sep)  # ["", ..., root, method, name, file] for "/.../root/m/n/file"
+    return len(parts) >= 4 and parts[-4] == root
+
+
 def experiment_base(file: str, root: str, names: tuple[str, ...]) -> str | None:
     """The runner's defaults file for FILE in ``<root>/<method>/<name>/``, when it exists."""
-    folder = Path(os.path.abspath(file)).parent
+    absolute = os.path.abspath(file)
+    if not in_experiment_folder(absolute, root):
+        return None
+    folder = Path(absolute).parent
     if len(folder.parents) < 2 or folder.parents[1].name != root:
         return None
     top = folder.parents[2] if len(folder.parents) > 2 else folder.parents[1]

@@ -9,7 +9,7 @@ from __future__ import annotations
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Iterable, Iterator
+from typing import Any, Callable, Hashable, Iterable, Iterator
 
 from . import load as loadmod
 from . import memo
@@ -48,26 +48,32 @@ class Options:
 
 # --------------------------------------------------------------------------- the check context
 
-_DEFAULT_THRESHOLDS_CACHE: dict[int, tuple[Rule, dict[str, Any]]] = {}  # id(rule) -> its record's values
+_THRESHOLDS_CACHE: dict[int, tuple[Rule, Any, dict[str, Any]]] = {}  # id(rule) -> (rule, overrides, values)
 
 
 def _thresholds(rule: Rule, options: Options) -> dict[str, Any]:
-    """The rule's thresholds with the options' overrides; the record's own values are worked out
-    once per rule (checks only read them)."""
-    overrides = options.thresholds.get(rule.id)
-    if overrides:
-        return {name: overrides.get(name, rule.threshold(name)) for name in rule.thresholds}
-    got = _DEFAULT_THRESHOLDS_CACHE.get(id(rule))
-    if got is None or got[0] is not rule:
-        got = _DEFAULT_THRESHOLDS_CACHE[id(rule)] = (rule, {name: rule.threshold(name) for name in rule.thresholds})
-    return got[1]
+    """The rule's thresholds with the options' overrides, worked out once per rule and set of
+    overrides (checks only read them): a changed override, or another rule object under the same
+    id, is worked out afresh."""
+    overrides = options.thresholds.get(rule.id) or None
+    got = _THRESHOLDS_CACHE.get(id(rule))
+    if got is None or got[0] is not rule or got[1] != overrides:
+        values = ({name: overrides.get(name, rule.threshold(name)) for name in rule.thresholds}
+                  if overrides else {name: rule.threshold(name) for name in rule.thresholds})
+        got = _THRESHOLDS_CACHE[id(rule)] = (rule, dict(overrides) if overrides else None, values)
+    return got[2]
 
 
 class Context:
-    """What a check sees: the view, the knowledge, the options, and ``report``."""
+    """What a check sees: the view, the knowledge, the options, and ``report``.
+
+    ``lint_view`` makes one per view and hands it to each rule in turn, resetting what belongs
+    to one rule (its thresholds, its cannot-judge notes, its model assumption), so the answers
+    several rules of the same view share (``once``) are worked out once."""
 
     __slots__ = ("view", "run", "waivers", "waiver_paths", "earlier", "active", "doc", "rule",
-                 "options", "_sink", "file", "thresholds", "_judged_once", "_model_assumption")
+                 "options", "_sink", "file", "_thresholds", "_judged_once", "_model_assumption",
+                 "_once")
 
     def __init__(self, view: RunView, rule: Rule, options: Options, sink: list[Finding],
                  file: str, waivers: list | None = None, earlier: list[Finding] | None = None,
@@ -84,9 +90,30 @@ class Context:
         self.options = options
         self._sink = sink
         self.file = file
-        self.thresholds = _thresholds(rule, options)
+        self._thresholds: dict[str, Any] | None = None  # looked up on first use
         self._judged_once: set[str] | None = None  # made on the first cannot_judge
         self._model_assumption = ""  # set when the rule asked for a model matched by name alone
+        self._once: dict | None = None  # answers shared by the rules of this view (``once``)
+
+    @property
+    def thresholds(self) -> dict[str, Any]:
+        got = self._thresholds
+        if got is None:
+            got = self._thresholds = _thresholds(self.rule, self.options)
+        return got
+
+    def once(self, kind: Hashable, compute: Callable[[], Any]) -> Any:
+        """``compute()``, worked out once for this view whichever rules ask (it may depend on
+        the view, the file and the options, never on the rule). It lives as long as the
+        view's lint, inside the file's own record of reads, so it never outlives a run."""
+        memo_ = self._once
+        if memo_ is None:
+            memo_ = self._once = {}
+        try:
+            return memo_[kind]
+        except KeyError:
+            value = memo_[kind] = compute()
+            return value
 
     # knowledge --------------------------------------------------------------
     @property
@@ -233,18 +260,23 @@ def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: t
 
 # --------------------------------------------------------------------------- running
 
-_SELECTED_CACHE: dict[tuple, list[Rule]] = {}  # (only, skip) -> rules, worked out once per run (a cache)
+_SELECTED_CACHE: dict[tuple, tuple[list[Rule], frozenset[str]]] = {}  # (only, skip) -> rules and their ids, worked out once per run (a cache)
 
 
-def active_rules(options: Options) -> list[tuple[Rule, Any]]:
+def _selected(options: Options) -> tuple[list[Rule], frozenset[str]]:
     key = (options.only, options.skip)
-    rules = _SELECTED_CACHE.get(key)
-    if rules is None:
+    got = _SELECTED_CACHE.get(key)
+    if got is None:
         rules = [rule for rule_id, rule in load_catalogue().items()
                  if (options.only is None or rule_id in options.only)
                  and rule_id not in options.skip]
         rules.sort(key=lambda r: r.stage == "last")  # stable: catalogue order otherwise
-        _SELECTED_CACHE[key] = rules
+        got = _SELECTED_CACHE[key] = (rules, frozenset(rule.id for rule in rules))
+    return got
+
+
+def active_rules(options: Options) -> list[tuple[Rule, Any]]:
+    rules, _ids = _selected(options)
     checks = all_checks()  # looked up each time: a check may be replaced (tests do)
     return [(rule, checks[rule.id]) for rule in rules]
 
@@ -252,22 +284,31 @@ def active_rules(options: Options) -> list[tuple[Rule, Any]]:
 def lint_view(view: RunView, options: Options, file: str, report: FileReport,
               waivers: list | None = None) -> None:
     rules = active_rules(options)
-    active = frozenset(rule.id for rule, _ in rules)
-    start = len(report.findings)
-    paths = waivermod.target_paths(view.doc, {w.target for w in waivers or () if w.target})
+    active = _selected(options)[1]
+    findings = report.findings
+    start = len(findings)
+    targets = {w.target for w in waivers or () if w.target}
+    paths = waivermod.target_paths(view.doc, targets) if targets else {}
+    # one context for the view; each rule reports straight into the file's findings, and what a
+    # rule that fails had reported is taken back out
+    ctx = Context(view, rules[0][0] if rules else None, options, findings, file, waivers=waivers,
+                  active=active, waiver_paths=paths)
     for rule, fn in rules:
-        sink: list[Finding] = []
-        ctx = Context(view, rule, options, sink, file, waivers=waivers,
-                      earlier=report.findings[start:] if rule.stage == "last" else None,
-                      active=active, waiver_paths=paths)
+        if ctx.rule is not rule:  # the next rule: nothing of the last rule's stays
+            ctx.rule = rule
+            ctx._thresholds = ctx._judged_once = None
+            ctx._model_assumption = ""
+        if rule.stage == "last":
+            ctx.earlier = findings[start:]
+        mark = len(findings)
         try:
             fn(ctx)
         except Exception as exc:  # a bug in a rule: report it and go on with the others
             if options.debug:
                 raise
+            del findings[mark:]
             report.internal.append(internal_error(file, rule.id, exc))
             continue
-        report.findings.extend(sink)
     _apply_waivers(waivers or [], paths, options, report, start)
 
 

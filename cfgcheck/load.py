@@ -73,17 +73,77 @@ class Span:
     end: int
 
 
-@dataclass(slots=True)
 class Entry:
-    """Where one value of the document was written."""
+    """Where one value of the document was written.
 
-    value: Span
-    key: Span | None = None  # None for list items and the root
-    raw: str = ""  # the scalar's source text (plain or quoted), "" for collections
-    style: str | None = None  # None = plain scalar; "'", '"', "|", ">" as in YAML; "json" for JSON
-    tag: str | None = None  # an explicit tag the author wrote (recorded, never acted on)
-    kind: str = "scalar"  # "scalar" | "map" | "seq"
-    flow: bool = False  # a collection written in flow style ({...} / [...])
+    ``value`` and ``key`` (None for list items and the root) are Spans. The loaders record where
+    a value stands (the parser's node, or character offsets) and make its Span when it is first
+    asked for: a lint reads the positions of the few values its findings name.
+    """
+
+    __slots__ = ("_value", "_key", "_lines", "raw", "style", "tag", "kind", "flow")
+
+    def __init__(self, value: Span, key: Span | None = None, raw: str = "", style: str | None = None,
+                 tag: str | None = None, kind: str = "scalar", flow: bool = False):
+        self._value = value
+        self._key = key
+        self._lines = None  # how offsets become lines (a _Lines) for a JSON entry not yet placed
+        self.raw = raw  # the scalar's source text (plain or quoted), "" for collections
+        self.style = style  # None = plain scalar; "'", '"', "|", ">" as in YAML; "json" for JSON
+        self.tag = tag  # an explicit tag the author wrote (recorded, never acted on)
+        self.kind = kind  # "scalar" | "map" | "seq"
+        self.flow = flow  # a collection written in flow style ({...} / [...])
+
+    def _place(self, at: Any) -> Span:
+        lines = self._lines
+        if lines is None:  # a YAML node: its marks say where it stands
+            sm = at.start_mark
+            return Span(sm.line + 1, sm.column + 1, sm.index, at.end_mark.index)
+        return lines.span(at[0], at[1])  # (start, end) offsets in the JSON text
+
+    @property
+    def value(self) -> Span:
+        v = self._value
+        if v.__class__ is not Span:
+            v = self._value = self._place(v)
+        return v
+
+    @value.setter
+    def value(self, span: Span) -> None:
+        self._value = span
+
+    @property
+    def key(self) -> Span | None:
+        k = self._key
+        if k is not None and k.__class__ is not Span:
+            k = self._key = self._place(k)
+        return k
+
+    @key.setter
+    def key(self, span: Span | None) -> None:
+        self._key = span
+
+    @property
+    def keyed(self) -> bool:
+        """Whether the value is a mapping's member (``key`` is not None), without placing the key."""
+        return self._key is not None
+
+    def _fields(self) -> tuple:
+        return (self.value, self.key, self.raw, self.style, self.tag, self.kind, self.flow)
+
+    def __eq__(self, other: object) -> bool:
+        if other.__class__ is not self.__class__:
+            return NotImplemented
+        return self._fields() == other._fields()
+
+    __hash__ = None  # type: ignore[assignment]  # mutable, as the dataclass it replaces
+
+    def __repr__(self) -> str:
+        names = ("value", "key", "raw", "style", "tag", "kind", "flow")
+        return "Entry(" + ", ".join(f"{n}={v!r}" for n, v in zip(names, self._fields())) + ")"
+
+    def __reduce__(self) -> tuple:
+        return (Entry, self._fields())  # placed: the node or the line table stays behind
 
 
 @dataclass(slots=True)
@@ -203,12 +263,17 @@ def decode(raw: bytes, name: str, limit: int = MAX_FILE_BYTES, what: str = "a co
     return Source(name=name, text=text, encoding=encoding, bom=bom, newline=newline)
 
 
+_SEPARATORS = tuple({os.sep, os.altsep or os.sep})
+
+
 def read_source(path: str | Path, limit: int = MAX_FILE_BYTES, what: str = "a config file") -> Source:
     """Read a regular file, never more than the size limit (a FIFO or /dev/zero cannot hang us)."""
-    p = Path(path)
+    # a name as the walk gives it is opened as it is; a Path object, "" or a trailing slash are
+    # taken as Path reads them ("dir/" is "dir", "" is ".")
+    p = path if path.__class__ is str and path and not path.endswith(_SEPARATORS) else Path(path)
     try:
         try:
-            st = p.stat()
+            st = os.stat(p)
             if stat.S_ISDIR(st.st_mode):
                 raise LoadError("is a folder, not a file")
             if not stat.S_ISREG(st.st_mode):
@@ -355,102 +420,105 @@ def _load_yaml(text: str, name: str) -> list[Document]:
     return docs
 
 
+_STR = "tag:yaml.org,2002:str"
+_NULL = "tag:yaml.org,2002:null"
+_BOOL = "tag:yaml.org,2002:bool"
+_INT = "tag:yaml.org,2002:int"
+_FLOAT = "tag:yaml.org,2002:float"
+_ScalarNode = yaml.ScalarNode
+_SequenceNode = yaml.SequenceNode
+_BOOL_WORDS = MappingProxyType(dict(yaml.constructor.SafeConstructor.bool_values))
+
+
+def _start(node: yaml.Node) -> tuple[int, int]:
+    m = node.start_mark
+    return m.line + 1, m.column + 1
+
+
 class _YamlBuilder:
     def __init__(self, doc: Document, text: str):
         self.doc = doc
         self.text = text
         self.count = 0
-        self.seen_alias: dict[int, Any] = {}
+        self.entries = doc.entries
         self.open: set[int] = set()  # collection nodes being built: an alias back to one is a cycle
 
-    def _tick(self, node: yaml.Node) -> None:
+    def build(self, node: yaml.Node, path: Path_, knode: yaml.Node | None, depth: int) -> Any:
+        """NODE's value; its Entry (placed by NODE and its key node KNODE) goes in the document."""
+        if depth > MAX_DEPTH:
+            raise LoadError(f"nested more than {MAX_DEPTH} levels deep", *_start(node))
         self.count += 1
         if self.count > MAX_NODES:
-            m = node.start_mark
             raise LoadError(
                 f"document expands to more than {MAX_NODES:,} values (aliases multiply them); refused",
-                m.line + 1,
-                m.column + 1,
-            )
-
-    def build(self, node: yaml.Node, path: Path_, key_span: Span | None, depth: int) -> Any:
-        if depth > MAX_DEPTH:
-            m = node.start_mark
-            raise LoadError(f"nested more than {MAX_DEPTH} levels deep", m.line + 1, m.column + 1)
-        self._tick(node)
-        span = _mark_span(node)
+                *_start(node))
         tag = node.tag
         explicit = None
         if tag not in _STD_TAGS:
             explicit = tag
             self.doc.tags.append((path, tag))
-        if isinstance(node, yaml.ScalarNode):
-            raw = self.text[span.start:span.end]
-            value = self._scalar(node, path, raw)
-            self.doc.entries[path] = Entry(
-                value=span, key=key_span, raw=raw, style=node.style or None, tag=explicit, kind="scalar"
-            )
+        if node.__class__ is _ScalarNode:
+            raw = self.text[node.start_mark.index:node.end_mark.index]
+            value = self._scalar(node, path)
+            self.entries[path] = Entry(node, knode, raw, node.style or None, explicit)
             return value
-        if id(node) in self.open:
-            m = node.start_mark
+        key = id(node)
+        if key in self.open:
             raise LoadError("an alias refers to a collection that contains it (a cycle); refused",
-                            m.line + 1, m.column + 1)
-        self.open.add(id(node))
+                            *_start(node))
+        self.open.add(key)
         try:
-            return self._collection(node, path, key_span, depth, span, explicit)
+            if node.__class__ is _SequenceNode:
+                self.entries[path] = Entry(node, knode, "", None, explicit, "seq", bool(node.flow_style))
+                depth += 1
+                build = self.build
+                return [build(item, path + (i,), None, depth) for i, item in enumerate(node.value)]
+            self.entries[path] = Entry(node, knode, "", None, explicit, "map", bool(node.flow_style))
+            return self._mapping(node, path, depth)
         finally:
-            self.open.discard(id(node))
+            self.open.discard(key)
 
-    def _collection(self, node: yaml.Node, path: Path_, key_span: Span | None, depth: int,
-                    span: Span, explicit: str | None) -> Any:
-        if isinstance(node, yaml.SequenceNode):
-            self.doc.entries[path] = Entry(
-                value=span, key=key_span, tag=explicit, kind="seq", flow=bool(node.flow_style)
-            )
-            out = []
-            for i, item in enumerate(node.value):
-                out.append(self.build(item, path + (i,), None, depth + 1))
-            return out
-        # mapping
-        self.doc.entries[path] = Entry(
-            value=span, key=key_span, tag=explicit, kind="map", flow=bool(node.flow_style)
-        )
+    def _mapping(self, node: yaml.Node, path: Path_, depth: int) -> dict:
         out: dict[Any, Any] = {}
-        key_spans: dict[Any, Span] = {}
-        merged: dict[Any, Any] = {}
+        key_nodes: dict[Any, yaml.Node] = {}
+        merged: dict[Any, Any] | None = None
+        depth += 1
+        build = self.build
         for knode, vnode in node.value:
-            if knode.tag == _MERGE:
-                self._merge(vnode, path, merged, depth)
+            ktag = knode.tag
+            if ktag == _STR and knode.__class__ is _ScalarNode:
+                key = knode.value  # the common case: a plain key
+            elif ktag == _MERGE:
+                if merged is None:
+                    merged = {}
+                self._merge(vnode, path, merged, depth - 1)
                 continue
-            if isinstance(knode, yaml.ScalarNode):
-                key = self._scalar(knode, None, knode.value)
+            elif knode.__class__ is _ScalarNode:
+                key = self._scalar(knode, None)
                 if isinstance(key, (list, dict)):
                     key = knode.value
             else:
                 # complex keys are not used by any training config; keep their source text
-                ks = _mark_span(knode)
-                key = self.text[ks.start:ks.end]
+                key = self.text[knode.start_mark.index:knode.end_mark.index]
             if not isinstance(key, (str, int, float, bool)) and key is not None:
                 key = str(key)
-            kspan = _mark_span(knode)
-            value = self.build(vnode, path + (key,), kspan, depth + 1)
+            value = build(vnode, path + (key,), knode, depth)
             if key in out:
                 self.doc.duplicates.append(
-                    Duplicate(path + (key,), key_spans[key], kspan, out[key], value)
+                    Duplicate(path + (key,), _mark_span(key_nodes[key]), _mark_span(knode), out[key], value)
                 )
             out[key] = value
-            key_spans[key] = kspan
-        for k, v in merged.items():  # explicit keys win over merged ones (YAML merge-key rules)
-            out.setdefault(k, v)
+            key_nodes[key] = knode
+        if merged:
+            for k, v in merged.items():  # explicit keys win over merged ones (YAML merge-key rules)
+                out.setdefault(k, v)
         return out
 
     def _merge(self, vnode: yaml.Node, path: Path_, merged: dict, depth: int) -> None:
         sources = vnode.value if isinstance(vnode, yaml.SequenceNode) else [vnode]
         for src in sources:
             if not isinstance(src, yaml.MappingNode):
-                m = src.start_mark
-                raise LoadError("a merge key (<<) needs a mapping or a list of mappings",
-                                m.line + 1, m.column + 1)
+                raise LoadError("a merge key (<<) needs a mapping or a list of mappings", *_start(src))
             # merged values are written elsewhere: their positions stay those of the anchor
             sub = _YamlBuilder(Document(name=self.doc.name, format="yaml", data=None), self.text)
             sub.count = self.count
@@ -460,48 +528,54 @@ class _YamlBuilder:
             for k, v in value.items():
                 merged.setdefault(k, v)
 
-    def _scalar(self, node: yaml.ScalarNode, path: Path_ | None, raw: str) -> Any:
-        try:
-            return self._scalar_value(node, path, raw)
-        except (ValueError, OverflowError) as exc:  # e.g. an integer with more digits than Python reads
-            m = node.start_mark
-            why = _one_line(exc).split(";")[0]
-            raise LoadError(f"value cannot be read: {why}", m.line + 1, m.column + 1) from None
-
-    def _scalar_value(self, node: yaml.ScalarNode, path: Path_ | None, raw: str) -> Any:
+    def _scalar(self, node: yaml.ScalarNode, path: Path_ | None) -> Any:
+        """The value of a scalar (PATH None for a key: a key's reading is not reported)."""
         tag = node.tag
         text = node.value
-        if tag == "tag:yaml.org,2002:str" or tag not in _STD_TAGS:
-            if path is not None and not node.style and tag == "tag:yaml.org,2002:str":
+        if tag == _STR or tag not in _STD_TAGS:
+            if path is not None and not node.style and tag == _STR:
                 if _EXP_NO_DOT.match(text) and _CORE_FLOAT.match(text):
                     self.doc.ambiguities.append(
                         Ambiguity(path, "exponent-without-dot", text, text, float(text))
                     )
             return text
-        if tag == "tag:yaml.org,2002:null":
+        if tag == _NULL:
             return None
-        if tag == "tag:yaml.org,2002:bool":
-            value = _constructor.construct_yaml_bool(node)
-            if path is not None and not node.style and text.lower() in _WORD_BOOL:
-                self.doc.ambiguities.append(Ambiguity(path, "word-boolean", text, value, text))
-            return value
-        if tag == "tag:yaml.org,2002:int":
-            value = _constructor.construct_yaml_int(node)
-            if path is not None and not node.style:
-                plain = text.replace("_", "")
-                digits = plain.lstrip("+-")
-                if ":" in plain:
+        try:
+            if tag == _INT:
+                if text.isdigit() and text.isascii() and (text[0] != "0" or text == "0"):
+                    return int(text)  # what the constructor gives, without its detours
+                value = _constructor.construct_yaml_int(node)
+                if path is not None and not node.style:
+                    plain = text.replace("_", "")
+                    digits = plain.lstrip("+-")
+                    if ":" in plain:
+                        self.doc.ambiguities.append(Ambiguity(path, "base-60", text, value, text))
+                    elif len(digits) > 1 and digits.startswith("0") and digits.isdigit():
+                        self.doc.ambiguities.append(
+                            Ambiguity(path, "leading-zero-octal", text, value, int(plain, 10))
+                        )
+                return value
+            if tag == _BOOL:
+                value = _BOOL_WORDS.get(text.lower())
+                if value is None:
+                    value = _constructor.construct_yaml_bool(node)
+                if path is not None and not node.style and text.lower() in _WORD_BOOL:
+                    self.doc.ambiguities.append(Ambiguity(path, "word-boolean", text, value, text))
+                return value
+            if tag == _FLOAT:
+                if "_" not in text and ":" not in text:
+                    try:
+                        return float(text)  # what the constructor gives for such text
+                    except ValueError:
+                        pass  # .inf, .nan and the like
+                value = _constructor.construct_yaml_float(node)
+                if path is not None and not node.style and ":" in text:
                     self.doc.ambiguities.append(Ambiguity(path, "base-60", text, value, text))
-                elif len(digits) > 1 and digits.startswith("0") and digits.isdigit():
-                    self.doc.ambiguities.append(
-                        Ambiguity(path, "leading-zero-octal", text, value, int(plain, 10))
-                    )
-            return value
-        if tag == "tag:yaml.org,2002:float":
-            value = _constructor.construct_yaml_float(node)
-            if path is not None and not node.style and ":" in text:
-                self.doc.ambiguities.append(Ambiguity(path, "base-60", text, value, text))
-            return value
+                return value
+        except (ValueError, OverflowError) as exc:  # e.g. an integer with more digits than Python reads
+            why = _one_line(exc).split(";")[0]
+            raise LoadError(f"value cannot be read: {why}", *_start(node)) from None
         # timestamps, binary and the like: keep the text, construct nothing
         return text
 
@@ -528,19 +602,10 @@ def _reject_constant(name: str) -> Any:
 
 def _load_json(text: str, name: str) -> Document:
     import json  # YAML-only runs do not pay for it
-    duplicates_seen: list[str] = []
-
-    def pairs(items: list[tuple[str, Any]]) -> dict:
-        out: dict[str, Any] = {}
-        for k, v in items:
-            if k in out:
-                duplicates_seen.append(k)
-            out[k] = v
-        return out
 
     body = text[1:] if text.startswith("\ufeff") else text
-    try:
-        data = json.loads(body, object_pairs_hook=pairs, parse_constant=_reject_constant)
+    try:  # a repeated key: the last value, as here; the scan below reports the repetition
+        data = json.loads(body, parse_constant=_reject_constant)
     except json.JSONDecodeError as exc:
         raise LoadError(f"invalid JSON: {exc.msg}", exc.lineno, exc.colno) from None
     except ValueError as exc:  # NaN/Infinity, or an integer longer than Python reads
@@ -549,8 +614,7 @@ def _load_json(text: str, name: str) -> Document:
     except RecursionError:
         raise LoadError(f"nested more than {MAX_DEPTH} levels deep") from None
     doc = Document(name=name, format="json", data=data)
-    scanner = _JsonScanner(text, doc)
-    scanner.run()
+    _json_entries(text, doc)
     return doc
 
 
@@ -562,91 +626,104 @@ def _json_string(literal: str) -> str:
     return json.loads(literal)
 
 
-class _JsonScanner:
-    """Records the position of every key and value of text already known to be valid JSON."""
+class _Lines:
+    """Character offsets -> 1-based lines and columns; the line starts are found when first asked."""
 
-    _ws = re.compile(r"[ \t\r\n]*")
-    _string = re.compile(r'"(?:[^"\\]|\\.)*"', re.S)
-    _number = re.compile(r"-?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?(?:[eE][-+]?[0-9]+)?")
-    _word = re.compile(r"true|false|null")
+    __slots__ = ("text", "starts")
 
-    def __init__(self, text: str, doc: Document):
+    def __init__(self, text: str):
         self.text = text
-        self.doc = doc
-        self.pos = 1 if text.startswith("\ufeff") else 0
-        # line starts, for offset -> line/column
-        self.starts = [0] + [m.end() for m in re.finditer("\n", text)]
+        self.starts: list[int] | None = None
 
     def span(self, start: int, end: int) -> Span:
-        line = bisect.bisect_right(self.starts, start)
-        return Span(line=line, column=start - self.starts[line - 1] + 1, start=start, end=end)
+        starts = self.starts
+        if starts is None:
+            starts = self.starts = [0] + [m.end() for m in re.finditer("\n", self.text)]
+        line = bisect.bisect_right(starts, start)
+        return Span(line=line, column=start - starts[line - 1] + 1, start=start, end=end)
 
-    def skip(self) -> None:
-        self.pos = self._ws.match(self.text, self.pos).end()
 
-    def after_item(self) -> None:
-        self.skip()
-        if self.text[self.pos] == ",":
-            self.pos += 1
-            self.skip()
+# the tokens of JSON text: a string, an opening or closing bracket, a number or word; what lies
+# between them (white space, ':' and ',') is passed over
+_JSON_TOKEN = re.compile(
+    r'("[^"\\]*(?:\\.[^"\\]*)*")|([{[])|([}\]])'
+    r"|(-?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?(?:[eE][-+]?[0-9]+)?|true|false|null)",
+    re.S)
 
-    def close(self, path: Path_, start: int, key_span: Span | None, kind: str) -> None:
-        self.pos += 1  # the closing bracket
-        self.doc.entries[path] = Entry(value=self.span(start, self.pos), key=key_span, kind=kind,
-                                       style="json")
 
-    def run(self) -> None:
-        self.skip()
-        self.value((), None, 0)
-
-    def value(self, path: Path_, key_span: Span | None, depth: int) -> None:
-        if depth > MAX_DEPTH:
-            sp = self.span(self.pos, self.pos)
-            raise LoadError(f"nested more than {MAX_DEPTH} levels deep", sp.line, sp.column)
-        t = self.text
-        start = self.pos
-        ch = t[start]
-        if ch == "{":
-            self.pos += 1
-            self.skip()
-            dups: dict[str, Span] = {}
-            while t[self.pos] != "}":
-                m = self._string.match(t, self.pos)
-                kspan = self.span(m.start(), m.end())
-                key = _json_string(m.group())
-                self.pos = m.end()
-                self.skip()
-                self.pos += 1  # ':'
-                self.skip()
-                child = path + (key,)
-                if key in dups:
-                    self.doc.duplicates.append(
-                        Duplicate(child, dups[key], kspan, None, self.doc.get(child))
-                    )
-                dups[key] = kspan
-                self.value(child, kspan, depth + 1)
-                self.after_item()
-            self.close(path, start, key_span, "map")
-        elif ch == "[":
-            self.pos += 1
-            self.skip()
-            i = 0
-            while t[self.pos] != "]":
-                self.value(path + (i,), None, depth + 1)
-                i += 1
-                self.after_item()
-            self.close(path, start, key_span, "seq")
+def _json_entries(text: str, doc: Document) -> None:
+    """Record the position of every key and value of TEXT, already known to be valid JSON, as
+    offsets (placed on lines when asked), and the keys an object repeats."""
+    lines = _Lines(text)
+    entries = doc.entries
+    stack: list[tuple] = []  # the states of the containers around the innermost open one
+    depth = 0  # containers open
+    # the innermost open container: its path, where it starts, where its own key stands, whether
+    # it is an object, and in it the next item's index, or the next member's key and its place
+    base: Path_ = ()
+    start = 0
+    own_key: tuple[int, int] | None = None
+    in_map = False
+    index = 0
+    key: str = ""
+    key_at: tuple[int, int] | None = None
+    want_key = False
+    seen: dict[str, tuple[int, int]] = {}  # the open object's keys so far
+    for m in _JSON_TOKEN.finditer(text, 1 if text.startswith("\ufeff") else 0):
+        kind = m.lastindex
+        if kind == 1 and want_key:  # a member's key
+            lit = m.group(1)
+            key = lit[1:-1] if "\\" not in lit else _json_string(lit)
+            key_at = m.span()
+            want_key = False
+            first = seen.get(key)
+            if first is not None:
+                child = base + (key,)
+                doc.duplicates.append(Duplicate(child, lines.span(*first), lines.span(*key_at),
+                                                None, doc.get(child)))
+            seen[key] = key_at
+            continue
+        if kind == 3:  # the innermost container ends
+            e = Entry((start, m.end()), own_key, "", "json", None, "map" if in_map else "seq")
+            e._lines = lines
+            entries[base] = e
+            depth -= 1
+            if not depth:
+                break
+            base, start, own_key, in_map, index, key, key_at, seen = stack.pop()
+            want_key = in_map  # the container was the value of a member, or an item
+            if not in_map:
+                index += 1
+            continue
+        # a value: where it goes
+        if not depth:
+            path, at = (), None
+        elif in_map:
+            path, at = base + (key,), key_at
         else:
-            if ch == '"':
-                m = self._string.match(t, start)
-            elif ch in "-0123456789":
-                m = self._number.match(t, start)
-            else:
-                m = self._word.match(t, start)
-            self.pos = m.end()
-            self.doc.entries[path] = Entry(
-                value=self.span(start, self.pos), key=key_span, raw=m.group(), style="json"
-            )
+            path, at = base + (index,), None
+        if depth > MAX_DEPTH:
+            sp = lines.span(m.start(), m.start())
+            raise LoadError(f"nested more than {MAX_DEPTH} levels deep", sp.line, sp.column)
+        if kind == 2:  # a container begins
+            if depth:
+                stack.append((base, start, own_key, in_map, index, key, key_at, seen))
+            depth += 1
+            base, start, own_key = path, m.start(), at
+            in_map = m.group(2) == "{"
+            index, want_key = 0, in_map
+            if in_map:
+                seen = {}
+            continue
+        e = Entry(m.span(), at, m.group(), "json")
+        e._lines = lines
+        entries[path] = e
+        if not depth:
+            break
+        if in_map:
+            want_key = True
+        else:
+            index += 1
 
 
 # --------------------------------------------------------------------------- finding files

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from types import MappingProxyType
 from typing import Any
@@ -198,11 +198,15 @@ def _words(f) -> str:
 
 def _estimate(inputs: MemoryInputs) -> MemoryBreakdown:
     """estimate_memory, once per run for the same inputs (configs of one recipe share them)."""
+    key = inputs
+    targets = inputs.lora_targets
+    if isinstance(targets, list):  # a written list: the same names (and their type) make the key
+        key = (replace(inputs, lora_targets=tuple(targets)), list)
     try:
-        hash(inputs)
+        hash(key)
     except TypeError:
         return estimate_memory(inputs)
-    return remembered("estimate_memory", inputs, lambda: estimate_memory(inputs))
+    return remembered("estimate_memory", key, lambda: estimate_memory(inputs))
 
 
 def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Architecture | None:
@@ -212,14 +216,15 @@ def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Archite
     ref = view.value("model.ref")
     arch = None
     if isinstance(ref, str) and ref.strip():
-        parent = Path(file).parent if file and not file.startswith("<") else None
-        here = cwd or Path(os.getcwd())
+        folder = os.path.dirname(file) if file and not file.startswith("<") else None
+        here = str(cwd) if cwd else os.getcwd()
 
         def resolve():
-            return _models.resolve_model(ref.strip(), config_dir=parent, cwd=here, declared=declared)
+            parent = Path(file).parent if folder is not None else None
+            return _models.resolve_model(ref.strip(), config_dir=parent, cwd=cwd or Path(here), declared=declared)
 
         try:  # the same reference from the same folder: looked up once per run (cfgcheck.memo)
-            key = (ref.strip(), str(parent), str(here), declared)
+            key = (ref.strip(), folder, here, declared)
             hash(key)
         except TypeError:
             arch = resolve()
@@ -230,17 +235,36 @@ def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Archite
 
 
 def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gpus: int | None,
-                rows: int | None) -> Plan:
+                rows: int | None, describe: bool = True) -> Plan:
     """The derived run of an opened view (``cfgcheck.run.open_view``): launch context, linked
-    files and runner defaults are read through ``view.effective``; ``gpus`` as the run resolved."""
+    files and runner defaults are read through ``view.effective``; ``gpus`` as the run resolved.
+
+    ``describe=False``: only the memory estimate (``memory``, ``memory_problem``, ``memory_inputs``)
+    and what it rests on are worked out the same way; the words and numbers that only describe the
+    run (launch context, defaults used, learning rate, schedule intervals) are left out."""
     run = view.run
     ref = view.value("model.ref")
     plan = Plan(method=view.method, method_stated=view.method_stated,
                 model_ref=ref if isinstance(ref, str) else None, arch=arch, gpu=gpu)
-    if run is not None:
+    if run is not None and describe:
         plan.context = run.context_words()
     sched = derive_for(view, gpus=gpus, rows=rows)
     plan.schedule = sched
+    if describe:
+        _describe_defaults(view, plan, sched)
+    seq_f = view.effective("data.seq_len")
+    seq = seq_f.value if seq_f is not None else None
+    if not isinstance(seq, int) or seq <= 0:
+        seq, plan.seq_len_assumed = DEFAULT_SEQ_LEN, True
+        plan.assumptions.append(f"sequence length {DEFAULT_SEQ_LEN} because the file names none "
+                                f"(set max_length, or the runner's own sequence-length key)")
+    plan.seq_len = seq
+    if describe:
+        _describe_run(view, plan, sched, seq)
+    return _derive_memory(view, arch, plan, run, sched, ref)
+
+
+def _describe_defaults(view: RunView, plan: Plan, sched: Schedule) -> None:
     aside = {f.name for f in view.out_of_range}  # written, but past any run's range
     for name in sched.defaults_used:
         if name in aside:  # written past any run's range: the default stands in, a guess
@@ -253,13 +277,9 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
             plan.defaults.append(f.note)
         elif f.note:
             plan.supplied.append((f.origin, f.note))
-    seq_f = view.effective("data.seq_len")
-    seq = seq_f.value if seq_f is not None else None
-    if not isinstance(seq, int) or seq <= 0:
-        seq, plan.seq_len_assumed = DEFAULT_SEQ_LEN, True
-        plan.assumptions.append(f"sequence length {DEFAULT_SEQ_LEN} because the file names none "
-                                f"(set max_length, or the runner's own sequence-length key)")
-    plan.seq_len = seq
+
+
+def _describe_run(view: RunView, plan: Plan, sched: Schedule, seq: int) -> None:
     if sched.effective_batch:
         plan.tokens_per_step = sched.effective_batch * seq
     lr = view.value("optim.lr")
@@ -287,6 +307,9 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
             v = view.value(name)
             if isinstance(v, (int, float)) and not isinstance(v, bool) and v > 0 and math.isfinite(v):
                 plan.cadence[what] = resolve_interval(float(v), total)
+
+
+def _derive_memory(view: RunView, arch: Architecture | None, plan: Plan, run, sched: Schedule, ref) -> Plan:
     if arch is None:
         plan.memory_problem = ("model not known offline" + (f" ({ref!r})" if isinstance(ref, str) else
                                                            " (no model named)"))

@@ -20,9 +20,11 @@ _TRUE = frozenset({"true", "yes", "on", "1"})
 _FALSE = frozenset({"false", "no", "off", "0"})
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True, unsafe_hash=True)
 class Field:
-    """One value of the view and where it was written."""
+    """One value of the view and where it was written. Never changed once made (not a frozen
+    dataclass only because a frozen one's constructor costs twice as much, and a run makes one
+    for every value of every file; equality and hashing are a frozen one's)."""
 
     name: str  # our name, e.g. "adapter.alpha"
     value: Any  # typed: numbers written as text are read as numbers here
@@ -115,10 +117,18 @@ class RunView:
 _CAMEL = re.compile(r"(?<=[a-z0-9])(?=[A-Z])")
 
 
+_SECTION_WORD_CACHE: dict[str, str] = {}
+
+
 def section_word(key: str) -> str:
     """A section name as the tables spell it: lower case, CamelCase split (TrainingArguments ->
     training_arguments), dashes as underscores."""
-    return _CAMEL.sub("_", key).lower().replace("-", "_")
+    word = _SECTION_WORD_CACHE.get(key)
+    if word is None:
+        word = _CAMEL.sub("_", key).lower().replace("-", "_")
+        if len(_SECTION_WORD_CACHE) < 4096:  # the names files use are few; a hostile file's stay bounded
+            _SECTION_WORD_CACHE[key] = word
+    return word
 
 
 def _score(layout: Layout, data: dict, top: frozenset | None = None) -> int:
@@ -127,8 +137,10 @@ def _score(layout: Layout, data: dict, top: frozenset | None = None) -> int:
     keys, prefixed keys and section-local names (every nested section too, for a layout that
     searches all sections)."""
     names = None
-    for section, prefixes in layout.sections.items():
-        sub = data.get(section)
+    sections = layout.sections
+    for section in (data if len(data) < len(sections) else sections):
+        prefixes = sections.get(section)
+        sub = data.get(section) if prefixes is not None else None
         if isinstance(sub, dict):
             if names is None:
                 names = set(data)
@@ -184,8 +196,28 @@ def _has_class_path(data: Any, depth: int = 0) -> bool:
     return any(_has_class_path(v, depth + 1) for v in data.values())
 
 
-def _matches(fmt: UnreadFormat, data: dict) -> bool:
+def _mapping_keys(data: dict) -> set:
+    """The keys of DATA and of the mappings inside it down to the depth _has_target and
+    _has_class_path look (a mapping's values that are mappings, three levels down)."""
+    keys: set = set()
+    stack = [(data, 0)]
+    while stack:
+        mapping, depth = stack.pop()
+        keys.update(mapping)
+        if depth < 3:
+            stack.extend((v, depth + 1) for v in mapping.values() if isinstance(v, dict))
+    return keys
+
+
+def _matches(fmt: UnreadFormat, data: dict, top_names: frozenset | None = None,
+             keys: list | None = None) -> bool:
+    """Whether DATA is in FMT (TOP_NAMES: DATA's str keys with dashes as underscores; KEYS: a
+    list that holds, or gets, DATA's _mapping_keys; when the caller has them)."""
+    if fmt.shape in ("class-path", "composed") and keys is not None and not keys:
+        keys.append(_mapping_keys(data))
     if fmt.shape == "class-path":
+        if keys is not None and "class_path" not in keys[0]:
+            return False  # no mapping has one
         return _has_class_path(data)
     if fmt.shape == "composed":
         defaults = data.get("defaults")
@@ -193,15 +225,19 @@ def _matches(fmt: UnreadFormat, data: dict) -> bool:
             isinstance(x, (str, dict)) for x in defaults)
         named = any(isinstance(data.get(k), str) and data[k].strip().lower().endswith((".yaml", ".yml", ".json"))
                     for k in BASE_FILE_KEYS)  # still there: the base file could not be read
-        return bool(listed) or named or _has_target(data)
+        return bool(listed) or named or (
+            "_target_" in keys[0] if keys is not None else _has_target(data))
     if fmt.shape == "tuning-space":
         zero = data.get("zero_optimization")
         stage_list = isinstance(zero, dict) and isinstance(zero.get("stage"), list)
         return stage_list or any(isinstance(data.get(k), list) for k in _TUNED)
-    where = data.get(fmt.section) if fmt.section else data
-    if not isinstance(where, dict):
-        return False
-    names = {k.replace("-", "_") for k in where if isinstance(k, str)}
+    if not fmt.section and top_names is not None:
+        names = top_names
+    else:
+        where = data.get(fmt.section) if fmt.section else data
+        if not isinstance(where, dict):
+            return False
+        names = {k.replace("-", "_") for k in where if isinstance(k, str)}
     hits = names & fmt.marks
     return len(hits) >= fmt.min_hits and (not fmt.required or bool(names & fmt.required))
 
@@ -210,10 +246,24 @@ def unread_format(data: Any) -> UnreadFormat | None:
     """The format cfgcheck recognises but does not read that DATA is in, or None."""
     if not isinstance(data, dict):
         return None
+    top_names = frozenset(k.replace("-", "_") for k in data if isinstance(k, str))
+    keys: list = []  # the mapping keys, found when a format first needs them
     for fmt in UNREAD_FORMATS:
-        if _matches(fmt, data):
+        if _matches(fmt, data, top_names, keys):
             return fmt
     return None
+
+
+_SCORING_KEYS_CACHE: dict[int, tuple[Layout, frozenset, frozenset]] = {}
+
+
+def _scoring_keys(layout: Layout) -> tuple[frozenset, frozenset]:
+    """(the top-level names LAYOUT's signature weighs, its section names): a document with
+    neither (and, for a layout that searches all sections, no mapping at all) scores 0."""
+    got = _SCORING_KEYS_CACHE.get(id(layout))
+    if got is None or got[0] is not layout:
+        got = _SCORING_KEYS_CACHE[id(layout)] = (layout, frozenset(layout.signature), frozenset(layout.sections))
+    return got[1], got[2]
 
 
 def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
@@ -231,7 +281,12 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
         return None, f"{unread.title} ({unread.name}): {NOT_READ_YET}"
     best, best_score = None, 0
     top = frozenset(top)
+    nested = any(isinstance(v, dict) for v in data.values())
     for layout in LAYOUTS:
+        keys = _scoring_keys(layout)
+        if top.isdisjoint(keys[0]) and not (
+                nested and (layout.search_all_sections or not keys[1].isdisjoint(data))):
+            continue  # no name of its signature at the top, and no section it reads: it scores 0
         s = _score(layout, data, top)
         if s >= layout.min_score and layout.extends and top & layout.extends_marks:
             s += _score(BY_NAME[layout.extends], data, top)
@@ -247,8 +302,9 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
 _MAX_SECTION_DEPTH = 4
 
 
-def _index(layout: Layout, data: dict) -> dict[str, list[tuple]]:
-    """Bare names -> the key paths that spell them, the preferred one first.
+def _index(layout: Layout, data: dict, values: dict[tuple, Any] | None = None) -> dict[str, list[tuple]]:
+    """Bare names -> the key paths that spell them, the preferred one first (VALUES, when given,
+    gets the value at each of those paths).
 
     The top level comes first, then sections breadth-first in file order. Inside a section the
     layout knows, the section's prefixes may be dropped (``lora: {alpha: 32}``) and its
@@ -271,6 +327,8 @@ def _index(layout: Layout, data: dict) -> dict[str, list[tuple]]:
             if not isinstance(key, str):
                 continue
             path = base + (key,)
+            if values is not None:
+                values[path] = value
             if key.lower() in local:
                 put(local[key.lower()], path)
             if not restricted:
@@ -345,13 +403,16 @@ def _coerce(name: str, written: Any) -> tuple[Any, bool, bool, bool]:
     return written, True, False, False
 
 
-def _also(data: dict, paths: list[tuple]) -> str:
-    """A note when the same setting is written in more than one place with different values."""
-    first = _walk(data, paths[0])[1]
-    others = [p for p in paths[1:] if _walk(data, p)[1] != first]
+def _also(values: dict[tuple, Any], paths: list[tuple]) -> str:
+    """A note when the same setting is written in more than one place with different values
+    (VALUES: the value at each path)."""
+    if len(paths) < 2:
+        return ""
+    first = values[paths[0]]
+    others = [p for p in paths[1:] if values[p] != first]
     if not others:
         return ""
-    where = ", ".join(f"{dotted(p)}: {_walk(data, p)[1]!r}" for p in others[:3])
+    where = ", ".join(f"{dotted(p)}: {values[p]!r}" for p in others[:3])
     return f"{dotted(paths[0])} is used (the top level first, then the first section); also written: {where}"
 
 
@@ -413,25 +474,59 @@ def resolve_interpolation(data: Any, written: Any, depth: int = 0) -> tuple[bool
     return True, out + written[pos:]
 
 
+_FILL_PLAN_CACHE: dict[int, tuple[dict, tuple, dict, dict]] = {}
+
+
+def _fill_plan(layout: Layout) -> tuple[tuple, dict, dict]:
+    """LAYOUT's field table made ready: ((name, ((root path or None, bare name or None), ...)),
+    ...) in table order, and which fields a bare name, or a top-level key that starts a root path,
+    can fill (their places in that order)."""
+    fields = layout.fields
+    got = _FILL_PLAN_CACHE.get(id(fields))
+    if got is None or got[0] is not fields:
+        plan, by_name, by_root = [], {}, {}
+        for i, (name, specs) in enumerate(fields.items()):
+            compiled = []
+            for spec in specs:
+                if spec.startswith("="):
+                    path = tuple(spec[1:].split("."))
+                    compiled.append((path, None))
+                    by_root.setdefault(path[0], []).append(i)
+                else:
+                    compiled.append((None, spec))
+                    by_name.setdefault(spec, []).append(i)
+            plan.append((name, tuple(compiled)))
+        got = _FILL_PLAN_CACHE[id(fields)] = (fields, tuple(plan), by_name, by_root)
+    return got[1], got[2], got[3]
+
+
 def fill(view: RunView, layout: Layout, data: dict) -> None:
     """Fill the view's fields from one layout's table."""
-    index = _index(layout, data) if layout.has_bare_names else {}
+    values: dict[tuple, Any] = {}
+    index = _index(layout, data, values) if layout.has_bare_names else {}
     kind = data.get(layout.kind_key) if layout.kind_key else None
     other_kind = isinstance(kind, str) and kind.strip().upper() not in layout.kinds_described
-    for name, specs in layout.fields.items():
+    plan, by_name, by_root = _fill_plan(layout)
+    # only the fields a name of this file can fill, in table order
+    hits: set[int] = set()
+    for key in index:
+        hits.update(by_name.get(key, ()))
+    for key in data:
+        hits.update(by_root.get(key, ()))
+    for i in sorted(hits):
+        name, specs = plan[i]
         if other_kind and name not in layout.fields_for_any_kind:
             continue  # the table describes other kinds: these keys mean something else here
-        for spec in specs:
-            if spec.startswith("="):
-                found, written = _walk(data, tuple(spec[1:].split(".")))
+        for path, bare in specs:
+            if path is not None:
+                found, written = _walk(data, path)
                 if found:
-                    _add(view, name, tuple(spec[1:].split(".")), written)
+                    _add(view, name, path, written)
                     break
             else:
-                paths = [p for p in index.get(spec, ()) if not isinstance(_walk(data, p)[1], dict)]
+                paths = [p for p in index.get(bare, ()) if not isinstance(values[p], dict)]
                 if paths:  # (a mapping is a section that shares the name, not a value)
-                    _found, written = _walk(data, paths[0])
-                    _add(view, name, paths[0], written, _also(data, paths))
+                    _add(view, name, paths[0], values[paths[0]], _also(values, paths))
                     break
 
 

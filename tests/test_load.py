@@ -156,3 +156,91 @@ def test_alias_expansion_is_bounded():
     with pytest.raises(LoadError) as err:
         load_text("\n".join(lines) + "\n", "bomb.yaml")
     assert "aliases" in err.value.reason
+
+
+# --------------------------------------------------------------------------- positions placed on demand
+
+_NESTED_JSON = ('{"a": [1, {"b": "x\\"y", "c": [[], {}]}, "z"],\n "d": {"e": null, "f": [true, -2.5e-3]},\n'
+                ' "g": [["a"], {"a": "b"}, "a", "b"]}')
+
+
+def _json_values(value, path=()):
+    yield path, value
+    if isinstance(value, dict):
+        for k, v in value.items():
+            yield from _json_values(v, path + (k,))
+    elif isinstance(value, list):
+        for i, v in enumerate(value):
+            yield from _json_values(v, path + (i,))
+
+
+def test_json_spans_hold_the_values_the_json_module_reads():
+    # reference: the json module reads each recorded stretch of text as the value at its path
+    doc = _doc(_NESTED_JSON, "t.json")
+    paths = dict(_json_values(json.loads(_NESTED_JSON)))
+    assert set(doc.entries) == set(paths)
+    for path, entry in doc.entries.items():
+        v = entry.value
+        assert json.loads(_NESTED_JSON[v.start:v.end]) == paths[path]
+        lines = _NESTED_JSON[:v.start].split("\n")
+        assert (v.line, v.column) == (len(lines), len(lines[-1]) + 1)
+        if path and isinstance(path[-1], str):
+            k = entry.key
+            assert json.loads(_NESTED_JSON[k.start:k.end]) == path[-1]
+        else:
+            assert entry.key is None
+        assert entry.keyed is (entry.key is not None)
+
+
+def test_json_items_after_a_nested_object_keep_their_index():
+    doc = _doc(_NESTED_JSON, "t.json")
+    assert doc.entries[("g", 2)].raw == '"a"' and doc.entries[("g", 3)].raw == '"b"'
+    assert doc.entries[("g", 1, "a")].raw == '"b"'
+
+
+def test_json_repeated_keys_in_nested_objects_are_each_seen():
+    text = '[{"k": 1, "k": 2}, {"o": {"k": 1}, "o": {"k": 3, "k": 4}}]'
+    dups = _doc(text, "t.json").duplicates
+    assert [(d.path, d.first.column, d.second.column, d.second_value) for d in dups] == [
+        ((0, "k"), 3, 11, 2),
+        ((1, "o"), 21, 36, {"k": 4}),
+        ((1, "o", "k"), 42, 50, 4),
+    ]
+    assert json.loads(text)[1]["o"] == {"k": 4}  # reference: the json module keeps the last value
+
+
+def test_yaml_spans_are_those_of_pyyaml_nodes():
+    text = "a: 1\nb:\n  - x\n  - {c: 'q', d: [1, 2]}\ne: |\n  block\n"
+    node = yaml.compose(text)  # reference: PyYAML's own composer and its marks
+
+    def walk(n, path=(), knode=None):
+        yield path, n, knode
+        if isinstance(n, yaml.MappingNode):
+            for k, v in n.value:
+                yield from walk(v, path + (k.value,), k)
+        elif isinstance(n, yaml.SequenceNode):
+            for i, v in enumerate(n.value):
+                yield from walk(v, path + (i,))
+
+    doc = _doc(text)
+    nodes = list(walk(node))
+    assert set(doc.entries) == {p for p, _n, _k in nodes}
+    for path, n, knode in nodes:
+        e = doc.entries[path]
+        assert (e.value.line, e.value.column, e.value.start, e.value.end) == (
+            n.start_mark.line + 1, n.start_mark.column + 1, n.start_mark.index, n.end_mark.index)
+        if knode is None:
+            assert e.key is None and not e.keyed
+        else:
+            assert e.keyed and (e.key.line, e.key.column) == (knode.start_mark.line + 1, knode.start_mark.column + 1)
+
+
+def test_entries_pickle_with_their_positions():
+    import pickle
+
+    for text, name in (("a:\n  b: 2\n", "t.yaml"), ('{"a": {"b": 2}}', "t.json")):
+        doc = _doc(text, name)
+        copy = pickle.loads(pickle.dumps(doc.entries))
+        assert copy == doc.entries
+        assert copy[("a", "b")].value == doc.entries[("a", "b")].value
+        assert copy[("a", "b")].key.line == (2 if name == "t.yaml" else 1)

@@ -192,6 +192,26 @@ def test_list_target_is_suffix_match_and_unsupported_matches_are_reported():
     assert unsupported_target_matches(a, ["input_layernorm"]) == ["model.layers.0.input_layernorm"]
 
 
+def test_plain_names_match_as_a_set_and_as_suffixes_alike():
+    # PEFT check_target_module_exists: a list entry matches a module whose full name equals it or
+    # ends in "." + entry, so the order and repeats of plain names change nothing; the same names
+    # written with a dotted suffix (matched row by row) select the same modules
+    a = CAT["meta-llama/Llama-2-7b-hf"]
+    plain = resolve_targets(a, ["v_proj", "q_proj", "down_proj"])
+    assert plain == resolve_targets(a, ["down_proj", "q_proj", "v_proj", "q_proj"])
+    assert plain == resolve_targets(a, ["self_attn.q_proj", "self_attn.v_proj", "mlp.down_proj"])
+    assert plain == [n for n in resolve_targets(a, "all-linear") if n.rsplit(".", 1)[-1] in ("q_proj", "v_proj", "down_proj")]
+    # LoRA paper sec. 4: r x in + out x r per adapted matrix; Llama-2-7b q/v 4096 x 4096, down_proj 11008 -> 4096
+    count = 32 * 8 * ((4096 + 4096) * 2 + (11008 + 4096))
+    for targets in (["v_proj", "q_proj", "down_proj"], ["down_proj", "q_proj", "v_proj", "v_proj"],
+                    ("q_proj", "v_proj", "down_proj"), ["self_attn.q_proj", "self_attn.v_proj", "mlp.down_proj"]):
+        assert lora_trainable_parameters(a, rank=8, targets=targets) == count, targets
+    # the rank scales the same adapters; DoRA adds one magnitude entry per output row (PEFT DoRA)
+    assert lora_trainable_parameters(a, rank=16, targets=["q_proj", "v_proj", "down_proj"]) == 2 * count
+    assert lora_trainable_parameters(a, rank=8, targets=["q_proj", "v_proj", "down_proj"], use_dora=True) \
+        == count + 32 * (4096 * 2 + 4096)
+
+
 def test_modules_to_save_copy_counts_full_module():
     # PEFT ModulesToSaveWrapper trains a deep copy: lm_head adds V*h; a tied lm_head's copy is untied
     a = arch(tied=True)

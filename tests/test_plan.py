@@ -171,3 +171,33 @@ def test_unmodelled_optimizer_is_not_estimated_rather_than_an_error(tmp_path):
     rep = api.lint([cfg], gpu="rtx-4090")
     hits = [f for f in rep.findings if f.rule == "memory-exceeds-gpu"]
     assert hits and all(f.severity == Severity.INFO for f in hits) and "not modelled" in hits[0].message
+
+
+def test_the_estimate_alone_is_the_estimate_of_the_described_plan(tmp_path):
+    # the memory rule works out the estimate without the words that describe the run, and the
+    # described plan only when it reports: both must rest on the same inputs and give the same bytes
+    from cfgcheck.memo import scope
+    from cfgcheck.plan import derive_plan, model_of
+    from cfgcheck.run import open_view
+    from cfgcheck.view import build_view
+    from cfgcheck.load import load_text
+    from cfgcheck.engine import Options
+
+    text = FULL_7B + "lora_r: 16\nlora_target: q_proj,v_proj\nfinetuning_type: lora\nstage: sft\n"
+    cfg = tmp_path / "lora.yaml"
+    cfg.write_text(text)
+    ((_, described),) = api.derive([cfg], gpu="a10").runs
+    for kept in (False, True):  # outside and inside a run's memo scope
+        (doc,) = load_text(text, str(cfg))
+        view = build_view(doc)
+        run = open_view(view, str(cfg), Options())
+        arch = model_of(view, str(cfg), None)
+        if kept:
+            with scope():
+                bare = derive_plan(view, arch, gpu=None, gpus=run.gpus, rows=None, describe=False)
+        else:
+            bare = derive_plan(view, arch, gpu=None, gpus=run.gpus, rows=None, describe=False)
+        assert bare.memory is not None and bare.memory == described.memory
+        assert bare.memory_inputs == described.memory_inputs
+        assert bare.context == "" and bare.learning_rate is None and bare.strategies == {}
+    assert described.context and described.learning_rate == 2.0e-5

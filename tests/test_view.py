@@ -81,3 +81,36 @@ def test_type_problems():
 def test_files_that_are_not_training_configs_are_skipped(text, why):
     v = view_of(text)
     assert v.layout is None and why in v.skipped
+
+
+def test_layout_found_is_the_best_score_of_every_layout():
+    # the layouts a document is scored against are picked by its keys; scoring every layout must
+    # give the same answer
+    from cfgcheck.layouts import BY_NAME, LAYOUTS
+    from cfgcheck.view import _score, detect_layout
+
+    def every_layout(data):
+        top = frozenset(k for k in data if isinstance(k, str))
+        best, best_score = None, 0
+        for layout in LAYOUTS:
+            s = _score(layout, data, top)
+            if s >= layout.min_score and layout.extends and top & layout.extends_marks:
+                s += _score(BY_NAME[layout.extends], data, top)
+            if s >= layout.min_score and s > best_score:
+                best, best_score = layout, s
+        return best
+
+    docs = [
+        {"learning_rate": 2e-5, "per_device_train_batch_size": 4, "num_train_epochs": 1},
+        {"training": {"learning_rate": 1e-4, "lora_r": 8}, "model": {"name_or_path": "acme/m"}},
+        {"zero_optimization": {"stage": 2}, "train_micro_batch_size_per_gpu": 1},
+        {"base_model": "acme/m", "adapter": "lora", "lora_r": 16, "micro_batch_size": 2},
+        {"Trainer": {"LearningRate": 3e-4}, "notes": "x"},
+        {"r": 8, "lora_alpha": 16, "peft_type": "LORA", "target_modules": ["q_proj"]},
+        {"compute_environment": "LOCAL_MACHINE", "distributed_type": "DEEPSPEED"},
+        {"x": {"y": {"z": 1}}, "w": 2},
+        {"model_name_or_path": "acme/m", "stage": "sft", "finetuning_type": "lora", "lora_rank": 8},
+    ]
+    for data in docs:
+        found, why = detect_layout(data)
+        assert found is every_layout(data), data

@@ -70,10 +70,9 @@ def _quoted(raw: str) -> str:
 def _repository_reader(ctx) -> str:
     """How the scripts of the config's repository (and the scripts named as its readers) read
     numbers, when they show it (ast only)."""
-    from ..knowledge.repo_keys import keys_for
-    from .unknown_keys import reader_scripts
+    from .unknown_keys import repo_keys_of
 
-    found = keys_for(ctx.file, reader_scripts(ctx))
+    found = repo_keys_of(ctx)  # looked up once per view, whichever rules ask
     return found.number_reader if found is not None else ""
 
 

@@ -24,8 +24,9 @@ def memory_exceeds_gpu(ctx) -> None:
     if view.method not in ("full", "lora", "qlora"):
         return
     gpus, _ = ctx.num_gpus
-    plan = derive_plan(view, ctx.model(), gpu=ctx.gpu, gpus=gpus, rows=ctx.options.rows)
-    context = plan.context or "1 GPU, no sharding"
+    # the estimate first; the words that describe the run only for a finding (below)
+    arch = ctx.model()
+    plan = derive_plan(view, arch, gpu=ctx.gpu, gpus=gpus, rows=ctx.options.rows, describe=False)
     if plan.memory is None:
         ctx.cannot_judge(plan.memory_problem or "no estimate")
         return
@@ -37,6 +38,7 @@ def memory_exceeds_gpu(ctx) -> None:
     share = total / capacity
     if share <= ctx.thresholds["warn_fraction"]:
         return
+    plan = derive_plan(view, arch, gpu=ctx.gpu, gpus=gpus, rows=ctx.options.rows)  # the same estimate, described
     parts = ", ".join(f"{name} {_gb(b)}" for name, b in plan.memory.components() if b)
     changes = fitting_changes(plan) if share > 1 else []
     if changes:
@@ -46,6 +48,7 @@ def memory_exceeds_gpu(ctx) -> None:
         fixes = "none of the single or combined changes cfgcheck knows fits this card; use more GPUs or a larger card"
     else:
         fixes = ""
+    context = plan.context or "1 GPU, no sharding"
     at = view.get("batch.per_device") or view.get("model.ref")
     ctx.report(
         at,

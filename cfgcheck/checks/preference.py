@@ -16,10 +16,14 @@ def _int(view, name):
 
 
 def _guess(ctx):
+    """The trainer family the view's top-level keys point to (guessed once per view)."""
     from ..knowledge.trainers import guess
 
-    data = ctx.view.doc.data if isinstance(ctx.view.doc.data, dict) else {}
-    return guess(list(data))
+    def compute():
+        data = ctx.view.doc.data if isinstance(ctx.view.doc.data, dict) else {}
+        return guess(list(data))
+
+    return ctx.once("trainer-guess", compute)
 
 
 def _trl_trainer_file(view) -> bool:

@@ -6,7 +6,7 @@ from types import MappingProxyType
 
 
 from ..findings import MAX_MAGNITUDE, number_text
-from ..schema import violations
+from ..schema import CONSTRAINTS, violations
 from . import check
 
 _WORDS = MappingProxyType({"below": "below the minimum", "not-above": "not above", "at-or-above": "at or above the limit"})
@@ -30,8 +30,8 @@ def value_outside_schema(ctx) -> None:
     for f in view.out_of_range:  # set aside by the view: no other rule uses these
         ctx.report(f, "too-large", key=f.key, value=number_text(f.written), limit=f"{MAX_MAGNITUDE:,}")
     for name, f in view.fields.items():
-        if f.value is None or f.auto or f.path in ambiguous:
-            continue
+        if name not in CONSTRAINTS or f.value is None or f.auto or f.path in ambiguous:
+            continue  # (a setting the schema does not bound has nothing to violate)
         for v in violations(name, f.value, layout):
             if v.problem == "not-one-of":
                 import difflib

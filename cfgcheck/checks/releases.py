@@ -3,10 +3,11 @@ against the versions pinned beside the config (or given with --installed)."""
 
 from __future__ import annotations
 
+from functools import lru_cache
 from types import MappingProxyType
 
-
 from . import check
+from .unknown_keys import keyed_paths, repo_keys_of  # shared with unknown-key, once per view
 
 # Whether the library that reads a key table refuses a key it does not declare (an error) or
 # passes over it (a warning): transformers' HfArgumentParser raises "Some keys are not used by the
@@ -27,8 +28,10 @@ def _minor(v: str) -> tuple[int, ...]:
     return version_key(v)[:2]
 
 
-def _status(lib: str, first: str, last: str, pinned: str, scanned: list[str]) -> tuple[str, str]:
+@lru_cache(maxsize=4096)  # a pure function of fixed tables, asked the same few questions per key
+def _status(lib: str, first: str, last: str, pinned: str) -> tuple[str, str]:
     """'yes' | 'no' | 'unsure', and the scanned release that decides it."""
+    scanned = _keys()._data()["scanned"].get(lib, [])
     p = _minor(pinned)
     lo, hi = _minor(first), _minor(last)
     if lo <= p <= hi:
@@ -46,7 +49,12 @@ def _status(lib: str, first: str, last: str, pinned: str, scanned: list[str]) ->
 
 
 def installed(ctx) -> dict:
-    """{library: (version, where)}: --installed first, then the pins beside the config."""
+    """{library: (version, where)}: --installed first, then the pins beside the config (looked
+    up once per view, whichever rules ask)."""
+    return ctx.once("installed", lambda: _installed(ctx))
+
+
+def _installed(ctx) -> dict:
     from ..knowledge.pins import pins_near
 
     out = {lib: (pin.version, f"pinned in {pin.source}")
@@ -85,46 +93,61 @@ def _current(info, newest: dict) -> bool:
                <= version_key(last)[:2] for lib, (first, last) in info.accepted.items())
 
 
+class _Table:
+    """What key-not-in-release needs of one key table, worked out once per process: the keys
+    that have release bounds at all, each with whether a fresh install accepts it."""
+
+    __slots__ = ("groups", "bounded", "newest", "requires", "runner")
+
+    def __init__(self, table: str):
+        keys = _keys()
+        data = keys._data()
+        self.groups = data["by_parent"][table]
+        self.requires = data["requires"].get(table, {})
+        self.newest = _newest_installed(data["scanned"], self.requires)
+        self.runner = data["runner_sources"].get(table, "").split(" (")[0]
+        self.bounded = {name: (info, _current(info, self.newest))
+                        for name, info in data["infos"][table].items() if info.accepted}
+
+
+@lru_cache(maxsize=None)  # one per key table; the tables are fixed for the process
+def _table(table: str) -> _Table | None:
+    return _Table(table) if table in _keys().layouts() else None
+
+
 @check("key-not-in-release")
 def key_not_in_release(ctx) -> None:
     view = ctx.view
     if view.layout is None:
         return
-    keys = _keys()
     table = view.layout.key_table  # the key table of the libraries that read this kind of file
-    if table not in keys.layouts():
+    known = _table(table) if table is not None else None
+    if known is None:
         return
-    data = keys._data()
-    groups = data["by_parent"][table]
-    scanned = data["scanned"]
-    requires = data["requires"].get(table, {})
-    newest = _newest_installed(scanned, requires)
-    runner = data["runner_sources"].get(table, "").split(" (")[0]
+    groups, bounded = known.groups, known.bounded
+    sections = view.layout.sections
+    doc = ctx.doc
+    data = doc.data if isinstance(doc.data, dict) else None
+    candidates = []
+    for path, parent, name in keyed_paths(ctx):
+        if parent not in groups or name not in bounded:
+            continue
+        if path[0] in sections and data is not None and isinstance(data.get(path[0]), dict):
+            continue
+        candidates.append((path, name))
+    if not candidates:
+        return
     repo = None
     if view.layout.trainer_defaults or view.layout.read_by_own_classes:
-        from ..knowledge.repo_keys import keys_for
-        from .unknown_keys import reader_scripts
-
-        # keys the repository's own scripts (and the scripts named as the file's readers) declare
-        repo = keys_for(ctx.file, reader_scripts(ctx))
-    sections = view.layout.sections
+        repo = repo_keys_of(ctx)
     pins = None
     reported: list[tuple] = []
     # parents before their keys, so a section reported once covers what is inside it
-    for path, entry in sorted(ctx.doc.entries.items(), key=lambda kv: len(kv[0])):
-        if not path or entry.key is None or not all(isinstance(p, str) for p in path):
-            continue
-        if path[0] in sections and isinstance(ctx.doc.get(path[:1]), dict):
-            continue
-        parent = ".".join(path[:-1])
-        if parent not in groups:
-            continue
-        name = f"{parent}.{path[-1]}" if parent else path[-1]
-        if any(path[:len(p)] == p for p in reported):
+    candidates.sort(key=lambda pn: len(pn[0]))
+    for path, name in candidates:
+        if reported and any(path[:len(p)] == p for p in reported):
             continue  # inside a section already reported: the section says it
-        info = keys.lookup(name, table)
-        if info is None or not info.accepted:
-            continue
+        info, current = bounded[name]
         if repo is not None and path[-1] in repo.keys and path[-1] not in repo.read_only:
             continue  # the script that reads the file declares it: its own release decides
         if repo is not None and repo.reader_libraries is not None \
@@ -134,13 +157,18 @@ def key_not_in_release(ctx) -> None:
             continue
         if pins is None:
             pins = installed(ctx)
+        if not pins and current:
+            continue  # nothing pinned, and a fresh install accepts it
         verdicts = {}
-        for lib, (first, last) in info.accepted.items():
-            if lib in pins:
-                verdicts[lib] = _status(lib, first, last, pins[lib][0], scanned.get(lib, []))
-        if any(s == "yes" for s, _ in verdicts.values()):
-            continue
-        unpinned = [lib for lib in info.accepted if lib not in pins]
+        if pins:
+            for lib, (first, last) in info.accepted.items():
+                if lib in pins:
+                    verdicts[lib] = _status(lib, first, last, pins[lib][0])
+            if any(s == "yes" for s, _ in verdicts.values()):
+                continue
+            unpinned = [lib for lib in info.accepted if lib not in pins]
+        else:
+            unpinned = list(info.accepted)
         if verdicts or not info.current:
             versions = info.versions_text()  # only for a key that may be reported
         if verdicts and not unpinned and all(s == "no" for s, _ in verdicts.values()):
@@ -154,9 +182,10 @@ def key_not_in_release(ctx) -> None:
             ctx.report(path, "between", on="key", key=name, library=lib, version=pins[lib][0],
                        where=pins[lib][1], versions=versions)
             reported.append(tuple(path))
-        elif not _current(info, newest):
+        elif not current:
+            newest, requires = known.newest, known.requires
             libs = sorted(info.accepted)
             ctx.report(path, "no-version", on="key", key=name, versions=versions,
-                       newest=", ".join(_installed_text(lib, newest[lib], requires, runner)
+                       newest=", ".join(_installed_text(lib, newest[lib], requires, known.runner)
                                         for lib in libs if lib in newest))
             reported.append(tuple(path))

@@ -123,6 +123,48 @@ def reader_scripts(ctx) -> tuple[str, ...]:
     return tuple(out)
 
 
+def repo_keys_of(ctx):
+    """The keys the repository's own scripts (and the scripts named as the file's readers)
+    declare, looked up once per view whichever rules ask."""
+    from ..knowledge.repo_keys import keys_for
+
+    readers = reader_scripts(ctx)
+    return ctx.once(("repo-keys", readers), lambda: keys_for(ctx.file, readers))
+
+
+def keyed_paths(ctx) -> list[tuple[tuple, str, str]]:
+    """(path, parent, dotted name) of each key written in the view's document whose path is all
+    key names (no list items), in the document's order; worked out once per view."""
+    return ctx.once("keyed-paths", lambda: _keyed_paths(ctx.doc))
+
+
+def _keyed_paths(doc) -> list[tuple[tuple, str, str]]:
+    out = []
+    append = out.append
+    for path, entry in doc.entries.items():
+        if not path or not entry.keyed:
+            continue
+        last = path[-1]
+        if not isinstance(last, str):
+            continue
+        try:
+            parent = ".".join(path[:-1])  # a list item (an int) on the way: no key name
+        except TypeError:
+            continue
+        append((path, parent, f"{parent}.{last}" if parent else last))
+    return out
+
+
+_KEYS_READ_CACHE: dict[int, tuple] = {}  # id(layout) -> (layout, the keys its fields read)
+
+
+def _keys_read(layout) -> frozenset[str]:
+    got = _KEYS_READ_CACHE.get(id(layout))
+    if got is None or got[0] is not layout:
+        got = _KEYS_READ_CACHE[id(layout)] = (layout, keys_read(layout))
+    return got[1]
+
+
 class _Judge:
     def __init__(self, ctx, layout: str):
         self.ctx = ctx
@@ -132,14 +174,12 @@ class _Judge:
         self.asked = 0
         self.past_limit = False
         self.other_term: dict[str, str] = {}  # name -> a near key whose differing word is a term
-        from ..knowledge.repo_keys import keys_for
-
         # a file parsed into argument dataclasses (TrainingArguments and the script's own): the
         # repository's scripts may declare more of them; a script named as the file's reader (by
         # the launch script that starts it, or the project file) declares them wherever it lives
         readers = reader_scripts(ctx)
         layout = ctx.view.layout
-        self.repo = (keys_for(ctx.file, readers)
+        self.repo = (repo_keys_of(ctx)
                      if layout.trainer_defaults or layout.read_by_own_classes or readers else None)
 
     def declared_by_repo(self, name: str) -> str | None:
@@ -256,36 +296,40 @@ def unknown_key(ctx) -> None:
         return
     judge = _Judge(ctx, layout)
     groups = keys._data()["by_parent"][layout]
-    read = keys_read(view.layout)
+    table = keys._data()["infos"][layout]
+    read = _keys_read(view.layout)
     sections = view.layout.sections
+    search_sections = view.layout.search_all_sections
     title = view.layout.title
-    for path, entry in ctx.doc.entries.items():
-        if not path or entry.key is None or not all(isinstance(p, str) for p in path):
-            continue
-        value = ctx.doc.get(path)
-        if len(path) == 1 and isinstance(value, dict) and "_component_" in value:
-            _component_keys(ctx, judge, path, value)
-            continue
-        if view.layout.search_all_sections and path[0] in sections and isinstance(ctx.doc.get(path[:1]), dict):
-            if len(path) > 1 and not isinstance(value, dict):
+    doc = ctx.doc
+    data = doc.data if isinstance(doc.data, dict) else None
+    check_current = "key-not-in-release" not in ctx.active
+    for path, parent, name in keyed_paths(ctx):
+        head = path[0]
+        if len(path) == 1:
+            value = data.get(head) if data is not None else None
+            if isinstance(value, dict) and "_component_" in value:
+                _component_keys(ctx, judge, path, value)
+                continue
+        if search_sections and head in sections and data is not None \
+                and isinstance(data.get(head), dict):
+            if len(path) > 1 and not isinstance(doc.get(path), dict):
                 _section_key(ctx, judge, path, sections)
             continue  # the section itself: the file's own structure, not a key
-        parent = ".".join(path[:-1])
         if parent not in groups:
             continue  # a free-form mapping (optimizer.params, fsdp_config of the trainer, ...)
-        name = f"{parent}.{path[-1]}" if parent else path[-1]
-        info = keys.lookup(name, layout)
+        info = table.get(name)
         if info is None and parent:
             # a section whose reader drops (or adds) a prefix: axolotl reads fsdp_config's
             # `fsdp_offload_params` as `offload_params` (0.19.0 utils/schemas/validation.py)
             for pre in sections.get(path[-2], ()):
                 leaf = path[-1]
                 other = leaf[len(pre):] if leaf.startswith(pre) else pre + leaf
-                info = keys.lookup(f"{parent}.{other}", layout) or info
+                info = table.get(f"{parent}.{other}") or info
         if info is not None:
-            # key-not-in-release judges known keys against the release in use; this note stays
-            # for runs that leave that rule out
-            if not info.current and "key-not-in-release" not in ctx.active:
+            # key-not-in-release judges known keys against the release in use; this note
+            # stays for runs that leave that rule out
+            if check_current and not info.current:
                 ctx.report(path, "not-current", on="key", key=name, versions=info.versions_text())
             continue
         if name in read:

@@ -23,10 +23,23 @@ def _num(f):
     return f.value
 
 
+# the schedule of the view the rules are looking at: several rules of one file ask for it in turn
+# (view, its opened run, how many values it was supplied, gpus, rows, schedule); the Schedule is
+# only read by the rules
+_LAST_SCHEDULE_CACHE: list = [None]
+
+
 def run_steps(ctx):
     """(total optimizer steps or None, schedule, how the number was found)."""
     gpus, _ = ctx.num_gpus
-    sched = derive_for(ctx.view, gpus=gpus, rows=ctx.options.rows)
+    view, rows = ctx.view, ctx.options.rows
+    last = _LAST_SCHEDULE_CACHE[0]
+    if last is not None and last[0] is view and last[1] is view.run and last[2] == len(view.supplied) \
+            and last[3] == gpus and last[4] == rows:
+        sched = last[5]
+    else:
+        sched = derive_for(view, gpus=gpus, rows=rows)
+        _LAST_SCHEDULE_CACHE[0] = (view, view.run, len(view.supplied), gpus, rows, sched)
     if sched.total_steps is None:
         return None, sched, ""
     return sched.total_steps, sched, how_text(sched)

@@ -179,6 +179,7 @@ def _build() -> dict:
     }
 
 
+@cache  # the tables are fixed for the process (``_data``)
 def layouts() -> tuple[str, ...]:
     """The layouts that have key lists, sorted."""
     return tuple(sorted(_data()["infos"]))
@@ -193,7 +194,9 @@ def _table(layout: str) -> dict[str, KeyInfo]:
 
 def lookup(key: str, layout: str = "trainer") -> KeyInfo | None:
     """The KeyInfo of KEY exactly as written (no case folding, no trimming), or None."""
-    table = _table(layout)
+    table = _data()["infos"].get(layout)
+    if table is None:
+        table = _table(layout)  # says which layouts there are
     if not isinstance(key, str):  # YAML allows int, bool or null keys; none of them is a known key
         return None
     return table.get(key)

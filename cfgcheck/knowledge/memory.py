@@ -30,6 +30,7 @@ from __future__ import annotations
 import itertools
 import math
 from dataclasses import dataclass, field, replace
+from functools import lru_cache
 from types import MappingProxyType
 
 from .models import (
@@ -40,8 +41,10 @@ from .models import (
     module_table,
     modules_to_save_matches,
     resolve_targets,
+    rows_by_name,
     total_parameters,
 )
+from .models import _frozen, _targets_key
 
 __all__ = (
     "MemoryInputs",
@@ -435,6 +438,7 @@ def _validate(inp: MemoryInputs) -> None:
             raise ValueError(f"{name} must be a positive integer, got {value!r}")
 
 
+@lru_cache(maxsize=64)  # the shapes alone decide it: once per architecture
 def _quantised_rows(arch: Architecture) -> tuple[int, int, int]:
     """(weights bitsandbytes quantises, output rows of those layers, everything else) in parameters.
 
@@ -468,15 +472,24 @@ def _adafactor_state_bytes(shapes: list[tuple[int, ...]]) -> int:
     return total
 
 
-def _trainable_shapes_full(arch: Architecture) -> list[tuple[int, ...]]:
+@lru_cache(maxsize=64)
+def _trainable_shapes_full(arch: Architecture) -> tuple[tuple[int, ...], ...]:
     out = []
     for name, _kind, params in module_table(arch):
         if name == "lm_head" and arch.tie_word_embeddings:
             continue
         out.extend(tuple(s) for s in params.values())
-    return out
+    return tuple(out)
 
 
+@lru_cache(maxsize=64)
+def _head_parameters(arch: Architecture) -> int:
+    """Parameters of lm_head (tied or not)."""
+    row = rows_by_name(arch).get("lm_head")
+    return sum(math.prod(sh) for sh in row[2].values()) if row is not None else 0
+
+
+@lru_cache(maxsize=128)
 def _linear_weight_params(arch: Architecture, *, skip_first_attention_inputs: bool = False) -> int:
     """Parameters of every matmul weight (decoder linears, experts, lm_head, tied or not) and their biases."""
     total = 0
@@ -491,7 +504,39 @@ def _linear_weight_params(arch: Architecture, *, skip_first_attention_inputs: bo
     return total
 
 
-def _first_lora_a(arch: Architecture, targets: list[str], rank: int) -> int:
+def _adapter_shapes(arch: Architecture, targets, modules_to_save, rank: int) -> list[tuple[int, int]]:
+    """(lora_A, lora_B) weight shapes of every adapted module with a weight matrix."""
+    rows = rows_by_name(arch)
+    shapes: list[tuple[int, int]] = []
+    for tname in resolve_targets(arch, targets, list(modules_to_save) or None):
+        if tname in rows:
+            fout, fin = rows[tname][2]["weight"]
+            shapes += [(rank, fin), (fout, rank)]
+    return shapes
+
+
+_RESOLVED_CACHE: dict = {}  # (arch, targets, modules_to_save) -> (names, leaf names); bounded below
+
+
+def _resolved(arch: Architecture, targets, modules_to_save) -> tuple[tuple[str, ...], frozenset[str]]:
+    """resolve_targets and the set of their last name components, once per architecture and targets."""
+    try:
+        key = (arch, _targets_key(arch, targets), _frozen(modules_to_save))
+        hit = _RESOLVED_CACHE.get(key)
+    except TypeError:
+        hit = key = None
+    if hit is None:
+        names = tuple(resolve_targets(arch, targets, modules_to_save))
+        hit = (names, frozenset(t.rsplit(".", 1)[-1] for t in names))
+        if key is not None:
+            if len(_RESOLVED_CACHE) >= 4096:
+                _RESOLVED_CACHE.clear()
+            _RESOLVED_CACHE[key] = hit
+    return hit
+
+
+@lru_cache(maxsize=256)
+def _first_lora_a(arch: Architecture, targets: tuple[str, ...], rank: int) -> int:
     """lora_A parameters of the adapted q/k/v (qkv) projections of the first layer."""
     widths = linear_modules(arch)
     total = 0
@@ -591,7 +636,7 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
             trainable = lora_trainable_parameters(
                 arch, rank=inp.lora_rank, targets=targets, modules_to_save=list(inp.modules_to_save) or None
             )
-        rows = {r[0]: r for r in module_table(arch)}
+        rows = rows_by_name(arch)
         for name in modules_to_save_matches(arch, list(inp.modules_to_save)):
             copies += sum(math.prod(s) for k, r in rows.items() if k == name or k.startswith(name + ".") for s in r[2].values())
         if copies:
@@ -614,11 +659,7 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
                     f"modules_to_save copies train in {'fp32' if copy_b == 4 else '16-bit'}: {copy_b} B weights, "
                     f"{copy_b} B gradients and {copy_b}-byte optimizer states per parameter, no master copy"
                 )
-        adapter_shapes = []
-        for tname in resolve_targets(arch, targets, list(inp.modules_to_save) or None):
-            if tname in rows:
-                fout, fin = rows[tname][2]["weight"]
-                adapter_shapes += [(inp.lora_rank, fin), (fout, inp.lora_rank)]
+        adapter_targets = targets  # the adapters' shapes, worked out only for an optimizer that needs them
         weights_bytes = base_bytes + adapters * a_b + copies * copy_b
 
     name = normalise_optimizer(inp.optimizer)
@@ -636,6 +677,7 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
         master_bytes = (adapters + copies) * master_b
         copy_state_b = 4 if ds_cast else copy_b
         if name.startswith("adafactor"):
+            adapter_shapes = _adapter_shapes(arch, adapter_targets, inp.modules_to_save, inp.lora_rank)
             optimizer_bytes = _adafactor_state_bytes(adapter_shapes) + 4 * copies  # copies: upper bound
         else:
             per_param, note = optimizer_state_bytes_per_param(name, state_bytes=4, sgd_momentum=inp.sgd_momentum)
@@ -680,13 +722,12 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
     cast_copies = autocast and fp32_forward
     frozen = inp.method != "full"
     leaves = frozenset()
-    resolved: list[str] = []
+    resolved: tuple[str, ...] = ()
     if frozen:
         try:
-            resolved = resolve_targets(arch, inp.lora_targets, list(inp.modules_to_save) or None)
+            resolved, leaves = _resolved(arch, inp.lora_targets, list(inp.modules_to_save) or None)
         except NoDefaultTargets:
-            resolved = resolve_targets(arch, "all-linear")
-        leaves = frozenset(t.rsplit(".", 1)[-1] for t in resolved)
+            resolved, leaves = _resolved(arch, "all-linear", None)
     adapter_b = 2 if (autocast or ds_cast) else 4
     per_layer = layer_activation_bytes(
         arch,
@@ -707,7 +748,7 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
     sbh = sb * h
     saved_copies = set(modules_to_save_matches(arch, list(inp.modules_to_save))) if frozen else set()
     embed_trains = not frozen or "model.embed_tokens" in saved_copies
-    head_trains = not frozen or "lm_head" in saved_copies or any(t == "lm_head" for t in resolved)
+    head_trains = not frozen or "lm_head" in saved_copies or "lm_head" in resolved
     if cast_copies:
         notes.append("autocast over fp32 weights: the residual stream stays fp32 (4sbh) and each projection "
                      "keeps its own 16-bit input copy (measured with saved-tensor hooks, torch 2.13 on CPU)")
@@ -754,8 +795,7 @@ def estimate_memory(inp: MemoryInputs) -> MemoryBreakdown:
     # embedding output, which needs no gradient.
     weight_copies = 0
     first_free = frozen and not embed_trains
-    head_rows = [r for r in module_table(arch) if r[0] == "lm_head"]
-    head_params = sum(math.prod(sh) for r in head_rows for sh in r[2].values())
+    head_params = _head_parameters(arch)
     if autocast and (fp32_forward or frozen):
         if inp.gradient_checkpointing:
             weight_copies = 2 * head_params if fp32_forward else 0  # lm_head runs outside the checkpoints

@@ -579,6 +579,18 @@ def _catalogue_match(entry: CatalogueEntry, kind: str, how: str, assumed: bool, 
 
 
 def match_catalogue(ref: str) -> Architecture | None:
+    """:func:`_match_catalogue`, once per process for the same text (the catalogue is bundled)."""
+    if not isinstance(ref, str) or not ref.strip():
+        return None
+    return _match_catalogue_text(ref)
+
+
+@lru_cache(maxsize=1024)
+def _match_catalogue_text(ref: str) -> Architecture | None:
+    return _match_catalogue(ref)
+
+
+def _match_catalogue(ref: str) -> Architecture | None:
     """The bundled shape a hub id names, with ``how`` (in words), ``match`` and ``assumed`` set; None if unknown.
 
     In order: the exact id or a listed alias (case-insensitive) -> "exact"; the same name under another
@@ -831,10 +843,13 @@ def _resolve(ref, *, config_dir, cwd, hub_cache, depth) -> Architecture | None:
     if not _HUB_ID_RE.match(ref):
         return _by_folder_name(ref)
     cache = Path(hub_cache) if hub_cache is not None else _default_hub_cache()
-    arch = _from_hub_cache(ref, cache)
+    from ..memo import remembered  # the same id in the same hub cache: looked once per run
+
+    arch = remembered("hub_cache_model", (ref, str(cache)), lambda: _from_hub_cache(ref, cache))
     if arch is not None:
         return arch
-    base = _hub_cache_adapter_base(ref, cache) if depth == 0 else None
+    base = remembered("hub_cache_adapter", (ref, str(cache)),
+                      lambda: _hub_cache_adapter_base(ref, cache)) if depth == 0 else None
     if base is not None and base.strip().lower() != ref.lower():
         arch = _resolve(base, config_dir=config_dir, cwd=cwd, hub_cache=hub_cache, depth=1)
         if arch is not None:
@@ -1180,6 +1195,11 @@ def linear_modules(arch: Architecture) -> dict[str, tuple[int, int]]:
 
     Where the first layers are dense and the rest mixture-of-experts (DeepSeek), both kinds are merged.
     """
+    return dict(_linear_table(arch))
+
+
+@lru_cache(maxsize=64)
+def _linear_table(arch: Architecture) -> tuple[tuple[str, tuple[int, int]], ...]:
     _require_supported(arch)
     out: dict[str, tuple[int, int]] = {}
     indices = sorted({0, min(arch.first_dense_layers, max(arch.num_layers - 1, 0))})
@@ -1188,9 +1208,25 @@ def linear_modules(arch: Architecture) -> dict[str, tuple[int, int]]:
             if kind in _LINEAR_KINDS:
                 fin, fout = _in_out(kind, params["weight"])
                 out.setdefault(name.rsplit(".", 1)[-1], (fin, fout))
-    return out
+    return tuple(out.items())
 
 
+@lru_cache(maxsize=64)
+def rows_by_name(arch: Architecture) -> MappingProxyType:
+    """The rows of :func:`module_table` by full name (read-only; built once per architecture)."""
+    return MappingProxyType({r[0]: r for r in _module_rows(arch)})
+
+
+@lru_cache(maxsize=64)
+def _rows_by_leaf(arch: Architecture) -> MappingProxyType:
+    """Leaf name -> positions in :func:`module_table` of the rows whose name ends in it."""
+    out: dict[str, list[int]] = {}
+    for i, r in enumerate(_module_rows(arch)):
+        out.setdefault(r[0].rsplit(".", 1)[-1], []).append(i)
+    return MappingProxyType({k: tuple(v) for k, v in out.items()})
+
+
+@lru_cache(maxsize=64)
 def target_names(arch: Architecture) -> frozenset[str]:
     """Last name components a LoRA ``target_modules`` list may name for this model and PEFT accept.
 
@@ -1199,7 +1235,7 @@ def target_names(arch: Architecture) -> frozenset[str]:
     PEFT rewrites for the fused transformers 5 layout (mixtral ``w1``/``w2``/``w3``/``gate``; qwen3_moe
     and deepseek_v2 ``gate_proj``/``up_proj``/``down_proj``/``gate``).
     """
-    names = {r[0].rsplit(".", 1)[-1] for r in module_table(arch) if r[1] in _LORA_KINDS}
+    names = {r[0].rsplit(".", 1)[-1] for r in _module_rows(arch) if r[1] in _LORA_KINDS}
     if arch.family in _MOE_PATTERN:
         names |= set(_MOE_CONVERSIONS[_MOE_PATTERN[arch.family]][0])
     return frozenset(names)
@@ -1266,13 +1302,24 @@ def _frozen(value):
     return (type(value).__name__, value)
 
 
+def _targets_key(arch: Architecture, targets):
+    """What the answers for ``targets`` depend on, as a hashable key: for a list of names without a
+    dot (outside the MoE conversions) the set of their texts -- PEFT matches each module against
+    every name, so order and repeats change nothing; anything else as written."""
+    if isinstance(targets, (list, tuple)) and arch.family not in _MOE_PATTERN:
+        names = [str(t) for t in targets]  # as _normalise_targets reads them
+        if not any("." in n for n in names):
+            return ("names", frozenset(names))
+    return _frozen(targets)
+
+
 _MATCHED_CACHE: dict = {}  # memo of _matched (a cache, bounded below)
 
 
 def _matched(arch: Architecture, targets, modules_to_save) -> list[Module]:
     """Memoised per (architecture, targets, modules_to_save): the same few occur across a corpus."""
     try:
-        key = (arch, _frozen(targets), _frozen(modules_to_save))
+        key = (arch, _targets_key(arch, targets), _frozen(modules_to_save))
         hit = _MATCHED_CACHE.get(key)
     except TypeError:  # something unhashable inside: work it out each time
         return _match_rows(arch, targets, modules_to_save)
@@ -1294,6 +1341,12 @@ def _match_rows(arch: Architecture, targets, modules_to_save) -> list[Module]:
             if r[1] in _LINEAR_KINDS and r[0] != "lm_head" and not _excluded_by_modules_to_save(r[0], modules_to_save)
         ]
     norm = _normalise_targets(arch, targets)
+    if not isinstance(norm, str) and not any("." in t for t in norm):
+        # names without a dot: `key in targets or key.endswith("." + t)` is "the last name
+        # component is one of them", so the rows come from the per-leaf index (same order)
+        by_leaf = _rows_by_leaf(arch)
+        found = sorted(i for t in set(norm) for i in by_leaf.get(t, ()))
+        return [rows[i] for i in found if not _excluded_by_modules_to_save(rows[i][0], modules_to_save)]
     return [r for r in rows if _matches(norm, r[0]) and not _excluded_by_modules_to_save(r[0], modules_to_save)]
 
 
@@ -1376,8 +1429,28 @@ def _moe_convert(arch: Architecture, targets, modules_to_save):
     return remaining, params
 
 
+_PLAN_CACHE: dict = {}  # memo of _plan (a cache, bounded below)
+
+
 def _plan(arch: Architecture, targets, modules_to_save):
-    """(wrapped module rows, [(parameter full name, shape, rank multiplier)]) as PEFT would inject them."""
+    """(wrapped module rows, [(parameter full name, shape, rank multiplier)]) as PEFT would inject them.
+
+    Memoised per (architecture, targets, modules_to_save), as :func:`_matched`; an error is not kept."""
+    try:
+        key = (arch, _targets_key(arch, targets), _frozen(modules_to_save))
+        hit = _PLAN_CACHE.get(key)
+    except TypeError:  # something unhashable inside: work it out each time
+        return _work_out_plan(arch, targets, modules_to_save)
+    if hit is None:
+        mods, params = _work_out_plan(arch, targets, modules_to_save)
+        hit = (tuple(mods), tuple(params))
+        if len(_PLAN_CACHE) >= 4096:
+            _PLAN_CACHE.clear()
+        _PLAN_CACHE[key] = hit
+    return list(hit[0]), list(hit[1])
+
+
+def _work_out_plan(arch: Architecture, targets, modules_to_save):
     if arch.family not in _MOE_PATTERN:
         return [r for r in _matched(arch, targets, modules_to_save)], []
     module_targets, param_targets = _moe_convert(arch, targets, modules_to_save)
@@ -1486,26 +1559,14 @@ def _lora_trainable_parameters(
         raise ValueError(f"`r` should be a positive integer value but the value passed is {rank}")
     if bias not in ("none", "all", "lora_only"):
         raise ValueError(f"bias must be 'none', 'all' or 'lora_only', got {bias!r}")
-    rows = {r[0]: r for r in module_table(arch)}
+    rows = rows_by_name(arch)
     saved = modules_to_save_matches(arch, modules_to_save)
     saved_set = set(saved)
     total = 0
-    mods, param_targets = _plan(arch, targets, modules_to_save)
-    wrapped = [r[0] for r in mods if r[1] in _LORA_KINDS]
-    if param_targets and use_dora:
+    per_rank, dora_extra, has_params, wrapped = _adapter_sums(arch, targets, modules_to_save)
+    if has_params and use_dora:
         raise ValueError("lora.ParamWrapper does not work with LoRA variants like DoRA.")
-    for _key, shape, mult in param_targets:
-        # PEFT lora.ParamWrapper: 3-D (experts, out, in) -> lora_A in -> r*E, lora_B r*E -> out; 2-D: E = 1
-        experts, fout, fin = shape if len(shape) == 3 else (1, shape[0], shape[1])
-        total += rank * mult * experts * (fin + fout)
-    for name in wrapped:
-        _, kind, params = rows[name]
-        if kind == "embedding":  # weight (V, h): A is r x V, B is h x r
-            rows_out, cols_in = params["weight"]
-            total += rank * rows_out + cols_in * rank + (cols_in if use_dora else 0)
-        else:  # Linear weight (out, in); Conv1D weight (in, out)
-            cols_in, rows_out = _in_out(kind, params["weight"])
-            total += rank * cols_in + rows_out * rank + (rows_out if use_dora else 0)
+    total += rank * per_rank + (dora_extra if use_dora else 0)
     for name in saved:
         # a module inside an already-wrapped module is not wrapped again
         if any(name.startswith(other + ".") for other in saved_set if other != name):
@@ -1522,6 +1583,47 @@ def _lora_trainable_parameters(
             if "bias" in rows[k][2] and not inside_copy:
                 total += _numel(rows[k][2]["bias"])
     return total
+
+
+_SUMS_CACHE: dict = {}  # memo of _adapter_sums (a cache, bounded below)
+
+
+def _adapter_sums(arch: Architecture, targets, modules_to_save) -> tuple[int, int, bool, tuple[str, ...]]:
+    """What the adapters of one target list add, per unit of rank: (sum over wrapped modules of
+    in + out widths, and of the ParamWrapper's E x (in + out) x multiplier; the DoRA magnitude
+    entries; whether parameters are wrapped; the wrapped module names). Once per architecture and
+    targets: the rank only scales it."""
+    try:
+        key = (arch, _targets_key(arch, targets), _frozen(modules_to_save))
+        hit = _SUMS_CACHE.get(key)
+    except TypeError:
+        hit = key = None
+    if hit is not None:
+        return hit
+    mods, param_targets = _plan(arch, targets, modules_to_save)
+    rows = rows_by_name(arch)
+    wrapped = tuple(r[0] for r in mods if r[1] in _LORA_KINDS)
+    per_rank = dora = 0
+    for _key, shape, mult in param_targets:
+        # PEFT lora.ParamWrapper: 3-D (experts, out, in) -> lora_A in -> r*E, lora_B r*E -> out; 2-D: E = 1
+        experts, fout, fin = shape if len(shape) == 3 else (1, shape[0], shape[1])
+        per_rank += mult * experts * (fin + fout)
+    for name in wrapped:
+        _, kind, params = rows[name]
+        if kind == "embedding":  # weight (V, h): A is r x V, B is h x r
+            rows_out, cols_in = params["weight"]
+            per_rank += rows_out + cols_in
+            dora += cols_in
+        else:  # Linear weight (out, in); Conv1D weight (in, out)
+            cols_in, rows_out = _in_out(kind, params["weight"])
+            per_rank += cols_in + rows_out
+            dora += rows_out
+    hit = (per_rank, dora, bool(param_targets), wrapped)
+    if key is not None:
+        if len(_SUMS_CACHE) >= 4096:
+            _SUMS_CACHE.clear()
+        _SUMS_CACHE[key] = hit
+    return hit
 
 
 def trainable_fraction(arch: Architecture, **lora_kwargs) -> float:

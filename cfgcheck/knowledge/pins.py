@@ -17,6 +17,7 @@ True
 
 from __future__ import annotations
 
+import os
 import re
 from functools import lru_cache
 from dataclasses import dataclass
@@ -186,16 +187,17 @@ def pins_near(file: str | None, cwd: Path | None = None) -> dict[str, Pin]:
     if not file or file.startswith("<"):
         return {}
     try:
-        path = Path(file) if Path(file).is_absolute() else (cwd or Path.cwd()) / file
+        # plain strings: this runs for every config, the folder's answer is remembered
+        path = file if os.path.isabs(file) else os.path.join(os.fspath(cwd) if cwd else os.getcwd(), file)
         reads.note_kind(path)
-        if not path.is_file():
+        if not os.path.isfile(path):
             return {}  # text given without a file (lint_text): nothing lies beside it
-        if not path.is_symlink():  # the folder is looked up once per run (cfgcheck.memo)
+        if not os.path.islink(path):  # the folder is looked up once per run (cfgcheck.memo)
             from ..memo import remembered
 
-            return dict(remembered("pins_near", str(path.parent), lambda: _pins_of_folder(path)))
-        return _pins_of_folder(path)
-    except (OSError, RuntimeError):
+            return dict(remembered("pins_near", os.path.dirname(path), lambda: _pins_of_folder(Path(path))))
+        return _pins_of_folder(Path(path))
+    except (OSError, RuntimeError, ValueError):
         return {}
 
 

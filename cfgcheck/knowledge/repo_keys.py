@@ -665,7 +665,7 @@ def repo_keys(config: str | os.PathLike) -> RepoKeys | None:
         return None
     try:
         reads.note_kind(text)
-        if not Path(text).is_file():
+        if not os.path.isfile(text):
             return None
     except (OSError, ValueError):
         return None

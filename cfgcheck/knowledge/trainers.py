@@ -12,6 +12,7 @@ when every class that declares it belongs to that family.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 from types import MappingProxyType
 
 FAMILIES: MappingProxyType[str, frozenset[str]] = MappingProxyType({
@@ -48,23 +49,32 @@ class Guess:
     strangers: tuple[tuple[str, tuple[str, ...]], ...]
 
 
-def guess(keys) -> Guess:
-    """The trainer family of a file from its top-level keys."""
+@lru_cache(maxsize=8192)  # the key tables are fixed for the process; a corpus repeats its keys
+def _evidence(key: str) -> tuple[frozenset[str], tuple[str, ...]] | None:
+    """(families, trainer classes) a top-level KEY points to, or None when it is no evidence."""
     from .keys import lookup
 
+    info = lookup(key)
+    if info is None or any(not o.startswith("trl.") for o in info.owners):
+        return None  # unknown, or a TrainingArguments key every TRL config inherits
+    fams = _families_of(info.owners)
+    classes = _trainer_classes(info.owners)
+    if not fams or len(classes) < len([o for o in info.owners if o.startswith("trl.")]):
+        return None  # also declared by a script or model argument class: parsed beside the trainer
+    return fams, tuple(classes)
+
+
+def guess(keys) -> Guess:
+    """The trainer family of a file from its top-level keys."""
     per_key: dict[str, frozenset[str]] = {}
     owners_of: dict[str, tuple] = {}
     for key in keys:
         if not isinstance(key, str):
             continue
-        info = lookup(key)
-        if info is None or any(not o.startswith("trl.") for o in info.owners):
-            continue  # unknown, or a TrainingArguments key every TRL config inherits
-        fams = _families_of(info.owners)
-        if not fams or len(_trainer_classes(info.owners)) < len([o for o in info.owners if o.startswith("trl.")]):
-            continue  # also declared by a script or model argument class: parsed beside the trainer
-        per_key[key] = fams
-        owners_of[key] = tuple(_trainer_classes(info.owners))
+        got = _evidence(key)
+        if got is None:
+            continue
+        per_key[key], owners_of[key] = got
     counts: dict[str, list[str]] = {}
     for key, fams in per_key.items():
         if len(fams) == 1:
