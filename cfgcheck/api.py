@@ -311,6 +311,7 @@ def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any
     """The derived run of each training config (skipped files are left out). Runs are opened
     the way ``lint`` opens them (``cfgcheck.run``): linked files, launch context, runner
     defaults, the project file's hardware profiles and launch files."""
+    from . import memo
     from .findings import InputProblem
     from .load import LoadError
     from .plan import derive_plan, model_of
@@ -318,27 +319,28 @@ def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any
 
     files, options_for, _proj = _targets(list(paths), project, given_options(**options))
     out = DeriveResult()
-    for file, skip in files:
-        if skip:
-            continue
-        opts = options_for(file)
-        try:  # the crash boundary of one file: the other files are still derived
-            try:
-                runs = open_path(file, opts)
-            except LoadError as exc:
-                out.problems.append(InputProblem(file=file, line=exc.line, column=exc.column,
-                                                 reason=exc.reason))
+    with memo.scope():  # one run, as lint's: a folder's surroundings and model lookups once
+        for file, skip in files:
+            if skip:
                 continue
-            for run in runs:
-                view = run.view
-                if view.skipped:
+            opts = options_for(file)
+            try:  # the crash boundary of one file: the other files are still derived
+                try:
+                    runs = open_path(file, opts)
+                except LoadError as exc:
+                    out.problems.append(InputProblem(file=file, line=exc.line, column=exc.column,
+                                                     reason=exc.reason))
                     continue
-                arch = model_of(view, file, opts.cwd, declared=opts.models)
-                out.runs.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=run.gpus, rows=opts.rows)))
-        except Exception as exc:
-            if opts.debug:
-                raise
-            out.internal.append(engine.internal_error(file, None, exc))
+                for run in runs:
+                    view = run.view
+                    if view.skipped:
+                        continue
+                    arch = model_of(view, file, opts.cwd, declared=opts.models)
+                    out.runs.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=run.gpus, rows=opts.rows)))
+            except Exception as exc:
+                if opts.debug:
+                    raise
+                out.internal.append(engine.internal_error(file, None, exc))
     return out
 
 

@@ -442,7 +442,7 @@ def derive(
         else:
             out.append("\n".join(render_plan(f, p) for f, p in result.runs))
         _write("".join(out))
-    raise typer.Exit(api.EXIT_INPUT if result.problems else
+    raise SystemExit(api.EXIT_INPUT if result.problems else
                      api.EXIT_INTERNAL if result.internal else api.EXIT_CLEAN)
 
 
@@ -475,7 +475,7 @@ def fix(
         sys.stdout.write("".join(f.diff() for f in report.files))
     summary = summary_text(report, dry=diff or no_write)
     (sys.stderr if diff else sys.stdout).write(summary)
-    raise typer.Exit(api.fix_exit_code(report, no_write=no_write))
+    raise SystemExit(api.fix_exit_code(report, no_write=no_write))
 
 
 def _write_err(out: str) -> None:
@@ -708,10 +708,13 @@ def main() -> None:
     from .memo import scope
 
     with scope():  # one command is one run: a folder's surroundings are looked up once
-        kwargs = direct_arguments(sys.argv[1:], "lint", lint)  # plain `lint` lines skip typer
+        argv = sys.argv[1:]
+        # plain `lint`, `derive` and `fix` lines skip typer
+        command = {"lint": lint, "derive": derive, "fix": fix}.get(argv[0] if argv else "")
+        kwargs = direct_arguments(argv, argv[0], command) if command is not None else None
         if kwargs is not None:
             try:
-                lint(**kwargs)  # ends in SystemExit with the exit status
+                command(**kwargs)  # ends in SystemExit with the exit status
             except Exception as exc:
                 if not _typer_way_out(exc):
                     raise

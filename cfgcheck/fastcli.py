@@ -1,7 +1,9 @@
-"""A direct path from argv to the ``lint`` command for the common invocations.
+"""A direct path from argv to the ``lint``, ``derive`` and ``fix`` commands for the common
+invocations.
 
-Typer costs more to import and set up than the whole lint of a small file. For ``cfgcheck lint``
-with options this module understands, we read argv ourselves, from the same declarations typer's
+Typer costs more to import and set up than the whole lint of a small file (and its parameter
+coercion imports pydantic). For ``cfgcheck lint`` (``derive``, ``fix``) with options this module
+understands, we read argv ourselves, from the same declarations typer's
 command is made from (``cliparams``: names, spellings, defaults, ``min``/``max``, enum choices),
 and call the same command function. Anything else (``--help``, another command, an option or a
 value we do not read exactly as typer would, a setting or a parameter kind we do not know)
@@ -22,7 +24,8 @@ from typing import Any, Callable
 from .cliparams import Param, declared, parameters
 
 # settings of a declaration that change nothing about which values are accepted or what they
-# mean; any other (a callback, an envvar, a count, case_sensitive, ...) leaves the line to typer
+# mean; any other (a callback, an envvar, case_sensitive, ...) leaves the line to typer ("count",
+# an int flag counted as click counts it, is read too: fix's --halve-batch)
 _READ = frozenset({"help", "metavar", "min", "max", "autocompletion"})
 
 
@@ -57,9 +60,12 @@ def _spec(fn: Callable) -> tuple[dict[str, tuple[str, Any, Param, str]], tuple[s
     options: dict[str, tuple[str, Any, Param, str]] = {}
     argument = None
     for name, info in parameters(target):
-        if not isinstance(info, Param) or not set(info.settings) <= _READ:
+        counted = info.settings.get("count") is True if isinstance(info, Param) else False
+        if not isinstance(info, Param) or not set(info.settings) - ({"count"} if counted else set()) <= _READ:
             raise _Decline
         kind, is_list = _base(hints.get(name), target.__globals__)
+        if counted and (kind is not int or is_list or info.argument or info.default != 0):
+            raise _Decline
         if kind not in (bool, int, str, Path) and not (isinstance(kind, type) and issubclass(kind, enum.Enum)):
             raise _Decline
         if info.argument:
@@ -79,7 +85,7 @@ def _spec(fn: Callable) -> tuple[dict[str, tuple[str, Any, Param, str]], tuple[s
             elif not decl.startswith("-"):
                 raise _Decline
             else:
-                how = "list" if is_list else ("flag" if kind is bool else "value")
+                how = "count" if counted else "list" if is_list else ("flag" if kind is bool else "value")
                 options[decl] = (name, kind, info, how)
     return options, argument
 
@@ -120,6 +126,11 @@ def parse(argv: list[str], fn: Callable) -> dict[str, Any]:
             if name_part not in options:
                 raise _Decline
             name, kind, info, how = options[name_part]
+            if how == "count":  # a counted flag (-v -v): how many times it is given
+                if eq:
+                    raise _Decline
+                values[name] = values.get(name, 0) + 1
+                continue
             if how != "list" and name in values:
                 raise _Decline  # repeated options: let typer decide
             if how in ("flag", "on", "off"):

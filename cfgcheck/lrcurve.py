@@ -11,6 +11,7 @@ in 4.46+ for the schedules both have), which the Trainer builds through ``get_sc
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 from types import MappingProxyType
@@ -193,10 +194,14 @@ def curve(kind: str, *, total_steps: int, warmup_steps: int = 0, base_lr: float 
         raise ValueError(f"polynomial needs lr_end ({kw.get('lr_end', 1e-7)}) below the learning rate ({lr})")
     fn = _FORMULAS[kind]
     count = min(total, sample if sample is not None else MAX_STEPS_DRAWN)
-    steps = (list(range(total)) if count == total
-             else sorted({round(i * (total - 1) / max(1, count - 1)) for i in range(count)}))
-    values = [fn(s, warmup=0 if kind in IGNORE_WARMUP else warmup, total=total, base_lr=lr, **kw)
-              for s in steps]
+    if count == total:
+        steps = list(range(total))
+    else:
+        last, gaps = total - 1, max(1, count - 1)
+        steps = sorted({round(i * last / gaps) for i in range(count)})
+    at = functools.partial(fn, warmup=0 if kind in IGNORE_WARMUP else warmup, total=total,
+                           base_lr=lr, **kw)  # the same call for every step, its keywords bound once
+    values = [at(s) for s in steps]
     out = Curve(kind=kind, base_lr=base_lr, total_steps=total, warmup_steps=warmup, steps=steps,
                 values=values)
     if kind in IGNORE_WARMUP and warmup:

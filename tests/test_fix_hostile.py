@@ -213,9 +213,9 @@ def test_link_to_dev_zero_and_huge_file_are_refused(tmp_path):
 # --------------------------------------------------------------------------- cost
 
 def test_many_documents_are_linted_a_fixed_number_of_times(monkeypatch):
-    calls = []
-    real = engine.lint_text
-    monkeypatch.setattr(engine, "lint_text", lambda *a, **k: calls.append(1) or real(*a, **k))
+    calls = []  # every lint of a file's documents, from its text or from documents parsed already
+    real = engine.lint_documents
+    monkeypatch.setattr(engine, "lint_documents", lambda *a, **k: calls.append(1) or real(*a, **k))
     text = "---\n".join(HEAD.replace("2.0e-5", "2e-5") for _ in range(300))
     result = fix.fix_text(text, "many.yaml", api.make_options())
     assert len(result.applied) == 300 and result.new_text.count("2.0e-5") == 300

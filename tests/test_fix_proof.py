@@ -71,6 +71,44 @@ def test_a_fix_that_leaves_its_finding_is_refused(monkeypatch):
     assert "still there" in result.error.error
 
 
+def test_the_re_lint_of_the_parsed_fixed_text_says_what_a_lint_of_that_text_says():
+    """The proof parses the fixed text once and lints those documents: the findings (rule,
+    place, words, fixes) are those a lint of the fixed text itself gives."""
+    from cfgcheck import engine, load
+
+    opts = api.make_options()
+    result = fix.fix_text(TEXT, "run.yaml", opts, training=True)
+    assert result.error is None and result.changed and len(result.applied) >= 2
+    new = result.new_text
+
+    def seen(report):
+        return [(f.rule, f.line, f.column, f.key, f.message, f.hint, f.severity, f.fix is None)
+                for f in report.findings]
+
+    direct = engine.lint_text(new, "run.yaml", opts, "yaml")
+    parsed = fix_proof._lint_parsed(load.load_text(new, "run.yaml", "yaml"), new, "run.yaml", opts)
+    assert seen(parsed) == seen(direct) and direct.findings
+    assert parsed.problem is None and parsed.internal == direct.internal == []
+
+
+def test_a_crash_while_re_linting_the_fixed_text_refuses_the_fix(monkeypatch):
+    """Outside any rule's own crash boundary (opening the documents): still a refused fix."""
+    from cfgcheck import engine
+
+    real = engine.lint_documents
+
+    def crashing(docs, file, options, layout=None, text=None, located_in=None):
+        if text is not None and "1.0e-4" in text:
+            raise RuntimeError("injected while opening the fixed text")
+        return real(docs, file, options, layout, text, located_in)
+
+    monkeypatch.setattr(engine, "lint_documents", crashing)
+    text = "model_name_or_path: harborlight/base-7b\nlearning_rate: 1e-4\n"
+    result = fix.fix_text(text, "run.yaml", api.make_options())
+    assert result.error is not None and "does not lint cleanly" in result.error.error
+    assert "injected" in result.error.error and not result.changed
+
+
 def test_the_lines_check_on_its_own():
     old = "a: 1\nb: 2\nc: 3\n"
     edit = fix_edits._TextEdit(start=8, end=9, text="5", rule="r")

@@ -101,3 +101,52 @@ def test_derive_command_draws_unless_asked_not_to(tmp_path):
     assert "learning rate over 500 optimizer steps" in out and "memory per GPU:" in out
     plain = runner.invoke(app, ["derive", str(cfg), "--rows", "4000", "--no-pictures", "--no-project"]).output
     assert "learning rate over" not in plain and "memory per GPU:" not in plain
+
+
+def _peaks_by_definition(steps, values, total):
+    """Each column's highest multiplier, scanning every sample for every column."""
+    cols = []
+    for col in range(WIDTH):
+        lo, hi = col * total / WIDTH, (col + 1) * total / WIDTH
+        vals = [v for s, v in zip(steps, values) if lo <= s < hi]
+        if not vals:  # no sample in the column: the one nearest its start
+            i = min(range(len(steps)), key=lambda k: abs(steps[k] - lo))
+            vals = [values[i]]
+        cols.append(max(vals))
+    return cols
+
+
+def test_the_column_peaks_are_those_of_their_definition_for_short_and_long_runs():
+    from cfgcheck.render.pictures import _column_peaks
+
+    totals = [1, 2, 7, 59, 60, 61, 119, 480, 481, 999, 12_345, 1_000_003, 3 * 10**9 + 11]
+    for total in totals:
+        for kind, warmup in (("linear", total // 10), ("cosine", 0), ("constant_with_warmup", total // 3),
+                             ("cosine_with_restarts", 1)):
+            c = curve(kind, total_steps=total, warmup_steps=warmup, base_lr=2e-4,
+                      kwargs={"num_cycles": 3} if kind == "cosine_with_restarts" else None, sample=WIDTH * 8)
+            assert _column_peaks(c.steps, c.values, total) == _peaks_by_definition(c.steps, c.values, total), (kind, total)
+
+
+def test_configs_of_one_run_sharing_a_schedule_compute_its_curve_once_and_draw_their_own_copy(tmp_path, monkeypatch):
+    from dataclasses import replace
+
+    from cfgcheck import memo
+    from cfgcheck.render import pictures
+
+    calls = []
+    monkeypatch.setattr(pictures, "curve", lambda *a, **k: calls.append(k) or curve(*a, **k))
+    plan = _plan(tmp_path, rows=20000)
+    with memo.scope():
+        first, _ = schedule_series(plan)
+        second, _ = schedule_series(replace(plan))
+        assert len(calls) == 1  # the same kind, steps, warm-up, rate and keywords: once
+        assert first.curve == second.curve and first.curve.values is not second.curve.values
+        first.curve.values[0] = 99.0  # one picture's copy is its own
+        assert second.curve.values[0] != 99.0
+        # a rate that differs only in its type or sign is another curve
+        schedule_series(replace(plan, learning_rate=-0.0))
+        schedule_series(replace(plan, learning_rate=0.0))
+        assert len(calls) == 3
+    schedule_series(plan)  # outside a run nothing is remembered
+    assert len(calls) == 4

@@ -137,10 +137,12 @@ def _typer_reading(command: str) -> dict:
         choices = sorted(e.value for e in base) if isinstance(base, type) and issubclass(base, enum.Enum) else None
         default = p.default.value if isinstance(p.default, enum.Enum) else p.default
         if p.param_type_name == "argument":
+            default = ... if p.required else default  # a required argument, as declared
             out["ARGUMENT"] = (p.name, "list" if p.nargs == -1 else "value", default, None, None, choices)
             continue
         for spelling in p.opts:
-            how = ("on" if p.secondary_opts else "flag") if p.is_flag else "list" if p.multiple else "value"
+            how = ("count" if getattr(p, "count", False) else
+                   ("on" if p.secondary_opts else "flag") if p.is_flag else "list" if p.multiple else "value")
             out[spelling] = (p.name, how, default, p.min, p.max, choices)
         for spelling in p.secondary_opts:
             out[spelling] = (p.name, "off", default, p.min, p.max, choices)
@@ -156,7 +158,8 @@ def _direct_reading(fn) -> dict:
     def described(name, kind, info, how):
         choices = sorted(e.value for e in kind) if issubclass(kind, enum.Enum) else None
         default = info.default.value if isinstance(info.default, enum.Enum) else info.default
-        return (name, how, default, info.settings.get("min"), info.settings.get("max"), choices)
+        low = info.settings.get("min", 0 if how == "count" else None)  # a count is never below 0
+        return (name, how, default, low, info.settings.get("max"), choices)
 
     out = {spelling: described(*entry) for spelling, entry in options.items()}
     if argument is not None:
@@ -172,6 +175,30 @@ def test_typer_and_the_direct_path_read_the_same_lint_options():
     assert typer_side["--no-frame"][1] == "off" and typer_side["-q"][1] == "flag"
     assert typer_side["--only"][1] == "list" and typer_side["--format"][2] == "text"
     assert typer_side["ARGUMENT"][:3] == ("paths", "list", None)
+
+
+@pytest.mark.parametrize("command", ["derive", "fix"])
+def test_typer_and_the_direct_path_read_the_same_derive_and_fix_options(command):
+    typer_side = _typer_reading(command)
+    assert _direct_reading(getattr(cli, command)) == typer_side
+    assert typer_side["ARGUMENT"][:3] == ("paths", "list", ...)
+    if command == "fix":
+        assert typer_side["--halve-batch"][1:3] == ("count", 0)
+    else:
+        assert typer_side["--no-pictures"][1] == "off" and typer_side["--format"][5] == ["json", "text"]
+
+
+def test_plain_derive_and_fix_command_lines_take_the_direct_path():
+    # derive and fix over a corpus would pay typer's set-up (pydantic included) on every start
+    for argv in (["derive", "configs/"], ["derive", "a.yaml", "--format", "json", "--no-pictures"],
+                 ["fix", "--diff", "configs/"], ["fix", "a.yaml", "--no-write", "--launch", "ds.json"]):
+        assert fastcli.direct_arguments(argv, argv[0], getattr(cli, argv[0])) is not None, argv
+    kw = fastcli.direct_arguments(["fix", "a.yaml", "--halve-batch", "--allow-training-changes",
+                                   "--halve-batch"], "fix", cli.fix)
+    assert kw["halve_batch"] == 2 and kw["training"] is True and kw["paths"] == [Path("a.yaml")]
+    assert fastcli.direct_arguments(["fix", "a.yaml"], "fix", cli.fix)["halve_batch"] == 0
+    for argv in (["fix", "a.yaml", "--halve-batch=2"], ["fix"], ["derive", "a.yaml", "--format", "xml"]):
+        assert fastcli.direct_arguments(argv, argv[0], getattr(cli, argv[0])) is None, argv
 
 
 def test_typer_receives_every_setting_of_a_declaration():
@@ -217,6 +244,25 @@ def test_direct_path_prints_what_typer_prints(args):
                             text=True, cwd=ROOT, env=ENV, timeout=120)
     via_typer = subprocess.run([sys.executable, "-c", "from cfgcheck.cli import app; app()", "lint",
                                 *args], capture_output=True, text=True, cwd=ROOT, env=ENV, timeout=120)
+    assert (direct.returncode, direct.stdout, direct.stderr) == (
+        via_typer.returncode, via_typer.stdout, via_typer.stderr)
+
+
+@pytest.mark.parametrize("args", [
+    ["derive", "fixtures/demo"],
+    ["derive", "fixtures/demo", "--format", "json", "--gpu", "t4", "--rows", "1000"],
+    ["derive", "fixtures/demo", "--no-pictures", "--gpus", "8", "--no-project"],
+    ["derive", "fixtures/hostile/malformed.yaml", "fixtures/demo"],
+    ["derive", "fixtures/demo", "--gpu", "no-such-card"],
+    ["fix", "--diff", "fixtures/demo"],
+    ["fix", "--no-write", "fixtures/demo", "--allow-training-changes", "--halve-batch", "--halve-batch"],
+    ["fix", "--diff", "fixtures/demo", "--gpu", "t4", "--halve-batch", "--no-project"],
+])
+def test_direct_derive_and_fix_print_what_typer_prints(args):
+    direct = subprocess.run([sys.executable, "-m", "cfgcheck", *args], capture_output=True,
+                            text=True, cwd=ROOT, env=ENV, timeout=120)
+    via_typer = subprocess.run([sys.executable, "-c", "from cfgcheck.cli import app; app()", *args],
+                               capture_output=True, text=True, cwd=ROOT, env=ENV, timeout=120)
     assert (direct.returncode, direct.stdout, direct.stderr) == (
         via_typer.returncode, via_typer.stdout, via_typer.stderr)
 

@@ -31,6 +31,7 @@ from typing import Iterable
 
 from .. import engine
 from .. import links
+from .. import memo
 from .. import load as loadmod
 from ..engine import Options
 from ..findings import InputProblem, InternalError
@@ -126,8 +127,8 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
     while True:
         new_text = _apply(text, edits)
         try:
-            notes, new, after = _prove(text, new_text, name, fmt, docs, accepted, edits, before, options,
-                                linked_after)
+            notes, new, after, new_docs = _prove(text, new_text, name, fmt, docs, accepted, edits,
+                                                 before, options, linked_after)
         except _Shared as exc:
             bad = {id(p) for p in exc.plans}
             for p in exc.plans:
@@ -159,7 +160,7 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
             return result
     result.notes.extend(notes)
     if new_text != text:
-        _say_as_written(new_text, name, fmt, accepted, applied)
+        _say_as_written(new_docs, new_text, accepted, applied)
     result.applied = [applied[id(p)] for p in accepted if id(p) in applied]
     if new_text == text:
         return result
@@ -177,17 +178,15 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
     return result
 
 
-def _say_as_written(new_text: str, name: str, fmt: str, accepted: list[_Planned],
+def _say_as_written(new_docs: list, new_text: str, accepted: list[_Planned],
                     applied: dict[int, Applied]) -> None:
     """Make each summary's "KEY: OLD -> NEW" / "KEY: added as NEW" show NEW exactly as written.
 
     A rule words its summary before the fixer renders the value; where the two differ (the
     number style, JSON quotes), the summary takes the text that is in the file now.
+    ``new_docs``: the documents of ``new_text``, as the proof parsed them.
     """
-    try:
-        docs = {d.index: d for d in loadmod.load_text(new_text, name, fmt)}
-    except LoadError:
-        return
+    docs = {d.index: d for d in new_docs}
     for plan in accepted:
         a = applied.get(id(plan))
         doc = docs.get(plan.document)
@@ -287,15 +286,18 @@ def fix_files(files: Iterable[tuple[str, Options]], *, training: bool = False,
     together or not at all, whatever order their names come in.
     """
     items: list[_Item] = []
-    for path, options in files:
-        src, problem = _read(path)
-        if problem is not None:
-            items.append(_Item(str(path), options, problem))
-            continue
-        res = fix_text(src.text, str(path), options, training=training, halve_batch=halve_batch)
-        items.append(_Item(str(path), options, res, src, os.path.realpath(path)))
-    for group in _groups(items):
-        _fix_group(group, training=training, halve_batch=halve_batch)
+    # one run, as lint's (cfgcheck.memo): what lies around a folder and the model lookups are
+    # worked out once; nothing is written before the scope ends, so the disk stays as it began
+    with memo.scope():
+        for path, options in files:
+            src, problem = _read(path)
+            if problem is not None:
+                items.append(_Item(str(path), options, problem))
+                continue
+            res = fix_text(src.text, str(path), options, training=training, halve_batch=halve_batch)
+            items.append(_Item(str(path), options, res, src))  # real path: by _groups, if needed
+        for group in _groups(items):
+            _fix_group(group, training=training, halve_batch=halve_batch)
     if write:
         done: set[int] = set()
         for group in _groups(items):
@@ -311,6 +313,11 @@ def fix_files(files: Iterable[tuple[str, Options]], *, training: bool = False,
 
 def _groups(items: list[_Item]) -> list[list[_Item]]:
     """Files given together that link each other (union of the links, either direction)."""
+    if not any(i.result.links for i in items):
+        return []  # nothing links anything: every file is its own group
+    for i in items:
+        if i.src is not None and not i.real:
+            i.real = os.path.realpath(i.path)
     by_real = {i.real: i for i in items if i.src is not None}
     parent = {id(i): id(i) for i in items}
 

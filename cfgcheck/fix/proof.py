@@ -21,7 +21,7 @@ from .. import engine
 from .. import links
 from .. import load as loadmod
 from ..engine import Options
-from ..findings import Finding, InternalError
+from ..findings import FileReport, Finding, InternalError
 from ..load import Document, LoadError, dotted
 from .edits import _MISSING, _TextEdit, _apply
 from .results import CHANGES_TRAINING, FileFix, ProofFailed, _Planned
@@ -198,24 +198,41 @@ def _finding_keys(report) -> dict[tuple, Finding]:
     return {_finding_key(f): f for f in report.findings}
 
 
-def _lint_after(new_text: str, name: str, options: Options, fmt: str, linked: dict, rules):
+def _lint_after(new_text: str, name: str, options: Options, fmt: str, linked: dict, rules,
+                new_docs: list[Document] | None = None):
+    """The re-lint of the fixed text. ``new_docs``: that text as the proof already parsed it
+    (``load_text(new_text, name, fmt)``), linted as ``engine.lint_text`` would lint the text."""
     with links.linked_texts(linked):
-        after = engine.lint_text(new_text, name, options, fmt)
+        if new_docs is None:
+            after = engine.lint_text(new_text, name, options, fmt)
+        else:
+            after = _lint_parsed(new_docs, new_text, name, options)
     if after.problem is not None or after.internal:
         raise ProofFailed("the fixed text does not lint cleanly: "
                           + (after.problem.reason if after.problem else after.internal[0].error), rules)
     return after
 
 
+def _lint_parsed(docs: list[Document], text: str, name: str, options: Options):
+    """``engine.lint_text`` of TEXT whose documents DOCS are already loaded (its crash boundary
+    included): the proof parses the fixed text once, for its own checks and for the re-lint."""
+    try:
+        return engine.lint_documents(docs, name, options, None, text)
+    except Exception as exc:  # a bug in cfgcheck, as lint_text reports it
+        if options.debug:
+            raise
+        return FileReport(file=name, internal=[engine.internal_error(name, None, exc)])
+
+
 def _prove(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Document],
            plans: list[_Planned], edits: list[_TextEdit], before, options: Options,
-           linked: dict | None = None) -> tuple[list[str], dict[tuple, Finding], Any]:
-    """The whole proof: the text (see _prove_text), then a re-lint. Returns notes and the
+           linked: dict | None = None) -> tuple[list[str], dict[tuple, Finding], Any, list[Document]]:
+    """The whole proof: the text (see _prove_text), then a re-lint. Returns notes, the
     findings the fixed text has that the old one had not (any severity): the caller decides,
-    per finding, which fix brought it."""
+    per finding, which fix brought it; the re-lint's report, and the fixed text's documents."""
     rules = [p.rule for p in plans]
-    _docs, notes = _prove_text(old_text, new_text, name, fmt, old_docs, plans, edits)
-    after = _lint_after(new_text, name, options, fmt, linked or {}, rules)
+    new_docs, notes = _prove_text(old_text, new_text, name, fmt, old_docs, plans, edits)
+    after = _lint_after(new_text, name, options, fmt, linked or {}, rules, new_docs)
     after_keys = _finding_keys(after)
     for p in plans:
         if p.finding is not None and _finding_key(p.finding) in after_keys:
@@ -229,7 +246,7 @@ def _prove(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Doc
         if f.data.get("judged") is False:  # a "not checked" note flags no value
             continue
         new[k] = f  # any severity, info included: no fix may write a value a rule flags
-    return notes, new, after
+    return notes, new, after, new_docs
 
 
 def _follows(old_doc: Document, new_doc: Document, path: tuple, edited: tuple, value: Any) -> bool:

@@ -8,8 +8,9 @@ shapes are simple, and ``lint`` never imports this module). ``schedule_series`` 
 
 from __future__ import annotations
 
+import bisect
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from ..lrcurve import Curve, curve, schedule_kind
 from ..plan import Plan
@@ -67,6 +68,24 @@ def _events(plan: Plan, what: str, total: int) -> tuple[list[int], str]:
     return steps, f"every {every:,} steps"
 
 
+def _curve(kind: str, total: int, warmup: int, base_lr: float | None, kwargs: dict) -> Curve:
+    """``lrcurve.curve`` sampled for a picture, worked out once per run for the same arguments
+    (cfgcheck.memo: the configs of one recipe share their schedule); each caller gets its own
+    copy. The arguments are told apart by their ``repr`` (1, 1.0 and True, 0.0 and -0.0 differ)."""
+    from ..memo import remembered
+
+    def compute() -> Curve:
+        return curve(kind, total_steps=total, warmup_steps=warmup, base_lr=base_lr, kwargs=kwargs,
+                     sample=WIDTH * 8)
+
+    try:
+        key = repr((kind, total, warmup, base_lr, kwargs))
+    except Exception:  # noqa: BLE001 - a value that cannot say what it is: no sharing
+        return compute()
+    c = remembered("lr_curve", key, compute)
+    return replace(c, steps=list(c.steps), values=list(c.values), notes=list(c.notes))
+
+
 def schedule_series(plan: Plan) -> tuple[Series | None, str | None]:
     """The curve of a plan, or why it cannot be drawn."""
     total = plan.schedule.total_steps if plan.schedule else None
@@ -78,8 +97,7 @@ def schedule_series(plan: Plan) -> tuple[Series | None, str | None]:
         return None, f"the schedule {written!r} is not one cfgcheck can draw"
     note = f"{kind} (written)" if written else "linear (not written: the transformers default, assumed)"
     try:
-        c = curve(kind, total_steps=total, warmup_steps=plan.warmup_steps or 0,
-                  base_lr=plan.learning_rate, kwargs=plan.scheduler_kwargs, sample=WIDTH * 8)
+        c = _curve(kind, total, plan.warmup_steps or 0, plan.learning_rate, plan.scheduler_kwargs)
     except (ValueError, TypeError, ZeroDivisionError, OverflowError) as exc:
         return None, f"the {kind} schedule cannot be built from this config: {exc}"
     s = Series(curve=c, scheduler_note=note)
@@ -99,20 +117,34 @@ def _lr_text(lr: float | None) -> str:
     return "-" if lr is None else f"{lr:.3g}"
 
 
+def _column_peaks(steps: list[int], values: list[float], total: int) -> list[float]:
+    """Per plot column, the highest multiplier among the sampled steps it covers (the steps s
+    with ``col * total / WIDTH <= s < (col + 1) * total / WIDTH``); a column that covers none
+    (fewer sampled steps than columns) takes the step nearest its start. One pass over the
+    samples: each falls in the column whose start is the last at or below it."""
+    bounds = [col * total / WIDTH for col in range(WIDTH + 1)]
+    covered: list[list[float]] = [[] for _ in range(WIDTH)]
+    for s, v in zip(steps, values):
+        col = bisect.bisect_right(bounds, s) - 1
+        if 0 <= col < WIDTH:
+            covered[col].append(v)
+    cols: list[float] = []
+    for col, vals in enumerate(covered):
+        if not vals:
+            lo = bounds[col]
+            i = min(range(len(steps)), key=lambda k: abs(steps[k] - lo))
+            vals = [values[i]]
+        cols.append(max(vals))
+    return cols
+
+
 def schedule_picture(plan: Plan) -> list[str]:
     series, why = schedule_series(plan)
     if series is None:
         return [f"learning rate: not drawn: {why}"]
     c = series.curve
     total = c.total_steps
-    cols: list[float] = []
-    for col in range(WIDTH):  # the highest multiplier among the steps a column covers
-        lo, hi = col * total / WIDTH, (col + 1) * total / WIDTH
-        vals = [v for s, v in zip(c.steps, c.values) if lo <= s < hi]
-        if not vals:  # fewer sampled steps than columns: take the nearest one
-            i = min(range(len(c.steps)), key=lambda k: abs(c.steps[k] - lo))
-            vals = [c.values[i]]
-        cols.append(max(vals))
+    cols = _column_peaks(c.steps, c.values, total)
     top = max(cols) or 1.0
     peak = c.base_lr * top if c.base_lr is not None else None
     head = (f"learning rate over {total:,} optimizer steps: {series.scheduler_note}"
@@ -120,11 +152,10 @@ def schedule_picture(plan: Plan) -> list[str]:
             + (f", peak {_lr_text(peak)}" if peak is not None else " (multiplier of the base rate)"))
     lines = [head]
     label_w = max(len(_lr_text(peak)), 1) + 1
+    heights = [round(v / top * HEIGHT * 8) for v in cols]  # in eighths of a row
     for row in range(HEIGHT - 1, -1, -1):
-        cells = []
-        for v in cols:
-            eighths = round(v / top * HEIGHT * 8) - row * 8
-            cells.append(_EIGHTHS[max(0, min(8, eighths))])
+        floor = row * 8
+        cells = [_EIGHTHS[max(0, min(8, h - floor))] for h in heights]
         label = _lr_text(peak) if row == HEIGHT - 1 else ("0" if row == 0 else "")
         lines.append(f"{label:>{label_w}} |{''.join(cells)}")
     if c.ignored_warmup:
