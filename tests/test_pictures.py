@@ -129,7 +129,7 @@ def test_the_column_peaks_are_those_of_their_definition_for_short_and_long_runs(
 
 
 def test_configs_of_one_run_sharing_a_schedule_compute_its_curve_once_and_draw_their_own_copy(tmp_path, monkeypatch):
-    from dataclasses import replace
+    from cfgcheck._records import replaced as replace  # the records are plain classes
 
     from cfgcheck import memo
     from cfgcheck.render import pictures

@@ -137,14 +137,13 @@ def test_config_json_round_trip(ref, arch):
     # reference: the config.json transformers writes for these shapes (PretrainedConfig.to_dict) reads back to the
     # same Architecture, whatever the family's key names (GPT-2 n_embd/n_layer, Falcon num_kv_heads and
     # new_decoder_architecture, Qwen-MoE num_experts, DeepSeek n_routed_experts and latent-attention ranks)
-    import dataclasses
-
+    from cfgcheck._records import replaced
     from cfgcheck.knowledge.models import architecture_from_config
 
     data = hf_config(arch).to_dict()
     data["dtype"] = arch.torch_dtype  # transformers 5 writes the stored dtype as "dtype"
     back = architecture_from_config(data, "round trip")
     assert back is not None
-    want = dataclasses.replace(arch, source="round trip")
-    assert dataclasses.replace(back, sliding_window=want.sliding_window) == want
+    want = replaced(arch, source="round trip")
+    assert replaced(back, sliding_window=want.sliding_window) == want
     assert total_parameters(back) == total_parameters(arch)
