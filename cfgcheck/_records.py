@@ -36,3 +36,23 @@ def replaced(record, **changes):
     names = getattr(cls, "_record_fields", None) or getattr(cls, "__slots__", None) or tuple(vars(record))
     return cls(**{name: changes.pop(name) if name in changes else getattr(record, name) for name in names},
                **changes)
+
+
+def guarded_repr(method):
+    """A ``__repr__`` that shows ``...`` for a record met again inside its own repr (a view and
+    the run that holds it), as a dataclass's repr does, instead of recursing without end."""
+    active: set = set()
+
+    def __repr__(self):
+        key = id(self)
+        if key in active:
+            return "..."
+        active.add(key)
+        try:
+            return method(self)
+        finally:
+            active.discard(key)
+
+    __repr__.__doc__ = method.__doc__
+    __repr__.__qualname__ = method.__qualname__
+    return __repr__

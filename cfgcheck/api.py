@@ -13,6 +13,7 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import Any, Callable, Iterable, Iterator
 
+from ._records import guarded_repr
 from . import engine
 from .engine import Options
 from .findings import FileReport, Report, Tally
@@ -296,6 +297,7 @@ class DeriveResult:
         self.problems = [] if problems is None else problems
         self.internal = [] if internal is None else internal
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(runs={self.runs!r}, problems={self.problems!r}, internal={self.internal!r})"
 

@@ -11,7 +11,7 @@ from typing import Any
 
 import yaml
 
-from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .findings import Severity
 
 try:
@@ -38,6 +38,7 @@ class Message:
         _setattr(self, 'hint', hint)
         _setattr(self, 'severity', severity)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(message={self.message!r}, hint={self.hint!r}, severity={self.severity!r})"
 
@@ -88,6 +89,7 @@ class Rule:
         _setattr(self, 'path', path)
         _setattr(self, 'stage', stage)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(id={self.id!r}, summary={self.summary!r}, severity={self.severity!r}, rationale={self.rationale!r}, sources={self.sources!r}, messages={self.messages!r}, thresholds={self.thresholds!r}, examples={self.examples!r}, fix={self.fix!r}, needs={self.needs!r}, path={self.path!r}, stage={self.stage!r})"
 

@@ -13,6 +13,7 @@ Part of the command-line layer: only ``cli`` declares commands, ``fastcli`` read
 from __future__ import annotations
 
 from typing import Any, Callable
+from ._records import guarded_repr
 
 
 class Param:
@@ -26,6 +27,7 @@ class Param:
         self.argument = argument
         self.settings = settings
 
+    @guarded_repr
     def __repr__(self) -> str:
         kind = "Argument" if self.argument else "Option"
         return f"{kind}({self.default!r}, {', '.join(map(repr, self.param_decls))})"

@@ -37,6 +37,7 @@ import re
 from pathlib import Path
 from typing import Any
 
+from ._records import guarded_repr
 from . import load as loadmod, reads
 from .layouts import BASE_FILE_KEYS
 from .load import Document, LoadError
@@ -70,6 +71,7 @@ class _State:
         self.defaults_list = defaults_list
         self.choices = {} if choices is None else choices
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(primary_dir={self.primary_dir!r}, files={self.files!r}, docs={self.docs!r}, defaults_list={self.defaults_list!r}, choices={self.choices!r})"
 
@@ -95,6 +97,7 @@ class _Layer:
         self.origin = {} if origin is None else origin
         self.chain = {} if chain is None else chain
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(data={self.data!r}, origin={self.origin!r}, chain={self.chain!r})"
 

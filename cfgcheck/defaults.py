@@ -13,7 +13,7 @@ from __future__ import annotations
 from types import MappingProxyType
 from typing import Any, Callable
 
-from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .view import RunView
 
 
@@ -29,6 +29,7 @@ class Default:
         _setattr(self, 'value', value)
         _setattr(self, 'note', note)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(field={self.field!r}, value={self.value!r}, note={self.note!r})"
 

@@ -10,6 +10,7 @@ import os
 from pathlib import Path
 from typing import Any, Callable, Hashable, Iterable, Iterator
 
+from ._records import guarded_repr
 from . import load as loadmod
 from . import memo
 from .catalogue import Rule, load_catalogue
@@ -66,6 +67,7 @@ class Options:
         self.versions = {} if versions is None else versions
         self.readers = readers
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(gpu={self.gpu!r}, gpus={self.gpus!r}, rows={self.rows!r}, only={self.only!r}, skip={self.skip!r}, severity={self.severity!r}, thresholds={self.thresholds!r}, cwd={self.cwd!r}, debug={self.debug!r}, waivers={self.waivers!r}, launch={self.launch!r}, gpus_from={self.gpus_from!r}, script={self.script!r}, script_linted={self.script_linted!r}, models={self.models!r}, overrides={self.overrides!r}, versions={self.versions!r}, readers={self.readers!r})"
 

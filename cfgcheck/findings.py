@@ -12,7 +12,7 @@ from enum import IntEnum
 from types import MappingProxyType
 from typing import Any, Mapping
 
-from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 
 
 class OptionError(ValueError):
@@ -139,6 +139,7 @@ class Edit:
         _setattr(self, 'insert', insert)
         _setattr(self, 'after', after)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(path={self.path!r}, old={self.old!r}, new={self.new!r}, insert={self.insert!r}, after={self.after!r})"
 
@@ -171,6 +172,7 @@ class Fix:
         _setattr(self, 'summary', summary)
         _setattr(self, 'edits', edits)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(tier={self.tier!r}, summary={self.summary!r}, edits={self.edits!r})"
 
@@ -205,6 +207,7 @@ class Related:
         _setattr(self, 'line', line)
         _setattr(self, 'column', column)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(key={self.key!r}, line={self.line!r}, column={self.column!r})"
 
@@ -257,6 +260,7 @@ class Finding:
         _setattr(self, 'fix', fix)
         _setattr(self, 'related', related)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(rule={self.rule!r}, severity={self.severity!r}, file={self.file!r}, line={self.line!r}, column={self.column!r}, key={self.key!r}, message={self.message!r}, hint={self.hint!r}, data={self.data!r}, path={self.path!r}, document={self.document!r}, fix={self.fix!r}, related={self.related!r})"
 
@@ -333,6 +337,7 @@ class InputProblem:
         _setattr(self, 'column', column)
         _setattr(self, 'reason', reason)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(file={self.file!r}, line={self.line!r}, column={self.column!r}, reason={self.reason!r})"
 
@@ -371,6 +376,7 @@ class InternalError:
         _setattr(self, 'rule', rule)
         _setattr(self, 'error', error)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(file={self.file!r}, rule={self.rule!r}, error={self.error!r})"
 
@@ -425,6 +431,7 @@ class FileReport:
         self.baselined = baselined
         self.compose_problem = compose_problem
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(file={self.file!r}, findings={self.findings!r}, problem={self.problem!r}, skipped={self.skipped!r}, layout={self.layout!r}, internal={self.internal!r}, views={self.views!r}, waived={self.waived!r}, baselined={self.baselined!r}, compose_problem={self.compose_problem!r})"
 
@@ -501,6 +508,7 @@ class Report:
     def __init__(self, files=None):
         self.files = [] if files is None else files
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(files={self.files!r})"
 

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 from types import MappingProxyType
 
-from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 
 
 # method words most layouts share (PEFT / TRL scripts, axolotl's adapter, LLaMA-Factory's
@@ -195,6 +195,7 @@ class Layout:
         _setattr(self, 'comma_token_lists', comma_token_lists)
         _setattr(self, 'template_stop_words', {} if template_stop_words is None else template_stop_words)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(name={self.name!r}, title={self.title!r}, fields={self.fields!r}, signature={self.signature!r}, min_score={self.min_score!r}, extends={self.extends!r}, extends_marks={self.extends_marks!r}, sections={self.sections!r}, coerces_numbers={self.coerces_numbers!r}, method_values={self.method_values!r}, default_method={self.default_method!r}, method_patterns={self.method_patterns!r}, interpolates={self.interpolates!r}, module_names={self.module_names!r}, eval_data_known={self.eval_data_known!r}, number_reader={self.number_reader!r}, loader_reads_numbers={self.loader_reads_numbers!r}, section_names={self.section_names!r}, restricted_sections={self.restricted_sections!r}, foreign_sections={self.foreign_sections!r}, search_all_sections={self.search_all_sections!r}, builder_models={self.builder_models!r}, model_dir={self.model_dir!r}, kind_key={self.kind_key!r}, kinds_described={self.kinds_described!r}, fields_for_any_kind={self.fields_for_any_kind!r}, experiment_root={self.experiment_root!r}, experiment_defaults={self.experiment_defaults!r}, experiment_adapter={self.experiment_adapter!r}, reads={self.reads!r}, not_read={self.not_read!r}, role={self.role!r}, trainer_defaults={self.trainer_defaults!r}, read_by_own_classes={self.read_by_own_classes!r}, trainer_schedule={self.trainer_schedule!r}, word_lists={self.word_lists!r}, key_table={self.key_table!r}, targets_text={self.targets_text!r}, packing_masks_boundaries={self.packing_masks_boundaries!r}, rows_cap_key={self.rows_cap_key!r}, qlora_word_needs_4bit={self.qlora_word_needs_4bit!r}, fp16_mode={self.fp16_mode!r}, refuses_quantised_merge={self.refuses_quantised_merge!r}, defaults={self.defaults!r}, defaults_table={self.defaults_table!r}, vocab_resize_key={self.vocab_resize_key!r}, comma_token_lists={self.comma_token_lists!r}, template_stop_words={self.template_stop_words!r})"
 
@@ -1142,6 +1143,7 @@ class UnreadFormat:
         _setattr(self, 'section', section)
         _setattr(self, 'shape', shape)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(name={self.name!r}, title={self.title!r}, marks={self.marks!r}, min_hits={self.min_hits!r}, required={self.required!r}, section={self.section!r}, shape={self.shape!r})"
 

@@ -17,7 +17,7 @@ from contextlib import contextmanager
 from contextvars import ContextVar
 from pathlib import Path
 
-from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from . import load as loadmod, reads
 from .load import Document, LoadError
 from .view import RunView, build_view
@@ -53,6 +53,7 @@ class Link:
         _setattr(self, 'path', path)
         _setattr(self, 'problem', problem)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(field={self.field!r}, target={self.target!r}, path={self.path!r}, problem={self.problem!r})"
 

@@ -25,7 +25,7 @@ from typing import Any, Iterable
 
 import yaml
 
-from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from . import reads
 
 
@@ -79,6 +79,7 @@ class Span:
         _setattr(self, 'start', start)
         _setattr(self, 'end', end)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(line={self.line!r}, column={self.column!r}, start={self.start!r}, end={self.end!r})"
 
@@ -164,6 +165,7 @@ class Entry:
 
     __hash__ = None  # type: ignore[assignment]  # mutable, as the dataclass it replaces
 
+    @guarded_repr
     def __repr__(self) -> str:
         names = ("value", "key", "raw", "style", "tag", "kind", "flow")
         return "Entry(" + ", ".join(f"{n}={v!r}" for n, v in zip(names, self._fields())) + ")"
@@ -190,6 +192,7 @@ class Ambiguity:
         self.yaml11 = yaml11
         self.yaml12 = yaml12
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(path={self.path!r}, kind={self.kind!r}, raw={self.raw!r}, yaml11={self.yaml11!r}, yaml12={self.yaml12!r})"
 
@@ -217,6 +220,7 @@ class Duplicate:
         self.first_value = first_value
         self.second_value = second_value
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(path={self.path!r}, first={self.first!r}, second={self.second!r}, first_value={self.first_value!r}, second_value={self.second_value!r})"
 
@@ -265,6 +269,7 @@ class Document:
         self.number_reader = number_reader
         self.assumed = {} if assumed is None else assumed
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(name={self.name!r}, format={self.format!r}, data={self.data!r}, entries={self.entries!r}, duplicates={self.duplicates!r}, ambiguities={self.ambiguities!r}, tags={self.tags!r}, index={self.index!r}, origins={self.origins!r}, overrides={self.overrides!r}, composed_from={self.composed_from!r}, number_reader={self.number_reader!r}, assumed={self.assumed!r})"
 
@@ -308,6 +313,7 @@ class Source:
         self.bom = bom
         self.newline = newline
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(name={self.name!r}, text={self.text!r}, encoding={self.encoding!r}, bom={self.bom!r}, newline={self.newline!r})"
 

@@ -13,7 +13,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
-from ._records import replaced
+from ._records import replaced, guarded_repr
 from .knowledge.hardware import Gpu
 from .memo import remembered
 from .knowledge.memory import MemoryBreakdown, MemoryInputs, changes_that_fit, estimate_memory
@@ -93,6 +93,7 @@ class Plan:
         self.scheduler_kwargs = {} if scheduler_kwargs is None else scheduler_kwargs
         self.strategies = {} if strategies is None else strategies
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(method={self.method!r}, method_stated={self.method_stated!r}, model_ref={self.model_ref!r}, arch={self.arch!r}, total_parameters={self.total_parameters!r}, trainable_parameters={self.trainable_parameters!r}, adapter_scale={self.adapter_scale!r}, effective_lr={self.effective_lr!r}, learning_rate={self.learning_rate!r}, schedule={self.schedule!r}, tokens_per_step={self.tokens_per_step!r}, seq_len={self.seq_len!r}, seq_len_assumed={self.seq_len_assumed!r}, warmup_steps={self.warmup_steps!r}, cadence={self.cadence!r}, memory_inputs={self.memory_inputs!r}, memory={self.memory!r}, memory_problem={self.memory_problem!r}, gpu={self.gpu!r}, assumptions={self.assumptions!r}, defaults={self.defaults!r}, supplied={self.supplied!r}, context={self.context!r}, gpus_assumed={self.gpus_assumed!r}, load_note={self.load_note!r}, scheduler={self.scheduler!r}, scheduler_kwargs={self.scheduler_kwargs!r}, strategies={self.strategies!r})"
 

@@ -24,6 +24,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any, Iterable
 
+from ._records import guarded_repr
 from . import reads
 from .engine import Options
 from .load import walk_paths
@@ -341,6 +342,7 @@ class Glob:
                     step.add(s + 1)
         return self._closure(step) if step else frozenset()
 
+    @guarded_repr
     def __repr__(self) -> str:
         return f"Glob({self.pattern!r})"
 

@@ -18,6 +18,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
+from ._records import guarded_repr
 from . import load as loadmod, reads
 from .defaults import DEFAULTS, Default
 from .load import LoadError
@@ -70,6 +71,7 @@ class LaunchContext:
         self.mixed_precision_deepspeed = mixed_precision_deepspeed
         self.script = script
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(files={self.files!r}, views={self.views!r}, problems={self.problems!r}, processes={self.processes!r}, processes_from={self.processes_from!r}, machines={self.machines!r}, distributed={self.distributed!r}, zero_stage={self.zero_stage!r}, offload_optimizer={self.offload_optimizer!r}, offload_params={self.offload_params!r}, fsdp={self.fsdp!r}, fsdp_offload={self.fsdp_offload!r}, activation_checkpointing={self.activation_checkpointing!r}, mixed_precision={self.mixed_precision!r}, mixed_precision_from={self.mixed_precision_from!r}, mixed_precision_deepspeed={self.mixed_precision_deepspeed!r}, script={self.script!r})"
 
@@ -251,6 +253,7 @@ class OpenedRun:
         self.gpus_field = gpus_field
         self.disagreements = [] if disagreements is None else disagreements
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(view={self.view!r}, file={self.file!r}, cwd={self.cwd!r}, launch={self.launch!r}, gpus={self.gpus!r}, gpus_origin={self.gpus_origin!r}, gpus_from={self.gpus_from!r}, gpus_field={self.gpus_field!r}, disagreements={self.disagreements!r})"
 

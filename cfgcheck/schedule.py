@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from types import MappingProxyType
+from ._records import guarded_repr
 
 # transformers TrainingArguments defaults (identical in 4.57 and 5.x)
 TRAINER_DEFAULTS = MappingProxyType({
@@ -51,6 +52,7 @@ class Schedule:
         self.generations = generations
         self.defaults_used = [] if defaults_used is None else defaults_used
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(per_device={self.per_device!r}, accumulation={self.accumulation!r}, gpus={self.gpus!r}, effective_batch={self.effective_batch!r}, rows={self.rows!r}, steps_per_epoch={self.steps_per_epoch!r}, total_steps={self.total_steps!r}, epochs={self.epochs!r}, max_steps_override={self.max_steps_override!r}, generations={self.generations!r}, defaults_used={self.defaults_used!r})"
 

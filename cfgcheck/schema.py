@@ -15,7 +15,7 @@ import json
 from types import MappingProxyType
 from typing import Any
 
-from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .layouts import BY_NAME, FIELD_TYPES, LAYOUTS, Layout
 
 SCHEMA_ID = "https://cfgcheck.invalid/schema/run-view.json"
@@ -70,6 +70,7 @@ class Constraint:
         _setattr(self, 'word_list', word_list)
         _setattr(self, 'source', source)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(minimum={self.minimum!r}, exclusive_minimum={self.exclusive_minimum!r}, exclusive_maximum={self.exclusive_maximum!r}, enum={self.enum!r}, word_list={self.word_list!r}, source={self.source!r})"
 
@@ -238,6 +239,7 @@ class Violation:
         _setattr(self, 'bound', bound)
         _setattr(self, 'source', source)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(field={self.field!r}, value={self.value!r}, problem={self.problem!r}, bound={self.bound!r}, source={self.source!r})"
 

@@ -9,6 +9,7 @@ from __future__ import annotations
 import re
 from typing import Any
 
+from ._records import guarded_repr
 from .findings import too_large
 from .layouts import (BASE_FILE_KEYS, BY_NAME, FIELD_TYPES, LAYOUTS, METHOD_WORDS, NOT_TRAINING,
                       UNREAD_FORMATS, Layout, UnreadFormat)
@@ -49,6 +50,7 @@ class Field:
         self.origin = origin
         self.note = note
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(name={self.name!r}, value={self.value!r}, path={self.path!r}, written={self.written!r}, auto={self.auto!r}, from_text={self.from_text!r}, origin={self.origin!r}, note={self.note!r})"
 
@@ -79,6 +81,7 @@ class TypeProblem:
         self.field = field
         self.expected = expected
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(field={self.field!r}, expected={self.expected!r})"
 
@@ -128,6 +131,7 @@ class RunView:
         self.model_found = model_found
         self.run = run
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(doc={self.doc!r}, layout={self.layout!r}, fields={self.fields!r}, method={self.method!r}, method_stated={self.method_stated!r}, method_field={self.method_field!r}, type_problems={self.type_problems!r}, out_of_range={self.out_of_range!r}, skipped={self.skipped!r}, attached={self.attached!r}, links={self.links!r}, supplied={self.supplied!r}, model_found={self.model_found!r}, run={self.run!r})"
 

@@ -18,7 +18,7 @@ from __future__ import annotations
 import re
 from typing import Iterable
 
-from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .findings import Finding
 from .load import Document, Span
 
@@ -54,6 +54,7 @@ class Waiver:
         _setattr(self, 'problem', problem)
         _setattr(self, 'target', target)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(line={self.line!r}, column={self.column!r}, offset={self.offset!r}, text={self.text!r}, rules={self.rules!r}, reason={self.reason!r}, problem={self.problem!r}, target={self.target!r})"
 
@@ -92,6 +93,7 @@ class ProjectWaiver:
         _setattr(self, 'reason', reason)
         _setattr(self, 'key', key)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(rule={self.rule!r}, reason={self.reason!r}, key={self.key!r})"
 

@@ -114,3 +114,19 @@ def test_layout_found_is_the_best_score_of_every_layout():
     for data in docs:
         found, why = detect_layout(data)
         assert found is every_layout(data), data
+
+
+def test_a_view_and_the_run_that_holds_it_print_without_recursing():
+    """An opened run holds its view and the view its run: the repr shows the cycle as ``...``
+    (as a dataclass's repr does) instead of recursing until Python gives up."""
+    from cfgcheck.load import load_text
+    from cfgcheck.run import open_view
+    from cfgcheck.view import build_view
+
+    doc = load_text("model_name_or_path: acme/tiny-7b\nlearning_rate: 2.0e-5\n", "run.yaml")[0]
+    view = build_view(doc)
+    run = open_view(view, "run.yaml")
+    assert view.run is run and run.view is view
+    text = repr(view)
+    assert text.startswith("RunView(") and "..." in text
+    assert "learning_rate" in text  # the fields are still shown

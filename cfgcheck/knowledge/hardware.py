@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from types import MappingProxyType
 
-from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 
 GIB = 1024**3
 GB = 1000**3
@@ -34,6 +34,7 @@ class Gpu:
         _setattr(self, 'memory_bytes', memory_bytes)
         _setattr(self, 'source', source)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(name={self.name!r}, label={self.label!r}, capability={self.capability!r}, memory_bytes={self.memory_bytes!r}, source={self.source!r})"
 

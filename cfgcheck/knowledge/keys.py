@@ -35,7 +35,7 @@ import json
 from functools import cache
 from pathlib import Path
 
-from .._records import _frozen_delattr, _frozen_setattr, _setattr
+from .._records import _frozen_delattr, _frozen_setattr, _setattr, guarded_repr
 
 __all__ = ("KeyInfo", "lookup", "suggest", "layouts")
 
@@ -61,6 +61,7 @@ class KeyInfo:
         _setattr(self, 'accepted', accepted)
         _setattr(self, 'current', current)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(name={self.name!r}, layout={self.layout!r}, owners={self.owners!r}, accepted={self.accepted!r}, current={self.current!r})"
 

@@ -32,7 +32,7 @@ import math
 from functools import lru_cache
 from types import MappingProxyType
 
-from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, replaced
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, replaced, guarded_repr
 from .models import (
     Architecture,
     NoDefaultTargets,
@@ -162,6 +162,7 @@ class MemoryInputs:
         _setattr(self, 'autocast', autocast)
         _setattr(self, 'storage_note', storage_note)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(arch={self.arch!r}, method={self.method!r}, base_storage={self.base_storage!r}, double_quant={self.double_quant!r}, optimizer={self.optimizer!r}, sgd_momentum={self.sgd_momentum!r}, mixed_precision={self.mixed_precision!r}, micro_batch={self.micro_batch!r}, seq_len={self.seq_len!r}, gradient_checkpointing={self.gradient_checkpointing!r}, fused_attention={self.fused_attention!r}, lora_rank={self.lora_rank!r}, lora_targets={self.lora_targets!r}, modules_to_save={self.modules_to_save!r}, num_gpus={self.num_gpus!r}, sharding={self.sharding!r}, overhead_bytes={self.overhead_bytes!r}, offload_optimizer={self.offload_optimizer!r}, autocast={self.autocast!r}, storage_note={self.storage_note!r})"
 
@@ -217,6 +218,7 @@ class MemoryBreakdown:
         _setattr(self, 'weight_copies_bytes', weight_copies_bytes)
         _setattr(self, 'recomputed_layer_bytes', recomputed_layer_bytes)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(weights_bytes={self.weights_bytes!r}, gradients_bytes={self.gradients_bytes!r}, optimizer_bytes={self.optimizer_bytes!r}, master_weights_bytes={self.master_weights_bytes!r}, activations_bytes={self.activations_bytes!r}, logits_bytes={self.logits_bytes!r}, overhead_bytes={self.overhead_bytes!r}, total_bytes={self.total_bytes!r}, notes={self.notes!r}, trainable_parameters={self.trainable_parameters!r}, total_parameters={self.total_parameters!r}, weight_copies_bytes={self.weight_copies_bytes!r}, recomputed_layer_bytes={self.recomputed_layer_bytes!r})"
 

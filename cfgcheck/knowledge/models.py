@@ -37,7 +37,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Iterable
 
-from .._records import _frozen_delattr, _frozen_setattr, _setattr, replaced
+from .._records import _frozen_delattr, _frozen_setattr, _setattr, replaced, guarded_repr
 from .. import reads
 
 __all__ = (
@@ -144,6 +144,7 @@ class Architecture:
         _setattr(self, 'match', match)
         _setattr(self, 'quantised', quantised)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(family={self.family!r}, hidden_size={self.hidden_size!r}, intermediate_size={self.intermediate_size!r}, num_layers={self.num_layers!r}, num_heads={self.num_heads!r}, num_kv_heads={self.num_kv_heads!r}, head_dim={self.head_dim!r}, vocab_size={self.vocab_size!r}, max_position_embeddings={self.max_position_embeddings!r}, tie_word_embeddings={self.tie_word_embeddings!r}, torch_dtype={self.torch_dtype!r}, num_experts={self.num_experts!r}, experts_per_token={self.experts_per_token!r}, source={self.source!r}, attention_bias={self.attention_bias!r}, mlp_bias={self.mlp_bias!r}, sliding_window={self.sliding_window!r}, expert_intermediate_size={self.expert_intermediate_size!r}, shared_expert_intermediate_size={self.shared_expert_intermediate_size!r}, first_dense_layers={self.first_dense_layers!r}, kv_lora_rank={self.kv_lora_rank!r}, q_lora_rank={self.q_lora_rank!r}, qk_rope_head_dim={self.qk_rope_head_dim!r}, v_head_dim={self.v_head_dim!r}, parallel_norms={self.parallel_norms!r}, entry={self.entry!r}, how={self.how!r}, assumed={self.assumed!r}, match={self.match!r}, quantised={self.quantised!r})"
 
@@ -470,6 +471,7 @@ class CatalogueEntry:
         _setattr(self, 'published_source', published_source)
         _setattr(self, 'published_extra', published_extra)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(id={self.id!r}, aliases={self.aliases!r}, arch={self.arch!r}, source={self.source!r}, published_total={self.published_total!r}, published_source={self.published_source!r}, published_extra={self.published_extra!r})"
 

@@ -22,7 +22,7 @@ import re
 from functools import lru_cache
 from pathlib import Path
 
-from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .. import reads
 from ..findings import OptionError
 
@@ -44,6 +44,7 @@ class Pin:
         _setattr(self, 'version', version)
         _setattr(self, 'source', source)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(library={self.library!r}, version={self.version!r}, source={self.source!r})"
 

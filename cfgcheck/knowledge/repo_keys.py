@@ -36,7 +36,7 @@ from pathlib import Path
 from types import MappingProxyType
 
 # ``ast`` is imported by the functions that read a script: a plain lint never parses Python
-from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .. import reads
 
 MAX_FILES = 400
@@ -75,6 +75,7 @@ class RepoKeys:
         _setattr(self, 'reader_libraries', reader_libraries)
         _setattr(self, 'read_only', read_only)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(root={self.root!r}, keys={self.keys!r}, sources={self.sources!r}, files={self.files!r}, number_reader={self.number_reader!r}, reader_libraries={self.reader_libraries!r}, read_only={self.read_only!r})"
 

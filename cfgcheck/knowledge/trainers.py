@@ -14,7 +14,7 @@ from __future__ import annotations
 from functools import lru_cache
 from types import MappingProxyType
 
-from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 
 FAMILIES: MappingProxyType[str, frozenset[str]] = MappingProxyType({
     "SFT": frozenset({"SFTConfig", "IterativeSFTConfig", "GKDConfig"}),
@@ -55,6 +55,7 @@ class Guess:
         _setattr(self, 'evidence', evidence)
         _setattr(self, 'strangers', strangers)
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(family={self.family!r}, evidence={self.evidence!r}, strangers={self.strangers!r})"
 

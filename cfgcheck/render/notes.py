@@ -10,6 +10,7 @@ names)". The notes themselves stay findings (JSON carries them; text shows them 
 from __future__ import annotations
 
 import re
+from .._records import guarded_repr
 
 _QUOTED = re.compile(r"'([^']*)'")
 _DETAIL = re.compile(r"\s*\((?:[^()]*['/][^()]*|no model named)\)")
@@ -34,6 +35,7 @@ class NoteGroup:
         self.files = set() if files is None else files
         self.names = set() if names is None else names
 
+    @guarded_repr
     def __repr__(self):
         return f"{type(self).__qualname__}(rule={self.rule!r}, reason={self.reason!r}, files={self.files!r}, names={self.names!r})"
 
