@@ -13,6 +13,7 @@ Part of the command-line layer: only ``cli`` declares commands, ``fastcli`` read
 from __future__ import annotations
 
 from typing import Any, Callable
+
 from ._records import guarded_repr
 
 

@@ -12,10 +12,12 @@ is the same as in a serial run, and the reports are yielded in the files' order,
 is byte for byte the serial one. No more than a bounded window of reports is held at any time,
 so a caller that writes each report as it comes keeps its memory flat.
 
-How workers start: on Linux, when this process runs no other thread, they are forked at once,
-before anything is prepared: the worker parses the catalogue and builds the tables its rules
-fill on first use while this process does the same and lints, instead of after it; the chunks it
-is sent are only index ranges into the list it inherited. Forking a process that runs other
+How workers start: on Linux, when this process runs no other thread, they are forked once
+this process has prepared the options (parsed the catalogue, imported the checks), which they
+inherit instead of each doing it again (measured on 2 cores: forking before that preparation gave
+a 1.5x speed-up, after it 1.9x), and before any file is linted; the tables the rules fill on first
+use are built in each process. The chunks a forked worker is sent are only index ranges into the
+list it inherited. Forking a process that runs other
 threads can copy a lock another thread holds; there (and on macOS and Windows, where fork is
 unsafe or absent) workers come from a fork server that imported the engine once
 (``forkserver``, preloaded), else are spawned, and are sent their files; this process lints
@@ -184,13 +186,16 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
             return pool.submit(_lint_range, a, b)
         return pool.submit(_lint_chunk, lint_file, distinct, [(path, index[id(o)]) for path, o in pairs[a:b]])
 
+    if workers and fork:
+        for options in distinct:
+            prepare(options)  # once, here: the forked workers inherit the parsed catalogue and checks
     if workers:
         if fork:
             _INHERITED_CACHE, _LINT_CACHE = pairs, lint_file
             gc.freeze()  # the workers' collector then leaves the inherited objects (and their pages) alone
         try:
             pool = ProcessPoolExecutor(max_workers=workers, mp_context=_context(fork))
-            # the first chunks go out before anything is prepared here: forked workers start now
+            # the first chunks go out before this process lints anything: the workers start now
             while taken < len(bounds) - 1 and in_pool < workers * POOL_AHEAD:
                 chunks[taken] = send(taken)
                 taken += 1
@@ -204,8 +209,9 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
                 _INHERITED_CACHE, _LINT_CACHE = None, None  # the workers have their copy
     LAST_RUN_CACHE["here"] = time.process_time() - started
     mine = time.process_time()
-    for options in distinct:
-        prepare(options)  # parse the catalogue and import the checks
+    if not (workers and fork):  # a forked pool's options were prepared before it started
+        for options in distinct:
+            prepare(options)  # parse the catalogue and import the checks
 
     def here(i: int) -> list[Any]:
         a, b = bounds[i]

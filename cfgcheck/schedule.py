@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from types import MappingProxyType
+
 from ._records import guarded_repr
 
 # transformers TrainingArguments defaults (identical in 4.57 and 5.x)

@@ -10,6 +10,7 @@ names)". The notes themselves stay findings (JSON carries them; text shows them 
 from __future__ import annotations
 
 import re
+
 from .._records import guarded_repr
 
 _QUOTED = re.compile(r"'([^']*)'")
