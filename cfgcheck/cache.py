@@ -223,6 +223,7 @@ class Store:
         self.written = 0  # bytes written by this run
         self._facts: dict[tuple[str, str, str], str] = {}  # facts checked in this run
         self._prefix: str | None = None
+        self._code: str | None = None  # sha256 of cfgcheck's files (set by _fixed)
         self._options: dict[int, tuple[Any, str]] = {}  # id -> (options, their text): files share them
         self._sets: dict[str, bool] = {}  # fact sets checked in this run -> whether they hold
         self._set_facts: dict[str, list] = {}  # fact set -> its facts, while a run is recorded
@@ -242,14 +243,18 @@ class Store:
     def _fixed(self) -> str:
         """The part of every key that does not depend on the file or its options."""
         if self._prefix is None:
-            stats = []
-            for p in _package_files() + _library_files():
-                try:
-                    st = os.stat(p)
-                    stats.append((str(p), st.st_size, st.st_mtime_ns))
-                except OSError:
-                    stats.append((str(p), -1, -1))
-            code = self._code_fingerprint(stats)
+            # the check of the run's record worked the code's fingerprint out a moment ago
+            code = self.run.seen.get("code") if self.run is not None else None
+            if code is None:
+                stats = []
+                for p in _package_files() + _library_files():
+                    try:
+                        st = os.stat(p)
+                        stats.append((str(p), st.st_size, st.st_mtime_ns))
+                    except OSError:
+                        stats.append((str(p), -1, -1))
+                code = self._code_fingerprint(stats)
+            self._code = code
             env = [(n, os.environ.get(n)) for n in ENV_INPUTS]
             # a process that already holds the checks (a long-lived caller, a test) may have
             # replaced one with a function from elsewhere: such replacements are part of the key
@@ -602,6 +607,7 @@ def lint_from_cache(args: dict, progress: Any = None) -> "_Run":
     except Exception:  # noqa: BLE001 - Uncacheable, an unreadable working folder: no run record
         return run
     target = os.path.join(store._folder, "runs", key[:2], key[2:])
+    run.seen["code"] = store._code  # the per-file cache of a full run keys by it too
     code = _replay(target, key, progress, run.seen)
     if code is not None:
         run.code = code
@@ -776,17 +782,22 @@ class _Run:
         try:
             blob = text.encode(self._enc, self._errors)
             if self._fh is None:
-                folder = os.path.dirname(self._target)
-                os.makedirs(folder, exist_ok=True)
-                self._tmp = os.path.join(folder, f".{os.path.basename(self._target)}."
-                                                 f"{os.getpid()}.{time.monotonic_ns()}.tmp")
-                self._fh = open(self._tmp, "wb")
+                self._open_spool()
             self._fh.write(blob)
             self._bytes += len(blob)
             if self._bytes > MAX_RUN_OUTPUT:
                 self.spoil()
         except (OSError, ValueError, UnicodeError):
             self.spoil()
+
+    def _open_spool(self) -> None:
+        """The temporary file beside the record that the output is copied to, moved into place
+        by done()."""
+        folder = os.path.dirname(self._target)
+        os.makedirs(folder, exist_ok=True)
+        self._tmp = os.path.join(folder, f".{os.path.basename(self._target)}."
+                                         f"{os.getpid()}.{time.monotonic_ns()}.tmp")
+        self._fh = open(self._tmp, "wb")
 
     def _took_err(self, text: str) -> None:
         # the progress line ('\r...') is drawn again on a replay; anything else on stderr (a
@@ -861,11 +872,7 @@ class _Run:
                                   tuple(store.run_files),
                                   tuple((k, p, pat, v) for (k, p, pat), v in sorted(facts.items()))))
             if self._fh is None:  # nothing printed
-                folder = os.path.dirname(self._target)
-                os.makedirs(folder, exist_ok=True)
-                self._tmp = os.path.join(folder, f".{os.path.basename(self._target)}."
-                                                 f"{os.getpid()}.{time.monotonic_ns()}.tmp")
-                self._fh = open(self._tmp, "wb")
+                self._open_spool()
             self._fh.write(meta + len(meta).to_bytes(8, "little") + _RUN_MAGIC)
             self._fh.close()
             self._fh = None

@@ -395,12 +395,7 @@ def _lint_output(reports, *, fmt, proj, show, frame, quiet, summary, sarif_not_c
 
 def _write_piece(out: str) -> None:
     """Like _write, flushed once at the end (the output comes in pieces)."""
-    try:
-        sys.stdout.write(out)
-    except UnicodeEncodeError:
-        enc = sys.stdout.encoding or "utf-8"
-        sys.stdout.flush()
-        sys.stdout.buffer.write(out.encode(enc, errors="backslashreplace"))
+    _emit(sys.stdout, out, flush=False)
 
 
 @commands.command("derive")
@@ -478,25 +473,26 @@ def fix(
     raise SystemExit(api.fix_exit_code(report, no_write=no_write))
 
 
+def _emit(stream, out: str, *, flush: bool = True) -> None:
+    """Write OUT to STREAM, escaping what its encoding cannot show (odd file names, lone
+    surrogates). STREAM is passed at the call: the run being recorded may have replaced it."""
+    try:
+        stream.write(out)
+    except UnicodeEncodeError:
+        stream.flush()
+        stream.buffer.write(out.encode(stream.encoding or "utf-8", errors="backslashreplace"))
+    if flush:
+        stream.flush()
+
+
 def _write_err(out: str) -> None:
     """Like _write, on stderr."""
-    try:
-        sys.stderr.write(out)
-    except UnicodeEncodeError:
-        sys.stderr.flush()
-        sys.stderr.buffer.write(out.encode(sys.stderr.encoding or "utf-8", errors="backslashreplace"))
-    sys.stderr.flush()
+    _emit(sys.stderr, out)
 
 
 def _write(out: str) -> None:
-    """Print, escaping what the terminal's encoding cannot show (odd file names, lone surrogates)."""
-    try:
-        sys.stdout.write(out)
-    except UnicodeEncodeError:
-        enc = sys.stdout.encoding or "utf-8"
-        sys.stdout.flush()
-        sys.stdout.buffer.write(out.encode(enc, errors="backslashreplace"))
-    sys.stdout.flush()
+    """Print, escaping what the terminal's encoding cannot show."""
+    _emit(sys.stdout, out)
 
 
 @commands.command("report")

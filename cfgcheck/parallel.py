@@ -186,9 +186,10 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
             return pool.submit(_lint_range, a, b)
         return pool.submit(_lint_chunk, lint_file, distinct, [(path, index[id(o)]) for path, o in pairs[a:b]])
 
-    if workers and fork:
+    prepared_first = bool(workers) and fork  # forked workers then inherit what prepare() builds
+    if prepared_first:
         for options in distinct:
-            prepare(options)  # once, here: the forked workers inherit the parsed catalogue and checks
+            prepare(options)  # parse the catalogue and import the checks
     if workers:
         if fork:
             _INHERITED_CACHE, _LINT_CACHE = pairs, lint_file
@@ -209,9 +210,9 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
                 _INHERITED_CACHE, _LINT_CACHE = None, None  # the workers have their copy
     LAST_RUN_CACHE["here"] = time.process_time() - started
     mine = time.process_time()
-    if not (workers and fork):  # a forked pool's options were prepared before it started
+    if not prepared_first:  # a pool that is not forked prepares in each worker: this process meanwhile
         for options in distinct:
-            prepare(options)  # parse the catalogue and import the checks
+            prepare(options)
 
     def here(i: int) -> list[Any]:
         a, b = bounds[i]

@@ -11,6 +11,7 @@ from types import MappingProxyType
 
 
 from ..findings import Severity, Tally, printable
+from . import whole_output
 from .text import summary_line
 
 COMMAND = MappingProxyType({Severity.ERROR: "error", Severity.WARNING: "warning", Severity.INFO: "notice"})
@@ -75,12 +76,4 @@ class Writer:
 
 def render(report, visible, *, hidden_info: int = 0, **_) -> str:
     w = Writer()
-    for fr in report.files:
-        w.add(fr, ())
-    for f in visible:
-        w.finding(f)
-    w.hidden_info = hidden_info
-    out: list[str] = []
-    w.finish(out.append)
-    w.close()
-    return "".join(out)
+    return whole_output(w, report, visible, hidden_info=hidden_info)

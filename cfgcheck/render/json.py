@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from .. import __version__
 from ..findings import Severity, Tally
+from . import whole_output
 
 _LISTS = ("findings", "input_errors", "internal_errors", "files", "waived")  # in the document's order
 
@@ -66,11 +67,4 @@ class Writer:
 
 def render(report, visible, **_) -> str:
     w = Writer()
-    for fr in report.files:
-        w.add(fr, ())
-    for f in visible:
-        w.finding(f)
-    out: list[str] = []
-    w.finish(out.append)
-    w.close()
-    return "".join(out)
+    return whole_output(w, report, visible)

@@ -16,6 +16,7 @@ from types import MappingProxyType
 from .. import __version__
 from ..catalogue import load_catalogue
 from ..findings import Severity, Tally
+from . import whole_output
 
 SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
 FINGERPRINT = "cfgcheck/identity/v1"
@@ -159,11 +160,4 @@ class Writer:
 def render(report, visible, *, rules=None, **_) -> str:
     """``rules``: the catalogue to describe (default: the whole catalogue, sorted by id)."""
     w = Writer(rules=rules)
-    for fr in report.files:
-        w.add(fr, ())
-    for f in visible:
-        w.finding(f)
-    out: list[str] = []
-    w.finish(out.append)
-    w.close()
-    return "".join(out)
+    return whole_output(w, report, visible)

@@ -10,6 +10,7 @@ from __future__ import annotations
 from types import MappingProxyType
 
 from ..findings import NOT_READ_NAMED, Severity, Tally, printable
+from . import whole_output
 
 _SGR = MappingProxyType({"error": "1;31", "warning": "1;33", "info": "1;36", "where": "1", "rule": "2",
         "hint": "32", "mark": "1;4", "summary": "1"})
@@ -191,12 +192,4 @@ class Writer:
 def render(report, visible, *, hidden_info: int = 0, color: bool = False,
            frames: dict[str, list[str]] | None = None, mode: str = "full", **_) -> str:
     w = Writer(color=color, frames=frames, mode=mode)
-    for fr in report.files:
-        w.add(fr, ())
-    for f in visible:
-        w.finding(f)
-    w.hidden_info = hidden_info
-    out: list[str] = []
-    w.finish(out.append)
-    w.close()
-    return "".join(out)
+    return whole_output(w, report, visible, hidden_info=hidden_info)
