@@ -117,8 +117,16 @@ def json_text(doc: Any, indent: int | None = 2) -> str:
     reads back as the same string. Used by every JSON output and by baselines."""
     import json
 
-    text = json.dumps(doc, indent=indent, ensure_ascii=False)
-    return _SURROGATE.sub(lambda m: f"\\u{ord(m.group()):04x}", text)
+    return escape_surrogates(json.dumps(doc, indent=indent, ensure_ascii=False))
+
+
+def escape_surrogates(text: str) -> str:
+    """JSON text with each lone surrogate as its \\uXXXX escape (see ``json_text``)."""
+    return _SURROGATE.sub(_surrogate_escape, text)
+
+
+def _surrogate_escape(m: re.Match) -> str:
+    return f"\\u{ord(m.group()):04x}"
 
 
 class Edit:

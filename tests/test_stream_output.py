@@ -143,3 +143,41 @@ def test_cli_output_is_the_same_in_every_format_serial_and_parallel(tmp_path):
                 for extra in ([], ["--jobs", "2"])]
         assert runs[0].stdout and runs[0].stdout == runs[1].stdout, fmt
         assert runs[0].returncode == runs[1].returncode == 2, fmt  # the broken file
+
+
+# --------------------------------------------------------------------------- the items' own writer
+
+from hypothesis import given, settings, strategies as st  # noqa: E402
+
+
+class _Text(str):
+    pass
+
+
+_SCALARS = st.one_of(
+    st.none(), st.booleans(), st.integers(), st.floats(allow_nan=True, allow_infinity=True),
+    st.text(max_size=8), st.sampled_from(["\ud800", "a\udfffb", "é\n\"\\\x00\x1f", _Text("sub")]),
+    st.sampled_from([Severity.ERROR]),  # an int subclass, written as json.dumps writes it
+)
+_KEYS = st.one_of(st.text(max_size=6), st.integers(), st.floats(), st.booleans(), st.none(),
+                  st.just("\ud801"))
+_VALUES = st.recursive(_SCALARS, lambda inner: st.one_of(
+    st.lists(inner, max_size=4), st.tuples(inner, inner),
+    st.dictionaries(_KEYS, inner, max_size=4)), max_leaves=20)
+
+
+@settings(max_examples=400, deadline=None)
+@given(_VALUES, st.sampled_from(["", "  ", "        "]))
+def test_json_items_are_laid_out_as_the_standard_library_lays_them_out(value, pad):
+    # reference: Python's json.dumps(indent=2, ensure_ascii=False), through findings.json_text
+    assert spool.indented(value, pad) == json_text(value).replace("\n", "\n" + pad)
+
+
+def test_json_items_refuse_what_the_standard_library_refuses():
+    for bad in ({"k": object()}, {(1, 2): "tuple key"}):
+        for write in (lambda v: spool.indented(v), json_text):
+            try:
+                write(bad)
+            except TypeError:
+                continue
+            raise AssertionError(f"{bad!r} was written")

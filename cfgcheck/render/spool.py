@@ -19,7 +19,7 @@ from __future__ import annotations
 
 from typing import Any, Callable, Iterator
 
-from ..findings import json_text
+from ..findings import escape_surrogates as _escape_surrogates, json_text
 
 MEMORY_LIMIT = 64 * 1024  # characters a spool keeps in memory before it moves to a file
 READ_SIZE = 64 * 1024  # characters read back at a time
@@ -81,6 +81,107 @@ class Spool:
             self._file = None
 
 
+# --------------------------------------------------------------------------- JSON items
+
+# The items of a JSON output are written by ``indented`` below, not by ``json.dumps``: with an
+# indent, the standard library encodes in pure Python (its C encoder only writes unindented
+# JSON), which was most of the time a JSON or SARIF output took. ``indented`` lays out the
+# plain values an output holds (str, int, float, bool, None, list, tuple, dict) byte for byte
+# as ``findings.json_text`` does; any other value goes to ``json_text`` itself.
+_INF = float("inf")
+_string: Callable[[str], str] = None  # type: ignore[assignment]  # json's string writer, on first use
+
+
+def _load_string_writer() -> None:
+    global _string
+    from json.encoder import encode_basestring  # the C encoder's own, where it is built
+
+    _string = encode_basestring
+_int_text = int.__repr__
+_float_repr = float.__repr__
+
+
+def _float_text(value: float) -> str:
+    if value != value:
+        return "NaN"
+    if value == _INF:
+        return "Infinity"
+    if value == -_INF:
+        return "-Infinity"
+    return _float_repr(value)
+
+
+def _key_text(key: Any) -> str:
+    """A dict key as ``json.dumps`` writes it (keys that are not strings converted as it does)."""
+    if isinstance(key, str):
+        return _string(key)
+    if isinstance(key, float):
+        return _string(_float_text(key))
+    if key is True:
+        return '"true"'
+    if key is False:
+        return '"false"'
+    if key is None:
+        return '"null"'
+    if isinstance(key, int):
+        return _string(_int_text(key))
+    raise TypeError(f"keys must be str, int, float, bool or None, not {key.__class__.__name__}")
+
+
+def _value_text(value: Any, pad: str) -> str:
+    """VALUE as ``json.dumps(value, indent=2, ensure_ascii=False)`` writes it, each line after
+    the first starting with PAD (the indentation of the line VALUE starts on)."""
+    t = type(value)
+    if t is str:
+        return _string(value)
+    if t is dict:
+        if not value:
+            return "{}"
+        inner = pad + "  "
+        parts = []
+        for k, v in value.items():
+            tv = type(v)
+            if tv is str:
+                v = _string(v)
+            elif tv is int:
+                v = _int_text(v)
+            elif v is None:
+                v = "null"
+            else:
+                v = _value_text(v, inner)
+            parts.append((_string(k) if type(k) is str else _key_text(k)) + ": " + v)
+        return "{\n" + inner + (",\n" + inner).join(parts) + "\n" + pad + "}"
+    if t is list or t is tuple:
+        if not value:
+            return "[]"
+        inner = pad + "  "
+        parts = [_string(v) if type(v) is str else _value_text(v, inner) for v in value]
+        return "[\n" + inner + (",\n" + inner).join(parts) + "\n" + pad + "]"
+    if value is None:
+        return "null"
+    if value is True:
+        return "true"
+    if value is False:
+        return "false"
+    if t is int:
+        return _int_text(value)
+    if t is float:
+        return _float_text(value)
+    # a subclass of a plain type, or a value json.dumps refuses: the standard library decides
+    return json_text(value).replace("\n", "\n" + pad)  # JSON strings hold no raw line break
+
+
+def indented(value: Any, pad: str = "") -> str:
+    """``findings.json_text(value)`` with every line after the first starting with PAD: the
+    text of a value nested at PAD's indentation of a document ``json_text`` writes."""
+    if _string is None:
+        _load_string_writer()
+    text = _value_text(value, pad)
+    if not text.isascii():
+        text = _escape_surrogates(text)
+    return text
+
+
 class JsonItems:
     """The items of one JSON list, at a known indentation (the list's key at ``indent`` spaces,
     its items two further), as ``json.dumps(..., indent=2)`` lays them out."""
@@ -90,10 +191,15 @@ class JsonItems:
     def __init__(self, indent: int) -> None:
         self.spool = Spool()
         self.pad = " " * (indent + 2)
+        if _string is None:
+            _load_string_writer()
 
     def add(self, item: Any) -> None:
-        text = json_text(item).replace("\n", "\n" + self.pad)  # JSON strings hold no raw line break
-        self.spool.write((",\n" if self.spool else "") + self.pad + text)
+        pad = self.pad
+        text = _value_text(item, pad)
+        if not text.isascii():
+            text = _escape_surrogates(text)
+        self.spool.write((",\n" if self.spool else "") + pad + text)
 
     def close(self) -> None:
         self.spool.close()
