@@ -15,7 +15,7 @@ from . import load as loadmod
 from . import memo
 from .catalogue import Rule, load_catalogue
 from .checks import all_checks
-from .findings import FileReport, Finding, Fix, InputProblem, InternalError, Related, Report, Severity, shown_data
+from .findings import FileReport, Finding, Fix, InputProblem, InternalError, Related, Report, Severity, new_finding, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted, walk_paths
 from .view import Field, RunView, build_view
@@ -184,82 +184,96 @@ class Context:
         defaulted says; with any, the finding is at most a warning and its message names them."""
         span = None
         notes = [self._model_assumption] if self._model_assumption else []
-        for a in list(assumed) + ([at] if isinstance(at, Field) else []):
-            if isinstance(a, Field):
-                if a.origin == "assumed":
-                    notes.append(a.note or f"{a.name} assumed")
-            elif a:
-                notes.append(str(a))
-        if isinstance(at, waivermod.Waiver):  # a comment: located where it is written
+        if assumed:
+            for a in assumed:
+                if isinstance(a, Field):
+                    if a.origin == "assumed":
+                        notes.append(a.note or f"{a.name} assumed")
+                elif a:
+                    notes.append(str(a))
+        if isinstance(at, Field):
+            if at.origin == "assumed":
+                notes.append(at.note or f"{at.name} assumed")
+            path = at.path
+        elif isinstance(at, waivermod.Waiver):  # a comment: located where it is written
             span = at.span
             paths = self.waiver_paths.get(at.target, []) if at.target else []
             path = min(paths, key=len) if paths else ()
         else:
-            path = at.path if isinstance(at, Field) else tuple(at or ())
-        others = tuple(r.path if isinstance(r, Field) else tuple(r) for r in related)
+            path = tuple(at or ())
+        others = tuple([r.path if isinstance(r, Field) else tuple(r) for r in related]) if related else ()
         self._sink.append(
             make_finding(self.rule, self.options, self.doc, self.file, path, variant, on, data,
-                         fix, span, others, assumptions=tuple(dict.fromkeys(notes)))
+                         fix, span, others, assumptions=tuple(dict.fromkeys(notes)) if notes else ())
         )
 
     def cannot_judge(self, what: str, **data: Any) -> None:
         """Say once, at info level, that the rule had too little to go on."""
-        if self._judged_once is None:
-            self._judged_once = set()
-        elif what in self._judged_once:
+        judged = self._judged_once
+        if judged is None:
+            judged = self._judged_once = set()
+        elif what in judged:
             return
-        self._judged_once.add(what)
+        judged.add(what)
+        rule = self.rule
         data = shown_data(data)
-        msg = self.rule.messages.get("cannot-judge")
-        text = (msg.message if msg else "{rule}: not checked: {reason}")
-        self._sink.append(
-            _finding(
-                rule=self.rule.id, severity=Severity.INFO, doc=self.doc, file=self.file, path=(),
-                on="value", message=_fill(text, dict(data, rule=self.rule.id, reason=what)),
-                hint=_fill(msg.hint if msg else "{reason}", dict(data, reason=what)),
-                data=dict(data, reason=what, judged=False),
-            )
-        )
+        data["reason"] = what
+        msg = rule.messages.get("cannot-judge")
+        if msg is None:
+            message = _fill("{rule}: not checked: {reason}", dict(data, rule=rule.id))
+            hint = _fill("{reason}", data)
+        else:
+            message = _fill(msg.message, dict(data, rule=rule.id))
+            hint = _fill(msg.hint, data)
+        data["judged"] = False
+        self._sink.append(_finding(rule.id, Severity.INFO, self.doc, self.file, (), "value",
+                                   message, hint, data))
 
 
 def _fill(template: str, data: dict[str, Any]) -> str:
     try:
-        return template.format(**data)
+        return template.format_map(data)
     except (KeyError, IndexError, ValueError) as exc:  # a catalogue bug, never user input
         raise RuntimeError(f"message template {template!r} cannot be filled: {exc}") from None
 
 
 def _location(doc: Document, path: tuple, on: str) -> tuple[int, int]:
-    probe = tuple(path)
-    while True:
-        entry = doc.entries.get(probe)
-        if entry is not None:
-            span = entry.key if (on == "key" and entry.key is not None) else entry.value
-            return span.line, span.column
-        if not probe:
+    entries = doc.entries
+    entry = entries.get(path)
+    while entry is None:
+        if not path:
             return 1, 1
-        probe = probe[:-1]
+        path = path[:-1]
+        entry = entries.get(path)
+    if on == "key":
+        span = entry.key
+        if span is not None:
+            return span.line, span.column
+    span = entry.value
+    return span.line, span.column
 
 
-def _finding(*, rule: str, severity: Severity, doc: Document, file: str, path: tuple, on: str,
+def _finding(rule: str, severity: Severity, doc: Document, file: str, path: tuple, on: str,
              message: str, hint: str, data: dict[str, Any], fix: Fix | None = None,
              span=None, related: tuple = ()) -> Finding:
+    """The finding at PATH of DOC (or at SPAN); DATA becomes the finding's own (not copied)."""
+    if type(path) is not tuple:
+        path = tuple(path)
     line, column = (span.line, span.column) if span is not None else _location(doc, path, on)
-    others = tuple(Related(key=dotted(p), line=loc[0], column=loc[1])
-                   for p in related for loc in (_location(doc, p, on),))
-    if doc.origins and span is None:
+    others = tuple([Related(key=dotted(p), line=loc[0], column=loc[1])
+                    for p in related for loc in (_location(doc, tuple(p), on),)]) if related else ()
+    if span is None and doc.origins:
         # a composed config: the finding belongs to the file that set the value
-        origin = _origin_of(doc, tuple(path))
+        origin = _origin_of(doc, path)
         if origin is not None and origin != file:
             file, fix = origin, None  # never edit one file for a value another file sets
         from .compose import overridden_note
 
-        note = overridden_note(doc, tuple(path))
+        note = overridden_note(doc, path)
         if note:
             data = dict(data, overrides=note)
-    return Finding(rule=rule, severity=severity, file=file, line=line, column=column,
-                   key=dotted(path), message=message, hint=hint, data=data, path=tuple(path),
-                   document=doc.index, fix=fix, related=others)
+    return new_finding(rule, severity, file, line, column, dotted(path) if path else "", message,
+                       hint, data, path, doc.index, fix, others)
 
 
 def _origin_of(doc: Document, path: tuple) -> str | None:
@@ -281,14 +295,14 @@ def make_finding(rule: Rule, options: Options, doc: Document, file: str, path: t
     severity = options.severity.get(rule.id) or msg.severity or rule.severity
     message = _fill(msg.message, data)
     if assumptions:
-        data = dict(data, assumptions=list(assumptions))
-        message += " (" + "; ".join(f"assuming {a}" for a in assumptions) + ")"
+        data["assumptions"] = list(assumptions)
+        message += " (" + "; ".join([f"assuming {a}" for a in assumptions]) + ")"
         if severity > Severity.WARNING:
             severity = Severity.WARNING
-    return _finding(rule=rule.id, severity=severity, doc=doc, file=file, path=path, on=on,
-                    message=message, hint=_fill(msg.hint, data),
-                    data=dict(data, variant=variant) if variant != "default" else dict(data),
-                    fix=fix, span=span, related=related)
+    hint = _fill(msg.hint, data)
+    if variant != "default":
+        data["variant"] = variant
+    return _finding(rule.id, severity, doc, file, path, on, message, hint, data, fix, span, related)
 
 
 # --------------------------------------------------------------------------- running

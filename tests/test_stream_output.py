@@ -18,7 +18,7 @@ from pathlib import Path
 
 from cfgcheck import api
 from cfgcheck.findings import Severity, Tally, json_text
-from cfgcheck.render import spool, writer
+from cfgcheck.render import jsonitems, spool, writer
 from cfgcheck.render.sarif import SCHEMA_URI, _result, _rule, uri
 from cfgcheck.catalogue import load_catalogue
 
@@ -170,12 +170,12 @@ _VALUES = st.recursive(_SCALARS, lambda inner: st.one_of(
 @given(_VALUES, st.sampled_from(["", "  ", "        "]))
 def test_json_items_are_laid_out_as_the_standard_library_lays_them_out(value, pad):
     # reference: Python's json.dumps(indent=2, ensure_ascii=False), through findings.json_text
-    assert spool.indented(value, pad) == json_text(value).replace("\n", "\n" + pad)
+    assert jsonitems.indented(value, pad) == json_text(value).replace("\n", "\n" + pad)
 
 
 def test_json_items_refuse_what_the_standard_library_refuses():
     for bad in ({"k": object()}, {(1, 2): "tuple key"}):
-        for write in (lambda v: spool.indented(v), json_text):
+        for write in (lambda v: jsonitems.indented(v), json_text):
             try:
                 write(bad)
             except TypeError:

@@ -13,7 +13,7 @@ class Writer:
     """The JSON document written file by file (see ``render.spool``)."""
 
     def __init__(self, **_) -> None:
-        from .spool import JsonItems
+        from .jsonitems import JsonItems
 
         self.tally = Tally()
         self.lists = {name: JsonItems(indent=2) for name in _LISTS}
@@ -36,7 +36,7 @@ class Writer:
         self.lists["findings"].add(f.as_dict())
 
     def finish(self, write) -> None:
-        from .spool import json_document, spooled
+        from .jsonitems import json_document, spooled
 
         t = self.tally
         doc = {

@@ -99,7 +99,7 @@ class Writer:
     describe (default: the whole catalogue, sorted by id)."""
 
     def __init__(self, *, rules=None, **_) -> None:
-        from .spool import JsonItems
+        from .jsonitems import JsonItems
 
         catalogue = rules if rules is not None else load_catalogue()
         self.rules = [catalogue[r] for r in sorted(catalogue)]
@@ -138,7 +138,7 @@ class Writer:
         self.results.add(_result(f, self.index))
 
     def finish(self, write) -> None:
-        from .spool import json_document, spooled
+        from .jsonitems import json_document, spooled
 
         run = {
             "tool": {"driver": {"name": "cfgcheck", "version": __version__,
