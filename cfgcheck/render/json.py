@@ -2,11 +2,42 @@
 
 from __future__ import annotations
 
+from types import MappingProxyType
+
 from .. import __version__
 from ..findings import Severity, Tally
 from . import whole_output
+from .jsonitems import _int_text, _string, data_text, text_of
 
 _LISTS = ("findings", "input_errors", "internal_errors", "files", "waived")  # in the document's order
+
+
+_WORD = MappingProxyType({s: s.word for s in Severity})
+
+
+def finding_text(f, pad: str) -> str:
+    """``jsonitems.indented(f.as_dict(), pad)`` (less its escaping of lone surrogates), written
+    straight from the finding's fields: most of what a JSON output writes."""
+    p = pad + "  "
+    sep = ",\n" + p
+    fix = f.fix
+    severity = f.severity
+    rule, file, key, message, hint, line, column = f.rule, f.file, f.key, f.message, f.hint, f.line, f.column
+    out = ["{\n", p, '"rule": ', _string(rule) if type(rule) is str else text_of(rule, p),
+           sep, '"severity": ', _string(_WORD[severity]) if severity in _WORD else text_of(severity.word, p),
+           sep, '"file": ', _string(file) if type(file) is str else text_of(file, p),
+           sep, '"line": ', _int_text(line) if type(line) is int else text_of(line, p),
+           sep, '"column": ', _int_text(column) if type(column) is int else text_of(column, p),
+           sep, '"key": ', _string(key) if type(key) is str else text_of(key, p),
+           sep, '"message": ', _string(message) if type(message) is str else text_of(message, p),
+           sep, '"hint": ', _string(hint) if type(hint) is str else text_of(hint, p),
+           sep, '"data": ', data_text(f.data, p),
+           sep, '"fixable": ', text_of(fix.tier, p) if fix else "null"]
+    if f.related:
+        out += [sep, '"related": ', text_of([{"key": r.key, "line": r.line, "column": r.column}
+                                             for r in f.related], p)]
+    out += ["\n", pad, "}"]
+    return "".join(out)
 
 
 class Writer:
@@ -21,8 +52,10 @@ class Writer:
     def add(self, fr, shown, **_) -> None:
         self.tally.add(fr)
         lists = self.lists
+        findings = lists["findings"]
+        pad = findings.pad
         for f in shown:
-            lists["findings"].add(f.as_dict())
+            findings.add_text(finding_text(f, pad))
         if fr.problem is not None:
             lists["input_errors"].add(fr.problem.as_dict())
         for e in fr.internal:
@@ -33,7 +66,8 @@ class Writer:
             lists["waived"].add(dict(f.as_dict(), reason=reason, waived_by=kind))
 
     def finding(self, f) -> None:
-        self.lists["findings"].add(f.as_dict())
+        findings = self.lists["findings"]
+        findings.add_text(finding_text(f, findings.pad))
 
     def finish(self, write) -> None:
         from .jsonitems import json_document, spooled

@@ -9,7 +9,7 @@ from __future__ import annotations
 from json.encoder import encode_basestring as _string  # the C encoder's own, where it is built
 from typing import Any, Callable
 
-from ..findings import escape_surrogates as _escape_surrogates, json_text
+from ..findings import _plain, escape_surrogates as _escape_surrogates, json_text
 from .spool import Spool
 
 # The items of a JSON output are written by ``indented`` below, not by ``json.dumps``: with an
@@ -92,6 +92,36 @@ def _value_text(value: Any, pad: str) -> str:
     return json_text(value).replace("\n", "\n" + pad)  # JSON strings hold no raw line break
 
 
+def text_of(value: Any, pad: str) -> str:
+    """``_value_text`` with a string's own quick path (a field that is nearly always text)."""
+    return _string(value) if type(value) is str else _value_text(value, pad)
+
+
+def data_text(data: Any, pad: str) -> str:
+    """The text ``_value_text`` gives for a finding's ``as_dict()["data"]``, written straight
+    from the finding's data (its plain values, the common case, as they are)."""
+    if not data:
+        return "{}"
+    inner = pad + "  "
+    parts = []
+    for k, v in data.items():
+        t = type(v)
+        if t is str:
+            v = _string(v)
+        elif t is int:
+            v = _int_text(v)
+        elif t is float:
+            v = _float_text(v)
+        elif v is None:
+            v = "null"
+        elif t is bool:
+            v = "true" if v else "false"
+        else:
+            v = _value_text(_plain(v), inner)
+        parts.append((_string(k) if type(k) is str else _key_text(k)) + ": " + v)
+    return "{\n" + inner + (",\n" + inner).join(parts) + "\n" + pad + "}"
+
+
 def indented(value: Any, pad: str = "") -> str:
     """``findings.json_text(value)`` with every line after the first starting with PAD: the
     text of a value nested at PAD's indentation of a document ``json_text`` writes."""
@@ -117,6 +147,12 @@ class JsonItems:
         if not text.isascii():
             text = _escape_surrogates(text)
         self.spool.write((",\n" if self.spool else "") + pad + text)
+
+    def add_text(self, text: str) -> None:
+        """An item already written as ``_value_text(item, self.pad)`` writes it."""
+        if not text.isascii():
+            text = _escape_surrogates(text)
+        self.spool.write((",\n" if self.spool else "") + self.pad + text)
 
     def close(self) -> None:
         self.spool.close()

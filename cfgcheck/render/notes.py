@@ -10,6 +10,7 @@ names)". The notes themselves stay findings (JSON carries them; text shows them 
 from __future__ import annotations
 
 import re
+from typing import Any
 
 from .._records import guarded_repr
 
@@ -62,23 +63,42 @@ def _general(reason: str, data) -> tuple[str, list[str]]:
     return (head or reason.strip()), names
 
 
+GENERAL_CACHE_SIZE = 4096  # the distinct (reason, linked name) pairs a tally keeps worked out
+
+
 class NoteTally:
     """The note groups of a run, kept as its findings go by (file by file)."""
 
     def __init__(self) -> None:
         self.groups: dict[tuple[str, str], NoteGroup] = {}
+        # (reason, linked name) -> (general reason, the names it quoted): the same few reasons
+        # come back file after file (a cache, bounded)
+        self._general_cache: dict[tuple[str, Any], tuple[str, list[str]]] = {}
 
     def add(self, findings) -> None:
         groups = self.groups
+        cache = self._general_cache
         for f in findings:
-            if not is_note(f):
+            data = f.data
+            if data.get("judged") is not False:  # not a note (is_note)
                 continue
-            reason, names = _general(str(f.data.get("reason", "")), f.data)
-            g = groups.get((f.rule, reason))
+            reason = str(data.get("reason", ""))
+            linked = data.get("linked")
+            if not isinstance(linked, str):
+                linked = None  # _general looks only at a linked name that is text
+            got = cache.get((reason, linked))
+            if got is None:
+                got = _general(reason, data)
+                if len(cache) < GENERAL_CACHE_SIZE:
+                    cache[(reason, linked)] = got
+            general, names = got
+            rule = f.rule
+            g = groups.get((rule, general))
             if g is None:
-                g = groups[(f.rule, reason)] = NoteGroup(f.rule, reason)
+                g = groups[(rule, general)] = NoteGroup(rule, general)
             g.files.add(f.file)
-            g.names.update(n for n in names if n)
+            if names:
+                g.names.update(n for n in names if n)
 
     def summarise(self) -> list[NoteGroup]:
         """Note groups, most files first, then by rule and reason."""

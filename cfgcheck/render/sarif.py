@@ -17,6 +17,7 @@ from .. import __version__
 from ..catalogue import load_catalogue
 from ..findings import Severity, Tally
 from . import whole_output
+from .jsonitems import data_text, text_of
 
 SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
 FINGERPRINT = "cfgcheck/identity/v1"
@@ -94,6 +95,50 @@ def _result(f, index: dict[str, int], suppression: dict | None = None) -> dict:
     return out
 
 
+def result_text(f, index: dict[str, int], pad: str, file_uri: str | None = None) -> str:
+    """``jsonitems.indented(_result(f, index), pad)`` (less its escaping of lone surrogates),
+    written straight from the finding: most of what a SARIF log writes. ``file_uri``: the
+    finding's ``uri(f.file)``, when the caller knows it."""
+    text = f.message + (f"\nhint: {f.hint}" if f.hint else "")
+    p1 = pad + "  "
+    p2 = p1 + "  "
+    p3 = p2 + "  "
+    p4 = p3 + "  "
+    p5 = p4 + "  "
+    key = f.key
+    out = ["{\n", p1, '"ruleId": ', text_of(f.rule, p1), ",\n",
+           p1, '"level": ', text_of(LEVEL[f.severity], p1), ",\n",
+           p1, '"message": {\n', p2, '"text": ', text_of(text, p2), "\n", p1, "},\n",
+           p1, '"locations": [\n', p2, "{\n",
+           p3, '"physicalLocation": {\n',
+           p4, '"artifactLocation": {\n',
+           p5, '"uri": ', text_of(uri(f.file) if file_uri is None else file_uri, p5), "\n",
+           p4, "},\n",
+           p4, '"region": {\n',
+           p5, '"startLine": ', text_of(f.line, p5), ",\n",
+           p5, '"startColumn": ', text_of(f.column, p5), "\n",
+           p4, "}\n",
+           p3, "}"]
+    if key:
+        out += [",\n", p3, '"logicalLocations": [\n', p4, "{\n",
+                p5, '"fullyQualifiedName": ', text_of(key, p5), ",\n",
+                p5, '"kind": "member"\n', p4, "}\n", p3, "]"]
+    out += ["\n", p2, "}\n", p1, "],\n",
+            p1, '"partialFingerprints": {\n', p2, '"', FINGERPRINT, '": ', text_of(fingerprint(f), p2), "\n",
+            p1, "},\n",
+            p1, '"properties": {\n',
+            p2, '"key": ', text_of(key, p2), ",\n",
+            p2, '"hint": ', text_of(f.hint, p2), ",\n",
+            p2, '"data": ', data_text(f.data, p2), "\n",
+            p1, "}"]
+    if getattr(f, "related", ()):
+        out += [",\n", p1, '"relatedLocations": ', text_of(_result(f, index)["relatedLocations"], p1)]
+    if f.rule in index:
+        out += [",\n", p1, '"ruleIndex": ', text_of(index[f.rule], p1)]
+    out += ["\n", pad, "}"]
+    return "".join(out)
+
+
 class Writer:
     """The SARIF log written file by file (see ``render.spool``). ``rules``: the catalogue to
     describe (default: the whole catalogue, sorted by id)."""
@@ -108,6 +153,7 @@ class Writer:
         # the run's results (shown, then waived) and notifications (input errors, then internal)
         self.results, self.waived = JsonItems(indent=6), JsonItems(indent=6)
         self.problems, self.internal = JsonItems(indent=10), JsonItems(indent=10)
+        self._uri_of, self._uri = None, ""  # the last file named, and its URI
 
     def add(self, fr, shown, **_) -> None:
         self.tally.add(fr)
@@ -135,7 +181,10 @@ class Writer:
             })
 
     def finding(self, f) -> None:
-        self.results.add(_result(f, self.index))
+        file = f.file
+        if file != self._uri_of:  # the findings of one file come together
+            self._uri_of, self._uri = file, uri(file)
+        self.results.add_text(result_text(f, self.index, self.results.pad, self._uri))
 
     def finish(self, write) -> None:
         from .jsonitems import json_document, spooled

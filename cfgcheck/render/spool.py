@@ -35,24 +35,27 @@ class Spool:
 
     def write(self, text: str) -> None:
         self.pieces_written += 1
-        if self._file is not None:
-            self._file.write(text)
-            return
         self._parts.append(text)
         self._size += len(text)
         if self._size > MEMORY_LIMIT:
-            self._move_to_file()
+            self._spill()
 
-    def _move_to_file(self) -> None:
-        import tempfile
+    def _spill(self) -> None:
+        """The text held in memory to the file (made on the first call), in one write."""
+        f = self._file
+        if f is None:
+            import tempfile
 
-        try:  # text with lone surrogates (file names that are not UTF-8) reads back unchanged
-            f = tempfile.TemporaryFile("w+", encoding="utf-8", errors="surrogatepass", newline="")
+            try:  # text with lone surrogates (file names that are not UTF-8) reads back unchanged
+                f = tempfile.TemporaryFile("w+", encoding="utf-8", errors="surrogatepass", newline="")
+                f.write("".join(self._parts))
+            except OSError:  # no temporary folder to write in: the spool stays in memory
+                self._size = -(1 << 62)
+                return
+            self._file = f
+        else:
             f.write("".join(self._parts))
-        except OSError:  # no temporary folder to write in: the spool stays in memory
-            self._size = -(1 << 62)
-            return
-        self._parts, self._size, self._file = [], 0, f
+        self._parts, self._size = [], 0
 
     def __bool__(self) -> bool:
         return self.pieces_written > 0
@@ -63,6 +66,8 @@ class Spool:
             if self._parts:
                 yield "".join(self._parts)
             return
+        if self._parts:
+            self._spill()
         self._file.flush()
         self._file.seek(0)
         while True:

@@ -14,6 +14,7 @@ from . import whole_output
 
 _SGR = MappingProxyType({"error": "1;31", "warning": "1;33", "info": "1;36", "where": "1", "rule": "2",
         "hint": "32", "mark": "1;4", "summary": "1"})
+_WORD = MappingProxyType({s: s.word for s in Severity})
 MAX_FRAME = 120  # characters of a source line shown around the column
 
 
@@ -150,14 +151,20 @@ class Writer:
     def finding(self, f, frames: dict[str, list[str]] | None = None) -> None:
         # every text that comes from a file (names, keys, values inside messages) goes through
         # printable(): a key holding a line break cannot print a line that looks like a finding
-        if self.mode == "summary":
+        mode = self.mode
+        if mode == "summary":
             return
         color = self.color
-        word = f.severity.word
-        lines = [f"{_paint(f'{printable(f.file)}:{f.line}:{f.column}:', 'where', color)} "
-                 f"{_paint(word, word, color)}: {printable(f.message)} "
-                 f"{_paint(f'[{f.rule}]', 'rule', color)}"]
-        if self.mode != "quiet":
+        severity = f.severity
+        word = _WORD[severity] if severity in _WORD else severity.word
+        if color:
+            text = (f"{_paint(f'{printable(f.file)}:{f.line}:{f.column}:', 'where', color)} "
+                    f"{_paint(word, word, color)}: {printable(f.message)} "
+                    f"{_paint(f'[{f.rule}]', 'rule', color)}")
+        else:  # _paint leaves the text as it is
+            text = f"{printable(f.file)}:{f.line}:{f.column}: {word}: {printable(f.message)} [{f.rule}]"
+        if mode != "quiet":
+            lines = [text]
             frames = frames if frames is not None else self.frames
             if frames is not None and f.file in frames:
                 lines.extend(frame(frames[f.file], f.line, f.column, color))
@@ -165,11 +172,15 @@ class Writer:
                 lines.append(f"    also: {_paint(f'{f.file}:{r.line}:{r.column}:', 'where', color)} {r.key}")
             if f.hint:
                 lines.append(f"    {_paint('hint', 'hint', color)}: {printable(f.hint)}")
-            if isinstance(f.data.get("overrides"), str):  # a composed config: which file won
-                lines.append(f"    composed: {printable(f.data['overrides'])}")
-            if isinstance(f.data.get("sweep"), str):  # a sweep: which of its runs
-                lines.append(f"    sweep: {printable(f.data['sweep'])}")
-        self.shown.write("\n".join(lines) + "\n")
+            data = f.data
+            composed = data.get("overrides")
+            if isinstance(composed, str):  # a composed config: which file won
+                lines.append(f"    composed: {printable(composed)}")
+            sweep = data.get("sweep")
+            if isinstance(sweep, str):  # a sweep: which of its runs
+                lines.append(f"    sweep: {printable(sweep)}")
+            text = "\n".join(lines)
+        self.shown.write(text + "\n")
 
     def finish(self, write) -> None:
         """Write the whole output with ``write(text)`` (called with pieces)."""
