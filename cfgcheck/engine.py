@@ -216,18 +216,29 @@ class Context:
             return
         judged.add(what)
         rule = self.rule
-        data = shown_data(data)
-        data["reason"] = what
         msg = rule.messages.get("cannot-judge")
-        if msg is None:
-            message = _fill("{rule}: not checked: {reason}", dict(data, rule=rule.id))
-            hint = _fill("{reason}", data)
-        else:
-            message = _fill(msg.message, dict(data, rule=rule.id))
-            hint = _fill(msg.hint, data)
+        text, hint_text = (msg.message, msg.hint) if msg is not None else ("{rule}: not checked: {reason}", "{reason}")
+        if data:
+            data = shown_data(data)
+            data["reason"] = what
+            message, hint = _fill(text, dict(data, rule=rule.id)), _fill(hint_text, data)
+        else:  # the common case: the same few notes, file after file
+            key = (text, hint_text, rule.id, what)
+            got = _JUDGED_TEXT_CACHE.get(key)
+            if got is None:
+                got = (_fill(text, {"rule": rule.id, "reason": what}), _fill(hint_text, {"reason": what}))
+                if len(_JUDGED_TEXT_CACHE) < JUDGED_TEXT_CACHE_SIZE:
+                    _JUDGED_TEXT_CACHE[key] = got
+            message, hint = got
+            data = {"reason": what}
         data["judged"] = False
         self._sink.append(_finding(rule.id, Severity.INFO, self.doc, self.file, (), "value",
                                    message, hint, data))
+
+
+JUDGED_TEXT_CACHE_SIZE = 4096
+# (message template, hint template, rule id, reason) -> the "not checked" note's message and hint
+_JUDGED_TEXT_CACHE: dict[tuple[str, str, str, str], tuple[str, str]] = {}
 
 
 def _fill(template: str, data: dict[str, Any]) -> str:
@@ -259,7 +270,15 @@ def _finding(rule: str, severity: Severity, doc: Document, file: str, path: tupl
     """The finding at PATH of DOC (or at SPAN); DATA becomes the finding's own (not copied)."""
     if type(path) is not tuple:
         path = tuple(path)
-    line, column = (span.line, span.column) if span is not None else _location(doc, path, on)
+    if span is not None:
+        line, column = span.line, span.column
+    else:
+        entry = doc.entries.get(path)
+        if entry is not None and on != "key":  # the common case of _location, inline
+            at = entry.value
+            line, column = at.line, at.column
+        else:
+            line, column = _location(doc, path, on)
     others = tuple([Related(key=dotted(p), line=loc[0], column=loc[1])
                     for p in related for loc in (_location(doc, tuple(p), on),)]) if related else ()
     if span is None and doc.origins:

@@ -7,6 +7,7 @@ Both are frozen, keyword-only records. Findings are created in one place only,
 
 from __future__ import annotations
 
+import functools
 import re
 from enum import IntEnum
 from types import MappingProxyType
@@ -331,10 +332,8 @@ class Finding(_FindingFields):
     def identity(self) -> tuple[str, str, str, str]:
         """Stable across line shifts: rule, file, key path and the values reported (data items
         that are line numbers, ``line`` or ``*_line``, are left out)."""
-        import json  # only baselines ask; a lint run does not pay for the import
-
-        values = json.dumps({k: v for k, v in self.data.items() if not _is_line(k)},
-                            sort_keys=True, default=str)
+        values = _identity_encoder()({k: v for k, v in self.data.items()
+                                      if k != "line" and not k.endswith("_line")})  # not _is_line
         return (self.rule, self.file, self.key, values)
 
     def as_dict(self) -> dict[str, Any]:
@@ -377,6 +376,15 @@ def new_finding(rule, severity, file, line, column, key, message, hint, data, pa
     f.related = related
     f.__class__ = Finding
     return f
+
+
+@functools.cache
+def _identity_encoder():
+    """``json.dumps(..., sort_keys=True, default=str)`` as one encoder made once (baselines and
+    SARIF fingerprints ask for it per finding; a lint in text does not import json for it)."""
+    import json
+
+    return json.JSONEncoder(sort_keys=True, default=str).encode
 
 
 def _is_line(name: str) -> bool:

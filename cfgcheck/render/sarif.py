@@ -17,7 +17,7 @@ from .. import __version__
 from ..catalogue import load_catalogue
 from ..findings import Severity, Tally
 from . import whole_output
-from .jsonitems import data_text, text_of
+from .jsonitems import _int_text, _string, data_text, text_of
 
 SCHEMA_URI = "https://docs.oasis-open.org/sarif/sarif/v2.1.0/errata01/os/schemas/sarif-schema-2.1.0.json"
 FINGERPRINT = "cfgcheck/identity/v1"
@@ -105,30 +105,31 @@ def result_text(f, index: dict[str, int], pad: str, file_uri: str | None = None)
     p3 = p2 + "  "
     p4 = p3 + "  "
     p5 = p4 + "  "
-    key = f.key
-    out = ["{\n", p1, '"ruleId": ', text_of(f.rule, p1), ",\n",
-           p1, '"level": ', text_of(LEVEL[f.severity], p1), ",\n",
-           p1, '"message": {\n', p2, '"text": ', text_of(text, p2), "\n", p1, "},\n",
+    rule, key, hint, line, column = f.rule, f.key, f.hint, f.line, f.column
+    key_text = _string(key) if type(key) is str else text_of(key, p3)  # the same at any depth
+    out = ["{\n", p1, '"ruleId": ', _string(rule) if type(rule) is str else text_of(rule, p1), ",\n",
+           p1, '"level": ', _string(LEVEL[f.severity]), ",\n",
+           p1, '"message": {\n', p2, '"text": ', _string(text), "\n", p1, "},\n",
            p1, '"locations": [\n', p2, "{\n",
            p3, '"physicalLocation": {\n',
            p4, '"artifactLocation": {\n',
-           p5, '"uri": ', text_of(uri(f.file) if file_uri is None else file_uri, p5), "\n",
+           p5, '"uri": ', _string(uri(f.file) if file_uri is None else file_uri), "\n",
            p4, "},\n",
            p4, '"region": {\n',
-           p5, '"startLine": ', text_of(f.line, p5), ",\n",
-           p5, '"startColumn": ', text_of(f.column, p5), "\n",
+           p5, '"startLine": ', _int_text(line) if type(line) is int else text_of(line, p5), ",\n",
+           p5, '"startColumn": ', _int_text(column) if type(column) is int else text_of(column, p5), "\n",
            p4, "}\n",
            p3, "}"]
     if key:
         out += [",\n", p3, '"logicalLocations": [\n', p4, "{\n",
-                p5, '"fullyQualifiedName": ', text_of(key, p5), ",\n",
+                p5, '"fullyQualifiedName": ', key_text, ",\n",
                 p5, '"kind": "member"\n', p4, "}\n", p3, "]"]
     out += ["\n", p2, "}\n", p1, "],\n",
-            p1, '"partialFingerprints": {\n', p2, '"', FINGERPRINT, '": ', text_of(fingerprint(f), p2), "\n",
+            p1, '"partialFingerprints": {\n', p2, '"', FINGERPRINT, '": ', _string(fingerprint(f)), "\n",
             p1, "},\n",
             p1, '"properties": {\n',
-            p2, '"key": ', text_of(key, p2), ",\n",
-            p2, '"hint": ', text_of(f.hint, p2), ",\n",
+            p2, '"key": ', key_text, ",\n",
+            p2, '"hint": ', _string(hint) if type(hint) is str else text_of(hint, p2), ",\n",
             p2, '"data": ', data_text(f.data, p2), "\n",
             p1, "}"]
     if getattr(f, "related", ()):
