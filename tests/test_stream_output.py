@@ -181,3 +181,40 @@ def test_json_items_refuse_what_the_standard_library_refuses():
             except TypeError:
                 continue
             raise AssertionError(f"{bad!r} was written")
+
+
+def _odd_findings() -> list:
+    from cfgcheck.findings import Edit, Finding, Fix, Related
+
+    fix = Fix(tier="keeps-meaning", summary="set it", edits=(Edit(path=("a",), old=1, new=2),))
+    datas = [{}, {"value": 3, "rate": 2.5e-5, "off": None, "on": True, "names": ["x", "é"]},
+             {"nested": {"k": (1, 2.0), "m": {5: [None, {"e": float("nan")}]}}, "set": {"only"},
+              "inf": float("inf"), "level": Severity.ERROR, "text": _Text("sub"), "odd": "\ud800"},
+             {"line": 4, "first_line": 2, "gpu": object()}]
+    out = []
+    for i, data in enumerate(datas):
+        out.append(Finding(rule="rule-x", severity=list(Severity)[i % 3], file=f"dir/f\udcff{i}.yaml",
+                           line=i + 1, column=2, key="a.b" if i % 2 else "", message="m \"q\" \\ é",
+                           hint="" if i == 1 else "do\nthis", data=data, path=("a", "b"),
+                           fix=fix if i % 2 else None,
+                           related=(Related(key="c", line=9, column=1),) if i >= 2 else ()))
+    return out
+
+
+def test_json_findings_and_sarif_results_are_their_records_laid_out():
+    # written straight from a finding, they are the text of the record built whole
+    from cfgcheck.findings import escape_surrogates
+    from cfgcheck.render.json import finding_text
+    from cfgcheck.render.sarif import result_text
+
+    found = api.lint([ROOT / "fixtures"], project=None).findings
+    assert len(found) > 100
+    catalogue = load_catalogue()
+    index = {r: i for i, r in enumerate(sorted(catalogue))}
+    for f in found + _odd_findings():
+        for pad in ("    ", "        "):
+            assert escape_surrogates(finding_text(f, pad)) == jsonitems.indented(f.as_dict(), pad)
+            assert escape_surrogates(result_text(f, index, pad)) == jsonitems.indented(_result(f, index), pad)
+    odd = _odd_findings()[2]
+    assert '"set": "{\'only\'}"' in finding_text(odd, "")  # a set as its text, as as_dict has it
+    assert "\\udcff" in jsonitems.indented(odd.as_dict())  # a lone surrogate escaped
