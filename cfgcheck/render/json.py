@@ -19,25 +19,25 @@ def finding_text(f, pad: str) -> str:
     """``jsonitems.indented(f.as_dict(), pad)`` (less its escaping of lone surrogates), written
     straight from the finding's fields: most of what a JSON output writes."""
     p = pad + "  "
-    sep = ",\n" + p
+    s = ",\n" + p  # between two members
     fix = f.fix
     severity = f.severity
     rule, file, key, message, hint, line, column = f.rule, f.file, f.key, f.message, f.hint, f.line, f.column
-    out = ["{\n", p, '"rule": ', _string(rule) if type(rule) is str else text_of(rule, p),
-           sep, '"severity": ', _string(_WORD[severity]) if severity in _WORD else text_of(severity.word, p),
-           sep, '"file": ', _string(file) if type(file) is str else text_of(file, p),
-           sep, '"line": ', _int_text(line) if type(line) is int else text_of(line, p),
-           sep, '"column": ', _int_text(column) if type(column) is int else text_of(column, p),
-           sep, '"key": ', _string(key) if type(key) is str else text_of(key, p),
-           sep, '"message": ', _string(message) if type(message) is str else text_of(message, p),
-           sep, '"hint": ', _string(hint) if type(hint) is str else text_of(hint, p),
-           sep, '"data": ', data_text(f.data, p),
-           sep, '"fixable": ', text_of(fix.tier, p) if fix else "null"]
+    # one f-string: no list to build and join, nothing for the garbage collector to track
+    text = (f'{{\n{p}"rule": {_string(rule) if type(rule) is str else text_of(rule, p)}'
+            f'{s}"severity": {_string(_WORD[severity]) if severity in _WORD else text_of(severity.word, p)}'
+            f'{s}"file": {_string(file) if type(file) is str else text_of(file, p)}'
+            f'{s}"line": {_int_text(line) if type(line) is int else text_of(line, p)}'
+            f'{s}"column": {_int_text(column) if type(column) is int else text_of(column, p)}'
+            f'{s}"key": {_string(key) if type(key) is str else text_of(key, p)}'
+            f'{s}"message": {_string(message) if type(message) is str else text_of(message, p)}'
+            f'{s}"hint": {_string(hint) if type(hint) is str else text_of(hint, p)}'
+            f'{s}"data": {data_text(f.data, p)}'
+            f'{s}"fixable": {text_of(fix.tier, p) if fix else "null"}')
     if f.related:
-        out += [sep, '"related": ', text_of([{"key": r.key, "line": r.line, "column": r.column}
-                                             for r in f.related], p)]
-    out += ["\n", pad, "}"]
-    return "".join(out)
+        text += s + '"related": ' + text_of([{"key": r.key, "line": r.line, "column": r.column}
+                                            for r in f.related], p)
+    return f"{text}\n{pad}}}"
 
 
 class Writer:

@@ -103,7 +103,9 @@ def data_text(data: Any, pad: str) -> str:
     if not data:
         return "{}"
     inner = pad + "  "
-    parts = []
+    between = ",\n" + inner
+    text = "{\n" + inner
+    first = True
     for k, v in data.items():
         t = type(v)
         if t is str:
@@ -118,8 +120,13 @@ def data_text(data: Any, pad: str) -> str:
             v = "true" if v else "false"
         else:
             v = _value_text(_plain(v), inner)
-        parts.append((_string(k) if type(k) is str else _key_text(k)) + ": " + v)
-    return "{\n" + inner + (",\n" + inner).join(parts) + "\n" + pad + "}"
+        k = _string(k) if type(k) is str else _key_text(k)
+        if first:
+            text = f"{text}{k}: {v}"
+            first = False
+        else:
+            text = f"{text}{between}{k}: {v}"
+    return f"{text}\n{pad}}}"
 
 
 def indented(value: Any, pad: str = "") -> str:
