@@ -102,7 +102,7 @@ SFT_ONLY_KEYS = frozenset({"packing", "dataset_text_field", "completion_only_los
 
 def _sft(view: RunView) -> bool:
     data = view.doc.data if isinstance(view.doc.data, dict) else {}
-    return bool(SFT_ONLY_KEYS & set(k for k in data if isinstance(k, str))) and not _grpo(view)
+    return not SFT_ONLY_KEYS.isdisjoint(data) and not _grpo(view)  # (a key that is not text is none)
 
 
 # GRPOConfig fields that preference trainers (DPO, ORPO, KTO share max_prompt_length and
@@ -113,7 +113,7 @@ GRPO_ONLY_KEYS = frozenset({"reward_funcs", "reward_weights", "num_iterations", 
 
 def _grpo(view: RunView) -> bool:
     data = view.doc.data if isinstance(view.doc.data, dict) else {}
-    return view.has("rl.num_generations") or bool(GRPO_ONLY_KEYS & set(k for k in data if isinstance(k, str)))
+    return view.has("rl.num_generations") or not GRPO_ONLY_KEYS.isdisjoint(data)
 
 
 def _grpo_seq(view: RunView):

@@ -23,6 +23,7 @@ from . import load as loadmod, reads
 from .defaults import DEFAULTS, Default
 from .load import LoadError
 from .layouts import LAYOUTS
+from .links import attach_linked
 from .view import Field, RunView, build_view, detect_layout
 
 _DISTRIBUTED_WORDS = MappingProxyType({"DEEPSPEED": "DeepSpeed", "FSDP": "FSDP", "MULTI_GPU": "data parallel (DDP)",
@@ -188,8 +189,6 @@ def _take_accelerate(ctx: LaunchContext, view: RunView, name: str) -> None:
 
 def read_launch(files: tuple[str, ...] | list[str], cwd: Path | None = None, script: Any = None) -> LaunchContext:
     """The launch context from launch files (accelerate configs, DeepSpeed JSON) and a script."""
-    from .links import attach_linked
-
     ctx = LaunchContext(script=script)
     if script is not None:
         for attr in ("processes", "machines", "mixed_precision", "zero_stage"):
@@ -335,13 +334,29 @@ def _supply(view: RunView, name: str, value: Any, origin: str, note: str, *, aut
                                 origin=origin, note=note)
 
 
+_DEFAULTS_CACHE: dict[tuple, tuple[tuple, tuple[Default, ...]]] = {}
+
+
+def _defaults_of(layout: Any) -> tuple[Default, ...]:
+    """The runner defaults of LAYOUT: its table in ``DEFAULTS``, then its own constant ones."""
+    key = (layout.defaults_table, id(layout.defaults))
+    got = _DEFAULTS_CACHE.get(key)
+    if got is None or got[0] is not layout.defaults:
+        table = DEFAULTS.get(layout.defaults_table, ()) if layout.defaults_table else ()
+        made = (*table, *(Default(name, value, note) for name, value, note in layout.defaults))
+        if len(_DEFAULTS_CACHE) > 64:  # (the layouts are few; a replaced one shares its defaults)
+            _DEFAULTS_CACHE.clear()
+        got = _DEFAULTS_CACHE[key] = (layout.defaults, made)
+    return got[1]
+
+
 def _apply_defaults(view: RunView) -> None:
     layout = view.layout
     if layout is None:
         return
-    table = DEFAULTS.get(layout.defaults_table, ()) if layout.defaults_table else ()
-    for d in (*table, *(Default(name, value, note) for name, value, note in layout.defaults)):
-        f = view.get(d.field)
+    fields = view.fields
+    for d in _defaults_of(layout):
+        f = fields.get(d.field)
         if f is not None and f.value is not None:
             continue
         if f is not None and f.auto and d.field != "precision.bf16" and d.field != "model.dtype":
@@ -488,8 +503,6 @@ def _precision_disagreements(run: OpenedRun) -> None:
 
 def open_view(view: RunView, file: str, options: Any = None) -> OpenedRun:
     """Attach everything the run has to a view built from one document; returns the opened run."""
-    from .links import attach_linked
-
     cwd = getattr(options, "cwd", None)
     if view.run is not None:
         return view.run

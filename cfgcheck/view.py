@@ -7,10 +7,11 @@ it without knowing how the file spelled it.
 from __future__ import annotations
 
 import re
+from types import MappingProxyType
 from typing import Any
 
 from ._records import guarded_repr
-from .findings import too_large
+from .findings import MAX_MAGNITUDE, too_large
 from .layouts import (BASE_FILE_KEYS, BY_NAME, FIELD_TYPES, LAYOUTS, METHOD_WORDS, NOT_TRAINING,
                       UNREAD_FORMATS, Layout, UnreadFormat)
 from .load import Document, dotted
@@ -198,55 +199,124 @@ def section_word(key: str) -> str:
     return word
 
 
-def _score(layout: Layout, data: dict, top: frozenset | None = None) -> int:
+_SCORING_CACHE: dict[int, tuple[Layout, tuple]] = {}
+_NO_NAMES: MappingProxyType = MappingProxyType({})
+
+
+def _scoring(layout: Layout) -> tuple:
+    """LAYOUT's scoring tables made ready: (signature, its names, the section names, the names
+    each key of a section counts as, the section-local names by section word, the section words
+    a nested search passes over). Only signature names are kept anywhere, since every other name
+    scores 0; the per-section tables fill as sections are met."""
+    got = _SCORING_CACHE.get(id(layout))
+    if got is None or got[0] is not layout:
+        sig = layout.signature
+        got = _SCORING_CACHE[id(layout)] = (layout, (
+            sig, frozenset(sig), frozenset(layout.sections), {}, {},
+            layout.foreign_sections | layout.restricted_sections))
+    return got[1]
+
+
+def _section_counts(layout: Layout, tables: tuple, section: str) -> dict:
+    """Key -> the signature names a key of SECTION (a name of ``layout.sections``) counts as:
+    itself, itself after each of the section's prefixes, and its section-local name (not in a
+    restricted section)."""
+    counts = tables[3].get(section)
+    if counts is None:
+        sig = tables[0]
+        found: dict[str, set] = {}
+        for name in sig:
+            found.setdefault(name, set()).add(name)
+            for p in layout.sections[section]:
+                if name.startswith(p):
+                    found.setdefault(name[len(p):], set()).add(name)
+        if section not in layout.restricted_sections:
+            for key, name in layout.section_names.get(section, {}).items():
+                if name in sig:
+                    found.setdefault(key, set()).add(name)
+        counts = tables[3][section] = {k: tuple(v) for k, v in found.items()}
+    return counts
+
+
+def _local_counts(layout: Layout, tables: tuple, word: str) -> Any:
+    """The section-local names of section WORD that are signature names (lower-case key -> name)."""
+    local = tables[4].get(word)
+    if local is None:
+        if word not in layout.section_names:
+            return _NO_NAMES  # (any word a file uses: not kept, so a hostile file's stay bounded)
+        sig = tables[0]
+        local = tables[4][word] = {k: v for k, v in layout.section_names[word].items() if v in sig}
+    return local
+
+
+def _text_keys(mapping: dict) -> bool:
+    """Whether every key of MAPPING is text."""
+    try:
+        "".join(mapping)
+    except TypeError:
+        return False
+    return True
+
+
+def _score(layout: Layout, data: dict, top: frozenset | None = None, subs: list | None = None) -> int:
     """The layout's signature weights of the names DATA spells (each name once): its top-level
-    keys (``top``, the str keys, when the caller has them), and in the layout's sections their
-    keys, prefixed keys and section-local names (every nested section too, for a layout that
-    searches all sections)."""
-    names = None
-    sections = layout.sections
-    for section in (data if len(data) < len(sections) else sections):
-        prefixes = sections.get(section)
-        sub = data.get(section) if prefixes is not None else None
-        if isinstance(sub, dict):
-            if names is None:
-                names = set(data)
-            local = layout.section_names.get(section, {})
-            for key in sub:
-                names.add(key)
-                names.update(p + str(key) for p in prefixes)
-                if key in local and section not in layout.restricted_sections:
-                    names.add(local[key])
+    keys (``top``, the top-level keys, when the caller has them), and in the layout's sections
+    their keys, prefixed keys and section-local names (every nested section too, for a layout that
+    searches all sections; ``subs``: DATA's (text key, mapping) items, when the caller has them)."""
+    tables = _scoring(layout)
+    sig = tables[0]
+    # (only text can be a signature name: the other keys of TOP drop out here)
+    found = set(tables[1].intersection(data if top is None else top))
+    for section in tables[2].intersection(data):
+        sub = data[section]
+        if isinstance(sub, dict) and sub:
+            counts = _section_counts(layout, tables, section)
+            for key in counts.keys() & sub.keys():
+                found.update(counts[key])
+            prefixes = layout.sections[section]
+            if prefixes and not _text_keys(sub):  # a prefix glued to a number may be a name
+                found.update(n for n in (p + str(k) for k in sub if not isinstance(k, str) for p in prefixes)
+                             if n in sig)
     if layout.search_all_sections:  # sections named as the author likes, nested too
-        if names is None:
-            names = set(data)
-        _score_nested(layout, data, names, 0)
-    sig = layout.signature
-    if names is None:  # no section of this layout: the top-level names alone
-        if top is None:
-            top = frozenset(k for k in data if isinstance(k, str))
-        return sum(sig[k] for k in top if k in sig)
-    return sum(sig.get(k, 0) for k in names if isinstance(k, str))
+        _score_nested(layout, tables, _sections_of(data) if subs is None else subs, found)
+    return sum(map(sig.__getitem__, found))
 
 
-def _score_nested(layout: Layout, mapping: dict, names: set, depth: int) -> None:
-    for key, value in mapping.items():
-        if not isinstance(key, str) or not isinstance(value, dict) or depth >= _MAX_SECTION_DEPTH - 1:
-            continue
-        word = section_word(key)
-        if word in layout.foreign_sections or word in layout.restricted_sections:
-            continue
-        local = layout.section_names.get(word, {})
-        for sub in value:
-            if isinstance(sub, str):
-                names.add(sub)
-                if sub.lower() in local:
-                    names.add(local[sub.lower()])
-        _score_nested(layout, value, names, depth + 1)
+def _sections_of(mapping: dict) -> list:
+    """MAPPING's (text key, mapping) items."""
+    return [(k, v) for k, v in mapping.items() if isinstance(v, dict) and isinstance(k, str)]
+
+
+def _score_nested(layout: Layout, tables: tuple, subs: list, found: set) -> None:
+    """The names of every mapping below the top (SUBS: the top level's sections) down to
+    _MAX_SECTION_DEPTH, but for those under a foreign or restricted section."""
+    sig, skipped, known = tables[0], tables[5], tables[4]
+    for depth in range(_MAX_SECTION_DEPTH - 1):
+        below = []
+        for key, value in subs:
+            word = _SECTION_WORD_CACHE.get(key) or section_word(key)
+            if word in skipped:
+                continue
+            found.update(sig.keys() & value.keys())
+            local = known.get(word)
+            if local is None:
+                local = _local_counts(layout, tables, word)
+            if local:
+                for sub in value:
+                    if isinstance(sub, str):
+                        name = local.get(sub.lower())
+                        if name is not None:
+                            found.add(name)
+            if depth < _MAX_SECTION_DEPTH - 2:
+                below += _sections_of(value)
+        if not below:
+            return
+        subs = below
 
 
 NOT_READ_YET = "not a format cfgcheck reads (yet)"
 _TUNED = ("train_micro_batch_size_per_gpu", "gradient_accumulation_steps", "train_batch_size")
+_MARKER_KEYS = ("_target_", "class_path")
 
 
 def _has_target(data: Any, depth: int = 0) -> bool:
@@ -263,41 +333,52 @@ def _has_class_path(data: Any, depth: int = 0) -> bool:
     return any(_has_class_path(v, depth + 1) for v in data.values())
 
 
-def _mapping_keys(data: dict) -> set:
-    """The keys of DATA and of the mappings inside it down to the depth _has_target and
-    _has_class_path look (a mapping's values that are mappings, three levels down)."""
-    keys: set = set()
-    stack = [(data, 0)]
-    while stack:
-        mapping, depth = stack.pop()
-        keys.update(mapping)
-        if depth < 3:
-            stack.extend((v, depth + 1) for v in mapping.values() if isinstance(v, dict))
-    return keys
+def _marker_keys(data: dict) -> frozenset:
+    """Which of _MARKER_KEYS are keys of DATA or of the mappings inside it down to the depth
+    _has_target and _has_class_path look (a mapping's values that are mappings, three levels down)."""
+    found: set = set()
+    level = [data]
+    for depth in range(4):
+        below = []
+        for mapping in level:
+            if "_target_" in mapping:
+                found.add("_target_")
+            if "class_path" in mapping:
+                found.add("class_path")
+            if depth < 3:
+                below += [v for v in mapping.values() if isinstance(v, dict)]
+        if not below:
+            break
+        level = below
+    return frozenset(found)
 
 
 def _matches(fmt: UnreadFormat, data: dict, top_names: frozenset | None = None,
              keys: list | None = None) -> bool:
     """Whether DATA is in FMT (TOP_NAMES: DATA's str keys with dashes as underscores; KEYS: a
-    list that holds, or gets, DATA's _mapping_keys; when the caller has them)."""
-    if fmt.shape in ("class-path", "composed") and keys is not None and not keys:
-        keys.append(_mapping_keys(data))
-    if fmt.shape == "class-path":
-        if keys is not None and "class_path" not in keys[0]:
-            return False  # no mapping has one
-        return _has_class_path(data)
-    if fmt.shape == "composed":
-        defaults = data.get("defaults")
-        listed = isinstance(defaults, list) and defaults and all(
-            isinstance(x, (str, dict)) for x in defaults)
-        named = any(isinstance(data.get(k), str) and data[k].strip().lower().endswith((".yaml", ".yml", ".json"))
-                    for k in BASE_FILE_KEYS)  # still there: the base file could not be read
-        return bool(listed) or named or (
-            "_target_" in keys[0] if keys is not None else _has_target(data))
-    if fmt.shape == "tuning-space":
-        zero = data.get("zero_optimization")
-        stage_list = isinstance(zero, dict) and isinstance(zero.get("stage"), list)
-        return stage_list or any(isinstance(data.get(k), list) for k in _TUNED)
+    list that holds, or gets, which of _MARKER_KEYS DATA's mappings have; when the caller has them)."""
+    shape = fmt.shape
+    if shape:
+        if shape in ("class-path", "composed") and keys is not None and not keys:
+            keys.append(_marker_keys(data))
+        if shape == "class-path":
+            if keys is not None and "class_path" not in keys[0]:
+                return False  # no mapping has one
+            return _has_class_path(data)
+        if shape == "composed":
+            defaults = data.get("defaults")
+            listed = isinstance(defaults, list) and defaults and all(
+                isinstance(x, (str, dict)) for x in defaults)
+            named = not data.keys().isdisjoint(BASE_FILE_KEYS) and any(
+                isinstance(data.get(k), str) and data[k].strip().lower().endswith((".yaml", ".yml", ".json"))
+                for k in BASE_FILE_KEYS)  # still there: the base file could not be read
+            return bool(listed) or named or (
+                "_target_" in keys[0] if keys is not None else _has_target(data))
+        if shape == "tuning-space":
+            zero = data.get("zero_optimization")
+            stage_list = isinstance(zero, dict) and isinstance(zero.get("stage"), list)
+            return stage_list or not data.keys().isdisjoint(_TUNED) and any(
+                isinstance(data.get(k), list) for k in _TUNED)
     if not fmt.section and top_names is not None:
         names = top_names
     else:
@@ -305,32 +386,60 @@ def _matches(fmt: UnreadFormat, data: dict, top_names: frozenset | None = None,
         if not isinstance(where, dict):
             return False
         names = {k.replace("-", "_") for k in where if isinstance(k, str)}
-    hits = names & fmt.marks
-    return len(hits) >= fmt.min_hits and (not fmt.required or bool(names & fmt.required))
+    if fmt.required and names.isdisjoint(fmt.required):
+        return False
+    return len(names & fmt.marks) >= fmt.min_hits
+
+
+def _top_names(data: dict) -> frozenset:
+    """DATA's text keys with dashes as underscores."""
+    try:
+        if "-" not in "".join(data):
+            return frozenset(data)
+    except TypeError:
+        pass
+    return frozenset(k.replace("-", "_") for k in data if isinstance(k, str))
 
 
 def unread_format(data: Any) -> UnreadFormat | None:
     """The format cfgcheck recognises but does not read that DATA is in, or None."""
     if not isinstance(data, dict):
         return None
-    top_names = frozenset(k.replace("-", "_") for k in data if isinstance(k, str))
-    keys: list = []  # the mapping keys, found when a format first needs them
+    top_names = _top_names(data)
+    keys: list = []  # which marker keys the mappings have, found when a format first needs them
     for fmt in UNREAD_FORMATS:
+        if not fmt.shape:  # (the quick refusals of _matches, without the call)
+            if fmt.section:
+                if not isinstance(data.get(fmt.section), dict):
+                    continue
+            elif fmt.required and top_names.isdisjoint(fmt.required):
+                continue
         if _matches(fmt, data, top_names, keys):
             return fmt
     return None
 
 
-_SCORING_KEYS_CACHE: dict[int, tuple[Layout, frozenset, frozenset]] = {}
+# every word NOT_TRAINING looks for: a document with none of them is none of those files
+_NOT_TRAINING_WORDS = frozenset().union(*NOT_TRAINING.values())
+_DETECTION_CACHE: dict[str, tuple] = {}
 
 
-def _scoring_keys(layout: Layout) -> tuple[frozenset, frozenset]:
-    """(the top-level names LAYOUT's signature weighs, its section names): a document with
-    neither (and, for a layout that searches all sections, no mapping at all) scores 0."""
-    got = _SCORING_KEYS_CACHE.get(id(layout))
-    if got is None or got[0] is not layout:
-        got = _SCORING_KEYS_CACHE[id(layout)] = (layout, frozenset(layout.signature), frozenset(layout.sections))
-    return got[1], got[2]
+def _detection() -> tuple:
+    """(each signature name -> the places in LAYOUTS of the layouts it is one of; each section
+    name -> the same; the places of the layouts that search every section; all of those names)."""
+    got = _DETECTION_CACHE.get("tables")
+    if got is None:
+        by_sig: dict[str, set] = {}
+        by_section: dict[str, set] = {}
+        for i, layout in enumerate(LAYOUTS):
+            for name in layout.signature:
+                by_sig.setdefault(name, set()).add(i)
+            for name in layout.sections:
+                by_section.setdefault(name, set()).add(i)
+        got = _DETECTION_CACHE["tables"] = (
+            by_sig, by_section, frozenset(i for i, lay in enumerate(LAYOUTS) if lay.search_all_sections),
+            frozenset(by_sig), frozenset(by_section))
+    return got
 
 
 def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
@@ -339,24 +448,30 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
         if data is None:
             return None, "empty document"
         return None, "top level is not a mapping"
-    top = {k for k in data if isinstance(k, str)}
-    for what, marks in NOT_TRAINING.items():
-        if len(top & marks) >= 2 or (what == "github-workflow" and True in data and "jobs" in top):
-            return None, f"looks like a {what} file"
+    top = frozenset(data)  # (a key that is not text matches no word below)
+    if not top.isdisjoint(_NOT_TRAINING_WORDS):
+        for what, marks in NOT_TRAINING.items():
+            if len(top & marks) >= 2 or (what == "github-workflow" and True in data and "jobs" in top):
+                return None, f"looks like a {what} file"
     unread = unread_format(data)
     if unread is not None:
         return None, f"{unread.title} ({unread.name}): {NOT_READ_YET}"
+    by_sig, by_section, search_all, sig_names, section_names = _detection()
+    # the layouts that can score: a name of its signature at the top, or a section it reads
+    places: set[int] = set()
+    for name in sig_names.intersection(top):
+        places.update(by_sig[name])
+    subs = _sections_of(data)
+    if subs or any(isinstance(v, dict) for v in data.values()):
+        places.update(search_all)
+        for name in section_names.intersection(top):
+            places.update(by_section[name])
     best, best_score = None, 0
-    top = frozenset(top)
-    nested = any(isinstance(v, dict) for v in data.values())
-    for layout in LAYOUTS:
-        keys = _scoring_keys(layout)
-        if top.isdisjoint(keys[0]) and not (
-                nested and (layout.search_all_sections or not keys[1].isdisjoint(data))):
-            continue  # no name of its signature at the top, and no section it reads: it scores 0
-        s = _score(layout, data, top)
+    for i in sorted(places):
+        layout = LAYOUTS[i]
+        s = _score(layout, data, top, subs)
         if s >= layout.min_score and layout.extends and top & layout.extends_marks:
-            s += _score(BY_NAME[layout.extends], data, top)
+            s += _score(BY_NAME[layout.extends], data, top, subs)
         if s >= layout.min_score and s > best_score:
             best, best_score = layout, s
     if best is None:
@@ -369,9 +484,14 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
 _MAX_SECTION_DEPTH = 4
 
 
-def _index(layout: Layout, data: dict, values: dict[tuple, Any] | None = None) -> dict[str, list[tuple]]:
-    """Bare names -> the key paths that spell them, the preferred one first (VALUES, when given,
-    gets the value at each of those paths).
+_FULL_NAMES = ("eval_", "per_device_eval", "evaluation_", "logging_", "save_", "load_best", "metric_for_best",
+               "greater_is_better")
+
+
+def _index(layout: Layout, data: dict, wanted: Any, values: dict[tuple, Any]) -> dict[str, list[tuple]]:
+    """Bare names (those in WANTED) -> the key paths that spell them with a value that is not a
+    mapping (a mapping is a section that shares the name), the preferred one first; VALUES gets
+    the value at each of those paths.
 
     The top level comes first, then sections breadth-first in file order. Inside a section the
     layout knows, the section's prefixes may be dropped (``lora: {alpha: 32}``) and its
@@ -381,41 +501,48 @@ def _index(layout: Layout, data: dict, values: dict[tuple, Any] | None = None) -
     name is searched for bare names as written.
     """
     index: dict[str, list[tuple]] = {}
-    queue: list[tuple[tuple, dict, tuple[str, ...], dict[str, str], bool]] = [((), data, (), {}, False)]
-
-    def put(name: str, path: tuple) -> None:
-        paths = index.setdefault(name, [])
-        if path not in paths:
-            paths.append(path)
-
-    while queue:
-        base, mapping, prefixes, local, restricted = queue.pop(0)
+    sections, section_names = layout.sections, layout.section_names
+    foreign, restricted_words = layout.foreign_sections, layout.restricted_sections
+    search_all = layout.search_all_sections
+    queue: list[tuple[tuple, dict, tuple[str, ...], Any, bool]] = [((), data, (), None, False)]
+    for base, mapping, prefixes, local, restricted in queue:  # (the queue grows as it is read)
+        deep = len(base) >= _MAX_SECTION_DEPTH - 1
         for key, value in mapping.items():
             if not isinstance(key, str):
                 continue
-            path = base + (key,)
-            if values is not None:
-                values[path] = value
-            if key.lower() in local:
-                put(local[key.lower()], path)
+            if isinstance(value, dict):
+                if deep:
+                    continue
+                lowered = section_word(key)
+                if lowered in foreign:
+                    continue
+                if not search_all and key not in sections and lowered not in section_names:
+                    continue
+                queue.append((base + (key,), value, prefixes + sections.get(key, ()),
+                              section_names.get(lowered) or None, restricted or lowered in restricted_words))
+                continue
+            names = []
+            if local is not None:
+                name = local.get(key.lower())
+                if name is not None and name in wanted:
+                    names.append(name)
             if not restricted:
-                put(key, path)
+                if key in wanted:
+                    names.append(key)
                 for pre in prefixes:
-                    put(pre + key, path)
-            elif key.startswith(("eval_", "per_device_eval", "evaluation_", "logging_", "save_",
-                                 "load_best", "metric_for_best", "greater_is_better")):
-                put(key, path)  # a full name of an evaluation or checkpoint setting is that setting
-            if not isinstance(value, dict) or len(base) >= _MAX_SECTION_DEPTH - 1:
-                continue
-            lowered = section_word(key)
-            if lowered in layout.foreign_sections:
-                continue
-            named = key in layout.sections or lowered in layout.section_names
-            if not named and not layout.search_all_sections:
-                continue
-            sub_local = layout.section_names.get(lowered, {})
-            sub_restricted = restricted or lowered in layout.restricted_sections
-            queue.append((path, value, prefixes + layout.sections.get(key, ()), sub_local, sub_restricted))
+                    if pre + key in wanted:
+                        names.append(pre + key)
+            elif key.startswith(_FULL_NAMES) and key in wanted:
+                names.append(key)  # a full name of an evaluation or checkpoint setting is that setting
+            if names:
+                path = base + (key,)
+                values[path] = value
+                for name in names:
+                    paths = index.get(name)
+                    if paths is None:
+                        index[name] = [path]
+                    elif path not in paths:
+                        paths.append(path)
     return index
 
 
@@ -483,25 +610,15 @@ def _also(values: dict[tuple, Any], paths: list[tuple]) -> str:
     return f"{dotted(paths[0])} is used (the top level first, then the first section); also written: {where}"
 
 
-def _add(view: RunView, name: str, path: tuple, written: Any, note: str = "") -> None:
-    if name in view.fields:
-        return
-    source = written
-    if view.layout is not None and view.layout.interpolates:
-        resolved, value = resolve_interpolation(view.doc.data, written)
-        if resolved:
-            source = value
-    value, ok, auto, from_text = _coerce(name, source)
-    huge = ok and too_large(value)  # no rule does arithmetic on a number past any run's range
-    guess = view.doc.assumed.get(tuple(path)) if view.doc.assumed else None
-    f = Field(name=name, value=value if ok and not huge else None, path=path, written=written,
-              auto=auto, from_text=from_text, note=guess or note,
-              origin="assumed" if guess else "written")
-    view.fields[name] = f
-    if huge:
-        view.out_of_range.append(f)
-    if not ok:
-        view.type_problems.append(TypeProblem(f, FIELD_TYPES.get(name, "any")))
+# the types a value of each field type is used as written in (a text value once it is not "auto")
+_AS_WRITTEN: MappingProxyType[str, frozenset] = MappingProxyType({
+    "any": frozenset({type(None), bool, int, float, str, list, dict}),
+    "int": frozenset({type(None), int}),
+    "number": frozenset({type(None), int, float}),
+    "bool": frozenset({type(None), bool}),
+    "str": frozenset({type(None), str}),
+    "names": frozenset({type(None), str}),
+})
 
 
 _INTERP = re.compile(r"\$\{([^${}]+)\}")
@@ -545,9 +662,9 @@ _FILL_PLAN_CACHE: dict[int, tuple[dict, tuple, dict, dict]] = {}
 
 
 def _fill_plan(layout: Layout) -> tuple[tuple, dict, dict]:
-    """LAYOUT's field table made ready: ((name, ((root path or None, bare name or None), ...)),
-    ...) in table order, and which fields a bare name, or a top-level key that starts a root path,
-    can fill (their places in that order)."""
+    """LAYOUT's field table made ready: ((name, ((root path or None, bare name or None), ...),
+    field type, the types a value is used as written in), ...) in table order, and which fields a
+    bare name, or a top-level key that starts a root path, can fill (their places in that order)."""
     fields = layout.fields
     got = _FILL_PLAN_CACHE.get(id(fields))
     if got is None or got[0] is not fields:
@@ -562,39 +679,75 @@ def _fill_plan(layout: Layout) -> tuple[tuple, dict, dict]:
                 else:
                     compiled.append((None, spec))
                     by_name.setdefault(spec, []).append(i)
-            plan.append((name, tuple(compiled)))
+            kind = FIELD_TYPES.get(name, "any")
+            plan.append((name, tuple(compiled), kind, _AS_WRITTEN.get(kind, frozenset())))
         got = _FILL_PLAN_CACHE[id(fields)] = (fields, tuple(plan), by_name, by_root)
     return got[1], got[2], got[3]
 
 
 def fill(view: RunView, layout: Layout, data: dict) -> None:
-    """Fill the view's fields from one layout's table."""
+    """Fill the view's fields from one layout's table (a Field for each value found, typed by ``_coerce``)."""
+    plan, by_name, by_root = _fill_plan(layout)
     values: dict[tuple, Any] = {}
-    index = _index(layout, data, values) if layout.has_bare_names else {}
+    # (a table with bare names has them in by_name; a mapping is a section that shares a name,
+    # not a value, so the index holds only paths to other values)
+    index = _index(layout, data, by_name, values) if by_name else _NO_NAMES
     kind = data.get(layout.kind_key) if layout.kind_key else None
     other_kind = isinstance(kind, str) and kind.strip().upper() not in layout.kinds_described
-    plan, by_name, by_root = _fill_plan(layout)
     # only the fields a name of this file can fill, in table order
     hits: set[int] = set()
     for key in index:
-        hits.update(by_name.get(key, ()))
-    for key in data:
-        hits.update(by_root.get(key, ()))
+        hits.update(by_name[key])
+    if by_root:
+        for key in by_root.keys() & data.keys():
+            hits.update(by_root[key])
+    fields = view.fields
+    assumed = view.doc.assumed
+    interpolates = view.layout is not None and view.layout.interpolates
     for i in sorted(hits):
-        name, specs = plan[i]
+        name, specs, kind, plain = plan[i]
         if other_kind and name not in layout.fields_for_any_kind:
             continue  # the table describes other kinds: these keys mean something else here
         for path, bare in specs:
-            if path is not None:
-                found, written = _walk(data, path)
-                if found:
-                    _add(view, name, path, written)
-                    break
+            if path is None:
+                paths = index.get(bare)
+                if not paths:
+                    continue
+                path = paths[0]
+                written = values[path]
+                note = _also(values, paths) if len(paths) > 1 else ""
             else:
-                paths = [p for p in index.get(bare, ()) if not isinstance(values[p], dict)]
-                if paths:  # (a mapping is a section that shares the name, not a value)
-                    _add(view, name, paths[0], values[paths[0]], _also(values, paths))
-                    break
+                found, written = _walk(data, path)
+                if not found:
+                    continue
+                note = ""
+            if name in fields:
+                break
+            source = written
+            if interpolates and isinstance(written, str) and "${" in written:
+                resolved, value = resolve_interpolation(view.doc.data, written)
+                if resolved:
+                    source = value
+            t = type(source)
+            if t in plain and (t is not str or source.strip().lower() != "auto"):
+                value, ok, auto, from_text = source, True, False, False  # what _coerce gives, without its tests
+                # no rule does arithmetic on a number past any run's range
+                if t is int:
+                    huge = source > MAX_MAGNITUDE or source < -MAX_MAGNITUDE
+                else:
+                    huge = t is float and too_large(source)
+            else:
+                value, ok, auto, from_text = _coerce(name, source)
+                huge = ok and too_large(value)
+            guess = assumed.get(path) if assumed else None
+            f = Field(name, None if huge or not ok else value, path, written, auto, from_text,
+                      "assumed" if guess else "written", guess or note)
+            fields[name] = f
+            if huge:
+                view.out_of_range.append(f)
+            if not ok:
+                view.type_problems.append(TypeProblem(f, kind))
+            break
 
 
 def _model_from_builder(view: RunView, layout: Layout, data: dict) -> None:
