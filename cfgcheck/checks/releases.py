@@ -72,17 +72,16 @@ def _installed_text(lib: str, version: str, requires: dict, runner: str) -> str:
 
 
 class _Table:
-    """What key-not-in-release needs of one key table, worked out once per process: each key
-    path that names a key with release bounds, and those of the keys a fresh install no longer
-    accepts (the only ones a config with nothing pinned is told about)."""
+    """What key-not-in-release needs of one key table: each key path that names a key with
+    release bounds, and those of the keys a fresh install no longer accepts (the only ones a
+    config with nothing pinned is told about)."""
 
     __slots__ = ("table", "bounded", "stale", "newest", "requires", "runner")
 
     def __init__(self, table):
         self.table = table
-        keys = table.keys
-        self.bounded = {path: name for path, name in table.paths.items() if keys[name][1]}
-        self.stale = frozenset(path for path, name in self.bounded.items() if not keys[name][3])
+        self.bounded = table.bounded
+        self.stale = table.stale
         self.requires = table.requires
         self.newest = table.newest
         self.runner = table.source.split(" (")[0]

@@ -40,7 +40,7 @@ def _read_somewhere() -> frozenset[str]:
     """Every key name any known reader takes, and every name a layout reads as a setting."""
     from ..layouts import LAYOUTS
 
-    names: set[str] = set(_keys_module()._common()["names"])  # the key tables' and components'
+    names: set[str] = set(_keys_module().all_names())  # the key tables' and components'
     for lay in LAYOUTS:
         for specs in lay.fields.values():
             names.update(s.rpartition(".")[2].lstrip("=") for s in specs)

@@ -145,16 +145,20 @@ class KeyTable:
     ``paths``: every key path a file can write a known key as (``("zero_optimization", "stage")``,
     and ``("zero_optimization.stage",)`` when the top level has keys) -> its dotted name; only
     paths whose parent has keys of its own, as the checks look them up.
+    ``bounded``: the part of ``paths`` that names a key with release bounds (some scanned
+    library declares it); ``stale``: those of them whose key a fresh install no longer accepts.
     ``groups``: dotted parent -> the names under it, sorted ("" for the top level).
     """
 
-    __slots__ = ("layout", "keys", "paths", "groups", "absent", "extra", "components", "requires",
+    __slots__ = ("layout", "keys", "paths", "bounded", "stale", "groups", "absent", "extra", "components", "requires",
                  "newest", "source", "closed", "_infos", "_texts", "_lowered", "_by_length")
 
     def __init__(self, layout: str, part: dict):
         self.layout = layout
         self.keys: dict[str, tuple] = part["keys"]
         self.paths: dict[tuple, str] = part["paths"]
+        self.bounded: dict[tuple, str] = part["bounded"]
+        self.stale: frozenset[tuple] = part["stale"]
         self.groups: dict[str, list[str]] = part["groups"]
         self.absent: dict[str, dict[str, list[str]]] = part["absent"]
         self.extra: dict[str, dict] = part["extra"]
@@ -205,11 +209,19 @@ def _sources() -> list[Path]:
 
 @cache
 def _common() -> dict:
-    """What every layout shares: the layouts, the scanned releases of each library, and every
-    key name's last part over all the tables and the torchtune components' parameters."""
+    """What every layout shares: the layouts and the scanned releases of each library."""
     from .tables import ready_part
 
     return ready_part("known_keys", "common", _sources(), _built_parts)
+
+
+@cache
+def all_names() -> frozenset[str]:
+    """The last part of every key name of every table, and the torchtune components'
+    parameters (loaded only when a key is not plainly known)."""
+    from .tables import ready_part
+
+    return ready_part("known_keys", "names", _sources(), _built_parts)
 
 
 @cache
@@ -326,13 +338,17 @@ def _build_parts() -> dict:
         for members in groups.values():
             members.sort()
         paths = {path: name for name in table for path in _key_paths(name, groups)}
+        bounded = {path: name for path, name in paths.items() if table[name][1]}
+        fresh = {name: _fresh(accepted, newest) for name, (_o, accepted, _c) in table.items() if accepted}
         components = entry.get("components", {})
         for info in components.values():  # torchtune components' parameters
             names.update(info["params"])
         parts[_part_name(layout)] = {
-            "keys": {name: (owners, accepted, current, _fresh(accepted, newest) if accepted else None)
+            "keys": {name: (owners, accepted, current, fresh.get(name))
                      for name, (owners, accepted, current) in table.items()},
             "paths": paths,
+            "bounded": bounded,
+            "stale": frozenset(path for path, name in bounded.items() if not fresh[name]),
             "groups": groups,
             "absent": absent.get(layout, {}),
             "extra": extra_layouts.get(layout, {}),
@@ -343,7 +359,8 @@ def _build_parts() -> dict:
             "source": sources.get(layout, ""),
             "closed": bool(entry.get("closed")),
         }
-    parts["common"] = {"layouts": tuple(sorted(keys)), "scanned": scanned, "names": frozenset(names)}
+    parts["common"] = {"layouts": tuple(sorted(keys)), "scanned": scanned}
+    parts["names"] = frozenset(names)
     return parts
 
 
