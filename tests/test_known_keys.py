@@ -313,3 +313,39 @@ def test_suggestions_search_only_keys_within_reach():
     for a, b in [("lora_alpah", "lora_alpha"), ("num_epoch", "num_epochs"), ("abc", "xyz"),
                  ("learning_rate", "warmup_ratio"), ("", "ab")]:
         assert _letter_gap(a, b) <= _osa_distance(a, b, 99)
+
+
+def test_every_known_key_is_found_by_its_written_path():
+    # a file writes `zero_optimization: {stage: 3}` (a nested path) or, at the top level of
+    # a table that has top-level keys, the dotted key itself; both name the same known key
+    for layout in layouts():
+        table = keys.table_of(layout)
+        for name in table.keys:
+            assert table.paths[tuple(name.split("."))] == name, (layout, name)
+            if "" in table.groups and "." in name:
+                assert table.paths[(name,)] == name, (layout, name)
+    ds = keys.table_of("deepspeed")
+    assert ds.paths[("zero_optimization", "stage")] == "zero_optimization.stage"
+    # a parent that has no key list of its own (optimizer.params is free-form) is no path
+    assert all(path[:-1] != ("optimizer", "params") for path in ds.paths)
+
+
+def test_bounded_and_stale_paths_follow_the_release_ranges():
+    table = keys.table_of("trainer")
+    # warmup_ratio: transformers 4.36-5.14, removed in 5.15 (known_keys.json, generated); a fresh
+    # install gets 5.24, which no longer takes it
+    assert table.bounded[("warmup_ratio",)] == "warmup_ratio"
+    assert ("warmup_ratio",) in table.stale
+    assert ("learning_rate",) in table.bounded and ("learning_rate",) not in table.stale
+    # a hand-maintained recipe key has no scanned release: no bounds to judge
+    recipe = next(n for n, raw in table.keys.items() if not raw[1])
+    assert (recipe,) not in table.bounded
+
+
+def test_key_info_is_made_once_and_equals_the_assembled_tables():
+    table = keys.table_of("peft-adapter")
+    first = table.info("lora_alpha")
+    assert first is table.info("lora_alpha") is keys.lookup("lora_alpha", "peft-adapter")
+    assert keys._data()["infos"]["peft-adapter"]["lora_alpha"] == first
+    assert first.versions_text() == first.versions_text()  # kept after the first time
+    assert table.info("no_such_key_anywhere") is None

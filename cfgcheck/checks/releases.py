@@ -3,23 +3,17 @@ against the versions pinned beside the config (or given with --installed)."""
 
 from __future__ import annotations
 
-from functools import lru_cache
+from functools import cache, lru_cache
 from types import MappingProxyType
 
 from . import check
-from .unknown_keys import keyed_paths, repo_keys_of  # shared with unknown-key, once per view
+from .unknown_keys import repo_keys_of  # shared with unknown-key, once per view
 
 # Whether the library that reads a key table refuses a key it does not declare (an error) or
 # passes over it (a warning): transformers' HfArgumentParser raises "Some keys are not used by the
 # HfArgumentParser"; accelerate's config loader raises on unknown keys ("The config file at ... had
 # unknown keys"); DeepSpeed and PEFT adapter configs are read more loosely (from memory).
 _REFUSES = MappingProxyType({"trainer": True, "accelerate": True, "deepspeed": False, "peft-adapter": False})
-
-
-def _keys():
-    from ..knowledge import keys
-
-    return keys
 
 
 def _minor(v: str) -> tuple[int, ...]:
@@ -31,7 +25,9 @@ def _minor(v: str) -> tuple[int, ...]:
 @lru_cache(maxsize=4096)  # a pure function of fixed tables, asked the same few questions per key
 def _status(lib: str, first: str, last: str, pinned: str) -> tuple[str, str]:
     """'yes' | 'no' | 'unsure', and the scanned release that decides it."""
-    scanned = _keys()._data()["scanned"].get(lib, [])
+    from ..knowledge.keys import _common
+
+    scanned = _common()["scanned"].get(lib, [])
     p = _minor(pinned)
     lo, hi = _minor(first), _minor(last)
     if lo <= p <= hi:
@@ -54,27 +50,18 @@ def installed(ctx) -> dict:
     return ctx.once("installed", lambda: _installed(ctx))
 
 
-def _installed(ctx) -> dict:
-    from ..knowledge.pins import pins_near
+@cache  # looked up once: a relative import inside a function costs a package lookup per call
+def _pins_module():
+    from ..knowledge import pins
 
+    return pins
+
+
+def _installed(ctx) -> dict:
     out = {lib: (pin.version, f"pinned in {pin.source}")
-           for lib, pin in pins_near(ctx.file, ctx.options.cwd).items()}
+           for lib, pin in _pins_module().pins_near(ctx.file, ctx.options.cwd).items()}
     for lib, version in (getattr(ctx.options, "versions", None) or {}).items():
         out[lib] = (version, "stated with --installed or the project file")
-    return out
-
-
-def _newest_installed(scanned: dict, requires: dict) -> dict[str, str]:
-    """The release of each library a fresh install gets: the newest scanned one, or for a
-    recipe runner the newest scanned one its own requirements allow (llamafactory 0.9.5 installs
-    transformers <=5.6.0, so a key removed in 5.15 still reaches its parser)."""
-    from ..knowledge.pins import satisfies
-
-    out = {}
-    for lib, versions in scanned.items():
-        allowed = [v for v in versions if lib not in requires or satisfies(v, requires[lib])]
-        if allowed:
-            out[lib] = allowed[-1]
     return out
 
 
@@ -84,79 +71,101 @@ def _installed_text(lib: str, version: str, requires: dict, runner: str) -> str:
     return f"{lib} {version}"
 
 
-def _current(info, newest: dict) -> bool:
-    """Whether a fresh install accepts the key: some library reads it in the release installed."""
-    from ..knowledge.pins import version_key
-
-    # a library none of whose scanned releases the runner allows: no verdict on it
-    return any(lib not in newest or version_key(first)[:2] <= version_key(newest[lib])[:2]
-               <= version_key(last)[:2] for lib, (first, last) in info.accepted.items())
-
-
 class _Table:
-    """What key-not-in-release needs of one key table, worked out once per process: the keys
-    that have release bounds at all, each with whether a fresh install accepts it."""
+    """What key-not-in-release needs of one key table: each key path that names a key with
+    release bounds, and those of the keys a fresh install no longer accepts (the only ones a
+    config with nothing pinned is told about)."""
 
-    __slots__ = ("groups", "bounded", "newest", "requires", "runner")
+    __slots__ = ("table", "bounded", "stale", "newest", "requires", "runner")
 
-    def __init__(self, table: str):
-        keys = _keys()
-        data = keys._data()
-        self.groups = data["by_parent"][table]
-        self.requires = data["requires"].get(table, {})
-        self.newest = _newest_installed(data["scanned"], self.requires)
-        self.runner = data["runner_sources"].get(table, "").split(" (")[0]
-        self.bounded = {name: (info, _current(info, self.newest))
-                        for name, info in data["infos"][table].items() if info.accepted}
+    def __init__(self, table):
+        self.table = table
+        self.bounded = table.bounded
+        self.stale = table.stale
+        self.requires = table.requires
+        self.newest = table.newest
+        self.runner = table.source.split(" (")[0]
 
 
 @lru_cache(maxsize=None)  # one per key table; the tables are fixed for the process
 def _table(table: str) -> _Table | None:
-    return _Table(table) if table in _keys().layouts() else None
+    from ..knowledge.keys import table_of
+
+    known = table_of(table)
+    return _Table(known) if known is not None else None
+
+
+def _in_order(entries: dict, paths) -> list[tuple]:
+    """PATHS in the document's order, parents before their keys (a section reported once covers
+    what is inside it)."""
+    if len(paths) > 1:
+        paths = [p for p in entries if p in paths]  # the document's order
+        paths.sort(key=len)  # stable: the document's order among paths of one length
+    return list(paths)
 
 
 @check("key-not-in-release")
 def key_not_in_release(ctx) -> None:
     view = ctx.view
-    if view.layout is None:
+    layout = view.layout
+    if layout is None:
         return
-    table = view.layout.key_table  # the key table of the libraries that read this kind of file
+    table = layout.key_table  # the key table of the libraries that read this kind of file
     known = _table(table) if table is not None else None
     if known is None:
         return
-    groups, bounded = known.groups, known.bounded
-    sections = view.layout.sections
     doc = ctx.doc
-    data = doc.data if isinstance(doc.data, dict) else None
-    candidates = []
-    for path, parent, name in keyed_paths(ctx):
-        if parent not in groups or name not in bounded:
-            continue
-        if path[0] in sections and data is not None and isinstance(data.get(path[0]), dict):
-            continue
-        candidates.append((path, name))
+    entries = doc.entries
+    candidates = known.bounded.keys() & entries.keys()  # the written keys with release bounds
     if not candidates:
         return
+    data = doc.data if isinstance(doc.data, dict) else None
+    sections = layout.sections
+    if sections and data is not None:
+        # a section of the file's own script (training:, lora:) is the script's, not the library's
+        inside = [h for h in sections.keys() & data.keys() if isinstance(data[h], dict)]
+        if inside:
+            candidates = {p for p in candidates if p[0] not in inside}
     repo = None
-    if view.layout.trainer_defaults or view.layout.read_by_own_classes:
+    if layout.trainer_defaults or layout.read_by_own_classes:
+        if not any(entries[p].keyed for p in candidates):
+            return
         repo = repo_keys_of(ctx)
-    pins = None
+    keys = known.table.keys
+    if repo is not None:
+        declared, read_only, libraries = repo.keys, repo.read_only, repo.reader_libraries
+        kept = set()
+        for p in candidates:
+            if not entries[p].keyed:
+                continue
+            if p[-1] in declared and p[-1] not in read_only:
+                continue  # the script that reads the file declares it: its own release decides
+            if libraries is not None and libraries.isdisjoint(keys[known.bounded[p]][1]):
+                # the repository's parsers are built from classes of other libraries (or its
+                # own): the releases of the libraries that once took the key say nothing about them
+                continue
+            kept.add(p)
+        candidates = kept
+    elif not any(entries[p].keyed for p in candidates):
+        return
+    if not candidates:
+        return
+    pins = installed(ctx)
+    if not pins:
+        # nothing pinned: only a key a fresh install no longer accepts is reported
+        candidates = candidates & known.stale
+        if not candidates:
+            return
     reported: list[tuple] = []
-    # parents before their keys, so a section reported once covers what is inside it
-    candidates.sort(key=lambda pn: len(pn[0]))
-    for path, name in candidates:
+    table_of_keys = known.table
+    for path in _in_order(entries, candidates):
+        if not entries[path].keyed:
+            continue
         if reported and any(path[:len(p)] == p for p in reported):
             continue  # inside a section already reported: the section says it
-        info, current = bounded[name]
-        if repo is not None and path[-1] in repo.keys and path[-1] not in repo.read_only:
-            continue  # the script that reads the file declares it: its own release decides
-        if repo is not None and repo.reader_libraries is not None \
-                and not set(info.accepted) & repo.reader_libraries:
-            # the repository's parsers are built from classes of other libraries (or its own):
-            # the releases of the libraries that once took the key say nothing about them
-            continue
-        if pins is None:
-            pins = installed(ctx)
+        name = known.bounded[path]
+        info = table_of_keys.info(name)
+        current = keys[name][3]
         if not pins and current:
             continue  # nothing pinned, and a fresh install accepts it
         verdicts = {}

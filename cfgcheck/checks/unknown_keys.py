@@ -22,12 +22,13 @@ belongs to the repository's own script.
 
 from __future__ import annotations
 
-from functools import lru_cache
+from functools import cache, lru_cache
 
 from ..layouts import keys_read
 from . import check
 
 
+@cache  # looked up once: a relative import inside a function costs a package lookup per call
 def _keys_module():
     from ..knowledge import keys  # the key tables load on first use only
 
@@ -39,19 +40,20 @@ def _read_somewhere() -> frozenset[str]:
     """Every key name any known reader takes, and every name a layout reads as a setting."""
     from ..layouts import LAYOUTS
 
-    keys = _keys_module()
-    names: set[str] = set()
-    for layout in keys.layouts():
-        names.update(n.rpartition(".")[2] for n in keys._data()["infos"][layout])
+    names: set[str] = set(_keys_module().all_names())  # the key tables' and components'
     for lay in LAYOUTS:
         for specs in lay.fields.values():
             names.update(s.rpartition(".")[2].lstrip("=") for s in specs)
         names.update(lay.sections)
-    for comps in keys._data()["components"].values():  # torchtune components' parameters
-        for info in comps.values():
-            names.update(info["params"])
     names.update(_OPTIMIZER_PARAMETERS)
     return frozenset(names)
+
+
+@lru_cache(maxsize=1)
+def _settled_in_sections() -> frozenset[str]:
+    """The names a key inside a section of a trainer-style file may have without a word from
+    unknown-key: a trainer key, or a name any known reader takes."""
+    return frozenset(_keys_module()._table("trainer").keys) | _read_somewhere()
 
 
 # Parameters of the torch optimizers that configs hand on as keyword arguments (DeepSpeed's
@@ -126,33 +128,15 @@ def reader_scripts(ctx) -> tuple[str, ...]:
 def repo_keys_of(ctx):
     """The keys the repository's own scripts (and the scripts named as the file's readers)
     declare, looked up once per view whichever rules ask."""
-    from ..knowledge.repo_keys import keys_for
-
     readers = reader_scripts(ctx)
-    return ctx.once(("repo-keys", readers), lambda: keys_for(ctx.file, readers))
+    return ctx.once(("repo-keys", readers), lambda: _repo_keys_module().keys_for(ctx.file, readers))
 
 
-def keyed_paths(ctx) -> list[tuple[tuple, str, str]]:
-    """(path, parent, dotted name) of each key written in the view's document whose path is all
-    key names (no list items), in the document's order; worked out once per view."""
-    return ctx.once("keyed-paths", lambda: _keyed_paths(ctx.doc))
+@cache
+def _repo_keys_module():
+    from ..knowledge import repo_keys
 
-
-def _keyed_paths(doc) -> list[tuple[tuple, str, str]]:
-    out = []
-    append = out.append
-    for path, entry in doc.entries.items():
-        if not path or not entry.keyed:
-            continue
-        last = path[-1]
-        if not isinstance(last, str):
-            continue
-        try:
-            parent = ".".join(path[:-1])  # a list item (an int) on the way: no key name
-        except TypeError:
-            continue
-        append((path, parent, f"{parent}.{last}" if parent else last))
-    return out
+    return repo_keys
 
 
 _KEYS_READ_CACHE: dict[int, tuple] = {}  # id(layout) -> (layout, the keys its fields read)
@@ -258,7 +242,7 @@ class _Judge:
 def _component_keys(ctx, judge: _Judge, section: tuple, mapping: dict) -> None:
     """Sub-keys of a ``_component_`` mapping: the component's parameters, when they are known."""
     target = mapping.get("_component_")
-    comps = judge.keys._data()["components"].get(judge.layout, {})
+    comps = judge.keys._table(judge.layout).components
     info = comps.get(target) if isinstance(target, str) else None
     if info is None or info["open"]:
         return  # a component outside the scanned package, or one that takes any keyword
@@ -285,56 +269,115 @@ def _component_keys(ctx, judge: _Judge, section: tuple, mapping: dict) -> None:
             ctx.report(path, "not-a-parameter", on="key", key=".".join(path), component=target)
 
 
+class _Lazy:
+    """The judge of one view, made when a key first needs one (most files have none)."""
+
+    __slots__ = ("ctx", "layout", "judge")
+
+    def __init__(self, ctx, layout: str):
+        self.ctx, self.layout, self.judge = ctx, layout, None
+
+    def __call__(self) -> _Judge:
+        if self.judge is None:
+            self.judge = _Judge(self.ctx, self.layout)
+        return self.judge
+
+
 @check("unknown-key")
 def unknown_key(ctx) -> None:
     view = ctx.view
-    if view.layout is None:
+    layout = view.layout
+    if layout is None:
         return
     keys = _keys_module()
-    layout = view.layout.key_table  # the key table of the layout's libraries
-    if layout is None or layout not in keys.layouts():
+    table_name = layout.key_table  # the key table of the layout's libraries
+    known = keys.table_of(table_name) if table_name is not None else None
+    if known is None:
         return
-    judge = _Judge(ctx, layout)
-    groups = keys._data()["by_parent"][layout]
-    table = keys._data()["infos"][layout]
-    read = _keys_read(view.layout)
-    sections = view.layout.sections
-    search_sections = view.layout.search_all_sections
-    title = view.layout.title
     doc = ctx.doc
     data = doc.data if isinstance(doc.data, dict) else None
+    sections = layout.sections
     check_current = "key-not-in-release" not in ctx.active
-    for path, parent, name in keyed_paths(ctx):
-        head = path[0]
-        if len(path) == 1:
-            value = data.get(head) if data is not None else None
-            if isinstance(value, dict) and "_component_" in value:
-                _component_keys(ctx, judge, path, value)
-                continue
-        if search_sections and head in sections and data is not None \
-                and isinstance(data.get(head), dict):
-            if len(path) > 1 and not isinstance(doc.get(path), dict):
-                _section_key(ctx, judge, path, sections)
-            continue  # the section itself: the file's own structure, not a key
-        if parent not in groups:
-            continue  # a free-form mapping (optimizer.params, fsdp_config of the trainer, ...)
-        info = table.get(name)
-        if info is None and parent:
-            # a section whose reader drops (or adds) a prefix: axolotl reads fsdp_config's
-            # `fsdp_offload_params` as `offload_params` (0.19.0 utils/schemas/validation.py)
-            for pre in sections.get(path[-2], ()):
-                leaf = path[-1]
-                other = leaf[len(pre):] if leaf.startswith(pre) else pre + leaf
-                info = table.get(f"{parent}.{other}") or info
-        if info is not None:
-            # key-not-in-release judges known keys against the release in use; this note
-            # stays for runs that leave that rule out
-            if check_current and not info.current:
-                ctx.report(path, "not-current", on="key", key=name, versions=info.versions_text())
+    # top-level keys whose keys are judged another way: a section of the file's own script
+    # (training:, lora:), a torchtune `_component_` mapping
+    special: set = set()
+    if data is not None:
+        if layout.search_all_sections and sections:
+            special.update(h for h in sections.keys() & data.keys() if isinstance(data[h], dict))
+        if known.components:
+            special.update(h for h, v in data.items() if isinstance(v, dict) and "_component_" in v)
+    paths, table = known.paths, known.keys
+    judge = _Lazy(ctx, table_name)
+    for path, entry in doc.entries.items():
+        name = paths.get(path)  # a known key, written where its parent has keys
+        if name is not None and (not special or path[0] not in special) \
+                and (not check_current or table[name][2]):
             continue
-        if name in read:
-            continue  # a key cfgcheck reads for this layout (recipe scripts pass it on): not unknown
-        judge.report_unknown(path, name, title)
+        if not path or not entry.keyed:
+            continue
+        last = path[-1]
+        if not isinstance(last, str):
+            continue
+        try:
+            parent = ".".join(path[:-1])  # a list item (an int) on the way: no key name
+        except TypeError:
+            continue
+        _judge_key(ctx, judge, known, path, parent, f"{parent}.{last}" if parent else last,
+                   data, check_current)
+
+
+def _judge_key(ctx, judge: _Lazy, known, path: tuple, parent: str, name: str, data,
+               check_current: bool) -> None:
+    """One written key that is not plainly a known one."""
+    layout = ctx.view.layout
+    sections = layout.sections
+    head = path[0]
+    if len(path) == 1:
+        value = data.get(head) if data is not None else None
+        if isinstance(value, dict) and "_component_" in value:
+            _component_keys(ctx, judge(), path, value)
+            return
+    if layout.search_all_sections and head in sections and data is not None \
+            and isinstance(data.get(head), dict):
+        if len(path) > 1 and not _settled_section_key(layout, path, sections) \
+                and not isinstance(ctx.doc.get(path), dict):
+            _section_key(ctx, judge(), path, sections)
+        return  # the section itself: the file's own structure, not a key
+    if parent not in known.groups:
+        return  # a free-form mapping (optimizer.params, fsdp_config of the trainer, ...)
+    info = known.info(name)
+    if info is None and parent:
+        # a section whose reader drops (or adds) a prefix: axolotl reads fsdp_config's
+        # `fsdp_offload_params` as `offload_params` (0.19.0 utils/schemas/validation.py)
+        for pre in sections.get(path[-2], ()):
+            leaf = path[-1]
+            other = leaf[len(pre):] if leaf.startswith(pre) else pre + leaf
+            info = known.info(f"{parent}.{other}") or info
+    if info is not None:
+        # key-not-in-release judges known keys against the release in use; this note
+        # stays for runs that leave that rule out
+        if check_current and not info.current:
+            ctx.report(path, "not-current", on="key", key=name, versions=info.versions_text())
+        return
+    if name in _keys_read(layout):
+        return  # a key cfgcheck reads for this layout (recipe scripts pass it on): not unknown
+    judge().report_unknown(path, name, layout.title)
+
+
+def _settled_section_key(layout, path: tuple, sections: dict) -> bool:
+    """Whether a key inside a section has nothing to be told, whatever the file's repository:
+    it is a trainer key or a name some reader takes, written with or without the section's
+    prefix, or it sits in another component's keyword arguments (``_section_key`` says the same
+    first)."""
+    leaf = path[-1]
+    settled = _settled_in_sections()
+    if leaf in settled:
+        return True
+    prefixes = sections.get(path[-2], ()) if len(path) >= 2 else ()
+    if any(p + leaf in settled for p in prefixes if not leaf.startswith(p)):
+        return True
+    return any(str(p).lower() in layout.foreign_sections or str(p).lower().endswith(_KEYWORD_MAPPINGS)
+               for p in path[:-1])
 
 
 def _section_key(ctx, judge: _Judge, path: tuple, sections: dict) -> None:

@@ -37,7 +37,7 @@ from pathlib import Path
 
 from .._records import _frozen_delattr, _frozen_setattr, _setattr, guarded_repr
 
-__all__ = ("KeyInfo", "lookup", "suggest", "layouts")
+__all__ = ("KeyInfo", "KeyTable", "lookup", "suggest", "layouts", "table_of")
 
 _GENERATED = "known_keys.json"
 _EXTRA = "extra_keys.json"
@@ -79,17 +79,26 @@ class KeyInfo:
 
     def versions_text(self) -> str:
         """Human-readable acceptance, e.g. ``"transformers 4.36–4.50 (removed in 4.51)"``."""
-        data = _data()
+        table = table_of(self.layout) if isinstance(self.layout, str) else None
+        if table is not None and table._infos.get(self.name) is self:  # the table's own: kept
+            got = table._texts.get(self.name)
+            if got is None:
+                got = table._texts[self.name] = self._versions_text(table)
+            return got
+        return self._versions_text(table)
+
+    def _versions_text(self, table: KeyTable | None) -> str:
         if not self.accepted:
-            extra = data["extra"].get(self.layout, {}).get(self.name)
+            extra = table.extra.get(self.name) if table is not None else None
             source = extra["source"] if extra else "hand-maintained list"
             status = "" if self.current else " (older releases only)"
             return f"declared by no scanned library; {source}{status}"
         parts = []
-        absent = data["absent"].get((self.layout, self.name), {})
+        absent = table.absent.get(self.name, {}) if table is not None else {}
+        scanned_all = _common()["scanned"]
         for lib in _ordered_libraries(self.accepted):
             first, last = self.accepted[lib]
-            scanned = data["scanned"].get(lib, [])
+            scanned = scanned_all.get(lib, [])
             text = f"{lib} {_short(first)}" if first == last else f"{lib} {_short(first)}–{_short(last)}"
             notes = []
             if first in scanned and scanned.index(first) > 0:
@@ -125,105 +134,275 @@ def _read_json(name: str) -> dict:
     return json.loads(resources.files(__package__).joinpath(name).read_text(encoding="utf-8"))
 
 
-@cache
-def _data() -> dict:
-    """Load both files once; returns dict-of-dicts keyed for O(1) lookups (kept ready to use
-    between runs: knowledge.tables)."""
-    from .tables import ready_table
+class KeyTable:
+    """One layout's key list, as the checks use it (``table_of``).
 
+    ``keys``: name -> (owners, accepted, current, fresh), where ACCEPTED maps each scanned library
+    that declares the key to its (first, last) scanned release, CURRENT says whether the newest
+    scanned release of one of them still declares it, and FRESH whether the release a fresh
+    install gets does (the newest scanned one, or for a recipe runner the newest its own
+    requirements allow); FRESH is None for a key no scanned library declares.
+    ``paths``: every key path a file can write a known key as (``("zero_optimization", "stage")``,
+    and ``("zero_optimization.stage",)`` when the top level has keys) -> its dotted name; only
+    paths whose parent has keys of its own, as the checks look them up.
+    ``bounded``: the part of ``paths`` that names a key with release bounds (some scanned
+    library declares it); ``stale``: those of them whose key a fresh install no longer accepts.
+    ``groups``: dotted parent -> the names under it, sorted ("" for the top level).
+    """
+
+    __slots__ = ("layout", "keys", "paths", "bounded", "stale", "groups", "absent", "extra", "components", "requires",
+                 "newest", "source", "closed", "_infos", "_texts", "_lowered", "_by_length")
+
+    def __init__(self, layout: str, part: dict):
+        self.layout = layout
+        self.keys: dict[str, tuple] = part["keys"]
+        self.paths: dict[tuple, str] = part["paths"]
+        self.bounded: dict[tuple, str] = part["bounded"]
+        self.stale: frozenset[tuple] = part["stale"]
+        self.groups: dict[str, list[str]] = part["groups"]
+        self.absent: dict[str, dict[str, list[str]]] = part["absent"]
+        self.extra: dict[str, dict] = part["extra"]
+        self.components: dict[str, dict] = part["components"]
+        self.requires: dict[str, str] = part["requires"]
+        self.newest: dict[str, str] = part["newest"]
+        self.source: str = part["source"]  # the runner release and the files read ("" for none)
+        self.closed: bool = part["closed"]
+        self._infos: dict[str, KeyInfo] = {}
+        self._texts: dict[str, str] = {}  # name -> its KeyInfo's versions_text()
+        self._lowered: dict[str, str] | None = None
+        self._by_length: dict[str, dict[int, list[str]]] | None = None
+
+    def info(self, name: str) -> KeyInfo | None:
+        """The KeyInfo of NAME (made on first use: a lint asks about a few keys of one table)."""
+        got = self._infos.get(name)
+        if got is None:
+            raw = self.keys.get(name)
+            if raw is None:
+                return None
+            got = self._infos[name] = KeyInfo(name, self.layout, raw[0], raw[1], raw[2])
+        return got
+
+    def lowered(self) -> dict[str, str]:
+        """Lower-cased name -> the name (the first in reverse order when two fold together)."""
+        got = self._lowered
+        if got is None:
+            got = self._lowered = {name.lower(): name for name in sorted(self.keys, reverse=True)}
+        return got
+
+    def by_length(self) -> dict[str, dict[int, list[str]]]:
+        """Dotted parent -> length of the last part -> the names (the candidates of ``suggest``)."""
+        got = self._by_length
+        if got is None:
+            got = {}
+            for parent, names in self.groups.items():
+                buckets = got.setdefault(parent, {})
+                for name in names:
+                    buckets.setdefault(len(name.rpartition(".")[2]), []).append(name)
+            self._by_length = got
+        return got
+
+
+def _sources() -> list[Path]:
     here = Path(__file__).resolve()
-    sources = [here] + [here.with_name(n) for n in (_GENERATED, _EXTRA, _RUNNERS)]
-    return ready_table("known_keys", sources, _build)
+    return [here] + [here.with_name(n) for n in (_GENERATED, _EXTRA, _RUNNERS)]
 
 
-def _build() -> dict:
+@cache
+def _common() -> dict:
+    """What every layout shares: the layouts and the scanned releases of each library."""
+    from .tables import ready_part
+
+    return ready_part("known_keys", "common", _sources(), _built_parts)
+
+
+@cache
+def all_names() -> frozenset[str]:
+    """The last part of every key name of every table, and the torchtune components'
+    parameters (loaded only when a key is not plainly known)."""
+    from .tables import ready_part
+
+    return ready_part("known_keys", "names", _sources(), _built_parts)
+
+
+@cache
+def table_of(layout: str) -> KeyTable | None:
+    """LAYOUT's key table, or None when it has none; only that table is loaded (kept ready to
+    use between runs: knowledge.tables)."""
+    from .tables import ready_part
+
+    if layout not in _common()["layouts"]:
+        return None
+    return KeyTable(layout, ready_part("known_keys", _part_name(layout), _sources(), _built_parts))
+
+
+def _part_name(layout: str) -> str:
+    return "layout-" + layout
+
+
+@cache  # a process that has to build one part builds them all, once
+def _built_parts() -> dict:
+    return _build_parts()
+
+
+def _key_paths(name: str, groups) -> list[tuple[str, ...]]:
+    """The ways of writing NAME as a key path whose parent (dotted) is in GROUPS."""
+    parts = name.split(".")
+    out = []
+    for mask in range(1 << (len(parts) - 1)):  # each dot either splits two keys or stays in one
+        path, cur = [], parts[0]
+        for i, part in enumerate(parts[1:]):
+            if mask >> i & 1:
+                path.append(cur)
+                cur = part
+            else:
+                cur = f"{cur}.{part}"
+        path.append(cur)
+        if ".".join(path[:-1]) in groups:
+            out.append(tuple(path))
+    return out
+
+
+def _newest_installed(scanned: dict, requires: dict) -> dict[str, str]:
+    """The release of each library a fresh install gets: the newest scanned one, or for a
+    recipe runner the newest scanned one its own requirements allow (llamafactory 0.9.5 installs
+    transformers <=5.6.0, so a key removed in 5.15 still reaches its parser)."""
+    from .pins import satisfies
+
+    out = {}
+    for lib, versions in scanned.items():
+        allowed = [v for v in versions if lib not in requires or satisfies(v, requires[lib])]
+        if allowed:
+            out[lib] = allowed[-1]
+    return out
+
+
+def _fresh(accepted: dict, newest: dict) -> bool:
+    """Whether a fresh install accepts a key: some library reads it in the release installed
+    (a library none of whose scanned releases the runner allows: no verdict on it)."""
+    from .pins import version_key
+
+    return any(lib not in newest or version_key(first)[:2] <= version_key(newest[lib])[:2]
+               <= version_key(last)[:2] for lib, (first, last) in accepted.items())
+
+
+def _build_parts() -> dict:
+    """The tables from the JSON files, as plain dicts, lists, tuples and strings: "common" and one
+    part per layout (``_part_name``)."""
     generated = _read_json(_GENERATED)
     extra = _read_json(_EXTRA)
-    scanned = {lib: list(v) for lib, v in generated["scanned"].items()}
-    newest = {lib: v[-1] for lib, v in scanned.items() if v}
-    infos: dict[str, dict[str, KeyInfo]] = {}
-    absent: dict[tuple[str, str], dict[str, list[str]]] = {}
-    for layout, keys in generated["layouts"].items():
-        table = infos.setdefault(layout, {})
-        for name, item in keys.items():
-            accepted = {lib: (pair[0], pair[1]) for lib, pair in item["accepted"].items()}
-            current = any(newest.get(lib) == last for lib, (_first, last) in accepted.items())
-            table[name] = KeyInfo(name, layout, tuple(item["owners"]), accepted, current)
-            if item.get("absent"):
-                absent[(layout, name)] = item["absent"]
-    extra_layouts = extra.get("layouts", {})
-    for layout, keys in extra_layouts.items():
-        table = infos.setdefault(layout, {})
-        for name, item in keys.items():
-            if name not in table:  # the generated lists win
-                table[name] = KeyInfo(name, layout, tuple(item["owners"]), {}, bool(item.get("current", True)))
     runners = _read_json(_RUNNERS)["layouts"]
+    shared: dict = {}
+
+    def one(value):  # equal strings and tuples as one object: the kept copy stores each once
+        return shared.setdefault(value, value)
+
+    scanned = {lib: [one(v) for v in vs] for lib, vs in generated["scanned"].items()}
+    newest_scanned = {lib: v[-1] for lib, v in scanned.items() if v}
+    keys: dict[str, dict[str, tuple]] = {}
+    absent: dict[str, dict[str, dict]] = {}
+    for layout, items in generated["layouts"].items():
+        table = keys.setdefault(layout, {})
+        for name, item in items.items():
+            accepted = {one(lib): one((one(pair[0]), one(pair[1]))) for lib, pair in item["accepted"].items()}
+            current = any(newest_scanned.get(lib) == last for lib, (_first, last) in accepted.items())
+            table[name] = (one(tuple(one(o) for o in item["owners"])), accepted, current)
+            if item.get("absent"):
+                absent.setdefault(layout, {})[name] = item["absent"]
+    extra_layouts = extra.get("layouts", {})
+    for layout, items in extra_layouts.items():
+        table = keys.setdefault(layout, {})
+        for name, item in items.items():
+            if name not in table:  # the generated lists win
+                table[name] = (one(tuple(one(o) for o in item["owners"])), {}, bool(item.get("current", True)))
     sources: dict[str, str] = {}
     for layout, entry in runners.items():
-        table = infos.setdefault(layout, {})
+        table = keys.setdefault(layout, {})
         release = entry["source"].split(" (")[0]
         sources[layout] = release + " (" + "; ".join(entry["files"]) + ")"
         for name, owners in entry["keys"].items():
-            table[name] = KeyInfo(name, layout, tuple(owners), {}, True)
+            table[name] = (one(tuple(one(o) for o in owners)), {}, True)
         if entry.get("also") == "transformers":  # argument classes that derive from transformers'
-            for name, info in infos.get("trainer", {}).items():
-                if "transformers" in info.accepted and name not in table:
-                    table[name] = KeyInfo(name, layout, info.owners, dict(info.accepted), info.current)
-    by_parent: dict[str, dict[str, list[str]]] = {}
-    for layout, table in infos.items():
-        groups = by_parent.setdefault(layout, {})
+            for name, (owners, accepted, current) in keys.get("trainer", {}).items():
+                if "transformers" in accepted and name not in table:
+                    table[name] = (owners, dict(accepted), current)
+    parts: dict = {}
+    names: set[str] = set()
+    for layout, table in keys.items():
+        entry = runners.get(layout, {})
+        requires = dict(entry.get("requires", {}))
+        newest = _newest_installed(scanned, requires)
+        groups: dict[str, list[str]] = {}
         for name in table:
-            parent = name.rpartition(".")[0]
-            groups.setdefault(parent, []).append(name)
-        for names in groups.values():
-            names.sort()
-    lowered = {
-        layout: {name.lower(): name for name in sorted(table, reverse=True)} for layout, table in infos.items()
-    }
-    by_length: dict[str, dict[str, dict[int, list[str]]]] = {}
-    for layout, groups in by_parent.items():
-        per = by_length.setdefault(layout, {})
-        for parent, names in groups.items():
-            buckets = per.setdefault(parent, {})
-            for name in names:
-                buckets.setdefault(len(name.rpartition(".")[2]), []).append(name)
+            groups.setdefault(name.rpartition(".")[0], []).append(name)
+            names.add(name.rpartition(".")[2])
+        for members in groups.values():
+            members.sort()
+        paths = {path: name for name in table for path in _key_paths(name, groups)}
+        bounded = {path: name for path, name in paths.items() if table[name][1]}
+        fresh = {name: _fresh(accepted, newest) for name, (_o, accepted, _c) in table.items() if accepted}
+        components = entry.get("components", {})
+        for info in components.values():  # torchtune components' parameters
+            names.update(info["params"])
+        parts[_part_name(layout)] = {
+            "keys": {name: (owners, accepted, current, fresh.get(name))
+                     for name, (owners, accepted, current) in table.items()},
+            "paths": paths,
+            "bounded": bounded,
+            "stale": frozenset(path for path, name in bounded.items() if not fresh[name]),
+            "groups": groups,
+            "absent": absent.get(layout, {}),
+            "extra": extra_layouts.get(layout, {}),
+            "components": components,
+            # the library releases the runner installs with (its wheel's Requires-Dist)
+            "requires": requires,
+            "newest": newest,
+            "source": sources.get(layout, ""),
+            "closed": bool(entry.get("closed")),
+        }
+    parts["common"] = {"layouts": tuple(sorted(keys)), "scanned": scanned}
+    parts["names"] = frozenset(names)
+    return parts
+
+
+@cache
+def _data() -> dict:
+    """Every table at once, keyed as ``{"infos": {layout: {name: KeyInfo}}, "by_parent": ...}``
+    (for tools and tests that walk all of them; a lint loads only the tables it needs:
+    ``table_of``)."""
+    tables = {layout: table_of(layout) for layout in layouts()}
     return {
-        "infos": infos,
-        "by_length": by_length,
-        "runner_sources": sources,
-        "components": {lay: e.get("components", {}) for lay, e in runners.items()},
-        "closed": {lay for lay, e in runners.items() if e.get("closed")},
-        # the library releases each runner installs with (its wheel's Requires-Dist)
-        "requires": {lay: dict(e.get("requires", {})) for lay, e in runners.items()},
-        "absent": absent,
-        "scanned": scanned,
-        "extra": extra_layouts,
-        "by_parent": by_parent,
-        "lowered": lowered,
+        "infos": {lay: {name: t.info(name) for name in t.keys} for lay, t in tables.items()},
+        "by_length": {lay: t.by_length() for lay, t in tables.items()},
+        "runner_sources": {lay: t.source for lay, t in tables.items() if t.source},
+        "components": {lay: t.components for lay, t in tables.items() if t.source},
+        "closed": {lay for lay, t in tables.items() if t.closed},
+        "requires": {lay: t.requires for lay, t in tables.items() if t.source},
+        "absent": {(lay, name): v for lay, t in tables.items() for name, v in t.absent.items()},
+        "scanned": _common()["scanned"],
+        "extra": {lay: t.extra for lay, t in tables.items() if t.extra},
+        "by_parent": {lay: t.groups for lay, t in tables.items()},
+        "lowered": {lay: t.lowered() for lay, t in tables.items()},
     }
 
 
-@cache  # the tables are fixed for the process (``_data``)
 def layouts() -> tuple[str, ...]:
     """The layouts that have key lists, sorted."""
-    return tuple(sorted(_data()["infos"]))
+    return _common()["layouts"]
 
 
-def _table(layout: str) -> dict[str, KeyInfo]:
-    infos = _data()["infos"]
-    if layout not in infos:
-        raise ValueError(f"unknown layout {layout!r}; expected one of: {', '.join(sorted(infos))}")
-    return infos[layout]
+def _table(layout: str) -> KeyTable:
+    table = table_of(layout) if isinstance(layout, str) else None
+    if table is None:
+        raise ValueError(f"unknown layout {layout!r}; expected one of: {', '.join(layouts())}")
+    return table
 
 
 def lookup(key: str, layout: str = "trainer") -> KeyInfo | None:
     """The KeyInfo of KEY exactly as written (no case folding, no trimming), or None."""
-    table = _data()["infos"].get(layout)
-    if table is None:
-        table = _table(layout)  # says which layouts there are
+    table = _table(layout)  # says which layouts there are
     if not isinstance(key, str):  # YAML allows int, bool or null keys; none of them is a known key
         return None
-    return table.get(key)
+    return table.info(key)
 
 
 def _normalise(key: str) -> str:
@@ -271,25 +450,25 @@ def suggest(key: str, layout: str = "trainer") -> str | None:
     similarity and then alphabetically.
     """
     table = _table(layout)
-    if not isinstance(key, str) or key in table:
+    if not isinstance(key, str) or key in table.keys:
         return None
-    data = _data()
     norm = _normalise(key)
     if not norm:
         return None
-    exact = data["lowered"][layout].get(norm)
+    lowered = table.lowered()
+    exact = lowered.get(norm)
     if exact is not None:
         return exact
     parent, _, leaf = norm.rpartition(".")
     # The parent may itself be mistyped or differently cased: resolve it first.
-    groups = data["by_parent"][layout]
+    groups = table.groups
     if parent and parent not in groups:
-        fixed = data["lowered"][layout].get(parent) or suggest(parent, layout)
+        fixed = lowered.get(parent) or suggest(parent, layout)
         if fixed is None or fixed not in groups:
             return None
         parent = fixed
     limit = _allowed_edits(len(leaf))
-    return _nearest(leaf, data["by_length"][layout].get(parent, {}), limit)
+    return _nearest(leaf, table.by_length().get(parent, {}), limit)
 
 
 def _letter_gap(a: str, b: str) -> int:

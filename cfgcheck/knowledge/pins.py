@@ -19,12 +19,14 @@ from __future__ import annotations
 
 import os
 import re
+import stat
 from functools import lru_cache
 from pathlib import Path
 
 from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .. import reads
 from ..findings import OptionError
+from ..memo import remembered
 
 LIBRARIES = ("transformers", "trl", "peft", "deepspeed", "accelerate")
 _MAX_BYTES = 4 * 1024 * 1024
@@ -208,6 +210,18 @@ def _folder_pins(folder: str) -> tuple[tuple[Pin, ...], bool]:
     return tuple(found.values()), root
 
 
+def file_kind(path: str) -> tuple[bool, bool]:
+    """(whether PATH is a file, following a link; whether it is a link), as ``os.path.isfile``
+    and ``os.path.islink`` say, from one look at the disk when PATH is no link."""
+    try:
+        mode = os.lstat(path).st_mode
+    except (OSError, ValueError):
+        return False, False
+    if stat.S_ISLNK(mode):
+        return os.path.isfile(path), True
+    return stat.S_ISREG(mode), False
+
+
 def pins_near(file: str | None, cwd: Path | None = None) -> dict[str, Pin]:
     """The pins that apply to a config file: the nearest folder's pin of each library wins."""
     if not file or file.startswith("<"):
@@ -216,11 +230,10 @@ def pins_near(file: str | None, cwd: Path | None = None) -> dict[str, Pin]:
         # plain strings: this runs for every config, the folder's answer is remembered
         path = file if os.path.isabs(file) else os.path.join(os.fspath(cwd) if cwd else os.getcwd(), file)
         reads.note_kind(path)
-        if not os.path.isfile(path):
+        is_file, is_link = file_kind(path)
+        if not is_file:
             return {}  # text given without a file (lint_text): nothing lies beside it
-        if not os.path.islink(path):  # the folder is looked up once per run (cfgcheck.memo)
-            from ..memo import remembered
-
+        if not is_link:  # the folder is looked up once per run (cfgcheck.memo)
             return dict(remembered("pins_near", os.path.dirname(path), lambda: _pins_of_folder(Path(path))))
         return _pins_of_folder(Path(path))
     except (OSError, RuntimeError, ValueError):

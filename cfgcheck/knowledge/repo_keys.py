@@ -38,6 +38,8 @@ from types import MappingProxyType
 # ``ast`` is imported by the functions that read a script: a plain lint never parses Python
 from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .. import reads
+from ..memo import remembered
+from .pins import file_kind
 
 MAX_FILES = 400
 MAX_BYTES = 512 * 1024
@@ -99,9 +101,11 @@ class RepoKeys:
 def repository_root(config: str | os.PathLike) -> Path | None:
     """The repository that holds CONFIG, or None when no marker is found above it (looked up
     once per folder in a run: ``cfgcheck.memo``)."""
-    from ..memo import remembered
+    return _root_of(config, os.path.islink(config))
 
-    if os.path.islink(config):  # resolved through the link: its own target's folder
+
+def _root_of(config: str | os.PathLike, link: bool) -> Path | None:
+    if link:  # resolved through the link: its own target's folder
         return _repository_root(config)
     folder = os.path.dirname(os.fspath(config))
     return remembered("repository_root", (folder, os.getcwd() if not os.path.isabs(folder) else ""),
@@ -729,9 +733,10 @@ def repo_keys(config: str | os.PathLike) -> RepoKeys | None:
         return None
     try:
         reads.note_kind(text)
-        if not os.path.isfile(text):
+        is_file, is_link = file_kind(text)  # one look at the disk for both questions
+        if not is_file:
             return None
     except (OSError, ValueError):
         return None
-    root = repository_root(text)
+    root = _root_of(text, is_link)
     return _scan(str(root)) if root is not None else None
