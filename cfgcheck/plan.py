@@ -21,6 +21,7 @@ from .knowledge import models as _models
 from .knowledge.models import Architecture, UnsupportedFamily, lora_scale, total_parameters
 from .schedule import Schedule, derive_for, resolve_interval
 from .defaults import ALL_LINEAR_WORDS
+from .run import _offloaded, _section, own_fsdp
 from .view import RunView
 
 DEFAULT_SEQ_LEN = 2048  # assumed when the config sets none (common practice, no source)
@@ -238,12 +239,16 @@ def _words(f) -> str:
     return f.note or f"{f.name} = {f.value}"
 
 
+_TARGETS_AT = MemoryInputs._record_fields.index("lora_targets")
+
+
 def _estimate(inputs: MemoryInputs) -> MemoryBreakdown:
     """estimate_memory, once per run for the same inputs (configs of one recipe share them)."""
     key = inputs
     targets = inputs.lora_targets
     if isinstance(targets, list):  # a written list: the same names (and their type) make the key
-        key = (replaced(inputs, lora_targets=tuple(targets)), list)
+        fields = inputs.__getstate__()  # the fields in order
+        key = (fields[:_TARGETS_AT] + (tuple(targets),) + fields[_TARGETS_AT + 1:], list)
     try:
         hash(key)
     except TypeError:
@@ -288,6 +293,11 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     ref = view.value("model.ref")
     plan = Plan(method=view.method, method_stated=view.method_stated,
                 model_ref=ref if isinstance(ref, str) else None, arch=arch, gpu=gpu)
+    if not describe:
+        problem = _no_estimate(view, arch, ref)
+        if problem is not None:  # nothing to estimate: the schedule and the rest are not needed
+            plan.memory_problem = problem
+            return plan
     if run is not None and describe:
         plan.context = run.context_words()
     sched = derive_for(view, gpus=gpus, rows=rows)
@@ -351,17 +361,22 @@ def _describe_run(view: RunView, plan: Plan, sched: Schedule, seq: int) -> None:
                 plan.cadence[what] = resolve_interval(float(v), total)
 
 
-def _derive_memory(view: RunView, arch: Architecture | None, plan: Plan, run, sched: Schedule, ref) -> Plan:
+def _no_estimate(view: RunView, arch: Architecture | None, ref) -> str | None:
+    """Why there can be no memory estimate before any number is worked out, or None."""
     if arch is None:
-        plan.memory_problem = ("model not known offline" + (f" ({ref!r})" if isinstance(ref, str) else
-                                                           " (no model named)"))
-        return plan
+        return "model not known offline" + (f" ({ref!r})" if isinstance(ref, str) else " (no model named)")
     if view.method not in ("full", "lora", "qlora"):
-        plan.memory_problem = "the training method is not known from this file"
-        return plan
+        return "the training method is not known from this file"
     unmodelled = unmodelled_optimizer(view)
     if unmodelled:
-        plan.memory_problem = f"optimizer not modelled by the estimate ({unmodelled})"
+        return f"optimizer not modelled by the estimate ({unmodelled})"
+    return None
+
+
+def _derive_memory(view: RunView, arch: Architecture | None, plan: Plan, run, sched: Schedule, ref) -> Plan:
+    problem = _no_estimate(view, arch, ref)
+    if problem is not None:
+        plan.memory_problem = problem
         return plan
     try:
         plan.total_parameters = total_parameters(arch)
@@ -463,8 +478,6 @@ def _offload_params(view: RunView) -> bool:
     run = view.run
     if run is not None and (run.launch.offload_params or run.launch.fsdp_offload):
         return True
-    from .run import own_fsdp
-
     if own_fsdp(view)[1]:
         return True
     return _offload_linked(view, "offload_param")
@@ -472,8 +485,6 @@ def _offload_params(view: RunView) -> bool:
 
 def _offload_linked(view: RunView, what: str = "offload_optimizer") -> bool:
     """Whether a linked DeepSpeed file offloads ``what`` (offload_optimizer / offload_param)."""
-    from .run import _offloaded, _section
-
     return any(_offloaded(_section(sub.doc.data, "zero_optimization", what)) for sub in view.attached)
 
 
