@@ -13,7 +13,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
-from ._records import replaced, guarded_repr
+from ._records import guarded_repr
 from .knowledge.hardware import Gpu
 from .memo import remembered
 from .knowledge.memory import MemoryBreakdown, MemoryInputs, changes_that_fit, estimate_memory

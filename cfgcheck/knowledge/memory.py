@@ -32,7 +32,7 @@ import math
 from functools import lru_cache
 from types import MappingProxyType
 
-from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, replaced, guarded_repr
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .models import (
     Architecture,
     NoDefaultTargets,
@@ -1007,6 +1007,7 @@ def changes_that_fit(inp: MemoryInputs, capacity_bytes: int) -> list[tuple[str, 
     when nothing fits.
     """
     singles = _single_changes(inp)
+    fields = dict(zip(MemoryInputs._record_fields, inp.__getstate__()))
     fits: list[tuple[tuple[int, ...], str, MemoryInputs, MemoryBreakdown]] = []
 
     def attempt(idx: tuple[int, ...]):
@@ -1015,7 +1016,7 @@ def changes_that_fit(inp: MemoryInputs, capacity_bytes: int) -> list[tuple[str, 
             if set(singles[i][1]) & set(changes):
                 return None  # two changes of the same setting (e.g. two micro-batch sizes)
             changes.update(singles[i][1])
-        new = replaced(inp, **changes)
+        new = MemoryInputs(**dict(fields, **changes))  # ``replaced``, from the fields read once
         try:
             est = estimate_memory(new)
         except ValueError:
