@@ -242,18 +242,28 @@ def _words(f) -> str:
 _TARGETS_AT = MemoryInputs._record_fields.index("lora_targets")
 
 
+_ESTIMATES: dict = {}  # memo of _estimate (a cache, bounded below)
+
+
 def _estimate(inputs: MemoryInputs) -> MemoryBreakdown:
-    """estimate_memory, once per run for the same inputs (configs of one recipe share them)."""
+    """estimate_memory, once for the same inputs (configs of one recipe share them). A pure
+    function of its inputs (the model's shapes among them), so the answer is kept across runs
+    like the adapter counts of knowledge.models; an estimate that raises is not kept."""
     key = inputs
     targets = inputs.lora_targets
     if isinstance(targets, list):  # a written list: the same names (and their type) make the key
         fields = inputs.__getstate__()  # the fields in order
         key = (fields[:_TARGETS_AT] + (tuple(targets),) + fields[_TARGETS_AT + 1:], list)
     try:
-        hash(key)
-    except TypeError:
+        hit = _ESTIMATES.get(key)
+    except TypeError:  # something unhashable inside: work it out each time
         return estimate_memory(inputs)
-    return remembered("estimate_memory", key, lambda: estimate_memory(inputs))
+    if hit is None:
+        hit = estimate_memory(inputs)
+        if len(_ESTIMATES) >= 4096:
+            _ESTIMATES.clear()
+        _ESTIMATES[key] = hit
+    return hit
 
 
 def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Architecture | None:

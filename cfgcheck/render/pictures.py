@@ -215,8 +215,9 @@ def memory_picture(plan: Plan) -> list[str]:
         return [f"memory per GPU: not drawn: {plan.memory_problem or 'no estimate'}"]
     cap = plan.capacity_bytes
     scale_to = max(m.total_bytes, cap or 0) or 1
+    segments = memory_segments(plan)
     bar = []
-    for _name, size, ch, _c in memory_segments(plan):
+    for _name, size, ch, _c in segments:
         bar.append(ch * max(1, round(size / scale_to * WIDTH)))
     text = "".join(bar)[: WIDTH + 1]
     if cap:
@@ -228,7 +229,7 @@ def memory_picture(plan: Plan) -> list[str]:
                 f"({100 * m.total_bytes / cap:.0f}%, {plan.gpu.label}): {verdict}; | marks the card")
     else:
         head = f"memory per GPU: {m.total_bytes / GB:.1f} GB (no --gpu: not compared with a card)"
-    legend = "  ".join(f"{ch} {name} {size / GB:.1f} GB" for name, size, ch, _c in memory_segments(plan))
+    legend = "  ".join(f"{ch} {name} {size / GB:.1f} GB" for name, size, ch, _c in segments)
     return [head, f"  [{text}]", f"  {legend}"]
 
 
