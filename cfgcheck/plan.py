@@ -242,7 +242,7 @@ def _words(f) -> str:
 _TARGETS_AT = MemoryInputs._record_fields.index("lora_targets")
 
 
-_ESTIMATES: dict = {}  # memo of _estimate (a cache, bounded below)
+_ESTIMATE_CACHE: dict = {}  # memo of _estimate (a cache, bounded below)
 
 
 def _estimate(inputs: MemoryInputs) -> MemoryBreakdown:
@@ -255,14 +255,14 @@ def _estimate(inputs: MemoryInputs) -> MemoryBreakdown:
         fields = inputs.__getstate__()  # the fields in order
         key = (fields[:_TARGETS_AT] + (tuple(targets),) + fields[_TARGETS_AT + 1:], list)
     try:
-        hit = _ESTIMATES.get(key)
+        hit = _ESTIMATE_CACHE.get(key)
     except TypeError:  # something unhashable inside: work it out each time
         return estimate_memory(inputs)
     if hit is None:
         hit = estimate_memory(inputs)
-        if len(_ESTIMATES) >= 4096:
-            _ESTIMATES.clear()
-        _ESTIMATES[key] = hit
+        if len(_ESTIMATE_CACHE) >= 4096:
+            _ESTIMATE_CACHE.clear()
+        _ESTIMATE_CACHE[key] = hit
     return hit
 
 
