@@ -13,17 +13,19 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
-from ._records import replaced, guarded_repr
+from ._records import guarded_repr
 from .knowledge.hardware import Gpu
 from .memo import remembered
 from .knowledge.memory import MemoryBreakdown, MemoryInputs, changes_that_fit, estimate_memory
 from .knowledge import models as _models
 from .knowledge.models import Architecture, UnsupportedFamily, lora_scale, total_parameters
-from .schedule import Schedule, derive_for, resolve_interval
+from .schedule import Schedule, derive_for, per_device_for, resolve_interval
 from .defaults import ALL_LINEAR_WORDS
+from .run import _offloaded, _section, own_fsdp
 from .view import RunView
 
 DEFAULT_SEQ_LEN = 2048  # assumed when the config sets none (common practice, no source)
+_UNREAD = object()  # an argument the caller left out (None is a value)
 
 _DTYPES = MappingProxyType({"bfloat16": "bf16", "bf16": "bf16", "float16": "fp16", "fp16": "fp16", "half": "fp16",
            "float32": "fp32", "fp32": "fp32", "float": "fp32"})
@@ -222,11 +224,10 @@ def _sharding(view: RunView) -> str:
     return "none"
 
 
-def _mixed(view: RunView, storage: str, sharding: str) -> str | None:
-    wants = "bf16" if view.effective_on("precision.bf16") else "fp16" if view.effective_on("precision.fp16") else None
-    mixed = view.effective_value("precision.mixed")
-    if wants is None and isinstance(mixed, str) and mixed.lower() in ("bf16", "fp16"):
-        wants = mixed.lower()
+def _mixed(view: RunView, storage: str, sharding: str, wants: Any = _UNREAD) -> str | None:
+    """``wants``: what _wants_16bit says of the view, when the caller has asked it."""
+    if wants is _UNREAD:
+        wants = _wants_16bit(view)
     if wants is None:
         return None
     if storage == "fp32" or sharding.startswith("zero"):
@@ -238,17 +239,31 @@ def _words(f) -> str:
     return f.note or f"{f.name} = {f.value}"
 
 
+_TARGETS_AT = MemoryInputs._record_fields.index("lora_targets")
+
+
+_ESTIMATE_CACHE: dict = {}  # memo of _estimate (a cache, bounded below)
+
+
 def _estimate(inputs: MemoryInputs) -> MemoryBreakdown:
-    """estimate_memory, once per run for the same inputs (configs of one recipe share them)."""
+    """estimate_memory, once for the same inputs (configs of one recipe share them). A pure
+    function of its inputs (the model's shapes among them), so the answer is kept across runs
+    like the adapter counts of knowledge.models; an estimate that raises is not kept."""
     key = inputs
     targets = inputs.lora_targets
     if isinstance(targets, list):  # a written list: the same names (and their type) make the key
-        key = (replaced(inputs, lora_targets=tuple(targets)), list)
+        fields = inputs.__getstate__()  # the fields in order
+        key = (fields[:_TARGETS_AT] + (tuple(targets),) + fields[_TARGETS_AT + 1:], list)
     try:
-        hash(key)
-    except TypeError:
+        hit = _ESTIMATE_CACHE.get(key)
+    except TypeError:  # something unhashable inside: work it out each time
         return estimate_memory(inputs)
-    return remembered("estimate_memory", key, lambda: estimate_memory(inputs))
+    if hit is None:
+        hit = estimate_memory(inputs)
+        if len(_ESTIMATE_CACHE) >= 4096:
+            _ESTIMATE_CACHE.clear()
+        _ESTIMATE_CACHE[key] = hit
+    return hit
 
 
 def model_of(view: RunView, file: str, cwd: Path | None, declared=()) -> Architecture | None:
@@ -288,12 +303,15 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     ref = view.value("model.ref")
     plan = Plan(method=view.method, method_stated=view.method_stated,
                 model_ref=ref if isinstance(ref, str) else None, arch=arch, gpu=gpu)
-    if run is not None and describe:
-        plan.context = run.context_words()
-    sched = derive_for(view, gpus=gpus, rows=rows)
-    plan.schedule = sched
     if describe:
+        if run is not None:
+            plan.context = run.context_words()
+        sched = derive_for(view, gpus=gpus, rows=rows)
+        plan.schedule = sched
         _describe_defaults(view, plan, sched)
+        n_gpus, per_device = sched.gpus, sched.per_device
+    else:  # of the schedule the estimate reads only the per-device batch and the GPU count
+        n_gpus, per_device = gpus or 1, per_device_for(view)
     seq_f = view.effective("data.seq_len")
     seq = seq_f.value if seq_f is not None else None
     if not isinstance(seq, int) or seq <= 0:
@@ -303,7 +321,7 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     plan.seq_len = seq
     if describe:
         _describe_run(view, plan, sched, seq)
-    return _derive_memory(view, arch, plan, run, sched, ref)
+    return _derive_memory(view, arch, plan, run, n_gpus, per_device, ref)
 
 
 def _describe_defaults(view: RunView, plan: Plan, sched: Schedule) -> None:
@@ -351,21 +369,29 @@ def _describe_run(view: RunView, plan: Plan, sched: Schedule, seq: int) -> None:
                 plan.cadence[what] = resolve_interval(float(v), total)
 
 
-def _derive_memory(view: RunView, arch: Architecture | None, plan: Plan, run, sched: Schedule, ref) -> Plan:
+def no_estimate(view: RunView, arch: Architecture | None, ref: Any = _UNREAD) -> str | None:
+    """Why there can be no memory estimate, known before any number is worked out (the plan's
+    ``memory_problem`` then), or None. ``ref``: the view's model.ref when the caller has read it."""
     if arch is None:
-        plan.memory_problem = ("model not known offline" + (f" ({ref!r})" if isinstance(ref, str) else
-                                                           " (no model named)"))
-        return plan
+        if ref is _UNREAD:
+            ref = view.value("model.ref")
+        return "model not known offline" + (f" ({ref!r})" if isinstance(ref, str) else " (no model named)")
     if view.method not in ("full", "lora", "qlora"):
-        plan.memory_problem = "the training method is not known from this file"
-        return plan
+        return "the training method is not known from this file"
     unmodelled = unmodelled_optimizer(view)
     if unmodelled:
-        plan.memory_problem = f"optimizer not modelled by the estimate ({unmodelled})"
+        return f"optimizer not modelled by the estimate ({unmodelled})"
+    return None
+
+
+def _derive_memory(view: RunView, arch: Architecture | None, plan: Plan, run, gpus: int, per_device, ref) -> Plan:
+    problem = no_estimate(view, arch, ref)
+    if problem is not None:
+        plan.memory_problem = problem
         return plan
     try:
         plan.total_parameters = total_parameters(arch)
-        inputs = memory_inputs(view, arch, plan, gpus=sched.gpus)
+        inputs = memory_inputs(view, arch, plan, gpus=gpus, per_device=per_device)
         if inputs.sharding != "none" and (run is None or run.gpus is None):
             plan.gpus_assumed = True
             plan.assumptions.append(f"1 GPU because nothing names the GPU count, so {inputs.sharding} "
@@ -394,6 +420,8 @@ _UNMODELLED_SWITCHES = ("use_galore", "use_apollo", "use_badam", "use_adam_mini"
 
 def unmodelled_optimizer(view: RunView) -> str | None:
     data = view.doc.data if isinstance(view.doc.data, dict) else {}
+    if data.keys().isdisjoint(_UNMODELLED_SWITCHES):
+        return None
     for key in _UNMODELLED_SWITCHES:
         if data.get(key) is True:
             return f"{key}: true"
@@ -425,23 +453,29 @@ def _targets(view: RunView):
     return targets
 
 
-def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int) -> MemoryInputs:
+def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int,
+                  per_device: Any = None) -> MemoryInputs:
+    """What the estimate needs of a view. ``per_device``: the per-device batch as the schedule
+    reads it (None: the plan's schedule says it)."""
     method = view.method
     storage = _storage(view, arch, method, plan)
     run = view.run
     sharding = run.sharding if run is not None else _sharding(view)
     targets = _targets(view)
     save = view.value("adapter.save_modules")
-    pd = plan.schedule.per_device if plan.schedule and plan.schedule.per_device else 1
+    if per_device is None and plan.schedule:
+        per_device = plan.schedule.per_device
+    pd = per_device if per_device else 1
     attention = view.value("model.attention")
     offload = bool(run is not None and run.offload_optimizer) or _offload_linked(view)
+    wants = _wants_16bit(view)
     return MemoryInputs(
         arch=arch,
         method=method,
         base_storage=storage,
         double_quant=view.effective_on("quant.double"),
         optimizer=str(view.value("optim.name") or "adamw_torch"),
-        mixed_precision=_mixed(view, storage, sharding),
+        mixed_precision=_mixed(view, storage, sharding, wants),
         micro_batch=int(pd),
         seq_len=int(plan.seq_len or DEFAULT_SEQ_LEN),
         gradient_checkpointing=view.effective_on("runtime.gradient_checkpointing"),
@@ -453,7 +487,7 @@ def memory_inputs(view: RunView, arch: Architecture, plan: Plan, *, gpus: int) -
         sharding=sharding,
         offload_optimizer=offload,
         # the forward runs under torch.autocast when the trainer's 16-bit flag is on (outside DeepSpeed)
-        autocast=_wants_16bit(view) is not None,
+        autocast=wants is not None,
         storage_note=plan.load_note,
     )
 
@@ -463,8 +497,6 @@ def _offload_params(view: RunView) -> bool:
     run = view.run
     if run is not None and (run.launch.offload_params or run.launch.fsdp_offload):
         return True
-    from .run import own_fsdp
-
     if own_fsdp(view)[1]:
         return True
     return _offload_linked(view, "offload_param")
@@ -472,8 +504,6 @@ def _offload_params(view: RunView) -> bool:
 
 def _offload_linked(view: RunView, what: str = "offload_optimizer") -> bool:
     """Whether a linked DeepSpeed file offloads ``what`` (offload_optimizer / offload_param)."""
-    from .run import _offloaded, _section
-
     return any(_offloaded(_section(sub.doc.data, "zero_optimization", what)) for sub in view.attached)
 
 

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 from types import MappingProxyType
+from typing import Any
 
 from ._records import guarded_repr
 
@@ -135,6 +136,17 @@ def derive_for(view, *, gpus: int | None, rows: int | None) -> Schedule:
         sched.rows = rows
         sched.generations = _generations(view)
     return sched
+
+
+def per_device_for(view) -> Any:
+    """The per-device batch of a typed view as ``derive_for`` reads it (written or supplied, else
+    the trainer default where the layout's file goes to TrainingArguments), without the rest of
+    the schedule."""
+    effective = getattr(view, "effective_value", view.value)
+    pd = effective("batch.per_device")
+    if pd is None and view.layout is not None and view.layout.trainer_defaults:
+        pd = TRAINER_DEFAULTS["batch.per_device"]
+    return pd
 
 
 def max_rows(view) -> int | None:

@@ -836,3 +836,15 @@ def test_a_checkpoint_folder_of_another_machine_is_matched_by_its_name(tmp_path)
     # an existing local folder without a config is still not looked up by name
     (tmp_path / "Qwen3-8B").mkdir()
     assert resolve_model(str(tmp_path / "Qwen3-8B"), cwd=tmp_path, hub_cache=tmp_path / "empty") is None
+
+
+def test_an_architecture_keeps_its_hash_out_of_its_pickle():
+    # the hash is worked out once and kept on the record; str hashes differ between processes,
+    # so a pickled copy must work it out again rather than carry this process's number
+    import pickle
+
+    arch = Architecture("llama", 4096, 11008, 32, 32, 32, 128, 32000, 4096, False, "float16")
+    first = hash(arch)
+    copy = pickle.loads(pickle.dumps(arch))
+    assert "_hash" not in copy.__dict__ and copy == arch and hash(copy) == first == hash(arch)
+    assert {arch: 1}[copy] == 1

@@ -150,3 +150,24 @@ def test_configs_of_one_run_sharing_a_schedule_compute_its_curve_once_and_draw_t
         assert len(calls) == 3
     schedule_series(plan)  # outside a run nothing is remembered
     assert len(calls) == 4
+
+
+def test_a_curve_drawn_once_per_run_gives_each_plan_its_own_marks(tmp_path):
+    # two configs with the same schedule share one drawn curve inside a run (cfgcheck.memo); their
+    # cadence rows stay their own, and each picture is the one drawn without sharing
+    from cfgcheck.memo import scope
+
+    one = tmp_path / "a"
+    two = tmp_path / "b"
+    one.mkdir()
+    two.mkdir()
+    (one / "run.yaml").write_text(LORA.format(sched="cosine", warmup="warmup_steps: 125"))
+    (two / "run.yaml").write_text(LORA.format(sched="cosine", warmup="warmup_steps: 125")
+                                  .replace("eval_steps: 100", "eval_steps: 400"))
+    plans = [p for _f, p in api.derive([one / "run.yaml", two / "run.yaml"], project=None, rows=20000).runs]
+    alone = [schedule_picture(p) for p in plans]
+    with scope():
+        shared = [schedule_picture(p) for p in plans]
+    assert shared == alone
+    assert alone[0][:9] == alone[1][:9]  # heading and the eight rows of the plot
+    assert alone[0] != alone[1]  # the eval row: every 100 steps, every 400 steps

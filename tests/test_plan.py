@@ -201,3 +201,19 @@ def test_the_estimate_alone_is_the_estimate_of_the_described_plan(tmp_path):
         assert bare.memory_inputs == described.memory_inputs
         assert bare.context == "" and bare.learning_rate is None and bare.strategies == {}
     assert described.context and described.learning_rate == 2.0e-5
+
+
+@pytest.mark.parametrize("extra, words", [
+    ("model_name_or_path: acme/mystery\nlearning_rate: 2.0e-5\n", "not known offline ('acme/mystery')"),
+    (FULL_7B + "use_galore: true\n", "optimizer not modelled by the estimate (use_galore: true)"),
+])
+def test_the_rule_says_why_there_is_no_estimate_as_the_plan_does(tmp_path, extra, words):
+    # the rule says it before working out any number; derive's plan says it after the schedule:
+    # the same reason in the same words
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(extra)
+    ((_, plan),) = api.derive([cfg], project=None, gpu="a10").runs
+    assert plan.memory is None and words in plan.memory_problem
+    rep = api.lint([cfg], project=None, gpu="a10")
+    (f,) = [f for f in rep.findings if f.rule == "memory-exceeds-gpu"]
+    assert f.severity == Severity.INFO and f.data["reason"] == plan.memory_problem

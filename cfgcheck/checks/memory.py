@@ -8,7 +8,7 @@ nothing names) is at most a warning, and the message names the assumption."""
 
 from __future__ import annotations
 
-from ..plan import derive_plan, fitting_changes
+from ..plan import derive_plan, fitting_changes, no_estimate
 from . import check
 
 GB = 1e9
@@ -26,6 +26,10 @@ def memory_exceeds_gpu(ctx) -> None:
     gpus, _ = ctx.num_gpus
     # the estimate first; the words that describe the run only for a finding (below)
     arch = ctx.model()
+    problem = no_estimate(view, arch)
+    if problem is not None:  # said before any number is worked out
+        ctx.cannot_judge(problem)
+        return
     plan = derive_plan(view, arch, gpu=ctx.gpu, gpus=gpus, rows=ctx.options.rows, describe=False)
     if plan.memory is None:
         ctx.cannot_judge(plan.memory_problem or "no estimate")

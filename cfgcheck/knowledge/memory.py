@@ -32,7 +32,7 @@ import math
 from functools import lru_cache
 from types import MappingProxyType
 
-from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, replaced, guarded_repr
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .models import (
     Architecture,
     NoDefaultTargets,
@@ -327,7 +327,12 @@ _CLASS_NAMES = MappingProxyType({
 
 def normalise_optimizer(optimizer: str | None) -> str:
     """A transformers `optim` name for ``optimizer`` (also accepting a dotted class path)."""
-    name = str(optimizer or "adamw_torch").strip()
+    return _normalised(str(optimizer or "adamw_torch"))
+
+
+@lru_cache(maxsize=256)  # a few names recur across a corpus
+def _normalised(written: str) -> str:
+    name = written.strip()
     if "." in name or any(c.isupper() for c in name):
         leaf = name.rsplit(".", 1)[-1].lower().replace("_", "")
         return _CLASS_NAMES.get(leaf, leaf)
@@ -370,6 +375,17 @@ def optimizer_state_bytes_per_param(optimizer: str, *, state_bytes: int = 4, sgd
 # ---------------------------------------------------------------------------------------------
 # Activations (own derivation, checked against torch's saved tensors in tests/reference)
 # ---------------------------------------------------------------------------------------------
+
+
+# the projections that read the same input (q/k/v, gate/up): their adapters can share one copy
+_INPUT_GROUPS = MappingProxyType({"q_proj": "attn_in", "k_proj": "attn_in", "v_proj": "attn_in", "qkv_proj": "attn_in",
+                                  "gate_proj": "mlp_in", "up_proj": "mlp_in", "gate_up_proj": "mlp_in"})
+
+
+@lru_cache(maxsize=64)  # the shapes alone decide it: once per architecture
+def _input_widths(arch: Architecture) -> MappingProxyType:
+    """Per decoder layer: leaf module name -> in_features of each nn.Linear (or Conv1D)."""
+    return MappingProxyType({leaf: fin for leaf, (fin, _fout) in linear_modules(arch).items()})
 
 
 def layer_activation_bytes(
@@ -440,7 +456,7 @@ def layer_activation_bytes(
     # adapted layers: their own input copy in the adapter dtype plus the rank-wide lora_A output
     adapters = 0
     if frozen:
-        widths = {leaf: fin for leaf, (fin, _fout) in linear_modules(arch).items()}
+        widths = _input_widths(arch)
         shared = adapter_shared_input  # PEFT's cast to the fp32 adapter dtype is a no-op
         groups_seen: set[str] = set()
         for leaf in sorted(lora_leaves):
@@ -448,8 +464,7 @@ def layer_activation_bytes(
                 continue
             adapters += adapter_act_bytes * sb * lora_rank
             if shared:
-                group = {"q_proj": "attn_in", "k_proj": "attn_in", "v_proj": "attn_in", "qkv_proj": "attn_in",
-                         "gate_proj": "mlp_in", "up_proj": "mlp_in", "gate_up_proj": "mlp_in"}.get(leaf, leaf)
+                group = _INPUT_GROUPS.get(leaf, leaf)
                 if group in groups_seen:
                     continue
                 groups_seen.add(group)
@@ -992,6 +1007,7 @@ def changes_that_fit(inp: MemoryInputs, capacity_bytes: int) -> list[tuple[str, 
     when nothing fits.
     """
     singles = _single_changes(inp)
+    fields = dict(zip(MemoryInputs._record_fields, inp.__getstate__()))
     fits: list[tuple[tuple[int, ...], str, MemoryInputs, MemoryBreakdown]] = []
 
     def attempt(idx: tuple[int, ...]):
@@ -1000,7 +1016,7 @@ def changes_that_fit(inp: MemoryInputs, capacity_bytes: int) -> list[tuple[str, 
             if set(singles[i][1]) & set(changes):
                 return None  # two changes of the same setting (e.g. two micro-batch sizes)
             changes.update(singles[i][1])
-        new = replaced(inp, **changes)
+        new = MemoryInputs(**dict(fields, **changes))  # ``replaced``, from the fields read once
         try:
             est = estimate_memory(new)
         except ValueError:

@@ -154,7 +154,18 @@ class Architecture:
         return NotImplemented
 
     def __hash__(self):
-        return hash((self.family, self.hidden_size, self.intermediate_size, self.num_layers, self.num_heads, self.num_kv_heads, self.head_dim, self.vocab_size, self.max_position_embeddings, self.tie_word_embeddings, self.torch_dtype, self.num_experts, self.experts_per_token, self.source, self.attention_bias, self.mlp_bias, self.sliding_window, self.expert_intermediate_size, self.shared_expert_intermediate_size, self.first_dense_layers, self.kv_lora_rank, self.q_lora_rank, self.qk_rope_head_dim, self.v_head_dim, self.parallel_norms))
+        # worked out once: the estimate and the adapter counts key their memos by the shapes many
+        # times per config; the hash is not part of the record (never pickled, see __getstate__)
+        got = self.__dict__.get("_hash")
+        if got is None:
+            got = hash((self.family, self.hidden_size, self.intermediate_size, self.num_layers, self.num_heads, self.num_kv_heads, self.head_dim, self.vocab_size, self.max_position_embeddings, self.tie_word_embeddings, self.torch_dtype, self.num_experts, self.experts_per_token, self.source, self.attention_bias, self.mlp_bias, self.sliding_window, self.expert_intermediate_size, self.shared_expert_intermediate_size, self.first_dense_layers, self.kv_lora_rank, self.q_lora_rank, self.qk_rope_head_dim, self.v_head_dim, self.parallel_norms))
+            _setattr(self, "_hash", got)
+        return got
+
+    def __getstate__(self):
+        state = dict(self.__dict__)
+        state.pop("_hash", None)  # str hashes differ between processes
+        return state
 
     __setattr__ = _frozen_setattr
     __delattr__ = _frozen_delattr
@@ -1596,21 +1607,25 @@ def lora_trainable_parameters(
     use_dora: bool = False,
     bias: str = "none",
 ) -> int:
-    """:func:`_lora_trainable_parameters`, once per run for the same model and adapter
-    (``cfgcheck.memo``): configs of one recipe share them."""
-    from ..memo import remembered
-
-    def count() -> int:
-        return _lora_trainable_parameters(arch, rank=rank, targets=targets, modules_to_save=modules_to_save,
-                                          use_dora=use_dora, bias=bias)
-
+    """:func:`_lora_trainable_parameters`, once for the same model and adapter (a pure count of
+    the shapes: configs of one recipe share them)."""
     key = (arch, type(rank), rank, type(targets), _hashable(targets), type(modules_to_save), _hashable(modules_to_save),
            type(use_dora), use_dora, bias)
     try:
-        hash(key)
-    except TypeError:
-        return count()
-    return remembered("lora_trainable_parameters", key, count)
+        hit = _TRAINABLE_CACHE.get(key)
+    except TypeError:  # something unhashable inside: work it out each time
+        hit = key = None
+    if hit is None:
+        hit = _lora_trainable_parameters(arch, rank=rank, targets=targets, modules_to_save=modules_to_save,
+                                         use_dora=use_dora, bias=bias)
+        if key is not None:
+            if len(_TRAINABLE_CACHE) >= 4096:
+                _TRAINABLE_CACHE.clear()
+            _TRAINABLE_CACHE[key] = hit
+    return hit
+
+
+_TRAINABLE_CACHE: dict = {}  # memo of lora_trainable_parameters (a cache, bounded above)
 
 
 def _lora_trainable_parameters(

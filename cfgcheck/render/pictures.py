@@ -68,10 +68,13 @@ def _events(plan: Plan, what: str, total: int) -> tuple[list[int], str]:
     return steps, f"every {every:,} steps"
 
 
-def _curve(kind: str, total: int, warmup: int, base_lr: float | None, kwargs: dict) -> Curve:
+def _curve(kind: str, total: int, warmup: int, base_lr: float | None, kwargs: dict,
+           copy: bool = True) -> tuple[Curve, str | None]:
     """``lrcurve.curve`` sampled for a picture, worked out once per run for the same arguments
-    (cfgcheck.memo: the configs of one recipe share their schedule); each caller gets its own
-    copy. The arguments are told apart by their ``repr`` (1, 1.0 and True, 0.0 and -0.0 differ)."""
+    (cfgcheck.memo: the configs of one recipe share their schedule), and the key it is shared
+    under (None: not shared). Each caller gets its own copy unless ``copy`` is False (a caller
+    that only reads it). The arguments are told apart by their ``repr`` (1, 1.0 and True, 0.0 and
+    -0.0 differ)."""
     from ..memo import remembered
 
     def compute() -> Curve:
@@ -81,31 +84,39 @@ def _curve(kind: str, total: int, warmup: int, base_lr: float | None, kwargs: di
     try:
         key = repr((kind, total, warmup, base_lr, kwargs))
     except Exception:  # noqa: BLE001 - a value that cannot say what it is: no sharing
-        return compute()
+        return compute(), None
     c = remembered("lr_curve", key, compute)
-    return replace(c, steps=list(c.steps), values=list(c.values), notes=list(c.notes))
+    if not copy:
+        return c, key
+    return replace(c, steps=list(c.steps), values=list(c.values), notes=list(c.notes)), key
 
 
 def schedule_series(plan: Plan) -> tuple[Series | None, str | None]:
     """The curve of a plan, or why it cannot be drawn."""
+    series, why, _key = _series(plan)
+    return series, why
+
+
+def _series(plan: Plan, copy: bool = True) -> tuple[Series | None, str | None, str | None]:
+    """schedule_series, and the key its curve is shared under in this run (None: not shared)."""
     total = plan.schedule.total_steps if plan.schedule else None
     if not total:
-        return None, "the number of optimizer steps is unknown (pass --rows, or set max_steps)"
+        return None, "the number of optimizer steps is unknown (pass --rows, or set max_steps)", None
     written = plan.scheduler
     kind = schedule_kind(written) if written else "linear"
     if kind is None:
-        return None, f"the schedule {written!r} is not one cfgcheck can draw"
+        return None, f"the schedule {written!r} is not one cfgcheck can draw", None
     note = f"{kind} (written)" if written else "linear (not written: the transformers default, assumed)"
     try:
-        c = _curve(kind, total, plan.warmup_steps or 0, plan.learning_rate, plan.scheduler_kwargs)
+        c, key = _curve(kind, total, plan.warmup_steps or 0, plan.learning_rate, plan.scheduler_kwargs, copy)
     except (ValueError, TypeError, ZeroDivisionError, OverflowError) as exc:
-        return None, f"the {kind} schedule cannot be built from this config: {exc}"
+        return None, f"the {kind} schedule cannot be built from this config: {exc}", None
     s = Series(curve=c, scheduler_note=note)
     for what, label in (("eval", "eval"), ("save", "save"), ("logging", "log")):
         steps, words = _events(plan, what, total)
         s.marks[label] = steps
         s.every[label] = words
-    return s, None
+    return s, None, key
 
 
 def _column_of(step: int, total: int) -> int:
@@ -138,16 +149,13 @@ def _column_peaks(steps: list[int], values: list[float], total: int) -> list[flo
     return cols
 
 
-def schedule_picture(plan: Plan) -> list[str]:
-    series, why = schedule_series(plan)
-    if series is None:
-        return [f"learning rate: not drawn: {why}"]
-    c = series.curve
+def _plot(c: Curve, scheduler_note: str) -> tuple[list[str], int]:
+    """The heading and the rows of the learning-rate plot, and the width of its labels."""
     total = c.total_steps
     cols = _column_peaks(c.steps, c.values, total)
     top = max(cols) or 1.0
     peak = c.base_lr * top if c.base_lr is not None else None
-    head = (f"learning rate over {total:,} optimizer steps: {series.scheduler_note}"
+    head = (f"learning rate over {total:,} optimizer steps: {scheduler_note}"
             + (f", {c.warmup_steps:,} warm-up steps" if c.warmup_steps else "")
             + (f", peak {_lr_text(peak)}" if peak is not None else " (multiplier of the base rate)"))
     lines = [head]
@@ -158,6 +166,23 @@ def schedule_picture(plan: Plan) -> list[str]:
         cells = [_EIGHTHS[max(0, min(8, h - floor))] for h in heights]
         label = _lr_text(peak) if row == HEIGHT - 1 else ("0" if row == 0 else "")
         lines.append(f"{label:>{label_w}} |{''.join(cells)}")
+    return lines, label_w
+
+
+def schedule_picture(plan: Plan) -> list[str]:
+    series, why, key = _series(plan, copy=False)  # read, never changed here
+    if series is None:
+        return [f"learning rate: not drawn: {why}"]
+    c = series.curve
+    total = c.total_steps
+    if key is None:
+        plot, label_w = _plot(c, series.scheduler_note)
+    else:  # the same curve in the same words: drawn once per run (cfgcheck.memo)
+        from ..memo import remembered
+
+        plot, label_w = remembered("lr_plot", (key, series.scheduler_note),
+                                   lambda: _plot(c, series.scheduler_note))
+    lines = list(plot)
     if c.ignored_warmup:
         span = _column_of(c.ignored_warmup, total) + 1
         lines.append(f"{'':>{label_w}} |{'~' * span}  <- {c.ignored_warmup:,} warm-up steps written, ignored")
@@ -190,8 +215,9 @@ def memory_picture(plan: Plan) -> list[str]:
         return [f"memory per GPU: not drawn: {plan.memory_problem or 'no estimate'}"]
     cap = plan.capacity_bytes
     scale_to = max(m.total_bytes, cap or 0) or 1
+    segments = memory_segments(plan)
     bar = []
-    for _name, size, ch, _c in memory_segments(plan):
+    for _name, size, ch, _c in segments:
         bar.append(ch * max(1, round(size / scale_to * WIDTH)))
     text = "".join(bar)[: WIDTH + 1]
     if cap:
@@ -203,7 +229,7 @@ def memory_picture(plan: Plan) -> list[str]:
                 f"({100 * m.total_bytes / cap:.0f}%, {plan.gpu.label}): {verdict}; | marks the card")
     else:
         head = f"memory per GPU: {m.total_bytes / GB:.1f} GB (no --gpu: not compared with a card)"
-    legend = "  ".join(f"{ch} {name} {size / GB:.1f} GB" for name, size, ch, _c in memory_segments(plan))
+    legend = "  ".join(f"{ch} {name} {size / GB:.1f} GB" for name, size, ch, _c in segments)
     return [head, f"  [{text}]", f"  {legend}"]
 
 
