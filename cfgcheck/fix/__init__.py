@@ -32,6 +32,7 @@ from typing import Iterable
 from .. import engine
 from .. import links
 from .. import memo
+from ..catalogue import load_catalogue
 from .. import load as loadmod
 from ..engine import Options
 from ..findings import InputProblem, InternalError
@@ -239,13 +240,12 @@ _FLAG = re.compile(r"--(gpus|gpu|rows)\b")
 def _needed_flags(report, options: Options) -> tuple[tuple[str, str], ...]:
     """(rule, flag) for each rule that proposes fixes but could not judge this file without a
     flag its "not checked" note names."""
-    from ..catalogue import load_catalogue
-
+    unjudged = [f for f in report.findings if f.data.get("judged") is False]
+    if not unjudged:
+        return ()
     catalogue = load_catalogue()
     out = []
-    for f in report.findings:
-        if f.data.get("judged") is not False:
-            continue
+    for f in unjudged:
         rule = catalogue.get(f.rule)
         if rule is None or not rule.fix:
             continue
