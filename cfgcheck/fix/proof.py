@@ -60,7 +60,7 @@ _COMMENT_START = re.compile("(?:^|(?<=[ \t\r\n\ufeff]))#")
 # what could put such a "#" inside a token: a quote, a block scalar's indicator, a directive line
 _MAY_HOLD_HASH = re.compile("[\"'|>]|^%", re.M)
 # line breaks YAML knows besides "\n" and "\r\n" (a comment ends at them), and a mid-text BOM
-_ODD_BREAK = re.compile("[\x85\u2028\u2029]|\r(?!\n)")
+_ODD_BREAK = re.compile("[\x85\u2028\u2029]|\r(?!\n)|(?<=[\\s\\S])\ufeff")
 
 
 def _parsed_comments(text: str) -> list[str]:
@@ -90,10 +90,12 @@ def _parsed_comments(text: str) -> list[str]:
         rest.append(text[pos:i])
         pos = stop
     rest.append(text[pos:])
-    if (_MAY_HOLD_HASH.search("".join(rest)) or _ODD_BREAK.search(text)
-            or "\ufeff" in text[1:]):
+    if _MAY_HOLD_HASH.search("".join(rest)) or _ODD_BREAK.search(text):
         return yaml_comments(text)
     return out
+
+
+_PLAIN = frozenset({str, int, bool, type(None)})
 
 
 def _diff_paths(a: Any, b: Any, path: tuple = ()) -> list[tuple]:
@@ -101,11 +103,17 @@ def _diff_paths(a: Any, b: Any, path: tuple = ()) -> list[tuple]:
         return [path]
     if isinstance(a, dict):
         out = []
-        for k in list(a) + [k for k in b if k not in a]:
-            if k not in a or k not in b:
+        for k, x in a.items():
+            if k not in b:
                 out.append(path + (k,))
+                continue
+            y = b[k]
+            if type(x) in _PLAIN and type(x) is type(y):  # a str, int, bool or None: compared here
+                if x != y:
+                    out.append(path + (k,))
             else:
-                out.extend(_diff_paths(a[k], b[k], path + (k,)))
+                out.extend(_diff_paths(x, y, path + (k,)))
+        out.extend(path + (k,) for k in b if k not in a)
         return out
     if isinstance(a, list):
         if len(a) != len(b):
