@@ -205,12 +205,12 @@ def _lint_before(text: str, name: str, options: Options, fmt: str, linked: dict,
         return _lint_parsed(docs, text, name, options)  # the same documents, by every rule
 
 
-_FIXING: dict[int, tuple[Options, Options | None]] = {}  # id(options) -> (options, its fixing options)
+_FIXING_CACHE: dict[int, tuple[Options, Options | None]] = {}  # id(options) -> (options, its fixing options)
 
 
 def _fixing_options(options: Options) -> Options | None:
     """``options`` narrowed to the rules that propose fixes, or None when they are all that run."""
-    got = _FIXING.get(id(options))
+    got = _FIXING_CACHE.get(id(options))
     if got is not None and got[0] is options:
         return got[1]
     from .._records import replaced
@@ -218,9 +218,9 @@ def _fixing_options(options: Options) -> Options | None:
     running = [rule.id for rule, _fn in engine.active_rules(options)]
     fixing = frozenset(r for r in running if _declares_fix(r))
     narrowed = None if len(fixing) == len(running) else replaced(options, only=fixing)
-    if len(_FIXING) >= 256:  # a long-lived process (the editor server) keeps only the recent ones
-        _FIXING.clear()
-    _FIXING[id(options)] = (options, narrowed)
+    if len(_FIXING_CACHE) >= 256:  # a long-lived process (the editor server) keeps only the recent ones
+        _FIXING_CACHE.clear()
+    _FIXING_CACHE[id(options)] = (options, narrowed)
     return narrowed
 
 
