@@ -122,6 +122,68 @@ def test_comments_are_read_outside_scalars_only():
     assert fix.yaml_comments(text) == ["# one", "# two", "#three"]
 
 
+# texts where a "#" after a blank is, or is not, a comment; every one parses as YAML
+_HASH_TEXTS = [
+    "a: 1  # one\nb: x#y  # two\n",
+    "# top\na: 'x # not'  # one\n",
+    'a: "x # not" # one\nb: "multi\n  line # still not"\n# two\n',
+    "a: |\n  # not\n  text # not\nb: 2 # yes\n",
+    "a: >- # header comment\n  folded # not\n",
+    "%YAML 1.1 # directive comment\n---\na: 1 # yes\n",
+    "a: [1, 2] # yes\nb: {c: d} # yes\n",
+    "a: &anchor # yes\n  value\nb: *anchor # yes\n",
+    "a: !!str 5 # yes\n",
+    "a: plain\n  # yes, the scalar ends here\n",
+    "\ufeff# after a BOM\na: 1\n",
+    "a: 1\r\n# crlf\r\nb: 2 # also\r\n",
+    "a: 1\t# after a tab\n",
+    "a: it's # yes\n",
+    "a: 5%  # yes\n",
+    "a: x>y # yes\n",
+    "a: 1 # q'uote inside a comment\nb: 2 # \"another\"\n",
+    "#\n#\n##\n",
+    "a: 1\n",
+]
+
+
+@pytest.mark.parametrize("text", _HASH_TEXTS)
+def test_comments_of_a_parsed_text_are_those_a_scan_finds(text):
+    from cfgcheck import load
+
+    load.load_text(text, "run.yaml", "yaml")  # the proof reads only texts that parse
+    assert fix_proof._parsed_comments(text) == fix.yaml_comments(text)
+
+
+def test_comments_of_every_fixture_are_those_a_scan_finds():
+    from cfgcheck import load
+
+    seen = 0
+    for path in sorted((ROOT / "fixtures").rglob("*.y*ml")):
+        try:
+            text = path.read_text(encoding="utf-8")
+            load.load_text(text, str(path), "yaml")
+        except (UnicodeDecodeError, load.LoadError):
+            continue  # the fixtures of bad input
+        seen += 1
+        assert fix_proof._parsed_comments(text) == fix.yaml_comments(text), path
+    assert seen > 20
+
+
+def test_the_lines_check_names_the_first_changed_line_past_several_edits():
+    old = "a: 1\nb: 2\nc: 3\nd: 4\ne: 5\n"
+    edits = [fix_edits._TextEdit(start=3, end=4, text="10", rule="r"),
+             fix_edits._TextEdit(start=15, end=16, text="", rule="r")]
+    assert fix_proof._outside_lines_identical(old, "a: 10\nb: 2\nc: 3\nd: \ne: 5\n", edits) is None
+    why = fix_proof._outside_lines_identical(old, "a: 10\nb: 2\nc: 9\nd: \ne: 6\n", edits)
+    assert why == "line 3 changed but no edit touches it"
+    why = fix_proof._outside_lines_identical(old, "a: 10\nb: 2\nc: 3\nd: \ne: 6\n", edits)
+    assert why == "line 5 changed but no edit touches it"
+    insert = [fix_edits._TextEdit(start=10, end=10, text="x: 0\n", rule="r")]  # at line 3's start
+    assert fix_proof._outside_lines_identical(old, "a: 1\nb: 2\nx: 0\nc: 3\nd: 4\ne: 5\n", insert) is None
+    assert fix_proof._outside_lines_identical(old, "a: 7\nb: 2\nx: 0\nc: 3\nd: 4\ne: 5\n",
+                                              insert) == "line 1 changed but no edit touches it"
+
+
 def _cli(*args):
     return CliRunner().invoke(app, list(map(str, args)))
 

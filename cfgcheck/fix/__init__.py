@@ -32,14 +32,15 @@ from typing import Iterable
 from .. import engine
 from .. import links
 from .. import memo
+from ..catalogue import load_catalogue
 from .. import load as loadmod
 from ..engine import Options
 from ..findings import InputProblem, InternalError
 from ..load import LoadError, Source, dotted
 from .edits import _apply
-from .plan import _plan, _take
-from .proof import (_blame, _failed, _finding_keys, _prove, _save_evidence, _Shared, _unstable,
-                    yaml_comments)
+from .plan import _declares_fix, _plan, _take
+from .proof import (_blame, _failed, _finding_keys, _lint_parsed, _prove, _save_evidence, _Shared,
+                    _unstable, yaml_comments)
 from .results import (BATCH_SPLIT, CHANGES_TRAINING, KEEPS_MEANING, TIERS, Applied, FileFix,
                       FixReport, NewFinding, ProofFailed, _Item, _Planned)
 from .write import ChangedOnDisk, WriteRefused, _write_group, atomic_write, check_writable, encode
@@ -101,8 +102,7 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
     if linted is not None:  # the stability pass: the proof's re-lint of this very text
         before = linted
     else:
-        with links.linked_texts(linked_before):
-            before = engine.lint_text(text, name, options, fmt)
+        before = _lint_before(text, name, options, fmt, linked_before, training, halve_batch)
     if before.problem is not None:
         result.problem = before.problem
         return result
@@ -178,6 +178,52 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
     return result
 
 
+def _lint_before(text: str, name: str, options: Options, fmt: str, linked: dict, training: bool,
+                 halve_batch: int):
+    """The lint of the text before fixing: by every rule that runs wherever a fix is to be made.
+
+    Only rules whose catalogue record has ``fix:`` propose fixes (``_plan`` takes no other), so
+    the rules that fix run first; when they leave nothing to make, their report says all a fix
+    run shows (what is left as is, the flags they need, why nothing is made), and the other
+    rules need not run. Otherwise the text is linted by every rule, as the proof compares the
+    fixed text's findings with all of the old text's. A rule that fails makes the whole lint run,
+    so the failure reported is the one lint reports.
+    """
+    fixing = _fixing_options(options)
+    with links.linked_texts(linked):
+        if fixing is None:
+            return engine.lint_text(text, name, options, fmt)
+        try:
+            docs = loadmod.load_text(text, name, fmt)
+        except LoadError:
+            return engine.lint_text(text, name, options, fmt)  # the input error, as lint says it
+        except Exception:  # a bug in cfgcheck: lint_text reports it
+            return engine.lint_text(text, name, options, fmt)
+        first = _lint_parsed(docs, text, name, fixing)
+        if not first.internal and not _plan(first, training=training, halve_batch=halve_batch)[0]:
+            return first
+        return _lint_parsed(docs, text, name, options)  # the same documents, by every rule
+
+
+_FIXING_CACHE: dict[int, tuple[Options, Options | None]] = {}  # id(options) -> (options, its fixing options)
+
+
+def _fixing_options(options: Options) -> Options | None:
+    """``options`` narrowed to the rules that propose fixes, or None when they are all that run."""
+    got = _FIXING_CACHE.get(id(options))
+    if got is not None and got[0] is options:
+        return got[1]
+    from .._records import replaced
+
+    running = [rule.id for rule, _fn in engine.active_rules(options)]
+    fixing = frozenset(r for r in running if _declares_fix(r))
+    narrowed = None if len(fixing) == len(running) else replaced(options, only=fixing)
+    if len(_FIXING_CACHE) >= 256:  # a long-lived process (the editor server) keeps only the recent ones
+        _FIXING_CACHE.clear()
+    _FIXING_CACHE[id(options)] = (options, narrowed)
+    return narrowed
+
+
 def _say_as_written(new_docs: list, new_text: str, accepted: list[_Planned],
                     applied: dict[int, Applied]) -> None:
     """Make each summary's "KEY: OLD -> NEW" / "KEY: added as NEW" show NEW exactly as written.
@@ -239,13 +285,12 @@ _FLAG = re.compile(r"--(gpus|gpu|rows)\b")
 def _needed_flags(report, options: Options) -> tuple[tuple[str, str], ...]:
     """(rule, flag) for each rule that proposes fixes but could not judge this file without a
     flag its "not checked" note names."""
-    from ..catalogue import load_catalogue
-
+    unjudged = [f for f in report.findings if f.data.get("judged") is False]
+    if not unjudged:
+        return ()
     catalogue = load_catalogue()
     out = []
-    for f in report.findings:
-        if f.data.get("judged") is not False:
-            continue
+    for f in unjudged:
         rule = catalogue.get(f.rule)
         if rule is None or not rule.fix:
             continue

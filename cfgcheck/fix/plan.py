@@ -9,6 +9,7 @@ import bisect
 import re
 from typing import Any
 
+from ..catalogue import load_catalogue
 from ..findings import Edit
 from ..load import Document, dotted
 from .edits import _MISSING, _DocIndex, _TextEdit, _edits_for, _overlaps
@@ -46,13 +47,18 @@ def _halving(view, document: int, times: int = 1) -> tuple[_Planned | None, str 
     return _Planned(BATCH_SPLIT, pd.key, summary, CHANGES_TRAINING, tuple(edits), document, None), None
 
 
+def _declares_fix(rule_id: str) -> bool:
+    rule = load_catalogue().get(rule_id)
+    return rule is not None and rule.fix is not None
+
+
 def _plan(report, *, training: bool,
           halve_batch: int) -> tuple[list[_Planned], list[Applied], list[str]]:
     planned: list[_Planned] = []
     withheld: list[Applied] = []
     for f in report.findings:
-        if f.fix is None:
-            continue
+        if f.fix is None or not _declares_fix(f.rule):
+            continue  # a rule's fixes are taken when its catalogue record says it makes them
         item = _Planned(f.rule, f.key, f.fix.summary, f.fix.tier, tuple(f.fix.edits), f.document, f)
         if f.fix.tier == KEEPS_MEANING or (f.fix.tier == CHANGES_TRAINING and training):
             planned.append(item)

@@ -55,16 +55,65 @@ def yaml_comments(text: str) -> list[str]:
     return out
 
 
+# where a "#" starts a comment when it is outside every token: at the text's start or after a blank
+_COMMENT_START = re.compile("(?:^|(?<=[ \t\r\n\ufeff]))#")
+# what could put such a "#" inside a token: a quote, a block scalar's indicator, a directive line
+_MAY_HOLD_HASH = re.compile("[\"'|>]|^%", re.M)
+# line breaks YAML knows besides "\n" and "\r\n" (a comment ends at them), and a mid-text BOM
+_ODD_BREAK = re.compile("[\x85\u2028\u2029]|\r(?!\n)|(?<=[\\s\\S])\ufeff")
+
+
+def _parsed_comments(text: str) -> list[str]:
+    """``yaml_comments`` of a text that has just been parsed as YAML, without a second scan where
+    no token can hold a "#" after a blank.
+
+    Only quoted and block scalars (and directive lines) hold blanks; a plain scalar ends at " #",
+    and anchors, aliases, tags and indicators hold no blank. Every "#" at the text's start or
+    after a blank is therefore a comment to the end of its line, unless an opening quote, a block
+    indicator or a directive stands in the text outside those would-be comments: an opening
+    quote or indicator of a scalar holding a "#" stands before that "#", outside every real
+    comment. Then, and with line breaks other than "\n" and "\r\n" or a BOM past the start,
+    the text is scanned as ``yaml_comments`` scans it.
+    """
+    if "#" not in text:
+        return []
+    out: list[str] = []
+    rest: list[str] = []
+    pos = 0
+    for m in _COMMENT_START.finditer(text):
+        i = m.start()
+        if i < pos:
+            continue  # a "#" inside the comment just read
+        nl = text.find("\n", i)
+        stop = len(text) if nl < 0 else nl
+        out.append(text[i:stop].rstrip("\r"))
+        rest.append(text[pos:i])
+        pos = stop
+    rest.append(text[pos:])
+    if _MAY_HOLD_HASH.search("".join(rest)) or _ODD_BREAK.search(text):
+        return yaml_comments(text)
+    return out
+
+
+_PLAIN = frozenset({str, int, bool, type(None)})
+
+
 def _diff_paths(a: Any, b: Any, path: tuple = ()) -> list[tuple]:
     if type(a) is not type(b):
         return [path]
     if isinstance(a, dict):
         out = []
-        for k in list(a) + [k for k in b if k not in a]:
-            if k not in a or k not in b:
+        for k, x in a.items():
+            if k not in b:
                 out.append(path + (k,))
+                continue
+            y = b[k]
+            if type(x) in _PLAIN and type(x) is type(y):  # a str, int, bool or None: compared here
+                if x != y:
+                    out.append(path + (k,))
             else:
-                out.extend(_diff_paths(a[k], b[k], path + (k,)))
+                out.extend(_diff_paths(x, y, path + (k,)))
+        out.extend(path + (k,) for k in b if k not in a)
         return out
     if isinstance(a, list):
         if len(a) != len(b):
@@ -78,18 +127,12 @@ def _diff_paths(a: Any, b: Any, path: tuple = ()) -> list[tuple]:
     return [] if a == b else [path]
 
 
-def _line_of(starts: list[int], offset: int) -> int:
-    return bisect.bisect_right(starts, offset) - 1
-
-
-_LINE = re.compile(r"[^\n]*\n|[^\n]+\Z")
-
-
 def _outside_lines_identical(old: str, new: str, edits: list[_TextEdit]) -> str | None:
     """None when every line the edits do not touch is byte-identical in ``new``; else why not.
 
-    Linear in the text: each untouched line of ``old`` must sit in ``new`` at its offset shifted
-    by the length change of the edits before it, and ``new`` must be exactly as long as the
+    Linear in the text: each stretch of untouched lines of ``old`` must sit in ``new`` at its
+    offset shifted by the length change of the edits before it (compared as one slice, line by
+    line only to name the first line that changed), and ``new`` must be exactly as long as the
     edits make it.
     """
     ordered = sorted(edits, key=lambda e: (e.start, e.end))
@@ -97,25 +140,32 @@ def _outside_lines_identical(old: str, new: str, edits: list[_TextEdit]) -> str 
         return "the fixed text is not as long as its edits make it"
     # lines end at "\n" only (str.splitlines also breaks at \x85, \u2028, \x0c..., which would
     # shift every line number after one inside a quoted value)
-    starts = [0] + [m.end() for m in re.finditer("\n", old)]
-    touched: set[int] = set()
+    touched: list[tuple[int, int]] = []  # (start, end) offsets of the lines each edit touches
     for e in ordered:
-        first = _line_of(starts, e.start)
-        last = _line_of(starts, max(e.start, e.end - 1))
-        touched.update(range(first, last + 1))
-        if e.start == e.end:
-            touched.add(first - 1)  # an insertion at a line start sits after the line before
+        first = old.rfind("\n", 0, e.start) + 1  # the start of the line the edit begins in
+        if e.start == e.end and first:  # an insertion at a line start sits after the line before
+            first = old.rfind("\n", 0, first - 1) + 1
+        nl = old.find("\n", max(e.start, e.end - 1))
+        touched.append((first, len(old) if nl < 0 else nl + 1))
     shifts = [0]  # cumulative length change after each edit, in start order
     for e in ordered:
         shifts.append(shifts[-1] + len(e.text) - (e.end - e.start))
     begins = [e.start for e in ordered]
-    for n, start in enumerate(starts):
-        if n in touched or start >= len(old) and n:
-            continue
-        end = starts[n + 1] if n + 1 < len(starts) else len(old)
-        shift = shifts[bisect.bisect_right(begins, start)] if begins else 0
-        if new[start + shift:end + shift] != old[start:end]:
-            return f"line {n + 1} changed but no edit touches it"
+    pos = 0
+    touched.sort()
+    touched.append((len(old), len(old)))
+    for t_start, t_end in touched:
+        if pos < t_start:  # untouched lines from pos up to the next touched line
+            shift = shifts[bisect.bisect_right(begins, pos)] if begins else 0
+            if new[pos + shift:t_start + shift] != old[pos:t_start]:
+                line = pos
+                while line < t_start:
+                    stop = old.find("\n", line, t_start)
+                    stop = t_start if stop < 0 else stop + 1
+                    if new[line + shift:stop + shift] != old[line:stop]:
+                        return f"line {old.count(chr(10), 0, line) + 1} changed but no edit touches it"
+                    line = stop
+        pos = max(pos, t_end)
     return None
 
 
@@ -185,8 +235,8 @@ def _prove_text(old_text: str, new_text: str, name: str, fmt: str, old_docs: lis
         if shared:
             raise _Shared(shared, "the value is shared through a YAML anchor or merge key (<<) "
                                   "with another section; change it where the anchor is written")
-    if fmt == "yaml":
-        if yaml_comments(old_text) != yaml_comments(new_text):
+    if fmt == "yaml":  # both texts parse as YAML here (the old one was linted)
+        if _parsed_comments(old_text) != _parsed_comments(new_text):
             raise ProofFailed("the comments are not the same, in the same order", rules)
     why = _outside_lines_identical(old_text, new_text, edits)
     if why:
