@@ -18,6 +18,7 @@ from .checks import all_checks
 from .findings import FileReport, Finding, Fix, InputProblem, InternalError, Related, Report, Severity, new_finding, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted, walk_paths
+from .scriptfiles import SCRIPT_SUFFIXES
 from .view import Field, RunView, build_view
 from . import waivers as waivermod
 
@@ -617,16 +618,17 @@ def _lint_overridden_configs(sl, options: Options, report: FileReport) -> bool:
 def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
     options = options or Options()
     name = str(path)
-    from .scriptfiles import SCRIPT_SUFFIXES
-
     if name.lower().endswith(SCRIPT_SUFFIXES) and not os.path.isdir(path):
         return lint_script(path, options)
     try:
         try:
-            if os.path.isdir(path):
-                _listable(path)
             src = loadmod.read_source(path)
         except LoadError as exc:
+            if exc.reason == loadmod.IS_A_FOLDER:  # a folder named as a config: can it be listed?
+                try:
+                    _listable(path)
+                except LoadError as unlistable:
+                    exc = unlistable
             return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
                                                               column=exc.column, reason=exc.reason))
         return lint_text(src.text, name, options)

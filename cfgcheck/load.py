@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import bisect
 import codecs
+import operator
 import os
 import re
 import stat
@@ -40,9 +41,39 @@ def _libyaml_nests_safely() -> bool:
 
 
 if _libyaml_nests_safely():  # the C composer is several times faster; the pure one gives the same nodes
-    from yaml import CSafeLoader as _YamlLoader
+    from yaml import CSafeLoader as _SafeLoader
 else:  # pragma: no cover - the pure composer recurses in Python, which RecursionError bounds
-    from yaml import SafeLoader as _YamlLoader  # type: ignore[assignment]
+    from yaml import SafeLoader as _SafeLoader  # type: ignore[assignment]
+
+_RESOLVED_MAX = 8192  # plain scalars whose tag is remembered (a hostile file cannot grow it past)
+
+
+class _YamlLoader(_SafeLoader):  # type: ignore[misc, valid-type]
+    """The safe loader's composer with its resolver's per-node work cut down, same nodes.
+
+    A plain scalar's tag depends on its text alone (the safe loader has no path resolvers), so
+    the tag found for a text is remembered for the run: configs repeat their keys and values.
+    With no path resolvers, descending into and out of a node records nothing."""
+
+    _resolved: dict[str, str] = {}
+
+    def resolve(self, kind, value, implicit):
+        if kind is _ScalarNode and implicit[0]:
+            resolved = self._resolved
+            tag = resolved.get(value)
+            if tag is None:
+                tag = _SafeLoader.resolve(self, kind, value, implicit)
+                if len(resolved) < _RESOLVED_MAX:
+                    resolved[value] = tag
+            return tag
+        return _SafeLoader.resolve(self, kind, value, implicit)
+
+    def descend_resolver(self, current_node, current_index):
+        pass
+
+    def ascend_resolver(self):
+        pass
+
 
 # Limits for hostile input, documented in the README.
 MAX_FILE_BYTES = 2 * 1024 * 1024
@@ -376,6 +407,8 @@ def decode(raw: bytes, name: str, limit: int = MAX_FILE_BYTES, what: str = "a co
 
 
 _SEPARATORS = tuple({os.sep, os.altsep or os.sep})
+_OPEN_FLAGS = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0) | getattr(os, "O_CLOEXEC", 0)
+IS_A_FOLDER = "is a folder, not a file"  # read_source's reason for a folder
 
 
 def read_source(path: str | Path, limit: int = MAX_FILE_BYTES, what: str = "a config file") -> Source:
@@ -385,22 +418,38 @@ def read_source(path: str | Path, limit: int = MAX_FILE_BYTES, what: str = "a co
     p = path if path.__class__ is str and path and not path.endswith(_SEPARATORS) else Path(path)
     try:
         try:
-            st = os.stat(p)
+            st = os.stat(p)  # before opening: a device or a pipe is never opened
             if stat.S_ISDIR(st.st_mode):
-                raise LoadError("is a folder, not a file")
+                raise LoadError(IS_A_FOLDER)
             if not stat.S_ISREG(st.st_mode):
                 raise LoadError("not a regular file (a device, pipe or socket); not read")
-            if st.st_size > limit:
-                raise LoadError(f"file is {st.st_size:,} bytes, over the {limit:,}-byte limit for {what}")
-            with open(p, "rb") as fh:
-                raw = fh.read(limit + 1)  # the file may grow after stat
+            size = st.st_size
+            if size > limit:
+                raise LoadError(f"file is {size:,} bytes, over the {limit:,}-byte limit for {what}")
+            # the file's size and one byte more in one read (a buffered reader would set aside
+            # the whole limit for each file); never blocks should a pipe have replaced the file
+            fd = os.open(p, _OPEN_FLAGS)
+            try:
+                raw = os.read(fd, size + 1)
+                if len(raw) > size:  # it grew after the stat: read on, never past the limit
+                    parts = [raw]
+                    got = len(raw)
+                    while got <= limit:
+                        more = os.read(fd, limit + 1 - got)
+                        if not more:
+                            break
+                        parts.append(more)
+                        got += len(more)
+                    raw = b"".join(parts)
+            finally:
+                os.close(fd)
         except BaseException:
             reads.note_file(p)  # what stood there instead, for the result cache
             raise
     except LoadError:
         raise
     except IsADirectoryError:
-        raise LoadError("is a folder, not a file") from None
+        raise LoadError(IS_A_FOLDER) from None
     except FileNotFoundError:
         if os.path.islink(p):
             raise LoadError("broken symbolic link: its target does not exist") from None
@@ -763,9 +812,66 @@ _JSON_TOKEN = re.compile(
     re.S)
 
 
+# a token of valid JSON text and, before it, what lies between tokens: a string, a bracket, or a
+# number or word (which runs up to the next white space, separator or closing bracket)
+_JSON_NEXT = re.compile(r'[ \t\n\r,:]*+("[^"\\]*+(?:\\.[^"\\]*+)*+"|[{}\[\]]|[^ \t\n\r,:\]}]++)', re.S)
+
+
+class _NotAligned(Exception):
+    """The text's tokens do not follow the parsed values one for one (a repeated key), or the
+    nesting is past the limit: the full scan says what and where."""
+
+
 def _json_entries(text: str, doc: Document) -> None:
     """Record the position of every key and value of TEXT, already known to be valid JSON, as
-    offsets (placed on lines when asked), and the keys an object repeats."""
+    offsets (placed on lines when asked), and the keys an object repeats.
+
+    The parsed values say what comes next, so the tokens are only counted off: an object's
+    '{', then each key and its value, then '}'. A text whose tokens outnumber its values repeats
+    a key; it goes through the full scan, which reports the repetitions."""
+    lines = _Lines(text)
+    entries = doc.entries
+    spans = map(_SPAN_OF_TOKEN, _JSON_NEXT.finditer(text, 1 if text.startswith("\ufeff") else 0))
+    step = spans.__next__
+
+    def walk(value: Any, path: Path_, key_at: tuple[int, int] | None, depth: int) -> None:
+        if depth > MAX_DEPTH:
+            raise _NotAligned
+        start, end = step()
+        cls = value.__class__
+        if cls is dict:
+            depth += 1
+            for k, v in value.items():
+                walk(v, path + (k,), step(), depth)
+            e = Entry((start, step()[1]), key_at, "", "json", None, "map")
+        elif cls is list:
+            depth += 1
+            i = 0
+            for v in value:
+                walk(v, path + (i,), None, depth)
+                i += 1
+            e = Entry((start, step()[1]), key_at, "", "json", None, "seq")
+        else:
+            e = Entry((start, end), key_at, text[start:end], "json")
+        e._lines = lines
+        entries[path] = e
+
+    try:
+        walk(doc.data, (), None, 0)
+        if next(spans, None) is None:
+            return
+    except (_NotAligned, StopIteration):
+        pass
+    entries.clear()
+    _json_entries_scan(text, doc)
+
+
+_SPAN_OF_TOKEN = operator.methodcaller("span", 1)
+
+
+def _json_entries_scan(text: str, doc: Document) -> None:
+    """``_json_entries`` token by token, with no help from the parsed values: finds the keys an
+    object repeats and where the nesting passes the limit."""
     lines = _Lines(text)
     entries = doc.entries
     stack: list[tuple] = []  # the states of the containers around the innermost open one

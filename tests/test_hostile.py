@@ -279,14 +279,14 @@ def test_folder_named_like_a_config(tmp_path):
 def test_permission_error_is_mapped(tmp_path, monkeypatch):
     target = tmp_path / "locked.yaml"
     target.write_text("learning_rate: 2.0e-4\n")
-    real_open = open
+    real_open = os.open
 
     def refusing_open(path, *a, **kw):
         if Path(path) == target:
             raise PermissionError(13, "Permission denied", str(path))
         return real_open(path, *a, **kw)
 
-    monkeypatch.setattr("builtins.open", refusing_open)
+    monkeypatch.setattr("os.open", refusing_open)  # the reader opens a file as os.open does
     assert problem(target).reason == "permission denied"
 
 
