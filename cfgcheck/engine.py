@@ -14,7 +14,7 @@ from ._records import guarded_repr
 from . import load as loadmod
 from . import memo
 from .catalogue import Rule, load_catalogue
-from .checks import all_checks
+from .checks import all_checks, declared, registered
 from .findings import FileReport, Finding, Fix, InputProblem, InternalError, Related, Report, Severity, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted, walk_paths
@@ -326,7 +326,20 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport,
     # rule that fails had reported is taken back out
     ctx = Context(view, rules[0][0] if rules else None, options, findings, file, waivers=waivers,
                   active=active, waiver_paths=paths)
+    # a check that declared what it needs (checks.Needs) is passed over on a view that lacks it;
+    # only on an opened view, whose fields and supplied values are all there before any rule runs
+    needs = declared() if view.run is not None else None
+    present = None  # the names of the view's fields and supplied values, made on first use
+    method = view.method
+    checks = registered()
     for rule, fn in rules:
+        if needs:
+            need = needs.get(rule.id)
+            if need is not None:
+                if present is None:
+                    present = view.fields.keys() | view.supplied.keys()
+                if not need.met(method, present) and checks.get(rule.id) is need.check:
+                    continue  # provably nothing to say (tests/test_check_needs.py)
         if ctx.rule is not rule:  # the next rule: nothing of the last rule's stays
             ctx.rule = rule
             ctx._thresholds = ctx._judged_once = None

@@ -26,7 +26,7 @@ def model_size_billions(ctx) -> tuple[float | None, str]:
     return None, ""
 
 
-@check("full-finetune-lr-too-high")
+@check("full-finetune-lr-too-high", when=("optim.lr",), methods=("full",))
 def full_finetune_lr(ctx) -> None:
     view = ctx.view
     if view.method != "full":

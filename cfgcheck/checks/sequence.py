@@ -18,7 +18,7 @@ def _rope_scaling(data, depth: int = 0) -> bool:
     return False
 
 
-@check("seq-len-above-context-window")
+@check("seq-len-above-context-window", when=("data.seq_len",))
 def seq_len_above_context(ctx) -> None:
     f = ctx.view.get("data.seq_len")
     if f is None or not isinstance(f.value, int) or isinstance(f.value, bool) or f.value <= 0:
@@ -50,7 +50,7 @@ _AWARE = frozenset({"flash_attention_2", "flash_attention_3", "kernels-community
           "kernels-community/vllm-flash-attn3", "flex_attention", "fa2", "fa3"})
 
 
-@check("packing-without-boundary-aware-attention")
+@check("packing-without-boundary-aware-attention", when=("data.packing",))
 def packing_attention(ctx) -> None:
     view = ctx.view
     f = view.get("data.packing")

@@ -6,7 +6,7 @@ import math
 import re
 from types import MappingProxyType
 
-from . import check
+from . import ADAPTER, check
 
 _ALL_WORDS = frozenset({"all-linear", "all"})  # PEFT's "all-linear"; LLaMA-Factory's lora_target: all
 _ATTENTION = frozenset({"q_proj", "k_proj", "v_proj", "o_proj", "qkv_proj", "query_key_value", "c_attn",
@@ -65,7 +65,7 @@ def _arch_or_judge(ctx):
         return None
 
 
-@check("lora-target-not-in-model")
+@check("lora-target-not-in-model", when=("adapter.targets",), methods=ADAPTER)
 def target_not_in_model(ctx) -> None:
     view = ctx.view
     names, f = listed_targets(view)
@@ -102,7 +102,7 @@ def target_not_in_model(ctx) -> None:
                found=len(names) - len(missing), total=len(names))
 
 
-@check("lora-rank-above-matrix-dim")
+@check("lora-rank-above-matrix-dim", when=("adapter.rank",), methods=ADAPTER)
 def rank_above_dim(ctx) -> None:
     view = ctx.view
     if not view.is_adapter:
@@ -135,7 +135,7 @@ def rank_above_dim(ctx) -> None:
                smallest=smallest, family=arch.family)
 
 
-@check("lora-attention-only-targets")
+@check("lora-attention-only-targets", when=("adapter.targets",), methods=ADAPTER)
 def attention_only(ctx) -> None:
     view = ctx.view
     names, f = listed_targets(view)
@@ -149,7 +149,7 @@ def attention_only(ctx) -> None:
     ctx.report(f, key=f.leaf, targets=", ".join(names))
 
 
-@check("lora-high-rank-standard-scaling")
+@check("lora-high-rank-standard-scaling", when=("adapter.rank",), methods=ADAPTER)
 def high_rank_standard(ctx) -> None:
     view = ctx.view
     if not view.is_adapter or view.layout is None or "adapter.rslora" not in view.layout.fields:
@@ -178,7 +178,7 @@ def _full_modules(view):
     return f, [n for n in names if str(n).rsplit(".", 1)[-1] in _EMBEDDINGS]
 
 
-@check("full-modules-at-adapter-lr")
+@check("full-modules-at-adapter-lr", when=("adapter.save_modules", "optim.lr"), methods=ADAPTER)
 def full_modules_at_adapter_lr(ctx) -> None:
     view = ctx.view
     if not view.is_adapter:
@@ -202,7 +202,7 @@ def full_modules_at_adapter_lr(ctx) -> None:
                suggestion=f"{lr_f.value / 10:.1e}")
 
 
-@check("tied-embeddings-trained-separately")
+@check("tied-embeddings-trained-separately", when=("adapter.save_modules",), methods=ADAPTER)
 def tied_trained_separately(ctx) -> None:
     view = ctx.view
     if not view.is_adapter:
@@ -226,7 +226,7 @@ def tied_trained_separately(ctx) -> None:
 _KERNELS = ("adapter.kernel_mlp", "adapter.kernel_qkv", "adapter.kernel_o")
 
 
-@check("lora-kernel-with-dropout-or-bias")
+@check("lora-kernel-with-dropout-or-bias", when=(("adapter.kernel_mlp", "adapter.kernel_qkv", "adapter.kernel_o"),))
 def kernel_dropout_bias(ctx) -> None:
     view = ctx.view
     kernels = [view.get(n) for n in _KERNELS if view.is_on(n)]
