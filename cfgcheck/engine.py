@@ -166,9 +166,13 @@ class Context:
 
     def model(self):
         """The base model's architecture when it can be known offline, else None."""
-        from .plan import model_of  # only rules that need a model pay for it
+        found = self.view.model_found  # looked up already for this view (plan.model_of keeps it)
+        if found is not None:
+            arch = found[0]
+        else:
+            from .plan import model_of  # only rules that need a model pay for it
 
-        arch = model_of(self.view, self.file, self.options.cwd, declared=self.options.models)
+            arch = model_of(self.view, self.file, self.options.cwd, declared=self.options.models)
         if arch is not None and getattr(arch, "assumed", False) and "model" in self.rule.needs:
             # matched by its name alone: the verdicts of a rule that needs the model rest on it
             self._model_assumption = f"the model is {getattr(arch, 'how', '') or 'matched by its name'}"

@@ -51,16 +51,32 @@ _FIELD_KIND = MappingProxyType({"int": "number", "number": "number", "bool": "bo
 def _setting_type(ctx, path: tuple) -> str | None:
     """"number", "bool", "text", "mixed" or None (unknown): what the setting at ``path`` takes."""
     from ..knowledge.setting_types import setting_type
+
+    kinds = ctx.once("field-kinds-by-path", lambda: _kinds_by_path(ctx.view))
+    path = tuple(path)
+    # the first field (in the view's order) written at the path, or at the list holding it
+    here = kinds.get(path)
+    if path and isinstance(path[-1], int):
+        up = kinds.get(path[:-1])
+        if up is not None and (here is None or up[0] < here[0]):
+            here = up
+    if here is not None:
+        return here[1]
+    table = ctx.view.layout.key_table if ctx.view.layout is not None else None
+    return setting_type(table, path)
+
+
+def _kinds_by_path(view) -> dict[tuple, tuple[int, str]]:
+    """Key path -> (place in the view's fields, kind) of the first field there whose type says
+    what the value takes."""
     from ..layouts import FIELD_TYPES
 
-    for f in ctx.view.fields.values():
-        if tuple(f.path) == tuple(path) or (path and isinstance(path[-1], int)
-                                            and tuple(f.path) == tuple(path[:-1])):
-            kind = _FIELD_KIND.get(FIELD_TYPES.get(f.name, "any"))
-            if kind is not None:
-                return kind
-    table = ctx.view.layout.key_table if ctx.view.layout is not None else None
-    return setting_type(table, tuple(path))
+    out: dict[tuple, tuple[int, str]] = {}
+    for i, f in enumerate(view.fields.values()):
+        kind = _FIELD_KIND.get(FIELD_TYPES.get(f.name, "any"))
+        if kind is not None:
+            out.setdefault(tuple(f.path), (i, kind))
+    return out
 
 
 def _quoted(raw: str) -> str:

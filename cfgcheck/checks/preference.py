@@ -15,13 +15,26 @@ def _int(view, name):
     return None
 
 
+# top-level keys, in order -> the trainer family they point to (a frozen Guess); a cache: the key
+# tables the guess reads are fixed for the process, and the configs of a recipe repeat their keys
+_GUESS_CACHE: dict[tuple, object] = {}
+_GUESS_ENTRIES = 4096  # emptied when full: a bound on the memory a run of varied files takes
+
+
 def _guess(ctx):
     """The trainer family the view's top-level keys point to (guessed once per view)."""
-    from ..knowledge.trainers import guess
 
     def compute():
         data = ctx.view.doc.data if isinstance(ctx.view.doc.data, dict) else {}
-        return guess(list(data))
+        keys = tuple(data)
+        got = _GUESS_CACHE.get(keys)
+        if got is None:
+            from ..knowledge.trainers import guess
+
+            if len(_GUESS_CACHE) >= _GUESS_ENTRIES:
+                _GUESS_CACHE.clear()
+            got = _GUESS_CACHE[keys] = guess(list(keys))
+        return got
 
     return ctx.once("trainer-guess", compute)
 

@@ -6,7 +6,7 @@ from types import MappingProxyType
 
 
 from ..findings import MAX_MAGNITUDE, number_text
-from ..schema import CONSTRAINTS, violations
+from ..schema import applicable, value_violations
 from . import check
 
 _WORDS = MappingProxyType({"below": "below the minimum", "not-above": "not above", "at-or-above": "at or above the limit"})
@@ -26,13 +26,16 @@ def yaml_word(word) -> str:
 def value_outside_schema(ctx) -> None:
     view = ctx.view
     layout = view.layout  # its word lists decide which accepted-word checks apply
-    ambiguous = {a.path for a in ctx.doc.ambiguities}  # yaml-version-dependent-value says it
+    ambiguities = ctx.doc.ambiguities
+    ambiguous = {a.path for a in ambiguities} if ambiguities else ()  # yaml-version-dependent-value says it
     for f in view.out_of_range:  # set aside by the view: no other rule uses these
         ctx.report(f, "too-large", key=f.key, value=number_text(f.written), limit=f"{MAX_MAGNITUDE:,}")
+    bounded = applicable(layout)  # field -> the constraints that hold in this layout
     for name, f in view.fields.items():
-        if name not in CONSTRAINTS or f.value is None or f.auto or f.path in ambiguous:
+        constraints = bounded.get(name)
+        if constraints is None or f.value is None or f.auto or f.path in ambiguous:
             continue  # (a setting the schema does not bound has nothing to violate)
-        for v in violations(name, f.value, layout):
+        for v in value_violations(name, f.value, constraints):
             if v.problem == "not-one-of":
                 import difflib
 

@@ -6,6 +6,7 @@ import math
 import re
 from types import MappingProxyType
 
+from ..knowledge.models import UnsupportedFamily, linear_modules, target_names as model_target_names
 from . import ADAPTER, check
 
 _ALL_WORDS = frozenset({"all-linear", "all"})  # PEFT's "all-linear"; LLaMA-Factory's lora_target: all
@@ -19,12 +20,19 @@ _OTHER_LIBRARY_NAMES = MappingProxyType({"output_proj": "o_proj", "w1": "gate_pr
 _REGEX_CHARS = re.compile(r"[\\^$*+?()\[\]{}|]")
 
 
-def listed_targets(view) -> tuple[list[str] | None, object]:
+def listed_targets(view, ctx=None) -> tuple[list[str] | None, object]:
     """(names, field) when an adapter run lists its target modules by name, else (None, None)."""
     if not view.is_adapter:
         return None, None
-    names, how, f = target_names(view)
+    names, how, f = targets_of(ctx) if ctx is not None else target_names(view)
     return (names, f) if how == "list" and names else (None, None)
+
+
+def targets_of(ctx) -> tuple[list[str] | None, str, object]:
+    """``target_names`` of the context's view, worked out once for the rules of the view (they
+    only read it)."""
+    view = ctx.view
+    return ctx.once("lora-target-names", lambda: target_names(view))
 
 
 def target_names(view) -> tuple[list[str] | None, str, object]:
@@ -56,8 +64,6 @@ def _arch_or_judge(ctx):
         ctx.cannot_judge("the base model's architecture is not known offline "
                          "(name a local folder with config.json, or a model in the local hub cache)")
         return None
-    from ..knowledge.models import UnsupportedFamily, linear_modules
-
     try:
         return arch, linear_modules(arch)
     except UnsupportedFamily as exc:
@@ -68,7 +74,7 @@ def _arch_or_judge(ctx):
 @check("lora-target-not-in-model", when=("adapter.targets",), methods=ADAPTER)
 def target_not_in_model(ctx) -> None:
     view = ctx.view
-    names, f = listed_targets(view)
+    names, f = listed_targets(view, ctx)
     if not names:
         return
     layout = view.layout
@@ -80,9 +86,7 @@ def target_not_in_model(ctx) -> None:
         if got is None:
             return
         arch, _linear = got
-        from ..knowledge.models import target_names
-
-        known = set(target_names(arch))
+        known = set(model_target_names(arch))
         where = f"{arch.family} ({arch.source or 'model config'})"
     missing = [n for n in names if n.rsplit(".", 1)[-1] not in known and not _REGEX_CHARS.search(n)]
     if not missing:
@@ -110,7 +114,7 @@ def rank_above_dim(ctx) -> None:
     rank_f = view.get("adapter.rank")
     if rank_f is None or not isinstance(rank_f.value, int) or rank_f.value <= 0:
         return
-    names, how, _ = target_names(view)
+    names, how, _ = targets_of(ctx)
     got = _arch_or_judge(ctx)
     if got is None:
         return
@@ -138,7 +142,7 @@ def rank_above_dim(ctx) -> None:
 @check("lora-attention-only-targets", when=("adapter.targets",), methods=ADAPTER)
 def attention_only(ctx) -> None:
     view = ctx.view
-    names, f = listed_targets(view)
+    names, f = listed_targets(view, ctx)
     if not names:
         return
     if view.is_on("adapter.mlp"):
