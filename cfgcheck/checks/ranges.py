@@ -22,6 +22,25 @@ def yaml_word(word) -> str:
     return f'"{text}"' if isinstance(word, str) and text.lower() in _NOT_TEXT else text
 
 
+# (field, type of the value, value) -> its violations (frozen records, only read): a cache, since
+# the constraints are fixed tables and a corpus writes the same values again and again
+_VIOLATIONS_CACHE: dict[tuple, tuple] = {}
+_VIOLATIONS_ENTRIES = 8192  # emptied when full: a bound on the memory a run of varied values takes
+
+
+def _violations(name: str, value, constraints: tuple) -> tuple:
+    key = (id(constraints), type(value), value)
+    try:
+        got = _VIOLATIONS_CACHE.get(key)
+    except TypeError:  # an unhashable value (a list of names): worked out each time
+        return tuple(value_violations(name, value, constraints))
+    if got is None or got[0] is not constraints:
+        if len(_VIOLATIONS_CACHE) >= _VIOLATIONS_ENTRIES:
+            _VIOLATIONS_CACHE.clear()
+        got = _VIOLATIONS_CACHE[key] = (constraints, tuple(value_violations(name, value, constraints)))
+    return got[1]
+
+
 @check("value-outside-schema")
 def value_outside_schema(ctx) -> None:
     view = ctx.view
@@ -35,7 +54,7 @@ def value_outside_schema(ctx) -> None:
         constraints = bounded.get(name)
         if constraints is None or f.value is None or f.auto or f.path in ambiguous:
             continue  # (a setting the schema does not bound has nothing to violate)
-        for v in value_violations(name, f.value, constraints):
+        for v in _violations(name, f.value, constraints):
             if v.problem == "not-one-of":
                 import difflib
 

@@ -10,12 +10,9 @@ def _rope_scaling(data, depth: int = 0) -> bool:
     """Whether the file sets up RoPE scaling (``rope_scaling`` at the top or in a section)."""
     if not isinstance(data, dict) or depth > 2:
         return False
-    for key, value in data.items():
-        if key == "rope_scaling" and value not in (None, False, "", {}, "none", "null"):
-            return True
-        if isinstance(value, dict) and _rope_scaling(value, depth + 1):
-            return True
-    return False
+    if "rope_scaling" in data and data["rope_scaling"] not in (None, False, "", {}, "none", "null"):
+        return True
+    return any(_rope_scaling(value, depth + 1) for value in data.values() if isinstance(value, dict))
 
 
 @check("seq-len-above-context-window", when=("data.seq_len",))
