@@ -97,6 +97,9 @@ def _thresholds(rule: Rule, options: Options) -> dict[str, Any]:
     return got[2]
 
 
+_NOT_YET = object()  # a ``once`` answer not worked out yet (None is an answer)
+
+
 class Context:
     """What a check sees: the view, the knowledge, the options, and ``report``.
 
@@ -141,12 +144,13 @@ class Context:
         view's lint, inside the file's own record of reads, so it never outlives a run."""
         memo_ = self._once
         if memo_ is None:
-            memo_ = self._once = {}
-        try:
-            return memo_[kind]
-        except KeyError:
-            value = memo_[kind] = compute()
+            value = compute()
+            self._once = {kind: value}
             return value
+        value = memo_.get(kind, _NOT_YET)
+        if value is _NOT_YET:
+            value = memo_[kind] = compute()
+        return value
 
     # knowledge --------------------------------------------------------------
     @property
