@@ -14,7 +14,7 @@ from ._records import guarded_repr
 from . import load as loadmod
 from . import memo
 from .catalogue import Rule, load_catalogue
-from .checks import all_checks
+from .checks import all_checks, declared, registered
 from .findings import FileReport, Finding, Fix, InputProblem, InternalError, Related, Report, Severity, new_finding, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted, walk_paths
@@ -98,6 +98,9 @@ def _thresholds(rule: Rule, options: Options) -> dict[str, Any]:
     return got[2]
 
 
+_NOT_YET = object()  # a ``once`` answer not worked out yet (None is an answer)
+
+
 class Context:
     """What a check sees: the view, the knowledge, the options, and ``report``.
 
@@ -142,12 +145,13 @@ class Context:
         view's lint, inside the file's own record of reads, so it never outlives a run."""
         memo_ = self._once
         if memo_ is None:
-            memo_ = self._once = {}
-        try:
-            return memo_[kind]
-        except KeyError:
-            value = memo_[kind] = compute()
+            value = compute()
+            self._once = {kind: value}
             return value
+        value = memo_.get(kind, _NOT_YET)
+        if value is _NOT_YET:
+            value = memo_[kind] = compute()
+        return value
 
     # knowledge --------------------------------------------------------------
     @property
@@ -167,9 +171,13 @@ class Context:
 
     def model(self):
         """The base model's architecture when it can be known offline, else None."""
-        from .plan import model_of  # only rules that need a model pay for it
+        found = self.view.model_found  # looked up already for this view (plan.model_of keeps it)
+        if found is not None:
+            arch = found[0]
+        else:
+            from .plan import model_of  # only rules that need a model pay for it
 
-        arch = model_of(self.view, self.file, self.options.cwd, declared=self.options.models)
+            arch = model_of(self.view, self.file, self.options.cwd, declared=self.options.models)
         if arch is not None and getattr(arch, "assumed", False) and "model" in self.rule.needs:
             # matched by its name alone: the verdicts of a rule that needs the model rest on it
             self._model_assumption = f"the model is {getattr(arch, 'how', '') or 'matched by its name'}"
@@ -360,7 +368,20 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport,
     # rule that fails had reported is taken back out
     ctx = Context(view, rules[0][0] if rules else None, options, findings, file, waivers=waivers,
                   active=active, waiver_paths=paths)
+    # a check that declared what it needs (checks.Needs) is passed over on a view that lacks it;
+    # only on an opened view, whose fields and supplied values are all there before any rule runs
+    needs = declared() if view.run is not None else None
+    present = None  # the names of the view's fields and supplied values, made on first use
+    method = view.method
+    checks = registered()
     for rule, fn in rules:
+        if needs:
+            need = needs.get(rule.id)
+            if need is not None:
+                if present is None:
+                    present = view.fields.keys() | view.supplied.keys()
+                if not need.met(method, present) and checks.get(rule.id) is need.check:
+                    continue  # provably nothing to say (tests/test_check_needs.py)
         if ctx.rule is not rule:  # the next rule: nothing of the last rule's stays
             ctx.rule = rule
             ctx._thresholds = ctx._judged_once = None

@@ -262,10 +262,13 @@ class Violation:
 
 def violations(name: str, value: Any, layout: "Layout | str | None") -> list[Violation]:
     """What the schema would reject in one typed value (the value already has the right type)."""
+    return value_violations(name, value, tuple(c for c in CONSTRAINTS.get(name, ()) if _applies(c, layout)))
+
+
+def value_violations(name: str, value: Any, constraints: tuple[Constraint, ...]) -> list[Violation]:
+    """``violations`` against constraints already known to apply (``applicable``)."""
     out: list[Violation] = []
-    for c in CONSTRAINTS.get(name, ()):
-        if not _applies(c, layout):
-            continue
+    for c in constraints:
         if c.enum is not None:
             probe = value.strip() if isinstance(value, str) else value
             if probe not in c.enum:
@@ -280,6 +283,25 @@ def violations(name: str, value: Any, layout: "Layout | str | None") -> list[Vio
         if c.exclusive_maximum is not None and value >= c.exclusive_maximum:
             out.append(Violation(name, value, "at-or-above", c.exclusive_maximum, c.source))
     return out
+
+
+# id of a layout (or of None) -> (that layout, {field: the constraints that hold for it}), worked
+# out once per layout object (a cache: CONSTRAINTS and the layouts are fixed tables)
+_APPLICABLE_CACHE: dict[int, tuple[Any, dict[str, tuple[Constraint, ...]]]] = {}
+
+
+def applicable(layout: "Layout | None") -> dict[str, tuple[Constraint, ...]]:
+    """Field -> the constraints that hold for LAYOUT, for the fields that have any."""
+    key = id(layout)
+    got = _APPLICABLE_CACHE.get(key)
+    if got is None or got[0] is not layout:
+        table = {}
+        for name, constraints in CONSTRAINTS.items():
+            held = tuple(c for c in constraints if _applies(c, layout))
+            if held:
+                table[name] = held
+        got = _APPLICABLE_CACHE[key] = (layout, table)
+    return got[1]
 
 
 @functools.lru_cache(maxsize=None)

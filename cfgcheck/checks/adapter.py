@@ -6,7 +6,7 @@ import math
 
 from ..findings import Edit, Fix
 from ..knowledge.models import lora_scale as adapter_scale  # alpha/r, or alpha/sqrt(r) under rsLoRA
-from . import check
+from . import ADAPTER, check
 
 
 def target_alpha(rank: int, rslora: bool, target_scale: float) -> int:
@@ -33,7 +33,7 @@ def _g(x: float) -> str:
     return text
 
 
-@check("lora-scale-below-one")
+@check("lora-scale-below-one", when=("adapter.rank",), methods=ADAPTER)
 def lora_scale_below_one(ctx) -> None:
     view = ctx.view
     if not view.is_adapter:

@@ -10,7 +10,7 @@ from . import check
 from .warmup import run_steps
 
 
-@check("global-batch-mismatch")
+@check("global-batch-mismatch", when=("batch.global", "batch.per_device"))
 def global_batch_mismatch(ctx) -> None:
     view = ctx.view
     declared_f = view.get("batch.global")
@@ -86,7 +86,7 @@ _INTERVALS = (
 )
 
 
-@check("cadence-longer-than-run")
+@check("cadence-longer-than-run", when=(("cadence.eval_steps", "cadence.logging_steps"),))
 def cadence_longer_than_run(ctx) -> None:
     view = ctx.view
     intervals = [(view.get(n), s, what) for n, s, what in _INTERVALS if view.get(n) is not None]

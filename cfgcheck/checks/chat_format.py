@@ -124,7 +124,8 @@ def _shown(tokens: list[str]) -> str:
     return ", ".join(tokens[:4]) + (" ..." if len(tokens) > 4 else "")
 
 
-@check("chat-format-untrained-embeddings")
+@check("chat-format-untrained-embeddings", when=(("data.chat_template", "data.new_tokens", "data.special_tokens",
+                                                    "data.template_name"),))
 def chat_format(ctx) -> None:
     view = ctx.view
     layout = view.layout

@@ -231,7 +231,7 @@ def _reentrant(ctx, view):
     return None, None
 
 
-@check("checkpointing-with-ddp-unused-parameters")
+@check("checkpointing-with-ddp-unused-parameters", when=("runtime.gradient_checkpointing",))
 def checkpointing_ddp(ctx) -> None:
     view = ctx.view
     gc = view.get("runtime.gradient_checkpointing")
@@ -281,7 +281,7 @@ def _dtype(value):
     return _DTYPE_WORDS.get(word)
 
 
-@check("quant-storage-differs-from-model-dtype")
+@check("quant-storage-differs-from-model-dtype", when=(("quant.load_4bit", "quant.bits"),))
 def quant_storage(ctx) -> None:
     view = ctx.view
     q, bits = quantised_field(view, bits=(4,))
@@ -313,7 +313,7 @@ def quant_storage(ctx) -> None:
                dtype_key=dtype_f.key, dtype=dtype_f.value, sharding=by)
 
 
-@check("fsdp-and-trainer-checkpointing-both-on")
+@check("fsdp-and-trainer-checkpointing-both-on", when=("runtime.gradient_checkpointing", "runtime.fsdp_checkpointing"))
 def fsdp_double_checkpointing(ctx) -> None:
     view = ctx.view
     # FSDP's checkpointing: written here, or in the launch file the run starts with
@@ -342,7 +342,7 @@ def _other_family(name: str, own: str) -> bool:
     return bool(prefixes) and max(prefixes, key=len) != own
 
 
-@check("fsdp-wrap-class-not-in-model")
+@check("fsdp-wrap-class-not-in-model", when=("runtime.fsdp_wrap",))
 def fsdp_wrap_class(ctx) -> None:
     view = ctx.view
     f = view.effective("runtime.fsdp_wrap")  # written here, or in the launch file of the run
@@ -376,7 +376,7 @@ def fsdp_wrap_class(ctx) -> None:
 
 # --------------------------------------------------------------------------- device placement
 
-@check("device-map-under-distributed-run")
+@check("device-map-under-distributed-run", when=(("model.device_map", "model.low_cpu_mem"),))
 def device_map_distributed(ctx) -> None:
     view = ctx.view
     dm, low = view.get("model.device_map"), view.get("model.low_cpu_mem")

@@ -21,7 +21,7 @@ def _word(view, name, defaults: bool):
     return None, f
 
 
-@check("best-model-needs-matching-cadence")
+@check("best-model-needs-matching-cadence", when=("cadence.load_best",))
 def best_model_cadence(ctx) -> None:
     view = ctx.view
     best = view.get("cadence.load_best")
@@ -62,7 +62,7 @@ def best_model_cadence(ctx) -> None:
                        eval_steps=es, suggestion=f"{good:g}")
 
 
-@check("eval-strategy-without-eval-data")
+@check("eval-strategy-without-eval-data", when=("cadence.eval_strategy",))
 def eval_without_data(ctx) -> None:
     view = ctx.view
     if view.layout is None or not view.layout.eval_data_known:

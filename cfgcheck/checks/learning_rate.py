@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from ..findings import Edit, Fix
+from ..knowledge.models import UnsupportedFamily, size_from_name, total_parameters
 from . import check
 
 
@@ -10,23 +11,19 @@ def model_size_billions(ctx) -> tuple[float | None, str]:
     """Parameters of the base model in billions, and how we know."""
     arch = ctx.model()
     if arch is not None:
-        from ..knowledge.models import UnsupportedFamily, total_parameters
-
         try:
             return total_parameters(arch) / 1e9, arch.source or "model config"
         except UnsupportedFamily:
             pass  # a family we cannot count: fall back to the size in the name
     ref = ctx.view.value("model.ref")
     if isinstance(ref, str):
-        from ..knowledge.models import size_from_name
-
         size = size_from_name(ref)
         if size is not None:
             return size, f"the size in the name {ref!r}"
     return None, ""
 
 
-@check("full-finetune-lr-too-high")
+@check("full-finetune-lr-too-high", when=("optim.lr",), methods=("full",))
 def full_finetune_lr(ctx) -> None:
     view = ctx.view
     if view.method != "full":

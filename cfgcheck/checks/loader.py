@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import functools
 import re
 from types import MappingProxyType
 
 from ..findings import Edit, Fix
 from ..load import dotted
 from . import check
+from .unknown_keys import repo_keys_of
 
 
 @check("duplicate-key")
@@ -50,17 +52,32 @@ _FIELD_KIND = MappingProxyType({"int": "number", "number": "number", "bool": "bo
 
 def _setting_type(ctx, path: tuple) -> str | None:
     """"number", "bool", "text", "mixed" or None (unknown): what the setting at ``path`` takes."""
-    from ..knowledge.setting_types import setting_type
-    from ..layouts import FIELD_TYPES
-
+    path = tuple(path)
+    up = path[:-1] if path and isinstance(path[-1], int) else None  # the list holding it
+    kinds = _kind_of_field()
     for f in ctx.view.fields.values():
-        if tuple(f.path) == tuple(path) or (path and isinstance(path[-1], int)
-                                            and tuple(f.path) == tuple(path[:-1])):
-            kind = _FIELD_KIND.get(FIELD_TYPES.get(f.name, "any"))
+        at = f.path if f.path.__class__ is tuple else tuple(f.path)
+        if at == path or (up is not None and at == up):
+            kind = kinds.get(f.name)
             if kind is not None:
                 return kind
     table = ctx.view.layout.key_table if ctx.view.layout is not None else None
-    return setting_type(table, tuple(path))
+    return _setting_type_of()(table, path)
+
+
+@functools.cache
+def _kind_of_field() -> dict[str, str]:
+    """View field -> what its type says the value takes (fields of a known kind only)."""
+    from ..layouts import FIELD_TYPES
+
+    return {name: kind for name, ftype in FIELD_TYPES.items() if (kind := _FIELD_KIND.get(ftype)) is not None}
+
+
+@functools.cache
+def _setting_type_of():
+    from ..knowledge.setting_types import setting_type  # read on the first ambiguous value
+
+    return setting_type
 
 
 def _quoted(raw: str) -> str:
@@ -70,8 +87,6 @@ def _quoted(raw: str) -> str:
 def _repository_reader(ctx) -> str:
     """How the scripts of the config's repository (and the scripts named as its readers) read
     numbers, when they show it (ast only)."""
-    from .unknown_keys import repo_keys_of
-
     found = repo_keys_of(ctx)  # looked up once per view, whichever rules ask
     return found.number_reader if found is not None else ""
 

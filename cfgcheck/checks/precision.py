@@ -161,7 +161,8 @@ def _fix_for(feature, f, gpu, view):
     return None
 
 
-@check("precision-unsupported-on-gpu")
+@check("precision-unsupported-on-gpu", when=(("precision.bf16", "model.dtype", "quant.compute_dtype", "precision.mixed",
+                                                "precision.tf32", "model.attention"),))
 def precision_vs_gpu(ctx) -> None:
     view = ctx.view
     wanted = _wanted(view)
@@ -216,7 +217,7 @@ def precision_vs_gpu(ctx) -> None:
                    needed=f"{need[0]}.{need[1]}", suits=suits, source=source, **extra)
 
 
-@check("bf16-and-fp16-both-on")
+@check("bf16-and-fp16-both-on", when=("precision.bf16", "precision.fp16"))
 def bf16_and_fp16(ctx) -> None:
     bf, fp = ctx.view.get("precision.bf16"), ctx.view.get("precision.fp16")
     if bf is None or fp is None or bf.value is not True or fp.value is not True:
@@ -234,7 +235,7 @@ def _fp16_on(view):
     return None
 
 
-@check("fp16-training-of-bf16-model")
+@check("fp16-training-of-bf16-model", when=(("precision.fp16", "precision.mixed"),))
 def fp16_on_bf16_model(ctx) -> None:
     f = _fp16_on(ctx.view)
     if f is None:

@@ -15,13 +15,26 @@ def _int(view, name):
     return None
 
 
+# top-level keys, in order -> the trainer family they point to (a frozen Guess); a cache: the key
+# tables the guess reads are fixed for the process, and the configs of a recipe repeat their keys
+_GUESS_CACHE: dict[tuple, object] = {}
+_GUESS_ENTRIES = 4096  # emptied when full: a bound on the memory a run of varied files takes
+
+
 def _guess(ctx):
     """The trainer family the view's top-level keys point to (guessed once per view)."""
-    from ..knowledge.trainers import guess
 
     def compute():
         data = ctx.view.doc.data if isinstance(ctx.view.doc.data, dict) else {}
-        return guess(list(data))
+        keys = tuple(data)
+        got = _GUESS_CACHE.get(keys)
+        if got is None:
+            from ..knowledge.trainers import guess
+
+            if len(_GUESS_CACHE) >= _GUESS_ENTRIES:
+                _GUESS_CACHE.clear()
+            got = _GUESS_CACHE[keys] = guess(list(keys))
+        return got
 
     return ctx.once("trainer-guess", compute)
 
@@ -30,7 +43,7 @@ def _trl_trainer_file(view) -> bool:
     return view.layout is not None and view.layout.trainer_defaults
 
 
-@check("rl-generation-batch-not-divisible")
+@check("rl-generation-batch-not-divisible", when=("rl.num_generations",))
 def generation_batch(ctx) -> None:
     view = ctx.view
     ng = _int(view, "rl.num_generations")
@@ -70,7 +83,7 @@ def generation_batch(ctx) -> None:
                    per_key=per_name, steps=k, steps_key=k_name, need=need)
 
 
-@check("rl-generation-batch-not-whole-steps")
+@check("rl-generation-batch-not-whole-steps", when=("rl.generation_batch",))
 def generation_batch_steps(ctx) -> None:
     view = ctx.view
     gen = _int(view, "rl.generation_batch")
@@ -105,7 +118,7 @@ def _multiple_near(value: int, step: int) -> int:
     return high if low < step or value - low >= high - value else low
 
 
-@check("rl-lengths-exceed-generation-engine")
+@check("rl-lengths-exceed-generation-engine", when=("data.max_completion", "rl.num_generations"))
 def lengths_vs_engine(ctx) -> None:
     view = ctx.view
     prompt, comp = _int(view, "data.max_prompt"), _int(view, "data.max_completion")
@@ -139,7 +152,7 @@ ONLINE_DPO_MAX_LENGTH = 512  # OnlineDPOConfig.max_length (TRL 0.13 and later, f
 DPO_MAX_LENGTH = 1024  # DPOConfig.max_length (TRL 0.12 and later)
 
 
-@check("online-dpo-new-tokens-fill-max-length")
+@check("online-dpo-new-tokens-fill-max-length", when=("rl.max_new_tokens",))
 def online_dpo_lengths(ctx) -> None:
     view = ctx.view
     new = _int(view, "rl.max_new_tokens")
@@ -158,7 +171,7 @@ def online_dpo_lengths(ctx) -> None:
         ctx.report(new, "default", key=new.key, new=new.value, ml=limit)
 
 
-@check("max-prompt-length-leaves-no-completion")
+@check("max-prompt-length-leaves-no-completion", when=("data.max_prompt",))
 def prompt_vs_max_length(ctx) -> None:
     view = ctx.view
     prompt = _int(view, "data.max_prompt")
@@ -206,7 +219,7 @@ def _trl_release(ctx):
     return version_key(pinned[0])[:2], pinned[0], pinned[1]
 
 
-@check("sft-batching-unsupported-by-release")
+@check("sft-batching-unsupported-by-release", when=(("data.padding_free", "data.packing"),))
 def sft_batching(ctx) -> None:
     view = ctx.view
     if not _trl_trainer_file(view):

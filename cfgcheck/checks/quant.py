@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from ..findings import Edit, Fix
-from . import check
+from . import ADAPTER, check
 
 # sections whose keys are BitsAndBytesConfig arguments, so its defaults apply to what is missing
 _BNB_SECTIONS = ("quantization_config", "bnb", "quantization", "bnb_config_kwargs")
@@ -36,7 +36,7 @@ def _loftq(view):
     return None
 
 
-@check("loftq-with-quantised-base")
+@check("loftq-with-quantised-base", when=(("adapter.init", "adapter.loftq"), ("quant.load_4bit", "quant.load_8bit", "quant.bits")))
 def loftq_with_quantised_base(ctx) -> None:
     view = ctx.view
     lq, q = _loftq(view), _quantised(view)
@@ -62,7 +62,7 @@ def loftq_with_quantised_base(ctx) -> None:
     ctx.report(q, fix=fix, key=q.key, loftq_key=lq.key)
 
 
-@check("quant-4bit-and-8bit-both-on")
+@check("quant-4bit-and-8bit-both-on", when=("quant.load_4bit", "quant.load_8bit"))
 def both_bits(ctx) -> None:
     view = ctx.view
     a, b = view.get("quant.load_4bit"), view.get("quant.load_8bit")
@@ -71,7 +71,7 @@ def both_bits(ctx) -> None:
     ctx.report(b, key4=a.key, key8=b.key)
 
 
-@check("quant-fp4-where-nf4-is-better")
+@check("quant-fp4-where-nf4-is-better", when=(("quant.load_4bit", "quant.bits"),))
 def fp4(ctx) -> None:
     view = ctx.view
     # the 4-bit quant type is read only when the base loads in 4 bits (8-bit ignores it)
@@ -112,7 +112,7 @@ def _half_dtype(ctx, written: str) -> tuple[str, str]:
     return half, why
 
 
-@check("quant-compute-dtype-fp32")
+@check("quant-compute-dtype-fp32", when=("quant.load_4bit",))
 def compute_fp32(ctx) -> None:
     view = ctx.view
     q = view.get("quant.load_4bit")
@@ -128,7 +128,8 @@ def compute_fp32(ctx) -> None:
         ctx.report(q, "default", key=q.key, section=q.path[0])
 
 
-@check("merge-into-quantised-base")
+@check("merge-into-quantised-base", when=("export.merge", ("quant.load_4bit", "quant.load_8bit", "quant.bits")),
+       methods=ADAPTER)
 def merge_into_quantised(ctx) -> None:
     view = ctx.view
     m = view.get("export.merge")

@@ -6,7 +6,7 @@ from types import MappingProxyType
 
 
 from ..findings import MAX_MAGNITUDE, number_text
-from ..schema import CONSTRAINTS, violations
+from ..schema import applicable, value_violations
 from . import check
 
 _WORDS = MappingProxyType({"below": "below the minimum", "not-above": "not above", "at-or-above": "at or above the limit"})
@@ -22,17 +22,50 @@ def yaml_word(word) -> str:
     return f'"{text}"' if isinstance(word, str) and text.lower() in _NOT_TEXT else text
 
 
+# (id of the constraints, type of the value, value) -> (the constraints, the violations: frozen
+# records, only read): a cache, since the constraints are fixed tables and a corpus writes the
+# same values again and again
+_VIOLATIONS_CACHE: dict[tuple, tuple] = {}
+_VIOLATIONS_ENTRIES = 8192  # emptied when full: a bound on the memory a run of varied values takes
+
+
+def _violations(name: str, value, constraints: tuple) -> tuple:
+    """``value_violations``, kept in the cache for the next time the value is met."""
+    found = tuple(value_violations(name, value, constraints))
+    try:
+        key = (id(constraints), value.__class__, value)
+        hash(key)
+    except TypeError:  # an unhashable value (a list of names): worked out each time
+        return found
+    if len(_VIOLATIONS_CACHE) >= _VIOLATIONS_ENTRIES:
+        _VIOLATIONS_CACHE.clear()
+    _VIOLATIONS_CACHE[key] = (constraints, found)
+    return found
+
+
 @check("value-outside-schema")
 def value_outside_schema(ctx) -> None:
     view = ctx.view
     layout = view.layout  # its word lists decide which accepted-word checks apply
-    ambiguous = {a.path for a in ctx.doc.ambiguities}  # yaml-version-dependent-value says it
+    ambiguities = ctx.doc.ambiguities
+    ambiguous = {a.path for a in ambiguities} if ambiguities else ()  # yaml-version-dependent-value says it
     for f in view.out_of_range:  # set aside by the view: no other rule uses these
         ctx.report(f, "too-large", key=f.key, value=number_text(f.written), limit=f"{MAX_MAGNITUDE:,}")
+    bounded = applicable(layout)  # field -> the constraints that hold in this layout
+    seen = _VIOLATIONS_CACHE
     for name, f in view.fields.items():
-        if name not in CONSTRAINTS or f.value is None or f.auto or f.path in ambiguous:
-            continue  # (a setting the schema does not bound has nothing to violate)
-        for v in violations(name, f.value, layout):
+        constraints = bounded.get(name)
+        if constraints is None:
+            continue  # a setting the schema does not bound has nothing to violate
+        value = f.value
+        if value is None or f.auto or f.path in ambiguous:
+            continue
+        try:  # the verdict on the same value met before (the cache below), else worked out
+            got = seen.get((id(constraints), value.__class__, value))
+        except TypeError:  # an unhashable value (a list of names)
+            got = None
+        found = got[1] if got is not None and got[0] is constraints else _violations(name, value, constraints)
+        for v in found:
             if v.problem == "not-one-of":
                 import difflib
 

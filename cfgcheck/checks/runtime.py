@@ -7,7 +7,7 @@ from . import check
 from .distributed import HF_DEFAULTS, link_path, main_path, trainer_defaults_apply
 
 
-@check("checkpointing-with-kv-cache")
+@check("checkpointing-with-kv-cache", when=("runtime.gradient_checkpointing", "runtime.use_cache"))
 def checkpointing_with_cache(ctx) -> None:
     view = ctx.view
     gc, cache = view.get("runtime.gradient_checkpointing"), view.get("runtime.use_cache")

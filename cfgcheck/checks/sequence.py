@@ -10,15 +10,12 @@ def _rope_scaling(data, depth: int = 0) -> bool:
     """Whether the file sets up RoPE scaling (``rope_scaling`` at the top or in a section)."""
     if not isinstance(data, dict) or depth > 2:
         return False
-    for key, value in data.items():
-        if key == "rope_scaling" and value not in (None, False, "", {}, "none", "null"):
-            return True
-        if isinstance(value, dict) and _rope_scaling(value, depth + 1):
-            return True
-    return False
+    if "rope_scaling" in data and data["rope_scaling"] not in (None, False, "", {}, "none", "null"):
+        return True
+    return any(_rope_scaling(value, depth + 1) for value in data.values() if isinstance(value, dict))
 
 
-@check("seq-len-above-context-window")
+@check("seq-len-above-context-window", when=("data.seq_len",))
 def seq_len_above_context(ctx) -> None:
     f = ctx.view.get("data.seq_len")
     if f is None or not isinstance(f.value, int) or isinstance(f.value, bool) or f.value <= 0:
@@ -50,7 +47,7 @@ _AWARE = frozenset({"flash_attention_2", "flash_attention_3", "kernels-community
           "kernels-community/vllm-flash-attn3", "flex_attention", "fa2", "fa3"})
 
 
-@check("packing-without-boundary-aware-attention")
+@check("packing-without-boundary-aware-attention", when=("data.packing",))
 def packing_attention(ctx) -> None:
     view = ctx.view
     f = view.get("data.packing")

@@ -6,7 +6,8 @@ import math
 import re
 from types import MappingProxyType
 
-from . import check
+from ..knowledge.models import UnsupportedFamily, linear_modules, target_names as model_target_names
+from . import ADAPTER, check
 
 _ALL_WORDS = frozenset({"all-linear", "all"})  # PEFT's "all-linear"; LLaMA-Factory's lora_target: all
 _ATTENTION = frozenset({"q_proj", "k_proj", "v_proj", "o_proj", "qkv_proj", "query_key_value", "c_attn",
@@ -19,12 +20,19 @@ _OTHER_LIBRARY_NAMES = MappingProxyType({"output_proj": "o_proj", "w1": "gate_pr
 _REGEX_CHARS = re.compile(r"[\\^$*+?()\[\]{}|]")
 
 
-def listed_targets(view) -> tuple[list[str] | None, object]:
+def listed_targets(view, ctx=None) -> tuple[list[str] | None, object]:
     """(names, field) when an adapter run lists its target modules by name, else (None, None)."""
     if not view.is_adapter:
         return None, None
-    names, how, f = target_names(view)
+    names, how, f = targets_of(ctx) if ctx is not None else target_names(view)
     return (names, f) if how == "list" and names else (None, None)
+
+
+def targets_of(ctx) -> tuple[list[str] | None, str, object]:
+    """``target_names`` of the context's view, worked out once for the rules of the view (they
+    only read it)."""
+    view = ctx.view
+    return ctx.once("lora-target-names", lambda: target_names(view))
 
 
 def target_names(view) -> tuple[list[str] | None, str, object]:
@@ -56,8 +64,6 @@ def _arch_or_judge(ctx):
         ctx.cannot_judge("the base model's architecture is not known offline "
                          "(name a local folder with config.json, or a model in the local hub cache)")
         return None
-    from ..knowledge.models import UnsupportedFamily, linear_modules
-
     try:
         return arch, linear_modules(arch)
     except UnsupportedFamily as exc:
@@ -65,10 +71,10 @@ def _arch_or_judge(ctx):
         return None
 
 
-@check("lora-target-not-in-model")
+@check("lora-target-not-in-model", when=("adapter.targets",), methods=ADAPTER)
 def target_not_in_model(ctx) -> None:
     view = ctx.view
-    names, f = listed_targets(view)
+    names, f = listed_targets(view, ctx)
     if not names:
         return
     layout = view.layout
@@ -80,9 +86,7 @@ def target_not_in_model(ctx) -> None:
         if got is None:
             return
         arch, _linear = got
-        from ..knowledge.models import target_names
-
-        known = set(target_names(arch))
+        known = set(model_target_names(arch))
         where = f"{arch.family} ({arch.source or 'model config'})"
     missing = [n for n in names if n.rsplit(".", 1)[-1] not in known and not _REGEX_CHARS.search(n)]
     if not missing:
@@ -102,7 +106,7 @@ def target_not_in_model(ctx) -> None:
                found=len(names) - len(missing), total=len(names))
 
 
-@check("lora-rank-above-matrix-dim")
+@check("lora-rank-above-matrix-dim", when=("adapter.rank",), methods=ADAPTER)
 def rank_above_dim(ctx) -> None:
     view = ctx.view
     if not view.is_adapter:
@@ -110,7 +114,7 @@ def rank_above_dim(ctx) -> None:
     rank_f = view.get("adapter.rank")
     if rank_f is None or not isinstance(rank_f.value, int) or rank_f.value <= 0:
         return
-    names, how, _ = target_names(view)
+    names, how, _ = targets_of(ctx)
     got = _arch_or_judge(ctx)
     if got is None:
         return
@@ -135,10 +139,10 @@ def rank_above_dim(ctx) -> None:
                smallest=smallest, family=arch.family)
 
 
-@check("lora-attention-only-targets")
+@check("lora-attention-only-targets", when=("adapter.targets",), methods=ADAPTER)
 def attention_only(ctx) -> None:
     view = ctx.view
-    names, f = listed_targets(view)
+    names, f = listed_targets(view, ctx)
     if not names:
         return
     if view.is_on("adapter.mlp"):
@@ -149,7 +153,7 @@ def attention_only(ctx) -> None:
     ctx.report(f, key=f.leaf, targets=", ".join(names))
 
 
-@check("lora-high-rank-standard-scaling")
+@check("lora-high-rank-standard-scaling", when=("adapter.rank",), methods=ADAPTER)
 def high_rank_standard(ctx) -> None:
     view = ctx.view
     if not view.is_adapter or view.layout is None or "adapter.rslora" not in view.layout.fields:
@@ -178,7 +182,7 @@ def _full_modules(view):
     return f, [n for n in names if str(n).rsplit(".", 1)[-1] in _EMBEDDINGS]
 
 
-@check("full-modules-at-adapter-lr")
+@check("full-modules-at-adapter-lr", when=("adapter.save_modules", "optim.lr"), methods=ADAPTER)
 def full_modules_at_adapter_lr(ctx) -> None:
     view = ctx.view
     if not view.is_adapter:
@@ -202,7 +206,7 @@ def full_modules_at_adapter_lr(ctx) -> None:
                suggestion=f"{lr_f.value / 10:.1e}")
 
 
-@check("tied-embeddings-trained-separately")
+@check("tied-embeddings-trained-separately", when=("adapter.save_modules",), methods=ADAPTER)
 def tied_trained_separately(ctx) -> None:
     view = ctx.view
     if not view.is_adapter:
@@ -226,7 +230,7 @@ def tied_trained_separately(ctx) -> None:
 _KERNELS = ("adapter.kernel_mlp", "adapter.kernel_qkv", "adapter.kernel_o")
 
 
-@check("lora-kernel-with-dropout-or-bias")
+@check("lora-kernel-with-dropout-or-bias", when=(("adapter.kernel_mlp", "adapter.kernel_qkv", "adapter.kernel_o"),))
 def kernel_dropout_bias(ctx) -> None:
     view = ctx.view
     kernels = [view.get(n) for n in _KERNELS if view.is_on(n)]

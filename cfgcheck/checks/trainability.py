@@ -17,7 +17,7 @@ def _word(f):
     return f.value.strip().lower() if f is not None and isinstance(f.value, str) else None
 
 
-@check("full-finetune-of-quantised-base")
+@check("full-finetune-of-quantised-base", when=(("quant.load_4bit", "quant.load_8bit", "quant.bits"),), methods=("full",))
 def full_of_quantised(ctx) -> None:
     view = ctx.view
     if view.method != "full":
@@ -33,7 +33,7 @@ def full_of_quantised(ctx) -> None:
     ctx.report(q, key=q.key, bits=bits, how=how)
 
 
-@check("fp16-weights-under-fp16-loss-scaling")
+@check("fp16-weights-under-fp16-loss-scaling", when=("model.dtype", "precision.fp16"), methods=("full",))
 def fp16_master(ctx) -> None:
     view = ctx.view
     if view.method != "full":
@@ -46,7 +46,7 @@ def fp16_master(ctx) -> None:
     ctx.report(fp, fix=fix, key=fp.key, dtype_key=dt.key, dtype=dt.written)
 
 
-@check("qlora-fp16-with-bf16-compute")
+@check("qlora-fp16-with-bf16-compute", when=(("quant.load_4bit", "quant.bits"), "quant.compute_dtype", "precision.fp16"))
 def qlora_fp16_bf16(ctx) -> None:
     view = ctx.view
     q, bits = quantised_field(view, bits=(4,))
@@ -63,7 +63,7 @@ _VARLEN = frozenset({"flash_attention_2", "flash_attention_3", "kernels-communit
 _FLASH = frozenset({"flash_attention_2", "flash_attention_3", "fa2", "fa3"})
 
 
-@check("attention-kernel-unsuited")
+@check("attention-kernel-unsuited", when=(("model.attention", "data.padding_free"),))
 def attention_kernel(ctx) -> None:
     view = ctx.view
     att = view.get("model.attention")
@@ -84,7 +84,7 @@ def attention_kernel(ctx) -> None:
         ctx.report(pf, "padding-free", key=pf.key, attention=word or "not set")
 
 
-@check("pad-token-is-eos")
+@check("pad-token-is-eos", when=("tokenizer.pad_token", "tokenizer.eos_token"))
 def pad_is_eos(ctx) -> None:
     view = ctx.view
     if view.layout is None or not view.layout.trainer_defaults:

@@ -45,7 +45,7 @@ def run_steps(ctx):
     return sched.total_steps, sched, how_text(sched)
 
 
-@check("warmup-longer-than-run")
+@check("warmup-longer-than-run", when=(("optim.warmup_steps", "optim.warmup_ratio"),))
 def warmup_longer_than_run(ctx) -> None:
     view = ctx.view
     steps_f, ratio_f = view.get("optim.warmup_steps"), view.get("optim.warmup_ratio")
@@ -81,7 +81,7 @@ def warmup_longer_than_run(ctx) -> None:
 _CONSTANT = frozenset({"constant"})
 
 
-@check("constant-schedule-ignores-warmup")
+@check("constant-schedule-ignores-warmup", when=("optim.scheduler", ("optim.warmup_steps", "optim.warmup_ratio")))
 def constant_ignores_warmup(ctx) -> None:
     view = ctx.view
     sched = view.get("optim.scheduler")
@@ -100,7 +100,7 @@ def constant_ignores_warmup(ctx) -> None:
             return
 
 
-@check("warmup-ratio-and-steps-both-set")
+@check("warmup-ratio-and-steps-both-set", when=("optim.warmup_steps", "optim.warmup_ratio"))
 def warmup_both(ctx) -> None:
     view = ctx.view
     if not _trainer_schedule(view):
@@ -112,7 +112,7 @@ def warmup_both(ctx) -> None:
     ctx.report(ratio_f, steps_key=steps_f.leaf, steps=steps, ratio_key=ratio_f.leaf, ratio=ratio)
 
 
-@check("max-steps-overrides-epochs")
+@check("max-steps-overrides-epochs", when=("optim.max_steps", "optim.epochs"))
 def max_steps_overrides_epochs(ctx) -> None:
     view = ctx.view
     if not _trainer_schedule(view):
@@ -136,7 +136,7 @@ _CADENCE = (("cadence.eval_steps", "cadence.eval_strategy", "evaluation"),
             ("cadence.logging_steps", None, "logging"))
 
 
-@check("run-too-short-for-cadence")
+@check("run-too-short-for-cadence", when=(("cadence.eval_steps", "cadence.logging_steps"),))
 def run_too_short(ctx) -> None:
     view = ctx.view
     total, _, how = run_steps(ctx)

@@ -14,16 +14,44 @@ Both tables are data with their sources; a family or format not listed is unknow
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass
 from types import MappingProxyType
 
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 
-@dataclass(frozen=True)
+
 class ChatFormat:
     name: str
     recognised_by: frozenset[str]  # a template holding any of these uses the format
     special: frozenset[str]  # its markers that are single special tokens where it is defined
     source: str
+
+    __slots__ = ('name', 'recognised_by', 'special', 'source')
+
+    def __init__(self, name, recognised_by, special, source):
+        _setattr(self, 'name', name)
+        _setattr(self, 'recognised_by', recognised_by)
+        _setattr(self, 'special', special)
+        _setattr(self, 'source', source)
+
+    @guarded_repr
+    def __repr__(self):
+        return f"{type(self).__qualname__}(name={self.name!r}, recognised_by={self.recognised_by!r}, special={self.special!r}, source={self.source!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.name, self.recognised_by, self.special, self.source) == (other.name, other.recognised_by, other.special, other.source)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.name, self.recognised_by, self.special, self.source))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.name, self.recognised_by, self.special, self.source)
+
+    __setstate__ = _frozen_setstate
 
 
 FORMATS: tuple[ChatFormat, ...] = (
@@ -59,7 +87,6 @@ TEXT_FORMATS = MappingProxyType({
 })
 
 
-@dataclass(frozen=True)
 class Vocabulary:
     family: str  # transformers model_type
     vocab_size: int | None  # None: every size of the family
@@ -67,7 +94,36 @@ class Vocabulary:
     source: str
     # the list holds every special and added token of the tokenizer (a marker-shaped token it
     # lacks is not in the vocabulary); False: the list holds the chat markers only
-    complete: bool = False
+    complete: bool
+
+    __slots__ = ('family', 'vocab_size', 'special', 'source', 'complete')
+
+    def __init__(self, family, vocab_size, special, source, complete=False):
+        _setattr(self, 'family', family)
+        _setattr(self, 'vocab_size', vocab_size)
+        _setattr(self, 'special', special)
+        _setattr(self, 'source', source)
+        _setattr(self, 'complete', complete)
+
+    @guarded_repr
+    def __repr__(self):
+        return f"{type(self).__qualname__}(family={self.family!r}, vocab_size={self.vocab_size!r}, special={self.special!r}, source={self.source!r}, complete={self.complete!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.family, self.vocab_size, self.special, self.source, self.complete) == (other.family, other.vocab_size, other.special, other.source, other.complete)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.family, self.vocab_size, self.special, self.source, self.complete))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.family, self.vocab_size, self.special, self.source, self.complete)
+
+    __setstate__ = _frozen_setstate
 
 
 _LLAMA2 = frozenset({"<unk>", "<s>", "</s>"})
