@@ -34,7 +34,9 @@ def test_total_equals_transformers_num_parameters(ref, arch):
 @pytest.mark.parametrize("ref,arch", CASES, ids=[c[0] for c in CASES])
 def test_module_tree_matches_named_modules(ref, arch):
     # reference: transformers' named_modules() names and parameter shapes; PEFT matches targets on these names
-    small = arch.__class__(**{**arch.__dict__, "num_layers": 2})
+    from cfgcheck._records import replaced
+
+    small = replaced(arch, num_layers=2)
     model = _meta_model(small)
     theirs = [(n, {p: tuple(t.shape) for p, t in m.named_parameters(recurse=False)}) for n, m in model.named_modules() if n]
     ours = [(n, {p: tuple(s) for p, s in params.items()}) for n, _kind, params in module_table(small)]
