@@ -7,14 +7,16 @@ user's overrides. Locations come from the document, never from a check.
 from __future__ import annotations
 
 import os
+from operator import attrgetter
 from pathlib import Path
 from typing import Any, Callable, Hashable, Iterable, Iterator
 
 from ._records import guarded_repr
 from . import load as loadmod
 from . import memo
+from . import run as runmod, sweep
 from .catalogue import Rule, load_catalogue
-from .checks import all_checks, declared, registered
+from .checks import Table, all_checks, declared
 from .findings import FileReport, Finding, Fix, InputProblem, InternalError, Related, Report, Severity, new_finding, shown_data
 from .knowledge.hardware import Gpu
 from .load import Document, LoadError, dotted, walk_paths
@@ -110,7 +112,7 @@ class Context:
 
     __slots__ = ("view", "run", "waivers", "waiver_paths", "earlier", "active", "doc", "rule",
                  "options", "_sink", "file", "_thresholds", "_judged_once", "_model_assumption",
-                 "_once")
+                 "_once", "_root")
 
     def __init__(self, view: RunView, rule: Rule, options: Options, sink: list[Finding],
                  file: str, waivers: list | None = None, earlier: list[Finding] | None = None,
@@ -131,6 +133,7 @@ class Context:
         self._judged_once: set[str] | None = None  # made on the first cannot_judge
         self._model_assumption = ""  # set when the rule asked for a model matched by name alone
         self._once: dict | None = None  # answers shared by the rules of this view (``once``)
+        self._root: tuple | None = None  # where a finding on the whole document goes (_root_place)
 
     @property
     def thresholds(self) -> dict[str, Any]:
@@ -241,8 +244,29 @@ class Context:
             message, hint = got
             data = {"reason": what}
         data["judged"] = False
-        self._sink.append(_finding(rule.id, Severity.INFO, self.doc, self.file, (), "value",
-                                   message, hint, data))
+        root = self._root
+        if root is None:
+            root = self._root = _root_place(self.doc, self.file)
+        file, line, column, note = root
+        if note:
+            data = dict(data, overrides=note)
+        self._sink.append(new_finding(rule.id, Severity.INFO, file, line, column, "", message,
+                                      hint, data, (), self.doc.index))
+
+
+def _root_place(doc: Document, file: str) -> tuple[str, int, int, str]:
+    """(file, line, column, overrides note) of a finding on the whole of DOC, as ``_finding``
+    places one at the empty key path: the same for every such finding of the document."""
+    line, column = _location(doc, (), "value")
+    note = ""
+    if doc.origins:
+        origin = _origin_of(doc, ())
+        if origin is not None and origin != file:
+            file = origin
+        from .compose import overridden_note
+
+        note = overridden_note(doc, ())
+    return file, line, column, note
 
 
 JUDGED_TEXT_CACHE_SIZE = 4096
@@ -356,9 +380,64 @@ def active_rules(options: Options) -> list[tuple[Rule, Any]]:
     return [(rule, checks[rule.id]) for rule in rules]
 
 
+PLAN_CACHE_SIZE = 4096
+# (only, skip, method, the declared fields the view has, versions of the check and needs tables)
+# -> the (rule, check, runs last) to run on such a view, in order
+_PLAN_CACHE: dict[tuple, tuple[tuple[Rule, Any, bool], ...]] = {}
+# (id of the needs table, its version) -> every view field a declaration names
+_DECLARED_FIELDS_CACHE: dict[tuple[int, int], tuple[Any, frozenset[str]]] = {}
+
+
+def _declared_fields(needs: Table) -> frozenset[str]:
+    key = (id(needs), needs.version)
+    got = _DECLARED_FIELDS_CACHE.get(key)
+    if got is None or got[0] is not needs:
+        _DECLARED_FIELDS_CACHE.clear()
+        got = _DECLARED_FIELDS_CACHE[key] = (needs, frozenset().union(*[n.fields for n in needs.values()]))
+    return got[1]
+
+
+def _plan(options: Options, view: RunView, needs: Any) -> tuple[tuple[Rule, Any, bool], ...]:
+    """The rules to run on VIEW, with their checks, in order: a check that declared what it
+    needs (checks.Needs) is passed over on a view that lacks it (only on an opened view, whose
+    fields and supplied values are all there before any rule runs). Which rules those are
+    depends only on the rules selected, the view's method and which of the declared fields it
+    has, so the list is worked out once per such kind of view while neither table changes."""
+    checks = all_checks()  # looked up each time: a check may be replaced (tests do)
+    if not needs:
+        rules, _ids = _selected(options)
+        return tuple([(rule, checks[rule.id], rule.stage == "last") for rule in rules])
+    if type(needs) is Table and type(checks) is Table:
+        names = _declared_fields(needs)
+        has = names.intersection(view.fields) | names.intersection(view.supplied)
+        key = (options.only, options.skip, view.method, has, id(needs), needs.version,
+               id(checks), checks.version)
+        got = _PLAN_CACHE.get(key)
+        if got is not None and got[0] is needs and got[1] is checks:
+            return got[2]
+    else:  # a table of another kind (tests replace one): worked out for this view alone
+        key = has = None
+    rules, _ids = _selected(options)
+    present = has if has is not None else view.fields.keys() | view.supplied.keys()
+    method = view.method
+    plan = []
+    for rule in rules:
+        fn = checks[rule.id]
+        need = needs.get(rule.id)
+        if need is not None and not need.met(method, present) and fn is need.check:
+            continue  # provably nothing to say (tests/test_check_needs.py)
+        plan.append((rule, fn, rule.stage == "last"))
+    plan = tuple(plan)
+    if key is not None:
+        if len(_PLAN_CACHE) >= PLAN_CACHE_SIZE:
+            _PLAN_CACHE.clear()
+        _PLAN_CACHE[key] = (needs, checks, plan)
+    return plan
+
+
 def lint_view(view: RunView, options: Options, file: str, report: FileReport,
               waivers: list | None = None) -> None:
-    rules = active_rules(options)
+    plan = _plan(options, view, declared() if view.run is not None else None)
     active = _selected(options)[1]
     findings = report.findings
     start = len(findings)
@@ -366,27 +445,14 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport,
     paths = waivermod.target_paths(view.doc, targets) if targets else {}
     # one context for the view; each rule reports straight into the file's findings, and what a
     # rule that fails had reported is taken back out
-    ctx = Context(view, rules[0][0] if rules else None, options, findings, file, waivers=waivers,
+    ctx = Context(view, plan[0][0] if plan else None, options, findings, file, waivers=waivers,
                   active=active, waiver_paths=paths)
-    # a check that declared what it needs (checks.Needs) is passed over on a view that lacks it;
-    # only on an opened view, whose fields and supplied values are all there before any rule runs
-    needs = declared() if view.run is not None else None
-    present = None  # the names of the view's fields and supplied values, made on first use
-    method = view.method
-    checks = registered()
-    for rule, fn in rules:
-        if needs:
-            need = needs.get(rule.id)
-            if need is not None:
-                if present is None:
-                    present = view.fields.keys() | view.supplied.keys()
-                if not need.met(method, present) and checks.get(rule.id) is need.check:
-                    continue  # provably nothing to say (tests/test_check_needs.py)
-        if ctx.rule is not rule:  # the next rule: nothing of the last rule's stays
-            ctx.rule = rule
-            ctx._thresholds = ctx._judged_once = None
-            ctx._model_assumption = ""
-        if rule.stage == "last":
+    for rule, fn, last in plan:
+        # the next rule: nothing of the last rule's stays
+        ctx.rule = rule
+        ctx._thresholds = ctx._judged_once = None
+        ctx._model_assumption = ""
+        if last:
             ctx.earlier = findings[start:]
         mark = len(findings)
         try:
@@ -441,6 +507,8 @@ def _apply_waivers(waivers: list, targets: dict[int, list[tuple]], options: Opti
 
 
 WAIVER_RULE = "waiver-comment-problem"
+_NO_OVERRIDES = ((), ())  # split_overrides of no overrides: nothing fixed, nothing varying
+_FINDING_ORDER = attrgetter("document", "line", "column", "rule")  # how a file's findings are sorted
 
 
 def lint_documents(docs: list[Document], file: str, options: Options,
@@ -458,25 +526,22 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             line = w.target or w.line
             owner = next((i for end, i in ends if line <= end), ends[-1][1] if ends else None)
             owners.setdefault(owner, []).append(w)
-    from .run import open_view  # the one open path: links, launch context, defaults
+    open_view = runmod.open_view  # the one open path: links, launch context, defaults
+    script_layer = runmod.script_layer
+
+    def run(view: RunView) -> tuple[list[Finding], list[InternalError]]:
+        sub = FileReport(file=file)
+        if not view.skipped:
+            open_view(view, file, options)  # the one open path, for each run of a sweep too
+        lint_view(view, options, file, sub)
+        return sub.findings, sub.internal
 
     for doc in docs:
         try:  # the crash boundary of one document: a bug here spares the other documents
-            from . import sweep
-
-            def run(view: RunView) -> tuple[list[Finding], list[InternalError]]:
-                sub = FileReport(file=file)
-                if not view.skipped:
-                    open_view(view, file, options)  # the one open path, for each run of a sweep too
-                lint_view(view, options, file, sub)
-                return sub.findings, sub.internal
-
             if sweep.is_sweep(doc.data):  # a sweep file: lint its runs
                 sweep.lint_sweep(doc, file, run, report, layout)
                 continue
-            from .run import script_layer
-
-            fixed, varying = sweep.split_overrides(options.overrides)
+            fixed, varying = sweep.split_overrides(options.overrides) if options.overrides else _NO_OVERRIDES
             if varying and not file.startswith("<"):  # list-valued overrides: one run per combination
                 from . import compose
 
@@ -513,16 +578,14 @@ def lint_documents(docs: list[Document], file: str, options: Options,
         report.findings = [f for f in report.findings if f.file == located_in]
     elif script is not None and options.script_linted and script.file != file:
         report.findings = [f for f in report.findings if f.file != script.file]
-    report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
+    report.findings.sort(key=_FINDING_ORDER)
     return report
 
 
 def _composed(doc: Document, file: str, options: Options, report: FileReport) -> Document:
     """DOC composed (``run.composed``); a named file that cannot be read leaves it as written,
     with the reason kept in the report."""
-    from .run import composed
-
-    out, problem = composed(doc, file, options)
+    out, problem = runmod.composed(doc, file, options)
     if problem:
         report.compose_problem = problem
     return out
@@ -583,7 +646,7 @@ def lint_script(path: str | Path, options: Options | None = None) -> FileReport:
     if not report.layout and not report.internal:
         report.skipped = ("a shell script that starts no training" if not launches
                           else "a launch script with no trainer arguments of its own")
-    report.findings.sort(key=lambda f: (f.document, f.line, f.column, f.rule))
+    report.findings.sort(key=_FINDING_ORDER)
     return report
 
 

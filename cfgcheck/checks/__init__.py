@@ -26,11 +26,54 @@ import importlib
 import os
 from typing import Callable
 
+class Table(dict):
+    """A dict that counts its changes (``version``), so a table worked out from it (the
+    engine's rules to run per kind of view) knows when an entry was added, replaced or removed."""
+
+    __slots__ = ("version",)
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.version = 0
+
+    def __setitem__(self, key, value):
+        self.version += 1
+        super().__setitem__(key, value)
+
+    def __delitem__(self, key):
+        self.version += 1
+        super().__delitem__(key)
+
+    def __ior__(self, other):
+        self.version += 1
+        return super().__ior__(other)
+
+    def pop(self, *args):
+        self.version += 1
+        return super().pop(*args)
+
+    def popitem(self):
+        self.version += 1
+        return super().popitem()
+
+    def setdefault(self, key, default=None):
+        self.version += 1
+        return super().setdefault(key, default)
+
+    def update(self, *args, **kwargs):
+        self.version += 1
+        super().update(*args, **kwargs)
+
+    def clear(self):
+        self.version += 1
+        super().clear()
+
+
 # rule id -> check: filled by the decorator as the modules load, so a cache of what the package
 # holds (read once per process; tests may replace an entry)
-_CHECKS_CACHE: dict[str, Callable] = {}
+_CHECKS_CACHE: Table = Table()
 # rule id -> what its check declared it needs (``Needs``): filled by the decorator with the above
-_NEEDS_CACHE: dict[str, "Needs"] = {}
+_NEEDS_CACHE: Table = Table()
 
 ADAPTER = ("lora", "qlora")  # the adapter methods (``RunView.is_adapter``)
 
