@@ -207,3 +207,48 @@ def test_taking_away_what_a_check_needs_leaves_it_nothing_to_say(tmp_path, monke
                         assert said == [], f"{name}: {rule_id} says something about a {method} run"
                         tried += 1
     assert tried > 100
+
+
+def test_the_tables_of_checks_and_declarations_count_every_change():
+    from cfgcheck.checks import Table
+
+    t = Table(a=1)
+    assert t.version == 0 and t == {"a": 1}
+    t["b"] = 2
+    t.update(c=3)
+    t.setdefault("d", 4)
+    del t["a"]
+    t.pop("b")
+    t |= {"e": 5}
+    t.popitem()
+    t.clear()
+    assert t.version == 8 and t == {}
+
+
+def test_the_rules_passed_over_are_worked_out_again_when_a_check_or_a_declaration_changes(monkeypatch):
+    # which rules run on a kind of view is kept between views: replacing a check or its
+    # declaration (and putting them back) must be seen at once
+    from cfgcheck import checks
+
+    rule_id = "lora-rank-above-matrix-dim"
+    without = "base_model: some-org/tiny\nadapter: lora\nlearning_rate: 0.0002\nmicro_batch_size: 2\n"
+    opts = dict(only=[rule_id])
+    calls = []
+
+    def counting(ctx):
+        calls.append(ctx.view.method)
+
+    api.lint_text(without, "a.yaml", **opts)  # the kind of view seen once with the tables as they are
+    with monkeypatch.context() as m:
+        m.setitem(checks._CHECKS_CACHE, rule_id, counting)  # a replaced check declares nothing
+        api.lint_text(without, "a.yaml", **opts)
+        assert calls == ["lora"]
+        m.setitem(checks._NEEDS_CACHE, rule_id, Needs(counting, (frozenset({"adapter.rank"}),), None))
+        api.lint_text(without, "a.yaml", **opts)
+        assert calls == ["lora"]  # declared for it: passed over on a view without the rank
+        m.delitem(checks._NEEDS_CACHE, rule_id)
+        api.lint_text(without, "a.yaml", **opts)
+        assert calls == ["lora", "lora"]  # no declaration any more: it runs
+    assert checks.registered()[rule_id] is not counting
+    api.lint_text(without, "a.yaml", **opts)
+    assert calls == ["lora", "lora"]  # the check as it was, passed over as before

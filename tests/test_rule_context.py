@@ -98,3 +98,36 @@ def test_installed_releases_are_looked_up_once_per_view(monkeypatch, tmp_path):
     assert calls == [str(cfg)]
     rules = {f.rule for f in report.findings}
     assert "key-not-in-release" in rules  # evaluation_strategy on transformers 4.57.1
+
+
+def test_a_not_checked_note_is_placed_as_any_finding_on_the_whole_document(tmp_path, monkeypatch):
+    # the note's place (file, line, column, the composed note) is worked out once per view: it is
+    # the place the engine gives any finding at the empty key path of that document
+    from cfgcheck import engine
+
+    first, second = _two_rules_with_thresholds()
+    pairs = []
+
+    def unsure(ctx):
+        ctx.cannot_judge("nothing to go on")
+        made = ctx._sink[-1]
+        data = {"reason": "nothing to go on", "judged": False}
+        pairs.append((made, engine._finding(made.rule, Severity.INFO, ctx.doc, ctx.file, (), "value",
+                                            made.message, made.hint, data)))
+
+    for rid in (first, second):
+        monkeypatch.setitem(checks.all_checks(), rid, unsure)
+    (tmp_path / "base.yaml").write_text("model_name_or_path: acme/tiny-1b\nlearning_rate: 2.0e-5\n")
+    (tmp_path / "run.yaml").write_text("base_config: base.yaml\nwarmup_steps: 100\n")
+    (tmp_path / "hydra.yaml").write_text("defaults:\n  - base\n  - _self_\nlearning_rate: 1.0e-4\n")
+    (tmp_path / "two.yaml").write_text("learning_rate: 1.0e-5\n---\n\n\n  lora_r: 8\n")
+    (tmp_path / "one.json").write_text('\n\n  {"learning_rate": 1e-5, "lora_r": 8}\n')
+    for name in ("run.yaml", "hydra.yaml", "two.yaml", "one.json"):
+        engine.lint_file(tmp_path / name, engine.Options())
+    assert len(pairs) >= 10
+    for made, expected in pairs:
+        assert made == expected
+        assert (made.file, made.line, made.column, made.key, made.data, made.document, made.message,
+                made.hint) == (expected.file, expected.line, expected.column, expected.key,
+                               expected.data, expected.document, expected.message, expected.hint)
+    assert {made.document for made, _ in pairs} == {0, 1}
