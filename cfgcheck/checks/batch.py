@@ -89,9 +89,13 @@ _INTERVALS = (
 @check("cadence-longer-than-run", when=(("cadence.eval_steps", "cadence.logging_steps"),))
 def cadence_longer_than_run(ctx) -> None:
     view = ctx.view
-    intervals = [(view.get(n), s, what) for n, s, what in _INTERVALS if view.get(n) is not None]
-    intervals = [(f, s, w) for f, s, w in intervals if isinstance(f.value, (int, float))
-                 and not isinstance(f.value, bool) and f.value >= 1 and math.isfinite(f.value)]
+    intervals = []
+    for n, s, what in _INTERVALS:
+        f = view.get(n)
+        if f is not None:
+            v = f.value
+            if isinstance(v, (int, float)) and not isinstance(v, bool) and v >= 1 and math.isfinite(v):
+                intervals.append((f, s, what))
     if not intervals:
         return
     total, sched, how = run_steps(ctx)

@@ -24,10 +24,18 @@ resizes the vocabulary and no trainable-module list is written (``layout.vocab_r
 from __future__ import annotations
 
 import re
+from functools import cache
 
 from ..findings import Edit, Fix
 from ..load import dotted
 from . import check
+
+
+@cache  # looked up once: an import inside a function costs a package lookup per call
+def _chat_tokens():
+    from ..knowledge import chat_tokens  # the token tables load on first use only
+
+    return chat_tokens
 
 EMBEDDING_NAMES = frozenset({"embed_tokens", "wte", "tok_embeddings", "word_embeddings", "embeddings",
                    "embed_in", "tok_embed"})
@@ -82,10 +90,8 @@ class _Vocab:
     """What the base vocabulary is known to hold."""
 
     def __init__(self, arch):
-        from ..knowledge import chat_tokens
-
         self.arch = arch
-        self.table = chat_tokens.vocabulary(arch.family, arch.vocab_size) if arch is not None else None
+        self.table = _chat_tokens().vocabulary(arch.family, arch.vocab_size) if arch is not None else None
 
     @property
     def words(self) -> str:
@@ -99,8 +105,7 @@ class _Vocab:
         Without a complete list, only a chat format's own markers (ChatML's, Llama 3's...) are
         taken as missing, by assumption: a base's own special tokens (``<|endoftext|>``, ``</s>``)
         are in many vocabularies and are not judged."""
-        from ..knowledge import chat_tokens
-
+        chat_tokens = _chat_tokens()
         sure, assumed = [], []
         for t in dict.fromkeys(tokens):
             if not chat_tokens.marker_shaped(t):
@@ -138,9 +143,7 @@ def chat_format(ctx) -> None:
     stop = (list(layout.template_stop_words.get(named.value.strip().lower(), ()))
             if named is not None and isinstance(named.value, str) else [])
     explicit = _names(tokens.value, comma) if tokens is not None else []
-    if template is not None:
-        from ..knowledge import chat_tokens
-    fmt, special = (chat_tokens.special_markers(template.value) if template is not None
+    fmt, special = (_chat_tokens().special_markers(template.value) if template is not None
                     else (None, set()))
     if not (special or explicit or roles or stop):
         return  # text role markers are made of tokens the base already has: nothing is new

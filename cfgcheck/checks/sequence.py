@@ -12,7 +12,12 @@ def _rope_scaling(data, depth: int = 0) -> bool:
         return False
     if "rope_scaling" in data and data["rope_scaling"] not in (None, False, "", {}, "none", "null"):
         return True
-    return any(_rope_scaling(value, depth + 1) for value in data.values() if isinstance(value, dict))
+    if depth == 2:
+        return False  # the mappings inside are past the depth looked at
+    for value in data.values():
+        if isinstance(value, dict) and _rope_scaling(value, depth + 1):
+            return True
+    return False
 
 
 @check("seq-len-above-context-window", when=("data.seq_len",))

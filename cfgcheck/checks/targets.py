@@ -64,11 +64,22 @@ def _arch_or_judge(ctx):
         ctx.cannot_judge("the base model's architecture is not known offline "
                          "(name a local folder with config.json, or a model in the local hub cache)")
         return None
-    try:
-        return arch, linear_modules(arch)
-    except UnsupportedFamily as exc:
-        ctx.cannot_judge(str(exc))
+    # the model's linear layers (only read), or why it has none known: worked out once for the
+    # rules of the view that ask, for this very architecture object
+    got = ctx.once(("linear-modules", id(arch)), lambda: (arch, _linear_or_reason(arch)))
+    linear = got[1] if got[0] is arch else _linear_or_reason(arch)
+    if isinstance(linear, str):
+        ctx.cannot_judge(linear)
         return None
+    return arch, linear
+
+
+def _linear_or_reason(arch):
+    """``linear_modules(arch)``, or the reason its family has none known (a text)."""
+    try:
+        return linear_modules(arch)
+    except UnsupportedFamily as exc:
+        return str(exc)
 
 
 @check("lora-target-not-in-model", when=("adapter.targets",), methods=ADAPTER)

@@ -23,6 +23,7 @@ belongs to the repository's own script.
 from __future__ import annotations
 
 from functools import cache, lru_cache
+from itertools import filterfalse
 
 from ..layouts import keys_read
 from . import check
@@ -308,11 +309,13 @@ def unknown_key(ctx) -> None:
             special.update(h for h, v in data.items() if isinstance(v, dict) and "_component_" in v)
     paths, table = known.paths, known.keys
     judge = _Lazy(ctx, table_name)
-    for path, entry in doc.entries.items():
-        name = paths.get(path)  # a known key, written where its parent has keys
-        if name is not None and (not special or path[0] not in special) \
-                and (not check_current or table[name][2]):
-            continue
+    entries = doc.entries
+    if special or check_current:
+        unsettled = _unsettled(entries, paths, special, table, check_current)
+    else:  # every known key path is settled: the others, in the document's order, by C code
+        unsettled = filterfalse(paths.__contains__, entries)
+    for path in unsettled:
+        entry = entries[path]
         if not path or not entry.keyed:
             continue
         last = path[-1]
@@ -324,6 +327,18 @@ def unknown_key(ctx) -> None:
             continue
         _judge_key(ctx, judge, known, path, parent, f"{parent}.{last}" if parent else last,
                    data, check_current)
+
+
+def _unsettled(entries: dict, paths: dict, special: set, table: dict, check_current: bool):
+    """The written key paths that are not plainly a known key (in the document's order): a
+    known key written inside a special section, or one not current when that is judged here,
+    is looked at too. (``paths`` maps a path to a name, never to None.)"""
+    for path in entries:
+        name = paths.get(path)  # a known key, written where its parent has keys
+        if name is not None and (not special or path[0] not in special) \
+                and (not check_current or table[name][2]):
+            continue
+        yield path
 
 
 def _judge_key(ctx, judge: _Lazy, known, path: tuple, parent: str, name: str, data,
