@@ -429,7 +429,7 @@ def derive(
 ) -> None:
     """Show the derived run: parameters, batch, steps and the memory estimate per GPU."""
     from . import api
-    from .findings import json_text, printable
+    from .findings import printable
 
     try:
         result = api.derive(paths, gpu=gpu, gpus=gpus, rows=rows, launch=launch or None,
@@ -437,9 +437,11 @@ def derive(
     except _input_errors() as exc:  # an unknown GPU name, a bad project file
         _fail(_input_message(exc), api.EXIT_INPUT)
     if fmt is PlanFormat.json:
-        _write(json_text({"runs": [dict(p.as_dict(), file=f) for f, p in result.runs],
-                          "input_errors": [e.as_dict() for e in result.problems],
-                          "internal_errors": [e.as_dict() for e in result.internal]}) + "\n")
+        from .render.jsonitems import indented  # json_text's layout, without the pure-Python encoder
+
+        _write(indented({"runs": [dict(p.as_dict(), file=f) for f, p in result.runs],
+                         "input_errors": [e.as_dict() for e in result.problems],
+                         "internal_errors": [e.as_dict() for e in result.internal]}) + "\n")
     else:
         from .render.plan import render_plan
 

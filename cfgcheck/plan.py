@@ -298,7 +298,8 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
 
     ``describe=False``: only the memory estimate (``memory``, ``memory_problem``, ``memory_inputs``)
     and what it rests on are worked out the same way; the words and numbers that only describe the
-    run (launch context, defaults used, learning rate, schedule intervals) are left out."""
+    run (launch context, defaults used, learning rate, schedule intervals, the assumptions the
+    estimate rests on beyond the sequence length and load dtype) are left out."""
     run = view.run
     ref = view.value("model.ref")
     plan = Plan(method=view.method, method_stated=view.method_stated,
@@ -321,7 +322,7 @@ def derive_plan(view: RunView, arch: Architecture | None, *, gpu: Gpu | None, gp
     plan.seq_len = seq
     if describe:
         _describe_run(view, plan, sched, seq)
-    return _derive_memory(view, arch, plan, run, n_gpus, per_device, ref)
+    return _derive_memory(view, arch, plan, run, n_gpus, per_device, ref, describe)
 
 
 def _describe_defaults(view: RunView, plan: Plan, sched: Schedule) -> None:
@@ -384,7 +385,8 @@ def no_estimate(view: RunView, arch: Architecture | None, ref: Any = _UNREAD) ->
     return None
 
 
-def _derive_memory(view: RunView, arch: Architecture | None, plan: Plan, run, gpus: int, per_device, ref) -> Plan:
+def _derive_memory(view: RunView, arch: Architecture | None, plan: Plan, run, gpus: int, per_device, ref,
+                   describe: bool = True) -> Plan:
     problem = no_estimate(view, arch, ref)
     if problem is not None:
         plan.memory_problem = problem
@@ -394,14 +396,18 @@ def _derive_memory(view: RunView, arch: Architecture | None, plan: Plan, run, gp
         inputs = memory_inputs(view, arch, plan, gpus=gpus, per_device=per_device)
         if inputs.sharding != "none" and (run is None or run.gpus is None):
             plan.gpus_assumed = True
-            plan.assumptions.append(f"1 GPU because nothing names the GPU count, so {inputs.sharding} "
-                                    f"shards nothing (pass --gpus N or --launch FILE)")
-        if _offload_params(view):
-            plan.assumptions.append("the weights on the GPU, though the launch offloads parameters to CPU "
-                                    "memory (not modelled: the estimate is an upper bound)")
-        if inputs.sharding == "none" and not _sharding_known(view):
-            plan.assumptions.append("no ZeRO/FSDP sharding because no launch context names it "
-                                    "(pass --launch FILE, or --gpus 1 for a single-GPU run)")
+            if describe:
+                plan.assumptions.append(f"1 GPU because nothing names the GPU count, so {inputs.sharding} "
+                                        f"shards nothing (pass --gpus N or --launch FILE)")
+        # the words of what the estimate rests on (the GPU count, offloaded parameters, sharding
+        # nothing names) change no number: only a described plan looks them up
+        if describe:
+            if _offload_params(view):
+                plan.assumptions.append("the weights on the GPU, though the launch offloads parameters to CPU "
+                                        "memory (not modelled: the estimate is an upper bound)")
+            if inputs.sharding == "none" and not _sharding_known(view):
+                plan.assumptions.append("no ZeRO/FSDP sharding because no launch context names it "
+                                        "(pass --launch FILE, or --gpus 1 for a single-GPU run)")
         plan.memory_inputs = inputs
         plan.memory = _estimate(inputs)
         plan.trainable_parameters = plan.memory.trainable_parameters

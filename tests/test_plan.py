@@ -217,3 +217,38 @@ def test_the_rule_says_why_there_is_no_estimate_as_the_plan_does(tmp_path, extra
     rep = api.lint([cfg], project=None, gpu="a10")
     (f,) = [f for f in rep.findings if f.rule == "memory-exceeds-gpu"]
     assert f.severity == Severity.INFO and f.data["reason"] == plan.memory_problem
+
+
+@pytest.mark.parametrize("extra", [
+    "",  # nothing names the sharding
+    "deepspeed: ds.json\n",  # ZeRO-3 with parameter offload, and no GPU count
+    "fsdp: full_shard auto_wrap\n",
+    "max_seq_length: 0\n",  # an assumed sequence length
+])
+def test_the_bare_estimate_keeps_every_number_of_the_described_plan(tmp_path, extra):
+    # without describe the plan leaves out the words of what the estimate rests on (the memory
+    # rule reads them only from the described plan it makes before it reports); every number
+    # and the reason for no estimate stay as the described plan has them
+    from cfgcheck.engine import Options
+    from cfgcheck.load import load_text
+    from cfgcheck.plan import derive_plan, model_of
+    from cfgcheck.run import open_view
+    from cfgcheck.view import build_view
+
+    (tmp_path / "ds.json").write_text(json.dumps({"zero_optimization": {
+        "stage": 3, "offload_param": {"device": "cpu"}, "offload_optimizer": {"device": "cpu"}}, "bf16": {"enabled": True}}))
+    text = FULL_7B.replace("max_seq_length: 2048\n", "") + extra
+    cfg = tmp_path / "run.yaml"
+    cfg.write_text(text)
+    (doc,) = load_text(text, str(cfg))
+    view = build_view(doc)
+    run = open_view(view, str(cfg), Options())
+    arch = model_of(view, str(cfg), None)
+    bare = derive_plan(view, arch, gpu=None, gpus=run.gpus, rows=None, describe=False)
+    described = derive_plan(view, arch, gpu=None, gpus=run.gpus, rows=None)
+    assert bare.memory is not None and bare.memory == described.memory
+    assert (bare.memory_inputs, bare.memory_problem, bare.gpus_assumed, bare.seq_len, bare.seq_len_assumed,
+            bare.total_parameters, bare.trainable_parameters) == \
+        (described.memory_inputs, described.memory_problem, described.gpus_assumed, described.seq_len,
+         described.seq_len_assumed, described.total_parameters, described.trainable_parameters)
+    assert set(bare.assumptions) <= set(described.assumptions)

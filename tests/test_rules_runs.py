@@ -3,6 +3,7 @@ against the release in use: their numbers, their certainty and where they point.
 
 from __future__ import annotations
 
+import contextlib
 import json
 
 import pytest
@@ -274,3 +275,28 @@ def test_broken_pin_files_are_passed_over(tmp_path):
     pins._folder_pins.cache_clear()
     assert {lib: p.version for lib, p in pins.pins_near(str(cfg)).items()} == {"trl": "0.12.2"}
     assert _lint_file(cfg) is not None
+
+
+def test_the_versions_pinned_near_a_config_are_its_pins_in_words(tmp_path):
+    # key-not-in-release reads the folder's pins as (version, where), one read-only mapping per
+    # folder in a run: the same pins, in the same order, as pins_near finds for each config
+    from cfgcheck.memo import scope
+
+    (tmp_path / "pyproject.toml").write_text('[project]\nname = "x"\ndependencies = ["trl==0.9.6", "peft==0.10.0"]\n')
+    sub = tmp_path / "recipes"
+    sub.mkdir()
+    (sub / "requirements.txt").write_text("trl==0.12.2\ntransformers==4.44.2\n")
+    first, second = sub / "a.yaml", sub / "b.yaml"
+    for cfg in (first, second):
+        cfg.write_text("learning_rate: 1.0e-5\n")
+    link = tmp_path / "link.yaml"
+    link.symlink_to(first)
+    for kept in (False, True):
+        with scope() if kept else contextlib.nullcontext():
+            for cfg in (first, second, link):
+                expected = [(lib, (p.version, f"pinned in {p.source}")) for lib, p in pins.pins_near(str(cfg)).items()]
+                got = pins.pinned_versions_near(str(cfg))
+                assert list(got.items()) == expected and expected
+                with pytest.raises(TypeError):
+                    got["trl"] = ("1", "x")  # shared by the folder's configs: never changed
+    assert dict(pins.pinned_versions_near("<text>")) == {} == dict(pins.pinned_versions_near("not-here/x.yaml"))

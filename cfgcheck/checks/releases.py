@@ -44,9 +44,9 @@ def _status(lib: str, first: str, last: str, pinned: str) -> tuple[str, str]:
     return "unsure", first
 
 
-def installed(ctx) -> dict:
-    """{library: (version, where)}: --installed first, then the pins beside the config (looked
-    up once per view, whichever rules ask)."""
+def installed(ctx):
+    """{library: (version, where)} (read-only): --installed first, then the pins beside the
+    config (looked up once per view, whichever rules ask)."""
     return ctx.once("installed", lambda: _installed(ctx))
 
 
@@ -57,10 +57,14 @@ def _pins_module():
     return pins
 
 
-def _installed(ctx) -> dict:
-    out = {lib: (pin.version, f"pinned in {pin.source}")
-           for lib, pin in _pins_module().pins_near(ctx.file, ctx.options.cwd).items()}
-    for lib, version in (getattr(ctx.options, "versions", None) or {}).items():
+def _installed(ctx):
+    """A read-only mapping: the pins of a folder are shared by its configs."""
+    pinned = _pins_module().pinned_versions_near(ctx.file, ctx.options.cwd)
+    stated = getattr(ctx.options, "versions", None)
+    if not stated:
+        return pinned
+    out = dict(pinned)
+    for lib, version in stated.items():
         out[lib] = (version, "stated with --installed or the project file")
     return out
 

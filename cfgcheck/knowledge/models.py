@@ -1693,23 +1693,25 @@ def _adapter_sums(arch: Architecture, targets, modules_to_save) -> tuple[int, in
         return hit
     mods, param_targets = _plan(arch, targets, modules_to_save)
     rows = rows_by_name(arch)
-    wrapped = tuple(r[0] for r in mods if r[1] in _LORA_KINDS)
     per_rank = dora = 0
     for _key, shape, mult in param_targets:
         # PEFT lora.ParamWrapper: 3-D (experts, out, in) -> lora_A in -> r*E, lora_B r*E -> out; 2-D: E = 1
         experts, fout, fin = shape if len(shape) == 3 else (1, shape[0], shape[1])
         per_rank += mult * experts * (fin + fout)
-    for name in wrapped:
+    wrapped = []
+    for r in mods:
+        if r[1] not in _LORA_KINDS:
+            continue
+        name = r[0]
+        wrapped.append(name)
         _, kind, params = rows[name]
-        if kind == "embedding":  # weight (V, h): A is r x V, B is h x r
-            rows_out, cols_in = params["weight"]
-            per_rank += rows_out + cols_in
-            dora += cols_in
-        else:  # Linear weight (out, in); Conv1D weight (in, out)
-            cols_in, rows_out = _in_out(kind, params["weight"])
-            per_rank += cols_in + rows_out
-            dora += rows_out
-    hit = (per_rank, dora, bool(param_targets), wrapped)
+        # lora_A and lora_B add in + out per unit of rank whatever the layout; DoRA's magnitude
+        # vector is the output width: embedding weight (V, h) -> h, Linear (out, in) -> out,
+        # Conv1D (in, out) -> out (as _in_out reads them)
+        weight = params["weight"]
+        per_rank += weight[0] + weight[1]
+        dora += weight[0] if kind != "embedding" and kind != "conv1d" else weight[1]
+    hit = (per_rank, dora, bool(param_targets), tuple(wrapped))
     if key is not None:
         if len(_SUMS_CACHE) >= 4096:
             _SUMS_CACHE.clear()

@@ -22,6 +22,7 @@ import re
 import stat
 from functools import lru_cache
 from pathlib import Path
+from types import MappingProxyType
 
 from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .. import reads
@@ -224,20 +225,40 @@ def file_kind(path: str) -> tuple[bool, bool]:
 
 def pins_near(file: str | None, cwd: Path | None = None) -> dict[str, Pin]:
     """The pins that apply to a config file: the nearest folder's pin of each library wins."""
+    return dict(_near(file, cwd, "pins_near", _pins_of_folder))
+
+
+_NONE: MappingProxyType = MappingProxyType({})
+
+
+def pinned_versions_near(file: str | None, cwd: Path | None = None) -> MappingProxyType:
+    """{library: (version, "pinned in SOURCE")} of ``pins_near``, read-only: the configs of one
+    folder share the one mapping (worked out once per run, ``cfgcheck.memo``)."""
+    return _near(file, cwd, "pinned_versions_near", _versions_of_folder)
+
+
+def _versions_of_folder(path: Path) -> MappingProxyType:
+    return MappingProxyType({lib: (pin.version, f"pinned in {pin.source}")
+                             for lib, pin in _pins_of_folder(path).items()})
+
+
+def _near(file: str | None, cwd: Path | None, kind: str, of_folder):
+    """``of_folder(path)`` for the config FILE (empty for text without a file): once per folder
+    in a run, unless FILE is a link (its target's folder decides)."""
     if not file or file.startswith("<"):
-        return {}
+        return _NONE
     try:
         # plain strings: this runs for every config, the folder's answer is remembered
         path = file if os.path.isabs(file) else os.path.join(os.fspath(cwd) if cwd else os.getcwd(), file)
         reads.note_kind(path)
         is_file, is_link = file_kind(path)
         if not is_file:
-            return {}  # text given without a file (lint_text): nothing lies beside it
+            return _NONE  # text given without a file (lint_text): nothing lies beside it
         if not is_link:  # the folder is looked up once per run (cfgcheck.memo)
-            return dict(remembered("pins_near", os.path.dirname(path), lambda: _pins_of_folder(Path(path))))
-        return _pins_of_folder(Path(path))
+            return remembered(kind, os.path.dirname(path), lambda: of_folder(Path(path)))
+        return of_folder(Path(path))
     except (OSError, RuntimeError, ValueError):
-        return {}
+        return _NONE
 
 
 def _pins_of_folder(path: Path) -> dict[str, Pin]:
