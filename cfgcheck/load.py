@@ -57,22 +57,21 @@ class _YamlLoader(_SafeLoader):  # type: ignore[misc, valid-type]
 
     _resolved: dict[str, str] = {}
 
-    def resolve(self, kind, value, implicit):
+    def resolve(self, kind, value, implicit, _known=_resolved.get):
         if kind is _ScalarNode and implicit[0]:
-            resolved = self._resolved
-            tag = resolved.get(value)
+            tag = _known(value)
             if tag is None:
                 tag = _SafeLoader.resolve(self, kind, value, implicit)
+                resolved = self._resolved
                 if len(resolved) < _RESOLVED_MAX:
                     resolved[value] = tag
             return tag
         return _SafeLoader.resolve(self, kind, value, implicit)
 
-    def descend_resolver(self, current_node, current_index):
-        pass
-
-    def ascend_resolver(self):
-        pass
+    # The composer calls these around every node; with nothing to record they are built-in
+    # functions that do nothing of note (no Python frame per node): is_(parent, index) and tuple().
+    descend_resolver = staticmethod(operator.is_)
+    ascend_resolver = staticmethod(tuple)
 
 
 # Limits for hostile input, documented in the README.
@@ -494,6 +493,8 @@ def load_path(path: str | Path) -> tuple[Source, list[Document]]:
 # Plain scalars whose reading differs between YAML 1.1 (PyYAML) and the YAML 1.2 core schema.
 _EXP_NO_DOT = re.compile(r"^[-+]?(?:[0-9][0-9_]*)(?:\.[0-9_]*)?[eE][-+]?[0-9]+$")
 _CORE_FLOAT = re.compile(r"^[-+]?(?:\.[0-9]+|[0-9]+(?:\.[0-9]*)?)(?:[eE][-+]?[0-9]+)?$")
+# a quick test that passes every text _EXP_NO_DOT matches (a digit, an e, nothing but digits after)
+_MAYBE_EXP = re.compile(r"[-+]?[0-9][0-9_.]*[eE]").match
 _CORE_INT = re.compile(r"^[-+]?[0-9]+$")
 _WORD_BOOL = MappingProxyType({"yes": True, "no": False, "on": True, "off": False})
 _STD_TAGS = frozenset({
@@ -619,10 +620,12 @@ class _YamlBuilder:
             explicit = tag
             self.doc.tags.append((path, tag))
         if node.__class__ is _ScalarNode:
-            raw = self.text[node.start_mark.index:node.end_mark.index]
-            value = self._scalar(node, path)
-            self.entries[path] = Entry(node, knode, raw, node.style or None, explicit)
-            return value
+            style = node.style or None
+            self.entries[path] = Entry(node, knode, self.text[node.start_mark.index:node.end_mark.index],
+                                       style, explicit)
+            if tag == _STR and (style or not _MAYBE_EXP(node.value)):
+                return node.value  # the common case: text with nothing to report
+            return self._scalar(node, path)
         key = id(node)
         if key in self.open:
             raise LoadError("an alias refers to a collection that contains it (a cycle); refused",
@@ -645,6 +648,10 @@ class _YamlBuilder:
         merged: dict[Any, Any] | None = None
         depth += 1
         build = self.build
+        entries = self.entries
+        text = self.text
+        # a value that is plain text, with no tag written, is built here rather than by build()
+        inline = depth <= MAX_DEPTH
         for knode, vnode in node.value:
             ktag = knode.tag
             if ktag == _STR and knode.__class__ is _ScalarNode:
@@ -654,19 +661,32 @@ class _YamlBuilder:
                     merged = {}
                 self._merge(vnode, path, merged, depth - 1)
                 continue
-            elif knode.__class__ is _ScalarNode:
-                key = self._scalar(knode, None)
-                if isinstance(key, (list, dict)):
-                    key = knode.value
             else:
-                # complex keys are not used by any training config; keep their source text
-                key = self.text[knode.start_mark.index:knode.end_mark.index]
-            if not isinstance(key, (str, int, float, bool)) and key is not None:
-                key = str(key)
-            value = build(vnode, path + (key,), knode, depth)
+                if knode.__class__ is _ScalarNode:
+                    key = self._scalar(knode, None)
+                    if isinstance(key, (list, dict)):
+                        key = knode.value
+                else:
+                    # complex keys are not used by any training config; keep their source text
+                    key = text[knode.start_mark.index:knode.end_mark.index]
+                if not isinstance(key, (str, int, float, bool)) and key is not None:
+                    key = str(key)
+            child = path + (key,)
+            if (inline and vnode.__class__ is _ScalarNode and vnode.tag == _STR
+                    and self.count < MAX_NODES):
+                style = vnode.style or None
+                value = vnode.value
+                if style or not _MAYBE_EXP(value):
+                    self.count += 1
+                    entries[child] = Entry(vnode, knode, text[vnode.start_mark.index:vnode.end_mark.index],
+                                           style)
+                else:
+                    value = build(vnode, child, knode, depth)
+            else:
+                value = build(vnode, child, knode, depth)
             if key in out:
                 self.doc.duplicates.append(
-                    Duplicate(path + (key,), _mark_span(key_nodes[key]), _mark_span(knode), out[key], value)
+                    Duplicate(child, _mark_span(key_nodes[key]), _mark_span(knode), out[key], value)
                 )
             out[key] = value
             key_nodes[key] = knode
@@ -841,14 +861,31 @@ def _json_entries(text: str, doc: Document) -> None:
         cls = value.__class__
         if cls is dict:
             depth += 1
+            inline = depth <= MAX_DEPTH  # members that are not containers are placed here
             for k, v in value.items():
-                walk(v, path + (k,), step(), depth)
+                at = step()
+                c = v.__class__
+                if inline and c is not dict and c is not list:
+                    s, t = step()
+                    e = Entry((s, t), at, text[s:t], "json")
+                    e._lines = lines
+                    entries[path + (k,)] = e
+                else:
+                    walk(v, path + (k,), at, depth)
             e = Entry((start, step()[1]), key_at, "", "json", None, "map")
         elif cls is list:
             depth += 1
+            inline = depth <= MAX_DEPTH
             i = 0
             for v in value:
-                walk(v, path + (i,), None, depth)
+                c = v.__class__
+                if inline and c is not dict and c is not list:
+                    s, t = step()
+                    e = Entry((s, t), None, text[s:t], "json")
+                    e._lines = lines
+                    entries[path + (i,)] = e
+                else:
+                    walk(v, path + (i,), None, depth)
                 i += 1
             e = Entry((start, step()[1]), key_at, "", "json", None, "seq")
         else:
