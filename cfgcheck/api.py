@@ -7,7 +7,6 @@ or above the gate, for a launch script that must not start a bad run.
 
 from __future__ import annotations
 
-import json
 import os
 from collections.abc import Mapping
 from pathlib import Path

@@ -78,11 +78,35 @@ def default_folder() -> Path | None:
     try:
         if given:
             return Path(given).expanduser()
+        linux = _linux_cache_folder()
+        if linux is not None:
+            return Path(linux)
         import platformdirs
 
         return Path(platformdirs.user_cache_dir("cfgcheck", appauthor=False))
     except (ImportError, RuntimeError, OSError, ValueError):
         return None
+
+
+def _linux_cache_folder() -> str | None:
+    """platformdirs' user cache folder for cfgcheck on plain Linux, worked out without importing
+    platformdirs (its import is a large share of a one-file lint); None wherever it might answer
+    otherwise (Android, an XDG_CACHE_HOME or HOME that is not an absolute path, the library
+    blocked), and the caller asks platformdirs. The same steps as platformdirs 4.14.9's
+    ``Unix.user_cache_dir`` (the pinned release): ``$XDG_CACHE_HOME`` when absolute, else
+    ``~/.cache``, with the app name joined."""
+    if sys.platform != "linux" or sys.modules.get("platformdirs", 0) is None:
+        return None
+    env = os.environ
+    if hasattr(sys, "getandroidapilevel") or (env.get("ANDROID_DATA") == "/data" and env.get("ANDROID_ROOT") == "/system"):
+        return None
+    xdg = env.get("XDG_CACHE_HOME", "")
+    if os.path.isabs(xdg):
+        return os.path.join(xdg, "cfgcheck")
+    home = env.get("HOME")
+    if home is None or not os.path.isabs(home):
+        return None
+    return os.path.join(os.path.expanduser("~/.cache"), "cfgcheck")
 
 
 # --------------------------------------------------------------------------- the key

@@ -11,7 +11,6 @@ test proves the two agree (``tests/test_schema.py``). ``validate_with_jsonschema
 from __future__ import annotations
 
 import functools
-import json
 from types import MappingProxyType
 from typing import Any
 
@@ -322,4 +321,6 @@ def validate_with_jsonschema(values: dict[str, Any], layout: str | None = None) 
 
 
 def dumps(schema: dict[str, Any]) -> str:
+    import json
+
     return json.dumps(schema, indent=2, sort_keys=False) + "\n"

@@ -480,6 +480,42 @@ def test_cache_folder_comes_from_the_environment_or_the_platform(tmp_path, monke
     assert cache.default_folder() == Path(platformdirs.user_cache_dir("cfgcheck", appauthor=False))
 
 
+@pytest.mark.parametrize("xdg, home", [(None, "/home/someone"), ("/var/tmp/xdg", "/home/someone"),
+                                       ("relative/xdg", "/home/someone"), ("", "/home/someone/"),
+                                       ("/x/trailing/", None), (None, "relative/home")])
+def test_cache_folder_on_linux_is_platformdirs_answer(monkeypatch, xdg, home):
+    import platformdirs
+
+    monkeypatch.delenv(cache.ENV_FOLDER, raising=False)
+    for name, value in (("XDG_CACHE_HOME", xdg), ("HOME", home)):
+        if value is None:
+            monkeypatch.delenv(name, raising=False)
+        else:
+            monkeypatch.setenv(name, value)
+    try:
+        expected = Path(platformdirs.user_cache_dir("cfgcheck", appauthor=False))
+    except RuntimeError:
+        expected = None
+    assert cache.default_folder() == expected
+    fast = cache._linux_cache_folder()
+    if sys.platform == "linux" and ((xdg or "").startswith("/") or (home or "").startswith("/")):
+        assert fast is not None
+    if fast is not None:
+        assert Path(fast) == expected
+
+
+def test_cache_folder_is_found_without_importing_platformdirs(tmp_path):
+    if sys.platform != "linux":
+        pytest.skip("the folder is worked out by hand on Linux only")
+    env = {k: v for k, v in os.environ.items() if k != cache.ENV_FOLDER}
+    env["HOME"] = str(tmp_path)
+    env.pop("XDG_CACHE_HOME", None)
+    code = ("import sys; from cfgcheck import cache; f = cache.default_folder(); "
+            "print(f); print('platformdirs' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, check=True).stdout
+    assert out.split() == [str(tmp_path / ".cache" / "cfgcheck"), "False"]
+
+
 def test_no_known_cache_folder_means_no_caching(tmp_path, monkeypatch):
     monkeypatch.delenv(cache.ENV_FOLDER)
     monkeypatch.setitem(sys.modules, "platformdirs", None)  # the library cannot be imported

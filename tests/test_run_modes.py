@@ -319,3 +319,28 @@ def test_linting_one_plain_yaml_file_imports_nothing_it_does_not_use(tmp_path):
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path,
                          env=ENV, timeout=120)
     assert out.stderr.strip().splitlines()[-1] == "loaded: [] lint: True", out.stderr
+
+
+@pytest.mark.skipif(sys.platform != "linux", reason="the cache folder is worked out by hand on Linux only")
+@pytest.mark.parametrize("extra, absent", [
+    ([], ("platformdirs", "tempfile", "shutil")),  # the user's cache folder found without platformdirs
+    (["--no-cache"], ("platformdirs", "tempfile", "shutil", "json")),  # a YAML file needs no JSON reader
+])
+def test_linting_one_yaml_file_in_the_default_cache_folder_imports_no_platform_library(tmp_path, extra, absent):
+    (tmp_path / ".git").mkdir()
+    cfg = tmp_path / "train.yaml"
+    cfg.write_text("model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 2.0e-4\nlora_r: 16\n",
+                   encoding="utf-8")
+    env = {k: v for k, v in ENV.items() if k not in ("CFGCHECK_CACHE_DIR", "XDG_CACHE_HOME")}
+    env["HOME"] = str(tmp_path / "home")
+    code = ("import sys\n"
+            f"sys.argv = ['cfgcheck', 'lint', *{extra!r}, {str(cfg)!r}]\n"
+            "from cfgcheck.cli import main\ntry:\n    main()\nexcept SystemExit:\n    pass\n"
+            f"names = {absent!r}\n"
+            "loaded = sorted(m for m in sys.modules if m.split('.')[0] in names)\n"
+            "sys.stderr.write('\\nloaded: ' + repr(loaded) + ' lint: ' + repr('cfgcheck.engine' in sys.modules))\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path,
+                         env=env, timeout=120)
+    assert out.stderr.strip().splitlines()[-1] == "loaded: [] lint: True", out.stderr
+    if not extra:  # the run used the cache folder platformdirs names
+        assert (tmp_path / "home" / ".cache" / "cfgcheck").is_dir()

@@ -31,7 +31,6 @@ True
 
 from __future__ import annotations
 
-import json
 from functools import cache
 from pathlib import Path
 
@@ -126,6 +125,8 @@ def _ordered_libraries(accepted: dict) -> list[str]:
 
 
 def _read_json(name: str) -> dict:
+    import json
+
     here = Path(__file__).with_name(name)
     if here.is_file():  # an ordinary install: importlib.resources (zipfile, tempfile...) not needed
         return json.loads(here.read_text(encoding="utf-8"))

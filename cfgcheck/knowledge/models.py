@@ -28,7 +28,6 @@ the trainable copies of ``modules_to_save`` are added to the frozen originals).
 
 from __future__ import annotations
 
-import json
 import math
 import os
 import re
@@ -435,6 +434,8 @@ def architecture_from_config(data: dict, source: str) -> Architecture | None:
 
 
 def _read_config(path: Path) -> Architecture | None:
+    import json
+
     reads.note_file(path)
     try:
         text = path.read_text(encoding="utf-8")
@@ -505,6 +506,8 @@ class CatalogueEntry:
 
 @lru_cache(maxsize=1)
 def _catalogue_raw() -> dict:
+    import json
+
     return json.loads(_CATALOGUE_FILE.read_text(encoding="utf-8"))
 
 
@@ -819,6 +822,8 @@ def declared_model(ref: str, data: dict, project_dir: Path, project_file: str) -
     """A model the project file declares: ``config`` (a config.json path, relative to the project file)
     or the shape itself in config.json key names (``model_type`` or ``family``, ``hidden_size``, ...).
     Returns the Architecture, or a sentence saying what is wrong."""
+    import json
+
     if "config" in data:
         path = Path(str(data["config"])).expanduser()
         if not path.is_absolute():
@@ -889,6 +894,8 @@ def _by_folder_name(ref: str) -> Architecture | None:
 
 def _adapter_base(folder: Path) -> str | None:
     """base_model_name_or_path of a PEFT adapter folder (adapter_config.json), if any."""
+    import json
+
     reads.note_file(folder / "adapter_config.json")
     try:
         data = json.loads((folder / "adapter_config.json").read_text(encoding="utf-8"))
