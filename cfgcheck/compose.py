@@ -392,6 +392,8 @@ def composes(data: Any) -> bool:
         return False
     if isinstance(data.get("defaults"), list) and data["defaults"]:
         return True
+    if data.keys().isdisjoint(BASE_KEYS):
+        return False  # (an absent key names nothing: the loop below would find nothing)
     for key in BASE_KEYS:
         value = data.get(key)
         names = [value] if isinstance(value, str) else value if isinstance(value, list) else []

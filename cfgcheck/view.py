@@ -419,6 +419,56 @@ def unread_format(data: Any) -> UnreadFormat | None:
     return None
 
 
+# --------------------------------------------------------------------------- key structure
+
+# Detection and the field index read only a document's key structure: the keys of each mapping
+# in order and which values are mappings, down to the depth they search. Configs made from one
+# template share it, so what those two work out is kept per structure (and per layout).
+_SHAPE_DEPTH = 5  # levels of mappings recorded; deeper ones are recorded as a mapping only
+_SHAPE_MAX_KEYS = 2048  # a document with more keys is not kept (memory stays bounded)
+_SHAPE_MEMO_MAX = 256  # structures kept per table
+
+
+class _NoShape(Exception):
+    pass
+
+
+def _shape_of(mapping: dict, depth: int, budget: list) -> tuple:
+    keys = tuple(mapping)
+    try:
+        "".join(keys)  # (1, 1.0 and True are equal keys but different names: only text is kept)
+    except TypeError:
+        raise _NoShape from None
+    budget[0] -= len(keys)
+    if budget[0] < 0:
+        raise _NoShape
+    if depth >= _SHAPE_DEPTH - 1:
+        subs = tuple([k for k, v in mapping.items() if isinstance(v, dict)])
+        return (keys, subs) if subs else keys
+    subs = tuple([(k, _shape_of(v, depth + 1, budget)) for k, v in mapping.items() if isinstance(v, dict)])
+    return (keys, subs) if subs else keys
+
+
+def shape(data: Any) -> tuple | None:
+    """DATA's key structure (a mapping's keys in order; with mapping values, (its keys, (key, that
+    value's structure) for each)), the same for two documents exactly when detection and the field
+    index see the same keys; None for data that is not a mapping, a key that is not text within
+    the recorded depth, or a document too large to keep."""
+    if not isinstance(data, dict):
+        return None
+    try:
+        return _shape_of(data, 0, [_SHAPE_MAX_KEYS])
+    except _NoShape:
+        return None
+
+
+def _kept(memo: dict, key: Any, value: Any) -> Any:
+    if len(memo) >= _SHAPE_MEMO_MAX:
+        memo.clear()
+    memo[key] = value
+    return value
+
+
 # every word NOT_TRAINING looks for: a document with none of them is none of those files
 _NOT_TRAINING_WORDS = frozenset().union(*NOT_TRAINING.values())
 _DETECTION_CACHE: dict[str, tuple] = {}
@@ -442,8 +492,13 @@ def _detection() -> tuple:
     return got
 
 
-def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
-    """The layout of a document, or why it is not a training config."""
+_BEST_BY_SHAPE: dict[tuple, Any] = {}
+
+
+def detect_layout(data: Any, data_shape: tuple | None = None) -> tuple[Layout | None, str | None]:
+    """The layout of a document, or why it is not a training config (DATA_SHAPE: ``shape(data)``,
+    when the caller has it: the scoring, which reads only the keys, is then done once per
+    structure)."""
     if not isinstance(data, dict):
         if data is None:
             return None, "empty document"
@@ -456,6 +511,19 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
     unread = unread_format(data)
     if unread is not None:
         return None, f"{unread.title} ({unread.name}): {NOT_READ_YET}"
+    if data_shape is not None:
+        best = _BEST_BY_SHAPE.get(data_shape, _NO_NAMES)
+        if best is _NO_NAMES:
+            best = _kept(_BEST_BY_SHAPE, data_shape, _best_layout(data, top))
+    else:
+        best = _best_layout(data, top)
+    if best is None:
+        return None, "no training-config keys found"
+    return best, None
+
+
+def _best_layout(data: dict, top: frozenset) -> Layout | None:
+    """The layout that scores highest on DATA's keys (TOP: its top-level keys), or None."""
     by_sig, by_section, search_all, sig_names, section_names = _detection()
     # the layouts that can score: a name of its signature at the top, or a section it reads
     places: set[int] = set()
@@ -474,9 +542,7 @@ def detect_layout(data: Any) -> tuple[Layout | None, str | None]:
             s += _score(BY_NAME[layout.extends], data, top, subs)
         if s >= layout.min_score and s > best_score:
             best, best_score = layout, s
-    if best is None:
-        return None, "no training-config keys found"
-    return best, None
+    return best
 
 
 # --------------------------------------------------------------------------- building
@@ -658,13 +724,14 @@ def resolve_interpolation(data: Any, written: Any, depth: int = 0) -> tuple[bool
     return True, out + written[pos:]
 
 
-_FILL_PLAN_CACHE: dict[int, tuple[dict, tuple, dict, dict]] = {}
+_FILL_PLAN_CACHE: dict[int, tuple[dict, tuple, dict, dict, int]] = {}
 
 
-def _fill_plan(layout: Layout) -> tuple[tuple, dict, dict]:
+def _fill_plan(layout: Layout) -> tuple[tuple, dict, dict, int]:
     """LAYOUT's field table made ready: ((name, ((root path or None, bare name or None), ...),
-    field type, the types a value is used as written in), ...) in table order, and which fields a
-    bare name, or a top-level key that starts a root path, can fill (their places in that order)."""
+    field type, the types a value is used as written in), ...) in table order, which fields a
+    bare name, or a top-level key that starts a root path, can fill (their places in that order),
+    and the length of its longest root path."""
     fields = layout.fields
     got = _FILL_PLAN_CACHE.get(id(fields))
     if got is None or got[0] is not fields:
@@ -681,19 +748,22 @@ def _fill_plan(layout: Layout) -> tuple[tuple, dict, dict]:
                     by_name.setdefault(spec, []).append(i)
             kind = FIELD_TYPES.get(name, "any")
             plan.append((name, tuple(compiled), kind, _AS_WRITTEN.get(kind, frozenset())))
-        got = _FILL_PLAN_CACHE[id(fields)] = (fields, tuple(plan), by_name, by_root)
-    return got[1], got[2], got[3]
+        deepest = max((len(p) for _n, specs, _k, _w in plan for p, _b in specs if p is not None), default=0)
+        got = _FILL_PLAN_CACHE[id(fields)] = (fields, tuple(plan), by_name, by_root, deepest)
+    return got[1], got[2], got[3], got[4]
 
 
-def fill(view: RunView, layout: Layout, data: dict) -> None:
-    """Fill the view's fields from one layout's table (a Field for each value found, typed by ``_coerce``)."""
-    plan, by_name, by_root = _fill_plan(layout)
-    values: dict[tuple, Any] = {}
+_CHOICES_BY_SHAPE: dict[tuple, tuple] = {}
+
+
+def _choices(layout: Layout, data: dict) -> list[tuple]:
+    """The fields of LAYOUT's table that DATA's keys fill, in table order: (the field's place in
+    the table, the key path its value is read at, every path that spells it when there are
+    several (the first is used), else None). Reads only DATA's keys."""
+    plan, by_name, by_root, _deepest = _fill_plan(layout)
     # (a table with bare names has them in by_name; a mapping is a section that shares a name,
     # not a value, so the index holds only paths to other values)
-    index = _index(layout, data, by_name, values) if by_name else _NO_NAMES
-    kind = data.get(layout.kind_key) if layout.kind_key else None
-    other_kind = isinstance(kind, str) and kind.strip().upper() not in layout.kinds_described
+    index = _index(layout, data, by_name, {}) if by_name else _NO_NAMES
     # only the fields a name of this file can fill, in table order
     hits: set[int] = set()
     for key in index:
@@ -701,53 +771,80 @@ def fill(view: RunView, layout: Layout, data: dict) -> None:
     if by_root:
         for key in by_root.keys() & data.keys():
             hits.update(by_root[key])
-    fields = view.fields
-    assumed = view.doc.assumed
-    interpolates = view.layout is not None and view.layout.interpolates
+    out = []
     for i in sorted(hits):
-        name, specs, kind, plain = plan[i]
-        if other_kind and name not in layout.fields_for_any_kind:
-            continue  # the table describes other kinds: these keys mean something else here
-        for path, bare in specs:
+        for path, bare in plan[i][1]:
             if path is None:
                 paths = index.get(bare)
                 if not paths:
                     continue
-                path = paths[0]
-                written = values[path]
-                note = _also(values, paths) if len(paths) > 1 else ""
+                out.append((i, paths[0], tuple(paths) if len(paths) > 1 else None))
             else:
-                found, written = _walk(data, path)
+                found, _written = _walk(data, path)
                 if not found:
                     continue
-                note = ""
-            if name in fields:
-                break
-            source = written
-            if interpolates and isinstance(written, str) and "${" in written:
-                resolved, value = resolve_interpolation(view.doc.data, written)
-                if resolved:
-                    source = value
-            t = type(source)
-            if t in plain and (t is not str or source.strip().lower() != "auto"):
-                value, ok, auto, from_text = source, True, False, False  # what _coerce gives, without its tests
-                # no rule does arithmetic on a number past any run's range
-                if t is int:
-                    huge = source > MAX_MAGNITUDE or source < -MAX_MAGNITUDE
-                else:
-                    huge = t is float and too_large(source)
-            else:
-                value, ok, auto, from_text = _coerce(name, source)
-                huge = ok and too_large(value)
-            guess = assumed.get(path) if assumed else None
-            f = Field(name, None if huge or not ok else value, path, written, auto, from_text,
-                      "assumed" if guess else "written", guess or note)
-            fields[name] = f
-            if huge:
-                view.out_of_range.append(f)
-            if not ok:
-                view.type_problems.append(TypeProblem(f, kind))
+                out.append((i, path, None))
             break
+    return out
+
+
+def _at(data: dict, path: tuple) -> Any:
+    """The value at PATH, a path _choices found in DATA."""
+    for part in path:
+        data = data[part]
+    return data
+
+
+def fill(view: RunView, layout: Layout, data: dict, data_shape: tuple | None = None) -> None:
+    """Fill the view's fields from one layout's table (a Field for each value found, typed by
+    ``_coerce``). DATA_SHAPE: ``shape(data)``, when the caller has it: which paths fill which
+    fields is then worked out once per structure."""
+    plan, _by_name, _by_root, deepest = _fill_plan(layout)
+    if data_shape is None or deepest > _SHAPE_DEPTH:
+        choices = _choices(layout, data)
+    else:
+        key = (id(layout), data_shape)
+        got = _CHOICES_BY_SHAPE.get(key)
+        if got is None or got[0] is not layout:
+            got = _kept(_CHOICES_BY_SHAPE, key, (layout, _choices(layout, data)))
+        choices = got[1]
+    kind = data.get(layout.kind_key) if layout.kind_key else None
+    other_kind = isinstance(kind, str) and kind.strip().upper() not in layout.kinds_described
+    fields = view.fields
+    assumed = view.doc.assumed
+    interpolates = view.layout is not None and view.layout.interpolates
+    for i, path, paths in choices:
+        name, specs, kind, plain = plan[i]
+        if other_kind and name not in layout.fields_for_any_kind:
+            continue  # the table describes other kinds: these keys mean something else here
+        if name in fields:
+            continue
+        written = data[path[0]] if len(path) == 1 else _at(data, path)
+        note = _also({p: _at(data, p) for p in paths}, paths) if paths is not None else ""
+        source = written
+        if interpolates and isinstance(written, str) and "${" in written:
+            resolved, value = resolve_interpolation(view.doc.data, written)
+            if resolved:
+                source = value
+        t = type(source)
+        if t in plain and (t is not str or source.strip().lower() != "auto"):
+            value, ok, auto, from_text = source, True, False, False  # what _coerce gives, without its tests
+            # no rule does arithmetic on a number past any run's range
+            if t is int:
+                huge = source > MAX_MAGNITUDE or source < -MAX_MAGNITUDE
+            else:
+                huge = t is float and too_large(source)
+        else:
+            value, ok, auto, from_text = _coerce(name, source)
+            huge = ok and too_large(value)
+        guess = assumed.get(path) if assumed else None
+        f = Field(name, None if huge or not ok else value, path, written, auto, from_text,
+                  "assumed" if guess else "written", guess or note)
+        fields[name] = f
+        if huge:
+            view.out_of_range.append(f)
+        if not ok:
+            view.type_problems.append(TypeProblem(f, kind))
 
 
 def _model_from_builder(view: RunView, layout: Layout, data: dict) -> None:
@@ -818,16 +915,17 @@ def _infer_method(view: RunView) -> None:
 
 
 def build_view(doc: Document, layout_name: str | None = None) -> RunView:
+    data_shape = shape(doc.data)
     if layout_name:
         layout, why = BY_NAME[layout_name], None
         if not isinstance(doc.data, dict):
             layout, why = None, "top level is not a mapping"
     else:
-        layout, why = detect_layout(doc.data)
+        layout, why = detect_layout(doc.data, data_shape)
     view = RunView(doc=doc, layout=layout, skipped=why)
     if layout is None:
         return view
-    fill(view, layout, doc.data)
+    fill(view, layout, doc.data, data_shape)
     _model_from_builder(view, layout, doc.data)
     _infer_method(view)
     return view
