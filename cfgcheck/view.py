@@ -492,7 +492,7 @@ def _detection() -> tuple:
     return got
 
 
-_BEST_BY_SHAPE: dict[tuple, Any] = {}
+_BEST_BY_SHAPE_CACHE: dict[tuple, Any] = {}
 
 
 def detect_layout(data: Any, data_shape: tuple | None = None) -> tuple[Layout | None, str | None]:
@@ -512,9 +512,9 @@ def detect_layout(data: Any, data_shape: tuple | None = None) -> tuple[Layout | 
     if unread is not None:
         return None, f"{unread.title} ({unread.name}): {NOT_READ_YET}"
     if data_shape is not None:
-        best = _BEST_BY_SHAPE.get(data_shape, _NO_NAMES)
+        best = _BEST_BY_SHAPE_CACHE.get(data_shape, _NO_NAMES)
         if best is _NO_NAMES:
-            best = _kept(_BEST_BY_SHAPE, data_shape, _best_layout(data, top))
+            best = _kept(_BEST_BY_SHAPE_CACHE, data_shape, _best_layout(data, top))
     else:
         best = _best_layout(data, top)
     if best is None:
@@ -753,7 +753,7 @@ def _fill_plan(layout: Layout) -> tuple[tuple, dict, dict, int]:
     return got[1], got[2], got[3], got[4]
 
 
-_CHOICES_BY_SHAPE: dict[tuple, tuple] = {}
+_CHOICES_BY_SHAPE_CACHE: dict[tuple, tuple] = {}
 
 
 def _choices(layout: Layout, data: dict) -> list[tuple]:
@@ -804,9 +804,9 @@ def fill(view: RunView, layout: Layout, data: dict, data_shape: tuple | None = N
         choices = _choices(layout, data)
     else:
         key = (id(layout), data_shape)
-        got = _CHOICES_BY_SHAPE.get(key)
+        got = _CHOICES_BY_SHAPE_CACHE.get(key)
         if got is None or got[0] is not layout:
-            got = _kept(_CHOICES_BY_SHAPE, key, (layout, _choices(layout, data)))
+            got = _kept(_CHOICES_BY_SHAPE_CACHE, key, (layout, _choices(layout, data)))
         choices = got[1]
     kind = data.get(layout.kind_key) if layout.kind_key else None
     other_kind = isinstance(kind, str) and kind.strip().upper() not in layout.kinds_described

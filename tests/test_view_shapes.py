@@ -45,8 +45,8 @@ def _fresh(doc, layout=None):
 
 
 def _clear():
-    viewmod._BEST_BY_SHAPE.clear()
-    viewmod._CHOICES_BY_SHAPE.clear()
+    viewmod._BEST_BY_SHAPE_CACHE.clear()
+    viewmod._CHOICES_BY_SHAPE_CACHE.clear()
 
 
 def _rewritten(data, i=[0]):
@@ -139,5 +139,5 @@ def test_the_kept_answers_stay_bounded():
     for i in range(viewmod._SHAPE_MEMO_MAX * 2 + 3):
         doc = loadmod.load_text(f"learning_rate: 1e-4\nlora_r: 8\nkey_{i}: 1\n", "x.yaml")[0]
         assert build_view(doc) == _fresh(doc)
-    assert 0 < len(viewmod._BEST_BY_SHAPE) <= viewmod._SHAPE_MEMO_MAX
-    assert 0 < len(viewmod._CHOICES_BY_SHAPE) <= viewmod._SHAPE_MEMO_MAX
+    assert 0 < len(viewmod._BEST_BY_SHAPE_CACHE) <= viewmod._SHAPE_MEMO_MAX
+    assert 0 < len(viewmod._CHOICES_BY_SHAPE_CACHE) <= viewmod._SHAPE_MEMO_MAX
