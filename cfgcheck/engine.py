@@ -594,6 +594,12 @@ def _composed(doc: Document, file: str, options: Options, report: FileReport) ->
 def lint_text(text: str, name: str = "<text>", options: Options | None = None,
               fmt: str | None = None, layout: str | None = None) -> FileReport:
     options = options or Options()
+    with memo.collector_paused():
+        return _lint_text(text, name, options, fmt, layout)
+
+
+def _lint_text(text: str, name: str, options: Options, fmt: str | None,
+               layout: str | None) -> FileReport:
     try:
         try:
             docs = loadmod.load_text(text, name, fmt)
@@ -703,7 +709,8 @@ def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
     options = options or Options()
     name = str(path)
     if name.lower().endswith(SCRIPT_SUFFIXES) and not os.path.isdir(path):
-        return lint_script(path, options)
+        with memo.collector_paused():
+            return lint_script(path, options)
     try:
         try:
             src = loadmod.read_source(path)

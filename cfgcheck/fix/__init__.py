@@ -62,6 +62,15 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
     ``linked_before`` / ``linked_after``: the texts of linked files (real path -> text) to lint
     with, as they are and as they will be once fixed (files fixed together).
     """
+    with memo.collector_paused():
+        return _fix_text(text, name, options, fmt=fmt, training=training, halve_batch=halve_batch,
+                         linked_before=linked_before, linked_after=linked_after,
+                         check_stable=check_stable)
+
+
+def _fix_text(text: str, name: str, options: Options | None, *, fmt: str | None, training: bool,
+              halve_batch: int, linked_before: dict | None, linked_after: dict | None,
+              check_stable: bool) -> FileFix:
     halve_batch = int(halve_batch)
     lead = "\ufeff" if text.startswith("\ufeff") else ""  # a second byte-order mark: kept as is
     body = text[len(lead):]
