@@ -71,6 +71,33 @@ def test_a_fix_that_leaves_its_finding_is_refused(monkeypatch):
     assert "still there" in result.error.error
 
 
+def test_a_fix_another_fix_of_the_file_overtakes_is_left_out_not_refused():
+    """Two fixes that touch one pair of values: on a T4 (no bf16) the precision fix turns
+    torch_dtype to float16, and the storage fix would set the 4-bit storage to the old
+    bfloat16, so together the storage finding would stay. Proven alone the storage fix clears
+    its finding: it is left out with a note (the dtype fix makes the pair match), not reported
+    as a bug in cfgcheck."""
+    text = ("model_name_or_path: harborlight/base-7b\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\n"
+            "load_in_4bit: true\ntorch_dtype: bfloat16\nbnb_4bit_quant_storage: float16\n"
+            "fsdp: full_shard auto_wrap\n")
+    options = api.make_options(gpu="t4")
+    result = fix.fix_text(text, "run.yaml", options, training=True)
+    assert result.error is None
+    assert [a.rule for a in result.applied] == ["precision-unsupported-on-gpu"]
+    assert "torch_dtype: float16\n" in result.new_text
+    assert "bnb_4bit_quant_storage: float16\n" in result.new_text
+    assert any(n.startswith("quant-storage-differs-from-model-dtype at bnb_4bit_quant_storage: not applied")
+               for n in result.notes)
+    from cfgcheck.engine import lint_text
+
+    after = lint_text(result.new_text, "run.yaml", options)
+    assert not [f for f in after.findings if f.rule == "quant-storage-differs-from-model-dtype"]
+    # the storage fix alone, on a GPU with bf16, is applied as before
+    alone = fix.fix_text(text, "run.yaml", api.make_options(gpu="a100-80gb"), training=True)
+    assert alone.error is None
+    assert "bnb_4bit_quant_storage: bfloat16\n" in alone.new_text
+
+
 def test_the_re_lint_of_the_parsed_fixed_text_says_what_a_lint_of_that_text_says():
     """The proof parses the fixed text once and lints those documents: the findings (rule,
     place, words, fixes) are those a lint of the fixed text itself gives."""

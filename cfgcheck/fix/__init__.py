@@ -39,7 +39,7 @@ from ..findings import InputProblem, InternalError
 from ..load import LoadError, Source, dotted
 from .edits import _apply
 from .plan import _declares_fix, _plan, _take
-from .proof import (_blame, _failed, _finding_keys, _lint_parsed, _prove, _save_evidence, _Shared,
+from .proof import (_Remains, _blame, _failed, _finding_keys, _lint_parsed, _prove, _save_evidence, _Shared,
                     _unstable, yaml_comments)
 from .results import (BATCH_SPLIT, CHANGES_TRAINING, KEEPS_MEANING, TIERS, Applied, FileFix,
                       FixReport, NewFinding, ProofFailed, _Item, _Planned)
@@ -142,6 +142,18 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
             bad = {id(p) for p in exc.plans}
             for p in exc.plans:
                 result.notes.append(f"{p.rule} at {p.key}: not applied, {exc.where}")
+        except _Remains as exc:
+            # another fix of the file may undo what this one does (a dtype the GPU lacks changed
+            # under a storage dtype set to match it): proven alone, its finding goes, so it is a
+            # consequence of the others, not a bug; leave it out, say why, prove the rest again
+            p = exc.plan
+            if len(accepted) < 2 or not _clears_alone(text, name, fmt, docs, p, edits, before,
+                                                      options, linked_after):
+                return _failed(result, exc, text, new_text, accepted, edits, docs, name, fmt)
+            bad = {id(p)}
+            others = "; ".join(dict.fromkeys(f"{q.rule} at {q.key}" for q in accepted if q is not p))
+            result.notes.append(f"{p.rule} at {p.key}: not applied, together with the other fixes of "
+                                f"this document ({others}) its finding would still be there")
         except ProofFailed as exc:
             return _failed(result, exc, text, new_text, accepted, edits, docs, name, fmt)
         else:
@@ -185,6 +197,20 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
                            accepted, edits, docs, name, fmt, check="stability")
     result.new_text = new_text
     return result
+
+
+def _clears_alone(text: str, name: str, fmt: str, docs: list, plan: _Planned, edits: list,
+                  before, options: Options, linked: dict | None) -> bool:
+    """Whether PLAN's edits alone pass the proof's text steps and clear its finding (any new
+    finding they bring is judged later, with the fixes that stay)."""
+    mine = [e for e in edits if e.plan == id(plan)]
+    if not mine:
+        return False
+    try:
+        _prove(text, _apply(text, mine), name, fmt, docs, [plan], mine, before, options, linked)
+    except (ProofFailed, _Shared):
+        return False
+    return True
 
 
 def _lint_before(text: str, name: str, options: Options, fmt: str, linked: dict, training: bool,

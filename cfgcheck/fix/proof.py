@@ -173,6 +173,14 @@ def _finding_key(f: Finding) -> tuple:
     return (f.rule, f.document, tuple(f.path), f.data.get("variant"), f.data.get("reason"))
 
 
+class _Remains(ProofFailed):
+    """A fixed finding is still there after the fixes of its file: PLAN's."""
+
+    def __init__(self, reason: str, plan: Any):
+        super().__init__(reason, [plan.rule])
+        self.plan = plan
+
+
 class _Shared(Exception):
     """A training-changing edit reaches other settings through an alias or a merge key (<<)."""
 
@@ -286,8 +294,7 @@ def _prove(old_text: str, new_text: str, name: str, fmt: str, old_docs: list[Doc
     after_keys = _finding_keys(after)
     for p in plans:
         if p.finding is not None and _finding_key(p.finding) in after_keys:
-            raise ProofFailed(f"the finding at {p.key or 'the top level'} is still there after the fix",
-                              [p.rule])
+            raise _Remains(f"the finding at {p.key or 'the top level'} is still there after the fix", p)
     before_keys = _finding_keys(before)
     new = {}
     for k, f in after_keys.items():
