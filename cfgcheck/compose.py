@@ -460,11 +460,17 @@ def compose(doc: Document, file: str, overrides: list[str] | tuple[str, ...] = (
                     number_reader=OMEGACONF_READER if state.defaults_list else "", assumed=assumed)
 
 
+def experiment_root_of(absolute: str) -> str | None:
+    """The name two folders above the file at ABSOLUTE (a normalised absolute path): the ROOT of
+    ``<root>/<method>/<name>/`` were it a runner's experiment folder; None when there is none."""
+    parts = absolute.split(os.sep)  # ["", ..., root, method, name, file] for "/.../root/m/n/file"
+    return parts[-4] if len(parts) >= 4 else None
+
+
 def in_experiment_folder(absolute: str, root: str) -> bool:
     """Whether the file at ABSOLUTE (a normalised absolute path) lies in
     ``<root>/<method>/<name>/``: the name two folders above its own is ROOT."""
-    parts = absolute.split(os.sep)  # ["", ..., root, method, name, file] for "/.../root/m/n/file"
-    return len(parts) >= 4 and parts[-4] == root
+    return experiment_root_of(absolute) == root
 
 
 def experiment_base(file: str, root: str, names: tuple[str, ...]) -> str | None:

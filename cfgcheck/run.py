@@ -564,8 +564,6 @@ def composed(doc: Any, file: str, options: Any) -> tuple[Any, str]:
 
 # layouts whose runner reads an experiment folder over its own defaults file
 _EXPERIMENT_LAYOUTS = tuple(lay for lay in LAYOUTS if lay.experiment_root)
-
-
 _EXPERIMENT_ROOTS = frozenset(lay.experiment_root for lay in _EXPERIMENT_LAYOUTS)
 
 
@@ -573,9 +571,8 @@ def _over_runner_defaults(doc: Any, file: str) -> Any:
     """DOC read over its runner's defaults file, when it is an experiment of such a runner."""
     from . import compose
 
-    parts = os.path.abspath(file).split(os.sep)
-    if len(parts) < 4 or parts[-4] not in _EXPERIMENT_ROOTS:
-        return doc  # in no runner's experiment folder (compose.in_experiment_folder for each root)
+    if compose.experiment_root_of(os.path.abspath(file)) not in _EXPERIMENT_ROOTS:
+        return doc  # in no runner's experiment folder
     for lay in _EXPERIMENT_LAYOUTS:
         base = compose.experiment_base(file, lay.experiment_root, lay.experiment_defaults)
         if base is None:

@@ -310,15 +310,21 @@ def test_linting_one_plain_yaml_file_imports_nothing_it_does_not_use(tmp_path):
     cfg.write_text("model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 2.0e-4\n"
                    "per_device_train_batch_size: 4\nnum_train_epochs: 1\nuse_peft: true\n"
                    "lora_r: 16\nlora_alpha: 32\n", encoding="utf-8")
+    out = _lint_in_a_fresh_process(tmp_path, [str(cfg)], _NOT_ON_THE_LINT_PATH, ENV)
+    assert out.stderr.strip().splitlines()[-1] == "loaded: [] lint: True", out.stderr
+
+
+def _lint_in_a_fresh_process(cwd, args: list, names, env: dict) -> subprocess.CompletedProcess:
+    """``cfgcheck lint ARGS`` in a fresh interpreter, which then writes on its last stderr line
+    the modules of NAMES it loaded (a name or a package of one) and whether the lint ran."""
     code = ("import sys\n"
-            f"sys.argv = ['cfgcheck', 'lint', {str(cfg)!r}]\n"
+            f"sys.argv = ['cfgcheck', 'lint', *{args!r}]\n"
             "from cfgcheck.cli import main\ntry:\n    main()\nexcept SystemExit:\n    pass\n"
-            f"names = {_NOT_ON_THE_LINT_PATH!r}\n"
+            f"names = {tuple(names)!r}\n"
             "loaded = sorted(m for m in sys.modules if m in names or m.split('.')[0] in names)\n"
             "sys.stderr.write('\\nloaded: ' + repr(loaded) + ' lint: ' + repr('cfgcheck.engine' in sys.modules))\n")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path,
-                         env=ENV, timeout=120)
-    assert out.stderr.strip().splitlines()[-1] == "loaded: [] lint: True", out.stderr
+    return subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=cwd,
+                          env=env, timeout=120)
 
 
 @pytest.mark.skipif(sys.platform != "linux", reason="the cache folder is worked out by hand on Linux only")
@@ -333,14 +339,7 @@ def test_linting_one_yaml_file_in_the_default_cache_folder_imports_no_platform_l
                    encoding="utf-8")
     env = {k: v for k, v in ENV.items() if k not in ("CFGCHECK_CACHE_DIR", "XDG_CACHE_HOME")}
     env["HOME"] = str(tmp_path / "home")
-    code = ("import sys\n"
-            f"sys.argv = ['cfgcheck', 'lint', *{extra!r}, {str(cfg)!r}]\n"
-            "from cfgcheck.cli import main\ntry:\n    main()\nexcept SystemExit:\n    pass\n"
-            f"names = {absent!r}\n"
-            "loaded = sorted(m for m in sys.modules if m.split('.')[0] in names)\n"
-            "sys.stderr.write('\\nloaded: ' + repr(loaded) + ' lint: ' + repr('cfgcheck.engine' in sys.modules))\n")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path,
-                         env=env, timeout=120)
+    out = _lint_in_a_fresh_process(tmp_path, [*extra, str(cfg)], absent, env)
     assert out.stderr.strip().splitlines()[-1] == "loaded: [] lint: True", out.stderr
     if not extra:  # the run used the cache folder platformdirs names
         assert (tmp_path / "home" / ".cache" / "cfgcheck").is_dir()
