@@ -80,6 +80,8 @@ def test_a_fix_another_fix_of_the_file_overtakes_is_left_out_not_refused():
     text = ("model_name_or_path: harborlight/base-7b\nuse_peft: true\nlora_r: 16\nlora_alpha: 32\n"
             "load_in_4bit: true\ntorch_dtype: bfloat16\nbnb_4bit_quant_storage: float16\n"
             "fsdp: full_shard auto_wrap\n")
+    # T4: compute capability 7.5, below the 8.0 bf16 needs (NVIDIA's CUDA GPUs compute
+    # capability table; A100: 8.0)
     options = api.make_options(gpu="t4")
     result = fix.fix_text(text, "run.yaml", options, training=True)
     assert result.error is None
