@@ -436,8 +436,13 @@ def _plan(options: Options, view: RunView, needs: Any) -> tuple[tuple[Rule, Any,
 
 
 def lint_view(view: RunView, options: Options, file: str, report: FileReport,
-              waivers: list | None = None) -> None:
+              waivers: list | None = None, ran: frozenset[str] = frozenset()) -> None:
+    """Run the selected rules on VIEW into REPORT, but for those in RAN (``lint_rest``: they
+    have run on this view already; the rules that do run still see every selected rule as
+    running, as in one pass)."""
     plan = _plan(options, view, declared() if view.run is not None else None)
+    if ran:
+        plan = tuple([p for p in plan if p[0].id not in ran])
     active = _selected(options)[1]
     findings = report.findings
     start = len(findings)
@@ -580,6 +585,43 @@ def lint_documents(docs: list[Document], file: str, options: Options,
         report.findings = [f for f in report.findings if f.file != script.file]
     report.findings.sort(key=_FINDING_ORDER)
     return report
+
+
+# rules whose findings depend on which other rules run: they read ``Context.active`` (which rules
+# are selected) or, run last, ``Context.earlier`` (the other rules' findings); a pass by only some
+# rules would say something else for them than a pass by all (tests/test_lint_rest.py finds
+# every check that reads either)
+SELECTION_DEPENDENT = frozenset({"unknown-key", WAIVER_RULE})
+
+
+def lint_rest(first: FileReport, docs: list[Document], file: str, options: Options,
+              ran: frozenset[str], text: str | None = None) -> FileReport | None:
+    """``lint_documents(docs, file, options, text=text)`` made from FIRST, the report of the
+    same DOCS by the rules RAN alone (``only=RAN``, the other options the same): the other
+    selected rules run on FIRST's views, already opened, and their findings join FIRST's in the
+    order one pass gives. FIRST is taken over and returned. None (lint again) where the two
+    could differ: a rule failed or a document could not be read in FIRST, a document was a
+    sweep or grid of runs (their views are not kept), waivers are to be applied, launch-script
+    findings are filtered, or a rule of RAN depends on which rules run."""
+    if (first.internal or first.problem is not None or len(first.views) != len(docs)
+            or options.waivers or options.overrides or options.script is not None
+            or ran & SELECTION_DEPENDENT):
+        return None
+    if any(rule.stage == "last" for rule in _selected(options)[0] if rule.id in ran):
+        return None
+    if text and docs and docs[0].format == "yaml" and waivermod.scan(text):
+        return None
+    for view in first.views:
+        if view.skipped:
+            continue
+        try:
+            lint_view(view, options, file, first, ran=ran)
+        except Exception as exc:  # the crash boundary of one document, as in lint_documents
+            if options.debug:
+                raise
+            first.internal.append(internal_error(file, None, exc))
+    first.findings.sort(key=_FINDING_ORDER)
+    return first
 
 
 def _composed(doc: Document, file: str, options: Options, report: FileReport) -> Document:

@@ -220,9 +220,10 @@ def _lint_before(text: str, name: str, options: Options, fmt: str, linked: dict,
     Only rules whose catalogue record has ``fix:`` propose fixes (``_plan`` takes no other), so
     the rules that fix run first; when they leave nothing to make, their report says all a fix
     run shows (what is left as is, the flags they need, why nothing is made), and the other
-    rules need not run. Otherwise the text is linted by every rule, as the proof compares the
-    fixed text's findings with all of the old text's. A rule that fails makes the whole lint run,
-    so the failure reported is the one lint reports.
+    rules need not run. Otherwise the other rules run too (``engine.lint_rest``: on the views
+    already opened, where that gives what one pass by every rule gives, else a lint of the text
+    by every rule), as the proof compares the fixed text's findings with all of the old text's.
+    A rule that fails makes the whole lint run, so the failure reported is the one lint reports.
     """
     fixing = _fixing_options(options)
     with links.linked_texts(linked):
@@ -237,6 +238,12 @@ def _lint_before(text: str, name: str, options: Options, fmt: str, linked: dict,
         first = _lint_parsed(docs, text, name, fixing)
         if not first.internal and not _plan(first, training=training, halve_batch=halve_batch)[0]:
             return first
+        try:  # the other rules on the views the fixing rules judged, as one pass by all would say
+            whole = engine.lint_rest(first, docs, name, options, fixing.only, text)
+        except Exception:  # a bug in cfgcheck: the lint of every rule reports it, as lint does
+            whole = None
+        if whole is not None:
+            return whole
         return _lint_parsed(docs, text, name, options)  # the same documents, by every rule
 
 
