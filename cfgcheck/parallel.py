@@ -100,6 +100,8 @@ def chunk_bounds(n: int, processes: int) -> list[tuple[int, int]]:
 
 
 def _strip(report: Any) -> Any:
+    for view in report.views:  # a view and its opened run refer to each other: freed at once
+        view.run = None
     report.views = []
     return report
 
