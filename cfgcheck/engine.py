@@ -7,6 +7,8 @@ user's overrides. Locations come from the document, never from a check.
 from __future__ import annotations
 
 import os
+from contextlib import contextmanager
+from contextvars import ContextVar
 from operator import attrgetter
 from pathlib import Path
 from typing import Any, Callable, Hashable, Iterable, Iterator
@@ -584,6 +586,9 @@ def lint_documents(docs: list[Document], file: str, options: Options,
     elif script is not None and options.script_linted and script.file != file:
         report.findings = [f for f in report.findings if f.file != script.file]
     report.findings.sort(key=_FINDING_ORDER)
+    made = _LETTING_GO.get()
+    if made is not None:
+        made.append(report)
     return report
 
 
@@ -808,6 +813,29 @@ def drop_views(report: FileReport) -> FileReport:
         view.run = None
     report.views = []
     return report
+
+
+_LETTING_GO: ContextVar[list[FileReport] | None] = ContextVar("cfgcheck_letting_go", default=None)
+
+
+@contextmanager
+def views_let_go() -> Iterator[None]:
+    """Within: each report ``lint_documents`` makes has its views cut from their opened runs on
+    the way out (as ``drop_views`` does, the views themselves left in place), for a caller that
+    keeps none of those views, as fixing keeps only texts and findings. Nested, the outermost
+    lets go."""
+    if _LETTING_GO.get() is not None:
+        yield
+        return
+    made: list[FileReport] = []
+    token = _LETTING_GO.set(made)
+    try:
+        yield
+    finally:
+        _LETTING_GO.reset(token)
+        for report in made:
+            for view in report.views:
+                view.run = None
 
 
 def lint_files(pairs: list[tuple[str, Options]], *, jobs: int | str = 1,

@@ -79,3 +79,26 @@ def test_a_worker_strips_views_the_same_way(collector_off):
     assert report.views == [] and all(v.run is None for v in views)
     del views
     assert _cyclic_views() == []
+
+
+def test_fixing_leaves_no_view_to_the_collector(collector_off):
+    from cfgcheck import fix
+
+    texts = [(p, p.read_text()) for p in sorted(DEMO.iterdir())]
+    results = [fix.fix_text(text, str(p), Options()) for p, text in texts]
+    assert any(r.applied for r in results)  # fixes were made and proven, with their re-lints
+    assert _cyclic_views() == []
+
+
+def test_views_are_cut_on_leaving_the_outermost_scope():
+    text = (DEMO / "harborlight-support-lora.yaml").read_text()
+    with engine.views_let_go():
+        outer = engine.lint_text(text, "a.yaml")
+        with engine.views_let_go():
+            inner = engine.lint_text(text, "b.yaml")
+        # the inner scope joined the outer one: both still open here
+        assert all(v.run is not None for v in outer.views + inner.views)
+    assert outer.views and inner.views  # the views stay in their reports, cut from their runs
+    assert all(v.run is None for v in outer.views + inner.views)
+    kept = engine.lint_text(text, "c.yaml")  # outside any scope: nothing is cut
+    assert kept.views and all(isinstance(v.run, OpenedRun) for v in kept.views)

@@ -62,7 +62,7 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
     ``linked_before`` / ``linked_after``: the texts of linked files (real path -> text) to lint
     with, as they are and as they will be once fixed (files fixed together).
     """
-    with memo.collector_paused():
+    with memo.collector_paused(), engine.views_let_go():  # the result keeps no view
         return _fix_text(text, name, options, fmt=fmt, training=training, halve_batch=halve_batch,
                          linked_before=linked_before, linked_after=linked_after,
                          check_stable=check_stable)
