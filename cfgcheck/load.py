@@ -1003,9 +1003,13 @@ def walk_paths(paths: Iterable[str | Path], suffixes: tuple[str, ...] = CONFIG_S
             for root, dirs, files in os.walk(p, onerror=unlistable):
                 reads.note_walk(root)
                 dirs[:] = sorted(d for d in dirs if not d.startswith("."))
+                lead = None
                 for f in sorted(files):
                     if f.lower().endswith(suffixes):
-                        out.append((str(Path(root) / f), False))
+                        if lead is None:  # str(Path(root) / f) without a path object a file
+                            head = str(Path(root))
+                            lead = "" if head == "." else head if head.endswith(_SEPARATORS) else head + os.sep
+                        out.append((lead + f, False))
         else:
             out.append((str(p), True))
     return out
