@@ -102,3 +102,12 @@ def test_views_are_cut_on_leaving_the_outermost_scope():
     assert all(v.run is None for v in outer.views + inner.views)
     kept = engine.lint_text(text, "c.yaml")  # outside any scope: nothing is cut
     assert kept.views and all(isinstance(v.run, OpenedRun) for v in kept.views)
+
+
+def test_deriving_leaves_no_view_to_the_collector(collector_off):
+    from cfgcheck import api
+
+    result = api.derive([str(DEMO)], project=None)
+    assert result.runs and all(plan.memory_inputs is not None or plan.memory_problem
+                               for _f, plan in result.runs)
+    assert _cyclic_views() == []
