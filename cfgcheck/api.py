@@ -338,8 +338,7 @@ def derive(paths: Iterable[str | Path], *, project: Any = "auto", **options: Any
                         continue
                     arch = model_of(view, file, opts.cwd, declared=opts.models)
                     out.runs.append((file, derive_plan(view, arch, gpu=opts.gpu, gpus=run.gpus, rows=opts.rows)))
-                for run in runs:  # a plan keeps no view: the view and its run let go of each other
-                    run.view.run = None
+                engine.let_go(run.view for run in runs)  # a plan keeps no view
             except Exception as exc:
                 if opts.debug:
                     raise
