@@ -899,6 +899,11 @@ def _json_entries(text: str, doc: Document) -> None:
             return
     except (_NotAligned, StopIteration):
         pass
+    finally:
+        # WALK refers to itself through its closure: emptied, the cell no longer holds it, so the
+        # function, the token iterator and the text are freed on return instead of waiting for
+        # the cycle collector with the document's entries (tests/test_drop_views.py)
+        del walk
     entries.clear()
     _json_entries_scan(text, doc)
 

@@ -111,3 +111,29 @@ def test_deriving_leaves_no_view_to_the_collector(collector_off):
     assert result.runs and all(plan.memory_inputs is not None or plan.memory_problem
                                for _f, plan in result.runs)
     assert _cyclic_views() == []
+
+
+def test_reading_json_leaves_nothing_to_the_collector(collector_off):
+    # the position walk of a JSON text is a nested function that calls itself: its closure held
+    # the function, and with it the text and the document's entries, in a cycle
+    from cfgcheck import load
+
+    text = '{"model": {"name": "x", "layers": [1, 2, {"r": 8}]}, "lr": 1e-4, "tags": ["a", "b"]}'
+    doc = load.load_text(text, "a.json")[0]
+    assert doc.entries[("model", "layers", 2, "r")].value.line == 1  # the walk ran and placed it
+    del doc
+    gc.collect()
+    assert gc.garbage == []
+
+
+def test_linting_a_folder_of_yaml_and_json_leaves_nothing_to_the_collector(collector_off, tmp_path):
+    # every kind of object, not only views: what the collector would have to free after a lint
+    (tmp_path / "run.yaml").write_text((DEMO / "harborlight-support-lora.yaml").read_text())
+    (tmp_path / "ds.json").write_text('{"train_micro_batch_size_per_gpu": 4, '
+                                      '"gradient_accumulation_steps": 2, "zero_optimization": {"stage": 2}}')
+    pairs = [(str(p), Options()) for p in sorted(tmp_path.iterdir())] + _pairs()
+    reports = list(engine.lint_files(pairs, keep_views=False))
+    assert any(r.layout for r in reports[:2])
+    del reports
+    gc.collect()
+    assert gc.garbage == []
