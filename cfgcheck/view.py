@@ -401,12 +401,22 @@ def _top_names(data: dict) -> frozenset:
     return frozenset(k.replace("-", "_") for k in data if isinstance(k, str))
 
 
-def unread_format(data: Any) -> UnreadFormat | None:
-    """The format cfgcheck recognises but does not read that DATA is in, or None."""
+def unread_format(data: Any, data_shape: tuple | None = None) -> UnreadFormat | None:
+    """The format cfgcheck recognises but does not read that DATA is in, or None. DATA_SHAPE:
+    ``shape(data)``, when the caller has it: which formats the keys leave open is then worked out
+    once per structure (``_open_formats``), and only those that also read values are tried."""
     if not isinstance(data, dict):
         return None
     top_names = _top_names(data)
     keys: list = []  # which marker keys the mappings have, found when a format first needs them
+    if data_shape is not None:
+        open_ = _OPEN_FORMATS_BY_SHAPE_CACHE.get(data_shape)
+        if open_ is None:
+            open_ = _kept(_OPEN_FORMATS_BY_SHAPE_CACHE, data_shape, _open_formats(data, top_names))
+        for fmt in open_:
+            if not fmt.shape or _matches(fmt, data, top_names, keys):
+                return fmt
+        return None
     for fmt in UNREAD_FORMATS:
         if not fmt.shape:  # (the quick refusals of _matches, without the call)
             if fmt.section:
@@ -417,6 +427,36 @@ def unread_format(data: Any) -> UnreadFormat | None:
         if _matches(fmt, data, top_names, keys):
             return fmt
     return None
+
+
+def _open_formats(data: dict, top_names: frozenset) -> tuple[UnreadFormat, ...]:
+    """The formats of UNREAD_FORMATS, in order, that DATA's keys leave open, up to the first one
+    the keys alone settle: a format judged by its marking keys matches or not by those keys (its
+    section's, or the top-level ones with dashes as underscores), and ends the list when it
+    matches; one of a special shape stays when the keys it reads its values at are there
+    (``_matches`` then decides on the values). A pure function of ``shape(data)``."""
+    marker = _marker_keys(data)
+    out = []
+    for fmt in UNREAD_FORMATS:
+        kind = fmt.shape
+        if kind == "class-path":
+            if "class_path" in marker:
+                out.append(fmt)
+        elif kind == "composed":
+            if "defaults" in data or not data.keys().isdisjoint(BASE_FILE_KEYS) or "_target_" in marker:
+                out.append(fmt)
+        elif kind == "tuning-space":
+            if "zero_optimization" in data or not data.keys().isdisjoint(_TUNED):
+                out.append(fmt)
+        elif kind:
+            out.append(fmt)  # a shape not described here: tried on every document
+        elif _matches(fmt, data, top_names):
+            out.append(fmt)
+            break  # it matches whatever the values: no later format is reached
+    return tuple(out)
+
+
+_OPEN_FORMATS_BY_SHAPE_CACHE: dict[tuple, tuple] = {}
 
 
 # --------------------------------------------------------------------------- key structure
@@ -508,7 +548,7 @@ def detect_layout(data: Any, data_shape: tuple | None = None) -> tuple[Layout | 
         for what, marks in NOT_TRAINING.items():
             if len(top & marks) >= 2 or (what == "github-workflow" and True in data and "jobs" in top):
                 return None, f"looks like a {what} file"
-    unread = unread_format(data)
+    unread = unread_format(data, data_shape)
     if unread is not None:
         return None, f"{unread.title} ({unread.name}): {NOT_READ_YET}"
     if data_shape is not None:

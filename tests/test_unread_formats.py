@@ -7,8 +7,10 @@ from __future__ import annotations
 
 import pytest
 
-from cfgcheck import engine, findings
+from cfgcheck import engine, findings, load, view
 from cfgcheck.render.text import summary_line
+
+from .conftest import ROOT, SHARED
 
 NEOX_YAML = """\
 {
@@ -74,3 +76,61 @@ def test_a_trainer_file_with_a_trainer_section_of_its_own_is_still_read():
     text = "model_name_or_path: acme/tiny-1b\ntrainer:\n  learning_rate: 2.0e-5\n  max_epochs: 3\n"
     report = engine.lint_text(text, "run.yaml")
     assert report.layout == "trainer"
+
+
+# documents of one key structure whose values decide the format: the structure's open formats
+# are worked out on the first and must still let the second's values decide
+SAME_KEYS_OTHER_VALUES = [
+    ("defaults:\n  - model: tiny\n  - _self_\nlearning_rate: 1.0e-4\n",
+     "defaults: none\nlearning_rate: 1.0e-4\n"),
+    ('{"train_micro_batch_size_per_gpu": 4, "zero_optimization": {"stage": [1, 2, 3]}}',
+     '{"train_micro_batch_size_per_gpu": 4, "zero_optimization": {"stage": 2}}'),
+    ('{"train_micro_batch_size_per_gpu": [1, 2, 4], "gradient_accumulation_steps": 1}',
+     '{"train_micro_batch_size_per_gpu": 4, "gradient_accumulation_steps": 1}'),
+    ("base: recipes/base.yaml\nlearning_rate: 2.0e-5\nper_device_train_batch_size: 4\n",
+     "base: 3\nlearning_rate: 2.0e-5\nper_device_train_batch_size: 4\n"),
+    ("model:\n  class_path: acme.TinyModel\n  init_args:\n    lr: 0.001\n",
+     "model:\n  class_path: 3\n  init_args:\n    lr: 0.001\n"),
+]
+
+
+def _documents():
+    texts = [t for t, _fmt in CASES.values()] + [t for pair in SAME_KEYS_OTHER_VALUES for t in pair]
+    texts += [t for pair in SAME_KEYS_OTHER_VALUES for t in reversed(pair)]
+    roots = [r for r in (ROOT / "fixtures", SHARED / "corpus" / "public") if r.is_dir()]
+    for path in engine.expand_paths(roots):
+        try:
+            texts.append(load.read_source(path).text)
+        except load.LoadError:
+            continue
+    for text in texts:
+        try:
+            docs = load.load_text(text, "cfg.yaml")
+        except load.LoadError:
+            continue
+        yield from (d.data for d in docs)
+
+
+def test_the_formats_worked_out_per_key_structure_are_those_of_each_document():
+    seen = 0
+    for order in (1, -1):  # each document once after, once before the others of its structure
+        view._OPEN_FORMATS_BY_SHAPE_CACHE.clear()
+        for data in list(_documents())[::order]:
+            data_shape = view.shape(data)
+            if data_shape is None:
+                continue
+            assert view.unread_format(data, data_shape) == view.unread_format(data), data
+            seen += 1
+    assert seen > 100
+
+
+@pytest.mark.parametrize("pair", SAME_KEYS_OTHER_VALUES, ids=range(len(SAME_KEYS_OTHER_VALUES)))
+def test_documents_of_one_key_structure_are_told_apart_by_their_values(pair):
+    view._OPEN_FORMATS_BY_SHAPE_CACHE.clear()
+    a, b = (load.load_text(t, "cfg.yaml")[0].data for t in pair)
+    assert view.shape(a) == view.shape(b)
+    for first, second in ((a, b), (b, a)):  # whichever fills the structure's entry first
+        view._OPEN_FORMATS_BY_SHAPE_CACHE.clear()
+        view.unread_format(first, view.shape(first))
+        assert view.unread_format(second, view.shape(second)) == view.unread_format(second)
+    assert view.unread_format(a) is not None and view.unread_format(b) is None

@@ -18,7 +18,7 @@ def _gb(n: int) -> str:
     return f"{n / GB:.1f} GB"
 
 
-@check("memory-exceeds-gpu")
+@check("memory-exceeds-gpu", methods=("full", "lora", "qlora"))
 def memory_exceeds_gpu(ctx) -> None:
     view = ctx.view
     if view.method not in ("full", "lora", "qlora"):
