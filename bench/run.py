@@ -21,7 +21,8 @@ Sections (``--only`` takes a comma-separated list of them; default: all):
   jobs       serial / `--jobs 2` and serial / `--jobs auto` (the speed-up), and the CPU time the
              pool adds
   allowed    serial CPU / the CPU critical path of `--jobs 2` (this process until the pool starts,
-             then the busiest worker): the speed-up idle cores would give, whatever the load
+             then the busiest worker): the speed-up idle cores would give, whatever the load; and
+             the speed-up the machine gives two copies of a pure-Python loop (its ceiling)
   threshold  serial / `--jobs 2` over small runs (16 .. 256 files): where a pool starts to pay
   fix        `cfgcheck fix --diff` over the corpus / the C compose loop
   derive     `cfgcheck derive` over the corpus / the C compose loop
@@ -73,7 +74,8 @@ LABELS = {
     "peer": ["corpus: lint / jsonschema loop (our schemas)"],
     "script": ["corpus: lint / hand script, three rules"],
     "jobs": ["speed-up: serial / --jobs 2", "speed-up: serial / --jobs auto"],
-    "allowed": ["speed-up the work allows (CPU critical path), --jobs 2"],
+    "allowed": ["speed-up the work allows (CPU critical path), --jobs 2",
+                "speed-up the machine gives two processes (a pure-Python loop, alone / two at once)"],
     "threshold": ["pool threshold: serial / --jobs 2 by run size"],
     "fix": ["fix --diff over the corpus / C compose loop"],
     "derive": ["derive over the corpus / C compose loop"],
@@ -491,6 +493,32 @@ def sec_allowed(b: Bench) -> None:
     med = statistics.median
     row(label, f"CPU {med([h for _, h, _ in runs]):.2f} s here + {med([w for *_, w in runs]):.2f} s "
         "busiest worker", f"serial CPU {med([s for s, *_ in runs]):.2f} s", spread(rs), "≥ 1.8", at_least(rs, 1.8))
+    _ceiling(b)
+
+
+SPIN = "x = 0\nfor i in range(int(__import__('sys').argv[1])): x += i\n"
+
+
+def _ceiling(b: Bench) -> None:
+    """What this machine gives two processes that share nothing: a pure-Python loop run alone,
+    then two copies at once; two loops' worth of work over the wall time of the two together. On
+    two idle cores it is near 2; where the host shares its cores (hyperthreads, other guests) it
+    is lower, and no --jobs figure can pass it."""
+    label = LABELS["allowed"][1]
+    n = str(200_000 if b.quick else 8_000_000)  # about 0.5 s of one core
+    cmd = [PY, "-c", SPIN, n]
+    rs, alone_walls, both_walls = [], [], []
+    for r in range(b.repeat):
+        for which in ("alone", "both") if r % 2 == 0 else ("both", "alone"):
+            start = time.perf_counter()
+            procs = [subprocess.Popen(cmd) for _ in range(1 if which == "alone" else 2)]
+            for proc in procs:
+                proc.wait()
+            (alone_walls if which == "alone" else both_walls).append(time.perf_counter() - start)
+    rs = [2 * a / w for a, w in zip(alone_walls, both_walls)]
+    row(label, f"two at once {seconds(statistics.median(both_walls))}",
+        f"one alone {seconds(statistics.median(alone_walls))}", spread(rs), "-",
+        "the ceiling of every --jobs 2 figure on this machine")
 
 
 def sec_threshold(b: Bench) -> None:

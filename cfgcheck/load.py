@@ -514,6 +514,9 @@ _STD_TAGS = frozenset({
     "tag:yaml.org,2002:set",
 })
 _MERGE = "tag:yaml.org,2002:merge"
+# the tags of the numbers, booleans and nulls a mapping's member is read as in place (_mapping)
+_READ_HERE = frozenset({"tag:yaml.org,2002:int", "tag:yaml.org,2002:float", "tag:yaml.org,2002:bool",
+                        "tag:yaml.org,2002:null"})
 
 _constructor = yaml.constructor.SafeConstructor()
 
@@ -650,7 +653,8 @@ class _YamlBuilder:
         build = self.build
         entries = self.entries
         text = self.text
-        # a value that is plain text, with no tag written, is built here rather than by build()
+        # a scalar value (text, a number, a boolean or null, with no tag written) is read here
+        # rather than by build()
         inline = depth <= MAX_DEPTH
         for knode, vnode in node.value:
             ktag = knode.tag
@@ -672,14 +676,22 @@ class _YamlBuilder:
                 if not isinstance(key, (str, int, float, bool)) and key is not None:
                     key = str(key)
             child = path + (key,)
-            if (inline and vnode.__class__ is _ScalarNode and vnode.tag == _STR
-                    and self.count < MAX_NODES):
-                style = vnode.style or None
-                value = vnode.value
-                if style or not _MAYBE_EXP(value):
+            if inline and vnode.__class__ is _ScalarNode and self.count < MAX_NODES:
+                vtag = vnode.tag
+                if vtag == _STR:
+                    style = vnode.style or None
+                    value = vnode.value
+                    if style or not _MAYBE_EXP(value):
+                        self.count += 1
+                        entries[child] = Entry(vnode, knode, text[vnode.start_mark.index:vnode.end_mark.index],
+                                               style)
+                    else:
+                        value = build(vnode, child, knode, depth)
+                elif vtag in _READ_HERE:  # a number, boolean or null: what build() does for it
                     self.count += 1
                     entries[child] = Entry(vnode, knode, text[vnode.start_mark.index:vnode.end_mark.index],
-                                           style)
+                                           vnode.style or None)
+                    value = self._scalar(vnode, child)
                 else:
                     value = build(vnode, child, knode, depth)
             else:

@@ -1615,10 +1615,11 @@ def lora_trainable_parameters(
     bias: str = "none",
 ) -> int:
     """:func:`_lora_trainable_parameters`, once for the same model and adapter (a pure count of
-    the shapes: configs of one recipe share them)."""
-    key = (arch, type(rank), rank, type(targets), _hashable(targets), type(modules_to_save), _hashable(modules_to_save),
-           type(use_dora), use_dora, bias)
+    the shapes: configs of one recipe share them; a list of target names in another order is the
+    same adapter, ``_targets_key``)."""
     try:
+        key = (arch, type(rank), rank, _targets_key(arch, targets), type(modules_to_save),
+               _hashable(modules_to_save), type(use_dora), use_dora, bias)
         hit = _TRAINABLE_CACHE.get(key)
     except TypeError:  # something unhashable inside: work it out each time
         hit = key = None
