@@ -80,7 +80,8 @@ LABELS = {
     "threshold": ["pool threshold: serial / --jobs 2 by run size"],
     "fix": ["fix --diff over the corpus / C compose loop"],
     "derive": ["derive over the corpus / C compose loop"],
-    "cache": ["unchanged corpus linted again / sha256 pass", "unchanged corpus linted again / uncached run"],
+    "cache": ["unchanged corpus linted again / sha256 pass", "unchanged corpus linted again / uncached run",
+              "first run into an empty cache (entries written) / uncached run"],
     "memory": ["peak memory by number of files"],
     "growth": ["growth: keys per file", "growth: documents per file", "growth: unknown keys",
                "growth: files in a folder"],
@@ -575,6 +576,20 @@ def sec_cache(b: Bench) -> None:
     row(LABELS["cache"][0], seconds(r.median("warm")), seconds(r.median("sha")), spread(rs), "≤ 2", at_most(rs, 2))
     rs = r.ratios("warm", "uncached")
     row(LABELS["cache"][1], seconds(r.median("warm")), seconds(r.median("uncached")), spread(rs), "-", "-")
+    # the first run a user or a CI job without a kept cache folder pays: every entry written
+    empty = b.tmp / "empty-cache"
+    env = dict(ENV, CFGCHECK_CACHE_DIR=str(empty))
+    first, plain = [], []
+    for i in range(b.repeat):
+        for which in ("first", "plain") if i % 2 == 0 else ("plain", "first"):
+            shutil.rmtree(empty, ignore_errors=True)
+            cmd = warm if which == "first" else b.lint(*b.corpus)
+            start = time.perf_counter()
+            subprocess.run(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env, cwd=ROOT)
+            (first if which == "first" else plain).append(time.perf_counter() - start)
+    rs = [a / p for a, p in zip(first, plain)]
+    row(LABELS["cache"][2], seconds(statistics.median(first)), seconds(statistics.median(plain)), spread(rs), "-",
+        "what writing the entries costs on this disk")
 
 
 def sec_memory(b: Bench) -> None:

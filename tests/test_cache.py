@@ -966,3 +966,66 @@ def test_a_pipe_among_the_configs_never_hangs_a_cached_lint(tmp_path):
     assert answers[0] == answers[1] and answers[0][0] == api.EXIT_INPUT
     assert b"pipe.yaml:1:1: input error: not a regular file" in answers[0][1]
     assert cache.reads.regular_bytes(str(tmp_path / "configs" / "pipe.yaml")) is None
+
+
+# --------------------------------------------------------------------------- writing behind the lint
+
+def _configs(folder: Path, n: int) -> list[Path]:
+    folder.mkdir()
+    out = []
+    for i in range(n):
+        p = folder / f"run{i:02d}.yaml"
+        p.write_text(LOW_SCALE.replace("2.0e-4", f"{i + 1}.0e-5"))
+        out.append(p)
+    return out
+
+
+def _stored(folder: Path) -> list[Path]:
+    root = folder / f"lint-{cache.FORMAT}"
+    return [p for p in root.glob("??/*") if p.is_file()]
+
+
+@pytest.mark.parametrize("how", ["process", "thread"])
+def test_entries_written_behind_the_lint_are_on_disk_when_the_run_ends(tmp_path, monkeypatch, how):
+    files = _configs(tmp_path / "cfg", 12)
+    if how == "thread":
+        monkeypatch.setattr(cache.Store, "_fork_writer", lambda self: False)
+    elif not sys.platform.startswith("linux") or threading.active_count() != 1:
+        pytest.skip("a writer process is forked only on Linux, by a process with no other thread")
+    store = cache.Store(tmp_path / "cache")
+    first = api.lint([str(p) for p in files], project=None, cache=store)
+    assert store.wrote_behind == how
+    assert len(_stored(tmp_path / "cache")) == 12  # one entry a file, all there once lint returns
+    assert not list((tmp_path / "cache").rglob("*.tmp"))
+    again = cache.Store(tmp_path / "cache")
+    served = api.lint([str(p) for p in files], project=None, cache=again)
+    assert again.hits == 12 and again.misses == 0
+    assert _answer(served) == _answer(first)
+
+
+@pytest.mark.parametrize("how", ["process", "thread"])
+def test_a_write_that_fails_behind_the_lint_stores_no_whole_run(tmp_path, monkeypatch, how):
+    files = _configs(tmp_path / "cfg", 6)
+    if how == "thread":
+        monkeypatch.setattr(cache.Store, "_fork_writer", lambda self: False)
+    elif not sys.platform.startswith("linux") or threading.active_count() != 1:
+        pytest.skip("a writer process is forked only on Linux, by a process with no other thread")
+    # every write behind fails (the forked writer inherits the replaced method); the answer is
+    # the same, nothing is stored, and the run is known not to be stored whole
+    monkeypatch.setattr(cache.Store, "_write_file", lambda self, target, blob, made: False)
+    store = cache.Store(tmp_path / "cache")
+    got = api.lint([str(p) for p in files], project=None, cache=store)
+    assert store.wrote_behind == how
+    assert _answer(got) == Case.fresh(files)
+    assert _stored(tmp_path / "cache") == []
+    assert store.run_whole is False and store.writable is False
+
+
+def test_a_run_stopped_early_still_writes_what_it_linted(tmp_path):
+    files = _configs(tmp_path / "cfg", 8)
+    store = cache.Store(tmp_path / "cache")
+    reports = api.lint_reports([str(p) for p in files], project=None, cache=store)
+    taken = [next(reports) for _ in range(3)]
+    reports.close()  # the caller stops: the writes behind are waited for, the writer let go
+    assert len(taken) == 3 and len(_stored(tmp_path / "cache")) == 3
+    assert store._pipe is None and store._child is None and store._writer is None
