@@ -201,14 +201,16 @@ def _picklers() -> dict[str, Any]:
                    findings.Related, findings.InputProblem, findings.Severity)
 
         class _Pickler(pickle.Pickler):
-            def persistent_id(self, obj: Any) -> None:
+            # asked of every object but those of exactly None, bool, int, float, str and bytes
+            # (and those met before): a report's many texts and numbers are not asked about
+            def reducer_override(self, obj: Any) -> Any:
                 if isinstance(obj, type):  # a class named by reference
                     ok = obj in allowed or obj in _PLAIN
                 else:
                     ok = isinstance(obj, _PLAIN) or type(obj) in allowed
                 if not ok:
                     raise Uncacheable(f"{type(obj).__name__} in a report")
-                return None
+                return NotImplemented  # pickled the usual way
 
         class _Unpickler(pickle.Unpickler):
             def find_class(self, module: str, name: str) -> Any:

@@ -1029,3 +1029,23 @@ def test_a_run_stopped_early_still_writes_what_it_linted(tmp_path):
     reports.close()  # the caller stops: the writes behind are waited for, the writer let go
     assert len(taken) == 3 and len(_stored(tmp_path / "cache")) == 3
     assert store._pipe is None and store._child is None and store._writer is None
+
+
+class _Text(str):
+    """Text of a type that is no result type (a str subclass, as an enum's value could be)."""
+
+
+@pytest.mark.parametrize("foreign", [Path("a.yaml"), _Text("x"), {"k": [1, Path("b")]}, (1, _Text("y"))])
+def test_a_report_holding_a_value_of_another_type_is_not_stored(tmp_path, foreign):
+    # the entry could not be read back by the unpickler that builds only result types
+    store = cache.Store(tmp_path / "cache")
+    report = FileReport(file="a.yaml", layout="trainer", findings=[
+        Finding(rule="r", severity=Severity.WARNING, file="a.yaml", line=1, column=1, key="k",
+                message="m", hint="h", data={"value": foreign})])
+    assert store.put("ab" * 32, "0" * 64, str(tmp_path / "a.yaml"), {}, report) is False
+    assert _stored(tmp_path / "cache") == []
+    plain = FileReport(file="a.yaml", layout="trainer", findings=[
+        Finding(rule="r", severity=Severity.WARNING, file="a.yaml", line=1, column=1, key="k",
+                message="m", hint="h", data={"value": [1, 2.5, "x", None, True, {"n": (3,)}]})])
+    assert store.put("cd" * 32, "0" * 64, str(tmp_path / "a.yaml"), {}, plain) is True
+    assert isinstance(cache.Store(tmp_path / "cache").get("cd" * 32), FileReport)
