@@ -1049,3 +1049,21 @@ def test_a_report_holding_a_value_of_another_type_is_not_stored(tmp_path, foreig
                 message="m", hint="h", data={"value": [1, 2.5, "x", None, True, {"n": (3,)}]})])
     assert store.put("cd" * 32, "0" * 64, str(tmp_path / "a.yaml"), {}, plain) is True
     assert isinstance(cache.Store(tmp_path / "cache").get("cd" * 32), FileReport)
+
+
+def test_a_finding_read_back_is_the_same_frozen_finding():
+    from cfgcheck._records import FrozenRecordError
+    from cfgcheck.findings import Related
+
+    f = Finding(rule="lora-scale", severity=Severity.ERROR, file="a.yaml", line=3, column=7, key="lora.alpha",
+                message="m", hint="h", data={"alpha": 8, "r": (16,)}, path=("lora", "alpha"), document=1,
+                fix=None, related=(Related(key="lora.r", line=4, column=5),))
+    copy = pickle.loads(pickle.dumps(f, pickle.HIGHEST_PROTOCOL))
+    assert type(copy) is Finding and copy == f
+    assert [getattr(copy, n) for n in Finding._record_fields] == [getattr(f, n) for n in Finding._record_fields]
+    with pytest.raises(FrozenRecordError):
+        copy.line = 9
+    # a state of another shape (an entry of an older layout) is refused, and the cache takes
+    # a refused entry as a miss
+    with pytest.raises(ValueError):
+        Finding.__new__(Finding).__setstate__(f.__getstate__()[:-1])
