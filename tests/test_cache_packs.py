@@ -1,0 +1,186 @@
+"""Packed entries: a run that stores many reports writes all but its first few into one pack
+file. The invalidation cases of test_cache run here again with every entry packed (they are
+imported, so pytest collects them in this module, under its fixture), then the cases of packs
+alone: one file for many entries, damaged packs, a pack that cannot be written, trimming."""
+
+from __future__ import annotations
+
+import os
+import pickle
+import sys
+import threading
+from pathlib import Path
+
+import pytest
+
+from cfgcheck import api, cache
+from cfgcheck.findings import FileReport
+
+from .test_cache import (GOOD_SCALE, LOW_SCALE, _answer, _stored,  # noqa: F401 - collected here again
+                         test_changed_base_file_of_a_composed_config, test_changed_file_is_linted_again,
+                         test_changed_launch_file, test_changed_linked_deepspeed_file,
+                         test_changed_option, test_changed_project_file, test_changed_threshold,
+                         test_checkpoint_config_json_changed, test_linked_file_that_appears_where_nothing_was,
+                         test_new_python_file_in_the_repository, test_parallel_cached_run_gives_the_serial_answer,
+                         test_repository_script_that_starts_declaring_a_key,
+                         test_same_bytes_under_another_name_is_another_entry, test_size_stays_bounded)
+
+
+@pytest.fixture(autouse=True)
+def _every_entry_packed(monkeypatch):
+    monkeypatch.setattr(cache, "PACK_AFTER", 0)
+
+
+def _configs(folder: Path, n: int) -> list[str]:
+    folder.mkdir(parents=True, exist_ok=True)
+    out = []
+    for i in range(n):
+        f = folder / f"run{i:02d}.yaml"
+        f.write_text((LOW_SCALE if i % 2 else GOOD_SCALE) + f"seed: {i}\n")
+        out.append(str(f))
+    return out
+
+
+def _root(tmp_path: Path) -> Path:
+    return tmp_path / "cache" / f"lint-{cache.FORMAT}"
+
+
+def _packs(tmp_path: Path) -> list[Path]:
+    return sorted((_root(tmp_path) / "packs").glob("*.pack"))
+
+
+@pytest.mark.parametrize("how", ["process", "thread"])
+def test_a_run_past_the_first_entries_writes_one_pack(tmp_path, monkeypatch, how):
+    monkeypatch.setattr(cache, "PACK_AFTER", 3)
+    if how == "thread":
+        monkeypatch.setattr(cache.Store, "_fork_writer", lambda self: False)
+    elif not sys.platform.startswith("linux") or threading.active_count() != 1:
+        pytest.skip("a writer process is forked only on Linux, by a process with no other thread")
+    files = _configs(tmp_path / "cfg", 10)
+    plain = _answer(api.lint(files, project=None))
+    store = cache.Store(tmp_path / "cache")
+    assert _answer(api.lint(files, project=None, cache=store)) == plain
+    assert store.wrote_behind == how
+    assert len(_stored(tmp_path / "cache")) == 3  # the first three have files of their own
+    (pack,) = _packs(tmp_path)  # the other seven share one, in place once lint returns
+    assert len(cache._read_pack_index(str(pack))) >= 7
+    assert not list((tmp_path / "cache").rglob("*.tmp"))
+    again = cache.Store(tmp_path / "cache")
+    assert _answer(api.lint(files, project=None, cache=again)) == plain
+    assert (again.hits, again.misses) == (10, 0)
+
+
+def test_of_two_packed_entries_of_a_file_the_one_whose_facts_hold_is_used(tmp_path):
+    (cfg,) = _configs(tmp_path / "cfg", 1)
+    ds = tmp_path / "cfg" / "ds.json"
+    ds.write_text('{"train_micro_batch_size_per_gpu": 4}')
+    Path(cfg).write_text(LOW_SCALE + "deepspeed: ds.json\n")
+    first = _answer(api.lint([cfg], project=None, cache=cache.Store(tmp_path / "cache")))
+    ds.write_text('{"train_micro_batch_size_per_gpu": 8}')  # the same key, other facts
+    store = cache.Store(tmp_path / "cache")
+    second = _answer(api.lint([cfg], project=None, cache=store))
+    assert store.misses == 1 and len(_packs(tmp_path)) == 2
+    store = cache.Store(tmp_path / "cache")
+    assert _answer(api.lint([cfg], project=None, cache=store)) == second and store.hits == 1
+    ds.write_text('{"train_micro_batch_size_per_gpu": 4}')  # back: the older pack's entry holds again
+    store = cache.Store(tmp_path / "cache")
+    assert _answer(api.lint([cfg], project=None, cache=store)) == first and store.hits == 1
+
+
+def test_a_damaged_or_foreign_pack_is_a_miss(tmp_path):
+    files = _configs(tmp_path / "cfg", 4)
+    plain = _answer(api.lint(files, project=None))
+    api.lint(files, project=None, cache=cache.Store(tmp_path / "cache"))
+    (pack,) = _packs(tmp_path)
+    whole = pack.read_bytes()
+    index = cache._read_pack_index(str(pack))
+    marker = tmp_path / "ran"
+
+    class Evil:
+        def __reduce__(self):
+            return (os.system, (f"touch {marker}",))
+
+    evil = cache._MAGIC + pickle.dumps(("k", "f", Evil()))
+    first_entry = min(offset for _, offset, _ in index)
+    damaged = [
+        whole[: len(whole) // 2],  # cut short: no index at the end
+        b"",
+        b"garbage" * 50,
+        whole[:-3] + b"xyz",  # the magic line broken
+        whole[:first_entry] + b"\0" * 40 + whole[first_entry + 40:],  # an entry's bytes broken
+        # an index that points past the entries
+        whole[:-cache._PACK_TRAILER - cache._PACK_ROW + 33] + (10 ** 9).to_bytes(8, "little")
+        + whole[-cache._PACK_TRAILER - cache._PACK_ROW + 41:],
+    ]
+    for blob in damaged:
+        pack.write_bytes(blob)
+        store = cache.Store(tmp_path / "cache")
+        assert _answer(api.lint(files, project=None, cache=store)) == plain
+        assert store.hits < 4
+        for p in _packs(tmp_path):  # the run stores its answers again: back to the damaged one
+            if p != pack:
+                p.unlink()
+    # an entry that unpickles a callable: refused, never run
+    rows = [("e" + key[1:], len(cache._PACK_MAGIC), len(evil)) for key, _, _ in index if key[0] == "e"]
+    body = cache._PACK_MAGIC + evil
+    table = b"".join(b"e" + bytes.fromhex(k[1:]) + o.to_bytes(8, "little") + n.to_bytes(8, "little")
+                     for k, o, n in rows)
+    pack.write_bytes(body + table + len(table).to_bytes(8, "little") + cache._PACK_MAGIC)
+    assert len(cache._read_pack_index(str(pack))) == len(rows)
+    store = cache.Store(tmp_path / "cache")
+    assert _answer(api.lint(files, project=None, cache=store)) == plain and store.hits == 0
+    assert not marker.exists()
+
+
+@pytest.mark.parametrize("how", ["process", "thread"])
+def test_a_pack_that_cannot_be_written_leaves_nothing_and_no_whole_run(tmp_path, monkeypatch, how):
+    if how == "thread":
+        monkeypatch.setattr(cache.Store, "_fork_writer", lambda self: False)
+    elif not sys.platform.startswith("linux") or threading.active_count() != 1:
+        pytest.skip("a writer process is forked only on Linux, by a process with no other thread")
+    files = _configs(tmp_path / "cfg", 5)
+    root = _root(tmp_path)
+    root.mkdir(parents=True)
+    (root / "packs").write_text("a file where the packs' folder goes")
+    store = cache.Store(tmp_path / "cache")
+    assert _answer(api.lint(files, project=None, cache=store)) == _answer(api.lint(files, project=None))
+    assert store.run_whole is False
+    assert not list((tmp_path / "cache").rglob("*.tmp")) and not list(root.rglob("*.pack"))
+    store = cache.Store(tmp_path / "cache")
+    api.lint(files, project=None, cache=store)
+    assert store.hits == 0  # nothing was stored that could be read back
+
+
+def test_packs_are_counted_and_trimmed_oldest_first(tmp_path):
+    for run in range(4):
+        files = _configs(tmp_path / f"cfg{run}", 3)
+        api.lint(files, project=None, cache=cache.Store(tmp_path / "cache"))
+    root = _root(tmp_path)
+    packs = _packs(tmp_path)
+    assert len(packs) == 4
+    for age, p in enumerate(packs):
+        os.utime(p, (1000 + age, 1000 + age))
+    n, size = cache.usage(root)
+    assert n >= 4 and size >= sum(p.stat().st_size for p in packs)
+    keep = sum(p.stat().st_size for p in packs[2:])
+    others = size - sum(p.stat().st_size for p in packs)
+    # room for the two newest packs and everything else, at the trim's 80 %
+    cache.trim(root, max_bytes=int((keep + others) / cache.KEEP_FRACTION) + 10)
+    assert _packs(tmp_path) == packs[2:]
+
+
+def test_a_pack_read_back_gives_every_entry(tmp_path):
+    files = _configs(tmp_path / "cfg", 6)
+    api.lint(files, project=None, cache=cache.Store(tmp_path / "cache"))
+    (pack,) = _packs(tmp_path)
+    index = cache._read_pack_index(str(pack))
+    entries = [k for k, _, _ in index if k[0] == "e"]
+    assert len(entries) == 6 and len(set(entries)) == 6
+    assert {k[0] for k, _, _ in index} == {"e", "f"}  # the fact sets the entries name are in it too
+    for _, offset, length in index:
+        blob = cache._read_slice(str(pack), offset, length)
+        assert blob is not None and len(blob) == length
+    store = cache.Store(tmp_path / "cache")
+    got = [store.get(k[1:]) for k in entries]
+    assert all(isinstance(r, FileReport) for r in got)
+    assert sorted(r.file for r in got) == sorted(files)
