@@ -41,10 +41,15 @@ from typing import Any, Callable, Iterator
 # even near 30 files; at 64 it saves about a quarter of the serial time (bench/RESULTS.md).
 AUTO_FILES_PER_WORKER = 32
 
-CHUNK_FILES = 16  # at most this many files a chunk: ~50 ms of work, about 0.3 ms of round trip
+# at most this many files a chunk: 15 to 150 ms of work (0.3 to 3 ms a file of the benchmark
+# corpus on the machines measured), against about 0.4 ms of round trip. Measured on 2 cores over
+# 2,000 files, --jobs 2 in one process: 16 files a chunk (8 held) 0.375 s, 48 (4 held) 0.346 s,
+# 96 (2 held) 0.366 s, the serial run 0.509 s (medians of 7 interleaved runs); fewer chunks mean
+# less managing of the pool here, more mean the processes end closer together.
+CHUNK_FILES = 48
 CHUNKS_PER_PROCESS = 4  # a short run: about this many chunks for each process, so all have work
 POOL_AHEAD = 2  # chunks sent to each worker ahead of the reports yielded
-HELD_CHUNKS = 8  # chunks this process lints ahead of the next one in order, at most (a busy machine can
+HELD_CHUNKS = 4  # chunks this process lints ahead of the next one in order, at most (a busy machine can
 # starve a worker: this process then goes on alone for a while)
 
 _PRELOAD = ("cfgcheck.engine", "cfgcheck.checks")  # what a fork server imports once
