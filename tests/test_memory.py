@@ -433,3 +433,20 @@ def test_lora_under_deepspeed_keeps_16bit_adapters_with_fp32_masters():
     t = 4_194_304  # LoRA paper sec. 5.1: 2 x 64 x 4096 x 8
     assert ds.master_weights_bytes == 4 * t and ds.gradients_bytes == 2 * t
     assert model_states(ds) == model_states(plain) == 2 * N7 + 16 * t
+
+
+def test_estimates_are_kept_for_the_latest_inputs_only(monkeypatch):
+    from cfgcheck import plan
+
+    monkeypatch.setattr(plan, "_ESTIMATE_CACHE", {})
+    monkeypatch.setattr(plan, "ESTIMATES_KEPT", 3)
+    inputs = [MemoryInputs(arch=LLAMA7, method="lora", lora_rank=r, lora_targets=["q_proj", "v_proj"])
+              for r in (4, 8, 16, 32)]
+    first = plan._estimate(inputs[0])
+    assert plan._estimate(inputs[0]) is first  # the same inputs: the kept answer
+    assert first == estimate_memory(inputs[0])
+    for inp in inputs[1:]:
+        plan._estimate(inp)
+    assert len(plan._ESTIMATE_CACHE) == 3  # at most ESTIMATES_KEPT, the oldest let go
+    assert plan._estimate(inputs[0]) is not first and plan._estimate(inputs[0]) == first
+    assert plan._estimate(inputs[3]) is plan._estimate(inputs[3])
