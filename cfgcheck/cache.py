@@ -439,9 +439,9 @@ class Store:
             try:
                 with open(self._facts_file(facts_id), "rb") as fh:
                     blob = fh.read()
-            except OSError:
-                places = self._pack_index().get("f" + facts_id)
-                blob = _read_slice(*places[0]) if places else None
+            except OSError:  # packed: the first copy with the right bytes (a set is named by its hash)
+                blob = next((b for b in (_read_slice(*at) for at in self._pack_index().get("f" + facts_id, ()))
+                             if b is not None and hashlib.sha256(b).hexdigest() == facts_id), None)
                 if blob is None:
                     raise
             if hashlib.sha256(blob).hexdigest() == facts_id:
