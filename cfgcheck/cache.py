@@ -371,21 +371,24 @@ class Store:
 
     def get(self, key: str) -> Any:
         """The stored report for KEY when every fact it rests on still holds, else None. Its own
-        file is looked at first, then the packs, newest first: the first entry that holds."""
+        file is looked at first, then the packs, newest first: the first entry that holds (once
+        the packs' index has been read and names KEY, the packs first)."""
         if not self.usable:
             self.misses += 1
             return None
-        try:
-            with open(self._entry(key), "rb") as fh:
-                blob = fh.read()
-        except OSError:
-            blob = None
-        got = self._valid(key, blob) if blob is not None else None
+        got = None
+        packed_first = self._packs is not None and ("e" + key) in self._packs
+        if packed_first:
+            got = self._packed(key)  # the packs were read already and hold it: no look for its file
         if got is None:
-            for path, offset, length in self._pack_index().get("e" + key, ()):
-                got = self._valid(key, _read_slice(path, offset, length))
-                if got is not None:
-                    break
+            try:
+                with open(self._entry(key), "rb") as fh:
+                    blob = fh.read()
+            except OSError:
+                blob = None
+            got = self._valid(key, blob) if blob is not None else None
+        if got is None and not packed_first:
+            got = self._packed(key)  # the packs' index is read on the first such look of the run
         if got is None:
             self.misses += 1
             return None
@@ -395,6 +398,14 @@ class Store:
             for k, p, pat, v in self._set_facts.get(facts_id, ()):
                 self.run_facts.setdefault((k, p, pat), v)
         return report
+
+    def _packed(self, key: str) -> tuple[str, Any] | None:
+        """KEY's first packed entry that holds, newest pack first."""
+        for path, offset, length in self._pack_index().get("e" + key, ()):
+            got = self._valid(key, _read_slice(path, offset, length))
+            if got is not None:
+                return got
+        return None
 
     def _valid(self, key: str, blob: bytes | None) -> tuple[str, Any] | None:
         """(facts id, report) of the entry BLOB when it is KEY's and its facts hold, else None."""
