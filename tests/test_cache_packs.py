@@ -26,9 +26,11 @@ from .test_cache import (GOOD_SCALE, LOW_SCALE, _answer, _stored,  # noqa: F401 
                          test_same_bytes_under_another_name_is_another_entry, test_size_stays_bounded)
 
 
-@pytest.fixture(autouse=True)
-def _every_entry_packed(monkeypatch):
+@pytest.fixture(autouse=True, params=["index searched", "index in a table"])
+def _every_entry_packed(monkeypatch, request):
     monkeypatch.setattr(cache, "PACK_AFTER", 0)
+    # a run's first lookups search the packs' index bytes; past PACK_SCANS, a table of them
+    monkeypatch.setattr(cache, "PACK_SCANS", 64 if request.param == "index searched" else 0)
 
 
 def _configs(folder: Path, n: int) -> list[str]:
@@ -184,3 +186,34 @@ def test_a_pack_read_back_gives_every_entry(tmp_path):
     got = [store.get(k[1:]) for k in entries]
     assert all(isinstance(r, FileReport) for r in got)
     assert sorted(r.file for r in got) == sorted(files)
+
+
+def test_a_key_is_found_only_at_the_start_of_an_index_row(tmp_path):
+    # row 0's key bytes followed by its offset hold "e" + K from their second byte on: a search
+    # of the index bytes must not take that for K's row
+    k = bytes([0xAB] * 31 + [0x15])
+    row0 = b"e" + b"e" + k[:31] + (0x15).to_bytes(8, "little") + (3).to_bytes(8, "little")
+    assert row0[1:34] == b"e" + k
+    body = cache._PACK_MAGIC + b"x" * 0x40
+    row1 = b"e" + k + (0x30).to_bytes(8, "little") + (4).to_bytes(8, "little")
+    index = row0 + row1
+    folder = tmp_path / "packs"
+    folder.mkdir()
+    (folder / "00000000000000000001-1.pack").write_bytes(
+        body + index + len(index).to_bytes(8, "little") + cache._PACK_MAGIC)
+    packs = cache._PackIndex(str(folder))
+    assert packs.places("e" + k.hex()) == [(str(folder / "00000000000000000001-1.pack"), 0x30, 4)]
+    assert packs.places("f" + k.hex()) == []
+
+
+def test_a_run_that_looks_up_many_keys_reads_the_index_into_a_table_once(tmp_path, monkeypatch):
+    monkeypatch.setattr(cache, "PACK_SCANS", 3)
+    files = _configs(tmp_path / "cfg", 6)
+    plain = _answer(api.lint(files, project=None))
+    api.lint(files, project=None, cache=cache.Store(tmp_path / "cache"))
+    store = cache.Store(tmp_path / "cache")
+    assert _answer(api.lint(files, project=None, cache=store)) == plain and store.hits == 6
+    assert store._packs.table is not None and store._packs.asked == 4  # searched thrice, then a table
+    small = cache.Store(tmp_path / "cache")
+    api.lint(files[:2], project=None, cache=small)
+    assert small.hits == 2 and small._packs.table is None  # a short run only searches
