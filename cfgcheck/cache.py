@@ -22,7 +22,8 @@ first PACK_AFTER entries get a file each (under a folder named by the key's firs
 the rest, with the fact sets they bring, go into one pack file of the run under ``packs/``
 (moved into place whole at the end), since creating a file costs as much as linting one on some
 disks. A lookup tries the entry's own file, then the packs, newest first, and takes the first
-entry whose facts hold. An unreadable entry or pack is a miss; a folder that cannot be written to
+entry whose facts hold (a run's first PACK_SCANS lookups search the packs' index bytes, later
+ones a table made of them once). An unreadable entry or pack is a miss; a folder that cannot be written to
 means no caching, never an error. The total size is bounded: now and then the oldest files
 (entries, packs, fact sets, run records; by modification time) are removed.
 
