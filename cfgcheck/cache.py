@@ -298,6 +298,7 @@ class Store:
         self._unsent: list[bytes] = []  # frames for the writer process, sent a batch at a time
         self._unsent_bytes = 0
         self._packs: _PackIndex | None = None  # the packs, read on the first look into them
+        self._shards: frozenset[str] | None = None  # the entries' two-letter folders, listed once
 
     # the key ------------------------------------------------------------------
     def _fixed(self) -> str:
@@ -382,7 +383,7 @@ class Store:
         places = self._packs.places("e" + key) if self._packs is not None else None
         if places:
             got = self._packed(key, places)  # the packs were read already and hold it: no look for its file
-        if got is None:
+        if got is None and key[:2] in self._entry_folders():
             try:
                 with open(self._entry(key), "rb") as fh:
                     blob = fh.read()
@@ -400,6 +401,17 @@ class Store:
             for k, p, pat, v in self._set_facts.get(facts_id, ()):
                 self.run_facts.setdefault((k, p, pat), v)
         return report
+
+    def _entry_folders(self) -> frozenset[str]:
+        """The entries' two-letter folders there are, listed on the run's first lookup: a key whose
+        folder is not there is not looked for (an empty cache: no failed open a file). One that
+        another run makes meanwhile is only a miss."""
+        if self._shards is None:
+            try:
+                self._shards = frozenset(n for n in os.listdir(self._folder) if len(n) == 2)
+            except OSError:
+                self._shards = frozenset()
+        return self._shards
 
     def _packed(self, key: str, places: list[tuple[str, int, int]]) -> tuple[str, Any] | None:
         """KEY's first packed entry (of PLACES, newest first) that holds."""
@@ -521,6 +533,8 @@ class Store:
             self._sent_behind += 1
         if self._store(_PACKED + "e" + key if packing else self._entry(key), blob):
             self.written += len(blob)
+            if not packing and self._shards is not None and key[:2] not in self._shards:
+                self._shards = self._shards | {key[:2]}  # looked for when asked again
             if self.run is not None:
                 for fact, v in kept:
                     self.run_facts.setdefault(fact, v)

@@ -217,3 +217,15 @@ def test_a_run_that_looks_up_many_keys_reads_the_index_into_a_table_once(tmp_pat
     small = cache.Store(tmp_path / "cache")
     api.lint(files[:2], project=None, cache=small)
     assert small.hits == 2 and small._packs.table is None  # a short run only searches
+
+
+def test_an_entry_stored_by_a_run_is_found_by_the_same_store(tmp_path):
+    from cfgcheck.findings import Finding, Severity
+
+    store = cache.Store(tmp_path / "cache")
+    assert store.get("ab" * 32) is None  # the cache's folders listed: none there yet
+    report = FileReport(file="a.yaml", layout="trainer", findings=[
+        Finding(rule="r", severity=Severity.WARNING, file="a.yaml", line=1, column=1, key="k",
+                message="m", hint="h", data={})])
+    assert store.put("ab" * 32, "0" * 64, str(tmp_path / "a.yaml"), {}, report) is True
+    assert isinstance(store.get("ab" * 32), FileReport)
