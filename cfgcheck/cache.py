@@ -23,8 +23,8 @@ the rest, with the fact sets they bring, go into one pack file of the run under 
 (moved into place whole at the end), since creating a file costs as much as linting one on some
 disks. A lookup tries the entry's own file, then the packs, newest first, and takes the first
 entry whose facts hold (a run's first PACK_SCANS lookups search the packs' index bytes, later
-ones a table made of them once). An unreadable entry or pack is a miss; a folder that cannot be written to
-means no caching, never an error. The total size is bounded: now and then the oldest files
+ones a table made of them once). An unreadable entry or pack is a miss; a folder that cannot be
+written to means no caching, never an error. The total size is bounded: now and then the oldest files
 (entries, packs, fact sets, run records; by modification time) are removed.
 
 Whole runs: the ``lint`` command also keeps one record per command line (its arguments, working
@@ -691,9 +691,7 @@ class Store:
                 made.add(folder)
             fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0), 0o666)
             try:
-                view = memoryview(blob)
-                while view:
-                    view = view[os.write(fd, view):]
+                _write_all(fd, blob)
             finally:
                 os.close(fd)
             os.replace(tmp, target)
@@ -866,13 +864,8 @@ def _row(index: bytes, i: int, end: int) -> tuple[str, int, int] | None:
     return kind.decode("ascii") + index[i + 1:i + 33].hex(), offset, length
 
 
-def _read_pack_index(path: str) -> list[tuple[str, int, int]]:
-    """(name, offset, length) of each entry of the pack at PATH; [] for anything but a whole pack
-    (a foreign or truncated file, an index that points outside the entries)."""
-    got = _read_pack(path)
-    if got is None:
-        return []
-    index, end = got
+def _rows(index: bytes, end: int) -> list[tuple[str, int, int]]:
+    """Every row of an index; [] when one points outside the entries (none of it is used)."""
     out = []
     for i in range(0, len(index), _PACK_ROW):
         row = _row(index, i, end)
@@ -880,6 +873,13 @@ def _read_pack_index(path: str) -> list[tuple[str, int, int]]:
             return []
         out.append(row)
     return out
+
+
+def _read_pack_index(path: str) -> list[tuple[str, int, int]]:
+    """(name, offset, length) of each entry of the pack at PATH; [] for anything but a whole pack
+    (a foreign or truncated file, an index that points outside the entries)."""
+    got = _read_pack(path)
+    return _rows(*got) if got is not None else []
 
 
 class _PackIndex:
@@ -911,10 +911,7 @@ class _PackIndex:
             if self.asked > PACK_SCANS:
                 self.table = {}
                 for path, index, end in self.packs:
-                    rows = [_row(index, i, end) for i in range(0, len(index), _PACK_ROW)]
-                    if None in rows:
-                        continue  # an index that points outside its pack: none of it is used
-                    for key, offset, length in rows:
+                    for key, offset, length in _rows(index, end):
                         self.table.setdefault(key, []).append((path, offset, length))
         if self.table is not None:
             return self.table.get(name, [])
