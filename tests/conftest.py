@@ -1,4 +1,6 @@
+import atexit
 import os
+import shutil
 import tempfile
 from pathlib import Path
 
@@ -14,7 +16,10 @@ os.environ["HF_HUB_OFFLINE"] = "1"
 
 # The result cache of `cfgcheck lint` is on in the suite (every test that lints a file twice is an
 # invalidation check), in a folder of this session: the user's own cache folder is never written.
-os.environ["CFGCHECK_CACHE_DIR"] = tempfile.mkdtemp(prefix="cfgcheck-test-cache-")
+os.environ["CFGCHECK_CACHE_DIR"] = _TEST_CACHE = tempfile.mkdtemp(prefix="cfgcheck-test-cache-")
+# both folders go when the session ends (the cache holds a few MB a run)
+for _folder in (_EMPTY_HUB, _TEST_CACHE):
+    atexit.register(shutil.rmtree, _folder, ignore_errors=True)
 
 try:
     from hypothesis import settings
