@@ -229,3 +229,47 @@ def test_an_entry_stored_by_a_run_is_found_by_the_same_store(tmp_path):
                 message="m", hint="h", data={})])
     assert store.put("ab" * 32, "0" * 64, str(tmp_path / "a.yaml"), {}, report) is True
     assert isinstance(store.get("ab" * 32), FileReport)
+
+
+@pytest.mark.parametrize("kept_open", [16, 1])
+def test_a_run_opens_each_pack_once_for_its_reads_and_closes_it(tmp_path, monkeypatch, kept_open):
+    monkeypatch.setattr(cache, "OPEN_PACKS", kept_open)
+    files = _configs(tmp_path / "cfg", 12)
+    plain = _answer(api.lint(files, project=None))
+    for half in (files[:6], files[6:]):  # two runs: two packs
+        api.lint(half, project=None, cache=cache.Store(tmp_path / "cache"))
+    assert len(_packs(tmp_path)) == 2
+    opened = []
+    real_open = open
+
+    def counting_open(path, *args, **kwargs):
+        if str(path).endswith(".pack"):
+            opened.append((str(path), args, kwargs))
+        return real_open(path, *args, **kwargs)
+
+    monkeypatch.setattr(cache, "open", counting_open, raising=False)
+    store = cache.Store(tmp_path / "cache")
+    assert _answer(api.lint(files, project=None, cache=store)) == plain
+    assert (store.hits, store.misses) == (12, 0)
+    reads = [p for p, _args, kwargs in opened if kwargs.get("buffering") == 0]
+    # once each, for 12 entries and their facts (one kept open at a time: the files are looked
+    # up pack by pack, so each is opened once all the same)
+    assert sorted(reads) == sorted(map(str, _packs(tmp_path)))
+    assert store._packs is not None and store._packs.open == {}  # closed when the run ended
+
+
+def test_a_packed_entry_cut_short_after_the_pack_was_opened_is_a_miss(tmp_path):
+    files = _configs(tmp_path / "cfg", 4)
+    plain = _answer(api.lint(files, project=None))
+    api.lint(files, project=None, cache=cache.Store(tmp_path / "cache"))
+    (pack,) = _packs(tmp_path)
+    index = cache._PackIndex(str(pack.parent))
+    key, offset, length = next(row for row in cache._read_pack_index(str(pack)) if row[0][0] == "e")
+    assert index.read(str(pack), offset, length) is not None  # opened, and kept open
+    size = pack.stat().st_size
+    os.truncate(pack, offset + length // 2)  # the bytes after the open handle's position go
+    assert index.read(str(pack), offset, length) is None
+    index.close()
+    assert index.open == {}
+    os.truncate(pack, size)
+    assert _answer(api.lint(files, project=None, cache=cache.Store(tmp_path / "cache"))) == plain
