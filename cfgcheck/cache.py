@@ -230,11 +230,16 @@ def _picklers() -> dict[str, Any]:
                     raise Uncacheable(f"{type(obj).__name__} in a report")
                 return NotImplemented  # pickled the usual way
 
+        classes = {(cls.__module__, cls.__qualname__): cls for cls in allowed}
+        assert set(classes) == _ALLOWED
+
         class _Unpickler(pickle.Unpickler):
+            # the result types straight from a table: no import looked up for each entry read
             def find_class(self, module: str, name: str) -> Any:
-                if (module, name) not in _ALLOWED:
+                cls = classes.get((module, name))
+                if cls is None:
                     raise pickle.UnpicklingError(f"{module}.{name} is not a result type")
-                return super().find_class(module, name)
+                return cls
 
         _CLASSES_CACHE.update(pickler=_Pickler, unpickler=_Unpickler, protocol=pickle.HIGHEST_PROTOCOL)
     return _CLASSES_CACHE
