@@ -72,11 +72,23 @@ def regular_bytes(path: Any, limit: int = MAX_HASHED) -> tuple[os.stat_result, b
     a device, a folder, a bigger file). Opened without blocking, so a pipe never hangs the run.
     Raises OSError when the path cannot be opened."""
     fd = os.open(path, os.O_RDONLY | _NONBLOCK)
-    with open(fd, "rb", closefd=True) as fh:
+    try:
         st = os.fstat(fd)
         if not stat.S_ISREG(st.st_mode) or st.st_size > limit:
             return None
-        return st, fh.read()
+        # the size and one byte more in one read, then on to the end should the file have grown
+        # (no buffered reader: its buffer would be set aside and cleared for each file)
+        raw = os.read(fd, st.st_size + 1)
+        if len(raw) <= st.st_size:  # a regular file reads short only at its end
+            return st, raw
+        parts = [raw]
+        while True:
+            more = os.read(fd, 1 << 20)
+            if not more:
+                return st, b"".join(parts)
+            parts.append(more)
+    finally:
+        os.close(fd)
 
 
 def content(path: Any) -> str:

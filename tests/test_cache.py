@@ -968,6 +968,31 @@ def test_a_pipe_among_the_configs_never_hangs_a_cached_lint(tmp_path):
     assert cache.reads.regular_bytes(str(tmp_path / "configs" / "pipe.yaml")) is None
 
 
+def test_the_bytes_hashed_are_the_whole_file_even_when_it_grew_after_its_size_was_taken(tmp_path, monkeypatch):
+    f = tmp_path / "run.yaml"
+    body = LOW_SCALE.encode() * 50
+    f.write_bytes(body)
+    st, got = cache.reads.regular_bytes(str(f))
+    assert got == body and st.st_size == len(body)
+    real_fstat = os.fstat
+
+    class Smaller:  # the size as a stat taken before the last writes would give it
+        def __init__(self, st):
+            self._st = st
+
+        def __getattr__(self, name):
+            return getattr(self._st, name)
+
+        st_size = 10
+
+    monkeypatch.setattr(cache.reads.os, "fstat", lambda fd: Smaller(real_fstat(fd)))
+    assert cache.reads.regular_bytes(str(f))[1] == body
+    assert cache.reads.regular_bytes(str(f), limit=9) is None  # over the limit by its stated size
+    (tmp_path / "empty.yaml").write_bytes(b"")
+    monkeypatch.setattr(cache.reads.os, "fstat", real_fstat)
+    assert cache.reads.regular_bytes(str(tmp_path / "empty.yaml"))[1] == b""
+
+
 # --------------------------------------------------------------------------- writing behind the lint
 
 def _configs(folder: Path, n: int) -> list[Path]:
