@@ -24,8 +24,23 @@ MAX_ENTRIES = 4096  # per kind of answer: a run over a huge tree stays bounded
 _active_cache: dict[str, dict] | None = None
 
 
-@contextmanager
-def collector_paused() -> Iterator[None]:
+class _CollectorPaused:
+    """The context manager ``collector_paused()`` returns (a class: entered once a file, where a
+    generator's would cost more than the pause itself)."""
+
+    __slots__ = ("was_on",)
+
+    def __enter__(self) -> None:
+        self.was_on = gc.isenabled()
+        if self.was_on:
+            gc.disable()
+
+    def __exit__(self, *exc: object) -> None:
+        if self.was_on:
+            gc.enable()
+
+
+def collector_paused() -> _CollectorPaused:
     """Python's cycle collector paused while one file is read and checked, as it was before
     afterwards. The documents, views and findings of a file are a large, growing set of objects
     that stay alive until its report is made; each collection pass walks all of them again, so
@@ -33,14 +48,7 @@ def collector_paused() -> Iterator[None]:
     time grew faster than the file. A file's objects hold few reference cycles; those there are
     are collected once the collector runs again. A caller that turned the collector off keeps
     it off."""
-    if not gc.isenabled():
-        yield
-        return
-    gc.disable()
-    try:
-        yield
-    finally:
-        gc.enable()
+    return _CollectorPaused()
 
 
 @contextmanager
