@@ -4,7 +4,10 @@
     python bench/growth.py [--quick | --tiny] [--json FILE]
 
 Four curves, each over sizes a factor 10 (or 4) apart, each point the median of a few runs in
-this process (the catalogue and imports are paid once, before the first point):
+this process (the catalogue and imports are paid once, before the first point). The runs of a
+curve go round its sizes in turn (smallest first, then largest first, ...), so a change in the
+machine's speed falls on every size alike instead of on whichever size was measured in those
+seconds; each run starts from a collected heap and is timed in CPU seconds of this process:
 
   keys      one trainer config with N keys (40 / 400 / 4,000 / 40,000), known keys under sections
   documents one YAML stream of N small configs (1 / 10 / 100 / 1,000)
@@ -22,6 +25,7 @@ each curve once (a smoke run).
 from __future__ import annotations
 
 import argparse
+import gc
 import json
 import shutil
 import statistics
@@ -62,13 +66,24 @@ def unknown_config(n: int) -> str:
 POINTS: list[dict] = []  # one record per curve: name, unit, sizes, lint and fix seconds
 
 
-def _median(fn, repeat: int) -> float:
-    times = []
-    for _ in range(repeat):
-        t = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t)
-    return statistics.median(times)
+def _once(fn) -> float:
+    """CPU seconds of one call of FN, from a collected heap (the garbage of the run before, of
+    another size, is not charged to this one; whatever FN itself leaves to the collector is)."""
+    gc.collect()
+    t = time.process_time()
+    fn()
+    return time.process_time() - t
+
+
+def _rounds(calls: list, repeat: int) -> list[float]:
+    """The median CPU seconds of each of CALLS, run REPEAT times in rounds that go through all
+    of them in turn, forwards then backwards."""
+    times: list[list[float]] = [[] for _ in calls]
+    for r in range(repeat):
+        order = range(len(calls)) if r % 2 == 0 else range(len(calls) - 1, -1, -1)
+        for i in order:
+            times[i].append(_once(calls[i]))
+    return [statistics.median(t) for t in times]
 
 
 def _fix(text: str, name: str) -> None:
@@ -87,16 +102,17 @@ def curve(label: str, sizes: list[int], make, *, unit: str, fix: bool, repeat: i
     lint_text(warm, "g.yaml", Options())
     if fix:
         _fix(warm, "g.yaml")
-    for n in sizes:
-        text = make(n)
-        lt = _median(lambda: lint_text(text, "g.yaml", Options()), repeat)
+    texts = [make(n) for n in sizes]
+    record["lint"] = _rounds([lambda text=text: lint_text(text, "g.yaml", Options()) for text in texts], repeat)
+    if fix:
+        record["fix"] = _rounds([lambda text=text: _fix(text, "g.yaml") for text in texts], repeat)
+    for i, n in enumerate(sizes):
+        lt = record["lint"][i]
         row = f"  {n:>9,}  {lt:>8.3f}  {lt / n * 1e6:>14.1f}"
-        record["lint"].append(lt)
         first.setdefault("lint", lt / n)
         if fix:
-            ft = _median(lambda: _fix(text, "g.yaml"), max(1, repeat // 2))
+            ft = record["fix"][i]
             row += f"  {ft:>8.3f}  {ft / n * 1e6:>13.1f}"
-            record["fix"].append(ft)
             first.setdefault("fix", ft / n)
         print(row)
     print(f"  per-{unit} time at {sizes[-1]:,} over at {sizes[0]:,}: lint {lt / sizes[-1] / first['lint']:.2f}"
@@ -108,17 +124,21 @@ def files_curve(sizes: list[int], repeat: int) -> None:
     first = None
     record = {"curve": "files in a folder", "unit": "file", "sizes": sizes, "lint": [], "fix": []}
     POINTS.append(record)
-    for n in sizes:
-        folder = Path(tempfile.mkdtemp(prefix="cfgcheck-growth-"))
-        for i in range(n):
-            (folder / f"run{i:05d}.yaml").write_text(
-                f"model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 2.0e-5\nseed: {i}\n"
-                "per_device_train_batch_size: 4\ngradient_accumulation_steps: 2\n")
-        try:
-            t = _median(lambda: api.lint([folder], project=None, keep_views=False), repeat)
-        finally:
+    folders = []
+    try:
+        for n in sizes:
+            folder = Path(tempfile.mkdtemp(prefix="cfgcheck-growth-"))
+            folders.append(folder)
+            for i in range(n):
+                (folder / f"run{i:05d}.yaml").write_text(
+                    f"model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 2.0e-5\nseed: {i}\n"
+                    "per_device_train_batch_size: 4\ngradient_accumulation_steps: 2\n")
+        record["lint"] = _rounds([lambda folder=folder: api.lint([folder], project=None, keep_views=False)
+                                  for folder in folders], repeat)
+    finally:
+        for folder in folders:
             shutil.rmtree(folder, ignore_errors=True)
-        record["lint"].append(t)
+    for n, t in zip(sizes, record["lint"]):
         first = first or t / n
         print(f"  {n:>9,}  {t:>8.3f} s  {t / n * 1e6:>8.1f} us/file")
     print(f"  per-file time at {sizes[-1]:,} over at {sizes[0]:,}: {t / sizes[-1] / first:.2f} (linear: about 1)")
@@ -130,7 +150,7 @@ def main() -> None:
     ap.add_argument("--tiny", action="store_true", help="the two smallest sizes, one run each")
     ap.add_argument("--json", type=Path, help="also write the points to this file")
     args = ap.parse_args()
-    repeat = 1 if args.quick or args.tiny else 3
+    repeat = 1 if args.quick or args.tiny else 5
     lint_text("learning_rate: 1e-4\n", "warm.yaml", Options())  # imports and the catalogue, once
     count = 2 if args.tiny else 3 if args.quick else 4
     curve("keys per file", [40, 400, 4000, 40000][:count], keys_config, unit="key", fix=True, repeat=repeat)

@@ -939,7 +939,6 @@ class _PackIndex:
                 out.append((path, row[1], row[2]))
         return out
 
-
     def read(self, path: str, offset: int, length: int) -> bytes | None:
         """LENGTH bytes at OFFSET of the pack at PATH (None when they cannot all be read), from
         the pack kept open: a run that takes its entries from a pack opens it once, not once an
@@ -972,16 +971,6 @@ class _PackIndex:
 
 
 _pread = getattr(os, "pread", None)  # POSIX: a read at an offset in one call, no seek
-
-
-def _read_slice(path: str, offset: int, length: int) -> bytes | None:
-    try:
-        with open(path, "rb") as fh:
-            fh.seek(offset)
-            blob = fh.read(length)
-    except OSError:
-        return None
-    return blob if len(blob) == length else None
 
 
 def _leaf_folders(root: str | os.PathLike) -> list[str]:

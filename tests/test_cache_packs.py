@@ -179,9 +179,11 @@ def test_a_pack_read_back_gives_every_entry(tmp_path):
     entries = [k for k, _, _ in index if k[0] == "e"]
     assert len(entries) == 6 and len(set(entries)) == 6
     assert {k[0] for k, _, _ in index} == {"e", "f"}  # the fact sets the entries name are in it too
+    reader = cache._PackIndex(str(pack.parent))
     for _, offset, length in index:
-        blob = cache._read_slice(str(pack), offset, length)
+        blob = reader.read(str(pack), offset, length)
         assert blob is not None and len(blob) == length
+    reader.close()
     store = cache.Store(tmp_path / "cache")
     got = [store.get(k[1:]) for k in entries]
     assert all(isinstance(r, FileReport) for r in got)
