@@ -242,21 +242,25 @@ def test_a_run_opens_each_pack_once_for_its_reads_and_closes_it(tmp_path, monkey
         api.lint(half, project=None, cache=cache.Store(tmp_path / "cache"))
     assert len(_packs(tmp_path)) == 2
     opened = []
+    held = []  # how many packs were open for reads each time another was opened
     real_open = open
+    store = cache.Store(tmp_path / "cache")
 
     def counting_open(path, *args, **kwargs):
         if str(path).endswith(".pack"):
             opened.append((str(path), args, kwargs))
+            if kwargs.get("buffering") == 0:
+                held.append(len(store._packs.open))
         return real_open(path, *args, **kwargs)
 
     monkeypatch.setattr(cache, "open", counting_open, raising=False)
-    store = cache.Store(tmp_path / "cache")
     assert _answer(api.lint(files, project=None, cache=store)) == plain
     assert (store.hits, store.misses) == (12, 0)
     reads = [p for p, _args, kwargs in opened if kwargs.get("buffering") == 0]
     # once each, for 12 entries and their facts (one kept open at a time: the files are looked
     # up pack by pack, so each is opened once all the same)
     assert sorted(reads) == sorted(map(str, _packs(tmp_path)))
+    assert max(held) < kept_open  # the longest unused one was closed first
     assert store._packs is not None and store._packs.open == {}  # closed when the run ended
 
 
