@@ -89,10 +89,21 @@ class _Counting(concurrent.futures.ProcessPoolExecutor):
         return super().submit(fn, *args, **kwargs)
 
 
-def test_one_round_trip_per_chunk_not_per_file(tmp_path, monkeypatch):
+@pytest.mark.parametrize("how", ["forked", "fork server"])
+def test_one_round_trip_per_chunk_not_per_file(tmp_path, monkeypatch, how):
     files = _corpus(tmp_path, 120)
-    monkeypatch.setattr(concurrent.futures, "ProcessPoolExecutor", _Counting)
     _Counting.submitted = 0
+    if how == "forked":  # this process forks the workers itself
+        real_submit = parallel._ForkPool.submit
+
+        def counting_submit(self, start, end):
+            _Counting.submitted += 1
+            return real_submit(self, start, end)
+
+        monkeypatch.setattr(parallel._ForkPool, "submit", counting_submit)
+    else:
+        monkeypatch.setattr(parallel, "_fork_is_safe", lambda: False)
+        monkeypatch.setattr(concurrent.futures, "ProcessPoolExecutor", _Counting)
     opts = Options()
     parallel_out = _json(engine.lint_files([(f, opts) for f in files], jobs=2))
     chunks = len(parallel.chunk_bounds(len(files), 2))
@@ -158,16 +169,90 @@ def test_a_dead_worker_leaves_the_output_serial(tmp_path):
     assert _json(got) == _json(engine.lint_files(pairs))
 
 
-def test_no_processes_to_be_had_lints_serially(tmp_path, monkeypatch):
+@pytest.mark.parametrize("how", ["forked", "fork server"])
+def test_no_processes_to_be_had_lints_serially(tmp_path, monkeypatch, how):
     files = _corpus(tmp_path, 12)
 
     def refuse(*args, **kwargs):
-        raise OSError(38, "Function not implemented")  # no semaphores in this sandbox
+        raise OSError(38, "Function not implemented")  # no semaphores, no more processes
 
-    monkeypatch.setattr(concurrent.futures, "ProcessPoolExecutor", refuse)
+    if how == "forked":
+        monkeypatch.setattr(parallel.os, "fork", refuse)
+    else:
+        monkeypatch.setattr(parallel, "_fork_is_safe", lambda: False)
+        monkeypatch.setattr(concurrent.futures, "ProcessPoolExecutor", refuse)
     opts = Options()
     assert _json(engine.lint_files([(f, opts) for f in files], jobs=2)) == \
         _json(engine.lint_files([(f, opts) for f in files]))
+
+
+def _forked_pids(monkeypatch) -> list[int]:
+    pids: list[int] = []
+    real_init = parallel._ForkedWorker.__init__
+
+    def init(self, close_in_child):
+        real_init(self, close_in_child)
+        pids.append(self.pid)
+
+    monkeypatch.setattr(parallel._ForkedWorker, "__init__", init)
+    return pids
+
+
+def _gone(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return True  # ended and waited for: no zombie left
+    return False
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="workers are forked by this process on Linux")
+def test_a_run_ended_early_leaves_no_worker_behind(tmp_path, monkeypatch):
+    files = _corpus(tmp_path, 200)
+    pids = _forked_pids(monkeypatch)
+    opts = Options()
+    reports = parallel.lint_files_parallel([(f, opts) for f in files], 3, lint_file=engine.lint_file,
+                                           prepare=engine.active_rules)
+    first = [next(reports) for _ in range(3)]  # the workers have chunks in hand
+    assert [r.file for r in first] == files[:3] and len(pids) == 2
+    reports.close()
+    assert all(_gone(pid) for pid in pids)
+    # a run taken to its end: the workers leave when told there is no more
+    pids.clear()
+    assert _json(engine.lint_files([(f, opts) for f in files], jobs=3)) == \
+        _json(engine.lint_files([(f, opts) for f in files]))
+    assert len(pids) == 2 and all(_gone(pid) for pid in pids)
+
+
+def _fails_to_send(path, options):
+    report = engine.lint_file(path, options)
+    if os.getpid() != _PARENT:
+        report.findings.append(lambda: None)  # a report that cannot be pickled back
+    return report
+
+
+def test_a_chunk_a_worker_cannot_send_is_linted_here(tmp_path):
+    files = _corpus(tmp_path)
+    opts = Options()
+    pairs = [(f, opts) for f in files]
+    got = list(parallel.lint_files_parallel(pairs, 2, lint_file=_fails_to_send, prepare=engine.active_rules))
+    assert list(parallel.LAST_RUN_CACHE["workers"]) == [os.getpid()]  # nothing was taken from the worker
+    assert _json(got) == _json(engine.lint_files(pairs))
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="workers are forked by this process on Linux")
+def test_forked_workers_need_no_thread_and_no_standard_pool(tmp_path):
+    _corpus(tmp_path, 120)
+    code = ("import sys; from cfgcheck import engine; o = engine.Options(); "
+            f"fs = engine.expand_paths([{str(tmp_path)!r}]); "
+            "n = sum(1 for _ in engine.lint_files([(f, o) for f in fs], jobs=2)); "
+            "t = sys.modules.get('threading'); "
+            "print(n, 'concurrent.futures' in sys.modules, 'multiprocessing' in sys.modules, "
+            "t.active_count() if t else 1)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, env=ENV,
+                         timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.split() == ["120", "False", "False", "1"]
 
 
 def test_cli_jobs_auto_prints_the_serial_bytes(tmp_path):
