@@ -447,11 +447,9 @@ def sec_script(b: Bench) -> None:
 def sec_jobs(b: Bench) -> None:
     from cfgcheck.parallel import usable_cpus, worker_count
 
-    r = race({"serial": b.lint(*b.corpus), "two": b.lint("--jobs", "2", *b.corpus),
-              "auto": b.lint("--jobs", "auto", *b.corpus)}, b.repeat)
     cpus = usable_cpus()
-    for label, name, workers in ((LABELS["jobs"][0], "two", 2),
-                                 (LABELS["jobs"][1], "auto", worker_count("auto", b.files))):
+
+    def speedup(label: str, r: Race, name: str, workers: int) -> None:
         rs = [s / p for s, p in zip(r.wall["serial"], r.wall[name])]
         added = statistics.median(r.cpu[name]) / statistics.median(r.cpu["serial"])
         ideal = min(workers, cpus)
@@ -459,16 +457,16 @@ def sec_jobs(b: Bench) -> None:
         verdict = at_least(rs, 0.9 * ideal) if ideal > 1 else "serial here (one usable CPU or a short run)"
         row(label, f"{seconds(r.median(name))} ({workers} process{'es' if workers > 1 else ''}; CPU {added:.2f}x serial's)",
             seconds(r.median("serial")), spread(rs), target, verdict)
+
+    r = race({"serial": b.lint(*b.corpus), "two": b.lint("--jobs", "2", *b.corpus),
+              "auto": b.lint("--jobs", "auto", *b.corpus)}, b.repeat)
+    speedup(LABELS["jobs"][0], r, "two", 2)
+    speedup(LABELS["jobs"][1], r, "auto", worker_count("auto", b.files))
     # the same over four times the files: what a run pays once (start-up, the first use of each
     # table in each process, the last chunks) weighs less in a longer run
     everything = [str(s) for s in b.shards]
-    r = race({"serial": b.lint(*everything), "two": b.lint("--jobs", "2", *everything)}, b.repeat)
-    rs = [s / p for s, p in zip(r.wall["serial"], r.wall["two"])]
-    added = statistics.median(r.cpu["two"]) / statistics.median(r.cpu["serial"])
-    ideal = min(2, cpus)
-    row(LABELS["jobs"][2], f"{seconds(r.median('two'))} (2 processes; CPU {added:.2f}x serial's)",
-        seconds(r.median("serial")), spread(rs), f"≥ {0.9 * ideal:.1f}" if ideal > 1 else "-",
-        at_least(rs, 0.9 * ideal) if ideal > 1 else "serial here (one usable CPU)")
+    speedup(LABELS["jobs"][2], race({"serial": b.lint(*everything), "two": b.lint("--jobs", "2", *everything)},
+                                    b.repeat), "two", 2)
 
 
 ALLOWED = """

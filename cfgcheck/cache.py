@@ -54,6 +54,7 @@ from pathlib import Path
 from typing import Any, Iterable
 
 from . import __version__, reads
+from .pipes import read_exactly, write_all
 
 ENV_FOLDER = "CFGCHECK_CACHE_DIR"
 FORMAT = 1  # bump when the entry layout or the key's make-up changes
@@ -629,7 +630,7 @@ class Store:
     def _send_unsent(self) -> bool:
         data, self._unsent, self._unsent_bytes = b"".join(self._unsent), [], 0
         try:
-            _write_all(self._pipe, data)
+            write_all(self._pipe, data)
         except OSError:  # the writer is gone: nothing more is stored this run
             self.writable = False
             self._write_failed = True
@@ -643,23 +644,13 @@ class Store:
         pack = _Pack(self._folder)
         ok = True
 
-        def exactly(n: int) -> bytes | None:
-            parts, got = [], 0
-            while got < n:
-                chunk = os.read(fd, min(n - got, 1 << 20))
-                if not chunk:
-                    return None
-                parts.append(chunk)
-                got += len(chunk)
-            return b"".join(parts)
-
         while True:
-            head = exactly(12)
+            head = read_exactly(fd, 12)
             if head is None:
                 finished = pack.finish()  # what was packed before a failure is whole, and kept
                 return 0 if ok and finished else 1
-            name = exactly(int.from_bytes(head[:4], "little"))
-            blob = exactly(int.from_bytes(head[4:], "little"))
+            name = read_exactly(fd, int.from_bytes(head[:4], "little"))
+            blob = read_exactly(fd, int.from_bytes(head[4:], "little"))
             if name is None or blob is None:
                 pack.abandon()
                 return 1
@@ -698,7 +689,7 @@ class Store:
                 made.add(folder)
             fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0), 0o666)
             try:
-                _write_all(fd, blob)
+                write_all(fd, blob)
             finally:
                 os.close(fd)
             os.replace(tmp, target)
@@ -767,12 +758,6 @@ class Store:
             self._write(stamp, b"")
 
 
-def _write_all(fd: int, data: bytes) -> None:
-    view = memoryview(data)
-    while view:
-        view = view[os.write(fd, view):]
-
-
 class _Pack:
     """In the writer: the entries of one run past its first PACK_AFTER, written one after another
     to a temporary file under ``packs/``; ``finish`` adds the index and moves it into place, so
@@ -800,9 +785,9 @@ class _Pack:
                 self.name = os.path.join(self.folder, base)
                 self.tmp = os.path.join(self.folder, f".{base}.tmp")
                 self.fd = os.open(self.tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0), 0o666)
-                _write_all(self.fd, _PACK_MAGIC)
+                write_all(self.fd, _PACK_MAGIC)
                 self.offset = len(_PACK_MAGIC)
-            _write_all(self.fd, blob)
+            write_all(self.fd, blob)
         except (OSError, ValueError):
             self.abandon()
             return False
@@ -817,7 +802,7 @@ class _Pack:
             return not self.failed
         try:
             index = b"".join(self.rows)
-            _write_all(self.fd, index + len(index).to_bytes(8, "little") + _PACK_MAGIC)
+            write_all(self.fd, index + len(index).to_bytes(8, "little") + _PACK_MAGIC)
             os.close(self.fd)
             self.fd = None
             os.replace(self.tmp, self.name)

@@ -148,31 +148,15 @@ _HEADER_SIZE = 16  # a task: two int64 (start, end); a result: two int64 (status
 _PIPE_BYTES = 1 << 20  # a result pipe's capacity asked for: a worker's results fit while this process lints
 
 
-def _read_exactly(fd: int, n: int) -> bytes | None:
-    """N bytes from FD, or None when it ends before them."""
-    parts = []
-    while n > 0:
-        got = os.read(fd, min(n, _PIPE_BYTES))
-        if not got:
-            return None
-        parts.append(got)
-        n -= len(got)
-    return parts[0] if len(parts) == 1 else b"".join(parts)
-
-
-def _write_all(fd: int, data: bytes) -> None:
-    view = memoryview(data)
-    while view:
-        view = view[os.write(fd, view):]
-
-
 def _serve(tasks: int, results: int) -> None:
     """A forked worker: lint the ranges read from TASKS, send each chunk's result to RESULTS,
-    until TASKS ends."""
+    until told to stop (a negative start) or TASKS ends."""
     import pickle
 
+    from .pipes import read_exactly, write_all
+
     while True:
-        header = _read_exactly(tasks, _HEADER_SIZE)
+        header = read_exactly(tasks, _HEADER_SIZE)
         if header is None:
             return
         start, end = int.from_bytes(header[:8], "little", signed=True), int.from_bytes(header[8:], "little", signed=True)
@@ -182,7 +166,7 @@ def _serve(tasks: int, results: int) -> None:
             blob, status = pickle.dumps(_lint_range(start, end), protocol=pickle.HIGHEST_PROTOCOL), 0
         except BaseException:  # noqa: BLE001 - interrupted, or a report that cannot be sent: this process lints it
             blob, status = b"", 1
-        _write_all(results, status.to_bytes(8, "little", signed=True) + len(blob).to_bytes(8, "little") + blob)
+        write_all(results, status.to_bytes(8, "little", signed=True) + len(blob).to_bytes(8, "little") + blob)
         if status:
             return
 
@@ -278,12 +262,14 @@ class _ForkedWorker:
         """Read back the next result, waiting for it."""
         import pickle
 
+        from .pipes import read_exactly
+
         if self.dead or not self.waiting:
             raise _PoolBroken
-        header = _read_exactly(self.results, _HEADER_SIZE)
+        header = read_exactly(self.results, _HEADER_SIZE)
         blob = None
         if header is not None and int.from_bytes(header[:8], "little", signed=True) == 0:
-            blob = _read_exactly(self.results, int.from_bytes(header[8:], "little"))
+            blob = read_exactly(self.results, int.from_bytes(header[8:], "little"))
         if blob is None:
             self.dead = True
             raise _PoolBroken
@@ -324,7 +310,7 @@ class _ForkPool:
             for _ in range(workers):
                 self.workers.append(_ForkedWorker([fd for w in self.workers for fd in (w.tasks, w.results)]))
         except OSError:
-            self.shutdown()
+            self.shutdown(wait=True, cancel_futures=True)
             raise
 
     def submit(self, start: int, end: int) -> _Pending:
@@ -333,7 +319,8 @@ class _ForkPool:
             raise _PoolBroken
         return min(live, key=lambda w: len(w.waiting)).send(start, end)
 
-    def shutdown(self) -> None:
+    def shutdown(self, wait: bool = True, cancel_futures: bool = True) -> None:
+        """As ``ProcessPoolExecutor.shutdown``: the workers end, the chunks not taken are dropped."""
         for worker in self.workers:
             worker.stop()
         self.workers = []
@@ -421,7 +408,7 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
             broken = False
         except (OSError, _PoolBroken):  # no processes to be had here (no semaphores, a process limit): serial
             if pool is not None:
-                pool.shutdown() if fork else pool.shutdown(wait=True, cancel_futures=True)
+                pool.shutdown(wait=True, cancel_futures=True)
             pool = None
             in_pool = 0
             chunks[:taken] = [None] * taken
@@ -476,7 +463,4 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
     finally:
         LAST_RUN_CACHE["workers"][os.getpid()] = time.process_time() - mine
         if pool is not None:
-            if fork:
-                pool.shutdown()
-            else:
-                pool.shutdown(wait=True, cancel_futures=True)
+            pool.shutdown(wait=True, cancel_futures=True)
