@@ -101,3 +101,28 @@ def test_a_linked_file_reason_groups_across_file_names():
     (g,) = notes.summarise(found)
     assert g.reason == "the DeepSpeed file was not found" and len(g.files) == 3
     assert g.names == {"ds/z3.json", "ds/z2.json"}
+
+
+def test_memory_rule_without_a_gpu_says_so_without_estimating(tmp_path, monkeypatch):
+    """With no card to compare with, the memory rule works out no estimate (it would change no
+    verdict): its note says a GPU is missing and where the estimate is shown; with --gpu the
+    same config is estimated and judged."""
+    from cfgcheck.checks import memory as memory_check
+
+    cfg = tmp_path / "run.yaml"  # a known model, fully tuned: estimable
+    cfg.write_text("model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 2.0e-5\n"
+                   "per_device_train_batch_size: 1\nbf16: true\n")
+    calls = []
+    real = memory_check.derive_plan
+    monkeypatch.setattr(memory_check, "derive_plan", lambda *a, **k: calls.append(1) or real(*a, **k))
+    report = api.lint([cfg], project=None, cache=False)
+    notes_ = [f for f in report.findings if f.rule == "memory-exceeds-gpu"]
+    assert [f.severity.word for f in notes_] == ["info"] and calls == []
+    assert "no GPU named (--gpu NAME)" in notes_[0].message
+    assert "cfgcheck derive shows the estimate" in notes_[0].message
+    judged = api.lint([cfg], project=None, cache=False, gpu="rtx-4090")
+    assert calls  # estimated once a card is named
+    verdicts = [f for f in judged.findings if f.rule == "memory-exceeds-gpu"]
+    # 7B fully tuned: 16 bytes a parameter of model states alone, ~108 GB > 24 GB (ZeRO paper
+    # sec. 3.1); a warning, as the sequence length is assumed
+    assert len(verdicts) == 1 and "does not fit the" in verdicts[0].message

@@ -84,8 +84,8 @@ def test_component_recipe_gets_fp32_and_a_hint_in_its_own_words():
     assert data["dtype"] == "fp32"
 
 
-@pytest.mark.parametrize("adapter,fp16", itertools.product(("", "adapter: lora\nlora_r: 8\nlora_alpha: 16\n"),
-                                                          ("", "fp16: false\n")))
+@pytest.mark.parametrize("adapter,fp16", list(itertools.product(("", "adapter: lora\nlora_r: 8\nlora_alpha: 16\n"),
+                                                               ("", "fp16: false\n"))))
 def test_recipe_runner_whose_fp16_flag_loads_fp16_weights(adapter, fp16):
     # axolotl resolve_dtype: fp16 -> torch_dtype float16; neither flag -> float32
     text = ("base_model: acme/base-1b\nmicro_batch_size: 2\nnum_epochs: 1\nsequence_len: 1024\n"
@@ -98,8 +98,8 @@ def test_recipe_runner_whose_fp16_flag_loads_fp16_weights(adapter, fp16):
         assert not data.get("fp16")  # a full fine-tune: fp32, never fp16 weights under fp16
 
 
-@pytest.mark.parametrize("dtype,method,fp16", itertools.product(
-    (None, "bfloat16", "float16"), ("full", "lora"), (None, False)))
+@pytest.mark.parametrize("dtype,method,fp16", list(itertools.product(
+    (None, "bfloat16", "float16"), ("full", "lora"), (None, False))))
 def test_no_fix_writes_fp16_weights_with_fp16_mixed_precision_for_trained_weights(dtype, method, fp16):
     lines = ["model_name_or_path: acme/base-1b", "learning_rate: 2.0e-5", "bf16: true"]
     if dtype:

@@ -30,13 +30,14 @@ def memory_exceeds_gpu(ctx) -> None:
     if problem is not None:  # said before any number is worked out
         ctx.cannot_judge(problem)
         return
+    if ctx.gpu is None:
+        # nothing to compare an estimate with: none is worked out (`cfgcheck derive` shows it)
+        ctx.cannot_judge("no GPU named (--gpu NAME) to compare an estimate with "
+                         "(cfgcheck derive shows the estimate)")
+        return
     plan = derive_plan(view, arch, gpu=ctx.gpu, gpus=gpus, rows=ctx.options.rows, describe=False)
     if plan.memory is None:
         ctx.cannot_judge(plan.memory_problem or "no estimate")
-        return
-    if ctx.gpu is None:
-        ctx.cannot_judge("no GPU named (--gpu NAME) to compare the estimate with",
-                         total=_gb(plan.memory.total_bytes))
         return
     total, capacity = plan.memory.total_bytes, ctx.gpu.memory_bytes
     share = total / capacity
