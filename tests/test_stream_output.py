@@ -16,6 +16,8 @@ import sys
 import weakref
 from pathlib import Path
 
+import pytest
+
 from cfgcheck import api
 from cfgcheck.findings import Severity, Tally, json_text
 from cfgcheck.render import jsonitems, spool, writer
@@ -218,3 +220,36 @@ def test_json_findings_and_sarif_results_are_their_records_laid_out():
     odd = _odd_findings()[2]
     assert '"set": "{\'only\'}"' in finding_text(odd, "")  # a set as its text, as as_dict has it
     assert "\\udcff" in jsonitems.indented(odd.as_dict())  # a lone surrogate escaped
+
+
+def test_a_spool_spills_to_an_unnamed_file_without_importing_tempfile(tmp_path):
+    """Where the system makes unnamed files (Linux), a spool moves to one in the temporary folder
+    (TMPDIR first, as tempfile chooses) with no import of tempfile; nothing is left in the folder."""
+    if not spool._UNNAMED:
+        pytest.skip("no unnamed files on this system")
+    code = ("import sys; from cfgcheck.render import spool; s = spool.Spool()\n"
+            "for i in range(3000): s.write(f'line {i} \\ud800 ' + 'x' * 40 + '\\n')\n"
+            "assert s._file is not None\n"
+            "text = ''.join(s.read()); s.close()\n"
+            "assert text.count('\\n') == 3000 and 'line 2999 \\ud800' in text\n"
+            "print('tempfile' in sys.modules)")
+    env = dict(os.environ, TMPDIR=str(tmp_path), PYTHONPATH=str(ROOT))
+    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=60)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == "False"
+    assert list(tmp_path.iterdir()) == []  # unnamed: nothing to clean up
+
+
+@pytest.mark.parametrize("how", ["no unnamed files", "temporary folder missing"])
+def test_a_spool_spills_where_no_unnamed_file_can_be_made(tmp_path, monkeypatch, how):
+    if how == "no unnamed files":
+        monkeypatch.setattr(spool, "_UNNAMED", 0)
+    else:
+        monkeypatch.setenv("TMPDIR", str(tmp_path / "missing"))
+    s = spool.Spool()
+    pieces = [f"{i} é {'y' * (i % 53)}\n" for i in range(4000)]
+    for p in pieces:
+        s.write(p)
+    assert s._file is not None
+    assert "".join(s.read()) == "".join(pieces)
+    s.close()

@@ -12,7 +12,6 @@ from __future__ import annotations
 import bisect
 import os
 import re
-import tempfile
 from typing import Any, Callable
 
 import yaml
@@ -418,6 +417,8 @@ def _save_evidence(result: FileFix) -> None:
             f"rules: {', '.join(ev['rules'])}\n\n"
             f"===== before =====\n{ev['before']}\n===== after (not written) =====\n{ev['after']}\n")
     try:
+        import tempfile  # only for a failed proof's evidence
+
         fd, where = tempfile.mkstemp(prefix="cfgcheck-proof-", suffix=".txt")
         with os.fdopen(fd, "w", encoding="utf-8", errors="backslashreplace") as fh:
             fh.write(body)

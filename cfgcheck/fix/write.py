@@ -11,7 +11,6 @@ import functools
 import os
 import stat
 import sys
-import tempfile
 from pathlib import Path
 from types import MappingProxyType
 
@@ -78,6 +77,8 @@ def _renameat2():
 
 def _exchange_supported(folder: str) -> bool:
     """Whether ``folder`` allows the atomic exchange (for the documentation and tests)."""
+    import tempfile  # imported where used: a run that writes nothing needs none
+
     a = tempfile.NamedTemporaryFile(dir=folder, delete=False)
     b = tempfile.NamedTemporaryFile(dir=folder, delete=False)
     a.close()
@@ -241,6 +242,8 @@ def _discard(tmp: str) -> None:
 def _temp_beside(target: str, data: bytes) -> str:
     """A new file in the target's folder holding ``data``, flushed to disk (removed on failure)."""
     folder, base = os.path.split(target)
+    import tempfile  # imported where used: a run that writes nothing needs none
+
     fd, tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=".cfgcheck-tmp", dir=folder or ".")
     try:
         with os.fdopen(fd, "wb") as fh:

@@ -15,11 +15,44 @@ JSON documents are written the same way (render/jsonitems.py).
 
 from __future__ import annotations
 
+import os
 from typing import Any, Iterator
 
 
 MEMORY_LIMIT = 64 * 1024  # characters a spool keeps in memory before it moves to a file
 READ_SIZE = 64 * 1024  # characters read back at a time
+_UNNAMED = getattr(os, "O_TMPFILE", 0)  # the open flag of a file with no name (Linux), else 0
+
+
+def _folders() -> list[str]:
+    """Where ``tempfile`` looks for its folder, in its order (TMPDIR, TEMP, TMP, then the
+    platform's folders)."""
+    named = [os.environ.get(name) for name in ("TMPDIR", "TEMP", "TMP")]
+    return [f for f in named if f] + ["/tmp", "/var/tmp", "/usr/tmp"]
+
+
+def _anonymous_file() -> Any:
+    """A text file with no name, removed when closed. Where the system makes unnamed files
+    (Linux: O_TMPFILE), one is opened in the first temporary folder that takes it, without
+    importing ``tempfile`` (which imports shutil, random and the compression modules: more than
+    a small run's output costs to write); else ``tempfile.TemporaryFile``. Text with lone
+    surrogates (file names that are not UTF-8) reads back unchanged. OSError when none can be
+    made."""
+    flag = _UNNAMED
+    if flag:
+        for folder in _folders():
+            try:
+                fd = os.open(folder, flag | os.O_RDWR | getattr(os, "O_CLOEXEC", 0), 0o600)
+            except OSError:  # no such folder, not writable, or a file system without unnamed files
+                continue
+            try:
+                return open(fd, "w+", encoding="utf-8", errors="surrogatepass", newline="")
+            except BaseException:
+                os.close(fd)
+                raise
+    import tempfile
+
+    return tempfile.TemporaryFile("w+", encoding="utf-8", errors="surrogatepass", newline="")
 
 
 class Spool:
@@ -44,12 +77,15 @@ class Spool:
         """The text held in memory to the file (made on the first call), in one write."""
         f = self._file
         if f is None:
-            import tempfile
-
-            try:  # text with lone surrogates (file names that are not UTF-8) reads back unchanged
-                f = tempfile.TemporaryFile("w+", encoding="utf-8", errors="surrogatepass", newline="")
-                f.write("".join(self._parts))
+            try:
+                f = _anonymous_file()
             except OSError:  # no temporary folder to write in: the spool stays in memory
+                self._size = -(1 << 62)
+                return
+            try:
+                f.write("".join(self._parts))
+            except OSError:  # the folder is full: the spool stays in memory
+                f.close()
                 self._size = -(1 << 62)
                 return
             self._file = f
