@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import functools
 import math
-from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import Any, Callable
 
@@ -27,9 +26,9 @@ METRIC_DRIVEN = ("reduce_lr_on_plateau", "greedy")
 IGNORE_WARMUP = ("constant", "reduce_lr_on_plateau", "greedy")
 
 
-@dataclass
 class Curve:
-    """The multiplier of the base learning rate at each optimizer step."""
+    """The multiplier of the base learning rate at each optimizer step (a record class written
+    out: ``cfgcheck._records``)."""
 
     kind: str
     base_lr: float | None
@@ -37,8 +36,36 @@ class Curve:
     warmup_steps: int
     steps: list[int]  # the optimizer steps computed (all of them, or an even sample)
     values: list[float]  # the multiplier at each of ``steps``
-    notes: list[str] = field(default_factory=list)
-    ignored_warmup: int = 0  # a warm-up written for a schedule that does not read it
+    notes: list[str]
+    ignored_warmup: int  # a warm-up written for a schedule that does not read it
+
+    __slots__ = ("kind", "base_lr", "total_steps", "warmup_steps", "steps", "values", "notes", "ignored_warmup")
+
+    def __init__(self, kind, base_lr, total_steps, warmup_steps, steps, values, notes=None, ignored_warmup=0):
+        self.kind = kind
+        self.base_lr = base_lr
+        self.total_steps = total_steps
+        self.warmup_steps = warmup_steps
+        self.steps = steps
+        self.values = values
+        self.notes = [] if notes is None else notes
+        self.ignored_warmup = ignored_warmup
+
+    def __repr__(self):
+        return (f"{type(self).__qualname__}(kind={self.kind!r}, base_lr={self.base_lr!r}, "
+                f"total_steps={self.total_steps!r}, warmup_steps={self.warmup_steps!r}, steps={self.steps!r}, "
+                f"values={self.values!r}, notes={self.notes!r}, ignored_warmup={self.ignored_warmup!r})")
+
+    def _fields(self):
+        return (self.kind, self.base_lr, self.total_steps, self.warmup_steps, self.steps, self.values,
+                self.notes, self.ignored_warmup)
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return self._fields() == other._fields()
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
     def lrs(self) -> list[float] | None:
         """The learning rate at each of ``steps`` (None without a base learning rate)."""

@@ -343,3 +343,35 @@ def test_linting_one_yaml_file_in_the_default_cache_folder_imports_no_platform_l
     assert out.stderr.strip().splitlines()[-1] == "loaded: [] lint: True", out.stderr
     if not extra:  # the run used the cache folder platformdirs names
         assert (tmp_path / "home" / ".cache" / "cfgcheck").is_dir()
+
+
+@pytest.mark.parametrize("command", [["derive", "--rows", "5000"], ["fix", "--diff"], ["lint", "--no-cache", "--show", "info"]])
+def test_derive_fix_diff_and_a_long_lint_import_no_generated_records_nor_temporary_files(tmp_path, command):
+    """derive (its pictures: a learning-rate curve and a memory bar), fix --diff (which writes
+    nothing) and a lint whose text output is long enough to leave memory (render/spool.py: an
+    unnamed file) import neither dataclasses/inspect nor tempfile and what it pulls in."""
+    (tmp_path / ".git").mkdir()
+    for i in range(150):
+        (tmp_path / f"run{i:03d}.yaml").write_text(
+            "model_name_or_path: meta-llama/Llama-2-7b-hf\nlearning_rate: 1e-4\n"
+            f"per_device_train_batch_size: {1 + i % 4}\nnum_train_epochs: 1\nlora_r: 16\n"
+            "lora_alpha: 32\nlr_scheduler_type: cosine\nwarmup_steps: 10\n", encoding="utf-8")
+    names = ("dataclasses", "inspect", "tempfile", "shutil", "random", "typer")
+    code = ("import sys\n"
+            f"sys.argv = ['cfgcheck', *{command!r}, '--no-project', {str(tmp_path)!r}]\n"
+            "from cfgcheck.cli import main\ntry:\n    main()\nexcept SystemExit:\n    pass\n"
+            f"names = {names!r}\n"
+            "loaded = sorted(m for m in sys.modules if m in names or m.split('.')[0] in names)\n"
+            "sys.stderr.write('\\nloaded: ' + repr(loaded))\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path,
+                         env=ENV, timeout=120)
+    assert out.stderr.strip().splitlines()[-1] == "loaded: []", out.stderr
+    if command[0] == "derive":
+        assert out.stdout.count("learning rate over ") == 150 and "not drawn" not in out.stdout
+    elif command[0] == "fix":
+        assert out.stdout.count("+learning_rate: 1.0e-4") == 150
+    else:
+        from cfgcheck.render import spool
+
+        assert len(out.stdout) > spool.MEMORY_LIMIT  # the findings went through a file
+        assert out.stdout.count("[yaml-version-dependent-value]") == 150

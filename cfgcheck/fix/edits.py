@@ -7,9 +7,9 @@ from __future__ import annotations
 
 import bisect
 import re
-from dataclasses import dataclass
 from typing import Any
 
+from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr
 from ..findings import Edit
 from ..load import Document, Entry, dotted
 from .results import ProofFailed, _Planned
@@ -21,13 +21,42 @@ _COMMENT_PAD = re.compile(r"( {2,})#")
 _PROPS = re.compile(r"[&!][^\s,\[\]{}]*\s+")
 
 
-@dataclass(frozen=True)
 class _TextEdit:
+    """One replacement of text (a record class written out: ``cfgcheck._records``)."""
+
     start: int
     end: int
     text: str
     rule: str
-    plan: int = 0  # id() of the _Planned it belongs to
+    plan: int  # id() of the _Planned it belongs to
+
+    __slots__ = ('start', 'end', 'text', 'rule', 'plan',)
+
+    def __init__(self, start, end, text, rule, plan=0):
+        _setattr(self, 'start', start)
+        _setattr(self, 'end', end)
+        _setattr(self, 'text', text)
+        _setattr(self, 'rule', rule)
+        _setattr(self, 'plan', plan)
+
+    def __repr__(self):
+        return f"{type(self).__qualname__}(start={self.start!r}, end={self.end!r}, text={self.text!r}, rule={self.rule!r}, plan={self.plan!r})"
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return (self.start, self.end, self.text, self.rule, self.plan) == (other.start, other.end, other.text, other.rule, other.plan)
+        return NotImplemented
+
+    def __hash__(self):
+        return hash((self.start, self.end, self.text, self.rule, self.plan))
+
+    __setattr__ = _frozen_setattr
+    __delattr__ = _frozen_delattr
+
+    def __getstate__(self):
+        return (self.start, self.end, self.text, self.rule, self.plan)
+
+    __setstate__ = _frozen_setstate
 
 
 class _DocIndex:

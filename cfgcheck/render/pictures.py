@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import bisect
 import math
-from dataclasses import dataclass, field, replace
 
+from .._records import replaced
 from ..lrcurve import Curve, curve, schedule_kind
 from ..plan import Plan
 
@@ -33,14 +33,34 @@ SEGMENTS = (
 )
 
 
-@dataclass
 class Series:
-    """A learning-rate curve and the steps where things happen."""
+    """A learning-rate curve and the steps where things happen (a record class written out:
+    ``cfgcheck._records``)."""
 
     curve: Curve
     scheduler_note: str  # how the schedule was chosen (written, or the default assumed)
-    marks: dict[str, list[int]] = field(default_factory=dict)  # "eval"/"save"/"log" -> steps (1-based)
-    every: dict[str, str] = field(default_factory=dict)  # in words: "every 100 steps", "each epoch"
+    marks: dict[str, list[int]]  # "eval"/"save"/"log" -> steps (1-based)
+    every: dict[str, str]  # in words: "every 100 steps", "each epoch"
+
+    __slots__ = ("curve", "scheduler_note", "marks", "every")
+
+    def __init__(self, curve, scheduler_note, marks=None, every=None):
+        self.curve = curve
+        self.scheduler_note = scheduler_note
+        self.marks = {} if marks is None else marks
+        self.every = {} if every is None else every
+
+    def __repr__(self):
+        return (f"{type(self).__qualname__}(curve={self.curve!r}, scheduler_note={self.scheduler_note!r}, "
+                f"marks={self.marks!r}, every={self.every!r})")
+
+    def __eq__(self, other):
+        if other.__class__ is self.__class__:
+            return ((self.curve, self.scheduler_note, self.marks, self.every)
+                    == (other.curve, other.scheduler_note, other.marks, other.every))
+        return NotImplemented
+
+    __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
 def _events(plan: Plan, what: str, total: int) -> tuple[list[int], str]:
@@ -88,7 +108,7 @@ def _curve(kind: str, total: int, warmup: int, base_lr: float | None, kwargs: di
     c = remembered("lr_curve", key, compute)
     if not copy:
         return c, key
-    return replace(c, steps=list(c.steps), values=list(c.values), notes=list(c.notes)), key
+    return replaced(c, steps=list(c.steps), values=list(c.values), notes=list(c.notes)), key
 
 
 def schedule_series(plan: Plan) -> tuple[Series | None, str | None]:
