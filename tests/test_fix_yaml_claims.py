@@ -78,3 +78,17 @@ def test_every_string_we_write_reads_back_exactly(value, quote):
     text = _yaml_str(value, quote)
     assert pyyaml(f"k: {text}\n")["k"] == value
     assert yaml12(f"k: {text}\n")["k"] == value
+
+
+def test_what_a_single_quoted_scalar_refuses_is_every_character_outside_the_kept_ranges():
+    """The fixer quotes a text in single quotes only when it holds none of these; checked on every
+    code point against the ranges it keeps (YAML 1.2 sec. 5.1 c-printable without line breaks,
+    and without the byte order mark U+FEFF)."""
+    from cfgcheck.fix.values import _NOT_SINGLE
+
+    kept = ((0x09, 0x09), (0x20, 0x7E), (0xA0, 0xD7FF), (0xE000, 0xFEFE), (0xFF00, 0xFFFD),
+            (0x10000, 0x10FFFF))
+    refused = [c for c in range(0x110000) if _NOT_SINGLE.match(chr(c))]
+    expected = [c for c in range(0x110000) if not any(lo <= c <= hi for lo, hi in kept)]
+    assert refused == expected
+    assert len(refused) == 9 + 22 + 33 + 2048 + 3  # 00-08, 0A-1F, 7F-9F, surrogates, FEFF FFFE FFFF
