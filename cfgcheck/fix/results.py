@@ -79,7 +79,7 @@ class FileFix:
     evidence: dict | None  # a failed proof: before, after, which check (for a bug report)
     evidence_file: str | None  # where the evidence was saved
 
-    _record_fields = ('file', 'old_text', 'new_text', 'applied', 'withheld', 'notes', 'problem', 'error', 'refused', 'skipped', 'written', 'links', 'needs', 'evidence', 'evidence_file',)
+    __slots__ = ('file', 'old_text', 'new_text', 'applied', 'withheld', 'notes', 'problem', 'error', 'refused', 'skipped', 'written', 'links', 'needs', 'evidence', 'evidence_file',)
 
     def __init__(self, file, old_text="", new_text="", applied=None, withheld=None, notes=None, problem=None, error=None, refused=None, skipped=None, written=False, links=(), needs=(), evidence=None, evidence_file=None):
         self.file = file
@@ -131,7 +131,7 @@ class FixReport:
 
     files: list[FileFix]
 
-    _record_fields = ('files',)
+    __slots__ = ('files',)
 
     def __init__(self, files=None):
         self.files = [] if files is None else files
@@ -187,7 +187,7 @@ class _Planned:
     document: int
     finding: Finding | None  # None for the batch split
 
-    _record_fields = ('rule', 'key', 'summary', 'tier', 'edits', 'document', 'finding',)
+    __slots__ = ('rule', 'key', 'summary', 'tier', 'edits', 'document', 'finding',)
 
     def __init__(self, rule, key, summary, tier, edits, document, finding):
         self.rule = rule
@@ -218,7 +218,7 @@ class _Item:
     src: Source | None
     real: str
 
-    _record_fields = ('path', 'options', 'result', 'src', 'real',)
+    __slots__ = ('path', 'options', 'result', 'src', 'real',)
 
     def __init__(self, path, options, result, src=None, real=""):
         self.path = path
