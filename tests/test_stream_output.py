@@ -230,14 +230,17 @@ def test_a_spool_spills_to_an_unnamed_file_without_importing_tempfile(tmp_path):
     code = ("import sys; from cfgcheck.render import spool; s = spool.Spool()\n"
             "for i in range(3000): s.write(f'line {i} \\ud800 ' + 'x' * 40 + '\\n')\n"
             "assert s._file is not None\n"
+            "import os; where = os.readlink(f'/proc/self/fd/{s._file.fileno()}')\n"
             "text = ''.join(s.read()); s.close()\n"
             "assert text.count('\\n') == 3000 and 'line 2999 \\ud800' in text\n"
-            "print('tempfile' in sys.modules)")
+            "print('tempfile' in sys.modules); print(where)")
     env = dict(os.environ, TMPDIR=str(tmp_path), PYTHONPATH=str(ROOT))
     out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=60)
     assert out.returncode == 0, out.stderr
-    assert out.stdout.strip() == "False"
-    assert list(tmp_path.iterdir()) == []  # unnamed: nothing to clean up
+    imported, where = out.stdout.strip().splitlines()
+    assert imported == "False"
+    assert where.startswith(str(tmp_path) + "/") and where.endswith("(deleted)")  # in TMPDIR, no name
+    assert list(tmp_path.iterdir()) == []  # nothing to clean up
 
 
 @pytest.mark.parametrize("how", ["no unnamed files", "temporary folder missing"])
