@@ -61,7 +61,7 @@ class _YamlLoader(_SafeLoader):  # type: ignore[misc, valid-type]
         if kind is _ScalarNode and implicit[0]:
             tag = _known(value)
             if tag is None:
-                tag = _SafeLoader.resolve(self, kind, value, implicit)
+                tag = _plain_tag(value)
                 resolved = self._resolved
                 if len(resolved) < _RESOLVED_MAX:
                     resolved[value] = tag
@@ -72,6 +72,29 @@ class _YamlLoader(_SafeLoader):  # type: ignore[misc, valid-type]
     # functions that do nothing of note (no Python frame per node): is_(parent, index) and tuple().
     descend_resolver = staticmethod(operator.is_)
     ascend_resolver = staticmethod(tuple)
+
+
+_PLAIN_RESOLVERS_CACHE: dict[str | None, tuple] = {}  # first character -> the (tag, pattern) pairs it can start
+
+
+def _plain_tag(value: str) -> str:
+    """The tag the safe loader's resolver gives a plain scalar (``BaseResolver.resolve`` for an
+    implicit scalar with no path resolvers), from a table of its patterns by first character
+    made once: a text whose first character starts no pattern (most keys) is text at once, with
+    no method call and no list built. The patterns are the loader's own, fixed for the process
+    like the tags remembered above (tests/test_load.py compares it with PyYAML's resolver)."""
+    table = _PLAIN_RESOLVERS_CACHE
+    if not table:
+        own = _SafeLoader.yaml_implicit_resolvers
+        anywhere = list(own.get(None, []))
+        for first, pairs in own.items():
+            if first is not None:
+                table[first] = tuple(pairs) + tuple(anywhere)
+        table[None] = tuple(anywhere)  # the table is made (and what any other character tries)
+    for tag, pattern in table.get(value[:1], table[None]):
+        if pattern.match(value):
+            return tag
+    return _SafeLoader.DEFAULT_SCALAR_TAG
 
 
 # Limits for hostile input, documented in the README.
@@ -647,7 +670,6 @@ class _YamlBuilder:
 
     def _mapping(self, node: yaml.Node, path: Path_, depth: int) -> dict:
         out: dict[Any, Any] = {}
-        key_nodes: dict[Any, yaml.Node] = {}
         merged: dict[Any, Any] | None = None
         depth += 1
         build = self.build
@@ -676,6 +698,8 @@ class _YamlBuilder:
                 if not isinstance(key, (str, int, float, bool)) and key is not None:
                     key = str(key)
             child = path + (key,)
+            # a key written again: where it was written last (its entry, until replaced below)
+            again = entries[child]._key if key in out else None
             if inline and vnode.__class__ is _ScalarNode and self.count < MAX_NODES:
                 vtag = vnode.tag
                 if vtag == _STR:
@@ -696,12 +720,11 @@ class _YamlBuilder:
                     value = build(vnode, child, knode, depth)
             else:
                 value = build(vnode, child, knode, depth)
-            if key in out:
+            if again is not None:
                 self.doc.duplicates.append(
-                    Duplicate(child, _mark_span(key_nodes[key]), _mark_span(knode), out[key], value)
+                    Duplicate(child, _mark_span(again), _mark_span(knode), out[key], value)
                 )
             out[key] = value
-            key_nodes[key] = knode
         if merged:
             for k, v in merged.items():  # explicit keys win over merged ones (YAML merge-key rules)
                 out.setdefault(k, v)

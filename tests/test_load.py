@@ -7,6 +7,7 @@ import json
 
 import pytest
 import yaml
+from hypothesis import given, strategies as st
 from ruamel.yaml import YAML
 
 from cfgcheck.load import LoadError, decode, load_text
@@ -244,3 +245,48 @@ def test_entries_pickle_with_their_positions():
         assert copy == doc.entries
         assert copy[("a", "b")].value == doc.entries[("a", "b")].value
         assert copy[("a", "b")].key.line == (2 if name == "t.yaml" else 1)
+
+
+# plain scalars of every implicit form YAML 1.1 resolves, and near misses of each
+_PLAIN_FORMS = [
+    "", "~", "null", "Null", "NULL", "nul", "true", "True", "TRUE", "tRue", "yes", "Yes", "no", "NO",
+    "on", "Off", "y", "n", "0", "-0", "+12", "012", "0o17", "0x1F", "0b101", "1_000", "190:20:30",
+    "1.5", "-.5", "+1.", "1e5", "1.0e+5", "6.8523015e+5", ".inf", "-.Inf", ".NaN", ".nan.", "1:20.5",
+    "2001-12-14", "2001-12-14t21:59:43.10-05:00", "2001-12-14 21:59:43.10 -5", "2001-13-99x", "<<",
+    "<", "=", "==", "!tag", "&a", "*a", "learning_rate", "zq_setting_7_x", "Qwen/Qwen2.5-0.5B",
+    "1e-4", "5e-5", "2.0e-4", "0.0.1", "- a", "#x", "é", "1 2",
+]
+
+
+def test_the_loader_gives_each_plain_scalar_the_tag_pyyaml_gives_it():
+    """The loader's own table of the resolver's patterns (cfgcheck.load._plain_tag) agrees with
+    PyYAML's ``BaseResolver.resolve`` (the reference: PyYAML 6, YAML 1.1 implicit types) on every
+    implicit form, near misses of them and text."""
+    from cfgcheck.load import _plain_tag
+
+    reference = yaml.SafeLoader("")
+    implicit = (True, False)
+    for value in _PLAIN_FORMS:
+        assert _plain_tag(value) == reference.resolve(yaml.ScalarNode, value, implicit), value
+
+
+@given(st.text(alphabet=st.sampled_from("0123456789+-._:eExXoObB yYnNtTfF~<=!&*abz/ "), max_size=12))
+def test_the_loader_tags_generated_plain_scalars_as_pyyaml_does(value):
+    from cfgcheck.load import _plain_tag
+
+    assert _plain_tag(value) == yaml.SafeLoader("").resolve(yaml.ScalarNode, value, (True, False))
+
+
+def test_a_key_written_three_times_is_told_against_the_time_before_each_time():
+    """Each repetition of a key names the place it was written before (its key's line and
+    column) and both values, in a nested mapping as at the top; a collection value as a scalar."""
+    text = ("run:\n  lr: 1\n  bs: 4\n  lr: 2\n  lr:\n    - 3\nlr: 0\nlr: {a: 1}\n")
+    doc = load_text(text, "t.yaml")[0]
+    assert doc.data == {"run": {"lr": [3], "bs": 4}, "lr": {"a": 1}}
+    told = [(d.path, (d.first.line, d.first.column), (d.second.line, d.second.column),
+             d.first_value, d.second_value) for d in doc.duplicates]
+    assert told == [
+        (("run", "lr"), (2, 3), (4, 3), 1, 2),
+        (("run", "lr"), (4, 3), (5, 3), 2, [3]),
+        (("lr",), (7, 1), (8, 1), 0, {"a": 1}),
+    ]
