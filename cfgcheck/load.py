@@ -83,6 +83,9 @@ def _plain_tag(value: str) -> str:
     made once: a text whose first character starts no pattern (most keys) is text at once, with
     no method call and no list built. The patterns are the loader's own, fixed for the process
     like the tags remembered above (tests/test_load.py compares it with PyYAML's resolver)."""
+    if value.isdigit() and value.isascii() and (value[0] != "0" or len(value) == 1):
+        return _INT  # what the int pattern says of decimal digits with no leading zero (the
+        # float and timestamp patterns need a '.', ':' or '-'), without trying three of them
     table = _PLAIN_RESOLVERS_CACHE
     if not table:
         own = _SafeLoader.yaml_implicit_resolvers
