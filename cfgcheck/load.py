@@ -74,26 +74,30 @@ class _YamlLoader(_SafeLoader):  # type: ignore[misc, valid-type]
     ascend_resolver = staticmethod(tuple)
 
 
-_PLAIN_RESOLVERS_CACHE: dict[str | None, tuple] = {}  # first character -> the (tag, pattern) pairs it can start
+def _resolver_table() -> MappingProxyType:
+    """The safe loader's implicit resolvers by first character (None: what any other character
+    tries), each with the patterns every character tries after its own."""
+    own = _SafeLoader.yaml_implicit_resolvers
+    anywhere = tuple(own.get(None, []))
+    table = {first: tuple(pairs) + anywhere for first, pairs in own.items() if first is not None}
+    table[None] = anywhere
+    return MappingProxyType(table)
+
+
+# made at import, whole (a table filled on first use could be read half filled by another thread)
+_PLAIN_RESOLVERS = _resolver_table()
 
 
 def _plain_tag(value: str) -> str:
     """The tag the safe loader's resolver gives a plain scalar (``BaseResolver.resolve`` for an
-    implicit scalar with no path resolvers), from a table of its patterns by first character
-    made once: a text whose first character starts no pattern (most keys) is text at once, with
-    no method call and no list built. The patterns are the loader's own, fixed for the process
-    like the tags remembered above (tests/test_load.py compares it with PyYAML's resolver)."""
+    implicit scalar with no path resolvers), from its patterns by first character: a text whose
+    first character starts no pattern (most keys) is text at once, with no method call and no
+    list built. The patterns are the loader's own, fixed for the process like the tags
+    remembered above (tests/test_load.py compares it with PyYAML's resolver)."""
     if value.isdigit() and value.isascii() and (value[0] != "0" or len(value) == 1):
         return _INT  # what the int pattern says of decimal digits with no leading zero (the
         # float and timestamp patterns need a '.', ':' or '-'), without trying three of them
-    table = _PLAIN_RESOLVERS_CACHE
-    if not table:
-        own = _SafeLoader.yaml_implicit_resolvers
-        anywhere = list(own.get(None, []))
-        for first, pairs in own.items():
-            if first is not None:
-                table[first] = tuple(pairs) + tuple(anywhere)
-        table[None] = tuple(anywhere)  # the table is made (and what any other character tries)
+    table = _PLAIN_RESOLVERS
     for tag, pattern in table.get(value[:1], table[None]):
         if pattern.match(value):
             return tag
