@@ -23,7 +23,6 @@ def memory_exceeds_gpu(ctx) -> None:
     view = ctx.view
     if view.method not in ("full", "lora", "qlora"):
         return
-    gpus, _ = ctx.num_gpus
     # the estimate first; the words that describe the run only for a finding (below)
     arch = ctx.model()
     problem = no_estimate(view, arch)
@@ -35,6 +34,7 @@ def memory_exceeds_gpu(ctx) -> None:
         ctx.cannot_judge("no GPU named (--gpu NAME) to compare an estimate with "
                          "(cfgcheck derive shows the estimate)")
         return
+    gpus, _ = ctx.num_gpus
     plan = derive_plan(view, arch, gpu=ctx.gpu, gpus=gpus, rows=ctx.options.rows, describe=False)
     if plan.memory is None:
         ctx.cannot_judge(plan.memory_problem or "no estimate")
