@@ -44,7 +44,6 @@ The folder: ``$CFGCHECK_CACHE_DIR``, else the platform's user cache folder (plat
 from __future__ import annotations
 
 import contextvars
-import hashlib
 import io
 import os
 import stat
@@ -337,7 +336,7 @@ class Store:
     def _code_fingerprint(self, stats: list) -> str:
         """sha256 over the contents of cfgcheck's files, remembered in the cache folder under the
         hash of their sizes and modification times (an editable install: any edit is seen)."""
-        by_stat = hashlib.sha256(repr(stats).encode("utf-8", "surrogateescape")).hexdigest()
+        by_stat = reads.sha256(repr(stats).encode("utf-8", "surrogateescape")).hexdigest()
         where = self.root / "code" / by_stat
         try:
             known = where.read_text(encoding="ascii").strip()
@@ -345,7 +344,7 @@ class Store:
                 return known
         except (OSError, ValueError):
             pass
-        h = hashlib.sha256()
+        h = reads.sha256()
         for name, _size, _mtime in stats:
             h.update(name.encode("utf-8", "surrogateescape") + b"\0")
             h.update(reads.content(name).encode("ascii", "replace") + b"\0")
@@ -364,7 +363,7 @@ class Store:
                 got = reads.regular_bytes(path)  # never blocks on a pipe
                 if got is None:
                     raise Uncacheable("not a regular file of a size worth keeping")
-                digest = hashlib.sha256(got[1]).hexdigest()
+                digest = reads.sha256(got[1]).hexdigest()
         except (OSError, ValueError):  # a folder, a missing file: linting it says why, cheaply
             raise Uncacheable("not readable") from None
         known = self._options.get(id(options))
@@ -373,7 +372,7 @@ class Store:
         text = "\0".join((self._fixed(), path, os.path.abspath(path), digest, known[1]))
         if self.run is not None:
             self.run_files.append((path, digest))
-        return hashlib.sha256(text.encode("utf-8", "surrogateescape")).hexdigest(), digest
+        return reads.sha256(text.encode("utf-8", "surrogateescape")).hexdigest(), digest
 
     # entries ------------------------------------------------------------------
     def _entry(self, key: str) -> str:
@@ -464,10 +463,10 @@ class Store:
             except OSError:  # packed: the first copy with the right bytes (a set is named by its hash)
                 packs = self._pack_index()
                 blob = next((b for b in (packs.read(*at) for at in packs.places("f" + facts_id))
-                             if b is not None and hashlib.sha256(b).hexdigest() == facts_id), None)
+                             if b is not None and reads.sha256(b).hexdigest() == facts_id), None)
                 if blob is None:
                     raise
-            if hashlib.sha256(blob).hexdigest() == facts_id:
+            if reads.sha256(blob).hexdigest() == facts_id:
                 import json
 
                 ok = True
@@ -513,7 +512,7 @@ class Store:
             except (TypeError, ValueError, UnicodeEncodeError):
                 self.run_whole = False
                 return False
-            known = (hashlib.sha256(facts_blob).hexdigest(), facts_blob)
+            known = (reads.sha256(facts_blob).hexdigest(), facts_blob)
             try:
                 self._fact_sets[kept] = known
             except TypeError:
@@ -1126,7 +1125,7 @@ def lint_from_cache(args: dict, progress: Any = None) -> "_Run":
         return run
     store = Store(folder)
     try:
-        key = hashlib.sha256(repr((
+        key = reads.sha256(repr((
             RUN_FORMAT, store._fixed(), canonical(args), _stream_traits(sys.stdout),
             _stream_traits(sys.stderr), os.environ.get("NO_COLOR"), os.environ.get("TERM"), os.linesep,
         )).encode("utf-8", "surrogateescape")).hexdigest()
@@ -1187,7 +1186,7 @@ def _replay(target: str, key: str, progress: Any, seen: dict | None = None) -> i
                 got = reads.regular_bytes(path)  # never blocks on a pipe
                 if got is None:
                     return None
-                now = hashlib.sha256(got[1]).hexdigest()
+                now = reads.sha256(got[1]).hexdigest()
                 digests_seen[path] = (_stat_id(got[0]), now)
                 if now != digest:
                     return None

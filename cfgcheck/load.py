@@ -165,17 +165,21 @@ class Entry:
 
     ``value`` and ``key`` (None for list items and the root) are Spans. The loaders record where
     a value stands (the parser's node, or character offsets) and make its Span when it is first
-    asked for: a lint reads the positions of the few values its findings name.
+    asked for: a lint reads the positions of the few values its findings name. ``raw``, a
+    scalar's source text, is likewise cut from the document's text when asked for (no rule reads
+    it for most values).
     """
 
-    __slots__ = ("_value", "_key", "_lines", "raw", "style", "tag", "kind", "flow")
+    __slots__ = ("_value", "_key", "_lines", "_raw", "style", "tag", "kind", "flow")
 
-    def __init__(self, value: Span, key: Span | None = None, raw: str = "", style: str | None = None,
+    def __init__(self, value: Span, key: Span | None = None, raw: "str | _Lines" = "", style: str | None = None,
                  tag: str | None = None, kind: str = "scalar", flow: bool = False):
         self._value = value
         self._key = key
         self._lines = None  # how offsets become lines (a _Lines) for a JSON entry not yet placed
-        self.raw = raw  # the scalar's source text (plain or quoted), "" for collections
+        # the scalar's source text (plain or quoted), "" for collections; or the document's text
+        # (a _Lines) that the value's position cuts it from when first asked for
+        self._raw = raw
         self.style = style  # None = plain scalar; "'", '"', "|", ">" as in YAML; "json" for JSON
         self.tag = tag  # an explicit tag the author wrote (recorded, never acted on)
         self.kind = kind  # "scalar" | "map" | "seq"
@@ -189,6 +193,24 @@ class Entry:
         return lines.span(at[0], at[1])  # (start, end) offsets in the JSON text
 
     @property
+    def raw(self) -> str:
+        r = self._raw
+        if r.__class__ is _Lines:
+            at = self._value
+            if at.__class__ is Span:
+                start, end = at.start, at.end
+            elif self._lines is None:  # a YAML node
+                start, end = at.start_mark.index, at.end_mark.index
+            else:  # (start, end) offsets in the JSON text
+                start, end = at
+            r = self._raw = r.text[start:end]
+        return r
+
+    @raw.setter
+    def raw(self, text: str) -> None:
+        self._raw = text
+
+    @property
     def value(self) -> Span:
         v = self._value
         if v.__class__ is not Span:
@@ -197,6 +219,8 @@ class Entry:
 
     @value.setter
     def value(self, span: Span) -> None:
+        if self._raw.__class__ is _Lines:
+            self.raw  # cut from where the value stood before it moves
         self._value = span
 
     @property
@@ -585,6 +609,7 @@ def _problem_position(exc: yaml.YAMLError, text: str) -> tuple[int, int, str]:
 
 def _load_yaml(text: str, name: str) -> list[Document]:
     loader = _YamlLoader(text)
+    source = _Lines(text)  # what the documents' scalars cut their source text from
     docs: list[Document] = []
     count = 0  # values built in the whole stream: the alias bound holds across documents
     try:
@@ -597,7 +622,7 @@ def _load_yaml(text: str, name: str) -> list[Document]:
             node = loader.get_node()
             doc = Document(name=name, format="yaml", data=None, index=index)
             if node is not None:
-                builder = _YamlBuilder(doc, text)
+                builder = _YamlBuilder(doc, text, source)
                 builder.count = count
                 doc.data = builder.build(node, (), None, 0)
                 count = builder.count
@@ -631,9 +656,10 @@ def _start(node: yaml.Node) -> tuple[int, int]:
 
 
 class _YamlBuilder:
-    def __init__(self, doc: Document, text: str):
+    def __init__(self, doc: Document, text: str, source: "_Lines | None" = None):
         self.doc = doc
         self.text = text
+        self.source = source if source is not None else _Lines(text)
         self.count = 0
         self.entries = doc.entries
         self.open: set[int] = set()  # collection nodes being built: an alias back to one is a cycle
@@ -654,8 +680,7 @@ class _YamlBuilder:
             self.doc.tags.append((path, tag))
         if node.__class__ is _ScalarNode:
             style = node.style or None
-            self.entries[path] = Entry(node, knode, self.text[node.start_mark.index:node.end_mark.index],
-                                       style, explicit)
+            self.entries[path] = Entry(node, knode, self.source, style, explicit)
             if tag == _STR and (style or not _MAYBE_EXP(node.value)):
                 return node.value  # the common case: text with nothing to report
             return self._scalar(node, path)
@@ -682,6 +707,7 @@ class _YamlBuilder:
         build = self.build
         entries = self.entries
         text = self.text
+        source = self.source  # the text a scalar's raw is cut from, when asked for
         # a scalar value (text, a number, a boolean or null, with no tag written) is read here
         # rather than by build()
         inline = depth <= MAX_DEPTH
@@ -714,14 +740,12 @@ class _YamlBuilder:
                     value = vnode.value
                     if style or not _MAYBE_EXP(value):
                         self.count += 1
-                        entries[child] = Entry(vnode, knode, text[vnode.start_mark.index:vnode.end_mark.index],
-                                               style)
+                        entries[child] = Entry(vnode, knode, source, style)
                     else:
                         value = build(vnode, child, knode, depth)
                 elif vtag in _READ_HERE:  # a number, boolean or null: what build() does for it
                     self.count += 1
-                    entries[child] = Entry(vnode, knode, text[vnode.start_mark.index:vnode.end_mark.index],
-                                           vnode.style or None)
+                    entries[child] = Entry(vnode, knode, source, vnode.style or None)
                     value = self._scalar(vnode, child)
                 else:
                     value = build(vnode, child, knode, depth)
@@ -743,7 +767,7 @@ class _YamlBuilder:
             if not isinstance(src, yaml.MappingNode):
                 raise LoadError("a merge key (<<) needs a mapping or a list of mappings", *_start(src))
             # merged values are written elsewhere: their positions stay those of the anchor
-            sub = _YamlBuilder(Document(name=self.doc.name, format="yaml", data=None), self.text)
+            sub = _YamlBuilder(Document(name=self.doc.name, format="yaml", data=None), self.text, self.source)
             sub.count = self.count
             sub.open = self.open
             value = sub.build(src, path, None, depth + 1)
@@ -850,7 +874,8 @@ def _json_string(literal: str) -> str:
 
 
 class _Lines:
-    """Character offsets -> 1-based lines and columns; the line starts are found when first asked."""
+    """A document's text: character offsets -> 1-based lines and columns (the line starts are found
+    when first asked), and the source text of the scalars cut from it when asked for."""
 
     __slots__ = ("text", "starts")
 
@@ -909,7 +934,7 @@ def _json_entries(text: str, doc: Document) -> None:
                 c = v.__class__
                 if inline and c is not dict and c is not list:
                     s, t = step()
-                    e = Entry((s, t), at, text[s:t], "json")
+                    e = Entry((s, t), at, lines, "json")
                     e._lines = lines
                     entries[path + (k,)] = e
                 else:
@@ -923,7 +948,7 @@ def _json_entries(text: str, doc: Document) -> None:
                 c = v.__class__
                 if inline and c is not dict and c is not list:
                     s, t = step()
-                    e = Entry((s, t), None, text[s:t], "json")
+                    e = Entry((s, t), None, lines, "json")
                     e._lines = lines
                     entries[path + (i,)] = e
                 else:
@@ -931,7 +956,7 @@ def _json_entries(text: str, doc: Document) -> None:
                 i += 1
             e = Entry((start, step()[1]), key_at, "", "json", None, "seq")
         else:
-            e = Entry((start, end), key_at, text[start:end], "json")
+            e = Entry((start, end), key_at, lines, "json")
         e._lines = lines
         entries[path] = e
 

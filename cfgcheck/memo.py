@@ -73,14 +73,20 @@ def remembered(kind: str, key: Hashable, compute: Callable[[], Any]) -> Any:
     table = memo.get(kind)
     if table is None:
         table = memo[kind] = {}
-    try:
-        value, seen = table[key]
-    except KeyError:
-        with reads.recording() as facts:
-            value = compute()
-        seen = tuple(facts.items())
+    got = table.get(key)
+    wanted = reads.recording_now()
+    if got is None or (wanted and got[1] is None):
+        # worked out with its facts noted only when a record is kept (a run with the result
+        # cache): without one, nothing would read them
+        if wanted:
+            with reads.recording() as facts:
+                value = compute()
+            got = (value, tuple(facts.items()))
+        else:
+            got = (compute(), None)
         if len(table) >= MAX_ENTRIES:
             table.clear()
-        table[key] = (value, seen)
-    reads.replay(seen)
-    return value
+        table[key] = got
+    if wanted:
+        reads.replay(got[1])
+    return got[0]

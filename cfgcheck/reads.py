@@ -19,7 +19,6 @@ from __future__ import annotations
 import contextlib
 import contextvars
 import functools
-import hashlib
 import os
 import re
 import stat
@@ -43,6 +42,14 @@ def recording() -> Iterator[Facts]:
         yield facts
     finally:
         _RECORD.reset(token)
+
+
+def sha256(data: bytes = b"") -> Any:
+    """``hashlib.sha256(data)``, with hashlib (and the OpenSSL library it loads, a few
+    milliseconds) imported when the first hash is made: a run with the cache off makes none."""
+    import hashlib
+
+    return hashlib.sha256(data)
 
 
 def _abs(path: Any) -> str:
@@ -104,7 +111,7 @@ def content(path: Any) -> str:
         got = regular_bytes(path)
         if got is None:  # replaced by a pipe or a device, or grown, since the stat
             return path_kind(path)
-        return hashlib.sha256(got[1]).hexdigest()
+        return sha256(got[1]).hexdigest()
     except OSError as exc:
         return f"unreadable:{exc.errno}"
 
@@ -120,7 +127,7 @@ def names(path: Any, pattern: str = "") -> str:
     if pattern:
         rx = re.compile(pattern)
         found = [n for n in found if rx.fullmatch(n)]
-    return hashlib.sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
+    return sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
 
 
 def folders(path: Any) -> str:
@@ -132,7 +139,7 @@ def folders(path: Any) -> str:
         return "missing"
     except OSError as exc:
         return f"error:{exc.errno}"
-    return hashlib.sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
+    return sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
 
 
 def listing(path: Any) -> str:
@@ -151,7 +158,7 @@ def listing(path: Any) -> str:
         return "missing"
     except OSError as exc:
         return f"error:{exc.errno}"
-    return hashlib.sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
+    return sha256("\0".join(sorted(found)).encode("utf-8", "surrogateescape")).hexdigest()
 
 
 def fact(kind: str, path: str, pattern: str = "") -> str:
@@ -177,7 +184,7 @@ def note_bytes(path: Any, raw: bytes) -> None:
     """PATH was read and these are the bytes used (the guarded reader calls this)."""
     facts = _RECORD.get()
     if facts is not None:
-        facts.setdefault(("f", _abs(path), ""), hashlib.sha256(raw).hexdigest())
+        facts.setdefault(("f", _abs(path), ""), sha256(raw).hexdigest())
 
 
 def note_file(path: Any) -> None:
@@ -218,6 +225,11 @@ def note_walk(path: Any) -> None:
             facts[key] = listing(path)
 
 
+def recording_now() -> bool:
+    """Whether a record is active (the facts noted now would be kept)."""
+    return _RECORD.get() is not None
+
+
 def replay(seen: tuple) -> None:
     """Note again, in the record now active, the facts an earlier (memoised) call noted."""
     facts = _RECORD.get()
@@ -237,24 +249,35 @@ def forget() -> None:
 
 
 def memo(maxsize: int = 64) -> Callable[[Callable], Callable]:
-    """``functools.lru_cache`` for functions that look at the disk: a call served from the memo
-    notes the facts the first call noted, so each file's record stays complete."""
+    """A memo of a function's answers by its arguments (at most MAXSIZE, emptied when full) for
+    functions that look at the disk: a call served from the memo notes the facts the first call
+    noted, so each file's record stays complete. A call made
+    while nothing records (a run without the result cache) notes nothing: its answer is kept
+    without facts, and worked out again, recorded, should a caller that records ask for it."""
 
     def wrap(fn: Callable) -> Callable:
-        @functools.lru_cache(maxsize=maxsize)
-        def first(*args: Any) -> tuple[Any, tuple]:
-            with recording() as facts:
-                result = fn(*args)
-            return result, tuple(facts.items())
+        table: dict[tuple, tuple[Any, tuple | None]] = {}
 
         @functools.wraps(fn)
         def call(*args: Any) -> Any:
-            result, seen = first(*args)
-            replay(seen)
-            return result
+            got = table.get(args)
+            wanted = _RECORD.get() is not None
+            if got is None or (wanted and got[1] is None):
+                if wanted:
+                    with recording() as facts:
+                        result = fn(*args)
+                    got = (result, tuple(facts.items()))
+                else:
+                    got = (fn(*args), None)
+                if len(table) >= maxsize:
+                    table.clear()
+                table[args] = got
+            if wanted:
+                replay(got[1])
+            return got[0]
 
-        call.cache_clear = first.cache_clear  # type: ignore[attr-defined]
-        _MEMOS_CACHE.append(first.cache_clear)
+        call.cache_clear = table.clear  # type: ignore[attr-defined]
+        _MEMOS_CACHE.append(table.clear)
         return call
 
     return wrap

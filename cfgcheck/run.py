@@ -19,11 +19,12 @@ from types import MappingProxyType
 from typing import Any
 
 from ._records import guarded_repr
-from . import load as loadmod, reads
+from . import compose, load as loadmod, reads
 from .defaults import DEFAULTS, Default
 from .load import LoadError
 from .layouts import LAYOUTS
 from .links import attach_linked
+from .sweep import split_overrides
 from .view import Field, RunView, build_view, detect_layout
 
 _DISTRIBUTED_WORDS = MappingProxyType({"DEEPSPEED": "DeepSpeed", "FSDP": "FSDP", "MULTI_GPU": "data parallel (DDP)",
@@ -546,14 +547,12 @@ def composed(doc: Any, file: str, options: Any) -> tuple[Any, str]:
     """(DOC composed with the files it names, the launch's ``key=value`` overrides and the
     arguments of the launch script that starts it; why a named file could not be read, or "").
     As written when there is nothing to compose, or when composing fails."""
-    from . import compose
-    from .sweep import split_overrides
-
-    located = script_layer(file, options)
-    # list-valued overrides make a sweep of runs (sweep.py): only the fixed ones compose here
-    overrides = tuple(split_overrides(tuple(getattr(options, "overrides", ()) or ()))[0])
     if file.startswith("<"):
         return doc, ""
+    located = script_layer(file, options)
+    # list-valued overrides make a sweep of runs (sweep.py): only the fixed ones compose here
+    given = getattr(options, "overrides", ()) or ()
+    overrides = tuple(split_overrides(tuple(given))[0]) if given else ()
     if overrides or located is not None or compose.composes(doc.data):
         try:
             doc = compose.compose(doc, file, overrides, located=located)
@@ -569,8 +568,6 @@ _EXPERIMENT_ROOTS = frozenset(lay.experiment_root for lay in _EXPERIMENT_LAYOUTS
 
 def _over_runner_defaults(doc: Any, file: str) -> Any:
     """DOC read over its runner's defaults file, when it is an experiment of such a runner."""
-    from . import compose
-
     if compose.experiment_root_of(os.path.abspath(file)) not in _EXPERIMENT_ROOTS:
         return doc  # in no runner's experiment folder
     for lay in _EXPERIMENT_LAYOUTS:

@@ -304,6 +304,47 @@ def test_reads_memo_replays_what_the_first_call_read(tmp_path):
     assert first == second and len(first) == 1
 
 
+def test_a_memo_first_asked_with_nothing_recording_still_gives_a_recording_caller_the_facts(tmp_path):
+    """A run without the result cache records nothing (no hashing, no folder listing for a
+    record no one reads); a caller that records and asks for the same answer afterwards gets
+    it worked out again with its facts, from reads.memo and from memo.remembered alike."""
+    from cfgcheck import memo
+
+    f = tmp_path / "data.txt"
+    f.write_text("x")
+    calls = []
+
+    @reads.memo()
+    def look(path):
+        calls.append(path)
+        reads.note_file(path)
+        return len(calls)
+
+    assert not reads.recording_now()
+    assert look(str(f)) == 1 and look(str(f)) == 1  # remembered, with no facts kept
+    with reads.recording() as facts:
+        assert look(str(f)) == 2  # worked out again: the facts were never noted
+    assert len(facts) == 1
+    with reads.recording() as again:
+        assert look(str(f)) == 2  # now served from the memo, facts replayed
+    assert again == facts
+
+    with memo.scope():
+        seen = []
+
+        def compute():
+            seen.append(1)
+            reads.note_file(str(f))
+            return "answer"
+
+        assert memo.remembered("probe", "k", compute) == "answer"
+        with reads.recording() as first:
+            assert memo.remembered("probe", "k", compute) == "answer"
+        with reads.recording() as second:
+            assert memo.remembered("probe", "k", compute) == "answer"
+        assert len(seen) == 2 and len(first) == 1 and first == second
+
+
 # --------------------------------------------------------------------------- byte-identical output
 
 def _all_formats(paths, env, *extra):

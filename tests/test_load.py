@@ -80,6 +80,24 @@ def test_merge_keys_are_not_duplicates():
     assert doc.data["run"] == yaml.safe_load(text)["run"] == {"lr": 1.0e-4, "epochs": 3}
 
 
+@pytest.mark.parametrize("name, text", [
+    ("t.yaml", "a: 1e-4\nb: 'q'\nc: [yes, \"x\"]\nd: {e: 0x1F}\nf: |\n  two\n  lines\n"),
+    ("t.json", '{"a": 1e-4, "b": "q", "c": [true, "x"], "d": {"e": 31}, "f": null}'),
+])
+def test_a_scalars_raw_text_is_its_source_text_whenever_it_is_asked_for(name, text):
+    """The raw text is cut from the document when first asked for: before or after the value is
+    placed, and after the value is moved elsewhere it stays what was written."""
+    doc = load_text(text, name)[0]
+    for path, e in doc.entries.items():
+        if e.kind != "scalar":
+            assert e.raw == ""
+            continue
+        fresh = load_text(text, name)[0].entries[path]
+        fresh.value = type(e.value)(line=1, column=1, start=0, end=0)  # moved before raw was asked
+        assert e.raw == text[e.value.start:e.value.end] == fresh.raw != ""
+    assert doc.entries[("a",)].raw == "1e-4"
+
+
 def test_positions_are_one_based_line_and_column():
     text = "# comment\ntraining:\n  learning_rate: 2.0e-5\n  lora: {r: 16}\n"
     doc = _doc(text)

@@ -186,6 +186,9 @@ def _from_pyproject(text: str) -> dict[str, str]:
 _PIN_NAMES = r"(?:uv|poetry|pdm)\.lock|(?:requirements|constraints)[\w.-]*\.txt|pyproject\.toml|\.git"
 
 
+_REQUIREMENTS = re.compile(r"(requirements|constraints)[\w.-]*\.txt")
+
+
 @reads.memo(maxsize=256)
 def _folder_pins(folder: str) -> tuple[tuple[Pin, ...], bool]:
     """The pins found in one folder, and whether the search stops here (a project root)."""
@@ -193,11 +196,11 @@ def _folder_pins(folder: str) -> tuple[tuple[Pin, ...], bool]:
     found: dict[str, Pin] = {}
     reads.note_names(path, _PIN_NAMES)
     try:
-        names = sorted(p.name for p in path.iterdir())
+        names = sorted(os.listdir(folder))  # the names alone: a folder of configs has many
     except OSError:
         return (), False
     locks = [n for n in names if n in ("uv.lock", "poetry.lock", "pdm.lock")]
-    reqs = [n for n in names if re.fullmatch(r"(requirements|constraints)[\w.-]*\.txt", n)]
+    reqs = [n for n in names if n.startswith(("requirements", "constraints")) and _REQUIREMENTS.fullmatch(n)]
     for name in locks:
         for lib, ver in _from_lock(_read(path / name) or "").items():
             found.setdefault(lib, Pin(lib, ver, str(path / name)))

@@ -35,11 +35,13 @@ def _kept_path(name: str, folder: Path | None) -> Path:
 
 
 def _load_kept(cache: Path, stamp: tuple) -> tuple[bool, Any]:
-    import pickle
-
+    try:  # the C unpickler alone: the pickle module's own import (its tables, a pattern) is not needed to read
+        from _pickle import loads
+    except ImportError:  # pragma: no cover - an interpreter without the C accelerator
+        from pickle import loads
     try:
         with open(cache, "rb") as fh:
-            kept = pickle.load(fh)
+            kept = loads(fh.read())
         if isinstance(kept, tuple) and len(kept) == 3 and kept[0] == _FORMAT and kept[1] == stamp:
             return True, kept[2]
     except Exception:  # noqa: BLE001 - absent, partly written or from another version: rebuild
