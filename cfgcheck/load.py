@@ -195,8 +195,11 @@ class Entry:
     @property
     def raw(self) -> str:
         r = self._raw
-        if r.__class__ is _Lines:
+        if r.__class__ is _Lines or r.__class__ is _JsonPlaces:
             at = self._value
+            if at.__class__ is tuple and len(at) == 1:
+                self._unplaced()
+                at = self._value
             if at.__class__ is Span:
                 start, end = at.start, at.end
             elif self._lines is None:  # a YAML node
@@ -214,12 +217,22 @@ class Entry:
     def value(self) -> Span:
         v = self._value
         if v.__class__ is not Span:
+            if v.__class__ is tuple and len(v) == 1:  # (path,): a JSON entry not placed yet
+                self._unplaced()
+                v = self._value
             v = self._value = self._place(v)
         return v
 
+    def _unplaced(self) -> None:
+        """Where a JSON entry made from the parsed values alone stands (``_JsonPlaces``)."""
+        value, key = self._lines.offsets(self._value[0])
+        self._value = value
+        if self._key is _KEYED:
+            self._key = key
+
     @value.setter
     def value(self, span: Span) -> None:
-        if self._raw.__class__ is _Lines:
+        if self._raw.__class__ is _Lines or self._raw.__class__ is _JsonPlaces:
             self.raw  # cut from where the value stood before it moves
         self._value = span
 
@@ -227,6 +240,9 @@ class Entry:
     def key(self) -> Span | None:
         k = self._key
         if k is not None and k.__class__ is not Span:
+            if k is _KEYED:
+                self._unplaced()
+                k = self._key
             k = self._key = self._place(k)
         return k
 
@@ -851,8 +867,16 @@ def _load_json(text: str, name: str) -> Document:
     import json  # YAML-only runs do not pay for it
 
     body = text[1:] if text.startswith("\ufeff") else text
+    repeated: list = []  # an object that repeats a key (one is enough)
+
+    def members(pairs: list) -> dict:
+        out = dict(pairs)
+        if len(out) != len(pairs):
+            repeated.append(True)
+        return out
+
     try:  # a repeated key: the last value, as here; the scan below reports the repetition
-        data = json.loads(body, parse_constant=_reject_constant)
+        data = json.loads(body, parse_constant=_reject_constant, object_pairs_hook=members)
     except json.JSONDecodeError as exc:
         raise LoadError(f"invalid JSON: {exc.msg}", exc.lineno, exc.colno) from None
     except ValueError as exc:  # NaN/Infinity, or an integer longer than Python reads
@@ -861,7 +885,9 @@ def _load_json(text: str, name: str) -> Document:
     except RecursionError:
         raise LoadError(f"nested more than {MAX_DEPTH} levels deep") from None
     doc = Document(name=name, format="json", data=data)
-    _json_entries(text, doc)
+    if repeated or not _json_unplaced(text, doc):
+        doc.entries.clear()
+        _json_entries(text, doc)  # placed now: the scan reports the repetitions, or the depth
     return doc
 
 
@@ -976,6 +1002,97 @@ def _json_entries(text: str, doc: Document) -> None:
 
 
 _SPAN_OF_TOKEN = operator.methodcaller("span", 1)
+
+# the key of a JSON member not placed yet (its entry's value is then (path,): ``_JsonPlaces``)
+_KEYED = object()
+
+
+class _JsonPlaces(_Lines):
+    """A JSON document's text and parsed values, for entries made from the values alone (their
+    value ``(path,)``, their key ``_KEYED``): the text is scanned for where every value stands
+    when the first position (or source text) is asked for. A lint asks for the few its findings
+    name, and many files have none; the root's own place is known without the scan (the text
+    stripped of white space). It refers to no entry of the document (no cycle to collect)."""
+
+    __slots__ = ("data", "found")
+
+    def __init__(self, text: str, data: Any):
+        super().__init__(text)
+        self.data = data
+        self.found: dict | None = None
+
+    def offsets(self, path: Path_) -> tuple:
+        """(the value's offsets, the key's or None) of the entry at PATH."""
+        found = self.found
+        if found is None:
+            scanned = Document(name="", format="json", data=self.data)
+            _json_entries(self.text, scanned)  # the same scan as a document placed at once
+            found = self.found = scanned.entries
+            self.data = None
+        e = found.get(path)
+        if e is None:  # (not reached: the scan and the values agree on every path)
+            return (0, 0), None
+        return e._value, e._key
+
+
+def _json_unplaced(text: str, doc: Document) -> bool:
+    """Give DOC (valid JSON that repeats no key) an entry for each value, in the order the scan
+    gives them, each placed when it is first asked where it stands (``_JsonPlaces``); False,
+    with the entries half made, for a document nested past the limit (the scan says where)."""
+    places = _JsonPlaces(text, doc.data)
+    entries = doc.entries
+
+    def walk(value: Any, path: Path_, keyed: bool, depth: int) -> None:
+        if depth > MAX_DEPTH:
+            raise _NotAligned
+        cls = value.__class__
+        if cls is dict:
+            depth += 1
+            if depth > MAX_DEPTH and value:
+                raise _NotAligned  # its members are past the limit
+            for k, v in value.items():
+                c = v.__class__
+                child = path + (k,)
+                if c is dict or c is list:
+                    walk(v, child, True, depth)
+                else:
+                    e = Entry((child,), _KEYED, places, "json")
+                    e._lines = places
+                    entries[child] = e
+            e = Entry((path,), _KEYED if keyed else None, "", "json", None, "map")
+        elif cls is list:
+            depth += 1
+            if depth > MAX_DEPTH and value:
+                raise _NotAligned
+            i = 0
+            for v in value:
+                c = v.__class__
+                child = path + (i,)
+                if c is dict or c is list:
+                    walk(v, child, False, depth)
+                else:
+                    e = Entry((child,), None, places, "json")
+                    e._lines = places
+                    entries[child] = e
+                i += 1
+            e = Entry((path,), _KEYED if keyed else None, "", "json", None, "seq")
+        else:
+            e = Entry((path,), None, places, "json")
+        e._lines = places
+        entries[path] = e
+
+    try:
+        walk(doc.data, (), False, 0)
+    except _NotAligned:
+        return False
+    finally:
+        del walk  # (a closure that refers to itself: freed on return, not by the collector)
+    # the root's place needs no scan: the text without the white space around it (the
+    # "not checked" notes of every file stand there)
+    begin = 1 if text.startswith("\ufeff") else 0
+    stripped = text[begin:].lstrip(" \t\n\r")
+    entries[()]._value = (len(text) - len(stripped), len(text.rstrip(" \t\n\r")))
+    return True
 
 
 def _json_entries_scan(text: str, doc: Document) -> None:

@@ -309,3 +309,93 @@ def test_a_key_written_three_times_is_told_against_the_time_before_each_time():
         (("run", "lr"), (4, 3), (5, 3), 2, [3]),
         (("lr",), (7, 1), (8, 1), 0, {"a": 1}),
     ]
+
+
+# --------------------------------------------------------------------------- JSON placed on demand
+
+def _eager_json(text):
+    """The entries of TEXT (valid JSON) as the scan of the text gives them at once."""
+    from cfgcheck import load
+
+    doc = load.Document(name="t.json", format="json", data=json.loads(text.lstrip("\ufeff")))
+    load._json_entries(text, doc)
+    return doc
+
+
+def _same_entries(text, touch_first=None):
+    lazy = load_text(text, "t.json")[0]
+    eager = _eager_json(text)
+    assert list(lazy.entries) == list(eager.entries)  # the same paths, in the same order
+    if touch_first is not None and touch_first in lazy.entries:
+        lazy.entries[touch_first].key  # one entry asked first: the others are placed from the same scan
+    for path, e in lazy.entries.items():
+        assert e._fields() == eager.entries[path]._fields(), path
+
+
+JSON_FORMS = [
+    '{"a": 1, "b": [true, null, "x"], "c": {"d": {"e": -1.5e3}, "f": []}, "g": {}}',
+    '  \n\t{"k": "v"}\n\n',
+    '\ufeff{"bom": [1, 2, {"z": "\\u00e9\\n"}]}',
+    '[1, [2, [3, []]], {"a": [{}]}]',
+    '"just text"',
+    ' 42 ',
+    'null',
+    '{"a": {"b": {"c": {"d": [[[["deep"]]]]}}}}',
+    '{"sp ace": 1, "esc\\"aped": 2, "slash\\/": [3]}',
+    "{" + ", ".join(f'"k{i}": {i}' for i in range(300)) + "}",
+]
+
+
+@pytest.mark.parametrize("text", JSON_FORMS)
+def test_json_entries_placed_on_demand_equal_those_placed_at_once(text):
+    _same_entries(text)
+
+
+@given(st.recursive(st.none() | st.booleans() | st.integers() | st.floats(allow_nan=False, allow_infinity=False)
+                    | st.text(max_size=8),
+                    lambda kids: st.lists(kids, max_size=4) | st.dictionaries(st.text(max_size=6), kids, max_size=4),
+                    max_leaves=30),
+       st.sampled_from([None, 1, 2, "\t"]), st.booleans())
+def test_json_entries_placed_on_demand_equal_those_placed_at_once_generated(value, indent, touch):
+    text = json.dumps(value, indent=indent, ensure_ascii=False)
+    _same_entries(text, touch_first=next(iter(_eager_json(text).entries)) if touch else None)
+
+
+def test_json_root_is_placed_without_scanning_and_the_rest_only_when_asked():
+    doc = load_text('\n  {"a": {"b": 1}, "c": [2]}\n', "t.json")[0]
+    places = doc.entries[("a", "b")]._lines
+    assert (doc.entries[()].value.line, doc.entries[()].value.column) == (2, 3)
+    assert places.found is None  # the root's place needed no scan
+    assert doc.entries[("c", 0)].value.column == 25 and places.found is not None
+    assert doc.entries[("a", "b")].key.column == 10 and doc.entries[("a",)].keyed
+    assert not doc.entries[("c", 0)].keyed
+
+
+def test_json_nested_past_the_limit_or_repeating_a_key_is_scanned_at_once():
+    from cfgcheck.load import MAX_DEPTH
+
+    deep = "[" * (MAX_DEPTH + 1) + "1" + "]" * (MAX_DEPTH + 1)
+    with pytest.raises(LoadError, match="nested more than"):
+        load_text(deep, "t.json")
+    at_limit = "[" * MAX_DEPTH + "1" + "]" * MAX_DEPTH
+    _same_entries(at_limit)
+    doc = load_text('{"a": 1, "b": {"c": 2, "c": 3}}', "t.json")[0]
+    assert [(d.path, d.first.column, d.second.column) for d in doc.duplicates] == [(("b", "c"), 16, 24)]
+    assert doc.data == {"a": 1, "b": {"c": 3}}
+
+
+def test_json_suite_files_place_their_entries_on_demand_as_at_once(shared_dir):
+    suite = shared_dir / "standards" / "json-test-suite"
+    checked = 0
+    for path in sorted(suite.glob("y_*.json")):
+        raw = path.read_bytes()
+        try:
+            text = raw.decode("utf-8")
+            docs = load_text(text, "t.json")
+        except (UnicodeDecodeError, LoadError):
+            continue  # refused the same way whichever way it is placed (the suite tests cover that)
+        if docs[0].duplicates:
+            continue
+        _same_entries(text)
+        checked += 1
+    assert checked > 50  # the suite's valid documents (JSONTestSuite, y_ files)
