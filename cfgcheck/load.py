@@ -28,6 +28,7 @@ import yaml
 
 from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from . import reads
+from .memo import remembered
 
 
 def _libyaml_nests_safely() -> bool:
@@ -487,7 +488,12 @@ def read_source(path: str | Path, limit: int = MAX_FILE_BYTES, what: str = "a co
     p = path if path.__class__ is str and path and not path.endswith(_SEPARATORS) else Path(path)
     try:
         try:
-            st = os.stat(p)  # before opening: a device or a pipe is never opened
+            st = os.lstat(p)  # before opening: a device or a pipe is never opened
+            if stat.S_ISLNK(st.st_mode):
+                st = os.stat(p)  # what the link leads to (FileNotFoundError: to nothing)
+                link = True
+            else:
+                link = False
             if stat.S_ISDIR(st.st_mode):
                 raise LoadError(IS_A_FOLDER)
             if not stat.S_ISREG(st.st_mode):
@@ -528,6 +534,8 @@ def read_source(path: str | Path, limit: int = MAX_FILE_BYTES, what: str = "a co
     except OSError as exc:
         raise LoadError(f"cannot read: {exc.strerror or exc}") from None
     reads.note_bytes(p, raw)  # the bytes used, for the result cache
+    if p.__class__ is str:  # what the rules would look the file up for again (pins.file_kind)
+        remembered("file_kind", p, lambda: (True, link))
     return decode(raw, str(path), limit, what)
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import contextlib
 import json
+import os
 
 import pytest
 
@@ -300,3 +301,28 @@ def test_the_versions_pinned_near_a_config_are_its_pins_in_words(tmp_path):
                 with pytest.raises(TypeError):
                     got["trl"] = ("1", "x")  # shared by the folder's configs: never changed
     assert dict(pins.pinned_versions_near("<text>")) == {} == dict(pins.pinned_versions_near("not-here/x.yaml"))
+
+
+@pytest.mark.skipif(not hasattr(os, "symlink"), reason="no symbolic links here")
+def test_a_linked_config_is_judged_by_the_pins_beside_its_target_whatever_the_run_read_first(tmp_path):
+    """The read of a config says whether it is a link; the rules that look its pins up later
+    in the run take that answer (pins.file_kind), so a link is still judged by the folder it
+    points into, and a copy by its own."""
+    (tmp_path / ".git").mkdir()
+    here, there = tmp_path / "b", tmp_path / "a"
+    here.mkdir()
+    there.mkdir()
+    text = ("model_name_or_path: mistralai/Mistral-7B-v0.1\noutput_dir: out/x\nlearning_rate: 1.0e-4\n"
+            "per_device_train_batch_size: 2\nnum_train_epochs: 3\nmax_seq_length: 1024\n")
+    (there / "train.yaml").write_text(text)
+    (there / "requirements.txt").write_text("trl==1.16.0\n")  # max_seq_length removed in trl 0.20
+    (here / "requirements.txt").write_text("trl==0.12.0\n")  # still accepted there
+    (here / "own.yaml").write_text(text)
+    (here / "link.yaml").symlink_to(there / "train.yaml")
+    for order in (["link.yaml", "own.yaml"], ["own.yaml", "link.yaml"]):
+        files = [str(here / n) for n in order] + [str(there / "train.yaml")]
+        report = api.lint(files, project=None)
+        refused = {os.path.basename(f.file): f.data.get("where") for f in report.findings
+                   if f.rule == "key-not-in-release" and f.key == "max_seq_length"}
+        assert refused == {"link.yaml": f"pinned in {there / 'requirements.txt'}",
+                           "train.yaml": f"pinned in {there / 'requirements.txt'}"}, refused

@@ -216,7 +216,12 @@ def _folder_pins(folder: str) -> tuple[tuple[Pin, ...], bool]:
 
 def file_kind(path: str) -> tuple[bool, bool]:
     """(whether PATH is a file, following a link; whether it is a link), as ``os.path.isfile``
-    and ``os.path.islink`` say, from one look at the disk when PATH is no link."""
+    and ``os.path.islink`` say, from one look at the disk when PATH is no link; once per run
+    (the config's read has said it already: ``load.read_source``)."""
+    return remembered("file_kind", path, lambda: _file_kind(path))
+
+
+def _file_kind(path: str) -> tuple[bool, bool]:
     try:
         mode = os.lstat(path).st_mode
     except (OSError, ValueError):
