@@ -33,10 +33,10 @@ that cannot be found or read leaves the document as written, with the reason
 from __future__ import annotations
 
 import os
-import re
 from pathlib import Path
 from typing import Any
 
+from ._patterns import later
 from ._records import guarded_repr
 from . import load as loadmod, reads
 from .layouts import BASE_FILE_KEYS
@@ -308,7 +308,7 @@ def _nest(layer: _Layer, prefix: tuple) -> _Layer:
     return out
 
 
-_FLOAT = re.compile(r"^[-+]?(?:[0-9][0-9_]*(?:\.[0-9_]*)?|\.[0-9]+)(?:[eE][-+]?[0-9]+)?$")
+_FLOAT = later(r"^[-+]?(?:[0-9][0-9_]*(?:\.[0-9_]*)?|\.[0-9]+)(?:[eE][-+]?[0-9]+)?$")
 
 
 def override_value(raw: str) -> Any:

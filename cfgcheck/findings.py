@@ -13,6 +13,7 @@ from enum import IntEnum
 from types import MappingProxyType
 from typing import Any, Mapping
 
+from ._patterns import later
 from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 
 
@@ -139,7 +140,7 @@ def printable(text: str) -> str:
     return "".join(out)
 
 
-_SURROGATE = re.compile("[\ud800-\udfff]")
+_SURROGATE = later("[\ud800-\udfff]")
 
 
 def json_text(doc: Any, indent: int | None = 2) -> str:
@@ -528,7 +529,7 @@ class FileReport:
     __hash__ = None  # a mutable record: compared by value, not a dict key
 
 
-_UNREAD = re.compile(r"\(([\w-]+)\): not a format cfgcheck reads \(yet\)$")
+_UNREAD = later(r"\(([\w-]+)\): not a format cfgcheck reads \(yet\)$")
 NOT_READ = "not read: "  # how a skipped reason starts for valid input this version does not follow
 NOT_READ_NAMED = 3  # files a summary names among those not read
 

@@ -26,6 +26,7 @@ from typing import Any, Iterable
 
 import yaml
 
+from ._patterns import later
 from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from . import reads
 from .memo import remembered
@@ -573,7 +574,6 @@ _EXP_NO_DOT = re.compile(r"^[-+]?(?:[0-9][0-9_]*)(?:\.[0-9_]*)?[eE][-+]?[0-9]+$"
 _CORE_FLOAT = re.compile(r"^[-+]?(?:\.[0-9]+|[0-9]+(?:\.[0-9]*)?)(?:[eE][-+]?[0-9]+)?$")
 # a quick test that passes every text _EXP_NO_DOT matches (a digit, an e, nothing but digits after)
 _MAYBE_EXP = re.compile(r"[-+]?[0-9][0-9_.]*[eE]").match
-_CORE_INT = re.compile(r"^[-+]?[0-9]+$")
 _WORD_BOOL = MappingProxyType({"yes": True, "no": False, "on": True, "off": False})
 _STD_TAGS = frozenset({
     "tag:yaml.org,2002:str",
@@ -854,8 +854,8 @@ class _YamlBuilder:
 # --------------------------------------------------------------------------- JSON
 
 # strings first, so that a word inside a string is never taken for the token
-_JSON_CONSTANT = re.compile(r'"(?:[^"\\]|\\.)*"|(-?Infinity|NaN)')
-_JSON_LONG_INT = re.compile(r'"(?:[^"\\]|\\.)*"|(-?[0-9]{4000,})')
+_JSON_CONSTANT = later(r'"(?:[^"\\]|\\.)*"|(-?Infinity|NaN)')
+_JSON_LONG_INT = later(r'"(?:[^"\\]|\\.)*"|(-?[0-9]{4000,})')
 
 
 def _json_token_offset(text: str, why: str) -> int:
@@ -927,7 +927,7 @@ class _Lines:
 
 # the tokens of JSON text: a string, an opening or closing bracket, a number or word; what lies
 # between them (white space, ':' and ',') is passed over
-_JSON_TOKEN = re.compile(
+_JSON_TOKEN = later(
     r'("[^"\\]*(?:\\.[^"\\]*)*")|([{[])|([}\]])'
     r"|(-?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?(?:[eE][-+]?[0-9]+)?|true|false|null)",
     re.S)

@@ -9,6 +9,7 @@ import os
 import re
 from pathlib import Path
 
+from ._patterns import later
 from .findings import printable
 
 YAML_NAME = "cfgcheck.yaml"
@@ -58,7 +59,7 @@ def find_file(start: str | Path | None = None) -> Path | None:
     return None
 
 
-_TABLE_LINE = re.compile(r"^\s*\[\[?\s*tool\s*\.\s*cfgcheck\s*[\].]", re.M)
+_TABLE_LINE = later(r"^\s*\[\[?\s*tool\s*\.\s*cfgcheck\s*[\].]", re.M)
 
 
 def _mentions_table(path: Path) -> bool:

@@ -10,6 +10,7 @@ import re
 from types import MappingProxyType
 from typing import Any
 
+from ._patterns import later
 from ._records import guarded_repr
 from .findings import MAX_MAGNITUDE, too_large
 from .layouts import (BASE_FILE_KEYS, BY_NAME, FIELD_TYPES, LAYOUTS, METHOD_WORDS, NOT_TRAINING,
@@ -727,7 +728,7 @@ _AS_WRITTEN: MappingProxyType[str, frozenset] = MappingProxyType({
 })
 
 
-_INTERP = re.compile(r"\$\{([^${}]+)\}")
+_INTERP = later(r"\$\{([^${}]+)\}")
 
 
 def resolve_interpolation(data: Any, written: Any, depth: int = 0) -> tuple[bool, Any]:

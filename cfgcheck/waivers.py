@@ -15,20 +15,20 @@ a rule, file globs, an optional key and a reason; those are matched in ``apply``
 
 from __future__ import annotations
 
-import re
 from typing import Iterable
 
+from ._patterns import later
 from ._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .findings import Finding
 from .load import Document, Span
 
 MARK = "cfgcheck:"
-_VERB = re.compile(r"^cfgcheck:\s*(?P<verb>[A-Za-z-]*)\s*(?P<rest>.*)$")
-_RULES_AND_REASON = re.compile(
+_VERB = later(r"^cfgcheck:\s*(?P<verb>[A-Za-z-]*)\s*(?P<rest>.*)$")
+_RULES_AND_REASON = later(
     r"^(?P<rules>[a-z0-9][a-z0-9-]*(?:\s*,\s*[a-z0-9][a-z0-9-]*)*)\s*(?:because\b\s*(?P<reason>.*))?$"
 )
-_SPECIAL = re.compile(r"[#'\"\[{|>]")
-_BLOCK_START = re.compile(r"(?:^|[:?-]\s)\s*(?:[&!][^\s]*\s+)*[|>][1-9+-]{0,2}$")
+_SPECIAL = later(r"[#'\"\[{|>]")
+_BLOCK_START = later(r"(?:^|[:?-]\s)\s*(?:[&!][^\s]*\s+)*[|>][1-9+-]{0,2}$")
 
 
 class Waiver:

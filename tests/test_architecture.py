@@ -9,7 +9,7 @@ PKG = Path(__file__).resolve().parents[1] / "cfgcheck"
 
 # Lower number = lower layer. A module may import only modules of its own layer or below.
 LAYERS = {
-    "_records": 0, "findings": 0, "load": 0, "knowledge": 0, "memo": 0, "reads": 0, "pipes": 0, "cache": 0,
+    "_records": 0, "_patterns": 0, "findings": 0, "load": 0, "knowledge": 0, "memo": 0, "reads": 0, "pipes": 0, "cache": 0,
     "layouts": 1, "schedule": 1, "waivers": 1,
     "view": 2, "catalogue": 2, "defaults": 2, "scripts": 0, "scriptfiles": 0,
     "checks": 3, "plan": 3, "links": 3, "parallel": 3, "compose": 3, "sweep": 3, "run": 3,

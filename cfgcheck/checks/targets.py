@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import math
-import re
 from types import MappingProxyType
 
 from ..knowledge.models import UnsupportedFamily, linear_modules, target_names as model_target_names
+from .._patterns import later
 from . import ADAPTER, check
 
 _ALL_WORDS = frozenset({"all-linear", "all"})  # PEFT's "all-linear"; LLaMA-Factory's lora_target: all
@@ -17,7 +17,7 @@ _EMBEDDINGS = frozenset({"embed_tokens", "lm_head", "wte", "embed_out", "word_em
 # names other libraries give the Llama-family projections (torchtune / Meta reference code)
 _OTHER_LIBRARY_NAMES = MappingProxyType({"output_proj": "o_proj", "w1": "gate_proj", "w3": "up_proj", "w2": "down_proj",
                         "wq": "q_proj", "wk": "k_proj", "wv": "v_proj", "wo": "o_proj"})
-_REGEX_CHARS = re.compile(r"[\\^$*+?()\[\]{}|]")
+_REGEX_CHARS = later(r"[\\^$*+?()\[\]{}|]")
 
 
 def listed_targets(view, ctx=None) -> tuple[list[str] | None, object]:

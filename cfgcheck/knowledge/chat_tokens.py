@@ -16,6 +16,7 @@ from __future__ import annotations
 import re
 from types import MappingProxyType
 
+from .._patterns import later
 from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 
 
@@ -163,7 +164,7 @@ VOCABULARIES: tuple[Vocabulary, ...] = (
 _MARKER = re.compile(r"<\|[A-Za-z0-9_]+\|>|<[a-z_]+_of_turn>")
 
 
-_MARKER_TOKEN = re.compile(r"^<\|?/?[A-Za-z0-9_.:-]+\|?>$")
+_MARKER_TOKEN = later(r"^<\|?/?[A-Za-z0-9_.:-]+\|?>$")
 
 
 def marker_shaped(token: str) -> bool:

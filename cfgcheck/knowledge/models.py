@@ -36,6 +36,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Iterable
 
+from .._patterns import later
 from .._records import _frozen_delattr, _frozen_setattr, _setattr, replaced, guarded_repr
 from .. import reads
 
@@ -562,7 +563,7 @@ _QUANT_SUFFIXES = (
 )
 _DTYPE_EXPORT = frozenset({"float16", "bfloat16", "float32"})
 # Tokens that say nothing about the shape (an organisation-like prefix, file or checkpoint words)
-_VERSION_TOKEN = re.compile(r"v\d+(?:\.\d+)*")
+_VERSION_TOKEN = later(r"v\d+(?:\.\d+)*")
 _NEUTRAL_TOKENS = frozenset({"meta", "hf", "base", "pt", "model", "checkpoints", "checkpoint", "final", "latest", "main"})
 
 
@@ -728,7 +729,7 @@ def _match_catalogue(ref: str) -> Architecture | None:
     return None
 
 
-_SIZE_TOKEN = re.compile(r"\d+(?:\.\d+)?[bm]|\d+x\d+b|a\d+(?:\.\d+)?b|small|medium|large|xl|mini|gpt2")
+_SIZE_TOKEN = later(r"\d+(?:\.\d+)?[bm]|\d+x\d+b|a\d+(?:\.\d+)?b|small|medium|large|xl|mini|gpt2")
 
 
 # ---------------------------------------------------------------------------------------------

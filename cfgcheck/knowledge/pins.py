@@ -24,6 +24,7 @@ from functools import lru_cache
 from pathlib import Path
 from types import MappingProxyType
 
+from .._patterns import later
 from .._records import _frozen_delattr, _frozen_setattr, _frozen_setstate, _setattr, guarded_repr
 from .. import reads
 from ..findings import OptionError
@@ -32,7 +33,7 @@ from ..memo import remembered
 LIBRARIES = ("transformers", "trl", "peft", "deepspeed", "accelerate")
 _MAX_BYTES = 4 * 1024 * 1024
 _MAX_UP = 8
-_REQ = re.compile(r"^\s*([A-Za-z0-9][A-Za-z0-9._-]*)\s*(?:\[[^\]]*\])?\s*===?\s*([0-9][0-9A-Za-z.+!-]*)\s*(?:[;#].*)?$")
+_REQ = later(r"^\s*([A-Za-z0-9][A-Za-z0-9._-]*)\s*(?:\[[^\]]*\])?\s*===?\s*([0-9][0-9A-Za-z.+!-]*)\s*(?:[;#].*)?$")
 
 
 class Pin:
@@ -186,7 +187,7 @@ def _from_pyproject(text: str) -> dict[str, str]:
 _PIN_NAMES = r"(?:uv|poetry|pdm)\.lock|(?:requirements|constraints)[\w.-]*\.txt|pyproject\.toml|\.git"
 
 
-_REQUIREMENTS = re.compile(r"(requirements|constraints)[\w.-]*\.txt")
+_REQUIREMENTS = later(r"(requirements|constraints)[\w.-]*\.txt")
 
 
 @reads.memo(maxsize=256)
