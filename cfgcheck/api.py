@@ -114,36 +114,39 @@ def _targets(paths: list, project: Any, given: dict[str, Any], scripts: bool = F
     Launch scripts (``.sh``) under the paths pair the configs they start with their launch
     context (``Options.script``); with ``scripts`` the scripts themselves are listed too."""
     from ._records import replaced
-    from .scriptfiles import find_scripts
+    from .load import CONFIG_SUFFIXES, walk_paths
+    from .scriptfiles import SCRIPT_SUFFIXES, find_scripts, scripts_of
 
     proj = _project(project, paths)
     if proj is None:
         opts = Options(**{k: v for k, v in given.items() if v is not None})
-        files = [(f, None) for f in engine.expand_paths(paths)]
+        # one walk finds the configs and the launch scripts among them
+        walked = walk_paths(paths, CONFIG_SUFFIXES + SCRIPT_SUFFIXES)
+        files = [(f, None) for f, named in walked if named or f.lower().endswith(CONFIG_SUFFIXES)]
+        found = scripts_of(walked)
         base = lambda file: opts  # noqa: E731
-        roots = paths
     else:
         roots = paths or [os.path.relpath(proj.root)]
         files = proj.expand(roots)
         base = lambda file: proj.options_for(file, given)  # noqa: E731
-    found = find_scripts(roots)
+        found = find_scripts(roots)
     if found:
         from .scripts import pairings
     paired = pairings(found) if found else {}
 
     def options_for(file: str) -> Options:
         opts = base(file)
+        if not paired:
+            return opts
         sl = paired.get(os.path.normpath(os.path.abspath(file)))
         if sl is not None and opts.script is None:
             opts = replaced(opts, script=sl, script_linted=scripts)
         return opts
 
-    if scripts:
+    if scripts and found:
         listed = {os.path.normpath(f) for f, _ in files}
         files = files + [(s, None) for s in found if os.path.normpath(s) not in listed]
     else:
-        from .scriptfiles import SCRIPT_SUFFIXES
-
         files = [(f, skip) for f, skip in files if not f.lower().endswith(SCRIPT_SUFFIXES)]
     return files, options_for, proj
 

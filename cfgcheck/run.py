@@ -13,6 +13,7 @@ Every value that does not come from the file itself is a ``Field`` in ``view.sup
 
 from __future__ import annotations
 
+import functools
 import os
 from pathlib import Path
 from types import MappingProxyType
@@ -371,6 +372,13 @@ def _apply_defaults(view: RunView) -> None:
             _supply(view, d.field, value, "default", d.note)
 
 
+@functools.cache  # imported on first use, once: a relative import inside a function costs a lookup per call
+def _repo_keys_module():
+    from .knowledge import repo_keys
+
+    return repo_keys
+
+
 def _own_reader(view: RunView, file: str, options: Any = None) -> bool:
     """A trainer-style file whose repository parses its configs only into its own argument
     classes (no transformers or TRL class among them): TrainingArguments' defaults (batch 8,
@@ -379,11 +387,10 @@ def _own_reader(view: RunView, file: str, options: Any = None) -> bool:
     Returns whether that is so."""
     if view.layout is None or not view.layout.trainer_defaults:
         return False
-    from .knowledge.repo_keys import keys_for
-
-    readers = list(getattr(options, "readers", ()) or ())
+    keys_for = _repo_keys_module().keys_for
+    readers = getattr(options, "readers", ()) or ()
     reader = getattr(getattr(options, "script", None), "reader", None)
-    repo = keys_for(file, tuple(readers + ([reader] if reader else [])))
+    repo = keys_for(file, tuple(readers) + (reader,) if reader else tuple(readers))
     if repo is None or repo.reader_libraries is None or repo.reader_libraries:
         return False
     from ._records import replaced

@@ -17,5 +17,10 @@ SCRIPT_SUFFIXES = (".sh", ".bash")
 
 def find_scripts(paths: Iterable[str | Path]) -> list[str]:
     """Shell scripts named or inside the folders (hidden folders skipped), sorted."""
-    return [f for f, named in walk_paths(paths, SCRIPT_SUFFIXES)
+    return scripts_of(walk_paths(paths, SCRIPT_SUFFIXES))
+
+
+def scripts_of(walked: list[tuple[str, bool]]) -> list[str]:
+    """``find_scripts`` of what ``walk_paths`` found with the script suffixes among its own."""
+    return [f for f, named in walked
             if f.lower().endswith(SCRIPT_SUFFIXES) and (not named or os.path.isfile(f))]
