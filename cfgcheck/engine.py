@@ -473,6 +473,84 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport,
     _apply_waivers(waivers or [], paths, options, report, start)
 
 
+class Batch:
+    """Files linted together: their rules run rule by rule across the files' views
+    (``lint_views``), then each report is completed, in the files' order. A run of many configs
+    keeps each rule's code and tables in the processor's caches while it goes over the batch,
+    instead of going through every rule again for each file (about a sixth less time over the
+    benchmark corpus). What each file gets is what ``lint_view`` file by file gives it."""
+
+    __slots__ = ("jobs", "ends")
+
+    def __init__(self) -> None:
+        self.jobs: list[tuple] = []  # (view, options, file, report, waivers): lint_view's arguments
+        self.ends: list[tuple] = []  # _documents_linted's arguments, once the rules have run
+
+    def run(self) -> None:
+        jobs, ends = self.jobs, self.ends
+        self.jobs, self.ends = [], []
+        lint_views(jobs)
+        for end in ends:
+            _documents_linted(*end)
+
+
+def lint_views(jobs: list[tuple]) -> None:
+    """``lint_view(view, options, file, report, waivers)`` for each job, the jobs' rules taken
+    rule by rule across them: each job's rules run in its own order (its plan, a part of the
+    selected rules' order), each into its own report, so every report ends as ``lint_view``
+    alone would leave it. A job's report must be its own (one view a report). Jobs whose
+    options select other rules run in groups of their own."""
+    groups: dict[int, list] = {}
+    for job in jobs:
+        view, options, file, report, waivers = job
+        try:
+            plan = _plan(options, view, declared() if view.run is not None else None)
+            rules, active = _selected(options)
+            findings = report.findings
+            targets = {w.target for w in waivers or () if w.target}
+            paths = waivermod.target_paths(view.doc, targets) if targets else {}
+            ctx = Context(view, plan[0][0] if plan else None, options, findings, file, waivers=waivers,
+                          active=active, waiver_paths=paths)
+        except Exception as exc:  # as lint_view's caller would record it: the document's boundary
+            if options.debug:
+                raise
+            report.internal.append(internal_error(file, None, exc))
+            continue
+        groups.setdefault(id(rules), [rules, []])[1].append([ctx, plan, 0, len(findings), job, paths])
+    for rules, items in groups.values():
+        for rule in rules:
+            last = rule.stage == "last"
+            for item in items:
+                plan, at = item[1], item[2]
+                if at >= len(plan) or plan[at][0] is not rule:
+                    continue
+                item[2] = at + 1
+                ctx, fn = item[0], plan[at][1]
+                ctx.rule = rule
+                ctx._thresholds = ctx._judged_once = None
+                ctx._model_assumption = ""
+                findings = ctx._sink
+                if last:
+                    ctx.earlier = findings[item[3]:]
+                mark = len(findings)
+                try:
+                    fn(ctx)
+                except Exception as exc:  # a bug in a rule: report it and go on with the others
+                    options, file, report = item[4][1], item[4][2], item[4][3]
+                    if options.debug:
+                        raise
+                    del findings[mark:]
+                    report.internal.append(internal_error(file, rule.id, exc))
+        for item in items:
+            view, options, file, report, waivers = item[4]
+            try:
+                _apply_waivers(waivers or [], item[5], options, report, item[3])
+            except Exception as exc:
+                if options.debug:
+                    raise
+                report.internal.append(internal_error(file, None, exc))
+
+
 def internal_error(file: str, rule: str | None, exc: BaseException) -> InternalError:
     """A bug in cfgcheck as a record: the exception, its message and where it was raised."""
     import traceback
@@ -520,9 +598,11 @@ _FINDING_ORDER = attrgetter("document", "line", "column", "rule")  # how a file'
 
 def lint_documents(docs: list[Document], file: str, options: Options,
                    layout: str | None = None, text: str | None = None,
-                   located_in: str | None = None) -> FileReport:
+                   located_in: str | None = None, batch: "Batch | None" = None) -> FileReport:
     """Lint the documents of FILE. ``located_in``: keep only the findings located in that file
-    (a launch script lints the runs of the configs it overrides for the findings on its lines)."""
+    (a launch script lints the runs of the configs it overrides for the findings on its lines).
+    ``batch``: a file of one plain document leaves its rules to the batch (``Batch``), and the
+    report is complete once ``batch.run()`` has run; any other file is linted at once."""
     report = FileReport(file=file)
     reasons = []
     waivers = waivermod.scan(text) if text and docs and docs[0].format == "yaml" else []
@@ -573,11 +653,21 @@ def lint_documents(docs: list[Document], file: str, options: Options,
                 continue
             report.layout = report.layout or view.layout.name
             mine = owners.get(doc.index, []) if len(docs) > 1 else waivers
+            if batch is not None and len(docs) == 1:
+                batch.jobs.append((view, options, file, report, mine))
+                batch.ends.append((report, reasons, file, options, located_in))
+                return report  # completed by batch.run()
             lint_view(view, options, file, report, mine)
         except Exception as exc:
             if options.debug:
                 raise
             report.internal.append(internal_error(file, None, exc))
+    return _documents_linted(report, reasons, file, options, located_in)
+
+
+def _documents_linted(report: FileReport, reasons: list, file: str, options: Options,
+                      located_in: str | None) -> FileReport:
+    """The end of ``lint_documents``, once the rules have run on every document."""
     if not report.layout and not report.internal:
         report.skipped = reasons[0] if reasons else "empty file"
     script = options.script
@@ -639,21 +729,22 @@ def _composed(doc: Document, file: str, options: Options, report: FileReport) ->
 
 
 def lint_text(text: str, name: str = "<text>", options: Options | None = None,
-              fmt: str | None = None, layout: str | None = None) -> FileReport:
+              fmt: str | None = None, layout: str | None = None, batch: Batch | None = None) -> FileReport:
+    """``batch``: as ``lint_documents`` (the report is complete after ``batch.run()``)."""
     options = options or Options()
     with memo.collector_paused():
-        return _lint_text(text, name, options, fmt, layout)
+        return _lint_text(text, name, options, fmt, layout, batch)
 
 
 def _lint_text(text: str, name: str, options: Options, fmt: str | None,
-               layout: str | None) -> FileReport:
+               layout: str | None, batch: Batch | None = None) -> FileReport:
     try:
         try:
             docs = loadmod.load_text(text, name, fmt)
         except LoadError as exc:
             return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
                                                               column=exc.column, reason=exc.reason))
-        return lint_documents(docs, name, options, layout, text)
+        return lint_documents(docs, name, options, layout, text, batch=batch)
     except Exception as exc:  # the crash boundary of one file: a bug in cfgcheck, exit 3
         if options.debug:
             raise
@@ -752,7 +843,8 @@ def _lint_overridden_configs(sl, options: Options, report: FileReport) -> bool:
     return done
 
 
-def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
+def lint_file(path: str | Path, options: Options | None = None, batch: Batch | None = None) -> FileReport:
+    """``batch``: as ``lint_documents`` (the report is complete after ``batch.run()``)."""
     options = options or Options()
     name = str(path)
     if name.lower().endswith(SCRIPT_SUFFIXES) and not os.path.isdir(path):
@@ -769,7 +861,7 @@ def lint_file(path: str | Path, options: Options | None = None) -> FileReport:
                     exc = unlistable
             return FileReport(file=name, problem=InputProblem(file=name, line=exc.line,
                                                               column=exc.column, reason=exc.reason))
-        return lint_text(src.text, name, options)
+        return lint_text(src.text, name, options, batch=batch)
     except Exception as exc:  # the crash boundary of one file (reading it, here)
         if options.debug:
             raise
@@ -845,9 +937,10 @@ def views_let_go() -> Iterator[None]:
 
 def lint_files(pairs: list[tuple[str, Options]], *, jobs: int | str = 1,
                keep_views: bool = True, cache: Any = None) -> Iterator[FileReport]:
-    """(file, options) pairs -> their reports, in order, each as soon as it is ready. ``jobs``:
-    a number of processes, or "auto" (the usable CPUs; serial for a short list of files). What
-    lies around the files (repository roots, pinned releases) is looked up once per folder.
+    """(file, options) pairs -> their reports, in order, each as soon as it is ready (serially,
+    BATCH_FILES files at a time: ``Batch``). ``jobs``: a number of processes, or "auto" (the
+    usable CPUs; serial for a short list of files). What lies around the files (repository
+    roots, pinned releases) is looked up once per folder.
 
     ``cache``: a ``cache.Store``; a file whose stored report still holds is not linted again
     (such a report has no views), the others are linted and stored."""
@@ -862,11 +955,21 @@ def lint_files(pairs: list[tuple[str, Options]], *, jobs: int | str = 1,
             if workers > 1:
                 yield from lint_files_parallel(pairs, workers, lint_file=lint_file, prepare=active_rules)
                 return
-        for path, opts in pairs:
-            report = lint_file(path, opts)
-            if not keep_views:
-                drop_views(report)
-            yield report
+        for start in range(0, len(pairs), BATCH_FILES):
+            batch = Batch()
+            with memo.collector_paused():  # as lint_text pauses it for one file
+                reports = [lint_file(path, opts, batch) for path, opts in pairs[start:start + BATCH_FILES]]
+                batch.run()
+                if not keep_views:  # freed before the collector runs again: it never walks them
+                    for report in reports:
+                        drop_views(report)
+            yield from reports
+
+
+# files linted together (``Batch``): measured over the 2,000 configs of bench/run.py, in one
+# process, 8 files a batch 0.45 s, 32 0.41 s, 128 0.41 s against 0.50 s file by file; a batch
+# holds its files' documents and views until its rules have run
+BATCH_FILES = 32
 
 
 # --------------------------------------------------------------------------- with the result cache

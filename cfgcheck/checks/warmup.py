@@ -23,23 +23,14 @@ def _num(f):
     return f.value
 
 
-# the schedule of the view the rules are looking at: several rules of one file ask for it in turn
-# (view, its opened run, how many values it was supplied, gpus, rows, schedule); the Schedule is
-# only read by the rules
-_LAST_SCHEDULE_CACHE: list = [None]
-
-
 def run_steps(ctx):
-    """(total optimizer steps or None, schedule, how the number was found)."""
+    """(total optimizer steps or None, schedule, how the number was found). Several rules of a
+    view ask for the schedule in turn: it is worked out once per view (for its opened run, the
+    values it was supplied, the GPUs and rows); the Schedule is only read by the rules."""
     gpus, _ = ctx.num_gpus
     view, rows = ctx.view, ctx.options.rows
-    last = _LAST_SCHEDULE_CACHE[0]
-    if last is not None and last[0] is view and last[1] is view.run and last[2] == len(view.supplied) \
-            and last[3] == gpus and last[4] == rows:
-        sched = last[5]
-    else:
-        sched = derive_for(view, gpus=gpus, rows=rows)
-        _LAST_SCHEDULE_CACHE[0] = (view, view.run, len(view.supplied), gpus, rows, sched)
+    sched = ctx.once(("schedule", id(view.run), len(view.supplied), gpus, rows),
+                     lambda: derive_for(view, gpus=gpus, rows=rows))
     if sched.total_steps is None:
         return None, sched, ""
     return sched.total_steps, sched, how_text(sched)
