@@ -15,7 +15,7 @@ from typing import Any, Callable, Hashable, Iterable, Iterator
 
 from ._records import guarded_repr
 from . import load as loadmod
-from . import memo
+from . import memo, reads
 from . import run as runmod, sweep
 from .catalogue import Rule, load_catalogue
 from .checks import Table, all_checks, declared
@@ -483,7 +483,9 @@ class Batch:
     __slots__ = ("jobs", "ends")
 
     def __init__(self) -> None:
-        self.jobs: list[tuple] = []  # (view, options, file, report, waivers): lint_view's arguments
+        # (view, options, file, report, waivers): lint_view's arguments, and the record of reads
+        # the file's rules note what they read into (None: none)
+        self.jobs: list[tuple] = []
         self.ends: list[tuple] = []  # _documents_linted's arguments, once the rules have run
 
     def run(self) -> None:
@@ -502,7 +504,7 @@ def lint_views(jobs: list[tuple]) -> None:
     options select other rules run in groups of their own."""
     groups: dict[int, list] = {}
     for job in jobs:
-        view, options, file, report, waivers = job
+        view, options, file, report, waivers, _record = job
         try:
             plan = _plan(options, view, declared() if view.run is not None else None)
             rules, active = _selected(options)
@@ -533,6 +535,8 @@ def lint_views(jobs: list[tuple]) -> None:
                 if last:
                     ctx.earlier = findings[item[3]:]
                 mark = len(findings)
+                record = item[4][5]
+                token = reads.resume(record) if record is not None else None
                 try:
                     fn(ctx)
                 except Exception as exc:  # a bug in a rule: report it and go on with the others
@@ -541,8 +545,11 @@ def lint_views(jobs: list[tuple]) -> None:
                         raise
                     del findings[mark:]
                     report.internal.append(internal_error(file, rule.id, exc))
+                finally:
+                    if token is not None:
+                        reads.pause(token)
         for item in items:
-            view, options, file, report, waivers = item[4]
+            view, options, file, report, waivers, _record = item[4]
             try:
                 _apply_waivers(waivers or [], item[5], options, report, item[3])
             except Exception as exc:
@@ -654,7 +661,8 @@ def lint_documents(docs: list[Document], file: str, options: Options,
             report.layout = report.layout or view.layout.name
             mine = owners.get(doc.index, []) if len(docs) > 1 else waivers
             if batch is not None and len(docs) == 1:
-                batch.jobs.append((view, options, file, report, mine))
+                # the record of reads the file is read into (the result cache's) takes what its rules read
+                batch.jobs.append((view, options, file, report, mine, reads.active_record()))
                 batch.ends.append((report, reasons, file, options, located_in))
                 return report  # completed by batch.run()
             lint_view(view, options, file, report, mine)
@@ -976,8 +984,6 @@ BATCH_FILES = 32
 
 def lint_file_recorded(path: str | Path, options: Options | None = None) -> tuple[FileReport, dict]:
     """``lint_file`` and the facts about the disk its report rests on (reads.py)."""
-    from . import reads
-
     with reads.recording() as facts:
         report = lint_file(path, options)
     return report, facts
@@ -1007,7 +1013,22 @@ def _lint_files_cached(pairs: list[tuple[str, Options]], jobs: int | str, keep_v
                                               prepare=active_rules):
                 yield report, report.__dict__.pop("_reads", {})
 
-    for report in lint_cached(pairs, store, lint_file_recorded, many):
+    for report in lint_cached(pairs, store, lint_file_recorded, many or _lint_batches_recorded):
         if not keep_views:
             drop_views(report)
         yield report
+
+
+def _lint_batches_recorded(misses: list[tuple[str, Options]]) -> Iterator[tuple[FileReport, dict]]:
+    """``lint_file_recorded`` of each (file, options), BATCH_FILES files at a time (``Batch``):
+    each file's rules note what they read into the record its read began."""
+    for start in range(0, len(misses), BATCH_FILES):
+        batch = Batch()
+        done = []
+        with memo.collector_paused():
+            for path, opts in misses[start:start + BATCH_FILES]:
+                with reads.recording() as facts:
+                    report = lint_file(path, opts, batch)
+                done.append((report, facts))
+            batch.run()
+        yield from done

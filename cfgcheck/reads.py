@@ -225,6 +225,23 @@ def note_walk(path: Any) -> None:
             facts[key] = listing(path)
 
 
+def resume(facts: Facts | None) -> Any:
+    """Make FACTS (a record ``recording()`` gave, or None for none) the active record again;
+    returns the token ``pause`` takes back. A batch of files runs each file's rules inside the
+    record that file was read into."""
+    return _RECORD.set(facts)
+
+
+def pause(token: Any) -> None:
+    """End what ``resume`` began."""
+    _RECORD.reset(token)
+
+
+def active_record() -> Facts | None:
+    """The record facts are noted into now, or None."""
+    return _RECORD.get()
+
+
 def recording_now() -> bool:
     """Whether a record is active (the facts noted now would be kept)."""
     return _RECORD.get() is not None

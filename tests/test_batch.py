@@ -106,3 +106,24 @@ def test_a_batch_holds_its_files_until_its_rules_have_run_and_no_longer(tmp_path
         assert report.findings == sorted(report.findings, key=engine._FINDING_ORDER)
         seen.append(report.file)
     assert seen == files
+
+
+def test_a_batch_notes_each_files_reads_into_that_files_own_record(tmp_path, monkeypatch):
+    """With the result cache, what a file's rules read (pins beside it, its repository, its
+    model) goes into the record of that file, as when the file is linted alone."""
+    monkeypatch.setattr(engine, "BATCH_FILES", 4)
+    files = _mixed_files(tmp_path)
+    (tmp_path / "requirements.txt").write_text("trl==0.12.0\ntransformers==4.44.0\n")
+    sub = tmp_path / "other"
+    sub.mkdir()
+    (sub / "train.yaml").write_text("model_name_or_path: Qwen/Qwen2.5-0.5B\nmax_seq_length: 512\nlora_r: 8\n")
+    files.append(str(sub / "train.yaml"))
+    pairs = [(f, Options()) for f in files]
+    with memo.scope():
+        together = list(engine._lint_batches_recorded(pairs))
+    with memo.scope():
+        alone = [engine.lint_file_recorded(p, o) for p, o in pairs]
+    assert [_summary(r) for r, _ in together] == [_summary(r) for r, _ in alone]
+    assert [facts for _, facts in together] == [facts for _, facts in alone]
+    pins = str(tmp_path / "requirements.txt")
+    assert any(k[1] == pins for _, facts in together for k in facts)  # a rule's read, noted
