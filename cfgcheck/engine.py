@@ -961,17 +961,23 @@ def lint_files(pairs: list[tuple[str, Options]], *, jobs: int | str = 1,
 
             workers = worker_count(jobs, len(pairs))
             if workers > 1:
-                yield from lint_files_parallel(pairs, workers, lint_file=lint_file, prepare=active_rules)
+                yield from lint_files_parallel(pairs, workers, lint_file=lint_file, prepare=active_rules,
+                                               lint_chunk=lint_together)
                 return
         for start in range(0, len(pairs), BATCH_FILES):
-            batch = Batch()
-            with memo.collector_paused():  # as lint_text pauses it for one file
-                reports = [lint_file(path, opts, batch) for path, opts in pairs[start:start + BATCH_FILES]]
-                batch.run()
-                if not keep_views:  # freed before the collector runs again: it never walks them
-                    for report in reports:
-                        drop_views(report)
-            yield from reports
+            yield from lint_together(pairs[start:start + BATCH_FILES], keep_views)
+
+
+def lint_together(pairs: list[tuple[str, Options]], keep_views: bool = False) -> list[FileReport]:
+    """``lint_file`` of each (file, options) pair, the files linted together (one ``Batch``)."""
+    batch = Batch()
+    with memo.collector_paused():  # as lint_text pauses it for one file
+        reports = [lint_file(path, opts, batch) for path, opts in pairs]
+        batch.run()
+        if not keep_views:  # freed before the collector runs again: it never walks them
+            for report in reports:
+                drop_views(report)
+    return reports
 
 
 # files linted together (``Batch``): measured over the 2,000 configs of bench/run.py, in one
@@ -1010,13 +1016,22 @@ def _lint_files_cached(pairs: list[tuple[str, Options]], jobs: int | str, keep_v
                 yield from (lint_file_recorded(path, opts) for path, opts in misses)
                 return
             for report in lint_files_parallel(misses, workers, lint_file=_lint_recorded_in_worker,
-                                              prepare=active_rules):
+                                              prepare=active_rules, lint_chunk=_lint_together_recorded):
                 yield report, report.__dict__.pop("_reads", {})
 
     for report in lint_cached(pairs, store, lint_file_recorded, many or _lint_batches_recorded):
         if not keep_views:
             drop_views(report)
         yield report
+
+
+def _lint_together_recorded(pairs: list[tuple[str, Options]]) -> list[FileReport]:
+    """For a process pool: ``_lint_recorded_in_worker`` of each pair, the files linted together."""
+    out = []
+    for report, facts in _lint_batches_recorded(pairs):
+        report._reads = facts  # type: ignore[attr-defined]
+        out.append(report)
+    return out
 
 
 def _lint_batches_recorded(misses: list[tuple[str, Options]]) -> Iterator[tuple[FileReport, dict]]:

@@ -60,6 +60,16 @@ _PRELOAD = ("cfgcheck.engine", "cfgcheck.checks")  # what a fork server imports 
 # handed to forked workers, which inherit them (held only while a pool starts)
 _INHERITED_CACHE: list[tuple[str, Any]] | None = None  # the pairs a forked worker reads by index
 _LINT_CACHE: Callable[[str, Any], Any] | None = None
+_LINT_CHUNK_CACHE: Callable[[list], list] | None = None
+
+
+def _linted(lint_file: Callable[[str, Any], Any], lint_chunk: Callable[[list], list] | None,
+            pairs: list[tuple[str, Any]]) -> list[Any]:
+    """The reports of (file, options) PAIRS: by ``lint_chunk(pairs)`` when there is one (files
+    linted together), else file by file."""
+    if lint_chunk is not None:
+        return [_strip(r) for r in lint_chunk(pairs)]
+    return [_strip(lint_file(path, options)) for path, options in pairs]
 
 
 def usable_cpus() -> int:
@@ -126,17 +136,18 @@ def _lint_range(start: int, end: int) -> tuple[int, float, list[Any]]:
 
     assert _INHERITED_CACHE is not None and _LINT_CACHE is not None
     cpu = time.process_time()
-    reports = [_strip(_LINT_CACHE(path, options)) for path, options in _INHERITED_CACHE[start:end]]
+    reports = _linted(_LINT_CACHE, _LINT_CHUNK_CACHE, _INHERITED_CACHE[start:end])
     return os.getpid(), time.process_time() - cpu, reports
 
 
 def _lint_chunk(lint_file: Callable[[str, Any], Any], options: list[Any],
-                files: list[tuple[str, int]]) -> tuple[int, float, list[Any]]:
+                files: list[tuple[str, int]], lint_chunk: Callable[[list], list] | None = None
+                ) -> tuple[int, float, list[Any]]:
     """In a worker that inherited nothing: lint (file, index into options) pairs."""
     import time
 
     cpu = time.process_time()
-    reports = [_strip(lint_file(path, options[i])) for path, i in files]
+    reports = _linted(lint_file, lint_chunk, [(path, options[i]) for path, i in files])
     return os.getpid(), time.process_time() - cpu, reports
 
 
@@ -345,12 +356,14 @@ def _context():
 
 
 def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: Callable[[str, Any], Any],
-                        prepare: Callable[[Any], Any]) -> Iterator[Any]:
+                        prepare: Callable[[Any], Any],
+                        lint_chunk: Callable[[list], list] | None = None) -> Iterator[Any]:
     """Reports for (file, options) pairs, in order, each yielded as soon as it and those before it
     are done, linted by ``jobs`` processes (this one included). ``lint_file(path, options)`` lints
-    one file (a module-level function, so a worker can be handed it); ``prepare(options)`` runs
-    once per distinct options in each process before its first file."""
-    global _INHERITED_CACHE, _LINT_CACHE
+    one file (a module-level function, so a worker can be handed it); ``lint_chunk(pairs)``,
+    when given, lints a chunk's pairs together instead (their reports, in order);
+    ``prepare(options)`` runs once per distinct options in each process before its first file."""
+    global _INHERITED_CACHE, _LINT_CACHE, _LINT_CHUNK_CACHE
     import time
 
     if not pairs:
@@ -383,7 +396,8 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
         a, b = bounds[i]
         if fork:
             return pool.submit(a, b)
-        return pool.submit(_lint_chunk, lint_file, distinct, [(path, index[id(o)]) for path, o in pairs[a:b]])
+        return pool.submit(_lint_chunk, lint_file, distinct, [(path, index[id(o)]) for path, o in pairs[a:b]],
+                           lint_chunk)
 
     prepared_first = bool(workers) and fork  # forked workers then inherit what prepare() builds
     if prepared_first:
@@ -391,7 +405,7 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
             prepare(options)  # parse the catalogue and import the checks
     if workers:
         if fork:
-            _INHERITED_CACHE, _LINT_CACHE = pairs, lint_file
+            _INHERITED_CACHE, _LINT_CACHE, _LINT_CHUNK_CACHE = pairs, lint_file, lint_chunk
             gc.freeze()  # the workers' collector then leaves the inherited objects (and their pages) alone
         try:
             if fork:
@@ -416,7 +430,7 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
         finally:
             if fork:
                 gc.unfreeze()
-                _INHERITED_CACHE, _LINT_CACHE = None, None  # the workers have their copy
+                _INHERITED_CACHE, _LINT_CACHE, _LINT_CHUNK_CACHE = None, None, None  # the workers have their copy
     LAST_RUN_CACHE["here"] = time.process_time() - started
     mine = time.process_time()
     if not prepared_first:  # a pool that is not forked prepares in each worker: this process meanwhile
@@ -425,7 +439,7 @@ def lint_files_parallel(pairs: list[tuple[str, Any]], jobs: int, *, lint_file: C
 
     def here(i: int) -> list[Any]:
         a, b = bounds[i]
-        return [_strip(lint_file(path, options)) for path, options in pairs[a:b]]
+        return _linted(lint_file, lint_chunk, pairs[a:b])
 
     try:
         for order in range(len(bounds)):

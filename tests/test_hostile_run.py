@@ -484,8 +484,9 @@ def _inject(target: str, exc: str) -> str:
             f"m.{func} = boom\n")
 
 
+# (engine._apply_waivers: the engine's step after a view's rules, file by file or in a batch)
 @pytest.mark.parametrize("target", ["cfgcheck.links.attach_linked", "cfgcheck.load.read_source",
-                                    "cfgcheck.load.load_text", "cfgcheck.engine.lint_view",
+                                    "cfgcheck.load.load_text", "cfgcheck.engine._apply_waivers",
                                     "cfgcheck.engine.build_view", "cfgcheck.run.open_view"])
 @pytest.mark.parametrize("exc", ["ValueError", "RuntimeError", "KeyError"])
 def test_a_bug_outside_the_rules_is_exit_3_and_the_other_files_stay(tmp_path, target, exc):
