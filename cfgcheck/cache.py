@@ -1037,21 +1037,24 @@ def usage(root: str | os.PathLike) -> tuple[int, int]:
     return n, total
 
 
-def lint_cached(pairs: Iterable[tuple[str, Any]], store: Store, lint_recorded, lint_many=None):
+def lint_cached(pairs: Iterable[tuple[str, Any]], store: Store, lint_recorded, lint_many=None,
+                window: int = 0):
     """Reports for (file, options) pairs, in order: stored ones when they still hold, the others
     from ``lint_recorded(path, options) -> (report, facts)`` (or, for several misses at once,
-    ``lint_many(misses) -> iterator of (report, facts)``, e.g. over processes). What they store
-    is written behind the lint and is on disk once the reports are all taken or the iterator is
+    ``lint_many(misses) -> iterator of (report, facts)``, e.g. over processes). ``window``: with
+    ``lint_many``, the pairs are taken that many at a time (the misses of each window linted
+    together), so that only a window's stored reports are held at once. What they store is
+    written behind the lint and is on disk once the reports are all taken or the iterator is
     closed. The caller calls ``store.close()`` once it has taken the reports it wants."""
     store.write_behind = True
     try:
-        yield from _lint_cached(list(pairs), store, lint_recorded, lint_many)
+        yield from _lint_cached(list(pairs), store, lint_recorded, lint_many, window)
     finally:
         store.flush()
         store.write_behind = False
 
 
-def _lint_cached(pairs: list[tuple[str, Any]], store: Store, lint_recorded, lint_many):
+def _lint_cached(pairs: list[tuple[str, Any]], store: Store, lint_recorded, lint_many, window: int = 0):
     keyed: list[tuple[str, str] | None] = []
     for path, options in pairs:
         try:
@@ -1060,6 +1063,19 @@ def _lint_cached(pairs: list[tuple[str, Any]], store: Store, lint_recorded, lint
             keyed.append(None)
         if keyed[-1] is None:
             store.run_whole = False
+    if lint_many is not None and window > 0:
+        for start in range(0, len(pairs), window):
+            span = range(start, min(len(pairs), start + window))
+            found = [store.get(keyed[i][0]) if keyed[i] else None for i in span]
+            misses = [i for i, r in zip(span, found) if r is None]
+            fresh = iter(lint_many([pairs[i] for i in misses])) if misses else iter(())
+            for i, report in zip(span, found):
+                if report is None:
+                    report, facts = next(fresh)
+                    if keyed[i]:
+                        store.put(keyed[i][0], keyed[i][1], pairs[i][0], facts, report)
+                yield report
+        return
     if lint_many is None:
         for (path, options), k in zip(pairs, keyed):
             report = store.get(k[0]) if k else None

@@ -1019,7 +1019,9 @@ def _lint_files_cached(pairs: list[tuple[str, Options]], jobs: int | str, keep_v
                                               prepare=active_rules, lint_chunk=_lint_together_recorded):
                 yield report, report.__dict__.pop("_reads", {})
 
-    for report in lint_cached(pairs, store, lint_file_recorded, many or _lint_batches_recorded):
+    # serially, BATCH_FILES files at a time: the misses among them linted together
+    for report in lint_cached(pairs, store, lint_file_recorded, many or _lint_batches_recorded,
+                              window=0 if many else BATCH_FILES):
         if not keep_views:
             drop_views(report)
         yield report
