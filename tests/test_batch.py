@@ -127,3 +127,26 @@ def test_a_batch_notes_each_files_reads_into_that_files_own_record(tmp_path, mon
     assert [facts for _, facts in together] == [facts for _, facts in alone]
     pins = str(tmp_path / "requirements.txt")
     assert any(k[1] == pins for _, facts in together for k in facts)  # a rule's read, noted
+
+
+def test_a_batch_of_large_files_runs_as_soon_as_it_holds_enough_text(tmp_path, monkeypatch):
+    """However large the files, a batch keeps at most about BATCH_TEXT characters of them (and
+    their documents) before their rules run."""
+    files = _mixed_files(tmp_path)
+    pairs = [(f, Options()) for f in files]
+    runs = []
+    real_run = engine.Batch.run
+
+    def counted(self):
+        runs.append(len(self.jobs))
+        real_run(self)
+
+    monkeypatch.setattr(engine.Batch, "run", counted)
+    monkeypatch.setattr(engine, "BATCH_TEXT", 1)  # every file fills a batch
+    small = list(engine.lint_files(pairs, keep_views=False))
+    assert max(runs) == 1 and sum(runs) > 10
+    runs.clear()
+    monkeypatch.setattr(engine, "BATCH_TEXT", 1 << 30)
+    big = list(engine.lint_files(pairs, keep_views=False))
+    assert max(runs) > 10
+    assert [_summary(r) for r in small] == [_summary(r) for r in big]
