@@ -494,7 +494,21 @@ class Batch:
         self.jobs, self.ends, self.size = [], [], 0
         lint_views(jobs)
         for end in ends:
-            _documents_linted(*end)
+            try:
+                _documents_linted(*end)
+            except Exception as exc:  # the crash boundary of one file, as in _lint_text
+                report, _reasons, file, options, _located = end
+                if options.debug:
+                    raise
+                _crashed(report, file, exc)
+
+
+def _crashed(report: FileReport, file: str, exc: BaseException) -> None:
+    """REPORT made what ``_lint_text`` returns for a file whose lint failed outside the rules:
+    the internal error alone."""
+    report.findings, report.views, report.waived = [], [], []
+    report.problem = report.skipped = report.layout = report.compose_problem = None
+    report.internal = [internal_error(file, None, exc)]
 
 
 def lint_views(jobs: list[tuple]) -> None:

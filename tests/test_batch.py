@@ -76,6 +76,17 @@ def test_a_batch_over_files_with_options_of_their_own_runs_each_with_its_rules(t
     assert {f.rule for r in together[1::2] for f in r.findings} <= set(narrow.only) | {"waiver-comment-problem"}
 
 
+def _together_with_one_failing(tmp_path):
+    """The mixed files linted in batches, compared with each alone; waived.yaml the only one
+    with an internal error. -> (the batched reports, waived.yaml's)."""
+    pairs = [(f, Options()) for f in _mixed_files(tmp_path)]
+    together = list(engine.lint_files(pairs, keep_views=False))
+    assert [_summary(r) for r in together] == [_summary(r) for r in _one_by_one(pairs)]
+    failed = [r for r in together if r.internal]
+    assert [os.path.basename(r.file) for r in failed] == ["waived.yaml"]
+    return together, failed[0]
+
+
 def test_a_rule_that_fails_on_one_file_of_a_batch_spares_the_others(tmp_path, monkeypatch):
     real = checks.all_checks()["lora-scale-below-one"]
 
@@ -85,13 +96,8 @@ def test_a_rule_that_fails_on_one_file_of_a_batch_spares_the_others(tmp_path, mo
         return real(ctx)
 
     monkeypatch.setitem(checks.all_checks(), "lora-scale-below-one", fails_on_one)
-    files = _mixed_files(tmp_path)
-    pairs = [(f, Options()) for f in files]
-    together = list(engine.lint_files(pairs, keep_views=False))
-    assert [_summary(r) for r in together] == [_summary(r) for r in _one_by_one(pairs)]
-    failed = [r for r in together if r.internal]
-    assert [os.path.basename(r.file) for r in failed] == ["waived.yaml"]
-    assert failed[0].internal[0].rule == "lora-scale-below-one"
+    together, failed = _together_with_one_failing(tmp_path)
+    assert failed.internal[0].rule == "lora-scale-below-one"
     assert any(f.rule == "lora-scale-below-one" for r in together for f in r.findings)  # the others ran it
 
 
@@ -150,3 +156,19 @@ def test_a_batch_of_large_files_runs_as_soon_as_it_holds_enough_text(tmp_path, m
     big = list(engine.lint_files(pairs, keep_views=False))
     assert max(runs) > 10
     assert [_summary(r) for r in small] == [_summary(r) for r in big]
+
+
+def test_a_bug_after_a_files_rules_spares_the_rest_of_its_batch(tmp_path, monkeypatch):
+    """A failure in the engine's last step for one file (its findings sorted, filtered) is that
+    file's internal error, as when it is linted alone; the batch's other files are complete."""
+    real = engine._documents_linted
+
+    def fails_on_one(report, reasons, file, options, located_in):
+        if os.path.basename(file) == "waived.yaml":
+            raise ValueError("a bug after the rules")
+        return real(report, reasons, file, options, located_in)
+
+    monkeypatch.setattr(engine, "_documents_linted", fails_on_one)
+    together, failed = _together_with_one_failing(tmp_path)
+    assert failed.findings == [] and failed.internal[0].rule is None
+    assert sum(len(r.findings) for r in together) > 30
