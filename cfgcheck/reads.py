@@ -268,9 +268,9 @@ def forget() -> None:
 def memo(maxsize: int = 64) -> Callable[[Callable], Callable]:
     """A memo of a function's answers by its arguments (at most MAXSIZE, emptied when full) for
     functions that look at the disk: a call served from the memo notes the facts the first call
-    noted, so each file's record stays complete. A call made
-    while nothing records (a run without the result cache) notes nothing: its answer is kept
-    without facts, and worked out again, recorded, should a caller that records ask for it."""
+    noted, so each file's record stays complete. A call made while nothing records (a run
+    without the result cache) notes nothing: its answer is kept without facts, and worked out
+    again, recorded, should a caller that records ask for it."""
 
     def wrap(fn: Callable) -> Callable:
         table: dict[tuple, tuple[Any, tuple | None]] = {}
