@@ -1054,36 +1054,22 @@ def _json_unplaced(text: str, doc: Document) -> bool:
         if depth > MAX_DEPTH:
             raise _NotAligned
         cls = value.__class__
-        if cls is dict:
+        if cls is dict or cls is list:
             depth += 1
             if depth > MAX_DEPTH and value:
                 raise _NotAligned  # its members are past the limit
-            for k, v in value.items():
+            members = cls is dict  # an object's members have keys, an array's items do not
+            key = _KEYED if members else None
+            for k, v in value.items() if members else enumerate(value):
                 c = v.__class__
                 child = path + (k,)
                 if c is dict or c is list:
-                    walk(v, child, True, depth)
+                    walk(v, child, members, depth)
                 else:
-                    e = Entry((child,), _KEYED, places, "json")
+                    e = Entry((child,), key, places, "json")
                     e._lines = places
                     entries[child] = e
-            e = Entry((path,), _KEYED if keyed else None, "", "json", None, "map")
-        elif cls is list:
-            depth += 1
-            if depth > MAX_DEPTH and value:
-                raise _NotAligned
-            i = 0
-            for v in value:
-                c = v.__class__
-                child = path + (i,)
-                if c is dict or c is list:
-                    walk(v, child, False, depth)
-                else:
-                    e = Entry((child,), None, places, "json")
-                    e._lines = places
-                    entries[child] = e
-                i += 1
-            e = Entry((path,), _KEYED if keyed else None, "", "json", None, "seq")
+            e = Entry((path,), _KEYED if keyed else None, "", "json", None, "map" if members else "seq")
         else:
             e = Entry((path,), None, places, "json")
         e._lines = places
