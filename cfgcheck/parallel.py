@@ -40,9 +40,10 @@ from typing import Any, Callable, Iterator
 # ``--jobs auto`` gives each worker at least this many files, so a run of fewer than twice as many
 # stays serial: a pool costs about 12 ms to start and stop on 2 cores (measured: forked pool of two,
 # one empty chunk each), and each worker then builds the tables of the layouts and models it meets
-# first (15-60 ms), against about 3 ms of CPU a file of the benchmark corpus. A pool of two breaks
-# even near 30 files; at 64 it saves about a quarter of the serial time (bench/RESULTS.md).
-AUTO_FILES_PER_WORKER = 32
+# first, against about 0.2 ms a file of the benchmark corpus once files are linted in batches
+# (engine.Batch). bench/run.py's threshold row, serial / --jobs 2 on 2 cores: 64 files 0.95-0.96
+# (the pool slower), 128 files 1.01-1.02, 256 files 1.10 (bench/RESULTS.md, a582fed).
+AUTO_FILES_PER_WORKER = 64
 
 # at most this many files a chunk: 15 to 150 ms of work (0.3 to 3 ms a file of the benchmark
 # corpus on the machines measured), against about 0.4 ms of round trip. Measured on 2 cores over
