@@ -986,18 +986,29 @@ def lint_files(pairs: list[tuple[str, Options]], *, jobs: int | str = 1,
 
 def lint_together(pairs: list[tuple[str, Options]], keep_views: bool = False) -> list[FileReport]:
     """``lint_file`` of each (file, options) pair, the files linted together (one ``Batch``)."""
+    return [report for report, _facts in _linted_together(pairs, False, keep_views)]
+
+
+def _linted_together(pairs: list[tuple[str, Options]], recorded: bool,
+                     keep_views: bool = True) -> list[tuple[FileReport, dict | None]]:
+    """(report, its record of reads when RECORDED, else None) of each pair, the files linted in
+    one batch (run early should their text pass BATCH_TEXT), with the collector paused."""
     batch = Batch()
+    done: list[tuple[FileReport, dict | None]] = []
     with memo.collector_paused():  # as lint_text pauses it for one file
-        reports = []
         for path, opts in pairs:
-            reports.append(lint_file(path, opts, batch))
+            if recorded:
+                with reads.recording() as facts:
+                    done.append((lint_file(path, opts, batch), facts))
+            else:
+                done.append((lint_file(path, opts, batch), None))
             if batch.size > BATCH_TEXT:  # large files: linted as soon as they fill the batch
                 batch.run()
         batch.run()
         if not keep_views:  # freed before the collector runs again: it never walks them
-            for report in reports:
+            for report, _facts in done:
                 drop_views(report)
-    return reports
+    return done
 
 
 # files linted together (``Batch``): measured over the 2,000 configs of bench/run.py, in one
@@ -1063,14 +1074,4 @@ def _lint_batches_recorded(misses: list[tuple[str, Options]]) -> Iterator[tuple[
     """``lint_file_recorded`` of each (file, options), BATCH_FILES files at a time (``Batch``):
     each file's rules note what they read into the record its read began."""
     for start in range(0, len(misses), BATCH_FILES):
-        batch = Batch()
-        done = []
-        with memo.collector_paused():
-            for path, opts in misses[start:start + BATCH_FILES]:
-                with reads.recording() as facts:
-                    report = lint_file(path, opts, batch)
-                done.append((report, facts))
-                if batch.size > BATCH_TEXT:
-                    batch.run()
-            batch.run()
-        yield from done
+        yield from _linted_together(misses[start:start + BATCH_FILES], True)

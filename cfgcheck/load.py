@@ -197,7 +197,7 @@ class Entry:
     @property
     def raw(self) -> str:
         r = self._raw
-        if r.__class__ is _Lines or r.__class__ is _JsonPlaces:
+        if isinstance(r, _Lines):  # the document's text (a _JsonPlaces is one too), not yet cut
             at = self._value
             if at.__class__ is tuple and len(at) == 1:
                 self._unplaced()
@@ -234,7 +234,7 @@ class Entry:
 
     @value.setter
     def value(self, span: Span) -> None:
-        if self._raw.__class__ is _Lines or self._raw.__class__ is _JsonPlaces:
+        if isinstance(self._raw, _Lines):
             self.raw  # cut from where the value stood before it moves
         self._value = span
 

@@ -74,7 +74,7 @@ def remembered(kind: str, key: Hashable, compute: Callable[[], Any]) -> Any:
     if table is None:
         table = memo[kind] = {}
     got = table.get(key)
-    wanted = reads.recording_now()
+    wanted = reads.active_record() is not None
     if got is None or (wanted and got[1] is None):
         # worked out with its facts noted only when a record is kept (a run with the result
         # cache): without one, nothing would read them

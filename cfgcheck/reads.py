@@ -242,11 +242,6 @@ def active_record() -> Facts | None:
     return _RECORD.get()
 
 
-def recording_now() -> bool:
-    """Whether a record is active (the facts noted now would be kept)."""
-    return _RECORD.get() is not None
-
-
 def replay(seen: tuple) -> None:
     """Note again, in the record now active, the facts an earlier (memoised) call noted."""
     facts = _RECORD.get()

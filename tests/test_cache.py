@@ -320,7 +320,7 @@ def test_a_memo_first_asked_with_nothing_recording_still_gives_a_recording_calle
         reads.note_file(path)
         return len(calls)
 
-    assert not reads.recording_now()
+    assert reads.active_record() is None
     assert look(str(f)) == 1 and look(str(f)) == 1  # remembered, with no facts kept
     with reads.recording() as facts:
         assert look(str(f)) == 2  # worked out again: the facts were never noted
