@@ -315,7 +315,9 @@ def test_a_linked_config_is_judged_by_the_pins_beside_its_target_whatever_the_ru
     text = ("model_name_or_path: mistralai/Mistral-7B-v0.1\noutput_dir: out/x\nlearning_rate: 1.0e-4\n"
             "per_device_train_batch_size: 2\nnum_train_epochs: 3\nmax_seq_length: 1024\n")
     (there / "train.yaml").write_text(text)
-    (there / "requirements.txt").write_text("trl==1.16.0\n")  # max_seq_length removed in trl 0.20
+    # max_seq_length: accepted by trl 0.9-0.19, gone in 0.20 (the bundled key table, generated
+    # from TRL's released SFTConfig classes)
+    (there / "requirements.txt").write_text("trl==1.16.0\n")
     (here / "requirements.txt").write_text("trl==0.12.0\n")  # still accepted there
     (here / "own.yaml").write_text(text)
     (here / "link.yaml").symlink_to(there / "train.yaml")
