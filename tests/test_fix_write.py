@@ -52,7 +52,7 @@ def test_interrupted_between_temp_write_and_rename_leaves_original(config, monke
 
 
 def test_refuses_when_the_file_changed_since_read(config, monkeypatch):
-    real = fix.fix_text
+    real = fix._fix_text  # what fix_files fixes each file with
     edited = "learning_rate: 3e-4\nnum_train_epochs: 2\n"
 
     def and_someone_saves(*a, **k):
@@ -60,7 +60,7 @@ def test_refuses_when_the_file_changed_since_read(config, monkeypatch):
         config.write_text(edited)  # an editor saves while we compute
         return out
 
-    monkeypatch.setattr(fix, "fix_text", and_someone_saves)
+    monkeypatch.setattr(fix, "_fix_text", and_someone_saves)
     result = fix.fix_file(config, api.make_options())
     assert not result.written and "changed on disk" in result.refused
     assert config.read_text() == edited

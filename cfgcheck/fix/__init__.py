@@ -70,7 +70,9 @@ def fix_text(text: str, name: str = "<text>", options: Options | None = None, *,
 
 def _fix_text(text: str, name: str, options: Options | None, *, fmt: str | None, training: bool,
               halve_batch: int, linked_before: dict | None, linked_after: dict | None,
-              check_stable: bool) -> FileFix:
+              check_stable: bool, first: tuple | None = None) -> FileFix:
+    """``first``: (documents, report) of ``_first_passes`` for TEXT, or None; used only where
+    the text is fixed as it was read (no byte-order mark or old Mac line ends rewritten first)."""
     halve_batch = int(halve_batch)
     lead = "\ufeff" if text.startswith("\ufeff") else ""  # a second byte-order mark: kept as is
     body = text[len(lead):]
@@ -88,7 +90,8 @@ def _fix_text(text: str, name: str, options: Options | None, *, fmt: str | None,
         return result
     result = _fix_body(body, name, options, fmt=fmt, training=training, halve_batch=halve_batch,
                        linked_before=linked_before, linked_after=linked_after,
-                       check_stable=check_stable)
+                       check_stable=check_stable,
+                       first=None if lead or cr_only else first)  # made of the text as read
     if cr_only:
         result.old_text, result.new_text = text, lead + result.new_text.replace("\n", "\r")
     elif lead:
@@ -102,7 +105,7 @@ def _fix_text(text: str, name: str, options: Options | None, *, fmt: str | None,
 
 def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None, training: bool,
               halve_batch: int, linked_before: dict | None, linked_after: dict | None,
-              check_stable: bool, linted=None) -> FileFix:
+              check_stable: bool, linted=None, first: tuple | None = None) -> FileFix:
     options = options or Options()
     fmt = fmt or loadmod.guess_format(name, text)
     linked_before = linked_before or {}
@@ -111,7 +114,7 @@ def _fix_body(text: str, name: str, options: Options | None, *, fmt: str | None,
     if linted is not None:  # the stability pass: the proof's re-lint of this very text
         before = linted
     else:
-        before = _lint_before(text, name, options, fmt, linked_before, training, halve_batch)
+        before = _lint_before(text, name, options, fmt, linked_before, training, halve_batch, first)
     if before.problem is not None:
         result.problem = before.problem
         return result
@@ -214,7 +217,7 @@ def _clears_alone(text: str, name: str, fmt: str, docs: list, plan: _Planned, ed
 
 
 def _lint_before(text: str, name: str, options: Options, fmt: str, linked: dict, training: bool,
-                 halve_batch: int):
+                 halve_batch: int, first: tuple | None = None):
     """The lint of the text before fixing: by every rule that runs wherever a fix is to be made.
 
     Only rules whose catalogue record has ``fix:`` propose fixes (``_plan`` takes no other), so
@@ -224,18 +227,19 @@ def _lint_before(text: str, name: str, options: Options, fmt: str, linked: dict,
     already opened, where that gives what one pass by every rule gives, else a lint of the text
     by every rule), as the proof compares the fixed text's findings with all of the old text's.
     A rule that fails makes the whole lint run, so the failure reported is the one lint reports.
+    FIRST: (the documents, their report by the fixing rules) when ``_first_passes`` made them.
     """
     fixing = _fixing_options(options)
     with links.linked_texts(linked):
         if fixing is None:
             return engine.lint_text(text, name, options, fmt)
-        try:
-            docs = loadmod.load_text(text, name, fmt)
-        except LoadError:
-            return engine.lint_text(text, name, options, fmt)  # the input error, as lint says it
-        except Exception:  # a bug in cfgcheck: lint_text reports it
-            return engine.lint_text(text, name, options, fmt)
-        first = _lint_parsed(docs, text, name, fixing)
+        if first is not None:
+            docs, first = first
+        else:
+            docs = _loaded(text, name, fmt)
+            if docs is None:  # the input error (or a bug of ours) as lint reports it
+                return engine.lint_text(text, name, options, fmt)
+            first = _lint_parsed(docs, text, name, fixing)
         if not first.internal and not _plan(first, training=training, halve_batch=halve_batch)[0]:
             return first
         try:  # the other rules on the views the fixing rules judged, as one pass by all would say
@@ -245,6 +249,14 @@ def _lint_before(text: str, name: str, options: Options, fmt: str, linked: dict,
         if whole is not None:
             return whole
         return _lint_parsed(docs, text, name, options)  # the same documents, by every rule
+
+
+def _loaded(text: str, name: str, fmt: str) -> list | None:
+    """The documents of TEXT, or None when it cannot be loaded (or loading fails)."""
+    try:
+        return loadmod.load_text(text, name, fmt)
+    except Exception:  # LoadError, or a bug in cfgcheck: lint_text reports either
+        return None
 
 
 _FIXING_CACHE: dict[int, tuple[Options, Options | None]] = {}  # id(options) -> (options, its fixing options)
@@ -373,16 +385,24 @@ def fix_files(files: Iterable[tuple[str, Options]], *, training: bool = False,
     together or not at all, whatever order their names come in.
     """
     items: list[_Item] = []
+    files = list(files)
     # one run, as lint's (cfgcheck.memo): what lies around a folder and the model lookups are
     # worked out once; nothing is written before the scope ends, so the disk stays as it began
     with memo.scope():
-        for path, options in files:
-            src, problem = _read(path)
-            if problem is not None:
-                items.append(_Item(str(path), options, problem))
-                continue
-            res = fix_text(src.text, str(path), options, training=training, halve_batch=halve_batch)
-            items.append(_Item(str(path), options, res, src))  # real path: by _groups, if needed
+        for start in range(0, len(files), engine.BATCH_FILES):
+            window = files[start:start + engine.BATCH_FILES]
+            read = [_read(path) for path, _options in window]
+            # the result keeps no view (as in fix_text): the window's are let go at its end
+            with memo.collector_paused(), engine.views_let_go():
+                firsts = _first_passes(window, read)
+                for (path, options), (src, problem), first in zip(window, read, firsts):
+                    if problem is not None:
+                        items.append(_Item(str(path), options, problem))
+                        continue
+                    res = _fix_text(src.text, str(path), options, fmt=None, training=training,
+                                    halve_batch=halve_batch, linked_before=None, linked_after=None,
+                                    check_stable=True, first=first)
+                    items.append(_Item(str(path), options, res, src))  # real path: by _groups, if needed
         for group in _groups(items):
             _fix_group(group, training=training, halve_batch=halve_batch)
     if write:
@@ -396,6 +416,37 @@ def fix_files(files: Iterable[tuple[str, Options]], *, training: bool = False,
     for item in items:
         _save_evidence(item.result)
     return FixReport(files=[i.result for i in items])
+
+
+def _first_passes(window: list[tuple[str, Options]],
+                  read: list[tuple[Source | None, FileFix | None]]) -> list[tuple | None]:
+    """(documents, their report by the fixing rules) of each file of WINDOW as ``_lint_before``
+    would make them, the files linted together (``engine.Batch``: each rule's code stays in the
+    processor's caches over the files), or None for a file ``_lint_before`` lints itself: one
+    it cannot load, one whose lead or line ends ``_fix_text`` rewrites first, one whose options
+    run only fixing rules, and those past the text a batch holds (``engine.BATCH_TEXT``)."""
+    batch = engine.Batch()
+    out: list[tuple | None] = []
+    held = 0
+    for (path, options), (src, _problem) in zip(window, read):
+        got = None
+        text = src.text if src is not None else ""
+        fixing = _fixing_options(options) if src is not None else None
+        if (fixing is not None and held <= engine.BATCH_TEXT and not text.startswith("\ufeff")
+                and "\r" not in text):
+            name = str(path)
+            docs = _loaded(text, name, loadmod.guess_format(name, text))
+            if docs is not None:
+                try:
+                    got = (docs, engine.lint_documents(docs, name, fixing, None, text, batch=batch))
+                    held += len(text)
+                except Exception:  # a bug in cfgcheck: _lint_before lints the file again, and says it
+                    if options.debug:
+                        raise
+                    got = None
+        out.append(got)
+    batch.run()
+    return out
 
 
 def _groups(items: list[_Item]) -> list[list[_Item]]:
