@@ -395,7 +395,10 @@ def fix_files(files: Iterable[tuple[str, Options]], *, training: bool = False,
             # the result keeps no view (as in fix_text): the window's are let go at its end
             with memo.collector_paused(), engine.views_let_go():
                 firsts = _first_passes(window, read)
-                for (path, options), (src, problem), first in zip(window, read, firsts):
+                for i, ((path, options), (src, problem)) in enumerate(zip(window, read)):
+                    # each file's documents and report let go once it is fixed: none is left
+                    # for the collector to walk when it runs again
+                    first, firsts[i] = firsts[i], None
                     if problem is not None:
                         items.append(_Item(str(path), options, problem))
                         continue
@@ -403,6 +406,7 @@ def fix_files(files: Iterable[tuple[str, Options]], *, training: bool = False,
                                     halve_batch=halve_batch, linked_before=None, linked_after=None,
                                     check_stable=True, first=first)
                     items.append(_Item(str(path), options, res, src))  # real path: by _groups, if needed
+                first = None
         for group in _groups(items):
             _fix_group(group, training=training, halve_batch=halve_batch)
     if write:
