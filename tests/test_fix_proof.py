@@ -8,6 +8,7 @@ from pathlib import Path
 
 import pytest
 import yaml
+from hypothesis import given, strategies as st
 from typer.testing import CliRunner
 
 from cfgcheck import api, fix
@@ -277,3 +278,30 @@ def test_lint_does_not_load_the_fixer_or_ruamel():
             "print('cfgcheck.fix' in sys.modules, any(m.startswith('ruamel') for m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT)
     assert out.stdout.split() == ["False", "False"], out.stderr
+
+
+# the characters that decide where a comment is: blanks, line breaks YAML knows (NEL, the Unicode
+# separators, a lone CR), a BOM, quotes, block indicators, a directive's "%", and plain text
+_COMMENT_ALPHABET = " \t\n\r#'\"|>%:-ab1\ufeff\x85\u2028\u2029"
+_texts = st.text(alphabet=_COMMENT_ALPHABET, max_size=60)
+
+
+@given(_texts)
+def test_the_quick_tests_of_the_comment_reader_say_what_their_patterns_say(text):
+    """The string searches give what the patterns they stand for give (YAML 1.2 sec. 5.4: the
+    line breaks; sec. 6.6: a comment starts with "#" after a blank)."""
+    import re
+
+    assert fix_proof._odd_break(text) == bool(re.search("[\x85\u2028\u2029]|\r(?!\n)|(?<=[\\s\\S])\ufeff", text))
+    assert fix_proof._may_hold_hash(text) == bool(re.search("[\"'|>]|^%", text, re.M))
+
+
+@given(_texts)
+def test_comments_of_any_text_that_parses_are_those_a_scan_finds(text):
+    from cfgcheck import load
+
+    try:
+        load.load_text(text, "run.yaml", "yaml")
+    except load.LoadError:
+        return  # the proof reads only texts that parse
+    assert fix_proof._parsed_comments(text) == fix.yaml_comments(text)

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import bisect
 import os
-import re
 from typing import Any, Callable
 
 import yaml
@@ -54,12 +53,23 @@ def yaml_comments(text: str) -> list[str]:
     return out
 
 
-# where a "#" starts a comment when it is outside every token: at the text's start or after a blank
-_COMMENT_START = re.compile("(?:^|(?<=[ \t\r\n\ufeff]))#")
-# what could put such a "#" inside a token: a quote, a block scalar's indicator, a directive line
-_MAY_HOLD_HASH = re.compile("[\"'|>]|^%", re.M)
-# line breaks YAML knows besides "\n" and "\r\n" (a comment ends at them), and a mid-text BOM
-_ODD_BREAK = re.compile("[\x85\u2028\u2029]|\r(?!\n)|(?<=[\\s\\S])\ufeff")
+# what may stand before a "#" that starts a comment outside every token (or the text's start)
+_BLANKS = " \t\r\n\ufeff"
+
+
+def _may_hold_hash(text: str) -> bool:
+    """Whether TEXT holds what could put a "#" inside a token: a quote, a block scalar's
+    indicator, or a directive line (a "%" at a line's start)."""
+    return ('"' in text or "'" in text or "|" in text or ">" in text or text.startswith("%")
+            or "\n%" in text)
+
+
+def _odd_break(text: str) -> bool:
+    """Whether TEXT holds a line break YAML knows besides "\n" and "\r\n" (a comment ends at
+    them: NEL, the Unicode line and paragraph separators, a lone "\r") or a BOM past its start."""
+    if "\x85" in text or "\u2028" in text or "\u2029" in text or text.find("\ufeff", 1) >= 0:
+        return True
+    return "\r" in text and text.count("\r") != text.count("\r\n")  # a "\r" with no "\n" after it
 
 
 def _parsed_comments(text: str) -> list[str]:
@@ -72,24 +82,27 @@ def _parsed_comments(text: str) -> list[str]:
     indicator or a directive stands in the text outside those would-be comments: an opening
     quote or indicator of a scalar holding a "#" stands before that "#", outside every real
     comment. Then, and with line breaks other than "\n" and "\r\n" or a BOM past the start,
-    the text is scanned as ``yaml_comments`` scans it.
+    the text is scanned as ``yaml_comments`` scans it. (String searches, not patterns: a fixed
+    text is read twice a fix, and a pattern tried at every character cost ten times as much.)
     """
-    if "#" not in text:
+    i = text.find("#")
+    if i < 0:
         return []
     out: list[str] = []
     rest: list[str] = []
     pos = 0
-    for m in _COMMENT_START.finditer(text):
-        i = m.start()
-        if i < pos:
-            continue  # a "#" inside the comment just read
+    while i >= 0:
+        if i and text[i - 1] not in _BLANKS:
+            i = text.find("#", i + 1)  # inside a token, or a plain scalar's own
+            continue
         nl = text.find("\n", i)
         stop = len(text) if nl < 0 else nl
         out.append(text[i:stop].rstrip("\r"))
         rest.append(text[pos:i])
         pos = stop
+        i = text.find("#", stop)  # a "#" inside the comment just read is part of it
     rest.append(text[pos:])
-    if _MAY_HOLD_HASH.search("".join(rest)) or _ODD_BREAK.search(text):
+    if _may_hold_hash("".join(rest)) or _odd_break(text):
         return yaml_comments(text)
     return out
 
