@@ -19,10 +19,12 @@ ROOT = Path(__file__).resolve().parents[1]
 PUBLIC = SHARED / "corpus" / "public"
 
 # invented configs: the text shapes the first passes leave to the file's own lint (a byte-order
-# mark, old Mac line ends, mixed line ends), a file of two documents, a waiver, a broken file
+# mark, old Mac line ends, mixed line ends), CRLF line ends they take, a file of two documents, a
+# waiver, a broken file
 WRITTEN = {
     "bom.yaml": "\ufeffmodel_name_or_path: saltmarsh/base-1b\nlearning_rate: 1e-4\nlora_r: 8\nlora_alpha: 4\n",
     "mac.yaml": "model_name_or_path: saltmarsh/base-1b\rlearning_rate: 1e-4\rlora_r: 8\rlora_alpha: 16\r",
+    "crlf.yaml": "model_name_or_path: saltmarsh/base-1b\r\nlearning_rate: 1e-4\r\nlora_r: 8\r\nlora_alpha: 16\r\n",
     "mixed.yaml": "model_name_or_path: saltmarsh/base-1b\r\nlearning_rate: 1e-4\rlora_r: 8\n",
     "two-docs.yaml": "model_name_or_path: saltmarsh/base-1b\nlearning_rate: 1e-4\nlora_r: 8\nlora_alpha: 4\n"
                      "---\nmodel_name_or_path: saltmarsh/base-1b\nlearning_rate: 5e-5\nbf16: true\nfp16: true\n",
@@ -63,13 +65,16 @@ def test_files_fixed_together_get_the_fix_each_gets_alone(tmp_path, monkeypatch,
     alone = _alone(monkeypatch, pairs, training)
     assert [_shown(r) for r in together.files] == [_shown(r) for r in alone.files]
     shown = {os.path.basename(r.file): r for r in together.files}
-    assert shown["plain.yaml"].changed and shown["bom.yaml"].changed and shown["mac.yaml"].changed
+    assert all(shown[n].changed for n in ("plain.yaml", "bom.yaml", "mac.yaml", "crlf.yaml"))
+    assert shown["crlf.yaml"].new_text.count("\r\n") == 4  # its line ends kept
     assert shown["broken.yaml"].problem is not None
     assert any("mix of CR and LF" in n for n in shown["mixed.yaml"].notes)
 
 
-def test_the_first_passes_lint_the_plain_files_of_a_window_and_leave_the_others():
-    files = [str(p) for p in sorted((ROOT / "fixtures" / "fix").glob("*.in.*"))][:6]
+def test_the_first_passes_lint_the_plain_files_of_a_window_and_leave_the_others(tmp_path):
+    crlf = tmp_path / "crlf.yaml"
+    crlf.write_bytes(WRITTEN["crlf.yaml"].encode())
+    files = [str(p) for p in sorted((ROOT / "fixtures" / "fix").glob("*.in.*"))][:5] + [str(crlf)]
     assert len(files) == 6
     window = [(f, engine.Options()) for f in files]
     read = [fixmod._read(f) for f in files]

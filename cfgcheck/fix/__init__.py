@@ -427,8 +427,9 @@ def _first_passes(window: list[tuple[str, Options]],
     """(documents, their report by the fixing rules) of each file of WINDOW as ``_lint_before``
     would make them, the files linted together (``engine.Batch``: each rule's code stays in the
     processor's caches over the files), or None for a file ``_lint_before`` lints itself: one
-    it cannot load, one whose lead or line ends ``_fix_text`` rewrites first, one whose options
-    run only fixing rules, and those past the text a batch holds (``engine.BATCH_TEXT``)."""
+    it cannot load, one whose lead or line ends ``_fix_text`` rewrites first (a byte-order mark,
+    a "\\r" that is not in a "\\r\\n"), one whose options run only fixing rules, and those past
+    the text a batch holds (``engine.BATCH_TEXT``)."""
     batch = engine.Batch()
     out: list[tuple | None] = []
     held = 0
@@ -437,7 +438,7 @@ def _first_passes(window: list[tuple[str, Options]],
         text = src.text if src is not None else ""
         fixing = _fixing_options(options) if src is not None else None
         if (fixing is not None and held <= engine.BATCH_TEXT and not text.startswith("\ufeff")
-                and "\r" not in text):
+                and text.count("\r") == text.count("\r\n")):  # "\r" only in "\r\n" line ends
             name = str(path)
             docs = _loaded(text, name, loadmod.guess_format(name, text))
             if docs is not None:
