@@ -108,7 +108,7 @@ _NOT_YET = object()  # a ``once`` answer not worked out yet (None is an answer)
 class Context:
     """What a check sees: the view, the knowledge, the options, and ``report``.
 
-    ``lint_view`` makes one per view and hands it to each rule in turn, resetting what belongs
+    ``lint_views`` makes one per view and hands it to each rule in turn, resetting what belongs
     to one rule (its thresholds, its cannot-judge notes, its model assumption), so the answers
     several rules of the same view share (``once``) are worked out once."""
 
@@ -441,36 +441,9 @@ def lint_view(view: RunView, options: Options, file: str, report: FileReport,
               waivers: list | None = None, ran: frozenset[str] = frozenset()) -> None:
     """Run the selected rules on VIEW into REPORT, but for those in RAN (``lint_rest``: they
     have run on this view already; the rules that do run still see every selected rule as
-    running, as in one pass)."""
-    plan = _plan(options, view, declared() if view.run is not None else None)
-    if ran:
-        plan = tuple([p for p in plan if p[0].id not in ran])
-    active = _selected(options)[1]
-    findings = report.findings
-    start = len(findings)
-    targets = {w.target for w in waivers or () if w.target}
-    paths = waivermod.target_paths(view.doc, targets) if targets else {}
-    # one context for the view; each rule reports straight into the file's findings, and what a
-    # rule that fails had reported is taken back out
-    ctx = Context(view, plan[0][0] if plan else None, options, findings, file, waivers=waivers,
-                  active=active, waiver_paths=paths)
-    for rule, fn, last in plan:
-        # the next rule: nothing of the last rule's stays
-        ctx.rule = rule
-        ctx._thresholds = ctx._judged_once = None
-        ctx._model_assumption = ""
-        if last:
-            ctx.earlier = findings[start:]
-        mark = len(findings)
-        try:
-            fn(ctx)
-        except Exception as exc:  # a bug in a rule: report it and go on with the others
-            if options.debug:
-                raise
-            del findings[mark:]
-            report.internal.append(internal_error(file, rule.id, exc))
-            continue
-    _apply_waivers(waivers or [], paths, options, report, start)
+    running, as in one pass). ``lint_views`` of the one view: a failure outside the rules is
+    raised to the caller's crash boundary."""
+    lint_views([(view, options, file, report, waivers, None)], ran=ran, boundary=False)
 
 
 class Batch:
@@ -511,17 +484,21 @@ def _crashed(report: FileReport, file: str, exc: BaseException) -> None:
     report.internal = [internal_error(file, None, exc)]
 
 
-def lint_views(jobs: list[tuple]) -> None:
-    """``lint_view(view, options, file, report, waivers)`` for each job, the jobs' rules taken
-    rule by rule across them: each job's rules run in its own order (its plan, a part of the
-    selected rules' order), each into its own report, so every report ends as ``lint_view``
-    alone would leave it. A job's report must be its own (one view a report). Jobs whose
-    options select other rules run in groups of their own."""
+def lint_views(jobs: list[tuple], *, ran: frozenset[str] = frozenset(), boundary: bool = True) -> None:
+    """The selected rules on the view of each job (view, options, file, report, waivers, the
+    record of reads its rules note what they read into or None), taken rule by rule across the
+    jobs: each job's rules run in its own order (its plan, a part of the selected rules' order),
+    each into its own report, so every report ends as the job linted alone leaves it. A job's
+    report must be its own (one view a report). Jobs whose options select other rules run in
+    groups of their own. RAN: rules left out (``lint_view``). A rule that fails is its file's
+    internal error; so is any other failure with BOUNDARY, which without it is raised."""
     groups: dict[int, list] = {}
     for job in jobs:
         view, options, file, report, waivers, _record = job
         try:
             plan = _plan(options, view, declared() if view.run is not None else None)
+            if ran:
+                plan = tuple([p for p in plan if p[0].id not in ran])
             rules, active = _selected(options)
             findings = report.findings
             targets = {w.target for w in waivers or () if w.target}
@@ -529,12 +506,14 @@ def lint_views(jobs: list[tuple]) -> None:
             ctx = Context(view, plan[0][0] if plan else None, options, findings, file, waivers=waivers,
                           active=active, waiver_paths=paths)
         except Exception as exc:  # as lint_view's caller would record it: the document's boundary
-            if options.debug:
+            if options.debug or not boundary:
                 raise
             report.internal.append(internal_error(file, None, exc))
             continue
         groups.setdefault(id(rules), [rules, []])[1].append([ctx, plan, 0, len(findings), job, paths])
     for rules, items in groups.values():
+        if len(items) == 1:  # one view: its plan is the order (every rule of it is selected)
+            rules = [p[0] for p in items[0][1]]
         for rule in rules:
             last = rule.stage == "last"
             for item in items:
@@ -568,7 +547,7 @@ def lint_views(jobs: list[tuple]) -> None:
             try:
                 _apply_waivers(waivers or [], item[5], options, report, item[3])
             except Exception as exc:
-                if options.debug:
+                if options.debug or not boundary:
                     raise
                 report.internal.append(internal_error(file, None, exc))
 
