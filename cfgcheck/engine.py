@@ -510,31 +510,39 @@ def lint_views(jobs: list[tuple], *, ran: frozenset[str] = frozenset(), boundary
                 raise
             report.internal.append(internal_error(file, None, exc))
             continue
-        groups.setdefault(id(rules), [rules, []])[1].append([ctx, plan, 0, len(findings), job, paths])
+        groups.setdefault(id(rules), [rules, []])[1].append([ctx, plan, len(findings), job, paths])
     for rules, items in groups.values():
-        if len(items) == 1:  # one view: its plan is the order (every rule of it is selected)
-            rules = [p[0] for p in items[0][1]]
-        for rule in rules:
-            last = rule.stage == "last"
+        if len(items) == 1:  # one view: its plan is the order
+            order = [(rule, last, ((items[0], fn),)) for rule, fn, last in items[0][1]]
+        else:
+            # each rule with the jobs whose plans hold it, in the jobs' order: a plan is a part
+            # of the selected rules in their order, so rule by rule each job's rules run in its own
+            runs: dict[int, list] = {}
             for item in items:
-                plan, at = item[1], item[2]
-                if at >= len(plan) or plan[at][0] is not rule:
-                    continue
-                item[2] = at + 1
-                ctx, fn = item[0], plan[at][1]
+                for rule, fn, _last in item[1]:
+                    got = runs.get(id(rule))
+                    if got is None:
+                        runs[id(rule)] = [(item, fn)]
+                    else:
+                        got.append((item, fn))
+            order = [(rule, rule.stage == "last", got) for rule in rules
+                     if (got := runs.get(id(rule))) is not None]
+        for rule, last, jobs_of_rule in order:
+            for item, fn in jobs_of_rule:
+                ctx = item[0]
                 ctx.rule = rule
                 ctx._thresholds = ctx._judged_once = None
                 ctx._model_assumption = ""
                 findings = ctx._sink
                 if last:
-                    ctx.earlier = findings[item[3]:]
+                    ctx.earlier = findings[item[2]:]
                 mark = len(findings)
-                record = item[4][5]
+                record = item[3][5]
                 token = reads.resume(record) if record is not None else None
                 try:
                     fn(ctx)
                 except Exception as exc:  # a bug in a rule: report it and go on with the others
-                    options, file, report = item[4][1], item[4][2], item[4][3]
+                    options, file, report = item[3][1], item[3][2], item[3][3]
                     if options.debug:
                         raise
                     del findings[mark:]
@@ -543,9 +551,9 @@ def lint_views(jobs: list[tuple], *, ran: frozenset[str] = frozenset(), boundary
                     if token is not None:
                         reads.pause(token)
         for item in items:
-            view, options, file, report, waivers, _record = item[4]
+            view, options, file, report, waivers, _record = item[3]
             try:
-                _apply_waivers(waivers or [], item[5], options, report, item[3])
+                _apply_waivers(waivers or [], item[4], options, report, item[2])
             except Exception as exc:
                 if options.debug or not boundary:
                     raise
