@@ -674,9 +674,6 @@ _SequenceNode = yaml.SequenceNode
 _BOOL_WORDS = MappingProxyType(dict(yaml.constructor.SafeConstructor.bool_values))
 
 
-_new_entry = object.__new__  # an Entry whose fields the builder sets itself (Entry.__init__'s)
-
-
 def _start(node: yaml.Node) -> tuple[int, int]:
     m = node.start_mark
     return m.line + 1, m.column + 1
@@ -707,10 +704,7 @@ class _YamlBuilder:
             self.doc.tags.append((path, tag))
         if node.__class__ is _ScalarNode:
             style = node.style or None
-            e = _new_entry(Entry)  # Entry(node, knode, self.source, style, explicit), as in _mapping
-            e._value, e._key, e._lines, e._raw = node, knode, None, self.source
-            e.style, e.tag, e.kind, e.flow = style, explicit, "scalar", False
-            self.entries[path] = e
+            self.entries[path] = Entry(node, knode, self.source, style, explicit)
             if tag == _STR and (style or not _MAYBE_EXP(node.value)):
                 return node.value  # the common case: text with nothing to report
             return self._scalar(node, path)
@@ -770,30 +764,13 @@ class _YamlBuilder:
                     value = vnode.value
                     if style or not _MAYBE_EXP(value):
                         self.count += 1
-                        # Entry(vnode, knode, source, style), its fields set here: a run makes
-                        # one for nearly every value, and this skips a call of __init__ each
-                        e = _new_entry(Entry)
-                        e._value, e._key, e._lines, e._raw = vnode, knode, None, source
-                        e.style, e.tag, e.kind, e.flow = style, None, "scalar", False
-                        entries[child] = e
+                        entries[child] = Entry(vnode, knode, source, style)
                     else:
                         value = build(vnode, child, knode, depth)
                 elif vtag in _READ_HERE:  # a number, boolean or null: what build() does for it
                     self.count += 1
-                    e = _new_entry(Entry)  # Entry(vnode, knode, source, vnode.style or None)
-                    e._value, e._key, e._lines, e._raw = vnode, knode, None, source
-                    e.style, e.tag, e.kind, e.flow = vnode.style or None, None, "scalar", False
-                    entries[child] = e
-                    value = vnode.value
-                    if (vtag == _INT and len(value) < 19 and value.isdigit() and value.isascii()
-                            and (value[0] != "0" or value == "0")):
-                        # a few decimal digits: what _scalar reads them as, without the call (a
-                        # longer number goes there, where one past Python's limit is an input error)
-                        value = int(value)
-                    elif vtag == _NULL:
-                        value = None
-                    else:
-                        value = self._scalar(vnode, child)
+                    entries[child] = Entry(vnode, knode, source, vnode.style or None)
+                    value = self._scalar(vnode, child)
                 else:
                     value = build(vnode, child, knode, depth)
             else:

@@ -73,9 +73,6 @@ class Field:
         return str(self.path[-1]) if self.path else ""
 
 
-_new_field = object.__new__  # a Field whose fields ``fill`` sets itself
-
-
 class TypeProblem:
     field: Field
     expected: str
@@ -882,11 +879,8 @@ def fill(view: RunView, layout: Layout, data: dict, data_shape: tuple | None = N
             value, ok, auto, from_text = _coerce(name, source)
             huge = ok and too_large(value)
         guess = assumed.get(path) if assumed else None
-        # Field(name, value, path, written, auto, from_text, origin, note), its fields set here
-        # (a run fills one for most values of every file; this skips a call of __init__ each)
-        f = _new_field(Field)
-        f.name, f.value, f.path, f.written = name, None if huge or not ok else value, path, written
-        f.auto, f.from_text, f.origin, f.note = auto, from_text, "assumed" if guess else "written", guess or note
+        f = Field(name, None if huge or not ok else value, path, written, auto, from_text,
+                  "assumed" if guess else "written", guess or note)
         fields[name] = f
         if huge:
             view.out_of_range.append(f)
